@@ -1,0 +1,250 @@
+"""The command line: ``python -m analysis SUBCOMMAND TABLE ...``.
+
+Every subcommand reads any supported table, prints a short human summary and, with
+``--json PATH``, writes its full result as JSON. Bad input ends with one line on stderr and
+exit status 2, never a traceback. The subcommands build the same steps a study holds, so the
+command line and the app give the same numbers.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from analysis.errors import ScoutError, StepError
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 1
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = _parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.handler(args)
+    except ScoutError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("stopped.", file=sys.stderr)
+        return 130
+    except MemoryError:
+        print("error: out of memory. Try a sample of the table, fewer columns, or "
+              "--engine dask on a Parquet file.", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as exc:  # noqa: BLE001 - the last line of defence against a traceback
+        if getattr(args, "debug", False):
+            raise
+        print(f"internal error ({type(exc).__name__}: {exc}). This is a bug in Invariant "
+              "Scout, not in your table; run again with --debug and report the output.",
+              file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="python -m analysis",
+        description="Find patterns in a table of computed invariants.",
+    )
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    inspect = _command(commands, "inspect", "columns, roles, types, missing values, warnings")
+    inspect.set_defaults(handler=_inspect, kind="overview")
+
+    project = _command(commands, "project", "a 2-d picture of the table (PCA, UMAP, t-SNE, LDA)")
+    project.add_argument("--method", choices=["pca", "umap", "tsne", "lda"], default="pca")
+    project.add_argument("--target", help="column to colour by (needed for LDA)")
+    _feature_options(project)
+    project.set_defaults(handler=_step, kind="projection")
+
+    cluster = _command(commands, "cluster", "groups of similar objects, with a sweep over k")
+    cluster.add_argument("--method", default="auto",
+                         choices=["auto", "kmeans", "gmm", "agglomerative", "hdbscan"])
+    cluster.add_argument("--k", type=int, help="number of clusters (default: chosen by sweep)")
+    cluster.add_argument("--compare", metavar="COL", help="a label to compare the clusters with")
+    _feature_options(cluster)
+    cluster.set_defaults(handler=_step, kind="clustering")
+
+    separate = _command(commands, "separate",
+                        "is TARGET predictable from the other invariants, and by what equation")
+    separate.add_argument("--target", required=True, metavar="COL")
+    separate.add_argument("--model", default="linear",
+                          choices=["linear", "logistic", "lda", "rbf", "poly2"])
+    separate.add_argument("--train-fraction", type=float, default=0.5, metavar="F")
+    separate.add_argument("--groups", metavar="COL",
+                          help="rows with the same value (or the same matrix up to "
+                               "permutation, for an array column) stay on one side of a split")
+    _feature_options(separate)
+    separate.set_defaults(handler=_step, kind="separator")
+
+    relations = _command(commands, "relations",
+                         "exact linear relations and sharp bounds among invariants")
+    relations.add_argument("--columns", metavar="A,B,...", help="columns to search (default: "
+                           "every integer invariant)")
+    relations.set_defaults(handler=_step, kind="relations")
+
+    outliers = _command(commands, "outliers", "a ranked list of objects to look at by hand")
+    outliers.add_argument("--target", metavar="COL")
+    outliers.add_argument("--csv", metavar="PATH", help="also write the list as CSV")
+    _feature_options(outliers)
+    outliers.set_defaults(handler=_step, kind="outliers")
+
+    run = commands.add_parser("run", help="re-run a saved study and write its report")
+    run.add_argument("study", metavar="STUDY.json")
+    run.add_argument("--table", metavar="TABLE", help="the table (default: the one the study "
+                     "names, relative to the study file)")
+    run.add_argument("--out", metavar="report.html", help="write the HTML report here")
+    run.add_argument("--json", metavar="PATH", help="write every step's result as JSON")
+    run.add_argument("--id", metavar="COL")
+    run.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    run.set_defaults(handler=_run)
+
+    report = _command(commands, "report", "a default study of the table as one HTML file")
+    report.add_argument("--target", metavar="COL")
+    report.add_argument("--out", metavar="report.html", required=True)
+    report.add_argument("--study-out", metavar="STUDY.json", help="also save the study")
+    report.set_defaults(handler=_report)
+    return parser
+
+
+def _command(commands, name: str, help_text: str) -> argparse.ArgumentParser:
+    sub = commands.add_parser(name, help=help_text, description=help_text)
+    sub.add_argument("table", metavar="TABLE", help="CSV, TSV, JSON, JSON Lines or Parquet")
+    sub.add_argument("--id", metavar="COL", help="the column that names each object")
+    sub.add_argument("--seed", type=int, default=0)
+    sub.add_argument("--json", metavar="PATH", help="write the full result as JSON")
+    sub.add_argument("--engine", choices=["local", "dask"], default="local")
+    sub.add_argument("--scheduler", metavar="ADDRESS",
+                     help="dask scheduler address (default: a local cluster on 127.0.0.1)")
+    sub.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    return sub
+
+
+def _feature_options(sub: argparse.ArgumentParser) -> None:
+    sub.add_argument("--features", metavar="A,B,...",
+                     help="feature columns (default: every invariant, flag, category and array "
+                          "column but the target)")
+    sub.add_argument("--array-encoding", choices=["invariant", "flat", "both"],
+                     default="invariant", help="how matrix and list cells become features")
+    sub.add_argument("--log-scale", choices=["auto", "never", "always"], default="auto")
+    sub.add_argument("--missing", choices=["drop", "impute"], default="drop")
+
+
+def _split(text: str | None) -> list[str] | None:
+    if text is None:
+        return None
+    names = [part.strip() for part in text.split(",") if part.strip()]
+    if not names:
+        raise StepError("an empty column list; name columns separated by commas.")
+    return names
+
+
+def _params(args: argparse.Namespace) -> dict:
+    """Step parameters from the options the subcommand has."""
+    params: dict = {"seed": args.seed}
+    mapping = {
+        "method": "method", "target": "target", "k": "k", "compare": "compare",
+        "model": "model", "train_fraction": "train_fraction", "groups": "groups",
+        "array_encoding": "array_encoding", "log_scale": "log_scale", "missing": "missing",
+    }
+    for option, name in mapping.items():
+        if hasattr(args, option) and getattr(args, option) is not None:
+            params[name] = getattr(args, option)
+    if getattr(args, "features", None):
+        params["columns"] = _split(args.features)
+    if getattr(args, "columns", None):
+        params["columns"] = _split(args.columns)
+    return params
+
+
+def _load(args: argparse.Namespace):
+    from analysis.table import load_table
+
+    return load_table(args.table, id_column=args.id)
+
+
+def _write_json(path: str | None, payload: dict) -> None:
+    if path:
+        Path(path).write_text(json.dumps(payload, indent=2, allow_nan=False) + "\n",
+                              encoding="utf-8")
+
+
+def _inspect(args: argparse.Namespace) -> int:
+    from analysis.overview import OverviewStep
+
+    if args.engine == "dask":
+        return _step(args)
+    table = _load(args)
+    result = OverviewStep(seed=args.seed).run(table)
+    print(result.summary())
+    payload = table.summary()
+    payload.update({"summary": result.to_json()})
+    _write_json(args.json, payload)
+    return 0
+
+
+def _step(args: argparse.Namespace) -> int:
+    from analysis.steps import make_step
+
+    params = _params(args)
+    if args.kind == "overview":
+        params = {"seed": args.seed}
+    step = make_step(args.kind, params)
+    if args.engine == "dask":
+        from analysis.distributed import run_distributed
+
+        result = run_distributed(step, args.table, scheduler=args.scheduler,
+                                 id_column=args.id)
+    else:
+        result = step.run(_load(args))
+    print(result.summary())
+    _write_json(args.json, result.to_json())
+    if getattr(args, "csv", None):
+        from analysis.export import write_csv
+
+        write_csv(result.to_frame(), args.csv)
+        print(f"wrote {args.csv}")
+    return 0
+
+
+def _run(args: argparse.Namespace) -> int:
+    from analysis.study import load_study, run_study
+    from analysis.table import load_table
+
+    study_path = Path(args.study)
+    study = load_study(study_path)
+    table_path = Path(args.table) if args.table else study.table_path(study_path)
+    table = load_table(table_path, id_column=args.id)
+    outcome = run_study(study, table)
+    print(outcome.summary())
+    if args.json:
+        _write_json(args.json, outcome.to_json())
+    if args.out:
+        from analysis.report import write_report
+
+        write_report(outcome, args.out)
+        print(f"wrote {args.out}")
+    return 0 if outcome.ok else EXIT_BAD_INPUT
+
+
+def _report(args: argparse.Namespace) -> int:
+    from analysis.report import write_report
+    from analysis.study import default_study, run_study, save_study
+
+    table = _load(args)
+    study = default_study(table, target=args.target, seed=args.seed)
+    outcome = run_study(study, table)
+    print(outcome.summary())
+    write_report(outcome, args.out)
+    print(f"wrote {args.out}")
+    if args.study_out:
+        save_study(study, args.study_out)
+        print(f"wrote {args.study_out}")
+    _write_json(args.json, outcome.to_json())
+    return 0 if outcome.ok else EXIT_BAD_INPUT
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,434 @@
+"""From a Table to a feature matrix whose every feature names the column it came from.
+
+Numeric invariants are used in the table's own units (so an equation found later reads in
+them), optionally on the signed log scale ``sign(x) * log10(1 + |x|)`` for heavy tails and
+integers beyond 64 bits. Categories are one-hot encoded, flags become 0/1, and array columns
+are encoded by choice: padded flattening, or features that do not change when the rows or
+columns of a matrix are permuted.
+
+Canonical keys name a matrix up to row and column permutations; objects with equal keys form
+a group, and groups never straddle a train/test split.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from analysis.errors import StepError, TableError
+from analysis.table import Table
+
+ARRAY_ENCODINGS = ("invariant", "flat", "both")
+LOG_SCALES = ("auto", "never", "always")
+MISSING_POLICIES = ("drop", "impute")
+# Most row orders the exact canonical key will try before it falls back to invariants.
+EXACT_KEY_ORDERS = 5040
+
+
+@dataclass(frozen=True)
+class Feature:
+    """One column of the feature matrix: its name, the table column it came from, and how."""
+
+    name: str
+    column: str
+    kind: str
+    detail: str = ""
+
+
+@dataclass(frozen=True)
+class FeatureMatrix:
+    """Features for the kept rows of a table."""
+
+    values: np.ndarray
+    features: tuple[Feature, ...]
+    rows: np.ndarray
+    row_ids: np.ndarray
+    notes: tuple[str, ...] = ()
+
+    @property
+    def names(self) -> list[str]:
+        return [f.name for f in self.features]
+
+    @property
+    def exact_columns(self) -> tuple[bool, ...]:
+        """True for features that are exact integers in the table's own units."""
+        flags = []
+        for j, feature in enumerate(self.features):
+            column = self.values[:, j]
+            flags.append(feature.kind in ("value", "flag", "onehot") and bool(
+                np.all(column == np.round(column)) and np.all(np.abs(column) < 2**53)))
+        return tuple(flags)
+
+    @property
+    def columns(self) -> list[str]:
+        """The table columns the features came from, each once, in order."""
+        return list(dict.fromkeys(f.column for f in self.features))
+
+
+def default_feature_columns(table: Table, *, target: str | None = None,
+                            exclude: tuple[str, ...] = ()) -> list[str]:
+    """Every invariant, flag, category and array column, but the target and excluded ones."""
+    return [c.name for c in table.columns
+            if c.role in ("invariant", "flag", "category", "array")
+            and c.name != target and c.name not in exclude and c.dtype != "empty"]
+
+
+def build_features(table: Table, *, columns: list[str] | None = None, target: str | None = None,
+                   array_encoding: str = "invariant", log_scale: str = "auto",
+                   missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeatureMatrix:
+    """Build the feature matrix of ``table``.
+
+    Parameters
+    ----------
+    columns: table columns to use; default every invariant, flag, category and array column
+        except ``target`` and ``exclude``.
+    target: a column whose missing cells also drop (or cannot be imputed in) a row.
+    array_encoding: "invariant" (sorted entries, sorted row and column sums, singular values,
+        eigenvalues or characteristic polynomial), "flat" (padded flattening) or "both".
+    log_scale: "auto" (signed log for integers beyond 64 bits), "never" or "always".
+    missing: "drop" rows with a missing feature or target, or "impute" (median / most common).
+    """
+    if array_encoding not in ARRAY_ENCODINGS:
+        raise StepError(f"array encoding {array_encoding!r}: use one of "
+                        f"{', '.join(ARRAY_ENCODINGS)}.")
+    if log_scale not in LOG_SCALES:
+        raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
+    if missing not in MISSING_POLICIES:
+        raise StepError(f"missing-value policy {missing!r}: use drop or impute.")
+    if columns is None:
+        columns = default_feature_columns(table, target=target, exclude=exclude)
+    else:
+        for name in columns:
+            info = table.column(name)
+            if info.role in ("id", "text"):
+                raise StepError(
+                    f"{table.name}: column {name!r} has the role {info.role} and cannot be a "
+                    "feature. Give it the role invariant, category, flag or array first."
+                )
+        if target is not None and target in columns:
+            raise StepError(f"{table.name}: the target {target!r} cannot also be a feature.")
+    if not columns:
+        raise StepError(f"{table.name}: no feature columns. Mark some columns as invariant, "
+                        "flag, category or array.")
+    blocks: list[np.ndarray] = []
+    features: list[Feature] = []
+    notes: list[str] = []
+    for name in columns:
+        block, names = _encode_column(table, name, array_encoding, log_scale, notes)
+        blocks.append(block)
+        features.extend(names)
+    values = np.column_stack(blocks) if blocks else np.empty((table.n_rows, 0))
+    values = values.astype(np.float64, copy=False)
+    bad = ~np.isfinite(values)
+    target_missing = np.zeros(table.n_rows, dtype=bool)
+    if target is not None:
+        target_missing = _missing_mask(table, target)
+    rows = np.arange(table.n_rows)
+    if bad.any() or target_missing.any():
+        inf_count = int(np.isinf(values).any(axis=1).sum())
+        if inf_count:
+            notes.append(f"{inf_count} rows have an infinite feature value; treated as missing.")
+        if missing == "drop":
+            keep = ~(bad.any(axis=1) | target_missing)
+            dropped = int((~keep).sum())
+            notes.append(f"dropped {dropped} of {table.n_rows} rows with a missing value "
+                         f"({int(bad.any(axis=1).sum())} in features, "
+                         f"{int(target_missing.sum())} in the target).")
+            values = values[keep]
+            rows = rows[keep]
+        else:
+            filled = 0
+            for j in range(values.shape[1]):
+                column_bad = bad[:, j]
+                if column_bad.any():
+                    good = values[~column_bad, j]
+                    fill = float(np.median(good)) if len(good) else 0.0
+                    values[column_bad, j] = fill
+                    filled += int(column_bad.sum())
+            keep = ~target_missing
+            values = values[keep]
+            rows = rows[keep]
+            notes.append(f"filled {filled} missing feature cells with the column median; "
+                         f"dropped {int(target_missing.sum())} rows with no target value.")
+    if len(rows) == 0:
+        raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
+                        "other columns or impute missing values.")
+    row_ids = table.row_ids[rows]
+    return FeatureMatrix(values=np.ascontiguousarray(values), features=tuple(features),
+                         rows=rows, row_ids=row_ids, notes=tuple(notes))
+
+
+def target_values(table: Table, column: str, rows: np.ndarray | None = None) -> np.ndarray:
+    """Values of a target column at ``rows``: numbers for invariants, labels otherwise."""
+    info = table.column(column)
+    if info.role == "array":
+        raise StepError(f"{table.name}: the array column {column!r} cannot be a target.")
+    if info.role == "invariant" and info.dtype in ("integer", "real", "big integer", "rational"):
+        values = table.numeric(column)
+    else:
+        values = table.frame[column].to_numpy(dtype=object)
+    return values if rows is None else values[rows]
+
+
+def is_numeric_target(table: Table, column: str) -> bool:
+    """A target is treated as numeric (regression) when it is a many-valued invariant."""
+    info = table.column(column)
+    return info.role == "invariant" and info.distinct > 12
+
+
+def group_keys(table: Table, column: str) -> np.ndarray:
+    """Group labels: the values of a group column, or canonical keys of an array column."""
+    info = table.column(column)
+    series = table.frame[column]
+    if info.role == "array":
+        return np.array([("missing" if v is None else canonical_key(v)) for v in series],
+                        dtype=object)
+    return np.array([str(v) for v in series.tolist()], dtype=object)
+
+
+def canonical_key(matrix) -> str:
+    """A key equal for a matrix and every matrix obtained by permuting its rows and columns.
+
+    The key is exact when few orderings of the smaller side need trying (at most
+    ``EXACT_KEY_ORDERS``, counting only swaps of lines with equal multisets of entries): the
+    least, over those orderings, of the matrix with the other side sorted. Other matrices get
+    a key from permutation invariants (shape, sorted entries, sorted row and column sums,
+    singular values), which may merge inequivalent matrices but never splits
+    equivalent ones. Lists are keyed by their sorted entries.
+    """
+    array = np.asarray(matrix)
+    if array.ndim == 1:
+        entries = sorted(array.tolist())
+        return "list:" + _hash(repr((len(entries), entries)))
+    if array.ndim != 2:
+        raise TableError(f"canonical key: expected a list or a matrix, got {array.ndim} axes.")
+    rows, cols = array.shape
+    if min(rows, cols) == 0:
+        return f"exact:{rows}x{cols}"
+    work = array if rows <= cols else array.T
+    orders = _row_orders(work.tolist())
+    if orders is not None:
+        entries = work.tolist()
+        best = None
+        for order in orders:
+            permuted = [entries[i] for i in order]
+            # with the rows fixed, sorting the columns is the canonical column order
+            candidate = tuple(sorted(zip(*permuted)))
+            if best is None or candidate < best:
+                best = candidate
+        return f"exact:{rows}x{cols}:" + _hash(repr(best))
+    values = array.astype(np.float64)
+    singular = np.linalg.svd(values, compute_uv=False)
+    summary = (
+        array.shape,
+        sorted(array.ravel().tolist()),
+        sorted(array.sum(axis=1).tolist()),
+        sorted(array.sum(axis=0).tolist()),
+        [round(float(s), 8) for s in singular],
+    )
+    return f"invariants:{rows}x{cols}:" + _hash(repr(summary))
+
+
+def _row_orders(entries: list[list]):
+    """Row orders worth trying, or None when there are too many for an exact key.
+
+    A row's multiset of entries survives any permutation, so rows only need reordering
+    among rows with the same multiset; blocks of such rows are taken in a fixed order.
+    """
+    blocks: dict[tuple, list[int]] = {}
+    for i, row in enumerate(entries):
+        blocks.setdefault(tuple(sorted(row)), []).append(i)
+    groups = [blocks[key] for key in sorted(blocks)]
+    count = 1
+    for group in groups:
+        count *= math.factorial(len(group))
+    if count > EXACT_KEY_ORDERS:
+        return None
+    per_group = [list(itertools.permutations(group)) for group in groups]
+    return (tuple(i for part in combo for i in part) for combo in itertools.product(*per_group))
+
+
+def _hash(text: str) -> str:
+    return hashlib.sha256(text.encode()).hexdigest()[:20]
+
+
+# ----------------------------------------------------------------------------------------
+
+
+def _missing_mask(table: Table, column: str) -> np.ndarray:
+    series = table.frame[column]
+    mask = series.isna().to_numpy()
+    info = table.column(column)
+    if info.dtype in ("integer", "real", "big integer", "rational"):
+        mask = mask | ~np.isfinite(table.numeric(column))
+    return mask
+
+
+def _signed_log(values) -> np.ndarray:
+    out = np.empty(len(values), dtype=np.float64)
+    for i, v in enumerate(values):
+        if v is None or (isinstance(v, float) and math.isnan(v)):
+            out[i] = np.nan
+        elif isinstance(v, int) and abs(v) > 2**53:
+            # log10 of a Python int is exact enough at any size, with no float overflow
+            out[i] = math.copysign(math.log10(abs(v)) + math.log10(1 + 1 / abs(v)), v)
+        else:
+            x = float(v)
+            out[i] = math.copysign(math.log10(1 + abs(x)), x)
+    return out
+
+
+def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
+                   notes: list[str]) -> tuple[np.ndarray, list[Feature]]:
+    info = table.column(name)
+    series = table.frame[name]
+    if info.role == "invariant" or (info.role == "flag" and info.dtype != "boolean"):
+        if info.role == "flag":
+            return _flag_block(table, name, notes)
+        use_log = log_scale == "always" or (log_scale == "auto" and info.dtype == "big integer")
+        if use_log:
+            values = _signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
+                else _signed_log(table.numeric(name).tolist())
+            if log_scale == "auto":
+                notes.append(f"{name!r} holds integers beyond 64 bits: used as "
+                             f"sign(x)*log10(1+|x|).")
+            return values[:, None], [Feature(f"slog({name})", name, "log",
+                                             "sign(x)*log10(1+|x|)")]
+        return table.numeric(name)[:, None], [Feature(name, name, "value")]
+    if info.role == "flag":
+        return _flag_block(table, name, notes)
+    if info.role == "category":
+        labels = series.astype(object).where(series.notna(), None).tolist()
+        levels = sorted({str(v) for v in labels if v is not None})
+        if len(levels) > 200:
+            raise StepError(
+                f"{table.name}: category column {name!r} has {len(levels)} values; one-hot "
+                "encoding it would swamp the other features. Give it the role text, or group "
+                "its values first."
+            )
+        block = np.zeros((len(labels), len(levels)))
+        position = {level: j for j, level in enumerate(levels)}
+        for i, v in enumerate(labels):
+            if v is None:
+                block[i, :] = np.nan
+            else:
+                block[i, position[str(v)]] = 1.0
+        return block, [Feature(f"{name}={level}", name, "onehot", level) for level in levels]
+    if info.role == "array":
+        return _array_block(table, name, array_encoding, notes)
+    raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a feature.")
+
+
+def _flag_block(table: Table, name: str, notes: list[str]):
+    values = table.numeric(name) if table.column(name).dtype == "boolean" else None
+    if values is None:
+        series = table.frame[name]
+        levels = sorted({str(v) for v in series.dropna().tolist()})
+        if len(levels) > 2:
+            raise StepError(f"{table.name}: flag column {name!r} has more than two values.")
+        top = levels[-1] if levels else ""
+        values = np.array([np.nan if pd.isna(v) else float(str(v) == top)
+                           for v in series.tolist()])
+    return values[:, None], [Feature(name, name, "flag")]
+
+
+def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
+    cells = table.frame[name].tolist()
+    present = [c for c in cells if c is not None]
+    if not present:
+        raise StepError(f"{table.name}: array column {name!r} is empty.")
+    ndims = {c.ndim for c in present}
+    shapes = {c.shape for c in present}
+    blocks: list[np.ndarray] = []
+    features: list[Feature] = []
+    if encoding in ("flat", "both"):
+        block, names = _flattened(name, cells, shapes)
+        if len(shapes) > 1:
+            notes.append(f"{name!r}: arrays of different shapes padded with 0 to "
+                         f"{'x'.join(map(str, _max_shape(shapes)))} for flattening.")
+        blocks.append(block)
+        features.extend(names)
+    if encoding in ("invariant", "both"):
+        block, names = _invariants(name, cells, ndims, shapes)
+        blocks.append(block)
+        features.extend(names)
+        if len(shapes) > 1:
+            notes.append(f"{name!r}: permutation-invariant features of different-sized arrays "
+                         "padded with 0.")
+    return np.column_stack(blocks), features
+
+
+def _max_shape(shapes: set) -> tuple:
+    ndim = max(len(s) for s in shapes)
+    return tuple(max((s[k] if len(s) > k else 1) for s in shapes) for k in range(ndim))
+
+
+def _flattened(name: str, cells: list, shapes: set):
+    target = _max_shape(shapes)
+    width = int(np.prod(target))
+    block = np.full((len(cells), width), np.nan)
+    for i, cell in enumerate(cells):
+        if cell is None:
+            continue
+        padded = np.zeros(target)
+        as_float = cell.astype(np.float64) if cell.dtype != object else np.array(
+            [float(x) for x in cell.ravel()]).reshape(cell.shape)
+        if as_float.ndim < len(target):
+            as_float = as_float.reshape(as_float.shape + (1,) * (len(target) - as_float.ndim))
+        padded[tuple(slice(0, k) for k in as_float.shape)] = as_float
+        block[i] = padded.ravel()
+    if len(target) == 1:
+        names = [Feature(f"{name}[{k}]", name, "flat") for k in range(width)]
+    else:
+        names = [Feature(f"{name}[{r},{c}]", name, "flat")
+                 for r in range(target[0]) for c in range(target[1])]
+    return block, names
+
+
+def _invariants(name: str, cells: list, ndims: set, shapes: set):
+    """Sorted entries, sorted row/column sums, singular values, eigenvalues or char. poly."""
+    parts: dict[str, list] = {}
+    square = all(len(s) == 2 and s[0] == s[1] for s in shapes)
+    symmetric = square and all(
+        c is None or np.array_equal(c, c.T) for c in cells)
+    for cell in cells:
+        if cell is None:
+            for key in parts:
+                parts[key].append(None)
+            continue
+        m = cell.astype(np.float64) if cell.dtype != object else np.array(
+            [float(x) for x in cell.ravel()]).reshape(cell.shape)
+        values = {"sorted": -np.sort(-m.ravel())}
+        if m.ndim == 2:
+            values["row_sums"] = -np.sort(-m.sum(axis=1))
+            values["column_sums"] = -np.sort(-m.sum(axis=0))
+            values["singular"] = np.linalg.svd(m, compute_uv=False) if m.size else np.zeros(0)
+            if square and symmetric:
+                values["eigen"] = np.sort(np.linalg.eigvalsh(m))[::-1]
+            elif square:
+                values["charpoly"] = np.poly(m)[1:] if m.size else np.zeros(0)
+        for key, vector in values.items():
+            parts.setdefault(key, []).append(vector)
+    blocks = []
+    features = []
+    titles = {"sorted": "sorted entry", "row_sums": "sorted row sum",
+              "column_sums": "sorted column sum", "singular": "singular value",
+              "eigen": "eigenvalue", "charpoly": "char. poly coefficient"}
+    for key, vectors in parts.items():
+        width = max((len(v) for v in vectors if v is not None), default=0)
+        block = np.full((len(vectors), width), np.nan)
+        for i, v in enumerate(vectors):
+            if v is not None:
+                block[i, : len(v)] = v
+                block[i, len(v):] = 0.0
+        blocks.append(block)
+        label = {"sorted": "sorted", "row_sums": "rowsum", "column_sums": "colsum",
+                 "singular": "sv", "eigen": "eig", "charpoly": "charpoly"}[key]
+        features.extend(Feature(f"{label}{k + 1}({name})", name, key, titles[key])
+                        for k in range(width))
+    return np.column_stack(blocks), features

@@ -1,0 +1,143 @@
+"""The overview step: the table's shape, its columns and roles, and a summary of each column."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from analysis.plain import plain
+from analysis.table import Table
+
+
+@dataclass(frozen=True)
+class ColumnSummary:
+    """Summary of one column: range and centre for numbers, most common values otherwise."""
+
+    name: str
+    role: str
+    dtype: str
+    missing: int
+    distinct: int
+    minimum: object = None
+    maximum: object = None
+    mean: float | None = None
+    common: tuple = ()
+
+    def to_json(self) -> dict:
+        return plain({
+            "name": self.name, "role": self.role, "dtype": self.dtype,
+            "missing": self.missing, "distinct": self.distinct,
+            "min": self.minimum, "max": self.maximum, "mean": self.mean,
+            "common": [list(pair) for pair in self.common],
+        })
+
+
+@dataclass(frozen=True)
+class OverviewResult:
+    table: str
+    digest: str
+    rows: int
+    columns: tuple[ColumnSummary, ...]
+    warnings: tuple[str, ...]
+    id_column: str | None
+    correlations: tuple[tuple[str, str, float], ...] = ()
+    kind: ClassVar[str] = "overview"
+
+    def to_json(self) -> dict:
+        return plain({
+            "table": self.table,
+            "digest": self.digest,
+            "rows": self.rows,
+            "id_column": self.id_column,
+            "columns": [c.to_json() for c in self.columns],
+            "warnings": list(self.warnings),
+            "correlations": [{"a": a, "b": b, "pearson": r} for a, b, r in self.correlations],
+        })
+
+    def summary(self) -> str:
+        ids = f"id column {self.id_column!r}" if self.id_column else "ids are row numbers"
+        lines = [f"{self.table}: {self.rows} rows, {len(self.columns)} columns, {ids}"]
+        width = max((len(c.name) for c in self.columns), default=4)
+        for c in self.columns:
+            extra = ""
+            if c.minimum is not None:
+                extra = f"  range {c.minimum} .. {c.maximum}"
+            elif c.common:
+                extra = "  e.g. " + ", ".join(str(v) for v, _ in c.common[:3])
+            lines.append(f"  {c.name:<{width}}  {c.role:<9} {c.dtype:<11} "
+                         f"missing {c.missing:<6} distinct {c.distinct}{extra}")
+        for a, b, r in self.correlations[:5]:
+            lines.append(f"  strongly correlated: {a} ~ {b} (Pearson r = {r:+.3f})")
+        lines.extend(f"  warning: {w}" for w in self.warnings)
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True, kw_only=True)
+class OverviewStep:
+    """Describe the table: roles, types, missing values, ranges, strongly correlated pairs."""
+
+    top_correlations: int = 10
+    seed: int = 0
+    kind: ClassVar[str] = "overview"
+
+    def run(self, table: Table) -> OverviewResult:
+        summaries = [_summarize(table, c) for c in table.columns]
+        return OverviewResult(
+            table=table.name, digest=table.digest, rows=table.n_rows,
+            columns=tuple(summaries), warnings=table.warnings, id_column=table.id_column,
+            correlations=_correlations(table, self.top_correlations),
+        )
+
+
+def _summarize(table: Table, info) -> ColumnSummary:
+    series = table.frame[info.name]
+    base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
+                distinct=info.distinct)
+    if info.dtype in ("integer", "real"):
+        values = table.numeric(info.name)
+        finite = values[np.isfinite(values)]
+        if len(finite):
+            lo, hi = finite.min(), finite.max()
+            if info.dtype == "integer":
+                lo, hi = int(lo), int(hi)
+            return ColumnSummary(**base, minimum=lo, maximum=hi, mean=float(finite.mean()))
+    if info.dtype in ("big integer", "rational"):
+        present = [v for v in series.tolist() if v is not None]
+        if present:
+            return ColumnSummary(**base, minimum=str(min(present)), maximum=str(max(present)),
+                                 mean=float(np.mean([float(v) for v in present])))
+    if info.dtype == "array":
+        shapes: dict[str, int] = {}
+        for v in series.tolist():
+            if v is not None:
+                key = "x".join(map(str, v.shape))
+                shapes[key] = shapes.get(key, 0) + 1
+        common = tuple(sorted(shapes.items(), key=lambda kv: -kv[1])[:5])
+        return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in common))
+    try:
+        counts = series.astype(str).where(series.notna()).value_counts().head(5)
+        common = tuple((str(k), int(v)) for k, v in counts.items())
+    except TypeError:
+        common = ()
+    return ColumnSummary(**base, common=common)
+
+
+def _correlations(table: Table, top: int) -> tuple:
+    names = [c.name for c in table.columns
+             if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
+    if len(names) < 2 or top <= 0:
+        return ()
+    sample = table.frame[names]
+    if len(sample) > 200_000:
+        sample = sample.sample(200_000, random_state=0)
+    matrix = sample.astype(float).corr().to_numpy()
+    pairs = []
+    for i in range(len(names)):
+        for j in range(i + 1, len(names)):
+            r = matrix[i, j]
+            if np.isfinite(r) and abs(r) >= 0.9:
+                pairs.append((names[i], names[j], float(r)))
+    pairs.sort(key=lambda p: -abs(p[2]))
+    return tuple(pairs[:top])

@@ -1,0 +1,77 @@
+"""The kinds of step a study can hold, and how a step is made from plain JSON parameters.
+
+Every step is a frozen, keyword-only dataclass with a class attribute ``kind`` and a method
+``run(table)`` returning a frozen result with ``to_json()`` and ``summary()``. Its parameters
+are exactly its fields, so ``dataclasses.asdict(step)`` is what a study file stores and
+``make_step(kind, params)`` rebuilds it. Modules are imported when a kind is first used, so
+that reading a table never pays for scikit-learn or UMAP.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import importlib
+
+from analysis.errors import StudyError
+
+# kind -> (module, class name)
+STEP_KINDS: dict[str, tuple[str, str]] = {
+    "overview": ("analysis.overview", "OverviewStep"),
+    "projection": ("analysis.projection", "ProjectionStep"),
+    "clustering": ("analysis.clustering", "ClusteringStep"),
+    "separator": ("analysis.separation", "SeparatorStep"),
+    "relations": ("analysis.relations", "RelationsStep"),
+    "outliers": ("analysis.outliers", "OutliersStep"),
+}
+
+# Words shown for each kind in the app and the report.
+KIND_TITLES = {
+    "overview": "Overview",
+    "projection": "Projection",
+    "clustering": "Clustering",
+    "separator": "Separator",
+    "relations": "Relations and bounds",
+    "outliers": "Objects to look at",
+}
+
+
+def step_class(kind: str) -> type:
+    """The step class for ``kind``; StudyError for an unknown kind."""
+    if kind not in STEP_KINDS:
+        raise StudyError(f"unknown step kind {kind!r}; known kinds are "
+                         f"{', '.join(STEP_KINDS)}.")
+    module_name, class_name = STEP_KINDS[kind]
+    module = importlib.import_module(module_name)
+    return getattr(module, class_name)
+
+
+def make_step(kind: str, params: dict | None = None):
+    """Build a step from its kind and JSON parameters, naming any unknown parameter."""
+    cls = step_class(kind)
+    params = dict(params or {})
+    known = {f.name for f in dataclasses.fields(cls)}
+    unknown = sorted(set(params) - known)
+    if unknown:
+        raise StudyError(
+            f"step {kind!r}: unknown setting {unknown[0]!r}; known settings are "
+            f"{', '.join(sorted(known))}."
+        )
+    try:
+        return cls(**params)
+    except TypeError as exc:
+        raise StudyError(f"step {kind!r}: bad settings ({exc}).") from None
+
+
+def step_params(step) -> dict:
+    """The JSON parameters of a step (its fields), as stored in a study file."""
+    return {f.name: _plain(getattr(step, f.name)) for f in dataclasses.fields(step)}
+
+
+def _plain(value):
+    if isinstance(value, tuple):
+        return [_plain(v) for v in value]
+    if isinstance(value, list):
+        return [_plain(v) for v in value]
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    return value
