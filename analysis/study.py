@@ -704,6 +704,17 @@ class StudyRun:
 
 
 ProgressCallback = Callable[[str, int, int], None]
+_TIMING_KEYS = ("timing", "elapsed_seconds")
+
+
+def without_timing(data):
+    """A copy of run JSON with every timing removed (the top-level "timing" key and any
+    "elapsed_seconds" a step's result reports), for comparing two runs number by number."""
+    if isinstance(data, dict):
+        return {k: without_timing(v) for k, v in data.items() if k not in _TIMING_KEYS}
+    if isinstance(data, list):
+        return [without_timing(v) for v in data]
+    return data
 
 
 def apply_table_settings(study: Study, table: Table) -> Table:
