@@ -1,0 +1,411 @@
+"""Studies: the versioned JSON file, editing steps, and running a study on a table."""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+from pathlib import Path
+
+import pytest
+
+from analysis.errors import StepError, StudyError
+from analysis.overview import OverviewStep
+from analysis.study import (
+    STUDY_VERSION,
+    ResultCache,
+    Study,
+    StudyStep,
+    TableSettings,
+    add_step,
+    check_step,
+    load_study,
+    move_step,
+    new_step,
+    remove_step,
+    run_study,
+    save_study,
+    study_from_json,
+    study_to_json,
+    update_step,
+    without_timing,
+)
+from analysis.table import load_table, read_table
+
+TABLES = Path(__file__).resolve().parent.parent / "sample_tables"
+
+SMALL_CSV = (
+    b"name,a,b,c,kind\n"
+    b"x1,1,2,3,even\n"
+    b"x2,2,3,5,odd\n"
+    b"x3,3,5,8,even\n"
+    b"x4,4,4,8,odd\n"
+    b"x5,5,1,6,even\n"
+    b"x6,6,9,15,odd\n"
+    b"x7,7,2,9,even\n"
+    b"x8,8,8,16,odd\n"
+)
+
+
+@pytest.fixture(scope="module")
+def small():
+    return read_table(SMALL_CSV, "small.csv")
+
+
+@pytest.fixture(scope="module")
+def fields():
+    return load_table(TABLES / "quadratic_fields.csv")
+
+
+def _study(table, *steps: StudyStep, **changes) -> Study:
+    base = Study(table=table.name, steps=steps, title="a test study",
+                 table_digest=table.digest)
+    return dataclasses.replace(base, **changes)
+
+
+def _two_steps(table) -> Study:
+    return _study(table, new_step("overview", {"seed": 3}),
+                  new_step("projection", {"method": "pca", "seed": 3}, title="PCA picture"))
+
+
+def _valid() -> dict:
+    return {
+        "version": STUDY_VERSION,
+        "title": "t",
+        "table": "small.csv",
+        "table_digest": None,
+        "table_settings": {"id_column": None, "roles": {}},
+        "steps": [{"kind": "overview", "title": None, "params": {"seed": 0}}],
+    }
+
+
+def _with(change) -> dict:
+    data = _valid()
+    change(data)
+    return data
+
+
+# ----------------------------------------------------------------------------------------
+# The file
+
+
+def test_round_trip_through_a_file_keeps_the_study(tmp_path, small):
+    study = _two_steps(small)
+    path = tmp_path / "small.study.json"
+    save_study(study, path)
+    loaded = load_study(path)
+    assert loaded == study
+    assert study_to_json(loaded) == study_to_json(study)
+    # The file is plain JSON (RFC 8259): the standard library reads it back unchanged.
+    assert json.loads(path.read_text(encoding="utf-8")) == study_to_json(study)
+
+
+def test_a_study_stores_every_setting_defaults_included(small):
+    study = _two_steps(small)
+    params = study.steps[0].params
+    fields = {f.name for f in dataclasses.fields(OverviewStep)}
+    assert set(params) == fields
+    assert params["seed"] == 3
+    assert study.steps[0].build() == OverviewStep(seed=3)
+
+
+def test_json_without_defaults_reads_the_same_as_with_them():
+    data = _valid()
+    data["steps"][0]["params"] = {}
+    short = study_from_json(data)
+    data["steps"][0]["params"] = {"seed": 0, "top_correlations": 10}
+    assert study_from_json(data) == short
+
+
+def test_table_path_is_next_to_the_study_file(tmp_path):
+    study = study_from_json(_valid())
+    assert study.table_path(tmp_path / "studies" / "a.study.json") == \
+        tmp_path / "studies" / "small.csv"
+
+
+def test_table_settings_round_trip_and_apply(tmp_path, fields):
+    study = _study(fields, new_step("overview"),
+                   table_settings=TableSettings(id_column="field",
+                                                roles={"disc_mod_8": "category"}))
+    path = tmp_path / "fields.study.json"
+    save_study(study, path)
+    loaded = load_study(path)
+    assert loaded.table_settings.role_overrides == {"disc_mod_8": "category"}
+    run = run_study(loaded, fields)
+    assert run.ok, run.summary()
+    columns = {c["name"]: c for c in run.outcomes[0].result.to_json()["columns"]}
+    assert columns["disc_mod_8"]["role"] == "category"
+    assert run.table.id_column == "field"
+
+
+def test_settings_that_do_not_fit_the_table_are_a_study_error(small):
+    study = _study(small, new_step("overview"),
+                   table_settings=TableSettings(roles={"no such column": "category"}))
+    with pytest.raises(StudyError, match="table settings do not fit small.csv.*no such column"):
+        run_study(study, small)
+
+
+MALFORMED = [
+    ("unknown kind", lambda d: d["steps"][0].update(kind="telepathy"),
+     r"step 1: unknown step kind 'telepathy'; known kinds are overview"),
+    ("unknown setting", lambda d: d["steps"][0]["params"].update(colour="red"),
+     r"step 1 \(overview\): unknown setting 'colour'"),
+    ("seed as text", lambda d: d["steps"][0]["params"].update(seed="7"),
+     r"step 1 \(overview\): setting 'seed' must be a whole number, got \"7\""),
+    ("seed as true", lambda d: d["steps"][0]["params"].update(seed=True),
+     r"setting 'seed' must be a whole number, got true"),
+    ("seed as a fraction", lambda d: d["steps"][0]["params"].update(seed=1.5),
+     r"setting 'seed' must be a whole number, got 1.5"),
+    ("negative seed", lambda d: d["steps"][0]["params"].update(seed=-1),
+     r"setting 'seed' must be a whole number from 0"),
+    ("count as text", lambda d: d["steps"][0]["params"].update(top_correlations="ten"),
+     r"setting 'top_correlations' must be a whole number"),
+    ("params not an object", lambda d: d["steps"][0].update(params=[1, 2]),
+     r"step 1 \(overview\): 'params' must be an object"),
+    ("step not an object", lambda d: d["steps"].append("overview"),
+     r"step 2: a step is an object"),
+    ("step without kind", lambda d: d["steps"].append({"params": {}}),
+     r"step 2: no 'kind'"),
+    ("unknown step key", lambda d: d["steps"][0].update(colour="red"),
+     r"step 1: unknown key 'colour'"),
+    ("steps not a list", lambda d: d.update(steps={"kind": "overview"}),
+     r"'steps' must be a list"),
+    ("no table", lambda d: d.pop("table"), r"'table' must name the table file"),
+    ("bad digest", lambda d: d.update(table_digest="abc"), r"'table_digest' must be a sha256"),
+    ("unknown top key", lambda d: d.update(colour="red"), r"unknown key 'colour'"),
+    ("unknown role", lambda d: d["table_settings"]["roles"].update(a="colour"),
+     r"column 'a': unknown role \"colour\""),
+    ("id column as number", lambda d: d["table_settings"].update(id_column=3),
+     r"'id_column' must be a column name"),
+    ("newer version", lambda d: d.update(version="invariant-scout-study/2"),
+     r"study format 'invariant-scout-study/2' is not one this version"),
+    ("foreign version", lambda d: d.update(version="1.0"), r"unknown version \"1.0\""),
+    ("no version", lambda d: d.pop("version"), r"no 'version'"),
+    ("title as number", lambda d: d.update(title=5), r"'title' must be text"),
+]
+
+
+@pytest.mark.parametrize("change, match", [m[1:] for m in MALFORMED],
+                         ids=[m[0] for m in MALFORMED])
+def test_malformed_study_is_rejected_with_the_step_and_setting(change, match):
+    with pytest.raises(StudyError, match=match):
+        study_from_json(_with(change), source="bad.study.json")
+
+
+@pytest.mark.parametrize("data, match", [
+    ([], r"a study is a JSON object .* got a list"),
+    ("overview", r"got text"),
+    (None, r"got null"),
+], ids=["list", "string", "null"])
+def test_json_that_is_not_an_object_is_rejected(data, match):
+    with pytest.raises(StudyError, match=match):
+        study_from_json(data, source="bad.study.json")
+
+
+@pytest.mark.parametrize("content, match", [
+    (b"{\"version\": ", r"bad.study.json, line 1, column 13: not valid JSON"),
+    (b"version: 1\nsteps: []\n", r"not valid JSON"),
+    (b"", r"not valid JSON"),
+    (b"\xff\xfe\x00{", r"not UTF-8 text"),
+    (b"[1, 2, 3]", r"a study is a JSON object"),
+    (b"{\"version\": NaN}", r"NaN is not a JSON number"),
+], ids=["cut short", "yaml", "empty", "not utf-8", "json list", "nan"])
+def test_a_file_that_is_not_a_study_is_rejected(tmp_path, content, match):
+    path = tmp_path / "bad.study.json"
+    path.write_bytes(content)
+    with pytest.raises(StudyError, match=match):
+        load_study(path)
+
+
+def test_a_missing_study_file_is_named(tmp_path):
+    with pytest.raises(StudyError, match=r"nothere.study.json: no such file"):
+        load_study(tmp_path / "nothere.study.json")
+
+
+def test_an_unknown_setting_in_code_is_a_study_error():
+    with pytest.raises(StudyError, match=r"unknown setting 'colour'"):
+        check_step("overview", {"colour": "red"})
+
+
+# ----------------------------------------------------------------------------------------
+# Editing
+
+
+def test_add_remove_and_move_steps_return_new_studies(small):
+    study = _study(small, new_step("overview"))
+    longer = add_step(study, "projection", {"method": "pca"}, title="picture")
+    assert [s.kind for s in study.steps] == ["overview"]
+    assert [s.kind for s in longer.steps] == ["overview", "projection"]
+    first = add_step(longer, "overview", {"seed": 5}, index=0)
+    assert [s.seed for s in first.steps] == [5, 0, 0]
+    moved = move_step(first, 0, 2)
+    assert [(s.kind, s.seed) for s in moved.steps] == [
+        ("overview", 0), ("projection", 0), ("overview", 5)]
+    shorter = remove_step(moved, 1)
+    assert [s.kind for s in shorter.steps] == ["overview", "overview"]
+    changed = update_step(shorter, 1, params={"top_correlations": 2}, title="short overview")
+    assert changed.steps[1].params == {"top_correlations": 2, "seed": 5}
+    assert changed.steps[1].display_title == "short overview"
+    assert shorter.steps[1].params["top_correlations"] == 10
+
+
+@pytest.mark.parametrize("edit, match", [
+    (lambda s: remove_step(s, 3), r"cannot remove step 3: the study has steps 0 to 0"),
+    (lambda s: move_step(s, 0, -1), r"cannot move to step -1"),
+    (lambda s: update_step(s, 0, params={"seed": "x"}), r"'seed' must be a whole number"),
+    (lambda s: add_step(s, "telepathy"), r"unknown step kind 'telepathy'"),
+], ids=["remove out of range", "move out of range", "bad update", "unknown kind"])
+def test_bad_edits_are_study_errors(small, edit, match):
+    with pytest.raises(StudyError, match=match):
+        edit(_study(small, new_step("overview")))
+
+
+def test_a_study_step_cannot_be_changed_through_its_params(small):
+    params = {"seed": 1}
+    step = new_step("overview", params)
+    params["seed"] = 2
+    assert step.params["seed"] == 1
+    assert study_to_json(_study(small, step))["steps"][0]["params"] is not step.params
+
+
+# ----------------------------------------------------------------------------------------
+# Running
+
+
+def test_rerunning_a_study_gives_identical_numbers(small, tmp_path):
+    study = _two_steps(small)
+    path = tmp_path / "s.study.json"
+    save_study(study, path)
+    first = run_study(study, small).to_json()
+    second = run_study(load_study(path), small).to_json()
+    assert first["timing"]["steps"] and "timing" not in without_timing(first)
+    assert without_timing(first) == without_timing(second)
+    # The run JSON is strict JSON (no NaN), as the command line writes it.
+    json.dumps(first, allow_nan=False)
+
+
+def test_the_run_reports_the_table_by_its_sha256(fields):
+    data = (TABLES / "quadratic_fields.csv").read_bytes()
+    run = run_study(_study(fields, new_step("overview")), fields)
+    # Independent digest from the standard library (hashlib, FIPS 180-4 SHA-256).
+    assert run.table.digest == hashlib.sha256(data).hexdigest()
+    assert run.to_json()["table"]["rows"] == data.count(b"\n") - 1
+    assert run.warnings == ()
+
+
+def test_a_different_table_warns_but_runs(small, fields):
+    study = _study(small, new_step("overview"))
+    run = run_study(study, fields)
+    assert run.ok
+    assert len(run.warnings) == 1
+    assert "is not the table this study was saved with" in run.warnings[0]
+    assert "quadratic_fields.csv" in run.summary()
+
+
+def test_a_failing_step_leaves_the_others_intact(small):
+    good = new_step("overview")
+    bad = new_step("projection", {"columns": ["no such column"]})
+    study = _study(small, good, bad, new_step("projection", {"method": "pca"}))
+    run = run_study(study, small)
+    assert not run.ok
+    assert [o.ok for o in run.outcomes] == [True, False, True]
+    assert "no such column" in run.outcomes[1].error and not run.outcomes[1].internal
+    assert run.outcomes[1].result is None
+    alone = run_study(_study(small, good, study.steps[2]), small)
+    ran = [o.to_json() for o in run.outcomes if o.ok]
+    assert without_timing([dict(r, index=None) for r in ran]) == without_timing(
+        [dict(o.to_json(), index=None) for o in alone.outcomes])
+    data = run.to_json()
+    assert data["ok"] is False
+    assert data["steps"][1]["error"] == run.outcomes[1].error
+    assert "could not run: " in run.summary()
+
+
+def test_an_unexpected_exception_is_recorded_not_raised(small, monkeypatch):
+    def broken(self, table):
+        raise ZeroDivisionError("division by zero")
+
+    monkeypatch.setattr(OverviewStep, "run", broken)
+    study = _study(small, new_step("overview"), new_step("projection"))
+    run = run_study(study, small)
+    assert run.outcomes[0].internal
+    assert run.outcomes[0].error.startswith("internal error (ZeroDivisionError: division by zero)")
+    assert run.outcomes[1].ok
+
+
+def test_a_step_error_from_a_step_is_recorded(small, monkeypatch):
+    def refuses(self, table):
+        raise StepError("small.csv: this step refuses.")
+
+    monkeypatch.setattr(OverviewStep, "run", refuses)
+    run = run_study(_study(small, new_step("overview")), small)
+    assert run.outcomes[0].error == "small.csv: this step refuses."
+    assert not run.outcomes[0].internal
+
+
+def test_results_come_from_the_cache_on_a_second_run(small, monkeypatch):
+    study = _two_steps(small)
+    cache = ResultCache()
+    first = run_study(study, small, cache=cache)
+    assert len(cache) == 2 and not any(o.cached for o in first.outcomes)
+    calls = []
+    original = OverviewStep.run
+
+    def counted(self, table):
+        calls.append(self)
+        return original(self, table)
+
+    monkeypatch.setattr(OverviewStep, "run", counted)
+    second = run_study(study, small, cache=cache)
+    assert calls == [] and all(o.cached for o in second.outcomes)
+    assert without_timing(second.to_json()) == without_timing(first.to_json())
+    # Another seed is another key: the step runs again.
+    reseeded = update_step(study, 0, params={"seed": 4})
+    run_study(reseeded, small, cache=cache)
+    assert len(calls) == 1
+
+
+def test_other_roles_are_another_cache_key(small):
+    cache = ResultCache()
+    study = _study(small, new_step("overview"))
+    run_study(study, small, cache=cache)
+    as_category = dataclasses.replace(study, table_settings=TableSettings(roles={"a": "category"}))
+    run = run_study(as_category, small, cache=cache)
+    assert not run.outcomes[0].cached
+    assert len(cache) == 2
+
+
+def test_the_cache_keeps_at_most_its_bound_dropping_the_least_recently_used():
+    cache = ResultCache(max_entries=2)
+    cache.put("a", 1)
+    cache.put("b", 2)
+    assert cache.get("a") == 1
+    cache.put("c", 3)
+    assert "b" not in cache and cache.get("a") == 1 and cache.get("c") == 3
+    assert len(cache) == 2
+    cache.clear()
+    assert len(cache) == 0 and cache.get("a") is None
+
+
+def test_progress_is_reported_per_step(small):
+    calls = []
+    run_study(_two_steps(small), small, progress=lambda *a: calls.append(a))
+    assert calls == [("step 1 of 2: Overview", 0, 2), ("step 2 of 2: PCA picture", 1, 2),
+                     ("done", 2, 2)]
+
+
+def test_running_never_changes_the_table_file(tmp_path):
+    path = tmp_path / "fields.csv"
+    path.write_bytes((TABLES / "quadratic_fields.csv").read_bytes())
+    before = hashlib.sha256(path.read_bytes()).hexdigest()
+    table = load_table(path)
+    columns, frame = table.columns, table.frame.copy()
+    study = _study(table, new_step("overview"), new_step("projection"),
+                   table_settings=TableSettings(id_column="field", roles={"units": "category"}))
+    run = run_study(study, table)
+    assert run.source_table.role("units") == "category"
+    save_study(study, tmp_path / "fields.study.json")
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+    # The Table the caller holds is not changed either: roles are applied to a new one.
+    assert table.columns == columns and table.role("units") == "invariant"
+    assert table.frame.equals(frame)
