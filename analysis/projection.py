@@ -1,0 +1,323 @@
+"""The projection step: a 2-d picture of the table by PCA, UMAP, t-SNE or LDA.
+
+Every projected row keeps its id, so a point in the picture can be traced back to its object.
+PCA and LDA are linear: their axes are combinations of the features, reported as loadings
+named by the features. UMAP and t-SNE are not linear and do not scale exactly; past a row
+threshold they run on a random sample of stated size, and the result says so.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from analysis.errors import StepError
+from analysis.features import build_features, target_values
+from analysis.plain import plain, row_id
+from analysis.table import Table
+
+METHODS = ("pca", "umap", "tsne", "lda")
+METHOD_TITLES = {"pca": "PCA", "umap": "UMAP", "tsne": "t-SNE", "lda": "LDA"}
+# Rows past which a method runs on a random sample unless `sample_size` says otherwise.
+SAMPLE_THRESHOLDS = {"tsne": 20_000, "umap": 50_000}
+# LDA looks for directions separating classes; a target with more values than this is
+# almost certainly a number, not a label.
+MAX_LDA_CLASSES = 50
+UMAP_COMPILE_NOTE = ("UMAP compiles its numerical code the first time it runs in a process; "
+                     "that first run takes 15 s or more, later ones are much faster.")
+
+# Whether UMAP has already run in this process (its first call pays for compilation).
+_umap_has_run = False
+
+
+def sample_positions(n: int, size: int, seed: int) -> np.ndarray:
+    """``size`` distinct positions out of ``range(n)``, drawn with ``seed``, in increasing order."""
+    rng = np.random.default_rng(seed)
+    return np.sort(rng.choice(n, size=size, replace=False))
+
+
+def standardized(values: np.ndarray) -> np.ndarray:
+    """Columns shifted to mean 0 and scaled to standard deviation 1 (constant columns to 0)."""
+    from sklearn.preprocessing import StandardScaler
+
+    return StandardScaler().fit_transform(values)
+
+
+@dataclass(frozen=True, eq=False)
+class ProjectionResult:
+    """Two coordinates per projected row, with the row ids and what the axes mean.
+
+    ``row_ids`` and ``positions`` (row positions in the table) line up with ``x`` and ``y``.
+    ``explained_variance_ratio`` (PCA only) covers every principal component; the first two
+    are the x and y axes. ``loadings`` maps each feature name to its weight on (x, y), for
+    PCA (principal axes, unit vectors) and LDA (discriminant scalings).
+    """
+
+    method: str
+    row_ids: np.ndarray
+    positions: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    features: tuple[str, ...]
+    standardize: bool
+    target: str | None
+    n_rows: int
+    sampled: bool
+    seed: int
+    explained_variance_ratio: tuple[float, ...] | None = None
+    loadings: dict[str, tuple[float, float]] | None = None
+    axis_titles: tuple[str, str] = ("x", "y")
+    notes: tuple[str, ...] = ()
+    elapsed_seconds: float = 0.0
+    kind: ClassVar[str] = "projection"
+
+    @property
+    def n_projected(self) -> int:
+        return len(self.row_ids)
+
+    def to_json(self) -> dict:
+        loadings = None
+        if self.loadings is not None:
+            loadings = [{"feature": name, "x": wx, "y": wy}
+                        for name, (wx, wy) in self.loadings.items()]
+        return plain({
+            "method": self.method,
+            "coordinates": [{"row": row_id(r), "x": float(a), "y": float(b)}
+                            for r, a, b in zip(self.row_ids, self.x, self.y)],
+            "explained_variance_ratio": (list(self.explained_variance_ratio)
+                                         if self.explained_variance_ratio is not None
+                                         else None),
+            "loadings": loadings,
+            "axis_titles": list(self.axis_titles),
+            "features": list(self.features),
+            "standardize": self.standardize,
+            "target": self.target,
+            "n_rows": self.n_rows,
+            "n_projected": self.n_projected,
+            "sampled": self.sampled,
+            "seed": self.seed,
+            "notes": list(self.notes),
+            "elapsed_seconds": self.elapsed_seconds,
+        })
+
+    def summary(self) -> str:
+        title = METHOD_TITLES[self.method]
+        scale = "standardized" if self.standardize else "in their own units"
+        lines = [f"{title} of {self.n_projected} rows"
+                 + (f" (a random sample of {self.n_rows})" if self.sampled else "")
+                 + f" on {len(self.features)} features, {scale}; "
+                 f"{self.elapsed_seconds:.1f} s."]
+        if self.explained_variance_ratio is not None:
+            ratios = self.explained_variance_ratio
+            shown = ", ".join(f"{r:.3f}" for r in ratios[:5])
+            lines.append(f"  explained variance ratio: {shown}"
+                         + (" ..." if len(ratios) > 5 else "")
+                         + f"; the picture shows {sum(ratios[:2]):.1%}.")
+        if self.loadings:
+            for axis, index in (("x", 0), ("y", 1)):
+                top = sorted(self.loadings.items(), key=lambda kv: -abs(kv[1][index]))[:3]
+                words = ", ".join(f"{name} ({w[index]:+.2f})" for name, w in top)
+                lines.append(f"  {axis} ({self.axis_titles[index]}) is mostly {words}")
+        lines.extend(f"  note: {n}" for n in self.notes)
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True, kw_only=True)
+class ProjectionStep:
+    """Project the table's rows to two dimensions.
+
+    method: "pca", "umap", "tsne" or "lda" (LDA needs ``target``, a label with two or more
+        classes). standardize: scale every feature to standard deviation 1 first (default),
+        so that no invariant dominates by its units alone.
+    sample_size: for UMAP and t-SNE, the most rows projected; larger tables are sampled at
+        random with ``seed``. Default 50000 for UMAP and 20000 for t-SNE.
+    n_neighbors (UMAP) and perplexity (t-SNE) are reduced for tiny tables, with a note.
+
+    Example: ``ProjectionStep(method="pca").run(table).explained_variance_ratio``.
+    """
+
+    method: str = "pca"
+    target: str | None = None
+    columns: list[str] | None = None
+    array_encoding: str = "invariant"
+    log_scale: str = "auto"
+    missing: str = "drop"
+    standardize: bool = True
+    sample_size: int | None = None
+    n_neighbors: int = 15
+    perplexity: float = 30.0
+    seed: int = 0
+    kind: ClassVar[str] = "projection"
+
+    def run(self, table: Table) -> ProjectionResult:
+        started = time.perf_counter()
+        self._check(table)
+        fm = build_features(table, columns=self.columns, target=self.target,
+                            array_encoding=self.array_encoding, log_scale=self.log_scale,
+                            missing=self.missing)
+        notes = list(fm.notes)
+        n = len(fm.rows)
+        if n < 3:
+            raise StepError(f"{table.name}: a projection needs at least 3 rows with every "
+                            f"feature present; {n} remain. Impute missing values or choose "
+                            "other columns.")
+        values = standardized(fm.values) if self.standardize else fm.values
+        notes.append("features standardized to mean 0 and standard deviation 1."
+                     if self.standardize else "features used in their own units.")
+        keep = np.arange(n)
+        sampled = False
+        if self.method in SAMPLE_THRESHOLDS:
+            limit = self.sample_size or SAMPLE_THRESHOLDS[self.method]
+            if n > limit:
+                keep = sample_positions(n, limit, self.seed)
+                sampled = True
+                notes.append(f"{METHOD_TITLES[self.method]} ran on a random sample of {limit} "
+                             f"of the {n} rows (seed {self.seed}); {METHOD_TITLES[self.method]} "
+                             "does not scale exactly to large tables.")
+        work = values[keep]
+        extra: dict = {}
+        if self.method == "pca":
+            coordinates, extra = _pca(work, fm.names)
+            if len(extra["explained_variance_ratio"]) < 2:
+                notes.append("one feature gives one principal component; y is 0.")
+        elif self.method == "lda":
+            labels = target_values(table, self.target, fm.rows)
+            coordinates, extra = _lda(work, labels, fm.names, self.target, table.name, notes)
+        elif self.method == "tsne":
+            coordinates = _tsne(work, self.perplexity, self.seed, notes)
+        else:
+            coordinates = _umap(work, self.n_neighbors, self.seed, notes)
+        elapsed = time.perf_counter() - started
+        return ProjectionResult(
+            method=self.method, row_ids=fm.row_ids[keep], positions=fm.rows[keep],
+            x=np.asarray(coordinates[:, 0], dtype=float),
+            y=np.asarray(coordinates[:, 1], dtype=float),
+            features=tuple(fm.names), standardize=self.standardize, target=self.target,
+            n_rows=n, sampled=sampled, seed=self.seed, notes=tuple(notes),
+            elapsed_seconds=elapsed, **extra,
+        )
+
+    def _check(self, table: Table) -> None:
+        if self.method not in METHODS:
+            raise StepError(f"projection method {self.method!r}: use one of "
+                            f"{', '.join(METHODS)}.")
+        if self.sample_size is not None and (
+                not isinstance(self.sample_size, int) or self.sample_size < 10):
+            raise StepError(f"sample size {self.sample_size!r}: give a whole number of at "
+                            "least 10 rows, or leave it unset for the default.")
+        if not isinstance(self.n_neighbors, int) or self.n_neighbors < 2:
+            raise StepError(f"n_neighbors {self.n_neighbors!r}: give a whole number of at "
+                            "least 2.")
+        if not self.perplexity > 0:
+            raise StepError(f"perplexity {self.perplexity!r}: give a positive number.")
+        if self.method == "lda" and self.target is None:
+            raise StepError(f"{table.name}: LDA needs a target: the column whose classes the "
+                            "picture should separate (e.g. --target is_reflexive). Without "
+                            "one, use PCA, UMAP or t-SNE.")
+        if self.target is not None:
+            table.column(self.target)
+
+
+def _pca(values: np.ndarray, names: list[str]):
+    from sklearn.decomposition import PCA
+
+    model = PCA(n_components=min(values.shape)).fit(values)
+    scores = model.transform(values)
+    components = model.components_
+    ratio = tuple(float(r) for r in model.explained_variance_ratio_)
+    coordinates = _two_columns(scores)
+    second = components[1] if len(components) > 1 else np.zeros(len(names))
+    loadings = {name: (float(components[0, j]), float(second[j]))
+                for j, name in enumerate(names)}
+    return coordinates, {"explained_variance_ratio": ratio, "loadings": loadings,
+                         "axis_titles": ("first principal component",
+                                         "second principal component")}
+
+
+def _lda(values: np.ndarray, labels: np.ndarray, names: list[str], target: str,
+         table_name: str, notes: list[str]):
+    from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+
+    classes = np.array([str(v) for v in labels], dtype=object)
+    distinct = sorted(set(classes.tolist()))
+    if len(distinct) < 2:
+        raise StepError(f"{table_name}: LDA needs at least two classes of the target "
+                        f"{target!r}, but every row used has the value {distinct[0]!r}. "
+                        "Choose another target or use PCA.")
+    if len(distinct) > MAX_LDA_CLASSES:
+        raise StepError(f"{table_name}: the target {target!r} has {len(distinct)} distinct "
+                        f"values; LDA separates classes, at most {MAX_LDA_CLASSES}. Choose a "
+                        "flag or category column, or use PCA.")
+    model = LinearDiscriminantAnalysis(solver="svd")
+    with warnings.catch_warnings():
+        # collinear invariants (e.g. twice_area and area) are common in these tables and
+        # are handled by the SVD solver; the warning would only alarm.
+        warnings.simplefilter("ignore", UserWarning)
+        scores = model.fit(values, classes).transform(values)
+    scalings = model.scalings_[:, : scores.shape[1]]
+    if scores.shape[1] >= 2:
+        coordinates = scores[:, :2]
+        titles = ("first discriminant axis", "second discriminant axis")
+        second = scalings[:, 1]
+    else:
+        # two classes give one discriminant axis; the other axis shows the direction of
+        # greatest spread, so that points on the same discriminant value are told apart
+        from sklearn.decomposition import PCA
+
+        spread = PCA(n_components=1).fit(values)
+        coordinates = np.column_stack([scores[:, 0], spread.transform(values)[:, 0]])
+        titles = ("discriminant axis", "first principal component")
+        second = spread.components_[0]
+        notes.append("two classes give one discriminant axis (x); y is the first principal "
+                     "component of the same features.")
+    loadings = {name: (float(scalings[j, 0]), float(second[j])) for j, name in enumerate(names)}
+    return coordinates, {"loadings": loadings, "axis_titles": titles}
+
+
+def _tsne(values: np.ndarray, perplexity: float, seed: int, notes: list[str]) -> np.ndarray:
+    from sklearn.manifold import TSNE
+
+    n = len(values)
+    # t-SNE needs perplexity below the number of rows; a third of it keeps neighbourhoods
+    # meaningful on tiny tables
+    usable = min(perplexity, max(1.0, (n - 1) / 3))
+    if usable < perplexity:
+        notes.append(f"perplexity lowered from {perplexity:g} to {usable:.3g} for {n} rows.")
+    model = TSNE(n_components=2, perplexity=usable, init="pca", random_state=seed)
+    return model.fit_transform(values)
+
+
+def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str]) -> np.ndarray:
+    global _umap_has_run
+    try:
+        import umap
+    except ImportError:
+        raise StepError("UMAP needs the package umap-learn, which is not installed; install "
+                        "it (pip install umap-learn) or use PCA or t-SNE.") from None
+    n = len(values)
+    usable = min(n_neighbors, n - 1)
+    if usable < n_neighbors:
+        notes.append(f"n_neighbors lowered from {n_neighbors} to {usable} for {n} rows.")
+    if not _umap_has_run:
+        notes.append(UMAP_COMPILE_NOTE)
+    # a fixed random_state makes UMAP deterministic only on one thread
+    model = umap.UMAP(n_neighbors=usable, n_components=2, random_state=seed, n_jobs=1,
+                      init="spectral" if n > usable + 2 else "random")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        coordinates = model.fit_transform(values)
+    _umap_has_run = True
+    return np.asarray(coordinates, dtype=float)
+
+
+def _two_columns(scores: np.ndarray) -> np.ndarray:
+    if scores.shape[1] >= 2:
+        return scores[:, :2]
+    return np.column_stack([scores[:, 0], np.zeros(len(scores))])
+
+
+__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "sample_positions", "standardized"]
