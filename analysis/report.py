@@ -253,7 +253,8 @@ def _step_section(outcome: StepOutcome, table) -> str:
             except Exception as exc:  # noqa: BLE001 - show what we can of the step
                 parts.append(f"<p class=\"error\">Part of this step could not be shown "
                              f"({_e(type(exc).__name__)}: {_e(exc)}).</p>")
-        parts.append(f"<h3>Summary</h3><pre>{_e(_summary(result))}</pre>")
+        if outcome.kind != "overview":  # the overview's summary repeats its column table
+            parts.append(f"<h3>Summary</h3><pre>{_e(_summary(result))}</pre>")
         notes = data.get("notes") if isinstance(data, dict) else None
         if notes:
             parts.append("<h3>Notes</h3><ul>" + "".join(f"<li>{_e(n)}</li>" for n in notes)
