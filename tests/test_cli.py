@@ -1,0 +1,180 @@
+"""The command line's study commands: ``run`` and ``report``.
+
+Bad input ends with exit status 2 and one line on stderr, never a traceback; the table file is
+never changed by any command.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from analysis.cli import main
+from analysis.study import (
+    STUDY_VERSION,
+    Study,
+    load_study,
+    new_step,
+    run_study,
+    save_study,
+    without_timing,
+)
+from analysis.table import load_table
+
+ROOT = Path(__file__).resolve().parent.parent
+TABLES = ROOT / "sample_tables"
+
+
+def _digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+@pytest.fixture
+def folder(tmp_path):
+    """A folder holding a copy of a sample table and a study of it."""
+    table_path = tmp_path / "fields.csv"
+    table_path.write_bytes((TABLES / "quadratic_fields.csv").read_bytes())
+    table = load_table(table_path)
+    study = Study(table=table.name, title="fields", table_digest=table.digest,
+                  steps=(new_step("overview"), new_step("projection", {"seed": 1})))
+    save_study(study, tmp_path / "fields.study.json")
+    return tmp_path
+
+
+def _one_line_error(capsys, code) -> str:
+    captured = capsys.readouterr()
+    assert code == 2, f"exit status {code}, stderr {captured.err!r}"
+    lines = captured.err.strip().splitlines()
+    assert len(lines) == 1, captured.err
+    assert lines[0].startswith("error: ")
+    assert "Traceback" not in captured.err + captured.out
+    return lines[0]
+
+
+def test_run_writes_the_report_and_the_json(folder, capsys):
+    table_path = folder / "fields.csv"
+    before = _digest(table_path)
+    code = main(["run", str(folder / "fields.study.json"), "--out", str(folder / "r.html"),
+                 "--json", str(folder / "run.json")])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    assert "[1] Overview" in out and "[2] Projection" in out
+    assert f"wrote {folder / 'r.html'}" in out
+    page = (folder / "r.html").read_text(encoding="utf-8")
+    assert page.startswith("<!DOCTYPE html>") and "not a proof" in page
+    written = json.loads((folder / "run.json").read_text(encoding="utf-8"))
+    expected = run_study(load_study(folder / "fields.study.json"), load_table(table_path))
+    assert without_timing(written) == without_timing(expected.to_json())
+    assert _digest(table_path) == before
+
+
+def test_run_with_another_table_warns_and_still_runs(folder, capsys):
+    other = folder / "other.csv"
+    rows = (TABLES / "quadratic_fields.csv").read_bytes().splitlines(keepends=True)
+    other.write_bytes(b"".join(rows[:40]))
+    before = _digest(other)
+    code = main(["run", str(folder / "fields.study.json"), "--table", str(other)])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "warning: other.csv is not the table this study was saved with" in out
+    assert "39 rows" in out
+    assert _digest(other) == before
+
+
+def test_a_failing_step_exits_2_but_writes_the_report(folder, capsys):
+    table_path = folder / "fields.csv"
+    before = _digest(table_path)
+    table = load_table(table_path)
+    study = Study(table=table.name, steps=(
+        new_step("projection", {"columns": ["no_such_column"]}), new_step("overview")))
+    save_study(study, folder / "broken.study.json")
+    code = main(["run", str(folder / "broken.study.json"), "--out", str(folder / "r.html")])
+    out = capsys.readouterr().out
+    assert code == 2
+    assert "could not run: fields.csv: no column named 'no_such_column'" in out
+    assert "[2] Overview" in out
+    assert "This step could not run" in (folder / "r.html").read_text(encoding="utf-8")
+    assert _digest(table_path) == before
+
+
+BAD_STUDIES = [
+    ("not json", "{\"version\": ", r"line 1, column 13: not valid JSON"),
+    ("json list", "[1, 2]", r"a study is a JSON object"),
+    ("wrong version", {"version": "invariant-scout-study/9"}, r"study format"),
+    ("unknown kind", {"steps": [{"kind": "telepathy"}]}, r"step 1: unknown step kind"),
+    ("unknown setting", {"steps": [{"kind": "overview", "params": {"colour": 1}}]},
+     r"step 1 \(overview\): unknown setting 'colour'"),
+    ("bad type", {"steps": [{"kind": "overview"}, {"kind": "overview",
+                                                    "params": {"seed": "one"}}]},
+     r"step 2 \(overview\): setting 'seed' must be a whole number"),
+]
+
+
+def _bad_study(folder: Path, content) -> Path:
+    path = folder / "bad.study.json"
+    if isinstance(content, dict):
+        data = {"version": STUDY_VERSION, "table": "fields.csv", "steps": []}
+        data.update(content)
+        content = json.dumps(data)
+    path.write_text(content, encoding="utf-8")
+    return path
+
+
+@pytest.mark.parametrize("content, match", [b[1:] for b in BAD_STUDIES],
+                         ids=[b[0] for b in BAD_STUDIES])
+def test_a_malformed_study_exits_2_with_one_line(folder, capsys, content, match):
+    before = _digest(folder / "fields.csv")
+    path = _bad_study(folder, content)
+    line = _one_line_error(capsys, main(["run", str(path), "--out", str(folder / "r.html")]))
+    assert "bad.study.json" in line
+    assert re.search(match, line), line
+    assert not (folder / "r.html").exists()
+    assert _digest(folder / "fields.csv") == before
+
+
+@pytest.mark.parametrize("argv, match", [
+    (["run", "{folder}/nothere.study.json"], r"nothere.study.json: no such file"),
+    (["run", "{folder}/fields.study.json", "--table", "{folder}/gone.csv"],
+     r"gone.csv: no such file"),
+    (["run", "{folder}"], r"is a folder, not a study file"),
+    (["run", "{folder}/fields.csv"], r"fields.csv, line 1, column 1: not valid JSON"),
+], ids=["no study", "no table", "folder", "table given as study"])
+def test_missing_files_exit_2_with_one_line(folder, capsys, argv, match):
+    before = _digest(folder / "fields.csv")
+    argv = [part.format(folder=folder) for part in argv]
+    line = _one_line_error(capsys, main(argv))
+    assert re.search(match, line), line
+    assert _digest(folder / "fields.csv") == before
+
+
+def test_the_table_next_to_the_study_is_found_from_anywhere(folder, capsys, monkeypatch):
+    monkeypatch.chdir(folder.parent)
+    code = main(["run", os.path.join(folder.name, "fields.study.json")])
+    assert code == 0, capsys.readouterr().err
+
+
+def _python_m_analysis(*args: str, cwd: Path) -> subprocess.CompletedProcess:
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    return subprocess.run([sys.executable, "-m", "analysis", *args], cwd=cwd, env=env,
+                          capture_output=True, text=True, timeout=300)
+
+
+def test_the_real_command_runs_a_study_and_rejects_a_bad_one(folder):
+    before = _digest(folder / "fields.csv")
+    done = _python_m_analysis("run", "fields.study.json", "--out", "report.html", cwd=folder)
+    assert done.returncode == 0, done.stderr
+    assert (folder / "report.html").stat().st_size > 0
+    _bad_study(folder, {"steps": [{"kind": "overview", "params": {"seed": [1]}}]})
+    bad = _python_m_analysis("run", "bad.study.json", cwd=folder)
+    assert bad.returncode == 2
+    assert bad.stderr.strip().splitlines() == [
+        "error: bad.study.json: step 1 (overview): setting 'seed' must be a whole number, "
+        "got [1]."]
+    assert _digest(folder / "fields.csv") == before
