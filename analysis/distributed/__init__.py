@@ -1,0 +1,87 @@
+"""The steps of a study on a Dask cluster, for tables past one machine's memory.
+
+``run_distributed(step, path)`` reads a Parquet file, a folder of Parquet files, or a CSV file
+in partitions, runs ``step`` on a cluster (an existing scheduler, or a local one on 127.0.0.1
+that lives only as long as the call), and returns the same result dataclass the step returns
+in memory, so figures, JSON and summaries work unchanged. Where the computation is exact
+(summaries, PCA, equations and relations checked on every row, counts, ids) the numbers equal
+the in-memory ones; where it streams or samples (k-means by mini-batches or Lloyd iterations
+started from a sample, separators fitted on a sample, UMAP and t-SNE) the result's notes say
+so, and what was checked on every row regardless.
+
+Example::
+
+    from analysis.distributed import run_distributed
+    from analysis.projection import ProjectionStep
+
+    result = run_distributed(ProjectionStep(method="pca"), "invariants/")   # a folder of parts
+    result.explained_variance_ratio
+
+dask and distributed are imported when a function here first needs them.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from analysis.distributed.cluster import open_cluster
+from analysis.distributed.source import PartitionedTable, read_partitioned, sample_table
+from analysis.errors import StepError
+
+# Step kinds this engine runs, and the module and function that run each.
+HANDLERS = {
+    "overview": ("analysis.distributed.overview", "run_overview"),
+    "projection": ("analysis.distributed.projection", "run_projection"),
+    "clustering": ("analysis.distributed.clustering", "run_clustering"),
+    "separator": ("analysis.distributed.separation", "run_separator"),
+    "relations": ("analysis.distributed.relations", "run_relations"),
+    "outliers": ("analysis.distributed.outliers", "run_outliers"),
+}
+
+
+def run_distributed(step, table_path: str | Path, *, scheduler: str | None = None,
+                    id_column: str | None = None, roles: dict[str, str] | None = None,
+                    client=None, n_workers: int | None = None, processes: bool = False,
+                    blocksize: str | int | None = None):
+    """Run ``step`` on the table at ``table_path`` on a Dask cluster; return its result.
+
+    step: any step of a study (``make_step(kind, params)``), with the same settings as in
+        memory.
+    table_path: a Parquet file, a folder of Parquet files (read in file order), or a CSV/TSV
+        file (read in blocks of ``blocksize`` bytes, default 64 MB).
+    scheduler: address of a running scheduler (``tcp://host:8786``); None starts a local
+        cluster on 127.0.0.1 with ``n_workers`` single-threaded workers (default 2) as threads
+        of this process (``processes=True`` for separate processes), shut down on return.
+    client: an open ``distributed.Client`` to use instead (then ``scheduler``, ``n_workers``
+        and ``processes`` are ignored and the client is left open).
+    id_column, roles: as for :func:`analysis.table.load_table`.
+
+    The result's notes say that it ran on Dask, over how many partitions, and what was
+    exact, streamed or sampled.
+    """
+    import importlib
+
+    kind = getattr(step, "kind", None)
+    if kind not in HANDLERS:
+        raise StepError(f"the dask engine runs the steps {', '.join(HANDLERS)}; got {kind!r}.")
+    module_name, function_name = HANDLERS[kind]
+    handler = getattr(importlib.import_module(module_name), function_name)
+
+    def run_with(active_client):
+        from analysis.distributed.common import Context, with_notes
+
+        options = {} if blocksize is None else {"blocksize": blocksize}
+        table = read_partitioned(table_path, active_client, id_column=id_column, roles=roles,
+                                 **options)
+        ctx = Context(table=table, client=active_client)
+        result = handler(step, ctx)
+        return with_notes(result, [ctx.engine_note(), *ctx.notes])
+
+    if client is not None:
+        return run_with(client)
+    with open_cluster(scheduler, n_workers=n_workers, processes=processes) as own:
+        return run_with(own)
+
+
+__all__ = ["HANDLERS", "PartitionedTable", "open_cluster", "read_partitioned",
+           "run_distributed", "sample_table"]

@@ -1,0 +1,169 @@
+"""Helpers shared by the steps on Dask: reductions over partitions, feature passes, notes."""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+
+import numpy as np
+
+from analysis.distributed.matrix import (
+    FeaturePlan,
+    add_counts,
+    block_counts,
+    feature_blocks,
+    feature_notes,
+    feature_plan,
+)
+
+# Distinct values a column's median is computed from exactly; past this, from a sample.
+MEDIAN_CAP = 100_000
+MEDIAN_SAMPLE_ROWS = 100_000
+
+
+@dataclasses.dataclass
+class Context:
+    """One step's run on a cluster: the table, the client, and what to say about the engine."""
+
+    table: object          # PartitionedTable
+    client: object         # distributed.Client
+    notes: list = dataclasses.field(default_factory=list)
+
+    def compute(self, items):
+        """Compute dask objects on the cluster and return their values (a list for a list)."""
+        if isinstance(items, list):
+            return self.client.gather(self.client.compute(items))
+        return self.client.gather(self.client.compute(items))
+
+    def engine_note(self) -> str:
+        try:
+            workers = len(self.client.scheduler_info(n_workers=-1)["workers"])
+        except TypeError:
+            workers = len(self.client.scheduler_info()["workers"])
+        return (f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
+                f"{self.client.scheduler.address}) over {self.table.npartitions} partition"
+                f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.")
+
+
+def tree(items: list, combine, *, final=None, split_every: int = 8):
+    """A tree of delayed ``combine(a, b)`` reductions over ``items`` (dask objects)."""
+    from dask import delayed
+
+    def many(values):
+        return functools.reduce(combine, values)
+
+    level = list(items)
+    if not level:
+        raise ValueError("nothing to reduce")
+    while len(level) > 1:
+        level = [delayed(many)(level[i:i + split_every]) if len(level[i:i + split_every]) > 1
+                 else level[i] for i in range(0, len(level), split_every)]
+    root = level[0]
+    return delayed(final)(root) if final is not None else root
+
+
+def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",
+             log_scale="auto", missing="drop", exclude=()) -> FeaturePlan:
+    """The feature plan for a step's settings, with medians for ``missing="impute"``."""
+    plan = feature_plan(ctx.table, columns=columns, target=target,
+                        array_encoding=array_encoding, log_scale=log_scale, missing=missing,
+                        exclude=exclude)
+    if missing == "impute":
+        medians = _medians(ctx, plan)
+        plan = dataclasses.replace(plan, fill=medians)
+    return plan
+
+
+def blocks_for(ctx: Context, plan: FeaturePlan, *, persist: bool | None = None) -> list:
+    """One dask object per partition holding its feature block."""
+    return feature_blocks(ctx.table, plan, ctx.client, persist=persist)
+
+
+def counts_and_notes(ctx: Context, plan: FeaturePlan, blocks: list) -> tuple[dict, list[str]]:
+    """Row counts summed over partitions, and build_features' notes from them."""
+    from dask import delayed
+
+    counts = ctx.compute(tree([delayed(block_counts)(b) for b in blocks], add_counts))
+    return counts, feature_notes(plan, counts, ctx.table.n_rows)
+
+
+def _medians(ctx: Context, plan: FeaturePlan) -> dict:
+    """Median of each feature over the rows where it is present (np.median's convention)."""
+    from dask import delayed
+
+    from analysis.distributed.matrix import partition_features
+
+    raw = dataclasses.replace(plan, missing="keep")
+    parts = ctx.table.typed_partitions(list(plan.columns))
+    offsets = ctx.table.offsets
+    pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(offsets[k]), raw))
+              for k, p in enumerate(parts)]
+    merged = ctx.compute(tree(pieces, _merge_value_counts))
+    medians = {}
+    approximate = []
+    for j, feature in enumerate(plan.features):
+        table = merged[j]
+        if table is None:
+            approximate.append(feature.name)
+            continue
+        values, counts = table
+        if counts.sum() == 0:
+            medians[feature.name] = 0.0
+            continue
+        medians[feature.name] = _median_from_counts(values, counts)
+    if approximate:
+        from analysis.distributed.source import sample_table
+
+        sample, _ = sample_table(ctx.table, ctx.client, MEDIAN_SAMPLE_ROWS, seed=0,
+                                 columns=list(plan.columns))
+        from analysis.features import build_features
+
+        fm = build_features(sample, columns=list(plan.columns), missing="drop")
+        for name in approximate:
+            medians[name] = float(np.median(fm.values[:, fm.names.index(name)]))
+        ctx.notes.append(f"missing values of {', '.join(approximate)} filled with the median "
+                         f"of a random sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct "
+                         "values for an exact median across partitions).")
+    return medians
+
+
+def _value_counts(block) -> list:
+    out = []
+    for j in range(block.values.shape[1]):
+        column = block.values[:, j]
+        present = column[np.isfinite(column)]
+        values, counts = np.unique(present, return_counts=True)
+        out.append((values, counts) if len(values) <= MEDIAN_CAP else None)
+    return out
+
+
+def _merge_value_counts(a: list, b: list) -> list:
+    out = []
+    for x, y in zip(a, b):
+        if x is None or y is None:
+            out.append(None)
+            continue
+        values = np.concatenate([x[0], y[0]])
+        counts = np.concatenate([x[1], y[1]])
+        unique, inverse = np.unique(values, return_inverse=True)
+        summed = np.bincount(inverse, weights=counts).astype(np.int64)
+        out.append((unique, summed) if len(unique) <= MEDIAN_CAP else None)
+    return out
+
+
+def _median_from_counts(values: np.ndarray, counts: np.ndarray) -> float:
+    total = int(counts.sum())
+    cumulative = np.cumsum(counts)
+    low = values[int(np.searchsorted(cumulative, (total - 1) // 2 + 1))]
+    high = values[int(np.searchsorted(cumulative, total // 2 + 1))]
+    return float((low + high) / 2)
+
+
+def with_notes(result, extra: list[str]):
+    """The result with ``extra`` appended to its notes (results are frozen dataclasses)."""
+    if not extra or "notes" not in {f.name for f in dataclasses.fields(result)}:
+        return result   # the overview result has no notes field
+    return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
+
+
+__all__ = ["Context", "blocks_for", "counts_and_notes", "plan_for", "tree", "with_notes"]

@@ -1,0 +1,302 @@
+"""Feature matrices built partition by partition, with the names and values of the in-memory ones.
+
+:func:`feature_plan` decides once, from the whole table's column descriptions, which features
+there are (so every partition has the same columns, e.g. one-hot levels taken over the whole
+table); :func:`partition_features` builds one partition's block. The features are those of
+:func:`analysis.features.build_features` for invariant, flag and category columns: the same
+names, values and notes. Array columns and integers beyond 64 bits are not encoded on this
+engine (the step says so and names the column).
+
+Partition blocks can be kept in the cluster's memory between passes (:func:`feature_blocks`)
+when they fit, so that iterative methods (k-means) do not read the files again.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from analysis.errors import StepError
+from analysis.features import (
+    ARRAY_ENCODINGS,
+    LOG_SCALES,
+    MISSING_POLICIES,
+    Feature,
+    default_feature_columns,
+)
+
+# Keep feature blocks in cluster memory when they take at most this share of it.
+PERSIST_SHARE = 0.4
+# Most one-hot levels of a category column, as in memory.
+MAX_LEVELS = 200
+
+
+@dataclass(frozen=True)
+class FeaturePlan:
+    """Which features a partition gets, and how: one entry per feature."""
+
+    features: tuple[Feature, ...]
+    columns: tuple[str, ...]
+    target: str | None
+    numeric_target: bool
+    missing: str
+    log_columns: tuple[str, ...]
+    levels: dict
+    fill: dict
+    notes: tuple[str, ...]
+    id_column: str | None
+    exact_columns: tuple[bool, ...] = ()   # True where a feature is an exact integer
+
+    @property
+    def names(self) -> list[str]:
+        return [f.name for f in self.features]
+
+
+@dataclass
+class Block:
+    """One partition's features: kept rows only."""
+
+    values: np.ndarray          # float64 (m, p)
+    positions: np.ndarray       # int64 global positions of the kept rows
+    row_ids: np.ndarray         # ids of the kept rows
+    target: np.ndarray | None   # target values of the kept rows
+    dropped_features: int = 0   # rows dropped for a missing feature
+    dropped_target: int = 0     # rows dropped for a missing target
+    infinite: int = 0           # rows with an infinite feature value
+    filled: int = 0             # cells filled (missing="impute")
+    rows: int = 0               # rows in the partition before dropping
+
+
+def feature_plan(table, *, columns: list[str] | None = None, target: str | None = None,
+                 array_encoding: str = "invariant", log_scale: str = "auto",
+                 missing: str = "drop", exclude: tuple[str, ...] = (),
+                 medians: dict | None = None) -> FeaturePlan:
+    """The features of a partitioned table, checked as build_features checks them.
+
+    ``medians`` gives the fill value of each numeric column when ``missing="impute"``.
+    """
+    if array_encoding not in ARRAY_ENCODINGS:
+        raise StepError(f"array encoding {array_encoding!r}: use one of "
+                        f"{', '.join(ARRAY_ENCODINGS)}.")
+    if log_scale not in LOG_SCALES:
+        raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
+    if missing not in MISSING_POLICIES:
+        raise StepError(f"missing-value policy {missing!r}: use drop or impute.")
+    if columns is None:
+        columns = default_feature_columns(table, target=target, exclude=exclude)
+    else:
+        for name in columns:
+            info = table.column(name)
+            if info.role in ("id", "text"):
+                raise StepError(
+                    f"{table.name}: column {name!r} has the role {info.role} and cannot be a "
+                    "feature. Give it the role invariant, category, flag or array first.")
+        if target is not None and target in columns:
+            raise StepError(f"{table.name}: the target {target!r} cannot also be a feature.")
+    if not columns:
+        raise StepError(f"{table.name}: no feature columns. Mark some columns as invariant, "
+                        "flag, category or array.")
+    features: list[Feature] = []
+    levels: dict[str, list[str]] = {}
+    log_columns: list[str] = []
+    exact: dict[str, bool] = {}
+    notes: list[str] = []
+    for name in columns:
+        info = table.column(name)
+        if info.role == "array" or info.dtype == "array":
+            raise StepError(f"{table.name}: column {name!r} holds arrays, which the dask "
+                            "engine does not encode as features yet. Leave it out with "
+                            "--features, or use --engine local.")
+        if info.dtype in ("big integer", "rational"):
+            raise StepError(f"{table.name}: column {name!r} holds {info.dtype}s, which the "
+                            "dask engine does not encode as features. Leave it out with "
+                            "--features, or use --engine local.")
+        if info.role == "invariant":
+            if log_scale == "always":
+                features.append(Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)"))
+                log_columns.append(name)
+            else:
+                features.append(Feature(name, name, "value"))
+                exact[name] = info.dtype == "integer"
+        elif info.role == "flag":
+            if info.dtype != "boolean":
+                raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} "
+                                "values; on the dask engine a flag is a true/false column.")
+            features.append(Feature(name, name, "flag"))
+            exact[name] = True
+        elif info.role == "category":
+            found = _levels(table, name)
+            if len(found) > MAX_LEVELS:
+                raise StepError(
+                    f"{table.name}: category column {name!r} has {len(found)} values; one-hot "
+                    "encoding it would swamp the other features. Give it the role text, or "
+                    "group its values first.")
+            levels[name] = found
+            for level in found:
+                feature = Feature(f"{name}={level}", name, "onehot", level)
+                features.append(feature)
+                exact[feature.name] = True
+        else:
+            raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
+                            "feature.")
+    numeric_target = False
+    if target is not None:
+        info = table.column(target)
+        if info.role == "array":
+            raise StepError(f"{table.name}: the array column {target!r} cannot be a target.")
+        numeric_target = info.role == "invariant" and info.dtype in ("integer", "real")
+    fill = {}
+    if missing == "impute":
+        fill = dict(medians or {})
+    plan = FeaturePlan(features=tuple(features), columns=tuple(columns), target=target,
+                       numeric_target=numeric_target, missing=missing,
+                       log_columns=tuple(log_columns), levels=levels, fill=fill,
+                       notes=tuple(notes), id_column=table.id_column,
+                       exact_columns=tuple(exact.get(f.name, False) for f in features))
+    return plan
+
+
+def _levels(table, name: str) -> list[str]:
+    facts = table.facts.get(name, {})
+    counts = facts.get("counts")
+    if counts is not None:
+        return sorted(counts)
+    values = facts.get("values")
+    if values is not None:
+        return sorted({str(v) for v in values.tolist()})
+    info = table.column(name)
+    return [str(k) for k in range(info.distinct)]   # only its length is used: too many
+
+
+def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> Block:
+    """One partition's features (rows with a missing value dropped, or filled, per the plan)."""
+    n = len(frame)
+    blocks = []
+    for name in plan.columns:
+        series = frame[name]
+        if name in plan.levels:
+            found = plan.levels[name]
+            labels = series.astype(object).where(series.notna(), None).to_numpy()
+            text = np.array(["" if v is None else str(v) for v in labels], dtype=object)
+            block = np.zeros((n, len(found)))
+            index = {level: j for j, level in enumerate(found)}
+            columns = np.array([index.get(t, -1) for t in text], dtype=np.int64)
+            hit = columns >= 0
+            block[np.flatnonzero(hit), columns[hit]] = 1.0
+            block[np.array([v is None for v in labels], dtype=bool)] = np.nan
+            blocks.append(block)
+            continue
+        values = _as_float(series)
+        if name in plan.log_columns:
+            values = np.sign(values) * np.log10(1 + np.abs(values))
+        blocks.append(values[:, None])
+    values = np.column_stack(blocks) if blocks else np.empty((n, 0))
+    positions = np.arange(offset, offset + n, dtype=np.int64)
+    ids = frame[plan.id_column].to_numpy() if plan.id_column else positions
+    target = None
+    target_missing = np.zeros(n, dtype=bool)
+    if plan.target is not None:
+        series = frame[plan.target]
+        if plan.numeric_target:
+            target = _as_float(series)
+            target_missing = ~np.isfinite(target)
+        else:
+            target = series.to_numpy(dtype=object)
+            target_missing = series.isna().to_numpy()
+    bad = ~np.isfinite(values)
+    infinite = int(np.isinf(values).any(axis=1).sum())
+    feature_missing = bad.any(axis=1)
+    out = Block(values=values, positions=positions, row_ids=ids, target=target, rows=n,
+                infinite=infinite)
+    if plan.missing == "keep" or not (feature_missing.any() or target_missing.any()):
+        return out   # "keep": missing cells stay NaN (for medians)
+    if plan.missing == "drop":
+        keep = ~(feature_missing | target_missing)
+        out.dropped_features = int(feature_missing.sum())
+        out.dropped_target = int(target_missing.sum())
+    else:
+        for j, feature in enumerate(plan.features):
+            column_bad = bad[:, j]
+            if column_bad.any():
+                values[column_bad, j] = plan.fill.get(feature.name, 0.0)
+                out.filled += int(column_bad.sum())
+        keep = ~target_missing
+        out.dropped_target = int(target_missing.sum())
+    out.values = values[keep]
+    out.positions = positions[keep]
+    out.row_ids = ids[keep]
+    out.target = None if target is None else target[keep]
+    return out
+
+
+def _as_float(series: pd.Series) -> np.ndarray:
+    if series.dtype == object:
+        return np.array([np.nan if v is None or v is pd.NA else float(v) for v in series],
+                        dtype=np.float64)
+    return series.to_numpy(dtype=np.float64, na_value=np.nan)
+
+
+def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
+    """The notes build_features writes, from counts summed over partitions."""
+    notes = list(plan.notes)
+    if counts["infinite"]:
+        notes.append(f"{counts['infinite']} rows have an infinite feature value; treated as "
+                     "missing.")
+    if counts["dropped_features"] or counts["dropped_target"] or counts["filled"]:
+        if plan.missing == "drop":
+            dropped = counts["rows"] - counts["kept"]
+            notes.append(f"dropped {dropped} of {n_rows} rows with a missing value "
+                         f"({counts['dropped_features']} in features, "
+                         f"{counts['dropped_target']} in the target).")
+        else:
+            notes.append(f"filled {counts['filled']} missing feature cells with the column "
+                         f"median; dropped {counts['dropped_target']} rows with no target "
+                         "value.")
+    return notes
+
+
+def block_counts(block: Block) -> dict:
+    """The row counts of one block, to be summed over partitions."""
+    return {"rows": block.rows, "kept": len(block.positions),
+            "dropped_features": block.dropped_features,
+            "dropped_target": block.dropped_target, "infinite": block.infinite,
+            "filled": block.filled}
+
+
+def add_counts(a: dict, b: dict) -> dict:
+    return {k: a[k] + b[k] for k in a}
+
+
+def feature_blocks(table, plan: FeaturePlan, client, *, persist: bool | None = None) -> list:
+    """One dask object per partition holding its :class:`Block`.
+
+    With ``persist`` (default: when the blocks fit in PERSIST_SHARE of the cluster's memory)
+    the blocks are computed once and kept on the workers as futures, so later passes do not
+    read the files again; otherwise each pass recomputes them from the files.
+    """
+    from dask import delayed
+
+    parts = table.typed_partitions(list(plan.columns) + ([plan.target] if plan.target else []))
+    offsets = table.offsets
+    blocks = [delayed(partition_features)(part, int(offsets[k]), plan)
+              for k, part in enumerate(parts)]
+    if persist is None:
+        persist = _fits(table.n_rows * (len(plan.features) + 3) * 8, client)
+    if persist:
+        return client.persist(blocks)
+    return blocks
+
+
+def _fits(nbytes: int, client) -> bool:
+    try:
+        workers = client.scheduler_info(n_workers=-1)["workers"].values()
+    except TypeError:   # older distributed without n_workers
+        workers = client.scheduler_info()["workers"].values()
+    memory = sum(w.get("memory_limit", 0) or 0 for w in workers)
+    return memory > 0 and nbytes <= PERSIST_SHARE * memory
+
+
+__all__ = ["Block", "FeaturePlan", "add_counts", "block_counts", "feature_blocks",
+           "feature_notes", "feature_plan", "partition_features"]

@@ -1,0 +1,128 @@
+"""The overview step on Dask: column summaries from the facts gathered per partition.
+
+Ranges, means, missing and distinct counts come from the typing pass that every partitioned
+table makes (:mod:`analysis.distributed.source`); the strongly correlated pairs come from one
+more pass of pairwise sums, exact over all rows (in memory, tables past 200,000 rows use a
+sample of that size for the correlations, so the two engines may differ there).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from analysis.distributed.common import Context, tree
+from analysis.overview import ColumnSummary, OverviewResult
+
+# Rows at which the in-memory overview switches to a sample for correlations.
+IN_MEMORY_CORRELATION_ROWS = 200_000
+STRONG = 0.9
+
+
+def run_overview(step, ctx: Context) -> OverviewResult:
+    """The overview result of a partitioned table (same fields as OverviewStep.run)."""
+    table = ctx.table
+    summaries = tuple(_summarize(table, info) for info in table.columns)
+    correlations = _correlations(ctx, step.top_correlations)
+    if table.n_rows > IN_MEMORY_CORRELATION_ROWS and correlations is not None:
+        ctx.notes.append("correlations computed exactly over all rows (the in-memory engine "
+                         f"uses a sample of {IN_MEMORY_CORRELATION_ROWS} rows here).")
+    return OverviewResult(
+        table=table.name, digest=table.digest, rows=table.n_rows, columns=summaries,
+        warnings=table.warnings, id_column=table.id_column, correlations=correlations or (),
+    )
+
+
+def _summarize(table, info) -> ColumnSummary:
+    facts = table.facts[info.name]
+    base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
+                distinct=info.distinct)
+    kind = facts.get("kind")
+    if info.dtype in ("integer", "real") and kind not in ("text", "list", None) \
+            and facts.get("count"):
+        lo, hi = facts["minimum"], facts["maximum"]
+        if info.dtype == "integer":
+            lo, hi = int(lo), int(hi)
+        return ColumnSummary(**base, minimum=lo, maximum=hi,
+                             mean=float(facts["total"] / facts["count"]))
+    if info.dtype == "big integer" and facts.get("count"):
+        return ColumnSummary(**base, minimum=str(facts["minimum"]), maximum=str(facts["maximum"]),
+                             mean=float(facts["total"] / facts["count"]))
+    if info.dtype == "array":
+        shapes = sorted(facts.get("shapes", {}).items(), key=lambda kv: -kv[1])[:5]
+        return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in shapes))
+    if info.dtype == "boolean" and kind not in ("text", None):
+        trues = int(round(facts["total"]))
+        falses = facts["count"] - trues
+        pairs = [(str(True), trues), (str(False), falses)]
+        pairs = [p for p in sorted(pairs, key=lambda p: -p[1]) if p[1] > 0]
+        return ColumnSummary(**base, common=tuple(pairs))
+    if kind == "text":
+        return ColumnSummary(**base, common=_common_text(facts, info, table.n_rows))
+    return ColumnSummary(**base)
+
+
+def _common_text(facts: dict, info, n_rows: int) -> tuple:
+    counts = facts.get("counts")
+    if info.dtype == "boolean" and counts is not None:
+        from analysis.distributed.source import _TRUE_WORDS
+
+        merged: dict[str, list] = {}
+        for word, (count, first) in counts.items():
+            key = str(word.strip().lower() in _TRUE_WORDS)
+            entry = merged.setdefault(key, [0, first])
+            entry[0] += count
+            entry[1] = min(entry[1], first)
+        ordered = sorted(merged.items(), key=lambda kv: (-kv[1][0], kv[1][1]))
+        return tuple((k, v[0]) for k, v in ordered[:5])
+    if counts is not None:
+        ordered = sorted(counts.items(), key=lambda kv: (-kv[1][0], kv[1][1]))
+        return tuple((str(k), int(v[0])) for k, v in ordered[:5])
+    if info.distinct == n_rows - info.missing:
+        # every value once: the first five, as value_counts lists ties in order of appearance
+        return tuple((str(v), 1) for v in facts.get("first_values", [])[:5])
+    return ()
+
+
+def _correlations(ctx: Context, top: int):
+    table = ctx.table
+    names = [c.name for c in table.columns
+             if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
+    if len(names) < 2 or top <= 0:
+        return ()
+    from dask import delayed
+
+    shift = np.array([table.facts[n]["total"] / max(table.facts[n]["count"], 1)
+                      for n in names])
+    parts = table.typed_partitions(names)
+    pieces = [delayed(_pair_sums)(part, names, shift) for part in parts]
+    sums = ctx.compute(tree(pieces, _add_sums))
+    count, sx, sxx, sxy = sums
+    with np.errstate(invalid="ignore", divide="ignore"):
+        top_part = count * sxy - sx * sx.T
+        bottom = np.sqrt((count * sxx - sx ** 2) * (count * sxx.T - (sx.T) ** 2))
+        matrix = top_part / bottom
+    pairs = []
+    for i in range(len(names)):
+        for j in range(i + 1, len(names)):
+            r = matrix[i, j]
+            if np.isfinite(r) and abs(r) >= STRONG:
+                pairs.append((names[i], names[j], float(np.clip(r, -1.0, 1.0))))
+    pairs.sort(key=lambda p: -abs(p[2]))
+    return tuple(pairs[:top])
+
+
+def _pair_sums(frame, names: list[str], shift: np.ndarray):
+    """Pairwise-complete sums: counts, sums, sums of squares and of products, per pair."""
+    values = np.column_stack([frame[n].to_numpy(dtype=np.float64, na_value=np.nan)
+                              for n in names]) - shift
+    present = np.isfinite(values).astype(np.float64)
+    zeroed = np.where(present > 0, values, 0.0)
+    count = present.T @ present                 # rows where both i and j are present
+    sx = zeroed.T @ present                     # [i, j]: sum of x_i where x_j is present too
+    sxx = (zeroed ** 2).T @ present
+    sxy = zeroed.T @ zeroed
+    return count, sx, sxx, sxy
+
+
+def _add_sums(a, b):
+    return tuple(x + y for x, y in zip(a, b))

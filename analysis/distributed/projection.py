@@ -1,0 +1,179 @@
+"""The projection step on Dask.
+
+PCA is exact: the mean and the centred Gram matrix of the features are summed partition by
+partition (each partition's own centred sums, merged with the parallel update of Chan, Golub
+and LeVeque, so no precision is lost to large means), standardized exactly as
+``StandardScaler`` does, and diagonalized on the client; every row's coordinates are then
+computed partition by partition. The explained variance ratios equal the in-memory ones to
+rounding, and the axes carry the same signs (largest loading positive, as scikit-learn's PCA).
+
+UMAP, t-SNE and LDA run the in-memory step on a uniform random sample of rows (of the size the
+in-memory step would use for UMAP and t-SNE), and the result says so.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import time
+
+import numpy as np
+
+from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.errors import StepError
+
+# Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
+LDA_SAMPLE_ROWS = 200_000
+
+
+def run_projection(step, ctx: Context):
+    """A ProjectionResult for ``step`` on the partitioned table in ``ctx``."""
+    from analysis.projection import METHOD_TITLES, METHODS, SAMPLE_THRESHOLDS, ProjectionResult
+
+    started = time.perf_counter()
+    if step.method not in METHODS:
+        raise StepError(f"projection method {step.method!r}: use one of {', '.join(METHODS)}.")
+    if step.method != "pca":
+        return _on_sample(step, ctx, SAMPLE_THRESHOLDS, METHOD_TITLES)
+    if step.target is not None:
+        ctx.table.column(step.target)
+    plan = plan_for(ctx, columns=step.columns, target=step.target,
+                    array_encoding=step.array_encoding, log_scale=step.log_scale,
+                    missing=step.missing)
+    blocks = blocks_for(ctx, plan)
+    stats, counts = ctx.compute([tree([_stats_task(b) for b in blocks], merge_moments),
+                                 _counts_task(ctx, blocks)])
+    from analysis.distributed.matrix import feature_notes
+
+    notes = feature_notes(plan, counts, ctx.table.n_rows)
+    n, mean, m2 = stats
+    if n < 3:
+        raise StepError(f"{ctx.table.name}: a projection needs at least 3 rows with every "
+                        f"feature present; {n} remain. Impute missing values or choose "
+                        "other columns.")
+    ratio, components, scale = pca_from_moments(n, mean, m2, standardize=step.standardize)
+    notes.append("features standardized to mean 0 and standard deviation 1."
+                 if step.standardize else "features used in their own units.")
+    if len(ratio) < 2:
+        notes.append("one feature gives one principal component; y is 0.")
+    axes = components[:2]
+    if len(axes) < 2:
+        axes = np.vstack([axes, np.zeros((1, axes.shape[1]))])
+    from dask import delayed
+
+    pieces = ctx.compute([delayed(project_block)(b, mean, scale, axes) for b in blocks])
+    positions = np.concatenate([p[0] for p in pieces])
+    row_ids = np.concatenate([p[1] for p in pieces])
+    coordinates = np.vstack([p[2] for p in pieces])
+    names = plan.names
+    second = components[1] if len(components) > 1 else np.zeros(len(names))
+    loadings = {name: (float(components[0, j]), float(second[j]))
+                for j, name in enumerate(names)}
+    ctx.notes.append("PCA computed exactly from the covariance matrix summed over all "
+                     "partitions; coordinates computed partition by partition.")
+    return ProjectionResult(
+        method="pca", row_ids=row_ids, positions=positions,
+        x=np.asarray(coordinates[:, 0], dtype=float), y=np.asarray(coordinates[:, 1], dtype=float),
+        features=tuple(names), standardize=step.standardize, target=step.target, n_rows=n,
+        sampled=False, seed=step.seed, explained_variance_ratio=tuple(float(r) for r in ratio),
+        loadings=loadings, axis_titles=("first principal component", "second principal component"),
+        notes=tuple(notes), elapsed_seconds=time.perf_counter() - started,
+    )
+
+
+def _stats_task(block):
+    from dask import delayed
+
+    return delayed(block_moments)(block)
+
+
+def _counts_task(ctx: Context, blocks: list):
+    from dask import delayed
+
+    from analysis.distributed.matrix import add_counts, block_counts
+
+    return tree([delayed(block_counts)(b) for b in blocks], add_counts)
+
+
+def block_moments(block) -> tuple[int, np.ndarray, np.ndarray]:
+    """(rows, mean, centred Gram matrix) of one block's features."""
+    values = block.values
+    n = len(values)
+    if n == 0:
+        p = values.shape[1]
+        return 0, np.zeros(p), np.zeros((p, p))
+    mean = values.mean(axis=0)
+    centred = values - mean
+    return n, mean, centred.T @ centred
+
+
+def merge_moments(a, b):
+    """Merge two (rows, mean, centred Gram) triples (Chan, Golub and LeVeque's update)."""
+    na, mean_a, m2_a = a
+    nb, mean_b, m2_b = b
+    n = na + nb
+    if na == 0:
+        return b
+    if nb == 0:
+        return a
+    delta = mean_b - mean_a
+    mean = mean_a + delta * (nb / n)
+    m2 = m2_a + m2_b + np.outer(delta, delta) * (na * nb / n)
+    return n, mean, m2
+
+
+def pca_from_moments(n: int, mean: np.ndarray, m2: np.ndarray, *, standardize: bool = True):
+    """Explained variance ratios, principal axes (rows) and feature scales, from moments.
+
+    The scales are those ``StandardScaler`` uses (population standard deviation; 1 for a
+    column it counts as constant), so the axes and ratios are those of scikit-learn's PCA on
+    the standardized features. Axes are signed so that each one's largest entry is positive.
+    """
+    variance = np.diag(m2) / n
+    p = len(mean)
+    if standardize:
+        eps = np.finfo(np.float64).eps
+        # scikit-learn's test for a constant feature (variance at rounding level)
+        constant = variance <= n * eps * variance + (n * mean * eps) ** 2
+        scale = np.sqrt(variance)
+        scale[constant | (scale == 0)] = 1.0
+    else:
+        scale = np.ones(p)
+    covariance = m2 / n / np.outer(scale, scale)
+    eigenvalues, eigenvectors = np.linalg.eigh(covariance)
+    order = np.argsort(eigenvalues)[::-1]
+    eigenvalues = np.clip(eigenvalues[order], 0.0, None)
+    components = eigenvectors[:, order].T
+    keep = min(n, p)
+    eigenvalues, components = eigenvalues[:keep], components[:keep]
+    total = float(np.trace(covariance))
+    ratio = eigenvalues / total if total > 0 else np.zeros_like(eigenvalues)
+    largest = np.argmax(np.abs(components), axis=1)
+    signs = np.sign(components[np.arange(len(components)), largest])
+    signs[signs == 0] = 1.0
+    components = components * signs[:, None]
+    return ratio, components, scale
+
+
+def project_block(block, mean: np.ndarray, scale: np.ndarray, axes: np.ndarray):
+    """(positions, row ids, coordinates) of one block's rows on the given axes."""
+    coordinates = ((block.values - mean) / scale) @ axes.T
+    return block.positions, block.row_ids, coordinates
+
+
+def _on_sample(step, ctx: Context, thresholds: dict, titles: dict):
+    from analysis.distributed.source import sample_table
+
+    limit = step.sample_size or thresholds.get(step.method, LDA_SAMPLE_ROWS)
+    n = ctx.table.n_rows
+    sample, positions = sample_table(ctx.table, ctx.client, limit, seed=step.seed)
+    inner = dataclasses.replace(step, sample_size=None) if step.method in thresholds else step
+    result = inner.run(sample)
+    title = titles[step.method]
+    sampled = len(positions) < n
+    if sampled:
+        ctx.notes.append(f"{title} ran in memory on a uniform random sample of {len(positions)} "
+                         f"of the {n} rows (seed {step.seed}) drawn across all partitions.")
+    # positions in the sample table -> positions in the whole table
+    return dataclasses.replace(result, positions=positions[result.positions],
+                               sampled=result.sampled or sampled,
+                               n_rows=n if sampled else result.n_rows)
