@@ -413,20 +413,27 @@ def _clustering(data: dict) -> str:
     return "\n".join(parts)
 
 
+_METRIC_WORDS = {
+    "accuracy": "accuracy",
+    "balanced_accuracy": "balanced accuracy",
+    "mcc": "Matthews correlation (MCC)",
+    "mcc_ci": "MCC 95% interval",
+    "r2": "R\u00b2",
+    "r2_ci": "R\u00b2 95% interval",
+    "mean_absolute_error": "mean absolute error",
+}
+
+
 def _separator(data: dict) -> str:
     parts = [f"<p class=\"verdict {_verdict_class(data)}\">{_e(_verdict(data))}</p>"]
-    metrics = data.get("metrics") or {}
-    baseline = data.get("baseline") or {}
+    if data.get("beats_chance_rule"):
+        parts.append(f"<p class=\"settings\">{_e(data['beats_chance_rule'])}</p>")
     rows = []
-    for name, label in (("accuracy", "accuracy"), ("balanced_accuracy", "balanced accuracy"),
-                        ("mcc", "Matthews correlation (MCC)")):
-        if name in metrics:
-            rows.append([label, metrics[name]])
-    if metrics.get("mcc_ci"):
-        low, high = metrics["mcc_ci"]
-        rows.append(["MCC 95% interval", f"[{_text(low)}, {_text(high)}]"])
-    if "accuracy" in baseline:
-        rows.append(["majority-class accuracy (same test rows)", baseline["accuracy"]])
+    for name, value in (data.get("metrics") or {}).items():
+        rows.append([_METRIC_WORDS.get(name, name.replace("_", " ")), _measure(value)])
+    for name, value in (data.get("baseline") or {}).items():
+        words = _METRIC_WORDS.get(name, name.replace("_", " "))
+        rows.append([f"{words} of the baseline (same test rows)", _measure(value)])
     if data.get("permutation_p") is not None:
         rows.append(["permutation p-value", data["permutation_p"]])
     for key, label in (("train_rows", "training rows"), ("test_rows", "test rows")):
@@ -435,22 +442,54 @@ def _separator(data: dict) -> str:
             rows.append([label, len(value) if isinstance(value, list) else value])
     if rows:
         parts.append(_table(["measure", "value"], rows, numeric=(1,)))
-    equation = data.get("equation")
-    if isinstance(equation, dict):
-        parts.append("<h3>Separating equation</h3>")
+    equations = [e for e in [data.get("equation"), *(data.get("equations") or [])]
+                 if isinstance(e, dict)]
+    if equations:
+        parts.append("<h3>Separating equation" + ("s" if len(equations) > 1 else "") + "</h3>")
+    for equation in equations:
         parts.append(f"<pre class=\"equation\">{_e(_equation_text(equation))}</pre>")
         positive = equation.get("positive_class")
         if positive is not None:
-            parts.append(f"<p>A row is predicted {_code(positive)} exactly when this holds.</p>")
+            parts.append(f"<p>A row is predicted {_code(_setting(positive))} exactly when this "
+                         "holds.</p>")
         violating = equation.get("violating_rows") or []
         count = equation.get("violations", len(violating))
         parts.append(f"<p>Rows on the wrong side ({_e(count)}): {_ids(violating)}</p>")
+    formula = data.get("formula")
+    if isinstance(formula, dict):
+        parts.append("<h3>Formula for the target</h3>")
+        parts.append(f"<pre class=\"equation\">{_e(_equation_text(formula))}</pre>")
+        parts.append(f"<p>Rows where it is not exact ({_e(formula.get('rows_off'))}): "
+                     f"{_ids(formula.get('off_rows'))}</p>")
+    surrogate = data.get("surrogate")
+    if isinstance(surrogate, dict):
+        parts.append("<h3>Quadratic stand-in for the kernel machine</h3>")
+        parts.append(f"<pre class=\"equation\">{_e(_equation_text(surrogate))}</pre>")
+        if surrogate.get("agreement") is not None:
+            parts.append(f"<p>It agrees with the machine on "
+                         f"{_e(_text(100 * surrogate['agreement']))}% of rows.</p>")
+    if not equations and not isinstance(formula, dict) and not isinstance(surrogate, dict):
+        parts.append("<p>No equation was found.</p>")
+    mispredicted = data.get("mispredicted")
+    if mispredicted:
+        parts.append(f"<p>Mispredicted test rows ({len(mispredicted)}): "
+                     f"{_ids(mispredicted)}</p>")
+    parts.extend(f"<p class=\"warning\">{_e(w)}</p>" for w in data.get("warnings") or [])
     return "\n".join(parts)
 
 
+def _measure(value):
+    if isinstance(value, list) and len(value) == 2:
+        return f"[{_text(value[0])}, {_text(value[1])}]"
+    return value
+
+
 def _verdict(data: dict) -> str:
-    if isinstance(data.get("verdict"), str):
-        return data["verdict"]
+    """The separator's verdict in words: the step's own when it gives one."""
+    stated = data.get("beats_chance", data.get("verdict"))
+    if isinstance(stated, (str, bool)) and stated != "":
+        answer = stated if isinstance(stated, str) else ("yes" if stated else "no")
+        return f"Beats chance: {answer}."
     p = data.get("permutation_p")
     interval = (data.get("metrics") or {}).get("mcc_ci")
     if p is None and not interval:
@@ -461,12 +500,11 @@ def _verdict(data: dict) -> str:
         detail.append(f"permutation p = {_text(p)}")
     if interval:
         detail.append(f"MCC 95% interval [{_text(interval[0])}, {_text(interval[1])}]")
-    words = "Beats chance" if beats else "Does not clearly beat chance"
-    return f"{words} ({'; '.join(detail)})."
+    return f"Beats chance: {'yes' if beats else 'no'} ({'; '.join(detail)})."
 
 
 def _verdict_class(data: dict) -> str:
-    return "good" if _verdict(data).startswith("Beats") else "weak"
+    return "good" if _verdict(data).startswith("Beats chance: yes") else "weak"
 
 
 def _equation_text(equation: dict) -> str:
@@ -489,6 +527,14 @@ def _relations(data: dict) -> str:
             numeric=(1,)))
     else:
         parts.append("<p>No exact linear relation was found.</p>")
+    approximate = data.get("approximate_relations") or []
+    if approximate:
+        parts.append("<h3>Relations that hold up to rounding (real-valued columns)</h3>")
+        parts.append(_table(
+            ["relation", "holds on", "rows breaking it"],
+            [[_code(_equation_text(r)), r.get("holds_on"), _ids(r.get("violations"))]
+             for r in approximate],
+            numeric=(1,)))
     bounds = data.get("bounds") or []
     parts.append("<h3>Bounds</h3>")
     if bounds:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import html
 import json
 import re
 from html.parser import HTMLParser
@@ -220,3 +221,38 @@ def test_a_report_with_real_figures(tmp_path):
         assert page.count(get_plotlyjs()[:2000]) == 1
     assert "explained variance ratio" in page
     assert hashlib.sha256(table_path.read_bytes()).hexdigest() == before
+
+
+def _linear_table():
+    """Objects with the flag big = (a + 2b >= 12), a rule a linear separator can state."""
+    rows = ["name,a,b,big,same"]
+    for i in range(80):
+        a, b = (7 * i) % 10, (3 * i + i // 10) % 10
+        rows.append(f"o{i},{a},{b},{str(a + 2 * b >= 12).lower()},one")
+    return read_table("\n".join(rows).encode(), "linear.csv")
+
+
+def test_separator_equation_verdict_and_a_failing_separator(tmp_path):
+    table = _linear_table()
+    study = Study(table=table.name, steps=(
+        new_step("overview"),
+        new_step("separator", {"target": "big", "permutations": 20, "repeats": 2}),
+        new_step("separator", {"target": "same", "permutations": 20}),
+        new_step("projection"),
+    ))
+    run = run_study(study, table)
+    assert [o.ok for o in run.outcomes] == [True, True, False, True]
+    assert "one class" in run.outcomes[2].error
+    write_report(run, tmp_path / "r.html")
+    page = (tmp_path / "r.html").read_text(encoding="utf-8")
+    text = " ".join("".join(_parse(page).text).split())
+    equation = run.outcomes[1].result.to_json()["equation"]
+    # The equation is shown as monospace text, escaped (">=" becomes "&gt;="), exactly as the
+    # step states it; the step's own tests check that it finds a + 2*b >= 12 here.
+    assert f"<pre class=\"equation\">{html.escape(equation['text'])}</pre>" in page
+    assert equation["text"] in text
+    assert f"Rows on the wrong side ({equation['violations']})" in text
+    assert "Beats chance: " in text
+    assert "This step could not run: linear.csv: the target 'same' has one class" in text
+    assert text.count("This step could not run") == 1
+    assert "PCA of 80 rows" in text
