@@ -35,15 +35,15 @@ from analysis.table import load_table, read_table
 TABLES = Path(__file__).resolve().parent.parent / "sample_tables"
 
 SMALL_CSV = (
-    b"name,a,b,c,kind\n"
-    b"x1,1,2,3,even\n"
-    b"x2,2,3,5,odd\n"
-    b"x3,3,5,8,even\n"
-    b"x4,4,4,8,odd\n"
-    b"x5,5,1,6,even\n"
-    b"x6,6,9,15,odd\n"
-    b"x7,7,2,9,even\n"
-    b"x8,8,8,16,odd\n"
+    b"name,a,b,c,kind,same\n"
+    b"x1,1,2,3,even,one\n"
+    b"x2,2,3,5,odd,one\n"
+    b"x3,3,5,8,even,one\n"
+    b"x4,4,4,8,odd,one\n"
+    b"x5,5,1,6,even,one\n"
+    b"x6,6,9,15,odd,one\n"
+    b"x7,7,2,9,even,one\n"
+    b"x8,8,8,16,odd,one\n"
 )
 
 
@@ -302,14 +302,18 @@ def test_a_different_table_warns_but_runs(small, fields):
     assert "quadratic_fields.csv" in run.summary()
 
 
-def test_a_failing_step_leaves_the_others_intact(small):
+@pytest.mark.parametrize("kind, params, message", [
+    ("projection", {"columns": ["no such column"]}, "no column named 'no such column'"),
+    ("separator", {"target": "same", "permutations": 10}, "the target 'same' has one class"),
+], ids=["projection on a missing column", "separator on a one-class target"])
+def test_a_failing_step_leaves_the_others_intact(small, kind, params, message):
     good = new_step("overview")
-    bad = new_step("projection", {"columns": ["no such column"]})
+    bad = new_step(kind, params)
     study = _study(small, good, bad, new_step("projection", {"method": "pca"}))
     run = run_study(study, small)
     assert not run.ok
     assert [o.ok for o in run.outcomes] == [True, False, True]
-    assert "no such column" in run.outcomes[1].error and not run.outcomes[1].internal
+    assert message in run.outcomes[1].error and not run.outcomes[1].internal
     assert run.outcomes[1].result is None
     alone = run_study(_study(small, good, study.steps[2]), small)
     ran = [o.to_json() for o in run.outcomes if o.ok]
