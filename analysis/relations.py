@@ -1,0 +1,1619 @@
+"""Exact linear relations and sharp linear bounds among the invariants of a table.
+
+Two layers:
+
+* a numeric core on plain data (:func:`find_relations`, :func:`integer_kernel`,
+  :func:`lll_reduce`): columns given as lists or arrays of exact integers and fractions (or
+  floats for real-valued columns), row ids, settings;
+* :class:`RelationsStep`, the step a study runs, which reads the columns of a
+  :class:`analysis.table.Table` and calls the core.
+
+Relations are integer vectors ``c`` with ``sum c_i * column_i = c_0`` on the rows. The
+relation lattice is computed exactly (integer arithmetic throughout, no floating point in
+the decision), on a few rows chosen so that it stays fast, then verified on every row; its
+basis is LLL-reduced so that the reported relations are short. Robust mode also finds
+relations that all but a few rows obey, by solving on random subsets of rows.
+
+Bounds ``a*x + b*y <= c`` (and in three columns where cheap) are read off the faces of the
+convex hull of the data points, computed exactly, and kept when their coefficients are
+small and they do not follow from the columns' ranges and the exact relations.
+
+Everything found is a conjecture that the table supports, not a theorem; the result says so.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, replace
+from fractions import Fraction
+from itertools import combinations
+from numbers import Integral
+
+import numpy as np
+
+from analysis.errors import StepError
+
+__all__ = [
+    "CAVEAT",
+    "Bound",
+    "Relation",
+    "RelationsResult",
+    "RelationsStep",
+    "find_relations",
+    "integer_kernel",
+    "lll_reduce",
+    "relation_reasons",
+]
+
+CAVEAT = (
+    "Every relation and bound here was found on this table and checked on its rows: each is a "
+    "conjecture that the table supports, not a theorem."
+)
+
+# Caps that keep a 20-column, million-row table within seconds; the result notes each cut.
+MAX_RELATION_COLUMNS = 40
+MAX_APPROXIMATE_COLUMNS = 20
+MAX_BOUND_COLUMNS = 20
+MAX_TRIPLE_COLUMNS = 8
+MAX_BOUNDS = 30
+MAX_LISTED_ROWS = 1000
+# Fraction of the spread of a bound's left side within which a row "comes close" to it.
+NEAR_FRACTION = Fraction(1, 20)
+
+_FLOAT_EXACT = 2**53  # integers below this are exact in float64, and so are their sums
+_INT64_SAFE = 2**62  # int64 sums that stay below this cannot overflow
+
+
+# --------------------------------------------------------------------------------------------
+# Results
+# --------------------------------------------------------------------------------------------
+
+
+def _number_text(value: Fraction) -> str:
+    value = Fraction(value)
+    if value.denominator <= 10**6:
+        return str(value)
+    # An approximate coefficient with a huge denominator reads better as a decimal.
+    return f"{float(value):.12g}"
+
+
+def _equation_text(terms: Sequence[tuple[str, Fraction]], relation: str, constant) -> str:
+    parts = []
+    for position, (name, coef) in enumerate(terms):
+        size = abs(coef)
+        body = name if size == 1 else f"{_number_text(size)}*{name}"
+        if position == 0:
+            parts.append(body if coef > 0 else f"-{body}")
+        else:
+            parts.append(f"{'+' if coef > 0 else '-'} {body}")
+    return f"{' '.join(parts) or '0'} {relation} {_number_text(constant)}"
+
+
+def _plain(value):
+    """A row id as a plain Python value (JSON-ready)."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
+@dataclass(frozen=True)
+class Relation:
+    """A linear relation ``sum(coef * column) = constant`` found on the table.
+
+    ``holds_on`` counts the rows that obey it; ``violations`` are the ids of the rows that
+    break it (empty for a relation that holds on every row). ``exact`` is True when the
+    relation was checked in exact arithmetic and False for an approximate relation among
+    real-valued columns, which holds to within ``tolerance`` (relative to the size of the
+    terms). ``trivial`` marks a constant column or two equal columns (or nearly so).
+    Rows with a missing value in one of the relation's columns count neither way.
+    """
+
+    terms: tuple[tuple[str, Fraction], ...]
+    constant: Fraction
+    holds_on: int
+    violations: tuple = ()
+    exact: bool = True
+    trivial: bool = False
+    note: str = ""
+    tolerance: float | None = None
+
+    @property
+    def text(self) -> str:
+        """The relation as one line, e.g. ``vertices - edges + faces = 2``."""
+        text = _equation_text(self.terms, "=", self.constant)
+        if not self.exact:
+            text += f" (approximately: to within {self.tolerance:g} relative)"
+        return text
+
+    def to_json(self) -> dict:
+        """The relation in the JSON shape of the design's ``relations`` list."""
+        data = {
+            "terms": [{"column": name, "coef": str(coef)} for name, coef in self.terms],
+            "relation": "=",
+            "constant": str(self.constant),
+            "text": self.text,
+            "holds_on": self.holds_on,
+            "violations": [_plain(v) for v in self.violations],
+            "exact": self.exact,
+            "trivial": self.trivial,
+            "note": self.note,
+        }
+        if not self.exact:
+            data["tolerance"] = self.tolerance
+        return data
+
+
+@dataclass(frozen=True)
+class Bound:
+    """A linear bound ``sum(coef * column) <= constant`` (or ``>=``) that the rows obey.
+
+    ``attained_by`` holds the ids of the rows on which equality holds (the extremal objects;
+    at most ``MAX_LISTED_ROWS`` of them, ``attained_count`` is the full number); ``near``
+    counts the other rows within ``near_margin`` of the bound; ``violations`` are the ids of
+    rows that break it (empty unless the bound was found in robust mode).
+    """
+
+    terms: tuple[tuple[str, Fraction], ...]
+    relation: str
+    constant: Fraction
+    attained_by: tuple
+    attained_count: int
+    near: int
+    near_margin: Fraction
+    holds_on: int
+    violations: tuple = ()
+    note: str = ""
+
+    @property
+    def text(self) -> str:
+        """The bound as one line, e.g. ``vertices - boundary_points <= 0``."""
+        return _equation_text(self.terms, self.relation, self.constant)
+
+    def to_json(self) -> dict:
+        """The bound in the JSON shape of the design's ``bounds`` list."""
+        return {
+            "terms": [{"column": name, "coef": str(coef)} for name, coef in self.terms],
+            "relation": self.relation,
+            "constant": str(self.constant),
+            "text": self.text,
+            "attained_by": [_plain(v) for v in self.attained_by],
+            "violations": [_plain(v) for v in self.violations],
+            "attained_count": self.attained_count,
+            "near": self.near,
+            "near_margin": str(self.near_margin),
+            "holds_on": self.holds_on,
+            "note": self.note,
+        }
+
+
+@dataclass(frozen=True)
+class RelationsResult:
+    """What the relations step found.
+
+    ``relations``: exact relations (a basis of those holding on every row, then those holding
+    on all but a few rows, then trivial ones); ``approximate``: relations among real-valued
+    columns that hold to a stated tolerance; ``bounds``: sharp bounds, best first; ``notes``:
+    what was left out or capped, in words; ``columns``: the columns looked at.
+    """
+
+    relations: tuple[Relation, ...]
+    bounds: tuple[Bound, ...]
+    approximate: tuple[Relation, ...]
+    notes: tuple[str, ...]
+    n_rows: int
+    columns: tuple[str, ...]
+    caveat: str = CAVEAT
+
+    def to_json(self) -> dict:
+        """Plain JSON data: ``relations``, ``bounds`` as in the design, plus ``caveat``."""
+        return {
+            "rows": self.n_rows,
+            "columns": list(self.columns),
+            "relations": [relation.to_json() for relation in self.relations],
+            "approximate_relations": [relation.to_json() for relation in self.approximate],
+            "bounds": [bound.to_json() for bound in self.bounds],
+            "notes": list(self.notes),
+            "caveat": self.caveat,
+        }
+
+
+def relation_reasons(result: RelationsResult) -> dict:
+    """Why each row is worth a look, in words, for the objects-to-look-at list.
+
+    Returns ``{row_id: [reason, ...]}``: "breaks <relation>" for rows that break a relation
+    or a bound, "attains <bound>" for the extremal rows of a bound, "is off <relation>" for
+    rows outside the tolerance of an approximate relation.
+    """
+    reasons: dict = {}
+
+    def add(row, text):
+        reasons.setdefault(_plain(row), []).append(text)
+
+    for relation in result.relations:
+        for row in relation.violations:
+            add(row, f"breaks {relation.text}")
+    for relation in result.approximate:
+        for row in relation.violations:
+            add(row, f"is off {relation.text}")
+    for bound in result.bounds:
+        for row in bound.violations:
+            add(row, f"breaks {bound.text}")
+        for row in bound.attained_by:
+            add(row, f"attains {bound.text}")
+    return reasons
+
+
+# --------------------------------------------------------------------------------------------
+# Exact lattice arithmetic
+# --------------------------------------------------------------------------------------------
+
+
+def _dot(u, v) -> int:
+    return sum(a * b for a, b in zip(u, v))
+
+
+def _nearest_integer(value: Fraction) -> int:
+    # Halves round up, the usual convention for LLL's size reduction.
+    return math.floor(value + Fraction(1, 2))
+
+
+def lll_reduce(basis: Sequence[Sequence[int]], delta: Fraction = Fraction(3, 4)) -> list[list[int]]:
+    """LLL-reduce a basis of linearly independent integer vectors, exactly.
+
+    Parameters: ``basis``, the vectors (rows) of a lattice basis; ``delta`` in (1/4, 1], the
+    Lovasz constant. Returns a basis of the same lattice whose Gram-Schmidt coefficients are
+    at most 1/2 in size and which meets the Lovasz condition with ``delta``.
+
+    >>> lll_reduce([[1, 1, 1], [-1, 0, 2], [3, 5, 6]])
+    [[0, 1, 0], [1, 0, 1], [-1, 0, 2]]
+    """
+    vectors = [[int(x) for x in v] for v in basis]
+    count = len(vectors)
+    if count == 0:
+        return []
+    if len({len(v) for v in vectors}) != 1:
+        raise ValueError("lll_reduce: the basis vectors have different lengths")
+    delta = Fraction(delta)
+    if not Fraction(1, 4) < delta <= 1:
+        raise ValueError(f"lll_reduce: delta must lie in (1/4, 1], got {delta}")
+
+    # Gram-Schmidt coefficients mu[i][j] and squared lengths norm[i] of the orthogonalised
+    # vectors, from the Gram matrix, so that no rational vectors are ever formed.
+    mu = [[Fraction(0)] * count for _ in range(count)]
+    norm: list[Fraction] = []
+    for i in range(count):
+        inner = [Fraction(_dot(vectors[i], vectors[j])) for j in range(i + 1)]
+        for j in range(i):
+            value = inner[j] - sum(mu[j][k] * mu[i][k] * norm[k] for k in range(j))
+            mu[i][j] = value / norm[j]
+        length = inner[i] - sum(mu[i][k] ** 2 * norm[k] for k in range(i))
+        if length == 0:
+            raise ValueError("lll_reduce: the basis vectors are linearly dependent")
+        norm.append(length)
+
+    def size_reduce(k: int, j: int) -> None:
+        if abs(mu[k][j]) <= Fraction(1, 2):
+            return
+        q = _nearest_integer(mu[k][j])
+        vectors[k] = [a - q * b for a, b in zip(vectors[k], vectors[j])]
+        for i in range(j):
+            mu[k][i] -= q * mu[j][i]
+        mu[k][j] -= q
+
+    k = 1
+    while k < count:
+        size_reduce(k, k - 1)
+        if norm[k] >= (delta - mu[k][k - 1] ** 2) * norm[k - 1]:
+            for j in range(k - 2, -1, -1):
+                size_reduce(k, j)
+            k += 1
+            continue
+        # Exchange b_k and b_(k-1) and update the Gram-Schmidt data in place.
+        m = mu[k][k - 1]
+        merged = norm[k] + m * m * norm[k - 1]
+        mu[k][k - 1] = m * norm[k - 1] / merged
+        norm[k] = norm[k - 1] * norm[k] / merged
+        norm[k - 1] = merged
+        vectors[k], vectors[k - 1] = vectors[k - 1], vectors[k]
+        for j in range(k - 1):
+            mu[k][j], mu[k - 1][j] = mu[k - 1][j], mu[k][j]
+        for i in range(k + 1, count):
+            t = mu[i][k]
+            mu[i][k] = mu[i][k - 1] - m * t
+            mu[i][k - 1] = t + mu[k][k - 1] * mu[i][k]
+        k = max(k - 1, 1)
+    return vectors
+
+
+def _restrict(basis: list[list[int]], row: Sequence[int]) -> list[list[int]]:
+    """A basis of the vectors v of the lattice spanned by ``basis`` with ``row . v = 0``.
+
+    Unimodular steps only (a Euclidean algorithm on the values row . b), so the result spans
+    exactly the sublattice: no relation with integer coefficients is lost.
+    """
+    kept = []
+    active = []
+    for vector in basis:
+        value = _dot(row, vector)
+        if value == 0:
+            kept.append(vector)
+        else:
+            active.append((value, vector))
+    while len(active) > 1:
+        active.sort(key=lambda item: abs(item[0]))
+        pivot_value, pivot = active[0]
+        survivors = [active[0]]
+        for value, vector in active[1:]:
+            q = _nearest_integer(Fraction(value, pivot_value))
+            value -= q * pivot_value
+            vector = [a - q * b for a, b in zip(vector, pivot)]
+            if value == 0:
+                kept.append(vector)
+            else:
+                survivors.append((value, vector))
+        active = survivors
+    return kept
+
+
+def _identity(size: int) -> list[list[int]]:
+    return [[int(i == j) for j in range(size)] for i in range(size)]
+
+
+def _tidy(basis: list[list[int]]) -> list[list[int]]:
+    """LLL-reduce, make each vector primitive with a positive leading coefficient, and sort."""
+    if not basis:
+        return []
+    tidy = []
+    for vector in lll_reduce(basis):
+        g = math.gcd(*vector)
+        vector = [x // g for x in vector]
+        lead = next(x for x in vector if x != 0)
+        if lead < 0:
+            vector = [-x for x in vector]
+        tidy.append(vector)
+    tidy.sort(key=lambda v: (sum(1 for x in v[:-1] if x), sum(x * x for x in v), v))
+    return tidy
+
+
+def integer_kernel(rows: Sequence[Sequence]) -> list[list[int]]:
+    """A reduced basis of the integer vectors ``v`` with ``row . v = 0`` for every row.
+
+    ``rows`` hold integers or fractions. The basis spans every integer solution (not just a
+    finite-index part of them) and is LLL-reduced.
+
+    >>> integer_kernel([[1, 1, 2], [0, 1, 1]])
+    [[1, 1, -1]]
+    """
+    rows = [list(r) for r in rows]
+    if not rows:
+        raise ValueError("integer_kernel: no rows given")
+    basis = _identity(len(rows[0]))
+    for row in rows:
+        scale = math.lcm(*(Fraction(x).denominator for x in row))
+        basis = _restrict(basis, [int(Fraction(x) * scale) for x in row])
+        if not basis:
+            return []
+    return _tidy(basis)
+
+
+class _RankTracker:
+    """Keeps rational row-echelon vectors to tell whether a new vector adds to the span."""
+
+    def __init__(self) -> None:
+        self._rows: list[tuple[int, list[Fraction]]] = []
+
+    def add(self, vector: Sequence) -> bool:
+        """Add ``vector``; return False (and add nothing) when it lies in the current span."""
+        v = [Fraction(x) for x in vector]
+        for pivot, row in self._rows:
+            if v[pivot]:
+                factor = v[pivot] / row[pivot]
+                v = [a - factor * b for a, b in zip(v, row)]
+        pivot = next((i for i, x in enumerate(v) if x), None)
+        if pivot is None:
+            return False
+        self._rows.append((pivot, v))
+        return True
+
+
+# --------------------------------------------------------------------------------------------
+# Reading columns
+# --------------------------------------------------------------------------------------------
+
+
+def _exact_column(name: str, values) -> tuple[np.ndarray, np.ndarray]:
+    """(values, missing): int64 when every value fits, else an object array of int/Fraction."""
+    if isinstance(values, np.ndarray) and values.dtype.kind in "iub":
+        return values.astype(np.int64), np.zeros(len(values), dtype=bool)
+    items = list(values)
+    missing = np.zeros(len(items), dtype=bool)
+    clean = []
+    fits = True
+    for position, value in enumerate(items):
+        if value is None or (isinstance(value, float) and math.isnan(value)):
+            missing[position] = True
+            clean.append(0)
+            continue
+        if isinstance(value, Integral):
+            value = int(value)
+        elif isinstance(value, Fraction):
+            value = value.numerator if value.denominator == 1 else value
+        elif isinstance(value, float) and value.is_integer():
+            value = int(value)
+        else:
+            raise StepError(
+                f"relations: column '{name}', row {position}: expected an exact integer or "
+                f"fraction, got {value!r}. Mark the column as real-valued or fix the cell."
+            )
+        if not isinstance(value, int) or abs(value) >= _INT64_SAFE:
+            fits = False
+        clean.append(value)
+    if fits:
+        return np.array(clean, dtype=np.int64), missing
+    array = np.empty(len(clean), dtype=object)
+    array[:] = clean
+    return array, missing
+
+
+class _Matrix:
+    """Exact rows, one integer column per invariant plus a last column for the constant.
+
+    A row holding fractions is multiplied by the least common multiple of its denominators:
+    that changes no relation, and keeps all arithmetic in integers.
+    """
+
+    def __init__(self, columns: list[np.ndarray], rows: np.ndarray) -> None:
+        size = len(rows)
+        every = size == len(columns[0])  # rows are sorted and distinct, so this means all
+        if all(c.dtype != object for c in columns):
+            # Column-major: each invariant is one contiguous stretch of memory.
+            values = np.empty((size, len(columns) + 1), dtype=np.int64, order="F")
+            for j, column in enumerate(columns):
+                values[:, j] = column if every else column[rows]
+            values[:, -1] = 1
+        else:
+            values = np.empty((size, len(columns) + 1), dtype=object)
+            picked = [c[rows].tolist() for c in columns]
+            for i in range(size):
+                row = [p[i] for p in picked]
+                scale = math.lcm(*(x.denominator for x in row if isinstance(x, Fraction)))
+                values[i, :-1] = [int(x * scale) for x in row]
+                values[i, -1] = scale
+        self.values = values
+        self.size = size
+        if values.dtype == object:
+            self.col_max = [max((abs(int(x)) for x in values[:, j]), default=0)
+                            for j in range(values.shape[1])]
+        elif size:
+            self.col_max = [int(max(-c.min(), c.max())) for c in values.T]
+        else:
+            self.col_max = [0] * values.shape[1]
+        self.as_float = (
+            values.astype(np.float64, order="F")
+            if values.dtype != object and max(self.col_max) < _FLOAT_EXACT
+            else None
+        )
+
+    def row(self, position: int) -> list[int]:
+        return [int(x) for x in self.values[position]]
+
+    def broken(self, vectors: list[list[int]], rows: np.ndarray | None = None) -> np.ndarray:
+        """Boolean (rows x vectors): True where the row does not satisfy the relation."""
+        count = self.size if rows is None else len(rows)
+        if not vectors:
+            return np.zeros((count, 0), dtype=bool)
+        bound = max(sum(m * abs(c) for m, c in zip(self.col_max, v)) for v in vectors)
+        if self.as_float is not None and bound < _FLOAT_EXACT:
+            # Every partial sum is an integer below 2**53, so float64 is exact here. Multiplying
+            # every row and then picking is cheaper than copying the picked rows first.
+            product = (np.array(vectors, dtype=np.float64) @ self.as_float.T).T
+            return (product if rows is None else product[rows]) != 0
+        if self.values.dtype != object and bound < _INT64_SAFE:
+            product = (np.array(vectors, dtype=np.int64) @ self.values.T).T
+            return (product if rows is None else product[rows]) != 0
+        data = self.values if rows is None else self.values[rows]
+        coefficients = np.empty((len(vectors[0]), len(vectors)), dtype=object)
+        coefficients[:, :] = np.array(vectors, dtype=object).T
+        return data.astype(object).dot(coefficients) != 0
+
+
+# --------------------------------------------------------------------------------------------
+# Exact relations
+# --------------------------------------------------------------------------------------------
+
+
+def _kernel_on(matrix: _Matrix, rows: np.ndarray, rng: np.random.Generator) -> list[list[int]]:
+    """Reduced basis of the integer relations that hold on every row in ``rows``.
+
+    Solved on a random handful of rows, then checked on all of them; a row that breaks a
+    candidate joins the system. Each round lowers the dimension, so this ends after at most
+    one round per column.
+    """
+    width = matrix.values.shape[1]
+    basis = _identity(width)
+    if len(rows) == 0:
+        return basis
+    sample_size = min(len(rows), 3 * width + 10)
+    sample = np.sort(rng.choice(rows, size=sample_size, replace=False))
+    for position in sample:
+        basis = _restrict(basis, matrix.row(position))
+        if not basis:
+            return []
+    basis = lll_reduce(basis)
+    while basis:
+        bad = np.flatnonzero(matrix.broken(basis, rows).any(axis=1))
+        if len(bad) == 0:
+            break
+        basis = _restrict(basis, matrix.row(rows[bad[0]]))
+        basis = lll_reduce(basis) if basis else basis
+    return _tidy(basis)
+
+
+def _distinct_count(matrix: _Matrix, rows: np.ndarray, support: list[int], enough: int) -> int:
+    """Distinct rows over ``support`` columns among ``rows``, counted up to ``enough``."""
+    data = matrix.values[rows[: 50 * enough]][:, support]
+    if data.dtype == object:
+        return len({tuple(r) for r in data.tolist()})
+    return len(np.unique(data, axis=0))
+
+
+def _trials_needed(breakers: int, size: int, sample_size: int) -> int:
+    """Random subsets to draw so that one misses every breaker with probability 0.999."""
+    clean = (1 - breakers / size) ** sample_size if size else 1.0
+    if clean >= 0.999:
+        return 2
+    if clean <= 1e-6:
+        return 60
+    return int(min(60, max(3, math.ceil(math.log(1e-3) / math.log(1 - clean)))))
+
+
+def _robust_kernels(matrix, rows, base_dim, breakers, rng) -> list[frozenset]:
+    """Sets of rows whose removal leaves new relations, found by solving on random subsets."""
+    width = matrix.values.shape[1]
+    sample_size = min(len(rows), 2 * width + 10)
+    hypotheses: list[frozenset] = []
+    for _ in range(_trials_needed(breakers, len(rows), sample_size)):
+        sample = rng.choice(rows, size=sample_size, replace=False)
+        basis = _identity(width)
+        for position in sample:
+            basis = _restrict(basis, matrix.row(position))
+        # Both lattices are saturated and this one contains the table's, so equal dimension
+        # means equal lattices: nothing new on this subset.
+        for _step in range(width + 1):
+            if len(basis) <= base_dim:
+                break
+            basis = lll_reduce(basis)
+            broken = matrix.broken(basis, rows)
+            counts = broken.sum(axis=0)
+            fitting = [j for j, c in enumerate(counts) if 0 < c <= breakers]
+            if fitting:
+                for j in fitting:
+                    hypotheses.append(frozenset(rows[broken[:, j]].tolist()))
+                break
+            # The subset was too small to pin the relations down: add a row that breaks the
+            # candidate broken least often (most likely a row that is not a breaker).
+            j = min((j for j, c in enumerate(counts) if c), key=lambda j: counts[j])
+            extra = rows[rng.choice(np.flatnonzero(broken[:, j]))]
+            basis = _restrict(basis, matrix.row(extra))
+    unique = sorted(set(hypotheses), key=lambda h: (len(h), sorted(h)))
+    return unique[:20]
+
+
+def _relation_from_vector(vector, names, holds_on, violations, note="", trivial=False):
+    terms = tuple((names[j], Fraction(c)) for j, c in enumerate(vector[:-1]) if c)
+    return Relation(
+        terms=terms,
+        constant=Fraction(-vector[-1]),
+        holds_on=holds_on,
+        violations=tuple(violations),
+        exact=True,
+        trivial=trivial,
+        note=note,
+    )
+
+
+def _breakers_allowed(max_breakers, size: int) -> int:
+    if isinstance(max_breakers, Integral) or (
+        isinstance(max_breakers, float) and max_breakers >= 1
+    ):
+        return int(max_breakers)
+    return int(math.floor(float(max_breakers) * size))
+
+
+def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, notes):
+    """Trivial relations, a basis of the relations on every row, and robust relations.
+
+    Returns (relations, equalities) where equalities are (coefs by name, constant) pairs of
+    the relations holding on every row, for the bound step's implication test.
+    """
+    n = len(row_ids)
+    missing_share = {name: float(columns[name][1].mean()) if n else 0.0 for name in names}
+    dropped = [name for name in names if missing_share[name] > 0.5]
+    if dropped:
+        notes.append(
+            "left out of the relation search (missing in more than half of the rows): "
+            + ", ".join(dropped)
+        )
+    names = [name for name in names if name not in dropped]
+    if len(names) > MAX_RELATION_COLUMNS:
+        notes.append(
+            f"relation search limited to the first {MAX_RELATION_COLUMNS} of {len(names)} "
+            "exact columns; name columns to search others"
+        )
+        names = names[:MAX_RELATION_COLUMNS]
+    if not names:
+        return [], []
+    present = np.ones(n, dtype=bool)
+    for name in names:
+        present &= ~columns[name][1]
+    used = np.flatnonzero(present)
+    if len(used) < n:
+        notes.append(
+            f"{n - len(used)} rows with a missing value in the searched columns were left out "
+            "of the relation search"
+        )
+    if len(used) == 0:
+        notes.append("no row has a value in every searched column; no relations searched")
+        return [], []
+
+    relations: list[Relation] = []
+    equalities: list[tuple[dict, Fraction]] = []
+    size = len(used)
+    # Constant and duplicated columns first: reported once as trivial, then left out so that
+    # they do not reappear inside other relations.
+    core: list[str] = []
+    for name in names:
+        values = columns[name][0][used]
+        first = values[0]
+        if bool(np.all(values == first)):
+            constant = Fraction(first)
+            relations.append(Relation(
+                terms=((name, Fraction(1)),), constant=constant, holds_on=size, trivial=True,
+                note=f"trivial: column '{name}' is constant",
+            ))
+            equalities.append(({name: Fraction(1)}, constant))
+            continue
+        # Comparing the first values rules most pairs out without a pass over every row.
+        twin = next(
+            (other for other in core
+             if np.array_equal(columns[other][0][used[:256]], values[:256])
+             and np.array_equal(columns[other][0][used], values)),
+            None,
+        )
+        if twin is not None:
+            relations.append(Relation(
+                terms=((twin, Fraction(1)), (name, Fraction(-1))), constant=Fraction(0),
+                holds_on=size, trivial=True,
+                note=f"trivial: columns '{twin}' and '{name}' are equal on every row",
+            ))
+            equalities.append(({twin: Fraction(1), name: Fraction(-1)}, Fraction(0)))
+            continue
+        core.append(name)
+    if not core:
+        return relations, equalities
+
+    matrix = _Matrix([columns[name][0] for name in core], used)
+    every_row = np.arange(size)
+    base = _kernel_on(matrix, every_row, rng)
+    width = len(core) + 1
+    distinct = _distinct_count(matrix, every_row, list(range(len(core))), 2 * width)
+    found: list[Relation] = []
+    for vector in base:
+        note = ""
+        if distinct <= width:
+            note = (
+                f"only {distinct} distinct rows for {len(core)} columns: relations like this one "
+                "are forced by the small number of rows"
+            )
+        found.append(_relation_from_vector(vector, core, size, (), note))
+        equalities.append(({core[j]: Fraction(c) for j, c in enumerate(vector[:-1]) if c},
+                           Fraction(-vector[-1])))
+
+    breakers = _breakers_allowed(max_breakers, size) if robust else 0
+    robust_found: list[Relation] = []
+    if breakers > 0 and size > width:
+        tracker = _RankTracker()
+        for vector in base:
+            tracker.add(vector)
+        candidates = []
+        for hypothesis in _robust_kernels(matrix, every_row, len(base), breakers, rng):
+            keep = np.ones(size, dtype=bool)
+            keep[list(hypothesis)] = False
+            keep = np.flatnonzero(keep)
+            if len(keep) == 0:
+                continue
+            lattice = _kernel_on(matrix, keep, rng)
+            if len(lattice) <= len(base):
+                continue
+            broken = matrix.broken(lattice)
+            for j, vector in enumerate(lattice):
+                bad = np.flatnonzero(broken[:, j])
+                if 0 < len(bad) <= breakers:
+                    candidates.append((vector, bad))
+        candidates.sort(key=lambda c: (len(c[1]), sum(1 for x in c[0][:-1] if x),
+                                       sum(x * x for x in c[0])))
+        for vector, bad in candidates:
+            support = [j for j, c in enumerate(vector[:-1]) if c]
+            good = np.delete(every_row, bad)
+            # A relation in t columns is pinned down by t rows; ask for a few more than that so
+            # that a relation through a handful of points is not mistaken for a pattern.
+            needed = len(support) + 3
+            if _distinct_count(matrix, good, support, needed) < needed:
+                continue
+            if not tracker.add(vector):
+                continue
+            terms = [(core[j], vector[j]) for j in support]
+            trivial = len(terms) == 1 or (
+                len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
+            )
+            violations = tuple(row_ids[used[bad]].tolist())
+            note = f"holds on all but {len(bad)} rows"
+            if trivial and len(terms) == 1:
+                note = f"trivial: column '{terms[0][0]}' is constant on all but {len(bad)} rows"
+            elif trivial:
+                note = (f"trivial: columns '{terms[0][0]}' and '{terms[1][0]}' are equal on all "
+                        f"but {len(bad)} rows")
+            robust_found.append(_relation_from_vector(
+                vector, core, size - len(bad), violations, note, trivial))
+
+    ordered = (
+        [r for r in found]
+        + [r for r in robust_found if not r.trivial]
+        + [r for r in relations if r.trivial]
+        + [r for r in robust_found if r.trivial]
+    )
+    return ordered, equalities
+
+
+# --------------------------------------------------------------------------------------------
+# Approximate relations among real-valued columns
+# --------------------------------------------------------------------------------------------
+
+
+def _snap(value: float, tolerance: float) -> Fraction:
+    """A simple fraction for ``value`` when one lies within the tolerance, else its decimal."""
+    simple = Fraction(value).limit_denominator(1000)
+    if abs(float(simple) - value) <= tolerance * max(1.0, abs(value)):
+        return simple
+    return Fraction(f"{value:.12g}")
+
+
+def _approximate_relations(
+    data: dict, real_names: set, row_ids, *, tolerance, breakers_setting, robust, rng,
+    known: list[tuple[dict, Fraction]], notes,
+) -> list[Relation]:
+    names = list(data)
+    matrix = np.column_stack([data[name] for name in names] + [np.ones(len(row_ids))])
+    finite = np.isfinite(matrix).all(axis=1)
+    used = np.flatnonzero(finite)
+    if len(used) < len(row_ids):
+        notes.append(
+            f"{len(row_ids) - len(used)} rows with a missing or infinite value were left out "
+            "of the approximate relation search"
+        )
+    values = matrix[used]
+    size, width = values.shape
+    if size < width + 2:
+        notes.append("too few rows for an approximate relation search")
+        return []
+    breakers = _breakers_allowed(breakers_setting, size) if robust else 0
+    scale = np.sqrt(np.mean(values**2, axis=0))
+    scale[scale == 0] = 1.0
+    scaled = values / scale
+
+    def candidates_from(sample: np.ndarray) -> list[np.ndarray]:
+        _, singular, right = np.linalg.svd(scaled[sample], full_matrices=False)
+        limit = singular[0] * tolerance * math.sqrt(len(sample))
+        null = right[singular <= limit]
+        if len(null) == 0:
+            return []
+        # Echelon form with pivots on real-valued columns first, so each relation names one
+        # real column in terms of the others.
+        null = null.copy()
+        order = [j for j in range(width - 1) if names[j] in real_names] + [
+            j for j in range(width - 1) if names[j] not in real_names
+        ]
+        pivots = []
+        for row in range(len(null)):
+            choices = [j for j in order if j not in pivots]
+            if not choices:
+                break
+            sizes = {j: float(abs(null[row:, j]).max()) for j in choices}
+            largest = max(sizes.values())
+            if largest == 0:
+                break
+            best = next(j for j in choices if sizes[j] >= 0.1 * largest)
+            swap = row + int(np.argmax(abs(null[row:, best])))
+            null[[row, swap]] = null[[swap, row]]
+            null[row] /= null[row, best]
+            for other in range(len(null)):
+                if other != row:
+                    null[other] -= null[other, best] * null[row]
+            pivots.append(best)
+        return [vector / scale for vector in null[: len(pivots)]]
+
+    samples = [np.sort(rng.choice(size, size=min(size, 20_000), replace=False))]
+    if breakers:
+        small = min(size, 2 * width + 10)
+        samples += [np.sort(rng.choice(size, size=small, replace=False))
+                    for _ in range(_trials_needed(breakers, size, small))]
+
+    tracker_rows: list[np.ndarray] = []
+    for coefs, constant in known:
+        if set(coefs) <= set(names):
+            vector = np.zeros(width)
+            for name, coef in coefs.items():
+                vector[names.index(name)] = float(coef)
+            vector[-1] = -float(constant)
+            tracker_rows.append(vector * scale)
+
+    def independent(vector: np.ndarray) -> bool:
+        stacked = np.vstack(tracker_rows + [vector * scale])
+        stacked = stacked / np.linalg.norm(stacked, axis=1, keepdims=True)
+        return np.linalg.matrix_rank(stacked, tol=1e-6) == len(stacked)
+
+    found: list[tuple[int, Relation]] = []
+    for sample in samples:
+        for vector in candidates_from(sample):
+            lead = max(range(width - 1), key=lambda j: abs(vector[j]) * scale[j])
+            vector = vector / vector[lead]
+            sizes = np.abs(vector) * scale
+            vector[sizes <= tolerance * sizes.max()] = 0.0
+            if not any(vector[j] and names[j] in real_names for j in range(width - 1)):
+                continue  # among exact columns only: the exact search covers it
+            snapped = [_snap(float(x), tolerance) for x in vector]
+            coefs = np.array([float(x) for x in snapped])
+            residual = np.abs(values @ coefs)
+            size_of_terms = np.abs(values) @ np.abs(coefs)
+            ok = residual <= tolerance * np.maximum(size_of_terms, 1e-300)
+            bad = np.flatnonzero(~ok)
+            if len(bad) > breakers or not independent(coefs):
+                continue
+            tracker_rows.append(coefs * scale)
+            terms = tuple((names[j], snapped[j]) for j in range(width - 1) if snapped[j])
+            note = "approximate: the columns hold floating point values"
+            if len(bad):
+                note += f"; holds on all but {len(bad)} rows"
+            found.append((len(bad), Relation(
+                terms=terms, constant=-snapped[-1], holds_on=size - len(bad),
+                violations=tuple(row_ids[used[bad]].tolist()), exact=False,
+                note=note, tolerance=tolerance,
+            )))
+    found.sort(key=lambda item: (item[0], len(item[1].terms)))
+    return [relation for _, relation in found]
+
+
+# --------------------------------------------------------------------------------------------
+# Sharp bounds
+# --------------------------------------------------------------------------------------------
+
+# Columns whose value ranges multiply to at most this many cells are counted on a grid, in
+# one pass over the rows; wider ones are sorted.
+GRID_LIMIT = 4_000_000
+MAX_TRIPLE_POINTS = 200_000
+
+
+def _cross(o, a, b):
+    return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
+
+
+def _hull_2d(points) -> list[tuple]:
+    """Vertices of the convex hull, counterclockwise, exact, without points mid-edge."""
+    points = sorted(set(points))
+    if len(points) < 3:
+        return points
+
+    def chain(sequence):
+        kept: list = []
+        for p in sequence:
+            while len(kept) >= 2 and _cross(kept[-2], kept[-1], p) <= 0:
+                kept.pop()
+            kept.append(p)
+        return kept
+
+    lower = chain(points)
+    upper = chain(reversed(points))
+    return lower[:-1] + upper[:-1]
+
+
+def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
+    """Each hull edge as (a, b, c) with a*x + b*y <= c on the whole set, (a, b) primitive."""
+    if len(hull) < 3:
+        return []
+    edges = []
+    for p, q in zip(hull, hull[1:] + hull[:1]):
+        dx, dy = q[0] - p[0], q[1] - p[1]
+        # Clear denominators (rational columns) before making the normal primitive.
+        scale = math.lcm(Fraction(dx).denominator, Fraction(dy).denominator)
+        a, b = int(dy * scale), int(-dx * scale)
+        g = math.gcd(a, b)
+        a, b = a // g, b // g
+        edges.append((a, b, Fraction(a * p[0] + b * p[1])))
+    return edges
+
+
+class _BoundColumn:
+    """One column for the bound search: its range, its number of values, its grid codes."""
+
+    def __init__(self, name, values, missing):
+        self.name = name
+        self.values = values
+        self.missing = missing
+        self.exact_int = values.dtype != object
+        self.codes = None
+        present = values[~missing]
+        if len(present) == 0:
+            self.low = self.high = 0
+            self.distinct = 0
+        elif self.exact_int:
+            self.low, self.high = int(present.min()), int(present.max())
+            if self.high - self.low < GRID_LIMIT:
+                self.codes = values - self.low
+                self.distinct = int(np.count_nonzero(np.bincount(present - self.low)))
+            else:
+                self.distinct = len(np.unique(present))
+        else:
+            listed = present.tolist()
+            self.low, self.high = min(listed), max(listed)
+            self.distinct = len(set(listed))
+        self.integer = self.exact_int or all(
+            isinstance(v, int) for v in present.tolist())
+
+
+class _Points:
+    """The distinct points of a few columns (sorted), each with the number of rows on it.
+
+    Bounds are judged on the distinct points weighted by their rows; the rows themselves are
+    visited again only to name the rows sitting on some of the points.
+    """
+
+    def __init__(self, coords, weights, rows, *, inverse=None, key=None, point_keys=None,
+                 cells=0):
+        self.coords = coords
+        self.weights = weights
+        self._rows = rows
+        self._inverse = inverse
+        self._key = key
+        self._point_keys = point_keys
+        self._cells = cells
+
+    def __len__(self) -> int:
+        return len(self.weights)
+
+    def rows_at(self, mask: np.ndarray) -> np.ndarray:
+        """Positions in the table of the rows on the points where ``mask`` is True."""
+        if not mask.any():
+            return np.zeros(0, dtype=np.int64)
+        if self._key is not None:
+            lookup = np.zeros(self._cells, dtype=bool)
+            lookup[self._point_keys[mask]] = True
+            hit = lookup[self._key]
+        else:
+            hit = mask[self._inverse]
+        found = np.flatnonzero(hit)
+        return found if self._rows is None else self._rows[found]
+
+
+def _grid_cells(columns) -> int | None:
+    if any(c.codes is None for c in columns):
+        return None
+    cells = math.prod(c.high - c.low + 1 for c in columns)
+    return cells if cells <= GRID_LIMIT else None
+
+
+def _distinct_points(columns: list[_BoundColumn]) -> _Points:
+    """Distinct points of the columns over the rows where none is missing."""
+    absent = np.zeros(len(columns[0].values), dtype=bool)
+    for column in columns:
+        absent |= column.missing
+    rows = np.flatnonzero(~absent) if absent.any() else None
+
+    def picked(array):
+        return array if rows is None else array[rows]
+
+    cells = _grid_cells(columns)
+    if cells is not None:
+        key = picked(columns[0].codes)
+        for column in columns[1:]:
+            key = key * (column.high - column.low + 1) + picked(column.codes)
+        counts = np.bincount(key, minlength=cells)
+        point_keys = np.flatnonzero(counts)
+        coords = []
+        rest = point_keys
+        for column in reversed(columns):
+            size = column.high - column.low + 1
+            coords.append(rest % size + column.low)
+            rest = rest // size
+        return _Points(coords[::-1], counts[point_keys], rows, key=key, point_keys=point_keys,
+                       cells=cells)
+    if all(c.exact_int for c in columns):
+        stacked = np.column_stack([picked(c.values) for c in columns])
+        unique, inverse, counts = np.unique(stacked, axis=0, return_inverse=True,
+                                            return_counts=True)
+        return _Points([unique[:, i] for i in range(len(columns))], counts, rows,
+                       inverse=inverse.ravel())
+    tuples = list(zip(*[picked(c.values).tolist() for c in columns]))
+    index: dict = {}
+    inverse = np.fromiter((index.setdefault(t, len(index)) for t in tuples), dtype=np.int64,
+                          count=len(tuples))
+    ordered = sorted(index)
+    renumber = np.empty(len(ordered), dtype=np.int64)
+    for new, point in enumerate(ordered):
+        renumber[index[point]] = new
+    inverse = renumber[inverse]
+    coords = []
+    for i in range(len(columns)):
+        coordinate = np.empty(len(ordered), dtype=object)
+        coordinate[:] = [point[i] for point in ordered]
+        coords.append(coordinate)
+    return _Points(coords, np.bincount(inverse, minlength=len(ordered)), rows, inverse=inverse)
+
+
+def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Of points sorted by (x, y): the least and greatest y at each x, the only points that
+    can be corners of the hull."""
+    starts = np.flatnonzero(np.r_[True, x[1:] != x[:-1]])
+    ends = np.r_[starts[1:], len(x)] - 1
+    picked = np.unique(np.r_[starts, ends])
+    return np.column_stack([x[picked], y[picked]])
+
+
+def _combine(coefs, arrays):
+    """sum(coef * array), exact: int64 when it cannot overflow, else Python numbers."""
+    if all(a.dtype != object for a in arrays):
+        bound = sum(abs(int(c)) * max(abs(int(a.min())), abs(int(a.max())))
+                    for c, a in zip(coefs, arrays) if len(a))
+        if bound < _INT64_SAFE:
+            total = np.zeros(len(arrays[0]), dtype=np.int64)
+            for c, a in zip(coefs, arrays):
+                total += int(c) * a
+            return total
+    total = np.zeros(len(arrays[0]), dtype=object)
+    for c, a in zip(coefs, arrays):
+        total = total + a.astype(object) * int(c)
+    return total
+
+
+def _exact_hull(candidates: np.ndarray) -> list[tuple]:
+    """Exact hull of many points: a floating point hull picks candidates, exact checks decide."""
+    if candidates.dtype == object or len(candidates) <= 4000:
+        return _hull_2d([tuple(p) for p in candidates.tolist()])
+    from scipy.spatial import ConvexHull, QhullError
+
+    as_float = candidates.astype(np.float64)
+    try:
+        equations = ConvexHull(as_float).equations
+    except QhullError:
+        return _hull_2d([tuple(p) for p in candidates.tolist()])
+    margin = 1e-9 * (1.0 + float(np.abs(as_float).max()))
+    keep = (as_float @ equations[:, :2].T + equations[:, 2]).max(axis=1) >= -margin
+    while True:
+        hull = _hull_2d([tuple(p) for p in candidates[keep].tolist()])
+        outside = np.zeros(len(candidates), dtype=bool)
+        for a, b, c in _edges(hull):
+            outside |= _combine((a, b), (candidates[:, 0], candidates[:, 1])) > c
+        if not outside.any():
+            return hull
+        keep |= outside
+
+
+def _near_margin(spread: Fraction, integer: bool) -> Fraction:
+    margin = Fraction(spread) * NEAR_FRACTION
+    return max(margin, Fraction(1)) if integer else margin
+
+
+def _oriented(terms: list[tuple[str, int]], constant) -> tuple[list, str, Fraction]:
+    """Write ``sum <= constant`` so that the first coefficient is positive."""
+    if terms[0][1] > 0:
+        return [(n, Fraction(c)) for n, c in terms], "<=", Fraction(constant)
+    return [(n, Fraction(-c)) for n, c in terms], ">=", Fraction(-constant)
+
+
+def _implied(coefs: dict, constant: Fraction, facts) -> bool:
+    """Whether ``sum coefs <= constant`` follows from the ranges, relations and given bounds.
+
+    A linear programme: the largest value of the left side over the region the known facts
+    cut out. The bound adds nothing when that largest value does not exceed its constant.
+    """
+    ranges, equalities, inequalities = facts
+    names = set(coefs)
+    touching = [eq for eq, _ in equalities if names & set(eq)]
+    if not touching and not inequalities:
+        # Over a box alone, an edge with two nonzero coefficients is never implied: the box's
+        # corner beyond the edge would have to be a data point on it.
+        return False
+    for eq in touching:
+        names |= set(eq)
+    names = sorted(names)
+    if any(name not in ranges for name in names):
+        return False
+    if any(abs(v) > 1e12 for name in names for v in ranges[name]):
+        return False  # too large for a floating point programme to judge reliably
+    from scipy.optimize import linprog
+
+    index = {name: i for i, name in enumerate(names)}
+
+    def row(terms):
+        vector = np.zeros(len(names))
+        for name, coef in terms.items():
+            vector[index[name]] = float(coef)
+        return vector
+
+    eqs = [(row(eq), float(c)) for eq, c in equalities if set(eq) <= set(names)]
+    ineqs = [(row(iq), float(c)) for iq, c in inequalities if set(iq) <= set(names)]
+    result = linprog(
+        -row(coefs),
+        A_ub=np.array([r for r, _ in ineqs]) if ineqs else None,
+        b_ub=np.array([c for _, c in ineqs]) if ineqs else None,
+        A_eq=np.array([r for r, _ in eqs]) if eqs else None,
+        b_eq=np.array([c for _, c in eqs]) if eqs else None,
+        bounds=[tuple(float(v) for v in ranges[name]) for name in names],
+        method="highs",
+    )
+    if result.status != 0:
+        return False
+    return -result.fun <= float(constant) + 1e-7 * (1 + abs(float(constant)))
+
+
+def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, note=""):
+    """Bound sum(coefs*columns) <= constant, judged on the distinct points."""
+    combined = _combine(coefs, points.coords)
+    constant = Fraction(constant)
+    margin = _near_margin(constant - Fraction(combined.min().item()
+                                              if combined.dtype != object else combined.min()),
+                          integer)
+    if combined.dtype != object and constant.denominator == 1:
+        # Compare integers with integers: a Fraction would turn the arrays into objects.
+        constant, limit = int(constant), math.floor(margin)
+    else:
+        limit = margin
+    attained = combined == constant
+    broken = combined > constant
+    slack = constant - combined
+    near = int(points.weights[(slack > 0) & (slack <= limit)].sum())
+    attaining_rows = points.rows_at(attained)
+    breaking_rows = points.rows_at(broken)
+    terms, relation, shown = _oriented(list(zip(names, coefs)), constant)
+    if len(attaining_rows) > MAX_LISTED_ROWS:
+        note = (note + "; " if note else "") + (
+            f"the first {MAX_LISTED_ROWS} of {len(attaining_rows)} attaining rows are listed")
+    return Bound(
+        terms=tuple(terms),
+        relation=relation,
+        constant=shown,
+        attained_by=tuple(row_ids[attaining_rows[:MAX_LISTED_ROWS]].tolist()),
+        attained_count=int(len(attaining_rows)),
+        near=near,
+        near_margin=margin,
+        holds_on=int(points.weights.sum() - points.weights[broken].sum()),
+        violations=tuple(row_ids[breaking_rows].tolist()),
+        note=note,
+    )
+
+
+def _pair_bounds(cx, cy, row_ids, facts, *, max_coefficient, breakers, edges_out):
+    points = _distinct_points([cx, cy])
+    if len(points) < 3:
+        return []
+    integer = cx.integer and cy.integer
+    x, y = points.coords
+    hull = _exact_hull(_extremes(x, y))
+    edges = _edges(hull)
+    edges_out.extend(({cx.name: a, cy.name: b}, c) for a, b, c in edges)
+    found = []
+    for a, b, c in edges:
+        if a == 0 or b == 0 or max(abs(a), abs(b)) > max_coefficient:
+            continue
+        if _implied({cx.name: a, cy.name: b}, c, facts):
+            continue
+        found.append(_make_bound((cx.name, cy.name), (a, b), c, points, row_ids, integer))
+    if breakers > 0 and edges:
+        found += _peeled_bounds((cx.name, cy.name), points, row_ids, hull, edges, facts,
+                                max_coefficient=max_coefficient, breakers=breakers,
+                                integer=integer)
+    return found
+
+
+def _peeled_bounds(names, points, row_ids, hull, edges, facts, *, max_coefficient, breakers,
+                   integer):
+    """Bounds that all but a few rows obey: peel off thinly populated hull corners.
+
+    A corner held by few rows is set aside (up to ``breakers`` rows in all) and the hull of
+    the rest is taken again; a new edge through at least three distinct points, broken only
+    by the set-aside rows, is kept as a bound with those rows as its violations.
+    """
+    x, y = points.coords
+    alive = np.ones(len(points), dtype=bool)
+
+    def locate(vertex) -> tuple[int, int, int]:
+        start = int(np.searchsorted(x, vertex[0], side="left"))
+        stop = int(np.searchsorted(x, vertex[0], side="right"))
+        return start + int(np.searchsorted(y[start:stop], vertex[1])), start, stop
+
+    known = {(a, b, c) for a, b, c in edges}
+    candidates = None
+    current = hull
+    removed_rows = 0
+    found = []
+    for _round in range(min(breakers, 5)):
+        corners = sorted((int(points.weights[locate(v)[0]]), v) for v in current)
+        if removed_rows + corners[0][0] > breakers:
+            break
+        count, vertex = corners[0]
+        if candidates is None:
+            candidates = {tuple(p) for p in _extremes(x, y).tolist()}
+        where, start, stop = locate(vertex)
+        alive[where] = False
+        removed_rows += count
+        candidates.discard(vertex)
+        # The corner's column may hold other points: its new least and greatest join.
+        left = np.flatnonzero(alive[start:stop]) + start
+        if len(left):
+            candidates.add((x[left[0]].item(), y[left[0]].item()))
+            candidates.add((x[left[-1]].item(), y[left[-1]].item()))
+        current = _hull_2d(candidates)
+        if len(current) < 3:
+            break
+        for a, b, c in _edges(current):
+            if (a, b, c) in known or a == 0 or b == 0 or max(abs(a), abs(b)) > max_coefficient:
+                continue
+            known.add((a, b, c))
+            on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
+            if on_edge < 3 or _implied(dict(zip(names, (a, b))), c, facts):
+                continue
+            bound = _make_bound(names, (a, b), c, points, row_ids, integer)
+            if 0 < len(bound.violations) <= breakers:
+                note = f"holds on all but {len(bound.violations)} rows"
+                found.append(replace(bound, note=(bound.note + "; " if bound.note else "") + note))
+    return found
+
+
+def _triple_bounds(columns, row_ids, facts, *, max_coefficient):
+    from scipy.spatial import ConvexHull, QhullError
+
+    names = [c.name for c in columns]
+    points = _distinct_points(columns)
+    if len(points) < 4 or len(points) > MAX_TRIPLE_POINTS:
+        return []
+    data = np.column_stack(points.coords)
+    if np.abs(data).max() >= 2**20:
+        return []  # keeps the cross products below in int64; wide columns are not cheap here
+    # Points sorted by (x, y, z): only the least and greatest z over each (x, y) can be corners.
+    change = np.r_[True, (data[1:, :2] != data[:-1, :2]).any(axis=1)]
+    starts = np.flatnonzero(change)
+    ends = np.r_[starts[1:], len(data)] - 1
+    corners = data[np.unique(np.r_[starts, ends])]
+    try:
+        hull = ConvexHull(corners.astype(np.float64))
+    except QhullError:
+        return []  # the points lie in a plane: an exact relation, reported as such
+    origin = corners[hull.simplices[:, 0]]
+    normals = np.cross(corners[hull.simplices[:, 1]] - origin,
+                       corners[hull.simplices[:, 2]] - origin)
+    divisor = np.gcd.reduce(np.abs(normals), axis=1)
+    keep = divisor > 0
+    normals, origin, equations = normals[keep], origin[keep], hull.equations[keep]
+    normals //= divisor[keep][:, None]
+    outward = (normals * equations[:, :3]).sum(axis=1) >= 0
+    normals[~outward] *= -1
+    # A zero coefficient means a bound in two columns (or a range), found with the pairs.
+    small = (normals != 0).all(axis=1) & (np.abs(normals).max(axis=1) <= max_coefficient)
+    faces = np.column_stack([normals[small], (normals[small] * origin[small]).sum(axis=1)])
+    found = []
+    for face in np.unique(faces, axis=0).tolist():
+        normal, constant = face[:3], face[3]
+        if (_combine(normal, points.coords) > constant).any():
+            continue  # a floating point facet that is not exact
+        if _implied(dict(zip(names, normal)), Fraction(constant), facts):
+            continue
+        found.append(_make_bound(names, tuple(normal), constant, points, row_ids, True))
+    return found
+
+
+def _bound_rank(bound: Bound):
+    return (
+        len(bound.violations) > 0,
+        -bound.attained_count,
+        len(bound.terms),
+        sum(abs(c) for _, c in bound.terms),
+        bound.text,
+    )
+
+
+def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robust,
+                  max_breakers, triples, notes) -> list[Bound]:
+    bound_columns: dict = {}
+    wider = 0
+    for name in names:
+        column = _BoundColumn(name, *columns[name])
+        # Two-valued columns (flags) give bounds that only restate their two values.
+        if column.distinct < 3:
+            continue
+        if len(bound_columns) == MAX_BOUND_COLUMNS:
+            wider += 1
+            continue
+        bound_columns[name] = column
+    if wider:
+        notes.append(
+            f"bounds searched among the first {MAX_BOUND_COLUMNS} columns with three or more "
+            f"values; {wider} more were not searched (name columns to search others)"
+        )
+    usable = list(bound_columns)
+    if len(usable) < 2:
+        return []
+    ranges = {name: (c.low, c.high) for name, c in bound_columns.items()}
+    for name, (values, missing) in columns.items():
+        if name not in ranges and (~missing).any():
+            present = values[~missing].tolist()
+            ranges[name] = (min(present), max(present))
+    facts = (ranges, equalities, [])
+    n = len(row_ids)
+    breakers = _breakers_allowed(max_breakers, n) if robust else 0
+    pair_edges: list = []
+    found: list[Bound] = []
+    for first, second in combinations(usable, 2):
+        found += _pair_bounds(bound_columns[first], bound_columns[second], row_ids, facts,
+                              max_coefficient=max_coefficient, breakers=breakers,
+                              edges_out=pair_edges)
+    if triples:
+        eligible = [name for name in usable if bound_columns[name].exact_int]
+        if len(eligible) > MAX_TRIPLE_COLUMNS:
+            notes.append(
+                f"bounds in three columns searched among the first {MAX_TRIPLE_COLUMNS} "
+                f"of {len(eligible)} integer columns"
+            )
+            eligible = eligible[:MAX_TRIPLE_COLUMNS]
+        triple_facts = (ranges, equalities, pair_edges)
+        skipped = 0
+        for triple in combinations(eligible, 3):
+            chosen = [bound_columns[name] for name in triple]
+            # Cheap when the values fit a grid (one counting pass) or the table is small.
+            if _grid_cells(chosen) is None and n > MAX_TRIPLE_POINTS:
+                skipped += 1
+                continue
+            found += _triple_bounds(chosen, row_ids, triple_facts,
+                                    max_coefficient=max_coefficient)
+        if skipped:
+            notes.append(
+                f"{skipped} triples of columns with wide value ranges were not searched for "
+                "bounds (too costly on a table this size)"
+            )
+    found.sort(key=_bound_rank)
+    if len(found) > MAX_BOUNDS:
+        notes.append(f"the best {MAX_BOUNDS} of {len(found)} bounds are reported")
+    return found[:MAX_BOUNDS]
+
+
+# --------------------------------------------------------------------------------------------
+# The core entry point and the step
+# --------------------------------------------------------------------------------------------
+
+
+def _check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
+    if isinstance(max_breakers, bool) or not isinstance(max_breakers, (int, float)):
+        raise StepError(
+            f"relations: max_breakers must be a fraction of the rows (below 1) or a count of "
+            f"rows, got {max_breakers!r}"
+        )
+    if max_breakers < 0 or (max_breakers >= 1 and float(max_breakers) != int(max_breakers)):
+        raise StepError(
+            f"relations: max_breakers must be a fraction in [0, 1) or a whole number of rows, "
+            f"got {max_breakers!r}"
+        )
+    if isinstance(max_coefficient, bool) or not isinstance(max_coefficient, Integral) or (
+        max_coefficient < 1
+    ):
+        raise StepError(
+            f"relations: max_coefficient must be a whole number of at least 1, got "
+            f"{max_coefficient!r}"
+        )
+    if not isinstance(tolerance, (int, float)) or not 0 < tolerance < 1:
+        raise StepError(
+            f"relations: tolerance must lie strictly between 0 and 1, got {tolerance!r}"
+        )
+    if isinstance(seed, bool) or not isinstance(seed, Integral):
+        raise StepError(f"relations: seed must be a whole number, got {seed!r}")
+
+
+def find_relations(
+    exact_columns: Mapping[str, Sequence],
+    real_columns: Mapping[str, Sequence[float]] | None = None,
+    row_ids: Sequence | None = None,
+    *,
+    robust: bool = True,
+    max_breakers: float = 0.01,
+    max_coefficient: int = 6,
+    bounds: bool = True,
+    triples: bool = True,
+    tolerance: float = 1e-9,
+    seed: int = 0,
+) -> RelationsResult:
+    """Relations and bounds among columns given as plain data.
+
+    Parameters:
+        exact_columns: name -> values (ints, fractions, None for missing; or an integer
+            numpy array). Searched for exact relations and bounds.
+        real_columns: name -> floats (NaN for missing). Searched, together with the exact
+            columns, for approximate relations that involve at least one of them.
+        row_ids: one id per row (default 0..n-1); results name rows by these.
+        robust: also find relations that hold on all but ``max_breakers`` rows.
+        max_breakers: a fraction of the rows (below 1) or a count of rows.
+        max_coefficient: largest coefficient size allowed in a bound.
+        bounds, triples: search bounds in pairs of columns, and in triples where cheap.
+        tolerance: relative tolerance of approximate relations.
+        seed: seed of the random subsets of rows.
+
+    >>> r = find_relations({"v": [4, 8, 6], "e": [6, 12, 12], "f": [4, 6, 8]}, bounds=False)
+    >>> r.relations[0].text
+    'v - e + f = 2'
+    """
+    _check_settings(max_breakers=max_breakers, max_coefficient=max_coefficient,
+                    tolerance=tolerance, seed=seed)
+    real_columns = dict(real_columns or {})
+    lengths = {len(v) for v in exact_columns.values()} | {len(v) for v in real_columns.values()}
+    if len(lengths) > 1:
+        raise StepError(f"relations: the columns have different lengths {sorted(lengths)}")
+    n = lengths.pop() if lengths else 0
+    row_ids = np.arange(n) if row_ids is None else np.asarray(row_ids)
+    if len(row_ids) != n:
+        raise StepError(f"relations: {len(row_ids)} row ids for {n} rows")
+    rng = np.random.default_rng(seed)
+    notes: list[str] = []
+    columns = {name: _exact_column(name, values) for name, values in exact_columns.items()}
+    names = list(columns)
+
+    relations, equalities = ([], [])
+    if names and n:
+        relations, equalities = _exact_relations(
+            columns, names, row_ids, robust=robust, max_breakers=max_breakers, rng=rng,
+            notes=notes)
+
+    approximate: list[Relation] = []
+    if real_columns and n:
+        data = {name: np.asarray(values, dtype=np.float64) for name, values in real_columns.items()}
+        extra = [name for name in names if name not in data]
+        room = MAX_APPROXIMATE_COLUMNS - len(data)
+        if room < len(extra):
+            notes.append(
+                f"approximate relations searched with {max(room, 0)} of the {len(extra)} exact "
+                "columns besides the real-valued ones"
+            )
+        for name in extra[: max(room, 0)]:
+            values, missing = columns[name]
+            as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
+            as_float[missing] = np.nan
+            data[name] = as_float
+        approximate = _approximate_relations(
+            data, set(real_columns), row_ids, tolerance=float(tolerance),
+            breakers_setting=max_breakers, robust=robust, rng=rng, known=equalities,
+            notes=notes)
+
+    found_bounds: list[Bound] = []
+    if bounds and n:
+        found_bounds = _sharp_bounds(
+            columns, names, row_ids, equalities, max_coefficient=int(max_coefficient),
+            robust=robust, max_breakers=max_breakers, triples=triples, notes=notes)
+
+    return RelationsResult(
+        relations=tuple(relations),
+        bounds=tuple(found_bounds),
+        approximate=tuple(approximate),
+        notes=tuple(notes),
+        n_rows=n,
+        columns=tuple(names) + tuple(name for name in real_columns if name not in columns),
+    )
+
+
+_EXACT_DTYPES = ("integer", "big integer", "rational", "boolean")
+_NUMERIC_ROLES = ("invariant", "flag")
+
+
+class RelationsStep:
+    """Exact relations, near relations and sharp bounds among a table's numeric invariants.
+
+    Settings (keyword-only):
+        columns: names of the columns to search; default every integer, big integer,
+            rational and boolean invariant or flag (exact search) and every real-valued
+            invariant (approximate search).
+        robust: also report relations that hold on all but a few rows, with those rows.
+        max_breakers: how many rows may break a robust relation: a fraction of the rows
+            (below 1, default 0.01) or a count.
+        max_coefficient: largest coefficient size in a reported bound.
+        bounds: search sharp bounds in pairs of columns; triples: and in triples, where cheap.
+        tolerance: relative tolerance of approximate relations among real-valued columns.
+        seed: seed of the random subsets of rows.
+
+    ``run(table)`` returns a :class:`RelationsResult`.
+    """
+
+    kind = "relations"
+
+    def __init__(
+        self,
+        *,
+        columns: Sequence[str] | None = None,
+        robust: bool = True,
+        max_breakers: float = 0.01,
+        max_coefficient: int = 6,
+        bounds: bool = True,
+        triples: bool = True,
+        tolerance: float = 1e-9,
+        seed: int = 0,
+    ) -> None:
+        self.columns = columns
+        self.robust = robust
+        self.max_breakers = max_breakers
+        self.max_coefficient = max_coefficient
+        self.bounds = bounds
+        self.triples = triples
+        self.tolerance = tolerance
+        self.seed = seed
+
+    def settings(self) -> dict:
+        """The settings as plain JSON data (for a study file and the result cache)."""
+        return {
+            "columns": None if self.columns is None else list(self.columns),
+            "robust": self.robust,
+            "max_breakers": self.max_breakers,
+            "max_coefficient": self.max_coefficient,
+            "bounds": self.bounds,
+            "triples": self.triples,
+            "tolerance": self.tolerance,
+            "seed": self.seed,
+        }
+
+    def _chosen(self, table) -> list[str]:
+        all_names = [info.name for info in table.columns]
+        if self.columns is None:
+            return [
+                name for name in table.names_with_role(*_NUMERIC_ROLES)
+                if table.column(name).dtype in _EXACT_DTYPES + ("real",)
+            ]
+        if isinstance(self.columns, str) or not all(isinstance(c, str) for c in self.columns):
+            raise StepError(
+                f"relations: columns must be a list of column names, got {self.columns!r}"
+            )
+        for name in self.columns:
+            if name not in all_names:
+                raise StepError(
+                    f"relations: table '{table.name}' has no column '{name}'; its columns are "
+                    + ", ".join(all_names)
+                )
+            info = table.column(name)
+            if info.role not in _NUMERIC_ROLES or info.dtype not in _EXACT_DTYPES + ("real",):
+                raise StepError(
+                    f"relations: column '{name}' of table '{table.name}' is a {info.role} "
+                    f"column of type {info.dtype}; choose numeric invariant or flag columns"
+                )
+        return list(dict.fromkeys(self.columns))
+
+    def run(self, table) -> RelationsResult:
+        """Search the table; see the class docstring for the settings."""
+        _check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
+                        tolerance=self.tolerance, seed=self.seed)
+        names = self._chosen(table)
+        if not names:
+            raise StepError(
+                f"relations: table '{table.name}' has no numeric invariant columns to search; "
+                "mark some columns as invariants"
+            )
+        exact: dict = {}
+        real: dict = {}
+        for name in names:
+            dtype = table.column(name).dtype
+            if dtype == "real":
+                real[name] = np.asarray(table.numeric(name), dtype=np.float64)
+            elif dtype == "integer":
+                values = np.asarray(table.numeric(name), dtype=np.float64)
+                if np.isfinite(values).all() and np.abs(values).max(initial=0) < _FLOAT_EXACT:
+                    exact[name] = values.astype(np.int64)
+                else:
+                    exact[name] = table.exact(name)
+            elif dtype == "boolean":
+                exact[name] = [None if v is None else int(v) for v in table.exact(name)]
+            else:
+                exact[name] = table.exact(name)
+        return find_relations(
+            exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
+            max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,
+            tolerance=self.tolerance, seed=self.seed,
+        )
