@@ -767,6 +767,14 @@ def run_study(study: Study, table: Table, *, cache: ResultCache | None = None,
                     warnings=tuple(warnings), source_table=table)
 
 
+def run_step(step: StudyStep, table: Table, *, index: int = 0,
+             cache: ResultCache | None = None) -> StepOutcome:
+    """Run one step on a table whose study settings are already applied (see
+    :func:`apply_table_settings`). Never raises for a failing step: the outcome holds the
+    result or the message."""
+    return _run_one(index, step, step.display_title, table, cache)
+
+
 def _run_one(index: int, step: StudyStep, title: str, table: Table,
              cache: ResultCache | None) -> StepOutcome:
     base = dict(index=index, kind=step.kind, title=title, params=_copy_json(step.params))

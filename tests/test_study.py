@@ -413,3 +413,14 @@ def test_running_never_changes_the_table_file(tmp_path):
     # The Table the caller holds is not changed either: roles are applied to a new one.
     assert table.columns == columns and table.role("units") == "invariant"
     assert table.frame.equals(frame)
+
+
+def test_one_step_runs_alone_to_the_same_result_as_in_a_study(small):
+    from analysis.study import run_step
+
+    study = _two_steps(small)
+    alone = run_step(study.steps[1], small, index=1)
+    in_study = run_study(study, small).outcomes[1]
+    assert without_timing(alone.to_json()) == without_timing(in_study.to_json())
+    failed = run_step(new_step("projection", {"columns": ["nope"]}), small)
+    assert failed.result is None and "no column named 'nope'" in failed.error
