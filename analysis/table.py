@@ -18,7 +18,9 @@ import hashlib
 import io
 import json
 import re
+import sys
 from dataclasses import dataclass, field, replace
+from decimal import Decimal
 from fractions import Fraction
 from pathlib import Path
 
@@ -41,11 +43,17 @@ _EXTENSIONS = {
     ".pq": "parquet",
 }
 _INT64_MAX = 2**63 - 1
+# Past this, float64 no longer holds every integer exactly.
+_FLOAT_EXACT = 2**53
 _INTEGER_TEXT = re.compile(r"^\s*[+-]?\d+\s*$")
 _RATIONAL_TEXT = re.compile(r"^\s*[+-]?\d+\s*(/\s*\d+\s*)?$")
 _TRUE_WORDS = {"true", "yes", "t", "y"}
 _FALSE_WORDS = {"false", "no", "f", "n"}
 _ID_NAMES = {"id", "name", "label", "key", "index"}
+# Cell texts read as missing in CSV and TSV files.
+_MISSING_WORDS = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
+# The header is looked for in this many leading characters of a delimited file.
+_HEADER_CHARS = 64 * 1024 * 1024
 
 
 @dataclass(frozen=True)
@@ -100,6 +108,7 @@ class Table:
     warnings: tuple[str, ...] = ()
     id_column: str | None = None
     format: str = "csv"
+    limits: Limits = field(default_factory=Limits, repr=False, compare=False)
 
     @property
     def n_rows(self) -> int:
@@ -164,6 +173,10 @@ class Table:
                    id_column: str | None | type[...] = ...) -> Table:
         """A new Table with some roles overridden (validated cell by cell)."""
         roles = dict(roles or {})
+        named_ids = [name for name, role in roles.items() if role == "id"]
+        if id_column is ... and len(named_ids) == 1:
+            # giving one column the role id moves the id there, as id_column= does
+            id_column = named_ids[0]
         if id_column is not ... and id_column is not None:
             roles[id_column] = "id"
         for name, role in roles.items():
@@ -183,7 +196,8 @@ class Table:
             if role is None or role == info.role:
                 infos.append(info)
                 continue
-            new_values, new_info = _retype(self.name, frame[info.name], info, role)
+            new_values, new_info = _retype(self.name, frame[info.name], info, role,
+                                           self.limits)
             if new_values is not None:
                 if frame is self.frame:
                     frame = frame.copy(deep=False)
@@ -282,8 +296,8 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
         raise TableError(f"{name}: a header but no rows. Add at least two rows of data.")
     if len(frame) > limits.max_rows:
         raise TableError(
-            f"{name}: {len(frame)} rows is over the limit of {limits.max_rows}. Use the dask "
-            "engine on a Parquet file, or raise Limits.max_rows."
+            f"{name}: more than {limits.max_rows} rows, over the limit of {limits.max_rows}. "
+            "Use the dask engine on a Parquet file, or raise Limits.max_rows."
         )
     if len(frame.columns) > limits.max_columns:
         raise TableError(
@@ -291,10 +305,14 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
             "Select the columns you need first, or raise Limits.max_columns."
         )
     frame.columns = [str(c) for c in frame.columns]
+    frame = _drop_unnamed(frame, name, warnings)
     _check_column_names(name, list(frame.columns))
     if len(frame) == 1:
         warnings.append(f"{name}: only one row; most steps need many more.")
-    table = _type_columns(frame, name, digest, fmt, warnings, limits)
+    # Columns the caller wants as text are not parsed, so a cell that would not parse (an
+    # over-long integer, a ragged matrix) can be kept by giving its column the role text.
+    as_text = {column for column, role in (roles or {}).items() if role in ("text", "category")}
+    table = _type_columns(frame, name, digest, fmt, warnings, limits, as_text)
     if roles or id_column is not None:
         table = table.with_roles(roles, id_column=id_column if id_column is not None else ...)
     return table
@@ -348,9 +366,11 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
         delimiter = "\t"
     else:
         delimiter = _sniff_delimiter(text)
-    first_line = text.split("\n", 1)[0]
+    # The header is the first record, read the way pandas reads it: a quoted name may hold a
+    # line break, and old files end lines with a lone carriage return.
     try:
-        header = next(csv.reader([first_line], delimiter=delimiter))
+        header = next(csv.reader(io.StringIO(text[:_HEADER_CHARS], newline=""),
+                                 delimiter=delimiter))
     except (csv.Error, StopIteration):
         header = []
     header = [h.strip() for h in header]
@@ -365,7 +385,9 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     try:
         frame = pd.read_csv(
             io.StringIO(text), sep=delimiter, skipinitialspace=False,
-            keep_default_na=False, na_values=["", "NA", "NaN", "nan", "null", "None", "N/A"],
+            keep_default_na=False, na_values=_MISSING_WORDS,
+            # one row past the limit is enough to know the limit is passed
+            nrows=limits.max_rows + 1,
         )
     except pd.errors.EmptyDataError:
         raise TableError(f"{name}: the file is empty. A table needs a header and rows.") from None
@@ -376,9 +398,47 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     frame.columns = header if len(header) == len(frame.columns) else frame.columns
     if len(frame) and frame.iloc[:, -1].isna().any():
         _check_short_rows(text, delimiter, len(header), name)
+    frame = _exact_integers(frame, text, delimiter, limits)
     if delimiter != ",":
         shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
         warnings.append(f"{name}: columns separated by {shown}.")
+    return frame
+
+
+def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
+                    limits: Limits) -> pd.DataFrame:
+    """Undo two ways pandas loses exact integers, by re-reading those columns as text.
+
+    A column of integers with a missing cell is read as float64, which rounds integers past
+    2**53; and some columns of huge integers come back as text with empty cells left as "".
+    """
+    positions = []
+    for position in range(frame.shape[1]):
+        series = frame.iloc[:, position]
+        if series.dtype.kind == "f":
+            raw = series.to_numpy()
+            finite = raw[np.isfinite(raw)]
+            if len(finite) and np.isnan(raw).any() and np.abs(finite).max() >= _FLOAT_EXACT \
+                    and bool((finite == np.round(finite)).all()):
+                positions.append(position)
+        elif series.dtype.kind == "O" or pd.api.types.is_string_dtype(series):
+            if series.isin(_MISSING_WORDS).any():
+                frame = frame.copy(deep=False) if not positions else frame
+                frame.isetitem(position, series.astype(object).where(
+                    ~series.isin(_MISSING_WORDS), None))
+    if not positions:
+        return frame
+    texts = pd.read_csv(
+        io.StringIO(text), sep=delimiter, usecols=positions, dtype=str,
+        keep_default_na=False, na_values=_MISSING_WORDS, nrows=limits.max_rows + 1,
+    )
+    frame = frame.copy(deep=False)
+    for k, position in enumerate(positions):
+        cells = texts.iloc[:, k]
+        present = cells.dropna()
+        # only when every cell is an integer: "1e20" and "2.0" stay the reals they are
+        if present.map(lambda t: bool(_INTEGER_TEXT.match(t))).all():
+            frame.isetitem(position, cells.astype(object).where(cells.notna(), None))
     return frame
 
 
@@ -407,15 +467,23 @@ def _parser_message(message: str, header: list[str]) -> str:
 
 
 def _check_short_rows(text: str, delimiter: str, width: int, name: str) -> None:
-    reader = csv.reader(io.StringIO(text), delimiter=delimiter)
-    next(reader, None)
-    for number, cells in enumerate(reader, start=1):
-        if cells and len(cells) < width:
-            raise TableError(
-                f"{name}, row {number} (line {reader.line_num}): {len(cells)} cells but the "
-                f"header names {width} columns. Fill the missing cells (leave them empty "
-                "between delimiters to mark them missing)."
-            )
+    # newline="" lets the csv module see carriage returns inside quoted cells, as pandas did
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
+    try:
+        next(reader, None)
+        # blank lines are skipped by pandas, so they do not count as rows here either
+        rows = (cells for cells in reader if cells)
+        for number, cells in enumerate(rows, start=1):
+            if len(cells) < width:
+                raise TableError(
+                    f"{name}, row {number} (line {reader.line_num}): {len(cells)} cells but the "
+                    f"header names {width} columns. Fill the missing cells (leave them empty "
+                    "between delimiters to mark them missing)."
+                )
+    except csv.Error:
+        # pandas accepted the layout; a row count the csv module cannot follow is not a
+        # short row, so the cells pandas left empty stay missing.
+        return
 
 
 def _depth_ok(text: str, limit: int) -> int:
@@ -443,9 +511,23 @@ def _depth_ok(text: str, limit: int) -> int:
     return deepest
 
 
-def _json_loads(text: str, name: str, where: str, limits: Limits):
+def _json_loads(text: str, name: str, where: str, limits: Limits,
+                constants: set[str] | None = None):
+    """Parse JSON text; ``where`` (", line N" for JSON Lines) places messages in the file.
+
+    NaN and Infinity are not standard JSON, but Python's json module writes them; they are
+    read (as a missing value and as infinities) and recorded in ``constants`` so that the
+    caller can tell the user.
+    """
+    if constants is None:
+        constants = set()
+
+    def note_constant(word: str) -> float:
+        constants.add(word)
+        return float(word)
+
     try:
-        return json.loads(text, parse_constant=_reject_constant)
+        value = json.loads(text, parse_constant=note_constant)
     except RecursionError:
         raise TableError(
             f"{name}{where}: JSON nested too deeply (more than {limits.max_depth} levels). "
@@ -454,16 +536,37 @@ def _json_loads(text: str, name: str, where: str, limits: Limits):
     except ValueError as exc:
         if isinstance(exc, json.JSONDecodeError):
             end = " (the file may be cut short)" if exc.pos >= len(text.rstrip()) - 1 else ""
+            place = f", column {exc.colno}" if where else \
+                f", line {exc.lineno}, column {exc.colno}"
             raise TableError(
-                f"{name}{where}, line {exc.lineno}, column {exc.colno}: invalid JSON: "
-                f"{exc.msg}{end}. Fix the file or export it again."
+                f"{name}{where}{place}: invalid JSON: {exc.msg}{end}. Fix the file or "
+                "export it again."
             ) from None
+        if "integer string conversion" in str(exc):
+            raise TableError(_too_many_digits(name, where, text)) from None
         raise TableError(f"{name}{where}: invalid JSON: {exc}.") from None
+    return value
 
 
-def _reject_constant(word: str):
-    # NaN and Infinity are not JSON; accepting them would hide a broken export.
-    return float(word)
+def _constants_warning(name: str, constants: set[str]) -> str:
+    return (f"{name}: found {', '.join(sorted(constants))}, which standard JSON does not "
+            "allow; NaN is read as a missing value, Infinity as an infinite number.")
+
+
+def _too_many_digits(name: str, where: str, text: str, column: str | None = None) -> str:
+    """The message for an integer longer than Python converts from text by default."""
+    limit = sys.get_int_max_str_digits()
+    found = re.search(r"\d{" + str(limit + 1) + ",}", text) if limit else None
+    digits = len(found.group()) if found else limit + 1
+    line = f", line {text.count(chr(10), 0, found.start()) + 1}" if found and not where \
+        and column is None else ""
+    place = f", column {column!r}" if column is not None else ""
+    return (
+        f"{name}{where}{line}{place}: an integer of {digits} digits is over Python's limit of "
+        f"{limit} digits for reading integers from text. Raise the limit by setting the "
+        "environment variable PYTHONINTMAXSTRDIGITS=0 (or call sys.set_int_max_str_digits(0)), "
+        "or give the column the role text."
+    )
 
 
 def _read_json(data: bytes, name: str, warnings: list[str], limits: Limits) -> pd.DataFrame:
@@ -473,7 +576,10 @@ def _read_json(data: bytes, name: str, warnings: list[str], limits: Limits) -> p
             f"{name}: JSON nested more than {limits.max_depth} levels deep. A table is an "
             "array of flat records whose cells hold at most matrices."
         )
-    records = _json_loads(text, name, "", limits)
+    constants: set[str] = set()
+    records = _json_loads(text, name, "", limits, constants)
+    if constants:
+        warnings.append(_constants_warning(name, constants))
     if isinstance(records, dict):
         for key in ("rows", "records", "data"):
             if isinstance(records.get(key), list):
@@ -493,13 +599,18 @@ def _read_json_lines(data: bytes, name: str, warnings: list[str],
                      limits: Limits) -> pd.DataFrame:
     text = _decode(data, name, warnings)
     records = []
+    constants: set[str] = set()
     for number, line in enumerate(text.splitlines(), start=1):
         if not line.strip():
             continue
         if _depth_ok(line, limits.max_depth) > limits.max_depth:
             raise TableError(f"{name}, line {number}: JSON nested more than "
                              f"{limits.max_depth} levels deep.")
-        records.append(_json_loads(line, name, f", line {number}", limits))
+        records.append(_json_loads(line, name, f", line {number}", limits, constants))
+        if len(records) > limits.max_rows:
+            break  # one record past the limit is enough for read_table to say so
+    if constants:
+        warnings.append(_constants_warning(name, constants))
     return _records_frame(records, name, "line")
 
 
@@ -533,14 +644,40 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
     names = arrow.column_names
     _check_column_names(name, [str(n) for n in names])
     try:
-        return arrow.to_pandas(types_mapper=None, integer_object_nulls=False)
+        # integer columns with nulls come back as Python ints and None rather than float64,
+        # which would round integers past 2**53
+        return arrow.to_pandas(types_mapper=None, integer_object_nulls=True)
     except (pa.ArrowException, ValueError, TypeError) as exc:
         raise TableError(f"{name}: Parquet columns could not be converted ({exc}).") from None
+
+
+def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.DataFrame:
+    """Drop columns with no name and no values (a delimiter at the end of every line); a
+    column with values but no name is an error, since steps and messages need its name."""
+    keep = []
+    for position, column in enumerate(frame.columns):
+        if column.strip():
+            keep.append(position)
+            continue
+        values = frame.iloc[:, position]
+        filled = values.notna() & (values.astype(str).str.strip() != "")
+        if filled.any():
+            row = int(np.flatnonzero(filled.to_numpy())[0]) + 1
+            raise TableError(
+                f"{name}: column {position + 1} has no name in the header but holds values "
+                f"(row {row}: {_short(values.iloc[row - 1])}). Name it in the header."
+            )
+        warnings.append(f"{name}: column {position + 1} has no name and no values; ignored.")
+    if len(keep) == frame.shape[1]:
+        return frame
+    return frame.iloc[:, keep]
 
 
 def _check_column_names(name: str, header: list[str]) -> None:
     seen: dict[str, int] = {}
     for position, column in enumerate(header, start=1):
+        if not column.strip():
+            continue  # unnamed columns are dropped or reported by _drop_unnamed
         if column in seen:
             raise TableError(
                 f"{name}: column name {column!r} appears twice (columns {seen[column]} and "
@@ -554,11 +691,14 @@ def _check_column_names(name: str, header: list[str]) -> None:
 
 
 def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
-                  warnings: list[str], limits: Limits) -> Table:
+                  warnings: list[str], limits: Limits, as_text: set[str] = frozenset()) -> Table:
     infos = []
     new_columns: dict[str, object] = {}
     for column in frame.columns:
-        values, dtype, note = _type_one(frame[column], name, column, limits)
+        if column in as_text:
+            values, dtype, note = _as_text(frame[column], name, column, limits)
+        else:
+            values, dtype, note = _type_one(frame[column], name, column, limits)
         if values is not None:
             new_columns[column] = values
         infos.append((column, dtype, note))
@@ -578,8 +718,9 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         if role == "id":
             id_taken = True
         if dtype == "big integer":
+            beyond = "64 bits" if not note else "2**53 and missing cells"
             warnings.append(
-                f"{name}: column {column!r} has integers beyond 64 bits; they are kept exact, "
+                f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
                 "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
             )
         if dtype == "empty":
@@ -589,7 +730,7 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
     id_column = next((c.name for c in columns if c.role == "id"), None)
     return Table(name=name, digest=digest, frame=frame, columns=tuple(columns),
-                 warnings=tuple(warnings), id_column=id_column, format=fmt)
+                 warnings=tuple(warnings), id_column=id_column, format=fmt, limits=limits)
 
 
 def _replace_columns(frame: pd.DataFrame, new_columns: dict) -> pd.DataFrame:
@@ -655,13 +796,35 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits):
                 return None, "empty", ""
             return None, "real", ""
         if bool((finite == np.round(finite)).all()) and finite.abs().max() < 2**53:
+            if _is_zero_one(series):
+                flags = [(i, v) for i, v in enumerate(raw.tolist()) if not np.isnan(v)]
+                return _booleans(series, flags), "boolean", "0/1 read as false/true"
             if series.isna().any():
                 return None, "integer", "has missing cells"
-            if _is_zero_one(series):
-                return series.astype(bool), "boolean", "0/1 read as false/true"
             return series.astype(np.int64), "integer", ""
         return None, "real", ""
     return _type_object(series, name, column, limits)
+
+
+def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
+    """A column kept as text at the caller's request: cells as given, not parsed."""
+    values = []
+    for row, value in enumerate(series.tolist()):
+        if _is_missing(value):
+            values.append(None)
+            continue
+        if isinstance(value, (list, tuple, dict, np.ndarray)):
+            value = json.dumps(value.tolist() if isinstance(value, np.ndarray) else value)
+        text = value if isinstance(value, str) else str(value)
+        if len(text) > limits.max_cell:
+            raise TableError(
+                f"{name}, row {row + 1}, column {column!r}: a cell of {len(text)} characters is "
+                f"over the limit of {limits.max_cell}. Shorten it or raise Limits.max_cell."
+            )
+        values.append(text)
+    if all(v is None for v in values):
+        return None, "empty", ""
+    return pd.Series(values, dtype=object, index=series.index), "text", ""
 
 
 def _is_zero_one(series: pd.Series) -> bool:
@@ -677,15 +840,23 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
     kinds = {_kind_of(v) for v in values}
     # Cells that are already Python objects (from JSON or Parquet).
     if kinds <= {"bool"}:
-        return _rebuild(series, present, bool, object), "boolean", ""
+        return _booleans(series, present), "boolean", ""
     if kinds <= {"int", "bool"} and "int" in kinds:
         return _integers(series, present, name, column)
     if kinds <= {"int", "float", "bool"}:
-        floats = np.array([np.nan if _is_missing(v) else float(v) for v in series.tolist()])
+        floats = np.array([_to_float(v) for v in series.tolist()])
         ints = _integers_from_floats(floats, series.index)
         if ints is not None:
+            if _is_zero_one(ints):
+                flags = [(i, v) for i, v in enumerate(floats.tolist()) if not np.isnan(v)]
+                return _booleans(series, flags), "boolean", "0/1 read as false/true"
             return ints, "integer", ("has missing cells" if np.isnan(floats).any() else "")
-        return pd.Series(floats, index=series.index), "real", ""
+        note = "has infinite values" if np.isinf(floats).any() else ""
+        return pd.Series(floats, index=series.index), "real", note
+    if "decimal" in kinds:
+        # Parquet decimals: exact rationals, read through their text so that integers and
+        # fractions get the same types as in a CSV file.
+        return _type_object(series.map(_from_decimal), name, column, limits)
     if kinds <= {"list"}:
         return _arrays(series, present, name, column, limits), "array", ""
     if "list" in kinds:
@@ -713,11 +884,13 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
         )
     stripped = [t.strip() for t in texts]
     if all(_INTEGER_TEXT.match(t) for t in stripped):
-        parsed = [(i, int(t)) for (i, _), t in zip(present, stripped)]
+        parsed = [(i, _int_text(t, name, i, column)) for (i, _), t in zip(present, stripped)]
         return _integers(series, parsed, name, column)
     if all(_RATIONAL_TEXT.match(t) for t in stripped):
         parsed = []
         for (i, _), t in zip(present, stripped):
+            _int_text(t.split("/")[0], name, i, column)
+            _int_text(t.split("/")[-1], name, i, column)
             try:
                 parsed.append((i, Fraction(t.replace(" ", ""))))
             except ZeroDivisionError:
@@ -730,50 +903,78 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
     if lowered <= _TRUE_WORDS | _FALSE_WORDS and len(lowered) <= 2 and \
             not (lowered <= {"t", "f", "y", "n"}):
         parsed = [(i, t.lower() in _TRUE_WORDS) for (i, _), t in zip(present, stripped)]
-        return _rebuild(series, parsed, bool, object), "boolean", ""
+        return _booleans(series, parsed), "boolean", ""
     arrays = sum(t.startswith("[") for t in stripped)
     if arrays and arrays >= 0.5 * len(stripped):
-        decoded = []
-        for (i, _), t in zip(present, stripped):
-            if not t.startswith("["):
-                raise TableError(
-                    f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
-                    f"got {_short(t)}. Make every cell of the column an array, or empty."
-                )
-            if _depth_ok(t, limits.max_depth) > 2:
-                raise TableError(
-                    f"{name}, row {i + 1}, column {column!r}: arrays nested more than 2 deep; "
-                    "cells may hold lists or matrices only."
-                )
-            try:
-                decoded.append((i, json.loads(t)))
-            except ValueError as exc:
-                raise TableError(
-                    f"{name}, row {i + 1}, column {column!r}: not a valid JSON array "
-                    f"({exc}). Write arrays like [[1, 0], [0, 1]]."
-                ) from None
-        rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
-        for i, v in decoded:
-            rebuilt.iat[i] = v
-        return _arrays(rebuilt, decoded, name, column, limits), "array", ""
+        parsed = [(i, t) for (i, _), t in zip(present, stripped)]
+        return _array_texts(series, parsed, name, column, limits), "array", ""
     return None, "text", ""
 
 
+def _array_texts(series: pd.Series, present: list, name: str, column: str,
+                 limits: Limits) -> pd.Series:
+    """Arrays from cells holding JSON-array text (parsed as data, never evaluated)."""
+    decoded = []
+    for i, t in present:
+        if not t.startswith("["):
+            raise TableError(
+                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
+                f"got {_short(t)}. Make every cell of the column an array, or empty."
+            )
+        if _depth_ok(t, limits.max_depth) > 2:
+            raise TableError(
+                f"{name}, row {i + 1}, column {column!r}: arrays nested more than 2 deep; "
+                "cells may hold lists or matrices only."
+            )
+        try:
+            decoded.append((i, json.loads(t)))
+        except ValueError as exc:
+            if "integer string conversion" in str(exc):
+                raise TableError(
+                    _too_many_digits(name, f", row {i + 1}", t, column)) from None
+            raise TableError(
+                f"{name}, row {i + 1}, column {column!r}: not a valid JSON array "
+                f"({exc}). Write arrays like [[1, 0], [0, 1]]."
+            ) from None
+    for i, value in decoded:
+        if not isinstance(value, list):
+            raise TableError(
+                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
+                f"got {_short(value)}. Make every cell of the column an array, or empty."
+            )
+    rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
+    for i, v in decoded:
+        rebuilt.iat[i] = v
+    return _arrays(rebuilt, decoded, name, column, limits)
+
+
 def _integers(series: pd.Series, present: list, name: str, column: str):
-    big = any(abs(int(v)) > _INT64_MAX for _, v in present)
-    if big:
-        return _rebuild(series, [(i, int(v)) for i, v in present], lambda v: v, object), \
-            "big integer", ""
-    if len(present) == len(series):
-        values = np.array([int(v) for _, v in present], dtype=np.int64)
-        if set(np.unique(values).tolist()) == {0, 1}:
-            return pd.Series(values.astype(bool), index=series.index), "boolean", \
-                "0/1 read as false/true"
+    present = [(i, int(v)) for i, v in present]
+    complete = len(present) == len(series)
+    if {v for _, v in present} == {0, 1}:
+        return _booleans(series, present), "boolean", "0/1 read as false/true"
+    largest = max(abs(v) for _, v in present)
+    beyond_64_bits = largest > _INT64_MAX and any(
+        v > _INT64_MAX or v < -_INT64_MAX - 1 for _, v in present)
+    # float64 holds integers exactly only up to 2**53, so a column with missing cells (which
+    # would otherwise become float64) keeps Python integers once its values pass that.
+    if beyond_64_bits or (not complete and largest > _FLOAT_EXACT):
+        note = "" if beyond_64_bits else "kept exact: beyond 2**53 with missing cells"
+        return _rebuild(series, present, lambda v: v, object), "big integer", note
+    if complete:
+        values = np.array([v for _, v in present], dtype=np.int64)
         return pd.Series(values, index=series.index), "integer", ""
     floats = np.full(len(series), np.nan)
     for i, v in present:
         floats[i] = float(v)
     return pd.Series(floats, index=series.index), "integer", "has missing cells"
+
+
+def _booleans(series: pd.Series, present: list) -> pd.Series:
+    """A bool column, or an object column with None where cells are missing."""
+    if len(present) == len(series):
+        return pd.Series([bool(v) for _, v in present], dtype=bool, index=series.index)
+    return _rebuild(series, present, bool, object)
 
 
 def _integers_from_floats(floats: np.ndarray, index):
@@ -842,9 +1043,11 @@ def _to_array(value, name: str, row: int, column: str, limits: Limits) -> np.nda
     return np.array(flat, dtype=np.float64).reshape(shape)
 
 
-def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str):
+def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
+            limits: Limits | None = None):
     """Values and ColumnInfo for a column given a new role; checks every cell."""
     column = info.name
+    limits = limits or Limits()
     new = replace(info, role=role)
     if role in ("text", "category"):
         if info.dtype in ("text", "category"):
@@ -856,6 +1059,11 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str):
         return pd.Series(values, dtype=object, index=series.index), replace(
             new, dtype="text", note=f"shown as text (was {info.dtype})")
     if role == "id":
+        if info.dtype == "array":
+            raise TableError(
+                f"{table_name}, row {_first_present(series) + 1}, column {column!r}: an id "
+                "names each row with text or a number, not an array. Choose another id column."
+            )
         return None, new
     if role == "invariant":
         if info.dtype in ("integer", "big integer", "rational", "real"):
@@ -874,7 +1082,7 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str):
                     f"{table_name}, row {row + 1}, column {column!r}: expected a number, got "
                     f"{_short(value)}. Fix the cell or keep the column as {info.role}."
                 ) from None
-        typed, dtype, note = _type_object(series.astype(object), table_name, column, Limits())
+        typed, dtype, note = _type_object(series.astype(object), table_name, column, limits)
         if dtype not in ("integer", "big integer", "rational", "real", "boolean"):
             floats = pd.to_numeric(series, errors="coerce")
             return floats, replace(new, dtype="real")
@@ -883,13 +1091,27 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str):
             dtype = "integer"
         return typed, replace(new, dtype=dtype, note=note)
     if role == "flag":
+        if info.dtype == "array":
+            raise TableError(
+                f"{table_name}, row {_first_present(series) + 1}, column {column!r}: a flag "
+                "holds two values, not arrays. Keep the column as an array."
+            )
         present = [v for v in series.tolist() if not _is_missing(v)]
         levels = sorted({_flag_token(v) for v in present}, key=str)
         if len(levels) > 2:
-            raise TableError(
-                f"{table_name}: column {column!r} has {len(levels)} distinct values "
-                f"({', '.join(map(str, levels[:5]))}...); a flag has two. Use the category role."
-            )
+            seen: list = []
+            for row, value in enumerate(series.tolist()):
+                if _is_missing(value) or _flag_token(value) in seen:
+                    continue
+                if len(seen) == 2:
+                    raise TableError(
+                        f"{table_name}, row {row + 1}, column {column!r}: a third value "
+                        f"{_short(_flag_token(value))} (besides {_short(seen[0])} and "
+                        f"{_short(seen[1])}); "
+                        f"a flag has two values and this column has {len(levels)}. Use the "
+                        "category role, or fix the cell."
+                    )
+                seen.append(_flag_token(value))
         truthy = _true_level(levels)
         values = [None if _is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
         note = "" if info.dtype == "boolean" else f"true means {truthy!r}"
@@ -898,11 +1120,23 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str):
     if role == "array":
         if info.dtype == "array":
             return None, new
+        present = [(row, str(v).strip()) for row, v in enumerate(series.tolist())
+                   if not _is_missing(v)]
+        if info.dtype in ("text", "category") and present:
+            return _array_texts(series, present, table_name, column, limits), replace(
+                new, dtype="array", note=f"read as arrays (was {info.dtype})")
+        row, value = present[0] if present else (0, None)
         raise TableError(
-            f"{table_name}: column {column!r} holds {info.dtype} values, not arrays. Array "
-            "cells are written like [1, 2] or [[1, 0], [0, 1]]."
+            f"{table_name}, row {row + 1}, column {column!r}: expected an array like [1, 2], "
+            f"got {_short(value)} (the column holds {info.dtype} values). Array cells are "
+            "written like [1, 2] or [[1, 0], [0, 1]]; keep the column as "
+            f"{info.role}."
         )
     raise TableError(f"{table_name}: unknown role {role!r}.")
+
+
+def _first_present(series: pd.Series) -> int:
+    return next((row for row, v in enumerate(series.tolist()) if not _is_missing(v)), 0)
 
 
 def _flag_token(value):
@@ -941,6 +1175,8 @@ def _check_unique_ids(name: str, series: pd.Series) -> None:
 def _kind_of(value) -> str:
     if isinstance(value, (bool, np.bool_)):
         return "bool"
+    if isinstance(value, Decimal):
+        return "decimal"
     if isinstance(value, (int, np.integer)):
         return "int"
     if isinstance(value, (float, np.floating)):
@@ -960,6 +1196,26 @@ def _is_missing(value) -> bool:
     return False
 
 
+def _from_decimal(value):
+    """A Parquet decimal as an exact int or Fraction (NaN as missing, infinities as floats)."""
+    if not isinstance(value, Decimal):
+        return value
+    if value.is_nan():
+        return None
+    if value.is_infinite():
+        return float(value)
+    exact = Fraction(value)
+    return exact.numerator if exact.denominator == 1 else exact
+
+
+def _int_text(text: str, name: str, row: int, column: str) -> int:
+    """An integer from its digits, with a clear message past Python's digit limit."""
+    limit = sys.get_int_max_str_digits()
+    if limit and len(text.strip().lstrip("+-")) > limit:
+        raise TableError(_too_many_digits(name, f", row {row + 1}", text, column))
+    return int(text)
+
+
 def _to_float(value) -> float:
     if _is_missing(value):
         return np.nan
@@ -970,5 +1226,7 @@ def _to_float(value) -> float:
 
 
 def _short(value, width: int = 40) -> str:
+    if isinstance(value, np.generic):
+        value = value.item()  # show 1, not np.int64(1)
     text = repr(value) if not isinstance(value, str) else repr(value)
     return text if len(text) <= width else text[: width - 3] + "..."

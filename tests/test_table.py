@@ -1,0 +1,512 @@
+"""Loading tables: every format, typed cells, detected roles, role overrides, untouched bytes.
+
+The same small table of invariants is written in each supported format with the standard
+library, pandas or pyarrow (the reference writers), then read back with load_table; the
+values that come back are compared with the Python values that went in, exactly.
+"""
+
+from __future__ import annotations
+
+import csv
+import decimal
+import hashlib
+import io
+import json
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from analysis.errors import TableError
+from analysis.table import ROLES, Limits, load_table, read_table
+
+BIG = 2**200 + 12345  # far past 64 bits
+NEGATIVE_BIG = -(3**90)
+# One table, as Python values. "matrix" cells are integer matrices, "weights" lists of reals.
+RECORDS = [
+    {"object": "A1", "genus": 0, "ratio": Fraction(3, 4), "smooth": True, "family": "toric",
+     "big": BIG, "matrix": [[1, 0, 2], [0, 1, 1]], "weights": [0.5, 1.5]},
+    {"object": "A2", "genus": 2, "ratio": Fraction(-1, 2), "smooth": False, "family": "toric",
+     "big": NEGATIVE_BIG, "matrix": [[0, 0, 1], [1, 1, 1]], "weights": [2.0, 0.25]},
+    {"object": "A3", "genus": 7, "ratio": Fraction(5), "smooth": True, "family": "fano",
+     "big": 17, "matrix": [[3, 3, 3], [0, 0, 0]], "weights": [1.0, -1.0]},
+    {"object": "A4", "genus": 1, "ratio": Fraction(7, 3), "smooth": False, "family": "fano",
+     "big": -(2**64), "matrix": [[1, 1, 0], [1, 0, 1]], "weights": [0.0, 3.5]},
+]
+EXPECTED = {
+    "object": ("id", "text"),
+    "genus": ("invariant", "integer"),
+    "ratio": ("invariant", "rational"),
+    "smooth": ("flag", "boolean"),
+    "family": ("category", "text"),
+    "big": ("invariant", "big integer"),
+    "matrix": ("array", "array"),
+    "weights": ("array", "array"),
+}
+
+
+def _cell_text(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, list):
+        return json.dumps(value)
+    return str(value)
+
+
+def _delimited(delimiter: str) -> bytes:
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, delimiter=delimiter, lineterminator="\n")
+    writer.writerow(list(RECORDS[0]))
+    for record in RECORDS:
+        writer.writerow([_cell_text(v) for v in record.values()])
+    return buffer.getvalue().encode("utf-8")
+
+
+def _json_value(value):
+    return str(value) if isinstance(value, Fraction) else value
+
+
+def _json_array() -> bytes:
+    # json.dumps writes Python ints of any size as exact digits
+    return json.dumps([{k: _json_value(v) for k, v in r.items()} for r in RECORDS]).encode()
+
+
+def _json_lines() -> bytes:
+    return "\n".join(json.dumps({k: _json_value(v) for k, v in r.items()})
+                     for r in RECORDS).encode() + b"\n"
+
+
+def _parquet() -> bytes:
+    # Decision for Parquet: an integer past 64 bits has no Parquet integer type, so it is
+    # written as text of its digits (a string column); ratios as text "p/q" the same way.
+    columns = {
+        "object": pa.array([r["object"] for r in RECORDS]),
+        "genus": pa.array([r["genus"] for r in RECORDS], pa.int64()),
+        "ratio": pa.array([str(r["ratio"]) for r in RECORDS]),
+        "smooth": pa.array([r["smooth"] for r in RECORDS]),
+        "family": pa.array([r["family"] for r in RECORDS]),
+        "big": pa.array([str(r["big"]) for r in RECORDS]),
+        "matrix": pa.array([r["matrix"] for r in RECORDS], pa.list_(pa.list_(pa.int64()))),
+        "weights": pa.array([r["weights"] for r in RECORDS], pa.list_(pa.float64())),
+    }
+    buffer = io.BytesIO()
+    pq.write_table(pa.table(columns), buffer)
+    return buffer.getvalue()
+
+
+FORMATS = {
+    "csv": ("invariants.csv", lambda: _delimited(",")),
+    "tsv": ("invariants.tsv", lambda: _delimited("\t")),
+    "semicolon csv": ("invariants.csv", lambda: _delimited(";")),
+    "tab-separated .csv": ("invariants.csv", lambda: _delimited("\t")),
+    "json array of records": ("invariants.json", _json_array),
+    "json lines": ("invariants.jsonl", _json_lines),
+    "parquet": ("invariants.parquet", _parquet),
+}
+
+
+def _write(tmp_path: Path, name: str, data: bytes) -> Path:
+    path = tmp_path / name
+    path.write_bytes(data)
+    return path
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+@pytest.mark.parametrize("fmt", list(FORMATS), ids=list(FORMATS))
+def test_every_format_gives_the_same_typed_table(tmp_path, fmt):
+    name, make = FORMATS[fmt]
+    path = _write(tmp_path, name, make())
+    table = load_table(path)
+    assert table.n_rows == len(RECORDS)
+    assert [c.name for c in table.columns] == list(RECORDS[0])
+    got = {c.name: (c.role, c.dtype) for c in table.columns}
+    assert got == EXPECTED
+    assert table.id_column == "object"
+    assert list(table.row_ids) == [r["object"] for r in RECORDS]
+    # exact values: Python int and Fraction equality, not float closeness
+    assert table.exact("genus") == [r["genus"] for r in RECORDS]
+    assert table.exact("ratio") == [r["ratio"] for r in RECORDS]
+    assert table.exact("big") == [r["big"] for r in RECORDS]
+    assert all(type(v) is int for v in table.exact("big"))
+    assert table.exact("smooth") == [int(r["smooth"]) for r in RECORDS]
+    assert table.frame["family"].tolist() == [r["family"] for r in RECORDS]
+    for cell, record in zip(table.frame["matrix"], RECORDS):
+        assert isinstance(cell, np.ndarray) and cell.shape == (2, 3)
+        assert cell.dtype == np.int64
+        assert cell.tolist() == record["matrix"]
+    for cell, record in zip(table.frame["weights"], RECORDS):
+        assert cell.dtype == np.float64 and cell.tolist() == record["weights"]
+
+
+@pytest.mark.parametrize("fmt", list(FORMATS), ids=list(FORMATS))
+def test_loading_leaves_the_file_unchanged_and_digest_is_sha256(tmp_path, fmt):
+    name, make = FORMATS[fmt]
+    data = make()
+    path = _write(tmp_path, name, data)
+    before = _sha256(path)
+    table = load_table(path)
+    table.with_roles({"genus": "category"})
+    assert _sha256(path) == before == hashlib.sha256(data).hexdigest()
+    assert path.read_bytes() == data
+    # the digest is the sha256 of the bytes (hashlib is the reference)
+    assert table.digest == hashlib.sha256(data).hexdigest()
+    assert read_table(data, name).digest == table.digest
+
+
+def test_digest_differs_for_different_bytes():
+    one = read_table(b"a,b\n1,2\n3,4\n", "t.csv")
+    other = read_table(b"a,b\n1,2\n3,5\n", "t.csv")
+    assert one.digest != other.digest
+
+
+def test_delimiter_is_sniffed_and_stated():
+    table = read_table(b"p;q\n1;2\n3;4\n", "t.csv")
+    assert [c.name for c in table.columns] == ["p", "q"]
+    assert table.exact("q") == [2, 4]
+    assert any("semicolon" in w for w in table.warnings)
+
+
+def test_quoted_delimiters_stay_inside_their_cell():
+    table = read_table(b'name,value\n"a,b",1\n"c;d",2\n"e\tf",3\n', "t.csv")
+    assert table.frame["name"].tolist() == ["a,b", "c;d", "e\tf"]
+    assert table.exact("value") == [1, 2, 3]
+
+
+# ------------------------------------------------------------------------------------------
+# Array cells
+
+
+def test_json_array_text_in_csv_cells_becomes_matrices():
+    data = b'id,m\nx,"[[1,0,2],[0,1,1]]"\ny,"[[5,5,5],[6,6,6]]"\nz,"[[0,0,0],[0,0,0]]"\n'
+    table = read_table(data, "t.csv")
+    assert table.role("m") == "array"
+    assert [a.tolist() for a in table.frame["m"]] == [
+        [[1, 0, 2], [0, 1, 1]], [[5, 5, 5], [6, 6, 6]], [[0, 0, 0], [0, 0, 0]]]
+
+
+def test_arrays_are_parsed_as_data_and_never_evaluated():
+    # a cell that would do something if evaluated as Python is rejected as not an array
+    data = b'id,m\nx,"[1, 2]"\ny,"[__import__(\'os\').getpid()]"\n'
+    with pytest.raises(TableError, match=r"row 2, column 'm': not a valid JSON array"):
+        read_table(data, "t.csv")
+
+
+def test_list_cells_of_different_lengths_load():
+    table = read_table(b'[{"l": [1, 2, 3]}, {"l": [4]}, {"l": []}, {"l": null}]', "t.json")
+    assert table.role("l") == "array"
+    assert [None if v is None else v.tolist() for v in table.frame["l"]] == [
+        [1, 2, 3], [4], [], None]
+    assert table.column("l").missing == 1
+
+
+def test_array_entries_beyond_64_bits_stay_exact():
+    table = read_table(json.dumps([{"v": [BIG, 1]}, {"v": [2, 3]}]).encode(), "t.json")
+    first = table.frame["v"].iloc[0]
+    assert first.dtype == object and first.tolist() == [BIG, 1]
+
+
+def test_array_limit_message_states_the_limit_and_how_to_raise_it():
+    with pytest.raises(TableError, match=r"t\.csv, row 2, column 'a'.*4 entries.*limit of 3.*"
+                                         r"Limits\.max_array"):
+        read_table(b'a\n"[1]"\n"[1,2,3,4]"\n', "t.csv", limits=Limits(max_array=3))
+
+
+# ------------------------------------------------------------------------------------------
+# Numbers: big integers, rationals, exponent notation
+
+
+@pytest.mark.parametrize("value", [2**63 - 1, 2**63, -(2**63), -(2**63) - 1, 2**64 - 1, 2**64,
+                                   10**40 + 1, -(10**100) - 7, BIG],
+                         ids=lambda v: f"{'-' if v < 0 else ''}{len(str(abs(v)))}digits")
+@pytest.mark.parametrize("fmt", ["csv", "json", "jsonl"])
+def test_integers_beyond_64_bits_round_trip_exactly(value, fmt):
+    rows = [{"k": 1, "n": value}, {"k": 2, "n": 3}, {"k": 3, "n": -5}]
+    if fmt == "csv":
+        data = ("k,n\n" + "".join(f"{r['k']},{r['n']}\n" for r in rows)).encode()
+    elif fmt == "json":
+        data = json.dumps(rows).encode()
+    else:
+        data = "\n".join(json.dumps(r) for r in rows).encode()
+    table = read_table(data, f"t.{fmt}")
+    assert table.exact("n") == [value, 3, -5]
+    dtype = table.column("n").dtype
+    assert dtype == ("integer" if -(2**63) <= value < 2**63 else "big integer")
+
+
+@pytest.mark.parametrize("fmt, value", [
+    (fmt, value) for fmt in ("csv", "json", "parquet")
+    for value in (2**53 + 1, 2**62 + 3, 2**100 + 1)
+    if not (fmt == "parquet" and value >= 2**63)  # Parquet int64 cannot hold 2**100
+])
+def test_large_integers_with_missing_cells_are_not_rounded(fmt, value):
+    # float64 holds integers exactly only up to 2**53 (IEEE 754 double precision), so a
+    # column with a missing cell must not pass through float64
+    if fmt == "csv":
+        data, name = f"k,n\n1,{value}\n2,\n3,4\n".encode(), "t.csv"
+    elif fmt == "json":
+        data, name = json.dumps([{"k": 1, "n": value}, {"k": 2, "n": None},
+                                 {"k": 3, "n": 4}]).encode(), "t.json"
+    else:
+        buffer = io.BytesIO()
+        pq.write_table(pa.table({"k": [1, 2, 3], "n": pa.array([value, None, 4], pa.int64())}),
+                       buffer)
+        data, name = buffer.getvalue(), "t.parquet"
+    table = read_table(data, name)
+    assert table.exact("n") == [value, None, 4]
+    assert table.column("n").missing == 1
+
+
+@pytest.mark.parametrize("writer", ["digits as text", "decimal(38,0)", "decimal(76,0)"])
+def test_parquet_integers_beyond_64_bits(writer):
+    # Decision: Parquet has no integer type past 64 bits; such integers are stored as text of
+    # their digits or as a decimal with scale 0, and both read back as exact Python ints.
+    values = [10**37 + 9, -(2**100) if writer != "decimal(38,0)" else -(10**30), 5]
+    if writer == "digits as text":
+        column = pa.array([str(v) for v in values])
+    elif writer == "decimal(38,0)":
+        column = pa.array([decimal.Decimal(v) for v in values], pa.decimal128(38, 0))
+    else:
+        column = pa.array([decimal.Decimal(v) for v in values], pa.decimal256(76, 0))
+    buffer = io.BytesIO()
+    pq.write_table(pa.table({"n": column, "k": [1, 2, 3]}), buffer)
+    table = read_table(buffer.getvalue(), "t.parquet")
+    assert table.column("n").dtype == "big integer"
+    assert table.exact("n") == values
+
+
+def test_parquet_decimals_with_a_scale_are_exact_rationals():
+    column = pa.array([decimal.Decimal("1.50"), decimal.Decimal("-0.25"), decimal.Decimal("3")],
+                      pa.decimal128(10, 2))
+    buffer = io.BytesIO()
+    pq.write_table(pa.table({"x": column}), buffer)
+    table = read_table(buffer.getvalue(), "t.parquet")
+    assert table.column("x").dtype == "rational"
+    assert table.exact("x") == [Fraction(3, 2), Fraction(-1, 4), Fraction(3)]
+
+
+def test_rationals_are_exact_fractions():
+    table = read_table(b"k,q\n1,3/4\n2,-1/2\n3,5\n4,\n5,10/4\n", "t.csv")
+    info = table.column("q")
+    assert (info.role, info.dtype, info.missing) == ("invariant", "rational", 1)
+    assert table.exact("q") == [Fraction(3, 4), Fraction(-1, 2), Fraction(5), None,
+                                Fraction(5, 2)]
+    assert np.allclose(table.numeric("q"), [0.75, -0.5, 5.0, np.nan, 2.5], equal_nan=True)
+
+
+def test_rational_with_zero_denominator_names_row_and_column():
+    with pytest.raises(TableError, match=r"t\.csv, row 2, column 'q': '1/0' divides by zero"):
+        read_table(b"k,q\n1,3/4\n2,1/0\n", "t.csv")
+
+
+def test_exponent_notation_is_a_real_number():
+    table = read_table(b"k,x\n1,1e3\n2,2.5E-3\n3,-4e+2\n", "t.csv")
+    assert table.column("x").dtype in ("real", "integer")
+    assert table.numeric("x").tolist() == [1000.0, 0.0025, -400.0]
+
+
+def test_huge_integer_text_over_the_digit_limit_is_a_clear_error():
+    digits = "7" * 5000  # Python reads at most 4300 digits into an int by default
+    with pytest.raises(TableError, match=r"t\.csv, row 1, column 'n': an integer of 5000 "
+                                         r"digits .*limit of 4300.*PYTHONINTMAXSTRDIGITS"):
+        read_table(f"n,k\n{digits},1\n2,2\n".encode(), "t.csv")
+
+
+def test_a_column_given_the_role_text_is_not_parsed():
+    digits = "7" * 5000
+    table = read_table(f"n,k\n{digits},1\n2,2\n".encode(), "t.csv", roles={"n": "text"})
+    assert table.role("n") == "text"
+    assert table.frame["n"].tolist() == [digits, "2"]
+
+
+# ------------------------------------------------------------------------------------------
+# Role detection
+
+
+@pytest.mark.parametrize("cells, role, dtype", [
+    (["g1", "g2", "g3", "g4"], "id", "text"),
+    (["1", "5", "2", "9"], "invariant", "integer"),
+    (["true", "false", "true", "true"], "flag", "boolean"),
+    (["yes", "no", "no", "yes"], "flag", "boolean"),
+    (["0", "1", "1", "0"], "flag", "boolean"),
+    (["0", "1", "", "0"], "flag", "boolean"),
+    (['"[1,2]"', '"[3]"', '"[]"', '"[4,5,6]"'], "array", "array"),
+    (["x", "y", "x", "y"], "category", "text"),
+    (["x", "y", "", "y"], "category", "text"),
+    (["0.5", "1.25", "2", "-3"], "invariant", "real"),
+    (["", "", "", ""], "text", "empty"),
+], ids=["unique text is id", "integers", "true/false", "yes/no", "0/1", "0/1 with a gap",
+        "arrays", "few-valued text", "few-valued text with a gap", "reals", "all empty"])
+def test_detected_roles(cells, role, dtype):
+    data = "k,c\n" + "".join(f"{i},{c}\n" for i, c in enumerate(cells))
+    table = read_table(data.encode(), "t.csv")
+    info = table.column("c")
+    assert (info.role, info.dtype, info.detected_role) == (role, dtype, role)
+
+
+def test_many_valued_text_is_text_not_category():
+    # 60 distinct names, each twice: not unique (so not an id), too many for a category
+    names = [f"word{i % 60}" for i in range(120)]
+    data = "k,c\n" + "".join(f"{i},{c}\n" for i, c in enumerate(names))
+    assert read_table(data.encode(), "t.csv").role("c") == "text"
+
+
+def test_only_one_id_is_detected_and_integer_ids_need_an_id_like_name():
+    table = read_table(b"name,label,id2\nA,p,1\nB,q,2\nC,r,3\n", "t.csv")
+    assert table.id_column == "name"
+    assert table.role("label") != "id"
+    assert table.role("id2") == "invariant"
+    numbered = read_table(b"id,x\n10,1\n20,2\n30,3\n", "t.csv")
+    assert numbered.id_column == "id" and list(numbered.row_ids) == [10, 20, 30]
+
+
+def test_row_ids_are_row_numbers_without_an_id_column():
+    table = read_table(b"x,y\n1,2\n1,3\n2,3\n", "t.csv")
+    assert table.id_column is None
+    assert list(table.row_ids) == [0, 1, 2]
+
+
+def test_booleans_with_a_missing_cell():
+    table = read_table(b"k,b\n1,true\n2,\n3,false\n", "t.csv")
+    assert table.frame["b"].tolist() == [True, None, False]
+    assert table.exact("b") == [1, None, 0]
+    assert np.array_equal(table.numeric("b"), [1.0, np.nan, 0.0], equal_nan=True)
+
+
+# ------------------------------------------------------------------------------------------
+# Overrides through Table.with_roles
+
+
+@pytest.fixture(scope="module")
+def mixed():
+    data = (b'name,n,q,flag,kind,m,word,parity\n'
+            b'A,1,1/2,true,x,"[1,2]",hello,odd\n'
+            b'B,2,3/4,false,y,"[3,4]",2,even\n'
+            b'C,3,5,true,x,"[5,6]",3,odd\n')
+    return read_table(data, "mixed.csv")
+
+
+@pytest.mark.parametrize("column, role, dtype, values", [
+    ("n", "category", "text", ["1", "2", "3"]),
+    ("n", "text", "text", ["1", "2", "3"]),
+    ("q", "text", "text", ["1/2", "3/4", "5"]),
+    ("flag", "invariant", "integer", [1, 0, 1]),
+    ("flag", "category", "text", ["True", "False", "True"]),
+    ("kind", "flag", "boolean", [False, True, False]),
+    ("kind", "text", "text", ["x", "y", "x"]),
+    ("m", "text", "text", ["[1, 2]", "[3, 4]", "[5, 6]"]),
+    ("name", "category", "text", ["A", "B", "C"]),
+    ("parity", "flag", "boolean", [True, False, True]),
+    ("n", "id", "integer", [1, 2, 3]),
+    ("n", "invariant", "integer", [1, 2, 3]),
+], ids=lambda v: v if isinstance(v, str) else "")
+def test_role_overrides(mixed, column, role, dtype, values):
+    before_info, before_values = mixed.column(column), mixed.frame[column].tolist()
+    table = mixed.with_roles({column: role})
+    info = table.column(column)
+    assert (info.role, info.dtype) == (role, dtype)
+    assert table.frame[column].tolist() == values
+    assert info.detected_role == before_info.detected_role
+    # the table it came from is unchanged
+    assert mixed.column(column) == before_info
+    assert str(mixed.frame[column].tolist()) == str(before_values)
+    if role == "id":
+        assert table.id_column == column and table.role("name") != "id"
+
+
+def test_override_to_array_parses_array_text():
+    # one array among words: detected as a category; asking for arrays names the first misfit
+    text = read_table(b'k,v\n1,"[1, 2]"\n2,none\n3,x\n4,x\n', "t.csv")
+    assert text.role("v") == "category"
+    with pytest.raises(TableError, match=r"t\.csv, row 2, column 'v': expected an array like "
+                                         r"\[1, 2\], got 'none'"):
+        text.with_roles({"v": "array"})
+    table = read_table(b'k,v\n1,"[1, 2]"\n2,"[3]"\n3,\n', "t.csv", roles={"v": "text"})
+    assert table.role("v") == "text"
+    back = table.with_roles({"v": "array"})
+    assert back.column("v").dtype == "array"
+    assert [None if v is None else v.tolist() for v in back.frame["v"]] == [[1, 2], [3], None]
+
+
+def test_half_arrays_half_words_is_a_clear_error_unless_kept_as_text():
+    data = b'k,v\n1,"[1, 2]"\n2,"[3]"\n3,none\n4,x\n'
+    with pytest.raises(TableError, match=r"t\.csv, row 3, column 'v': expected an array like "
+                                         r"\[1, 2\], got 'none'\. Make every cell"):
+        read_table(data, "t.csv")
+    assert read_table(data, "t.csv", roles={"v": "text"}).frame["v"].tolist() == [
+        "[1, 2]", "[3]", "none", "x"]
+
+
+@pytest.mark.parametrize("column, role, message", [
+    ("name", "invariant", r"mixed\.csv, row 1, column 'name': expected a number, got 'A'"),
+    ("word", "invariant", r"mixed\.csv, row 1, column 'word': expected a number, got 'hello'"),
+    ("n", "flag", r"mixed\.csv, row 3, column 'n': a third value '3'.*a flag has two values"),
+    ("kind", "array", r"mixed\.csv, row 1, column 'kind': expected an array like \[1, 2\]"),
+    ("n", "array", r"mixed\.csv, row 1, column 'n': expected an array.*integer values"),
+    ("m", "invariant", r"mixed\.csv, row 1, column 'm': expected a number"),
+    ("m", "id", r"mixed\.csv, row 1, column 'm': an id names each row"),
+    ("kind", "id", r"column 'kind' cannot be the id: the value 'x' appears in rows 1, 3"),
+    ("n", "colour", r"column 'n': unknown role 'colour'\. Roles are id, invariant"),
+    ("missing", "text", r"no column named 'missing'\. Columns are: 'name', 'n'"),
+], ids=["text to invariant", "mixed text to invariant", "three values to flag",
+        "category to array", "integer to array", "array to invariant", "array to id",
+        "repeated value to id", "unknown role", "unknown column"])
+def test_role_override_rejects_cells_that_do_not_fit(mixed, column, role, message):
+    with pytest.raises(TableError, match=message):
+        mixed.with_roles({column: role})
+
+
+def test_every_role_is_reachable_for_a_fitting_column(mixed):
+    reached = set()
+    for column in ("name", "n", "q", "flag", "kind", "m", "word"):
+        for role in ROLES:
+            try:
+                reached.add(mixed.with_roles({column: role}).role(column))
+            except TableError:
+                pass
+    assert reached == set(ROLES)
+
+
+def test_id_column_moves_and_can_be_removed(mixed):
+    moved = mixed.with_roles(id_column="n")
+    assert moved.id_column == "n" and list(moved.row_ids) == [1, 2, 3]
+    assert moved.role("name") == "text"
+    none = mixed.with_roles(id_column=None)
+    assert none.id_column is None and list(none.row_ids) == [0, 1, 2]
+    assert "id" not in [c.role for c in none.columns]
+
+
+def test_two_ids_at_once_are_rejected(mixed):
+    with pytest.raises(TableError, match=r"only one column can be the id; got 'name', 'n'"):
+        mixed.with_roles({"name": "id", "n": "id"})
+
+
+def test_id_with_an_empty_cell_is_rejected():
+    table = read_table(b"k,v\na,1\n,2\nc,3\n", "t.csv")
+    with pytest.raises(TableError, match=r"t\.csv, row 2: the id column 'k' is empty there"):
+        table.with_roles(id_column="k")
+
+
+def test_load_table_applies_id_and_roles(tmp_path):
+    path = _write(tmp_path, "t.csv", b"k,v,w\n10,1,a\n20,2,b\n30,3,a\n")
+    table = load_table(path, id_column="k", roles={"w": "text", "v": "category"})
+    assert table.id_column == "k"
+    assert (table.role("w"), table.role("v")) == ("text", "category")
+
+
+def test_unknown_column_in_numeric_names_the_columns(mixed):
+    with pytest.raises(TableError, match=r"mixed\.csv: column 'kind' holds text values, not "
+                                         r"numbers"):
+        mixed.numeric("kind")
+
+
+def test_missing_file_and_folder(tmp_path):
+    with pytest.raises(TableError, match=r"no such file\. Check the path"):
+        load_table(tmp_path / "absent.csv")
+    with pytest.raises(TableError, match=r"is a folder, not a table file"):
+        load_table(tmp_path)
