@@ -1,0 +1,1912 @@
+"""Readable exact equations in the table's own invariants.
+
+A fitted separator is a vector of floats in standardized units; a mathematician wants
+``2*a - b >= 3`` and the list of objects that break it. This module turns separators (linear,
+degree-2 polynomial kernel, or a sparse quadratic stand-in for an RBF machine) and regressions
+into equations with small rational coefficients, re-chooses the constant exactly on every row,
+and verifies the result row by row.
+
+Everything works on plain numpy arrays: ``X`` holds one row per object and one column per
+feature in the table's own units (not scaled). Columns whose values are integers, or decimals
+with at most six digits after the point, are evaluated exactly in integer arithmetic (int64 when
+the magnitudes allow it, Python integers otherwise); anything else is evaluated in floating
+point and the equation's notes say so.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from collections import Counter
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from fractions import Fraction
+from typing import Any
+
+import numpy as np
+
+from analysis.errors import StepError
+
+__all__ = [
+    "Formula",
+    "LinearEquation",
+    "PolynomialEquation",
+    "QuadraticForm",
+    "Term",
+    "expand_poly2",
+    "find_formula",
+    "find_linear_equation",
+    "one_vs_rest_equations",
+    "poly2_equation",
+    "surrogate_quadratic",
+]
+
+# Integer arithmetic stays in int64 while every intermediate is below this bound.
+_INT64_SAFE = 2**62
+# Coefficients larger than this after clearing denominators are not "readable" any more.
+_MAX_HEIGHT = 10**6
+# Decimals with more digits than this are treated as real numbers, not exact values.
+_MAX_DECIMALS = 6
+# Rows given to each linear program; larger samples make HiGHS slow on overlapping classes.
+_LP_ROWS = 1500
+# Rows used to fit the L1-logistic path (it proposes supports; the rest uses more rows).
+_PATH_ROWS = 5000
+# Rows used to fit the sparse path in the degree-2 feature space.
+_QUADRATIC_PATH_ROWS = 5000
+# Supports (sets of features) refitted one by one.
+_MAX_SUPPORTS = 10
+# Rows used to rank every rounded candidate, candidates kept for ranking on the whole sample,
+# and candidates checked exactly on every row.
+_RANKING_ROWS = 1000
+_SHORTLIST = 100
+_FINALISTS = 10
+# Largest support tried term by term when thinning a fitted direction.
+_TRUNCATION_TERMS = 8
+
+
+# ----------------------------------------------------------------------------------------------
+# Results
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Term:
+    """One term of an equation: ``coef`` times a feature (or a product of features).
+
+    ``factors`` is empty for a plain feature; for a degree-2 monomial it names the two
+    features multiplied (``("a", "b")`` for ``a*b``, ``("a", "a")`` for ``a^2``).
+    """
+
+    feature: str
+    coef: Fraction
+    factors: tuple[str, ...] = ()
+
+    @property
+    def degree(self) -> int:
+        """Number of features multiplied in this term (1 for a plain feature)."""
+        return len(self.factors) or 1
+
+    def factor_names(self) -> tuple[str, ...]:
+        """The features multiplied in this term (the feature itself for a plain term)."""
+        return self.factors or (self.feature,)
+
+
+@dataclass(frozen=True)
+class LinearEquation:
+    """A separating inequality ``sum(coef * feature) relation constant`` with exact rationals.
+
+    A row is predicted ``positive_class`` exactly when the inequality holds. ``violations``
+    counts the rows where that prediction is wrong and ``violating_rows`` names them by row id.
+
+    Example: ``eq.text == "2*a - b >= 3"``, ``eq.holds(X)`` gives the rows predicted positive.
+    """
+
+    terms: tuple[Term, ...]
+    relation: str
+    constant: Fraction
+    positive_class: Any
+    violations: int
+    violating_rows: tuple
+    n_rows: int
+    method: str
+    notes: tuple[str, ...]
+    feature_names: tuple[str, ...] = ()
+    exact: bool = True
+
+    @property
+    def text(self) -> str:
+        """Plain text, e.g. ``"2*a - b >= 3"``."""
+        return f"{_format_sum(self.terms)} {self.relation} {_format_fraction(self.constant)}"
+
+    def latex(self) -> str:
+        """LaTeX for the inequality, e.g. ``2\\mathrm{a} - \\mathrm{b} \\geq 3``."""
+        relation = r"\geq" if self.relation == ">=" else r"\leq"
+        return f"{_latex_sum(self.terms)} {relation} {_latex_number(self.constant)}"
+
+    def to_json(self) -> dict:
+        """The ``equation`` object of the ``separate`` JSON contract (plain JSON types)."""
+        return {
+            "terms": [_term_json(term) for term in self.terms],
+            "relation": self.relation,
+            "constant": _fraction_text(self.constant),
+            "positive_class": _plain(self.positive_class),
+            "text": self.text,
+            "violations": int(self.violations),
+            "violating_rows": [_plain(row) for row in self.violating_rows],
+        }
+
+    def holds(self, X) -> np.ndarray:
+        """Boolean mask of the rows predicted ``positive_class`` (where the inequality holds).
+
+        ``X`` is either a 2-D array whose columns are the features the equation was found on
+        (in ``feature_names`` order), or a mapping (dict, pandas DataFrame) from feature name
+        to a column of values. Integer and short-decimal columns are evaluated exactly.
+        """
+        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        if exact:
+            scores, denominator = values
+            return _compare(scores, denominator, self.constant, self.relation)
+        return _compare(values, 1, self.constant, self.relation)
+
+
+@dataclass(frozen=True)
+class PolynomialEquation(LinearEquation):
+    """A separating inequality whose terms are monomials of degree at most 2.
+
+    ``agreement`` (for a stand-in fitted to another machine's labels) is the fraction of rows
+    where the equation and that machine agree; ``expansion`` is the machine's own polynomial
+    with float coefficients when the equation came from expanding a polynomial kernel.
+    """
+
+    agreement: float | None = None
+    expansion: QuadraticForm | None = None
+
+    def to_json(self) -> dict:
+        """The ``equation`` JSON object, with ``degree`` and, when known, ``agreement``."""
+        result = super().to_json()
+        result["degree"] = max((term.degree for term in self.terms), default=1)
+        if self.agreement is not None:
+            result["agreement"] = float(self.agreement)
+        return result
+
+
+@dataclass(frozen=True)
+class Formula:
+    """An exact formula ``target = sum(coef * feature) + constant`` and how well it holds.
+
+    ``rows_off`` counts the rows where the formula is not exactly right, ``off_rows`` names
+    them, ``max_residual`` is the largest absolute difference between target and formula.
+    """
+
+    target: str
+    terms: tuple[Term, ...]
+    constant: Fraction
+    max_residual: float
+    rows_off: int
+    off_rows: tuple
+    n_rows: int
+    method: str
+    notes: tuple[str, ...]
+    feature_names: tuple[str, ...] = ()
+    exact: bool = True
+
+    @property
+    def text(self) -> str:
+        """Plain text, e.g. ``"area = interior_points + 1/2*boundary_points - 1"``."""
+        return f"{self.target} = {_format_affine(self.terms, self.constant)}"
+
+    def latex(self) -> str:
+        """LaTeX for the formula."""
+        right = _latex_sum(self.terms) if self.terms else ""
+        if not self.terms:
+            right = _latex_number(self.constant)
+        elif self.constant != 0:
+            sign = "-" if self.constant < 0 else "+"
+            right += f" {sign} {_latex_number(abs(self.constant))}"
+        return f"{_latex_name(self.target)} = {right}"
+
+    def to_json(self) -> dict:
+        """Plain JSON: terms, constant, text, max_residual, rows_off, off_rows."""
+        return {
+            "target": self.target,
+            "terms": [_term_json(term) for term in self.terms],
+            "constant": _fraction_text(self.constant),
+            "text": self.text,
+            "max_residual": float(self.max_residual),
+            "rows_off": int(self.rows_off),
+            "off_rows": [_plain(row) for row in self.off_rows],
+        }
+
+    def predict(self, X) -> np.ndarray:
+        """Values of the right-hand side as floats (X as for ``LinearEquation.holds``)."""
+        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        if exact:
+            total, denominator = values
+            return np.asarray(total, dtype=float) / denominator + float(self.constant)
+        return values + float(self.constant)
+
+
+@dataclass(frozen=True, eq=False)
+class QuadraticForm:
+    """A degree-2 polynomial ``constant + linear . x + x^T quadratic x`` in the raw features.
+
+    ``quadratic`` is symmetric; the coefficient of the monomial ``x_j*x_k`` (j < k) is
+    ``2 * quadratic[j, k]``. The machine predicts ``positive_class`` where the value is > 0.
+    """
+
+    names: tuple[str, ...]
+    constant: float
+    linear: np.ndarray
+    quadratic: np.ndarray
+    positive_class: Any = True
+
+    def decision(self, X) -> np.ndarray:
+        """Value of the polynomial on each row of ``X`` (columns in ``names`` order)."""
+        X = np.asarray(X, dtype=float)
+        return self.constant + X @ self.linear + np.einsum("ij,jk,ik->i", X, self.quadratic, X)
+
+    def monomials(self) -> list[tuple[tuple[int, ...], float]]:
+        """Monomials (as feature index tuples) and float coefficients, constant excluded."""
+        p = len(self.names)
+        items: list[tuple[tuple[int, ...], float]] = [
+            ((j,), float(self.linear[j])) for j in range(p)
+        ]
+        for j in range(p):
+            for k in range(j, p):
+                factor = 1.0 if j == k else 2.0
+                items.append(((j, k), factor * float(self.quadratic[j, k])))
+        return items
+
+    @property
+    def text(self) -> str:
+        """The polynomial with float coefficients, for display."""
+        parts = []
+        for monomial, coef in self.monomials():
+            if coef != 0.0:
+                parts.append(f"{coef:+.6g}*{_monomial_label(monomial, self.names)}")
+        parts.append(f"{self.constant:+.6g}")
+        return " ".join(parts) + " > 0"
+
+
+# ----------------------------------------------------------------------------------------------
+# Formatting
+# ----------------------------------------------------------------------------------------------
+
+
+def _fraction_text(value: Fraction) -> str:
+    value = Fraction(value)
+    if value.denominator == 1:
+        return str(value.numerator)
+    return f"{value.numerator}/{value.denominator}"
+
+
+def _format_fraction(value: Fraction) -> str:
+    return _fraction_text(value)
+
+
+def _monomial_label(monomial: tuple[int, ...], names: Sequence[str]) -> str:
+    if len(monomial) == 1:
+        return names[monomial[0]]
+    first, second = monomial
+    if first == second:
+        return f"{names[first]}^2"
+    return f"{names[first]}*{names[second]}"
+
+
+def _format_sum(terms: Sequence[Term]) -> str:
+    if not terms:
+        return "0"
+    pieces = []
+    for position, term in enumerate(terms):
+        magnitude = abs(term.coef)
+        body = term.feature if magnitude == 1 else f"{_fraction_text(magnitude)}*{term.feature}"
+        if position == 0:
+            pieces.append(f"-{body}" if term.coef < 0 else body)
+        else:
+            pieces.append(f" {'-' if term.coef < 0 else '+'} {body}")
+    return "".join(pieces)
+
+
+def _format_affine(terms: Sequence[Term], constant: Fraction) -> str:
+    if not terms:
+        return _fraction_text(constant)
+    text = _format_sum(terms)
+    if constant != 0:
+        text += f" {'-' if constant < 0 else '+'} {_fraction_text(abs(constant))}"
+    return text
+
+
+_LATEX_ESCAPES = {
+    "\\": r"\backslash{}",
+    "_": r"\_",
+    "%": r"\%",
+    "&": r"\&",
+    "#": r"\#",
+    "$": r"\$",
+    "{": r"\{",
+    "}": r"\}",
+    "^": r"\hat{}",
+    "~": r"\sim{}",
+    " ": r"\ ",
+}
+
+
+def _latex_name(name: str) -> str:
+    return r"\mathrm{" + "".join(_LATEX_ESCAPES.get(ch, ch) for ch in str(name)) + "}"
+
+
+def _latex_number(value: Fraction) -> str:
+    value = Fraction(value)
+    if value.denominator == 1:
+        return str(value.numerator)
+    sign = "-" if value < 0 else ""
+    return rf"{sign}\tfrac{{{abs(value.numerator)}}}{{{value.denominator}}}"
+
+
+def _latex_term_body(term: Term) -> str:
+    factors = term.factor_names()
+    if len(factors) == 2 and factors[0] == factors[1]:
+        return _latex_name(factors[0]) + "^{2}"
+    return r"\,".join(_latex_name(name) for name in factors)
+
+
+def _latex_sum(terms: Sequence[Term]) -> str:
+    if not terms:
+        return "0"
+    pieces = []
+    for position, term in enumerate(terms):
+        magnitude = abs(term.coef)
+        coefficient = "" if magnitude == 1 else _latex_number(magnitude)
+        body = coefficient + _latex_term_body(term)
+        if position == 0:
+            pieces.append(f"-{body}" if term.coef < 0 else body)
+        else:
+            pieces.append(f" {'-' if term.coef < 0 else '+'} {body}")
+    return "".join(pieces)
+
+
+def _term_json(term: Term) -> dict:
+    result = {"feature": term.feature, "coef": _fraction_text(term.coef)}
+    if term.factors:
+        result["factors"] = list(term.factors)
+    return result
+
+
+def _plain(value):
+    """A numpy scalar as the plain Python value JSON understands."""
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, Fraction):
+        return _fraction_text(value)
+    return value
+
+
+# ----------------------------------------------------------------------------------------------
+# Exact arithmetic on columns
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True, eq=False)
+class _ExactColumn:
+    """Column values as ``ints / scale`` with ``bound >= max |ints|``."""
+
+    ints: np.ndarray  # int64, or object holding Python ints
+    scale: int
+    bound: int
+    decimals: int = 0
+
+
+def _object_array(items: list) -> np.ndarray:
+    array = np.empty(len(items), dtype=object)
+    array[:] = items
+    return array
+
+
+def _max_abs(values: np.ndarray) -> int:
+    if values.size == 0:
+        return 0
+    if values.dtype == object:
+        return max(abs(int(v)) for v in values.tolist())
+    return int(np.max(np.abs(values)))
+
+
+def _exact_view(values) -> _ExactColumn | None:
+    """The column as exact integers over a scale, or None if its values are not exact."""
+    values = np.asarray(values)
+    if values.dtype == bool:
+        ints = values.astype(np.int64)
+        return _ExactColumn(ints, 1, 1)
+    if values.dtype.kind in "iu":
+        if values.dtype.kind == "u" and values.size and int(values.max()) >= 2**63:
+            ints = _object_array([int(v) for v in values.tolist()])
+        else:
+            ints = values.astype(np.int64)
+        return _ExactColumn(ints, 1, _max_abs(ints))
+    if values.dtype == object:
+        return _exact_from_objects(values)
+    if values.dtype.kind != "f":
+        return None
+    if not np.all(np.isfinite(values)):
+        return None
+    for decimals in range(_MAX_DECIMALS + 1):
+        scale = 10**decimals
+        scaled = np.rint(values * scale)
+        largest = float(np.max(np.abs(scaled))) if scaled.size else 0.0
+        if largest >= 2**53:
+            # Past 2**53 a float no longer pins down one integer: the value is not exact.
+            return None
+        if np.array_equal(scaled / scale, values):
+            return _ExactColumn(scaled.astype(np.int64), scale, int(largest), decimals)
+    return None
+
+
+def _exact_from_objects(values: np.ndarray) -> _ExactColumn | None:
+    items = []
+    for value in values.tolist():
+        if isinstance(value, bool | int | np.integer):
+            items.append(Fraction(int(value)))
+        elif isinstance(value, Fraction):
+            items.append(value)
+        else:
+            return None
+    scale = 1
+    for value in items:
+        scale = math.lcm(scale, value.denominator)
+    ints = [int(value * scale) for value in items]
+    bound = max((abs(v) for v in ints), default=0)
+    array = np.asarray(ints, dtype=np.int64) if bound < 2**63 else _object_array(ints)
+    return _ExactColumn(array, scale, bound)
+
+
+def _product(first: _ExactColumn, second: _ExactColumn) -> _ExactColumn:
+    bound = first.bound * second.bound
+    if bound < _INT64_SAFE and first.ints.dtype != object and second.ints.dtype != object:
+        ints = first.ints * second.ints
+    else:
+        ints = first.ints.astype(object) * second.ints.astype(object)
+    return _ExactColumn(ints, first.scale * second.scale, bound)
+
+
+def _combine(columns: Sequence[_ExactColumn], coefs: Sequence[Fraction]) -> tuple[np.ndarray, int]:
+    """Exact ``sum(coef * column)`` as integers ``S`` over a common denominator ``D``."""
+    denominator = 1
+    for column, coef in zip(columns, coefs):
+        denominator = math.lcm(denominator, Fraction(coef).denominator * column.scale)
+    multipliers = []
+    bound = 0
+    for column, coef in zip(columns, coefs):
+        coef = Fraction(coef)
+        multiplier = coef.numerator * (denominator // (coef.denominator * column.scale))
+        multipliers.append(multiplier)
+        bound += abs(multiplier) * column.bound
+    n = columns[0].ints.size if columns else 0
+    small = bound < _INT64_SAFE and all(column.ints.dtype != object for column in columns)
+    if small:
+        total = np.zeros(n, dtype=np.int64)
+        for column, multiplier in zip(columns, multipliers):
+            if multiplier and column.bound:
+                total += multiplier * column.ints
+        return total, denominator
+    total = _object_array([0] * n)
+    for column, multiplier in zip(columns, multipliers):
+        if multiplier and column.bound:
+            total = total + column.ints.astype(object) * multiplier
+    return total, denominator
+
+
+def _compare(scores: np.ndarray, denominator: int, constant: Fraction, relation: str) -> np.ndarray:
+    """Rows where ``scores / denominator  relation  constant`` holds, decided exactly."""
+    constant = Fraction(constant)
+    if scores.dtype.kind == "f":
+        # Floating point scores: the constant sits well inside a gap of the scores (see
+        # _choose_constant), so rounding the constant to a float does not move any row.
+        threshold = float(constant)
+        return np.asarray(scores >= threshold if relation == ">=" else scores <= threshold)
+    p, q = constant.numerator, constant.denominator
+    right = p * denominator
+    if scores.dtype != object and _max_abs(scores) * q < _INT64_SAFE and abs(right) < _INT64_SAFE:
+        left = scores * q
+        right = np.int64(right)
+    else:
+        left = scores.astype(object) * q
+    result = left >= right if relation == ">=" else left <= right
+    return np.asarray(result, dtype=bool)
+
+
+def _simplest_between(low: Fraction, high: Fraction) -> Fraction:
+    """The rational with the smallest denominator (then numerator) in ``[low, high]``."""
+    if low > high:
+        low, high = high, low
+    if low <= 0 <= high:
+        return Fraction(0)
+    if high < 0:
+        return -_simplest_between(-high, -low)
+    floor = math.floor(low)
+    if floor == low:
+        return Fraction(floor)
+    if floor + 1 <= high:
+        return Fraction(floor + 1)
+    inner = _simplest_between(1 / (high - floor), 1 / (low - floor))
+    return floor + 1 / inner
+
+
+# ----------------------------------------------------------------------------------------------
+# The columns an equation may use
+# ----------------------------------------------------------------------------------------------
+
+
+class _Space:
+    """Features (degree 1) or features and their pairwise products (degree 2) of ``X``."""
+
+    def __init__(self, X: np.ndarray, names: Sequence[str], exact_columns, degree: int) -> None:
+        self.X = X
+        self.Xf = X if X.dtype == np.float64 else np.asarray(X, dtype=float)
+        self.names = list(names)
+        p = len(self.names)
+        self.monomials: list[tuple[int, ...]] = [(j,) for j in range(p)]
+        if degree == 2:
+            self.monomials += [(j, k) for j in range(p) for k in range(j, p)]
+        self.exact_flags = None if exact_columns is None else [bool(f) for f in exact_columns]
+        self._base: dict[int, _ExactColumn | None] = {}
+
+    @property
+    def n_rows(self) -> int:
+        return self.X.shape[0]
+
+    @property
+    def size(self) -> int:
+        return len(self.monomials)
+
+    def label(self, index: int) -> str:
+        return _monomial_label(self.monomials[index], self.names)
+
+    def factors(self, index: int) -> tuple[str, ...]:
+        monomial = self.monomials[index]
+        if len(monomial) == 1:
+            return ()
+        return tuple(self.names[j] for j in monomial)
+
+    def matrix(self, rows: np.ndarray) -> np.ndarray:
+        base = self.Xf[rows]
+        if all(len(m) == 1 for m in self.monomials):
+            return np.array(base, dtype=float)
+        columns = [
+            base[:, m[0]] if len(m) == 1 else base[:, m[0]] * base[:, m[1]] for m in self.monomials
+        ]
+        return np.column_stack(columns)
+
+    def float_column(self, index: int) -> np.ndarray:
+        monomial = self.monomials[index]
+        column = self.Xf[:, monomial[0]]
+        for j in monomial[1:]:
+            column = column * self.Xf[:, j]
+        return column
+
+    def base_exact(self, j: int) -> _ExactColumn | None:
+        if j not in self._base:
+            if self.exact_flags is not None and not self.exact_flags[j]:
+                self._base[j] = None
+            else:
+                self._base[j] = _exact_view(self.X[:, j])
+        return self._base[j]
+
+    def exact_column(self, index: int) -> _ExactColumn | None:
+        columns = [self.base_exact(j) for j in self.monomials[index]]
+        if any(column is None for column in columns):
+            return None
+        result = columns[0]
+        for column in columns[1:]:
+            result = _product(result, column)
+        return result
+
+    def inexact_features(self, indices) -> list[str]:
+        names = []
+        for index in indices:
+            for j in self.monomials[index]:
+                if self.base_exact(j) is None and self.names[j] not in names:
+                    names.append(self.names[j])
+        return names
+
+
+# ----------------------------------------------------------------------------------------------
+# Validation
+# ----------------------------------------------------------------------------------------------
+
+
+def _check_matrix(X, names, row_ids) -> tuple[np.ndarray, list[str], np.ndarray]:
+    X = np.asarray(X)
+    if X.ndim != 2:
+        raise StepError(
+            f"expected a 2-D array of feature values (rows x features), got shape {X.shape}."
+        )
+    n, p = X.shape
+    names = [str(name) for name in names]
+    if len(names) != p:
+        raise StepError(f"got {len(names)} feature names for {p} feature columns; give one each.")
+    if len(set(names)) != len(names):
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        raise StepError(f"feature names must differ; repeated: {', '.join(repeated)}.")
+    if n == 0 or p == 0:
+        raise StepError(f"need at least one row and one feature, got {n} rows and {p} features.")
+    row_ids = np.arange(n) if row_ids is None else np.asarray(row_ids)
+    if row_ids.shape != (n,):
+        raise StepError(f"got {row_ids.size} row ids for {n} rows; give one per row.")
+    try:
+        as_float = X if X.dtype == np.float64 else np.asarray(X, dtype=float)
+    except (TypeError, ValueError) as error:
+        raise StepError(f"feature values must be numbers ({error}).") from None
+    finite = np.isfinite(as_float)
+    if not finite.all():
+        row, column = np.argwhere(~finite)[0]
+        raise StepError(
+            f"feature '{names[column]}', row {_plain(row_ids[row])}: value is not a finite number "
+            f"({as_float[row, column]}). Drop or impute missing values before looking for an "
+            "equation."
+        )
+    return X, names, row_ids
+
+
+def _check_labels(positive, n: int, what: str) -> np.ndarray:
+    positive = np.asarray(positive)
+    if positive.shape != (n,):
+        raise StepError(f"{what}: got {positive.size} labels for {n} rows; give one per row.")
+    if positive.dtype != bool:
+        if positive.dtype.kind not in "iuf" or not np.isin(positive, (0, 1)).all():
+            raise StepError(f"{what}: expected a True/False mask marking the positive rows.")
+        positive = positive.astype(bool)
+    count = int(positive.sum())
+    if count == 0 or count == n:
+        raise StepError(
+            f"{what}: every one of the {n} rows is on the same side; an equation needs rows "
+            "of both classes."
+        )
+    return positive
+
+
+def _check_max_denominator(max_denominator: int) -> int:
+    if int(max_denominator) != max_denominator or max_denominator < 1:
+        raise StepError(f"max_denominator must be a positive integer, got {max_denominator!r}.")
+    return int(max_denominator)
+
+
+# ----------------------------------------------------------------------------------------------
+# Sampling and fitting directions
+# ----------------------------------------------------------------------------------------------
+
+
+def _stratified_rows(positive: np.ndarray, size: int, rng: np.random.Generator) -> np.ndarray:
+    """At most ``size`` rows, both classes kept (a rare class keeps at least a quarter)."""
+    n = positive.size
+    if n <= size:
+        return np.arange(n)
+    pos = np.flatnonzero(positive)
+    neg = np.flatnonzero(~positive)
+    small, large = (pos, neg) if pos.size <= neg.size else (neg, pos)
+    take_small = min(small.size, max(round(size * small.size / n), size // 4))
+    take_large = min(large.size, size - take_small)
+    rows = np.concatenate(
+        [rng.choice(small, take_small, replace=False), rng.choice(large, take_large, replace=False)]
+    )
+    return np.sort(rows)
+
+
+def _solve_l1_svm(Z: np.ndarray, signs: np.ndarray, penalty: float):
+    """The 1-norm support vector machine as a linear program (HiGHS).
+
+    minimize penalty*|w|_1 + sum_i c_i xi_i  subject to  s_i (w.z_i + b) >= 1 - xi_i, xi >= 0,
+    with class-balanced costs c_i (each class weighs 1/2 in total).
+    """
+    import scipy.sparse as sparse
+    from scipy.optimize import linprog
+
+    n, k = Z.shape
+    n_pos = int((signs > 0).sum())
+    n_neg = n - n_pos
+    if n_pos == 0 or n_neg == 0:
+        return None
+    costs = np.where(signs > 0, 0.5 / n_pos, 0.5 / n_neg)
+    objective = np.concatenate([np.full(2 * k, penalty), [0.0], costs])
+    signed = signs[:, None] * Z
+    constraints = sparse.hstack(
+        [
+            sparse.csr_matrix(-signed),
+            sparse.csr_matrix(signed),
+            sparse.csr_matrix(-signs[:, None]),
+            -sparse.identity(n, format="csr"),
+        ],
+        format="csr",
+    )
+    bounds = [(0, None)] * (2 * k) + [(None, None)] + [(0, None)] * n
+    result = linprog(objective, A_ub=constraints, b_ub=-np.ones(n), bounds=bounds, method="highs")
+    if result.status != 0 or result.x is None:
+        return None
+    x = result.x
+    return x[:k] - x[k : 2 * k], float(x[2 * k]), float(x[2 * k + 1 :].sum())
+
+
+def _l1_svm_direction(Z, signs, working, penalty_scale: float):
+    """1-norm SVM on a working set of rows, grown by the rows it misses while it separates."""
+    working = np.asarray(working)
+    direction = None
+    for _ in range(4):
+        solved = _solve_l1_svm(Z[working], signs[working], penalty_scale / working.size)
+        if solved is None:
+            return direction
+        direction, intercept, slack = solved
+        if slack > 1e-9:
+            # Not separable on the working set: more rows would only slow the program down.
+            return direction
+        margins = signs * (Z @ direction + intercept)
+        missed = np.setdiff1d(np.flatnonzero(margins < 1 - 1e-7), working)
+        if missed.size == 0:
+            return direction
+        working = np.union1d(working, missed[:: max(1, missed.size // _LP_ROWS)])
+    return direction
+
+
+def _fit_directions(Z: np.ndarray, signs: np.ndarray, rng: np.random.Generator, seed: int):
+    """Directions (in the standardized units of Z) of sparse separators, sparsest first."""
+    from sklearn.exceptions import ConvergenceWarning
+    from sklearn.linear_model import LogisticRegression, lars_path
+    from sklearn.svm import l1_min_c
+
+    m, k = Z.shape
+    directions: list[np.ndarray] = []
+    supports: list[tuple[int, ...]] = []
+
+    def keep(direction, record_support=True, record_direction=True):
+        if direction is None or not np.all(np.isfinite(direction)):
+            return
+        scale = np.max(np.abs(direction)) if direction.size else 0.0
+        if scale <= 0:
+            return
+        direction = np.where(np.abs(direction) > 1e-9 * scale, direction, 0.0)
+        if record_direction:
+            directions.append(direction)
+        support = tuple(np.flatnonzero(direction).tolist())
+        if record_support and support not in supports:
+            supports.append(support)
+
+    # Path of L1-penalized logistic regressions, from one feature to many.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        warnings.simplefilter("ignore", UserWarning)
+        try:
+            smallest_c = l1_min_c(Z, signs, loss="log") if np.unique(signs).size == 2 else None
+        except ValueError:
+            smallest_c = None
+        # The path only proposes supports and rough directions; a few thousand rows suffice.
+        path_rows = _stratified_rows(signs > 0, _PATH_ROWS, rng)
+        Z_path, signs_path = Z[path_rows], signs[path_rows]
+        if smallest_c is not None and np.isfinite(smallest_c) and smallest_c > 0:
+            for factor in (1.2, 3, 10, 100, 1000):
+                model = LogisticRegression(
+                    l1_ratio=1.0,
+                    solver="liblinear",
+                    C=smallest_c * factor,
+                    class_weight="balanced",
+                    max_iter=300,
+                    random_state=seed,
+                ).fit(Z_path, signs_path)
+                keep(model.coef_[0].copy())
+                if np.count_nonzero(model.coef_[0]) >= min(k, 2 * _TRUNCATION_TERMS):
+                    break
+        # The order in which features enter a lasso path on the labels.
+        try:
+            _, _, path = lars_path(
+                Z, signs - signs.mean(), method="lasso", max_iter=min(k, 3 * _TRUNCATION_TERMS)
+            )
+            for column in path.T[1:]:
+                keep(column.copy(), record_direction=False)
+        except (ValueError, np.linalg.LinAlgError):
+            pass
+
+    working = _stratified_rows(signs > 0, _LP_ROWS, rng)
+    for penalty_scale in (0.01, 0.3):
+        keep(_l1_svm_direction(Z, signs, working, penalty_scale))
+
+    # Refit each support found so far, without shrinkage: a 1-norm SVM with a tiny penalty and
+    # least squares on the labels (a discriminant direction). Z is centered on these rows, so
+    # the least-squares intercept separates out and the normal equations suffice.
+    supports.sort(key=len)
+    gram = Z.T @ Z
+    moment = Z.T @ (signs - signs.mean())
+    for support in supports[:_MAX_SUPPORTS]:
+        columns = list(support)
+        refit = _l1_svm_direction(Z[:, columns], signs, working, 0.01)
+        if refit is not None:
+            full = np.zeros(k)
+            full[columns] = refit
+            keep(full, record_support=False)
+        try:
+            coefs = np.linalg.solve(gram[np.ix_(columns, columns)], moment[columns])
+        except np.linalg.LinAlgError:
+            continue
+        full = np.zeros(k)
+        full[columns] = coefs
+        keep(full, record_support=False)
+    return directions
+
+
+# ----------------------------------------------------------------------------------------------
+# Snapping directions to small integers
+# ----------------------------------------------------------------------------------------------
+
+
+def _primitive(indices, integers) -> tuple[tuple[int, int], ...] | None:
+    """Integer coefficients divided by their gcd, signed so most coefficients are positive."""
+    integers = np.asarray(integers, dtype=np.int64)
+    nonzero = integers != 0
+    if not nonzero.any():
+        return None
+    indices = np.asarray(indices)[nonzero]
+    integers = integers[nonzero]
+    integers = integers // np.gcd.reduce(np.abs(integers))
+    negatives = int((integers < 0).sum())
+    if 2 * negatives > integers.size or (2 * negatives == integers.size and integers[0] < 0):
+        integers = -integers
+    if int(np.abs(integers).max()) > _MAX_HEIGHT:
+        return None
+    return tuple(zip(indices.tolist(), integers.tolist()))
+
+
+def _ladder(ratios: np.ndarray, max_denominator: int):
+    """Integer vectors approximating ``ratios`` for denominators 1..max_denominator.
+
+    For each d two versions: one common denominator d for all coefficients, and each
+    coefficient's own best approximation with denominator at most d (the continued-fraction
+    convergents Fraction.limit_denominator would give), brought to a common denominator.
+    """
+    best_numerators = np.rint(ratios)
+    best_denominators = np.ones_like(ratios)
+    best_errors = np.abs(ratios - best_numerators)
+    for denominator in range(1, max_denominator + 1):
+        numerators = np.rint(ratios * denominator)
+        errors = np.abs(ratios - numerators / denominator)
+        better = errors < best_errors - 1e-15
+        best_numerators = np.where(better, numerators, best_numerators)
+        best_denominators = np.where(better, denominator, best_denominators)
+        best_errors = np.where(better, errors, best_errors)
+        yield numerators.astype(np.int64)
+        common = int(np.lcm.reduce(best_denominators.astype(np.int64)))
+        yield (best_numerators * (common // best_denominators)).astype(np.int64)
+
+
+def _snap_direction(
+    direction: np.ndarray, spread: np.ndarray, max_denominator: int, max_terms: int | None
+) -> set:
+    """Small-integer versions of a direction: thinned, normalized, rounded over a ladder."""
+    contribution = np.abs(direction) * spread
+    top = contribution.max() if contribution.size else 0.0
+    if not np.isfinite(top) or top <= 0:
+        return set()
+    nonzero = np.flatnonzero(contribution > 1e-9 * top)
+    order = nonzero[np.argsort(-contribution[nonzero], kind="stable")]
+    limit = len(order) if max_terms is None else min(len(order), max_terms)
+    keep_sets = {
+        tuple(sorted(order[:count].tolist()))
+        for count in range(1, min(limit, _TRUNCATION_TERMS) + 1)
+    }
+    for relative in (1e-3, 1e-2, 5e-2, 0.15):
+        kept = tuple(sorted(nonzero[contribution[nonzero] >= relative * top].tolist()))
+        if kept and (max_terms is None or len(kept) <= max_terms):
+            keep_sets.add(kept)
+    found = set()
+    for kept in keep_sets:
+        values = direction[list(kept)]
+        magnitudes = np.abs(values)
+        normalizers = {float(magnitudes.min()), float(magnitudes.max())}
+        if len(kept) <= 3:
+            normalizers.update(float(v) for v in magnitudes)
+        for normalizer in normalizers:
+            ratios = values / normalizer
+            if np.max(np.abs(ratios)) * max_denominator > _MAX_HEIGHT:
+                continue
+            seen = set()
+            for integers in _ladder(ratios, max_denominator):
+                key = integers.tobytes()
+                if key in seen:
+                    continue
+                seen.add(key)
+                candidate = _primitive(kept, integers)
+                if candidate is not None:
+                    found.add(candidate)
+    return found
+
+
+def _height(candidate) -> tuple[int, int, int]:
+    coefficients = [abs(c) for _, c in candidate]
+    return len(candidate), max(coefficients), sum(coefficients)
+
+
+# ----------------------------------------------------------------------------------------------
+# Thresholds
+# ----------------------------------------------------------------------------------------------
+
+
+def _sample_violations(matrix: np.ndarray, positive: np.ndarray, candidates: list) -> np.ndarray:
+    """Fewest violations any constant gives, per candidate, on the sample rows (vectorized)."""
+    m, q = matrix.shape
+    total_pos = int(positive.sum())
+    total_neg = m - total_pos
+    result = np.empty(len(candidates), dtype=np.int64)
+    below = np.arange(1, m)[:, None]
+    for start in range(0, len(candidates), 64):
+        chunk = candidates[start : start + 64]
+        weights = np.zeros((q, len(chunk)))
+        for column, candidate in enumerate(chunk):
+            for index, coef in candidate:
+                weights[index, column] = coef
+        scores = matrix @ weights
+        order = np.argsort(scores, axis=0, kind="stable")
+        ordered = np.take_along_axis(scores, order, axis=0)
+        labels = positive[order]
+        pos_below = np.cumsum(labels, axis=0)[:-1]
+        neg_below = below - pos_below
+        at_least = pos_below + (total_neg - neg_below)
+        at_most = neg_below + (total_pos - pos_below)
+        valid = ordered[1:] > ordered[:-1]
+        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=0)
+        result[start : start + len(chunk)] = best
+    return result
+
+
+def _score_counts(scores: np.ndarray, positive: np.ndarray):
+    """Distinct score values (ascending) with the number of rows and of positive rows at each."""
+    if scores.dtype == np.int64 and scores.size:
+        smallest, largest = int(scores.min()), int(scores.max())
+        if largest - smallest <= 4 * scores.size + 1024:
+            # Small range: counting beats sorting by an order of magnitude on a million rows.
+            shifted = scores - smallest
+            rows_at = np.bincount(shifted)
+            positives_at = np.bincount(shifted[positive], minlength=rows_at.size)
+            present = np.flatnonzero(rows_at)
+            return present + smallest, rows_at[present], positives_at[present]
+    order = np.argsort(scores, kind="stable")
+    ordered = scores[order]
+    starts = np.concatenate(
+        [[0], np.flatnonzero(np.asarray(ordered[1:] != ordered[:-1], dtype=bool)) + 1]
+    )
+    rows_at = np.diff(np.append(starts, scores.size))
+    positives_at = np.add.reduceat(positive[order].astype(np.int64), starts)
+    return ordered[starts], rows_at, positives_at
+
+
+def _best_cut(scores: np.ndarray, positive: np.ndarray):
+    """The relation and cut between consecutive score values with fewest violations.
+
+    Returns (violations, relation, low, high): for ">=" the rows with score >= high are
+    predicted positive, for "<=" the rows with score <= low; no row scores strictly between.
+    """
+    values, rows_at, positives_at = _score_counts(scores, positive)
+    if values.size < 2:
+        return None
+    total_pos = int(positives_at.sum())
+    total_neg = int(rows_at.sum()) - total_pos
+    pos_below = np.cumsum(positives_at)[:-1]
+    neg_below = np.cumsum(rows_at)[:-1] - pos_below
+    at_least = pos_below + (total_neg - neg_below)
+    at_most = neg_below + (total_pos - pos_below)
+    if at_least.min() <= at_most.min():
+        relation, violations = ">=", at_least
+    else:
+        relation, violations = "<=", at_most
+    fewest = int(violations.min())
+    ties = np.flatnonzero(violations == fewest)
+    chosen = ties[0]
+    if ties.size > 1:
+        # Among equally good cuts, the widest gap leaves the most room on both sides.
+        widths = np.asarray(values[ties + 1] - values[ties], dtype=float)
+        chosen = ties[int(np.argmax(widths))]
+    return fewest, relation, _scalar(values[chosen]), _scalar(values[chosen + 1])
+
+
+def _scalar(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def _choose_constant(low, high, denominator: int, relation: str, exact: bool) -> Fraction:
+    """A readable constant inside the gap ``(low, high) / denominator``."""
+    low_q = Fraction(low) / denominator
+    high_q = Fraction(high) / denominator
+    if exact:
+        # Exact scores: state the bound the rows of the positive side attain, or the integer
+        # nearest to it when one gives the same rows.
+        if relation == ">=":
+            whole = Fraction(math.floor(high_q))
+            return whole if whole > low_q else high_q
+        whole = Fraction(math.ceil(low_q))
+        return whole if whole < high_q else low_q
+    width = high_q - low_q
+    return _simplest_between(low_q + width / 4, high_q - width / 4)
+
+
+@dataclass(eq=False)
+class _Evaluation:
+    candidate: tuple
+    relation: str
+    constant: Fraction
+    violations: int
+    wrong: np.ndarray
+    exact: bool
+    gap: tuple[Fraction, Fraction]
+    inexact_features: list[str] = field(default_factory=list)
+
+    def key(self):
+        constant = self.constant
+        return (
+            self.violations,
+            *_height(self.candidate),
+            max(abs(constant.numerator), constant.denominator),
+        )
+
+
+def _evaluate(space: _Space, candidate: tuple, positive: np.ndarray) -> _Evaluation | None:
+    """Choose the constant for ``candidate`` on every row, then verify it row by row."""
+    columns = [space.exact_column(index) for index, _ in candidate]
+    if all(column is not None for column in columns):
+        scores, denominator = _combine(columns, [Fraction(c) for _, c in candidate])
+        exact = True
+    else:
+        scores = np.zeros(space.n_rows)
+        for index, coef in candidate:
+            scores += coef * space.float_column(index)
+        denominator, exact = 1, False
+    cut = _best_cut(scores, positive)
+    if cut is None:
+        return None
+    _, relation, low, high = cut
+    constant = _choose_constant(low, high, denominator, relation, exact)
+    predicted = _compare(scores, denominator, constant, relation)
+    wrong = np.flatnonzero(predicted != positive)
+    gap = (Fraction(low) / denominator, Fraction(high) / denominator)
+    inexact = [] if exact else space.inexact_features([index for index, _ in candidate])
+    return _Evaluation(candidate, relation, constant, int(wrong.size), wrong, exact, gap, inexact)
+
+
+# ----------------------------------------------------------------------------------------------
+# The search shared by linear and degree-2 equations
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(eq=False)
+class _SearchResult:
+    best: _Evaluation
+    tried: int
+    finalists: int
+
+
+def _shortlist(candidates: list, violations: np.ndarray, size: int) -> list[int]:
+    """Indices of the best candidates, plus the best one of each number of terms."""
+    ranked = sorted(range(len(candidates)), key=lambda i: (violations[i], _height(candidates[i])))
+    chosen = ranked[: max(1, size - 4)]
+    best_by_terms: dict[int, int] = {}
+    for i in ranked:
+        best_by_terms.setdefault(len(candidates[i]), i)
+    for i in sorted(best_by_terms.values(), key=lambda i: (violations[i], _height(candidates[i]))):
+        if i not in chosen and len(chosen) < size:
+            chosen.append(i)
+    return chosen
+
+
+def _search(
+    space: _Space,
+    positive: np.ndarray,
+    sample: np.ndarray,
+    directions: list[np.ndarray],
+    *,
+    max_denominator: int,
+    max_terms: int | None,
+    include_single: bool,
+) -> _SearchResult:
+    matrix = space.matrix(sample)
+    spread = matrix.std(axis=0)
+    candidates: set = set()
+    for direction in directions:
+        candidates |= _snap_direction(direction, spread, max_denominator, max_terms)
+    if include_single:
+        candidates |= {((index, 1),) for index in range(space.size) if spread[index] > 0}
+    candidates = sorted(
+        (c for c in candidates if max_terms is None or len(c) <= max_terms),
+        key=lambda c: (_height(c), c),
+    )
+    if not candidates:
+        raise StepError(
+            "no equation could be formed: every feature is constant on the rows searched. "
+            "Choose features that vary."
+        )
+    sample_positive = positive[sample]
+    # Rank in two stages: every candidate on a small subsample, the best hundred on the whole
+    # sample; then the few best go to the exact check on every row.
+    subsample = _stratified_rows(sample_positive, _RANKING_ROWS, np.random.default_rng(0))
+    first = _sample_violations(matrix[subsample], sample_positive[subsample], candidates)
+    shortlist = _shortlist(candidates, first, _SHORTLIST)
+    if subsample.size < sample.size:
+        kept = [candidates[i] for i in shortlist]
+        second = _sample_violations(matrix, sample_positive, kept)
+        chosen = [shortlist[i] for i in _shortlist(kept, second, _FINALISTS)]
+    else:
+        chosen = _shortlist(candidates, first, _FINALISTS)
+    evaluations = [_evaluate(space, candidates[i], positive) for i in chosen]
+    evaluations = [e for e in evaluations if e is not None]
+    if not evaluations:
+        raise StepError(
+            "no equation could be formed: every candidate gives the same value on every row."
+        )
+    best = min(evaluations, key=lambda e: (e.key(), e.candidate))
+    return _SearchResult(best, len(candidates), len(evaluations))
+
+
+def _describe_gap(evaluation: _Evaluation) -> str:
+    low, high = evaluation.gap
+    if evaluation.relation == ">=":
+        return (
+            f"any constant c with {_fraction_text(low)} < c <= {_fraction_text(high)} gives "
+            "the same rows"
+            if evaluation.exact
+            else f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
+        )
+    return (
+        f"any constant c with {_fraction_text(low)} <= c < {_fraction_text(high)} gives the "
+        "same rows"
+        if evaluation.exact
+        else f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
+    )
+
+
+def _evaluation_notes(space: _Space, evaluation: _Evaluation, n: int, sample: np.ndarray):
+    notes = []
+    if sample.size < n:
+        notes.append(
+            f"searched on a sample of {sample.size} of {n} rows (both classes kept); threshold "
+            f"chosen and verified on all {n} rows"
+        )
+    else:
+        notes.append(f"searched, thresholded and verified on all {n} rows")
+    if evaluation.exact:
+        decimals = sorted(
+            {
+                (space.names[j], space.base_exact(j).decimals)
+                for index, _ in evaluation.candidate
+                for j in space.monomials[index]
+                if space.base_exact(j) is not None and space.base_exact(j).decimals
+            }
+        )
+        notes.append("evaluated exactly in integer arithmetic")
+        for name, digits in decimals:
+            unit = "digit" if digits == 1 else "digits"
+            notes.append(
+                f"values of '{name}' read as decimals with {digits} {unit} after the point"
+            )
+    else:
+        features = ", ".join(f"'{name}'" for name in evaluation.inexact_features)
+        notes.append(
+            f"evaluated in floating point because {features} "
+            f"{'is' if len(evaluation.inexact_features) == 1 else 'are'} not exact values"
+        )
+    notes.append(_describe_gap(evaluation))
+    return notes
+
+
+def _make_equation(
+    cls,
+    space: _Space,
+    evaluation: _Evaluation,
+    *,
+    positive_class,
+    row_ids: np.ndarray,
+    method: str,
+    notes: list[str],
+    **extra,
+):
+    terms = tuple(
+        Term(space.label(index), Fraction(coef), space.factors(index))
+        for index, coef in evaluation.candidate
+    )
+    return cls(
+        terms=terms,
+        relation=evaluation.relation,
+        constant=evaluation.constant,
+        positive_class=_scalar(positive_class),
+        violations=evaluation.violations,
+        violating_rows=tuple(row_ids[evaluation.wrong].tolist()),
+        n_rows=space.n_rows,
+        method=method,
+        notes=tuple(notes),
+        feature_names=tuple(space.names),
+        exact=evaluation.exact,
+        **extra,
+    )
+
+
+def _float_violations(scores: np.ndarray, positive: np.ndarray) -> int:
+    return int(((scores > 0) != positive).sum())
+
+
+# ----------------------------------------------------------------------------------------------
+# Linear equations
+# ----------------------------------------------------------------------------------------------
+
+
+def find_linear_equation(
+    X,
+    positive,
+    names: Sequence[str],
+    *,
+    row_ids=None,
+    positive_class=True,
+    hint: tuple | None = None,
+    max_terms: int | None = None,
+    max_denominator: int = 12,
+    exact_columns: Sequence[bool] | None = None,
+    sample_size: int = 20000,
+    seed: int = 0,
+) -> LinearEquation:
+    """The sparsest linear inequality with small rational coefficients that separates best.
+
+    Parameters
+    ----------
+    X : (n, p) array of feature values in the table's own units (not scaled).
+    positive : (n,) boolean mask of the rows of ``positive_class``.
+    names : the p feature names, used in the equation's terms.
+    row_ids : (n,) row ids reported in ``violating_rows`` (default 0..n-1).
+    positive_class : the label the equation predicts where it holds (reported only).
+    hint : optional ``(w, b)`` of an already fitted linear separator in raw units.
+    max_terms : at most this many terms (default: no limit).
+    max_denominator : largest denominator tried when rounding coefficient ratios.
+    exact_columns : per feature, whether its values are exact; when given, an equation using
+        any other feature is evaluated in floating point. When None, integer and short-decimal
+        columns are detected.
+    sample_size : the search for directions uses at most this many rows (both classes kept);
+        the constant is chosen and the equation verified on every row.
+    seed : seed for the sample and the solvers.
+
+    Sparse separators are fitted on standardized features (an L1-logistic path, lasso entry
+    order, 1-norm support vector machines as linear programs, least-squares refits), their
+    normals rounded to small integers over a ladder of denominators, and each rounded normal
+    given its best constant on every row. The winner has the fewest violations on all rows;
+    ties go to fewer terms, then smaller coefficients and constant.
+
+    Example: on integer columns a, b, c with labels ``2a - b >= 3`` the result's ``text`` is
+    ``"2*a - b >= 3"`` with 0 violations.
+    """
+    X, names, row_ids = _check_matrix(X, names, row_ids)
+    n, p = X.shape
+    positive = _check_labels(positive, n, "positive")
+    max_denominator = _check_max_denominator(max_denominator)
+    if max_terms is not None and max_terms < 1:
+        raise StepError(f"max_terms must be at least 1, got {max_terms}.")
+    if exact_columns is not None and len(exact_columns) != p:
+        raise StepError(f"got {len(exact_columns)} exact_columns flags for {p} features.")
+    space = _Space(X, names, exact_columns, degree=1)
+    rng = np.random.default_rng(seed)
+    sample = _stratified_rows(positive, max(int(sample_size), 2), rng)
+    matrix = space.matrix(sample)
+    mean, spread = matrix.mean(axis=0), matrix.std(axis=0)
+    active = np.flatnonzero(spread > 0)
+    notes: list[str] = []
+    constant_features = [names[j] for j in range(p) if spread[j] == 0]
+    if constant_features:
+        notes.append("left out (constant on the rows searched): " + ", ".join(constant_features))
+    directions: list[np.ndarray] = []
+    hint_note = None
+    if hint is not None:
+        try:
+            weights = np.asarray(hint[0], dtype=float).reshape(-1)
+            intercept = float(hint[1])
+        except (TypeError, ValueError, IndexError):
+            raise StepError("hint must be a pair (w, b) of a weight vector and a number.") from None
+        if weights.size != p or not np.all(np.isfinite(weights)):
+            raise StepError(f"hint weights must be {p} finite numbers, one per feature.")
+        directions.append(weights)
+        hint_note = (
+            f"the fitted separator before rounding makes "
+            f"{_float_violations(space.Xf @ weights + intercept, positive)} violations on all "
+            f"{n} rows"
+        )
+    if active.size:
+        Z = (matrix[:, active] - mean[active]) / spread[active]
+        signs = np.where(positive[sample], 1.0, -1.0)
+        for direction in _fit_directions(Z, signs, rng, seed):
+            full = np.zeros(p)
+            full[active] = direction / spread[active]
+            directions.append(full)
+    result = _search(
+        space,
+        positive,
+        sample,
+        directions,
+        max_denominator=max_denominator,
+        max_terms=max_terms,
+        include_single=True,
+    )
+    notes = _evaluation_notes(space, result.best, n, sample) + notes
+    if hint_note:
+        notes.append(hint_note)
+    notes.append(
+        f"{result.tried} rounded candidates ranked on the sample, {result.finalists} checked on "
+        "all rows"
+    )
+    method = (
+        "sparse linear separators (L1-logistic path, lasso order, 1-norm support vector machine "
+        "as a linear program) on standardized features, normals rounded to rationals with "
+        f"denominators up to {max_denominator}, constant chosen exactly on all rows"
+    )
+    return _make_equation(
+        LinearEquation,
+        space,
+        result.best,
+        positive_class=positive_class,
+        row_ids=row_ids,
+        method=method,
+        notes=notes,
+    )
+
+
+def one_vs_rest_equations(
+    X, labels, names: Sequence[str], *, row_ids=None, **options
+) -> dict[Any, LinearEquation]:
+    """One linear equation per class, separating that class from all the others.
+
+    ``labels`` holds one class label per row; ``options`` are passed to
+    ``find_linear_equation`` (``max_terms``, ``max_denominator``, ``exact_columns``,
+    ``sample_size``, ``seed``). Returns a dict from class label (sorted) to its equation.
+    """
+    if "positive_class" in options or "hint" in options:
+        raise StepError("one_vs_rest_equations chooses positive_class itself and takes no hint.")
+    labels = np.asarray(labels)
+    classes = np.unique(labels)
+    if classes.size < 2:
+        raise StepError(
+            f"the labels hold {classes.size} class; one equation per class needs at least two."
+        )
+    return {
+        _scalar(label): find_linear_equation(
+            X, labels == label, names, row_ids=row_ids, positive_class=label, **options
+        )
+        for label in classes
+    }
+
+
+# ----------------------------------------------------------------------------------------------
+# Degree-2 polynomial kernel machines
+# ----------------------------------------------------------------------------------------------
+
+
+def _unpack_machine(svc, scaler):
+    steps = getattr(svc, "steps", None)
+    if steps is not None:
+        estimators = [step for _, step in steps if step not in (None, "passthrough")]
+        if not estimators:
+            raise StepError("the pipeline holds no estimator.")
+        svc = estimators[-1]
+        scalers = estimators[:-1]
+        if len(scalers) > 1 or (scalers and not hasattr(scalers[0], "scale_")):
+            raise StepError(
+                "expand_poly2 accepts a pipeline of at most one StandardScaler and an SVC."
+            )
+        if scalers:
+            if scaler is not None:
+                raise StepError("give the scaler either inside the pipeline or separately.")
+            scaler = scalers[0]
+    if getattr(svc, "kernel", None) != "poly" or getattr(svc, "degree", None) != 2:
+        raise StepError(
+            "expand_poly2 needs a fitted SVC with kernel='poly' and degree=2, got "
+            f"{type(svc).__name__} with kernel={getattr(svc, 'kernel', None)!r}, "
+            f"degree={getattr(svc, 'degree', None)!r}."
+        )
+    if not hasattr(svc, "dual_coef_"):
+        raise StepError("the support vector machine has not been fitted yet.")
+    if len(svc.classes_) != 2:
+        raise StepError(
+            f"expand_poly2 handles two classes, the machine has {len(svc.classes_)}; use one "
+            "machine per class."
+        )
+    return svc, scaler
+
+
+def expand_poly2(svc, scaler, names: Sequence[str]) -> QuadraticForm:
+    """The decision function of a degree-2 polynomial kernel SVC as a polynomial in raw features.
+
+    ``svc`` is a fitted ``SVC(kernel="poly", degree=2, gamma=g, coef0=r)`` trained on
+    ``scaler.transform(X)`` (``scaler`` a fitted StandardScaler, or None for unscaled
+    features), or a Pipeline(StandardScaler, SVC) with ``scaler=None``. Its decision function
+    ``sum_i a_i (g <z_i, z> + r)^2 + b`` with ``z = (x - mean) / scale`` is expanded into
+    ``constant + linear . x + x^T quadratic x``; ``decision(X)`` reproduces
+    ``svc.decision_function`` up to rounding. Positive values mean ``svc.classes_[1]``.
+    """
+    svc, scaler = _unpack_machine(svc, scaler)
+    support = np.asarray(svc.support_vectors_, dtype=float)
+    alphas = np.asarray(svc.dual_coef_, dtype=float)[0]
+    names = [str(name) for name in names]
+    p = support.shape[1]
+    if len(names) != p:
+        raise StepError(f"got {len(names)} feature names for a machine trained on {p} features.")
+    # gamma="scale"/"auto" are resolved at fit time; the number used is kept in _gamma.
+    gamma = float(getattr(svc, "_gamma", svc.gamma))
+    coef0 = float(svc.coef0)
+    intercept = float(np.asarray(svc.intercept_)[0])
+    # In scaled units z: sum_i a_i (g z_i.z + r)^2 + b = z^T A z + beta.z + c0.
+    quad_z = gamma**2 * (support.T * alphas) @ support
+    linear_z = 2 * gamma * coef0 * (alphas @ support)
+    constant_z = coef0**2 * alphas.sum() + intercept
+    mean = np.zeros(p)
+    scale = np.ones(p)
+    if scaler is not None:
+        if getattr(scaler, "mean_", None) is not None and getattr(scaler, "with_mean", True):
+            mean = np.asarray(scaler.mean_, dtype=float)
+        if getattr(scaler, "scale_", None) is not None and getattr(scaler, "with_std", True):
+            scale = np.asarray(scaler.scale_, dtype=float)
+    # z = D (x - mean) with D = diag(1/scale).
+    inverse = 1.0 / scale
+    quadratic = quad_z * np.outer(inverse, inverse)
+    linear_d = linear_z * inverse
+    linear = -2.0 * quadratic @ mean + linear_d
+    constant = constant_z + mean @ quadratic @ mean - linear_d @ mean
+    quadratic = (quadratic + quadratic.T) / 2
+    return QuadraticForm(tuple(names), float(constant), linear, quadratic, _scalar(svc.classes_[1]))
+
+
+def _quadratic_setup(X, labels, names, row_ids, exact_columns, what):
+    X, names, row_ids = _check_matrix(X, names, row_ids)
+    n, p = X.shape
+    labels = _check_labels(labels, n, what)
+    if exact_columns is not None and len(exact_columns) != p:
+        raise StepError(f"got {len(exact_columns)} exact_columns flags for {p} features.")
+    return X, names, row_ids, labels, _Space(X, names, exact_columns, degree=2)
+
+
+def poly2_equation(
+    svc,
+    scaler,
+    names: Sequence[str],
+    X,
+    positive,
+    *,
+    row_ids=None,
+    positive_class=None,
+    max_terms: int | None = None,
+    max_denominator: int = 12,
+    exact_columns: Sequence[bool] | None = None,
+    sample_size: int = 20000,
+    seed: int = 0,
+) -> PolynomialEquation:
+    """A degree-2 polynomial kernel machine as a readable quadratic inequality.
+
+    The machine is expanded exactly (``expand_poly2``); its monomial coefficients are brought
+    to a common scale and rounded to small rationals, the constant is re-chosen on every row of
+    ``X`` against ``positive`` and the result verified row by row. ``positive_class`` defaults
+    to ``svc.classes_[1]``. The float expansion is kept in ``expansion``.
+    """
+    expansion = expand_poly2(svc, scaler, names)
+    X, names, row_ids, positive, space = _quadratic_setup(
+        X, positive, names, row_ids, exact_columns, "positive"
+    )
+    if X.shape[1] != len(expansion.names):
+        raise StepError(
+            f"X has {X.shape[1]} feature columns, the machine was trained on "
+            f"{len(expansion.names)}."
+        )
+    max_denominator = _check_max_denominator(max_denominator)
+    rng = np.random.default_rng(seed)
+    sample = _stratified_rows(positive, max(int(sample_size), 2), rng)
+    direction = np.array([coef for _, coef in expansion.monomials()])
+    result = _search(
+        space,
+        positive,
+        sample,
+        [direction],
+        max_denominator=max_denominator,
+        max_terms=max_terms,
+        include_single=False,
+    )
+    machine = _float_violations(expansion.decision(space.Xf), positive)
+    notes = _evaluation_notes(space, result.best, X.shape[0], sample)
+    notes.append(f"the machine's own polynomial (float coefficients) makes {machine} violations")
+    method = (
+        "degree-2 polynomial kernel support vector machine expanded into monomials of the raw "
+        f"features, coefficients rounded to rationals with denominators up to {max_denominator}, "
+        "constant chosen exactly on all rows"
+    )
+    if positive_class is None:
+        positive_class = expansion.positive_class
+    return _make_equation(
+        PolynomialEquation,
+        space,
+        result.best,
+        positive_class=positive_class,
+        row_ids=row_ids,
+        method=method,
+        notes=notes,
+        expansion=expansion,
+    )
+
+
+def surrogate_quadratic(
+    X,
+    decisions_positive,
+    names: Sequence[str],
+    *,
+    row_ids=None,
+    positive_class=True,
+    max_terms: int | None = None,
+    max_denominator: int = 12,
+    exact_columns: Sequence[bool] | None = None,
+    sample_size: int = 20000,
+    seed: int = 0,
+) -> PolynomialEquation:
+    """A sparse quadratic inequality that mimics another machine (e.g. an RBF kernel SVM).
+
+    ``decisions_positive`` marks the rows the machine predicts ``positive_class``. Sparse
+    separators are fitted on the degree-2 monomials of the features, rounded to small rationals
+    and thresholded on every row; ``violations`` and ``violating_rows`` count the rows where
+    the equation and the machine disagree, and ``agreement`` is the fraction where they agree.
+    """
+    X, names, row_ids, labels, space = _quadratic_setup(
+        X, decisions_positive, names, row_ids, exact_columns, "decisions_positive"
+    )
+    n = X.shape[0]
+    max_denominator = _check_max_denominator(max_denominator)
+    if max_terms is not None and max_terms < 1:
+        raise StepError(f"max_terms must be at least 1, got {max_terms}.")
+    rng = np.random.default_rng(seed)
+    sample = _stratified_rows(labels, max(int(sample_size), 2), rng)
+    path_rows = sample
+    if sample.size > _QUADRATIC_PATH_ROWS:
+        path_rows = sample[np.sort(rng.choice(sample.size, _QUADRATIC_PATH_ROWS, replace=False))]
+    matrix = space.matrix(path_rows)
+    mean, spread = matrix.mean(axis=0), matrix.std(axis=0)
+    active = np.flatnonzero(spread > 0)
+    directions = []
+    if active.size:
+        Z = (matrix[:, active] - mean[active]) / spread[active]
+        signs = np.where(labels[path_rows], 1.0, -1.0)
+        if np.unique(signs).size == 2:
+            for direction in _fit_directions(Z, signs, rng, seed):
+                full = np.zeros(space.size)
+                full[active] = direction / spread[active]
+                directions.append(full)
+    result = _search(
+        space,
+        labels,
+        sample,
+        directions,
+        max_denominator=max_denominator,
+        max_terms=max_terms,
+        include_single=True,
+    )
+    notes = _evaluation_notes(space, result.best, n, sample)
+    notes.append("violations count the rows where the equation and the machine disagree")
+    method = (
+        "sparse separators on degree-2 monomials fitted to the machine's predicted labels, "
+        f"coefficients rounded to rationals with denominators up to {max_denominator}, constant "
+        "chosen exactly on all rows"
+    )
+    return _make_equation(
+        PolynomialEquation,
+        space,
+        result.best,
+        positive_class=positive_class,
+        row_ids=row_ids,
+        method=method,
+        notes=notes,
+        agreement=1.0 - result.best.violations / n,
+    )
+
+
+# ----------------------------------------------------------------------------------------------
+# Evaluating stored terms on new data
+# ----------------------------------------------------------------------------------------------
+
+
+def _term_column(X, name: str, feature_names: Sequence[str]):
+    if isinstance(X, Mapping) or hasattr(X, "columns"):
+        try:
+            return np.asarray(X[name])
+        except KeyError:
+            raise StepError(f"no column '{name}' among the values given.") from None
+    X = np.asarray(X)
+    if X.ndim != 2 or X.shape[1] != len(feature_names):
+        raise StepError(
+            f"expected {len(feature_names)} feature columns in the order they were given "
+            f"({', '.join(feature_names)}), got shape {X.shape}."
+        )
+    return X[:, list(feature_names).index(name)]
+
+
+def _evaluate_terms(terms: Sequence[Term], X, feature_names: Sequence[str]):
+    """(S, D) exact sums, exact=True; or float sums, exact=False."""
+    factor_columns = [
+        [_term_column(X, name, feature_names) for name in term.factor_names()] for term in terms
+    ]
+    if not terms:
+        n = len(next(iter(X.values()))) if isinstance(X, Mapping) else np.asarray(X).shape[0]
+        return (np.zeros(n, dtype=np.int64), 1), True
+    exact_columns = []
+    for columns in factor_columns:
+        views = [_exact_view(column) for column in columns]
+        if any(view is None for view in views):
+            exact_columns = None
+            break
+        product = views[0]
+        for view in views[1:]:
+            product = _product(product, view)
+        exact_columns.append(product)
+    if exact_columns is not None:
+        return _combine(exact_columns, [term.coef for term in terms]), True
+    total = np.zeros(len(factor_columns[0][0]))
+    for term, columns in zip(terms, factor_columns):
+        value = np.asarray(columns[0], dtype=float)
+        for column in columns[1:]:
+            value = value * np.asarray(column, dtype=float)
+        total += float(term.coef) * value
+    return total, False
+
+
+# ----------------------------------------------------------------------------------------------
+# Formulas for a numeric target
+# ----------------------------------------------------------------------------------------------
+
+
+def _snap_coefficients(coefs: np.ndarray, max_denominator: int) -> set:
+    """Rational versions of regression coefficients (the target fixes the scale)."""
+    found = set()
+    nonzero = np.flatnonzero(coefs != 0)
+    if nonzero.size == 0:
+        return found
+    for denominator in range(1, max_denominator + 1):
+        for fractions in (
+            [Fraction(float(coefs[j])).limit_denominator(denominator) for j in nonzero],
+            [Fraction(int(np.rint(coefs[j] * denominator)), denominator) for j in nonzero],
+        ):
+            candidate = tuple((int(j), f) for j, f in zip(nonzero, fractions) if f != 0)
+            if candidate and max(abs(f.numerator) for _, f in candidate) <= _MAX_HEIGHT:
+                found.add(candidate)
+    return found
+
+
+def _formula_height(candidate) -> tuple[int, int, int]:
+    return (
+        len(candidate),
+        max(max(abs(f.numerator), f.denominator) for _, f in candidate),
+        sum(abs(f.numerator) + f.denominator for _, f in candidate),
+    )
+
+
+@dataclass(eq=False)
+class _FormulaEvaluation:
+    candidate: tuple
+    constant: Fraction
+    rows_off: int
+    off: np.ndarray
+    max_residual: float
+    rms: float
+    exact: bool
+
+
+def _evaluate_formula(space: _Space, target: np.ndarray, target_exact, candidate, max_den: int):
+    columns = [space.exact_column(index) for index, _ in candidate]
+    n = space.n_rows
+    if target_exact is not None and all(column is not None for column in columns):
+        residual, denominator = _combine(
+            [target_exact, *columns], [Fraction(1)] + [-coef for _, coef in candidate]
+        )
+        if residual.dtype == object:
+            mode, _ = Counter(residual.tolist()).most_common(1)[0]
+        else:
+            values, counts = np.unique(residual, return_counts=True)
+            mode = int(values[np.argmax(counts)])
+        constant = Fraction(mode, denominator)
+        off = np.flatnonzero(np.asarray(residual != mode, dtype=bool))
+        deviation = residual - mode
+        largest = _max_abs(deviation) if deviation.dtype == object else int(np.abs(deviation).max())
+        as_float = np.asarray(deviation, dtype=float) / denominator
+        rms = float(np.sqrt(np.mean(as_float**2))) if n else 0.0
+        return _FormulaEvaluation(
+            candidate,
+            constant,
+            int(off.size),
+            off,
+            float(Fraction(largest, denominator)),
+            rms,
+            True,
+        )
+    residual = target.astype(float).copy()
+    for index, coef in candidate:
+        residual -= float(coef) * space.float_column(index)
+    constant = Fraction(float(np.median(residual))).limit_denominator(max_den)
+    deviation = residual - float(constant)
+    tolerance = 1e-9 * np.maximum(1.0, np.abs(target.astype(float)))
+    off = np.flatnonzero(np.abs(deviation) > tolerance)
+    return _FormulaEvaluation(
+        candidate,
+        constant,
+        int(off.size),
+        off,
+        float(np.max(np.abs(deviation))),
+        float(np.sqrt(np.mean(deviation**2))),
+        False,
+    )
+
+
+def _sample_formula_scores(matrix, target, candidates):
+    """(rows off, rms about the median) per candidate on the sample rows, in floating point."""
+    m, q = matrix.shape
+    result = []
+    for start in range(0, len(candidates), 64):
+        chunk = candidates[start : start + 64]
+        weights = np.zeros((q, len(chunk)))
+        for column, candidate in enumerate(chunk):
+            for index, coef in candidate:
+                weights[index, column] = float(coef)
+        residuals = target[:, None] - matrix @ weights
+        ordered = np.sort(residuals, axis=0)
+        tolerance = 1e-9 * np.maximum(1.0, np.abs(ordered))
+        same = np.abs(ordered[1:] - ordered[:-1]) <= tolerance[1:]
+        for column in range(len(chunk)):
+            breaks = np.flatnonzero(~same[:, column])
+            edges = np.concatenate([[-1], breaks, [m - 1]])
+            longest = int(np.max(np.diff(edges)))
+            spread = residuals[:, column] - np.median(residuals[:, column])
+            result.append((m - longest, float(np.sqrt(np.mean(spread**2)))))
+    return result
+
+
+def find_formula(
+    X,
+    y,
+    names: Sequence[str],
+    *,
+    row_ids=None,
+    target_name: str = "target",
+    max_denominator: int = 12,
+    max_terms: int | None = None,
+    exact_columns: Sequence[bool] | None = None,
+    sample_size: int = 20000,
+    seed: int = 0,
+) -> Formula:
+    """An affine formula ``target = sum(coef * feature) + constant`` with small rationals.
+
+    Least squares on all features and on the supports along a lasso path (plus one feature
+    at a time) are fitted on at most ``sample_size`` rows; coefficients are rounded to
+    rationals with denominators up to ``max_denominator`` and the constant chosen exactly on
+    every row (the most common residual when values are exact). The winner has the fewest
+    rows off; ties (and residuals within 1% of the best when no formula is exact) go to fewer
+    terms, then smaller coefficients.
+
+    ``y`` may be floats, or an object array of Python ints/Fractions for exact targets.
+    Example: for lattice polygons, ``area = interior_points + 1/2*boundary_points - 1``.
+    """
+    X, names, row_ids = _check_matrix(X, names, row_ids)
+    n, p = X.shape
+    max_denominator = _check_max_denominator(max_denominator)
+    if exact_columns is not None and len(exact_columns) != p:
+        raise StepError(f"got {len(exact_columns)} exact_columns flags for {p} features.")
+    target_raw = np.asarray(y)
+    if target_raw.shape != (n,):
+        raise StepError(f"target '{target_name}': got {target_raw.size} values for {n} rows.")
+    try:
+        target = np.asarray(target_raw, dtype=float)
+    except (TypeError, ValueError):
+        raise StepError(f"target '{target_name}' must hold numbers.") from None
+    if not np.all(np.isfinite(target)):
+        row = int(np.flatnonzero(~np.isfinite(target))[0])
+        raise StepError(
+            f"target '{target_name}', row {_plain(row_ids[row])}: value is not a finite number. "
+            "Drop rows with a missing target first."
+        )
+    target_exact = _exact_view(target_raw)
+    space = _Space(X, names, exact_columns, degree=1)
+    rng = np.random.default_rng(seed)
+    sample = np.arange(n) if n <= sample_size else np.sort(rng.choice(n, sample_size, False))
+    matrix = space.matrix(sample)
+    mean, spread = matrix.mean(axis=0), matrix.std(axis=0)
+    active = np.flatnonzero(spread > 0)
+    target_sample = target[sample]
+    directions: list[np.ndarray] = []
+    ones = np.ones((sample.size, 1))
+
+    def least_squares(columns):
+        coefs, *_ = np.linalg.lstsq(
+            np.hstack([matrix[:, columns], ones]), target_sample, rcond=None
+        )
+        full = np.zeros(p)
+        full[columns] = coefs[:-1]
+        directions.append(full)
+
+    supports: list[tuple[int, ...]] = []
+    if active.size:
+        least_squares(list(active))
+        for j in active:
+            least_squares([j])
+        from sklearn.linear_model import lars_path
+
+        Z = (matrix[:, active] - mean[active]) / spread[active]
+        centered = target_sample - target_sample.mean()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                _, _, path = lars_path(Z, centered, method="lar", max_iter=min(active.size, 40))
+                for column in path.T[1:]:
+                    support = tuple(active[np.flatnonzero(column)])
+                    if support and support not in supports:
+                        supports.append(support)
+            except (ValueError, np.linalg.LinAlgError):
+                pass
+        for support in supports[:_MAX_SUPPORTS]:
+            least_squares(list(support))
+    candidates: set = set()
+    for direction in directions:
+        candidates |= _snap_coefficients(direction, max_denominator)
+    candidates = sorted(
+        (c for c in candidates if max_terms is None or len(c) <= max_terms),
+        key=lambda c: (_formula_height(c), c),
+    )
+    if not candidates:
+        # No feature helps: the best formula is a constant.
+        candidates = []
+    scores = _sample_formula_scores(matrix, target_sample, candidates) if candidates else []
+    ranked = sorted(
+        range(len(candidates)), key=lambda i: (scores[i], _formula_height(candidates[i]))
+    )
+    chosen = ranked[:8]
+    by_terms: dict[int, int] = {}
+    for i in ranked:
+        by_terms.setdefault(len(candidates[i]), i)
+    for i in by_terms.values():
+        if i not in chosen:
+            chosen.append(i)
+    fewest_off = min((scores[i][0] for i in ranked), default=0)
+    sparsest = [i for i in ranked if scores[i][0] == fewest_off]
+    sparsest.sort(key=lambda i: _formula_height(candidates[i]))
+    for i in sparsest[:3]:
+        if i not in chosen:
+            chosen.append(i)
+    evaluations = [
+        _evaluate_formula(space, target, target_exact, candidates[i], max_denominator)
+        for i in chosen
+    ]
+    evaluations.append(_evaluate_formula(space, target, target_exact, (), max_denominator))
+    fewest = min(e.rows_off for e in evaluations)
+    eligible = [e for e in evaluations if e.rows_off == fewest]
+    best_rms = min(e.rms for e in eligible)
+    eligible = [e for e in eligible if e.rms <= 1.01 * best_rms + 1e-12 * (1 + abs(best_rms))]
+    best = min(
+        eligible,
+        key=lambda e: (_formula_height(e.candidate) if e.candidate else (0, 0, 0), e.rms),
+    )
+    terms = tuple(Term(names[index], coef) for index, coef in best.candidate)
+    notes = []
+    if sample.size < n:
+        notes.append(f"fitted on a sample of {sample.size} of {n} rows; verified on all {n} rows")
+    else:
+        notes.append(f"fitted and verified on all {n} rows")
+    if best.exact:
+        notes.append("verified exactly in rational arithmetic")
+    else:
+        notes.append(
+            "verified in floating point (a row is off when its residual exceeds 1e-9 of the "
+            "target's size) because the target or a feature is not an exact value"
+        )
+    if fewest and best.exact:
+        notes.append(f"the constant is the most common exact residual; {best.rows_off} rows differ")
+    method = (
+        "least squares on all features, on each feature alone and along a lasso path, "
+        f"coefficients rounded to rationals with denominators up to {max_denominator}, "
+        "checked on every row"
+    )
+    return Formula(
+        target=str(target_name),
+        terms=terms,
+        constant=best.constant,
+        max_residual=best.max_residual,
+        rows_off=best.rows_off,
+        off_rows=tuple(row_ids[best.off].tolist()),
+        n_rows=n,
+        method=method,
+        notes=tuple(notes),
+        feature_names=tuple(names),
+        exact=best.exact,
+    )
