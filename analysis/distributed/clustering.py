@@ -1,0 +1,389 @@
+"""The clustering step on Dask.
+
+Features are standardized with the exact mean and standard deviation of every row (summed
+over partitions). k-means is fitted exactly by Lloyd iterations on partition sums: starting
+centres come from the in-memory k-means on a uniform sample (k-means++ with ``seed``), then
+each iteration assigns every row of every partition to its nearest centre and moves each
+centre to the mean of its rows, until no centre moves. Gaussian mixtures, agglomerative
+clustering and HDBSCAN are fitted on a sample, as the in-memory step does on large tables,
+and every row of every partition then joins a cluster (most likely component, nearest cluster
+mean, nearest sampled row). Silhouettes are computed on the same random sample of rows as in
+memory; profiles and the agreement with a label column use every row.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+
+import numpy as np
+
+from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.distributed.projection import block_moments, merge_moments
+from analysis.errors import StepError
+
+# Rows of the sample that starting centres and sample-fitted methods use.
+SAMPLE_ROWS = 100_000
+LLOYD_ITERATIONS = 300
+# Lloyd iterations stop when no centre moves by more than this (in standard deviations).
+LLOYD_TOLERANCE = 1e-10
+
+
+def run_clustering(step, ctx: Context):
+    """A ClusteringResult for ``step`` on the partitioned table in ``ctx``."""
+    from dask import delayed
+
+    from analysis import clustering as cl
+
+    started = time.perf_counter()
+    step._check(ctx.table)
+    plan = plan_for(ctx, columns=step.columns, target=step.compare,
+                    array_encoding=step.array_encoding, log_scale=step.log_scale,
+                    missing=step.missing)
+    blocks = blocks_for(ctx, plan)
+    from analysis.distributed.matrix import add_counts, block_counts, feature_notes
+
+    stats, counts, kept_per_block = ctx.compute([
+        tree([delayed(block_moments)(b) for b in blocks], merge_moments),
+        tree([delayed(block_counts)(b) for b in blocks], add_counts),
+        [delayed(_kept)(b) for b in blocks],
+    ])
+    notes = feature_notes(plan, counts, ctx.table.n_rows)
+    n, mean, m2 = stats
+    scale = _scale(n, mean, m2) if step.standardize else np.ones(len(mean))
+    shift = mean if step.standardize else np.zeros(len(mean))
+    notes.append("features standardized to mean 0 and standard deviation 1."
+                 if step.standardize else "features used in their own units.")
+    ks = step._ks(n, ctx.table.name)
+    offsets = np.concatenate([[0], np.cumsum(kept_per_block)[:-1]]).astype(np.int64)
+    sample = _gather_rows(ctx, blocks, kept_per_block, offsets,
+                          _positions(n, SAMPLE_ROWS, step.seed), shift, scale)
+    silhouette_rows = _positions(n, step.sample_size, step.seed)
+    if n > step.sample_size:
+        notes.append(f"silhouettes computed on a random sample of {step.sample_size} of the "
+                     f"{n} rows (seed {step.seed}).")
+    scored = _gather_rows(ctx, blocks, kept_per_block, offsets, silhouette_rows, shift, scale)
+    methods = cl.K_METHODS if step.method == "auto" else (step.method,)
+    runs = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for method in methods:
+            for k, assigner, bic, extra in _fits(method, step, ks, sample, n, notes):
+                if isinstance(assigner, _Lloyd):
+                    extra = refine_lloyd(ctx, blocks, assigner, shift, scale)
+                labels_scored = assigner(scored)
+                entry = cl.SweepEntry(
+                    method=method, k=k, silhouette=_silhouette(scored, labels_scored), bic=bic,
+                    clusters=0, noise=0)
+                runs.append([entry, assigner, extra])
+    # every run's cluster sizes over all rows (the sweep reports them)
+    sizes = ctx.compute([tree([delayed(_label_sizes)(b, assigner, shift, scale) for b in blocks],
+                              _add_sizes) for _, assigner, _ in runs])
+    for run, found in zip(runs, sizes):
+        run[0] = _with_sizes(run[0], found)
+    chosen_entry, chosen_assigner, reason = _choose(cl, step, runs)
+    pieces = ctx.compute([delayed(_assign_block)(b, chosen_assigner, shift, scale)
+                          for b in blocks])
+    labels = np.concatenate([p[2] for p in pieces])
+    order = _size_order(labels)
+    labels = np.array([order[c] for c in labels.tolist()], dtype=int)
+    row_ids = np.concatenate([p[1] for p in pieces])
+    positions = np.concatenate([p[0] for p in pieces])
+    profiles = _profiles(ctx, plan, blocks, chosen_assigner, order, shift, scale, n, mean, m2)
+    agreement = None
+    if step.compare is not None:
+        truth = np.concatenate([p[3] for p in pieces])
+        from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
+
+        truth = np.array([str(v) for v in truth], dtype=object)
+        agreement = {"ari": float(adjusted_rand_score(truth, labels)),
+                     "nmi": float(normalized_mutual_info_score(truth, labels))}
+    k = int(len(set(labels.tolist()) - {cl.NOISE}))
+    return cl.ClusteringResult(
+        method=chosen_entry.method, k=k, row_ids=row_ids, positions=positions, labels=labels,
+        sweep=tuple(r[0] for r in runs), profiles=profiles, reason=reason,
+        features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
+        silhouette=chosen_entry.silhouette, compare=step.compare, agreement=agreement,
+        notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
+    )
+
+
+def _kept(block) -> int:
+    return len(block.positions)
+
+
+def _scale(n, mean, m2) -> np.ndarray:
+    variance = np.diag(m2) / n
+    eps = np.finfo(np.float64).eps
+    constant = variance <= n * eps * variance + (n * mean * eps) ** 2
+    scale = np.sqrt(variance)
+    scale[constant | (scale == 0)] = 1.0
+    return scale
+
+
+def _positions(n: int, size: int, seed: int) -> np.ndarray:
+    from analysis.projection import sample_positions
+
+    return np.arange(n) if n <= size else sample_positions(n, size, seed)
+
+
+def _gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
+    """Standardized feature rows at the given kept-row indices (in order)."""
+    from dask import delayed
+
+    picks = []
+    for k, block in enumerate(blocks):
+        lo, hi = offsets[k], offsets[k] + kept_per_block[k]
+        local = wanted[(wanted >= lo) & (wanted < hi)] - lo
+        if len(local):
+            picks.append(delayed(_take)(block, local, shift, scale))
+    parts = ctx.compute(picks)
+    return np.vstack(parts) if parts else np.empty((0, len(shift)))
+
+
+def _take(block, local, shift, scale):
+    return (block.values[local] - shift) / scale
+
+
+def _silhouette(values: np.ndarray, labels: np.ndarray):
+    from sklearn.metrics import silhouette_score
+
+    clustered = labels != -1
+    distinct = len(set(labels[clustered].tolist()))
+    if distinct < 2 or distinct >= int(clustered.sum()):
+        return None
+    return float(silhouette_score(values[clustered], labels[clustered]))
+
+
+# ----------------------------------------------------------------------------------------
+# Fitting: each yields (k, assigner, bic, note) where assigner(values) -> labels
+
+
+class NearestCentre:
+    """Assigns each row to its nearest centre (Euclidean)."""
+
+    def __init__(self, centres: np.ndarray):
+        self.centres = np.asarray(centres, dtype=np.float64)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        if len(values) == 0:
+            return np.zeros(0, dtype=int)
+        distances = ((values[:, None, :] - self.centres[None, :, :]) ** 2).sum(axis=2) \
+            if len(values) * len(self.centres) * values.shape[1] < 5_000_000 else None
+        if distances is None:
+            from sklearn.metrics import pairwise_distances_argmin
+
+            return pairwise_distances_argmin(values, self.centres)
+        return np.argmin(distances, axis=1)
+
+
+class MixtureAssigner:
+    """Assigns each row to its most likely component of a fitted Gaussian mixture."""
+
+    def __init__(self, model):
+        self.model = model
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        return self.model.predict(values) if len(values) else np.zeros(0, dtype=int)
+
+
+class NearestSampled:
+    """Gives each row the label of its nearest sampled row (noise stays noise)."""
+
+    def __init__(self, sample: np.ndarray, labels: np.ndarray):
+        from sklearn.neighbors import NearestNeighbors
+
+        self.labels = labels
+        self.index = NearestNeighbors(n_neighbors=1).fit(sample)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        if len(values) == 0:
+            return np.zeros(0, dtype=int)
+        return self.labels[self.index.kneighbors(values, return_distance=False)[:, 0]]
+
+
+def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
+    from analysis import clustering as cl
+
+    if method == "kmeans":
+        notes.append("k-means by exact Lloyd iterations over every row of every partition, "
+                     f"started from k-means++ centres fitted on a random sample of "
+                     f"{min(n, SAMPLE_ROWS)} rows.")
+        for k in ks:
+            _, centres = cl.kmeans_labels(sample, k, step.seed)
+            yield k, _Lloyd(centres), None, None
+    elif method == "gmm":
+        from sklearn.mixture import GaussianMixture
+
+        if len(sample) < n:
+            notes.append(f"Gaussian mixtures fitted on a random sample of {len(sample)} of the "
+                         f"{n} rows; every row then joins its most likely component.")
+        for k in ks:
+            model = GaussianMixture(n_components=k, covariance_type="full",
+                                    random_state=step.seed).fit(sample)
+            yield k, MixtureAssigner(model), float(model.bic(sample)), None
+    elif method == "agglomerative":
+        from scipy.cluster.hierarchy import fcluster, linkage
+
+        fit = sample[_positions(len(sample), step.sample_size, step.seed)]
+        if len(fit) < n:
+            notes.append(f"agglomerative clustering (Ward) built on a random sample of "
+                         f"{len(fit)} of the {n} rows; the other rows join the cluster with "
+                         "the nearest mean.")
+        links = linkage(fit, method="ward")
+        for k in ks:
+            labels = fcluster(links, t=k, criterion="maxclust") - 1
+            centres = np.array([fit[labels == c].mean(axis=0) for c in range(labels.max() + 1)])
+            yield k, NearestCentre(centres), None, None
+    elif method == "hdbscan":
+        from sklearn.cluster import HDBSCAN
+
+        fit = sample[_positions(len(sample), step.sample_size, step.seed)]
+        size = min(step.min_cluster_size, max(2, len(fit) // 2))
+        labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(fit)
+        notes.append(f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are "
+                     "noise (cluster -1).")
+        if len(fit) < n:
+            notes.append(f"HDBSCAN ran on a random sample of {len(fit)} of the {n} rows; each "
+                         "other row takes the cluster (or noise) of its nearest sampled row.")
+        if step.k is not None:
+            notes.append(f"HDBSCAN finds its own number of clusters; k = {step.k} was not "
+                         "used.")
+        yield None, NearestSampled(fit, labels), None, None
+    else:
+        raise StepError(f"clustering method {method!r} is not available on the dask engine.")
+
+
+class _Lloyd(NearestCentre):
+    """Nearest-centre assignment whose centres are refined over all rows before first use."""
+
+    def __init__(self, centres):
+        super().__init__(centres)
+        self.refined = False
+
+
+def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale) -> int:
+    """Run Lloyd iterations over every row until no centre moves; return the iterations."""
+    from dask import delayed
+
+    for iteration in range(1, LLOYD_ITERATIONS + 1):
+        sums, counts = ctx.compute(tree([delayed(_cluster_sums)(b, assigner, shift, scale)
+                                         for b in blocks], _add_pairs))
+        centres = assigner.centres.copy()
+        filled = counts > 0
+        centres[filled] = sums[filled] / counts[filled][:, None]
+        moved = float(np.abs(centres - assigner.centres).max())
+        assigner.centres = centres
+        if moved <= LLOYD_TOLERANCE:
+            return iteration
+    return LLOYD_ITERATIONS
+
+
+def _cluster_sums(block, assigner, shift, scale):
+    values = (block.values - shift) / scale
+    labels = assigner(values)
+    k = len(assigner.centres)
+    sums = np.zeros((k, values.shape[1]))
+    np.add.at(sums, labels, values)
+    return sums, np.bincount(labels, minlength=k).astype(np.float64)
+
+
+def _add_pairs(a, b):
+    return a[0] + b[0], a[1] + b[1]
+
+
+def _label_sizes(block, assigner, shift, scale) -> dict:
+    labels = assigner((block.values - shift) / scale)
+    found, counts = np.unique(labels, return_counts=True)
+    return dict(zip(found.tolist(), counts.tolist()))
+
+
+def _add_sizes(a: dict, b: dict) -> dict:
+    out = dict(a)
+    for key, value in b.items():
+        out[key] = out.get(key, 0) + value
+    return out
+
+
+def _with_sizes(entry, sizes: dict):
+    import dataclasses
+
+    clusters = len([c for c in sizes if c != -1])
+    return dataclasses.replace(entry, clusters=clusters, noise=int(sizes.get(-1, 0)))
+
+
+def _assign_block(block, assigner, shift, scale):
+    labels = assigner((block.values - shift) / scale)
+    truth = block.target if block.target is not None else np.zeros(0)
+    return block.positions, block.row_ids, np.asarray(labels, dtype=int), truth
+
+
+def _size_order(labels: np.ndarray) -> dict:
+    """Old label -> new label, 0 for the largest cluster (ties by first row), noise -1."""
+    found = [c for c in dict.fromkeys(labels.tolist()) if c != -1]
+    sizes = {c: int(np.sum(labels == c)) for c in found}
+    order = sorted(found, key=lambda c: -sizes[c])
+    mapping = {old: new for new, old in enumerate(order)}
+    mapping[-1] = -1
+    return mapping
+
+
+def _choose(cl, step, runs: list):
+    """The in-memory rule for choosing a run, with Lloyd refinement of the k-means runs."""
+    pairs = [(entry, _Placeholder(i)) for i, (entry, _, _) in enumerate(runs)]
+    entry, marker, reason = cl._choose(step.method, pairs, step.k is not None)
+    return entry, runs[marker.index][1], reason
+
+
+class _Placeholder:
+    """Stands in for a run's labels in the in-memory chooser, which only passes them on."""
+
+    def __init__(self, index: int):
+        self.index = index
+
+
+def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
+    from dask import delayed
+
+    from analysis import clustering as cl
+
+    sums = ctx.compute(tree([delayed(_profile_sums)(b, assigner, shift, scale) for b in blocks],
+                            _add_profile_sums))
+    spread = np.sqrt(np.diag(m2) / n)
+    total = mean * n
+    names = plan.names
+    kinds = [f.kind for f in plan.features]
+    profiles = []
+    clusters = sorted(sums, key=lambda c: (order[c] == -1, order[c]))
+    for cluster in clusters:
+        size, inside_sum = sums[cluster]
+        means = inside_sum / size
+        rest = means if size == n else (total - inside_sum) / (n - size)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            difference = np.where(spread > 0, (means - rest) / spread, 0.0)
+        profiles.append(cl.ClusterProfile(
+            cluster=int(order[cluster]), size=int(size),
+            means={name: float(m) for name, m in zip(names, means)},
+            differences={name: float(d) for name, d in zip(names, difference)},
+            distinguished_by=cl._distinguished(names, kinds, means, rest, difference),
+        ))
+    return tuple(profiles)
+
+
+def _profile_sums(block, assigner, shift, scale) -> dict:
+    labels = assigner((block.values - shift) / scale)
+    out = {}
+    for cluster in np.unique(labels).tolist():
+        inside = labels == cluster
+        out[cluster] = (int(inside.sum()), block.values[inside].sum(axis=0))
+    return out
+
+
+def _add_profile_sums(a: dict, b: dict) -> dict:
+    out = dict(a)
+    for key, (size, total) in b.items():
+        if key in out:
+            out[key] = (out[key][0] + size, out[key][1] + total)
+        else:
+            out[key] = (size, total)
+    return out
