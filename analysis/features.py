@@ -142,25 +142,56 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             values = values[keep]
             rows = rows[keep]
         else:
-            filled = 0
-            for j in range(values.shape[1]):
-                column_bad = bad[:, j]
-                if column_bad.any():
-                    good = values[~column_bad, j]
-                    fill = float(np.median(good)) if len(good) else 0.0
-                    values[column_bad, j] = fill
-                    filled += int(column_bad.sum())
+            filled = _impute(values, bad, features)
             keep = ~target_missing
             values = values[keep]
             rows = rows[keep]
-            notes.append(f"filled {filled} missing feature cells with the column median; "
-                         f"dropped {int(target_missing.sum())} rows with no target value.")
+            notes.append(f"filled {filled} missing feature cells (the median for numbers, the "
+                         "most common value for flags and categories); dropped "
+                         f"{int(target_missing.sum())} rows with no target value.")
     if len(rows) == 0:
         raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
                         "other columns or impute missing values.")
     row_ids = table.row_ids[rows]
     return FeatureMatrix(values=np.ascontiguousarray(values), features=tuple(features),
                          rows=rows, row_ids=row_ids, notes=tuple(notes))
+
+
+def _impute(values: np.ndarray, bad: np.ndarray, features: list[Feature]) -> int:
+    """Fill ``bad`` cells in place; returns how many were filled.
+
+    Numbers get the column median. A flag gets its most common value, and a category's
+    one-hot block its most common level as a whole, so a filled row still has exactly one
+    level set. A column with no value at all is filled with 0.
+    """
+    filled = 0
+    done: set[int] = set()
+    for j, feature in enumerate(features):
+        if j in done or not bad[:, j].any():
+            continue
+        if feature.kind == "onehot":
+            block = [k for k, f in enumerate(features)
+                     if f.kind == "onehot" and f.column == feature.column]
+            missing = bad[:, block].any(axis=1)
+            known = values[~missing][:, block]
+            values[np.ix_(missing, block)] = 0.0
+            if len(known):
+                values[missing, block[int(np.argmax(known.sum(axis=0)))]] = 1.0
+            filled += int(bad[:, block].sum())
+            done.update(block)
+            continue
+        column_bad = bad[:, j]
+        good = values[~column_bad, j]
+        if not len(good):
+            fill = 0.0
+        elif feature.kind == "flag":
+            levels, counts = np.unique(good, return_counts=True)
+            fill = float(levels[int(np.argmax(counts))])
+        else:
+            fill = float(np.median(good))
+        values[column_bad, j] = fill
+        filled += int(column_bad.sum())
+    return filled
 
 
 def target_values(table: Table, column: str, rows: np.ndarray | None = None) -> np.ndarray:
@@ -197,13 +228,16 @@ def canonical_key(matrix) -> str:
     The key is exact when few orderings of the smaller side need trying (at most
     ``EXACT_KEY_ORDERS``, counting only swaps of lines with equal multisets of entries): the
     least, over those orderings, of the matrix with the other side sorted. Other matrices get
-    a key from permutation invariants (shape, sorted entries, sorted row and column sums,
-    singular values), which may merge inequivalent matrices but never splits
-    equivalent ones. Lists are keyed by their sorted entries.
+    a key from permutation invariants (shape, the multisets of rows and of columns, and the
+    sorted entries and diagonals of the two Gram matrices; for matrices with non-integer
+    entries the singular values rounded to 8 decimals instead of the Gram matrices), which
+    may merge inequivalent matrices but does not split equivalent integer ones. Lists are
+    keyed by their sorted entries. Entries are compared as numbers: 1 and 1.0 are equal, and
+    -0.0 is 0.
     """
     array = np.asarray(matrix)
     if array.ndim == 1:
-        entries = sorted(array.tolist())
+        entries = sorted(_key_entry(x) for x in array.tolist())
         return "list:" + _hash(repr((len(entries), entries)))
     if array.ndim != 2:
         raise TableError(f"canonical key: expected a list or a matrix, got {array.ndim} axes.")
@@ -211,9 +245,9 @@ def canonical_key(matrix) -> str:
     if min(rows, cols) == 0:
         return f"exact:{rows}x{cols}"
     work = array if rows <= cols else array.T
-    orders = _row_orders(work.tolist())
+    entries = [[_key_entry(x) for x in line] for line in work.tolist()]
+    orders = _row_orders(entries)
     if orders is not None:
-        entries = work.tolist()
         best = None
         for order in orders:
             permuted = [entries[i] for i in order]
@@ -222,16 +256,41 @@ def canonical_key(matrix) -> str:
             if best is None or candidate < best:
                 best = candidate
         return f"exact:{rows}x{cols}:" + _hash(repr(best))
-    values = array.astype(np.float64)
-    singular = np.linalg.svd(values, compute_uv=False)
-    summary = (
+    summary = [
         array.shape,
-        sorted(array.ravel().tolist()),
-        sorted(array.sum(axis=1).tolist()),
-        sorted(array.sum(axis=0).tolist()),
-        [round(float(s), 8) for s in singular],
-    )
+        sorted(tuple(sorted(line)) for line in entries),
+        sorted(tuple(sorted(line)) for line in zip(*entries)),
+    ]
+    if all(kind == 0 and isinstance(value, int) for line in entries for kind, value in line):
+        # exact for integers: the Gram matrices W W^T and W^T W change only by a simultaneous
+        # permutation of their rows and columns, so their entries and diagonals, sorted, are
+        # invariants computed without rounding
+        exact = np.array([[value for _, value in line] for line in entries], dtype=object)
+        for gram in (exact.dot(exact.T), exact.T.dot(exact)):
+            summary.append(sorted(gram.ravel().tolist()))
+            summary.append(sorted(gram.diagonal().tolist()))
+    else:
+        values = work.astype(np.float64)
+        finite = np.isfinite(values).all()
+        singular = np.linalg.svd(values, compute_uv=False) if finite else []
+        summary.append([round(float(v), 8) + 0.0 for v in singular])
     return f"invariants:{rows}x{cols}:" + _hash(repr(summary))
+
+
+def _key_entry(value) -> tuple:
+    """An entry as a sortable, exactly printed pair: (0, number) or (1, 0) for NaN."""
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        if math.isnan(value):
+            return (1, 0)
+        if value.is_integer():
+            return (0, int(value))
+        return (0, value)
+    if isinstance(value, (bool, np.bool_)):
+        return (0, int(value))
+    if isinstance(value, (int, np.integer)):
+        return (0, int(value))
+    return (0, value)
 
 
 def _row_orders(entries: list[list]):
@@ -295,7 +354,10 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
             values = _signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
                 else _signed_log(table.numeric(name).tolist())
             if log_scale == "auto":
-                notes.append(f"{name!r} holds integers beyond 64 bits: used as "
+                beyond = "64 bits" if any(
+                    v is not None and not isinstance(v, float) and abs(v) > 2**63 - 1
+                    for v in series.tolist()) else "2**53"
+                notes.append(f"{name!r} holds integers beyond {beyond}: used as "
                              f"sign(x)*log10(1+|x|).")
             return values[:, None], [Feature(f"slog({name})", name, "log",
                                              "sign(x)*log10(1+|x|)")]
@@ -360,6 +422,14 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
         if len(shapes) > 1:
             notes.append(f"{name!r}: permutation-invariant features of different-sized arrays "
                          "padded with 0.")
+        if ndims == {1, 2}:
+            notes.append(f"{name!r}: lists among matrices treated as matrices with one row "
+                         "for the permutation-invariant features.")
+    unusable = sum(not np.isfinite(_as_floats(c)).all() for c in present)
+    if unusable:
+        notes.append(f"{name!r}: {unusable} arrays hold NaN or infinite entries; those "
+                     "entries, and every permutation-invariant feature of those arrays, count "
+                     "as missing.")
     return np.column_stack(blocks), features
 
 
@@ -376,8 +446,7 @@ def _flattened(name: str, cells: list, shapes: set):
         if cell is None:
             continue
         padded = np.zeros(target)
-        as_float = cell.astype(np.float64) if cell.dtype != object else np.array(
-            [float(x) for x in cell.ravel()]).reshape(cell.shape)
+        as_float = _as_floats(cell)
         if as_float.ndim < len(target):
             as_float = as_float.reshape(as_float.shape + (1,) * (len(target) - as_float.ndim))
         padded[tuple(slice(0, k) for k in as_float.shape)] = as_float
@@ -390,19 +459,38 @@ def _flattened(name: str, cells: list, shapes: set):
     return block, names
 
 
+def _as_floats(cell: np.ndarray) -> np.ndarray:
+    if cell.dtype != object:
+        return cell.astype(np.float64)
+    return np.array([_big_float(x) for x in cell.ravel()], dtype=np.float64).reshape(cell.shape)
+
+
+def _big_float(value) -> float:
+    try:
+        return float(value)
+    except OverflowError:  # an integer past the float range
+        return math.copysign(math.inf, value)
+
+
 def _invariants(name: str, cells: list, ndims: set, shapes: set):
     """Sorted entries, sorted row/column sums, singular values, eigenvalues or char. poly."""
     parts: dict[str, list] = {}
+    if ndims == {1, 2}:
+        # a list among matrices is a matrix with one row: permuting its entries permutes the
+        # columns, so every invariant below still applies
+        cells = [c if c is None or c.ndim == 2 else c.reshape(1, -1) for c in cells]
+        shapes = {c.shape for c in cells if c is not None}
+    floats = [None if c is None else _as_floats(c) for c in cells]
+    # a cell with a NaN or infinite entry has no invariants: its row's invariants are missing
+    # (dropped or imputed like any missing value), and it does not decide the encoding
+    floats = [None if m is None or not np.isfinite(m).all() else m for m in floats]
     square = all(len(s) == 2 and s[0] == s[1] for s in shapes)
-    symmetric = square and all(
-        c is None or np.array_equal(c, c.T) for c in cells)
-    for cell in cells:
-        if cell is None:
+    symmetric = square and all(m is None or np.array_equal(m, m.T) for m in floats)
+    for position, m in enumerate(floats):
+        if m is None:
             for key in parts:
                 parts[key].append(None)
             continue
-        m = cell.astype(np.float64) if cell.dtype != object else np.array(
-            [float(x) for x in cell.ravel()]).reshape(cell.shape)
         values = {"sorted": -np.sort(-m.ravel())}
         if m.ndim == 2:
             values["row_sums"] = -np.sort(-m.sum(axis=1))
@@ -413,7 +501,10 @@ def _invariants(name: str, cells: list, ndims: set, shapes: set):
             elif square:
                 values["charpoly"] = np.poly(m)[1:] if m.size else np.zeros(0)
         for key, vector in values.items():
-            parts.setdefault(key, []).append(vector)
+            # rows seen before this kind of invariant first appeared have none of it
+            parts.setdefault(key, [None] * position).append(vector)
+    if not parts:
+        return np.empty((len(cells), 0)), []
     blocks = []
     features = []
     titles = {"sorted": "sorted entry", "row_sums": "sorted row sum",
