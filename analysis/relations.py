@@ -29,10 +29,12 @@ from dataclasses import dataclass, replace
 from fractions import Fraction
 from itertools import combinations
 from numbers import Integral
+from typing import ClassVar
 
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.plain import plain
 
 __all__ = [
     "CAVEAT",
@@ -202,10 +204,11 @@ class RelationsResult:
     n_rows: int
     columns: tuple[str, ...]
     caveat: str = CAVEAT
+    kind: ClassVar[str] = "relations"
 
     def to_json(self) -> dict:
         """Plain JSON data: ``relations``, ``bounds`` as in the design, plus ``caveat``."""
-        return {
+        return plain({
             "rows": self.n_rows,
             "columns": list(self.columns),
             "relations": [relation.to_json() for relation in self.relations],
@@ -213,7 +216,34 @@ class RelationsResult:
             "bounds": [bound.to_json() for bound in self.bounds],
             "notes": list(self.notes),
             "caveat": self.caveat,
-        }
+        })
+
+    def summary(self) -> str:
+        """A short human summary for the command line."""
+        lines = [f"relations among {len(self.columns)} columns over {self.n_rows} rows"]
+        exact = [r for r in self.relations if not r.trivial]
+        trivial = [r for r in self.relations if r.trivial]
+        if exact:
+            for relation in exact:
+                broken = (f"  (broken by {len(relation.violations)} rows)"
+                          if relation.violations else "")
+                lines.append(f"  {relation.text}{broken}")
+        else:
+            lines.append("  no exact relation")
+        for relation in self.approximate:
+            lines.append(f"  {relation.text}")
+        if trivial:
+            lines.append(f"  trivial: {'; '.join(r.text for r in trivial[:6])}"
+                         + (" ..." if len(trivial) > 6 else ""))
+        if self.bounds:
+            lines.append(f"bounds (best {min(len(self.bounds), 10)} of {len(self.bounds)}):")
+            for bound in self.bounds[:10]:
+                broken = f", broken by {len(bound.violations)}" if bound.violations else ""
+                lines.append(f"  {bound.text}  (attained by {bound.attained_count}, "
+                             f"{bound.near} close{broken})")
+        lines.extend(f"  note: {note}" for note in self.notes)
+        lines.append(self.caveat)
+        return "\n".join(lines)
 
 
 def relation_reasons(result: RelationsResult) -> dict:
@@ -358,19 +388,50 @@ def _identity(size: int) -> list[list[int]]:
     return [[int(i == j) for j in range(size)] for i in range(size)]
 
 
+def _readability(vector: list[int]) -> tuple[int, int, int]:
+    """Fewer terms first, then smaller coefficients, then a smaller constant."""
+    return (sum(1 for x in vector[:-1] if x), sum(abs(x) for x in vector[:-1]), abs(vector[-1]))
+
+
+def _sparsify(basis: list[list[int]]) -> list[list[int]]:
+    """Trade basis vectors against each other while that removes a term or shrinks them.
+
+    LLL makes vectors short in length, which can spread a coefficient over two related
+    columns; a mathematician reads fewer terms more easily. Every step adds an integer
+    multiple of one basis vector to another, so the lattice stays the same.
+    """
+    basis = [list(v) for v in basis]
+    for _round in range(4 * len(basis) + 4):
+        improved = False
+        for i, j in ((i, j) for i in range(len(basis)) for j in range(len(basis)) if i != j):
+            vector, other = basis[i], basis[j]
+            for k in range(len(vector) - 1):
+                if other[k] == 0 or vector[k] == 0 or vector[k] % other[k]:
+                    continue
+                q = vector[k] // other[k]
+                candidate = [a - q * b for a, b in zip(vector, other)]
+                if _readability(candidate) < _readability(vector):
+                    basis[i] = vector = candidate
+                    improved = True
+        if not improved:
+            break
+    return basis
+
+
 def _tidy(basis: list[list[int]]) -> list[list[int]]:
-    """LLL-reduce, make each vector primitive with a positive leading coefficient, and sort."""
+    """Reduce (LLL, then fewer terms), make each vector primitive with a positive leading
+    coefficient, and sort."""
     if not basis:
         return []
     tidy = []
-    for vector in lll_reduce(basis):
+    for vector in _sparsify(lll_reduce(basis)):
         g = math.gcd(*vector)
         vector = [x // g for x in vector]
         lead = next(x for x in vector if x != 0)
         if lead < 0:
             vector = [-x for x in vector]
         tidy.append(vector)
-    tidy.sort(key=lambda v: (sum(1 for x in v[:-1] if x), sum(x * x for x in v), v))
+    tidy.sort(key=lambda v: (_readability(v), v))
     return tidy
 
 
@@ -619,15 +680,102 @@ def _breakers_allowed(max_breakers, size: int) -> int:
     return int(math.floor(float(max_breakers) * size))
 
 
+def _repeat(columns, name, rows, earlier, where=""):
+    """A trivial relation when column ``name`` is constant on ``rows`` or equals an earlier
+    column there; None otherwise."""
+    values = columns[name][0][rows]
+    first = values[0]
+    if bool(np.all(values == first)):
+        return Relation(
+            terms=((name, Fraction(1)),), constant=Fraction(first), holds_on=len(rows),
+            trivial=True, note=f"trivial: column '{name}' is constant{where}",
+        )
+    # Comparing the first values rules most pairs out without a pass over every row.
+    twin = next(
+        (other for other in earlier
+         if np.array_equal(columns[other][0][rows[:256]], values[:256])
+         and np.array_equal(columns[other][0][rows], values)),
+        None,
+    )
+    if twin is None:
+        return None
+    return Relation(
+        terms=((twin, Fraction(1)), (name, Fraction(-1))), constant=Fraction(0),
+        holds_on=len(rows), trivial=True,
+        note=f"trivial: columns '{twin}' and '{name}' are equal{where or ' on every row'}",
+    )
+
+
+def _as_equality(relation: Relation) -> tuple[dict, Fraction]:
+    return dict(relation.terms), relation.constant
+
+
+def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[Relation]:
+    """Relations that all but at most ``breakers`` rows obey, beyond those in ``base``."""
+    size = matrix.size
+    every_row = np.arange(size)
+    tracker = _RankTracker()
+    for vector in base:
+        tracker.add(vector)
+    candidates = []
+    for hypothesis in _robust_kernels(matrix, every_row, len(base), breakers, rng):
+        keep = np.ones(size, dtype=bool)
+        keep[list(hypothesis)] = False
+        keep = np.flatnonzero(keep)
+        if len(keep) == 0:
+            continue
+        lattice = _kernel_on(matrix, keep, rng)
+        if len(lattice) <= len(base):
+            continue
+        broken = matrix.broken(lattice)
+        for j, vector in enumerate(lattice):
+            bad = np.flatnonzero(broken[:, j])
+            if 0 < len(bad) <= breakers:
+                candidates.append((vector, bad))
+    candidates.sort(key=lambda c: (len(c[1]), sum(1 for x in c[0][:-1] if x),
+                                   sum(x * x for x in c[0])))
+    found = []
+    for vector, bad in candidates:
+        support = [j for j, c in enumerate(vector[:-1]) if c]
+        good = np.delete(every_row, bad)
+        # A relation in t columns is pinned down by t rows; ask for a few more than that so
+        # that a relation through a handful of points is not mistaken for a pattern.
+        needed = len(support) + 3
+        if _distinct_count(matrix, good, support, needed) < needed:
+            continue
+        if not tracker.add(vector):
+            continue
+        terms = [(core[j], vector[j]) for j in support]
+        trivial = len(terms) == 1 or (
+            len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
+        )
+        violations = tuple(row_ids[used[bad]].tolist())
+        note = f"holds on all but {len(bad)} rows"
+        if trivial and len(terms) == 1:
+            note = f"trivial: column '{terms[0][0]}' is constant on all but {len(bad)} rows"
+        elif trivial:
+            note = (f"trivial: columns '{terms[0][0]}' and '{terms[1][0]}' are equal on all "
+                    f"but {len(bad)} rows")
+        found.append(_relation_from_vector(vector, core, size - len(bad), violations, note,
+                                           trivial))
+    return found
+
+
 def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, notes):
     """Trivial relations, a basis of the relations on every row, and robust relations.
 
-    Returns (relations, equalities) where equalities are (coefs by name, constant) pairs of
-    the relations holding on every row, for the bound step's implication test.
+    Columns with no missing value are searched together on every row. Each column with some
+    missing values is then searched with them on the rows where it is present, for the
+    relations that involve it (dropping those rows everywhere would make other columns look
+    constant when they are not).
+
+    Returns (relations, equalities, repeated): equalities are (coefs by name, constant) of
+    the relations that hold on every row, for the bound step's implication test; repeated
+    names the columns that are constant or copies of another.
     """
     n = len(row_ids)
-    missing_share = {name: float(columns[name][1].mean()) if n else 0.0 for name in names}
-    dropped = [name for name in names if missing_share[name] > 0.5]
+    share = {name: float(columns[name][1].mean()) for name in names}
+    dropped = [name for name in names if share[name] > 0.5]
     if dropped:
         notes.append(
             "left out of the relation search (missing in more than half of the rows): "
@@ -640,128 +788,72 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
             "exact columns; name columns to search others"
         )
         names = names[:MAX_RELATION_COLUMNS]
-    if not names:
-        return [], []
-    present = np.ones(n, dtype=bool)
-    for name in names:
-        present &= ~columns[name][1]
-    used = np.flatnonzero(present)
-    if len(used) < n:
-        notes.append(
-            f"{n - len(used)} rows with a missing value in the searched columns were left out "
-            "of the relation search"
-        )
-    if len(used) == 0:
-        notes.append("no row has a value in every searched column; no relations searched")
-        return [], []
+    complete = [name for name in names if share[name] == 0]
+    partial = [name for name in names if share[name] > 0]
 
-    relations: list[Relation] = []
-    equalities: list[tuple[dict, Fraction]] = []
-    size = len(used)
-    # Constant and duplicated columns first: reported once as trivial, then left out so that
-    # they do not reappear inside other relations.
+    every_row = np.arange(n)
+    trivial: list[Relation] = []
     core: list[str] = []
-    for name in names:
-        values = columns[name][0][used]
-        first = values[0]
-        if bool(np.all(values == first)):
-            constant = Fraction(first)
-            relations.append(Relation(
-                terms=((name, Fraction(1)),), constant=constant, holds_on=size, trivial=True,
-                note=f"trivial: column '{name}' is constant",
-            ))
-            equalities.append(({name: Fraction(1)}, constant))
-            continue
-        # Comparing the first values rules most pairs out without a pass over every row.
-        twin = next(
-            (other for other in core
-             if np.array_equal(columns[other][0][used[:256]], values[:256])
-             and np.array_equal(columns[other][0][used], values)),
-            None,
-        )
-        if twin is not None:
-            relations.append(Relation(
-                terms=((twin, Fraction(1)), (name, Fraction(-1))), constant=Fraction(0),
-                holds_on=size, trivial=True,
-                note=f"trivial: columns '{twin}' and '{name}' are equal on every row",
-            ))
-            equalities.append(({twin: Fraction(1), name: Fraction(-1)}, Fraction(0)))
-            continue
-        core.append(name)
-    if not core:
-        return relations, equalities
+    for name in complete:
+        repeat = _repeat(columns, name, every_row, core)
+        if repeat is None:
+            core.append(name)
+        else:
+            trivial.append(repeat)
+    equalities = [_as_equality(r) for r in trivial]
+    repeated = {r.terms[-1][0] for r in trivial}
 
-    matrix = _Matrix([columns[name][0] for name in core], used)
-    every_row = np.arange(size)
-    base = _kernel_on(matrix, every_row, rng)
-    width = len(core) + 1
-    distinct = _distinct_count(matrix, every_row, list(range(len(core))), 2 * width)
     found: list[Relation] = []
-    for vector in base:
-        note = ""
-        if distinct <= width:
-            note = (
-                f"only {distinct} distinct rows for {len(core)} columns: relations like this one "
-                "are forced by the small number of rows"
-            )
-        found.append(_relation_from_vector(vector, core, size, (), note))
-        equalities.append(({core[j]: Fraction(c) for j, c in enumerate(vector[:-1]) if c},
-                           Fraction(-vector[-1])))
-
-    breakers = _breakers_allowed(max_breakers, size) if robust else 0
     robust_found: list[Relation] = []
-    if breakers > 0 and size > width:
-        tracker = _RankTracker()
+    if core:
+        matrix = _Matrix([columns[name][0] for name in core], every_row)
+        base = _kernel_on(matrix, every_row, rng)
+        width = len(core) + 1
+        distinct = _distinct_count(matrix, every_row, list(range(len(core))), 2 * width)
         for vector in base:
-            tracker.add(vector)
-        candidates = []
-        for hypothesis in _robust_kernels(matrix, every_row, len(base), breakers, rng):
-            keep = np.ones(size, dtype=bool)
-            keep[list(hypothesis)] = False
-            keep = np.flatnonzero(keep)
-            if len(keep) == 0:
-                continue
-            lattice = _kernel_on(matrix, keep, rng)
-            if len(lattice) <= len(base):
-                continue
-            broken = matrix.broken(lattice)
-            for j, vector in enumerate(lattice):
-                bad = np.flatnonzero(broken[:, j])
-                if 0 < len(bad) <= breakers:
-                    candidates.append((vector, bad))
-        candidates.sort(key=lambda c: (len(c[1]), sum(1 for x in c[0][:-1] if x),
-                                       sum(x * x for x in c[0])))
-        for vector, bad in candidates:
-            support = [j for j, c in enumerate(vector[:-1]) if c]
-            good = np.delete(every_row, bad)
-            # A relation in t columns is pinned down by t rows; ask for a few more than that so
-            # that a relation through a handful of points is not mistaken for a pattern.
-            needed = len(support) + 3
-            if _distinct_count(matrix, good, support, needed) < needed:
-                continue
-            if not tracker.add(vector):
-                continue
-            terms = [(core[j], vector[j]) for j in support]
-            trivial = len(terms) == 1 or (
-                len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
-            )
-            violations = tuple(row_ids[used[bad]].tolist())
-            note = f"holds on all but {len(bad)} rows"
-            if trivial and len(terms) == 1:
-                note = f"trivial: column '{terms[0][0]}' is constant on all but {len(bad)} rows"
-            elif trivial:
-                note = (f"trivial: columns '{terms[0][0]}' and '{terms[1][0]}' are equal on all "
-                        f"but {len(bad)} rows")
-            robust_found.append(_relation_from_vector(
-                vector, core, size - len(bad), violations, note, trivial))
+            note = ""
+            if distinct <= width:
+                note = (f"only {distinct} distinct rows for {len(core)} columns: relations like "
+                        "this one are forced by the small number of rows")
+            found.append(_relation_from_vector(vector, core, n, (), note))
+        equalities += [_as_equality(r) for r in found]
+        breakers = _breakers_allowed(max_breakers, n) if robust else 0
+        if breakers > 0 and n > width:
+            robust_found = _robust_relations(matrix, core, base, row_ids, every_row, breakers,
+                                             rng)
 
+    partial_found: list[Relation] = []
+    for name in partial:
+        rows = np.flatnonzero(~columns[name][1])
+        where = f" on the {len(rows)} rows where '{name}' is present"
+        repeat = _repeat(columns, name, rows, core)
+        if repeat is not None:
+            trivial.append(repeat)
+            continue
+        matrix = _Matrix([columns[c][0] for c in core + [name]], rows)
+        lattice = _kernel_on(matrix, np.arange(len(rows)), rng)
+        # Relations among the other columns alone (on these rows) are not news about this one.
+        unit = [0] * len(core) + [1, 0]
+        tracker = _RankTracker()
+        for vector in _restrict([list(v) for v in lattice], unit):
+            tracker.add(vector)
+        for vector in lattice:
+            if vector[len(core)] and tracker.add(vector):
+                partial_found.append(_relation_from_vector(
+                    vector, core + [name], len(rows), (), f"holds{where}"))
+    if partial:
+        notes.append(
+            "columns with missing values were searched on the rows where they are present: "
+            + ", ".join(partial)
+        )
     ordered = (
-        [r for r in found]
+        found
+        + partial_found
         + [r for r in robust_found if not r.trivial]
-        + [r for r in relations if r.trivial]
+        + trivial
         + [r for r in robust_found if r.trivial]
     )
-    return ordered, equalities
+    return ordered, equalities, repeated
 
 
 # --------------------------------------------------------------------------------------------
@@ -932,12 +1024,27 @@ def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
 
 
 class _BoundColumn:
-    """One column for the bound search: its range, its number of values, its grid codes."""
+    """One column for the bound search: its range, its number of values, its grid codes.
+
+    A column of fractions is multiplied by the least common multiple of its denominators
+    (``scale``) so that hulls are computed in integers; bounds are turned back into the
+    table's units before anyone sees them.
+    """
 
     def __init__(self, name, values, missing):
         self.name = name
-        self.values = values
         self.missing = missing
+        self.scale = 1
+        self.integer = values.dtype != object or all(
+            isinstance(v, int) for v in values[~missing].tolist())
+        if values.dtype == object:
+            present = values[~missing].tolist()
+            scale = math.lcm(*(Fraction(v).denominator for v in present)) if present else 1
+            scaled = [int(v * scale) for v in values.tolist()]
+            if all(abs(v) < _INT64_SAFE for v in scaled):
+                values = np.array(scaled, dtype=np.int64)
+                self.scale = scale
+        self.values = values
         self.exact_int = values.dtype != object
         self.codes = None
         present = values[~missing]
@@ -955,8 +1062,7 @@ class _BoundColumn:
             listed = present.tolist()
             self.low, self.high = min(listed), max(listed)
             self.distinct = len(set(listed))
-        self.integer = self.exact_int or all(
-            isinstance(v, int) for v in present.tolist())
+        self.range = (Fraction(self.low) / self.scale, Fraction(self.high) / self.scale)
 
 
 class _Points:
@@ -1154,10 +1260,27 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
     return -result.fun <= float(constant) + 1e-7 * (1 + abs(float(constant)))
 
 
-def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, note=""):
-    """Bound sum(coefs*columns) <= constant, judged on the distinct points."""
+def _in_table_units(coefs, constant, scales) -> tuple[list[int], Fraction]:
+    """A bound on scaled columns, written on the table's own columns (coefficients coprime)."""
+    shown, divisor = _unscaled(coefs, scales)
+    return shown, Fraction(constant) / divisor
+
+
+def _unscaled(coefs, scales) -> tuple[list[int], int]:
+    shown = [int(c) * s for c, s in zip(coefs, scales)]
+    divisor = math.gcd(*shown)
+    return [c // divisor for c in shown], divisor
+
+
+def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
+    """Bound sum(coefs*columns) <= constant, judged on the distinct points.
+
+    ``coefs`` and ``constant`` are in the points' (scaled) units; ``scales`` turn them back.
+    """
     combined = _combine(coefs, points.coords)
     constant = Fraction(constant)
+    shown_coefs, divisor = _unscaled(coefs, scales)
+    shown_constant = constant / divisor
     margin = _near_margin(constant - Fraction(combined.min().item()
                                               if combined.dtype != object else combined.min()),
                           integer)
@@ -1172,7 +1295,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, note=
     near = int(points.weights[(slack > 0) & (slack <= limit)].sum())
     attaining_rows = points.rows_at(attained)
     breaking_rows = points.rows_at(broken)
-    terms, relation, shown = _oriented(list(zip(names, coefs)), constant)
+    terms, relation, shown = _oriented(list(zip(names, shown_coefs)), shown_constant)
     if len(attaining_rows) > MAX_LISTED_ROWS:
         note = (note + "; " if note else "") + (
             f"the first {MAX_LISTED_ROWS} of {len(attaining_rows)} attaining rows are listed")
@@ -1183,7 +1306,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, note=
         attained_by=tuple(row_ids[attaining_rows[:MAX_LISTED_ROWS]].tolist()),
         attained_count=int(len(attaining_rows)),
         near=near,
-        near_margin=margin,
+        near_margin=margin / divisor,
         holds_on=int(points.weights.sum() - points.weights[broken].sum()),
         violations=tuple(row_ids[breaking_rows].tolist()),
         note=note,
@@ -1195,26 +1318,28 @@ def _pair_bounds(cx, cy, row_ids, facts, *, max_coefficient, breakers, edges_out
     if len(points) < 3:
         return []
     integer = cx.integer and cy.integer
+    names, scales = (cx.name, cy.name), (cx.scale, cy.scale)
     x, y = points.coords
     hull = _exact_hull(_extremes(x, y))
     edges = _edges(hull)
-    edges_out.extend(({cx.name: a, cy.name: b}, c) for a, b, c in edges)
     found = []
     for a, b, c in edges:
-        if a == 0 or b == 0 or max(abs(a), abs(b)) > max_coefficient:
+        shown, constant = _in_table_units((a, b), c, scales)
+        edges_out.append((dict(zip(names, shown)), constant))
+        if a == 0 or b == 0 or max(abs(v) for v in shown) > max_coefficient:
             continue
-        if _implied({cx.name: a, cy.name: b}, c, facts):
+        if _implied(dict(zip(names, shown)), constant, facts):
             continue
-        found.append(_make_bound((cx.name, cy.name), (a, b), c, points, row_ids, integer))
+        found.append(_make_bound(names, (a, b), c, points, row_ids, integer, scales))
     if breakers > 0 and edges:
-        found += _peeled_bounds((cx.name, cy.name), points, row_ids, hull, edges, facts,
+        found += _peeled_bounds(names, scales, points, row_ids, hull, edges, facts,
                                 max_coefficient=max_coefficient, breakers=breakers,
                                 integer=integer)
     return found
 
 
-def _peeled_bounds(names, points, row_ids, hull, edges, facts, *, max_coefficient, breakers,
-                   integer):
+def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_coefficient,
+                   breakers, integer):
     """Bounds that all but a few rows obey: peel off thinly populated hull corners.
 
     A corner held by few rows is set aside (up to ``breakers`` rows in all) and the hull of
@@ -1248,19 +1373,20 @@ def _peeled_bounds(names, points, row_ids, hull, edges, facts, *, max_coefficien
         # The corner's column may hold other points: its new least and greatest join.
         left = np.flatnonzero(alive[start:stop]) + start
         if len(left):
-            candidates.add((x[left[0]].item(), y[left[0]].item()))
-            candidates.add((x[left[-1]].item(), y[left[-1]].item()))
+            candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
+            candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
         current = _hull_2d(candidates)
         if len(current) < 3:
             break
         for a, b, c in _edges(current):
-            if (a, b, c) in known or a == 0 or b == 0 or max(abs(a), abs(b)) > max_coefficient:
+            shown, constant = _in_table_units((a, b), c, scales)
+            if (a, b, c) in known or a == 0 or b == 0 or max(map(abs, shown)) > max_coefficient:
                 continue
             known.add((a, b, c))
             on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
-            if on_edge < 3 or _implied(dict(zip(names, (a, b))), c, facts):
+            if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
                 continue
-            bound = _make_bound(names, (a, b), c, points, row_ids, integer)
+            bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
             if 0 < len(bound.violations) <= breakers:
                 note = f"holds on all but {len(bound.violations)} rows"
                 found.append(replace(bound, note=(bound.note + "; " if bound.note else "") + note))
@@ -1271,6 +1397,8 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient):
     from scipy.spatial import ConvexHull, QhullError
 
     names = [c.name for c in columns]
+    scales = [c.scale for c in columns]
+    integer = all(c.integer for c in columns)
     points = _distinct_points(columns)
     if len(points) < 4 or len(points) > MAX_TRIPLE_POINTS:
         return []
@@ -1296,17 +1424,63 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient):
     outward = (normals * equations[:, :3]).sum(axis=1) >= 0
     normals[~outward] *= -1
     # A zero coefficient means a bound in two columns (or a range), found with the pairs.
-    small = (normals != 0).all(axis=1) & (np.abs(normals).max(axis=1) <= max_coefficient)
+    small = (normals != 0).all(axis=1) & (
+        np.abs(normals * np.array(scales)).max(axis=1) <= max_coefficient)
     faces = np.column_stack([normals[small], (normals[small] * origin[small]).sum(axis=1)])
     found = []
     for face in np.unique(faces, axis=0).tolist():
         normal, constant = face[:3], face[3]
+        shown, shown_constant = _in_table_units(normal, constant, scales)
+        if max(map(abs, shown)) > max_coefficient:
+            continue
         if (_combine(normal, points.coords) > constant).any():
             continue  # a floating point facet that is not exact
-        if _implied(dict(zip(names, normal)), Fraction(constant), facts):
+        if _implied(dict(zip(names, shown)), shown_constant, facts):
             continue
-        found.append(_make_bound(names, tuple(normal), constant, points, row_ids, True))
+        found.append(_make_bound(names, tuple(normal), constant, points, row_ids, integer,
+                                 scales))
     return found
+
+
+class _Reducer:
+    """Reduces a bound modulo the exact relations, so that two bounds which say the same thing
+    once the relations are used (through a copied column, say) compare equal."""
+
+    def __init__(self, names: list[str], equalities) -> None:
+        self.index = {name: i for i, name in enumerate(names)}
+        self.rows: list[tuple[int, list[Fraction]]] = []
+        for coefs, constant in equalities:
+            if not set(coefs) <= set(self.index):
+                continue
+            vector = self._vector(coefs, constant)
+            vector = self._reduce(vector)
+            pivot = next((i for i, x in enumerate(vector[:-1]) if x), None)
+            if pivot is None:
+                continue
+            vector = [x / vector[pivot] for x in vector]
+            self.rows = [(p, [a - r[pivot] * b for a, b in zip(r, vector)]) for p, r in self.rows]
+            self.rows.append((pivot, vector))
+
+    def _vector(self, coefs: dict, constant) -> list[Fraction]:
+        vector = [Fraction(0)] * (len(self.index) + 1)
+        for name, coef in coefs.items():
+            vector[self.index[name]] = Fraction(coef)
+        vector[-1] = -Fraction(constant)
+        return vector
+
+    def _reduce(self, vector: list[Fraction]) -> list[Fraction]:
+        for pivot, row in self.rows:
+            if vector[pivot]:
+                vector = [a - vector[pivot] * b for a, b in zip(vector, row)]
+        return vector
+
+    def key(self, bound: Bound) -> tuple:
+        sign = 1 if bound.relation == "<=" else -1
+        vector = self._reduce(self._vector({n: sign * c for n, c in bound.terms},
+                                           sign * bound.constant))
+        # Only a positive factor keeps the direction of an inequality.
+        size = max((abs(x) for x in vector), default=Fraction(1)) or Fraction(1)
+        return tuple(x / size for x in vector)
 
 
 def _bound_rank(bound: Bound):
@@ -1340,7 +1514,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
     usable = list(bound_columns)
     if len(usable) < 2:
         return []
-    ranges = {name: (c.low, c.high) for name, c in bound_columns.items()}
+    ranges = {name: c.range for name, c in bound_columns.items()}
     for name, (values, missing) in columns.items():
         if name not in ranges and (~missing).any():
             present = values[~missing].tolist()
@@ -1378,6 +1552,15 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 "bounds (too costly on a table this size)"
             )
     found.sort(key=_bound_rank)
+    reducer = _Reducer(list(columns), equalities)
+    seen: set = set()
+    distinct = []
+    for bound in found:
+        key = reducer.key(bound)
+        if key not in seen:
+            seen.add(key)
+            distinct.append(bound)
+    found = distinct
     if len(found) > MAX_BOUNDS:
         notes.append(f"the best {MAX_BOUNDS} of {len(found)} bounds are reported")
     return found[:MAX_BOUNDS]
@@ -1461,16 +1644,18 @@ def find_relations(
     columns = {name: _exact_column(name, values) for name, values in exact_columns.items()}
     names = list(columns)
 
-    relations, equalities = ([], [])
+    relations, equalities, repeated = [], [], set()
     if names and n:
-        relations, equalities = _exact_relations(
+        relations, equalities, repeated = _exact_relations(
             columns, names, row_ids, robust=robust, max_breakers=max_breakers, rng=rng,
             notes=notes)
 
     approximate: list[Relation] = []
     if real_columns and n:
         data = {name: np.asarray(values, dtype=np.float64) for name, values in real_columns.items()}
-        extra = [name for name in names if name not in data]
+        # Exact columns join to relate the real ones to them; one with missing values would
+        # take those rows out of the whole search, so it stays out.
+        extra = [name for name in names if name not in data and not columns[name][1].any()]
         room = MAX_APPROXIMATE_COLUMNS - len(data)
         if room < len(extra):
             notes.append(
@@ -1489,8 +1674,14 @@ def find_relations(
 
     found_bounds: list[Bound] = []
     if bounds and n:
+        # A constant column, a copy of another or a multiple of one (plus a constant) would
+        # only repeat bounds.
+        for coefs, _ in equalities:
+            if len(coefs) == 2:
+                repeated.add(max(coefs, key=names.index))
         found_bounds = _sharp_bounds(
-            columns, names, row_ids, equalities, max_coefficient=int(max_coefficient),
+            columns, [name for name in names if name not in repeated], row_ids, equalities,
+            max_coefficient=int(max_coefficient),
             robust=robust, max_breakers=max_breakers, triples=triples, notes=notes)
 
     return RelationsResult(
@@ -1507,6 +1698,7 @@ _EXACT_DTYPES = ("integer", "big integer", "rational", "boolean")
 _NUMERIC_ROLES = ("invariant", "flag")
 
 
+@dataclass(frozen=True, kw_only=True)
 class RelationsStep:
     """Exact relations, near relations and sharp bounds among a table's numeric invariants.
 
@@ -1523,43 +1715,20 @@ class RelationsStep:
         seed: seed of the random subsets of rows.
 
     ``run(table)`` returns a :class:`RelationsResult`.
+
+    >>> RelationsStep(columns=["vertices", "edges", "faces"], bounds=False).kind
+    'relations'
     """
 
-    kind = "relations"
-
-    def __init__(
-        self,
-        *,
-        columns: Sequence[str] | None = None,
-        robust: bool = True,
-        max_breakers: float = 0.01,
-        max_coefficient: int = 6,
-        bounds: bool = True,
-        triples: bool = True,
-        tolerance: float = 1e-9,
-        seed: int = 0,
-    ) -> None:
-        self.columns = columns
-        self.robust = robust
-        self.max_breakers = max_breakers
-        self.max_coefficient = max_coefficient
-        self.bounds = bounds
-        self.triples = triples
-        self.tolerance = tolerance
-        self.seed = seed
-
-    def settings(self) -> dict:
-        """The settings as plain JSON data (for a study file and the result cache)."""
-        return {
-            "columns": None if self.columns is None else list(self.columns),
-            "robust": self.robust,
-            "max_breakers": self.max_breakers,
-            "max_coefficient": self.max_coefficient,
-            "bounds": self.bounds,
-            "triples": self.triples,
-            "tolerance": self.tolerance,
-            "seed": self.seed,
-        }
+    columns: tuple[str, ...] | list[str] | None = None
+    robust: bool = True
+    max_breakers: float = 0.01
+    max_coefficient: int = 6
+    bounds: bool = True
+    triples: bool = True
+    tolerance: float = 1e-9
+    seed: int = 0
+    kind: ClassVar[str] = "relations"
 
     def _chosen(self, table) -> list[str]:
         all_names = [info.name for info in table.columns]
@@ -1608,8 +1777,6 @@ class RelationsStep:
                     exact[name] = values.astype(np.int64)
                 else:
                     exact[name] = table.exact(name)
-            elif dtype == "boolean":
-                exact[name] = [None if v is None else int(v) for v in table.exact(name)]
             else:
                 exact[name] = table.exact(name)
         return find_relations(
