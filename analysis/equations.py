@@ -914,6 +914,20 @@ def _snap_direction(
     return found
 
 
+def _description_length(violations: int, candidate, n_rows: int, n_columns: int) -> float:
+    """Bits to state the equation and name the rows that break it.
+
+    Naming a violating row costs log2(n) bits; a term costs the bits naming its feature, a
+    sign and its coefficient. Ranking by this total prefers fewer violations, except that a
+    term (or a large coefficient) must pay for itself by fixing rows: a 3-term equation with
+    coefficients near 100 that fixes one mislabelled row loses to ``a + b + c <= 14``.
+    """
+    bits = violations * math.log2(max(n_rows, 2))
+    for _, coef in candidate:
+        bits += math.log2(max(n_columns, 2)) + 1 + math.log2(1 + abs(coef))
+    return bits
+
+
 def _height(candidate) -> tuple[int, int, int]:
     coefficients = [abs(c) for _, c in candidate]
     return len(candidate), max(coefficients), sum(coefficients)
@@ -1034,9 +1048,10 @@ class _Evaluation:
     gap: tuple[Fraction, Fraction]
     inexact_features: list[str] = field(default_factory=list)
 
-    def key(self):
+    def key(self, n_rows: int, n_columns: int):
         constant = self.constant
         return (
+            round(_description_length(self.violations, self.candidate, n_rows, n_columns), 9),
             self.violations,
             *_height(self.candidate),
             max(abs(constant.numerator), constant.denominator),
@@ -1078,14 +1093,21 @@ class _SearchResult:
     finalists: int
 
 
-def _shortlist(candidates: list, violations: np.ndarray, size: int) -> list[int]:
+def _shortlist(
+    candidates: list, violations: np.ndarray, size: int, n_rows: int, n_columns: int
+) -> list[int]:
     """Indices of the best candidates, plus the best one of each number of terms."""
-    ranked = sorted(range(len(candidates)), key=lambda i: (violations[i], _height(candidates[i])))
+
+    def rank(i):
+        cost = _description_length(int(violations[i]), candidates[i], n_rows, n_columns)
+        return round(cost, 9), violations[i], _height(candidates[i])
+
+    ranked = sorted(range(len(candidates)), key=rank)
     chosen = ranked[: max(1, size - 4)]
     best_by_terms: dict[int, int] = {}
     for i in ranked:
         best_by_terms.setdefault(len(candidates[i]), i)
-    for i in sorted(best_by_terms.values(), key=lambda i: (violations[i], _height(candidates[i]))):
+    for i in sorted(best_by_terms.values(), key=rank):
         if i not in chosen and len(chosen) < size:
             chosen.append(i)
     return chosen
@@ -1122,20 +1144,21 @@ def _search(
     # sample; then the few best go to the exact check on every row.
     subsample = _stratified_rows(sample_positive, _RANKING_ROWS, np.random.default_rng(0))
     first = _sample_violations(matrix[subsample], sample_positive[subsample], candidates)
-    shortlist = _shortlist(candidates, first, _SHORTLIST)
+    shortlist = _shortlist(candidates, first, _SHORTLIST, subsample.size, space.size)
     if subsample.size < sample.size:
         kept = [candidates[i] for i in shortlist]
         second = _sample_violations(matrix, sample_positive, kept)
-        chosen = [shortlist[i] for i in _shortlist(kept, second, _FINALISTS)]
+        finalists = _shortlist(kept, second, _FINALISTS, sample.size, space.size)
+        chosen = [shortlist[i] for i in finalists]
     else:
-        chosen = _shortlist(candidates, first, _FINALISTS)
+        chosen = _shortlist(candidates, first, _FINALISTS, sample.size, space.size)
     evaluations = [_evaluate(space, candidates[i], positive) for i in chosen]
     evaluations = [e for e in evaluations if e is not None]
     if not evaluations:
         raise StepError(
             "no equation could be formed: every candidate gives the same value on every row."
         )
-    best = min(evaluations, key=lambda e: (e.key(), e.candidate))
+    best = min(evaluations, key=lambda e: (e.key(space.n_rows, space.size), e.candidate))
     return _SearchResult(best, len(candidates), len(evaluations))
 
 
@@ -1266,8 +1289,11 @@ def find_linear_equation(
     Sparse separators are fitted on standardized features (an L1-logistic path, lasso entry
     order, 1-norm support vector machines as linear programs, least-squares refits), their
     normals rounded to small integers over a ladder of denominators, and each rounded normal
-    given its best constant on every row. The winner has the fewest violations on all rows;
-    ties go to fewer terms, then smaller coefficients and constant.
+    given its best constant on every row. The winner has the shortest description: each
+    violating row costs log2(n) bits, each term the bits of its feature, sign and coefficient,
+    so fewer violations win unless an extra term or a large coefficient fixes only a row or
+    two (which is how noise gets fitted); ties go to fewer violations, fewer terms, then
+    smaller coefficients and constant.
 
     Example: on integer columns a, b, c with labels ``2a - b >= 3`` the result's ``text`` is
     ``"2*a - b >= 3"`` with 0 violations.
@@ -1332,7 +1358,8 @@ def find_linear_equation(
     method = (
         "sparse linear separators (L1-logistic path, lasso order, 1-norm support vector machine "
         "as a linear program) on standardized features, normals rounded to rationals with "
-        f"denominators up to {max_denominator}, constant chosen exactly on all rows"
+        f"denominators up to {max_denominator}, constant chosen exactly on all rows, "
+        "shortest description (terms plus violating rows) kept"
     )
     return _make_equation(
         LinearEquation,
