@@ -1,0 +1,123 @@
+"""Small helpers that turn table values and numbers into text a reader takes in at a glance."""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+
+# Widest a cell of a listed row is shown before it is shortened.
+CELL_WIDTH = 80
+
+
+def number(value, digits: int = 3) -> str:
+    """A number for reading: integers as they are, reals with a few significant digits."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}".replace(",", "\u2009") if abs(int(value)) >= 10_000 \
+            else str(int(value))
+    if isinstance(value, Fraction):
+        return str(value)
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if not math.isfinite(value):
+        return "n/a"
+    if value == 0:
+        return "0"
+    if abs(value) >= 1e5 or abs(value) < 1e-3:
+        return f"{value:.{digits}g}"
+    return f"{value:.{digits}g}" if abs(value) < 1 else f"{value:,.{max(digits - 1, 0)}f}"
+
+
+def cell(value) -> object:
+    """A table cell as something a data grid shows faithfully (exact numbers as text)."""
+    if value is None:
+        return None
+    if isinstance(value, float) and math.isnan(value):
+        return None
+    if isinstance(value, np.ndarray):
+        text = np.array2string(value, separator=",", threshold=50, max_line_width=10_000)
+        text = " ".join(text.split())
+        return text if len(text) <= CELL_WIDTH else text[: CELL_WIDTH - 1] + "\u2026"
+    if isinstance(value, Fraction):
+        return str(value)
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 2**53:
+        return str(value)
+    if isinstance(value, str) and len(value) > CELL_WIDTH:
+        return value[: CELL_WIDTH - 1] + "\u2026"
+    return value
+
+
+def rows_frame(table, row_ids, columns: list[str] | None = None) -> pd.DataFrame:
+    """The rows of ``table`` with the given ids, in that order, ready to show.
+
+    The id column (or the row number) comes first; ``columns`` picks the rest (default all).
+    """
+    ids = list(row_ids)
+    if not ids:
+        return pd.DataFrame()
+    all_ids = table.row_ids
+    position = {_key(v): i for i, v in enumerate(all_ids)}
+    rows = [position[_key(v)] for v in ids if _key(v) in position]
+    names = [c.name for c in table.columns if c.name != table.id_column]
+    if columns is not None:
+        names = [n for n in columns if n in names]
+    frame = table.frame.iloc[rows][names]
+    shown = pd.DataFrame({name: [cell(v) for v in frame[name].tolist()] for name in names})
+    label = table.id_column or "row"
+    shown.insert(0, label, [cell(all_ids[r]) for r in rows])
+    return shown
+
+
+def _key(value):
+    """Row ids from JSON, numpy or the table compare equal when they name the same row."""
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
+
+
+def plural(count: int, word: str, many: str | None = None) -> str:
+    return f"{count} {word}" if count == 1 else f"{count} {many or word + 's'}"
+
+
+def _latex_name(name: str) -> str:
+    escaped = name.replace("\\", r"\backslash ").replace("_", r"\_").replace("{", r"\{") \
+        .replace("}", r"\}").replace("#", r"\#").replace("%", r"\%").replace("&", r"\&") \
+        .replace("$", r"\$").replace("^", r"\^{}").replace("~", r"\~{}")
+    return r"\mathrm{" + escaped + "}"
+
+
+def _latex_number(value) -> str:
+    value = Fraction(value)
+    if value < 0:
+        return "-" + _latex_number(-value)
+    if value.denominator == 1:
+        return str(value.numerator)
+    return r"\tfrac{" + str(value.numerator) + "}{" + str(value.denominator) + "}"
+
+
+def linear_latex(terms, relation: str, constant) -> str:
+    """LaTeX for ``sum(coef * column) relation constant`` with exact rational coefficients.
+
+    ``terms`` are (column name, coefficient) pairs, as relations and bounds give them.
+    """
+    parts = []
+    for position, (name, coef) in enumerate(terms):
+        coef = Fraction(coef)
+        size = abs(coef)
+        body = _latex_name(name) if size == 1 else f"{_latex_number(size)}\\,{_latex_name(name)}"
+        if position == 0:
+            parts.append(body if coef > 0 else f"-{body}")
+        else:
+            parts.append(f"{'+' if coef > 0 else '-'} {body}")
+    symbol = {"=": "=", "<=": r"\leq", ">=": r"\geq"}.get(relation, relation)
+    return f"{' '.join(parts) or '0'} {symbol} {_latex_number(constant)}"

@@ -1,0 +1,106 @@
+"""Drawing a step's figures: plotly charts that list the rows a reader selects, and saving
+them as pictures (PNG from the chart's own camera button; SVG and PDF through kaleido when a
+chromium it can drive is installed)."""
+
+from __future__ import annotations
+
+import re
+
+import streamlit as st
+
+from analysis.figures import figures_for
+from app import display
+
+
+def chart_config(filename: str) -> dict:
+    """plotly's toolbar: keep the camera (toImage) for PNG, drop the plotly logo."""
+    return {
+        "displaylogo": False,
+        "toImageButtonOptions": {"format": "png", "filename": filename, "scale": 2},
+    }
+
+
+def slug(text: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "-", text.lower()).strip("-") or "figure"
+
+
+@st.cache_resource(show_spinner=False)
+def _vector_export_check() -> str | None:
+    """None when kaleido can write SVG here, else the reason it cannot (checked once)."""
+    try:
+        import plotly.graph_objects as go
+
+        go.Figure(go.Scatter(x=[0, 1], y=[0, 1])).to_image(format="svg")
+    except Exception as exc:  # noqa: BLE001 - any failure means: no vector export here
+        reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        return reason[:300]
+    return None
+
+
+def vector_export_problem() -> str | None:
+    return _vector_export_check()
+
+
+def show_figures(result, table, key: str, *, vector: bool = False, **options) -> None:
+    """Draw every figure of ``result``; scatter plots list the rows the reader selects."""
+    try:
+        figures = figures_for(result, table, **options)
+    except Exception as exc:  # noqa: BLE001 - a picture that fails must not hide the numbers
+        st.error(f"The picture could not be drawn ({type(exc).__name__}: {exc}). The numbers "
+                 "below are unaffected.")
+        return
+    for number, (title, figure) in enumerate(figures):
+        show_figure(figure, f"{key}.fig{number}", title=title, table=table,
+                    vector=vector, hover=options.get("hover"))
+
+
+def _selectable(figure) -> bool:
+    return any(getattr(trace, "customdata", None) is not None for trace in figure.data)
+
+
+def show_figure(figure, key: str, *, title: str, table=None, vector: bool = False,
+                hover: list[str] | None = None) -> None:
+    name = slug(title)
+    if table is not None and _selectable(figure):
+        event = st.plotly_chart(figure, key=key, on_select="rerun", theme=None,
+                                selection_mode=("points", "box", "lasso"),
+                                config=chart_config(name))
+        _list_selected(event, table, key, hover)
+    else:
+        st.plotly_chart(figure, key=key, theme=None, config=chart_config(name))
+    if vector:
+        left, right, _ = st.columns([1, 1, 4])
+        left.download_button("SVG", data=lambda f=figure: f.to_image(format="svg"),
+                             file_name=f"{name}.svg", mime="image/svg+xml",
+                             key=f"{key}.svg", icon=":material/download:")
+        right.download_button("PDF", data=lambda f=figure: f.to_image(format="pdf"),
+                              file_name=f"{name}.pdf", mime="application/pdf",
+                              key=f"{key}.pdf", icon=":material/download:")
+
+
+def selected_ids(event) -> list:
+    """Row ids of the selected points (the first entry of each point's customdata)."""
+    if not event:
+        return []
+    try:
+        points = event["selection"]["points"]
+    except (KeyError, TypeError):
+        return []
+    ids = []
+    for point in points:
+        data = point.get("customdata")
+        if isinstance(data, (list, tuple)):
+            data = data[0] if data else None
+        if data is not None and data not in ids:
+            ids.append(data)
+    return ids
+
+
+def _list_selected(event, table, key: str, hover: list[str] | None) -> None:
+    ids = selected_ids(event)
+    if not ids:
+        st.caption("Click a point, or drag a box or lasso, to list those objects here.")
+        return
+    st.markdown(f"**{display.plural(len(ids), 'object')} selected**")
+    st.dataframe(display.rows_frame(table, ids), hide_index=True, key=f"{key}.rows",
+                 height=min(38 + 35 * len(ids), 360))

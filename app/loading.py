@@ -1,0 +1,142 @@
+"""Putting a table or a study on the page: samples, uploads, opened study files."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from pathlib import Path
+
+from analysis.errors import ScoutError, StudyError
+from analysis.steps import STEP_KINDS, step_class
+from analysis.study import (
+    Study,
+    TableSettings,
+    add_step,
+    apply_table_settings,
+    study_from_json,
+)
+from analysis.table import read_table
+from app import state
+
+SAMPLES = Path(__file__).resolve().parent.parent / "sample_tables"
+SAMPLE_SUFFIXES = (".csv", ".tsv", ".json", ".jsonl", ".parquet")
+FIRST_SAMPLE = "lattice_polygons.csv"
+# What each sample is about, shown under the sample picker.
+SAMPLE_NOTES = {
+    "lattice_polygons.csv": "convex lattice polygons: areas, lattice points, reflexivity",
+    "graphs_up_to_7.csv": "graphs on up to 7 vertices: degrees, cycles, spectra, adjacency",
+    "quadratic_fields.csv": "quadratic fields: discriminants and class numbers",
+    "symmetric_matrices.json": "integer symmetric matrices: signature and definiteness",
+    "elliptic_curves.csv": "elliptic curves over small prime fields: point counts",
+}
+# The study the page opens with on the first sample: a picture and an equation.
+FIRST_TARGET = "is_reflexive"
+UPLOAD_TYPES = ["csv", "tsv", "tab", "txt", "json", "jsonl", "ndjson", "parquet", "pq"]
+
+
+def available_kinds() -> list[str]:
+    """The step kinds whose modules are installed, in study order."""
+    kinds = []
+    for kind in STEP_KINDS:
+        try:
+            cls = step_class(kind)
+        except (ImportError, AttributeError, ScoutError):
+            continue
+        if dataclasses.is_dataclass(cls):
+            kinds.append(kind)
+    return kinds
+
+
+def sample_names() -> list[str]:
+    """The sample tables shipped in sample_tables/, the opening one first."""
+    names = sorted(p.name for p in SAMPLES.iterdir()
+                   if p.suffix in SAMPLE_SUFFIXES and p.is_file())
+    if FIRST_SAMPLE in names:
+        names.remove(FIRST_SAMPLE)
+        names.insert(0, FIRST_SAMPLE)
+    return names
+
+
+def load_bytes(name: str, data: bytes, *, sample: bool) -> state.TableState:
+    """Read a table (TableError when it cannot be read); the bytes are kept unchanged."""
+    base = read_table(data, name)
+    return state.TableState(name=name, data=data, base=base, sample=sample, table=base,
+                            settings=TableSettings(id_column=base.id_column))
+
+
+def load_sample(name: str) -> state.TableState:
+    return load_bytes(name, (SAMPLES / name).read_bytes(), sample=True)
+
+
+def opening_study(table) -> Study:
+    """A short first study: overview, PCA, and for a table with a natural flag to explain,
+    a separator for it; relations and bounds for the opening sample."""
+    study = Study(table=table.name, title=f"Study of {table.name}", table_digest=table.digest,
+                  table_settings=TableSettings(id_column=table.id_column))
+    target = FIRST_TARGET if table.name == FIRST_SAMPLE else None
+    kinds = available_kinds()
+    plan = [("overview", {}), ("projection", {"method": "pca", "target": target})]
+    if target is not None:
+        study = dataclasses.replace(study, title=f"What decides {target}?")
+        plan += [("separator", {"target": target}), ("relations", {})]
+    for kind, params in plan:
+        if kind in kinds:
+            study = add_step(study, kind, params)
+    return study
+
+
+def put_table(table_state: state.TableState) -> None:
+    """Show a newly loaded table with a fresh short study, run at once."""
+    state.set_table(table_state)
+    study = opening_study(table_state.base)
+    state.page().focus = {"target": _first_target(study)}
+    state.start_study(study)
+
+
+def _first_target(study: Study):
+    for step in study.steps:
+        if step.params.get("target"):
+            return step.params["target"]
+    return None
+
+
+def read_study(name: str, data: bytes) -> Study:
+    """A study from the bytes of a .study.json file (StudyError with the file name)."""
+    if len(data) > 10 * 1024**2:
+        raise StudyError(f"{name}: too big to be a study file; did you mean to load it as "
+                         "a table?")
+    try:
+        parsed = json.loads(data.decode("utf-8-sig"))
+    except UnicodeDecodeError:
+        raise StudyError(f"{name}: not UTF-8 text; a study is a JSON file.") from None
+    except json.JSONDecodeError as exc:
+        raise StudyError(f"{name}, line {exc.lineno}, column {exc.colno}: not valid JSON "
+                         f"({exc.msg}). A study is a .study.json file saved from this page."
+                         ) from None
+    return study_from_json(parsed, source=name)
+
+
+def open_study(study: Study) -> str | None:
+    """Put an opened study on the page, with its own table when it can be found.
+
+    The study names its table: the loaded table when the name or digest agrees, else a
+    sample of that name. Otherwise the study runs on the loaded table, and the returned
+    sentence says so.
+    """
+    current = state.table_state()
+    note = None
+    if current is None or (study.table != current.name
+                           and study.table_digest != current.base.digest):
+        if study.table in sample_names():
+            state.set_table(load_sample(study.table))
+        elif current is not None:
+            note = (f"This study was saved with the table {study.table}, which is not loaded; "
+                    f"it runs on {current.name}. Load {study.table} to repeat its numbers.")
+    table_state = state.table_state()
+    # Check the study's id column and roles against the table before it replaces the page.
+    table_state.table = table_state.base
+    table_state.settings = TableSettings(id_column=table_state.base.id_column)
+    apply_table_settings(study, table_state.base)
+    state.start_study(study)
+    state.page().focus = {"target": _first_target(study)}
+    return note

@@ -1,0 +1,47 @@
+"""The whole page: sidebar (table, share) and the study column."""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from analysis.errors import ScoutError
+from app import loading, share, state, study_section, table_section
+
+CAVEAT = ("A relation, bound or separating equation found here holds on the rows of this "
+          "table: it is a conjecture the table supports, not a proof.")
+
+
+def _first_visit() -> None:
+    """Open a sample table with its short study (run as the page draws): the one named in
+    the address (``?table=graphs_up_to_7.csv``), else the lattice polygons."""
+    if state.study() is not None:
+        return
+    name = st.query_params.get("table")
+    if name not in loading.sample_names():
+        name = loading.FIRST_SAMPLE
+    st.session_state["table.sample"] = name
+    try:
+        loading.put_table(loading.load_sample(name))
+    except ScoutError as exc:  # a broken installation, not the user's doing
+        st.error(f"The sample table could not be opened: {exc}")
+        st.stop()
+
+
+def main() -> None:
+    _first_visit()
+    with st.sidebar:
+        st.markdown("## Invariant Scout")
+        st.caption("Patterns in a table of computed invariants.")
+        table_section.table_picker()
+        st.divider()
+        share.share_panel()
+    table_section.table_header()
+    pg = state.page()
+    for notice in pg.notices:
+        kind, _, text = notice.partition(":")
+        if kind in ("focus",):
+            st.error(text)
+        elif kind == "study":
+            st.info(text)
+    st.caption(CAVEAT)
+    study_section.show_study()

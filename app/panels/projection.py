@@ -1,0 +1,92 @@
+"""The projection step: a 2-d picture of the objects (PCA, UMAP, t-SNE, LDA)."""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from app import display, settings
+from app.figure_view import show_figures
+
+METHODS = {"pca": "PCA", "umap": "UMAP", "tsne": "t-SNE", "lda": "LDA (separates the target)"}
+NO_COLOUR = "(one colour)"
+
+
+def describe(params: dict) -> str:
+    method = METHODS.get(params.get("method"), params.get("method")).split(" (")[0]
+    target = params.get("target")
+    return f"{method} of the feature columns" + (f", coloured by {target}" if target else "")
+
+
+def settings_panel(ctx: settings.StepContext) -> None:
+    left, right = st.columns(2)
+    settings.choice(ctx, "method", "Method", METHODS, container=left,
+                    help="PCA and LDA are linear: their axes are sums of features. UMAP and "
+                         "t-SNE keep neighbours together and distort distances.")
+    settings.column(ctx, "target", "Target", settings.label_columns(ctx.table),
+                    container=right, help="Colours the picture; LDA separates its classes.")
+    settings.feature_block(ctx)
+    method = ctx.params.get("method")
+    left, middle, right = st.columns(3)
+    settings.flag(ctx, "standardize", "Standardize features", container=left,
+                  help="Scale every feature to standard deviation 1, so that no invariant "
+                       "dominates by its units alone.")
+    if method == "umap":
+        settings.whole_number(ctx, "n_neighbors", "Neighbours (UMAP)", minimum=2,
+                              maximum=500, container=middle)
+    if method == "tsne":
+        settings.real_number(ctx, "perplexity", "Perplexity (t-SNE)", minimum=1.0,
+                             maximum=500.0, step=5.0, container=middle)
+    if method in ("umap", "tsne"):
+        settings.whole_number(ctx, "sample_size", "Most rows drawn (0: default)",
+                              optional=True, container=right,
+                              help="Larger tables are drawn from a random sample of this "
+                                   "size (default 50 000 for UMAP, 20 000 for t-SNE).")
+    settings.seed(ctx)
+
+
+def show(ctx: settings.StepContext, result) -> None:
+    table = ctx.table
+    facts = [f"{display.number(result.n_projected)} objects drawn"
+             + (f" (a random sample of {display.number(result.n_rows)})"
+                if result.sampled else ""),
+             f"{display.plural(len(result.features), 'feature')}"]
+    if result.explained_variance_ratio is not None:
+        shown = sum(result.explained_variance_ratio[:2])
+        facts.append(f"the picture shows {shown:.0%} of the variance")
+    st.markdown(" · ".join(facts))
+    colour, hover = view_options(ctx, table, result.target)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector,
+                 color_by=colour, hover=hover)
+    if result.loadings:
+        lines = []
+        for axis, index in (("x", 0), ("y", 1)):
+            top = sorted(result.loadings.items(), key=lambda kv: -abs(kv[1][index]))[:3]
+            words = ", ".join(f"`{name}` ({w[index]:+.2f})" for name, w in top)
+            lines.append(f"- {axis}, the {result.axis_titles[index]}, is mostly {words}")
+        st.markdown("\n".join(lines))
+    for note in result.notes:
+        st.caption(note)
+
+
+def view_options(ctx: settings.StepContext, table, target: str | None,
+                 extra: tuple[str, ...] = ()) -> tuple[str | None, list[str]]:
+    """Colour and hover choices for a scatter plot. They change the picture only, never the
+    numbers, so they are not step settings and never re-run the step."""
+    names = [c.name for c in table.columns if c.role not in ("array", "id")]
+    first = list(extra) + (["target"] if target else [])
+    options = [NO_COLOUR] + first + [n for n in names if n not in first]
+    key, hover_key = ctx.key("colour"), ctx.key("hover")
+    if st.session_state.get(key) not in options:
+        st.session_state[key] = first[0] if first else NO_COLOUR
+    invariants = [c.name for c in table.columns if c.role in ("invariant", "flag", "category")]
+    if hover_key not in st.session_state:
+        st.session_state[hover_key] = invariants[:4]
+    elif any(h not in names for h in st.session_state[hover_key]):
+        st.session_state[hover_key] = [h for h in st.session_state[hover_key] if h in names]
+    left, right = st.columns([1, 2])
+    left.selectbox("Colour by", options, key=key,
+                   format_func=lambda v: f"target ({target})" if v == "target" else v)
+    right.multiselect("Show on hover", names, key=hover_key,
+                      help="Besides the object's id.")
+    colour = st.session_state[key]
+    return (None if colour == NO_COLOUR else colour), list(st.session_state[hover_key])

@@ -1,0 +1,120 @@
+"""The relations step: exact linear relations and sharp bounds among the invariants, with the
+objects that attain or break them."""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from app import display, settings
+from app.figure_view import show_figures
+
+ROWS_SHOWN = 200
+NONE_CHOSEN = "(choose a relation or bound)"
+
+
+def describe(params: dict) -> str:
+    chosen = params.get("columns")
+    where = "every numeric invariant" if not chosen else ", ".join(chosen)
+    return f"exact relations and sharp bounds among {where}"
+
+
+def settings_panel(ctx: settings.StepContext) -> None:
+    table = ctx.table
+    numeric = [c.name for c in table.columns if c.role in ("invariant", "flag")
+               and c.dtype in ("integer", "big integer", "rational", "boolean", "real")]
+    defaults = [c for c in numeric if table.column(c).role in ("invariant", "flag")]
+    settings.columns(ctx, "columns", "Columns to search", numeric, defaults,
+                     help="Integer, rational and flag columns are searched exactly; real "
+                          "columns for relations that hold to a tolerance.")
+    left, middle, right = st.columns(3)
+    settings.flag(ctx, "robust", "Also relations a few rows break", container=left)
+    settings.flag(ctx, "bounds", "Sharp bounds in pairs", container=middle)
+    settings.flag(ctx, "triples", "and in triples", container=right)
+    left, middle, right = st.columns(3)
+    settings.real_number(ctx, "max_breakers", "Rows allowed to break (share, or a count)",
+                         minimum=0.0, maximum=1e6, step=0.01, container=left)
+    settings.whole_number(ctx, "max_coefficient", "Largest coefficient in a bound",
+                          minimum=1, maximum=100, container=middle)
+    settings.seed(ctx, container=right)
+
+
+def show(ctx: settings.StepContext, result) -> None:
+    table = ctx.table
+    exact = [r for r in result.relations if not r.trivial and not r.violations]
+    nearly = [r for r in result.relations if not r.trivial and r.violations]
+    trivial = [r for r in result.relations if r.trivial]
+    st.markdown(f"Searched {display.plural(len(result.columns), 'column')} over "
+                f"{display.plural(result.n_rows, 'object')}.")
+    st.markdown("##### Relations that hold on every object")
+    if exact:
+        for relation in exact:
+            _statement(relation.terms, "=", relation.constant, relation.text)
+    else:
+        st.caption("None among these columns.")
+    if nearly:
+        st.markdown("##### Relations that all but a few objects obey")
+        st.dataframe(pd.DataFrame([{
+            "relation": r.text, "holds on": r.holds_on, "broken by": len(r.violations),
+            "first objects breaking it": _ids(r.violations)} for r in nearly]),
+            hide_index=True, key=ctx.key("nearly"))
+    if result.approximate:
+        st.markdown("##### Relations among real columns, to a tolerance")
+        for relation in result.approximate:
+            st.code(relation.text, language=None)
+    if trivial:
+        st.caption("Also true, and uninteresting: " + "; ".join(
+            f"`{r.text}`" for r in trivial[:8]) + ("…" if len(trivial) > 8 else ""))
+    st.markdown("##### Sharp bounds")
+    if result.bounds:
+        st.dataframe(pd.DataFrame([{
+            "bound": b.text, "attained by": b.attained_count,
+            "close to it": b.near, "broken by": len(b.violations),
+            "some objects attaining it": _ids(b.attained_by)} for b in result.bounds]),
+            hide_index=True, key=ctx.key("bounds"))
+    else:
+        st.caption("None found (or the search for bounds is off).")
+    _rows_of_choice(ctx, table, result, nearly)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
+    st.caption(result.caveat)
+    for note in result.notes:
+        st.caption(note)
+
+
+def _statement(terms, relation: str, constant, text: str) -> None:
+    st.latex(display.linear_latex(terms, relation, constant))
+    st.code(text, language=None)
+
+
+def _ids(ids, limit: int = 6) -> str:
+    ids = list(ids)
+    shown = ", ".join(str(display.cell(v)) for v in ids[:limit])
+    return shown + (f", … ({len(ids)} in all)" if len(ids) > limit else "")
+
+
+def _rows_of_choice(ctx, table, result, nearly) -> None:
+    """The objects that attain a chosen bound or break a chosen relation, listed in full."""
+    choices = {}
+    for bound in result.bounds:
+        if bound.attained_by:
+            choices[f"attain {bound.text}"] = (bound.terms, bound.attained_by)
+        if bound.violations:
+            choices[f"break {bound.text}"] = (bound.terms, bound.violations)
+    for relation in nearly:
+        choices[f"break {relation.text}"] = (relation.terms, relation.violations)
+    if not choices:
+        return
+    key = ctx.key("rows_of")
+    options = [NONE_CHOSEN] + list(choices)
+    if st.session_state.get(key) not in options:
+        st.session_state[key] = NONE_CHOSEN
+    chosen = st.selectbox("List the objects that", options, key=key)
+    if chosen == NONE_CHOSEN:
+        return
+    terms, ids = choices[chosen]
+    columns = [name for name, _ in terms]
+    ids = list(ids)
+    if len(ids) > ROWS_SHOWN:
+        st.caption(f"The first {ROWS_SHOWN} of {len(ids)}.")
+    st.dataframe(display.rows_frame(table, ids[:ROWS_SHOWN], columns), hide_index=True,
+                 key=ctx.key("rows_of_table"))

@@ -1,0 +1,245 @@
+"""The separator step: is the target predictable from the other invariants, does that beat
+chance, and by what equation in the table's own invariants."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import streamlit as st
+
+from app import display, settings
+from app.figure_view import show_figures
+
+MODELS = {
+    "linear": "linear support vector machine",
+    "logistic": "logistic regression",
+    "lda": "linear discriminant analysis",
+    "rbf": "support vector machine, RBF kernel",
+    "poly2": "support vector machine, degree-2 polynomial kernel",
+}
+PENALTIES = {"l2": "l2 (all features)", "l1": "l1 (few features, shorter equations)"}
+KERNEL_APPROXIMATIONS = {
+    "exact": "exact (refuse past the row limit)",
+    "auto": "automatic",
+    "nystroem": "Nyström features",
+    "sample": "exact machine on a sample",
+}
+CONJECTURE = ("The equation holds on the rows of this table with the violations listed; "
+              "it is a conjecture the table supports, not a proof.")
+ROWS_SHOWN = 200
+
+
+def describe(params: dict) -> str:
+    model = MODELS.get(params.get("model"), params.get("model"))
+    return f"predict {params.get('target')} with a {model}"
+
+
+def settings_panel(ctx: settings.StepContext) -> None:
+    table = ctx.table
+    left, right = st.columns(2)
+    settings.column(ctx, "target", "Target", settings.label_columns(table), optional=False,
+                    container=left, help="The flag, category or invariant to predict.")
+    settings.choice(ctx, "model", "Separator", MODELS, container=right,
+                    help="Linear models and the degree-2 kernel give an equation in the "
+                         "table's own invariants.")
+    settings.feature_block(ctx)
+    left, middle, right = st.columns(3)
+    settings.real_number(ctx, "train_fraction", "Share of rows for training", minimum=0.05,
+                         maximum=0.95, step=0.05, container=left,
+                         help="The rest are test rows: every score is measured on them.")
+    settings.whole_number(ctx, "repeats", "Random splits", minimum=1, maximum=50,
+                          container=middle, help="Scores are averaged over this many splits.")
+    settings.whole_number(ctx, "permutations", "Permutations", minimum=0, maximum=5000,
+                          container=right,
+                          help="Shuffled targets for the p-value (0 skips the test).")
+    groups = [c.name for c in table.columns if c.role != "id"]
+    left, middle, right = st.columns(3)
+    settings.column(ctx, "groups", "Group column", groups, container=left,
+                    help="Rows with equal values (equal matrices up to permuting rows and "
+                         "columns, for an array column) stay on one side of every split.")
+    positive = _classes(table, ctx.params.get("target"))
+    if positive:
+        settings.choice(ctx, "positive_class", "Class the equation describes",
+                        {None: "chosen automatically", **{v: str(v) for v in positive}},
+                        container=middle)
+    settings.choice(ctx, "penalty", "Penalty", PENALTIES, container=right)
+    if st.toggle("More settings", key=ctx.key("more")):
+        left, middle, right = st.columns(3)
+        settings.real_number(ctx, "c", "C (inverse regularization)", minimum=1e-4,
+                             maximum=1e4, step=0.5, container=left)
+        settings.whole_number(ctx, "max_terms", "Most terms in the equation (0: default)",
+                              optional=True, container=middle)
+        settings.whole_number(ctx, "max_denominator", "Largest denominator (0: default)",
+                              optional=True, container=right)
+        left, middle, right = st.columns(3)
+        settings.choice(ctx, "kernel_approximation", "Kernel on large tables",
+                        KERNEL_APPROXIMATIONS, container=left)
+        settings.whole_number(ctx, "augment_permutations",
+                              "Permuted copies per training matrix", minimum=0, maximum=50,
+                              container=middle,
+                              help="Adds copies of each training row with its matrix's rows "
+                                   "and columns permuted (never to test rows).")
+        settings.seed(ctx, container=right)
+
+
+def _classes(table, target: str | None) -> list:
+    """The target's values, when few enough to pick one as the class an equation describes."""
+    if not target:
+        return []
+    try:
+        info = table.column(target)
+    except Exception:  # noqa: BLE001 - a missing target is reported when the step runs
+        return []
+    if info.role not in ("flag", "category") or info.distinct > 30:
+        return []
+    values = pd.Series(table.frame[target]).dropna().unique().tolist()
+    plain = [v.item() if isinstance(v, np.generic) else v for v in values]
+    return sorted(plain, key=str)
+
+
+# ----------------------------------------------------------------------------------------
+# Results
+
+
+def show(ctx: settings.StepContext, result) -> None:
+    table = ctx.table
+    _verdict(result)
+    if result.task == "classification":
+        _classification_metrics(result)
+    else:
+        _regression_metrics(result)
+    for warning in result.warnings:
+        st.warning(warning)
+    equations = list(result.equations) or ([result.equation] if result.equation else [])
+    for number, equation in enumerate(equations):
+        _equation(ctx, table, result, equation, number)
+    if result.formula is not None:
+        _formula(ctx, table, result.formula)
+    if result.surrogate is not None:
+        _surrogate(result.surrogate)
+    if not equations and result.formula is None and result.surrogate is None:
+        st.caption("This model gives no equation; choose the linear, logistic or degree-2 "
+                   "model for one.")
+    if equations or result.formula is not None or result.surrogate is not None:
+        st.caption(CONJECTURE)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
+    if result.mispredicted:
+        with st.expander(f"Test rows the separator gets wrong ({len(result.mispredicted)})"):
+            st.dataframe(pd.DataFrame([{k: display.cell(v) for k, v in m.items()}
+                                       for m in result.mispredicted]),
+                         hide_index=True, key=ctx.key("mispredicted"))
+    for note in result.notes:
+        st.caption(note)
+
+
+def _verdict(result) -> None:
+    word = "yes" if result.beats_chance else "no"
+    colour = "green" if result.beats_chance else "orange"
+    words = MODELS.get(result.model, result.model)
+    st.markdown(f"#### Beats chance: :{colour}[{word}]")
+    st.caption(f"{words.capitalize()}, trained on {display.number(result.train_rows)} "
+               f"objects, tested on {display.number(result.test_rows)} others "
+               f"({result.split_method}). {result.beats_chance_rule}")
+
+
+def _interval(values) -> str:
+    low, high = values
+    return f"{display.number(low)} to {display.number(high)}"
+
+
+def _p_value(result) -> str:
+    if result.permutation_p is None:
+        return "not tested"
+    return display.number(result.permutation_p)
+
+
+def _classification_metrics(result) -> None:
+    m, b = result.metrics, result.baseline
+    columns = st.columns(4)
+    columns[0].metric("Accuracy on test rows", display.number(m["accuracy"]),
+                      delta=f"{m['accuracy'] - b['accuracy']:+.3f} over guessing",
+                      delta_color="normal" if m["accuracy"] > b["accuracy"] else "off",
+                      help="Guessing: always the most common class, "
+                           f"right on {display.number(b['accuracy'])} of the same test rows.")
+    columns[1].metric("Balanced accuracy", display.number(m["balanced_accuracy"]),
+                      help="The mean of the accuracies on each class; 0.5 for two classes "
+                           "is chance.")
+    columns[2].metric("Matthews correlation", display.number(m["mcc"]),
+                      delta=f"95% interval {_interval(m['mcc_ci'])}", delta_color="off",
+                      delta_arrow="off",
+                      help=f"0 is chance, 1 is perfect. Interval: {result.interval_method}.")
+    columns[3].metric("Permutation p-value", _p_value(result),
+                      help=f"How often shuffled targets score as well: "
+                           f"{result.permutation_method}.")
+
+
+def _regression_metrics(result) -> None:
+    m, b = result.metrics, result.baseline
+    columns = st.columns(4)
+    columns[0].metric("R² on test rows", display.number(m["r2"]),
+                      delta=f"95% interval {_interval(m['r2_ci'])}", delta_color="off",
+                      delta_arrow="off", help=result.interval_method)
+    columns[1].metric("Mean absolute error", display.number(m["mean_absolute_error"]),
+                      help="Predicting the training mean instead: "
+                           f"{display.number(b['mean_absolute_error'])}.")
+    columns[2].metric("R² of predicting the mean", display.number(b["r2"]))
+    columns[3].metric("Permutation p-value", _p_value(result),
+                      help=result.permutation_method)
+
+
+def _equation(ctx, table, result, equation, number: int) -> None:
+    positive = equation.positive_class
+    st.markdown(f"**Equation.** An object is predicted `{result.target} = {positive}` "
+                "exactly when")
+    st.latex(equation.latex())
+    st.code(equation.text, language=None)
+    total = getattr(equation, "n_rows", None) or result.rows_used
+    broken = equation.violations
+    if broken == 0:
+        st.markdown(f"No object of the {display.number(total)} breaks it.")
+        return
+    st.markdown(f"**{display.number(broken)}** of {display.number(total)} objects break it.")
+    ids = list(equation.violating_rows)[:ROWS_SHOWN]
+    if ids:
+        columns = [result.target] + [c for c in _equation_columns(equation)
+                                     if c != result.target]
+        label = f"The objects that break it ({len(ids)}" + \
+            (f" of {broken} shown)" if broken > len(ids) else ")")
+        with st.expander(label):
+            st.dataframe(display.rows_frame(table, ids, columns), hide_index=True,
+                         key=ctx.key(f"violations{number}"))
+
+
+def _equation_columns(equation) -> list[str]:
+    names = []
+    for term in equation.terms:
+        for name in (getattr(term, "factors", ()) or (term.feature,)):
+            if name not in names:
+                names.append(name)
+    return names
+
+
+def _formula(ctx, table, formula) -> None:
+    st.markdown("**Formula for the target**, exact in the table's own invariants:")
+    st.latex(formula.latex())
+    st.code(formula.text, language=None)
+    if formula.rows_off:
+        st.markdown(f"**{display.number(formula.rows_off)}** of "
+                    f"{display.number(formula.n_rows)} objects are off it.")
+        ids = list(formula.off_rows)[:ROWS_SHOWN]
+        if ids:
+            with st.expander(f"The objects off the formula ({len(ids)} shown)"):
+                st.dataframe(display.rows_frame(table, ids), hide_index=True,
+                             key=ctx.key("formula_off"))
+    else:
+        st.markdown(f"Every one of the {display.number(formula.n_rows)} objects fits it.")
+
+
+def _surrogate(surrogate) -> None:
+    agreement = getattr(surrogate, "agreement", None)
+    st.markdown("**A quadratic inequality close to the kernel machine**"
+                + (f" (agrees with it on {agreement:.1%} of rows)" if agreement else "") + ":")
+    latex = getattr(surrogate, "latex", None)
+    if callable(latex):
+        st.latex(latex())
+    st.code(str(getattr(surrogate, "text", surrogate)), language=None)

@@ -1,0 +1,202 @@
+"""Widgets for a step's settings, each bound to one parameter of the step in the study.
+
+The study is the single source of truth: before a widget is drawn its value is taken from
+the step's parameters, and a change goes straight back into the study (through
+``analysis.study.update_step``, which checks it). Widget keys are ``s<step id>.<setting>``,
+stable while the step moves up and down the page.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import streamlit as st
+
+from analysis.errors import StudyError
+from analysis.study import StudyStep, update_step
+from app import state
+
+# What each array encoding means, in words.
+ENCODINGS = {
+    "invariant": "unchanged by permuting rows and columns",
+    "flat": "entries flattened (padded to one shape)",
+    "both": "both",
+}
+LOG_SCALES = {
+    "auto": "only for integers beyond 64 bits",
+    "never": "never",
+    "always": "every numeric feature",
+}
+MISSING = {"drop": "leave the row out", "impute": "fill in (median or most common)"}
+NONE_LABEL = "(none)"
+
+
+@dataclass
+class StepContext:
+    """What a panel needs to draw one step."""
+
+    index: int
+    uid: int
+    step: StudyStep
+    table: object  # the Table with the study's roles applied
+    vector: bool = False  # offer SVG and PDF downloads of figures
+
+    @property
+    def params(self) -> dict:
+        return self.step.params
+
+    def key(self, name: str) -> str:
+        return f"s{self.uid}.{name}"
+
+
+def _changed(uid: int, name: str, key: str, convert) -> None:
+    """on_change: write the widget's value into the study (or keep the message)."""
+    pg = state.page()
+    current = state.study()
+    if uid not in pg.step_ids or current is None:
+        return
+    index = pg.step_ids.index(uid)
+    value = convert(st.session_state[key])
+    pg.errors.pop(f"settings:{uid}", None)
+    try:
+        state.set_study(update_step(current, index, params={name: value}))
+    except StudyError as exc:
+        pg.errors[f"settings:{uid}"] = str(exc)
+
+
+def _sync(key: str, value) -> None:
+    if key not in st.session_state or st.session_state[key] != value:
+        st.session_state[key] = value
+
+
+def choice(ctx: StepContext, name: str, label: str, options: dict | list, *,
+           help: str | None = None, container=st) -> None:
+    """A selectbox over fixed options (a dict maps each value to the words shown)."""
+    words = options if isinstance(options, dict) else {o: str(o) for o in options}
+    values = list(words)
+    current = ctx.params.get(name)
+    if current not in values:
+        values.append(current)
+    key = ctx.key(name)
+    _sync(key, current)
+    container.selectbox(label, values, key=key, help=help,
+                        format_func=lambda v: words.get(v, NONE_LABEL if v is None else str(v)),
+                        on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
+
+
+def column(ctx: StepContext, name: str, label: str, columns: list[str], *,
+           optional: bool = True, help: str | None = None, container=st) -> None:
+    """A selectbox over column names, with "(none)" when the setting may be empty."""
+    values = ([None] if optional else []) + list(columns)
+    current = ctx.params.get(name)
+    if current not in values:
+        values.append(current)
+    key = ctx.key(name)
+    _sync(key, current)
+    container.selectbox(label, values, key=key, help=help,
+                        format_func=lambda v: NONE_LABEL if v is None else str(v),
+                        on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
+
+
+def columns(ctx: StepContext, name: str, label: str, options: list[str], defaults: list[str],
+            *, help: str | None = None, container=st) -> None:
+    """A multiselect of column names; choosing exactly the defaults stores None (= default),
+    so that a saved study keeps meaning "every suitable column"."""
+    current = ctx.params.get(name)
+    shown = list(defaults) if current is None else list(current)
+    options = list(options) + [c for c in shown if c not in options]
+    key = ctx.key(name)
+    _sync(key, shown)
+
+    def convert(value):
+        return None if list(value) == list(defaults) or not value else list(value)
+
+    container.multiselect(label, options, key=key, help=help,
+                          placeholder="every suitable column",
+                          on_change=_changed, args=(ctx.uid, name, key, convert))
+
+
+def whole_number(ctx: StepContext, name: str, label: str, *, minimum: int = 0,
+                 maximum: int | None = None, optional: bool = False, help: str | None = None,
+                 container=st) -> None:
+    """A number input for a whole number; with ``optional``, 0 stands for "not set"."""
+    current = ctx.params.get(name)
+    key = ctx.key(name)
+    shown = 0 if current is None else int(current)
+    _sync(key, shown)
+
+    def convert(value):
+        value = int(value)
+        return None if optional and value == 0 else value
+
+    container.number_input(label, min_value=0 if optional else minimum, max_value=maximum,
+                           step=1, key=key, help=help,
+                           on_change=_changed, args=(ctx.uid, name, key, convert))
+
+
+def whole_range(ctx: StepContext, name: str, label: str, *, minimum: int, maximum: int,
+                help: str | None = None, container=st) -> None:
+    """A slider for a range of whole numbers, stored as [low, high]."""
+    low, high = (int(v) for v in ctx.params.get(name))
+    key = ctx.key(name)
+    _sync(key, (low, high))
+    container.slider(label, min_value=minimum, max_value=max(maximum, high), step=1, key=key,
+                     help=help, on_change=_changed,
+                     args=(ctx.uid, name, key, lambda v: [int(v[0]), int(v[1])]))
+
+
+def real_number(ctx: StepContext, name: str, label: str, *, minimum: float, maximum: float,
+                step: float, help: str | None = None, container=st) -> None:
+    current = ctx.params.get(name)
+    key = ctx.key(name)
+    _sync(key, float(current))
+    container.number_input(label, min_value=float(minimum), max_value=float(maximum),
+                           step=float(step), key=key, help=help,
+                           on_change=_changed, args=(ctx.uid, name, key, float))
+
+
+def flag(ctx: StepContext, name: str, label: str, *, help: str | None = None,
+         container=st) -> None:
+    key = ctx.key(name)
+    _sync(key, bool(ctx.params.get(name)))
+    container.toggle(label, key=key, help=help,
+                     on_change=_changed, args=(ctx.uid, name, key, bool))
+
+
+def seed(ctx: StepContext, container=st) -> None:
+    whole_number(ctx, "seed", "Seed", minimum=0, maximum=2**32 - 1, container=container,
+                 help="The same seed gives the same numbers every time.")
+
+
+def feature_block(ctx: StepContext, *, label: str = "target", container=st) -> None:
+    """The settings every step that builds a feature matrix shares. The column named by
+    the ``label`` setting (the target) is never offered as a feature."""
+    from analysis.features import default_feature_columns
+
+    table = ctx.table
+    target = ctx.params.get(label)
+    usable = [c.name for c in table.columns
+              if c.role in ("invariant", "flag", "category", "array") and c.name != target]
+    defaults = default_feature_columns(table, target=target)
+    columns(ctx, "columns", "Feature columns", usable, defaults, container=container,
+            help="The invariants the step looks at. Leave as is for every invariant, flag, "
+                 "category and array column but the target.")
+    left, middle, right = container.columns(3)
+    if "array_encoding" in ctx.params and table.names_with_role("array"):
+        choice(ctx, "array_encoding", "Matrix and list columns", ENCODINGS, container=left,
+               help="How array-valued cells become features.")
+    if "log_scale" in ctx.params:
+        choice(ctx, "log_scale", "Signed log scale", LOG_SCALES, container=middle,
+               help="sign(x)·log10(1+|x|), for invariants with a heavy tail.")
+    if "missing" in ctx.params:
+        choice(ctx, "missing", "Missing values", MISSING, container=right)
+
+
+def label_columns(table) -> list[str]:
+    """Columns that can serve as a target or a label: flags, categories, invariants."""
+    return [c.name for c in table.columns if c.role in ("flag", "category", "invariant")]
+
+
+def colour_options(table, extra: list[str]) -> list[str]:
+    names = [c.name for c in table.columns if c.role not in ("array",)]
+    return list(extra) + [n for n in names if n not in extra]

@@ -1,0 +1,88 @@
+"""Share: download the study and open one again, download the HTML report, and offer
+figures as SVG and PDF where kaleido can drive a chromium."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+
+import streamlit as st
+
+from analysis.errors import ScoutError
+from analysis.study import run_study, study_to_json
+from app import loading, state
+from app.figure_view import slug, vector_export_problem
+
+
+def study_text(study) -> str:
+    """The study as the text of its .study.json file."""
+    return json.dumps(study_to_json(study), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def report_bytes(study, base_table, cache) -> bytes:
+    """The study run (from cached results where they exist) as one offline HTML page."""
+    from analysis.report import report_html
+
+    run = run_study(study, base_table, cache=cache)
+    return report_html(run, table=run.source_table).encode("utf-8")
+
+
+def share_panel() -> None:
+    study = state.study()
+    table_state = state.table_state()
+    pg = state.page()
+    st.markdown("### Share")
+    if st.session_state.get("share.title") != study.title:
+        st.session_state["share.title"] = study.title
+    st.text_input("Study title", key="share.title", on_change=_retitle)
+    name = slug(study.title or table_state.name)
+    st.download_button("Download the study", data=study_text(study),
+                       file_name=f"{name}.study.json", mime="application/json",
+                       key="share.study", icon=":material/download:", width="stretch",
+                       help="A small JSON file: the table's name and digest, its roles, and "
+                            "every step with its settings and seed. Open it here again, or "
+                            "re-run it with `python -m analysis run`.")
+    cache = state.cache()
+    st.download_button("Download the report (HTML)",
+                       data=lambda: report_bytes(study, table_state.base, cache),
+                       file_name=f"{name}.html", mime="text/html", key="share.report",
+                       icon=":material/description:", width="stretch",
+                       help="One self-contained page with every step's numbers and "
+                            "figures; it opens offline.")
+    opened = st.file_uploader("Open a study", type=["json"], key="share.open",
+                              help="A .study.json file saved from this page. Its steps "
+                                   "replace the page and run again.")
+    if opened is not None and opened.file_id != pg.study_upload_id:
+        pg.study_upload_id = opened.file_id
+        try:
+            note = loading.open_study(loading.read_study(opened.name, opened.getvalue()))
+        except ScoutError as exc:
+            pg.study_error = str(exc)
+        else:
+            pg.study_error = None
+            if note:
+                pg.notices.append(f"study:{note}")
+            st.rerun()
+    elif opened is None:
+        pg.study_upload_id = None
+    if pg.study_error:
+        st.error(pg.study_error)
+    st.toggle("SVG and PDF downloads for figures", key="share.vector",
+              help="Every figure's toolbar has a camera button for PNG. SVG and PDF are "
+                   "drawn by kaleido, which needs chromium.")
+    if st.session_state.get("share.vector"):
+        problem = vector_export_problem()
+        if problem:
+            st.warning("SVG and PDF are not available here: kaleido could not draw with "
+                       f"chromium ({problem}). Install chromium, or use the camera button "
+                       "for PNG.")
+
+
+def vector_ready() -> bool:
+    return bool(st.session_state.get("share.vector")) and vector_export_problem() is None
+
+
+def _retitle() -> None:
+    study = state.study()
+    title = st.session_state.get("share.title", "").strip()
+    state.set_study(dataclasses.replace(study, title=title))

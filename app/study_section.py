@@ -1,0 +1,276 @@
+"""The study: its steps top to bottom, each with its settings, a run action and its results
+where it stands; and the row that adds a step at the end."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import streamlit as st
+
+from analysis.errors import ScoutError, StepError
+from analysis.steps import KIND_TITLES, STEP_KINDS, step_class
+from analysis.study import (
+    add_step,
+    move_step,
+    remove_step,
+    result_key,
+    run_step,
+)
+from app import state
+from app.loading import available_kinds
+from app.panels import panel
+from app.settings import StepContext
+from app.share import vector_ready
+
+# What a step is doing while it runs, by kind (the status line under its title).
+RUNNING = {
+    "overview": "Summarizing every column",
+    "projection": "Building features and projecting to two dimensions",
+    "clustering": "Trying clusterings and comparing their scores",
+    "separator": "Fitting on training rows, testing on the others, comparing with chance",
+    "relations": "Searching for exact relations and sharp bounds, checking every row",
+    "outliers": "Scoring every object",
+}
+UMAP_FIRST = ("UMAP compiles its numerical code on its first use in this session; "
+              "this run takes 15 s or more")
+
+
+@st.cache_resource(show_spinner=False)
+def _umap_runs() -> dict:
+    """Whether UMAP has run in this server process (its first run compiles code)."""
+    return {"done": False}
+
+
+def show_study() -> None:
+    study = state.study()
+    table_state = state.table_state()
+    pg = state.page()
+    table = table_state.table
+    cache = state.cache()
+    missing = [i for i, step in enumerate(study.steps)
+               if result_key(table, step.kind, step.params) not in cache]
+    top = st.container()
+    progress = None
+    if pg.run_all and missing:
+        progress = top.progress(0.0, text=f"Running {len(missing)} of "
+                                f"{len(study.steps)} steps")
+    elif missing and not pg.run_all:
+        left, right = top.columns([3, 1], vertical_alignment="center")
+        left.caption(f"{_count(len(missing), 'step')} not yet run with "
+                     "the current settings.")
+        right.button("Run every step", key="study.run_all", on_click=_request_run_all,
+                     icon=":material/play_arrow:", width="stretch")
+    done = 0
+    for index, (uid, step) in enumerate(zip(list(pg.step_ids), study.steps)):
+        ran = _show_step(index, uid, step, table, run_all=pg.run_all)
+        if progress is not None and ran:
+            done += 1
+            progress.progress(min(done / len(missing), 1.0),
+                              text=f"Ran {done} of {len(missing)} steps")
+    if progress is not None:
+        progress.empty()
+    pg.run_all = False
+    pg.just_added = None
+    _add_step_row(table)
+
+
+def _count(n: int, word: str) -> str:
+    return f"{n} {word}" if n == 1 else f"{n} {word}s"
+
+
+def _request_run_all() -> None:
+    state.page().run_all = True
+
+
+def _show_step(index: int, uid: int, step, table, *, run_all: bool) -> bool:
+    """Draw one step; run it first when asked. True when it ran in this pass."""
+    pg = state.page()
+    study = state.study()
+    module = panel(step.kind)
+    ctx = StepContext(index=index, uid=uid, step=step, table=table,
+                      vector=vector_ready())
+    ran = False
+    with st.container(border=True, key=f"s{uid}.box"):
+        title_col, up_col, down_col, remove_col = st.columns(
+            [12, 1, 1, 1], vertical_alignment="center", gap="small")
+        title_col.markdown(f"#### {index + 1}. {step.display_title}")
+        title_col.caption(module.describe(step.params))
+        up_col.button("", key=f"s{uid}.up", icon=":material/arrow_upward:",
+                      help="Move this step up", type="tertiary", disabled=index == 0,
+                      on_click=_move, args=(uid, -1))
+        down_col.button("", key=f"s{uid}.down", icon=":material/arrow_downward:",
+                        help="Move this step down", type="tertiary",
+                        disabled=index == len(study.steps) - 1, on_click=_move, args=(uid, 1))
+        remove_col.button("", key=f"s{uid}.remove", icon=":material/close:",
+                          help="Remove this step from the study", type="tertiary",
+                          on_click=_remove, args=(uid,))
+        with st.expander("Settings", expanded=pg.just_added == uid, icon=":material/tune:"):
+            module.settings_panel(ctx)
+            message = pg.errors.get(f"settings:{uid}")
+            if message:
+                st.error(message)
+        # The settings may have changed the step just now: read it again.
+        step = state.study().steps[index]
+        ctx.step = step
+        key = result_key(table, step.kind, step.params)
+        result = state.cache().get(key)
+        error = pg.errors.get(key)
+        if result is None:
+            clicked = st.button("Run this step", key=f"s{uid}.run", type="primary",
+                                icon=":material/play_arrow:")
+            if clicked or (run_all and error is None):
+                result, error = _run(step, table, key)
+                ran = True
+        if error:
+            st.error(error)
+        elif result is None:
+            st.caption("Not run yet with these settings.")
+        else:
+            try:
+                module.show(ctx, result)
+            except Exception as exc:  # noqa: BLE001 - one broken panel must not sink the page
+                st.error(f"This step's results could not be shown ({type(exc).__name__}: "
+                         f"{exc}). The other steps are unaffected.")
+    return ran
+
+
+def _run(step, table, key: str):
+    """Run one step through the study runner (its cache and its error messages)."""
+    pg = state.page()
+    label = f"{step.display_title}: {RUNNING.get(step.kind, 'running')}"
+    umap = step.kind == "projection" and step.params.get("method") == "umap"
+    if umap and not _umap_runs()["done"]:
+        label = f"{step.display_title}: {UMAP_FIRST}"
+    place = st.empty()
+    with place.status(label + "…", expanded=False) as box:
+        outcome = run_step(step, table, cache=state.cache())
+        box.update(label=f"{step.display_title}: done in {outcome.elapsed_seconds:.1f} s",
+                   state="complete" if outcome.ok else "error")
+    place.empty()
+    if umap and outcome.ok:
+        _umap_runs()["done"] = True
+    if outcome.ok:
+        pg.errors.pop(key, None)
+        return outcome.result, None
+    message = outcome.error
+    if outcome.internal:
+        message = ("This step stopped on an internal error; the rest of the study is "
+                   f"unaffected. {outcome.error}")
+    pg.errors[key] = message
+    return None, message
+
+
+def _position(uid: int) -> int | None:
+    ids = state.page().step_ids
+    return ids.index(uid) if uid in ids else None
+
+
+def _move(uid: int, offset: int) -> None:
+    index = _position(uid)
+    if index is None:
+        return
+    target = index + offset
+    study = state.study()
+    if not 0 <= target < len(study.steps):
+        return
+    pg = state.page()
+    pg.step_ids.insert(target, pg.step_ids.pop(index))
+    state.set_study(move_step(study, index, target))
+
+
+def _remove(uid: int) -> None:
+    index = _position(uid)
+    if index is None:
+        return
+    pg = state.page()
+    pg.step_ids.pop(index)
+    state.set_study(remove_step(state.study(), index))
+
+
+# ----------------------------------------------------------------------------------------
+# Adding a step
+
+
+def new_step_params(kind: str, table, focus: dict) -> dict:
+    """Settings for a new step: the study-wide target, features, encoding and group column
+    where the kind has them; defaults otherwise."""
+    fields = {f.name for f in dataclasses.fields(step_class(kind))}
+    target = focus.get("target")
+    params: dict = {}
+    if kind == "separator" and target is None:
+        target = first_flag(table)
+        if target is None:
+            raise StepError("a separator needs a target: a flag or category column to "
+                            "explain. Choose one under Target above.")
+    if target is not None:
+        if "target" in fields and kind in ("projection", "separator", "outliers"):
+            params["target"] = target
+        if "compare" in fields and kind == "clustering":
+            params["compare"] = target
+    features = focus.get("columns")
+    if features is not None and "columns" in fields:
+        if kind == "relations":
+            chosen = [c for c in features if table.role(c) == "invariant"]
+        else:
+            chosen = [c for c in features if c != params.get("target")]
+        if chosen:
+            params["columns"] = chosen
+    if focus.get("array_encoding") and "array_encoding" in fields:
+        params["array_encoding"] = focus["array_encoding"]
+    if focus.get("groups") and "groups" in fields:
+        params["groups"] = focus["groups"]
+    return params
+
+
+def first_flag(table) -> str | None:
+    for role in ("flag", "category"):
+        names = table.names_with_role(role)
+        if names:
+            return names[0]
+    return None
+
+
+def _add(table) -> None:
+    kind = st.session_state.get("add.kind")
+    pg = state.page()
+    pg.notices = [n for n in pg.notices if not n.startswith("add:")]
+    if kind is None:
+        return
+    try:
+        params = new_step_params(kind, table, pg.focus)
+        new = add_step(state.study(), kind, params)
+    except ScoutError as exc:
+        pg.notices.append(f"add:Could not add the step: {exc}")
+        return
+    uid = state.new_step_id()
+    pg.step_ids.append(uid)
+    pg.just_added = uid
+    state.set_study(new)
+
+
+def _add_step_row(table) -> None:
+    kinds = available_kinds()
+    pg = state.page()
+    st.markdown("##### Add a step")
+    left, right = st.columns([3, 1], vertical_alignment="bottom")
+    left.selectbox("Kind of step", kinds, key="add.kind",
+                   format_func=lambda k: f"{KIND_TITLES.get(k, k)}: {_KIND_WORDS.get(k, '')}",
+                   label_visibility="collapsed")
+    right.button("Add step", key="add.button", on_click=_add, args=(table,),
+                 icon=":material/add:", width="stretch")
+    for notice in pg.notices:
+        if notice.startswith("add:"):
+            st.error(notice[4:])
+    waiting = [KIND_TITLES[k] for k in STEP_KINDS if k not in kinds]
+    if waiting:
+        st.caption("Not installed yet: " + ", ".join(waiting) + ".")
+
+
+_KIND_WORDS = {
+    "overview": "columns, ranges, correlated pairs",
+    "projection": "a 2-d picture (PCA, UMAP, t-SNE, LDA)",
+    "clustering": "groups of similar objects",
+    "separator": "is the target predictable, and by what equation?",
+    "relations": "exact linear relations and sharp bounds",
+    "outliers": "objects to look at by hand",
+}

@@ -1,0 +1,258 @@
+"""The table: choosing or uploading one, its size and columns, each column's role, and the
+study-wide target, feature columns, array encoding and group column."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import pandas as pd
+import streamlit as st
+
+from analysis.errors import ScoutError, StudyError
+from analysis.features import default_feature_columns
+from analysis.study import TableSettings, apply_table_settings, update_step
+from analysis.table import ROLES
+from app import loading, state
+from app.settings import ENCODINGS, NONE_LABEL
+
+ROLE_WORDS = {
+    "id": "names each object",
+    "invariant": "a number",
+    "category": "a label from a few values",
+    "flag": "true or false",
+    "array": "a list or matrix",
+    "text": "ignored by the steps",
+}
+
+
+# ----------------------------------------------------------------------------------------
+# Choosing a table (sidebar)
+
+
+def table_picker() -> None:
+    """Sample tables and the upload box. A new choice replaces the table and the study."""
+    pg = state.page()
+    names = loading.sample_names()
+    st.markdown("### Table")
+    choice = st.selectbox("Sample table", names, key="table.sample",
+                          help="Tables computed by sample_tables/make_tables.py.")
+    if pg.sample_choice is None:
+        pg.sample_choice = choice
+    elif choice != pg.sample_choice:
+        pg.sample_choice = choice
+        try:
+            loading.put_table(loading.load_sample(choice))
+            pg.load_error = None
+        except ScoutError as exc:
+            pg.load_error = str(exc)
+    note = loading.SAMPLE_NOTES.get(choice)
+    if note:
+        st.caption(note)
+    upload = st.file_uploader(
+        "Or a table of your own", type=loading.UPLOAD_TYPES, key="table.upload",
+        help="CSV or TSV (with a header row), JSON (an array of records), JSON Lines or "
+             "Parquet. One row per object, one column per invariant.")
+    if upload is not None and upload.file_id != pg.upload_id:
+        pg.upload_id = upload.file_id
+        try:
+            loaded = loading.load_bytes(upload.name, upload.getvalue(), sample=False)
+        except ScoutError as exc:
+            pg.load_error = str(exc)
+        else:
+            pg.load_error = None
+            loading.put_table(loaded)
+    elif upload is None:
+        pg.upload_id = None
+    if pg.load_error:
+        st.error(pg.load_error)
+
+
+# ----------------------------------------------------------------------------------------
+# The table's facts and roles (top of the page)
+
+
+def table_header() -> None:
+    table_state = state.table_state()
+    table = table_state.table
+    study = state.study()
+    pg = state.page()
+    st.title(study.title or f"Study of {table.name}")
+    counts = {role: len(table.names_with_role(role)) for role in ROLES}
+    parts = [f"{table.n_rows:,} objects".replace(",", "\u2009"),
+             f"{len(table.columns)} columns"]
+    parts += [f"{n} {role}{'s' if n != 1 and role not in ('text',) else ''}"
+              for role, n in counts.items() if n and role != "id"]
+    named = f"named by **{table.id_column}**" if table.id_column else "named by row number"
+    source = "sample table" if table_state.sample else "uploaded"
+    st.markdown(f"**{table.name}** ({source}) · " + " · ".join(parts) + f" · {named}")
+    if pg.load_error:
+        st.error(pg.load_error)
+    with st.expander("Columns and roles", icon=":material/table_rows:"):
+        _roles_editor(table)
+    _focus_row(table)
+
+
+def _roles_editor(table) -> None:
+    pg = state.page()
+    st.caption("Change a role in the table below: " + "; ".join(
+        f"**{role}**: {words}" for role, words in ROLE_WORDS.items()) + ".")
+    frame = pd.DataFrame({
+        "column": [c.name for c in table.columns],
+        "role": [c.role for c in table.columns],
+        "type": [c.dtype for c in table.columns],
+        "missing": [c.missing for c in table.columns],
+        "distinct": [c.distinct for c in table.columns],
+        "found as": [c.detected_role for c in table.columns],
+        "note": [c.note for c in table.columns],
+    })
+    key = f"table.roles.{pg.roles_version}"
+    edited = st.data_editor(
+        frame, key=key, hide_index=True, num_rows="fixed",
+        disabled=["column", "type", "missing", "distinct", "found as", "note"],
+        column_config={"role": st.column_config.SelectboxColumn(
+            "role", options=list(ROLES), required=True,
+            help="What the column means to the steps")})
+    if pg.roles_error:
+        st.error(pg.roles_error)
+    changes = {name: role for name, role, old in
+               zip(edited["column"], edited["role"], frame["role"]) if role != old}
+    if changes:
+        pg.roles_version += 1
+        try:
+            set_roles(changes)
+            pg.roles_error = None
+        except ScoutError as exc:
+            pg.roles_error = str(exc)
+        st.rerun()
+
+
+def set_roles(changes: dict[str, str]) -> None:
+    """Give columns new roles: the study's table settings change, and the table with them.
+
+    Raises TableError or StudyError (the message names the column and the cell) when a
+    column's cells do not fit its new role; nothing changes then.
+    """
+    study = state.study()
+    table_state = state.table_state()
+    base = table_state.base
+    settings = study.table_settings
+    roles = settings.role_overrides
+    id_column = settings.id_column
+    for name, role in changes.items():
+        base.column(name)
+        if role == "id":
+            id_column = name
+            roles.pop(name, None)
+        else:
+            roles[name] = role
+            if name == id_column:
+                id_column = None
+    detected = {c.name: c.detected_role for c in base.columns}
+    roles = {name: role for name, role in roles.items() if detected.get(name) != role}
+    if id_column is None and base.id_column is not None and base.id_column not in roles:
+        # The detected id column keeps its role unless the user gave it another one.
+        id_column = base.id_column
+    candidate = dataclasses.replace(
+        study, table_settings=TableSettings(id_column=id_column, roles=roles))
+    apply_table_settings(candidate, base)  # raises when a cell does not fit
+    state.set_study(candidate)
+
+
+# ----------------------------------------------------------------------------------------
+# Study-wide choices
+
+
+def _focus_row(table) -> None:
+    pg = state.page()
+    focus = pg.focus
+    targets = [c.name for c in table.columns if c.role in ("flag", "category", "invariant")]
+    target = focus.get("target")
+    if target not in targets:
+        target = None
+    groups = [c.name for c in table.columns if c.role in ("category", "text", "array",
+                                                          "invariant", "flag")]
+    _sync("focus.target", target)
+    _sync("focus.encoding", focus.get("array_encoding") or "invariant")
+    _sync("focus.groups", focus.get("groups") if focus.get("groups") in groups else None)
+    defaults = default_feature_columns(table, target=target)
+    chosen = focus.get("columns")
+    usable = [c.name for c in table.columns
+              if c.role in ("invariant", "flag", "category", "array") and c.name != target]
+    _sync("focus.features", [c for c in (chosen or defaults) if c in usable])
+    left, right = st.columns([1, 3])
+    left.selectbox("Target", [None] + targets, key="focus.target",
+                   format_func=lambda v: NONE_LABEL if v is None else v,
+                   on_change=_focus_changed, args=("target", "focus.target"),
+                   help="The invariant or property to explain. Steps colour by it, the "
+                        "separator predicts it, clusterings are compared with it.")
+    right.multiselect("Feature columns", usable, key="focus.features",
+                      placeholder="every suitable column",
+                      on_change=_focus_changed, args=("columns", "focus.features"),
+                      help="The invariants the steps look at (all steps but the overview).")
+    arrays = table.names_with_role("array")
+    left, right, _ = st.columns([1, 1, 2])
+    left.selectbox("Group column", [None] + groups, key="focus.groups",
+                   format_func=lambda v: NONE_LABEL if v is None else v,
+                   on_change=_focus_changed, args=("groups", "focus.groups"),
+                   help="Objects with the same value (for a matrix column: the same matrix "
+                        "up to permuting rows and columns) stay on one side of every "
+                        "train/test split.")
+    right.selectbox("Matrix and list columns", list(ENCODINGS), key="focus.encoding",
+                    format_func=lambda v: ENCODINGS[v], disabled=not arrays,
+                    on_change=_focus_changed, args=("array_encoding", "focus.encoding"),
+                    help="How array cells become features: invariants that do not change "
+                         "when rows and columns are permuted, or the entries themselves.")
+
+
+def _sync(key: str, value) -> None:
+    if key not in st.session_state or st.session_state[key] != value:
+        st.session_state[key] = value
+
+
+def _focus_changed(name: str, key: str) -> None:
+    """A study-wide choice changed: every step with that setting takes it."""
+    pg = state.page()
+    table = state.table_state().table
+    value = st.session_state[key]
+    if name == "columns":
+        target = pg.focus.get("target")
+        defaults = default_feature_columns(table, target=target)
+        value = None if not value or list(value) == defaults else list(value)
+    pg.focus[name] = value
+    pg.notices = [n for n in pg.notices if not n.startswith("focus:")]
+    try:
+        state.set_study(apply_focus(state.study(), table, name, value))
+    except StudyError as exc:
+        pg.notices.append(f"focus:{exc}")
+
+
+def apply_focus(study, table, name: str, value):
+    """The study with a study-wide choice given to every step that has the setting."""
+    for index, step in enumerate(study.steps):
+        params = step.params
+        change: dict = {}
+        if name == "target":
+            if step.kind in ("projection", "outliers") and "target" in params:
+                change["target"] = value
+            elif step.kind == "separator" and value is not None:
+                change["target"] = value
+            elif step.kind == "clustering" and "compare" in params:
+                change["compare"] = value
+            chosen = params.get("columns")
+            if value is not None and chosen and value in chosen and "target" in change:
+                change["columns"] = [c for c in chosen if c != value] or None
+        elif name == "columns" and "columns" in params:
+            if step.kind == "relations":
+                change["columns"] = None if value is None else (
+                    [c for c in value if table.role(c) == "invariant"] or None)
+            elif step.kind != "overview":
+                target = params.get("target")
+                change["columns"] = None if value is None else (
+                    [c for c in value if c != target] or None)
+        elif name == "array_encoding" and "array_encoding" in params:
+            change["array_encoding"] = value
+        elif name == "groups" and "groups" in params:
+            change["groups"] = value
+        if change and any(params.get(k) != v for k, v in change.items()):
+            study = update_step(study, index, params=change)
+    return study

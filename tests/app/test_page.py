@@ -1,0 +1,307 @@
+"""The study page driven by streamlit's AppTest, by widget key.
+
+AppTest runs app/scout.py in this process without a browser. Uploads go through
+``at.file_uploader(key=...).upload(name, data, mime)`` (present in streamlit 1.67). Charts are
+not inspectable by AppTest's typed accessors; their plotly specs are read from the element
+protos, and the figure builders themselves are tested by their owners.
+
+Most tests open the page on a small sample table through the address (``?table=...``) so that
+the opening study stays short; one test checks the default opening page.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from pathlib import Path
+
+import pytest
+from sklearn.datasets import load_iris
+from streamlit.testing.v1 import AppTest
+
+from analysis.study import result_key, study_from_json
+from app import share
+
+SCRIPT = str(Path(__file__).resolve().parents[2] / "app" / "scout.py")
+TIMEOUT = 600
+
+
+def open_page(table: str | None = None) -> AppTest:
+    at = AppTest.from_file(SCRIPT, default_timeout=TIMEOUT)
+    if table is not None:
+        at.query_params["table"] = table
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def iris_csv() -> bytes:
+    """scikit-learn's iris data (150 flowers, 4 measurements, 3 species) as a CSV."""
+    frame = load_iris(as_frame=True).frame
+    frame["species"] = frame["target"].map(dict(enumerate(load_iris().target_names)))
+    frame = frame.drop(columns="target")
+    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
+    buffer = io.StringIO()
+    frame.to_csv(buffer, index=False)
+    return buffer.getvalue().encode()
+
+
+def study(at: AppTest):
+    return at.session_state["scout.study"]
+
+
+def table(at: AppTest):
+    return at.session_state["scout.table"].table
+
+
+def step_ids(at: AppTest) -> list[int]:
+    return list(at.session_state["scout.page"].step_ids)
+
+
+def results(at: AppTest) -> list:
+    """The cached result of every step of the study (None where it has none)."""
+    cache = at.session_state["scout.cache"]
+    return [cache.get(result_key(table(at), s.kind, s.params)) for s in study(at).steps]
+
+
+def numbers(result) -> dict:
+    """A result's JSON without timings, which differ from run to run."""
+    def strip(value):
+        if isinstance(value, dict):
+            return {k: strip(v) for k, v in value.items() if k != "elapsed_seconds"}
+        if isinstance(value, list):
+            return [strip(v) for v in value]
+        return value
+    return strip(result.to_json())
+
+
+def texts(elements) -> list[str]:
+    return [e.value for e in elements]
+
+
+def plotly_specs(at: AppTest) -> list[dict]:
+    """The plotly figures on the page, as the JSON the browser receives."""
+    specs = []
+    for element in at.get("plotly_chart"):
+        specs.append(json.loads(element.proto.spec))
+    return specs
+
+
+def upload(at: AppTest, name: str, data: bytes, mime: str = "text/csv") -> AppTest:
+    at.file_uploader(key="table.upload").upload(name, data, mime)
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def add_step(at: AppTest, kind: str) -> int:
+    at.selectbox(key="add.kind").set_value(kind)
+    at.button(key="add.button").click()
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    return step_ids(at)[-1]
+
+
+# ----------------------------------------------------------------------------------------
+
+
+def test_opening_page_shows_the_sample_study_with_a_picture_and_an_equation():
+    at = open_page()
+    assert texts(at.error) == []
+    current = study(at)
+    assert current.table == "lattice_polygons.csv"
+    kinds = [s.kind for s in current.steps]
+    assert kinds[:2] == ["overview", "projection"], kinds
+    assert "separator" in kinds, kinds
+    # every step ran on opening
+    assert all(r is not None for r in results(at)), kinds
+    # a real picture: the projection's scatter plot carries one point per polygon
+    specs = plotly_specs(at)
+    assert specs, "no figure on the opening page"
+    points = sum(len(trace.get("x", [])) for spec in specs[:1] for trace in spec["data"])
+    assert points == 3000, points
+    # a real equation, as mathematics and as text to copy, equal to the step's own
+    separator = results(at)[kinds.index("separator")]
+    assert separator.equation is not None
+    assert separator.equation.latex() in texts(at.latex)
+    assert separator.equation.text in texts(at.code)
+    # the sentence saying a pattern is a conjecture, not a proof
+    assert any("not a proof" in c for c in texts(at.caption))
+
+
+def test_upload_a_table_replaces_table_and_study():
+    at = open_page("quadratic_fields.csv")
+    upload(at, "iris.csv", iris_csv())
+    loaded = table(at)
+    # scikit-learn's iris: 150 samples, 4 numeric features, 3 classes (sklearn documentation)
+    assert loaded.n_rows == 150
+    assert loaded.id_column == "flower"
+    assert loaded.role("species") == "category"
+    assert len(loaded.names_with_role("invariant")) == 4
+    assert study(at).table == "iris.csv"
+    assert all(r is not None for r in results(at))
+    assert any("150 objects" in m for m in texts(at.markdown))
+    assert texts(at.error) == []
+
+
+@pytest.mark.parametrize("name, data, words", [
+    ("ragged.csv", b"a,b\n1,2\n3,4,5\n", "row 2"),
+    ("empty.csv", b"", "empty"),
+    ("latin1.csv", "genus,name\n1,caf\xe9\n".encode("latin-1"), "UTF-8"),
+    ("broken.json", b'[{"a": 1}, {"a": ', "JSON"),
+], ids=["ragged-row", "empty-file", "not-utf8", "broken-json"])
+def test_bad_upload_shows_the_table_error_and_keeps_the_page(name, data, words):
+    at = open_page("quadratic_fields.csv")
+    before = study(at)
+    upload(at, name, data, "application/octet-stream")
+    errors = texts(at.error)
+    assert errors, "no error shown for a bad upload"
+    assert any(name in e and words in e for e in errors), errors
+    # the previous table and study stay
+    assert table(at).name == "quadratic_fields.csv"
+    assert study(at) is before
+
+
+def _roles_key(at: AppTest) -> str:
+    return next(e.key for e in at.data_editor if e.key and e.key.startswith("table.roles."))
+
+
+def _edit_role(at: AppTest, column: str, role: str) -> AppTest:
+    names = [c.name for c in table(at).columns]
+    at.session_state[_roles_key(at)] = {
+        "edited_rows": {names.index(column): {"role": role}},
+        "added_rows": [], "deleted_rows": []}
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def test_changing_a_role_changes_the_table_and_the_saved_study():
+    at = open_page("quadratic_fields.csv")
+    assert table(at).role("disc_mod_8") == "invariant"
+    _edit_role(at, "disc_mod_8", "category")
+    assert table(at).role("disc_mod_8") == "category"
+    assert study(at).table_settings.role_overrides == {"disc_mod_8": "category"}
+    saved = json.loads(share.study_text(study(at)))
+    assert saved["table_settings"]["roles"] == {"disc_mod_8": "category"}
+    assert texts(at.error) == []
+    # the steps are computed again for the new roles, and run with a click
+    at.button(key="study.run_all").click().run()
+    assert all(r is not None for r in results(at))
+
+
+def test_a_role_the_cells_do_not_fit_is_refused_with_a_message():
+    at = open_page("graphs_up_to_7.csv")
+    _edit_role(at, "adjacency", "invariant")
+    errors = texts(at.error)
+    assert any("adjacency" in e for e in errors), errors
+    assert table(at).role("adjacency") == "array"
+    assert study(at).table_settings.role_overrides == {}
+
+
+def test_the_id_role_moves_to_another_column():
+    at = open_page("quadratic_fields.csv")
+    _edit_role(at, "discriminant", "id")
+    assert table(at).id_column == "discriminant"
+    assert study(at).table_settings.id_column == "discriminant"
+    assert table(at).role("field") != "id"
+
+
+def test_study_wide_target_reaches_every_step():
+    at = open_page("quadratic_fields.csv")
+    at.selectbox(key="focus.target").set_value("class_number_one").run()
+    assert not at.exception
+    projection = [s for s in study(at).steps if s.kind == "projection"][0]
+    assert projection.params["target"] == "class_number_one"
+
+
+@pytest.mark.parametrize("kind", ["overview", "projection", "clustering", "separator",
+                                  "relations", "outliers"])
+def test_add_and_run_each_kind_of_step(kind):
+    from app.loading import available_kinds
+
+    at = open_page("quadratic_fields.csv")
+    upload(at, "iris.csv", iris_csv())
+    if kind not in available_kinds():
+        pytest.skip(f"the {kind} step is not installed in this checkout")
+    at.selectbox(key="focus.target").set_value("species").run()
+    steps_before = len(study(at).steps)
+    uid = add_step(at, kind)
+    assert len(study(at).steps) == steps_before + 1
+    assert study(at).steps[-1].kind == kind
+    if results(at)[-1] is None:  # a new step waits for its run action...
+        at.button(key=f"s{uid}.run").click().run()
+    else:  # ...unless the same step with the same settings has run already
+        assert kind == "overview"
+        assert not [b for b in at.button if b.key == f"s{uid}.run"]
+    assert not at.exception, [e.value for e in at.exception]
+    assert texts(at.error) == []
+    assert results(at)[-1] is not None
+
+
+def test_move_and_remove_steps():
+    at = open_page("quadratic_fields.csv")
+    kinds = [s.kind for s in study(at).steps]
+    first, second = step_ids(at)[:2]
+    at.button(key=f"s{second}.up").click().run()
+    assert [s.kind for s in study(at).steps][:2] == kinds[1::-1]
+    assert step_ids(at)[:2] == [second, first]
+    at.button(key=f"s{first}.remove").click().run()
+    assert first not in step_ids(at)
+    assert len(study(at).steps) == len(kinds) - 1
+
+
+def test_a_failing_step_shows_a_message_and_leaves_the_rest():
+    at = open_page("quadratic_fields.csv")
+    uid = add_step(at, "projection")
+    at.selectbox(key=f"s{uid}.method").set_value("lda").run()
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception
+    errors = texts(at.error)
+    assert any("LDA needs a target" in e for e in errors), errors
+    assert all(r is not None for r in results(at)[:-1])
+
+
+def test_colour_and_hover_change_the_picture_not_the_numbers():
+    at = open_page("quadratic_fields.csv")
+    uid = [u for u, s in zip(step_ids(at), study(at).steps) if s.kind == "projection"][0]
+    before = results(at)
+    at.selectbox(key=f"s{uid}.colour").set_value("class_number").run()
+    at.multiselect(key=f"s{uid}.hover").set_value(["discriminant", "units"]).run()
+    after = results(at)
+    assert all(a is b for a, b in zip(before, after)), "a step was recomputed"
+    spec = json.dumps(plotly_specs(at))
+    assert "class_number" in spec and "units" in spec
+
+
+def test_a_saved_study_opened_in_a_new_session_gives_the_same_numbers():
+    first = open_page("quadratic_fields.csv")
+    first.selectbox(key="focus.target").set_value("class_number_one").run()
+    first.button(key="study.run_all").click().run()
+    add_step(first, "separator")
+    uid = step_ids(first)[-1]
+    first.button(key=f"s{uid}.run").click().run()
+    saved = share.study_text(study(first))
+    before = [numbers(r) for r in results(first)]
+    shown = texts(first.code) + [m.value for m in first.metric]
+
+    second = open_page("graphs_up_to_7.csv")
+    second.file_uploader(key="share.open").upload("fields.study.json", saved.encode(),
+                                                 "application/json")
+    second.run()
+    assert not second.exception, [e.value for e in second.exception]
+    assert table(second).name == "quadratic_fields.csv"
+    assert study(second) == study_from_json(json.loads(saved))
+    assert [numbers(r) for r in results(second)] == before
+    assert texts(second.code) + [m.value for m in second.metric] == shown
+
+
+def test_a_broken_study_file_is_refused_with_a_message():
+    at = open_page("quadratic_fields.csv")
+    before = study(at)
+    at.file_uploader(key="share.open").upload("bad.study.json", b'{"version": "x"}',
+                                             "application/json")
+    at.run()
+    assert not at.exception
+    assert any("bad.study.json" in e and "version" in e for e in texts(at.error))
+    assert study(at) is before
