@@ -20,8 +20,9 @@ def neutralize(value):
     alone, following the usual guidance on CSV injection: only text that is not a number and
     starts with =, +, -, @, tab or carriage return is changed.
     """
+    # The whole cell must be the number: stripping first would let "\t-3" or "-3\n=..." pass.
     if isinstance(value, str) and value.startswith(_FORMULA_START) \
-            and not _NUMBER.match(value.strip()):
+            and not _NUMBER.fullmatch(value):
         return "'" + value
     return value
 
@@ -39,10 +40,13 @@ def safe_frame(frame: pd.DataFrame) -> pd.DataFrame:
 def csv_text(frame: pd.DataFrame) -> str:
     """The frame as CSV text that is safe to open in a spreadsheet."""
     buffer = io.StringIO()
-    safe_frame(frame).to_csv(buffer, index=False)
+    # Lines end in CR LF (RFC 4180), which also makes the writer quote any cell holding a lone
+    # carriage return: unquoted, a spreadsheet would start a new row there, and the text
+    # after it (perhaps "=...") would begin a cell that was never neutralized.
+    safe_frame(frame).to_csv(buffer, index=False, lineterminator="\r\n")
     return buffer.getvalue()
 
 
 def write_csv(frame: pd.DataFrame, path: str | Path) -> None:
     """Write ``frame`` as spreadsheet-safe CSV."""
-    Path(path).write_text(csv_text(frame), encoding="utf-8")
+    Path(path).write_text(csv_text(frame), encoding="utf-8", newline="")
