@@ -1,0 +1,1340 @@
+"""The separator step: is a target predictable from the other invariants, and by what equation?
+
+A separator is fitted on one side of a split and scored on the other, and the score is always
+shown next to what chance would give:
+
+- repeated stratified splits at the chosen training fraction (group-aware when a group column,
+  or the canonical key of a matrix column, is given, so an object and its permuted copies
+  never sit on both sides);
+- accuracy, balanced accuracy and the Matthews correlation with a bootstrap interval, the
+  confusion matrix, the majority-class baseline on the same test rows, a permutation p-value
+  (labels shuffled within the training side and the model refitted), and a learning curve;
+- a verdict in words: the separator beats chance only when the interval of the Matthews
+  correlation lies above 0 and the permutation p-value is below 0.05;
+- the separating equation in the table's own units with exact rational coefficients, checked
+  on every row (linear, logistic, LDA; the expanded polynomial for the degree-2 kernel; a
+  readable quadratic surrogate with its agreement rate for the RBF kernel).
+
+A many-valued invariant target is a regression: the same protocol with R^2 and the mean
+absolute error, the training mean as the baseline, and an exact formula when one exists.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import time
+import warnings as _warnings
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from analysis.errors import StepError
+from analysis.features import build_features, group_keys, is_numeric_target, target_values
+from analysis.plain import plain, row_id
+from analysis.table import Table
+
+MODELS = ("linear", "logistic", "lda", "rbf", "poly2")
+MODEL_WORDS = {
+    "linear": "linear support vector machine",
+    "logistic": "logistic regression",
+    "lda": "linear discriminant analysis",
+    "rbf": "support vector machine with an RBF kernel",
+    "poly2": "support vector machine with a degree-2 polynomial kernel",
+}
+REGRESSION_WORDS = {
+    "linear": "linear regression (ridge)",
+    "rbf": "support vector regression with an RBF kernel",
+    "poly2": "ridge regression on degree-2 monomials",
+}
+PENALTIES = ("l2", "l1")
+KERNEL_APPROXIMATIONS = ("exact", "auto", "nystroem", "sample")
+LEARNING_FRACTIONS = (0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8)
+LEARNING_REPEATS = 3
+BOOTSTRAP_RESAMPLES = 1000
+INTERVAL_LEVEL = 0.95
+CHANCE_LEVEL = 0.05
+# Refits of a kernel machine cost about the square of the rows; the permutation test and the
+# learning curve run kernel machines on a sample of this many rows.
+KERNEL_PERMUTATION_ROWS = 1000
+KERNEL_CURVE_ROWS = 3000
+KERNEL_PERMUTATION_TEST_ROWS = 5000
+NYSTROEM_COMPONENTS = 1000
+MISPREDICTED_LIMIT = 100
+ROW_ID_LIST_LIMIT = 5000
+CLASS_RULE = ("beats chance: yes only when the 95% bootstrap interval of the Matthews "
+              "correlation on the test rows lies above 0 and the permutation p-value is below "
+              "0.05; otherwise no.")
+REGRESSION_RULE = ("beats chance: yes only when the 95% bootstrap interval of R^2 on the test "
+                   "rows lies above 0 and the permutation p-value is below 0.05; otherwise no.")
+
+
+@dataclass(frozen=True)
+class DecisionScores:
+    """Per-row decision scores of the separator fitted on all rows, kept for figures.
+
+    ``scores`` is the left side of the equation (or the machine's decision value where there
+    is no equation) minus the threshold, so 0 is the boundary; for several classes it has one
+    column per class (that class against the rest). ``rows`` are positions in the table's
+    frame, ``labels`` the class codes (or the numeric target), ``source`` says what the score
+    is.
+    """
+
+    rows: np.ndarray
+    row_ids: np.ndarray
+    scores: np.ndarray
+    labels: np.ndarray
+    predicted: np.ndarray
+    source: str
+
+
+@dataclass(frozen=True)
+class SeparatorResult:
+    """What the separator step found; ``to_json()`` follows the `separate` JSON contract."""
+
+    target: str
+    model: str
+    task: str                       # "classification" or "regression"
+    classes: tuple                  # class labels, in code order (binary: negative, positive)
+    positive_class: object
+    metrics: dict
+    baseline: dict
+    permutation_p: float | None
+    permutation_scores: tuple[float, ...]
+    permutation_observed: float | None
+    permutation_method: str
+    beats_chance: bool
+    beats_chance_rule: str
+    interval_method: str
+    confusion_matrix: dict | None
+    repeats: dict
+    learning_curve: tuple[dict, ...]
+    train_rows: int
+    test_rows: int
+    train_row_ids: tuple | None
+    test_row_ids: tuple | None
+    split_method: str
+    identical_rows_across_split: int
+    equation: object = None         # LinearEquation (binary linear models and poly2)
+    equations: tuple = ()           # one per class against the rest (several classes)
+    surrogate: object = None        # quadratic surrogate of an RBF machine
+    formula: object = None          # exact formula of a numeric target
+    kernel_method: str | None = None
+    mispredicted: tuple[dict, ...] = ()
+    warnings: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+    decision: DecisionScores | None = dataclasses.field(default=None, repr=False)
+    rows_used: int = 0
+    elapsed_seconds: float = 0.0
+    kind: ClassVar[str] = "separator"
+
+    @property
+    def beats_chance_text(self) -> str:
+        return "yes" if self.beats_chance else "no"
+
+    def to_json(self) -> dict:
+        """Plain JSON: the contract's fields first, then everything else the step reports.
+
+        ``elapsed_seconds`` is left out so that the same seed gives byte-identical JSON.
+        """
+        return plain({
+            "metrics": self.metrics,
+            "baseline": self.baseline,
+            "permutation_p": self.permutation_p,
+            "train_rows": self.train_rows,
+            "test_rows": self.test_rows,
+            "equation": _json_or_none(self.equation),
+            "equations": [_json_or_none(e) for e in self.equations],
+            "surrogate": _json_or_none(self.surrogate),
+            "formula": _json_or_none(self.formula),
+            "beats_chance": self.beats_chance_text,
+            "beats_chance_rule": self.beats_chance_rule,
+            "target": self.target,
+            "model": self.model,
+            "task": self.task,
+            "classes": list(self.classes),
+            "positive_class": self.positive_class,
+            "confusion_matrix": self.confusion_matrix,
+            "interval_method": self.interval_method,
+            "permutation_method": self.permutation_method,
+            "permutation_observed": self.permutation_observed,
+            "permutation_scores": list(self.permutation_scores),
+            "repeats": self.repeats,
+            "learning_curve": list(self.learning_curve),
+            "split_method": self.split_method,
+            "identical_rows_across_split": self.identical_rows_across_split,
+            "train_row_ids": None if self.train_row_ids is None
+            else [row_id(r) for r in self.train_row_ids],
+            "test_row_ids": None if self.test_row_ids is None
+            else [row_id(r) for r in self.test_row_ids],
+            "kernel_method": self.kernel_method,
+            "mispredicted": [m["row"] for m in self.mispredicted],
+            "mispredicted_details": list(self.mispredicted),
+            "rows_used": self.rows_used,
+            "warnings": list(self.warnings),
+            "notes": list(self.notes),
+        })
+
+    def summary(self) -> str:
+        """Short human text: scores next to chance, then the equation, then the verdict."""
+        words = (REGRESSION_WORDS if self.task == "regression" else MODEL_WORDS)[self.model]
+        head = f"separator for {self.target!r}: {words}"
+        if self.task == "classification" and self.positive_class is not None:
+            head += f", positive class {self.positive_class!r}"
+        lines = [head,
+                 f"  {self.rows_used} rows; split 1 has {self.train_rows} training and "
+                 f"{self.test_rows} test rows ({self.split_method})"]
+        m, b = self.metrics, self.baseline
+        if self.task == "classification":
+            lines.append(f"  accuracy {m['accuracy']:.3f} (majority-class baseline "
+                         f"{b['accuracy']:.3f}), balanced accuracy "
+                         f"{m['balanced_accuracy']:.3f}")
+            low, high = m["mcc_ci"]
+            lines.append(f"  Matthews correlation {m['mcc']:.3f}, 95% interval "
+                         f"[{low:.3f}, {high:.3f}] ({self.interval_method})")
+            spread = self.repeats.get("mean", {}), self.repeats.get("std", {})
+            if spread[0]:
+                lines.append(f"  over {len(self.repeats['splits'])} splits: Matthews "
+                             f"correlation {spread[0]['mcc']:.3f} +- {spread[1]['mcc']:.3f}")
+        else:
+            low, high = m["r2_ci"]
+            lines.append(f"  R^2 {m['r2']:.3f}, 95% interval [{low:.3f}, {high:.3f}] "
+                         f"({self.interval_method}); mean absolute error "
+                         f"{m['mean_absolute_error']:.4g} (predicting the training mean: "
+                         f"R^2 {b['r2']:.3f}, error {b['mean_absolute_error']:.4g})")
+            spread = self.repeats.get("mean", {}), self.repeats.get("std", {})
+            if spread[0]:
+                lines.append(f"  over {len(self.repeats['splits'])} splits: R^2 "
+                             f"{spread[0]['r2']:.3f} +- {spread[1]['r2']:.3f}")
+        if self.permutation_p is not None:
+            lines.append(f"  permutation p-value {self.permutation_p:.4g} "
+                         f"({self.permutation_method})")
+        else:
+            lines.append(f"  no permutation test ({self.permutation_method})")
+        lines.extend(f"  warning: {w}" for w in self.warnings)
+        if self.kernel_method:
+            lines.append(f"  kernel: {self.kernel_method}")
+        lines.extend(_equation_lines(self))
+        lines.append(f"beats chance: {self.beats_chance_text}")
+        return "\n".join(lines)
+
+
+def _json_or_none(value):
+    if value is None:
+        return None
+    return value.to_json() if hasattr(value, "to_json") else plain(value)
+
+
+def _equation_lines(result: SeparatorResult) -> list[str]:
+    lines = []
+    if result.formula is not None:
+        off = result.formula.rows_off
+        word = "formula" if off == 0 else "closest formula"
+        lines.append(f"  {word}: {_text(result.formula)} ({off} of "
+                     f"{result.formula.n_rows} rows off)")
+    if result.equations:
+        for eq in result.equations:
+            lines.append(f"  equation for {eq.positive_class!r} against the rest: "
+                         f"{_text(eq)}{_violations_text(eq)}")
+    elif result.equation is not None:
+        lines.append(f"  equation: {_text(result.equation)}{_violations_text(result.equation)}")
+    if result.surrogate is not None:
+        agreement = getattr(result.surrogate, "agreement", None)
+        extra = f" (agrees with the machine on {agreement:.1%} of rows)" \
+            if agreement is not None else ""
+        lines.append(f"  quadratic surrogate: {_text(result.surrogate)}{extra}")
+    if not lines:
+        lines.append("  equation: none (see notes)")
+    return lines
+
+
+def _text(equation) -> str:
+    return str(getattr(equation, "text", equation))
+
+
+def _violations_text(equation) -> str:
+    count = getattr(equation, "violations", None)
+    if count is None:
+        return ""
+    return f" ({count} violating row{'s' if count != 1 else ''})"
+
+
+# ----------------------------------------------------------------------------------------
+# The step
+
+
+@dataclass(frozen=True, kw_only=True)
+class SeparatorStep:
+    """Fit a separator for ``target``, validate it against chance, and state its equation.
+
+    Settings
+    --------
+    target: the column to predict (required): a flag or category (classification), or a
+        many-valued invariant (regression).
+    model: "linear" (linear support vector machine), "logistic", "lda", "rbf", "poly2".
+    penalty: "l2", or "l1" for equations with few terms (linear and logistic).
+    c: the support vector machine's C (inverse regularization strength), for every model
+        but LDA.
+    train_fraction: share of rows (of groups, when ``groups`` is given) used for training,
+        0.05 to 0.95.
+    repeats: number of random splits; split 1 carries the interval and permutation test,
+        all splits give the mean and spread.
+    permutations: label permutations for the p-value (0 skips the test).
+    groups: a column whose equal values (or, for a matrix column, equal canonical keys)
+        must stay on one side of every split.
+    augment_permutations: add this many randomly permuted copies of a matrix column's cell
+        for every training row (never for test rows).
+    positive_class: the class the equation describes; for a target with more classes it
+        turns the question into this class against the rest.
+    kernel_approximation: for rbf and poly2 past ``kernel_row_limit`` rows: "exact" refuses,
+        "auto" and "nystroem" use Nystroem features with a linear machine, "sample" fits
+        the exact machine on a sample of ``kernel_row_limit`` rows.
+    large_table_rows: from this many rows on, the permutation test uses at most
+        ``sample_rows`` rows and at most 50 permutations, and the equation is searched on a
+        sample of ``sample_rows`` rows (then checked on every row).
+    max_terms, max_denominator: limits for the exact equation (None: the search's defaults).
+    """
+
+    target: str | None = None
+    model: str = "linear"
+    penalty: str = "l2"
+    c: float = 1.0
+    train_fraction: float = 0.5
+    repeats: int = 5
+    permutations: int = 200
+    groups: str | None = None
+    columns: list[str] | None = None
+    array_encoding: str = "invariant"
+    log_scale: str = "auto"
+    missing: str = "drop"
+    positive_class: str | int | float | bool | None = None
+    augment_permutations: int = 0
+    kernel_approximation: str = "exact"
+    kernel_row_limit: int = 20_000
+    large_table_rows: int = 200_000
+    sample_rows: int = 20_000
+    max_terms: int | None = None
+    max_denominator: int | None = None
+    seed: int = 0
+    kind: ClassVar[str] = "separator"
+
+    def run(self, table: Table) -> SeparatorResult:
+        """Run the validation protocol on ``table`` and find the separating equation."""
+        started = time.perf_counter()
+        self._check_settings(table)
+        result = _Run(self, table).execute()
+        return dataclasses.replace(result, elapsed_seconds=time.perf_counter() - started)
+
+    def _check_settings(self, table: Table) -> None:
+        if not self.target:
+            raise StepError(f"{table.name}: the separator needs a target column; name one "
+                            "with target (--target COL on the command line).")
+        info = table.column(self.target)
+        if info.role in ("id", "text", "array"):
+            raise StepError(f"{table.name}: the {info.role} column {self.target!r} cannot be "
+                            "a target. Choose a flag, category or invariant column, or change "
+                            "its role.")
+        if self.model not in MODELS:
+            raise StepError(f"model {self.model!r}: use one of {', '.join(MODELS)}.")
+        if self.penalty not in PENALTIES:
+            raise StepError(f"penalty {self.penalty!r}: use l2, or l1 for equations with few "
+                            "terms.")
+        if self.penalty == "l1" and self.model not in ("linear", "logistic"):
+            raise StepError(f"penalty l1 applies to the linear and logistic models, not to "
+                            f"{self.model!r}. Use penalty l2 or another model.")
+        fraction = self.train_fraction
+        if not isinstance(fraction, (int, float)) or isinstance(fraction, bool) \
+                or not 0.05 <= float(fraction) <= 0.95:
+            raise StepError(f"train fraction {fraction!r}: use a number from 0.05 to 0.95 "
+                            "(the share of rows used for training).")
+        for name, value, low in (("repeats", self.repeats, 1),
+                                 ("permutations", self.permutations, 0),
+                                 ("augment_permutations", self.augment_permutations, 0),
+                                 ("kernel_row_limit", self.kernel_row_limit, 100),
+                                 ("large_table_rows", self.large_table_rows, 100),
+                                 ("sample_rows", self.sample_rows, 100)):
+            if not isinstance(value, int) or isinstance(value, bool) or value < low:
+                raise StepError(f"{name} {value!r}: use a whole number of at least {low}.")
+        if not isinstance(self.c, (int, float)) or isinstance(self.c, bool) or not (
+                math.isfinite(self.c) and self.c > 0):
+            raise StepError(f"c {self.c!r}: use a positive number (the support vector "
+                            "machine's C; larger fits the training rows more tightly).")
+        if self.kernel_approximation not in KERNEL_APPROXIMATIONS:
+            raise StepError(f"kernel approximation {self.kernel_approximation!r}: use one of "
+                            f"{', '.join(KERNEL_APPROXIMATIONS)}.")
+        for name, value in (("max_terms", self.max_terms),
+                            ("max_denominator", self.max_denominator)):
+            if value is not None and (not isinstance(value, int) or isinstance(value, bool)
+                                      or value < 1):
+                raise StepError(f"{name} {value!r}: use a whole number of at least 1, or "
+                                "leave it unset.")
+        if self.groups is not None:
+            table.column(self.groups)
+            if self.groups == self.target:
+                raise StepError(f"{table.name}: the group column cannot be the target "
+                                f"{self.target!r}.")
+
+
+# ----------------------------------------------------------------------------------------
+# One run of the protocol
+
+
+class _Run:
+    """The state of one run: features, labels, splits, and the fitting recipe."""
+
+    def __init__(self, step: SeparatorStep, table: Table):
+        self.step = step
+        self.table = table
+        self.notes: list[str] = []
+        self.warnings: list[str] = []
+        self.fit_warnings: set[str] = set()
+
+    # -- preparation ----------------------------------------------------------------------
+
+    def execute(self) -> SeparatorResult:
+        step, table = self.step, self.table
+        fm = build_features(table, columns=step.columns, target=step.target,
+                            array_encoding=step.array_encoding, log_scale=step.log_scale,
+                            missing=step.missing, exclude=_excluded(table, step))
+        self.fm = fm
+        self.notes.extend(fm.notes)
+        self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
+        self.regression = is_numeric_target(table, step.target)
+        raw = target_values(table, step.target, fm.rows)
+        if self.regression:
+            self._prepare_regression(raw)
+        else:
+            self._prepare_classes(raw)
+        n = len(self.y)
+        self.big = n >= step.large_table_rows
+        self.group_labels = None
+        if step.groups is not None:
+            self.group_labels = group_keys(table, step.groups)[fm.rows]
+            distinct = len(set(self.group_labels.tolist()))
+            if distinct < 2:
+                raise StepError(f"{table.name}: the group column {step.groups!r} puts every "
+                                "row in one group, so no split can keep groups apart. Choose "
+                                "another group column.")
+            what = "canonical keys of the matrix column" if \
+                table.column(step.groups).role == "array" else "values of the column"
+            self.notes.append(f"groups: {distinct} groups from the {what} {step.groups!r}; "
+                              "each group stays on one side of every split.")
+        self._choose_kernel_method()
+        self._prepare_copies()
+        return self._protocol()
+
+    def _prepare_classes(self, raw: np.ndarray) -> None:
+        step = self.step
+        labels = np.array([_label(v) for v in raw], dtype=object)
+        values, counts = _count_labels(labels)
+        if len(values) < 2:
+            only = values[0] if values else None
+            raise StepError(f"{self.table.name}: the target {step.target!r} has one class "
+                            f"({only!r}) on all {len(labels)} rows used; a separator needs at "
+                            "least two classes. Choose another target or other rows.")
+        rare = [v for v, c in zip(values, counts) if c < 2]
+        if rare and step.positive_class is None:
+            keep = ~np.isin(labels, np.array(rare, dtype=object))
+            self.notes.append(f"left out {int((~keep).sum())} rows of classes with a single "
+                              f"row ({', '.join(map(repr, rare[:10]))}): a split cannot put "
+                              "them on both sides.")
+            self._keep_rows(keep)
+            labels = labels[keep]
+            values, counts = _count_labels(labels)
+            if len(values) < 2:
+                raise StepError(f"{self.table.name}: the target {step.target!r} has only one "
+                                "class with more than one row. Choose another target.")
+        positive = _resolve_positive(values, counts, step.positive_class, step.target,
+                                     self.table.name)
+        if positive is not None:
+            self.positive_class = positive
+            negative = values[0] if len(values) == 2 and values[1] == positive else (
+                values[1] if len(values) == 2 else f"not {positive}")
+            if len(values) > 2:
+                self.notes.append(f"{len(values)} classes: {positive!r} against the rest.")
+            self.classes = (negative, positive)
+            self.y = np.array([1 if _same_label(v, positive) else 0 for v in labels],
+                              dtype=np.int64)
+            if len(values) > 2 and min(int(self.y.sum()), int(len(self.y) - self.y.sum())) < 2:
+                raise StepError(f"{self.table.name}: class {positive!r} of {step.target!r} "
+                                "has fewer than two rows; choose another positive class.")
+        else:
+            self.positive_class = None
+            self.classes = tuple(values)
+            lookup = {repr(v): i for i, v in enumerate(values)}
+            self.y = np.array([lookup[repr(v)] for v in labels], dtype=np.int64)
+        self.n_classes = len(self.classes)
+
+    def _prepare_regression(self, raw: np.ndarray) -> None:
+        step = self.step
+        if step.model in ("logistic", "lda"):
+            raise StepError(f"{self.table.name}: the target {step.target!r} is a numeric "
+                            f"invariant with many values, and the model {step.model!r} needs "
+                            "classes. Use model linear, rbf or poly2 for a regression, or "
+                            "give the target the role category.")
+        if step.positive_class is not None:
+            raise StepError(f"{self.table.name}: positive_class applies to class targets; "
+                            f"{step.target!r} is a numeric invariant with many values.")
+        y = np.asarray(raw, dtype=np.float64)
+        if np.ptp(y) == 0:
+            raise StepError(f"{self.table.name}: the target {step.target!r} takes one value on "
+                            "every row used; there is nothing to predict.")
+        self.y = y
+        self.classes = ()
+        self.positive_class = None
+        self.n_classes = 0
+        self.notes.append(f"{step.target!r} is a numeric invariant with many values: fitted "
+                          "as a regression.")
+
+    def _keep_rows(self, keep: np.ndarray) -> None:
+        self.fm = dataclasses.replace(self.fm, values=self.fm.values[keep],
+                                      rows=self.fm.rows[keep], row_ids=self.fm.row_ids[keep])
+        self.X = np.ascontiguousarray(self.X[keep])
+
+    def _choose_kernel_method(self) -> None:
+        step = self.step
+        n = len(self.y)
+        kernel = step.model == "rbf" or (step.model == "poly2" and not self.regression)
+        self.kernel_mode = "exact"
+        self.kernel_method = None
+        if not kernel:
+            return
+        if n > step.kernel_row_limit:
+            if step.kernel_approximation == "exact":
+                raise StepError(
+                    f"{self.table.name}: model {step.model!r} on {n} rows: an exact kernel "
+                    f"machine past {step.kernel_row_limit} rows takes too long and too much "
+                    "memory. Set kernel_approximation to 'auto' (Nystroem features with a "
+                    "linear machine) or 'sample' (the exact machine on a sample of "
+                    f"{step.kernel_row_limit} rows), raise kernel_row_limit, or use the "
+                    "linear model.")
+            self.kernel_mode = "sample" if step.kernel_approximation == "sample" \
+                else "nystroem"
+        elif step.kernel_approximation == "nystroem":
+            self.kernel_mode = "nystroem"
+        if self.kernel_mode == "nystroem":
+            components = min(NYSTROEM_COMPONENTS, n)
+            self.kernel_method = (f"approximate: Nystroem features ({components} components, "
+                                  "seeded) with a linear support vector machine")
+        elif self.kernel_mode == "sample":
+            self.kernel_method = (f"exact kernel machine fitted on a stratified sample of at "
+                                  f"most {step.kernel_row_limit} training rows")
+        else:
+            self.kernel_method = "exact kernel machine"
+        self.notes.append(f"kernel: {self.kernel_method}.")
+
+    def _prepare_copies(self) -> None:
+        """Permuted copies of a matrix column, for augmenting training sides only."""
+        step = self.step
+        self.copy_values = None
+        self.copy_source = None
+        if step.augment_permutations == 0:
+            return
+        column = _augment_column(self.table, self.fm, step.groups)
+        values, source = _permuted_copies(self.table, self.fm, column,
+                                          step.augment_permutations, step.seed,
+                                          step.array_encoding, step.log_scale)
+        self.copy_values = values
+        self.copy_source = source
+        self.notes.append(f"augmentation: {step.augment_permutations} permuted copies of "
+                          f"{column!r} per training row (rows and columns permuted "
+                          "together for symmetric matrices, independently otherwise); test "
+                          "rows are never copied.")
+
+    # -- fitting --------------------------------------------------------------------------
+
+    def _fit(self, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset: int = 0):
+        """Fit the model on ``train`` rows (labels default to the true ones), with copies."""
+        step = self.step
+        y = self.y if labels is None else labels
+        rows = train
+        if self.kernel_mode == "sample" and len(rows) > step.kernel_row_limit:
+            rows = _subsample(rows, None if self.regression else y[rows],
+                              step.kernel_row_limit, step.seed + 17 + seed_offset)
+        X_train = self.X[rows]
+        y_train = y[rows]
+        if self.copy_values is not None:
+            chosen = np.isin(self.copy_source, rows)
+            X_train = np.vstack([X_train, self.copy_values[chosen]])
+            y_train = np.concatenate([y_train, y[self.copy_source[chosen]]])
+        estimator = _estimator(step, regression=self.regression, n_classes=self.n_classes,
+                               kernel_mode=self.kernel_mode, n_rows=len(y_train),
+                               seed=step.seed + seed_offset)
+        with _warnings.catch_warnings(record=True) as caught:
+            _warnings.simplefilter("always")
+            estimator.fit(X_train, y_train)
+        for w in caught:
+            name = w.category.__name__
+            if name == "ConvergenceWarning":
+                self.fit_warnings.add("the solver stopped at its iteration limit on some "
+                                      "fits; the scores still come from held-out rows.")
+            elif "collinear" in str(w.message).lower():
+                self.fit_warnings.add("some features are collinear (LDA).")
+        return estimator
+
+    def _score(self, y_true: np.ndarray, predicted: np.ndarray) -> float:
+        if self.regression:
+            return _r2(y_true, predicted)
+        return float(_mcc_from_counts(_confusion(y_true, predicted, self.n_classes)))
+
+    # -- the protocol ---------------------------------------------------------------------
+
+    def _protocol(self) -> SeparatorResult:
+        step = self.step
+        y = self.y
+        n = len(y)
+        strata = None if self.regression else y
+        splits, split_method = _splits(n, strata, self.group_labels,
+                                       float(step.train_fraction), step.repeats, step.seed,
+                                       self.table.name)
+        per_split = []
+        first = None
+        for index, (train, test) in enumerate(splits):
+            model = self._fit(train, seed_offset=index)
+            predicted = _predict(model, self.X[test])
+            metrics = self._split_metrics(train, test, predicted)
+            per_split.append({"split": index + 1, "train_rows": len(train),
+                              "test_rows": len(test), **metrics})
+            if index == 0:
+                first = (train, test, model, predicted)
+        train, test, model, predicted = first
+        repeats = {"splits": per_split, "mean": _mean_of(per_split), "std": _std_of(per_split)}
+        identical = _identical_across(self.X, train, test)
+        if identical:
+            others = sum(1 for tr, te in splits[1:] if _identical_across(self.X, tr, te))
+            self.warnings.append(
+                f"{identical} test rows of split 1 have exactly the same feature values as a "
+                f"training row (and {others} of the other {len(splits) - 1} splits have such "
+                "rows): the separator is partly scored on rows it has seen. If these are copies "
+                "of one object, name a group column (groups), or the matrix column, so they "
+                "stay on one side.")
+        if self.regression:
+            metrics, baseline, interval = self._regression_report(train, test, predicted)
+            confusion = None
+        else:
+            metrics, baseline, interval, confusion = self._class_report(test, predicted)
+        p_value, null, observed, permutation_method = self._permutation_test(train, test)
+        statistic = metrics["r2_ci"] if self.regression else metrics["mcc_ci"]
+        beats = bool(statistic[0] is not None and statistic[0] > 0 and p_value is not None
+                     and p_value < CHANCE_LEVEL)
+        curve = self._learning_curve()
+        mispredicted = self._mispredicted(model, test, predicted)
+        equation_part = self._equation_part()
+        small = n <= ROW_ID_LIST_LIMIT
+        ids = self.fm.row_ids
+        self.notes.append(f"split 1 carries the metrics, the confusion matrix, the interval "
+                          f"and the permutation test; {len(splits)} splits give the mean and "
+                          "spread.")
+        self.notes.extend(sorted(self.fit_warnings))
+        return SeparatorResult(
+            target=step.target, model=step.model,
+            task="regression" if self.regression else "classification",
+            classes=tuple(self.classes), positive_class=self.positive_class,
+            metrics=metrics, baseline=baseline, permutation_p=p_value,
+            permutation_scores=tuple(float(v) for v in null),
+            permutation_observed=observed, permutation_method=permutation_method,
+            beats_chance=beats,
+            beats_chance_rule=REGRESSION_RULE if self.regression else CLASS_RULE,
+            interval_method=interval, confusion_matrix=confusion, repeats=repeats,
+            learning_curve=tuple(curve), train_rows=len(train), test_rows=len(test),
+            train_row_ids=tuple(ids[train].tolist()) if small else None,
+            test_row_ids=tuple(ids[test].tolist()) if small else None,
+            split_method=split_method, identical_rows_across_split=identical,
+            kernel_method=self.kernel_method, mispredicted=tuple(mispredicted),
+            warnings=tuple(self.warnings), notes=tuple(self.notes), rows_used=n,
+            **equation_part,
+        )
+
+    def _split_metrics(self, train, test, predicted) -> dict:
+        y = self.y
+        if self.regression:
+            mean = float(np.mean(y[train]))
+            return {"r2": _r2(y[test], predicted),
+                    "mean_absolute_error": float(np.mean(np.abs(y[test] - predicted))),
+                    "baseline_r2": _r2(y[test], np.full(len(test), mean)),
+                    "baseline_mean_absolute_error": float(np.mean(np.abs(y[test] - mean)))}
+        counts = _confusion(y[test], predicted, self.n_classes)
+        return {"accuracy": float(np.trace(counts) / counts.sum()),
+                "balanced_accuracy": _balanced_accuracy(counts),
+                "mcc": float(_mcc_from_counts(counts)),
+                "baseline_accuracy": float(counts.sum(axis=1).max() / counts.sum())}
+
+    def _class_report(self, test, predicted):
+        counts = _confusion(self.y[test], predicted, self.n_classes)
+        low, high = _mcc_interval(counts, BOOTSTRAP_RESAMPLES, self.step.seed)
+        metrics = {"accuracy": float(np.trace(counts) / counts.sum()),
+                   "balanced_accuracy": _balanced_accuracy(counts),
+                   "mcc": float(_mcc_from_counts(counts)),
+                   "mcc_ci": [low, high]}
+        baseline = {"accuracy": float(counts.sum(axis=1).max() / counts.sum())}
+        interval = (f"bootstrap, {BOOTSTRAP_RESAMPLES} resamples of the {counts.sum()} test "
+                    "rows, percentile 95% interval, seeded")
+        confusion = {"labels": list(self.classes), "counts": counts.tolist(),
+                     "rows": "actual class", "columns": "predicted class"}
+        return metrics, baseline, interval, confusion
+
+    def _regression_report(self, train, test, predicted):
+        y = self.y
+        mean = float(np.mean(y[train]))
+        sample = np.arange(len(test))
+        limit = self.step.sample_rows
+        if len(test) > limit:
+            sample = np.sort(np.random.default_rng([self.step.seed, 3]).choice(
+                len(test), limit, replace=False))
+        low, high = _r2_interval(y[test][sample], predicted[sample], BOOTSTRAP_RESAMPLES,
+                                 self.step.seed)
+        metrics = {"r2": _r2(y[test], predicted), "r2_ci": [low, high],
+                   "mean_absolute_error": float(np.mean(np.abs(y[test] - predicted)))}
+        baseline = {"r2": _r2(y[test], np.full(len(test), mean)),
+                    "mean_absolute_error": float(np.mean(np.abs(y[test] - mean))),
+                    "prediction": mean}
+        interval = (f"bootstrap, {BOOTSTRAP_RESAMPLES} resamples of "
+                    f"{len(sample)} test rows, percentile 95% interval, seeded")
+        if len(sample) < len(test):
+            interval += f" (a sample of the {len(test)} test rows)"
+        return metrics, baseline, interval
+
+    def _permutation_test(self, train, test):
+        step = self.step
+        count = step.permutations
+        if count == 0:
+            return None, (), None, "skipped (permutations = 0)"
+        kernel = self.kernel_mode in ("exact", "sample") and self.kernel_method is not None
+        train_limit = KERNEL_PERMUTATION_ROWS if kernel else step.sample_rows
+        if self.big:
+            count = min(count, 50)
+        rng = np.random.default_rng([step.seed, 11])
+        strata = None if self.regression else self.y
+        train_part = train if len(train) <= train_limit else _subsample(
+            train, None if strata is None else strata[train], train_limit, step.seed + 23)
+        test_limit = KERNEL_PERMUTATION_TEST_ROWS if kernel else step.sample_rows
+        test_part = test if len(test) <= test_limit else np.sort(
+            rng.choice(test, test_limit, replace=False))
+        observed_model = self._fit(train_part, seed_offset=1000)
+        observed = self._score(self.y[test_part], _predict(observed_model, self.X[test_part]))
+        null = np.empty(count)
+        for i in range(count):
+            labels = self.y.copy()
+            labels[train_part] = rng.permutation(self.y[train_part])
+            model = self._fit(train_part, labels, seed_offset=1000)
+            null[i] = self._score(self.y[test_part], _predict(model, self.X[test_part]))
+        p_value = float((np.sum(null >= observed - 1e-12) + 1) / (count + 1))
+        statistic = "R^2" if self.regression else "Matthews correlation"
+        method = (f"{count} permutations of the training labels, model refitted each time, "
+                  f"{statistic} on the test rows; p = (count of permuted scores >= observed "
+                  "+ 1) / (permutations + 1)")
+        if len(train_part) < len(train) or len(test_part) < len(test):
+            method += (f"; on a sample of {len(train_part)} training and {len(test_part)} "
+                       f"test rows, with the observed score {observed:.3f} refitted on the "
+                       "same sample")
+        if count < step.permutations:
+            method += f" (fewer than the {step.permutations} asked: the table is large)"
+        if count < 1 / CHANCE_LEVEL - 1:
+            self.notes.append(f"only {count} permutations: the smallest possible p-value is "
+                              f"{1 / (count + 1):.3f}, so the verdict cannot be yes.")
+        return p_value, tuple(null.tolist()), float(observed), method
+
+    def _learning_curve(self) -> list[dict]:
+        step = self.step
+        kernel = self.kernel_mode in ("exact", "sample") and self.kernel_method is not None
+        limit = KERNEL_CURVE_ROWS if kernel else step.sample_rows
+        n = len(self.y)
+        pool = np.arange(n)
+        if n > limit:
+            pool = _subsample(pool, None if self.regression else self.y, limit,
+                              step.seed + 31, groups=self.group_labels)
+            self.notes.append(f"learning curve on a sample of {len(pool)} of the {n} rows.")
+        strata = None if self.regression else self.y[pool]
+        groups = None if self.group_labels is None else self.group_labels[pool]
+        points = []
+        skipped = []
+        for k, fraction in enumerate(LEARNING_FRACTIONS):
+            try:
+                splits, _ = _splits(len(pool), strata, groups, fraction, LEARNING_REPEATS,
+                                    step.seed + 101 * (k + 1), self.table.name)
+            except StepError:
+                skipped.append(fraction)
+                continue
+            scores = []
+            for j, (train, test) in enumerate(splits):
+                model = self._fit(pool[train], seed_offset=2000 + j)
+                scores.append(self._score(self.y[pool[test]],
+                                          _predict(model, self.X[pool[test]])))
+            points.append({"train_fraction": fraction,
+                           "train_rows": int(np.mean([len(t) for t, _ in splits])),
+                           "metric": "r2" if self.regression else "mcc",
+                           "mean": float(np.mean(scores)), "std": float(np.std(scores)),
+                           "scores": [float(s) for s in scores]})
+        if skipped:
+            self.notes.append("learning curve: no valid split at training fraction "
+                              f"{', '.join(map(str, skipped))} (too few rows per class or "
+                              "group).")
+        return points
+
+    def _mispredicted(self, model, test, predicted) -> list[dict]:
+        """Test rows the separator gets wrong while being confident about them."""
+        ids = self.fm.row_ids
+        y = self.y
+        if self.regression:
+            residual = np.abs(y[test] - predicted)
+            typical = float(np.median(residual))
+            if typical == 0:
+                typical = float(np.mean(residual))
+            chosen = np.flatnonzero(residual > 3 * typical) if typical > 0 else np.array([],
+                                                                                         int)
+            order = chosen[np.argsort(-residual[chosen], kind="stable")][:MISPREDICTED_LIMIT]
+            return [{"row": row_id(ids[test[i]]), "actual": float(y[test[i]]),
+                     "predicted": float(predicted[i]), "confidence": float(residual[i])}
+                    for i in order]
+        wrong = np.flatnonzero(predicted != y[test])
+        if len(wrong) == 0 or not hasattr(model, "decision_function"):
+            return []
+        scores = np.asarray(model.decision_function(self.X[test]), dtype=np.float64)
+        if scores.ndim == 1:
+            # two classes: the distance from the boundary, in decision units
+            confidence = np.abs(scores)
+            typical = float(np.median(confidence))
+        else:
+            # several classes: how far the predicted class's score beats the actual one's,
+            # compared with the usual winning margin over the runner-up
+            rows = np.arange(len(test))
+            confidence = scores[rows, predicted] - scores[rows, y[test]]
+            ordered = np.sort(scores, axis=1)
+            typical = float(np.median(ordered[:, -1] - ordered[:, -2]))
+        chosen = wrong[confidence[wrong] >= typical]
+        order = chosen[np.argsort(-confidence[chosen], kind="stable")][:MISPREDICTED_LIMIT]
+        return [{"row": row_id(ids[test[i]]), "actual": self.classes[y[test[i]]],
+                 "predicted": self.classes[predicted[i]],
+                 "confidence": float(confidence[i])} for i in order]
+
+    # -- equations ------------------------------------------------------------------------
+
+    def _equation_part(self) -> dict:
+        """Fit on every row, then state the separator as an exact equation checked on every
+        row (the search itself runs on a sample of ``sample_rows`` rows past that size)."""
+        from analysis import equations as eqs
+
+        step = self.step
+        n = len(self.y)
+        model = self._fit(np.arange(n), seed_offset=5000)
+        predicted = np.asarray(_predict(model, self.X))
+        names = list(self.fm.names)
+        ids = self.fm.row_ids
+        options = {"exact_columns": tuple(self.fm.exact_columns),
+                   "sample_size": step.sample_rows, "seed": step.seed}
+        if step.max_terms is not None:
+            options["max_terms"] = step.max_terms
+        if step.max_denominator is not None:
+            options["max_denominator"] = step.max_denominator
+        if n > step.sample_rows:
+            self.notes.append(f"the equation was searched on a sample of {step.sample_rows} "
+                              f"rows, then checked on all {n} rows.")
+
+        def scores_of(source, values):
+            return DecisionScores(rows=self.fm.rows, row_ids=ids, scores=values,
+                                  labels=self.y, predicted=predicted, source=source)
+
+        if self.regression:
+            formula = eqs.find_formula(self.X, self._exact_target(), names, row_ids=ids,
+                                       target_name=step.target, **options)
+            return {"formula": formula,
+                    "decision": scores_of("prediction of the model fitted on all rows",
+                                          predicted.astype(np.float64))}
+        if step.model in ("linear", "logistic", "lda"):
+            weights, intercepts = _raw_hyperplanes(model)
+            if self.n_classes == 2:
+                equation = eqs.find_linear_equation(
+                    self.X, self.y == 1, names, row_ids=ids,
+                    positive_class=self.positive_class,
+                    hint=(weights[0], float(intercepts[0])), **options)
+                return {"equation": equation,
+                        "decision": scores_of("left side minus constant of the equation",
+                                              _left_side(equation, self.X, names))}
+            # one equation per class against the rest, each seeded with that class's
+            # hyperplane from the fitted model
+            equations = tuple(
+                eqs.find_linear_equation(
+                    self.X, self.y == k, names, row_ids=ids, positive_class=label,
+                    hint=(weights[k], float(intercepts[k])), **options)
+                for k, label in enumerate(self.classes))
+            columns = np.column_stack([_left_side(e, self.X, names) for e in equations])
+            return {"equations": equations,
+                    "decision": scores_of("left side minus constant of each class's equation "
+                                          "(that class against the rest)", columns)}
+        decision = np.asarray(model.decision_function(self.X), dtype=np.float64)
+        machine_scores = scores_of("decision value of the kernel machine fitted on all rows",
+                                   decision)
+        if self.n_classes != 2:
+            self.notes.append("no equation for a kernel machine over several classes; choose "
+                              "a positive class to get one for that class against the rest.")
+            return {"decision": machine_scores}
+        if step.model == "poly2" and self.kernel_mode != "nystroem":
+            equation = eqs.poly2_equation(model, None, names, self.X, self.y == 1, row_ids=ids,
+                                          positive_class=self.positive_class, **options)
+            return {"equation": equation,
+                    "decision": scores_of("left side minus constant of the polynomial "
+                                          "equation", _left_side(equation, self.X, names))}
+        surrogate = eqs.surrogate_quadratic(self.X, predicted == 1, names, row_ids=ids,
+                                            positive_class=self.positive_class, **options)
+        return {"surrogate": surrogate, "decision": machine_scores}
+
+    def _exact_target(self) -> np.ndarray:
+        """The numeric target as exact values when the column is integer or rational."""
+        info = self.table.column(self.step.target)
+        if info.dtype in ("integer", "big integer", "rational"):
+            exact = self.table.exact(self.step.target)
+            values = [exact[i] for i in self.fm.rows]
+            if all(v is not None for v in values):
+                return np.array(values, dtype=object)
+        return self.y
+
+
+# ----------------------------------------------------------------------------------------
+# Estimators
+
+
+def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_mode: str,
+               n_rows: int, seed: int):
+    """The scikit-learn pipeline for the step's model: always standardized features first."""
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    c = float(step.c)
+    model = step.model
+    if regression:
+        from sklearn.compose import TransformedTargetRegressor
+        from sklearn.linear_model import Lasso, Ridge
+
+        if model == "linear":
+            inner = Ridge(alpha=1.0 / c) if step.penalty == "l2" else Lasso(
+                alpha=0.01 / c, max_iter=5000)
+            pipeline = make_pipeline(StandardScaler(), inner)
+        elif model == "poly2":
+            from sklearn.preprocessing import PolynomialFeatures
+
+            pipeline = make_pipeline(StandardScaler(), PolynomialFeatures(2),
+                                     StandardScaler(), Ridge(alpha=1.0 / c))
+        else:
+            if kernel_mode == "nystroem":
+                from sklearn.kernel_approximation import Nystroem
+
+                pipeline = make_pipeline(
+                    StandardScaler(),
+                    Nystroem(kernel="rbf", n_components=min(NYSTROEM_COMPONENTS, n_rows),
+                             random_state=seed),
+                    Ridge(alpha=1.0 / c))
+            else:
+                from sklearn.svm import SVR
+
+                pipeline = make_pipeline(StandardScaler(), SVR(kernel="rbf", C=c,
+                                                               gamma="scale"))
+        # the target is standardized too, so the penalty means the same at any scale
+        return TransformedTargetRegressor(regressor=pipeline, transformer=StandardScaler())
+    if model == "linear":
+        from sklearn.svm import LinearSVC
+
+        inner = LinearSVC(C=c, penalty=step.penalty, dual=False, class_weight="balanced",
+                          max_iter=5000)
+    elif model == "logistic":
+        from sklearn.linear_model import LogisticRegression
+
+        if step.penalty == "l1":
+            solver = "liblinear" if n_classes == 2 else "saga"
+            inner = LogisticRegression(C=c, l1_ratio=1.0, solver=solver,
+                                       class_weight="balanced", max_iter=5000,
+                                       random_state=seed)
+        else:
+            inner = LogisticRegression(C=c, class_weight="balanced", max_iter=2000)
+    elif model == "lda":
+        from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+
+        inner = LinearDiscriminantAnalysis(solver="svd")
+    elif kernel_mode == "nystroem":
+        from sklearn.kernel_approximation import Nystroem
+        from sklearn.svm import LinearSVC
+
+        kernel = {"kernel": "rbf"} if model == "rbf" else {"kernel": "poly", "degree": 2,
+                                                          "coef0": 1.0}
+        return make_pipeline(
+            StandardScaler(),
+            Nystroem(n_components=min(NYSTROEM_COMPONENTS, n_rows), random_state=seed,
+                     **kernel),
+            LinearSVC(C=c, dual=False, class_weight="balanced", max_iter=5000))
+    else:
+        from sklearn.svm import SVC
+
+        if model == "rbf":
+            inner = SVC(kernel="rbf", C=c, gamma="scale", class_weight="balanced")
+        else:
+            inner = SVC(kernel="poly", degree=2, coef0=1.0, C=c, gamma="scale",
+                        class_weight="balanced")
+    return make_pipeline(StandardScaler(), inner)
+
+
+def _predict(model, X: np.ndarray) -> np.ndarray:
+    """Predictions of a fitted pipeline.
+
+    A two-class kernel machine is evaluated as K(rows, support vectors) @ dual coefficients
+    + intercept with one matrix product, the same decision value the machine computes row by
+    row, many times faster on the permutation test's repeated scoring.
+    """
+    last = model[-1] if hasattr(model, "steps") else None
+    if last is None or type(last).__name__ != "SVC" or len(last.classes_) != 2 \
+            or len(model.steps) != 2:
+        return model.predict(X)
+    from sklearn.metrics.pairwise import pairwise_kernels
+
+    scaled = model[0].transform(X)
+    options = {"gamma": float(last._gamma)}
+    if last.kernel == "poly":
+        options.update(degree=last.degree, coef0=float(last.coef0))
+    kernel = pairwise_kernels(scaled, last.support_vectors_, metric=last.kernel, **options)
+    decision = kernel @ last.dual_coef_[0] + last.intercept_[0]
+    return last.classes_[(decision > 0).astype(np.int64)]
+
+
+def _raw_hyperplanes(pipeline) -> tuple[np.ndarray, np.ndarray]:
+    """Hyperplanes of a scaler + linear model in the table's own units.
+
+    With z = (x - mean) / scale, w.z + b = (w / scale).x + (b - (w / scale).mean).
+    For two classes, one row: positive decision means class code 1.
+    """
+    scaler, model = pipeline[0], pipeline[-1]
+    weights = np.atleast_2d(np.asarray(model.coef_, dtype=np.float64)) / scaler.scale_
+    intercepts = np.atleast_1d(np.asarray(model.intercept_, dtype=np.float64)) \
+        - weights @ scaler.mean_
+    return weights, intercepts
+
+
+def _left_side(equation, X: np.ndarray, names: list[str]) -> np.ndarray:
+    """The equation's left side minus its constant on every row, signed so that a row is
+    predicted positive exactly when the value is >= 0."""
+    position = {name: j for j, name in enumerate(names)}
+    total = np.zeros(len(X))
+    for term in equation.terms:
+        column = np.ones(len(X))
+        for factor in term.factor_names():
+            column = column * X[:, position[factor]]
+        total = total + float(term.coef) * column
+    total = total - float(equation.constant)
+    return -total if equation.relation == "<=" else total
+
+
+# ----------------------------------------------------------------------------------------
+# Splits
+
+
+def _splits(n: int, strata: np.ndarray | None, groups: np.ndarray | None, fraction: float,
+            count: int, seed: int, table_name: str) -> tuple[list, str]:
+    """``count`` (train, test) index pairs over ``n`` rows, and a sentence saying how.
+
+    ``strata`` are class codes (None for a regression); ``groups`` keep rows together.
+    """
+    from sklearn.model_selection import ShuffleSplit, StratifiedShuffleSplit
+
+    if groups is not None:
+        return _group_splits(strata, groups, fraction, count, seed, table_name)
+    index = np.zeros(n)
+    if strata is None:
+        splitter = ShuffleSplit(n_splits=count, train_size=fraction, random_state=seed)
+        method = f"random split, training fraction {fraction}"
+        return [(np.sort(a), np.sort(b)) for a, b in splitter.split(index)], method
+    splitter = StratifiedShuffleSplit(n_splits=count, train_size=fraction, random_state=seed)
+    try:
+        pairs = [(np.sort(a), np.sort(b)) for a, b in splitter.split(index, strata)]
+    except ValueError as exc:
+        raise StepError(f"{table_name}: cannot split {n} rows at training fraction "
+                        f"{fraction} with every class on both sides ({exc}). Use a training "
+                        "fraction nearer 0.5 or a target with fewer rare classes.") from None
+    return pairs, f"stratified random split, training fraction {fraction}"
+
+
+def _group_splits(strata, groups, fraction, count, seed, table_name):
+    from sklearn.model_selection import GroupShuffleSplit, StratifiedGroupKFold
+
+    codes = np.unique(groups.astype(str), return_inverse=True)[1]
+    n_groups = int(codes.max()) + 1
+    index = np.zeros(len(codes))
+    train_is_fold = fraction < 0.5
+    folds = max(2, round(1 / fraction) if train_is_fold else round(1 / (1 - fraction)))
+    achieved = 1 / folds if train_is_fold else 1 - 1 / folds
+    pairs = []
+    classification = strata is not None
+    if classification and abs(achieved - fraction) <= 0.05 and n_groups >= folds:
+        for r in range(count * 4):
+            splitter = StratifiedGroupKFold(n_splits=folds, shuffle=True,
+                                            random_state=seed + r)
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                fold_pairs = list(splitter.split(index, strata, codes))
+            a, b = fold_pairs[r % folds]
+            train, test = (b, a) if train_is_fold else (a, b)
+            if len(np.unique(strata[train])) == len(np.unique(strata)) and len(test):
+                pairs.append((np.sort(train), np.sort(test)))
+            if len(pairs) == count:
+                trained_on = "one fold" if train_is_fold else f"{folds - 1} of {folds} folds"
+                return pairs, (f"stratified group split ({folds} folds, training on "
+                               f"{trained_on}: training fraction about {achieved:.2f}), "
+                               f"{n_groups} groups")
+    pairs = []
+    for r in range(count * 20):
+        splitter = GroupShuffleSplit(n_splits=1, train_size=fraction, random_state=seed + r)
+        try:
+            a, b = next(splitter.split(index, None, codes))
+        except ValueError as exc:
+            raise StepError(f"{table_name}: cannot split {n_groups} groups at training "
+                            f"fraction {fraction} ({exc}). Use a fraction nearer 0.5.") from None
+        if classification and (len(np.unique(strata[a])) < len(np.unique(strata))
+                               or len(b) == 0):
+            continue
+        pairs.append((np.sort(a), np.sort(b)))
+        if len(pairs) == count:
+            return pairs, (f"group split, training fraction {fraction} of the "
+                           f"{n_groups} groups")
+    raise StepError(f"{table_name}: no split of the {n_groups} groups at training fraction "
+                    f"{fraction} puts every class on the training side. Use a fraction nearer "
+                    "0.5, fewer classes, or a group column with more groups.")
+
+
+def _subsample(rows: np.ndarray, strata: np.ndarray | None, size: int, seed: int, *,
+               groups: np.ndarray | None = None) -> np.ndarray:
+    """A seeded sample of ``size`` of ``rows`` (stratified by ``strata`` when given).
+
+    With ``groups``, whole groups are drawn so the sample's splits still keep them apart.
+    """
+    rows = np.asarray(rows)
+    if len(rows) <= size:
+        return rows
+    rng = np.random.default_rng([seed, 5])
+    if groups is not None:
+        labels = groups[rows]
+        unique, inverse = np.unique(labels.astype(str), return_inverse=True)
+        order = rng.permutation(len(unique))
+        sizes = np.bincount(inverse)[order]
+        take = order[: max(2, int(np.searchsorted(np.cumsum(sizes), size)) + 1)]
+        return rows[np.isin(inverse, take)]
+    if strata is None:
+        return np.sort(rng.choice(rows, size, replace=False))
+    from sklearn.model_selection import train_test_split
+
+    try:
+        chosen, _ = train_test_split(rows, train_size=size, stratify=strata,
+                                     random_state=int(rng.integers(2**31)))
+    except ValueError:
+        chosen = rng.choice(rows, size, replace=False)
+    return np.sort(chosen)
+
+
+def _identical_across(X: np.ndarray, train: np.ndarray, test: np.ndarray) -> int:
+    """How many test rows have exactly the same feature values as some training row."""
+    import pandas as pd
+
+    # adding 0.0 turns -0.0 into 0.0, so equal numbers hash equally
+    hashes = pd.util.hash_pandas_object(pd.DataFrame(X + 0.0), index=False).to_numpy()
+    return int(np.isin(hashes[test], hashes[train]).sum())
+
+
+# ----------------------------------------------------------------------------------------
+# Metrics
+
+
+def _confusion(actual: np.ndarray, predicted: np.ndarray, k: int) -> np.ndarray:
+    """Counts: rows are the actual class, columns the predicted class."""
+    return np.bincount(np.asarray(actual, dtype=np.int64) * k
+                       + np.asarray(predicted, dtype=np.int64),
+                       minlength=k * k).reshape(k, k)
+
+
+def _mcc_from_counts(counts: np.ndarray) -> np.ndarray:
+    """Matthews correlation from confusion matrices (any number of classes, batched).
+
+    With c correct, s rows, t_k actual and p_k predicted counts:
+    (c s - sum p_k t_k) / sqrt((s^2 - sum p_k^2)(s^2 - sum t_k^2)), and 0 when undefined.
+    """
+    counts = np.asarray(counts, dtype=np.float64)
+    actual = counts.sum(axis=-1)
+    predicted = counts.sum(axis=-2)
+    correct = np.trace(counts, axis1=-2, axis2=-1)
+    total = actual.sum(axis=-1)
+    top = correct * total - np.sum(predicted * actual, axis=-1)
+    bottom = (total**2 - np.sum(predicted**2, axis=-1)) * (total**2 - np.sum(actual**2, axis=-1))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        value = np.where(bottom > 0, top / np.sqrt(np.where(bottom > 0, bottom, 1.0)), 0.0)
+    return value
+
+
+def _balanced_accuracy(counts: np.ndarray) -> float:
+    actual = counts.sum(axis=1)
+    present = actual > 0
+    return float(np.mean(np.diag(counts)[present] / actual[present]))
+
+
+def _mcc_interval(counts: np.ndarray, resamples: int, seed: int) -> tuple[float, float]:
+    """Percentile bootstrap interval of the Matthews correlation over the test rows.
+
+    Resampling the test rows with replacement gives multinomial counts over the confusion
+    matrix's cells, so the resamples are drawn as counts directly.
+    """
+    total = int(counts.sum())
+    rng = np.random.default_rng([seed, 2])
+    draws = rng.multinomial(total, counts.ravel() / total, size=resamples)
+    values = _mcc_from_counts(draws.reshape(resamples, *counts.shape))
+    tail = (1 - INTERVAL_LEVEL) / 2 * 100
+    low, high = np.percentile(values, [tail, 100 - tail])
+    return float(low), float(high)
+
+
+def _r2(actual: np.ndarray, predicted: np.ndarray) -> float:
+    residual = float(np.sum((actual - predicted) ** 2))
+    spread = float(np.sum((actual - np.mean(actual)) ** 2))
+    if spread == 0:
+        return 1.0 if residual == 0 else 0.0
+    return 1 - residual / spread
+
+
+def _r2_interval(actual, predicted, resamples: int, seed: int) -> tuple[float, float]:
+    rng = np.random.default_rng([seed, 4])
+    n = len(actual)
+    values = np.empty(resamples)
+    chunk = max(1, 2_000_000 // max(n, 1))
+    for start in range(0, resamples, chunk):
+        stop = min(resamples, start + chunk)
+        picks = rng.integers(0, n, size=(stop - start, n))
+        a, p = actual[picks], predicted[picks]
+        residual = np.sum((a - p) ** 2, axis=1)
+        spread = np.sum((a - a.mean(axis=1, keepdims=True)) ** 2, axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values[start:stop] = np.where(spread > 0, 1 - residual / np.where(
+                spread > 0, spread, 1.0), np.where(residual == 0, 1.0, 0.0))
+    tail = (1 - INTERVAL_LEVEL) / 2 * 100
+    low, high = np.percentile(values, [tail, 100 - tail])
+    return float(low), float(high)
+
+
+def _mean_of(splits: list[dict]) -> dict:
+    keys = [k for k in splits[0] if k not in ("split", "train_rows", "test_rows")]
+    return {k: float(np.mean([s[k] for s in splits])) for k in keys}
+
+
+def _std_of(splits: list[dict]) -> dict:
+    keys = [k for k in splits[0] if k not in ("split", "train_rows", "test_rows")]
+    return {k: float(np.std([s[k] for s in splits])) for k in keys}
+
+
+# ----------------------------------------------------------------------------------------
+# Labels
+
+
+def _label(value):
+    """A class label as a plain value: bool, int for whole numbers, else str."""
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return int(value) if float(value).is_integer() else float(value)
+    return str(value)
+
+
+def _count_labels(labels: np.ndarray) -> tuple[list, list[int]]:
+    counts: dict = {}
+    for v in labels.tolist():
+        counts[v] = counts.get(v, 0) + 1
+    values = sorted(counts, key=lambda v: (type(v).__name__, v))
+    return values, [counts[v] for v in values]
+
+
+def _same_label(a, b) -> bool:
+    return type(a) is type(b) and a == b
+
+
+def _resolve_positive(values: list, counts: list[int], requested, target: str,
+                      table_name: str):
+    """The positive class: the one asked for, True for flags, else the rarer of two."""
+    if requested is not None:
+        for v in values:
+            if _same_label(v, _label(requested)) or str(v).lower() == str(requested).lower():
+                return v
+        shown = ", ".join(repr(v) for v in values[:20])
+        raise StepError(f"{table_name}: positive class {requested!r} is not a value of "
+                        f"{target!r}; its values are {shown}.")
+    if len(values) != 2:
+        return None
+    if set(values) == {False, True}:
+        return True
+    # the rarer class is usually the property asked about; ties go to the later value
+    return values[0] if counts[0] < counts[1] else values[1]
+
+
+# ----------------------------------------------------------------------------------------
+# Augmentation
+
+
+def _excluded(table: Table, step: SeparatorStep) -> tuple[str, ...]:
+    """Columns left out of the default features: the group column when it is not a matrix
+    (a group label is a name for the object, not an invariant of it)."""
+    if step.groups is None or step.columns is not None:
+        return ()
+    if table.column(step.groups).role == "array":
+        return ()
+    return (step.groups,)
+
+
+def _augment_column(table: Table, fm, groups: str | None) -> str:
+    arrays = [c for c in fm.columns if table.column(c).role == "array"]
+    if groups in arrays:
+        return groups
+    if not arrays:
+        raise StepError(f"{table.name}: augment_permutations needs a matrix or list column "
+                        "among the features; there is none. Set it to 0.")
+    return arrays[0]
+
+
+def _permuted_copies(table: Table, fm, column: str, copies: int, seed: int,
+                     array_encoding: str, log_scale: str):
+    """Feature rows of ``copies`` permuted versions of each kept row's cell in ``column``.
+
+    Only the features that come from ``column`` change; the rest are copied from the source
+    row. Returns (values, source) where source[i] is the kept-row index the copy came from.
+    """
+    import pandas as pd
+
+    rng = np.random.default_rng([seed, 9])
+    cells = table.frame[column].tolist()
+    positions = []
+    new_cells = []
+    for kept, position in enumerate(fm.rows):
+        cell = cells[position]
+        if cell is None:
+            continue
+        for _ in range(copies):
+            positions.append(kept)
+            new_cells.append(_permute_cell(cell, rng))
+    source = np.array(positions, dtype=np.int64)
+    if len(source) == 0:
+        return np.empty((0, fm.values.shape[1])), source
+    extra = table.frame.iloc[fm.rows[source]].copy()
+    extra[column] = pd.Series(new_cells, index=extra.index, dtype=object)
+    frame = pd.concat([table.frame, extra], ignore_index=True)
+    derived = dataclasses.replace(table, frame=frame, id_column=None)
+    block = build_features(derived, columns=[column], array_encoding=array_encoding,
+                           log_scale=log_scale, missing="impute")
+    mine = [j for j, f in enumerate(fm.features) if f.column == column]
+    if [fm.names[j] for j in mine] != block.names:
+        raise StepError(f"{table.name}: permuted copies of {column!r} gave different features "
+                        "from the original; use array_encoding 'invariant' or set "
+                        "augment_permutations to 0.")
+    values = fm.values[source].copy()
+    values[:, mine] = block.values[table.n_rows:]
+    return values, source
+
+
+def _permute_cell(cell: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    if cell.ndim == 1:
+        return cell[rng.permutation(len(cell))]
+    rows, cols = cell.shape
+    if rows == cols and np.array_equal(cell, cell.T):
+        order = rng.permutation(rows)
+        return cell[np.ix_(order, order)]
+    return cell[np.ix_(rng.permutation(rows), rng.permutation(cols))]
