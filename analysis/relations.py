@@ -630,7 +630,9 @@ def _trials_needed(breakers: int, size: int, sample_size: int) -> int:
 def _robust_kernels(matrix, rows, base_dim, breakers, rng) -> list[frozenset]:
     """Sets of rows whose removal leaves new relations, found by solving on random subsets."""
     width = matrix.values.shape[1]
-    sample_size = min(len(rows), 2 * width + 10)
+    # Small subsets miss the breakers more often; when one is too small to pin the relations
+    # down, the loop below adds rows to it.
+    sample_size = min(len(rows), width + 3)
     hypotheses: list[frozenset] = []
     for _ in range(_trials_needed(breakers, len(rows), sample_size)):
         sample = rng.choice(rows, size=sample_size, replace=False)
@@ -1342,54 +1344,67 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
                    breakers, integer):
     """Bounds that all but a few rows obey: peel off thinly populated hull corners.
 
-    A corner held by few rows is set aside (up to ``breakers`` rows in all) and the hull of
-    the rest is taken again; a new edge through at least three distinct points, broken only
-    by the set-aside rows, is kept as a bound with those rows as its violations.
+    Each corner held by at most ``breakers`` rows is set aside in turn and the hull of the
+    rest taken again (and, within the same budget of rows, corners that this uncovers). A new
+    edge through at least three distinct points, broken only by the rows set aside, is kept
+    as a bound with those rows as its violations.
     """
     x, y = points.coords
-    alive = np.ones(len(points), dtype=bool)
 
     def locate(vertex) -> tuple[int, int, int]:
         start = int(np.searchsorted(x, vertex[0], side="left"))
         stop = int(np.searchsorted(x, vertex[0], side="right"))
         return start + int(np.searchsorted(y[start:stop], vertex[1])), start, stop
 
+    def weight(vertex) -> int:
+        return int(points.weights[locate(vertex)[0]])
+
+    light = sorted((weight(v), v) for v in hull if weight(v) <= breakers)
+    if not light:
+        return []
+    extremes = {tuple(p) for p in _extremes(x, y).tolist()}
     known = {(a, b, c) for a, b, c in edges}
-    candidates = None
-    current = hull
-    removed_rows = 0
+    original = set(hull)
     found = []
-    for _round in range(min(breakers, 5)):
-        corners = sorted((int(points.weights[locate(v)[0]]), v) for v in current)
-        if removed_rows + corners[0][0] > breakers:
+    hulls_left = 40  # keeps a table with a long, ragged hull cheap
+    for first_weight, first in light:
+        alive = np.ones(len(points), dtype=bool)
+        candidates = set(extremes)
+        corner, used = first, first_weight
+        for _step in range(5):
+            where, start, stop = locate(corner)
+            alive[where] = False
+            candidates.discard(corner)
+            # The corner's column may hold other points: its new least and greatest join.
+            left = np.flatnonzero(alive[start:stop]) + start
+            if len(left):
+                candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
+                candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
+            current = _hull_2d(candidates)
+            hulls_left -= 1
+            if len(current) < 3:
+                break
+            for a, b, c in _edges(current):
+                shown, constant = _in_table_units((a, b), c, scales)
+                if (a, b, c) in known or a == 0 or b == 0 or (
+                        max(map(abs, shown)) > max_coefficient):
+                    continue
+                known.add((a, b, c))
+                on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
+                if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
+                    continue
+                bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
+                if 0 < len(bound.violations) <= breakers:
+                    note = f"holds on all but {len(bound.violations)} rows"
+                    found.append(replace(
+                        bound, note=(bound.note + "; " if bound.note else "") + note))
+            uncovered = sorted((weight(v), v) for v in current if v not in original)
+            if hulls_left <= 0 or not uncovered or used + uncovered[0][0] > breakers:
+                break
+            used += uncovered[0][0]
+            corner = uncovered[0][1]
+        if hulls_left <= 0:
             break
-        count, vertex = corners[0]
-        if candidates is None:
-            candidates = {tuple(p) for p in _extremes(x, y).tolist()}
-        where, start, stop = locate(vertex)
-        alive[where] = False
-        removed_rows += count
-        candidates.discard(vertex)
-        # The corner's column may hold other points: its new least and greatest join.
-        left = np.flatnonzero(alive[start:stop]) + start
-        if len(left):
-            candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
-            candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
-        current = _hull_2d(candidates)
-        if len(current) < 3:
-            break
-        for a, b, c in _edges(current):
-            shown, constant = _in_table_units((a, b), c, scales)
-            if (a, b, c) in known or a == 0 or b == 0 or max(map(abs, shown)) > max_coefficient:
-                continue
-            known.add((a, b, c))
-            on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
-            if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
-                continue
-            bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
-            if 0 < len(bound.violations) <= breakers:
-                note = f"holds on all but {len(bound.violations)} rows"
-                found.append(replace(bound, note=(bound.note + "; " if bound.note else "") + note))
     return found
 
 
@@ -1484,9 +1499,11 @@ class _Reducer:
 
 
 def _bound_rank(bound: Bound):
+    # Most attaining rows first: a bound that many objects reach and one object breaks is
+    # worth more of a look than one that two objects reach and none breaks.
     return (
-        len(bound.violations) > 0,
         -bound.attained_count,
+        len(bound.violations),
         len(bound.terms),
         sum(abs(c) for _, c in bound.terms),
         bound.text,
