@@ -394,7 +394,8 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     except pd.errors.ParserError as exc:
         raise TableError(f"{name}: {_parser_message(str(exc), header)}") from None
     except (ValueError, OverflowError, MemoryError) as exc:
-        raise TableError(f"{name}: could not be parsed as a delimited table ({exc}).") from None
+        raise TableError(f"{name}: could not be parsed as a delimited table "
+                         f"({_one_line(exc)}).") from None
     frame.columns = header if len(header) == len(frame.columns) else frame.columns
     if len(frame) and frame.iloc[:, -1].isna().any():
         _check_short_rows(text, delimiter, len(header), name)
@@ -413,8 +414,9 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
     2**53; and some columns of huge integers come back as text with empty cells left as "".
     """
     positions = []
-    for position in range(frame.shape[1]):
-        series = frame.iloc[:, position]
+    for position, (_, series) in enumerate(frame.items()):
+        if series.dtype.kind in "biu":
+            continue  # exact already
         if series.dtype.kind == "f":
             raw = series.to_numpy()
             finite = raw[np.isfinite(raw)]
@@ -463,7 +465,7 @@ def _parser_message(message: str, header: list[str]) -> str:
     if "EOF inside string" in message or "EOF" in message:
         return ("a quoted cell is never closed (a lone \" character). "
                 "Close the quote or remove it.")
-    return f"could not be parsed as a delimited table ({message.strip()})."
+    return f"could not be parsed as a delimited table ({_one_line(message)})."
 
 
 def _check_short_rows(text: str, delimiter: str, width: int, name: str) -> None:
@@ -544,7 +546,7 @@ def _json_loads(text: str, name: str, where: str, limits: Limits,
             ) from None
         if "integer string conversion" in str(exc):
             raise TableError(_too_many_digits(name, where, text)) from None
-        raise TableError(f"{name}{where}: invalid JSON: {exc}.") from None
+        raise TableError(f"{name}{where}: invalid JSON: {_one_line(exc)}.") from None
     return value
 
 
@@ -639,7 +641,7 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
     try:
         arrow = pq.read_table(pa.BufferReader(data))
     except (pa.ArrowException, OSError, ValueError) as exc:
-        raise TableError(f"{name}: not a readable Parquet file ({exc}). "
+        raise TableError(f"{name}: not a readable Parquet file ({_one_line(exc)}). "
                          "Check the file or export it again.") from None
     names = arrow.column_names
     _check_column_names(name, [str(n) for n in names])
@@ -648,7 +650,8 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
         # which would round integers past 2**53
         return arrow.to_pandas(types_mapper=None, integer_object_nulls=True)
     except (pa.ArrowException, ValueError, TypeError) as exc:
-        raise TableError(f"{name}: Parquet columns could not be converted ({exc}).") from None
+        raise TableError(f"{name}: Parquet columns could not be converted "
+                         f"({_one_line(exc)}).") from None
 
 
 def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.DataFrame:
@@ -693,27 +696,26 @@ def _check_column_names(name: str, header: list[str]) -> None:
 def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
                   warnings: list[str], limits: Limits, as_text: set[str] = frozenset()) -> Table:
     infos = []
-    new_columns: dict[str, object] = {}
-    for column in frame.columns:
+    # one pass over the columns, and one new frame at the end: per-column lookups and
+    # assignments on a frame with thousands of columns would dominate the loading time
+    typed: dict[str, pd.Series] = {}
+    changed = False
+    for column, series in frame.items():
         if column in as_text:
-            values, dtype, note = _as_text(frame[column], name, column, limits)
+            values, dtype, note = _as_text(series, name, column, limits)
         else:
-            values, dtype, note = _type_one(frame[column], name, column, limits)
-        if values is not None:
-            new_columns[column] = values
+            values, dtype, note = _type_one(series, name, column, limits)
+        typed[column] = series if values is None else values
+        changed = changed or values is not None
         infos.append((column, dtype, note))
-    if new_columns:
-        frame = frame.assign(**{k: v for k, v in new_columns.items()}) \
-            if all(isinstance(k, str) and k.isidentifier() for k in new_columns) \
-            else _replace_columns(frame, new_columns)
+    if changed:
+        frame = pd.DataFrame(typed, index=frame.index)
     n = len(frame)
     columns = []
     id_taken = False
     for column, dtype, note in infos:
-        series = frame[column]
-        missing = int(series.isna().sum()) if dtype != "array" else int(
-            sum(v is None for v in series))
-        distinct = _distinct(series, dtype)
+        series = typed[column]
+        missing, distinct = _missing_and_distinct(series, dtype)
         role = _detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
@@ -733,11 +735,16 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
                  warnings=tuple(warnings), id_column=id_column, format=fmt, limits=limits)
 
 
-def _replace_columns(frame: pd.DataFrame, new_columns: dict) -> pd.DataFrame:
-    frame = frame.copy(deep=False)
-    for key, values in new_columns.items():
-        frame[key] = values
-    return frame
+def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:
+    if series.dtype.kind in "biu":
+        return 0, len(np.unique(series.to_numpy()))
+    if series.dtype.kind == "f":
+        raw = series.to_numpy()
+        present = raw[~np.isnan(raw)]
+        return len(raw) - len(present), len(np.unique(present))
+    if dtype == "array":
+        return int(sum(v is None for v in series)), _distinct(series, dtype)
+    return int(series.isna().sum()), _distinct(series, dtype)
 
 
 def _distinct(series: pd.Series, dtype: str) -> int:
@@ -828,6 +835,13 @@ def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
 
 
 def _is_zero_one(series: pd.Series) -> bool:
+    if series.dtype.kind in "iuf":
+        raw = series.to_numpy()
+        raw = raw[~np.isnan(raw)] if raw.dtype.kind == "f" else raw
+        # a quick look at the range first: most integer columns are not 0/1
+        if not len(raw) or raw.min() != 0 or raw.max() != 1:
+            return False
+        return bool(np.isin(raw, (0, 1)).all())
     values = series.dropna().unique()
     return len(values) == 2 and set(values.tolist()) == {0, 1}
 
@@ -934,7 +948,7 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
                     _too_many_digits(name, f", row {i + 1}", t, column)) from None
             raise TableError(
                 f"{name}, row {i + 1}, column {column!r}: not a valid JSON array "
-                f"({exc}). Write arrays like [[1, 0], [0, 1]]."
+                f"({_one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
             ) from None
     for i, value in decoded:
         if not isinstance(value, list):
@@ -1223,6 +1237,11 @@ def _to_float(value) -> float:
         return float(value)
     except OverflowError:
         return float("inf") if value > 0 else float("-inf")
+
+
+def _one_line(error) -> str:
+    """A library's error text on one line: the command line prints one line per error."""
+    return " ".join(str(error).split())
 
 
 def _short(value, width: int = 40) -> str:
