@@ -525,20 +525,18 @@ class _Matrix:
     def __init__(self, columns: list[np.ndarray], rows: np.ndarray) -> None:
         size = len(rows)
         every = size == len(columns[0])  # rows are sorted and distinct, so this means all
-        if all(c.dtype != object for c in columns):
-            # Column-major: each invariant is one contiguous stretch of memory.
-            values = np.empty((size, len(columns) + 1), dtype=np.int64, order="F")
-            for j, column in enumerate(columns):
-                values[:, j] = column if every else column[rows]
-            values[:, -1] = 1
+        picked = [column if every else column[rows] for column in columns]
+        if all(c.dtype != object for c in picked):
+            integers = picked + [np.ones(size, dtype=np.int64)]
         else:
-            values = np.empty((size, len(columns) + 1), dtype=object)
-            picked = [c[rows].tolist() for c in columns]
-            for i in range(size):
-                row = [p[i] for p in picked]
-                scale = math.lcm(*(x.denominator for x in row if isinstance(x, Fraction)))
-                values[i, :-1] = [int(x * scale) for x in row]
-                values[i, -1] = scale
+            integers = _scaled_rows(picked)
+        if all(c.dtype != object for c in integers):
+            # Column-major: each invariant is one contiguous stretch of memory.
+            values = np.empty((size, len(integers)), dtype=np.int64, order="F")
+        else:
+            values = np.empty((size, len(integers)), dtype=object)
+        for j, column in enumerate(integers):
+            values[:, j] = column
         self.values = values
         self.size = size
         if values.dtype == object:
@@ -580,6 +578,61 @@ class _Matrix:
 # --------------------------------------------------------------------------------------------
 # Exact relations
 # --------------------------------------------------------------------------------------------
+
+
+def _scaled_rows(columns: list[np.ndarray]) -> list[np.ndarray]:
+    """Columns of ints and fractions as integer columns, each row multiplied by the least
+    common multiple of its denominators, plus that multiple as the constant's column.
+
+    int64 wherever the numbers fit, so that a table of small fractions stays fast.
+    """
+    size = len(columns[0])
+    numerators, denominators = [], []
+    for column in columns:
+        if column.dtype != object:
+            numerators.append(column)
+            denominators.append(None)
+            continue
+        items = column.tolist()
+        numerators.append(_compact([v.numerator if isinstance(v, Fraction) else int(v)
+                                    for v in items]))
+        denominators.append(_compact([v.denominator if isinstance(v, Fraction) else 1
+                                      for v in items]))
+    present = [d for d in denominators if d is not None]
+    small = all(d.dtype != object for d in present) and (
+        np.prod([d.astype(np.float64) for d in present], axis=0).max(initial=1) < _INT64_SAFE)
+    if small:
+        # The product of a row's denominators fits, so their lcm (a divisor of it) does too.
+        scale = np.lcm.reduce(np.column_stack(present), axis=1) if present else np.ones(
+            size, dtype=np.int64)
+    else:
+        scale = np.empty(size, dtype=object)
+        scale[:] = [math.lcm(*(int(d[i]) for d in present)) for i in range(size)]
+    result = []
+    for numerator, denominator in zip(numerators, denominators):
+        factor = scale if denominator is None else scale // denominator
+        result.append(_product(numerator, factor))
+    return result + [scale]
+
+
+def _compact(values: list[int]) -> np.ndarray:
+    """int64 when every value fits, else an object array of Python ints."""
+    if all(abs(v) < _INT64_SAFE for v in values):
+        return np.array(values, dtype=np.int64)
+    array = np.empty(len(values), dtype=object)
+    array[:] = values
+    return array
+
+
+def _product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """a * b exactly: int64 when it cannot overflow, else Python integers."""
+    if a.dtype != object and b.dtype != object and len(a):
+        largest = float(np.abs(a).max()) * float(np.abs(b).max())
+        if largest < _INT64_SAFE / 2:
+            return a * b
+    result = np.empty(len(a), dtype=object)
+    result[:] = [int(x) * int(y) for x, y in zip(a.tolist(), b.tolist())]
+    return result
 
 
 def _kernel_on(matrix: _Matrix, rows: np.ndarray, rng: np.random.Generator) -> list[list[int]]:
@@ -1346,8 +1399,9 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
 
     Each corner held by at most ``breakers`` rows is set aside in turn and the hull of the
     rest taken again (and, within the same budget of rows, corners that this uncovers). A new
-    edge through at least three distinct points, broken only by the rows set aside, is kept
-    as a bound with those rows as its violations.
+    edge through at least three distinct points, broken only by the rows set aside and
+    reached by at least three times as many rows as break it, is kept as a bound with the
+    breaking rows as its violations.
     """
     x, y = points.coords
 
@@ -1394,7 +1448,9 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
                 if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
                     continue
                 bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
-                if 0 < len(bound.violations) <= breakers:
+                # Many more rows reaching it than breaking it, or it is just a ragged edge.
+                broken = len(bound.violations)
+                if 0 < broken <= breakers and bound.attained_count >= 3 * broken:
                     note = f"holds on all but {len(bound.violations)} rows"
                     found.append(replace(
                         bound, note=(bound.note + "; " if bound.note else "") + note))
@@ -1758,6 +1814,11 @@ class RelationsStep:
             raise StepError(
                 f"relations: columns must be a list of column names, got {self.columns!r}"
             )
+        if not self.columns:
+            raise StepError(
+                "relations: the list of columns is empty; name at least one numeric column, "
+                "or leave it unset to search them all"
+            )
         for name in self.columns:
             if name not in all_names:
                 raise StepError(
@@ -1767,8 +1828,8 @@ class RelationsStep:
             info = table.column(name)
             if info.role not in _NUMERIC_ROLES or info.dtype not in _EXACT_DTYPES + ("real",):
                 raise StepError(
-                    f"relations: column '{name}' of table '{table.name}' is a {info.role} "
-                    f"column of type {info.dtype}; choose numeric invariant or flag columns"
+                    f"relations: column '{name}' of table '{table.name}' has role {info.role} "
+                    f"and holds {info.dtype} values; choose numeric invariant or flag columns"
                 )
         return list(dict.fromkeys(self.columns))
 

@@ -546,7 +546,7 @@ def test_same_seed_same_result(polygons):
         ({"max_coefficient": 0}, "max_coefficient"),
         ({"tolerance": 2.0}, "tolerance"),
         ({"columns": ["genus"]}, "no column 'genus'"),
-        ({"columns": ["name"]}, "column 'name' .* text column"),
+        ({"columns": ["name"]}, "column 'name' .* role text"),
         ({"columns": "interior"}, "list of column names"),
     ],
     ids=["negative_breakers", "fractional_count", "text_breakers", "zero_coefficient",
