@@ -397,12 +397,25 @@ def _projection(data: dict) -> str:
 
 def _clustering(data: dict) -> str:
     facts = [("method", data.get("method")), ("clusters (k)", data.get("k"))]
+    if data.get("silhouette") is not None:
+        facts.append(("silhouette", data["silhouette"]))
+    if data.get("reason"):
+        facts.append(("why this choice", data["reason"]))
     agreement = data.get("agreement")
-    parts = []
     if isinstance(agreement, dict):
-        facts.append(("agreement with " + _text(agreement.get("column", "the label")),
-                      f"ARI {_text(agreement.get('ari'))}, NMI {_text(agreement.get('nmi'))}"))
-    parts.append(_facts(facts))
+        label = agreement.get("column") or data.get("compare") or "the label"
+        facts.append((f"agreement with {_text(label)}",
+                      f"adjusted Rand index {_text(agreement.get('ari'))}, normalized mutual "
+                      f"information {_text(agreement.get('nmi'))}"))
+    parts = [_facts(facts)]
+    profiles = [p for p in data.get("profiles") or [] if isinstance(p, dict)]
+    if profiles:
+        parts.append("<h3>What sets each cluster apart</h3>")
+        parts.append(_table(
+            ["cluster", "rows", "distinguished by"],
+            [[p.get("cluster"), p.get("size"), "; ".join(map(str, p.get("distinguished_by")
+                                                              or []))] for p in profiles],
+            numeric=(1,)))
     sweep = data.get("sweep") or []
     if sweep and all(isinstance(s, dict) for s in sweep):
         headers, rows = _generic_rows(sweep)

@@ -256,3 +256,32 @@ def test_separator_equation_verdict_and_a_failing_separator(tmp_path):
     assert "This step could not run: linear.csv: the target 'same' has one class" in text
     assert text.count("This step could not run") == 1
     assert "PCA of 80 rows" in text
+
+
+def test_relations_and_bounds_with_the_rows_that_attain_them():
+    # c = a + b on every row (built so); the row ids are markup that must stay text.
+    ids = ["<b>x1</b>", "x2", "x3", "x4", "x5", "<u>x6</u>", "x7", "x8&amp;"]
+    pairs = [(1, 2), (2, 3), (3, 5), (4, 4), (5, 1), (6, 9), (7, 2), (8, 8)]
+    lines = ["name,a,b,c"] + [f"{i},{a},{b},{a + b}" for i, (a, b) in zip(ids, pairs)]
+    table = read_table("\n".join(lines).encode(), "sums.csv", id_column="name")
+    run = run_study(Study(table=table.name, steps=(new_step("relations"),)), table)
+    assert run.ok, run.summary()
+    data = run.outcomes[0].result.to_json()
+    page = report_html(run)
+    parsed = _parse(page)
+    assert {tag for tag, _ in parsed.tags} <= OWN_TAGS
+    text = "".join(parsed.text)
+    assert data["relations"], "c = a + b holds on every row"
+    for relation in data["relations"]:
+        assert f"<code>{html.escape(relation['text'])}</code>" in page
+    assert data["bounds"]
+    rows = re.findall(r"<tr>(.*?)</tr>", page)
+    for bound in data["bounds"]:
+        row = next(r for r in rows if f"<code>{html.escape(bound['text'])}</code>" in r)
+        for attained in bound["attained_by"][:20]:
+            assert html.escape(str(attained)) in row, (bound["text"], attained)
+    for hostile_id in ("<b>x1</b>", "<u>x6</u>", "x8&amp;"):
+        assert hostile_id not in page.replace(html.escape(hostile_id), "")
+    attained = {str(i) for b in data["bounds"] for i in b["attained_by"]}
+    assert attained & {"<b>x1</b>", "<u>x6</u>"}, "a marked-up id attains some bound"
+    assert all(i in text for i in attained)
