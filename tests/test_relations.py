@@ -14,6 +14,8 @@ import networkx as nx
 import numpy as np
 import pytest
 import sympy
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from sympy.polys.domains import ZZ
 from sympy.polys.matrices import DomainMatrix
 
@@ -190,6 +192,14 @@ def test_pick_on_the_sample_table():
     basis = sympy.Matrix([_vector(r, names) for r in exact])
     extended = basis.col_join(sympy.Matrix([[pick.get(n, 0) for n in names] + [2]]))
     assert extended.rank() == basis.rank(), "Pick's theorem is not among the relations"
+    # Ehrhart (1962): a lattice polygon dilated by t holds A t^2 + (B/2) t + 1 lattice points;
+    # with t = 10**12 that is a relation with 24-digit coefficients on a big-integer column.
+    ehrhart = {"twice_area": 5 * 10**23, "boundary_points": 5 * 10**11,
+               "points_in_dilate_1e12": -1}
+    extended = basis.col_join(sympy.Matrix([[ehrhart.get(n, 0) for n in names] + [1]]))
+    assert extended.rank() == basis.rank(), "Ehrhart's polynomial is not among the relations"
+    # The rational column area is half of twice_area, exactly.
+    assert "2*area - twice_area = 0" in [r.text for r in exact]
     values = {name: table.exact(name) for name in names}
     for relation in exact:
         assert all(_holds(relation, values, i) for i in range(table.n_rows)), relation.text
@@ -298,6 +308,31 @@ def test_trivial_relations_once_and_implied_ones_not_repeated(polygons):
     assert vectors.rank() == dimension
     assert (data * vectors.T).is_zero_matrix
     assert "twice_area - 2*area = 0" in [r.text for r in others]
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    coefficients=st.lists(st.integers(-7, 7), min_size=2, max_size=4),
+    constant=st.integers(-50, 50),
+    seed=st.integers(0, 10**6),
+)
+def test_planted_relation_is_always_found(coefficients, constant, seed):
+    # Property: last = sum c_i * column_i + constant on random columns; the one relation
+    # found must be that one (up to sign; trivial when last is a constant or a copied column)
+    # and it must hold on every row (checked by hand).
+    rng = np.random.default_rng(seed)
+    columns = {f"x{i}": rng.integers(-30, 30, 40).tolist() for i in range(len(coefficients))}
+    columns["last"] = [
+        sum(c * columns[f"x{i}"][row] for i, c in enumerate(coefficients)) + constant
+        for row in range(40)
+    ]
+    result = find_relations(columns, bounds=False, seed=seed)
+    names = list(columns)
+    planted = [*coefficients, -1, constant]
+    found = list(result.relations)
+    assert len(found) == 1, [r.text for r in result.relations]
+    assert _proportional(_vector(found[0], names), planted), found[0].text
+    assert all(_holds(found[0], columns, row) for row in range(40))
 
 
 def test_column_with_missing_values_is_searched_where_present():
