@@ -11,8 +11,12 @@ Two layers:
 Relations are integer vectors ``c`` with ``sum c_i * column_i = c_0`` on the rows. The
 relation lattice is computed exactly (integer arithmetic throughout, no floating point in
 the decision), on a few rows chosen so that it stays fast, then verified on every row; its
-basis is LLL-reduced so that the reported relations are short. Robust mode also finds
-relations that all but a few rows obey, by solving on random subsets of rows.
+basis is LLL-reduced and then traded against itself for fewer terms, so that the reported
+relations are short and readable. A constant column or a copy of another is reported once,
+as trivial, and left out of the rest. Columns with missing values are searched on the rows
+where they are present. Robust mode also finds relations that all but a few rows obey, by
+solving on random subsets of rows and checking on all. Real-valued columns get approximate
+relations, to a stated relative tolerance, labelled as such.
 
 Bounds ``a*x + b*y <= c`` (and in three columns where cheap) are read off the faces of the
 convex hull of the data points, computed exactly, and kept when their coefficients are
@@ -1020,12 +1024,17 @@ def _approximate_relations(
             note = "approximate: the columns hold floating point values"
             if len(bad):
                 note += f"; holds on all but {len(bad)} rows"
+            trivial = len(terms) == 1 or (
+                len(terms) == 2 and terms[0][1] == -terms[1][1] and snapped[-1] == 0)
+            if trivial:
+                note = ("trivial: a constant column" if len(terms) == 1
+                        else "trivial: two equal columns") + f" ({note})"
             found.append((len(bad), Relation(
                 terms=terms, constant=-snapped[-1], holds_on=size - len(bad),
-                violations=tuple(row_ids[used[bad]].tolist()), exact=False,
+                violations=tuple(row_ids[used[bad]].tolist()), exact=False, trivial=trivial,
                 note=note, tolerance=tolerance,
             )))
-    found.sort(key=lambda item: (item[0], len(item[1].terms)))
+    found.sort(key=lambda item: (item[1].trivial, item[0], len(item[1].terms)))
     return [relation for _, relation in found]
 
 
@@ -1464,14 +1473,16 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     return found
 
 
-def _triple_bounds(columns, row_ids, facts, *, max_coefficient):
+def _triple_bounds(columns, row_ids, facts, *, max_coefficient) -> list[Bound] | None:
     from scipy.spatial import ConvexHull, QhullError
 
     names = [c.name for c in columns]
     scales = [c.scale for c in columns]
     integer = all(c.integer for c in columns)
     points = _distinct_points(columns)
-    if len(points) < 4 or len(points) > MAX_TRIPLE_POINTS:
+    if len(points) > MAX_TRIPLE_POINTS:
+        return None  # too many distinct points for a hull in three columns to be cheap
+    if len(points) < 4:
         return []
     data = np.column_stack(points.coords)
     if np.abs(data).max() >= 2**20:
@@ -1617,12 +1628,16 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             if _grid_cells(chosen) is None and n > MAX_TRIPLE_POINTS:
                 skipped += 1
                 continue
-            found += _triple_bounds(chosen, row_ids, triple_facts,
+            triple = _triple_bounds(chosen, row_ids, triple_facts,
                                     max_coefficient=max_coefficient)
+            if triple is None:
+                skipped += 1
+            else:
+                found += triple
         if skipped:
             notes.append(
-                f"{skipped} triples of columns with wide value ranges were not searched for "
-                "bounds (too costly on a table this size)"
+                f"{skipped} triples of columns with wide value ranges or too many distinct "
+                "points were not searched for bounds (too costly on a table this size)"
             )
     found.sort(key=_bound_rank)
     reducer = _Reducer(list(columns), equalities)
