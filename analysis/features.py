@@ -472,6 +472,26 @@ def _big_float(value) -> float:
         return math.copysign(math.inf, value)
 
 
+def _matrix_invariants(m: np.ndarray, square: bool, symmetric: bool) -> dict[str, np.ndarray]:
+    values = {"sorted": -np.sort(-m.ravel())}
+    if m.ndim == 2:
+        values["row_sums"] = -np.sort(-m.sum(axis=1))
+        values["column_sums"] = -np.sort(-m.sum(axis=0))
+        if not np.isfinite(values["row_sums"]).all():
+            # entries near the float limit: the decompositions below would not converge
+            nan = np.full(min(m.shape), np.nan)
+            values["singular"] = nan
+            if square:
+                values["eigen" if symmetric else "charpoly"] = np.full(m.shape[0], np.nan)
+            return values
+        values["singular"] = np.linalg.svd(m, compute_uv=False) if m.size else np.zeros(0)
+        if square and symmetric:
+            values["eigen"] = np.sort(np.linalg.eigvalsh(m))[::-1]
+        elif square:
+            values["charpoly"] = np.poly(m)[1:] if m.size else np.zeros(0)
+    return values
+
+
 def _invariants(name: str, cells: list, ndims: set, shapes: set):
     """Sorted entries, sorted row/column sums, singular values, eigenvalues or char. poly."""
     parts: dict[str, list] = {}
@@ -491,19 +511,14 @@ def _invariants(name: str, cells: list, ndims: set, shapes: set):
             for key in parts:
                 parts[key].append(None)
             continue
-        values = {"sorted": -np.sort(-m.ravel())}
-        if m.ndim == 2:
-            values["row_sums"] = -np.sort(-m.sum(axis=1))
-            values["column_sums"] = -np.sort(-m.sum(axis=0))
-            values["singular"] = np.linalg.svd(m, compute_uv=False) if m.size else np.zeros(0)
-            if square and symmetric:
-                values["eigen"] = np.sort(np.linalg.eigvalsh(m))[::-1]
-            elif square:
-                values["charpoly"] = np.poly(m)[1:] if m.size else np.zeros(0)
+        with np.errstate(over="ignore", invalid="ignore"):
+            # sums past the float range become infinite, which counts as missing later
+            values = _matrix_invariants(m, square, symmetric)
         for key, vector in values.items():
             # rows seen before this kind of invariant first appeared have none of it
             parts.setdefault(key, [None] * position).append(vector)
     if not parts:
+
         return np.empty((len(cells), 0)), []
     blocks = []
     features = []

@@ -276,6 +276,13 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
             "Raise Limits.max_bytes or use the dask engine on a Parquet file."
         )
     digest = hashlib.sha256(data).hexdigest()
+    suffix = Path(name).suffix.lower()
+    if format is None and suffix not in _EXTENSIONS and data[:4] == b"PK\x03\x04":
+        raise TableError(
+            f"{name}: a zip archive (a spreadsheet workbook such as .xlsx or .ods is one), not "
+            "a table format read here. Save the sheet as CSV (or TSV, JSON, JSON Lines, "
+            "Parquet) and load that."
+        )
     fmt = format or _format_of(name, data)
     if fmt not in FORMATS:
         raise TableError(f"{name}: unknown format {fmt!r}; use one of {', '.join(FORMATS)}.")

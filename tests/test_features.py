@@ -280,6 +280,14 @@ def test_arrays_with_nan_entries_have_missing_invariants():
     assert any(f.kind == "eigen" for f in fm.features)
 
 
+def test_entries_near_the_float_limit_make_missing_invariants():
+    table = read_table(b'k,m\n1,"[[1e308,1e308],[1,1]]"\n2,"[[1,2],[3,4]]"\n'
+                       b'3,"[[0,1],[2,0]]"\n', "t.csv")
+    fm = build_features(table, columns=["m"], array_encoding="invariant")
+    assert list(fm.rows) == [1, 2]  # the overflowing row sums count as missing
+    assert np.isfinite(fm.values).all()
+
+
 def test_eigenvalue_features_agree_with_numpy_eigvalsh():
     rng = np.random.default_rng(5)
     matrices = []

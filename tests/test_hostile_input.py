@@ -156,6 +156,8 @@ CASES = {
                                           r"JSON object", r"Flatten the record")),
     "NaN in JSON": Case("nan.json", b'[{"a": NaN, "b": 1}, {"a": 2, "b": 3}]',
                         warning=r"nan\.json: found NaN, which standard JSON does not allow"),
+    "a zipped workbook": Case("sheet.xlsx", b"PK\x03\x04\x14\x00\x06\x00" + bytes(64), error=(
+        r"sheet\.xlsx: a zip archive", r"Save the sheet as CSV")),
     "broken Parquet": Case("broken.parquet", b"PAR1 this is not parquet PAR1", error=(
         r"broken\.parquet: not a readable Parquet file", r"export it again")),
 }
