@@ -1,0 +1,624 @@
+"""The relations step on Dask: candidates from a few rows, everything checked on every row.
+
+1. The in-memory search (:class:`analysis.relations.RelationsStep`) runs on a uniform random
+   sample of rows; its relations that hold on every sampled row span a lattice that contains
+   the table's relations.
+2. One pass over every partition tests that lattice on every row and keeps, per partition,
+   a few breaking rows whose values span all the ways the lattice is broken; it also gathers
+   each column's extremes, the least and greatest value of each column of a pair over each
+   value of the other (the only candidates for corners of the pair's convex hull), and the
+   corners of the hull of each triple.
+3. The search runs again on the sample together with those rows: the breaking rows cut the
+   lattice down to exactly the relations of the whole table, and the corner rows make every
+   hull, and so every sharp bound, that of the whole table.
+4. A last pass counts, on every row, the rows that break each relation broken by a few rows,
+   the rows that attain, come near or break each bound, and the rows off each approximate
+   relation; relations and bounds that more rows break than allowed are dropped.
+
+Exact: the relations that hold on every row (the same lattice as in memory), the bounds in
+two and three columns, and every count and row list. Approximate: which relations broken by a
+few rows, and which bounds broken by a few rows, are proposed (they come from samples).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import math
+import threading
+from fractions import Fraction
+from itertools import combinations
+
+import numpy as np
+
+from analysis.distributed.common import Context, tree
+from analysis.errors import StepError
+
+SAMPLE_ROWS = 20_000
+_BOUNDS_LOCK = threading.Lock()
+# Distinct points of a triple counted exactly (past this, the triple counts as crowded).
+DISTINCT_POINTS_CAP = 250_000
+_INT64_SAFE = 2**62
+
+
+def run_relations(step, ctx: Context):
+    """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
+    from dask import delayed
+
+    from analysis import relations as rel
+    from analysis.distributed.source import sample_table
+
+    table = ctx.table
+    rel._check_settings(max_breakers=step.max_breakers, max_coefficient=step.max_coefficient,
+                        tolerance=step.tolerance, seed=step.seed)
+    names = step._chosen(table)
+    if not names:
+        raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
+                        "search; mark some columns as invariants")
+    for name in names:
+        dtype = table.column(name).dtype
+        if dtype in ("big integer", "rational"):
+            raise StepError(f"relations: column '{name}' holds {dtype}s, which the dask engine "
+                            "does not search; leave it out with --columns, or use --engine "
+                            "local.")
+    exact = [n for n in names if table.column(n).dtype in ("integer", "boolean")]
+    real = [n for n in names if table.column(n).dtype == "real"]
+    sample, positions = sample_table(table, ctx.client, SAMPLE_ROWS, seed=step.seed,
+                                     columns=names)
+    first = step.run(sample)
+    generators = [_vector(r, exact) for r in first.relations if r.exact and not r.violations]
+    generators = [g for g in generators if g is not None]
+    pair_columns, triple_columns = _bound_candidates(table, exact)
+    spec = _PassA(exact, generators, pair_columns, triple_columns, _ranges(table, exact))
+    parts = table.typed_partitions(names)
+    offsets = table.offsets
+    found = ctx.compute(tree([delayed(_pass_a)(p, int(offsets[k]), spec)
+                              for k, p in enumerate(parts)], _merge_a))
+    wanted = _wanted_points(found, spec)
+    extra_positions = np.array(sorted(found["breakers"]), dtype=np.int64)
+    located = ctx.compute([delayed(_locate)(p, int(offsets[k]), spec, wanted, extra_positions)
+                           for k, p in enumerate(parts)])
+    frame, all_positions = _candidate_rows(sample, positions, located, names, table)
+    from analysis.distributed.source import as_table
+
+    candidates = as_table(table, frame, all_positions)
+    with _every_bound():
+        # the rows searched rank bounds by their own counts: keep them all, rank them again
+        # by the counts on every row, then cut as the in-memory step does
+        second = step.run(candidates)
+    ctx.notes.append(
+        f"relations and bounds searched on {len(all_positions)} rows: a uniform random sample "
+        f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
+        f"sample, and the rows at the corners of every hull; then checked on all "
+        f"{table.n_rows} rows across {table.npartitions} partitions.")
+    return _settle(ctx, step, first, second, exact, real, found, spec)
+
+
+# ----------------------------------------------------------------------------------------
+# Pass A: test the sample's lattice, gather extremes and hull corners
+
+
+class _Spec:
+    """Settings of a pass, as a plain object (dask walks through dataclasses and lists)."""
+
+    def __init__(self, **settings):
+        self.__dict__.update(settings)
+
+
+def _PassA(exact, generators, pairs, triples, ranges) -> _Spec:  # noqa: N802 - a record
+    return _Spec(exact=exact, generators=generators, pairs=pairs, triples=triples,
+                 ranges=ranges)
+
+
+def _vector(relation, names: list[str]):
+    """The relation as integers over ``names`` and a last entry for the constant, or None."""
+    index = {n: j for j, n in enumerate(names)}
+    if any(name not in index for name, _ in relation.terms):
+        return None
+    scale = math.lcm(*(Fraction(c).denominator for _, c in relation.terms),
+                     Fraction(relation.constant).denominator)
+    vector = [0] * (len(names) + 1)
+    for name, coef in relation.terms:
+        vector[index[name]] = int(Fraction(coef) * scale)
+    vector[-1] = -int(Fraction(relation.constant) * scale)
+    return vector
+
+
+def _ranges(table, names):
+    out = {}
+    for name in names:
+        facts = table.facts.get(name, {})
+        lo, hi = facts.get("minimum"), facts.get("maximum")
+        if table.column(name).dtype == "boolean":
+            lo, hi = 0, 1
+        out[name] = (None if lo is None else int(lo), None if hi is None else int(hi))
+    return out
+
+
+def _bound_candidates(table, exact):
+    from analysis import relations as rel
+
+    wide = [n for n in exact if table.column(n).distinct >= 3]
+    pairs = wide[: rel.MAX_BOUND_COLUMNS + 10]
+    triples = [n for n in pairs if not table.column(n).missing][: rel.MAX_TRIPLE_COLUMNS + 4]
+    return pairs, triples
+
+
+def _exact_matrix(frame, names):
+    """(int64 values, missing mask) of the exact columns of one typed partition."""
+    n = len(frame)
+    values = np.zeros((n, len(names)), dtype=np.int64)
+    missing = np.zeros((n, len(names)), dtype=bool)
+    for j, name in enumerate(names):
+        series = frame[name]
+        if series.dtype == object:
+            present = series.notna().to_numpy()
+            values[present, j] = [int(bool(v)) if isinstance(v, (bool, np.bool_)) else int(v)
+                                  for v in series[present]]
+            missing[:, j] = ~present
+        else:
+            column = series.to_numpy(dtype=np.float64, na_value=np.nan) \
+                if series.dtype.kind == "f" else series.to_numpy()
+            if series.dtype.kind == "f":
+                bad = np.isnan(column)
+                missing[:, j] = bad
+                values[~bad, j] = column[~bad].astype(np.int64)
+            else:
+                values[:, j] = column.astype(np.int64)
+    return values, missing
+
+
+def _projection(values: np.ndarray, generators: list) -> np.ndarray:
+    """Rows times generators (with the constant column), exactly."""
+    if not generators:
+        return np.zeros((len(values), 0), dtype=np.int64)
+    matrix = np.array(generators, dtype=object)
+    bound = (np.abs(values).max(initial=0) + 1) * max(sum(abs(int(x)) for x in g)
+                                                      for g in generators)
+    augmented = np.hstack([values, np.ones((len(values), 1), dtype=np.int64)])
+    if bound < _INT64_SAFE:
+        return augmented @ np.array(generators, dtype=np.int64).T
+    return augmented.astype(object).dot(matrix.T)
+
+
+def _pass_a(frame, offset: int, spec: _Spec) -> dict:
+    values, missing = _exact_matrix(frame, spec.exact)
+    used = ~missing.any(axis=1)
+    positions = np.arange(offset, offset + len(frame), dtype=np.int64)
+    out: dict = {"used": int(used.sum()), "breakers": {}}
+    projected = _projection(values[used], spec.generators)
+    if projected.shape[1]:
+        broken = (projected != 0).any(axis=1)
+        rows = np.flatnonzero(broken)
+        if len(rows):
+            distinct, first = np.unique(projected[rows].astype(object) if projected.dtype ==
+                                        object else projected[rows], axis=0, return_index=True)
+            chosen = _independent([list(map(int, v)) for v in distinct])
+            used_positions = positions[used]
+            for i in chosen:
+                out["breakers"][int(used_positions[rows[first[i]]])] = \
+                    [int(x) for x in distinct[i]]
+    index = {n: j for j, n in enumerate(spec.exact)}
+    pairs = {}
+    for a, b in combinations(spec.pairs, 2):
+        ia, ib = index[a], index[b]
+        present = ~(missing[:, ia] | missing[:, ib])
+        pairs[(a, b)] = _column_extremes(values[present, ia], values[present, ib])
+    out["pairs"] = pairs
+    triples = {}
+    for combo in combinations(spec.triples, 3):
+        columns = [index[c] for c in combo]
+        lows = np.array([spec.ranges[c][0] for c in combo], dtype=np.int64)
+        widths = np.array([spec.ranges[c][1] - spec.ranges[c][0] + 1 for c in combo],
+                          dtype=np.int64)
+        triples[combo] = _triple_corners(values[:, columns], lows, widths)
+    out["triples"] = triples
+    return out
+
+
+def _column_extremes(x: np.ndarray, y: np.ndarray):
+    """For each distinct x: least and greatest y (as three aligned arrays)."""
+    if len(x) == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64)
+    order = np.lexsort((y, x))
+    xs, ys = x[order], y[order]
+    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
+    ends = np.r_[starts[1:], len(xs)] - 1
+    return xs[starts], ys[starts], ys[ends]
+
+
+def _merge_extremes(a, b):
+    x = np.concatenate([a[0], b[0]])
+    low = np.concatenate([a[1], b[1]])
+    high = np.concatenate([a[2], b[2]])
+    if len(x) == 0:
+        return a
+    keys, inverse = np.unique(x, return_inverse=True)
+    lows = np.full(len(keys), np.iinfo(np.int64).max)
+    highs = np.full(len(keys), np.iinfo(np.int64).min)
+    np.minimum.at(lows, inverse, low)
+    np.maximum.at(highs, inverse, high)
+    return keys, lows, highs
+
+
+def _triple_corners(points: np.ndarray, lows: np.ndarray, widths: np.ndarray):
+    """Corner candidates of a triple's hull, and its distinct points as int64 keys (or None
+    when the columns are too wide for one key)."""
+    if len(points) == 0:
+        return np.zeros((0, 3), np.int64), np.zeros(0, dtype=np.int64)
+    if float(np.prod(widths.astype(np.float64))) < 2**62:
+        shifted = points - lows
+        keys = np.unique((shifted[:, 0] * widths[1] + shifted[:, 1]) * widths[2] + shifted[:, 2])
+        rest, z = np.divmod(keys, widths[2])
+        x, y = np.divmod(rest, widths[1])
+        unique = np.column_stack([x, y, z]) + lows
+        return _hull_corners(unique), keys if len(keys) <= DISTINCT_POINTS_CAP else None
+    unique = np.unique(points, axis=0)
+    return _hull_corners(unique), None
+
+
+def _hull_corners(unique: np.ndarray) -> np.ndarray:
+    """The vertices of the hull of distinct points (all of them when the hull is flat)."""
+    if len(unique) < 5:
+        return unique
+    from scipy.spatial import ConvexHull, QhullError
+
+    try:
+        hull = ConvexHull(unique.astype(np.float64))
+    except QhullError:
+        # a flat triple has no bounds in three columns (its plane is a relation)
+        return unique[:0]
+    return unique[np.sort(hull.vertices)]
+
+
+def _merge_a(a: dict, b: dict) -> dict:
+    breakers = dict(a["breakers"])
+    vectors = list(breakers.values())
+    for position, vector in sorted(b["breakers"].items()):
+        if _independent(vectors + [vector]) == list(range(len(vectors) + 1)):
+            breakers[position] = vector
+            vectors.append(vector)
+    pairs = {k: _merge_extremes(a["pairs"][k], b["pairs"][k]) for k in a["pairs"]}
+    triples = {}
+    for k in a["triples"]:
+        corners = np.unique(np.vstack([a["triples"][k][0], b["triples"][k][0]]), axis=0)
+        keys_a, keys_b = a["triples"][k][1], b["triples"][k][1]
+        keys = None if keys_a is None or keys_b is None else np.union1d(keys_a, keys_b)
+        if keys is not None and len(keys) > DISTINCT_POINTS_CAP:
+            keys = None
+        triples[k] = (_hull_corners(corners), keys)
+    return {"used": a["used"] + b["used"], "breakers": breakers, "pairs": pairs,
+            "triples": triples}
+
+
+def _independent(vectors: list[list[int]]) -> list[int]:
+    """Indices of a greedy maximal linearly independent subset (exact, fraction-free)."""
+    echelon: list[tuple[int, list[int]]] = []
+    chosen = []
+    for index, vector in enumerate(vectors):
+        v = [int(x) for x in vector]
+        for pivot, row in echelon:
+            if v[pivot]:
+                a, b = row[pivot], v[pivot]
+                v = [a * x - b * y for x, y in zip(v, row)]
+                g = math.gcd(*v)
+                if g > 1:
+                    v = [x // g for x in v]
+        lead = next((i for i, x in enumerate(v) if x), None)
+        if lead is not None:
+            echelon.append((lead, v))
+            chosen.append(index)
+    return chosen
+
+
+def _hull_2d(points: list[tuple]) -> list[tuple]:
+    """The vertices of the convex hull of integer points, exact."""
+    points = sorted(set(points))
+    if len(points) < 3:
+        return points
+
+    def cross(o, a, b):
+        return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
+
+    def chain(sequence):
+        kept: list = []
+        for p in sequence:
+            while len(kept) >= 2 and cross(kept[-2], kept[-1], p) <= 0:
+                kept.pop()
+            kept.append(p)
+        return kept
+
+    return list(dict.fromkeys(chain(points)[:-1] + chain(list(reversed(points)))[:-1]))
+
+
+def _wanted_points(found: dict, spec: _Spec) -> dict:
+    """{columns tuple: set of value tuples} whose rows the second search needs."""
+    wanted: dict = {}
+    for (a, b), (x, low, high) in found["pairs"].items():
+        points = [(int(p), int(q)) for p, q in zip(x, low)] + \
+                 [(int(p), int(q)) for p, q in zip(x, high)]
+        wanted[(a, b)] = np.array(_hull_2d(points), dtype=np.int64).reshape(-1, 2)
+    for combo, (corners, _) in found["triples"].items():
+        wanted[combo] = np.asarray(corners, dtype=np.int64).reshape(-1, 3)
+    for name in spec.exact:
+        lo, hi = spec.ranges[name]
+        if lo is not None:
+            wanted[(name,)] = np.array([[lo], [hi]], dtype=np.int64)
+    # numpy arrays, so that dask does not walk through them as collections
+    return wanted
+
+
+def _locate(frame, offset: int, spec: _Spec, wanted: dict, positions: np.ndarray):
+    """Rows of one partition at the wanted points (first per point) and at ``positions``."""
+    values, missing = _exact_matrix(frame, spec.exact)
+    index = {n: j for j, n in enumerate(spec.exact)}
+    picked: set[int] = set()
+    for columns, points in wanted.items():
+        if not len(points):
+            continue
+        cols = [index[c] for c in columns]
+        rows = np.flatnonzero(~missing[:, cols].any(axis=1))
+        lows = np.array([spec.ranges[c][0] for c in columns], dtype=np.int64)
+        widths = np.array([spec.ranges[c][1] - spec.ranges[c][0] + 1 for c in columns],
+                          dtype=np.int64)
+        row_keys = _keys(values[rows][:, cols], lows, widths)
+        point_keys = _keys(points, lows, widths)
+        if row_keys is None or point_keys is None:
+            continue   # too wide for one key; these columns have no bounds worth a row
+        hit = np.flatnonzero(np.isin(row_keys, point_keys))
+        _, first = np.unique(row_keys[hit], return_index=True)
+        picked.update(rows[hit[first]].tolist())
+    inside = positions[(positions >= offset) & (positions < offset + len(frame))] - offset
+    picked.update(inside.tolist())
+    chosen = np.array(sorted(picked), dtype=np.int64)
+    return frame.iloc[chosen].reset_index(drop=True), chosen + offset
+
+
+def _keys(points: np.ndarray, lows: np.ndarray, widths: np.ndarray):
+    """One int64 per point (mixed radix over the columns' ranges), or None if too wide."""
+    if float(np.prod(widths.astype(np.float64))) >= 2**62:
+        return None
+    key = np.zeros(len(points), dtype=np.int64)
+    for j in range(points.shape[1]):
+        key = key * widths[j] + (points[:, j] - lows[j])
+    return key
+
+
+def _candidate_rows(sample, positions, located, names, table):
+    import pandas as pd
+
+    keep = [n for n in sample.frame.columns if n in names or n == table.id_column]
+    frames = [sample.frame[keep]] + [f[keep] for f, _ in located if len(f)]
+    all_positions = np.concatenate([positions] + [p for _, p in located if len(p)])
+    frame = pd.concat(frames, ignore_index=True)
+    order = np.argsort(all_positions, kind="stable")
+    all_positions = all_positions[order]
+    frame = frame.iloc[order].reset_index(drop=True)
+    first = np.r_[True, all_positions[1:] != all_positions[:-1]]
+    return frame[first].reset_index(drop=True), all_positions[first]
+
+
+# ----------------------------------------------------------------------------------------
+# Pass B: counts on every row
+
+
+# Pass B's settings: exact and real column names; relations (integer vectors over the exact
+# columns and the constant); bounds (integer coefs, columns, limit K of sum <= K, near limit);
+# approximate relations (names, float coefs, constant); tolerance; cap (breaking row ids kept
+# per list); listed (attaining row ids kept per bound).
+_PassB = _Spec
+
+
+def _pass_b(frame, offset: int, spec: _Spec, id_column):
+    values, missing = _exact_matrix(frame, spec.exact)
+    ids = frame[id_column].to_numpy() if id_column else \
+        np.arange(offset, offset + len(frame), dtype=np.int64)
+    used = ~missing.any(axis=1)
+    out = {"relations": [], "bounds": [], "approximate": []}
+    projected = _projection(values[used], spec.relations)
+    used_ids = ids[used]
+    for j in range(len(spec.relations)):
+        bad = np.flatnonzero(np.asarray(projected[:, j] != 0, dtype=bool))
+        out["relations"].append((len(bad), used_ids[bad[: spec.cap]]))
+    index = {n: i for i, n in enumerate(spec.exact)}
+    for coefs, columns, limit, near_limit in spec.bounds:
+        cols = [index[c] for c in columns]
+        present = ~missing[:, cols].any(axis=1)
+        lhs = _combine(values[present][:, cols], coefs)
+        these = ids[present]
+        attained = np.flatnonzero(lhs == limit)
+        broken = np.flatnonzero(lhs > limit)
+        slack = limit - lhs
+        near = int(np.count_nonzero((slack > 0) & (slack <= near_limit)))
+        out["bounds"].append({"present": int(present.sum()), "attained": len(attained),
+                              "attained_ids": these[attained[: spec.listed]],
+                              "near": near, "broken": len(broken),
+                              "broken_ids": these[broken[: spec.cap]]})
+    if spec.approximate:
+        reals = np.column_stack([frame[n].to_numpy(dtype=np.float64, na_value=np.nan)
+                                 for n in spec.real]) if spec.real else np.zeros((len(frame), 0))
+    for names, coefs, constant in spec.approximate:
+        columns = []
+        for name in names:
+            if name in index:
+                column = values[:, index[name]].astype(np.float64)
+                column[missing[:, index[name]]] = np.nan
+            else:
+                column = reals[:, spec.real.index(name)]
+            columns.append(column)
+        data = np.column_stack(columns + [np.ones(len(frame))])
+        finite = np.isfinite(data).all(axis=1)
+        full = np.append(np.asarray(coefs, dtype=float), -constant)
+        residual = np.abs(data[finite] @ full)
+        size = np.abs(data[finite]) @ np.abs(full)
+        off = np.flatnonzero(residual > spec.tolerance * np.maximum(size, 1e-300))
+        out["approximate"].append((int(finite.sum()), len(off), ids[finite][off[: spec.cap]]))
+    return out
+
+
+def _combine(values: np.ndarray, coefs: list[int]) -> np.ndarray:
+    bound = sum(abs(c) for c in coefs) * (int(np.abs(values).max(initial=0)) + 1)
+    if bound < _INT64_SAFE:
+        return values @ np.array(coefs, dtype=np.int64)
+    return values.astype(object).dot(np.array(coefs, dtype=object))
+
+
+def _merge_b(a: dict, b: dict, cap: int, listed: int) -> dict:
+    out = {"relations": [], "bounds": [], "approximate": []}
+    for (ca, ia), (cb, ib) in zip(a["relations"], b["relations"]):
+        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap]))
+    for x, y in zip(a["bounds"], b["bounds"]):
+        out["bounds"].append({
+            "present": x["present"] + y["present"], "attained": x["attained"] + y["attained"],
+            "attained_ids": np.concatenate([x["attained_ids"], y["attained_ids"]])[:listed],
+            "near": x["near"] + y["near"], "broken": x["broken"] + y["broken"],
+            "broken_ids": np.concatenate([x["broken_ids"], y["broken_ids"]])[:cap]})
+    for (pa, ca, ia), (pb, cb, ib) in zip(a["approximate"], b["approximate"]):
+        out["approximate"].append((pa + pb, ca + cb, np.concatenate([ia, ib])[:cap]))
+    return out
+
+
+def _bound_spec(bound) -> tuple:
+    """(integer coefs, columns, limit, near limit) of ``sum <= limit`` form of a bound."""
+    sign = 1 if bound.relation == "<=" else -1
+    coefs = [Fraction(c) * sign for _, c in bound.terms]
+    constant = Fraction(bound.constant) * sign
+    margin = Fraction(bound.near_margin)
+    scale = math.lcm(*(c.denominator for c in coefs), constant.denominator)
+    ints = [int(c * scale) for c in coefs]
+    limit = int(constant * scale)
+    return ints, [name for name, _ in bound.terms], limit, math.floor(margin * scale)
+
+
+def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _Spec):
+    from dask import delayed
+
+    from analysis import relations as rel
+
+    table = ctx.table
+    used = found["used"]
+    allowed = rel._breakers_allowed(step.max_breakers, used) if step.robust else 0
+    every = [r for r in second.relations if r.exact and not r.violations]
+    every_vectors = [_vector(r, exact) for r in every]
+    # relations broken by a few rows: those of both searches, and relations of the sample
+    # that other rows break
+    known = {tuple(v) for v in every_vectors if v is not None}
+    candidates = []
+    for relation in [*second.relations, *first.relations]:
+        vector = _vector(relation, exact)
+        if not relation.exact or vector is None or tuple(vector) in known:
+            continue
+        known.add(tuple(vector))
+        candidates.append((relation, vector))
+    approximate = list(second.approximate)
+    b_spec = _PassB(
+        exact=exact, real=real,
+        relations=[v for v in every_vectors if v is not None] + [v for _, v in candidates],
+        bounds=[_bound_spec(b) for b in second.bounds],
+        approximate=[([n for n, _ in r.terms], [float(c) for _, c in r.terms],
+                      float(r.constant)) for r in approximate],
+        tolerance=float(step.tolerance), cap=max(allowed, 0) + 1, listed=rel.MAX_LISTED_ROWS,
+    )
+    parts = table.typed_partitions(exact + real)
+    offsets = table.offsets
+    cap, listed = b_spec.cap, b_spec.listed
+    counts = ctx.compute(tree([delayed(_pass_b)(p, int(offsets[k]), b_spec, table.id_column)
+                               for k, p in enumerate(parts)],
+                              lambda a, b: _merge_b(a, b, cap, listed)))
+    notes = list(second.notes)
+    checked = len([v for v in every_vectors if v is not None])
+    every_counts = counts["relations"][:checked]
+    broken = [r.text for r, (count, _) in zip(every, every_counts) if count]
+    if broken:
+        # cannot happen when the breaking rows were gathered; say so rather than hide it
+        notes.append("relations of the rows searched that other rows break, left out: "
+                     + "; ".join(broken))
+    settled_every = [dataclasses.replace(r, holds_on=used)
+                     for r, (count, _) in zip(every, every_counts) if not count]
+    tracker = rel._RankTracker()
+    for v in every_vectors:
+        if v is not None:
+            tracker.add(v)
+    ranked = sorted(zip(candidates, counts["relations"][checked:]),
+                    key=lambda item: (item[1][0], len(item[0][0].terms),
+                                      sum(x * x for x in item[0][1])))
+    robust = []
+    for (relation, vector), (count, ids) in ranked:
+        if not 0 < count <= allowed or not tracker.add(vector):
+            continue
+        robust.append(dataclasses.replace(
+            relation, holds_on=used - count, violations=tuple(ids.tolist()),
+            note=_robust_note(relation, count)))
+    ordered = ([r for r in settled_every if not r.trivial] + [r for r in robust if not r.trivial]
+               + [r for r in settled_every if r.trivial] + [r for r in robust if r.trivial])
+    bounds = []
+    for bound, c in zip(second.bounds, counts["bounds"]):
+        if c["broken"] > (allowed if bound.violations else 0):
+            continue
+        note = bound.note.split("the first ")[0].rstrip("; ") if bound.note else ""
+        if c["attained"] > rel.MAX_LISTED_ROWS:
+            note = (note + "; " if note else "") + (
+                f"the first {rel.MAX_LISTED_ROWS} of {c['attained']} attaining rows are listed")
+        bounds.append(dataclasses.replace(
+            bound, attained_by=tuple(c["attained_ids"].tolist()), attained_count=c["attained"],
+            near=c["near"], holds_on=c["present"] - c["broken"],
+            violations=tuple(c["broken_ids"].tolist()), note=note))
+    bounds = _drop_crowded_triples(bounds, found)
+    bounds.sort(key=rel._bound_rank)
+    notes = [n for n in notes if not (n.startswith("the best ") and "bounds are reported" in n)]
+    if len(bounds) > rel.MAX_BOUNDS:
+        notes.append(f"the best {rel.MAX_BOUNDS} of {len(bounds)} bounds are reported")
+        bounds = bounds[:rel.MAX_BOUNDS]
+    settled_approximate = []
+    for relation, (present, off, ids) in zip(approximate, counts["approximate"]):
+        if off > allowed:
+            continue
+        note = "approximate: the columns hold floating point values"
+        if off:
+            note += f"; holds on all but {off} rows"
+        settled_approximate.append(dataclasses.replace(
+            relation, holds_on=present - off, violations=tuple(ids.tolist()), note=note))
+    if step.robust:
+        ctx.notes.append("relations and bounds broken by a few rows are proposed from the rows "
+                         "searched (not from every row) and kept when every row's count allows.")
+    return dataclasses.replace(second, relations=tuple(ordered), bounds=tuple(bounds),
+                               approximate=tuple(settled_approximate), notes=tuple(notes),
+                               n_rows=table.n_rows)
+
+
+@contextlib.contextmanager
+def _every_bound():
+    """Let the in-memory search report every bound it finds, for the length of the block."""
+    from analysis import relations as rel
+
+    with _BOUNDS_LOCK:
+        saved = rel.MAX_BOUNDS
+        rel.MAX_BOUNDS = 10**9
+        try:
+            yield
+        finally:
+            rel.MAX_BOUNDS = saved
+
+
+def _robust_note(relation, count: int) -> str:
+    names = [name for name, _ in relation.terms]
+    if relation.trivial and len(names) == 1:
+        return f"trivial: column '{names[0]}' is constant on all but {count} rows"
+    if relation.trivial and len(names) == 2:
+        return f"trivial: columns '{names[0]}' and '{names[1]}' are equal on all but {count} rows"
+    return f"holds on all but {count} rows"
+
+
+def _drop_crowded_triples(bounds, found):
+    """Bounds in three columns whose triple has too many distinct points to be searched in
+    memory are left out here too, so that both engines report the same bounds."""
+    from analysis import relations as rel
+
+    limit = getattr(rel, "MAX_TRIPLE_POINTS", None)
+    if limit is None:
+        return bounds
+    crowded = {frozenset(k) for k, (_, keys) in found["triples"].items()
+               if keys is None or len(keys) > limit}
+    kept = [b for b in bounds
+            if len(b.terms) != 3 or frozenset(n for n, _ in b.terms) not in crowded]
+    return kept
