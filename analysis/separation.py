@@ -514,9 +514,10 @@ class _Run:
         elif step.kernel_approximation == "nystroem":
             self.kernel_mode = "nystroem"
         if self.kernel_mode == "nystroem":
-            components = min(NYSTROEM_COMPONENTS, n)
-            self.kernel_method = (f"approximate: Nystroem features ({components} components, "
-                                  "seeded) with a linear support vector machine")
+            self.kernel_method = (f"approximate: Nystroem features ({_components(n)} "
+                                  "components on all rows, a quarter of the training rows up "
+                                  f"to {NYSTROEM_COMPONENTS} in every fit; seeded) with a "
+                                  "linear machine")
         elif self.kernel_mode == "sample":
             self.kernel_method = (f"exact kernel machine fitted on a stratified sample of at "
                                   f"most {step.kernel_row_limit} training rows")
@@ -700,7 +701,7 @@ class _Run:
         count = step.permutations
         if count == 0:
             return None, (), None, "skipped (permutations = 0)"
-        kernel = self.kernel_mode in ("exact", "sample") and self.kernel_method is not None
+        kernel = self.kernel_method is not None
         train_limit = KERNEL_PERMUTATION_ROWS if kernel else step.sample_rows
         if self.big:
             count = min(count, 50)
@@ -737,7 +738,7 @@ class _Run:
 
     def _learning_curve(self) -> list[dict]:
         step = self.step
-        kernel = self.kernel_mode in ("exact", "sample") and self.kernel_method is not None
+        kernel = self.kernel_method is not None
         limit = KERNEL_CURVE_ROWS if kernel else step.sample_rows
         n = len(self.y)
         pool = np.arange(n)
@@ -921,7 +922,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
 
                 pipeline = make_pipeline(
                     StandardScaler(),
-                    Nystroem(kernel="rbf", n_components=min(NYSTROEM_COMPONENTS, n_rows),
+                    Nystroem(kernel="rbf", n_components=_components(n_rows),
                              random_state=seed),
                     Ridge(alpha=1.0 / c))
             else:
@@ -945,7 +946,10 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
                                        class_weight="balanced", max_iter=5000,
                                        random_state=seed)
         else:
-            inner = LogisticRegression(C=c, class_weight="balanced", max_iter=2000)
+            # liblinear is much quicker than lbfgs on the many small refits of the protocol
+            solver = "liblinear" if n_classes == 2 else "lbfgs"
+            inner = LogisticRegression(C=c, solver=solver, class_weight="balanced",
+                                       max_iter=2000, random_state=seed)
     elif model == "lda":
         from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
 
@@ -958,7 +962,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
                                                           "coef0": 1.0}
         return make_pipeline(
             StandardScaler(),
-            Nystroem(n_components=min(NYSTROEM_COMPONENTS, n_rows), random_state=seed,
+            Nystroem(n_components=_components(n_rows), random_state=seed,
                      **kernel),
             LinearSVC(C=c, dual=False, class_weight="balanced", max_iter=5000))
     else:
@@ -992,6 +996,11 @@ def _predict(model, X: np.ndarray) -> np.ndarray:
     kernel = pairwise_kernels(scaled, last.support_vectors_, metric=last.kernel, **options)
     decision = kernel @ last.dual_coef_[0] + last.intercept_[0]
     return last.classes_[(decision > 0).astype(np.int64)]
+
+
+def _components(rows: int) -> int:
+    """Nystroem components for a fit on ``rows`` rows: a quarter of them, 50 to 1000."""
+    return int(min(NYSTROEM_COMPONENTS, rows, max(50, rows // 4)))
 
 
 def _raw_hyperplanes(pipeline) -> tuple[np.ndarray, np.ndarray]:
@@ -1127,11 +1136,17 @@ def _subsample(rows: np.ndarray, strata: np.ndarray | None, size: int, seed: int
 
 
 def _identical_across(X: np.ndarray, train: np.ndarray, test: np.ndarray) -> int:
-    """How many test rows have exactly the same feature values as some training row."""
+    """How many test rows have the same feature values as some training row.
+
+    Values are compared to about nine significant digits: features computed in floating
+    point (eigenvalues, singular values) of the same matrix written with its rows permuted
+    differ in the last bits.
+    """
     import pandas as pd
 
-    # adding 0.0 turns -0.0 into 0.0, so equal numbers hash equally
-    hashes = pd.util.hash_pandas_object(pd.DataFrame(X + 0.0), index=False).to_numpy()
+    mantissa, exponent = np.frexp(X)
+    rounded = np.ldexp(np.round(mantissa * 2.0**30) / 2.0**30, exponent) + 0.0
+    hashes = pd.util.hash_pandas_object(pd.DataFrame(rounded), index=False).to_numpy()
     return int(np.isin(hashes[test], hashes[train]).sum())
 
 

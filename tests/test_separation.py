@@ -1,0 +1,560 @@
+"""The separator step: validation against chance, leakage guards, and exact equations.
+
+Reference points come from outside the program: Fisher's iris data as shipped with
+scikit-learn, scikit-learn's own metrics, Pick's theorem on the demo lattice polygons, and
+planted rules on generated tables whose truth is known by construction.
+"""
+
+from __future__ import annotations
+
+import json
+from collections import Counter
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.datasets import load_iris
+from sklearn.metrics import balanced_accuracy_score, matthews_corrcoef
+
+from analysis.errors import StepError
+from analysis.features import canonical_key
+from analysis.figures import figures_for
+from analysis.separation import SeparatorResult, SeparatorStep, _mcc_from_counts
+from analysis.steps import make_step, step_params
+from analysis.table import load_table, read_table
+
+TABLES = Path(__file__).resolve().parent.parent / "sample_tables"
+# Enough permutations that p can fall below 0.05 (smallest p is 1/40), few enough to be quick.
+FEW = {"permutations": 39, "repeats": 3}
+
+
+def _table(frame: pd.DataFrame, name: str = "generated.csv"):
+    return read_table(frame.to_csv(index=False).encode(), name)
+
+
+def _labels_of(table, column, ids):
+    """Target values of the rows with ``ids``, read straight from the table's frame."""
+    position = {rid: i for i, rid in enumerate(table.row_ids.tolist())}
+    values = table.frame[column].to_numpy()
+    return [values[position[r]] for r in ids]
+
+
+@pytest.fixture(scope="module")
+def iris():
+    # Fisher's iris measurements (Fisher 1936) as shipped with scikit-learn.
+    data = load_iris(as_frame=True)
+    frame = data.frame.rename(columns=lambda c: c.replace(" (cm)", "").replace(" ", "_"))
+    frame["species"] = [str(data.target_names[i]) for i in data.target]
+    return _table(frame.drop(columns="target"), "iris.csv")
+
+
+@pytest.fixture(scope="module")
+def setosa(iris):
+    return SeparatorStep(target="species", positive_class="setosa", seed=0, **FEW).run(iris)
+
+
+@pytest.fixture(scope="module")
+def iris_three(iris):
+    return SeparatorStep(target="species", seed=0, **FEW).run(iris)
+
+
+# ----------------------------------------------------------------------------------------
+# Known answers
+
+
+def test_setosa_is_linearly_separable(setosa):
+    # Iris setosa is linearly separable from the other two species (Fisher 1936; the
+    # scikit-learn dataset description says so too).
+    assert setosa.metrics["accuracy"] == 1.0, setosa.metrics
+    assert setosa.repeats["mean"]["accuracy"] == 1.0, setosa.repeats
+    equation = setosa.equation
+    assert equation is not None
+    assert equation.violations == 0, equation.text
+    assert equation.positive_class == "setosa"
+    assert setosa.beats_chance_text == "yes", setosa.summary()
+    # the equation, read independently off the table, picks out exactly the setosa rows
+    holds = equation.holds(pd.DataFrame(_iris_columns()))
+    assert np.array_equal(holds, _iris_species() == "setosa")
+
+
+def _iris_columns():
+    data = load_iris()
+    names = ["sepal_length", "sepal_width", "petal_length", "petal_width"]
+    return {name: data.data[:, j] for j, name in enumerate(names)}
+
+
+def _iris_species():
+    data = load_iris()
+    return np.array([str(data.target_names[i]) for i in data.target])
+
+
+def test_setosa_json_follows_the_contract(setosa):
+    payload = setosa.to_json()
+    json.dumps(payload, allow_nan=False)
+    for key in ("accuracy", "balanced_accuracy", "mcc", "mcc_ci"):
+        assert key in payload["metrics"]
+    low, high = payload["metrics"]["mcc_ci"]
+    assert low <= payload["metrics"]["mcc"] <= high
+    assert set(payload["baseline"]) >= {"accuracy"}
+    assert isinstance(payload["train_rows"], int) and isinstance(payload["test_rows"], int)
+    assert payload["train_rows"] + payload["test_rows"] == 150
+    equation = payload["equation"]
+    assert equation["relation"] in (">=", "<=")
+    assert equation["violations"] == 0 and equation["violating_rows"] == []
+    for term in equation["terms"]:
+        assert set(term) >= {"feature", "coef"} and isinstance(term["coef"], str)
+    assert isinstance(equation["constant"], str)
+    assert payload["beats_chance"] == "yes"
+    assert "bootstrap, 1000 resamples" in payload["interval_method"]
+    assert "interval" in payload["beats_chance_rule"] and "0.05" in payload["beats_chance_rule"]
+    assert payload["confusion_matrix"]["labels"] == ["not setosa", "setosa"]
+
+
+def test_setosa_summary_ends_with_equation_and_verdict(setosa):
+    lines = setosa.summary().splitlines()
+    assert lines[-1] == "beats chance: yes"
+    assert lines[-2].strip().startswith("equation:") and setosa.equation.text in lines[-2]
+
+
+def test_iris_three_classes_give_three_equations(iris_three):
+    assert iris_three.task == "classification"
+    assert len(iris_three.equations) == 3
+    assert {e.positive_class for e in iris_three.equations} == {"setosa", "versicolor",
+                                                                "virginica"}
+    assert iris_three.to_json()["equation"] is None
+    assert len(iris_three.to_json()["equations"]) == 3
+    counts = np.array(iris_three.confusion_matrix["counts"])
+    assert counts.shape == (3, 3)
+    # multiclass scores agree with scikit-learn computed from the same confusion matrix
+    actual, predicted = _pairs_from_counts(counts)
+    assert iris_three.metrics["mcc"] == pytest.approx(matthews_corrcoef(actual, predicted))
+    assert iris_three.metrics["balanced_accuracy"] == pytest.approx(
+        balanced_accuracy_score(actual, predicted))
+    # the setosa equation is exact (Fisher 1936); the other two species overlap a little
+    setosa = next(e for e in iris_three.equations if e.positive_class == "setosa")
+    assert setosa.violations == 0, setosa.text
+    # well above chance: three balanced classes give a baseline of 1/3
+    assert iris_three.metrics["accuracy"] >= 0.85, iris_three.metrics
+    assert iris_three.baseline["accuracy"] == pytest.approx(1 / 3)
+
+
+def _pairs_from_counts(counts):
+    actual, predicted = [], []
+    for i in range(counts.shape[0]):
+        for j in range(counts.shape[1]):
+            actual += [i] * int(counts[i, j])
+            predicted += [j] * int(counts[i, j])
+    return np.array(actual), np.array(predicted)
+
+
+def test_planted_integer_rule_comes_back_exactly():
+    # Truth by construction: label = (3a - 2b + c >= 4) on random integers.
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame({name: rng.integers(-6, 7, 400) for name in "abcd"})
+    frame["label"] = 3 * frame.a - 2 * frame.b + frame.c >= 4
+    table = _table(frame)
+    result = SeparatorStep(target="label", seed=0, **FEW).run(table)
+    equation = result.equation
+    assert equation.violations == 0, equation.text
+    coefs = {t.feature: t.coef for t in equation.terms}
+    assert set(coefs) == {"a", "b", "c"}, equation.text
+    scale = coefs["a"] / 3
+    assert scale > 0 if equation.relation == ">=" else scale < 0
+    assert coefs["b"] == -2 * scale and coefs["c"] == scale, equation.text
+    # on fresh integer points the equation and the planted rule agree everywhere
+    fresh = pd.DataFrame({name: rng.integers(-10, 11, 3000) for name in "abcd"})
+    planted = (3 * fresh.a - 2 * fresh.b + fresh.c >= 4).to_numpy()
+    assert np.array_equal(equation.holds(fresh), planted)
+    assert result.beats_chance
+
+
+def test_picks_theorem_comes_back_as_a_formula():
+    # Pick's theorem (Pick 1899): twice the area of a lattice polygon is 2 I + B - 2.
+    table = load_table(TABLES / "lattice_polygons.csv")
+    result = SeparatorStep(target="twice_area", columns=["interior_points", "boundary_points"],
+                           permutations=19, repeats=2, seed=0).run(table)
+    assert result.task == "regression"
+    formula = result.formula
+    assert formula.rows_off == 0, formula.text
+    coefs = {t.feature: t.coef for t in formula.terms}
+    assert coefs == {"interior_points": 2, "boundary_points": 1}, formula.text
+    assert formula.constant == -2
+    assert result.metrics["r2"] > 0.99, result.metrics
+    # the baseline is the training mean: its R^2 on the test rows is at most about 0
+    assert result.baseline["r2"] < 0.01, result.baseline
+    payload = result.to_json()
+    assert payload["formula"]["text"] == formula.text
+    assert set(payload["metrics"]) >= {"r2", "r2_ci", "mean_absolute_error"}
+
+
+# ----------------------------------------------------------------------------------------
+# Chance
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2], ids=["coin-seed-0", "coin-seed-1", "coin-seed-2"])
+def test_fair_coin_target_is_chance(seed):
+    # Labels from a fair coin, independent of the features by construction: no separator
+    # can beat chance, so the verdict must be no.
+    rng = np.random.default_rng(100 + seed)
+    frame = pd.DataFrame({name: rng.integers(0, 50, 240) for name in ("a", "b", "c", "d")})
+    frame["coin"] = rng.integers(0, 2, 240).astype(bool)
+    result = SeparatorStep(target="coin", seed=seed, **FEW).run(_table(frame))
+    low, high = result.metrics["mcc_ci"]
+    assert low <= 0 <= high or result.permutation_p >= 0.05, (result.metrics,
+                                                               result.permutation_p)
+    assert result.beats_chance_text == "no", result.summary()
+    assert result.summary().endswith("beats chance: no")
+    assert abs(result.repeats["mean"]["mcc"]) < 0.25, result.repeats["mean"]
+
+
+def test_permutation_p_value_follows_its_formula(setosa):
+    # p = (count of permuted scores >= observed + 1) / (permutations + 1), common practice
+    # for permutation tests (Phipson and Smyth 2010).
+    scores = np.array(setosa.permutation_scores)
+    assert len(scores) == 39
+    expected = (np.sum(scores >= setosa.permutation_observed) + 1) / (len(scores) + 1)
+    assert setosa.permutation_p == pytest.approx(expected)
+
+
+# ----------------------------------------------------------------------------------------
+# Metrics against independent computations
+
+
+def test_baseline_is_the_majority_rate_of_the_test_rows(iris):
+    result = SeparatorStep(target="species", positive_class="virginica", seed=3,
+                           train_fraction=0.6, **FEW).run(iris)
+    labels = _labels_of(iris, "species", result.test_row_ids)
+    binary = ["virginica" if v == "virginica" else "rest" for v in labels]
+    expected = max(Counter(binary).values()) / len(binary)
+    assert result.baseline["accuracy"] == pytest.approx(expected)
+    assert len(result.test_row_ids) == result.test_rows == 60
+
+
+def test_mcc_matches_scikit_learn(iris):
+    result = SeparatorStep(target="species", positive_class="versicolor", seed=1,
+                           **FEW).run(iris)
+    counts = np.array(result.confusion_matrix["counts"])
+    actual, predicted = _pairs_from_counts(counts)
+    # scikit-learn's Matthews correlation and balanced accuracy on the same predictions
+    assert result.metrics["mcc"] == pytest.approx(matthews_corrcoef(actual, predicted))
+    assert result.metrics["balanced_accuracy"] == pytest.approx(
+        balanced_accuracy_score(actual, predicted))
+    # the confusion matrix's rows are the actual classes of the listed test rows
+    labels = _labels_of(iris, "species", result.test_row_ids)
+    positives = sum(1 for v in labels if v == "versicolor")
+    assert counts[1].sum() == positives and counts[0].sum() == len(labels) - positives
+
+
+@pytest.mark.parametrize("classes", [2, 3, 5], ids=["two-classes", "three-classes",
+                                                    "five-classes"])
+def test_mcc_formula_matches_scikit_learn_on_random_predictions(classes):
+    rng = np.random.default_rng(classes)
+    for _ in range(20):
+        actual = rng.integers(0, classes, 80)
+        predicted = np.where(rng.random(80) < 0.5, actual, rng.integers(0, classes, 80))
+        counts = np.zeros((classes, classes), dtype=int)
+        np.add.at(counts, (actual, predicted), 1)
+        assert float(_mcc_from_counts(counts)) == pytest.approx(
+            matthews_corrcoef(actual, predicted), abs=1e-12)
+
+
+def test_bootstrap_interval_matches_resampling_rows(iris):
+    # A percentile bootstrap over the test rows (Efron and Tibshirani 1993), redone here by
+    # resampling rows. For two classes the Matthews correlation is the phi coefficient,
+    # Pearson's r of the two 0/1 vectors (Matthews 1975), computed with numpy.
+    result = SeparatorStep(target="species", positive_class="virginica", seed=2,
+                           **FEW).run(iris)
+    actual, predicted = _pairs_from_counts(np.array(result.confusion_matrix["counts"]))
+    assert result.metrics["mcc"] == pytest.approx(np.corrcoef(actual, predicted)[0, 1])
+    rng = np.random.default_rng(123)
+    values = []
+    for _ in range(2000):
+        pick = rng.integers(0, len(actual), len(actual))
+        a, p = actual[pick], predicted[pick]
+        values.append(0.0 if a.std() == 0 or p.std() == 0 else np.corrcoef(a, p)[0, 1])
+    low, high = np.percentile(values, [2.5, 97.5])
+    got_low, got_high = result.metrics["mcc_ci"]
+    assert got_low == pytest.approx(low, abs=0.05), (got_low, low)
+    assert got_high == pytest.approx(high, abs=0.05), (got_high, high)
+
+
+# ----------------------------------------------------------------------------------------
+# Leakage
+
+
+def _matrix_table(objects: int = 36, copies: int = 4, seed: int = 0):
+    """Random symmetric integer matrices, each written ``copies`` times with its rows and
+    columns permuted together; the label (trace > 0) is the same for all copies."""
+    rng = np.random.default_rng(seed)
+    records = []
+    for k in range(objects):
+        base = rng.integers(-5, 6, (4, 4))
+        base = base + base.T
+        for _ in range(copies):
+            order = rng.permutation(4)
+            cell = base[np.ix_(order, order)]
+            records.append({"object": f"O{k:03d}", "matrix": json.dumps(cell.tolist()),
+                            "positive_trace": bool(np.trace(base) > 0)})
+    return _table(pd.DataFrame(records), "matrices.csv")
+
+
+def test_groups_keep_permuted_copies_on_one_side():
+    table = _matrix_table()
+    # the copies of one object share one canonical key (rows and columns permuted together)
+    keys = {}
+    for name, cell in zip(table.frame["object"], table.frame["matrix"]):
+        keys.setdefault(name, set()).add(canonical_key(cell))
+    assert all(len(v) == 1 for v in keys.values())
+    for groups in ("matrix", "object"):
+        result = SeparatorStep(target="positive_trace", columns=["matrix"], groups=groups,
+                               seed=4, **FEW).run(table)
+        train = set(_labels_of(table, "object", result.train_row_ids))
+        test = set(_labels_of(table, "object", result.test_row_ids))
+        assert train and test and not train & test, groups
+        assert result.identical_rows_across_split == 0
+        assert not result.warnings, result.warnings
+
+
+def test_copies_across_a_split_are_warned_about_with_their_count():
+    table = _matrix_table(seed=1)
+    result = SeparatorStep(target="positive_trace", columns=["matrix"], seed=4,
+                           **FEW).run(table)
+    # independently: test rows whose object (hence invariant features) also sits in training
+    train_objects = set(_labels_of(table, "object", result.train_row_ids))
+    test_objects = _labels_of(table, "object", result.test_row_ids)
+    expected = sum(1 for name in test_objects if name in train_objects)
+    assert expected > 0
+    assert result.identical_rows_across_split == expected
+    assert any(f"{expected} test rows" in w for w in result.warnings), result.warnings
+
+
+def test_identical_feature_rows_are_counted():
+    rng = np.random.default_rng(8)
+    base = pd.DataFrame({"a": rng.integers(0, 1000, 120), "b": rng.integers(0, 1000, 120)})
+    base["label"] = base.a > base.b
+    frame = pd.concat([base, base.iloc[:30]], ignore_index=True)   # 30 exact duplicates
+    table = _table(frame)
+    result = SeparatorStep(target="label", seed=6, **FEW).run(table)
+    train = set(zip(_labels_of(table, "a", result.train_row_ids),
+                    _labels_of(table, "b", result.train_row_ids)))
+    test = list(zip(_labels_of(table, "a", result.test_row_ids),
+                    _labels_of(table, "b", result.test_row_ids)))
+    expected = sum(1 for row in test if row in train)
+    assert result.identical_rows_across_split == expected
+    if expected:
+        assert any(f"{expected} test rows" in w for w in result.warnings)
+    else:
+        assert not result.warnings
+
+
+def test_augmented_copies_stay_on_the_training_side():
+    table = _matrix_table(objects=20, copies=2, seed=2)
+    plain = SeparatorStep(target="positive_trace", columns=["matrix"], groups="matrix",
+                          array_encoding="flat", seed=0, **FEW).run(table)
+    augmented = SeparatorStep(target="positive_trace", columns=["matrix"], groups="matrix",
+                              array_encoding="flat", augment_permutations=3, seed=0,
+                              **FEW).run(table)
+    # same split, same test rows: the copies only ever join the training side
+    assert augmented.test_row_ids == plain.test_row_ids
+    assert augmented.train_row_ids == plain.train_row_ids
+    assert any("3 permuted copies" in n for n in augmented.notes), augmented.notes
+
+
+# ----------------------------------------------------------------------------------------
+# Other models
+
+
+def _circle_table(rows: int = 300, seed: int = 3):
+    # Truth by construction: inside the circle a^2 + b^2 <= 40.
+    rng = np.random.default_rng(seed)
+    frame = pd.DataFrame({"a": rng.integers(-10, 11, rows), "b": rng.integers(-10, 11, rows)})
+    frame["inside"] = frame.a**2 + frame.b**2 <= 40
+    return _table(frame, "circle.csv")
+
+
+def test_poly2_model_gives_a_checked_polynomial_equation():
+    table = _circle_table()
+    result = SeparatorStep(target="inside", model="poly2", seed=0, **FEW).run(table)
+    equation = result.equation
+    assert equation is not None
+    assert max(term.degree for term in equation.terms) == 2, equation.text
+    frame = table.frame[["a", "b"]]
+    labels = table.frame["inside"].to_numpy(dtype=bool)
+    holds = equation.holds(frame)
+    assert equation.violations == int(np.sum(holds != labels)), equation.text
+    # the decision scores drawn in the figure are the equation's left side minus constant
+    assert np.array_equal(result.decision.scores >= 0, holds)
+    assert result.metrics["accuracy"] >= 0.9, result.metrics
+    assert result.kernel_method == "exact kernel machine"
+
+
+def test_rbf_model_gives_a_quadratic_surrogate_with_its_agreement():
+    table = _circle_table()
+    result = SeparatorStep(target="inside", model="rbf", seed=0, **FEW).run(table)
+    surrogate = result.surrogate
+    assert surrogate is not None and 0.0 <= surrogate.agreement <= 1.0
+    # agreement is with the machine's own predictions on every row
+    machine = result.decision.predicted == 1
+    holds = surrogate.holds(table.frame[["a", "b"]])
+    assert surrogate.agreement == pytest.approx(np.mean(holds == machine))
+    assert "agrees with the machine" in result.summary()
+
+
+@pytest.mark.parametrize("model", ["logistic", "lda"], ids=["logistic", "lda"])
+def test_other_linear_models_give_equations(iris, model):
+    result = SeparatorStep(target="species", positive_class="setosa", model=model, seed=0,
+                           **FEW).run(iris)
+    assert result.equation.violations == 0, result.equation.text
+    assert result.metrics["accuracy"] == 1.0
+
+
+def test_kernel_machines_past_the_row_limit_need_approximation_asked_for():
+    table = _circle_table(rows=260)
+    quick = {"permutations": 9, "repeats": 2}
+    with pytest.raises(StepError, match="kernel_approximation"):
+        SeparatorStep(target="inside", model="rbf", kernel_row_limit=200, **quick).run(table)
+    result = SeparatorStep(target="inside", model="rbf", kernel_row_limit=200,
+                           kernel_approximation="auto", seed=0, **quick).run(table)
+    assert "Nystroem" in result.kernel_method
+    assert any("Nystroem" in n for n in result.notes)
+    assert result.surrogate is not None
+    sampled = SeparatorStep(target="inside", model="rbf", kernel_row_limit=200,
+                            kernel_approximation="sample", seed=0, **quick).run(table)
+    assert "sample" in sampled.kernel_method
+
+
+def test_large_tables_use_fewer_permutations_and_a_sampled_equation_search():
+    # A small table run with the large-table settings lowered, so the cheaper path is taken.
+    rng = np.random.default_rng(21)
+    frame = pd.DataFrame({name: rng.integers(-6, 7, 400) for name in "abc"})
+    frame["label"] = 2 * frame.a + frame.b >= 1
+    result = SeparatorStep(target="label", permutations=80, repeats=2, large_table_rows=300,
+                           sample_rows=150, seed=0).run(_table(frame))
+    assert len(result.permutation_scores) == 50
+    assert "fewer than the 80 asked" in result.permutation_method
+    assert "sample of 150" in result.permutation_method
+    assert any("searched on a sample of 150 rows" in n for n in result.notes), result.notes
+    # the equation found on the sample is checked on every row: 2a + b >= 1 by construction
+    assert result.equation.n_rows == 400
+    assert result.equation.violations == 0, result.equation.text
+
+
+def test_mispredicted_lists_confidently_wrong_test_rows():
+    # Truth by construction: label = (a > b), with the labels of a few rows far from the
+    # boundary flipped. Those rows, when on the test side, are confident mistakes.
+    rng = np.random.default_rng(11)
+    frame = pd.DataFrame({"a": rng.integers(0, 100, 300), "b": rng.integers(0, 100, 300)})
+    label = np.array(frame.a > frame.b, dtype=bool)
+    far = np.flatnonzero(np.abs(frame.a - frame.b).to_numpy() > 60)[:6]
+    label[far] = ~label[far]
+    frame["label"] = label
+    table = _table(frame)
+    result = SeparatorStep(target="label", seed=0, **FEW).run(table)
+    flipped_in_test = set(far.tolist()) & set(result.test_row_ids)
+    assert flipped_in_test, "the seed should put some flipped rows on the test side"
+    listed = set(result.to_json()["mispredicted"])
+    assert flipped_in_test <= listed, (flipped_in_test, listed)
+
+
+# ----------------------------------------------------------------------------------------
+# Learning curve, determinism, settings
+
+
+def test_learning_curve_covers_the_training_fractions(setosa):
+    fractions = [p["train_fraction"] for p in setosa.learning_curve]
+    assert fractions == [0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8]
+    for point in setosa.learning_curve:
+        assert point["metric"] == "mcc" and len(point["scores"]) == 3
+        assert point["mean"] == pytest.approx(np.mean(point["scores"]))
+        # setosa is separable, so even a few training rows find the gap
+        assert point["mean"] >= 0.9, point
+
+
+def test_same_seed_gives_identical_json(iris):
+    step = SeparatorStep(target="species", positive_class="versicolor", seed=7, **FEW)
+    first = json.dumps(step.run(iris).to_json(), sort_keys=True)
+    second = json.dumps(step.run(iris).to_json(), sort_keys=True)
+    assert first == second
+    other = SeparatorStep(target="species", positive_class="versicolor", seed=8, **FEW)
+    assert json.loads(first)["test_row_ids"] != other.run(iris).to_json()["test_row_ids"]
+
+
+def test_step_round_trips_through_its_parameters():
+    step = make_step("separator", {"target": "species", "model": "logistic",
+                                   "train_fraction": 0.7, "groups": None})
+    assert isinstance(step, SeparatorStep)
+    assert make_step("separator", step_params(step)) == step
+
+
+def test_one_class_target_is_refused():
+    frame = pd.DataFrame({"a": range(40), "b": range(40, 80), "label": ["yes"] * 40})
+    with pytest.raises(StepError, match="one class"):
+        SeparatorStep(target="label", **FEW).run(_table(frame))
+
+
+@pytest.mark.parametrize(
+    ("settings", "message"),
+    [
+        ({"train_fraction": 0.99}, "train fraction"),
+        ({"train_fraction": 0.01}, "train fraction"),
+        ({"model": "forest"}, "model 'forest'"),
+        ({"penalty": "l1", "model": "lda"}, "penalty l1"),
+        ({"penalty": "l3"}, "penalty 'l3'"),
+        ({"repeats": 0}, "repeats"),
+        ({"permutations": -1}, "permutations"),
+        ({"positive_class": "daisy"}, "positive class 'daisy'"),
+        ({"kernel_approximation": "guess"}, "kernel approximation"),
+        ({"target": None}, "needs a target"),
+        ({"target": "species", "groups": "species"}, "group column"),
+    ],
+    ids=["fraction-high", "fraction-low", "unknown-model", "l1-lda", "unknown-penalty",
+         "no-repeats", "negative-permutations", "unknown-class", "unknown-approximation",
+         "no-target", "groups-is-target"],
+)
+def test_bad_settings_are_refused(iris, settings, message):
+    params = {"target": "species", **FEW, **settings}
+    with pytest.raises(StepError, match=message):
+        SeparatorStep(**params).run(iris)
+
+
+def test_class_models_refuse_a_numeric_target():
+    table = _circle_table()
+    frame = table.frame[["a", "b"]].copy()
+    frame["c"] = frame.a * 7 + frame.b * 3    # many values: a numeric target
+    with pytest.raises(StepError, match="needs classes"):
+        SeparatorStep(target="c", model="logistic", **FEW).run(_table(frame))
+
+
+# ----------------------------------------------------------------------------------------
+# Figures
+
+
+def test_figures_show_the_result(iris, setosa):
+    drawn = dict(figures_for(setosa, iris, feature="petal_width", hover=["species"]))
+    assert list(drawn) == ["Confusion matrix (split 1, test rows)", "Learning curve",
+                           "Score against chance", "Decision score of every row"]
+    heatmap = drawn["Confusion matrix (split 1, test rows)"].data[0]
+    counts = np.array(setosa.confusion_matrix["counts"])
+    assert np.allclose(np.asarray(heatmap.z) * counts.sum(axis=1, keepdims=True), counts)
+    chance = drawn["Score against chance"]
+    histogram = [t for t in chance.data if t.type == "histogram"][0]
+    assert list(histogram.x) == list(setosa.permutation_scores)
+    scatter = drawn["Decision score of every row"]
+    ids = [row for trace in scatter.data for row in np.asarray(trace.customdata)[:, 0]]
+    assert sorted(ids) == list(range(150))
+    # x is the chosen feature; the threshold is drawn at 0
+    xs = np.concatenate([np.asarray(trace.x) for trace in scatter.data])
+    assert set(np.round(xs, 1)) <= set(np.round(load_iris().data[:, 3], 1))
+    assert any(shape.y0 == 0 and shape.y1 == 0 for shape in scatter.layout.shapes)
+
+
+def test_regression_figures_draw_predictions():
+    table = _circle_table()
+    frame = table.frame[["a", "b"]].copy()
+    frame["c"] = frame.a * 7 + frame.b * 3
+    result = SeparatorStep(target="c", permutations=9, repeats=2).run(_table(frame))
+    assert isinstance(result, SeparatorResult)
+    titles = [title for title, _ in figures_for(result)]
+    assert titles[0].startswith("Predicted against actual")
+    assert result.formula.rows_off == 0, result.formula.text   # c = 7a + 3b by construction
