@@ -17,6 +17,7 @@ import csv
 import hashlib
 import io
 import json
+import math
 import re
 import sys
 from dataclasses import dataclass, field, replace
@@ -151,7 +152,11 @@ class Table:
         )
 
     def exact(self, name: str) -> list:
-        """The column as exact Python values: int, Fraction, or None where missing."""
+        """The column as exact Python values: int, Fraction, or None where missing.
+
+        An infinite real has no exact value and is None too, as it counts as missing in
+        features.
+        """
         info = self.column(name)
         series = self.frame[name]
         if info.dtype == "integer":
@@ -163,7 +168,8 @@ class Table:
         if info.dtype in ("big integer", "rational"):
             return [None if _is_missing(v) else v for v in series.tolist()]
         if info.dtype == "real":
-            return [None if _is_missing(v) else Fraction(v) for v in series.tolist()]
+            return [None if _is_missing(v) or math.isinf(v) else Fraction(v)
+                    for v in series.tolist()]
         raise TableError(
             f"{self.name}: column {name!r} holds {info.dtype} values, which have no exact "
             "numeric form. Choose an integer, rational or flag column."

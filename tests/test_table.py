@@ -304,6 +304,12 @@ def test_rational_with_zero_denominator_names_row_and_column():
         read_table(b"k,q\n1,3/4\n2,1/0\n", "t.csv")
 
 
+def test_exact_values_of_a_real_column():
+    table = read_table(b"k,x\n1,0.5\n2,\n3,inf\n4,-2.25\n", "t.csv")
+    # an infinite value has no exact form; like a missing one it is None
+    assert table.exact("x") == [Fraction(1, 2), None, None, Fraction(-9, 4)]
+
+
 def test_exponent_notation_is_a_real_number():
     table = read_table(b"k,x\n1,1e3\n2,2.5E-3\n3,-4e+2\n", "t.csv")
     assert table.column("x").dtype in ("real", "integer")
