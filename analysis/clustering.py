@@ -1,0 +1,524 @@
+"""The clustering step: groups of similar objects, how many, and what sets each group apart.
+
+A sweep tries each method over a range of k and scores every run: the silhouette (how much
+closer a row sits to its own cluster than to the next one; computed on a random sample for
+large tables) for every method, and the BIC for Gaussian mixtures. The choice is explained in
+words. Each cluster gets a profile in the table's own units: its mean of every feature and
+the features on which it differs most from the other rows.
+
+Methods that do not scale exactly are replaced past a threshold, and the result says so:
+k-means becomes mini-batch k-means past ``MINIBATCH_ROWS`` rows, Gaussian mixtures are fitted
+on a sample of that size, and agglomerative clustering and HDBSCAN are fitted on a sample of
+``sample_size`` rows, the other rows joining the nearest cluster.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from analysis.errors import StepError
+from analysis.features import FeatureMatrix, build_features, target_values
+from analysis.plain import plain, row_id
+from analysis.projection import sample_positions, standardized
+from analysis.table import Table
+
+METHODS = ("auto", "kmeans", "gmm", "agglomerative", "hdbscan")
+# Methods that take a number of clusters; "auto" sweeps these.
+K_METHODS = ("kmeans", "gmm", "agglomerative")
+METHOD_TITLES = {"kmeans": "k-means", "gmm": "Gaussian mixture",
+                 "agglomerative": "agglomerative (Ward)", "hdbscan": "HDBSCAN"}
+MINIBATCH_ROWS = 100_000
+# A cluster "differs" on a feature when its mean is this many standard deviations from the
+# mean of the other rows (half a standard deviation: a medium effect, common practice).
+NOTABLE_DIFFERENCE = 0.5
+NOISE = -1
+
+
+@dataclass(frozen=True)
+class SweepEntry:
+    """One run of the sweep: a method, the k asked for, and its scores."""
+
+    method: str
+    k: int | None
+    silhouette: float | None
+    bic: float | None = None
+    clusters: int = 0
+    noise: int = 0
+
+    def to_json(self) -> dict:
+        return plain({"method": self.method, "k": self.k, "silhouette": self.silhouette,
+                      "bic": self.bic, "clusters": self.clusters, "noise": self.noise})
+
+
+@dataclass(frozen=True)
+class ClusterProfile:
+    """One cluster: its size, its mean of each feature (table units), and what sets it apart.
+
+    ``differences`` holds, per feature, (cluster mean - mean of the other rows) divided by the
+    feature's standard deviation over all rows; ``distinguished_by`` says the largest in words.
+    """
+
+    cluster: int
+    size: int
+    means: dict[str, float]
+    differences: dict[str, float]
+    distinguished_by: tuple[str, ...]
+
+    def to_json(self) -> dict:
+        return plain({"cluster": self.cluster, "size": self.size, "means": self.means,
+                      "differences": self.differences,
+                      "distinguished_by": list(self.distinguished_by)})
+
+
+@dataclass(frozen=True, eq=False)
+class ClusteringResult:
+    """Cluster labels for the clustered rows (``row_ids``, ``positions`` line up with them).
+
+    Clusters are numbered 0, 1, ... from the largest; HDBSCAN's noise rows are cluster -1.
+    """
+
+    method: str
+    k: int
+    row_ids: np.ndarray
+    positions: np.ndarray
+    labels: np.ndarray
+    sweep: tuple[SweepEntry, ...]
+    profiles: tuple[ClusterProfile, ...]
+    reason: str
+    features: tuple[str, ...]
+    standardize: bool
+    n_rows: int
+    seed: int
+    silhouette: float | None = None
+    compare: str | None = None
+    agreement: dict[str, float] | None = None
+    notes: tuple[str, ...] = ()
+    elapsed_seconds: float = 0.0
+    kind: ClassVar[str] = "clustering"
+
+    def to_json(self) -> dict:
+        payload = {
+            "method": self.method,
+            "k": self.k,
+            "silhouette": self.silhouette,
+            "assignments": [{"row": row_id(r), "cluster": int(c)}
+                            for r, c in zip(self.row_ids, self.labels)],
+            "sweep": [entry.to_json() for entry in self.sweep],
+            "profiles": [profile.to_json() for profile in self.profiles],
+            "reason": self.reason,
+            "features": list(self.features),
+            "standardize": self.standardize,
+            "n_rows": self.n_rows,
+            "seed": self.seed,
+            "notes": list(self.notes),
+            "elapsed_seconds": self.elapsed_seconds,
+        }
+        if self.compare is not None:
+            payload["compare"] = self.compare
+            payload["agreement"] = self.agreement
+        return plain(payload)
+
+    def summary(self) -> str:
+        lines = [f"{METHOD_TITLES[self.method]}, k = {self.k}, on {self.n_rows} rows and "
+                 f"{len(self.features)} features; {self.elapsed_seconds:.1f} s.",
+                 f"  why: {self.reason}"]
+        if self.agreement is not None:
+            lines.append(f"  agreement with {self.compare!r}: adjusted Rand index "
+                         f"{self.agreement['ari']:.3f}, normalized mutual information "
+                         f"{self.agreement['nmi']:.3f}")
+        for profile in self.profiles:
+            name = "noise" if profile.cluster == NOISE else f"cluster {profile.cluster}"
+            lines.append(f"  {name} ({profile.size} rows): "
+                         + "; ".join(profile.distinguished_by))
+        lines.extend(f"  note: {n}" for n in self.notes)
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True, kw_only=True)
+class ClusteringStep:
+    """Cluster the table's rows, choosing the method and k by internal scores.
+
+    method: "auto" (k-means, Gaussian mixture and agglomerative over ``k_range``, chosen by
+        silhouette), "kmeans" or "agglomerative" (k by silhouette), "gmm" (k by BIC) or
+        "hdbscan" (finds its own number of clusters; rows in no cluster are noise, -1).
+    k: a fixed number of clusters instead of the sweep. k_range: lowest and highest k tried.
+    compare: a label column to compare the clusters with (adjusted Rand index, normalized
+        mutual information); it is not used as a feature.
+    sample_size: rows used for silhouettes, and for agglomerative clustering and HDBSCAN,
+        on larger tables (drawn with ``seed``).
+
+    Example: ``ClusteringStep(method="kmeans", k=3, compare="species").run(table).agreement``.
+    """
+
+    method: str = "auto"
+    k: int | None = None
+    k_range: tuple[int, int] = (2, 8)
+    compare: str | None = None
+    columns: list[str] | None = None
+    array_encoding: str = "invariant"
+    log_scale: str = "auto"
+    missing: str = "drop"
+    standardize: bool = True
+    sample_size: int = 4000
+    min_cluster_size: int = 10
+    seed: int = 0
+    kind: ClassVar[str] = "clustering"
+
+    def run(self, table: Table) -> ClusteringResult:
+        started = time.perf_counter()
+        self._check(table)
+        fm = build_features(table, columns=self.columns, target=self.compare,
+                            array_encoding=self.array_encoding, log_scale=self.log_scale,
+                            missing=self.missing)
+        n = len(fm.rows)
+        notes = list(fm.notes)
+        values = standardized(fm.values) if self.standardize else fm.values
+        notes.append("features standardized to mean 0 and standard deviation 1."
+                     if self.standardize else "features used in their own units.")
+        ks = self._ks(n, table.name)
+        scorer = _Silhouette(values, self.sample_size, self.seed, notes)
+        methods = K_METHODS if self.method == "auto" else (self.method,)
+        runs: list[tuple[SweepEntry, np.ndarray]] = []
+        with warnings.catch_warnings(), threadpool_limits(1):
+            # duplicate rows (common in tables of invariants) make k-means and mixtures warn
+            # that fewer distinct clusters exist than asked; the sweep records what was found.
+            # The matrices here are small (features x features): BLAS threads only add
+            # waiting, many times the work itself when the cores are busy.
+            warnings.simplefilter("ignore")
+            for method in methods:
+                runs.extend(self._sweep(method, values, ks, scorer, notes))
+        entry, labels, reason = _choose(self.method, runs, self.k is not None)
+        labels = _by_size(labels)
+        agreement = None
+        if self.compare is not None:
+            agreement = _agreement(table, self.compare, fm.rows, labels)
+        profiles = _profiles(table, fm, labels)
+        k = int(len(set(labels.tolist()) - {NOISE}))
+        return ClusteringResult(
+            method=entry.method, k=k, row_ids=fm.row_ids, positions=fm.rows, labels=labels,
+            sweep=tuple(e for e, _ in runs), profiles=profiles, reason=reason,
+            features=tuple(fm.names), standardize=self.standardize, n_rows=n, seed=self.seed,
+            silhouette=entry.silhouette, compare=self.compare, agreement=agreement,
+            notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
+        )
+
+    def _check(self, table: Table) -> None:
+        if self.method not in METHODS:
+            raise StepError(f"clustering method {self.method!r}: use one of "
+                            f"{', '.join(METHODS)}.")
+        if self.k is not None and (not isinstance(self.k, int) or self.k < 2):
+            raise StepError(f"k = {self.k!r}: give a whole number of clusters, at least 2, "
+                            "or leave k unset to choose it by a sweep.")
+        bounds = tuple(self.k_range) if isinstance(self.k_range, (list, tuple)) else ()
+        if len(bounds) != 2 or not all(isinstance(b, int) for b in bounds) \
+                or not 2 <= bounds[0] <= bounds[1]:
+            raise StepError(f"k_range {self.k_range!r}: give the lowest and highest k to try, "
+                            "two whole numbers with 2 <= lowest <= highest, e.g. [2, 8].")
+        if not isinstance(self.sample_size, int) or self.sample_size < 10:
+            raise StepError(f"sample size {self.sample_size!r}: give a whole number of at "
+                            "least 10 rows.")
+        if not isinstance(self.min_cluster_size, int) or self.min_cluster_size < 2:
+            raise StepError(f"min_cluster_size {self.min_cluster_size!r}: give a whole number "
+                            "of at least 2 rows.")
+        if self.compare is not None:
+            table.column(self.compare)
+            if self.columns is not None and self.compare in self.columns:
+                raise StepError(f"{table.name}: {self.compare!r} is the column to compare "
+                                "with, so it cannot also be a feature; leave it out of the "
+                                "feature columns.")
+
+    def _ks(self, n: int, table_name: str) -> list[int]:
+        if self.method == "hdbscan":
+            return []
+        if self.k is not None:
+            if self.k >= n:
+                raise StepError(f"{table_name}: k = {self.k} clusters need more than {self.k} "
+                                f"rows; {n} rows remain. Choose a smaller k.")
+            return [self.k]
+        low, high = self.k_range
+        ks = list(range(low, min(high, n - 1) + 1))
+        if not ks:
+            raise StepError(f"{table_name}: {n} rows are too few to try k from {low}; give "
+                            "a smaller k_range or a larger table.")
+        return ks
+
+    def _sweep(self, method: str, values: np.ndarray, ks: list[int], scorer: _Silhouette,
+               notes: list[str]):
+        n = len(values)
+        if method == "kmeans":
+            if n > MINIBATCH_ROWS:
+                notes.append(f"{n} rows: mini-batch k-means (batches of 4096 rows) instead "
+                             "of exact k-means.")
+            for k in ks:
+                labels = kmeans_labels(values, k, self.seed)[0]
+                yield _entry(method, k, labels, scorer), labels
+        elif method == "gmm":
+            for k in ks:
+                labels, bic = _mixture(values, k, self.seed, notes)
+                yield _entry(method, k, labels, scorer, bic=bic), labels
+        elif method == "agglomerative":
+            for k, labels in _agglomerative(values, ks, self.sample_size, self.seed, notes):
+                yield _entry(method, k, labels, scorer), labels
+        else:
+            if self.k is not None:
+                notes.append(f"HDBSCAN finds its own number of clusters; k = {self.k} was "
+                             "not used.")
+            labels = _hdbscan(values, self.min_cluster_size, self.sample_size, self.seed,
+                              notes)
+            yield _entry(method, None, labels, scorer), labels
+
+
+def kmeans_labels(values: np.ndarray, k: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """k-means labels and centres; mini-batch k-means past ``MINIBATCH_ROWS`` rows."""
+    from sklearn.cluster import KMeans, MiniBatchKMeans
+
+    if len(values) > MINIBATCH_ROWS:
+        model = MiniBatchKMeans(n_clusters=k, random_state=seed, batch_size=4096, n_init=3)
+    else:
+        model = KMeans(n_clusters=k, random_state=seed, n_init=4)
+    labels = model.fit_predict(values)
+    return labels, model.cluster_centers_
+
+
+class _Silhouette:
+    """Silhouette scores on one fixed set of rows (a random sample for large tables).
+
+    The distances between those rows are computed once and shared by every run of the sweep.
+    """
+
+    def __init__(self, values: np.ndarray, sample_size: int, seed: int, notes: list[str]):
+        from sklearn.metrics import pairwise_distances
+
+        n = len(values)
+        self.rows = np.arange(n)
+        if n > sample_size:
+            self.rows = sample_positions(n, sample_size, seed)
+            notes.append(f"silhouettes computed on a random sample of {sample_size} of the "
+                         f"{n} rows (seed {seed}).")
+        self.distances = pairwise_distances(values[self.rows])
+
+    def __call__(self, labels: np.ndarray) -> float | None:
+        from sklearn.metrics import silhouette_score
+
+        labels = labels[self.rows]
+        clustered = labels != NOISE
+        distinct = len(set(labels[clustered].tolist()))
+        # the silhouette is defined for 2 <= clusters <= rows - 1; noise rows are left out
+        if distinct < 2 or distinct >= int(clustered.sum()):
+            return None
+        distances = self.distances
+        if not clustered.all():
+            distances = distances[np.ix_(clustered, clustered)]
+        return float(silhouette_score(distances, labels[clustered], metric="precomputed"))
+
+
+def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
+           bic: float | None = None) -> SweepEntry:
+    found = set(labels.tolist()) - {NOISE}
+    return SweepEntry(method=method, k=k, silhouette=scorer(labels), bic=bic,
+                      clusters=len(found), noise=int(np.sum(labels == NOISE)))
+
+
+def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
+    from sklearn.mixture import GaussianMixture
+
+    fit_rows = values
+    if len(values) > MINIBATCH_ROWS:
+        fit_rows = values[sample_positions(len(values), MINIBATCH_ROWS, seed)]
+        notes.append(f"Gaussian mixtures fitted on a random sample of {MINIBATCH_ROWS} of "
+                     f"the {len(values)} rows; every row then joins its most likely "
+                     "component.")
+    model = GaussianMixture(n_components=k, covariance_type="full", random_state=seed)
+    model.fit(fit_rows)
+    return model.predict(values), float(model.bic(fit_rows))
+
+
+def _agglomerative(values: np.ndarray, ks: list[int], sample_size: int, seed: int,
+                   notes: list[str]):
+    from scipy.cluster.hierarchy import fcluster, linkage
+
+    n = len(values)
+    fit = np.arange(n)
+    if n > sample_size:
+        fit = sample_positions(n, sample_size, seed)
+        notes.append(f"agglomerative clustering (Ward) built on a random sample of "
+                     f"{sample_size} of the {n} rows; the other rows join the cluster with "
+                     "the nearest mean.")
+    # one Ward tree serves every k: cutting it at k clusters is Ward clustering with k
+    tree = linkage(values[fit], method="ward")
+    for k in ks:
+        sample_labels = fcluster(tree, t=k, criterion="maxclust") - 1
+        if len(fit) == n:
+            yield k, sample_labels
+            continue
+        centres = np.array([values[fit][sample_labels == c].mean(axis=0)
+                            for c in range(sample_labels.max() + 1)])
+        yield k, _nearest(values, centres)
+
+
+def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
+             notes: list[str]) -> np.ndarray:
+    from sklearn.cluster import HDBSCAN
+    from sklearn.neighbors import NearestNeighbors
+
+    n = len(values)
+    fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
+    size = min(min_cluster_size, max(2, len(fit) // 2))
+    model = HDBSCAN(min_cluster_size=size, copy=True)
+    sample_labels = model.fit_predict(values[fit])
+    notes.append(f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are "
+                 "noise (cluster -1).")
+    if len(fit) == n:
+        return sample_labels
+    notes.append(f"HDBSCAN ran on a random sample of {sample_size} of the {n} rows; each other "
+                 "row takes the cluster (or noise) of its nearest sampled row.")
+    nearest = NearestNeighbors(n_neighbors=1).fit(values[fit])
+    index = nearest.kneighbors(values, return_distance=False)[:, 0]
+    labels = sample_labels[index]
+    labels[fit] = sample_labels
+    return labels
+
+
+def _nearest(values: np.ndarray, centres: np.ndarray) -> np.ndarray:
+    from sklearn.metrics import pairwise_distances_argmin
+
+    return pairwise_distances_argmin(values, centres)
+
+
+def _choose(method: str, runs: list, fixed_k: bool):
+    """The chosen run and why, in words."""
+    scored = [(e, labels) for e, labels in runs if e.silhouette is not None]
+    if method == "hdbscan":
+        entry, labels = runs[0]
+        quality = (f"silhouette {entry.silhouette:.3f} on the clustered rows"
+                   if entry.silhouette is not None else "no silhouette (fewer than 2 clusters)")
+        return entry, labels, (f"HDBSCAN found {entry.clusters} clusters and {entry.noise} "
+                               f"noise rows; {quality}.")
+    if fixed_k and len(runs) == 1:
+        entry, labels = runs[0]
+        quality = f"silhouette {entry.silhouette:.3f}" if entry.silhouette is not None \
+            else "no silhouette"
+        return entry, labels, f"k = {entry.k} as asked; {quality}."
+    if method == "gmm":
+        best = min(runs, key=lambda r: r[0].bic)
+        ks = [e.k for e, _ in runs]
+        entry = best[0]
+        sil = f"; its silhouette is {entry.silhouette:.3f}" if entry.silhouette is not None \
+            else ""
+        return entry, best[1], (f"the Gaussian mixture with k = {entry.k} has the lowest BIC "
+                                f"({entry.bic:.1f}) of k = {_span(ks)}{sil}.")
+    if not scored:
+        entry, labels = runs[0]
+        return entry, labels, (f"no run gave two or more clusters a silhouette could score; "
+                               f"kept {METHOD_TITLES[entry.method]} with k = {entry.k}.")
+    # the highest silhouette wins; on a tie the earlier run (fewer clusters, simpler method)
+    best_index = max(range(len(scored)), key=lambda i: (scored[i][0].silhouette, -i))
+    entry, labels = scored[best_index]
+    others = sorted((e for i, (e, _) in enumerate(scored) if i != best_index),
+                    key=lambda e: -e.silhouette)
+    ks = sorted({e.k for e, _ in runs})
+    methods = ", ".join(METHOD_TITLES[m] for m in dict.fromkeys(e.method for e, _ in runs))
+    tried = f"{len(runs)} runs ({methods}; k = {_span(ks)})"
+    text = (f"{METHOD_TITLES[entry.method]} with k = {entry.k} has the highest silhouette "
+            f"({entry.silhouette:.3f}) of {tried}")
+    if others:
+        runner = others[0]
+        text += (f"; next best: {METHOD_TITLES[runner.method]} with k = {runner.k} "
+                 f"({runner.silhouette:.3f})")
+    return entry, labels, text + "."
+
+
+def _span(ks: list[int]) -> str:
+    ks = sorted(ks)
+    if len(ks) == 1:
+        return str(ks[0])
+    if ks == list(range(ks[0], ks[-1] + 1)):
+        return f"{ks[0]}..{ks[-1]}"
+    return ", ".join(map(str, ks))
+
+
+def _by_size(labels: np.ndarray) -> np.ndarray:
+    """Renumber clusters 0, 1, ... from the largest (ties by first row); noise stays -1."""
+    labels = np.asarray(labels)
+    found = [c for c in dict.fromkeys(labels.tolist()) if c != NOISE]
+    order = sorted(found, key=lambda c: -int(np.sum(labels == c)))
+    mapping = {old: new for new, old in enumerate(order)}
+    mapping[NOISE] = NOISE
+    return np.array([mapping[c] for c in labels.tolist()], dtype=int)
+
+
+def _agreement(table: Table, column: str, rows: np.ndarray, labels: np.ndarray) -> dict:
+    from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
+
+    truth = np.array([str(v) for v in target_values(table, column, rows)], dtype=object)
+    return {"ari": float(adjusted_rand_score(truth, labels)),
+            "nmi": float(normalized_mutual_info_score(truth, labels))}
+
+
+def profile_values(table: Table, fm: FeatureMatrix) -> tuple[list[str], np.ndarray, list[str]]:
+    """Feature columns in the table's own units: names, values (rows x features) and kinds.
+
+    Features on the signed log scale are replaced by the column's own values when every one
+    fits in a float; otherwise they stay on the log scale, under their log name.
+    """
+    names, columns, kinds = [], [], []
+    for j, feature in enumerate(fm.features):
+        column = fm.values[:, j]
+        name = feature.name
+        if feature.kind == "log":
+            raw = table.numeric(feature.column)[fm.rows]
+            if np.all(np.isfinite(raw)):
+                column, name = raw, feature.column
+        names.append(name)
+        columns.append(column)
+        kinds.append(feature.kind)
+    return names, np.column_stack(columns), kinds
+
+
+def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
+    names, values, kinds = profile_values(table, fm)
+    spread = values.std(axis=0)
+    profiles = []
+    clusters = sorted(set(labels.tolist()), key=lambda c: (c == NOISE, c))
+    for cluster in clusters:
+        inside = labels == cluster
+        means = values[inside].mean(axis=0)
+        if inside.all():
+            rest = means
+        else:
+            rest = values[~inside].mean(axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            difference = np.where(spread > 0, (means - rest) / spread, 0.0)
+        profiles.append(ClusterProfile(
+            cluster=int(cluster), size=int(inside.sum()),
+            means={name: float(m) for name, m in zip(names, means)},
+            differences={name: float(d) for name, d in zip(names, difference)},
+            distinguished_by=_distinguished(names, kinds, means, rest, difference),
+        ))
+    return tuple(profiles)
+
+
+def _distinguished(names, kinds, means, rest, difference, top: int = 3) -> tuple[str, ...]:
+    order = [j for j in np.argsort(-np.abs(difference), kind="stable")
+             if abs(difference[j]) >= NOTABLE_DIFFERENCE][:top]
+    if not order:
+        return (f"close to the other rows on every feature (no standardized difference "
+                f"reaches {NOTABLE_DIFFERENCE})",)
+    words = []
+    for j in order:
+        if kinds[j] in ("flag", "onehot"):
+            words.append(f"{names[j]} in {means[j]:.0%} of rows (vs {rest[j]:.0%} elsewhere)")
+        else:
+            side = "high" if difference[j] > 0 else "low"
+            words.append(f"{names[j]} {side} (mean {_number(means[j])} vs {_number(rest[j])})")
+    return tuple(words)
+
+
+def _number(value: float) -> str:
+    return f"{value:.3g}"
