@@ -37,6 +37,8 @@ _INT64_MAX = 2**63 - 1
 _INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _TRUE_WORDS = {"true", "yes", "t", "y"}
 _FALSE_WORDS = {"false", "no", "f", "n"}
+_KIND_WORDS = {"int": "number", "uint": "number", "float": "number", "bool": "true/false",
+               "bigint": "number", "text": "text", "list": "array"}
 _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
 _CSV_SUFFIXES = {".csv": ",", ".txt": None, ".tsv": "\t", ".tab": "\t"}
 
@@ -170,7 +172,23 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
         raise TableError(f"{name}: a header but no rows. Add at least two rows of data.")
     if n == 1:
         warnings.append(f"{name}: only one row; most steps need many more.")
-    facts = {c: functools.reduce(_merge_facts, [p[c] for p in merged_parts]) for c in header}
+    facts = {}
+    mixed = []
+    for column in header:
+        try:
+            facts[column] = functools.reduce(_merge_facts, [p[column] for p in merged_parts])
+        except TableError:
+            mixed.append(column)
+    if mixed:
+        # numbers in some partitions and text in others: the column is text, as in memory
+        forced = tuple((c, "text") for c in mixed)
+        again = client.gather(client.compute([_facts_task(part, forced)
+                                              for part in frame[mixed].to_delayed()]))
+        for column in mixed:
+            try:
+                facts[column] = functools.reduce(_merge_facts, [p[column] for p in again])
+            except TableError as exc:
+                raise TableError(f"{name}: column {column!r} {exc}.") from None
     _exact_distinct(client, frame, facts, conversions)
     infos, how = _type_columns(name, header, facts, n, warnings, fmt)
     table = PartitionedTable(
@@ -287,20 +305,28 @@ def _facts_task(part, conversions):
 def partition_facts(frame: pd.DataFrame, conversions=()) -> dict:
     """Per-column facts of one raw partition (a pandas frame); see :func:`_merge_facts`."""
     csv_columns = {c for c, how in conversions if how == "csv"}
+    text_columns = {c for c, how in conversions if how == "text"}
     out: dict = {"__rows__": len(frame)}
     for column in frame.columns:
         series = frame[column]
-        out[column] = _column_facts(series, column in csv_columns)
+        out[column] = _column_facts(series, column in csv_columns, column in text_columns)
     return out
 
 
-def _column_facts(series: pd.Series, from_text: bool) -> dict:
+def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> dict:
     n = len(series)
     missing_mask = series.isna().to_numpy()
     facts: dict = {"n": n, "missing": int(missing_mask.sum()), "kind": None}
     if facts["missing"] == n:
         return facts   # says nothing about the column's kind
     kind = series.dtype.kind
+    if as_text:
+        present = series[~missing_mask]
+        text = present.map(lambda v: str(v)) if present.dtype == object else present.astype(str)
+        facts["kind"] = "text"
+        facts["words"] = None
+        facts.update(_text_counts(text, ~missing_mask))
+        return facts
     if not from_text and kind in "biuf":
         facts.update(_number_facts(series[~missing_mask] if kind == "f" else series))
         return facts
@@ -409,7 +435,8 @@ def _merge_facts(a: dict, b: dict) -> dict:
         elif kinds <= {"int", "uint", "float", "bool", "bigint"}:
             a, b = _widen(a), _widen(b)
         else:
-            raise TableError(f"holds {' and '.join(sorted(kinds))} values in different "
+            words = sorted({_KIND_WORDS.get(k, k) for k in kinds})
+            raise TableError(f"holds {' and '.join(words)} values in different "
                              "partitions; on the dask engine a column must hold one kind of "
                              "value (all numbers, all text, or all arrays). Fix the cells, or "
                              "use --engine local")
