@@ -5,6 +5,12 @@ frame of typed values (exact Python integers past 64 bits, fractions for rationa
 arrays for list- and matrix-valued cells), one role per column, and a digest of the bytes
 that keys every cached result.
 
+Integers stay exact at any size. Parquet has no integer type past 64 bits, so such integers
+are read from text columns of digits or from decimal columns of scale 0 (decimals with a
+scale become exact rationals). Integers longer than Python's digit limit for reading text
+(4300 digits unless PYTHONINTMAXSTRDIGITS says otherwise) are refused with a message saying
+so; a column given the role text or category is kept as text without being parsed.
+
 Every failure is a :class:`~analysis.errors.TableError` whose message names the file and,
 where it applies, the row and column. Rows are counted from 1 after the header in messages,
 the way a spreadsheet shows them; row ids in results are 0-based positions when the table
