@@ -1,0 +1,451 @@
+"""Objects to look at: a ranked list of rows worth checking by hand, each with plain reasons.
+
+Several measures each score every row, higher meaning stranger:
+
+* isolation forest: how few random cuts isolate the row;
+* local outlier factor: how much sparser the row's neighbourhood is than its neighbours';
+* distance from the centre of the row's k-means cluster, relative to the cluster's typical
+  row (k given, or chosen by silhouette as the clustering step does);
+* with a target, how confidently a cross-validated separator gets the row wrong (a scaled
+  logistic regression for labels, a ridge fit for many-valued numbers);
+* with ``relations``, how many relations and bounds among the invariants the row breaks
+  (a bound that only a few rows attain counts half for each of them).
+
+The measures are combined by rank: each row's score on a measure becomes the fraction of
+rows that score strictly lower (0 for the most ordinary, near 1 for the strangest), and the
+combined score is the mean of these fractions over the measures that vary. A measure thus
+counts the same whatever its units, and a row high on several measures beats a row extreme
+on one. Local outlier factor runs on a sample of ``sample_size`` rows on larger tables, the
+other rows scored against that sample; the result says so.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+import pandas as pd
+from threadpoolctl import threadpool_limits
+
+from analysis.errors import StepError
+from analysis.features import build_features, is_numeric_target, target_values
+from analysis.plain import plain, row_id
+from analysis.projection import sample_positions, standardized
+from analysis.table import Table
+
+MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
+            "separator", "relations")
+COMBINATION = ("mean, over the measures that vary, of the fraction of rows scoring strictly "
+               "lower on the measure")
+# A row "stands out" on a measure when it scores higher than this fraction of rows.
+STANDS_OUT = 0.95
+# A regression residual this many standard deviations from zero is worth a reason.
+RESIDUAL_REASON = 3.0
+# A bound attained by at most this many rows makes attaining it a reason to look.
+RARELY_ATTAINED = 3
+
+
+@dataclass(frozen=True)
+class Outlier:
+    """One row of the list: its rank (from 1), id, combined score, reasons and per-measure
+    standing (the fraction of rows scoring strictly lower on that measure)."""
+
+    rank: int
+    row: object
+    score: float
+    reasons: tuple[str, ...]
+    standing: dict[str, float]
+
+    def to_json(self) -> dict:
+        return plain({"rank": self.rank, "row": row_id(self.row), "score": self.score,
+                      "reasons": list(self.reasons), "standing": self.standing})
+
+
+@dataclass(frozen=True, eq=False)
+class OutliersResult:
+    """The ranked list (``outliers``, the top rows) and the combined score of every row.
+
+    ``row_ids``, ``positions`` and ``scores`` cover every scored row, for colouring a
+    picture by outlier score; ``measures`` are the measures that took part.
+    """
+
+    outliers: tuple[Outlier, ...]
+    row_ids: np.ndarray
+    positions: np.ndarray
+    scores: np.ndarray
+    measures: tuple[str, ...]
+    target: str | None
+    k: int
+    n_rows: int
+    top: int
+    seed: int
+    features: tuple[str, ...]
+    notes: tuple[str, ...] = ()
+    elapsed_seconds: float = 0.0
+    combination: str = COMBINATION
+    kind: ClassVar[str] = "outliers"
+
+    def to_json(self) -> dict:
+        return plain({
+            "outliers": [o.to_json() for o in self.outliers],
+            "measures": list(self.measures),
+            "combination": self.combination,
+            "target": self.target,
+            "k": self.k,
+            "n_rows": self.n_rows,
+            "top": self.top,
+            "seed": self.seed,
+            "features": list(self.features),
+            "notes": list(self.notes),
+            "elapsed_seconds": self.elapsed_seconds,
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        """rank, row, score, reasons (joined by "; "): the list as a table for CSV export."""
+        return pd.DataFrame({
+            "rank": [o.rank for o in self.outliers],
+            "row": [row_id(o.row) for o in self.outliers],
+            "score": [o.score for o in self.outliers],
+            "reasons": ["; ".join(o.reasons) for o in self.outliers],
+        })
+
+    def summary(self) -> str:
+        lines = [f"{len(self.outliers)} objects to look at, of {self.n_rows} rows, ranked by "
+                 f"{', '.join(self.measures)}; {self.elapsed_seconds:.1f} s."]
+        for o in self.outliers[:10]:
+            lines.append(f"  {o.rank:>3}. {row_id(o.row)}  score {o.score:.3f}: "
+                         + "; ".join(o.reasons))
+        if len(self.outliers) > 10:
+            lines.append(f"  ... {len(self.outliers) - 10} more (--json or --csv for all)")
+        lines.append(f"  score: {self.combination}.")
+        lines.extend(f"  note: {n}" for n in self.notes)
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True, kw_only=True)
+class OutliersStep:
+    """Rank the rows by how much they stand out, with a reason for each.
+
+    target: a label (or number) column; rows that a cross-validated separator gets wrong
+        with high confidence rank higher. k: clusters for the distance-from-centre measure
+        (default: chosen by silhouette over k = 2..8). relations: also count the exact
+        relations among the invariants that each row breaks. top: length of the list.
+    n_neighbors: neighbours for the local outlier factor. sample_size: rows past which the
+        local outlier factor is fitted on a random sample.
+
+    Example: ``OutliersStep(target="is_reflexive", top=20).run(table).to_frame()``.
+    """
+
+    target: str | None = None
+    columns: list[str] | None = None
+    array_encoding: str = "invariant"
+    log_scale: str = "auto"
+    missing: str = "drop"
+    standardize: bool = True
+    k: int | None = None
+    relations: bool = True
+    top: int = 50
+    n_neighbors: int = 20
+    sample_size: int = 20_000
+    seed: int = 0
+    kind: ClassVar[str] = "outliers"
+
+    def run(self, table: Table) -> OutliersResult:
+        started = time.perf_counter()
+        self._check(table)
+        fm = build_features(table, columns=self.columns, target=self.target,
+                            array_encoding=self.array_encoding, log_scale=self.log_scale,
+                            missing=self.missing)
+        n = len(fm.rows)
+        if n < 5:
+            raise StepError(f"{table.name}: ranking objects needs at least 5 rows with every "
+                            f"feature present; {n} remain. Impute missing values or choose "
+                            "other columns.")
+        notes = list(fm.notes)
+        values = standardized(fm.values) if self.standardize else fm.values
+        notes.append("features standardized to mean 0 and standard deviation 1."
+                     if self.standardize else "features used in their own units.")
+        measures: dict[str, _Measure] = {}
+        with warnings.catch_warnings(), threadpool_limits(1):
+            # small matrices: threads only wait on each other (see analysis.clustering)
+            warnings.simplefilter("ignore")
+            measures["isolation forest"] = _isolation(values, self.seed)
+            measures["local outlier factor"] = _local_outlier_factor(
+                values, self.n_neighbors, self.sample_size, self.seed, notes)
+            centre, k = self._centre_distance(table, fm, values, notes)
+            measures["distance from cluster centre"] = centre
+            if self.target is not None:
+                measures["separator"] = _separator(table, self.target, fm, self.seed, notes)
+        if self.relations:
+            found = self._relations(table, fm.row_ids, notes)
+            if found is not None:
+                measures["relations"] = found
+        used = {}
+        for name, measure in measures.items():
+            if np.ptp(measure.scores) > 0:
+                used[name] = measure
+            else:
+                notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
+                             "counted.")
+        standing = {name: _standing(m.scores) for name, m in used.items()}
+        combined = np.mean(np.column_stack(list(standing.values())), axis=1) if standing \
+            else np.zeros(n)
+        order = sorted(range(n), key=lambda i: (-combined[i], i))[: self.top]
+        outliers = tuple(
+            Outlier(rank=rank, row=fm.row_ids[i], score=float(combined[i]),
+                    reasons=_reasons(i, used, standing),
+                    standing={name: float(s[i]) for name, s in standing.items()})
+            for rank, i in enumerate(order, start=1))
+        return OutliersResult(
+            outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
+            measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
+            seed=self.seed, features=tuple(fm.names), notes=tuple(dict.fromkeys(notes)),
+            elapsed_seconds=time.perf_counter() - started,
+        )
+
+    def _check(self, table: Table) -> None:
+        if not isinstance(self.top, int) or self.top < 1:
+            raise StepError(f"top = {self.top!r}: give how many rows to list, at least 1.")
+        if self.k is not None and (not isinstance(self.k, int) or self.k < 2):
+            raise StepError(f"k = {self.k!r}: give a whole number of clusters, at least 2, or "
+                            "leave k unset to choose it by silhouette.")
+        if not isinstance(self.n_neighbors, int) or self.n_neighbors < 2:
+            raise StepError(f"n_neighbors {self.n_neighbors!r}: give a whole number of at "
+                            "least 2.")
+        if not isinstance(self.sample_size, int) or self.sample_size <= self.n_neighbors:
+            raise StepError(f"sample size {self.sample_size!r}: give a whole number of rows, "
+                            f"more than n_neighbors ({self.n_neighbors}).")
+        if self.target is not None:
+            table.column(self.target)
+
+    def _centre_distance(self, table: Table, fm, values: np.ndarray, notes: list[str]):
+        from analysis.clustering import ClusteringStep
+
+        # the clustering step on the same features chooses k (or takes the given one); the
+        # target is named as its comparison column so that it stays out of the features
+        step = ClusteringStep(method="kmeans", k=self.k, compare=self.target,
+                              columns=self.columns, array_encoding=self.array_encoding,
+                              log_scale=self.log_scale, missing=self.missing,
+                              standardize=self.standardize, seed=self.seed)
+        clusters = step.run(table)
+        if not np.array_equal(clusters.positions, fm.rows):
+            raise StepError(f"{table.name}: the clustering used other rows than the ranking; "
+                            "this is a bug, please report it.")
+        labels = clusters.labels
+        notes.extend(note for note in clusters.notes if note not in fm.notes)
+        notes.append(f"distance from centre uses k-means clusters: {clusters.reason}")
+        distance = np.zeros(len(values))
+        typical = np.zeros(len(values))
+        for cluster in np.unique(labels):
+            members = labels == cluster
+            gaps = np.linalg.norm(values[members] - values[members].mean(axis=0), axis=1)
+            distance[members] = gaps
+            typical[members] = np.median(gaps)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            relative = np.where(typical > 0, distance / typical,
+                                np.where(distance > 0, np.inf, 0.0))
+
+        def say(i: int, standing: float) -> str:
+            times = "infinitely many" if not np.isfinite(relative[i]) \
+                else f"{relative[i]:.1f}"
+            return (f"{times} times as far from the centre of cluster {labels[i]} as the "
+                    f"cluster's typical row (k-means, k = {clusters.k})")
+
+        return _Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
+                        lambda i, s: s >= STANDS_OUT, "no spread within clusters"), clusters.k
+
+    def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
+        try:
+            from analysis.relations import RelationsStep, relation_reasons
+        except ModuleNotFoundError as exc:
+            if exc.name != "analysis.relations":
+                raise
+            notes.append("relations not checked: the relations module is not available.")
+            return None
+        columns = None
+        if self.columns is not None:
+            columns = [name for name in self.columns
+                       if table.column(name).role in ("invariant", "flag")
+                       and table.column(name).dtype in ("integer", "big integer", "rational",
+                                                        "boolean", "real")]
+            if not columns:
+                notes.append("relations not checked: no numeric invariant among the feature "
+                             "columns.")
+                return None
+        try:
+            result = RelationsStep(columns=columns, robust=True, seed=self.seed).run(table)
+        except StepError as exc:
+            notes.append(f"relations not checked: {exc}")
+            return None
+        # relation_reasons says which rows break (or sit off) a relation or bound; bounds
+        # attained by almost every row are no reason to look, so only rare attainers count
+        broken_texts = {row: [t for t in texts if not t.startswith("attains ")]
+                        for row, texts in relation_reasons(result).items()}
+        rare: dict = {}
+        for bound in result.bounds:
+            if 0 < bound.attained_count <= RARELY_ATTAINED:
+                others = bound.attained_count - 1
+                company = "alone" if others == 0 else \
+                    f"with {others} other row{'s' if others > 1 else ''}"
+                for row in bound.attained_by:
+                    rare.setdefault(row_id(row), []).append(
+                        f"attains the bound {bound.text} ({company})")
+        texts = [broken_texts.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
+        counts = np.array([len(broken_texts.get(row_id(r), []))
+                           + 0.5 * len(rare.get(row_id(r), [])) for r in row_ids])
+        return _Measure(counts, None, lambda i, s: bool(texts[i]),
+                        "no row breaks a relation", say_all=lambda i: list(texts[i]))
+
+
+@dataclass(frozen=True)
+class _Measure:
+    """Scores of every row on one measure (higher: stranger), and how to say why.
+
+    ``say(i, standing)`` states row i's score in words; ``notable(i, standing)`` tells
+    whether it is worth saying; ``say_all(i)`` (for relations) gives several reasons.
+    """
+
+    scores: np.ndarray
+    say: object
+    notable: object
+    flat_text: str
+    say_all: object = None
+
+    def reasons(self, i: int, standing: float) -> list[str]:
+        if self.say_all is not None:
+            return self.say_all(i)
+        return [self.say(i, standing)]
+
+
+def _standing(scores: np.ndarray) -> np.ndarray:
+    """For each row, the fraction of the other rows scoring strictly lower."""
+    ordered = np.sort(scores)
+    below = np.searchsorted(ordered, scores, side="left")
+    return below / max(len(scores) - 1, 1)
+
+
+def _percent(standing: float) -> str:
+    """ "every other row", or a percentage rounded down (99.7% reads 99%, never 100%)."""
+    if standing >= 1.0:
+        return "every other row"
+    return f"{math.floor(standing * 100)}% of rows"
+
+
+def _isolation(values: np.ndarray, seed: int) -> _Measure:
+    from sklearn.ensemble import IsolationForest
+
+    model = IsolationForest(n_estimators=200, random_state=seed).fit(values)
+    # score_samples is minus the anomaly score of the original paper: higher is stranger
+    scores = -model.score_samples(values)
+
+    def say(i: int, standing: float) -> str:
+        return (f"isolated by few random cuts: isolation forest score {scores[i]:.2f}, higher "
+                f"than {_percent(standing)}")
+
+    return _Measure(scores, say, lambda i, s: s >= STANDS_OUT, "isolation forest")
+
+
+def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int, seed: int,
+                          notes: list[str]) -> _Measure:
+    from sklearn.neighbors import LocalOutlierFactor
+
+    n = len(values)
+    neighbours = min(n_neighbors, n - 1)
+    if n <= sample_size:
+        model = LocalOutlierFactor(n_neighbors=neighbours).fit(values)
+        factor = -model.negative_outlier_factor_
+    else:
+        sample = sample_positions(n, sample_size, seed)
+        model = LocalOutlierFactor(n_neighbors=neighbours, novelty=True).fit(values[sample])
+        factor = -model.score_samples(values)
+        # a sampled row is its own nearest neighbour in novelty scoring; use its in-sample
+        # factor instead
+        factor[sample] = -model.negative_outlier_factor_
+        notes.append(f"local outlier factor fitted on a random sample of {sample_size} of the "
+                     f"{n} rows (seed {seed}); the other rows are scored against that sample.")
+
+    def say(i: int, standing: float) -> str:
+        size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
+        return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
+                f"nearest neighbours, higher than {_percent(standing)}")
+
+    return _Measure(factor, say, lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
+                    "local outlier factor")
+
+
+def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> _Measure:
+    from sklearn.linear_model import LogisticRegression, Ridge
+    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    raw = target_values(table, target, fm.rows)
+    if is_numeric_target(table, target):
+        truth = np.asarray(raw, dtype=float)
+        model = make_pipeline(StandardScaler(), Ridge(alpha=1.0))
+        folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=seed)
+        predicted = cross_val_predict(model, fm.values, truth, cv=folds)
+        residual = truth - predicted
+        spread = float(np.std(residual)) or 1.0
+        z = residual / spread
+        notes.append(f"separator: {target!r} predicted by a {folds.n_splits}-fold "
+                     "cross-validated ridge regression on standardized features.")
+
+        def say(i: int, standing: float) -> str:
+            return (f"{target} is {_value(truth[i])} but the other invariants predict "
+                    f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
+                    "cross-validated linear fit)")
+
+        return _Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
+                        "separator")
+    labels = np.array([str(v) for v in raw], dtype=object)
+    classes, counts = np.unique(labels, return_counts=True)
+    if len(classes) < 2:
+        raise StepError(f"{table.name}: the target {target!r} has one value ({classes[0]!r}) "
+                        "on every row used; a separator needs two or more. Choose another "
+                        "target or leave it unset.")
+    splits = int(min(5, max(2, counts.min())))
+    folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
+    model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
+    probability = cross_val_predict(model, fm.values, labels, cv=folds, method="predict_proba")
+    index = {c: j for j, c in enumerate(classes)}
+    truth = np.array([index[c] for c in labels])
+    p_true = probability[np.arange(len(labels)), truth]
+    guess = probability.argmax(axis=1)
+    boolean = table.column(target).dtype == "boolean"
+    notes.append(f"separator: {target!r} predicted by a {splits}-fold cross-validated logistic "
+                 "regression on standardized features; a row scores 1 minus the probability "
+                 "given to its own class.")
+
+    def say(i: int, standing: float) -> str:
+        said = classes[guess[i]]
+        if boolean and said in ("True", "False"):
+            words = target if said == "True" else f"not {target}"
+            return f"predicted {words} with probability {probability[i, guess[i]]:.2f}"
+        return (f"predicted {target} = {said} with probability {probability[i, guess[i]]:.2f} "
+                f"(the table says {labels[i]})")
+
+    return _Measure(1.0 - p_true, say, lambda i, s: guess[i] != truth[i], "separator")
+
+
+def _value(x: float) -> str:
+    return str(int(x)) if float(x).is_integer() else f"{x:.4g}"
+
+
+def _reasons(i: int, used: dict, standing: dict) -> tuple[str, ...]:
+    words: list[str] = []
+    for name, measure in used.items():
+        if measure.notable(i, standing[name][i]):
+            words.extend(measure.reasons(i, standing[name][i]))
+    if words:
+        return tuple(words)
+    # no single measure stands out: say where the row stands highest
+    name = max(used, key=lambda m: standing[m][i])
+    measure = used[name]
+    if measure.say is None:
+        return (f"above the median of rows on most measures; highest on {name}",)
+    return (f"no single measure stands out; highest: {measure.say(i, standing[name][i])}",)
