@@ -14,15 +14,13 @@ import functools
 import html
 import json
 import math
-import os
 import re
 import shlex
-import tempfile
 import urllib.parse
 from pathlib import Path
 
 from analysis.steps import KIND_TITLES
-from analysis.study import StepOutcome, StudyRun, study_to_json
+from analysis.study import StepOutcome, StudyRun, study_to_json, write_text_file
 
 CAVEAT = (
     "Everything below was found in the rows of this one table. A relation that holds on every "
@@ -158,18 +156,12 @@ def report_html(run: StudyRun, *, table=None) -> str:
 
 
 def write_report(run: StudyRun, path: str | Path, *, table=None) -> None:
-    """Write :func:`report_html` to ``path`` (UTF-8, replacing the file in one move)."""
-    path = Path(path)
-    text = report_html(run, table=table)
-    folder = path.parent if str(path.parent) else Path(".")
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8") as out:
-            out.write(text)
-        os.replace(temporary, path)
-    except BaseException:
-        Path(temporary).unlink(missing_ok=True)
-        raise
+    """Write :func:`report_html` to ``path`` (UTF-8, replacing the file in one move).
+
+    Refuses (StudyError) to write over the table the study ran on.
+    """
+    write_text_file(path, report_html(run, table=table),
+                    keep_safe=(run.table.name, run.table.digest))
 
 
 # ----------------------------------------------------------------------------------------

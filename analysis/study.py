@@ -27,11 +27,12 @@ message and the rest go on; results are cached by (table digest and roles, kind,
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import json
 import math
 import os
 import re
-import tempfile
+import secrets
 import time
 import types
 import typing
@@ -385,18 +386,50 @@ def _step_from_json(item, where: str) -> StudyStep:
 
 
 def save_study(study: Study, path: str | Path) -> None:
-    """Write the study as indented JSON (replacing the file in one move)."""
-    path = Path(path)
+    """Write the study as indented JSON (replacing the file in one move).
+
+    Refuses (StudyError) to write over the study's own table.
+    """
     text = json.dumps(study_to_json(study), indent=2, ensure_ascii=False, allow_nan=False)
-    folder = path.parent if str(path.parent) else Path(".")
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    write_text_file(path, text + "\n", keep_safe=(study.table, study.table_digest))
+
+
+def write_text_file(path: str | Path, text: str, *,
+                    keep_safe: tuple[str, str | None] | None = None) -> None:
+    """Write UTF-8 text to ``path`` through a temporary file and one rename, so that a reader
+    never sees half a file. The new file gets the usual permissions (the umask applies).
+
+    ``keep_safe`` is (table file name, sha256 digest): writing over a file of that name whose
+    bytes have that digest, the user's table, is refused. Errors are StudyError naming the
+    path.
+    """
+    path = Path(path)
+    if path.is_dir():
+        raise StudyError(f"{path}: is a folder; give a file name to write.")
+    if keep_safe is not None and keep_safe[1] and path.name == Path(keep_safe[0]).name \
+            and path.is_file() and _file_digest(path) == keep_safe[1]:
+        raise StudyError(f"{path}: this is the table itself; it is never written over. "
+                         "Choose another file name.")
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp")
     try:
-        with os.fdopen(handle, "w", encoding="utf-8") as out:
-            out.write(text + "\n")
+        with open(temporary, "x", encoding="utf-8", newline="\n") as out:
+            out.write(text)
         os.replace(temporary, path)
+    except OSError as exc:
+        temporary.unlink(missing_ok=True)
+        raise StudyError(f"{path}: cannot be written ({exc.strerror or exc}). Check that the "
+                         "folder exists and can be written to.") from None
     except BaseException:
-        Path(temporary).unlink(missing_ok=True)
+        temporary.unlink(missing_ok=True)
         raise
+
+
+def _file_digest(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
 
 
 def load_study(path: str | Path) -> Study:

@@ -5,11 +5,13 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import os
+import stat
 from pathlib import Path
 
 import pytest
 
-from analysis.errors import StepError, StudyError
+from analysis.errors import StepError, StudyError, TableError
 from analysis.overview import OverviewStep
 from analysis.study import (
     STUDY_VERSION,
@@ -19,6 +21,7 @@ from analysis.study import (
     TableSettings,
     add_step,
     check_step,
+    default_study,
     load_study,
     move_step,
     new_step,
@@ -424,3 +427,69 @@ def test_one_step_runs_alone_to_the_same_result_as_in_a_study(small):
     assert without_timing(alone.to_json()) == without_timing(in_study.to_json())
     failed = run_step(new_step("projection", {"columns": ["nope"]}), small)
     assert failed.result is None and "no column named 'nope'" in failed.error
+
+
+# ----------------------------------------------------------------------------------------
+# The default study and writing files
+
+
+def test_the_default_study_without_a_target(small):
+    study = default_study(small, seed=7)
+    assert [s.kind for s in study.steps] == [
+        "overview", "projection", "clustering", "relations", "outliers"]
+    assert all(s.seed == 7 for s in study.steps)
+    assert study.steps[1].params["method"] == "pca"
+    assert study.steps[2].params["method"] == "auto"
+    assert study.table == "small.csv" and study.table_digest == small.digest
+    assert study.table_settings.id_column == "name"
+
+
+def test_the_default_study_with_a_target(small):
+    study = default_study(small, target="kind")
+    assert [s.kind for s in study.steps] == [
+        "overview", "projection", "clustering", "separator", "relations", "outliers"]
+    assert study.steps[3].params["target"] == "kind"
+    assert study.steps[5].params["target"] == "kind"
+    assert study.steps[1].params["target"] == "kind"
+    assert study.steps[2].params["compare"] == "kind"
+    assert "kind" in study.title
+    assert study_from_json(study_to_json(study)) == study
+
+
+def test_the_default_study_keeps_roles_set_by_hand(small):
+    table = small.with_roles({"a": "category"})
+    study = default_study(table)
+    assert study.table_settings.role_overrides == {"a": "category"}
+
+
+@pytest.mark.parametrize("target, error, match", [
+    ("colour", TableError, r"small.csv: no column named 'colour'"),
+    ("name", StudyError, r"the id column 'name' cannot be a target"),
+], ids=["missing column", "id column"])
+def test_the_default_study_rejects_a_bad_target(small, target, error, match):
+    with pytest.raises(error, match=match):
+        default_study(small, target=target)
+
+
+def test_files_are_written_with_the_usual_permissions(tmp_path, small):
+    previous = os.umask(0o022)
+    try:
+        save_study(_two_steps(small), tmp_path / "s.study.json")
+    finally:
+        os.umask(previous)
+    assert stat.S_IMODE((tmp_path / "s.study.json").stat().st_mode) == 0o644
+    assert [p.name for p in tmp_path.iterdir()] == ["s.study.json"], "no temporary file left"
+
+
+def test_the_table_is_never_written_over(tmp_path):
+    path = tmp_path / "small.csv"
+    path.write_bytes(SMALL_CSV)
+    table = load_table(path)
+    with pytest.raises(StudyError, match=r"small.csv: this is the table itself"):
+        save_study(_study(table, new_step("overview")), path)
+    assert path.read_bytes() == SMALL_CSV
+
+
+def test_writing_into_a_missing_folder_is_a_study_error(tmp_path, small):
+    with pytest.raises(StudyError, match=r"nowhere/s.study.json: cannot be written"):
+        save_study(_two_steps(small), tmp_path / "nowhere" / "s.study.json")
