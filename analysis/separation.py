@@ -604,12 +604,16 @@ class _Run:
         identical = _identical_across(self.X, train, test)
         if identical:
             others = sum(1 for tr, te in splits[1:] if _identical_across(self.X, tr, te))
+            if self.group_labels is None:
+                advice = ("If these are copies of one object, name a group column (groups), "
+                          "or the matrix column, so they stay on one side.")
+            else:
+                advice = ("They belong to other groups than their training twins: the "
+                          "features cannot tell these objects apart.")
             self.warnings.append(
-                f"{identical} test rows of split 1 have exactly the same feature values as a "
-                f"training row (and {others} of the other {len(splits) - 1} splits have such "
-                "rows): the separator is partly scored on rows it has seen. If these are copies "
-                "of one object, name a group column (groups), or the matrix column, so they "
-                "stay on one side.")
+                f"{identical} test rows of split 1 have the same feature values as a training "
+                f"row (and {others} of the other {len(splits) - 1} splits have such rows): "
+                f"the separator is partly scored on rows it has seen. {advice}")
         if self.regression:
             metrics, baseline, interval = self._regression_report(train, test, predicted)
             confusion = None
@@ -670,7 +674,8 @@ class _Run:
                    "mcc_ci": [low, high]}
         baseline = {"accuracy": float(counts.sum(axis=1).max() / counts.sum())}
         interval = (f"bootstrap, {BOOTSTRAP_RESAMPLES} resamples of the {counts.sum()} test "
-                    "rows, percentile 95% interval, seeded")
+                    "rows, percentile 95% interval, seeded (resampled rows drawn as "
+                    "multinomial counts over the confusion matrix, which is the same thing)")
         confusion = {"labels": list(self.classes), "counts": counts.tolist(),
                      "rows": "actual class", "columns": "predicted class"}
         return metrics, baseline, interval, confusion
@@ -731,7 +736,7 @@ class _Run:
                        "same sample")
         if count < step.permutations:
             method += f" (fewer than the {step.permutations} asked: the table is large)"
-        if count < 1 / CHANCE_LEVEL - 1:
+        if 1 / (count + 1) >= CHANCE_LEVEL:
             self.notes.append(f"only {count} permutations: the smallest possible p-value is "
                               f"{1 / (count + 1):.3f}, so the verdict cannot be yes.")
         return p_value, tuple(null.tolist()), float(observed), method

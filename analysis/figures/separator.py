@@ -76,9 +76,11 @@ def learning_curve_figure(result):
     figure = go.Figure()
     figure.add_trace(go.Scatter(x=x + x[::-1], y=list(mean + std) + list((mean - std)[::-1]),
                                 fill="toself", fillcolor="rgba(31,119,180,0.2)",
-                                line={"width": 0}, hoverinfo="skip", name="mean +- 1 sd"))
+                                line={"width": 0, "color": "#1f77b4"}, hoverinfo="skip",
+                                name="mean +- 1 sd"))
     figure.add_trace(go.Scatter(
         x=x, y=mean, mode="lines+markers", name=f"test {metric}",
+        line={"color": "#1f77b4"}, marker={"color": "#1f77b4"},
         customdata=[[p["train_rows"], p["std"]] for p in points],
         hovertemplate=("training fraction %{x}<br>%{customdata[0]} training rows<br>"
                        f"{metric} " + "%{y:.3f} +- %{customdata[1]:.3f}<extra></extra>")))
@@ -128,6 +130,7 @@ def chance_figure(result):
         observed = result.permutation_observed
         if observed is not None:
             figure.add_vline(x=observed, line_color="#d62728", row=1, col=2,
+                             annotation_position="top left",
                              annotation_text=f"observed {observed:.3f}, "
                                              f"p = {result.permutation_p:.3g}")
     else:
@@ -188,6 +191,9 @@ def decision_figure(result, table=None, *, feature: str | None = None,
     figure.add_hline(y=0, line_dash="dash", line_color="black",
                      annotation_text="threshold", annotation_position="top left")
     sampled = f" (a sample of {len(shown)} of {n} rows)" if len(shown) < n else ""
+    equation = _equation_for(result, class_label)
+    if equation:
+        sampled += f"<br><sup>{_escape(equation)}</sup>"
     figure.update_layout(title=f"{result.target}: decision score{column_word}{sampled}",
                          xaxis_title=x_title, yaxis_title=decision.source,
                          legend_title="actual class")
@@ -223,6 +229,21 @@ def predicted_figure(result, table=None, *, hover: list[str] | None = None,
                          xaxis_title=f"actual {result.target}",
                          yaxis_title=f"predicted {result.target}")
     return figure
+
+
+def _equation_for(result, class_label) -> str:
+    """The text of the equation whose left side the scores are (shortened for a title)."""
+    equation = result.equation
+    if result.equations:
+        labels = list(result.classes)
+        pick = 0 if class_label is None else _class_index(labels, class_label)
+        equation = result.equations[pick]
+    text = getattr(equation, "text", "") if equation is not None else ""
+    return text if len(text) <= 140 else text[:137] + "..."
+
+
+def _escape(text: str) -> str:
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
 def _class_index(labels: list, wanted) -> int:
