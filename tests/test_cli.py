@@ -178,3 +178,68 @@ def test_the_real_command_runs_a_study_and_rejects_a_bad_one(folder):
         "error: bad.study.json: step 1 (overview): setting 'seed' must be a whole number, "
         "got [1]."]
     assert _digest(folder / "fields.csv") == before
+
+
+def _generated_table(folder: Path) -> Path:
+    """60 objects: c = a + b, the flag big = (a + 2b >= 12), and a parity category."""
+    rows = ["name,a,b,c,big,kind"]
+    for i in range(60):
+        a, b = (7 * i) % 10, (3 * i + i // 10) % 10
+        rows.append(f"o{i},{a},{b},{a + b},{str(a + 2 * b >= 12).lower()},"
+                    f"{'even' if i % 2 == 0 else 'odd'}")
+    path = folder / "generated.csv"
+    path.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    return path
+
+
+def test_report_then_run_gives_the_same_numbers(tmp_path, capsys):
+    table_path = _generated_table(tmp_path)
+    before = _digest(table_path)
+    code = main(["report", str(table_path), "--target", "big", "--seed", "3",
+                 "--out", str(tmp_path / "first.html"),
+                 "--study-out", str(tmp_path / "generated.study.json"),
+                 "--json", str(tmp_path / "first.json")])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    for title in ("Overview", "Projection", "Clustering", "Separator", "Relations and bounds",
+                  "Objects to look at"):
+        assert f"] {title} (" in out, title
+    study = load_study(tmp_path / "generated.study.json")
+    assert [s.kind for s in study.steps] == [
+        "overview", "projection", "clustering", "separator", "relations", "outliers"]
+    assert all(s.seed == 3 for s in study.steps)
+    code = main(["run", str(tmp_path / "generated.study.json"),
+                 "--out", str(tmp_path / "second.html"), "--json", str(tmp_path / "second.json")])
+    assert code == 0, capsys.readouterr().err
+    first = json.loads((tmp_path / "first.json").read_text(encoding="utf-8"))
+    second = json.loads((tmp_path / "second.json").read_text(encoding="utf-8"))
+    assert without_timing(first) == without_timing(second)
+    page = (tmp_path / "second.html").read_text(encoding="utf-8")
+    assert "not a proof" in page and "Separating equation" in page
+    assert _digest(table_path) == before
+
+
+@pytest.mark.parametrize("argv, match", [
+    (["report", "{table}", "--target", "colour", "--out", "{folder}/r.html"],
+     r"generated.csv: no column named 'colour'"),
+    (["report", "{table}", "--target", "name", "--out", "{folder}/r.html"],
+     r"the id column 'name' cannot be a target"),
+    (["report", "{folder}/gone.csv", "--out", "{folder}/r.html"], r"gone.csv: no such file"),
+    (["report", "{table}", "--out", "{folder}/missing/r.html"],
+     r"missing/r.html: cannot be written"),
+], ids=["unknown target", "id as target", "no table", "no folder for the report"])
+def test_report_bad_input_exits_2_with_one_line(tmp_path, capsys, argv, match):
+    table_path = _generated_table(tmp_path)
+    before = _digest(table_path)
+    argv = [part.format(folder=tmp_path, table=table_path) for part in argv]
+    line = _one_line_error(capsys, main(argv))
+    assert re.search(match, line), line
+    assert _digest(table_path) == before
+
+
+def test_report_never_writes_over_its_table(tmp_path, capsys):
+    table_path = _generated_table(tmp_path)
+    before = table_path.read_bytes()
+    line = _one_line_error(capsys, main(["report", str(table_path), "--out", str(table_path)]))
+    assert "this is the table itself" in line
+    assert table_path.read_bytes() == before
