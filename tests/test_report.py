@@ -209,16 +209,22 @@ def test_a_report_with_real_figures(tmp_path):
     table = load_table(table_path)
     study = Study(table=table.name, table_digest=table.digest,
                   steps=(new_step("overview"),
-                         new_step("projection", {"target": "class_number_one"})))
+                         new_step("projection", {"target": "class_number_one"}),
+                         new_step("separator", {"target": "class_number_one",
+                                                "columns": ["discriminant", "prime_divisors"],
+                                                "permutations": 10, "repeats": 1})))
     run = run_study(study, table)
     assert run.ok, run.summary()
     out = tmp_path / "report.html"
     write_report(run, out)
     page = out.read_text(encoding="utf-8")
-    figures = analysis.figures.figures_for(run.outcomes[1].result, run.source_table)
+    figures = [figure for outcome in run.outcomes
+               for figure in analysis.figures.figures_for(outcome.result, run.source_table)]
+    assert figures, "the separator draws at least one figure"
     assert page.count("Plotly.newPlot(") == len(figures)
-    if figures:
-        assert page.count(get_plotlyjs()[:2000]) == 1
+    assert page.count(get_plotlyjs()[:2000]) == 1
+    for caption, _ in figures:
+        assert f"<figcaption>{html.escape(caption)}</figcaption>" in page
     assert "explained variance ratio" in page
     assert hashlib.sha256(table_path.read_bytes()).hexdigest() == before
 
