@@ -243,3 +243,11 @@ def test_report_never_writes_over_its_table(tmp_path, capsys):
     line = _one_line_error(capsys, main(["report", str(table_path), "--out", str(table_path)]))
     assert "this is the table itself" in line
     assert table_path.read_bytes() == before
+
+
+def test_table_settings_that_do_not_fit_exit_2_with_one_line(folder, capsys):
+    path = _bad_study(folder, {"steps": [{"kind": "overview"}],
+                               "table_settings": {"roles": {"nope": "category"}}})
+    line = _one_line_error(capsys, main(["run", str(path)]))
+    assert "the study's table settings do not fit fields.csv" in line
+    assert "no column named 'nope'" in line
