@@ -9,14 +9,21 @@ Several measures each score every row, higher meaning stranger:
 * with a target, how confidently a cross-validated separator gets the row wrong (a scaled
   logistic regression for labels, a ridge fit for many-valued numbers);
 * with ``relations``, how many relations and bounds among the invariants the row breaks
-  (a bound that only a few rows attain counts half for each of them).
+  (a listed row that attains a bound few rows attain is told so, without extra score).
 
-The measures are combined by rank: each row's score on a measure becomes the fraction of
-rows that score strictly lower (0 for the most ordinary, near 1 for the strangest), and the
-combined score is the mean of these fractions over the measures that vary. A measure thus
-counts the same whatever its units, and a row high on several measures beats a row extreme
-on one. Local outlier factor runs on a sample of ``sample_size`` rows on larger tables, the
-other rows scored against that sample; the result says so.
+The measures are combined by rank: each row's score on a measure becomes its standing, the
+fraction of the other rows that score strictly lower (0 for the most ordinary, 1 for the
+strangest), so that a measure counts the same whatever its units. The first three measures
+all ask whether a row sits apart from the others; their standings are averaged into one
+standing for position, so that a row far from the rest is not counted three times. A row's
+score is its highest standing among position, separator and relations (those that take
+part): an object worth a look is one that is extreme in some way, and a confidently
+mislabelled row in the middle of the data is as worth a look as one far from the rest. Rows
+with equal scores are ordered by the mean of the same standings. Measures on which every row
+scores the same are left out.
+
+Local outlier factor runs on a sample of ``sample_size`` rows on larger tables, the other
+rows scored against that sample; the result says so.
 """
 
 from __future__ import annotations
@@ -39,8 +46,11 @@ from analysis.table import Table
 
 MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
             "separator", "relations")
-COMBINATION = ("mean, over the measures that vary, of the fraction of rows scoring strictly "
-               "lower on the measure")
+# Measures that all ask whether a row sits apart from the others.
+POSITION = ("isolation forest", "local outlier factor", "distance from cluster centre")
+COMBINATION = ("the highest standing (fraction of other rows scoring strictly lower) on "
+               "position (mean of isolation forest, local outlier factor and distance from "
+               "cluster centre), separator and relations; ties ordered by the mean of these")
 # A row "stands out" on a measure when it scores higher than this fraction of rows.
 STANDS_OUT = 0.95
 # A regression residual this many standard deviations from zero is worth a reason.
@@ -192,9 +202,8 @@ class OutliersStep:
                 notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
                              "counted.")
         standing = {name: _standing(m.scores) for name, m in used.items()}
-        combined = np.mean(np.column_stack(list(standing.values())), axis=1) if standing \
-            else np.zeros(n)
-        order = sorted(range(n), key=lambda i: (-combined[i], i))[: self.top]
+        combined, breadth = _combined(standing, n)
+        order = sorted(range(n), key=lambda i: (-combined[i], -breadth[i], i))[: self.top]
         outliers = tuple(
             Outlier(rank=rank, row=fm.row_ids[i], score=float(combined[i]),
                     reasons=_reasons(i, used, standing),
@@ -235,28 +244,9 @@ class OutliersStep:
         if not np.array_equal(clusters.positions, fm.rows):
             raise StepError(f"{table.name}: the clustering used other rows than the ranking; "
                             "this is a bug, please report it.")
-        labels = clusters.labels
         notes.extend(note for note in clusters.notes if note not in fm.notes)
         notes.append(f"distance from centre uses k-means clusters: {clusters.reason}")
-        distance = np.zeros(len(values))
-        typical = np.zeros(len(values))
-        for cluster in np.unique(labels):
-            members = labels == cluster
-            gaps = np.linalg.norm(values[members] - values[members].mean(axis=0), axis=1)
-            distance[members] = gaps
-            typical[members] = np.median(gaps)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            relative = np.where(typical > 0, distance / typical,
-                                np.where(distance > 0, np.inf, 0.0))
-
-        def say(i: int, standing: float) -> str:
-            times = "infinitely many" if not np.isfinite(relative[i]) \
-                else f"{relative[i]:.1f}"
-            return (f"{times} times as far from the centre of cluster {labels[i]} as the "
-                    f"cluster's typical row (k-means, k = {clusters.k})")
-
-        return _Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
-                        lambda i, s: s >= STANDS_OUT, "no spread within clusters"), clusters.k
+        return _centre_distance(values, clusters.labels, clusters.k), clusters.k
 
     def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
         try:
@@ -295,8 +285,9 @@ class OutliersStep:
                     rare.setdefault(row_id(row), []).append(
                         f"attains the bound {bound.text} ({company})")
         texts = [broken_texts.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
-        counts = np.array([len(broken_texts.get(row_id(r), []))
-                           + 0.5 * len(rare.get(row_id(r), [])) for r in row_ids])
+        # the score counts broken relations and bounds; attaining a rare bound is said but
+        # not scored, since the corners of any cloud of points attain some bound
+        counts = np.array([len(broken_texts.get(row_id(r), [])) for r in row_ids], dtype=float)
         return _Measure(counts, None, lambda i, s: bool(texts[i]),
                         "no row breaks a relation", say_all=lambda i: list(texts[i]))
 
@@ -321,11 +312,63 @@ class _Measure:
         return [self.say(i, standing)]
 
 
+def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> _Measure:
+    """Distance from the row's cluster centre over the distance of the cluster's median row.
+
+    k-means readily gives a far-off row a cluster of its own, at distance 0 from its own
+    centre; rows in such tiny clusters are measured from the nearest larger cluster instead.
+    """
+    clusters = np.unique(labels)
+    sizes = {c: int(np.sum(labels == c)) for c in clusters}
+    tiny = max(3, len(values) // 100)
+    large = [c for c in clusters if sizes[c] >= tiny] or list(clusters)
+    centres = {c: values[labels == c].mean(axis=0) for c in clusters}
+    typical = {c: float(np.median(np.linalg.norm(values[labels == c] - centres[c], axis=1)))
+               for c in large}
+    reference = labels.copy()
+    for i in np.flatnonzero(~np.isin(labels, large)):
+        reference[i] = min(large, key=lambda c: np.linalg.norm(values[i] - centres[c]))
+    relative = np.empty(len(values))
+    for i in range(len(values)):
+        gap = float(np.linalg.norm(values[i] - centres[reference[i]]))
+        scale = typical[reference[i]]
+        relative[i] = gap / scale if scale > 0 else (np.inf if gap > 0 else 0.0)
+
+    def say(i: int, standing: float) -> str:
+        times = "infinitely many" if not np.isfinite(relative[i]) else f"{relative[i]:.1f}"
+        if reference[i] != labels[i]:
+            return (f"in a cluster of only {sizes[labels[i]]} row(s) (k-means, k = {k}); "
+                    f"{times} times as far from the centre of the nearest large cluster "
+                    f"{reference[i]} as that cluster's typical row")
+        return (f"{times} times as far from the centre of cluster {labels[i]} as the "
+                f"cluster's typical row (k-means, k = {k})")
+
+    return _Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
+                    lambda i, s: s >= STANDS_OUT, "no spread within clusters")
+
+
 def _standing(scores: np.ndarray) -> np.ndarray:
     """For each row, the fraction of the other rows scoring strictly lower."""
     ordered = np.sort(scores)
     below = np.searchsorted(ordered, scores, side="left")
     return below / max(len(scores) - 1, 1)
+
+
+def _combined(standing: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Scores (highest group standing) and tie-breaks (mean group standing) of every row.
+
+    The groups are position (the mean standing on the position measures), separator and
+    relations.
+    """
+    groups = []
+    position = [standing[name] for name in POSITION if name in standing]
+    if position:
+        groups.append(np.mean(position, axis=0))
+    groups.extend(values for name, values in standing.items() if name not in POSITION)
+    if not groups:
+        return np.zeros(n), np.zeros(n)
+    stacked = np.vstack(groups)
+    return stacked.max(axis=0), stacked.mean(axis=0)
 
 
 def _percent(standing: float) -> str:
