@@ -70,7 +70,7 @@ REGRESSION_RULE = ("beats chance: yes only when the 95% bootstrap interval of R^
                    "rows lies above 0 and the permutation p-value is below 0.05; otherwise no.")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class DecisionScores:
     """Per-row decision scores of the separator fitted on all rows, kept for figures.
 
@@ -827,7 +827,7 @@ class _Run:
         predicted = np.asarray(_predict(model, self.X))
         names = list(self.fm.names)
         ids = self.fm.row_ids
-        options = {"exact_columns": tuple(self.fm.exact_columns),
+        options = {"exact_columns": _exact_flags(self.fm),
                    "sample_size": step.sample_rows, "seed": step.seed}
         if step.max_terms is not None:
             options["max_terms"] = step.max_terms
@@ -1001,6 +1001,19 @@ def _predict(model, X: np.ndarray) -> np.ndarray:
     kernel = pairwise_kernels(scaled, last.support_vectors_, metric=last.kernel, **options)
     decision = kernel @ last.dual_coef_[0] + last.intercept_[0]
     return last.classes_[(decision > 0).astype(np.int64)]
+
+
+# Features whose values are the table's own numbers (or sums of them): an equation in them
+# is checked exactly whenever the values are integers or short decimals.
+_TABLE_VALUED_KINDS = ("value", "flag", "onehot", "flat", "sorted", "row_sums", "column_sums")
+
+
+def _exact_flags(fm) -> tuple[bool, ...]:
+    """Per feature: may the equation search treat it as exact? Integer features always;
+    decimals from the table when they are short (the search checks); never derived floats
+    such as singular values, eigenvalues or the signed log."""
+    return tuple(bool(exact or feature.kind in _TABLE_VALUED_KINDS)
+                 for exact, feature in zip(fm.exact_columns, fm.features))
 
 
 def _components(rows: int) -> int:
