@@ -1284,7 +1284,8 @@ def _same_label(a, b) -> bool:
 
 def _resolve_positive(values: list, counts: list[int], requested, target: str,
                       table_name: str):
-    """The positive class: the one asked for, True for flags, else the rarer of two."""
+    """The positive class: the one asked for, True for flags, 1 for 0/1 labels, else the
+    rarer of two."""
     if requested is not None:
         for v in values:
             if _same_label(v, _label(requested)) or str(v).lower() == str(requested).lower():
@@ -1296,6 +1297,8 @@ def _resolve_positive(values: list, counts: list[int], requested, target: str,
         return None
     if set(values) == {False, True}:
         return True
+    if values == [0, 1] and all(type(v) is int for v in values):
+        return 1
     # the rarer class is usually the property asked about; ties go to the later value
     return values[0] if counts[0] < counts[1] else values[1]
 
