@@ -27,6 +27,12 @@ def main(argv: list[str] | None = None) -> int:
     except ScoutError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:
+        # the reader (e.g. `| head`) stopped listening; that is not an error of ours
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("stopped.", file=sys.stderr)
         return 130
@@ -98,6 +104,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--out", metavar="report.html", help="write the HTML report here")
     run.add_argument("--json", metavar="PATH", help="write every step's result as JSON")
     run.add_argument("--id", metavar="COL")
+    run.add_argument("--limit", action="append", default=[], metavar="NAME=N",
+                     help="raise a table limit, as for the other commands")
     run.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
     run.set_defaults(handler=_run)
 
@@ -118,6 +126,9 @@ def _command(commands, name: str, help_text: str) -> argparse.ArgumentParser:
     sub.add_argument("--engine", choices=["local", "dask"], default="local")
     sub.add_argument("--scheduler", metavar="ADDRESS",
                      help="dask scheduler address (default: a local cluster on 127.0.0.1)")
+    sub.add_argument("--limit", action="append", default=[], metavar="NAME=N",
+                     help="raise a table limit, e.g. --limit max_rows=50000000 "
+                          "(max_rows, max_columns, max_bytes, max_cell, max_array, max_depth)")
     sub.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
     return sub
 
@@ -159,10 +170,34 @@ def _params(args: argparse.Namespace) -> dict:
     return params
 
 
+def _limits(args: argparse.Namespace):
+    """Table limits from repeated --limit NAME=N options."""
+    import dataclasses
+
+    from analysis.table import Limits
+
+    names = [f.name for f in dataclasses.fields(Limits)]
+    changes = {}
+    for item in getattr(args, "limit", None) or []:
+        name, _, value = item.partition("=")
+        name = name.strip()
+        if name not in names:
+            raise StepError(f"--limit {item}: unknown limit {name!r}; limits are "
+                            f"{', '.join(names)}.")
+        try:
+            number = int(value.replace("_", ""))
+        except ValueError:
+            raise StepError(f"--limit {item}: expected a whole number after '='.") from None
+        if number <= 0:
+            raise StepError(f"--limit {item}: a limit must be positive.")
+        changes[name] = number
+    return Limits(**changes)
+
+
 def _load(args: argparse.Namespace):
     from analysis.table import load_table
 
-    return load_table(args.table, id_column=args.id)
+    return load_table(args.table, id_column=args.id, limits=_limits(args))
 
 
 def _write_json(path: str | None, payload: dict) -> None:
@@ -216,7 +251,7 @@ def _run(args: argparse.Namespace) -> int:
     study_path = Path(args.study)
     study = load_study(study_path)
     table_path = Path(args.table) if args.table else study.table_path(study_path)
-    table = load_table(table_path, id_column=args.id)
+    table = load_table(table_path, id_column=args.id, limits=_limits(args))
     outcome = run_study(study, table)
     print(outcome.summary())
     if args.json:

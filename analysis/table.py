@@ -267,7 +267,7 @@ def load_table(path: str | Path, *, id_column: str | None = None,
         raise TableError(
             f"{name}: the file is {size / 1024**3:.1f} GB, over the limit of "
             f"{limits.max_bytes / 1024**3:.1f} GB. Convert it to Parquet and use the dask engine, "
-            "or raise Limits.max_bytes."
+            "or raise it with --limit max_bytes=N."
         )
     try:
         data = path.read_bytes()
@@ -285,7 +285,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
     if len(data) > limits.max_bytes:
         raise TableError(
             f"{name}: {len(data)} bytes is over the limit of {limits.max_bytes} bytes. "
-            "Raise Limits.max_bytes or use the dask engine on a Parquet file."
+            "Raise it with --limit max_bytes=N or use the dask engine on a Parquet file."
         )
     digest = hashlib.sha256(data).hexdigest()
     suffix = Path(name).suffix.lower()
@@ -316,12 +316,12 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
     if len(frame) > limits.max_rows:
         raise TableError(
             f"{name}: more than {limits.max_rows} rows, over the limit of {limits.max_rows}. "
-            "Use the dask engine on a Parquet file, or raise Limits.max_rows."
+            "Use the dask engine on a Parquet file, or raise it with --limit max_rows=N."
         )
     if len(frame.columns) > limits.max_columns:
         raise TableError(
             f"{name}: {len(frame.columns)} columns is over the limit of {limits.max_columns}. "
-            "Select the columns you need first, or raise Limits.max_columns."
+            "Select the columns you need first, or raise it with --limit max_columns=N."
         )
     frame.columns = [str(c) for c in frame.columns]
     frame = _drop_unnamed(frame, name, warnings)
@@ -399,7 +399,7 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if len(header) > limits.max_columns:
         raise TableError(
             f"{name}: {len(header)} columns is over the limit of {limits.max_columns}. "
-            "Select the columns you need first, or raise Limits.max_columns."
+            "Select the columns you need first, or raise it with --limit max_columns=N."
         )
     try:
         frame = pd.read_csv(
@@ -844,8 +844,9 @@ def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
         text = value if isinstance(value, str) else str(value)
         if len(text) > limits.max_cell:
             raise TableError(
-                f"{name}, row {row + 1}, column {column!r}: a cell of {len(text)} characters is "
-                f"over the limit of {limits.max_cell}. Shorten it or raise Limits.max_cell."
+                f"{name}, row {row + 1}, column {column!r}: a cell of {len(text)} characters "
+                f"is over the limit of {limits.max_cell}. Shorten it or raise it with "
+                "--limit max_cell=N."
             )
         values.append(text)
     if all(v is None for v in values):
@@ -913,7 +914,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
         row = next(i for i, v in present if len(str(v)) == longest)
         raise TableError(
             f"{name}, row {row + 1}, column {column!r}: a cell of {longest} characters is "
-            f"over the limit of {limits.max_cell}. Shorten it or raise Limits.max_cell."
+            f"over the limit of {limits.max_cell}. Shorten it or raise it with --limit max_cell=N."
         )
     stripped = [t.strip() for t in texts]
     if all(_INTEGER_TEXT.match(t) for t in stripped):
@@ -1065,7 +1066,7 @@ def _to_array(value, name: str, row: int, column: str, limits: Limits) -> np.nda
         shape = (len(value),)
     if len(flat) > limits.max_array:
         raise TableError(f"{where}: an array of {len(flat)} entries is over the limit of "
-                         f"{limits.max_array}. Raise Limits.max_array if you need it.")
+                         f"{limits.max_array}. Raise it with --limit max_array=N if you need it.")
     for x in flat:
         if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
             raise TableError(f"{where}: array entries must be numbers, got {_short(x)}.")

@@ -251,3 +251,20 @@ def test_table_settings_that_do_not_fit_exit_2_with_one_line(folder, capsys):
     line = _one_line_error(capsys, main(["run", str(path)]))
     assert "the study's table settings do not fit fields.csv" in line
     assert "no column named 'nope'" in line
+
+
+@pytest.mark.parametrize("limit, code, match", [
+    ("max_rows=3", 2, r"more than 3 rows, over the limit of 3\..*--limit max_rows=N"),
+    ("max_rows=100", 0, None),
+    ("rows=5", 2, r"--limit rows=5: unknown limit 'rows'"),
+    ("max_rows=many", 2, r"--limit max_rows=many: expected a whole number"),
+    ("max_rows=0", 2, r"--limit max_rows=0: a limit must be positive"),
+], ids=["under", "raised", "unknown-name", "not-a-number", "zero"])
+def test_limits_can_be_raised_on_the_command_line(tmp_path, capsys, limit, code, match):
+    table = tmp_path / "t.csv"
+    table.write_text("a,b\n" + "\n".join(f"{i},{i % 3}" for i in range(10)) + "\n")
+    assert main(["inspect", str(table), "--limit", limit]) == code
+    if match:
+        assert re.search(match, _one_line_error(capsys, code))
+    else:
+        assert "10 rows" in capsys.readouterr().out

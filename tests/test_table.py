@@ -213,7 +213,7 @@ def test_array_entries_beyond_64_bits_stay_exact():
 
 def test_array_limit_message_states_the_limit_and_how_to_raise_it():
     with pytest.raises(TableError, match=r"t\.csv, row 2, column 'a'.*4 entries.*limit of 3.*"
-                                         r"Limits\.max_array"):
+                                         r"--limit max_array=N"):
         read_table(b'a\n"[1]"\n"[1,2,3,4]"\n', "t.csv", limits=Limits(max_array=3))
 
 
