@@ -281,7 +281,8 @@ def _signed_log(value) -> float:
     """sign(x) * log10(1 + |x|), exact enough for integers of any size."""
     if value is None or (isinstance(value, float) and np.isnan(value)):
         return np.nan
-    return math.copysign(math.log10(1 + abs(value)), value)
+    size = math.log10(1 + abs(value))  # log10 takes Python integers of any size
+    return -size if value < 0 else size
 
 
 def _label_groups(values: np.ndarray):
