@@ -53,6 +53,8 @@ COMBINATION = ("the highest standing (fraction of other rows scoring strictly lo
                "cluster centre), separator and relations; ties ordered by the mean of these")
 # A row "stands out" on a measure when it scores higher than this fraction of rows.
 STANDS_OUT = 0.95
+# Labels a separator is asked to tell apart, at most.
+MAX_CLASSES = 50
 # A regression residual this many standard deviations from zero is worth a reason.
 RESIDUAL_REASON = 3.0
 # A bound attained by at most this many rows makes attaining it a reason to look.
@@ -451,6 +453,10 @@ def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> _M
         raise StepError(f"{table.name}: the target {target!r} has one value ({classes[0]!r}) "
                         "on every row used; a separator needs two or more. Choose another "
                         "target or leave it unset.")
+    if len(classes) > MAX_CLASSES:
+        raise StepError(f"{table.name}: the target {target!r} has {len(classes)} distinct "
+                        f"labels; a separator can judge at most {MAX_CLASSES}. Choose a flag, "
+                        "a category or a numeric invariant.")
     splits = int(min(5, max(2, counts.min())))
     folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
     model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))

@@ -156,10 +156,18 @@ class ProjectionStep:
     def run(self, table: Table) -> ProjectionResult:
         started = time.perf_counter()
         self._check(table)
-        fm = build_features(table, columns=self.columns, target=self.target,
+        # LDA needs the target on every row it uses; the other methods only colour by it, so
+        # rows without a target value are still drawn
+        needs_target = self.method == "lda"
+        fm = build_features(table, columns=self.columns,
+                            target=self.target if needs_target else None,
+                            exclude=(self.target,) if self.target and not needs_target else (),
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing)
         notes = list(fm.notes)
+        if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
+            notes.append(f"{METHOD_TITLES[self.method]} uses every row; the sample size "
+                         "applies to UMAP and t-SNE only.")
         n = len(fm.rows)
         if n < 3:
             raise StepError(f"{table.name}: a projection needs at least 3 rows with every "

@@ -198,3 +198,11 @@ def test_target_with_one_class_is_refused():
     with pytest.raises(StepError, match="has one value"):
         OutliersStep(target="first_blob", columns=FEATURES, relations=False).run(
             _table(frame))
+
+
+def test_target_with_too_many_labels_is_refused():
+    frame = _blobs()
+    frame["name"] = [f"n{i}" for i in range(len(frame))]
+    table = _table(frame).with_roles({"name": "category"})
+    with pytest.raises(StepError, match="180 distinct labels"):
+        OutliersStep(target="name", columns=FEATURES, relations=False).run(table)

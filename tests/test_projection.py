@@ -190,3 +190,14 @@ def test_table_is_not_changed(iris_frame, iris):
     before = iris.frame.copy()
     ProjectionStep(method="pca", columns=FEATURES).run(iris)
     pd.testing.assert_frame_equal(iris.frame, before)
+
+
+def test_rows_without_a_target_are_drawn_but_not_used_by_lda(iris_frame):
+    frame = iris_frame.copy()
+    frame.loc[[4, 60], "species"] = None
+    table = _table(frame, "unlabelled.csv")
+    picture = ProjectionStep(method="pca", target="species").run(table)
+    assert picture.n_rows == 150 and "species" not in " ".join(picture.features)
+    separated = ProjectionStep(method="lda", target="species").run(table)
+    assert separated.n_rows == 148
+    assert {"F004", "F060"}.isdisjoint(set(separated.row_ids))
