@@ -350,3 +350,28 @@ def test_command_line_runs_pca_on_dask(mixed, tmp_path):
     payload = json.loads(out.read_text())
     assert len(payload["coordinates"]) == 1199
     assert len(payload["explained_variance_ratio"]) == 4
+
+
+# ----------------------------------------------------------------------------------------
+# Objects to look at
+
+
+def test_objects_to_look_at_equal_in_memory_and_find_planted_rows(client, tmp_path):
+    from analysis.outliers import OutliersStep
+
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame(rng.normal(size=(600, 3)), columns=["p", "q", "r"])
+    planted = [77, 310, 555]
+    frame.loc[planted, ["p", "q"]] = [[9.0, -9.0], [-8.5, 8.0], [10.0, 10.0]]
+    folder, whole = write_parts(frame, tmp_path / "far")
+    step = OutliersStep(k=2, relations=False, top=10)
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    # rows placed far from a standard normal cloud come first (by construction)
+    assert sorted(o.row for o in result.outliers[:3]) == planted
+    assert [o.row for o in result.outliers] == [o.row for o in expected.outliers]
+    np.testing.assert_array_equal(result.row_ids, expected.row_ids)
+    # scores are standings (ranks over 599 other rows); k-means run to scikit-learn's
+    # tolerance on each engine may move a row by a few ranks, no more
+    moved = np.abs(result.scores - expected.scores).max() * 599
+    assert moved <= 5, f"a row's standing moved by {moved:.1f} ranks"

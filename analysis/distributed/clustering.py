@@ -1,18 +1,20 @@
 """The clustering step on Dask.
 
 Features are standardized with the exact mean and standard deviation of every row (summed
-over partitions). k-means is fitted exactly by Lloyd iterations on partition sums: starting
-centres come from the in-memory k-means on a uniform sample (k-means++ with ``seed``), then
-each iteration assigns every row of every partition to its nearest centre and moves each
-centre to the mean of its rows, until no centre moves. Gaussian mixtures, agglomerative
-clustering and HDBSCAN are fitted on a sample, as the in-memory step does on large tables,
-and every row of every partition then joins a cluster (most likely component, nearest cluster
-mean, nearest sampled row). Silhouettes are computed on the same random sample of rows as in
-memory; profiles and the agreement with a label column use every row.
+over partitions). k-means is fitted by Lloyd iterations on partition sums: starting centres
+come from the in-memory k-means on a uniform sample (k-means++ with ``seed``), then each
+iteration assigns every row of every partition to its nearest centre and moves each centre
+to the mean of its rows, until the centres settle (scikit-learn's tolerance). Gaussian
+mixtures, agglomerative clustering and HDBSCAN are fitted on a sample, as the in-memory step
+does on large tables, and every row of every partition then joins a cluster (most likely
+component, nearest cluster mean, nearest sampled row). Silhouettes are computed on the same
+random sample of rows as in memory; profiles and the agreement with a label column use every
+row.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import time
 import warnings
 
@@ -25,22 +27,40 @@ from analysis.errors import StepError
 # Rows of the sample that starting centres and sample-fitted methods use.
 SAMPLE_ROWS = 100_000
 LLOYD_ITERATIONS = 300
-# Lloyd iterations stop when no centre moves by more than this (in standard deviations).
-LLOYD_TOLERANCE = 1e-10
+# Lloyd iterations stop when the centres' squared moves add up to at most this share of the
+# features' mean variance (scikit-learn's KMeans default, tol=1e-4)
+LLOYD_TOLERANCE = 1e-4
 
 
 def run_clustering(step, ctx: Context):
     """A ClusteringResult for ``step`` on the partitioned table in ``ctx``."""
-    from dask import delayed
-
-    from analysis import clustering as cl
-
-    started = time.perf_counter()
     step._check(ctx.table)
     plan = plan_for(ctx, columns=step.columns, target=step.compare,
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
     blocks = blocks_for(ctx, plan)
+    return cluster_blocks(step, ctx, plan, blocks).result
+
+
+@dataclasses.dataclass
+class Clusters:
+    """A clustering of every row: the result, and what assigns a row (of standardized
+    features) to its cluster, with the result's cluster numbers via ``order``."""
+
+    result: object
+    assigner: object
+    order: dict
+    shift: np.ndarray
+    scale: np.ndarray
+
+
+def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
+    """Cluster the rows of the given feature blocks as ``step`` asks."""
+    from dask import delayed
+
+    from analysis import clustering as cl
+
+    started = time.perf_counter()
     from analysis.distributed.matrix import add_counts, block_counts, feature_notes
 
     stats, counts, kept_per_block = ctx.compute([
@@ -70,7 +90,8 @@ def run_clustering(step, ctx: Context):
         for method in methods:
             for k, assigner, bic, extra in _fits(method, step, ks, sample, n, notes):
                 if isinstance(assigner, _Lloyd):
-                    extra = refine_lloyd(ctx, blocks, assigner, shift, scale)
+                    extra = refine_lloyd(ctx, blocks, assigner, shift, scale,
+                                         float(np.mean(np.diag(m2) / n / scale ** 2)))
                 labels_scored = assigner(scored)
                 entry = cl.SweepEntry(
                     method=method, k=k, silhouette=_silhouette(scored, labels_scored), bic=bic,
@@ -99,13 +120,14 @@ def run_clustering(step, ctx: Context):
         agreement = {"ari": float(adjusted_rand_score(truth, labels)),
                      "nmi": float(normalized_mutual_info_score(truth, labels))}
     k = int(len(set(labels.tolist()) - {cl.NOISE}))
-    return cl.ClusteringResult(
+    result = cl.ClusteringResult(
         method=chosen_entry.method, k=k, row_ids=row_ids, positions=positions, labels=labels,
         sweep=tuple(r[0] for r in runs), profiles=profiles, reason=reason,
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
         silhouette=chosen_entry.silhouette, compare=step.compare, agreement=agreement,
         notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
     )
+    return Clusters(result, chosen_assigner, order, shift, scale)
 
 
 def _kept(block) -> int:
@@ -262,8 +284,12 @@ class _Lloyd(NearestCentre):
         self.refined = False
 
 
-def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale) -> int:
-    """Run Lloyd iterations over every row until no centre moves; return the iterations."""
+def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,
+                 variance: float = 1.0) -> int:
+    """Run Lloyd iterations over every row until the centres settle; return the iterations.
+
+    ``variance`` is the features' mean variance in the units clustered (1 when standardized).
+    """
     from dask import delayed
 
     for iteration in range(1, LLOYD_ITERATIONS + 1):
@@ -272,9 +298,9 @@ def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale) -> 
         centres = assigner.centres.copy()
         filled = counts > 0
         centres[filled] = sums[filled] / counts[filled][:, None]
-        moved = float(np.abs(centres - assigner.centres).max())
+        moved = float(((centres - assigner.centres) ** 2).sum())
         assigner.centres = centres
-        if moved <= LLOYD_TOLERANCE:
+        if moved <= LLOYD_TOLERANCE * variance:
             return iteration
     return LLOYD_ITERATIONS
 
