@@ -59,7 +59,7 @@ CHANCE_LEVEL = 0.05
 # learning curve run kernel machines on a sample of this many rows.
 KERNEL_PERMUTATION_ROWS = 1000
 KERNEL_CURVE_ROWS = 3000
-KERNEL_PERMUTATION_TEST_ROWS = 5000
+KERNEL_PERMUTATION_TEST_ROWS = 2000
 NYSTROEM_COMPONENTS = 1000
 MISPREDICTED_LIMIT = 100
 ROW_ID_LIST_LIMIT = 5000
@@ -796,7 +796,7 @@ class _Run:
         wrong = np.flatnonzero(predicted != y[test])
         if len(wrong) == 0 or not hasattr(model, "decision_function"):
             return []
-        scores = np.asarray(model.decision_function(self.X[test]), dtype=np.float64)
+        scores = _decision(model, self.X[test])
         if scores.ndim == 1:
             # two classes: the distance from the boundary, in decision units
             confidence = np.abs(scores)
@@ -868,7 +868,7 @@ class _Run:
             return {"equations": equations,
                     "decision": scores_of("left side minus constant of each class's equation "
                                           "(that class against the rest)", columns)}
-        decision = np.asarray(model.decision_function(self.X), dtype=np.float64)
+        decision = _decision(model, self.X)
         machine_scores = scores_of("decision value of the kernel machine fitted on all rows",
                                    decision)
         if self.n_classes != 2:
@@ -982,25 +982,47 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
 
 
 def _predict(model, X: np.ndarray) -> np.ndarray:
-    """Predictions of a fitted pipeline.
+    """Predictions of a fitted pipeline (a two-class kernel machine through _decision)."""
+    if _two_class_svc(model) is None:
+        return model.predict(X)
+    last = model[-1]
+    return last.classes_[(_decision(model, X) > 0).astype(np.int64)]
+
+
+def _decision(model, X: np.ndarray) -> np.ndarray:
+    """Decision values of a fitted pipeline.
 
     A two-class kernel machine is evaluated as K(rows, support vectors) @ dual coefficients
-    + intercept with one matrix product, the same decision value the machine computes row by
+    + intercept with one matrix product: the same decision value the machine computes row by
     row, many times faster on the permutation test's repeated scoring.
     """
-    last = model[-1] if hasattr(model, "steps") else None
-    if last is None or type(last).__name__ != "SVC" or len(last.classes_) != 2 \
-            or len(model.steps) != 2:
-        return model.predict(X)
+    last = _two_class_svc(model)
+    if last is None:
+        return np.asarray(model.decision_function(X), dtype=np.float64)
     from sklearn.metrics.pairwise import pairwise_kernels
 
     scaled = model[0].transform(X)
     options = {"gamma": float(last._gamma)}
     if last.kernel == "poly":
         options.update(degree=last.degree, coef0=float(last.coef0))
-    kernel = pairwise_kernels(scaled, last.support_vectors_, metric=last.kernel, **options)
-    decision = kernel @ last.dual_coef_[0] + last.intercept_[0]
-    return last.classes_[(decision > 0).astype(np.int64)]
+    # in blocks, so the kernel matrix stays small on large tables
+    out = np.empty(len(scaled))
+    step = max(1, 20_000_000 // max(1, len(last.support_vectors_)))
+    for start in range(0, len(scaled), step):
+        block = pairwise_kernels(scaled[start:start + step], last.support_vectors_,
+                                 metric=last.kernel, **options)
+        out[start:start + step] = block @ last.dual_coef_[0] + last.intercept_[0]
+    return out
+
+
+def _two_class_svc(model):
+    steps = getattr(model, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    last = steps[-1][1]
+    if type(last).__name__ != "SVC" or len(last.classes_) != 2:
+        return None
+    return last
 
 
 # Features whose values are the table's own numbers (or sums of them): an equation in them

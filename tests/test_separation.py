@@ -20,7 +20,13 @@ from sklearn.metrics import balanced_accuracy_score, matthews_corrcoef
 from analysis.errors import StepError
 from analysis.features import canonical_key
 from analysis.figures import figures_for
-from analysis.separation import SeparatorResult, SeparatorStep, _mcc_from_counts
+from analysis.separation import (
+    SeparatorResult,
+    SeparatorStep,
+    _decision,
+    _mcc_from_counts,
+    _predict,
+)
 from analysis.steps import make_step, step_params
 from analysis.table import load_table, read_table
 
@@ -399,6 +405,23 @@ def test_rbf_model_gives_a_quadratic_surrogate_with_its_agreement():
     holds = surrogate.holds(table.frame[["a", "b"]])
     assert surrogate.agreement == pytest.approx(np.mean(holds == machine))
     assert "agrees with the machine" in result.summary()
+
+
+@pytest.mark.parametrize("kernel", ["rbf", "poly"], ids=["rbf", "poly2"])
+def test_kernel_decision_values_match_scikit_learn(kernel):
+    # The one-matrix-product evaluation must give scikit-learn's own decision values.
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.svm import SVC
+
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(300, 4))
+    y = (X[:, 0] ** 2 + X[:, 1] > 1).astype(int)
+    model = make_pipeline(StandardScaler(), SVC(kernel=kernel, degree=2, coef0=1.0,
+                                                gamma="scale")).fit(X, y)
+    fresh = rng.normal(size=(500, 4))
+    assert np.allclose(_decision(model, fresh), model.decision_function(fresh), atol=1e-9)
+    assert np.array_equal(_predict(model, fresh), model.predict(fresh))
 
 
 @pytest.mark.parametrize("model", ["logistic", "lda"], ids=["logistic", "lda"])
