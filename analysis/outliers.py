@@ -41,7 +41,7 @@ from threadpoolctl import threadpool_limits
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
 from analysis.plain import plain, row_id
-from analysis.projection import sample_positions, standardized
+from analysis.projection import require_spread, sample_positions, standardized
 from analysis.table import Table
 
 MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
@@ -126,8 +126,9 @@ class OutliersResult:
         })
 
     def summary(self) -> str:
+        ranked_by = ", ".join(self.measures) or "nothing: no measure tells the rows apart"
         lines = [f"{len(self.outliers)} objects to look at, of {self.n_rows} rows, ranked by "
-                 f"{', '.join(self.measures)}; {self.elapsed_seconds:.1f} s."]
+                 f"{ranked_by}; {self.elapsed_seconds:.1f} s."]
         for o in self.outliers[:10]:
             lines.append(f"  {o.rank:>3}. {row_id(o.row)}  score {o.score:.3f}: "
                          + "; ".join(o.reasons))
@@ -178,6 +179,7 @@ class OutliersStep:
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
         notes = list(fm.notes)
+        require_spread(fm.values, table.name, "a ranking of objects")
         values = standardized(fm.values) if self.standardize else fm.values
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
@@ -486,6 +488,8 @@ def _value(x: float) -> str:
 
 
 def _reasons(i: int, used: dict, standing: dict) -> tuple[str, ...]:
+    if not used:
+        return ("no measure tells the rows apart",)
     words: list[str] = []
     for name, measure in used.items():
         if measure.notable(i, standing[name][i]):

@@ -40,6 +40,14 @@ def sample_positions(n: int, size: int, seed: int) -> np.ndarray:
     return np.sort(rng.choice(n, size=size, replace=False))
 
 
+def require_spread(values: np.ndarray, table_name: str, what: str) -> None:
+    """StepError when every row has the same features: nothing to tell apart."""
+    if len(values) and not np.any(np.ptp(values, axis=0) > 0):
+        raise StepError(f"{table_name}: every row has the same value in every feature column, "
+                        f"so there is nothing for {what} to tell apart. Choose other "
+                        "columns.")
+
+
 def standardized(values: np.ndarray) -> np.ndarray:
     """Columns shifted to mean 0 and scaled to standard deviation 1 (constant columns to 0)."""
     from sklearn.preprocessing import StandardScaler
@@ -173,6 +181,7 @@ class ProjectionStep:
             raise StepError(f"{table.name}: a projection needs at least 3 rows with every "
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
+        require_spread(fm.values, table.name, "a projection")
         values = standardized(fm.values) if self.standardize else fm.values
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
@@ -220,7 +229,7 @@ class ProjectionStep:
         if not isinstance(self.n_neighbors, int) or self.n_neighbors < 2:
             raise StepError(f"n_neighbors {self.n_neighbors!r}: give a whole number of at "
                             "least 2.")
-        if not self.perplexity > 0:
+        if not isinstance(self.perplexity, (int, float)) or not self.perplexity > 0:
             raise StepError(f"perplexity {self.perplexity!r}: give a positive number.")
         if self.method == "lda" and self.target is None:
             raise StepError(f"{table.name}: LDA needs a target: the column whose classes the "
@@ -295,7 +304,9 @@ def _tsne(values: np.ndarray, perplexity: float, seed: int, notes: list[str]) ->
     usable = min(perplexity, max(1.0, (n - 1) / 3))
     if usable < perplexity:
         notes.append(f"perplexity lowered from {perplexity:g} to {usable:.3g} for {n} rows.")
-    model = TSNE(n_components=2, perplexity=usable, init="pca", random_state=seed)
+    # the PCA start needs two features; with one, start from random positions
+    start = "pca" if values.shape[1] >= 2 else "random"
+    model = TSNE(n_components=2, perplexity=usable, init=start, random_state=seed)
     return model.fit_transform(values)
 
 
@@ -328,4 +339,5 @@ def _two_columns(scores: np.ndarray) -> np.ndarray:
     return np.column_stack([scores[:, 0], np.zeros(len(scores))])
 
 
-__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "sample_positions", "standardized"]
+__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "require_spread", "sample_positions",
+           "standardized"]

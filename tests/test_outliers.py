@@ -206,3 +206,12 @@ def test_target_with_too_many_labels_is_refused():
     table = _table(frame).with_roles({"name": "category"})
     with pytest.raises(StepError, match="180 distinct labels"):
         OutliersStep(target="name", columns=FEATURES, relations=False).run(table)
+
+
+def test_rows_no_measure_tells_apart_are_said_so():
+    # two objects, each written ten times: every measure scores all rows alike
+    frame = pd.DataFrame({"a": [1.0] * 10 + [2.0] * 10, "b": [0.0] * 20})
+    result = OutliersStep(relations=False).run(_table(frame, "twins.csv"))
+    assert result.measures == ()
+    assert all(o.reasons == ("no measure tells the rows apart",) for o in result.outliers)
+    assert "no measure tells the rows apart" in result.summary()

@@ -9,7 +9,9 @@ import pandas as pd
 import pytest
 from sklearn.datasets import load_iris
 
+from analysis.clustering import ClusteringStep
 from analysis.errors import StepError
+from analysis.outliers import OutliersStep
 from analysis.projection import ProjectionStep
 from analysis.steps import make_step, step_params
 from analysis.table import read_table
@@ -201,3 +203,19 @@ def test_rows_without_a_target_are_drawn_but_not_used_by_lda(iris_frame):
     separated = ProjectionStep(method="lda", target="species").run(table)
     assert separated.n_rows == 148
     assert {"F004", "F060"}.isdisjoint(set(separated.row_ids))
+
+
+def test_one_feature_is_enough_for_t_sne():
+    frame = pd.DataFrame({"genus": [0, 1, 1, 2, 3, 5, 8, 13]})
+    result = ProjectionStep(method="tsne").run(_table(frame, "one.csv"))
+    assert result.n_projected == 8
+    assert np.all(np.isfinite(result.x)) and np.all(np.isfinite(result.y))
+
+
+@pytest.mark.parametrize("step", [
+    ProjectionStep(method="pca"), ProjectionStep(method="tsne"),
+    ClusteringStep(), OutliersStep()], ids=["pca", "t-SNE", "clustering", "outliers"])
+def test_constant_table_is_refused(step):
+    frame = pd.DataFrame({"a": [1] * 12, "b": [2] * 12})
+    with pytest.raises(StepError, match="every row has the same value in every feature"):
+        step.run(_table(frame, "constant.csv"))
