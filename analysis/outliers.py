@@ -332,11 +332,12 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> _Measure
     reference = labels.copy()
     for i in np.flatnonzero(~np.isin(labels, large)):
         reference[i] = min(large, key=lambda c: np.linalg.norm(values[i] - centres[c]))
-    relative = np.empty(len(values))
-    for i in range(len(values)):
-        gap = float(np.linalg.norm(values[i] - centres[reference[i]]))
-        scale = typical[reference[i]]
-        relative[i] = gap / scale if scale > 0 else (np.inf if gap > 0 else 0.0)
+    order = {c: j for j, c in enumerate(clusters)}
+    index = np.array([order[c] for c in reference.tolist()])
+    gap = np.linalg.norm(values - np.array([centres[c] for c in clusters])[index], axis=1)
+    scale = np.array([typical.get(c, 0.0) for c in clusters])[index]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        relative = np.where(scale > 0, gap / scale, np.where(gap > 0, np.inf, 0.0))
 
     def say(i: int, standing: float) -> str:
         times = "infinitely many" if not np.isfinite(relative[i]) else f"{relative[i]:.1f}"
