@@ -207,7 +207,8 @@ class OutliersStep:
                              "counted.")
         standing = {name: _standing(m.scores) for name, m in used.items()}
         combined, breadth = _combined(standing, n)
-        order = sorted(range(n), key=lambda i: (-combined[i], -breadth[i], i))[: self.top]
+        # highest score first, then the higher mean standing, then table order
+        order = np.lexsort((np.arange(n), -breadth, -combined))[: self.top].tolist()
         outliers = tuple(
             Outlier(rank=rank, row=fm.row_ids[i], score=float(combined[i]),
                     reasons=_reasons(i, used, standing),
@@ -246,8 +247,7 @@ class OutliersStep:
                               standardize=self.standardize, seed=self.seed)
         clusters = step.run(table)
         if not np.array_equal(clusters.positions, fm.rows):
-            raise StepError(f"{table.name}: the clustering used other rows than the ranking; "
-                            "this is a bug, please report it.")
+            raise RuntimeError("the clustering used other rows than the ranking")
         notes.extend(note for note in clusters.notes if note not in fm.notes)
         notes.append(f"distance from centre uses k-means clusters: {clusters.reason}")
         return _centre_distance(values, clusters.labels, clusters.k), clusters.k
