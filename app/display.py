@@ -64,8 +64,8 @@ def rows_frame(table, row_ids, columns: list[str] | None = None) -> pd.DataFrame
     if not ids:
         return pd.DataFrame()
     all_ids = table.row_ids
-    position = {_key(v): i for i, v in enumerate(all_ids)}
-    rows = [position[_key(v)] for v in ids if _key(v) in position]
+    position = {row_key(v): i for i, v in enumerate(all_ids)}
+    rows = [position[row_key(v)] for v in ids if row_key(v) in position]
     names = [c.name for c in table.columns if c.name != table.id_column]
     if columns is not None:
         names = [n for n in columns if n in names]
@@ -76,10 +76,12 @@ def rows_frame(table, row_ids, columns: list[str] | None = None) -> pd.DataFrame
     return shown
 
 
-def _key(value):
+def row_key(value):
     """Row ids from JSON, numpy or the table compare equal when they name the same row."""
     if isinstance(value, (np.integer,)):
         return int(value)
+    if isinstance(value, np.generic):
+        return value.item()
     if isinstance(value, float) and value.is_integer():
         return int(value)
     return value

@@ -54,18 +54,32 @@ def show_figures(result, table, key: str, *, vector: bool = False, **options) ->
                     vector=vector, hover=options.get("hover"))
 
 
-def _selectable(figure) -> bool:
-    return any(getattr(trace, "customdata", None) is not None for trace in figure.data)
+def row_traces(figure, table) -> set[int]:
+    """The traces whose points are objects of the table: markers (no lines) whose customdata
+    starts with a row id. Their points can be selected to list those objects."""
+    ids = {display.row_key(v) for v in table.row_ids}
+    found = set()
+    for number, trace in enumerate(figure.data):
+        data = getattr(trace, "customdata", None)
+        mode = getattr(trace, "mode", None) or "markers"
+        if data is None or "lines" in mode or len(data) == 0:
+            continue
+        firsts = [row[0] if isinstance(row, (list, tuple)) or getattr(row, "ndim", 0)
+                  else row for row in data]
+        if all(display.row_key(v) in ids for v in firsts):
+            found.add(number)
+    return found
 
 
 def show_figure(figure, key: str, *, title: str, table=None, vector: bool = False,
                 hover: list[str] | None = None) -> None:
     name = slug(title)
-    if table is not None and _selectable(figure):
+    traces = row_traces(figure, table) if table is not None else set()
+    if traces:
         event = st.plotly_chart(figure, key=key, on_select="rerun", theme=None,
                                 selection_mode=("points", "box", "lasso"),
                                 config=chart_config(name))
-        _list_selected(event, table, key, hover)
+        _list_selected(selected_ids(event, traces), table, key)
     else:
         st.plotly_chart(figure, key=key, theme=None, config=chart_config(name))
     if vector:
@@ -78,8 +92,9 @@ def show_figure(figure, key: str, *, title: str, table=None, vector: bool = Fals
                               key=f"{key}.pdf", icon=":material/download:")
 
 
-def selected_ids(event) -> list:
-    """Row ids of the selected points (the first entry of each point's customdata)."""
+def selected_ids(event, traces: set[int] | None = None) -> list:
+    """Row ids of the selected points (the first entry of each point's customdata), from
+    the given traces only when ``traces`` is given."""
     if not event:
         return []
     try:
@@ -88,6 +103,8 @@ def selected_ids(event) -> list:
         return []
     ids = []
     for point in points:
+        if traces is not None and point.get("curve_number") not in traces:
+            continue
         data = point.get("customdata")
         if isinstance(data, (list, tuple)):
             data = data[0] if data else None
@@ -96,8 +113,7 @@ def selected_ids(event) -> list:
     return ids
 
 
-def _list_selected(event, table, key: str, hover: list[str] | None) -> None:
-    ids = selected_ids(event)
+def _list_selected(ids: list, table, key: str) -> None:
     if not ids:
         st.caption("Click a point, or drag a box or lasso, to list those objects here.")
         return

@@ -68,12 +68,12 @@ def load_sample(name: str) -> state.TableState:
     return load_bytes(name, (SAMPLES / name).read_bytes(), sample=True)
 
 
-def opening_study(table) -> Study:
-    """A short first study: overview, PCA, and for a table with a natural flag to explain,
-    a separator for it; relations and bounds for the opening sample."""
+def opening_study(table, *, sample: bool = False) -> Study:
+    """A short first study: overview and PCA; on the opening sample also a separator for
+    its flag (a real equation on the first screen) and relations and bounds."""
     study = Study(table=table.name, title=f"Study of {table.name}", table_digest=table.digest,
                   table_settings=TableSettings(id_column=table.id_column))
-    target = FIRST_TARGET if table.name == FIRST_SAMPLE else None
+    target = FIRST_TARGET if sample and table.name == FIRST_SAMPLE else None
     kinds = available_kinds()
     plan = [("overview", {}), ("projection", {"method": "pca", "target": target})]
     if target is not None:
@@ -88,7 +88,7 @@ def opening_study(table) -> Study:
 def put_table(table_state: state.TableState) -> None:
     """Show a newly loaded table with a fresh short study, run at once."""
     state.set_table(table_state)
-    study = opening_study(table_state.base)
+    study = opening_study(table_state.base, sample=table_state.sample)
     state.page().focus = {"target": _first_target(study)}
     state.start_study(study)
 
@@ -129,6 +129,7 @@ def open_study(study: Study) -> str | None:
                            and study.table_digest != current.base.digest):
         if study.table in sample_names():
             state.set_table(load_sample(study.table))
+            state.page().show_sample = study.table
         elif current is not None:
             note = (f"This study was saved with the table {study.table}, which is not loaded; "
                     f"it runs on {current.name}. Load {study.table} to repeat its numbers.")

@@ -45,3 +45,17 @@ def main() -> None:
             st.info(text)
     st.caption(CAVEAT)
     study_section.show_study()
+    _warm_up_umap()
+
+
+def _warm_up_umap() -> None:
+    """Once the page is drawn, let UMAP compile its code in the background, so that the
+    first UMAP picture does not wait 15 s or more. Not under AppTest, where the page runs
+    inside the test process and a background compile would only slow the tests."""
+    if st.get_option("global.appTest"):
+        return
+    try:
+        from analysis.warmup import start_umap_warmup
+    except ImportError:
+        return
+    start_umap_warmup()

@@ -8,7 +8,7 @@ stable while the step moves up and down the page.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import streamlit as st
 
@@ -40,6 +40,8 @@ class StepContext:
     step: StudyStep
     table: object  # the Table with the study's roles applied
     vector: bool = False  # offer SVG and PDF downloads of figures
+    # the first result of each kind on the page, for colouring one step by another
+    others: dict = field(default_factory=dict)
 
     @property
     def params(self) -> dict:
@@ -80,6 +82,7 @@ def choice(ctx: StepContext, name: str, label: str, options: dict | list, *,
     key = ctx.key(name)
     _sync(key, current)
     container.selectbox(label, values, key=key, help=help,
+                        placeholder=words.get(None, NONE_LABEL),
                         format_func=lambda v: words.get(v, NONE_LABEL if v is None else str(v)),
                         on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
 
@@ -93,7 +96,7 @@ def column(ctx: StepContext, name: str, label: str, columns: list[str], *,
         values.append(current)
     key = ctx.key(name)
     _sync(key, current)
-    container.selectbox(label, values, key=key, help=help,
+    container.selectbox(label, values, key=key, help=help, placeholder=NONE_LABEL,
                         format_func=lambda v: NONE_LABEL if v is None else str(v),
                         on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
 

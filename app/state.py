@@ -62,6 +62,7 @@ class PageState:
     load_error: str | None = None
     study_error: str | None = None
     notices: list[str] = field(default_factory=list)
+    show_sample: str | None = None
     roles_version: int = 0
     roles_error: str | None = None
 

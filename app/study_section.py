@@ -41,6 +41,23 @@ def _umap_runs() -> dict:
     return {"done": False}
 
 
+def _umap_label(title: str) -> str | None:
+    """What to say while UMAP runs: nothing special once its code is compiled."""
+    if _umap_runs()["done"]:
+        return None
+    try:
+        from analysis.warmup import umap_warmup_status
+    except ImportError:
+        return f"{title}: {UMAP_FIRST}"
+    status = umap_warmup_status()
+    if status.startswith("done"):
+        return None
+    if status == "running":
+        return (f"{title}: UMAP is still compiling its numerical code (begun when the page "
+                "opened); this first run waits for it")
+    return f"{title}: {UMAP_FIRST}"
+
+
 def show_study() -> None:
     study = state.study()
     table_state = state.table_state()
@@ -60,9 +77,14 @@ def show_study() -> None:
                      "the current settings.")
         right.button("Run every step", key="study.run_all", on_click=_request_run_all,
                      icon=":material/play_arrow:", width="stretch")
+    others = {}
+    for step in study.steps:
+        found = cache.get(result_key(table, step.kind, step.params))
+        if found is not None:
+            others.setdefault(step.kind, found)
     done = 0
     for index, (uid, step) in enumerate(zip(list(pg.step_ids), study.steps)):
-        ran = _show_step(index, uid, step, table, run_all=pg.run_all)
+        ran = _show_step(index, uid, step, table, run_all=pg.run_all, others=others)
         if progress is not None and ran:
             done += 1
             progress.progress(min(done / len(missing), 1.0),
@@ -82,15 +104,15 @@ def _request_run_all() -> None:
     state.page().run_all = True
 
 
-def _show_step(index: int, uid: int, step, table, *, run_all: bool) -> bool:
+def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict) -> bool:
     """Draw one step; run it first when asked. True when it ran in this pass."""
     pg = state.page()
     study = state.study()
     module = panel(step.kind)
     ctx = StepContext(index=index, uid=uid, step=step, table=table,
-                      vector=vector_ready())
+                      vector=vector_ready(), others=others)
     ran = False
-    with st.container(border=True, key=f"s{uid}.box"):
+    with st.container(border=True, key=f"step-{uid}"):
         title_col, up_col, down_col, remove_col = st.columns(
             [12, 1, 1, 1], vertical_alignment="center", gap="small")
         title_col.markdown(f"#### {index + 1}. {step.display_title}")
@@ -116,11 +138,14 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool) -> bool:
         result = state.cache().get(key)
         error = pg.errors.get(key)
         if result is None:
-            clicked = st.button("Run this step", key=f"s{uid}.run", type="primary",
-                                icon=":material/play_arrow:")
+            place = st.empty()
+            clicked = place.button("Run this step", key=f"s{uid}.run", type="primary",
+                                   icon=":material/play_arrow:")
             if clicked or (run_all and error is None):
                 result, error = _run(step, table, key)
                 ran = True
+                if result is not None:
+                    place.empty()
         if error:
             st.error(error)
         elif result is None:
@@ -139,8 +164,8 @@ def _run(step, table, key: str):
     pg = state.page()
     label = f"{step.display_title}: {RUNNING.get(step.kind, 'running')}"
     umap = step.kind == "projection" and step.params.get("method") == "umap"
-    if umap and not _umap_runs()["done"]:
-        label = f"{step.display_title}: {UMAP_FIRST}"
+    if umap:
+        label = _umap_label(step.display_title) or label
     place = st.empty()
     with place.status(label + "…", expanded=False) as box:
         outcome = run_step(step, table, cache=state.cache())

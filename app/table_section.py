@@ -29,16 +29,38 @@ ROLE_WORDS = {
 # Choosing a table (sidebar)
 
 
+SOURCES = {"sample": "A sample table", "file": "A file of mine"}
+
+
 def table_picker() -> None:
-    """Sample tables and the upload box. A new choice replaces the table and the study."""
+    """A sample table or an upload. A new choice replaces the table and the study."""
     pg = state.page()
-    names = loading.sample_names()
+    if pg.show_sample is not None:
+        # A study opened on a sample table: show that sample as the choice.
+        st.session_state["table.source"] = "sample"
+        st.session_state["table.sample"] = pg.show_sample
+        pg.sample_choice = pg.show_sample
+        pg.show_sample = None
     st.markdown("### Table")
+    source = st.radio("Where the table comes from", list(SOURCES), key="table.source",
+                      format_func=SOURCES.get, horizontal=True, label_visibility="collapsed")
+    if source == "sample":
+        _sample_picker(pg)
+    else:
+        _upload_box(pg)
+    if pg.load_error:
+        st.error(pg.load_error)
+
+
+def _sample_picker(pg) -> None:
+    names = loading.sample_names()
     choice = st.selectbox("Sample table", names, key="table.sample",
                           help="Tables computed by sample_tables/make_tables.py.")
+    current = state.table_state()
+    showing = current is not None and current.sample and current.name == choice
     if pg.sample_choice is None:
         pg.sample_choice = choice
-    elif choice != pg.sample_choice:
+    elif choice != pg.sample_choice or not showing:
         pg.sample_choice = choice
         try:
             loading.put_table(loading.load_sample(choice))
@@ -48,8 +70,11 @@ def table_picker() -> None:
     note = loading.SAMPLE_NOTES.get(choice)
     if note:
         st.caption(note)
+
+
+def _upload_box(pg) -> None:
     upload = st.file_uploader(
-        "Or a table of your own", type=loading.UPLOAD_TYPES, key="table.upload",
+        "Your table", type=loading.UPLOAD_TYPES, key="table.upload",
         help="CSV or TSV (with a header row), JSON (an array of records), JSON Lines or "
              "Parquet. One row per object, one column per invariant.")
     if upload is not None and upload.file_id != pg.upload_id:
@@ -63,8 +88,9 @@ def table_picker() -> None:
             loading.put_table(loaded)
     elif upload is None:
         pg.upload_id = None
-    if pg.load_error:
-        st.error(pg.load_error)
+        current = state.table_state()
+        if current is not None and current.sample:
+            st.caption(f"Until you choose a file, the page shows the sample {current.name}.")
 
 
 # ----------------------------------------------------------------------------------------
@@ -121,6 +147,7 @@ def _roles_editor(table) -> None:
         try:
             set_roles(changes)
             pg.roles_error = None
+            pg.run_all = True  # keep the page up to date with the new roles
         except ScoutError as exc:
             pg.roles_error = str(exc)
         st.rerun()
@@ -180,7 +207,7 @@ def _focus_row(table) -> None:
               if c.role in ("invariant", "flag", "category", "array") and c.name != target]
     _sync("focus.features", [c for c in (chosen or defaults) if c in usable])
     left, right = st.columns([1, 3])
-    left.selectbox("Target", [None] + targets, key="focus.target",
+    left.selectbox("Target", [None] + targets, key="focus.target", placeholder=NONE_LABEL,
                    format_func=lambda v: NONE_LABEL if v is None else v,
                    on_change=_focus_changed, args=("target", "focus.target"),
                    help="The invariant or property to explain. Steps colour by it, the "
@@ -191,7 +218,7 @@ def _focus_row(table) -> None:
                       help="The invariants the steps look at (all steps but the overview).")
     arrays = table.names_with_role("array")
     left, right, _ = st.columns([1, 1, 2])
-    left.selectbox("Group column", [None] + groups, key="focus.groups",
+    left.selectbox("Group column", [None] + groups, key="focus.groups", placeholder=NONE_LABEL,
                    format_func=lambda v: NONE_LABEL if v is None else v,
                    on_change=_focus_changed, args=("groups", "focus.groups"),
                    help="Objects with the same value (for a matrix column: the same matrix "
@@ -224,6 +251,8 @@ def _focus_changed(name: str, key: str) -> None:
         state.set_study(apply_focus(state.study(), table, name, value))
     except StudyError as exc:
         pg.notices.append(f"focus:{exc}")
+    else:
+        pg.run_all = True  # the steps follow the study-wide choice at once
 
 
 def apply_focus(study, table, name: str, value):

@@ -8,7 +8,6 @@ import streamlit as st
 
 from app import display, settings
 from app.figure_view import show_figures
-from app.panels.projection import view_options
 
 METHODS = {
     "auto": "choose by a sweep (k-means, Gaussian mixture, agglomerative)",
@@ -67,9 +66,8 @@ def show(ctx: settings.StepContext, result) -> None:
                         help="Adjusted Rand index: 0 is chance, 1 is the same partition. "
                              "Normalized mutual information: "
                              f"{display.number(result.agreement.get('nmi'))}.")
-    colour, hover = view_options(ctx, table, None, extra=("cluster",))
-    show_figures(result, table, ctx.key("figures"), vector=ctx.vector,
-                 color_by=colour, hover=hover)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
+    st.caption("To see the clusters in a picture, colour a projection step by cluster.")
     if result.profiles:
         st.markdown("##### What sets each cluster apart")
         st.dataframe(pd.DataFrame([{

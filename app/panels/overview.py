@@ -41,5 +41,5 @@ def _columns_frame(result) -> pd.DataFrame:
             values = ", ".join(f"{v} ({n})" for v, n in c.common[:4])
         rows.append({"column": c.name, "role": c.role, "type": c.dtype,
                      "missing": c.missing, "distinct": c.distinct, "values": values,
-                     "mean": None if c.mean is None else display.number(c.mean)})
+                     "mean": "" if c.mean is None else display.number(c.mean)})
     return pd.DataFrame(rows)

@@ -22,7 +22,7 @@ def settings_panel(ctx: settings.StepContext) -> None:
     settings.choice(ctx, "method", "Method", METHODS, container=left,
                     help="PCA and LDA are linear: their axes are sums of features. UMAP and "
                          "t-SNE keep neighbours together and distort distances.")
-    settings.column(ctx, "target", "Target", settings.label_columns(ctx.table),
+    settings.column(ctx, "target", "Target for this step", settings.label_columns(ctx.table),
                     container=right, help="Colours the picture; LDA separates its classes.")
     settings.feature_block(ctx)
     method = ctx.params.get("method")
@@ -54,9 +54,13 @@ def show(ctx: settings.StepContext, result) -> None:
         shown = sum(result.explained_variance_ratio[:2])
         facts.append(f"the picture shows {shown:.0%} of the variance")
     st.markdown(" · ".join(facts))
-    colour, hover = view_options(ctx, table, result.target)
-    show_figures(result, table, ctx.key("figures"), vector=ctx.vector,
-                 color_by=colour, hover=hover)
+    clustering = ctx.others.get("clustering")
+    outliers = ctx.others.get("outliers")
+    extra = tuple(name for name, found in (("cluster", clustering),
+                                           ("outlier score", outliers)) if found is not None)
+    colour, hover = view_options(ctx, table, result.target, extra=extra)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector, color_by=colour,
+                 hover=hover, clustering=clustering, outliers=outliers)
     if result.loadings:
         lines = []
         for axis, index in (("x", 0), ("y", 1)):
@@ -73,7 +77,7 @@ def view_options(ctx: settings.StepContext, table, target: str | None,
     """Colour and hover choices for a scatter plot. They change the picture only, never the
     numbers, so they are not step settings and never re-run the step."""
     names = [c.name for c in table.columns if c.role not in ("array", "id")]
-    first = list(extra) + (["target"] if target else [])
+    first = (["target"] if target else []) + list(extra)
     options = [NO_COLOUR] + first + [n for n in names if n not in first]
     key, hover_key = ctx.key("colour"), ctx.key("hover")
     if st.session_state.get(key) not in options:
@@ -84,8 +88,9 @@ def view_options(ctx: settings.StepContext, table, target: str | None,
     elif any(h not in names for h in st.session_state[hover_key]):
         st.session_state[hover_key] = [h for h in st.session_state[hover_key] if h in names]
     left, right = st.columns([1, 2])
-    left.selectbox("Colour by", options, key=key,
-                   format_func=lambda v: f"target ({target})" if v == "target" else v)
+    words = {"target": f"target ({target})", "cluster": "cluster (from the clustering step)",
+             "outlier score": "standing out (from the objects-to-look-at step)"}
+    left.selectbox("Colour by", options, key=key, format_func=lambda v: words.get(v, v))
     right.multiselect("Show on hover", names, key=hover_key,
                       help="Besides the object's id.")
     colour = st.session_state[key]

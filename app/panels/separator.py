@@ -37,7 +37,8 @@ def describe(params: dict) -> str:
 def settings_panel(ctx: settings.StepContext) -> None:
     table = ctx.table
     left, right = st.columns(2)
-    settings.column(ctx, "target", "Target", settings.label_columns(table), optional=False,
+    settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
+                    optional=False,
                     container=left, help="The flag, category or invariant to predict.")
     settings.choice(ctx, "model", "Separator", MODELS, container=right,
                     help="Linear models and the degree-2 kernel give an equation in the "
@@ -122,7 +123,8 @@ def show(ctx: settings.StepContext, result) -> None:
                    "model for one.")
     if equations or result.formula is not None or result.surrogate is not None:
         st.caption(CONJECTURE)
-    show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
+    options = _view_options(ctx, table, result)
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector, **options)
     if result.mispredicted:
         with st.expander(f"Test rows the separator gets wrong ({len(result.mispredicted)})"):
             st.dataframe(pd.DataFrame([{k: display.cell(v) for k, v in m.items()}
@@ -132,14 +134,42 @@ def show(ctx: settings.StepContext, result) -> None:
         st.caption(note)
 
 
+ROW_ORDER = "(row order)"
+
+
+def _view_options(ctx, table, result) -> dict:
+    """What the decision-score picture shows across, and on hover (never re-runs the step)."""
+    if result.decision is None or result.task != "classification":
+        return {}
+    names = [c.name for c in table.columns if c.role in ("invariant", "flag")
+             and c.name != result.target]
+    key, hover_key = ctx.key("score_by"), ctx.key("hover")
+    options = [ROW_ORDER] + names
+    if st.session_state.get(key) not in options:
+        st.session_state[key] = ROW_ORDER
+    shown = [c.name for c in table.columns if c.role not in ("array", "id")]
+    if hover_key not in st.session_state or any(
+            h not in shown for h in st.session_state[hover_key]):
+        st.session_state[hover_key] = [result.target]
+    left, right = st.columns([1, 2])
+    left.selectbox("Decision score against", options, key=key)
+    right.multiselect("Show on hover", shown, key=hover_key, help="Besides the object's id.")
+    feature = st.session_state[key]
+    return {"feature": None if feature == ROW_ORDER else feature,
+            "hover": list(st.session_state[hover_key])}
+
+
 def _verdict(result) -> None:
     word = "yes" if result.beats_chance else "no"
     colour = "green" if result.beats_chance else "orange"
     words = MODELS.get(result.model, result.model)
     st.markdown(f"#### Beats chance: :{colour}[{word}]")
+    rule = result.beats_chance_rule
+    if rule.startswith("beats chance: "):
+        rule = "The verdict is " + rule[len("beats chance: "):]
     st.caption(f"{words.capitalize()}, trained on {display.number(result.train_rows)} "
                f"objects, tested on {display.number(result.test_rows)} others "
-               f"({result.split_method}). {result.beats_chance_rule}")
+               f"({result.split_method}). {rule}")
 
 
 def _interval(values) -> str:
@@ -151,6 +181,16 @@ def _p_value(result) -> str:
     if result.permutation_p is None:
         return "not tested"
     return display.number(result.permutation_p)
+
+
+def _p_floor(result) -> str | None:
+    """Says so when p is the smallest value this many permutations can give."""
+    count = len(result.permutation_scores)
+    if result.permutation_p is None or not count:
+        return None
+    if abs(result.permutation_p - 1 / (count + 1)) < 1e-12:
+        return f"the least possible with {count} permutations"
+    return f"{count} permutations"
 
 
 def _classification_metrics(result) -> None:
@@ -168,7 +208,8 @@ def _classification_metrics(result) -> None:
                       delta=f"95% interval {_interval(m['mcc_ci'])}", delta_color="off",
                       delta_arrow="off",
                       help=f"0 is chance, 1 is perfect. Interval: {result.interval_method}.")
-    columns[3].metric("Permutation p-value", _p_value(result),
+    columns[3].metric("Permutation p-value", _p_value(result), delta=_p_floor(result),
+                      delta_color="off", delta_arrow="off",
                       help=f"How often shuffled targets score as well: "
                            f"{result.permutation_method}.")
 
@@ -183,8 +224,8 @@ def _regression_metrics(result) -> None:
                       help="Predicting the training mean instead: "
                            f"{display.number(b['mean_absolute_error'])}.")
     columns[2].metric("R² of predicting the mean", display.number(b["r2"]))
-    columns[3].metric("Permutation p-value", _p_value(result),
-                      help=result.permutation_method)
+    columns[3].metric("Permutation p-value", _p_value(result), delta=_p_floor(result),
+                      delta_color="off", delta_arrow="off", help=result.permutation_method)
 
 
 def _equation(ctx, table, result, equation, number: int) -> None:

@@ -1,0 +1,66 @@
+"""Objects to look at: a ranked list of the objects that stand out, with the reasons, to
+follow up by hand; downloadable as spreadsheet-safe CSV."""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from analysis.export import csv_text
+from app import display, settings
+from app.figure_view import show_figures, slug
+
+
+def describe(params: dict) -> str:
+    target = params.get("target")
+    return (f"the {params.get('top')} objects that stand out most"
+            + (f", including those a separator for {target} gets wrong" if target else ""))
+
+
+def settings_panel(ctx: settings.StepContext) -> None:
+    table = ctx.table
+    left, middle, right = st.columns(3)
+    settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
+                    container=left, help="Objects that a cross-validated separator for it "
+                                         "gets wrong with confidence rank higher.")
+    settings.whole_number(ctx, "top", "Objects listed", minimum=1, maximum=10_000,
+                          container=middle)
+    settings.flag(ctx, "relations", "Count broken relations", container=right,
+                  help="Objects that break an exact relation among the invariants rank "
+                       "higher.")
+    settings.feature_block(ctx)
+    left, middle, right = st.columns(3)
+    settings.whole_number(ctx, "k", "Clusters for the distance from centre (0: chosen)",
+                          optional=True, maximum=100, container=left)
+    settings.whole_number(ctx, "n_neighbors", "Neighbours (local outlier factor)",
+                          minimum=2, maximum=1000, container=middle)
+    settings.seed(ctx, container=right)
+
+
+def show(ctx: settings.StepContext, result) -> None:
+    table = ctx.table
+    measures = ", ".join(result.measures) or "nothing: no measure tells the objects apart"
+    st.markdown(f"**{display.plural(len(result.outliers), 'object')} to look at**, of "
+                f"{display.number(result.n_rows)}, ranked by {measures}.")
+    if not result.outliers:
+        return
+    frame = result.to_frame()
+    label = table.id_column or "row"
+    shown = frame.rename(columns={"row": label})
+    shown[label] = [display.cell(v) for v in shown[label]]
+    event = st.dataframe(shown, hide_index=True, key=ctx.key("list"), on_select="rerun",
+                         selection_mode="multi-row",
+                         column_config={"score": st.column_config.NumberColumn(format="%.3f")})
+    left, right = st.columns([3, 1], vertical_alignment="center")
+    left.caption(f"Score: {result.combination}. Select rows to see all their invariants.")
+    right.download_button("Download the list (CSV)", data=csv_text(frame),
+                          file_name=f"{slug(table.name)}-objects-to-look-at.csv",
+                          mime="text/csv", key=ctx.key("csv"), icon=":material/download:",
+                          width="stretch")
+    picked = list(getattr(getattr(event, "selection", None), "rows", []) or [])
+    if picked:
+        ids = [result.outliers[i].row for i in picked if i < len(result.outliers)]
+        st.dataframe(display.rows_frame(table, ids), hide_index=True,
+                     key=ctx.key("picked"))
+    show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
+    for note in result.notes:
+        st.caption(note)
