@@ -209,7 +209,8 @@ class ClusteringStep:
             notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
         )
 
-    def _check(self, table: Table) -> None:
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
         if self.method not in METHODS:
             raise StepError(f"clustering method {self.method!r}: use one of "
                             f"{', '.join(METHODS)}.")
@@ -227,6 +228,9 @@ class ClusteringStep:
         if not isinstance(self.min_cluster_size, int) or self.min_cluster_size < 2:
             raise StepError(f"min_cluster_size {self.min_cluster_size!r}: give a whole number "
                             "of at least 2 rows.")
+
+    def _check(self, table: Table) -> None:
+        self.check()
         if self.compare is not None:
             table.column(self.compare)
             if self.columns is not None and self.compare in self.columns:

@@ -221,7 +221,8 @@ class OutliersStep:
             elapsed_seconds=time.perf_counter() - started,
         )
 
-    def _check(self, table: Table) -> None:
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
         if not isinstance(self.top, int) or self.top < 1:
             raise StepError(f"top = {self.top!r}: give how many rows to list, at least 1.")
         if self.k is not None and (not isinstance(self.k, int) or self.k < 2):
@@ -233,6 +234,9 @@ class OutliersStep:
         if not isinstance(self.sample_size, int) or self.sample_size <= self.n_neighbors:
             raise StepError(f"sample size {self.sample_size!r}: give a whole number of rows, "
                             f"more than n_neighbors ({self.n_neighbors}).")
+
+    def _check(self, table: Table) -> None:
+        self.check()
         if self.target is not None:
             table.column(self.target)
 

@@ -218,7 +218,8 @@ class ProjectionStep:
             elapsed_seconds=elapsed, **extra,
         )
 
-    def _check(self, table: Table) -> None:
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
         if self.method not in METHODS:
             raise StepError(f"projection method {self.method!r}: use one of "
                             f"{', '.join(METHODS)}.")
@@ -231,6 +232,9 @@ class ProjectionStep:
                             "least 2.")
         if not isinstance(self.perplexity, (int, float)) or not self.perplexity > 0:
             raise StepError(f"perplexity {self.perplexity!r}: give a positive number.")
+
+    def _check(self, table: Table) -> None:
+        self.check()
         if self.method == "lda" and self.target is None:
             raise StepError(f"{table.name}: LDA needs a target: the column whose classes the "
                             "picture should separate (e.g. --target is_reflexive). Without "

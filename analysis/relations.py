@@ -1848,10 +1848,14 @@ class RelationsStep:
                 )
         return list(dict.fromkeys(self.columns))
 
-    def run(self, table) -> RelationsResult:
-        """Search the table; see the class docstring for the settings."""
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
         _check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
                         tolerance=self.tolerance, seed=self.seed)
+
+    def run(self, table) -> RelationsResult:
+        """Search the table; see the class docstring for the settings."""
+        self.check()
         names = self._chosen(table)
         if not names:
             raise StepError(

@@ -335,6 +335,15 @@ class SeparatorStep:
             raise StepError(f"{table.name}: the {info.role} column {self.target!r} cannot be "
                             "a target. Choose a flag, category or invariant column, or change "
                             "its role.")
+        self.check()
+        if self.groups is not None:
+            table.column(self.groups)
+            if self.groups == self.target:
+                raise StepError(f"{table.name}: the group column cannot be the target "
+                                f"{self.target!r}.")
+
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
         if self.model not in MODELS:
             raise StepError(f"model {self.model!r}: use one of {', '.join(MODELS)}.")
         if self.penalty not in PENALTIES:
@@ -369,11 +378,6 @@ class SeparatorStep:
                                       or value < 1):
                 raise StepError(f"{name} {value!r}: use a whole number of at least 1, or "
                                 "leave it unset.")
-        if self.groups is not None:
-            table.column(self.groups)
-            if self.groups == self.target:
-                raise StepError(f"{table.name}: the group column cannot be the target "
-                                f"{self.target!r}.")
 
 
 # ----------------------------------------------------------------------------------------

@@ -57,9 +57,38 @@ def make_step(kind: str, params: dict | None = None):
             f"{', '.join(sorted(known))}."
         )
     try:
-        return cls(**params)
+        step = cls(**params)
     except TypeError as exc:
         raise StudyError(f"step {kind!r}: bad settings ({exc}).") from None
+    check_settings(step)
+    return step
+
+
+def check_settings(step) -> None:
+    """Check a step's settings without a table: shared feature settings, then its own check().
+
+    A bad value becomes a StudyError naming the kind, so a study file with a typo fails when it
+    is opened, not halfway through a run.
+    """
+    from analysis.errors import StepError
+    from analysis.features import ARRAY_ENCODINGS, LOG_SCALES, MISSING_POLICIES
+
+    shared = {"array_encoding": ARRAY_ENCODINGS, "log_scale": LOG_SCALES,
+              "missing": MISSING_POLICIES}
+    for name, allowed in shared.items():
+        value = getattr(step, name, None)
+        if value is not None and value not in allowed:
+            raise StudyError(f"step {step.kind!r}: {name} {value!r} is not one of "
+                             f"{', '.join(allowed)}.")
+    seed = getattr(step, "seed", 0)
+    if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
+        raise StudyError(f"step {step.kind!r}: seed {seed!r} must be a whole number >= 0.")
+    check = getattr(step, "check", None)
+    if check is not None:
+        try:
+            check()
+        except StepError as exc:
+            raise StudyError(f"step {step.kind!r}: {exc}") from None
 
 
 def step_params(step) -> dict:

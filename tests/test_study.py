@@ -493,3 +493,20 @@ def test_the_table_is_never_written_over(tmp_path):
 def test_writing_into_a_missing_folder_is_a_study_error(tmp_path, small):
     with pytest.raises(StudyError, match=r"nowhere/s.study.json: cannot be written"):
         save_study(_two_steps(small), tmp_path / "nowhere" / "s.study.json")
+
+
+@pytest.mark.parametrize("kind, params, match", [
+    ("projection", {"method": "xyz"}, r"step 1: step 'projection': projection method 'xyz'"),
+    ("clustering", {"k": 1}, r"step 1: step 'clustering': k = 1"),
+    ("separator", {"target": "t", "model": "quartic"}, r"model 'quartic': use one of"),
+    ("separator", {"target": "t", "train_fraction": 1.5}, r"train fraction 1\.5"),
+    ("outliers", {"top": 0}, r"top = 0: give how many rows to list"),
+    ("relations", {"max_coefficient": 0}, r"step 1: step 'relations'"),
+    ("projection", {"array_encoding": "zigzag"}, r"array_encoding 'zigzag' is not one of"),
+], ids=["projection-method", "clustering-k", "separator-model", "train-fraction", "top",
+        "relations-coefficient", "array-encoding"])
+def test_a_bad_setting_value_is_refused_when_the_study_is_read(kind, params, match):
+    data = {"version": "invariant-scout-study/1", "table": "t.csv",
+            "steps": [{"kind": kind, "params": params}]}
+    with pytest.raises(StudyError, match=match):
+        study_from_json(data)
