@@ -859,7 +859,7 @@ class _Run:
                     positive_class=self.positive_class,
                     hint=(weights[0], float(intercepts[0])), **options)
                 return {"equation": equation,
-                        "decision": scores_of("left side minus constant of the equation",
+                        "decision": scores_of("equation margin (>= 0 on the positive side)",
                                               _left_side(equation, self.X, names))}
             # one equation per class against the rest, each seeded with that class's
             # hyperplane from the fitted model
@@ -870,8 +870,8 @@ class _Run:
                 for k, label in enumerate(self.classes))
             columns = np.column_stack([_left_side(e, self.X, names) for e in equations])
             return {"equations": equations,
-                    "decision": scores_of("left side minus constant of each class's equation "
-                                          "(that class against the rest)", columns)}
+                    "decision": scores_of("equation margin of each class against the rest "
+                                          "(>= 0 on that class's side)", columns)}
         decision = _decision(model, self.X)
         machine_scores = scores_of("decision value of the kernel machine fitted on all rows",
                                    decision)
@@ -883,8 +883,8 @@ class _Run:
             equation = eqs.poly2_equation(model, None, names, self.X, self.y == 1, row_ids=ids,
                                           positive_class=self.positive_class, **options)
             return {"equation": equation,
-                    "decision": scores_of("left side minus constant of the polynomial "
-                                          "equation", _left_side(equation, self.X, names))}
+                    "decision": scores_of("polynomial equation margin (>= 0 on the "
+                                          "positive side)", _left_side(equation, self.X, names))}
         surrogate = eqs.surrogate_quadratic(self.X, predicted == 1, names, row_ids=ids,
                                             positive_class=self.positive_class, **options)
         return {"surrogate": surrogate, "decision": machine_scores}

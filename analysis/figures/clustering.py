@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import plotly.graph_objects as go
 
-from analysis.figures.projection import DIVERGING, PALETTE, apply_style
+from analysis.figures.style import DIVERGING, PALETTE, apply_style
 
 # Features shown in the profile heatmap: those with the largest differences.
 MAX_PROFILE_FEATURES = 30

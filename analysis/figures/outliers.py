@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import plotly.graph_objects as go
 
-from analysis.figures.projection import PALETTE, SEQUENTIAL, apply_style
+from analysis.figures.style import PALETTE, SEQUENTIAL, apply_style
 from analysis.plain import row_id
 
 # Rows drawn: the top of the list.

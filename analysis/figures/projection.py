@@ -6,8 +6,7 @@ selection of points can be turned back into rows (:func:`selected_rows`). Points
 coloured by the target, by clusters or outlier scores from other steps' results, or by any
 column: labels get distinct colours, numbers a continuous scale.
 
-This module also holds the house style shared by the scatter-type figures of the other
-steps (:func:`apply_style`, :data:`PALETTE`, :data:`SEQUENTIAL`, :data:`DIVERGING`).
+The house style shared by every figure lives in :mod:`analysis.figures.style`.
 """
 
 from __future__ import annotations
@@ -20,17 +19,16 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from analysis.errors import StepError
+from analysis.figures.style import (  # noqa: F401 - re-exported for older imports
+    DIVERGING,
+    FONT,
+    MISSING_COLOUR,
+    PALETTE,
+    SEQUENTIAL,
+    apply_style,
+)
 from analysis.plain import fraction_text, row_id
 
-# Label colours, chosen to stay apart from each other on white and in print.
-PALETTE = ("#2b6cb0", "#d9822b", "#2f9e72", "#c0392b", "#7b5ea7", "#8c6d46", "#d35d9a",
-           "#5f6b73", "#a6a21f", "#1f9bb0", "#e0b43a", "#4a4fb5")
-MISSING_COLOUR = "#b8bec4"
-# Numbers: pale gold through teal to deep indigo, readable at both ends on white.
-SEQUENTIAL = [[0.0, "#e3c94f"], [0.5, "#3f9c8f"], [1.0, "#2c3270"]]
-# Signed differences: blue below, near-white at zero, red above.
-DIVERGING = [[0.0, "#2b6cb0"], [0.5, "#f4f4f2"], [1.0, "#c0392b"]]
-FONT = "Helvetica Neue, Helvetica, Arial, sans-serif"
 # More distinct labels than this are drawn as the most common ones plus "other".
 MAX_LABELS = 20
 # Past this many points the scatter uses WebGL.
@@ -38,29 +36,6 @@ WEBGL_POINTS = 5000
 # Loadings drawn: the features with the largest weights.
 MAX_LOADINGS = 25
 MAX_COMPONENTS = 20
-
-
-def apply_style(figure: go.Figure, *, title: str, x_title: str = "", y_title: str = "",
-                legend_title: str = "") -> go.Figure:
-    """Our plain look: white background, light grid, readable type, nothing borrowed."""
-    axis = dict(showgrid=True, gridcolor="#e8eaed", zeroline=False, linecolor="#9aa0a6",
-                automargin=True,
-                ticks="outside", tickcolor="#9aa0a6", title_font=dict(size=14),
-                tickfont=dict(size=12))
-    figure.update_layout(
-        template="none",
-        title=dict(text=title, x=0.01, xanchor="left", font=dict(size=17, color="#1f2328")),
-        font=dict(family=FONT, size=13, color="#1f2328"),
-        paper_bgcolor="white", plot_bgcolor="white",
-        margin=dict(l=70, r=30, t=60, b=60),
-        legend=dict(title=dict(text=legend_title), bgcolor="rgba(255,255,255,0.85)",
-                    bordercolor="#dfe2e5", borderwidth=1, font=dict(size=12)),
-        hoverlabel=dict(bgcolor="white", bordercolor="#9aa0a6", font=dict(family=FONT,
-                                                                           size=12)),
-    )
-    figure.update_xaxes(title_text=x_title, **axis)
-    figure.update_yaxes(title_text=y_title, **axis)
-    return figure
 
 
 def figures(result, table=None, color_by: str | None = None, hover=(), clustering=None,

@@ -11,10 +11,13 @@ from __future__ import annotations
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.figures.style import PALETTE, apply_style
 
 MAX_POINTS = 20_000
-CLASS_COLOURS = ("#1f77b4", "#d62728", "#2ca02c", "#ff7f0e", "#9467bd", "#8c564b", "#e377c2",
-                 "#7f7f7f", "#bcbd22", "#17becf")
+CLASS_COLOURS = PALETTE
+GREY = "#8a939b"
+# Shares from 0 to 1: near-white to our blue.
+SHARE_SCALE = [[0.0, "#f7f8fa"], [1.0, PALETTE[0]]]
 
 
 def figures(result, table=None, **options) -> list:
@@ -55,12 +58,12 @@ def confusion_figure(result):
             for i in range(len(labels))]
     figure = go.Figure(go.Heatmap(
         z=share, x=labels, y=labels, text=text, texttemplate="%{text}",
-        colorscale="Blues", zmin=0, zmax=1, colorbar={"title": "share of row"},
+        colorscale=SHARE_SCALE, zmin=0, zmax=1, colorbar={"title": "share of row"},
         hovertemplate="actual %{y}<br>predicted %{x}<br>%{text}<extra></extra>"))
-    figure.update_layout(
-        title=f"{result.target}: confusion matrix on the {result.test_rows} test rows",
-        xaxis_title="predicted class", yaxis_title="actual class",
-        yaxis={"autorange": "reversed", "type": "category"}, xaxis={"type": "category"})
+    apply_style(figure, title=f"{result.target}: confusion matrix on the {result.test_rows} "
+                "test rows", x_title="predicted class", y_title="actual class")
+    figure.update_layout(yaxis={"autorange": "reversed", "type": "category", "showgrid": False},
+                         xaxis={"type": "category", "showgrid": False})
     return figure
 
 
@@ -75,19 +78,19 @@ def learning_curve_figure(result):
     metric = "R^2" if points and points[0]["metric"] == "r2" else "Matthews correlation"
     figure = go.Figure()
     figure.add_trace(go.Scatter(x=x + x[::-1], y=list(mean + std) + list((mean - std)[::-1]),
-                                fill="toself", fillcolor="rgba(31,119,180,0.2)",
-                                line={"width": 0, "color": "#1f77b4"}, hoverinfo="skip",
+                                fill="toself", fillcolor="rgba(43,108,176,0.18)",
+                                line={"width": 0, "color": PALETTE[0]}, hoverinfo="skip",
                                 name="mean +- 1 sd"))
     figure.add_trace(go.Scatter(
         x=x, y=mean, mode="lines+markers", name=f"test {metric}",
-        line={"color": "#1f77b4"}, marker={"color": "#1f77b4"},
+        line={"color": PALETTE[0]}, marker={"color": PALETTE[0]},
         customdata=[[p["train_rows"], p["std"]] for p in points],
         hovertemplate=("training fraction %{x}<br>%{customdata[0]} training rows<br>"
                        f"{metric} " + "%{y:.3f} +- %{customdata[1]:.3f}<extra></extra>")))
     figure.add_hline(y=0, line_dash="dot", annotation_text="chance",
                      annotation_position="bottom right")
-    figure.update_layout(title=f"{result.target}: learning curve", xaxis_title=
-                         "training fraction", yaxis_title=f"test {metric}")
+    apply_style(figure, title=f"{result.target}: learning curve", x_title="training fraction",
+                y_title=f"test {metric}")
     return figure
 
 
@@ -115,7 +118,7 @@ def chance_figure(result):
         error_plus = [high - m["r2"], 0]
         error_minus = [m["r2"] - low, 0]
         statistic = "R^2"
-    colours = ["#1f77b4", "#7f7f7f", "#1f77b4", "#2ca02c"][: len(names)]
+    colours = [PALETTE[0], GREY, PALETTE[0], PALETTE[2]][: len(names)]
     figure.add_trace(go.Bar(
         x=names, y=values, marker_color=colours, showlegend=False,
         error_y={"type": "data", "symmetric": False, "array": error_plus,
@@ -124,22 +127,22 @@ def chance_figure(result):
     scores = np.asarray(result.permutation_scores, dtype=float)
     if len(scores):
         figure.add_trace(go.Histogram(x=scores, nbinsx=min(40, max(5, len(scores) // 5)),
-                                      marker_color="#7f7f7f", name="permuted labels",
+                                      marker_color=GREY, name="permuted labels",
                                       hovertemplate="%{x}: %{y} permutations<extra></extra>"),
                          row=1, col=2)
         observed = result.permutation_observed
         if observed is not None:
-            figure.add_vline(x=observed, line_color="#d62728", row=1, col=2,
+            figure.add_vline(x=observed, line_color=PALETTE[3], row=1, col=2,
                              annotation_position="top left",
                              annotation_text=f"observed {observed:.3f}, "
                                              f"p = {result.permutation_p:.3g}")
     else:
         figure.add_annotation(text="no permutation test", showarrow=False, row=1, col=2,
                               x=0.5, y=0.5, xref="x2 domain", yref="y2 domain")
+    apply_style(figure, title=f"{result.target}: beats chance: {result.beats_chance_text}")
     figure.update_xaxes(title_text=f"test {statistic}", row=1, col=2)
     figure.update_yaxes(title_text="permutations", row=1, col=2)
-    figure.update_layout(title=f"{result.target}: beats chance: {result.beats_chance_text}",
-                         bargap=0.2)
+    figure.update_layout(bargap=0.2)
     return figure
 
 
@@ -188,15 +191,14 @@ def decision_figure(result, table=None, *, feature: str | None = None,
             hovertemplate=("row %{customdata[0]}<br>score %{y:.4g}<br>" + x_title
                            + " %{x}" + ("<br>%{text}" if hover_text is not None else "")
                            + "<extra></extra>")))
-    figure.add_hline(y=0, line_dash="dash", line_color="black",
+    figure.add_hline(y=0, line_dash="dash", line_color="#1f2328",
                      annotation_text="threshold", annotation_position="top left")
     sampled = f" (a sample of {len(shown)} of {n} rows)" if len(shown) < n else ""
     equation = _equation_for(result, class_label)
     if equation:
         sampled += f"<br><sup>{_escape(equation)}</sup>"
-    figure.update_layout(title=f"{result.target}: decision score{column_word}{sampled}",
-                         xaxis_title=x_title, yaxis_title=decision.source,
-                         legend_title="actual class")
+    apply_style(figure, title=f"{result.target}: decision score{column_word}{sampled}",
+                x_title=x_title, y_title=decision.source, legend_title="actual class")
     return figure
 
 
@@ -217,17 +219,17 @@ def predicted_figure(result, table=None, *, hover: list[str] | None = None,
         shown = np.sort(np.random.default_rng(0).choice(n, max_points, replace=False))
     hover_text = _hover_text(table, decision.rows[shown], hover)
     figure.add_trace(go.Scattergl(
-        x=actual[shown], y=predicted[shown], mode="markers", marker={"size": 5},
+        x=actual[shown], y=predicted[shown], mode="markers",
+        marker={"size": 5, "color": PALETTE[0], "opacity": 0.7},
         customdata=np.array([_plain_id(v) for v in decision.row_ids[shown]],
                             dtype=object)[:, None], text=hover_text, name="rows",
         hovertemplate="row %{customdata[0]}<br>actual %{x}<br>predicted %{y:.4g}"
                       + ("<br>%{text}" if hover_text is not None else "") + "<extra></extra>"))
     low, high = float(np.min(actual)), float(np.max(actual))
     figure.add_trace(go.Scatter(x=[low, high], y=[low, high], mode="lines",
-                                line={"dash": "dash", "color": "black"}, name="y = x"))
-    figure.update_layout(title=f"{result.target}: predicted against actual",
-                         xaxis_title=f"actual {result.target}",
-                         yaxis_title=f"predicted {result.target}")
+                                line={"dash": "dash", "color": "#1f2328"}, name="y = x"))
+    apply_style(figure, title=f"{result.target}: predicted against actual",
+                x_title=f"actual {result.target}", y_title=f"predicted {result.target}")
     return figure
 
 
