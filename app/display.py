@@ -7,6 +7,7 @@ from fractions import Fraction
 
 import numpy as np
 import pandas as pd
+import streamlit as st
 
 # Widest a cell of a listed row is shown before it is shortened.
 CELL_WIDTH = 80
@@ -123,3 +124,10 @@ def linear_latex(terms, relation: str, constant) -> str:
             parts.append(f"{'+' if coef > 0 else '-'} {body}")
     symbol = {"=": "=", "<=": r"\leq", ">=": r"\geq"}.get(relation, relation)
     return f"{' '.join(parts) or '0'} {symbol} {_latex_number(constant)}"
+
+
+def notes(lines) -> None:
+    """A step's notes (what was sampled, scaled, dropped or approximated) as one quiet line."""
+    lines = [str(line).strip().rstrip(".") for line in lines if str(line).strip()]
+    if lines:
+        st.caption("Notes: " + "; ".join(lines) + ".")

@@ -49,9 +49,17 @@ def show_figures(result, table, key: str, *, vector: bool = False, **options) ->
         st.error(f"The picture could not be drawn ({type(exc).__name__}: {exc}). The numbers "
                  "below are unaffected.")
         return
-    for number, (title, figure) in enumerate(figures):
-        show_figure(figure, f"{key}.fig{number}", title=title, table=table,
-                    vector=vector, hover=options.get("hover"))
+    if not figures:
+        return
+    if len(figures) == 1:
+        places = [st.container()]
+    else:
+        # One picture at a time, the others a click away: the page stays short.
+        places = st.tabs([title for title, _ in figures])
+    for number, ((title, figure), place) in enumerate(zip(figures, places)):
+        with place:
+            show_figure(figure, f"{key}.fig{number}", title=title, table=table,
+                        vector=vector)
 
 
 def row_traces(figure, table) -> set[int]:
@@ -71,8 +79,7 @@ def row_traces(figure, table) -> set[int]:
     return found
 
 
-def show_figure(figure, key: str, *, title: str, table=None, vector: bool = False,
-                hover: list[str] | None = None) -> None:
+def show_figure(figure, key: str, *, title: str, table=None, vector: bool = False) -> None:
     name = slug(title)
     traces = row_traces(figure, table) if table is not None else set()
     if traces:

@@ -81,5 +81,4 @@ def show(ctx: settings.StepContext, result) -> None:
                 "silhouette": e.silhouette, "BIC": e.bic, "clusters": e.clusters,
                 "noise": e.noise} for e in result.sweep]),
                 hide_index=True, key=ctx.key("sweep"))
-    for note in result.notes:
-        st.caption(note)
+    display.notes(result.notes)

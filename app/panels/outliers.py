@@ -62,5 +62,4 @@ def show(ctx: settings.StepContext, result) -> None:
         st.dataframe(display.rows_frame(table, ids), hide_index=True,
                      key=ctx.key("picked"))
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
-    for note in result.notes:
-        st.caption(note)
+    display.notes(result.notes)

@@ -68,8 +68,7 @@ def show(ctx: settings.StepContext, result) -> None:
             words = ", ".join(f"`{name}` ({w[index]:+.2f})" for name, w in top)
             lines.append(f"- {axis}, the {result.axis_titles[index]}, is mostly {words}")
         st.markdown("\n".join(lines))
-    for note in result.notes:
-        st.caption(note)
+    display.notes(result.notes)
 
 
 def view_options(ctx: settings.StepContext, table, target: str | None,

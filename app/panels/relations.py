@@ -77,8 +77,7 @@ def show(ctx: settings.StepContext, result) -> None:
     _rows_of_choice(ctx, table, result, nearly)
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
     st.caption(result.caveat)
-    for note in result.notes:
-        st.caption(note)
+    display.notes(result.notes)
 
 
 def _statement(terms, relation: str, constant, text: str) -> None:

@@ -130,8 +130,7 @@ def show(ctx: settings.StepContext, result) -> None:
             st.dataframe(pd.DataFrame([{k: display.cell(v) for k, v in m.items()}
                                        for m in result.mispredicted]),
                          hide_index=True, key=ctx.key("mispredicted"))
-    for note in result.notes:
-        st.caption(note)
+    display.notes(result.notes)
 
 
 ROW_ORDER = "(row order)"

@@ -100,12 +100,13 @@ def _choose(page, label: str, option: str) -> None:
 
 
 def _settle(page) -> None:
-    """Wait until the script run the last action started has finished."""
-    page.wait_for_timeout(500)
-    page.wait_for_function(
-        "() => !document.querySelector('[data-testid=\"stStatusWidget\"]')"
-        " || !document.querySelector('[data-testid=\"stStatusWidget\"]').innerText"
-        ".includes('Running')", timeout=STEP_TIMEOUT_MS)
+    """Wait until the script run the last action started has finished: streamlit marks the
+    elements of the previous run stale until the new run has drawn them again."""
+    page.wait_for_timeout(1000)
+    quiet = "() => document.querySelectorAll('[data-stale=\"true\"]').length === 0"
+    for _ in range(2):
+        page.wait_for_function(quiet, timeout=STEP_TIMEOUT_MS)
+        page.wait_for_timeout(1000)
 
 
 @pytest.mark.browser
