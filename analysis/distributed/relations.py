@@ -38,6 +38,8 @@ SAMPLE_ROWS = 20_000
 _BOUNDS_LOCK = threading.Lock()
 # Distinct points of a triple counted exactly (past this, the triple counts as crowded).
 DISTINCT_POINTS_CAP = 250_000
+# Pairs and triples whose values span at most this many cells are handled on a grid.
+GRID_CELLS = 4_000_000
 _INT64_SAFE = 2**62
 
 
@@ -199,11 +201,15 @@ def _pass_a(frame, offset: int, spec: _Spec) -> dict:
                 out["breakers"][int(used_positions[rows[first[i]]])] = \
                     [int(x) for x in distinct[i]]
     index = {n: j for j, n in enumerate(spec.exact)}
+    columns = {n: np.ascontiguousarray(values[:, index[n]]) for n in set(spec.pairs)}
+    absent = {n: missing[:, index[n]] for n in set(spec.pairs)}
     pairs = {}
     for a, b in combinations(spec.pairs, 2):
-        ia, ib = index[a], index[b]
-        present = ~(missing[:, ia] | missing[:, ib])
-        pairs[(a, b)] = _column_extremes(values[present, ia], values[present, ib])
+        x, y = columns[a], columns[b]
+        gone = absent[a] | absent[b]
+        if gone.any():
+            x, y = x[~gone], y[~gone]
+        pairs[(a, b)] = _column_extremes(x, y, spec.ranges[a], spec.ranges[b])
     out["pairs"] = pairs
     triples = {}
     for combo in combinations(spec.triples, 3):
@@ -216,10 +222,21 @@ def _pass_a(frame, offset: int, spec: _Spec) -> dict:
     return out
 
 
-def _column_extremes(x: np.ndarray, y: np.ndarray):
+def _column_extremes(x: np.ndarray, y: np.ndarray, x_range, y_range):
     """For each distinct x: least and greatest y (as three aligned arrays)."""
     if len(x) == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64)
+    wx, wy = x_range[1] - x_range[0] + 1, y_range[1] - y_range[0] + 1
+    if wx * wy <= GRID_CELLS:
+        # a grid of the pairs present: linear in the rows, no sorting
+        grid = np.zeros(wx * wy, dtype=bool)
+        grid[(x - x_range[0]) * wy + (y - y_range[0])] = True
+        grid = grid.reshape(wx, wy)
+        has = grid.any(axis=1)
+        low = grid.argmax(axis=1)
+        high = wy - 1 - grid[:, ::-1].argmax(axis=1)
+        xs = np.flatnonzero(has)
+        return xs + x_range[0], low[has] + y_range[0], high[has] + y_range[0]
     order = np.lexsort((y, x))
     xs, ys = x[order], y[order]
     starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
@@ -242,19 +259,31 @@ def _merge_extremes(a, b):
 
 
 def _triple_corners(points: np.ndarray, lows: np.ndarray, widths: np.ndarray):
-    """Corner candidates of a triple's hull, and its distinct points as int64 keys (or None
-    when the columns are too wide for one key)."""
+    """Corner candidates of a triple's hull, and its distinct points as sorted int64 keys (or
+    None when the columns are too wide for one key)."""
     if len(points) == 0:
         return np.zeros((0, 3), np.int64), np.zeros(0, dtype=np.int64)
-    if float(np.prod(widths.astype(np.float64))) < 2**62:
-        shifted = points - lows
-        keys = np.unique((shifted[:, 0] * widths[1] + shifted[:, 1]) * widths[2] + shifted[:, 2])
-        rest, z = np.divmod(keys, widths[2])
-        x, y = np.divmod(rest, widths[1])
-        unique = np.column_stack([x, y, z]) + lows
-        return _hull_corners(unique), keys if len(keys) <= DISTINCT_POINTS_CAP else None
+    cells = int(np.prod(widths.astype(object)))
+    if cells <= GRID_CELLS:
+        grid = np.zeros(cells, dtype=bool)
+        grid[_keys(points, lows, widths)] = True
+        keys = np.flatnonzero(grid)
+        cube = grid.reshape(tuple(int(w) for w in widths))
+        # over each (x, y) only the least and greatest z can be a corner
+        has = cube.any(axis=2)
+        xs, ys = np.nonzero(has)
+        low = cube.argmax(axis=2)[has]
+        high = int(widths[2]) - 1 - cube[:, :, ::-1].argmax(axis=2)[has]
+        other = high != low
+        candidates = np.concatenate([np.column_stack([xs, ys, low]),
+                                     np.column_stack([xs[other], ys[other], high[other]])])
+        return _hull_corners(candidates + lows), \
+            keys if len(keys) <= DISTINCT_POINTS_CAP else None
     unique = np.unique(points, axis=0)
-    return _hull_corners(unique), None
+    keys = _keys(unique, lows, widths)
+    if keys is not None and len(keys) > DISTINCT_POINTS_CAP:
+        keys = None
+    return _hull_corners(unique), keys
 
 
 def _hull_corners(unique: np.ndarray) -> np.ndarray:
@@ -283,9 +312,18 @@ def _merge_a(a: dict, b: dict) -> dict:
     for k in a["triples"]:
         corners = np.unique(np.vstack([a["triples"][k][0], b["triples"][k][0]]), axis=0)
         keys_a, keys_b = a["triples"][k][1], b["triples"][k][1]
-        keys = None if keys_a is None or keys_b is None else np.union1d(keys_a, keys_b)
-        if keys is not None and len(keys) > DISTINCT_POINTS_CAP:
-            keys = None
+        keys = None
+        if keys_a is not None and keys_b is not None:
+            joined = np.concatenate([keys_a, keys_b])
+            top = int(joined.max(initial=-1)) + 1
+            if top <= GRID_CELLS:
+                grid = np.zeros(top, dtype=bool)
+                grid[joined] = True
+                keys = np.flatnonzero(grid)
+            else:
+                keys = np.union1d(keys_a, keys_b)
+            if len(keys) > DISTINCT_POINTS_CAP:
+                keys = None
         triples[k] = (_hull_corners(corners), keys)
     return {"used": a["used"] + b["used"], "breakers": breakers, "pairs": pairs,
             "triples": triples}
@@ -357,17 +395,26 @@ def _locate(frame, offset: int, spec: _Spec, wanted: dict, positions: np.ndarray
         if not len(points):
             continue
         cols = [index[c] for c in columns]
-        rows = np.flatnonzero(~missing[:, cols].any(axis=1))
+        gone = missing[:, cols].any(axis=1)
+        rows = np.flatnonzero(~gone) if gone.any() else None
+        block = values[:, cols] if rows is None else values[rows][:, cols]
         lows = np.array([spec.ranges[c][0] for c in columns], dtype=np.int64)
         widths = np.array([spec.ranges[c][1] - spec.ranges[c][0] + 1 for c in columns],
                           dtype=np.int64)
-        row_keys = _keys(values[rows][:, cols], lows, widths)
+        row_keys = _keys(block, lows, widths)
         point_keys = _keys(points, lows, widths)
         if row_keys is None or point_keys is None:
             continue   # too wide for one key; these columns have no bounds worth a row
-        hit = np.flatnonzero(np.isin(row_keys, point_keys))
+        cells = int(np.prod(widths.astype(object)))
+        if cells <= GRID_CELLS:
+            wanted_cells = np.zeros(cells, dtype=bool)
+            wanted_cells[point_keys] = True
+            hit = np.flatnonzero(wanted_cells[row_keys])
+        else:
+            hit = np.flatnonzero(np.isin(row_keys, point_keys))
         _, first = np.unique(row_keys[hit], return_index=True)
-        picked.update(rows[hit[first]].tolist())
+        found = hit[first] if rows is None else rows[hit[first]]
+        picked.update(found.tolist())
     inside = positions[(positions >= offset) & (positions < offset + len(frame))] - offset
     picked.update(inside.tolist())
     chosen = np.array(sorted(picked), dtype=np.int64)
@@ -423,9 +470,12 @@ def _pass_b(frame, offset: int, spec: _Spec, id_column):
     index = {n: i for i, n in enumerate(spec.exact)}
     for coefs, columns, limit, near_limit in spec.bounds:
         cols = [index[c] for c in columns]
-        present = ~missing[:, cols].any(axis=1)
-        lhs = _combine(values[present][:, cols], coefs)
-        these = ids[present]
+        gone = missing[:, cols].any(axis=1)
+        lhs = _combine(values[:, cols], coefs)
+        these = ids
+        present = ~gone
+        if gone.any():
+            lhs, these = lhs[present], ids[present]
         attained = np.flatnonzero(lhs == limit)
         broken = np.flatnonzero(lhs > limit)
         slack = limit - lhs
