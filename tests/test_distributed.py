@@ -205,6 +205,19 @@ def test_pca_ratios_and_coordinates_equal_in_memory(client, mixed):
     assert any("ran on a Dask cluster" in note for note in result.notes)
 
 
+def test_imputed_missing_values_use_the_median_of_every_row(client, mixed):
+    folder, whole = mixed
+    step = ProjectionStep(method="pca", columns=["a", "c", "kind"], missing="impute")
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert len(result.row_ids) == 1200
+    np.testing.assert_allclose(result.explained_variance_ratio,
+                               expected.explained_variance_ratio, atol=1e-9)
+    np.testing.assert_allclose(result.x, expected.x, atol=1e-8)
+    assert any("filled 1 missing feature cells with the column median" in note
+               for note in result.notes)
+
+
 def test_pca_of_iris_matches_the_documented_ratios(client, tmp_path):
     datasets = pytest.importorskip("sklearn.datasets")
     iris = datasets.load_iris(as_frame=True).data

@@ -7,14 +7,7 @@ import functools
 
 import numpy as np
 
-from analysis.distributed.matrix import (
-    FeaturePlan,
-    add_counts,
-    block_counts,
-    feature_blocks,
-    feature_notes,
-    feature_plan,
-)
+from analysis.distributed.matrix import FeaturePlan, feature_blocks, feature_plan
 
 # Distinct values a column's median is computed from exactly; past this, from a sample.
 MEDIAN_CAP = 100_000
@@ -31,8 +24,6 @@ class Context:
 
     def compute(self, items):
         """Compute dask objects on the cluster and return their values (a list for a list)."""
-        if isinstance(items, list):
-            return self.client.gather(self.client.compute(items))
         return self.client.gather(self.client.compute(items))
 
     def engine_note(self) -> str:
@@ -77,14 +68,6 @@ def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invaria
 def blocks_for(ctx: Context, plan: FeaturePlan, *, persist: bool | None = None) -> list:
     """One dask object per partition holding its feature block."""
     return feature_blocks(ctx.table, plan, ctx.client, persist=persist)
-
-
-def counts_and_notes(ctx: Context, plan: FeaturePlan, blocks: list) -> tuple[dict, list[str]]:
-    """Row counts summed over partitions, and build_features' notes from them."""
-    from dask import delayed
-
-    counts = ctx.compute(tree([delayed(block_counts)(b) for b in blocks], add_counts))
-    return counts, feature_notes(plan, counts, ctx.table.n_rows)
 
 
 def _medians(ctx: Context, plan: FeaturePlan) -> dict:
@@ -166,4 +149,4 @@ def with_notes(result, extra: list[str]):
     return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
 
 
-__all__ = ["Context", "blocks_for", "counts_and_notes", "plan_for", "tree", "with_notes"]
+__all__ = ["Context", "blocks_for", "plan_for", "tree", "with_notes"]

@@ -836,10 +836,5 @@ def as_table(table: PartitionedTable, frame: pd.DataFrame, positions: np.ndarray
                  warnings=table.warnings, id_column=id_column, format=table.format)
 
 
-def partition_positions(frame: pd.DataFrame, offset: int) -> np.ndarray:
-    """Global positions of the rows of one partition starting at ``offset``."""
-    return np.arange(offset, offset + len(frame), dtype=np.int64)
-
-
 __all__ = ["PartitionedTable", "as_table", "read_partitioned", "row_column_name",
            "sample_table", "typed_partition", "with_roles"]
