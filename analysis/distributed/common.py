@@ -26,6 +26,11 @@ class Context:
         """Compute dask objects on the cluster and return their values (a list for a list)."""
         return self.client.gather(self.client.compute(items))
 
+    def share(self, value):
+        """``value`` sent once to every worker (a future to pass to tasks), so that a large
+        object, such as a fitted model, is not copied into every task of a graph."""
+        return self.client.scatter(value, broadcast=True, hash=False)
+
     def engine_note(self) -> str:
         try:
             workers = len(self.client.scheduler_info(n_workers=-1)["workers"])

@@ -98,7 +98,8 @@ def run_outliers(step, ctx: Context):
     spec = _Score(models=models, assigner=clusters.assigner, order=clusters.order,
                   typical=typical, sizes=sizes, n=n, shift=shift, scale=scale,
                   separator=separator, lof_rows=lof_rows, offsets=offsets)
-    scored = ctx.compute([delayed(_score_block)(b, k, spec) for k, b in enumerate(blocks)])
+    shared = ctx.share(spec)   # fitted models: sent to each worker once, not per task
+    scored = ctx.compute([delayed(_score_block)(b, k, shared) for k, b in enumerate(blocks)])
     positions = np.concatenate([s["positions"] for s in scored])
     row_ids = np.concatenate([s["row_ids"] for s in scored])
     measures = {name: np.concatenate([s[name] for s in scored])
