@@ -90,13 +90,14 @@ def show_figure(figure, key: str, *, title: str, table=None, vector: bool = Fals
     else:
         st.plotly_chart(figure, key=key, theme=None, config=chart_config(name))
     if vector:
-        left, right, _ = st.columns([1, 1, 4])
-        left.download_button("SVG", data=lambda f=figure: f.to_image(format="svg"),
-                             file_name=f"{name}.svg", mime="image/svg+xml",
-                             key=f"{key}.svg", icon=":material/download:")
-        right.download_button("PDF", data=lambda f=figure: f.to_image(format="pdf"),
-                              file_name=f"{name}.pdf", mime="application/pdf",
-                              key=f"{key}.pdf", icon=":material/download:")
+        row = st.container(horizontal=True, gap="small", vertical_alignment="center")
+        row.caption("Save this picture as")
+        row.download_button("SVG", data=lambda f=figure: f.to_image(format="svg"),
+                            file_name=f"{name}.svg", mime="image/svg+xml",
+                            key=f"{key}.svg", icon=":material/download:", on_click="ignore")
+        row.download_button("PDF", data=lambda f=figure: f.to_image(format="pdf"),
+                            file_name=f"{name}.pdf", mime="application/pdf",
+                            key=f"{key}.pdf", icon=":material/download:", on_click="ignore")
 
 
 def selected_ids(event, traces: set[int] | None = None) -> list:

@@ -36,6 +36,7 @@ def main() -> None:
         st.divider()
         share.share_panel()
     table_section.table_header()
+    _digest_warning()
     pg = state.page()
     for notice in pg.notices:
         kind, _, text = notice.partition(":")
@@ -46,6 +47,16 @@ def main() -> None:
     st.caption(CAVEAT)
     study_section.show_study()
     _warm_up_umap()
+
+
+def _digest_warning() -> None:
+    """Say so when the study was saved with other bytes than the table on the page."""
+    study = state.study()
+    table = state.table_state().base
+    if study.table_digest and study.table_digest != table.digest:
+        st.warning(f"This study was saved with a table whose contents differ from "
+                   f"{table.name} (sha256 {study.table_digest[:12]}… against "
+                   f"{table.digest[:12]}…); its numbers may differ from the saved ones.")
 
 
 def _warm_up_umap() -> None:

@@ -38,7 +38,8 @@ def share_panel() -> None:
     name = slug(study.title or table_state.name)
     st.download_button("Download the study", data=study_text(study),
                        file_name=f"{name}.study.json", mime="application/json",
-                       key="share.study", icon=":material/download:", width="stretch",
+                       key="share.study", icon=":material/download:", on_click="ignore",
+                       width="stretch",
                        help="A small JSON file: the table's name and digest, its roles, and "
                             "every step with its settings and seed. Open it here again, or "
                             "re-run it with `python -m analysis run`.")
@@ -46,7 +47,7 @@ def share_panel() -> None:
     st.download_button("Download the report (HTML)",
                        data=lambda: report_bytes(study, table_state.base, cache),
                        file_name=f"{name}.html", mime="text/html", key="share.report",
-                       icon=":material/description:", width="stretch",
+                       icon=":material/description:", on_click="ignore", width="stretch",
                        help="One self-contained page with every step's numbers and "
                             "figures; it opens offline.")
     opened = st.file_uploader("Open a study", type=["json"], key="share.open",
@@ -67,9 +68,10 @@ def share_panel() -> None:
         pg.study_upload_id = None
     if pg.study_error:
         st.error(pg.study_error)
-    st.toggle("SVG and PDF downloads for figures", key="share.vector",
-              help="Every figure's toolbar has a camera button for PNG. SVG and PDF are "
-                   "drawn by kaleido, which needs chromium.")
+    st.caption("Every picture's toolbar has a camera button that saves it as PNG.")
+    st.toggle("Also offer SVG and PDF", key="share.vector",
+              help="Drawn by kaleido, which needs chromium; each picture then gets SVG "
+                   "and PDF buttons. A picture takes a few seconds to draw this way.")
     if st.session_state.get("share.vector"):
         problem = vector_export_problem()
         if problem:

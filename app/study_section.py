@@ -139,13 +139,15 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
         error = pg.errors.get(key)
         if result is None:
             place = st.empty()
-            clicked = place.button("Run this step", key=f"s{uid}.run", type="primary",
-                                   icon=":material/play_arrow:")
-            if clicked or (run_all and error is None):
-                result, error = _run(step, table, key)
+            # A click of the run action arrives before the button is drawn again: run in
+            # the button's place, and draw it only when the step still has no result.
+            asked = bool(st.session_state.get(f"s{uid}.run"))
+            if asked or (run_all and error is None):
+                result, error = _run(step, table, key, place)
                 ran = True
-                if result is not None:
-                    place.empty()
+            if result is None:
+                place.button("Run this step", key=f"s{uid}.run", type="primary",
+                             icon=":material/play_arrow:")
         if error:
             st.error(error)
         elif result is None:
@@ -159,14 +161,14 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
     return ran
 
 
-def _run(step, table, key: str):
-    """Run one step through the study runner (its cache and its error messages)."""
+def _run(step, table, key: str, place):
+    """Run one step through the study runner (its cache and its error messages), showing
+    what it does in ``place`` meanwhile."""
     pg = state.page()
     label = f"{step.display_title}: {RUNNING.get(step.kind, 'running')}"
     umap = step.kind == "projection" and step.params.get("method") == "umap"
     if umap:
         label = _umap_label(step.display_title) or label
-    place = st.empty()
     with place.status(label + "…", expanded=False) as box:
         outcome = run_step(step, table, cache=state.cache())
         box.update(label=f"{step.display_title}: done in {outcome.elapsed_seconds:.1f} s",

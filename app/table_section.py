@@ -49,7 +49,7 @@ def table_picker() -> None:
     else:
         _upload_box(pg)
     if pg.load_error:
-        st.error(pg.load_error)
+        st.caption(":red[This file could not be read; the message is at the top of the page.]")
 
 
 def _sample_picker(pg) -> None:

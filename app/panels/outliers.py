@@ -55,6 +55,7 @@ def show(ctx: settings.StepContext, result) -> None:
     right.download_button("Download the list (CSV)", data=csv_text(frame),
                           file_name=f"{slug(table.name)}-objects-to-look-at.csv",
                           mime="text/csv", key=ctx.key("csv"), icon=":material/download:",
+                          on_click="ignore",
                           width="stretch")
     picked = list(getattr(getattr(event, "selection", None), "rows", []) or [])
     if picked:

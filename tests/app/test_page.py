@@ -319,3 +319,53 @@ def test_a_broken_study_file_is_refused_with_a_message():
     assert not at.exception
     assert any("bad.study.json" in e and "version" in e for e in texts(at.error))
     assert study(at) is before
+
+
+def test_a_study_opened_on_a_changed_table_says_the_numbers_may_differ():
+    first = open_page("quadratic_fields.csv")
+    upload(first, "iris.csv", iris_csv())
+    saved = share.study_text(study(first))
+
+    changed = iris_csv().replace(b"5.1,3.5,1.4,0.2", b"5.2,3.5,1.4,0.2", 1)
+    assert changed != iris_csv()
+    second = open_page("quadratic_fields.csv")
+    upload(second, "iris.csv", changed)
+    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
+                                                 "application/json")
+    second.run()
+    assert not second.exception
+    warnings = texts(second.warning)
+    assert any("differ" in w and "iris.csv" in w for w in warnings), warnings
+    assert all(r is not None for r in results(second))
+
+
+def test_a_study_of_a_table_not_on_the_page_runs_on_the_loaded_one_and_says_so():
+    first = open_page("quadratic_fields.csv")
+    upload(first, "iris.csv", iris_csv())
+    saved = share.study_text(study(first))
+
+    second = open_page("quadratic_fields.csv")
+    upload(second, "other_flowers.csv", iris_csv().replace(b"5.1,", b"5.0,", 1))
+    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
+                                                 "application/json")
+    second.run()
+    assert not second.exception
+    assert any("iris.csv" in i and "not loaded" in i for i in texts(second.info))
+    assert table(second).name == "other_flowers.csv"
+    assert all(r is not None for r in results(second))
+
+
+def test_a_study_whose_roles_do_not_fit_the_table_is_refused():
+    first = open_page("quadratic_fields.csv")
+    upload(first, "iris.csv", iris_csv())
+    saved = share.study_text(study(first))  # names its id column, flower
+
+    second = open_page("graphs_up_to_7.csv")
+    before = study(second)
+    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
+                                                 "application/json")
+    second.run()
+    assert not second.exception
+    errors = texts(second.error)
+    assert any("flower" in e and "graphs_up_to_7.csv" in e for e in errors), errors
+    assert study(second) is before
