@@ -61,6 +61,9 @@ _ID_NAMES = {"id", "name", "label", "key", "index"}
 _MISSING_WORDS = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
 # The header is looked for in this many leading characters of a delimited file.
 _HEADER_CHARS = 64 * 1024 * 1024
+# Up to this many retyped columns are replaced one by one in the parsed frame; past it, one
+# new frame is built (a replacement costs a lookup over the frame's columns).
+_REPLACED_COLUMNS = 64
 
 
 @dataclass(frozen=True)
@@ -721,17 +724,24 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
     # one pass over the columns, and one new frame at the end: per-column lookups and
     # assignments on a frame with thousands of columns would dominate the loading time
     typed: dict[str, pd.Series] = {}
-    changed = False
-    for column, series in frame.items():
+    changed: list[int] = []
+    for position, (column, series) in enumerate(frame.items()):
         if column in as_text:
             values, dtype, note = _as_text(series, name, column, limits)
         else:
             values, dtype, note = _type_one(series, name, column, limits)
         typed[column] = series if values is None else values
-        changed = changed or values is not None
+        if values is not None:
+            changed.append(position)
         infos.append((column, dtype, note))
-    if changed:
+    if len(changed) > _REPLACED_COLUMNS:
         frame = pd.DataFrame(typed, index=frame.index)
+    elif changed:
+        # a few columns retyped (0/1 integers read as flags, say): replace just those, and
+        # leave the others where they are rather than copying the whole table once more
+        frame = frame.copy(deep=False)
+        for position in changed:
+            frame.isetitem(position, typed[frame.columns[position]])
     n = len(frame)
     columns = []
     id_taken = False
