@@ -1174,8 +1174,10 @@ def _choose_constant(low, high, denominator: int, relation: str, exact: bool) ->
             return whole if whole > low_q else high_q
         whole = Fraction(math.ceil(low_q))
         return whole if whole < high_q else low_q
+    # Floating-point scores: the simplest rational well inside the gap (a tenth of its width
+    # kept clear on each side), so that rounding the constant to a float moves no row.
     width = high_q - low_q
-    return _simplest_between(low_q + width / 4, high_q - width / 4)
+    return _simplest_between(low_q + width / 10, high_q - width / 10)
 
 
 @dataclass(eq=False)

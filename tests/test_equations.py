@@ -123,6 +123,20 @@ def test_hint_from_a_fitted_separator_is_rounded_to_the_rule():
     assert any("before rounding" in note for note in equation.notes)
 
 
+def test_real_valued_rule_keeps_its_rational_normal():
+    # Planted rule a - 2b >= 0.3 on normally distributed (not exact) values, with two noise
+    # columns: the normal comes back as (1, -2), evaluated in floating point and said so.
+    rng = np.random.default_rng(12)
+    X = rng.normal(size=(800, 4))
+    positive = X[:, 0] - 2 * X[:, 1] >= 0.3
+    equation = find_linear_equation(X, positive, ["a", "b", "noise_0", "noise_1"])
+    assert [(t.feature, t.coef) for t in equation.terms] == [("a", 1), ("b", -2)]
+    assert equation.relation == ">="
+    assert equation.violations == 0
+    assert not equation.exact
+    assert any("floating point" in note for note in equation.notes)
+
+
 def test_max_terms_is_respected():
     # With three terms needed for the exact planted rule, one term is the best allowed.
     X = integer_table(900, 3, seed=5)
