@@ -317,7 +317,10 @@ def _tsne(values: np.ndarray, perplexity: float, seed: int, notes: list[str]) ->
 def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str]) -> np.ndarray:
     global _umap_has_run
     try:
-        import umap
+        from analysis.warmup import import_umap
+
+        # with numba's disk cache set up first, a later process loads UMAP's compiled code
+        umap = import_umap()
     except ImportError:
         raise StepError("UMAP needs the package umap-learn, which is not installed; install "
                         "it (pip install umap-learn) or use PCA or t-SNE.") from None
@@ -329,12 +332,37 @@ def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str]) -> 
         notes.append(UMAP_COMPILE_NOTE)
     # a fixed random_state makes UMAP deterministic only on one thread
     model = umap.UMAP(n_neighbors=usable, n_components=2, random_state=seed, n_jobs=1,
-                      init="spectral" if n > usable + 2 else "random")
+                      init="spectral" if n > usable + 2 else "random",
+                      precomputed_knn=_exact_neighbours(values, usable))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         coordinates = model.fit_transform(values)
     _umap_has_run = True
     return np.asarray(coordinates, dtype=float)
+
+
+def _exact_neighbours(values: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray, None]:
+    """Each row's ``k`` nearest rows (itself included) and their distances, found exactly.
+
+    UMAP's own search is approximate and, in a fresh process, compiles for longer than the
+    whole projection then takes; a brute-force search by scikit-learn is exact, deterministic
+    and, on the 50000-row samples UMAP runs on, faster (bench/RESULTS.md).
+    """
+    from sklearn.neighbors import NearestNeighbors
+
+    index = NearestNeighbors(n_neighbors=k, algorithm="brute").fit(values).kneighbors(
+        values, return_distance=False)
+    # distances recomputed from differences: the search's shortcut through dot products
+    # leaves rounding noise, and UMAP takes each row's nearest non-zero distance as its
+    # scale, so the distance to itself or to a copy of itself must be exactly 0
+    distances = np.empty(index.shape, dtype=np.float64)
+    for start in range(0, len(values), 10_000):
+        block = index[start:start + 10_000]
+        differences = values[block] - values[start:start + 10_000, None, :]
+        distances[start:start + 10_000] = np.sqrt(np.einsum("ijk,ijk->ij", differences,
+                                                            differences))
+    # the types UMAP's own search returns, so the same compiled code serves both
+    return index.astype(np.int32), distances.astype(np.float32), None
 
 
 def _two_columns(scores: np.ndarray) -> np.ndarray:
