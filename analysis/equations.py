@@ -117,7 +117,7 @@ class LinearEquation:
     @property
     def text(self) -> str:
         """Plain text, e.g. ``"2*a - b >= 3"``."""
-        return f"{_format_sum(self.terms)} {self.relation} {_format_fraction(self.constant)}"
+        return f"{_format_sum(self.terms)} {self.relation} {_fraction_text(self.constant)}"
 
     def latex(self) -> str:
         """LaTeX for the inequality, e.g. ``2\\mathrm{a} - \\mathrm{b} \\geq 3``."""
@@ -198,10 +198,10 @@ class Formula:
 
     def latex(self) -> str:
         """LaTeX for the formula."""
-        right = _latex_sum(self.terms) if self.terms else ""
         if not self.terms:
-            right = _latex_number(self.constant)
-        elif self.constant != 0:
+            return f"{_latex_name(self.target)} = {_latex_number(self.constant)}"
+        right = _latex_sum(self.terms)
+        if self.constant != 0:
             sign = "-" if self.constant < 0 else "+"
             right += f" {sign} {_latex_number(abs(self.constant))}"
         return f"{_latex_name(self.target)} = {right}"
@@ -279,10 +279,6 @@ def _fraction_text(value: Fraction) -> str:
     if value.denominator == 1:
         return str(value.numerator)
     return f"{value.numerator}/{value.denominator}"
-
-
-def _format_fraction(value: Fraction) -> str:
-    return _fraction_text(value)
 
 
 def _monomial_label(monomial: tuple[int, ...], names: Sequence[str]) -> str:
