@@ -63,6 +63,9 @@ def show(ctx: settings.StepContext, result) -> None:
     if result.agreement is not None:
         facts[2].metric(f"Agreement with {result.compare}",
                         display.number(result.agreement.get("ari")),
+                        delta=f"adjusted Rand index; NMI "
+                              f"{display.number(result.agreement.get('nmi'))}",
+                        delta_color="off", delta_arrow="off",
                         help="Adjusted Rand index: 0 is chance, 1 is the same partition. "
                              "Normalized mutual information: "
                              f"{display.number(result.agreement.get('nmi'))}.")

@@ -188,7 +188,7 @@ def _p_floor(result) -> str | None:
     if result.permutation_p is None or not count:
         return None
     if abs(result.permutation_p - 1 / (count + 1)) < 1e-12:
-        return f"the least possible with {count} permutations"
+        return "smallest possible"
     return f"{count} permutations"
 
 
@@ -210,7 +210,8 @@ def _classification_metrics(result) -> None:
     columns[3].metric("Permutation p-value", _p_value(result), delta=_p_floor(result),
                       delta_color="off", delta_arrow="off",
                       help=f"How often shuffled targets score as well: "
-                           f"{result.permutation_method}.")
+                           f"{result.permutation_method}. With n permutations the "
+                           "smallest possible value is 1/(n+1).")
 
 
 def _regression_metrics(result) -> None:

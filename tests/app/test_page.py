@@ -369,3 +369,30 @@ def test_a_study_whose_roles_do_not_fit_the_table_is_refused():
     errors = texts(second.error)
     assert any("flower" in e and "graphs_up_to_7.csv" in e for e in errors), errors
     assert study(second) is before
+
+
+def test_relations_list_the_objects_that_attain_a_bound():
+    from fractions import Fraction
+
+    at = open_page("quadratic_fields.csv")
+    uid = add_step(at, "relations")
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception
+    result = results(at)[-1]
+    attained = [b for b in result.bounds if b.attained_by]
+    assert attained, "no bound with extremal objects on this table"
+    bound = attained[0]
+    choice = at.selectbox(key=f"s{uid}.rows_of")
+    choice.set_value(f"attain {bound.text}").run()
+    assert not at.exception
+    # the listing is the last table on the page: the objects' ids and the bound's columns
+    loaded = table(at)
+    listed = at.dataframe[-1].value
+    assert list(listed.columns) == [loaded.id_column] + [name for name, _ in bound.terms]
+    assert len(listed) == min(len(bound.attained_by), 200)
+    # each listed object meets the bound with equality, in exact arithmetic on the table
+    ids = list(loaded.row_ids)
+    for _, row in listed.iterrows():
+        position = ids.index(row[loaded.id_column])
+        total = sum(Fraction(coef) * loaded.exact(name)[position] for name, coef in bound.terms)
+        assert total == bound.constant, (row[loaded.id_column], bound.text)
