@@ -6,6 +6,7 @@ from dataclasses import dataclass
 from typing import ClassVar
 
 import numpy as np
+import pandas as pd
 
 from analysis.plain import plain
 from analysis.table import Table
@@ -129,10 +130,23 @@ def _correlations(table: Table, top: int) -> tuple:
              if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
     if len(names) < 2 or top <= 0:
         return ()
-    sample = table.frame[names]
-    if len(sample) > 200_000:
-        sample = sample.sample(200_000, random_state=0)
-    matrix = sample.astype(float).corr().to_numpy()
+    n = table.n_rows
+    # the rows pandas' frame.sample(200_000, random_state=0) draws, taken column by column
+    rows = np.random.RandomState(0).choice(n, 200_000, replace=False) if n > 200_000 else None
+
+    def sampled(name: str) -> np.ndarray:
+        raw = table.frame[name].to_numpy()
+        return (raw if rows is None else raw[rows]).astype(np.float64)
+
+    values = np.column_stack([sampled(name) for name in names])
+    if np.isfinite(values).all():
+        # numpy's product of the centred matrix with itself: many times faster than pandas'
+        # pairwise loop, and the same coefficients when no value is missing
+        with np.errstate(divide="ignore", invalid="ignore"):
+            matrix = np.corrcoef(values, rowvar=False)
+    else:
+        # pairwise-complete rows where values are missing, as pandas counts them
+        matrix = pd.DataFrame(values).corr().to_numpy()
     pairs = []
     for i in range(len(names)):
         for j in range(i + 1, len(names)):
