@@ -117,6 +117,10 @@ def _summarize(table: Table, info) -> ColumnSummary:
                 shapes[key] = shapes.get(key, 0) + 1
         common = tuple(sorted(shapes.items(), key=lambda kv: -kv[1])[:5])
         return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in common))
+    if series.dtype.kind == "b":
+        # a flag with no missing cell: count its two values rather than a string per row
+        counts = series.value_counts().head(5)
+        return ColumnSummary(**base, common=tuple((str(k), int(v)) for k, v in counts.items()))
     try:
         counts = series.astype(str).where(series.notna()).value_counts().head(5)
         common = tuple((str(k), int(v)) for k, v in counts.items())
