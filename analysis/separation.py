@@ -291,8 +291,10 @@ class SeparatorStep:
         "auto" and "nystroem" use Nystroem features with a linear machine, "sample" fits
         the exact machine on a sample of ``kernel_row_limit`` rows.
     large_table_rows: from this many rows on, the permutation test uses at most
-        ``sample_rows`` rows and at most 50 permutations, and the equation is searched on a
-        sample of ``sample_rows`` rows (then checked on every row).
+        ``sample_rows`` rows and at most 50 permutations, splits after the first are fitted
+        on a sample of ``sample_rows`` of their training rows, and split 1's separator (not
+        a refit on every row) starts the equation search. The equation is searched on a
+        sample of ``sample_rows`` rows past that size, then checked on every row.
     max_terms, max_denominator: limits for the exact equation (None: the search's defaults).
     """
 
@@ -596,14 +598,27 @@ class _Run:
         per_split = []
         first = None
         for index, (train, test) in enumerate(splits):
-            model = self._fit(train, seed_offset=index)
+            fit_rows = train
+            if self.big and index > 0:
+                # a large table: split 1 is fitted on all its training rows; the others,
+                # which only give the spread over splits, on a sample of them
+                fit_rows = _subsample(train, None if strata is None else strata[train],
+                                      step.sample_rows, step.seed + 41 + index,
+                                      groups=self.group_labels)
+            model = self._fit(fit_rows, seed_offset=index)
             predicted = _predict(model, self.X[test])
-            metrics = self._split_metrics(train, test, predicted)
-            per_split.append({"split": index + 1, "train_rows": len(train),
+            metrics = self._split_metrics(fit_rows, test, predicted)
+            per_split.append({"split": index + 1, "train_rows": len(fit_rows),
                               "test_rows": len(test), **metrics})
             if index == 0:
                 first = (train, test, model, predicted)
+        if self.big and len(splits) > 1:
+            self.notes.append(f"the table is large ({n} rows): splits 2 to {len(splits)} were "
+                              f"fitted on a random sample of at most {step.sample_rows} of "
+                              "their training rows (split 1 on all of its), and each was "
+                              "scored on all its test rows.")
         train, test, model, predicted = first
+        self.split_model = model
         repeats = {"splits": per_split, "mean": _mean_of(per_split), "std": _std_of(per_split)}
         identical = _identical_across(self.X, train, test)
         if identical:
@@ -827,7 +842,17 @@ class _Run:
 
         step = self.step
         n = len(self.y)
-        model = self._fit(np.arange(n), seed_offset=5000)
+        fitted_on = "all rows"
+        if self.big:
+            # a refit on every row of a large table costs twice split 1's fit and moves the
+            # starting direction little; the exact search and its check on every row decide
+            model = self.split_model
+            fitted_on = "split 1's training rows"
+            self.notes.append(f"the table is large ({n} rows): the separator fitted on split "
+                              "1's training rows gives the equation's starting direction and "
+                              "the decision scores, instead of a refit on every row.")
+        else:
+            model = self._fit(np.arange(n), seed_offset=5000)
         predicted = np.asarray(_predict(model, self.X))
         names = list(self.fm.names)
         ids = self.fm.row_ids
@@ -849,7 +874,7 @@ class _Run:
             formula = eqs.find_formula(self.X, self._exact_target(), names, row_ids=ids,
                                        target_name=step.target, **options)
             return {"formula": formula,
-                    "decision": scores_of("prediction of the model fitted on all rows",
+                    "decision": scores_of(f"prediction of the model fitted on {fitted_on}",
                                           predicted.astype(np.float64))}
         if step.model in ("linear", "logistic", "lda"):
             weights, intercepts = _raw_hyperplanes(model)
@@ -873,8 +898,8 @@ class _Run:
                     "decision": scores_of("equation margin of each class against the rest "
                                           "(>= 0 on that class's side)", columns)}
         decision = _decision(model, self.X)
-        machine_scores = scores_of("decision value of the kernel machine fitted on all rows",
-                                   decision)
+        machine_scores = scores_of(f"decision value of the kernel machine fitted on "
+                                   f"{fitted_on}", decision)
         if self.n_classes != 2:
             self.notes.append("no equation for a kernel machine over several classes; choose "
                               "a positive class to get one for that class against the rest.")
