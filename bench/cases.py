@@ -1,0 +1,554 @@
+"""What each benchmark measures: one of our steps and the bare library calls it stands beside.
+
+Run as a worker by bench/run.py, one fresh process per (case, side, repeat)::
+
+    python bench/cases.py CASE SIDE --csv T.csv --parquet T.parquet
+
+The worker prepares its input (untimed: imports, reading the table, warm-up fits), then
+times the measured call alone and prints one JSON line: seconds, the resident memory before
+the call, its peak during the call, and a check of what was computed (so that the report can
+show both sides computed the same thing).
+
+Both sides get the same data: ours starts from the :class:`analysis.table.Table` the program
+loads, the bare side from the frame pandas reads from the same Parquet file. Modules that a
+step imports when first used are imported before the clock starts on both sides, so neither
+side pays for an import inside the measured call.
+"""
+
+from __future__ import annotations
+
+import argparse
+import gc
+import json
+import sys
+import time
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+TARGET = "label"
+SEED = 0
+K = 4
+# Rows at which our steps switch to their large-table methods (kept in step with
+# analysis.clustering.MINIBATCH_ROWS, analysis.separation.SeparatorStep.kernel_row_limit,
+# analysis.projection.SAMPLE_THRESHOLDS and analysis.outliers.OutliersStep.sample_size).
+MINIBATCH_ROWS = 100_000
+KERNEL_ROW_LIMIT = 20_000
+UMAP_SAMPLE = 50_000
+LOF_SAMPLE = 20_000
+NYSTROEM_COMPONENTS = 1000
+
+
+@dataclass(frozen=True)
+class Case:
+    """One benchmark: what ours and the bare side do, and what the comparison means."""
+
+    name: str
+    title: str
+    ours: str
+    bare: str
+    goal: float | None = 1.15        # ours / bare at most this, at the goal size
+    goal_rows: int | None = 100_000
+    note: str = ""
+
+
+CASES: dict[str, Case] = {c.name: c for c in [
+    Case("load_csv", "load CSV", "load_table(T.csv): parse, type every column, roles, "
+         "distinct counts, digest", "pandas.read_csv(T.csv)",
+         note="ours does more: it types each column, counts distinct values and hashes the "
+              "bytes; the goal is not applied to loading."
+              , goal=None),
+    Case("load_parquet", "load Parquet", "load_table(T.parquet)",
+         "pandas.read_parquet(T.parquet)",
+         note="ours does more (typing, distinct counts, digest); no goal at this size.",
+         goal=None),
+    Case("pca", "PCA", "ProjectionStep(method='pca'): features, standardize, PCA, loadings",
+         "StandardScaler + sklearn PCA(n_components=20).fit_transform on the same 20 columns"),
+    Case("kmeans", "k-means", "ClusteringStep(method='kmeans', k=4): k-means, a silhouette "
+         "on a 5000-row sample, cluster profiles",
+         "StandardScaler + sklearn KMeans(4, n_init=4, random_state=0); MiniBatchKMeans("
+         "batch_size=4096, n_init=3) past 100000 rows, as ours",
+         note="ours also scores a silhouette on 5000 rows and profiles the clusters."),
+    Case("separator_fit", "linear separator (one fit)",
+         "SeparatorStep(target='label'): features, labels, split 1, the fit and its "
+         "predictions (the rest of the protocol switched off)",
+         "StandardScaler + LinearSVC(dual=False, class_weight='balanced') fitted on the same "
+         "stratified half, predicting the other half",
+         note="the matching part of the separator: one fit of its validation protocol."),
+    Case("separate", "linear separator (whole step)",
+         "SeparatorStep(target='label'): 5 splits, bootstrap interval, baseline, permutation "
+         "p-value, learning curve, fit on every row, exact equation checked on every row",
+         "one scaled LinearSVC fit on half the rows (as separator_fit)",
+         goal=3.0, goal_rows=1_000_000,
+         note="the whole protocol against one bare fit; goal 3x at 1M rows."),
+    Case("kernel_fit", "kernel separator (one fit)",
+         "SeparatorStep(target='label', model='rbf', kernel_approximation='auto'): split 1, "
+         "the fit and its predictions",
+         "StandardScaler + SVC(rbf) on the same half; past 20000 rows StandardScaler + "
+         "Nystroem(1000 components) + LinearSVC, as ours",
+         note="the matching part of the kernel separator."),
+    Case("kernel_separate", "kernel separator (whole step)",
+         "SeparatorStep(target='label', model='rbf', kernel_approximation='auto')",
+         "one kernel fit on half the rows (as kernel_fit)", goal=None,
+         note="the whole protocol against one bare fit; no goal."),
+    Case("umap", "UMAP", "ProjectionStep(method='umap'): a 50000-row sample past 50000 rows",
+         "StandardScaler + umap.UMAP(n_neighbors=15, random_state=0, n_jobs=1) on the same "
+         "rows",
+         note="both sides compiled beforehand by a small untimed fit in the same process."),
+    Case("relations", "relations (exact relations only)",
+         "RelationsStep(bounds=False, robust=False): the exact integer relation lattice, "
+         "LLL-reduced and checked on every row",
+         "numpy SVD of [columns | 1] (the real null space, in floating point)",
+         note="ours is exact and checks every row; the bare call only finds the floating-"
+              "point null space."),
+    Case("relations_full", "relations (whole step)", "RelationsStep(): relations, robust "
+         "relations, sharp bounds in pairs and triples", "numpy SVD of [columns | 1]",
+         goal=None, note="the whole step does much more than the bare call; no goal."),
+    Case("outliers", "outliers", "OutliersStep(k=4, relations=False): isolation forest, "
+         "local outlier factor (fitted on a 20000-row sample past that), distance from the "
+         "k-means centre, ranking with reasons",
+         "IsolationForest(200 trees) + LocalOutlierFactor(20 neighbours, novelty scoring "
+         "against the same 20000-row sample past that size)",
+         note="ours also computes the distance from the cluster centre (k-means, k = 4) and "
+              "ranks with reasons."),
+]}
+
+
+# ----------------------------------------------------------------------------------------
+# Memory: resident set size now, and its peak since the last reset (Linux /proc)
+
+
+def _status_kb(field: str) -> int | None:
+    try:
+        with open("/proc/self/status") as handle:
+            for line in handle:
+                if line.startswith(field + ":"):
+                    return int(line.split()[1])
+    except OSError:
+        return None
+    return None
+
+
+def reset_peak() -> bool:
+    """Reset the kernel's record of peak resident memory (VmHWM); False where unsupported."""
+    try:
+        with open("/proc/self/clear_refs", "w") as handle:
+            handle.write("5")
+        return True
+    except OSError:
+        return False
+
+
+def rss_mb() -> float:
+    kb = _status_kb("VmRSS")
+    if kb is None:
+        import resource
+
+        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return kb / 1024
+
+
+def peak_mb() -> float:
+    kb = _status_kb("VmHWM")
+    if kb is None:
+        import resource
+
+        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return kb / 1024
+
+
+# ----------------------------------------------------------------------------------------
+# Shared preparation
+
+
+def _table(paths):
+    from analysis.table import load_table
+
+    return load_table(paths["parquet"])
+
+
+def _frame(paths):
+    import pandas as pd
+
+    return pd.read_parquet(paths["parquet"])
+
+
+def _standardized(frame, columns=None):
+    import numpy as np
+    from sklearn.preprocessing import StandardScaler
+
+    values = frame.to_numpy(dtype=np.float64) if columns is None \
+        else frame[columns].to_numpy(dtype=np.float64)
+    return StandardScaler().fit_transform(values)
+
+
+def _features_and_labels(frame):
+    import numpy as np
+
+    features = [c for c in frame.columns if c != TARGET]
+    return frame[features].to_numpy(dtype=np.float64), frame[TARGET].to_numpy().astype(np.int64)
+
+
+def _half_split(y):
+    import numpy as np
+    from sklearn.model_selection import StratifiedShuffleSplit
+
+    splitter = StratifiedShuffleSplit(n_splits=1, train_size=0.5, random_state=SEED)
+    train, test = next(splitter.split(np.zeros(len(y)), y))
+    return np.sort(train), np.sort(test)
+
+
+def _linear_pipeline():
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.svm import LinearSVC
+
+    return make_pipeline(StandardScaler(), LinearSVC(C=1.0, dual=False,
+                                                     class_weight="balanced", max_iter=5000))
+
+
+def _kernel_pipeline(n_rows: int):
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    if n_rows > KERNEL_ROW_LIMIT:
+        from sklearn.kernel_approximation import Nystroem
+        from sklearn.svm import LinearSVC
+
+        return make_pipeline(StandardScaler(),
+                             Nystroem(kernel="rbf", n_components=NYSTROEM_COMPONENTS,
+                                      random_state=SEED),
+                             LinearSVC(C=1.0, dual=False, class_weight="balanced",
+                                       max_iter=5000))
+    from sklearn.svm import SVC
+
+    return make_pipeline(StandardScaler(), SVC(kernel="rbf", C=1.0, gamma="scale",
+                                               class_weight="balanced"))
+
+
+def _bare_fit(frame, pipeline_of):
+    """The bare side of a separator: a fit on a stratified half, predictions on the other."""
+    import numpy as np
+
+    X, y = _features_and_labels(frame)
+    train, test = _half_split(y)
+    model = pipeline_of(len(y)).fit(X[train], y[train])
+    predicted = model.predict(X[test])
+    return {"test_accuracy": round(float(np.mean(predicted == y[test])), 4),
+            "train_rows": int(len(train))}
+
+
+def _one_split_step(table, **settings):
+    """Our separator run with its protocol cut down to split 1's fit and predictions.
+
+    Everything before the protocol (features, labels, the choice of kernel method) runs as
+    in a full run; then the real split function and the real fitting recipe are used once.
+    """
+    import numpy as np
+
+    from analysis import separation
+    from analysis.separation import SeparatorStep
+
+    outcome = {}
+
+    class Done(Exception):
+        """Raised once split 1 is scored, to end the run there."""
+
+    def first_split_only(run):
+        strata = None if run.regression else run.y
+        splits, _ = separation._splits(len(run.y), strata, run.group_labels,
+                                       float(run.step.train_fraction), 1, run.step.seed,
+                                       run.table.name)
+        train, test = splits[0]
+        model = run._fit(train)
+        predicted = separation._predict(model, run.X[test])
+        outcome["test_accuracy"] = round(float(np.mean(predicted == run.y[test])), 4)
+        outcome["train_rows"] = int(len(train))
+        raise Done
+
+    original = separation._Run._protocol
+    separation._Run._protocol = first_split_only
+    try:
+        SeparatorStep(target=TARGET, seed=SEED, **settings).run(table)
+    except Done:
+        pass
+    finally:
+        separation._Run._protocol = original
+    return outcome
+
+
+def _separator_check(result) -> dict:
+    check = {"mcc": round(float(result.metrics.get("mcc", float("nan"))), 4),
+             "permutation_p": result.permutation_p}
+    equation = result.equation
+    if equation is not None:
+        check["equation"] = equation.text
+        check["violations"] = int(equation.violations)
+    elif result.surrogate is not None:
+        check["surrogate"] = result.surrogate.text
+    if result.kernel_method:
+        check["kernel"] = result.kernel_method
+    notes = [n for n in result.notes if "sample" in n or "approximate" in n]
+    if notes:
+        check["large_table_notes"] = notes[:4]
+    return check
+
+
+def _svd_relations(frame):
+    import numpy as np
+
+    values = frame.to_numpy(dtype=np.float64)
+    matrix = np.column_stack([values, np.ones(len(values))])
+    _, singular, right = np.linalg.svd(matrix, full_matrices=False)
+    null = int(np.sum(singular < singular[0] * 1e-10))
+    return {"relations": null}
+
+
+def _umap_warm(fit: Callable) -> None:
+    """A small untimed fit in this process, so neither side's timing includes compiling."""
+    fit()
+
+
+# ----------------------------------------------------------------------------------------
+# The cases: each returns (prepare, run) for a side; prepare is untimed
+
+
+def prepare(case: str, side: str, paths: dict):
+    """Return the zero-argument function to time, after untimed preparation."""
+    import numpy as np  # noqa: F401 - imported before the clock for both sides
+
+    import analysis.features  # noqa: F401
+    import analysis.table  # noqa: F401
+
+    if case == "load_csv":
+        if side == "ours":
+            from analysis.table import load_table
+
+            return lambda: _shape(load_table(paths["csv"]).frame)
+        import pandas as pd
+
+        return lambda: _shape(pd.read_csv(paths["csv"]))
+    if case == "load_parquet":
+        if side == "ours":
+            from analysis.table import load_table
+
+            return lambda: _shape(load_table(paths["parquet"]).frame)
+        import pandas as pd
+
+        return lambda: _shape(pd.read_parquet(paths["parquet"]))
+    if case == "pca":
+        import sklearn.decomposition  # noqa: F401
+        import sklearn.preprocessing  # noqa: F401
+
+        if side == "ours":
+            from analysis.projection import ProjectionStep
+
+            table = _table(paths)
+
+            def ours():
+                result = ProjectionStep(method="pca", seed=SEED).run(table)
+                return {"explained_variance_ratio": [round(r, 6) for r in
+                                                     result.explained_variance_ratio[:3]]}
+            return ours
+        frame = _frame(paths)
+
+        def bare():
+            from sklearn.decomposition import PCA
+
+            model = PCA(n_components=frame.shape[1])
+            model.fit_transform(_standardized(frame))
+            return {"explained_variance_ratio": [round(float(r), 6) for r in
+                                                 model.explained_variance_ratio_[:3]]}
+        return bare
+    if case == "kmeans":
+        import sklearn.cluster  # noqa: F401
+        import sklearn.metrics  # noqa: F401
+
+        if side == "ours":
+            from analysis.clustering import ClusteringStep
+
+            table = _table(paths)
+
+            def ours():
+                result = ClusteringStep(method="kmeans", k=K, seed=SEED).run(table)
+                return {"sizes": sorted((p.size for p in result.profiles), reverse=True),
+                        "notes": [n for n in result.notes if "mini-batch" in n]}
+            return ours
+        frame = _frame(paths)
+
+        def bare():
+            from sklearn.cluster import KMeans, MiniBatchKMeans
+
+            values = _standardized(frame)
+            if len(values) > MINIBATCH_ROWS:
+                model = MiniBatchKMeans(n_clusters=K, random_state=SEED, batch_size=4096,
+                                        n_init=3)
+            else:
+                model = KMeans(n_clusters=K, random_state=SEED, n_init=4)
+            labels = model.fit_predict(values)
+            return {"sizes": sorted(np.bincount(labels).tolist(), reverse=True)}
+        return bare
+    if case in ("separator_fit", "separate", "kernel_fit", "kernel_separate"):
+        import scipy.optimize  # noqa: F401 - the exact equation search's linear programs
+        import sklearn.kernel_approximation  # noqa: F401
+        import sklearn.model_selection  # noqa: F401
+        import sklearn.pipeline  # noqa: F401
+        import sklearn.svm  # noqa: F401
+
+        import analysis.equations  # noqa: F401
+        import analysis.separation  # noqa: F401
+
+        kernel = case.startswith("kernel")
+        settings = {"model": "rbf", "kernel_approximation": "auto"} if kernel else {}
+        if side == "ours":
+            table = _table(paths)
+            if case.endswith("_fit"):
+                return lambda: _one_split_step(table, **settings)
+            from analysis.separation import SeparatorStep
+
+            return lambda: _separator_check(
+                SeparatorStep(target=TARGET, seed=SEED, **settings).run(table))
+        frame = _frame(paths)
+        pipeline_of = _kernel_pipeline if kernel else (lambda n: _linear_pipeline())
+        return lambda: _bare_fit(frame, pipeline_of)
+    if case == "umap":
+        from analysis.warmup import configure_numba_cache
+
+        configure_numba_cache()
+        if side == "ours":
+            from analysis.projection import ProjectionStep
+            from analysis.table import read_table
+
+            table = _table(paths)
+            small = read_table(_small_csv(), "warm.csv")
+            _umap_warm(lambda: ProjectionStep(method="umap", seed=SEED).run(small))
+
+            def ours():
+                result = ProjectionStep(method="umap", seed=SEED).run(table)
+                return {"rows_projected": int(result.n_projected), "sampled": result.sampled}
+            return ours
+        import umap
+
+        frame = _frame(paths)
+        values = _standardized(frame)
+        n = len(values)
+        if n > UMAP_SAMPLE:
+            rng = np.random.default_rng(SEED)
+            values = values[np.sort(rng.choice(n, size=UMAP_SAMPLE, replace=False))]
+        warm = np.random.default_rng(1).normal(size=(300, values.shape[1]))
+
+        def fit(data, force=False):
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                return umap.UMAP(n_neighbors=15, random_state=SEED, n_jobs=1,
+                                 force_approximation_algorithm=force).fit_transform(data)
+
+        # compile both of UMAP's neighbour paths (exact for small data, NN-descent for large)
+        _umap_warm(lambda: (fit(warm), fit(warm, force=True)))
+        return lambda: {"rows_projected": int(len(fit(values)))}
+    if case in ("relations", "relations_full"):
+        if side == "ours":
+            from analysis.relations import RelationsStep
+
+            table = _table(paths)
+            settings = {"bounds": False, "robust": False} if case == "relations" else {}
+
+            def ours():
+                result = RelationsStep(seed=SEED, **settings).run(table)
+                return {"relations": [r.text for r in result.relations
+                                      if not getattr(r, "trivial", False)][:4],
+                        "bounds": len(getattr(result, "bounds", ()))}
+            return ours
+        frame = _frame(paths)
+        return lambda: _svd_relations(frame)
+    if case == "outliers":
+        import sklearn.cluster  # noqa: F401
+        import sklearn.ensemble  # noqa: F401
+        import sklearn.neighbors  # noqa: F401
+
+        if side == "ours":
+            from analysis.outliers import OutliersStep
+
+            table = _table(paths)
+
+            def ours():
+                result = OutliersStep(k=K, relations=False, seed=SEED).run(table)
+                return {"measures": list(result.measures), "top_rows": [
+                    int(o.row) for o in result.outliers[:3]]}
+            return ours
+        frame = _frame(paths)
+
+        def bare():
+            from sklearn.ensemble import IsolationForest
+            from sklearn.neighbors import LocalOutlierFactor
+
+            values = _standardized(frame)
+            n = len(values)
+            forest = -IsolationForest(n_estimators=200, random_state=SEED).fit(
+                values).score_samples(values)
+            if n <= LOF_SAMPLE:
+                factor = -LocalOutlierFactor(n_neighbors=20).fit(values).negative_outlier_factor_
+            else:
+                rng = np.random.default_rng(SEED)
+                sample = np.sort(rng.choice(n, size=LOF_SAMPLE, replace=False))
+                model = LocalOutlierFactor(n_neighbors=20, novelty=True).fit(values[sample])
+                factor = -model.score_samples(values)
+            return {"strangest_by_forest": int(np.argmax(forest)),
+                    "strangest_by_factor": int(np.argmax(factor))}
+        return bare
+    raise SystemExit(f"unknown case {case!r}; cases are {', '.join(CASES)}")
+
+
+def _shape(frame) -> dict:
+    return {"rows": int(frame.shape[0]), "columns": int(frame.shape[1]),
+            "frame_mb": round(float(frame.memory_usage(index=True, deep=True).sum()) / 2**20,
+                              1)}
+
+
+def _small_csv() -> bytes:
+    import numpy as np
+
+    rng = np.random.default_rng(1)
+    values = rng.integers(2, 40, size=(300, 20))
+    lines = [",".join(f"c{j:02d}" for j in range(20))]
+    lines += [",".join(map(str, row)) for row in values.tolist()]
+    return ("\n".join(lines) + "\n").encode()
+
+
+def measure(case: str, side: str, paths: dict) -> dict:
+    """Prepare (untimed), then time one call and record its memory."""
+    work = prepare(case, side, paths)
+    gc.collect()
+    exact_peak = reset_peak()
+    before = rss_mb()
+    cpu_started = time.process_time()
+    started = time.perf_counter()
+    check = work()
+    seconds = time.perf_counter() - started
+    cpu_seconds = time.process_time() - cpu_started
+    peak = peak_mb()
+    return {"case": case, "side": side, "seconds": seconds, "cpu_seconds": cpu_seconds,
+            "rss_before_mb": round(before, 1),
+            "peak_mb": round(peak, 1), "peak_increase_mb": round(max(0.0, peak - before), 1),
+            "peak_is_exact": exact_peak, "check": check}
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("case", choices=sorted(CASES))
+    parser.add_argument("side", choices=["ours", "bare"])
+    parser.add_argument("--csv", required=True)
+    parser.add_argument("--parquet", required=True)
+    args = parser.parse_args(argv)
+    outcome = measure(args.case, args.side, {"csv": args.csv, "parquet": args.parquet})
+    print(json.dumps(outcome, default=str))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
