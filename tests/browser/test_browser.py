@@ -124,7 +124,11 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
             page.goto(f"{app_url}/?table=quadratic_fields.csv")
             expect(page.get_by_text("Add a step")).to_be_visible(timeout=STEP_TIMEOUT_MS)
 
-            page.locator("input[type=file]").first.set_input_files(str(upload))
+            page.get_by_text("A file of mine").click()
+            uploader = page.locator("[data-testid=stFileUploader]").filter(
+                has_text="Your table")
+            expect(uploader).to_have_count(1, timeout=60_000)
+            uploader.locator("input[type=file]").set_input_files(str(upload))
             expect(page.get_by_text("polygons.csv (uploaded)")).to_be_visible(
                 timeout=STEP_TIMEOUT_MS)
             expect(page.get_by_text("3\u2009000 objects")).to_be_visible()
@@ -153,8 +157,10 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
             expect(step.get_by_role("heading", name="Beats chance:")).to_be_visible()
             _settle(page)
 
-            equation.first.scroll_into_view_if_needed()
-            page.mouse.wheel(0, -450)
+            # The picture for the README: the separator step from its title to its equation.
+            page.set_viewport_size({"width": 1440, "height": 1200})
+            step.get_by_role("heading", name="3. Separator").evaluate(
+                "e => e.scrollIntoView({block: 'start'})")
             page.wait_for_timeout(1500)
             shot = tmp_path / "separator.png"
             page.screenshot(path=str(shot))
