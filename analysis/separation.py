@@ -61,6 +61,12 @@ KERNEL_PERMUTATION_ROWS = 1000
 KERNEL_CURVE_ROWS = 3000
 KERNEL_PERMUTATION_TEST_ROWS = 2000
 NYSTROEM_COMPONENTS = 1000
+# A Nystroem machine is fitted on at most this many rows (a stratified sample of the training
+# rows past it): its features take components x rows x 8 bytes, and the linear solver copies
+# them again, about 1.2 GB at this size and 12 GB for half of a million-row table.
+NYSTROEM_FIT_ROWS = 50_000
+# Rows a fitted pipeline evaluates at once, so that Nystroem features stay small in memory.
+PREDICT_BLOCK_ROWS = 20_000
 MISPREDICTED_LIMIT = 100
 ROW_ID_LIST_LIMIT = 5000
 CLASS_RULE = ("beats chance: yes only when the 95% bootstrap interval of the Matthews "
@@ -534,6 +540,9 @@ class _Run:
                                   "components on all rows, a quarter of the training rows up "
                                   f"to {NYSTROEM_COMPONENTS} in every fit; seeded) with a "
                                   "linear machine")
+            if n > NYSTROEM_FIT_ROWS:
+                self.kernel_method += (f", each fit on at most {NYSTROEM_FIT_ROWS} of its "
+                                       "training rows (a stratified sample)")
         elif self.kernel_mode == "sample":
             self.kernel_method = (f"exact kernel machine fitted on a stratified sample of at "
                                   f"most {step.kernel_row_limit} training rows")
@@ -569,6 +578,9 @@ class _Run:
         if self.kernel_mode == "sample" and len(rows) > step.kernel_row_limit:
             rows = _subsample(rows, None if self.regression else y[rows],
                               step.kernel_row_limit, step.seed + 17 + seed_offset)
+        if self.kernel_mode == "nystroem" and len(rows) > NYSTROEM_FIT_ROWS:
+            rows = _subsample(rows, None if self.regression else y[rows],
+                              NYSTROEM_FIT_ROWS, step.seed + 19 + seed_offset)
         X_train = self.X[rows]
         y_train = y[rows]
         if self.copy_values is not None:
@@ -1023,7 +1035,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
 def _predict(model, X: np.ndarray) -> np.ndarray:
     """Predictions of a fitted pipeline (a two-class kernel machine through _decision)."""
     if _two_class_svc(model) is None:
-        return model.predict(X)
+        return _in_blocks(model.predict, X)
     last = model[-1]
     return last.classes_[(_decision(model, X) > 0).astype(np.int64)]
 
@@ -1037,7 +1049,7 @@ def _decision(model, X: np.ndarray) -> np.ndarray:
     """
     last = _two_class_svc(model)
     if last is None:
-        return np.asarray(model.decision_function(X), dtype=np.float64)
+        return np.asarray(_in_blocks(model.decision_function, X), dtype=np.float64)
     from sklearn.metrics.pairwise import pairwise_kernels
 
     scaled = model[0].transform(X)
@@ -1052,6 +1064,14 @@ def _decision(model, X: np.ndarray) -> np.ndarray:
                                  metric=last.kernel, **options)
         out[start:start + step] = block @ last.dual_coef_[0] + last.intercept_[0]
     return out
+
+
+def _in_blocks(function, X: np.ndarray) -> np.ndarray:
+    """``function`` of the rows of ``X``, evaluated ``PREDICT_BLOCK_ROWS`` rows at a time."""
+    if len(X) <= PREDICT_BLOCK_ROWS:
+        return function(X)
+    return np.concatenate([function(X[start:start + PREDICT_BLOCK_ROWS])
+                           for start in range(0, len(X), PREDICT_BLOCK_ROWS)])
 
 
 def _two_class_svc(model):
