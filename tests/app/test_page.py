@@ -396,3 +396,78 @@ def test_relations_list_the_objects_that_attain_a_bound():
         position = ids.index(row[loaded.id_column])
         total = sum(Fraction(coef) * loaded.exact(name)[position] for name, coef in bound.terms)
         assert total == bound.constant, (row[loaded.id_column], bound.text)
+
+
+def _iris_in(fmt: str) -> tuple[str, bytes]:
+    """The iris CSV written again as TSV, JSON, JSON Lines or Parquet (with pandas)."""
+    import pandas as pd
+
+    frame = pd.read_csv(io.BytesIO(iris_csv()))
+    if fmt == "csv":
+        return "iris.csv", iris_csv()
+    if fmt == "tsv":
+        return "iris.tsv", frame.to_csv(sep="\t", index=False).encode()
+    if fmt == "json":
+        return "iris.json", frame.to_json(orient="records").encode()
+    if fmt == "jsonl":
+        return "iris.jsonl", frame.to_json(orient="records", lines=True).encode()
+    buffer = io.BytesIO()
+    frame.to_parquet(buffer, index=False)
+    return "iris.parquet", buffer.getvalue()
+
+
+@pytest.mark.parametrize("fmt", ["csv", "tsv", "json", "jsonl", "parquet"])
+def test_upload_every_table_format(fmt):
+    at = open_page("quadratic_fields.csv")
+    name, data = _iris_in(fmt)
+    upload(at, name, data, "application/octet-stream")
+    assert texts(at.error) == []
+    loaded = table(at)
+    assert loaded.name == name
+    # iris: 150 flowers, 4 measurements, 3 species (scikit-learn's documentation)
+    assert loaded.n_rows == 150
+    assert len(loaded.names_with_role("invariant")) == 4
+    assert loaded.column("species").distinct == 3
+
+
+def test_study_wide_group_column_and_encoding_reach_new_and_existing_steps():
+    at = open_page("graphs_up_to_7.csv")
+    at.selectbox(key="focus.target").set_value("planar").run()
+    at.selectbox(key="focus.groups").set_value("adjacency").run()
+    at.selectbox(key="focus.encoding").set_value("both").run()
+    assert not at.exception
+    projection = [s for s in study(at).steps if s.kind == "projection"][0]
+    assert projection.params["array_encoding"] == "both"
+    uid = add_step(at, "separator")
+    separator = study(at).steps[step_ids(at).index(uid)]
+    assert separator.params["target"] == "planar"
+    assert separator.params["groups"] == "adjacency"
+    assert separator.params["array_encoding"] == "both"
+
+
+def test_apply_focus_changes_every_step_that_has_the_setting():
+    from analysis.study import Study
+    from analysis.study import add_step as add
+    from analysis.table import load_table
+    from app.table_section import apply_focus
+
+    graphs = load_table(Path(SCRIPT).parents[1] / "sample_tables" / "graphs_up_to_7.csv")
+    plan = Study(table=graphs.name)
+    for kind, params in [("overview", {}), ("projection", {}),
+                         ("separator", {"target": "planar", "columns": ["edges", "tree"]}),
+                         ("clustering", {}), ("relations", {})]:
+        plan = add(plan, kind, params)
+    moved = apply_focus(plan, graphs, "target", "tree")
+    kinds = {s.kind: s.params for s in moved.steps}
+    assert kinds["projection"]["target"] == "tree"
+    assert kinds["separator"]["target"] == "tree"
+    assert kinds["separator"]["columns"] == ["edges"]  # a target is never its own feature
+    assert kinds["clustering"]["compare"] == "tree"
+    grouped = apply_focus(moved, graphs, "groups", "adjacency")
+    assert [s.params.get("groups") for s in grouped.steps if s.kind == "separator"] == \
+        ["adjacency"]
+    chosen = apply_focus(grouped, graphs, "columns", ["edges", "vertices", "planar"])
+    kinds = {s.kind: s.params for s in chosen.steps}
+    assert kinds["relations"]["columns"] == ["edges", "vertices"]  # invariants only
+    assert kinds["projection"]["columns"] == ["edges", "vertices", "planar"]
+    assert "columns" not in kinds["overview"]
