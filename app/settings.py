@@ -125,14 +125,18 @@ def whole_number(ctx: StepContext, name: str, label: str, *, minimum: int = 0,
     """A number input for a whole number; with ``optional``, 0 stands for "not set"."""
     current = ctx.params.get(name)
     key = ctx.key(name)
+    low = 0 if optional else minimum
     shown = 0 if current is None else int(current)
+    # A value out of range (from a hand-edited study) is shown at the nearest end; the step
+    # itself reports it when it runs.
+    shown = max(low, shown if maximum is None else min(shown, maximum))
     _sync(key, shown)
 
     def convert(value):
         value = int(value)
         return None if optional and value == 0 else value
 
-    container.number_input(label, min_value=0 if optional else minimum, max_value=maximum,
+    container.number_input(label, min_value=low, max_value=maximum,
                            step=1, key=key, help=help,
                            on_change=_changed, args=(ctx.uid, name, key, convert))
 
@@ -141,6 +145,7 @@ def whole_range(ctx: StepContext, name: str, label: str, *, minimum: int, maximu
                 help: str | None = None, container=st) -> None:
     """A slider for a range of whole numbers, stored as [low, high]."""
     low, high = (int(v) for v in ctx.params.get(name))
+    low, high = max(low, minimum), max(high, minimum)
     key = ctx.key(name)
     _sync(key, (low, high))
     container.slider(label, min_value=minimum, max_value=max(maximum, high), step=1, key=key,
@@ -152,7 +157,7 @@ def real_number(ctx: StepContext, name: str, label: str, *, minimum: float, maxi
                 step: float, help: str | None = None, container=st) -> None:
     current = ctx.params.get(name)
     key = ctx.key(name)
-    _sync(key, float(current))
+    _sync(key, min(max(float(current), float(minimum)), float(maximum)))
     container.number_input(label, min_value=float(minimum), max_value=float(maximum),
                            step=float(step), key=key, help=help,
                            on_change=_changed, args=(ctx.uid, name, key, float))

@@ -127,7 +127,11 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
                           help="Remove this step from the study", type="tertiary",
                           on_click=_remove, args=(uid,))
         with st.expander("Settings", expanded=pg.just_added == uid, icon=":material/tune:"):
-            module.settings_panel(ctx)
+            try:
+                module.settings_panel(ctx)
+            except Exception as exc:  # noqa: BLE001 - odd settings must not sink the page
+                st.error(f"These settings cannot be shown ({type(exc).__name__}: {exc}). "
+                         "Remove the step and add it again, or edit the study file.")
             message = pg.errors.get(f"settings:{uid}")
             if message:
                 st.error(message)

@@ -24,6 +24,9 @@ ROLE_WORDS = {
     "text": "ignored by the steps",
 }
 
+ROLE_PLURALS = {"invariant": "invariants", "category": "categories", "flag": "flags",
+                "array": "arrays", "text": "text", "id": "ids"}
+
 
 # ----------------------------------------------------------------------------------------
 # Choosing a table (sidebar)
@@ -106,7 +109,7 @@ def table_header() -> None:
     counts = {role: len(table.names_with_role(role)) for role in ROLES}
     parts = [f"{table.n_rows:,} objects".replace(",", "\u2009"),
              f"{len(table.columns)} columns"]
-    parts += [f"{n} {role}{'s' if n != 1 and role not in ('text',) else ''}"
+    parts += [f"{n} {ROLE_PLURALS[role] if n != 1 else role}"
               for role, n in counts.items() if n and role != "id"]
     named = f"named by **{table.id_column}**" if table.id_column else "named by row number"
     source = "sample table" if table_state.sample else "uploaded"
@@ -137,7 +140,8 @@ def _roles_editor(table) -> None:
         disabled=["column", "type", "missing", "distinct", "found as", "note"],
         column_config={"role": st.column_config.SelectboxColumn(
             "role", options=list(ROLES), required=True,
-            help="What the column means to the steps")})
+            help="What the column means to the steps"),
+            "note": st.column_config.TextColumn("note", width="large")})
     if pg.roles_error:
         st.error(pg.roles_error)
     changes = {name: role for name, role, old in

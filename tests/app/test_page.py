@@ -471,3 +471,20 @@ def test_apply_focus_changes_every_step_that_has_the_setting():
     assert kinds["relations"]["columns"] == ["edges", "vertices"]  # invariants only
     assert kinds["projection"]["columns"] == ["edges", "vertices", "planar"]
     assert "columns" not in kinds["overview"]
+
+
+def test_a_hand_edited_setting_out_of_range_is_reported_by_its_step():
+    first = open_page("quadratic_fields.csv")
+    saved = json.loads(share.study_text(study(first)))
+    projection = next(s for s in saved["steps"] if s["kind"] == "projection")
+    projection["params"].update(method="umap", n_neighbors=1)
+
+    second = open_page("graphs_up_to_7.csv")
+    second.file_uploader(key="share.open").upload(
+        "edited.study.json", json.dumps(saved).encode(), "application/json")
+    second.run()
+    assert not second.exception, [e.value for e in second.exception]
+    errors = texts(second.error)
+    assert any("n_neighbors" in e for e in errors), errors
+    kinds = [s.kind for s in study(second).steps]
+    assert results(second)[kinds.index("overview")] is not None
