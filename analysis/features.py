@@ -78,20 +78,14 @@ def default_feature_columns(table: Table, *, target: str | None = None,
             and c.name != target and c.name not in exclude and c.dtype != "empty"]
 
 
-def build_features(table: Table, *, columns: list[str] | None = None, target: str | None = None,
-                   array_encoding: str = "invariant", log_scale: str = "auto",
-                   missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeatureMatrix:
-    """Build the feature matrix of ``table``.
+def chosen_feature_columns(table, *, columns: list[str] | None = None,
+                           target: str | None = None, exclude: tuple[str, ...] = (),
+                           array_encoding: str = "invariant", log_scale: str = "auto",
+                           missing: str = "drop") -> list[str]:
+    """Check the feature settings and return the feature columns (StepError if unusable).
 
-    Parameters
-    ----------
-    columns: table columns to use; default every invariant, flag, category and array column
-        except ``target`` and ``exclude``.
-    target: a column whose missing cells also drop (or cannot be imputed in) a row.
-    array_encoding: "invariant" (sorted entries, sorted row and column sums, singular values,
-        eigenvalues or characteristic polynomial), "flat" (padded flattening) or "both".
-    log_scale: "auto" (signed log for integers beyond 64 bits), "never" or "always".
-    missing: "drop" rows with a missing feature or target, or "impute" (median / most common).
+    Shared by the in-memory and the partitioned feature builders, so both refuse the same
+    settings with the same words.
     """
     if array_encoding not in ARRAY_ENCODINGS:
         raise StepError(f"array encoding {array_encoding!r}: use one of "
@@ -115,6 +109,27 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     if not columns:
         raise StepError(f"{table.name}: no feature columns. Mark some columns as invariant, "
                         "flag, category or array.")
+    return list(columns)
+
+
+def build_features(table: Table, *, columns: list[str] | None = None, target: str | None = None,
+                   array_encoding: str = "invariant", log_scale: str = "auto",
+                   missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeatureMatrix:
+    """Build the feature matrix of ``table``.
+
+    Parameters
+    ----------
+    columns: table columns to use; default every invariant, flag, category and array column
+        except ``target`` and ``exclude``.
+    target: a column whose missing cells also drop (or cannot be imputed in) a row.
+    array_encoding: "invariant" (sorted entries, sorted row and column sums, singular values,
+        eigenvalues or characteristic polynomial), "flat" (padded flattening) or "both".
+    log_scale: "auto" (signed log for integers beyond 64 bits), "never" or "always".
+    missing: "drop" rows with a missing feature or target, or "impute" (median / most common).
+    """
+    columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
+                                     array_encoding=array_encoding, log_scale=log_scale,
+                                     missing=missing)
     blocks: list[np.ndarray] = []
     features: list[Feature] = []
     notes: list[str] = []

@@ -19,13 +19,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import StepError
-from analysis.features import (
-    ARRAY_ENCODINGS,
-    LOG_SCALES,
-    MISSING_POLICIES,
-    Feature,
-    default_feature_columns,
-)
+from analysis.features import Feature, chosen_feature_columns
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
@@ -77,27 +71,9 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
 
     ``medians`` gives the fill value of each numeric column when ``missing="impute"``.
     """
-    if array_encoding not in ARRAY_ENCODINGS:
-        raise StepError(f"array encoding {array_encoding!r}: use one of "
-                        f"{', '.join(ARRAY_ENCODINGS)}.")
-    if log_scale not in LOG_SCALES:
-        raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
-    if missing not in MISSING_POLICIES:
-        raise StepError(f"missing-value policy {missing!r}: use drop or impute.")
-    if columns is None:
-        columns = default_feature_columns(table, target=target, exclude=exclude)
-    else:
-        for name in columns:
-            info = table.column(name)
-            if info.role in ("id", "text"):
-                raise StepError(
-                    f"{table.name}: column {name!r} has the role {info.role} and cannot be a "
-                    "feature. Give it the role invariant, category, flag or array first.")
-        if target is not None and target in columns:
-            raise StepError(f"{table.name}: the target {target!r} cannot also be a feature.")
-    if not columns:
-        raise StepError(f"{table.name}: no feature columns. Mark some columns as invariant, "
-                        "flag, category or array.")
+    columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
+                                     array_encoding=array_encoding, log_scale=log_scale,
+                                     missing=missing)
     features: list[Feature] = []
     levels: dict[str, list[str]] = {}
     log_columns: list[str] = []
