@@ -64,16 +64,18 @@ def show_study() -> None:
     pg = state.page()
     table = table_state.table
     cache = state.cache()
-    missing = [i for i, step in enumerate(study.steps)
-               if result_key(table, step.kind, step.params) not in cache]
+    keys = [result_key(table, step.kind, step.params) for step in study.steps]
+    missing = [key for key in keys if key not in cache]
+    # Steps that could not run are not "waiting": their message says what to change.
+    waiting = [key for key in missing if key not in pg.errors]
     top = st.container()
     progress = None
     if pg.run_all and missing:
         progress = top.progress(0.0, text=f"Running {len(missing)} of "
                                 f"{len(study.steps)} steps")
-    elif missing and not pg.run_all:
+    elif waiting and not pg.run_all:
         left, right = top.columns([3, 1], vertical_alignment="center")
-        left.caption(f"{_count(len(missing), 'step')} not yet run with "
+        left.caption(f"{_count(len(waiting), 'step')} not yet run with "
                      "the current settings.")
         right.button("Run every step", key="study.run_all", on_click=_request_run_all,
                      icon=":material/play_arrow:", width="stretch")
