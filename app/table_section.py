@@ -91,6 +91,7 @@ def _upload_box(pg) -> None:
             loading.put_table(loaded)
     elif upload is None:
         pg.upload_id = None
+        pg.load_error = None  # the file that could not be read is gone from the box
         current = state.table_state()
         if current is not None and current.sample:
             st.caption(f"Until you choose a file, the page shows the sample {current.name}.")
@@ -118,6 +119,8 @@ def table_header() -> None:
         st.error(pg.load_error)
     with st.expander("Columns and roles", icon=":material/table_rows:"):
         _roles_editor(table)
+        for warning in table.warnings:
+            st.caption(f"Note: {warning}")
     _focus_row(table)
 
 
