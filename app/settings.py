@@ -103,19 +103,19 @@ def column(ctx: StepContext, name: str, label: str, columns: list[str], *,
 
 def columns(ctx: StepContext, name: str, label: str, options: list[str], defaults: list[str],
             *, help: str | None = None, container=st) -> None:
-    """A multiselect of column names; choosing exactly the defaults stores None (= default),
-    so that a saved study keeps meaning "every suitable column"."""
+    """A multiselect of column names; left empty it means the defaults (stored as None, so
+    that a saved study keeps meaning "every suitable column" on a wider table)."""
     current = ctx.params.get(name)
-    shown = list(defaults) if current is None else list(current)
+    shown = [] if current is None else list(current)
     options = list(options) + [c for c in shown if c not in options]
     key = ctx.key(name)
     _sync(key, shown)
 
     def convert(value):
-        return None if list(value) == list(defaults) or not value else list(value)
+        return None if not value or list(value) == list(defaults) else list(value)
 
     container.multiselect(label, options, key=key, help=help,
-                          placeholder="every suitable column",
+                          placeholder=f"every suitable column ({len(defaults)})",
                           on_change=_changed, args=(ctx.uid, name, key, convert))
 
 
@@ -187,7 +187,7 @@ def feature_block(ctx: StepContext, *, label: str = "target", container=st) -> N
               if c.role in ("invariant", "flag", "category", "array") and c.name != target]
     defaults = default_feature_columns(table, target=target)
     columns(ctx, "columns", "Feature columns", usable, defaults, container=container,
-            help="The invariants the step looks at. Leave as is for every invariant, flag, "
+            help="The invariants the step looks at. Leave empty for every invariant, flag, "
                  "category and array column but the target.")
     left, middle, right = container.columns(3)
     if "array_encoding" in ctx.params and table.names_with_role("array"):

@@ -212,30 +212,32 @@ def _focus_row(table) -> None:
     chosen = focus.get("columns")
     usable = [c.name for c in table.columns
               if c.role in ("invariant", "flag", "category", "array") and c.name != target]
-    _sync("focus.features", [c for c in (chosen or defaults) if c in usable])
-    left, right = st.columns([1, 3])
+    _sync("focus.features", [c for c in (chosen or []) if c in usable])
+    arrays = table.names_with_role("array")
+    left, middle, right = st.columns(3)
     left.selectbox("Target", [None] + targets, key="focus.target", placeholder=NONE_LABEL,
                    format_func=lambda v: NONE_LABEL if v is None else v,
                    on_change=_focus_changed, args=("target", "focus.target"),
                    help="The invariant or property to explain. Steps colour by it, the "
                         "separator predicts it, clusterings are compared with it.")
-    right.multiselect("Feature columns", usable, key="focus.features",
-                      placeholder="every suitable column",
-                      on_change=_focus_changed, args=("columns", "focus.features"),
-                      help="The invariants the steps look at (all steps but the overview).")
-    arrays = table.names_with_role("array")
-    left, right, _ = st.columns([1, 1, 2])
-    left.selectbox("Group column", [None] + groups, key="focus.groups", placeholder=NONE_LABEL,
-                   format_func=lambda v: NONE_LABEL if v is None else v,
-                   on_change=_focus_changed, args=("groups", "focus.groups"),
-                   help="Objects with the same value (for a matrix column: the same matrix "
-                        "up to permuting rows and columns) stay on one side of every "
-                        "train/test split.")
+    middle.selectbox("Group column", [None] + groups, key="focus.groups",
+                     placeholder=NONE_LABEL,
+                     format_func=lambda v: NONE_LABEL if v is None else v,
+                     on_change=_focus_changed, args=("groups", "focus.groups"),
+                     help="Objects with the same value (for a matrix column: the same matrix "
+                          "up to permuting rows and columns) stay on one side of every "
+                          "train/test split.")
     right.selectbox("Matrix and list columns", list(ENCODINGS), key="focus.encoding",
                     format_func=lambda v: ENCODINGS[v], disabled=not arrays,
                     on_change=_focus_changed, args=("array_encoding", "focus.encoding"),
                     help="How array cells become features: invariants that do not change "
                          "when rows and columns are permuted, or the entries themselves.")
+    st.multiselect("Feature columns", usable, key="focus.features",
+                   placeholder=f"every invariant, flag, category and array column but the "
+                               f"target ({len(defaults)})",
+                   on_change=_focus_changed, args=("columns", "focus.features"),
+                   help="The invariants the steps look at (all steps but the overview). "
+                        "Leave empty for all of them.")
 
 
 def _sync(key: str, value) -> None:

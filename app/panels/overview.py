@@ -19,16 +19,20 @@ def settings_panel(ctx: settings.StepContext) -> None:
 
 
 def show(ctx: settings.StepContext, result) -> None:
-    left, middle, right = st.columns(3)
-    left.metric("Objects (rows)", display.number(result.rows))
-    middle.metric("Columns", len(result.columns))
-    right.metric("Named by", result.id_column or "row number")
+    named = f"named by {result.id_column}" if result.id_column else "named by row number"
+    missing = sum(1 for c in result.columns if c.missing)
+    st.markdown(f"{display.plural(result.rows, 'object')}, "
+                f"{display.plural(len(result.columns), 'column')}, {named}; "
+                + (f"{display.plural(missing, 'column')} with missing values."
+                   if missing else "no missing values."))
     for warning in result.warnings:
         st.caption(f"Note: {warning}")
-    st.dataframe(_columns_frame(result), hide_index=True, key=ctx.key("columns_table"))
     if result.correlations:
         lines = [f"- `{a}` and `{b}`: Pearson r = {r:+.3f}" for a, b, r in result.correlations]
         st.markdown("**Invariants that move together** (|r| ≥ 0.9)\n" + "\n".join(lines))
+    with st.expander(f"Every column: ranges, means, common values ({len(result.columns)})",
+                     icon=":material/view_list:"):
+        st.dataframe(_columns_frame(result), hide_index=True, key=ctx.key("columns_table"))
     show_figures(result, ctx.table, ctx.key("figures"), vector=ctx.vector)
 
 

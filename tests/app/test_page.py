@@ -488,3 +488,15 @@ def test_a_hand_edited_setting_out_of_range_is_reported_by_its_step():
     assert any("n_neighbors" in e for e in errors), errors
     kinds = [s.kind for s in study(second).steps]
     assert results(second)[kinds.index("overview")] is not None
+
+
+def test_study_wide_feature_columns_narrow_the_steps_and_empty_means_all():
+    at = open_page("quadratic_fields.csv")
+    at.multiselect(key="focus.features").set_value(["discriminant", "units"]).run()
+    projection = [s for s in study(at).steps if s.kind == "projection"][0]
+    assert projection.params["columns"] == ["discriminant", "units"]
+    assert results(at)[1].features == ("discriminant", "units")
+    at.multiselect(key="focus.features").set_value([]).run()
+    projection = [s for s in study(at).steps if s.kind == "projection"][0]
+    assert projection.params["columns"] is None
+    assert len(results(at)[1].features) > 2
