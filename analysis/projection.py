@@ -195,7 +195,8 @@ class ProjectionStep:
                 notes.append(f"{METHOD_TITLES[self.method]} ran on a random sample of {limit} "
                              f"of the {n} rows (seed {self.seed}); {METHOD_TITLES[self.method]} "
                              "does not scale exactly to large tables.")
-        work = values[keep]
+        # every row projected: no copy of the matrix (PCA and LDA never sample)
+        work = values[keep] if sampled else values
         extra: dict = {}
         if self.method == "pca":
             coordinates, extra = _pca(work, fm.names)
