@@ -124,20 +124,22 @@ def open_study(study: Study) -> str | None:
     sentence says so.
     """
     current = state.table_state()
+    chosen = current
     note = None
     if current is None or (study.table != current.name
                            and study.table_digest != current.base.digest):
         if study.table in sample_names():
-            state.set_table(load_sample(study.table))
-            state.page().show_sample = study.table
+            chosen = load_sample(study.table)
         elif current is not None:
             note = (f"This study was saved with the table {study.table}, which is not loaded; "
                     f"it runs on {current.name}. Load {study.table} to repeat its numbers.")
-    table_state = state.table_state()
-    # Check the study's id column and roles against the table before it replaces the page.
-    table_state.table = table_state.base
-    table_state.settings = TableSettings(id_column=table_state.base.id_column)
-    apply_table_settings(study, table_state.base)
+    # Check the study's id column and roles against the table before anything changes.
+    apply_table_settings(study, chosen.base)
+    if chosen is not current:
+        state.set_table(chosen)
+        state.page().show_sample = chosen.name
+    chosen.table = chosen.base
+    chosen.settings = TableSettings(id_column=chosen.base.id_column)
     state.start_study(study)
     state.page().focus = {"target": _first_target(study)}
     return note

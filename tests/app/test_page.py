@@ -500,3 +500,19 @@ def test_study_wide_feature_columns_narrow_the_steps_and_empty_means_all():
     projection = [s for s in study(at).steps if s.kind == "projection"][0]
     assert projection.params["columns"] is None
     assert len(results(at)[1].features) > 2
+
+
+def test_a_sample_study_whose_roles_do_not_fit_leaves_the_page_as_it_was():
+    first = open_page("quadratic_fields.csv")
+    saved = json.loads(share.study_text(study(first)))
+    saved["table_settings"]["roles"] = {"units": "flag"}  # units are 2, 4 or 6: no flag
+
+    second = open_page("graphs_up_to_7.csv")
+    before = study(second)
+    second.file_uploader(key="share.open").upload(
+        "fields.study.json", json.dumps(saved).encode(), "application/json")
+    second.run()
+    assert not second.exception
+    assert any("units" in e for e in texts(second.error)), texts(second.error)
+    assert table(second).name == "graphs_up_to_7.csv"
+    assert study(second) is before
