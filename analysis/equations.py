@@ -354,7 +354,8 @@ def _latex_sum(terms: Sequence[Term]) -> str:
     for position, term in enumerate(terms):
         magnitude = abs(term.coef)
         coefficient = "" if magnitude == 1 else _latex_number(magnitude)
-        body = coefficient + _latex_term_body(term)
+        # a thin space keeps "2 interior_points" from reading as one symbol
+        body = (coefficient + r"\," if coefficient else "") + _latex_term_body(term)
         if position == 0:
             pieces.append(f"-{body}" if term.coef < 0 else body)
         else:

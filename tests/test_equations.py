@@ -250,7 +250,8 @@ def test_text_and_latex_of_rational_terms():
         notes=(),
     )
     assert equation.text == "2*h_11 - 1/3*h_21 <= -5/2"
-    assert equation.latex() == r"2\mathrm{h\_11} - \tfrac{1}{3}\mathrm{h\_21} \leq -\tfrac{5}{2}"
+    assert equation.latex() == (r"2\,\mathrm{h\_11} - \tfrac{1}{3}\,\mathrm{h\_21} "
+                                r"\leq -\tfrac{5}{2}")
     assert equation.to_json()["terms"][1] == {"feature": "h_21", "coef": "-1/3"}
 
 
