@@ -238,8 +238,8 @@ class ProjectionStep:
         self.check()
         if self.method == "lda" and self.target is None:
             raise StepError(f"{table.name}: LDA needs a target: the column whose classes the "
-                            "picture should separate (e.g. --target is_reflexive). Without "
-                            "one, use PCA, UMAP or t-SNE.")
+                            "picture should separate (choose a target, e.g. is_reflexive). "
+                            "Without one, use PCA, UMAP or t-SNE.")
         if self.target is not None:
             table.column(self.target)
 
