@@ -787,6 +787,14 @@ def _count_distinct(values: np.ndarray) -> int:
     """
     if len(values) == 0:
         return 0
+    if values.dtype.kind in "iu":
+        low, high = int(values.min()), int(values.max())
+        if high - low < 4 * len(values):
+            # integers in a short range (most invariants): one count per value in it; the
+            # offsets are taken in int64 (signed) or in the unsigned type, so none wraps
+            offsets = values.astype(np.int64, copy=False) - low if values.dtype.kind == "i" \
+                else values - values.dtype.type(low)
+            return int(np.count_nonzero(np.bincount(offsets)))
     ordered = np.sort(values)
     return 1 + int(np.count_nonzero(ordered[1:] != ordered[:-1]))
 
