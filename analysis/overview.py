@@ -97,6 +97,13 @@ def _summarize(table: Table, info) -> ColumnSummary:
     base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
                 distinct=info.distinct)
     if info.dtype in ("integer", "real"):
+        raw = series.to_numpy()
+        if raw.dtype.kind in "iu" and len(raw):
+            low, high = int(raw.min()), int(raw.max())
+            if max(abs(low), abs(high)) * len(raw) < 2**53:
+                # every value and every partial sum is exact in float64 here, so these are
+                # the minimum, maximum and mean computed below, without a float copy
+                return ColumnSummary(**base, minimum=low, maximum=high, mean=float(raw.mean()))
         values = table.numeric(info.name)
         finite = values[np.isfinite(values)]
         if len(finite):
