@@ -144,20 +144,19 @@ def _correlations(table: Table, top: int) -> tuple:
     n = table.n_rows
     # the rows pandas' frame.sample(200_000, random_state=0) draws, taken column by column
     rows = np.random.RandomState(0).choice(n, 200_000, replace=False) if n > 200_000 else None
-
-    def sampled(name: str) -> np.ndarray:
+    # one row per column, each filled in one contiguous write
+    values = np.empty((len(names), n if rows is None else len(rows)))
+    for j, name in enumerate(names):
         raw = table.frame[name].to_numpy()
-        return (raw if rows is None else raw[rows]).astype(np.float64)
-
-    values = np.column_stack([sampled(name) for name in names])
+        values[j] = raw if rows is None else raw[rows]
     if np.isfinite(values).all():
         # numpy's product of the centred matrix with itself: many times faster than pandas'
         # pairwise loop, and the same coefficients when no value is missing
         with np.errstate(divide="ignore", invalid="ignore"):
-            matrix = np.corrcoef(values, rowvar=False)
+            matrix = np.corrcoef(values)
     else:
         # pairwise-complete rows where values are missing, as pandas counts them
-        matrix = pd.DataFrame(values).corr().to_numpy()
+        matrix = pd.DataFrame(values.T).corr().to_numpy()
     pairs = []
     for i in range(len(names)):
         for j in range(i + 1, len(names)):
