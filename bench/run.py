@@ -96,7 +96,8 @@ def main(argv: list[str] | None = None) -> int:
                 print(_case_line(entry), flush=True)
         if not args.no_extras:
             largest = tables[max(sizes)]
-            report["extras"]["inspect"] = [inspect_process(tables[r], args.repeats,
+            # whole processes of a second or two: more repeats cost little and steady the median
+            report["extras"]["inspect"] = [inspect_process(tables[r], max(5, args.repeats),
                                                            args.timeout) for r in sizes]
             report["extras"]["imports"] = import_costs()
             report["extras"]["umap_compile"] = umap_compile(args.timeout)
