@@ -57,12 +57,15 @@ class FeatureMatrix:
     @property
     def exact_columns(self) -> tuple[bool, ...]:
         """True for features that are exact integers in the table's own units."""
-        flags = []
-        for j, feature in enumerate(self.features):
-            column = self.values[:, j]
-            flags.append(feature.kind in ("value", "flag", "onehot") and bool(
-                np.all(column == np.round(column)) and np.all(np.abs(column) < 2**53)))
-        return tuple(flags)
+        # whole rows at a time, in blocks: one pass over the matrix in memory order, rather
+        # than a strided pass per column (seconds on a million rows)
+        whole = np.ones(self.values.shape[1], dtype=bool)
+        for start in range(0, len(self.values), 65_536):
+            block = self.values[start:start + 65_536]
+            whole &= np.all(block == np.round(block), axis=0)
+            whole &= np.all(np.abs(block) < 2**53, axis=0)
+        return tuple(feature.kind in ("value", "flag", "onehot") and bool(whole[j])
+                     for j, feature in enumerate(self.features))
 
     @property
     def columns(self) -> list[str]:
