@@ -60,6 +60,9 @@ CHANCE_LEVEL = 0.05
 KERNEL_PERMUTATION_ROWS = 1000
 KERNEL_CURVE_ROWS = 3000
 KERNEL_PERMUTATION_TEST_ROWS = 2000
+# On a large table each permutation refit uses at most this many training rows (the observed
+# score is refitted on the same rows): 50 refits then cost about one fit on 250000 rows.
+LARGE_PERMUTATION_ROWS = 5000
 NYSTROEM_COMPONENTS = 1000
 # A Nystroem machine is fitted on at most this many rows (a stratified sample of the training
 # rows past it): its features take components x rows x 8 bytes, and the linear solver copies
@@ -296,11 +299,12 @@ class SeparatorStep:
     kernel_approximation: for rbf and poly2 past ``kernel_row_limit`` rows: "exact" refuses,
         "auto" and "nystroem" use Nystroem features with a linear machine, "sample" fits
         the exact machine on a sample of ``kernel_row_limit`` rows.
-    large_table_rows: from this many rows on, the permutation test uses at most
-        ``sample_rows`` rows and at most 50 permutations, splits after the first are fitted
-        on a sample of ``sample_rows`` of their training rows, and split 1's separator (not
-        a refit on every row) starts the equation search. The equation is searched on a
-        sample of ``sample_rows`` rows past that size, then checked on every row.
+    large_table_rows: from this many rows on, the permutation test makes at most 50
+        refits, each on at most 5000 (and ``sample_rows``) training rows, scored on at most
+        ``sample_rows`` test rows; splits after the first are fitted on a sample of
+        ``sample_rows`` of their training rows; and split 1's separator (not a refit on
+        every row) starts the equation search. The equation is searched on a sample of
+        ``sample_rows`` rows past that size, then checked on every row.
     max_terms, max_denominator: limits for the exact equation (None: the search's defaults).
     """
 
@@ -751,6 +755,7 @@ class _Run:
         train_limit = KERNEL_PERMUTATION_ROWS if kernel else step.sample_rows
         if self.big:
             count = min(count, 50)
+            train_limit = min(train_limit, LARGE_PERMUTATION_ROWS)
         rng = np.random.default_rng([step.seed, 11])
         strata = None if self.regression else self.y
         train_part = train if len(train) <= train_limit else _subsample(
