@@ -628,9 +628,13 @@ class _Run:
             if self.big and index > 0:
                 # a large table: split 1 is fitted on all its training rows; the others,
                 # which only give the spread over splits, on a sample of them
-                fit_rows = _subsample(train, None if strata is None else strata[train],
-                                      step.sample_rows, step.seed + 41 + index,
-                                      groups=self.group_labels)
+                if self.group_labels is None:
+                    fit_rows = _share_sample(train, None if strata is None else strata[train],
+                                             step.sample_rows, step.seed + 41 + index)
+                else:
+                    fit_rows = _subsample(train, None if strata is None else strata[train],
+                                          step.sample_rows, step.seed + 41 + index,
+                                          groups=self.group_labels)
             model = self._fit(fit_rows, seed_offset=index)
             predicted = _predict(model, self.X[test])
             metrics = self._split_metrics(fit_rows, test, predicted)
@@ -1237,6 +1241,33 @@ def _subsample(rows: np.ndarray, strata: np.ndarray | None, size: int, seed: int
     except ValueError:
         chosen = rng.choice(rows, size, replace=False)
     return np.sort(chosen)
+
+
+def _share_sample(rows: np.ndarray, strata: np.ndarray | None, size: int,
+                  seed: int) -> np.ndarray:
+    """A seeded sample of about ``size`` of ``rows``, each class in its share and at least once.
+
+    ``strata`` are class codes lined up with ``rows`` (None: a plain random sample). Drawn
+    with numpy a class at a time, which on half a million rows is many times faster than
+    scikit-learn's stratified splitter.
+    """
+    rows = np.asarray(rows)
+    if len(rows) <= size:
+        return rows
+    rng = np.random.default_rng([seed, 7])
+    if strata is None:
+        return np.sort(rng.choice(rows, size, replace=False))
+    order = np.argsort(strata, kind="stable")
+    counts = np.bincount(strata)
+    chosen = []
+    start = 0
+    for count in counts:
+        if count:
+            members = rows[order[start:start + count]]
+            take = min(int(count), max(1, round(size * int(count) / len(rows))))
+            chosen.append(rng.choice(members, take, replace=False))
+        start += count
+    return np.sort(np.concatenate(chosen))
 
 
 def _identical_across(X: np.ndarray, train: np.ndarray, test: np.ndarray) -> int:
