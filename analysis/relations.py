@@ -1874,6 +1874,10 @@ class RelationsStep:
                     exact[name] = values.astype(np.int64)
                 else:
                     exact[name] = table.exact(name)
+            elif dtype == "boolean" and table.frame[name].dtype.kind == "b":
+                # a flag with no missing cell: its bools are read as 0 and 1 at once, the
+                # same values table.exact gives one row at a time
+                exact[name] = table.frame[name].to_numpy()
             else:
                 exact[name] = table.exact(name)
         return find_relations(
