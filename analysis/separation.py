@@ -1279,10 +1279,19 @@ def _identical_across(X: np.ndarray, train: np.ndarray, test: np.ndarray) -> int
     """
     import pandas as pd
 
-    mantissa, exponent = np.frexp(X)
-    rounded = np.ldexp(np.round(mantissa * 2.0**30) / 2.0**30, exponent) + 0.0
+    # adding 0.0 turns -0.0 into 0.0. Integers below 2**30 already have at most 30
+    # significant bits, so only the other columns need their mantissas rounded
+    rounded = X + 0.0
+    whole = np.ones(X.shape[1], dtype=bool)
+    for start in range(0, len(X), 65_536):
+        block = X[start:start + 65_536]
+        whole &= np.all((block == np.round(block)) & (np.abs(block) < 2.0**30), axis=0)
+    for j in np.flatnonzero(~whole):
+        mantissa, exponent = np.frexp(X[:, j])
+        rounded[:, j] = np.ldexp(np.round(mantissa * 2.0**30) / 2.0**30, exponent) + 0.0
     hashes = pd.util.hash_pandas_object(pd.DataFrame(rounded), index=False).to_numpy()
-    return int(np.isin(hashes[test], hashes[train]).sum())
+    # a hash table lookup: the same count as np.isin, without sorting a million hashes
+    return int(pd.Series(hashes[test]).isin(hashes[train]).sum())
 
 
 # ----------------------------------------------------------------------------------------
