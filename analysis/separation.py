@@ -1044,7 +1044,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
 def _predict(model, X: np.ndarray) -> np.ndarray:
     """Predictions of a fitted pipeline (a two-class kernel machine through _decision)."""
     if _two_class_svc(model) is None:
-        return _in_blocks(model.predict, X)
+        return _in_blocks(model, model.predict, X)
     last = model[-1]
     return last.classes_[(_decision(model, X) > 0).astype(np.int64)]
 
@@ -1058,7 +1058,7 @@ def _decision(model, X: np.ndarray) -> np.ndarray:
     """
     last = _two_class_svc(model)
     if last is None:
-        return np.asarray(_in_blocks(model.decision_function, X), dtype=np.float64)
+        return np.asarray(_in_blocks(model, model.decision_function, X), dtype=np.float64)
     from sklearn.metrics.pairwise import pairwise_kernels
 
     scaled = model[0].transform(X)
@@ -1075,12 +1075,19 @@ def _decision(model, X: np.ndarray) -> np.ndarray:
     return out
 
 
-def _in_blocks(function, X: np.ndarray) -> np.ndarray:
-    """``function`` of the rows of ``X``, evaluated ``PREDICT_BLOCK_ROWS`` rows at a time."""
-    if len(X) <= PREDICT_BLOCK_ROWS:
+def _in_blocks(model, function, X: np.ndarray) -> np.ndarray:
+    """``function`` of the rows of ``X``, evaluated ``PREDICT_BLOCK_ROWS`` rows at a time when
+    ``model`` makes Nystroem features (each row becomes up to 1000 of them); at once else."""
+    if len(X) <= PREDICT_BLOCK_ROWS or not _makes_nystroem_features(model):
         return function(X)
     return np.concatenate([function(X[start:start + PREDICT_BLOCK_ROWS])
                            for start in range(0, len(X), PREDICT_BLOCK_ROWS)])
+
+
+def _makes_nystroem_features(model) -> bool:
+    pipeline = getattr(model, "regressor_", model)
+    return any(type(part).__name__ == "Nystroem"
+               for _, part in getattr(pipeline, "steps", ()))
 
 
 def _two_class_svc(model):
