@@ -762,7 +762,10 @@ class _Run:
             train_limit = min(train_limit, LARGE_PERMUTATION_ROWS)
         rng = np.random.default_rng([step.seed, 11])
         strata = None if self.regression else self.y
-        train_part = train if len(train) <= train_limit else _subsample(
+        # a large table's few thousand rows are drawn class by class with numpy (see
+        # _share_sample); scikit-learn's stratified splitter takes longer than the refits
+        sampler = _share_sample if self.big else _subsample
+        train_part = train if len(train) <= train_limit else sampler(
             train, None if strata is None else strata[train], train_limit, step.seed + 23)
         test_limit = KERNEL_PERMUTATION_TEST_ROWS if kernel else step.sample_rows
         test_part = test if len(test) <= test_limit else np.sort(
