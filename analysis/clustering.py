@@ -25,7 +25,7 @@ from threadpoolctl import threadpool_limits
 from analysis.errors import StepError
 from analysis.features import FeatureMatrix, build_features, target_values
 from analysis.plain import plain, row_id
-from analysis.projection import require_spread, sample_positions, standardized
+from analysis.projection import prepared, sample_positions
 from analysis.table import Table
 
 METHODS = ("auto", "kmeans", "gmm", "agglomerative", "hdbscan")
@@ -178,8 +178,7 @@ class ClusteringStep:
                             missing=self.missing)
         n = len(fm.rows)
         notes = list(fm.notes)
-        require_spread(fm.values, table.name, "clustering")
-        values = standardized(fm.values) if self.standardize else fm.values
+        values = prepared(fm.values, self.standardize, table.name, "clustering")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
         ks = self._ks(n, table.name)

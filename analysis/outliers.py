@@ -41,7 +41,7 @@ from threadpoolctl import threadpool_limits
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
 from analysis.plain import plain, row_id
-from analysis.projection import require_spread, sample_positions, standardized
+from analysis.projection import prepared, sample_positions
 from analysis.table import Table
 
 MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
@@ -179,8 +179,7 @@ class OutliersStep:
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
         notes = list(fm.notes)
-        require_spread(fm.values, table.name, "a ranking of objects")
-        values = standardized(fm.values) if self.standardize else fm.values
+        values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
         measures: dict[str, _Measure] = {}

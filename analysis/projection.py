@@ -43,16 +43,52 @@ def sample_positions(n: int, size: int, seed: int) -> np.ndarray:
 def require_spread(values: np.ndarray, table_name: str, what: str) -> None:
     """StepError when every row has the same features: nothing to tell apart."""
     if len(values) and not np.any(np.ptp(values, axis=0) > 0):
-        raise StepError(f"{table_name}: every row has the same value in every feature column, "
-                        f"so there is nothing for {what} to tell apart. Choose other "
-                        "columns.")
+        _no_spread(table_name, what)
+
+
+def _no_spread(table_name: str, what: str):
+    raise StepError(f"{table_name}: every row has the same value in every feature column, "
+                    f"so there is nothing for {what} to tell apart. Choose other columns.")
 
 
 def standardized(values: np.ndarray) -> np.ndarray:
-    """Columns shifted to mean 0 and scaled to standard deviation 1 (constant columns to 0)."""
-    from sklearn.preprocessing import StandardScaler
+    """Columns shifted to mean 0 and scaled to standard deviation 1 (constant columns to 0).
 
-    return StandardScaler().fit_transform(values)
+    The same numbers as scikit-learn's StandardScaler (population standard deviation, a
+    column that does not vary left at 0), in three passes over a new matrix; ``values`` is
+    not changed.
+    """
+    out, _ = _centred_and_scaled(values)
+    return out
+
+
+def prepared(values: np.ndarray, standardize: bool, table_name: str, what: str) -> np.ndarray:
+    """The matrix a step works on: standardized or as it is, refused if no column varies."""
+    if not standardize:
+        require_spread(values, table_name, what)
+        return values
+    out, varies = _centred_and_scaled(values)
+    if len(values) and not varies.any():
+        _no_spread(table_name, what)
+    return out
+
+
+def _centred_and_scaled(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    n = len(values)
+    if n == 0:
+        return np.array(values, dtype=np.float64), np.zeros(values.shape[1], dtype=bool)
+    mean = values.mean(axis=0)
+    out = np.subtract(values, mean, dtype=np.float64)
+    variance = np.einsum("ij,ij->j", out, out) / n
+    # A column of one repeated value has a mean that rounding may put a hair away from the
+    # value, so its variance is not exactly 0: treat a variance within rounding of the
+    # mean's own error as none (common practice; StandardScaler does the same).
+    eps = np.finfo(np.float64).eps
+    varies = variance > n * eps * variance + (n * eps * mean) ** 2
+    scale = np.where(varies, np.sqrt(variance), 1.0)
+    out[:, ~varies] = 0.0
+    out /= scale
+    return out, varies
 
 
 @dataclass(frozen=True, eq=False)
@@ -181,8 +217,7 @@ class ProjectionStep:
             raise StepError(f"{table.name}: a projection needs at least 3 rows with every "
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
-        require_spread(fm.values, table.name, "a projection")
-        values = standardized(fm.values) if self.standardize else fm.values
+        values = prepared(fm.values, self.standardize, table.name, "a projection")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
         keep = np.arange(n)
@@ -248,10 +283,11 @@ def _pca(values: np.ndarray, names: list[str]):
     from sklearn.decomposition import PCA
 
     model = PCA(n_components=min(values.shape)).fit(values)
-    scores = model.transform(values)
     components = model.components_
+    # only the two coordinates drawn: a (rows x 2) product instead of every component's scores
+    shown = components[:2]
+    coordinates = _two_columns(values @ shown.T - model.mean_ @ shown.T)
     ratio = tuple(float(r) for r in model.explained_variance_ratio_)
-    coordinates = _two_columns(scores)
     second = components[1] if len(components) > 1 else np.zeros(len(names))
     loadings = {name: (float(components[0, j]), float(second[j]))
                 for j, name in enumerate(names)}
@@ -372,5 +408,5 @@ def _two_columns(scores: np.ndarray) -> np.ndarray:
     return np.column_stack([scores[:, 0], np.zeros(len(scores))])
 
 
-__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "require_spread", "sample_positions",
-           "standardized"]
+__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "prepared", "require_spread",
+           "sample_positions", "standardized"]

@@ -413,9 +413,10 @@ class _Run:
         fm = build_features(table, columns=step.columns, target=step.target,
                             array_encoding=step.array_encoding, log_scale=step.log_scale,
                             missing=step.missing, exclude=_excluded(table, step))
-        self.fm = fm
         self.notes.extend(fm.notes)
         self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
+        # one copy of the matrix, in the row order the solvers want, shared with the features
+        self.fm = dataclasses.replace(fm, values=self.X)
         self.regression = is_numeric_target(table, step.target)
         raw = target_values(table, step.target, fm.rows)
         if self.regression:
