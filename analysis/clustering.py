@@ -20,13 +20,13 @@ from dataclasses import dataclass
 from typing import ClassVar
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from analysis.errors import StepError
 from analysis.features import FeatureMatrix, build_features, target_values
 from analysis.plain import plain, row_id
 from analysis.projection import prepared, sample_positions
 from analysis.table import Table
+from analysis.threads import threads_for
 
 METHODS = ("auto", "kmeans", "gmm", "agglomerative", "hdbscan")
 # Methods that take a number of clusters; "auto" sweeps these.
@@ -185,11 +185,9 @@ class ClusteringStep:
         scorer = _Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
         runs: list[tuple[SweepEntry, np.ndarray]] = []
-        with warnings.catch_warnings(), threadpool_limits(1):
+        with warnings.catch_warnings(), threads_for(n):
             # duplicate rows (common in tables of invariants) make k-means and mixtures warn
             # that fewer distinct clusters exist than asked; the sweep records what was found.
-            # The matrices here are small (features x features): BLAS threads only add
-            # waiting, many times the work itself when the cores are busy.
             warnings.simplefilter("ignore")
             for method in methods:
                 runs.extend(self._sweep(method, values, ks, scorer, notes))

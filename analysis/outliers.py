@@ -36,13 +36,13 @@ from typing import ClassVar
 
 import numpy as np
 import pandas as pd
-from threadpoolctl import threadpool_limits
 
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
 from analysis.plain import plain, row_id
 from analysis.projection import prepared, sample_positions
 from analysis.table import Table
+from analysis.threads import threads_for
 
 MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
             "separator", "relations")
@@ -183,10 +183,11 @@ class OutliersStep:
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
         measures: dict[str, _Measure] = {}
-        with warnings.catch_warnings(), threadpool_limits(1):
-            # small matrices: threads only wait on each other (see analysis.clustering)
+        with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            measures["isolation forest"] = _isolation(values, self.seed)
+            with threads_for(n):
+                measures["isolation forest"] = _isolation(values, self.seed)
+            # neighbour searches gain from every core at any size
             measures["local outlier factor"] = _local_outlier_factor(
                 values, self.n_neighbors, self.sample_size, self.seed, notes)
             centre, k = self._centre_distance(table, fm, values, notes)

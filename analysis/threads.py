@@ -1,0 +1,27 @@
+"""How many threads the numerical libraries may use inside a step.
+
+On small matrices the BLAS and OpenMP threads of numpy and scikit-learn mostly wait on each
+other, and on a busy laptop the waiting can cost many times the work itself; on large ones
+they pay. Steps wrap such work in :func:`threads_for`, which allows one thread below
+``SMALL_ROWS`` rows and leaves the libraries' own choice above it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+
+# Rows below which one thread is faster or as fast (measured with bench/run.py on 2 cores:
+# k-means and isolation forests gain nothing from a second thread below about this size).
+SMALL_ROWS = 50_000
+
+
+def threads_for(n_rows: int):
+    """A context in which the numerical libraries use one thread for a small matrix."""
+    if n_rows >= SMALL_ROWS:
+        return contextlib.nullcontext()
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(1)
+
+
+__all__ = ["SMALL_ROWS", "threads_for"]
