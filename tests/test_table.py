@@ -516,3 +516,34 @@ def test_missing_file_and_folder(tmp_path):
         load_table(tmp_path / "absent.csv")
     with pytest.raises(TableError, match=r"is a folder, not a table file"):
         load_table(tmp_path)
+
+
+def test_integer_columns_are_kept_in_the_smallest_exact_type(tmp_path):
+    # a column of values near the top of int8 (so that 2*a - b would wrap if any later
+    # arithmetic stayed in int8), one needing int16, one past 32 bits, and an unsigned one
+    a = np.arange(100, 128, dtype=np.int64)
+    frame = {"a": a, "b": 3 * a, "c": a * 2**40, "u": a.astype(np.uint64)}
+    path = tmp_path / "small.parquet"
+    pq.write_table(pa.table(frame), path)
+    table = load_table(path)
+    dtypes = {name: table.frame[name].dtype for name in frame}
+    assert dtypes == {"a": np.int8, "b": np.int16, "c": np.int64, "u": np.int8}
+    assert [c.dtype for c in table.columns] == ["integer"] * 4
+    assert table.exact("c") == [int(v) * 2**40 for v in a]
+    assert table.numeric("b").tolist() == [float(3 * v) for v in a]
+
+
+def test_relations_on_narrow_integer_columns_do_not_wrap(tmp_path):
+    # b = 3a holds on every row; in int8 arithmetic 3*127 would wrap to 125 and break it
+    from analysis.relations import RelationsStep
+
+    a = np.arange(60, 128, dtype=np.int64)
+    path = tmp_path / "narrow.parquet"
+    pq.write_table(pa.table({"a": a, "b": 3 * a, "c": (a * 7) % 11}), path)
+    table = load_table(path)
+    assert table.frame["a"].dtype == np.int8
+    result = RelationsStep(bounds=False).run(table)
+    texts = [r.text for r in result.relations if not getattr(r, "trivial", False)]
+    assert any("3*a" in text and "b" in text for text in texts), texts
+    found = [r for r in result.relations if "3*a" in r.text]
+    assert all(r.exact and not r.violations and r.holds_on == len(a) for r in found)
