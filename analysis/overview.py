@@ -9,7 +9,11 @@ import numpy as np
 import pandas as pd
 
 from analysis.plain import plain
+from analysis.projection import sample_positions
 from analysis.table import Table
+
+# Rows past which correlations between invariants are computed on a random sample.
+CORRELATION_ROWS = 200_000
 
 
 @dataclass(frozen=True)
@@ -44,6 +48,8 @@ class OverviewResult:
     warnings: tuple[str, ...]
     id_column: str | None
     correlations: tuple[tuple[str, str, float], ...] = ()
+    # rows the correlations were computed on when that is a sample; None for every row
+    correlation_rows: int | None = None
     kind: ClassVar[str] = "overview"
 
     def to_json(self) -> dict:
@@ -55,6 +61,7 @@ class OverviewResult:
             "columns": [c.to_json() for c in self.columns],
             "warnings": list(self.warnings),
             "correlations": [{"a": a, "b": b, "pearson": r} for a, b, r in self.correlations],
+            "correlation_rows": self.correlation_rows,
         })
 
     def summary(self) -> str:
@@ -71,6 +78,9 @@ class OverviewResult:
                          f"missing {c.missing:<6} distinct {c.distinct}{extra}")
         for a, b, r in self.correlations[:5]:
             lines.append(f"  strongly correlated: {a} ~ {b} (Pearson r = {r:+.3f})")
+        if self.correlations and self.correlation_rows is not None:
+            lines.append(f"  (correlations on a random sample of {self.correlation_rows} of "
+                         f"the {self.rows} rows)")
         lines.extend(f"  warning: {w}" for w in self.warnings)
         return "\n".join(lines)
 
@@ -85,10 +95,11 @@ class OverviewStep:
 
     def run(self, table: Table) -> OverviewResult:
         summaries = [_summarize(table, c) for c in table.columns]
+        pairs, sampled = _correlations(table, self.top_correlations, self.seed)
         return OverviewResult(
             table=table.name, digest=table.digest, rows=table.n_rows,
             columns=tuple(summaries), warnings=table.warnings, id_column=table.id_column,
-            correlations=_correlations(table, self.top_correlations),
+            correlations=pairs, correlation_rows=sampled,
         )
 
 
@@ -136,14 +147,16 @@ def _summarize(table: Table, info) -> ColumnSummary:
     return ColumnSummary(**base, common=common)
 
 
-def _correlations(table: Table, top: int) -> tuple:
+def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]:
+    """The strongly correlated pairs, and the sample size if they come from a sample."""
     names = [c.name for c in table.columns
              if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
     if len(names) < 2 or top <= 0:
-        return ()
+        return (), None
     n = table.n_rows
-    # the rows pandas' frame.sample(200_000, random_state=0) draws, taken column by column
-    rows = np.random.RandomState(0).choice(n, 200_000, replace=False) if n > 200_000 else None
+    # past CORRELATION_ROWS rows, a random sample of that many, in table order so that each
+    # column is read front to back
+    rows = sample_positions(n, CORRELATION_ROWS, seed) if n > CORRELATION_ROWS else None
     # one row per column, each filled in one contiguous write
     values = np.empty((len(names), n if rows is None else len(rows)))
     for j, name in enumerate(names):
@@ -164,4 +177,4 @@ def _correlations(table: Table, top: int) -> tuple:
             if np.isfinite(r) and abs(r) >= 0.9:
                 pairs.append((names[i], names[j], float(r)))
     pairs.sort(key=lambda p: -abs(p[2]))
-    return tuple(pairs[:top])
+    return tuple(pairs[:top]), None if rows is None else len(rows)

@@ -371,6 +371,9 @@ def _overview(data: dict) -> str:
         parts.append(_table(["column", "column", "Pearson r"],
                             [[p.get("a"), p.get("b"), p.get("pearson")] for p in pairs],
                             numeric=(2,)))
+        if data.get("correlation_rows"):
+            parts.append(f"<p>Computed on a random sample of {_e(data['correlation_rows'])} "
+                         f"of the {_e(data.get('rows'))} rows.</p>")
     warnings = data.get("warnings") or []
     parts.extend(f"<p class=\"warning\">{_e(w)}</p>" for w in warnings)
     return "\n".join(parts)

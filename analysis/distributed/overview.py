@@ -11,10 +11,9 @@ from __future__ import annotations
 import numpy as np
 
 from analysis.distributed.common import Context, tree
+from analysis.overview import CORRELATION_ROWS as IN_MEMORY_CORRELATION_ROWS
 from analysis.overview import ColumnSummary, OverviewResult
 
-# Rows at which the in-memory overview switches to a sample for correlations.
-IN_MEMORY_CORRELATION_ROWS = 200_000
 STRONG = 0.9
 
 

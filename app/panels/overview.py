@@ -30,6 +30,9 @@ def show(ctx: settings.StepContext, result) -> None:
     if result.correlations:
         lines = [f"- `{a}` and `{b}`: Pearson r = {r:+.3f}" for a, b, r in result.correlations]
         st.markdown("**Invariants that move together** (|r| ≥ 0.9)\n" + "\n".join(lines))
+        if result.correlation_rows is not None:
+            st.caption(f"Correlations computed on a random sample of "
+                       f"{result.correlation_rows:,} of the {result.rows:,} rows.")
     with st.expander(f"Every column: ranges, means, common values ({len(result.columns)})",
                      icon=":material/view_list:"):
         st.dataframe(_columns_frame(result), hide_index=True, key=ctx.key("columns_table"))
