@@ -661,22 +661,45 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
     import pyarrow.parquet as pq
 
     try:
-        arrow = pq.read_table(pa.BufferReader(data))
+        source = pq.ParquetFile(pa.BufferReader(data))
+        schema = source.schema_arrow
+        names = schema.names
+        _check_column_names(name, [str(n) for n in names])
+        # a column at a time, each integer column narrowed before the next is read: peak
+        # memory near one wide column plus the narrowed table, not the whole table twice
+        # (see bench/RESULTS.md)
+        columns = [_narrowed(source.read(columns=[n]).column(0))
+                   for n in names]
+        arrow = pa.table(columns, names=names).replace_schema_metadata(schema.metadata)
+        del columns
     except (pa.ArrowException, OSError, ValueError) as exc:
         raise TableError(f"{name}: not a readable Parquet file ({_one_line(exc)}). "
                          "Check the file or export it again.") from None
-    names = arrow.column_names
-    _check_column_names(name, [str(n) for n in names])
     try:
         # integer columns with nulls come back as Python ints and None rather than float64,
         # which would round integers past 2**53. One block per column, each column's Arrow
-        # memory released as it is converted: no copy of the whole table into one block,
-        # and peak memory near one table's size rather than three (see bench/RESULTS.md)
+        # memory released as it is converted
         return arrow.to_pandas(types_mapper=None, integer_object_nulls=True,
                                split_blocks=True, self_destruct=True)
     except (pa.ArrowException, ValueError, TypeError) as exc:
         raise TableError(f"{name}: Parquet columns could not be converted "
                          f"({_one_line(exc)}).") from None
+
+
+def _narrowed(column):
+    """An Arrow integer column with no gap, in the smallest signed type holding it exactly;
+    any other column as it is."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not pa.types.is_integer(column.type) or column.null_count or len(column) == 0:
+        return column
+    extremes = pc.min_max(column)
+    low, high = extremes["min"].as_py(), extremes["max"].as_py()
+    if high > _INT64_MAX:
+        return column
+    narrow = pa.from_numpy_dtype(_smallest_integer_type(low, high))
+    return column if narrow == column.type else column.cast(narrow)
 
 
 def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.DataFrame:
