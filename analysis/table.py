@@ -381,21 +381,22 @@ def _decode(data: bytes, name: str, warnings: list[str]) -> str:
 def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
                     limits: Limits) -> pd.DataFrame:
     text = _decode(data, name, warnings)
-    if "\x00" in text:
+    # pandas parses UTF-8 bytes directly, several times faster than a str (and without the
+    # str's four bytes per character): the file's own bytes when they are UTF-8
+    if data.startswith(b"\xef\xbb\xbf"):
+        raw = data[3:]
+    elif data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        raw = text.encode("utf-8")
+    else:
+        raw = data
+    if b"\x00" in raw:
         raise TableError(f"{name}: contains NUL bytes; this is not a text table. "
                          "Check that the file is CSV or TSV.")
     if fmt == "tsv":
         delimiter = "\t"
     else:
         delimiter = _sniff_delimiter(text)
-    # The header is the first record, read the way pandas reads it: a quoted name may hold a
-    # line break, and old files end lines with a lone carriage return.
-    try:
-        header = next(csv.reader(io.StringIO(text[:_HEADER_CHARS], newline=""),
-                                 delimiter=delimiter))
-    except (csv.Error, StopIteration):
-        header = []
-    header = [h.strip() for h in header]
+    header = [h.strip() for h in _header_record(text, delimiter)]
     if not any(header):
         raise TableError(f"{name}: the first line is empty; it must name the columns.")
     _check_column_names(name, header)
@@ -406,7 +407,7 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
         )
     try:
         frame = pd.read_csv(
-            io.StringIO(text), sep=delimiter, skipinitialspace=False,
+            io.BytesIO(raw), encoding="utf-8", sep=delimiter, skipinitialspace=False,
             keep_default_na=False, na_values=_MISSING_WORDS,
             # one row past the limit is enough to know the limit is passed
             nrows=limits.max_rows + 1,
@@ -464,6 +465,30 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
         if present.map(lambda t: bool(_INTEGER_TEXT.match(t))).all():
             frame.isetitem(position, cells.astype(object).where(cells.notna(), None))
     return frame
+
+
+def _header_record(text: str, delimiter: str) -> list[str]:
+    """The first record, read the way pandas reads it: a quoted name may hold a line break,
+    and old files end lines with a lone carriage return.
+
+    Read from the first megabyte when a second record starts there (so the first one ended
+    inside it); otherwise from up to _HEADER_CHARS characters. Copying a whole large file
+    into the csv module's reader would take a fifth of the loading time.
+    """
+    short = 1 << 20
+    if len(text) > short:
+        reader = csv.reader(io.StringIO(text[:short], newline=""), delimiter=delimiter)
+        try:
+            header = next(reader)
+            next(reader)
+            return header
+        except (csv.Error, StopIteration):
+            pass
+    try:
+        return next(csv.reader(io.StringIO(text[:_HEADER_CHARS], newline=""),
+                               delimiter=delimiter))
+    except (csv.Error, StopIteration):
+        return []
 
 
 def _sniff_delimiter(text: str) -> str:
