@@ -82,7 +82,8 @@ def main(argv: list[str] | None = None) -> int:
     own_folder = args.workdir is None
     folder = Path(args.workdir or tempfile.mkdtemp(prefix="scout-bench-"))
     report = {"started": _now(), "machine": machine(), "load_before": _load(),
-              "sizes": sizes, "repeats": args.repeats, "cases": [], "extras": {}}
+              "sizes": sizes, "repeats": args.repeats, "cases": [], "extras": {},
+              "skipped": sorted(f"{case}@{rows}" for case, rows in skip)}
     try:
         tables = {}
         for rows in sizes:
@@ -433,6 +434,8 @@ def markdown(report: dict, notes: str) -> str:
              f"- commit {m['commit']}",
              f"- sizes {', '.join(f'{s:,}' for s in report['sizes'])} rows x 20 columns; "
              f"{report['repeats']} repeats, medians; each measurement in a fresh process",
+             *([f"- left out of this run (--skip): {', '.join(report['skipped'])}"]
+               if report.get("skipped") else []),
              "", "## Goals", "", "| goal | measured | met |", "|---|---|---|"]
     for g in report["goals"]:
         met = "n/a" if g["met"] is None else ("yes" if g["met"] else "**no**")
