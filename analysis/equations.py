@@ -34,6 +34,7 @@ __all__ = [
     "PolynomialEquation",
     "QuadraticForm",
     "Term",
+    "choose_constant",
     "expand_poly2",
     "find_formula",
     "find_linear_equation",
@@ -501,7 +502,7 @@ def _compare(scores: np.ndarray, denominator: int, constant: Fraction, relation:
     constant = Fraction(constant)
     if scores.dtype.kind == "f":
         # Floating point scores: the constant sits well inside a gap of the scores (see
-        # _choose_constant), so rounding the constant to a float does not move any row.
+        # choose_constant), so rounding the constant to a float does not move any row.
         threshold = float(constant)
         return np.asarray(scores >= threshold if relation == ">=" else scores <= threshold)
     p, q = constant.numerator, constant.denominator
@@ -1159,7 +1160,7 @@ def _scalar(value):
     return value
 
 
-def _choose_constant(low, high, denominator: int, relation: str, exact: bool) -> Fraction:
+def choose_constant(low, high, denominator: int, relation: str, exact: bool) -> Fraction:
     """A readable constant inside the gap ``(low, high) / denominator``."""
     low_q = Fraction(low) / denominator
     high_q = Fraction(high) / denominator
@@ -1214,7 +1215,7 @@ def _evaluate(space: _Space, candidate: tuple, positive: np.ndarray) -> _Evaluat
     if cut is None:
         return None
     fewest, relation, low, high, counts = cut
-    constant = _choose_constant(low, high, denominator, relation, exact)
+    constant = choose_constant(low, high, denominator, relation, exact)
     rounded = None if exact else _rounded_constant(counts, relation, fewest, low, high)
     if rounded is not None:
         constant = rounded

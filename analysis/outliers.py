@@ -182,7 +182,7 @@ class OutliersStep:
         values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
-        measures: dict[str, _Measure] = {}
+        measures: dict[str, Measure] = {}
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             with threads_for(n):
@@ -296,12 +296,12 @@ class OutliersStep:
         # the score counts broken relations and bounds; attaining a rare bound is said but
         # not scored, since the corners of any cloud of points attain some bound
         counts = np.array([len(broken_texts.get(row_id(r), [])) for r in row_ids], dtype=float)
-        return _Measure(counts, None, lambda i, s: bool(texts[i]),
+        return Measure(counts, None, lambda i, s: bool(texts[i]),
                         "no row breaks a relation", say_all=lambda i: list(texts[i]))
 
 
 @dataclass(frozen=True)
-class _Measure:
+class Measure:
     """Scores of every row on one measure (higher: stranger), and how to say why.
 
     ``say(i, standing)`` states row i's score in words; ``notable(i, standing)`` tells
@@ -320,7 +320,7 @@ class _Measure:
         return [self.say(i, standing)]
 
 
-def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> _Measure:
+def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
     """Distance from the row's cluster centre over the distance of the cluster's median row.
 
     k-means readily gives a far-off row a cluster of its own, at distance 0 from its own
@@ -352,7 +352,7 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> _Measure
         return (f"{times} times as far from the centre of cluster {labels[i]} as the "
                 f"cluster's typical row (k-means, k = {k})")
 
-    return _Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
+    return Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
                     lambda i, s: s >= STANDS_OUT, "no spread within clusters")
 
 
@@ -380,14 +380,14 @@ def _combined(standing: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.n
     return stacked.max(axis=0), stacked.mean(axis=0)
 
 
-def _percent(standing: float) -> str:
+def percent_of_rows(standing: float) -> str:
     """ "every other row", or a percentage rounded down (99.7% reads 99%, never 100%)."""
     if standing >= 1.0:
         return "every other row"
     return f"{math.floor(standing * 100)}% of rows"
 
 
-def _isolation(values: np.ndarray, seed: int) -> _Measure:
+def _isolation(values: np.ndarray, seed: int) -> Measure:
     from sklearn.ensemble import IsolationForest
 
     model = IsolationForest(n_estimators=200, random_state=seed).fit(values)
@@ -396,13 +396,13 @@ def _isolation(values: np.ndarray, seed: int) -> _Measure:
 
     def say(i: int, standing: float) -> str:
         return (f"isolated by few random cuts: isolation forest score {scores[i]:.2f}, higher "
-                f"than {_percent(standing)}")
+                f"than {percent_of_rows(standing)}")
 
-    return _Measure(scores, say, lambda i, s: s >= STANDS_OUT, "isolation forest")
+    return Measure(scores, say, lambda i, s: s >= STANDS_OUT, "isolation forest")
 
 
 def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int, seed: int,
-                          notes: list[str]) -> _Measure:
+                          notes: list[str]) -> Measure:
     from sklearn.neighbors import LocalOutlierFactor
 
     n = len(values)
@@ -423,13 +423,13 @@ def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int
     def say(i: int, standing: float) -> str:
         size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
         return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
-                f"nearest neighbours, higher than {_percent(standing)}")
+                f"nearest neighbours, higher than {percent_of_rows(standing)}")
 
-    return _Measure(factor, say, lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
+    return Measure(factor, say, lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
                     "local outlier factor")
 
 
-def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> _Measure:
+def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> Measure:
     from sklearn.linear_model import LogisticRegression, Ridge
     from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
     from sklearn.pipeline import make_pipeline
@@ -448,11 +448,11 @@ def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> _M
                      "cross-validated ridge regression on standardized features.")
 
         def say(i: int, standing: float) -> str:
-            return (f"{target} is {_value(truth[i])} but the other invariants predict "
+            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
                     f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
                     "cross-validated linear fit)")
 
-        return _Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
+        return Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
                         "separator")
     labels = np.array([str(v) for v in raw], dtype=object)
     classes, counts = np.unique(labels, return_counts=True)
@@ -485,10 +485,10 @@ def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> _M
         return (f"predicted {target} = {said} with probability {probability[i, guess[i]]:.2f} "
                 f"(the table says {labels[i]})")
 
-    return _Measure(1.0 - p_true, say, lambda i, s: guess[i] != truth[i], "separator")
+    return Measure(1.0 - p_true, say, lambda i, s: guess[i] != truth[i], "separator")
 
 
-def _value(x: float) -> str:
+def number_text(x: float) -> str:
     return str(int(x)) if float(x).is_integer() else f"{x:.4g}"
 
 

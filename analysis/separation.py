@@ -412,7 +412,7 @@ class _Run:
         step, table = self.step, self.table
         fm = build_features(table, columns=step.columns, target=step.target,
                             array_encoding=step.array_encoding, log_scale=step.log_scale,
-                            missing=step.missing, exclude=_excluded(table, step))
+                            missing=step.missing, exclude=excluded_columns(table, step))
         self.notes.extend(fm.notes)
         self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
         # one copy of the matrix, in the row order the solvers want, shared with the features
@@ -449,7 +449,7 @@ class _Run:
         # the rows (a million rows took seconds); the outcome is the same
         flags = raw.astype(bool) if len(raw) and \
             infer_dtype(raw, skipna=False) == "boolean" else None
-        labels = raw if flags is not None else np.array([_label(v) for v in raw], dtype=object)
+        labels = raw if flags is not None else np.array([class_label(v) for v in raw], dtype=object)
         values, counts = _count_labels(labels, flags)
         if len(values) < 2:
             only = values[0] if values else None
@@ -481,7 +481,7 @@ class _Run:
             if flags is not None and isinstance(positive, bool):
                 self.y = (flags == positive).astype(np.int64)
             else:
-                self.y = np.array([1 if _same_label(v, positive) else 0 for v in labels],
+                self.y = np.array([1 if same_label(v, positive) else 0 for v in labels],
                                   dtype=np.int64)
             if len(values) > 2 and min(int(self.y.sum()), int(len(self.y) - self.y.sum())) < 2:
                 raise StepError(f"{self.table.name}: class {positive!r} of {step.target!r} "
@@ -1396,7 +1396,7 @@ def _std_of(splits: list[dict]) -> dict:
 # Labels
 
 
-def _label(value):
+def class_label(value):
     """A class label as a plain value: bool, int for whole numbers, else str."""
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
@@ -1420,7 +1420,7 @@ def _count_labels(labels: np.ndarray, flags: np.ndarray | None = None) -> tuple[
     return values, [counts[v] for v in values]
 
 
-def _same_label(a, b) -> bool:
+def same_label(a, b) -> bool:
     return type(a) is type(b) and a == b
 
 
@@ -1430,7 +1430,7 @@ def _resolve_positive(values: list, counts: list[int], requested, target: str,
     rarer of two."""
     if requested is not None:
         for v in values:
-            if _same_label(v, _label(requested)) or str(v).lower() == str(requested).lower():
+            if same_label(v, class_label(requested)) or str(v).lower() == str(requested).lower():
                 return v
         shown = ", ".join(repr(v) for v in values[:20])
         raise StepError(f"{table_name}: positive class {requested!r} is not a value of "
@@ -1449,7 +1449,7 @@ def _resolve_positive(values: list, counts: list[int], requested, target: str,
 # Augmentation
 
 
-def _excluded(table: Table, step: SeparatorStep) -> tuple[str, ...]:
+def excluded_columns(table: Table, step: SeparatorStep) -> tuple[str, ...]:
     """Columns left out of the default features: the group column when it is not a matrix
     (a group label is a name for the object, not an invariant of it)."""
     if step.groups is None or step.columns is not None:

@@ -796,7 +796,7 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
     for column, dtype, note in infos:
         series = typed[column]
         missing, distinct = _missing_and_distinct(series, dtype)
-        role = _detect_role(column, dtype, distinct, missing, n, id_taken)
+        role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
         if dtype == "big integer":
@@ -860,7 +860,7 @@ def _array_token(value: np.ndarray) -> tuple:
     return (value.shape, value.tobytes() if value.dtype != object else repr(value.tolist()))
 
 
-def _detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
+def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
                  id_taken: bool) -> str:
     unique = distinct == n - missing and missing == 0 and n > 1
     if dtype == "array":

@@ -520,7 +520,7 @@ def prepare(case: str, side: str, paths: dict):
                 # the matching part: the distance-from-centre measure gives every row 0, so
                 # the step leaves it out, as it does any measure that tells no rows apart
                 def no_centre(self, table, fm, values, notes):
-                    return outliers._Measure(np.zeros(len(values)), None, None,
+                    return outliers.Measure(np.zeros(len(values)), None, None,
                                              "switched off for the benchmark"), None
 
                 OutliersStep._centre_distance = no_centre

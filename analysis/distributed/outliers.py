@@ -305,22 +305,22 @@ def _separator_scores(block, values, index, spec) -> dict:
 
 def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int, notes):
     """The in-memory step's measures (scores and how to say why) from the gathered scores."""
-    from analysis.outliers import STANDS_OUT, _Measure, _percent
+    from analysis.outliers import STANDS_OUT, Measure, percent_of_rows
 
     used = {}
     forest = measures["isolation forest"]
-    used["isolation forest"] = _Measure(
+    used["isolation forest"] = Measure(
         forest, lambda i, s: (f"isolated by few random cuts: isolation forest score "
-                              f"{forest[i]:.2f}, higher than {_percent(s)}"),
+                              f"{forest[i]:.2f}, higher than {percent_of_rows(s)}"),
         lambda i, s: s >= STANDS_OUT, "isolation forest")
     factor = measures["local outlier factor"]
 
     def say_lof(i, s):
         size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
         return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
-                f"nearest neighbours, higher than {_percent(s)}")
+                f"nearest neighbours, higher than {percent_of_rows(s)}")
 
-    used["local outlier factor"] = _Measure(factor, say_lof,
+    used["local outlier factor"] = Measure(factor, say_lof,
                                             lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
                                             "local outlier factor")
     relative = measures["distance from cluster centre"]
@@ -337,7 +337,7 @@ def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int
         return (f"{times} times as far from the centre of cluster {labels[i]} as the "
                 f"cluster's typical row (k-means, k = {k})")
 
-    used["distance from cluster centre"] = _Measure(
+    used["distance from cluster centre"] = Measure(
         np.nan_to_num(relative, posinf=np.finfo(float).max), say_centre,
         lambda i, s: s >= STANDS_OUT, "no spread within clusters")
     if "separator" in measures:
@@ -348,18 +348,18 @@ def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int
 
 
 def _separator_measure(step, scores, details):
-    from analysis.outliers import RESIDUAL_REASON, _Measure, _value
+    from analysis.outliers import RESIDUAL_REASON, Measure, number_text
 
     target = step.target
     if "z" in details:
         truth, predicted, z = details["truth"], details["predicted"], details["z"]
 
         def say(i, s):
-            return (f"{target} is {_value(truth[i])} but the other invariants predict "
+            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
                     f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
                     "cross-validated linear fit)")
 
-        return _Measure(scores, say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON, "separator")
+        return Measure(scores, say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON, "separator")
     guess, truth = details["guess"], details["truth_index"]
     probability, labels = details["guess_probability"], details["labels"]
     classes = sorted(set(labels.tolist()))
@@ -372,13 +372,13 @@ def _separator_measure(step, scores, details):
         return (f"predicted {target} = {said} with probability {probability[i]:.2f} "
                 f"(the table says {labels[i]})")
 
-    return _Measure(scores, say_class, lambda i, s: guess[i] != truth[i], "separator")
+    return Measure(scores, say_class, lambda i, s: guess[i] != truth[i], "separator")
 
 
 def _relations(ctx, step, plan, row_ids, notes):
     """The relations step on Dask, as a measure: relations and bounds each row breaks."""
     from analysis.distributed.relations import run_relations
-    from analysis.outliers import RARELY_ATTAINED, _Measure
+    from analysis.outliers import RARELY_ATTAINED, Measure
     from analysis.plain import row_id
     from analysis.relations import RelationsStep, relation_reasons
 
@@ -411,7 +411,7 @@ def _relations(ctx, step, plan, row_ids, notes):
                     f"attains the bound {bound.text} ({company})")
     texts = [broken.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
     counts = np.array([len(broken.get(row_id(r), [])) for r in row_ids], dtype=float)
-    return _Measure(counts, None, lambda i, s: bool(texts[i]), "no row breaks a relation",
+    return Measure(counts, None, lambda i, s: bool(texts[i]), "no row breaks a relation",
                     say_all=lambda i: list(texts[i]))
 
 

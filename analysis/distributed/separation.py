@@ -44,11 +44,11 @@ def run_separator(step, ctx: Context):
     if step.augment_permutations:
         raise StepError(f"{table.name}: augment_permutations needs matrix columns, which the "
                         "dask engine does not encode; set it to 0 or use --engine local.")
-    from analysis.separation import _excluded
+    from analysis.separation import excluded_columns
 
     plan = plan_for(ctx, columns=step.columns, target=step.target,
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing, exclude=_excluded(table, step))
+                    missing=step.missing, exclude=excluded_columns(table, step))
     size = min(table.n_rows, SAMPLE_ROWS)
     sample, positions = sample_table(table, ctx.client, size, seed=step.seed)
     result = step.run(sample)
@@ -87,10 +87,10 @@ def _columns_of(block, names: list[str]) -> dict:
 
 
 def _positive(block, positive_class) -> np.ndarray:
-    from analysis.separation import _label, _same_label
+    from analysis.separation import class_label, same_label
 
-    want = _label(positive_class)
-    return np.array([_same_label(_label(v), want) for v in block.target], dtype=bool)
+    want = class_label(positive_class)
+    return np.array([same_label(class_label(v), want) for v in block.target], dtype=bool)
 
 
 def exact_scores(terms, columns: dict, exact: bool):
@@ -196,7 +196,7 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     """The equation with its constant chosen on every row and its violations counted there."""
     from dask import delayed
 
-    from analysis.equations import _choose_constant  # the search's own rule for a constant
+    from analysis.equations import choose_constant  # the search's own rule for a constant
 
     names = plan.names
     missing = [n for t in equation.terms for n in t.factor_names() if n not in names]
@@ -219,7 +219,7 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
             _, relation, low, high = cut
             denominator = exact_scores(equation.terms, {n: np.zeros(1) for n in names},
                                        exact)[1]
-            constant = _choose_constant(low, high, denominator, relation, exact)
+            constant = choose_constant(low, high, denominator, relation, exact)
             gap = _gap_text(Fraction(low) / denominator, Fraction(high) / denominator,
                             relation, exact)
             settled = dataclasses.replace(equation, relation=relation, constant=constant)

@@ -582,7 +582,7 @@ def _tree(items: list, combine, *, final=None, split_every: int = 8):
 
 def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
                   fmt: str) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
-    from analysis.table import _detect_role  # one rule for both engines
+    from analysis.table import detect_role  # one rule for both engines
 
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
@@ -594,7 +594,7 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
             how.append((column, convert))
         missing = f["missing"]
         distinct = _distinct_of(f, dtype)
-        role = _detect_role(column, dtype, distinct, missing, n, id_taken)
+        role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
         if dtype == "big integer":
