@@ -8,7 +8,7 @@ import re
 
 import streamlit as st
 
-from analysis.figures import figures_for
+from analysis.figures import figures_for, picture_bytes
 from app import display
 
 
@@ -92,10 +92,10 @@ def show_figure(figure, key: str, *, title: str, table=None, vector: bool = Fals
     if vector:
         row = st.container(horizontal=True, gap="small", vertical_alignment="center")
         row.caption("Save this picture as")
-        row.download_button("SVG", data=lambda f=figure: f.to_image(format="svg"),
+        row.download_button("SVG", data=lambda f=figure: picture_bytes(f, "svg"),
                             file_name=f"{name}.svg", mime="image/svg+xml",
                             key=f"{key}.svg", icon=":material/download:", on_click="ignore")
-        row.download_button("PDF", data=lambda f=figure: f.to_image(format="pdf"),
+        row.download_button("PDF", data=lambda f=figure: picture_bytes(f, "pdf"),
                             file_name=f"{name}.pdf", mime="application/pdf",
                             key=f"{key}.pdf", icon=":material/download:", on_click="ignore")
 

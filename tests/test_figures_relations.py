@@ -88,3 +88,4 @@ def test_no_figure_for_integers_past_float_precision():
     table = read_table(text.encode(), "big.csv")
     assert statement_figure(table, (("a", Fraction(1)), ("b", Fraction(-1))), "=",
                             Fraction(big), text="a - b = big") is None
+

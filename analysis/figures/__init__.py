@@ -24,3 +24,19 @@ def figures_for(result, table=None, **options) -> list:
             return []
         raise
     return module.figures(result, table, **options)
+
+
+def picture_bytes(figure, fmt: str, attempts: int = 2) -> bytes:
+    """The figure as SVG, PDF or PNG bytes, drawn by kaleido.
+
+    Kaleido drives a headless chromium; on a busy machine its first page load now and then
+    fails before the drawing code is in place, and a second attempt succeeds. The last
+    failure is raised.
+    """
+    for attempt in range(attempts):
+        try:
+            return figure.to_image(format=fmt)
+        except Exception:  # noqa: BLE001 - kaleido raises several kinds; retried, then raised
+            if attempt == attempts - 1:
+                raise
+    raise ValueError("attempts must be at least 1")
