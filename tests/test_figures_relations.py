@@ -89,3 +89,20 @@ def test_no_figure_for_integers_past_float_precision():
     assert statement_figure(table, (("a", Fraction(1)), ("b", Fraction(-1))), "=",
                             Fraction(big), text="a - b = big") is None
 
+
+
+@pytest.mark.parametrize("shift", [0.0, 0.5])
+def test_distinct_pairs_match_numpy_unique_rows(shift):
+    # reference: numpy's np.unique over rows (axis=0), for whole numbers (keyed path) and
+    # for halves (sorted-rows path)
+    from analysis.figures.relations import _distinct_pairs
+
+    rng = np.random.default_rng(1)
+    x = rng.integers(-30, 40, size=5000).astype(float) + shift
+    y = rng.integers(-5, 900, size=5000).astype(float)
+    pairs, inverse, counts = _distinct_pairs(x, y)
+    want, want_inverse, want_counts = np.unique(np.column_stack([x, y]), axis=0,
+                                                return_inverse=True, return_counts=True)
+    assert np.array_equal(pairs, want)
+    assert np.array_equal(inverse, want_inverse.reshape(-1))
+    assert np.array_equal(counts, want_counts)

@@ -60,10 +60,7 @@ def statement_figure(table, terms, relation: str, constant, violations=(), *, te
             or np.abs(y[present]).max() >= 2**53:
         return None
     rows = np.flatnonzero(present)
-    pairs, first, inverse, counts = np.unique(np.column_stack([x[rows], y[rows]]), axis=0,
-                                              return_index=True, return_inverse=True,
-                                              return_counts=True)
-    inverse = inverse.reshape(-1)
+    pairs, inverse, counts = _distinct_pairs(x[rows], y[rows])
     a, b, c = float(a), float(b), float(constant)
     # rows on the line, within rounding of the terms' own size (the statement itself was
     # checked exactly by the step; this only decides which points to ring)
@@ -150,6 +147,25 @@ def _line(figure: go.Figure, pairs: np.ndarray, a: float, b: float, c: float,
         ys = (c - a * xs) / b
     figure.add_trace(go.Scatter(x=xs, y=ys, mode="lines", name=name, hoverinfo="skip",
                                 line=dict(color=MISSING_COLOUR, width=2, dash="dash")))
+
+
+def _distinct_pairs(x: np.ndarray, y: np.ndarray):
+    """The distinct (x, y) pairs in order, each row's pair, and how many rows share each.
+
+    Whole numbers in a modest range are paired through one integer key, many times faster
+    than sorting rows of two columns on a million rows; anything else is sorted as rows.
+    """
+    x_low, y_low = x.min(), y.min()
+    width = y.max() - y_low + 1
+    if np.all(x == np.round(x)) and np.all(y == np.round(y)) \
+            and (x.max() - x_low + 1) * width < 2**52:
+        keys = (x - x_low) * width + (y - y_low)
+        unique, inverse, counts = np.unique(keys, return_inverse=True, return_counts=True)
+        pairs = np.column_stack([unique // width + x_low, unique % width + y_low])
+        return pairs, inverse.reshape(-1), counts
+    pairs, inverse, counts = np.unique(np.column_stack([x, y]), axis=0, return_inverse=True,
+                                       return_counts=True)
+    return pairs, inverse.reshape(-1), counts
 
 
 def _padded(values: np.ndarray) -> tuple[float, float]:
