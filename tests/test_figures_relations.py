@@ -21,8 +21,8 @@ def _trace(figure, name):
 
 
 def _objects(trace) -> int:
-    # customdata holds the number of objects at each drawn pair first
-    return int(sum(int(row[0]) if np.ndim(row) else int(row) for row in trace.customdata))
+    # customdata holds the hover text first and the number of objects at the pair second
+    return int(sum(int(row[1]) for row in trace.customdata))
 
 
 @pytest.fixture(scope="module")
@@ -57,6 +57,18 @@ def test_trees_attain_the_edge_bound_of_connected_graphs(connected_graphs):
     assert any("vertices" in t and "edges" in t for t in titles), titles
 
 
+def test_points_of_value_pairs_are_not_taken_for_objects():
+    # with no id column the ids are row numbers; a count of objects at a pair must not be
+    # read as one of them by the page's point selection
+    from app.figure_view import row_traces
+
+    text = "a,b\n" + "\n".join(f"{i % 4},{i % 4 + 2 * (i % 3)}" for i in range(60)) + "\n"
+    table = read_table(text.encode(), "pairs.csv")
+    figure = statement_figure(table, (("a", Fraction(1)), ("b", Fraction(-1))), "<=",
+                              Fraction(0), text="a - b <= 0")
+    assert row_traces(figure, table) == set()
+
+
 def test_rows_breaking_a_relation_are_marked_with_their_ids():
     # y = 2x + 1 on every row but three planted ones
     x = np.arange(1, 201)
@@ -75,7 +87,7 @@ def test_rows_breaking_a_relation_are_marked_with_their_ids():
     figure = figures[0][1]
     marked = _trace(figure, "objects breaking it")
     assert _objects(marked) == 3
-    hover = " ".join(str(row[1]) for row in marked.customdata)
+    hover = " ".join(str(row[0]) for row in marked.customdata)
     assert all(f"obj{row}" in hover for row in planted)
     # drawn by their gap from the relation, which is the planted shift up to sign
     assert sorted(abs(v) for v in marked.y) == sorted(abs(v) for v in planted.values())

@@ -93,8 +93,11 @@ def statement_figure(table, terms, relation: str, constant, violations=(), *, te
         mode="markers", name="objects off the line",
         marker=dict(color=PALETTE[0], size=sizes[plain_pairs], opacity=0.55,
                     line=dict(width=0)),
-        customdata=counts[plain_pairs],
-        hovertemplate=hover + "%{customdata} objects<extra></extra>"))
+        # text first, the count second: a point here stands for a pair of values, not for
+        # one object, so nothing in customdata may read as a row id (selection lists ids)
+        customdata=np.array([[_objects_text(counts[k]), int(counts[k])]
+                             for k in plain_pairs], dtype=object),
+        hovertemplate=hover + "%{customdata[0]}<extra></extra>"))
     if gap_view:
         x_low, x_high = _padded(pairs[:, 0])
         figure.add_trace(go.Scatter(x=[x_low, x_high], y=[0, 0], mode="lines",
@@ -113,8 +116,9 @@ def statement_figure(table, terms, relation: str, constant, violations=(), *, te
             name=name,
             marker=dict(color=colour, size=sizes[marked] + 4, symbol=symbol,
                         line=dict(width=2, color=colour)),
-            customdata=np.array([[counts[k], listed[k]] for k in marked], dtype=object),
-            hovertemplate=hover + "%{customdata[0]} objects: %{customdata[1]}<extra></extra>"))
+            customdata=np.array([[f"{_objects_text(counts[k])}: {listed[k]}", int(counts[k])]
+                                 for k in marked], dtype=object),
+            hovertemplate=hover + "%{customdata[0]}<extra></extra>"))
     attained = int(counts[on_line].sum())
     note = f"{attained} objects on the line" if relation != "=" else \
         f"{int(counts[broken].sum())} objects break it"
@@ -166,6 +170,10 @@ def _distinct_pairs(x: np.ndarray, y: np.ndarray):
     pairs, inverse, counts = np.unique(np.column_stack([x, y]), axis=0, return_inverse=True,
                                        return_counts=True)
     return pairs, inverse.reshape(-1), counts
+
+
+def _objects_text(count) -> str:
+    return "1 object" if count == 1 else f"{int(count)} objects"
 
 
 def _padded(values: np.ndarray) -> tuple[float, float]:
