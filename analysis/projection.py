@@ -8,6 +8,7 @@ threshold they run on a random sample of stated size, and the result says so.
 
 from __future__ import annotations
 
+import math
 import time
 import warnings
 from dataclasses import dataclass
@@ -128,10 +129,14 @@ class ProjectionResult:
         if self.loadings is not None:
             loadings = [{"feature": name, "x": wx, "y": wy}
                         for name, (wx, wy) in self.loadings.items()]
-        return plain({
+        # a million coordinates are built as plain values directly rather than walked by
+        # plain(): ids through row_id, coordinates as floats (None where not finite)
+        ids = [row_id(r) for r in self.row_ids.tolist()] if len(self.row_ids) else []
+        xs = [v if math.isfinite(v) else None for v in np.asarray(self.x, float).tolist()]
+        ys = [v if math.isfinite(v) else None for v in np.asarray(self.y, float).tolist()]
+        coordinates = [{"row": r, "x": a, "y": b} for r, a, b in zip(ids, xs, ys)]
+        data = plain({
             "method": self.method,
-            "coordinates": [{"row": row_id(r), "x": float(a), "y": float(b)}
-                            for r, a, b in zip(self.row_ids, self.x, self.y)],
             "explained_variance_ratio": (list(self.explained_variance_ratio)
                                          if self.explained_variance_ratio is not None
                                          else None),
@@ -147,6 +152,7 @@ class ProjectionResult:
             "notes": list(self.notes),
             "elapsed_seconds": self.elapsed_seconds,
         })
+        return {"method": data.pop("method"), "coordinates": coordinates, **data}
 
     def summary(self) -> str:
         title = METHOD_TITLES[self.method]

@@ -268,3 +268,19 @@ def test_limits_can_be_raised_on_the_command_line(tmp_path, capsys, limit, code,
         assert re.search(match, _one_line_error(capsys, code))
     else:
         assert "10 rows" in capsys.readouterr().out
+
+
+def test_long_json_is_written_compact_and_reads_back_the_same(tmp_path, monkeypatch):
+    import json
+
+    from analysis import cli
+
+    payload = {"coordinates": [{"row": i, "x": i / 7, "y": -i} for i in range(50)]}
+    short = tmp_path / "short.json"
+    cli._write_json(str(short), payload)
+    assert "\n  " in short.read_text()
+    monkeypatch.setattr(cli, "INDENTED_JSON_CHARS", 100)
+    long = tmp_path / "long.json"
+    cli._write_json(str(long), payload)
+    assert "\n" not in long.read_text().rstrip("\n")
+    assert json.loads(long.read_text()) == json.loads(short.read_text()) == payload
