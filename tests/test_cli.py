@@ -271,8 +271,6 @@ def test_limits_can_be_raised_on_the_command_line(tmp_path, capsys, limit, code,
 
 
 def test_long_json_is_written_compact_and_reads_back_the_same(tmp_path, monkeypatch):
-    import json
-
     from analysis import cli
 
     payload = {"coordinates": [{"row": i, "x": i / 7, "y": -i} for i in range(50)]}
