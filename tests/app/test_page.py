@@ -97,6 +97,13 @@ def points(values) -> int:
     return len(values or [])
 
 
+def open_study_file(at: AppTest, name: str, data: bytes) -> AppTest:
+    """Open a study file through the share part's upload, and run the page."""
+    at.file_uploader(key="share.open").upload(name, data, "application/json")
+    at.run()
+    return at
+
+
 def upload(at: AppTest, name: str, data: bytes, mime: str = "text/csv") -> AppTest:
     if at.radio(key="table.source").value != "file":
         at.radio(key="table.source").set_value("file").run()
@@ -300,9 +307,7 @@ def test_a_saved_study_opened_in_a_new_session_gives_the_same_numbers():
     shown = texts(first.code) + [m.value for m in first.metric]
 
     second = open_page("graphs_up_to_7.csv")
-    second.file_uploader(key="share.open").upload("fields.study.json", saved.encode(),
-                                                 "application/json")
-    second.run()
+    open_study_file(second, "fields.study.json", saved.encode())
     assert not second.exception, [e.value for e in second.exception]
     assert table(second).name == "quadratic_fields.csv"
     assert study(second) == study_from_json(json.loads(saved))
@@ -313,9 +318,7 @@ def test_a_saved_study_opened_in_a_new_session_gives_the_same_numbers():
 def test_a_broken_study_file_is_refused_with_a_message():
     at = open_page("quadratic_fields.csv")
     before = study(at)
-    at.file_uploader(key="share.open").upload("bad.study.json", b'{"version": "x"}',
-                                             "application/json")
-    at.run()
+    open_study_file(at, "bad.study.json", b'{"version": "x"}')
     assert not at.exception
     assert any("bad.study.json" in e and "version" in e for e in texts(at.error))
     assert study(at) is before
@@ -330,9 +333,7 @@ def test_a_study_opened_on_a_changed_table_says_the_numbers_may_differ():
     assert changed != iris_csv()
     second = open_page("quadratic_fields.csv")
     upload(second, "iris.csv", changed)
-    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
-                                                 "application/json")
-    second.run()
+    open_study_file(second, "iris.study.json", saved.encode())
     assert not second.exception
     warnings = texts(second.warning)
     assert any("differ" in w and "iris.csv" in w for w in warnings), warnings
@@ -346,9 +347,7 @@ def test_a_study_of_a_table_not_on_the_page_runs_on_the_loaded_one_and_says_so()
 
     second = open_page("quadratic_fields.csv")
     upload(second, "other_flowers.csv", iris_csv().replace(b"5.1,", b"5.0,", 1))
-    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
-                                                 "application/json")
-    second.run()
+    open_study_file(second, "iris.study.json", saved.encode())
     assert not second.exception
     assert any("iris.csv" in i and "not loaded" in i for i in texts(second.info))
     assert table(second).name == "other_flowers.csv"
@@ -362,9 +361,7 @@ def test_a_study_whose_roles_do_not_fit_the_table_is_refused():
 
     second = open_page("graphs_up_to_7.csv")
     before = study(second)
-    second.file_uploader(key="share.open").upload("iris.study.json", saved.encode(),
-                                                 "application/json")
-    second.run()
+    open_study_file(second, "iris.study.json", saved.encode())
     assert not second.exception
     errors = texts(second.error)
     assert any("flower" in e and "graphs_up_to_7.csv" in e for e in errors), errors
@@ -480,9 +477,7 @@ def test_a_hand_edited_setting_out_of_range_is_reported_by_its_step():
     projection["params"].update(method="umap", n_neighbors=1)
 
     second = open_page("graphs_up_to_7.csv")
-    second.file_uploader(key="share.open").upload(
-        "edited.study.json", json.dumps(saved).encode(), "application/json")
-    second.run()
+    open_study_file(second, "edited.study.json", json.dumps(saved).encode())
     assert not second.exception, [e.value for e in second.exception]
     errors = texts(second.error)
     assert any("n_neighbors" in e for e in errors), errors
@@ -509,9 +504,7 @@ def test_a_sample_study_whose_roles_do_not_fit_leaves_the_page_as_it_was():
 
     second = open_page("graphs_up_to_7.csv")
     before = study(second)
-    second.file_uploader(key="share.open").upload(
-        "fields.study.json", json.dumps(saved).encode(), "application/json")
-    second.run()
+    open_study_file(second, "fields.study.json", json.dumps(saved).encode())
     assert not second.exception
     assert any("units" in e for e in texts(second.error)), texts(second.error)
     assert table(second).name == "graphs_up_to_7.csv"
