@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import plotly.graph_objects as go
 
-from analysis.figures.style import PALETTE, SEQUENTIAL, apply_style
+from analysis.figures.style import PALETTE, SEQUENTIAL, apply_style, escaped
 from analysis.plain import row_id
 
 # Rows drawn: the top of the list.
@@ -94,6 +94,4 @@ def _strongest(standing: dict) -> str:
 
 def _reason_text(reasons) -> str:
     # hover text is HTML-like: escape, and put each reason on its own line
-    escaped = [r.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-               for r in reasons]
-    return "<br>".join(escaped)
+    return "<br>".join(escaped(r) for r in reasons)

@@ -26,6 +26,7 @@ from analysis.figures.style import (  # noqa: F401 - re-exported for older impor
     PALETTE,
     SEQUENTIAL,
     apply_style,
+    escaped,
 )
 from analysis.plain import fraction_text, row_id
 
@@ -78,7 +79,7 @@ def scatter_figure(result, table=None, *, color_by: str | None = None, hover=(),
         custom = custom[:, :-1]
     lines = ["<b>%{customdata[0]}</b>",
              f"{result.axis_titles[0]}: %{{x:.4g}}", f"{result.axis_titles[1]}: %{{y:.4g}}"]
-    lines.extend(f"{_escape(name)}: %{{customdata[{j}]}}" for j, name in enumerate(hover, 1))
+    lines.extend(f"{escaped(name)}: %{{customdata[{j}]}}" for j, name in enumerate(hover, 1))
     template = "<br>".join(lines)
     marker_size = 7 if len(ids) <= 2000 else 5
     trace_type = go.Scattergl if len(ids) > WEBGL_POINTS else go.Scatter
@@ -90,7 +91,7 @@ def scatter_figure(result, table=None, *, color_by: str | None = None, hover=(),
                 customdata=custom[members],
                 marker=dict(size=marker_size, color=colour_value, opacity=0.85,
                             line=dict(width=0)),
-                hovertemplate=template + f"<br>{_escape(colour_title)}: {_escape(label)}"
+                hovertemplate=template + f"<br>{escaped(colour_title)}: {escaped(label)}"
                 + "<extra></extra>"))
     elif kind == "numbers":
         present = np.isfinite(values)
@@ -99,7 +100,7 @@ def scatter_figure(result, table=None, *, color_by: str | None = None, hover=(),
                 x=result.x[~present], y=result.y[~present], mode="markers", name="missing",
                 customdata=custom[~present],
                 marker=dict(size=marker_size, color=MISSING_COLOUR, opacity=0.7),
-                hovertemplate=template + f"<br>{_escape(colour_title)}: missing"
+                hovertemplate=template + f"<br>{escaped(colour_title)}: missing"
                 + "<extra></extra>"))
         figure.add_trace(trace_type(
             x=result.x[present], y=result.y[present], mode="markers", name=colour_title,
@@ -108,7 +109,7 @@ def scatter_figure(result, table=None, *, color_by: str | None = None, hover=(),
                         opacity=0.9, line=dict(width=0),
                         colorbar=dict(title=dict(text=colour_title), thickness=14,
                                       outlinewidth=0)),
-            hovertemplate=template + f"<br>{_escape(colour_title)}: "
+            hovertemplate=template + f"<br>{escaped(colour_title)}: "
             f"%{{customdata[{len(hover) + 1}]}}<extra></extra>"))
     else:
         figure.add_trace(trace_type(
@@ -307,8 +308,3 @@ def _cell_text(value) -> str:
     if isinstance(value, (np.bool_, bool)):
         return "true" if value else "false"
     return str(value)
-
-
-def _escape(text: str) -> str:
-    # plotly hover text is HTML-like; a column named "a<b" must show as written
-    return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")

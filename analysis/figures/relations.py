@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import plotly.graph_objects as go
 
-from analysis.figures.style import MISSING_COLOUR, PALETTE, apply_style
+from analysis.figures.style import MISSING_COLOUR, PALETTE, apply_style, escaped
 from analysis.plain import row_id
 
 # Pictures drawn: the first two-invariant statements, bounds before relations a few rows break.
@@ -86,7 +86,7 @@ def statement_figure(table, terms, relation: str, constant, violations=(), *, te
     gap_view = relation == "="
     up = gap if gap_view else pairs[:, 1]
     up_title = "left side minus right side" if gap_view else y_name
-    hover = (f"{_escape(x_name)} = %{{x}}<br>{_escape(y_name)} = %{{text}}<br>"
+    hover = (f"{escaped(x_name)} = %{{x}}<br>{escaped(y_name)} = %{{text}}<br>"
              + ("gap %{y}<br>" if gap_view else ""))
     figure.add_trace(go.Scatter(
         x=pairs[plain_pairs, 0], y=up[plain_pairs], text=pairs[plain_pairs, 1],
@@ -125,7 +125,7 @@ def statement_figure(table, terms, relation: str, constant, violations=(), *, te
     if sampled:
         others = int((~on_line & ~broken).sum())
         note += f"; {MAX_POINTS:,} of the other {others:,} value pairs drawn"
-    apply_style(figure, title=f"{_escape(_shown(text))}  ({note})",
+    apply_style(figure, title=f"{escaped(_shown(text))}  ({note})",
                 x_title=x_name, y_title=up_title)
     return figure
 
@@ -194,7 +194,7 @@ def _ids_per_pair(marked: np.ndarray, inverse: np.ndarray, ids: np.ndarray) -> d
     for k, v in zip(inverse[wanted].tolist(), ids[wanted].tolist()):
         totals[k] += 1
         if len(listed[k]) < IDS_ON_HOVER:
-            listed[k].append(_escape(str(row_id(v))))
+            listed[k].append(escaped(str(row_id(v))))
     return {k: ", ".join(v) + (f" and {totals[k] - len(v)} more" if totals[k] > len(v) else "")
             for k, v in listed.items()}
 
@@ -202,7 +202,3 @@ def _ids_per_pair(marked: np.ndarray, inverse: np.ndarray, ids: np.ndarray) -> d
 def _shown(text: str) -> str:
     """A statement as read on a picture: the inequality signs as one character each."""
     return text.replace("<=", "≤").replace(">=", "≥")
-
-
-def _escape(text: str) -> str:
-    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from analysis.errors import StepError
-from analysis.figures.style import PALETTE, apply_style
+from analysis.figures.style import PALETTE, apply_style, escaped
 
 MAX_POINTS = 20_000
 CLASS_COLOURS = PALETTE
@@ -196,7 +196,7 @@ def decision_figure(result, table=None, *, feature: str | None = None,
     sampled = f" (a sample of {len(shown)} of {n} rows)" if len(shown) < n else ""
     equation = _equation_for(result, class_label)
     if equation:
-        sampled += f"<br><sup>{_escape(equation)}</sup>"
+        sampled += f"<br><sup>{escaped(equation)}</sup>"
     apply_style(figure, title=f"{result.target}: decision score{column_word}{sampled}",
                 x_title=x_title, y_title=decision.source, legend_title="actual class")
     return figure
@@ -244,8 +244,6 @@ def _equation_for(result, class_label) -> str:
     return text if len(text) <= 140 else text[:137] + "..."
 
 
-def _escape(text: str) -> str:
-    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
 def _class_index(labels: list, wanted) -> int:

@@ -40,3 +40,9 @@ def apply_style(figure: go.Figure, *, title: str, x_title: str = "", y_title: st
     figure.update_xaxes(title_text=x_title, **axis)
     figure.update_yaxes(title_text=y_title, **axis)
     return figure
+
+
+def escaped(text) -> str:
+    """Text for plotly's hover and titles, which read HTML-like markup: a column named
+    "a<b" must show as written."""
+    return str(text).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
