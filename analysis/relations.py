@@ -46,6 +46,7 @@ __all__ = [
     "Relation",
     "RelationsResult",
     "RelationsStep",
+    "bound_rank",
     "find_relations",
     "integer_kernel",
     "lll_reduce",
@@ -66,6 +67,11 @@ MAX_BOUNDS = 30
 MAX_LISTED_ROWS = 1000
 # Fraction of the spread of a bound's left side within which a row "comes close" to it.
 NEAR_FRACTION = Fraction(1, 20)
+# Bounds that all but a few rows obey are also searched along every direction of two integer
+# columns with coefficients up to this size (besides the corners peeled off the hull).
+DIRECTION_COEFFICIENT = 3
+# A bound is ranked by its support less this much per unit of its size (see bound_rank).
+RANK_SIZE_WEIGHT = 0.25
 
 _FLOAT_EXACT = 2**53  # integers below this are exact in float64, and so are their sums
 _INT64_SAFE = 2**62  # int64 sums that stay below this cannot overflow
@@ -1399,6 +1405,58 @@ def _pair_bounds(cx, cy, row_ids, facts, *, max_coefficient, breakers, edges_out
         found += _peeled_bounds(names, scales, points, row_ids, hull, edges, facts,
                                 max_coefficient=max_coefficient, breakers=breakers,
                                 integer=integer)
+        if cx.exact_int and cy.exact_int:
+            found += _direction_bounds(names, scales, points, row_ids, facts,
+                                       max_coefficient=max_coefficient, breakers=breakers,
+                                       integer=integer)
+    return found
+
+
+def _directions(largest: int) -> list[tuple[int, int]]:
+    """Primitive integer directions (a, b), both nonzero, up to ``largest``, each once per
+    orientation (a > 0 for an upper bound, the negated pair for a lower one)."""
+    found = []
+    for a in range(1, largest + 1):
+        for b in range(-largest, largest + 1):
+            if b and math.gcd(a, abs(b)) == 1:
+                found += [(a, b), (-a, -b)]
+    return found
+
+
+def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient, breakers,
+                      integer):
+    """Bounds in two integer columns that all but a few rows obey, along small directions.
+
+    Along each direction (a, b) the left side a*x + b*y is evaluated on the distinct points;
+    the constant is the value, among those reached with at most ``breakers`` rows beyond it,
+    that the most rows attain. It is kept when rows beyond it are few (at most ``breakers``,
+    and at most a third of the rows attaining it). The hull's corners cannot find such a
+    bound when its breakers sit on several corners far apart; this search does.
+    """
+    found = []
+    largest = min(DIRECTION_COEFFICIENT, max_coefficient)
+    weights = points.weights
+    for a, b in _directions(largest):
+        shown, _ = _in_table_units((a, b), 0, scales)
+        if max(map(abs, shown)) > max_coefficient:
+            continue
+        combined = _combine((a, b), points.coords)
+        if combined.dtype == object:
+            continue
+        values, inverse = np.unique(combined, return_inverse=True)
+        per_value = np.bincount(inverse.ravel(), weights=weights).astype(np.int64)
+        beyond = np.cumsum(per_value[::-1])[::-1] - per_value   # rows above each value
+        usable = (beyond > 0) & (beyond <= breakers) & (per_value >= 3 * beyond)
+        if not usable.any():
+            continue
+        best = int(np.flatnonzero(usable)[np.argmax(per_value[usable])])
+        constant = int(values[best])
+        shown, shown_constant = _in_table_units((a, b), constant, scales)
+        if _implied(dict(zip(names, shown)), shown_constant, facts):
+            continue
+        bound = _make_bound(names, (a, b), constant, points, row_ids, integer, scales)
+        note = f"holds on all but {len(bound.violations)} rows"
+        found.append(replace(bound, note=(bound.note + "; " if bound.note else "") + note))
     return found
 
 
@@ -1565,16 +1623,19 @@ class _Reducer:
         return tuple(x / size for x in vector)
 
 
-def _bound_rank(bound: Bound):
-    # Most attaining rows first: a bound that many objects reach and one object breaks is
-    # worth more of a look than one that two objects reach and none breaks.
-    return (
-        -bound.attained_count,
-        len(bound.violations),
-        len(bound.terms),
-        sum(abs(c) for _, c in bound.terms),
-        bound.text,
-    )
+def bound_rank(bound: Bound) -> tuple:
+    """Sort key of bounds, the one a mathematician would read first coming first.
+
+    Few terms and small coefficients make a bound readable; many objects attaining it and
+    few breaking it make it worth reading. The score weighs the support (attaining rows
+    against three times the breaking rows, on a log scale) against the size of the
+    statement (terms plus the sizes of the coefficients), so that a two-term bound with
+    coefficients 1 and -1 attained by thousands and broken by a handful comes before a
+    three-term bound attained by five.
+    """
+    size = len(bound.terms) + sum(abs(c) for _, c in bound.terms)
+    support = math.log10(1 + bound.attained_count) - math.log10(1 + 3 * len(bound.violations))
+    return (-(support - RANK_SIZE_WEIGHT * float(size)), len(bound.violations), bound.text)
 
 
 def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robust,
@@ -1639,7 +1700,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 f"{skipped} triples of columns with wide value ranges or too many distinct "
                 "points were not searched for bounds (too costly on a table this size)"
             )
-    found.sort(key=_bound_rank)
+    found.sort(key=bound_rank)
     reducer = _Reducer(list(columns), equalities)
     seen: set = set()
     distinct = []

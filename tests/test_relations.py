@@ -23,6 +23,7 @@ from analysis.errors import StepError
 from analysis.relations import (
     Bound,
     RelationsStep,
+    bound_rank,
     find_relations,
     integer_kernel,
     lll_reduce,
@@ -475,8 +476,8 @@ def test_every_bound_holds_and_is_attained(polygons):
     result = find_relations(columns)
     assert result.bounds, "no bound found"
     assert len(result.bounds) <= 30
-    counts = [b.attained_count for b in result.bounds]
-    assert counts == sorted(counts, reverse=True), "bounds not ranked by attaining rows"
+    keys = [bound_rank(b) for b in result.bounds]
+    assert keys == sorted(keys), "bounds not in the order of bound_rank"
     for bound in result.bounds:
         rows = [{name: columns[name][i] for name in columns} for i in range(len(polygons))]
         broken = [i for i, row in enumerate(rows) if not _satisfies(bound, row)]
@@ -591,3 +592,70 @@ def test_rejected_settings(polygons, settings, message):
     table = _polygon_table(polygons[:20])
     with pytest.raises(StepError, match=message):
         RelationsStep(**settings).run(table)
+
+
+def _chromatic_number(graph) -> int:
+    """Smallest number of colours of a proper colouring, by exhaustive backtracking (the
+    atlas's graphs have at most seven vertices)."""
+    nodes = sorted(graph, key=graph.degree, reverse=True)
+
+    def colourable(k, colours, i):
+        if i == len(nodes):
+            return True
+        used = {colours[v] for v in graph[nodes[i]] if v in colours}
+        for colour in range(k):
+            if colour not in used:
+                colours[nodes[i]] = colour
+                if colourable(k, colours, i + 1):
+                    return True
+                del colours[nodes[i]]
+        return False
+
+    return next(k for k in range(1, len(nodes) + 1) if colourable(k, {}, 0))
+
+
+def test_brooks_bound_is_found_with_exactly_its_exceptions():
+    # Brooks' theorem (Brooks 1941, Proc. Cambridge Philos. Soc. 37): a connected graph has
+    # chromatic number at most its largest degree, unless it is complete or an odd cycle. On
+    # the connected graphs of networkx's graph atlas the near-bound chromatic <= max_degree
+    # must be found, broken by exactly the complete graphs and the odd cycles.
+    import networkx as nx
+
+    graphs = [g for g in nx.graph_atlas_g()[1:] if nx.is_connected(g)]
+    chromatic = [_chromatic_number(g) for g in graphs]
+    degree = [max((d for _, d in g.degree()), default=0) for g in graphs]
+    exceptions = {i for i, g in enumerate(graphs)
+                  if g.number_of_edges() == len(g) * (len(g) - 1) // 2
+                  or (len(g) % 2 == 1 and len(g) >= 3 and all(d == 2 for _, d in g.degree()))}
+    found = find_relations({"chromatic": chromatic, "max_degree": degree}, max_breakers=20)
+    brooks = [b for b in found.bounds
+              if dict(b.terms) == {"chromatic": 1, "max_degree": -1} and b.relation == "<="
+              and b.constant == 0]
+    assert len(brooks) == 1, [b.text for b in found.bounds]
+    assert set(brooks[0].violations) == exceptions
+    # and the greedy colouring bound chromatic <= max_degree + 1 holds on every graph
+    # (common practice), attained by exactly the same graphs
+    greedy = [b for b in found.bounds
+              if dict(b.terms) == {"chromatic": 1, "max_degree": -1} and b.constant == 1]
+    assert len(greedy) == 1 and not greedy[0].violations
+    assert set(greedy[0].attained_by) == exceptions
+
+
+def test_a_simple_bound_with_a_few_breakers_comes_before_a_long_one_attained_by_few():
+    # A planted table: h >= f for all but 22 special rows set to zero, attained by most rows.
+    rng = np.random.default_rng(0)
+    n = 7890
+    factors = rng.integers(1, 16, n)
+    h = factors + rng.geometric(0.6, n) - 1
+    h[rng.choice(n, 22, replace=False)] = 0
+    rows = rng.integers(factors, factors + 10)
+    columns = rng.integers(factors + 1, factors + 20)
+    found = find_relations({"h": h, "f": factors, "rows": rows, "columns": columns})
+    texts = [b.text for b in found.bounds]
+    assert "h - f >= 0" in texts, texts
+    planted = found.bounds[texts.index("h - f >= 0")]
+    assert len(planted.violations) == 22 and planted.attained_count > n / 2
+    for later in found.bounds[texts.index("h - f >= 0") + 1:]:
+        assert later.attained_count < planted.attained_count or len(later.terms) <= 2
+    three_terms = [i for i, b in enumerate(found.bounds) if len(b.terms) == 3]
+    assert all(i > texts.index("h - f >= 0") for i in three_terms), texts

@@ -614,7 +614,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
             near=c["near"], holds_on=c["present"] - c["broken"],
             violations=tuple(c["broken_ids"].tolist()), note=note))
     bounds = _drop_crowded_triples(bounds, found)
-    bounds.sort(key=rel._bound_rank)
+    bounds.sort(key=rel.bound_rank)
     notes = [n for n in notes if not (n.startswith("the best ") and "bounds are reported" in n)]
     if len(bounds) > rel.MAX_BOUNDS:
         notes.append(f"the best {rel.MAX_BOUNDS} of {len(bounds)} bounds are reported")
