@@ -1,0 +1,148 @@
+"""Targets derived from a finding: "breaks this statement", a flag per object.
+
+A relation, bound, congruence or closest formula that a few objects break raises the next
+question: are the breakers special in a way the other invariants show? A
+:class:`Statement` is the finding written on the table's own columns; :func:`with_breaks_flag`
+adds to a table a flag column that is true on the rows breaking it, so that a separator can
+be asked whether the breakers can be told apart, and by which equation. A study stores the
+statement itself (its JSON), so the derived target is made again on re-running.
+
+Statements are checked in exact arithmetic on the columns' exact values. A row with a
+missing value in one of the statement's columns is missing in the flag.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping
+from dataclasses import dataclass
+from fractions import Fraction
+
+import pandas as pd
+
+from analysis.errors import StepError
+from analysis.plain import fraction_text
+
+__all__ = ["RELATIONS", "Statement", "with_breaks_flag"]
+
+RELATIONS = ("=", "<=", ">=", "mod")
+# The flag column's name starts with this; the rest is the statement's text.
+FLAG_PREFIX = "breaks: "
+
+
+@dataclass(frozen=True)
+class Statement:
+    """``sum(coef * column) relation constant``, or ``≡ constant (mod modulus)``."""
+
+    terms: tuple[tuple[str, Fraction], ...]
+    relation: str
+    constant: Fraction
+    modulus: int | None = None
+
+    @property
+    def text(self) -> str:
+        """The statement as one line, e.g. ``h11 - num_factors >= 0``."""
+        parts = []
+        for name, coef in self.terms:
+            sign = "-" if coef < 0 else "+"
+            size = abs(coef)
+            written = name if size == 1 else f"{fraction_text(size)}*{name}"
+            parts.append(f"{sign} {written}")
+        left = " ".join(parts)
+        left = left[2:] if left.startswith("+ ") else "-" + left[2:]
+        if self.relation == "mod":
+            return f"{left} ≡ {fraction_text(self.constant)} (mod {self.modulus})"
+        return f"{left} {self.relation} {fraction_text(self.constant)}"
+
+    @property
+    def flag_name(self) -> str:
+        """Name of the derived flag column."""
+        return FLAG_PREFIX + self.text
+
+    def to_json(self) -> dict:
+        data = {"terms": [{"column": n, "coef": fraction_text(c)} for n, c in self.terms],
+                "relation": self.relation, "constant": fraction_text(self.constant)}
+        if self.modulus is not None:
+            data["modulus"] = self.modulus
+        return data
+
+    @classmethod
+    def from_json(cls, data: Mapping) -> Statement:
+        """A statement from a relation, bound, congruence or formula record of a result's
+        JSON (or a study file); StepError saying what is wrong otherwise."""
+        if not isinstance(data, Mapping):
+            raise StepError(f"a statement must be a JSON object; got {data!r}.")
+        try:
+            terms = tuple((str(t["column"] if "column" in t else t["feature"]),
+                           Fraction(str(t["coef"]))) for t in data["terms"])
+            modulus = data.get("modulus")
+            relation = "mod" if modulus is not None else str(data.get("relation", "="))
+            constant = Fraction(str(data.get("residue", data.get("constant", 0))))
+        except (KeyError, TypeError, ValueError, ZeroDivisionError) as exc:
+            raise StepError(f"a statement needs terms (each with a column and a coefficient) "
+                            f"and a constant; this one is not readable ({exc!r}).") from None
+        if relation not in RELATIONS:
+            raise StepError(f"a statement's relation must be one of {', '.join(RELATIONS)}; "
+                            f"got {relation!r}.")
+        if not terms:
+            raise StepError("a statement needs at least one term.")
+        if modulus is not None and (not isinstance(modulus, int) or modulus < 2):
+            raise StepError(f"a congruence's modulus must be a whole number of at least 2; "
+                            f"got {modulus!r}.")
+        return cls(terms=terms, relation=relation, constant=constant, modulus=modulus)
+
+    def breaks(self, columns: Mapping[str, list]) -> list[bool | None]:
+        """Per row: True where the statement is broken, False where it holds, None where a
+        column is missing. ``columns`` maps each term's column to its exact values."""
+        values = [columns[name] for name, _ in self.terms]
+        flags: list[bool | None] = []
+        for row in zip(*values):
+            if any(v is None for v in row):
+                flags.append(None)
+                continue
+            total = sum((Fraction(coef) * Fraction(v) for (_, coef), v in zip(self.terms, row)),
+                        Fraction(0))
+            flags.append(not self._holds(total))
+        return flags
+
+    def _holds(self, total: Fraction) -> bool:
+        if self.relation == "=":
+            return total == self.constant
+        if self.relation == "<=":
+            return total <= self.constant
+        if self.relation == ">=":
+            return total >= self.constant
+        difference = total - self.constant
+        return difference.denominator == 1 and difference.numerator % self.modulus == 0
+
+
+def with_breaks_flag(table, statement: Statement):
+    """``table`` with one more flag column, true on the rows that break ``statement``.
+
+    Returns ``(new_table, column_name)``. The table's bytes and digest are those of the file;
+    the new column is derived, and its note says from what. StepError when a column is
+    missing from the table or has no exact values, or when no row breaks the statement (a
+    separator needs both classes).
+    """
+    from analysis.errors import TableError
+    from analysis.table import ColumnInfo
+
+    try:
+        columns = {name: table.exact(name) for name, _ in statement.terms}
+    except TableError as exc:
+        raise StepError(f"the statement {statement.text!r} cannot be checked: {exc}") from None
+    flags = statement.breaks(columns)
+    broken = sum(1 for f in flags if f)
+    if broken == 0 or broken == sum(1 for f in flags if f is not None):
+        raise StepError(f"{table.name}: every checked row {'obeys' if broken == 0 else 'breaks'}"
+                        f" {statement.text!r}, so there is nothing to tell apart.")
+    name = statement.flag_name
+    if name in table.frame.columns:
+        return table, name
+    frame = table.frame.copy(deep=False)
+    frame[name] = pd.array(flags, dtype="boolean")
+    missing = sum(1 for f in flags if f is None)
+    info = ColumnInfo(name=name, role="flag", dtype="boolean", missing=missing, distinct=2,
+                      detected_role="flag",
+                      note=f"derived: true on the {broken} rows that break {statement.text}")
+    return dataclasses.replace(table, frame=frame, columns=table.columns + (info,)), name
