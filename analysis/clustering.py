@@ -177,7 +177,7 @@ class ClusteringStep:
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing)
         n = len(fm.rows)
-        notes = list(fm.notes)
+        notes = list(fm.warnings) + list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "clustering")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")

@@ -24,6 +24,10 @@ from analysis.errors import StepError, TableError
 from analysis.table import Table
 
 ARRAY_ENCODINGS = ("invariant", "flat", "both")
+# A default feature column missing in more than this share of the rows is left out.
+MISSING_SHARE_LIMIT = 0.30
+# Dropping more than this share of the rows for missing values is a warning, not a note.
+DROPPED_ROWS_WARNING = 0.10
 LOG_SCALES = ("auto", "never", "always")
 MISSING_POLICIES = ("drop", "impute")
 # Most row orders the exact canonical key will try before it falls back to invariants.
@@ -54,6 +58,10 @@ class FeatureMatrix:
     rows: np.ndarray
     row_ids: np.ndarray
     notes: tuple[str, ...] = ()
+    # default feature columns left out for being mostly empty: (column, share missing)
+    left_out: tuple[tuple[str, float], ...] = ()
+    # what a reader must not miss: columns left out, many rows dropped
+    warnings: tuple[str, ...] = ()
 
     @property
     def names(self) -> list[str]:
@@ -76,6 +84,18 @@ class FeatureMatrix:
     def columns(self) -> list[str]:
         """The table columns the features came from, each once, in order."""
         return list(dict.fromkeys(f.column for f in self.features))
+
+
+def mostly_empty_columns(table: Table, columns: list[str]) -> list[tuple[str, float]]:
+    """The columns missing in more than ``MISSING_SHARE_LIMIT`` of the rows, with that share.
+
+    Empty cells, marker words and interval cells all count as missing. Such a column is left
+    out of the default features before any row is dropped, so that one mostly-empty column
+    does not take most of the table with it.
+    """
+    n = max(table.n_rows, 1)
+    return [(name, table.column(name).missing / n) for name in columns
+            if table.column(name).missing / n > MISSING_SHARE_LIMIT]
 
 
 def default_feature_columns(table: Table, *, target: str | None = None,
@@ -135,12 +155,23 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     log_scale: "auto" (signed log for integers beyond 64 bits), "never" or "always".
     missing: "drop" rows with a missing feature or target, or "impute" (median / most common).
     """
+    chosen_by_default = columns is None
     columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
                                      array_encoding=array_encoding, log_scale=log_scale,
                                      missing=missing)
     blocks: list[np.ndarray] = []
     features: list[Feature] = []
     notes: list[str] = []
+    warnings: list[str] = []
+    left_out: list[tuple[str, float]] = []
+    if chosen_by_default:
+        left_out = mostly_empty_columns(table, columns)
+        if len(left_out) < len(columns):
+            columns = [name for name in columns if name not in dict(left_out)]
+            if left_out:
+                warnings.append(_left_out_text(left_out))
+        else:
+            left_out = []
     run: list[str] = []         # consecutive plain number columns, converted together
     for name in columns + [None]:
         if name is not None and _is_plain_number(table, name, log_scale):
@@ -168,9 +199,16 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
             dropped = int((~keep).sum())
-            notes.append(f"dropped {dropped} of {table.n_rows} rows with a missing value "
-                         f"({int(bad.any(axis=1).sum())} in features, "
-                         f"{int(target_missing.sum())} in the target).")
+            text = (f"dropped {dropped} of {table.n_rows} rows with a missing value "
+                    f"({int(bad.any(axis=1).sum())} in features, "
+                    f"{int(target_missing.sum())} in the target).")
+            if dropped > DROPPED_ROWS_WARNING * table.n_rows:
+                warnings.append(text[0].upper() + text[1:-1] + f": more than "
+                                f"{DROPPED_ROWS_WARNING:.0%} of the table. Leave out the "
+                                "columns with most missing cells, or fill in missing values "
+                                "(missing: impute).")
+            else:
+                notes.append(text)
             values = values[keep]
             rows = rows[keep]
         else:
@@ -186,7 +224,15 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
                         "other columns or impute missing values.")
     row_ids = table.row_ids[rows]
     return FeatureMatrix(values=values, features=tuple(features),
-                         rows=rows, row_ids=row_ids, notes=tuple(notes))
+                         rows=rows, row_ids=row_ids, notes=tuple(notes),
+                         left_out=tuple(left_out), warnings=tuple(warnings))
+
+
+def _left_out_text(left_out: list[tuple[str, float]]) -> str:
+    named = ", ".join(f"{name!r} (missing in {share:.0%} of rows)" for name, share in left_out)
+    return (f"left out of the features, being missing in more than "
+            f"{MISSING_SHARE_LIMIT:.0%} of the rows: {named}. Name the columns (columns) to "
+            "use them anyway; rows missing them would then be dropped or filled in.")
 
 
 def _stacked(blocks: list[np.ndarray], n_rows: int) -> np.ndarray:

@@ -34,6 +34,8 @@ class TargetFollows:
     relation: str
     columns: tuple[str, ...]
     holds_on: int
+    terms: tuple = ()          # (column, Fraction) of the relation, target included
+    constant: object = 0
 
     def to_json(self) -> dict:
         return {"relation": self.relation, "columns": list(self.columns),
@@ -78,4 +80,5 @@ def target_follows(target: str, target_values: Sequence,
     if best is None:
         return None
     relation, used = best
-    return TargetFollows(relation=relation.text, columns=used, holds_on=relation.holds_on)
+    return TargetFollows(relation=relation.text, columns=used, holds_on=relation.holds_on,
+                         terms=tuple(relation.terms), constant=relation.constant)

@@ -178,7 +178,7 @@ class OutliersStep:
             raise StepError(f"{table.name}: ranking objects needs at least 5 rows with every "
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
-        notes = list(fm.notes)
+        notes = list(fm.warnings) + list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")

@@ -214,7 +214,7 @@ class ProjectionStep:
                             exclude=(self.target,) if self.target and not needs_target else (),
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing)
-        notes = list(fm.notes)
+        notes = list(fm.warnings) + list(fm.notes)
         if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
             notes.append(f"{METHOD_TITLES[self.method]} uses every row; the sample size "
                          "applies to UMAP and t-SNE only.")

@@ -33,7 +33,9 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.features import build_features, group_keys, is_numeric_target, target_values
 from analysis.plain import plain, row_id
+from analysis.progress import Reporter, quiet
 from analysis.table import Table
+from analysis.threads import one_thread_each, refit_workers
 
 MODELS = ("linear", "logistic", "lda", "rbf", "poly2")
 MODEL_WORDS = {
@@ -71,6 +73,9 @@ NYSTROEM_FIT_ROWS = 50_000
 # Rows a fitted pipeline evaluates at once, so that Nystroem features stay small in memory.
 PREDICT_BLOCK_ROWS = 20_000
 MISPREDICTED_LIMIT = 100
+# The check that the target follows from the features runs on at most this many rows (a seeded
+# sample), and a relation it finds is then checked on every row.
+LEAKAGE_SAMPLE_ROWS = 5000
 ROW_ID_LIST_LIMIT = 5000
 CLASS_RULE = ("beats chance: yes only when the 95% bootstrap interval of the Matthews "
               "correlation on the test rows lies above 0 and the permutation p-value is below "
@@ -135,6 +140,9 @@ class SeparatorResult:
     notes: tuple[str, ...] = ()
     decision: DecisionScores | None = dataclasses.field(default=None, repr=False)
     rows_used: int = 0
+    permutations_run: int = 0
+    left_out_columns: tuple[str, ...] = ()
+    target_follows: object = None   # analysis.leakage.TargetFollows: the target is a formula
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "separator"
 
@@ -181,6 +189,9 @@ class SeparatorResult:
             "mispredicted": [m["row"] for m in self.mispredicted],
             "mispredicted_details": list(self.mispredicted),
             "rows_used": self.rows_used,
+            "permutations_run": self.permutations_run,
+            "left_out_columns": list(self.left_out_columns),
+            "target_follows": _json_or_none(self.target_follows),
             "warnings": list(self.warnings),
             "notes": list(self.notes),
         })
@@ -191,8 +202,11 @@ class SeparatorResult:
         head = f"separator for {self.target!r}: {words}"
         if self.task == "classification" and self.positive_class is not None:
             head += f", positive class {self.positive_class!r}"
-        lines = [head,
-                 f"  {self.rows_used} rows; split 1 has {self.train_rows} training and "
+        lines = [head]
+        if self.target_follows is not None:
+            lines.append(f"  finding: the target follows from the features: "
+                         f"{self.target_follows.relation}")
+        lines += [f"  {self.rows_used} rows; split 1 has {self.train_rows} training and "
                  f"{self.test_rows} test rows ({self.split_method})"]
         m, b = self.metrics, self.baseline
         if self.task == "classification":
@@ -227,6 +241,12 @@ class SeparatorResult:
         lines.extend(_equation_lines(self))
         lines.append(f"beats chance: {self.beats_chance_text}")
         return "\n".join(lines)
+
+
+def _first_figures(metrics: dict) -> dict:
+    """Split 1's figures the page may show before the slower parts end."""
+    keys = ("accuracy", "baseline_accuracy", "mcc", "r2", "baseline_r2")
+    return {key: metrics[key] for key in keys if metrics.get(key) is not None}
 
 
 def _json_or_none(value):
@@ -331,11 +351,16 @@ class SeparatorStep:
     seed: int = 0
     kind: ClassVar[str] = "separator"
 
-    def run(self, table: Table) -> SeparatorResult:
-        """Run the validation protocol on ``table`` and find the separating equation."""
+    def run(self, table: Table, *, progress=None) -> SeparatorResult:
+        """Run the validation protocol on ``table`` and find the separating equation.
+
+        progress: a callable (or :class:`analysis.progress.Reporter`) told of each phase
+            ("split 1 of 5", "permutation test 40 of at most 200", ...); it may stop the
+            step by raising :class:`analysis.progress.StepStopped`.
+        """
         started = time.perf_counter()
         self._check_settings(table)
-        result = _Run(self, table).execute()
+        result = _Run(self, table, quiet(progress)).execute()
         return dataclasses.replace(result, elapsed_seconds=time.perf_counter() - started)
 
     def _check_settings(self, table: Table) -> None:
@@ -399,12 +424,14 @@ class SeparatorStep:
 class _Run:
     """The state of one run: features, labels, splits, and the fitting recipe."""
 
-    def __init__(self, step: SeparatorStep, table: Table):
+    def __init__(self, step: SeparatorStep, table: Table, progress: Reporter):
         self.step = step
         self.table = table
+        self.progress = progress
         self.notes: list[str] = []
         self.warnings: list[str] = []
         self.fit_warnings: set[str] = set()
+        self.permutations_run = 0
 
     # -- preparation ----------------------------------------------------------------------
 
@@ -414,6 +441,8 @@ class _Run:
                             array_encoding=step.array_encoding, log_scale=step.log_scale,
                             missing=step.missing, exclude=excluded_columns(table, step))
         self.notes.extend(fm.notes)
+        self.warnings.extend(fm.warnings)
+        self.left_out = tuple(name for name, _ in fm.left_out)
         self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
         # one copy of the matrix, in the row order the solvers want, shared with the features
         self.fm = dataclasses.replace(fm, values=self.X)
@@ -439,7 +468,46 @@ class _Run:
                               "each group stays on one side of every split.")
         self._choose_kernel_method()
         self._prepare_copies()
+        self.progress.phase("checking whether the target follows from the features")
+        self.follows = self._target_follows()
         return self._protocol()
+
+    def _target_follows(self):
+        """An exact linear relation writing the target through exact feature columns, checked
+        on every row used; a finding and a leakage warning when there is one."""
+        from analysis.derived import Statement
+        from analysis.leakage import target_follows
+
+        table, step = self.table, self.step
+        exact_types = ("integer", "big integer", "rational", "boolean")
+        if table.column(step.target).dtype not in exact_types:
+            return None
+        candidates = [name for name in self.fm.columns
+                      if table.column(name).role in ("invariant", "flag")
+                      and table.column(name).dtype in exact_types]
+        if not candidates:
+            return None
+        rows = self.fm.rows
+        if len(rows) > LEAKAGE_SAMPLE_ROWS:
+            rows = np.sort(np.random.default_rng([step.seed, 47]).choice(
+                rows, LEAKAGE_SAMPLE_ROWS, replace=False))
+        exact = {name: table.exact(name) for name in candidates + [step.target]}
+        pick = {name: [values[i] for i in rows] for name, values in exact.items()}
+        found = target_follows(step.target, pick.pop(step.target), pick)
+        if found is None:
+            return None
+        if len(rows) < len(self.fm.rows):
+            statement = Statement(terms=found.terms, relation="=", constant=found.constant)
+            every = {name: [exact[name][i] for i in self.fm.rows] for name, _ in found.terms}
+            if any(statement.breaks(every)):
+                return None
+            found = dataclasses.replace(found, holds_on=len(self.fm.rows))
+        self.warnings.insert(0, (
+            f"the target follows exactly from the features: {found.relation} holds on all "
+            f"{found.holds_on} rows used, so a separator that predicts it shows nothing new. "
+            f"Leave out {', '.join(map(repr, found.columns))} (choose the feature columns) to "
+            "ask whether the other invariants predict it."))
+        return found
 
     def _prepare_classes(self, raw: np.ndarray) -> None:
         from pandas.api.types import infer_dtype
@@ -624,6 +692,7 @@ class _Run:
                                        self.table.name)
         per_split = []
         first = None
+        self.progress.phase("fitting the splits", total=len(splits))
         for index, (train, test) in enumerate(splits):
             fit_rows = train
             if self.big and index > 0:
@@ -643,6 +712,8 @@ class _Run:
                               "test_rows": len(test), **metrics})
             if index == 0:
                 first = (train, test, model, predicted)
+                self.progress.first_figures(**_first_figures(metrics))
+            self.progress.advance()
         if self.big and len(splits) > 1:
             self.notes.append(f"the table is large ({n} rows): splits 2 to {len(splits)} were "
                               f"fitted on a random sample of at most {step.sample_rows} of "
@@ -675,6 +746,7 @@ class _Run:
                      and p_value < CHANCE_LEVEL)
         curve = self._learning_curve()
         mispredicted = self._mispredicted(model, test, predicted)
+        self.progress.phase("searching the exact equation")
         equation_part = self._equation_part()
         small = n <= ROW_ID_LIST_LIMIT
         ids = self.fm.row_ids
@@ -698,6 +770,8 @@ class _Run:
             split_method=split_method, identical_rows_across_split=identical,
             kernel_method=self.kernel_method, mispredicted=tuple(mispredicted),
             warnings=tuple(self.warnings), notes=tuple(self.notes), rows_used=n,
+            permutations_run=self.permutations_run, left_out_columns=self.left_out,
+            target_follows=self.follows,
             **equation_part,
         )
 
@@ -752,6 +826,8 @@ class _Run:
         return metrics, baseline, interval
 
     def _permutation_test(self, train, test):
+        from analysis.permutation import sequential_test
+
         step = self.step
         count = step.permutations
         if count == 0:
@@ -773,27 +849,65 @@ class _Run:
             rng.choice(test, test_limit, replace=False))
         observed_model = self._fit(train_part, seed_offset=1000)
         observed = self._score(self.y[test_part], _predict(observed_model, self.X[test_part]))
-        null = np.empty(count)
-        for i in range(count):
-            labels = self.y.copy()
-            labels[train_part] = rng.permutation(self.y[train_part])
-            model = self._fit(train_part, labels, seed_offset=1000)
-            null[i] = self._score(self.y[test_part], _predict(model, self.X[test_part]))
-        p_value = float((np.sum(null >= observed - 1e-12) + 1) / (count + 1))
-        statistic = "R^2" if self.regression else "Matthews correlation"
-        method = (f"{count} permutations of the training labels, model refitted each time, "
-                  f"{statistic} on the test rows; p = (count of permuted scores >= observed "
-                  "+ 1) / (permutations + 1)")
+        score_of, shortcut = self._shuffled_scorer(train_part, test_part)
+        self.progress.phase("permutation test", total=count)
+        workers = 1 if shortcut else refit_workers()
+        with one_thread_each(workers):
+            test_result = sequential_test(observed, score_of, cap=count, workers=workers,
+                                          reporter=self.progress)
+        statistic = ("R^2" if self.regression else "Matthews correlation") + " on the test rows"
+        method = test_result.method(statistic)
+        if shortcut:
+            method += f"; refits in closed form ({shortcut})"
         if len(train_part) < len(train) or len(test_part) < len(test):
             method += (f"; on a sample of {len(train_part)} training and {len(test_part)} "
                        f"test rows, with the observed score {observed:.3f} refitted on the "
                        "same sample")
         if count < step.permutations:
-            method += f" (fewer than the {step.permutations} asked: the table is large)"
-        if 1 / (count + 1) >= CHANCE_LEVEL:
-            self.notes.append(f"only {count} permutations: the smallest possible p-value is "
-                              f"{1 / (count + 1):.3f}, so the verdict cannot be yes.")
-        return p_value, tuple(null.tolist()), float(observed), method
+            method += f" (at most 50 shuffles, fewer than the {step.permutations} asked: the " \
+                      "table is large)"
+        if test_result.smallest_possible >= CHANCE_LEVEL:
+            self.notes.append(f"at most {count} permutations: the smallest possible p-value "
+                              f"is {test_result.smallest_possible:.3f}, so the verdict cannot "
+                              "be yes.")
+        self.permutations_run = test_result.count
+        return (float(test_result.p_value), test_result.scores, float(observed), method)
+
+    def _shuffled_scorer(self, train_part, test_part):
+        """``score_of(i)``: the score of a refit on the i-th shuffle of the training labels,
+        seeded by ``i`` alone, and the closed form used for the refits (None: real refits).
+
+        Ridge regression and two-class LDA without copies refit in closed form
+        (analysis/refits.py); every other model is refitted.
+        """
+        from analysis.refits import LdaShuffles, RidgeShuffles
+
+        step = self.step
+        y = self.y
+        truth = y[test_part]
+
+        def shuffled(i):
+            labels = y.copy()
+            labels[train_part] = np.random.default_rng([step.seed, 11, i]).permutation(
+                y[train_part])
+            return labels
+
+        plain_fit = self.copy_values is None and self.kernel_mode == "exact"
+        if plain_fit and step.model == "linear" and self.regression and step.penalty == "l2":
+            closed = RidgeShuffles(self.X[train_part], self.X[test_part], alpha=1.0 / step.c)
+            return (lambda i: self._score(truth, closed.predict(shuffled(i)[train_part])),
+                    "ridge regression is a linear smoother")
+        if plain_fit and step.model == "lda" and not self.regression and self.n_classes == 2:
+            closed = LdaShuffles(self.X[train_part], self.X[test_part])
+            if closed.usable:
+                return (lambda i: self._score(truth, closed.predict(shuffled(i)[train_part])),
+                        "two-class LDA through one solve with the total scatter matrix")
+
+        def refit(i):
+            model = self._fit(train_part, shuffled(i), seed_offset=1000)
+            return self._score(truth, _predict(model, self.X[test_part]))
+
+        return refit, None
 
     def _learning_curve(self) -> list[dict]:
         step = self.step
@@ -809,7 +923,10 @@ class _Run:
         groups = None if self.group_labels is None else self.group_labels[pool]
         points = []
         skipped = []
+        self.progress.phase("learning curve", total=len(LEARNING_FRACTIONS))
         for k, fraction in enumerate(LEARNING_FRACTIONS):
+            if k:
+                self.progress.advance()
             try:
                 splits, _ = _splits(len(pool), strata, groups, fraction, LEARNING_REPEATS,
                                     step.seed + 101 * (k + 1), self.table.name)

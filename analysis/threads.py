@@ -24,4 +24,25 @@ def threads_for(n_rows: int):
     return threadpool_limits(1)
 
 
-__all__ = ["SMALL_ROWS", "threads_for"]
+def refit_workers() -> int:
+    """Threads that refit a model at once in a permutation test: every core, at most four.
+
+    The solvers (liblinear, libsvm, numpy) release Python's lock while they work, so threads
+    share the cores without copying the data; each refit then runs its own work on one
+    thread (see :func:`one_thread_each`).
+    """
+    import os
+
+    return max(1, min(4, os.cpu_count() or 1))
+
+
+def one_thread_each(workers: int):
+    """A context in which each of ``workers`` parallel refits uses one library thread."""
+    if workers <= 1:
+        return contextlib.nullcontext()
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(1)
+
+
+__all__ = ["SMALL_ROWS", "one_thread_each", "refit_workers", "threads_for"]
