@@ -302,10 +302,23 @@ def target_values(table: Table, column: str, rows: np.ndarray | None = None) -> 
     return values if rows is None else values[rows]
 
 
-def is_numeric_target(table: Table, column: str) -> bool:
-    """A target is treated as numeric (regression) when it is a many-valued invariant."""
+# An invariant target with more distinct values than this is predicted as a number; with
+# fewer, each value is a class (the separator's ``reading`` setting can choose either).
+CLASS_READING_LIMIT = 12
+
+
+def is_numeric_target(table: Table, column: str, reading: str = "auto") -> bool:
+    """Whether a target is predicted as a number (regression) or by classes.
+
+    reading: "auto" (a number when it is an invariant with more than ``CLASS_READING_LIMIT``
+    distinct values), "number" (any numeric invariant), or "classes" (each value a class).
+    """
     info = table.column(column)
-    return info.role == "invariant" and info.distinct > 12
+    if reading == "classes" or info.role != "invariant":
+        return False
+    if reading == "number":
+        return info.dtype in ("integer", "real", "big integer", "rational")
+    return info.distinct > CLASS_READING_LIMIT
 
 
 def group_keys(table: Table, column: str) -> np.ndarray:

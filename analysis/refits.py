@@ -16,8 +16,9 @@ label vector costs a matrix product:
   ``W^-1 d = (n - 2) S^-1 d / (1 - (n0 n1 / n) d^T S^-1 d)`` with one solve against ``S``
   shared by all shuffles (ibid., section 4.3).
 
-Both agree with scikit-learn's fits to rounding (tests/test_refits.py checks them against
-``Ridge`` and ``LinearDiscriminantAnalysis``); LDA is used only when ``S`` is well
+Test rows are clipped to the training range first, as the separator's scaler does. Both agree
+with scikit-learn's fits to rounding (tests/test_refits.py checks them against ``Ridge`` and
+``LinearDiscriminantAnalysis`` behind that scaler); LDA is used only when ``S`` is well
 conditioned, and the caller refits otherwise.
 """
 
@@ -32,7 +33,9 @@ LDA_CONDITION_LIMIT = 1e10
 
 
 def _standardized(X_train: np.ndarray, X_test: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Both matrices scaled as scikit-learn's StandardScaler fitted on the training rows."""
+    """Both matrices scaled as the separator's scaler fitted on the training rows does: test
+    rows clipped to the training range, then standardized (analysis/scaling.py)."""
+    X_test = np.clip(X_test, X_train.min(axis=0), X_train.max(axis=0))
     mean = X_train.mean(axis=0)
     scale = X_train.std(axis=0)
     scale[scale == 0] = 1.0

@@ -52,6 +52,7 @@ REGRESSION_WORDS = {
 }
 PENALTIES = ("l2", "l1")
 KERNEL_APPROXIMATIONS = ("exact", "auto", "nystroem", "sample")
+READINGS = ("auto", "number", "classes")
 LEARNING_FRACTIONS = (0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8)
 LEARNING_REPEATS = 3
 BOOTSTRAP_RESAMPLES = 1000
@@ -226,6 +227,8 @@ class SeparatorResult:
                          f"({self.interval_method}); mean absolute error "
                          f"{m['mean_absolute_error']:.4g} (predicting the training mean: "
                          f"R^2 {b['r2']:.3f}, error {b['mean_absolute_error']:.4g})")
+            if "exact" in m:
+                lines.append("  " + exact_text(self))
             spread = self.repeats.get("mean", {}), self.repeats.get("std", {})
             if spread[0]:
                 lines.append(f"  over {len(self.repeats['splits'])} splits: R^2 "
@@ -241,6 +244,20 @@ class SeparatorResult:
         lines.extend(_equation_lines(self))
         lines.append(f"beats chance: {self.beats_chance_text}")
         return "\n".join(lines)
+
+
+def exact_text(result: SeparatorResult) -> str:
+    """For a whole-number target: the share predicted exactly against both baselines."""
+    m, b = result.metrics, result.baseline
+    low, high = m["exact_ci"]
+    text = (f"exactly right on {m['exact']:.1%} of test rows (95% Wilson interval "
+            f"[{low:.1%}, {high:.1%}]); the most common value {b['most_common_value']:g} gets "
+            f"{b['exact']:.1%}")
+    if "formula_exact" in b:
+        text += f", the closest formula {b['formula']} gets {b['formula_exact']:.1%}"
+        verdict = "beats both" if m.get("exact_beats_baselines") else "does not clearly beat both"
+        text += f": the model {verdict} (the interval's low end against the better baseline)"
+    return text
 
 
 def _first_figures(metrics: dict) -> dict:
@@ -326,6 +343,9 @@ class SeparatorStep:
         every row) starts the equation search. The equation is searched on a sample of
         ``sample_rows`` rows past that size, then checked on every row.
     max_terms, max_denominator: limits for the exact equation (None: the search's defaults).
+    reading: how an invariant target is read: "auto" (a number past 12 distinct values, else
+        each value a class), "number" (a regression; whole-number targets are also judged by
+        the share predicted exactly) or "classes" (each value a class).
     """
 
     target: str | None = None
@@ -348,6 +368,7 @@ class SeparatorStep:
     sample_rows: int = 20_000
     max_terms: int | None = None
     max_denominator: int | None = None
+    reading: str = "auto"
     seed: int = 0
     kind: ClassVar[str] = "separator"
 
@@ -406,6 +427,8 @@ class SeparatorStep:
                 math.isfinite(self.c) and self.c > 0):
             raise StepError(f"c {self.c!r}: use a positive number (the support vector "
                             "machine's C; larger fits the training rows more tightly).")
+        if self.reading not in READINGS:
+            raise StepError(f"reading {self.reading!r}: use one of {', '.join(READINGS)}.")
         if self.kernel_approximation not in KERNEL_APPROXIMATIONS:
             raise StepError(f"kernel approximation {self.kernel_approximation!r}: use one of "
                             f"{', '.join(KERNEL_APPROXIMATIONS)}.")
@@ -432,6 +455,7 @@ class _Run:
         self.warnings: list[str] = []
         self.fit_warnings: set[str] = set()
         self.permutations_run = 0
+        self.integer_target = False
 
     # -- preparation ----------------------------------------------------------------------
 
@@ -446,7 +470,7 @@ class _Run:
         self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
         # one copy of the matrix, in the row order the solvers want, shared with the features
         self.fm = dataclasses.replace(fm, values=self.X)
-        self.regression = is_numeric_target(table, step.target)
+        self.regression = is_numeric_target(table, step.target, step.reading)
         raw = target_values(table, step.target, fm.rows)
         if self.regression:
             self._prepare_regression(raw)
@@ -579,6 +603,14 @@ class _Run:
         self.classes = ()
         self.positive_class = None
         self.n_classes = 0
+        from analysis.integer_target import is_integer_target
+
+        self.integer_target = is_integer_target(y)
+        if self.integer_target:
+            self.notes.append(f"{step.target!r} takes whole values: the share of test rows whose "
+                              "rounded prediction is exactly right (exact) is reported beside "
+                              "R^2, against the most common training value and the closest "
+                              "formula.")
         self.notes.append(f"{step.target!r} is a numeric invariant with many values: fitted "
                           "as a regression.")
 
@@ -748,11 +780,21 @@ class _Run:
         mispredicted = self._mispredicted(model, test, predicted)
         self.progress.phase("searching the exact equation")
         equation_part = self._equation_part()
+        if self.regression and self.integer_target and equation_part.get("formula"):
+            from analysis.integer_target import exact_share
+
+            formula = equation_part["formula"]
+            by_formula = exact_share(y[test], formula.predict(self.X[test]))
+            baseline["formula_exact"] = by_formula.share
+            baseline["formula"] = formula.text
+            best = max(baseline["exact"], by_formula.share)
+            low = metrics["exact_ci"][0]
+            metrics["exact_beats_baselines"] = bool(low > best)
         small = n <= ROW_ID_LIST_LIMIT
         ids = self.fm.row_ids
-        self.notes.append(f"split 1 carries the metrics, the confusion matrix, the interval "
-                          f"and the permutation test; {len(splits)} splits give the mean and "
-                          "spread.")
+        carried = "the metrics" if self.regression else "the metrics, the confusion matrix"
+        self.notes.append(f"split 1 carries {carried}, the interval and the permutation test; "
+                          f"{len(splits)} splits give the mean and spread.")
         self.notes.extend(sorted(self.fit_warnings))
         return SeparatorResult(
             target=step.target, model=step.model,
@@ -819,6 +861,15 @@ class _Run:
         baseline = {"r2": _r2(y[test], np.full(len(test), mean)),
                     "mean_absolute_error": float(np.mean(np.abs(y[test] - mean))),
                     "prediction": mean}
+        if self.integer_target:
+            from analysis.integer_target import exact_share, most_common_value
+
+            found = exact_share(y[test], predicted)
+            metrics["exact"] = found.share
+            metrics["exact_ci"] = [found.low, found.high]
+            common = most_common_value(y[train])
+            baseline["exact"] = exact_share(y[test], np.full(len(test), common)).share
+            baseline["most_common_value"] = common
         interval = (f"bootstrap, {BOOTSTRAP_RESAMPLES} resamples of "
                     f"{len(sample)} test rows, percentile 95% interval, seeded")
         if len(sample) < len(test):
@@ -1087,6 +1138,8 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
 
+    from analysis.scaling import TrainingRangeScaler
+
     c = float(step.c)
     model = step.model
     if regression:
@@ -1096,25 +1149,25 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
         if model == "linear":
             inner = Ridge(alpha=1.0 / c) if step.penalty == "l2" else Lasso(
                 alpha=0.01 / c, max_iter=5000)
-            pipeline = make_pipeline(StandardScaler(), inner)
+            pipeline = make_pipeline(TrainingRangeScaler(), inner)
         elif model == "poly2":
             from sklearn.preprocessing import PolynomialFeatures
 
-            pipeline = make_pipeline(StandardScaler(), PolynomialFeatures(2),
+            pipeline = make_pipeline(TrainingRangeScaler(), PolynomialFeatures(2),
                                      StandardScaler(), Ridge(alpha=1.0 / c))
         else:
             if kernel_mode == "nystroem":
                 from sklearn.kernel_approximation import Nystroem
 
                 pipeline = make_pipeline(
-                    StandardScaler(),
+                    TrainingRangeScaler(),
                     Nystroem(kernel="rbf", n_components=_components(n_rows),
                              random_state=seed),
                     Ridge(alpha=1.0 / c))
             else:
                 from sklearn.svm import SVR
 
-                pipeline = make_pipeline(StandardScaler(), SVR(kernel="rbf", C=c,
+                pipeline = make_pipeline(TrainingRangeScaler(), SVR(kernel="rbf", C=c,
                                                                gamma="scale"))
         # the target is standardized too, so the penalty means the same at any scale
         return TransformedTargetRegressor(regressor=pipeline, transformer=StandardScaler())
@@ -1147,7 +1200,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
         kernel = {"kernel": "rbf"} if model == "rbf" else {"kernel": "poly", "degree": 2,
                                                           "coef0": 1.0}
         return make_pipeline(
-            StandardScaler(),
+            TrainingRangeScaler(),
             Nystroem(n_components=_components(n_rows), random_state=seed,
                      **kernel),
             LinearSVC(C=c, dual=False, class_weight="balanced", max_iter=5000))
@@ -1159,7 +1212,7 @@ def _estimator(step: SeparatorStep, *, regression: bool, n_classes: int, kernel_
         else:
             inner = SVC(kernel="poly", degree=2, coef0=1.0, C=c, gamma="scale",
                         class_weight="balanced")
-    return make_pipeline(StandardScaler(), inner)
+    return make_pipeline(TrainingRangeScaler(), inner)
 
 
 def _predict(model, X: np.ndarray) -> np.ndarray:

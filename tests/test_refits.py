@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 
 from analysis.refits import LdaShuffles, RidgeShuffles
+from analysis.scaling import TrainingRangeScaler
 
 
 def _data(seed: int, rows: int = 300, columns: int = 6):
@@ -14,7 +15,8 @@ def _data(seed: int, rows: int = 300, columns: int = 6):
 
 
 def test_ridge_matches_scikit_learn_for_every_shuffle():
-    # Reference: scikit-learn's Ridge in a StandardScaler pipeline with the target standardized
+    # Reference: scikit-learn's Ridge behind the separator's scaler (StandardScaler after
+    # clipping to the training range) with the target standardized
     # (TransformedTargetRegressor), refitted on each shuffled label vector.
     from sklearn.compose import TransformedTargetRegressor
     from sklearn.linear_model import Ridge
@@ -28,7 +30,7 @@ def test_ridge_matches_scikit_learn_for_every_shuffle():
     together = closed.predict(shuffles)
     for k in range(shuffles.shape[1]):
         model = TransformedTargetRegressor(
-            regressor=make_pipeline(StandardScaler(), Ridge(alpha=2.0)),
+            regressor=make_pipeline(TrainingRangeScaler(), Ridge(alpha=2.0)),
             transformer=StandardScaler())
         model.fit(X_train, shuffles[:, k])
         reference = model.predict(X_test)
@@ -39,10 +41,9 @@ def test_ridge_matches_scikit_learn_for_every_shuffle():
 @pytest.mark.parametrize("share", [0.5, 0.2], ids=["balanced", "unbalanced"])
 def test_lda_matches_scikit_learn_for_every_shuffle(share):
     # Reference: scikit-learn's LinearDiscriminantAnalysis (svd solver, priors from the class
-    # shares) after a StandardScaler, refitted on each shuffled label vector.
+    # shares) behind the separator's scaler, refitted on each shuffled label vector.
     from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
     from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
 
     X_train, X_test, rng = _data(2)
     labels = (rng.random(len(X_train)) < share).astype(int)
@@ -50,7 +51,7 @@ def test_lda_matches_scikit_learn_for_every_shuffle(share):
     assert closed.usable
     for _ in range(5):
         shuffled = rng.permutation(labels)
-        model = make_pipeline(StandardScaler(), LinearDiscriminantAnalysis(solver="svd"))
+        model = make_pipeline(TrainingRangeScaler(), LinearDiscriminantAnalysis(solver="svd"))
         model.fit(X_train, shuffled)
         reference = model.predict(X_test)
         agree = np.mean(closed.predict(shuffled) == reference)

@@ -581,3 +581,112 @@ def test_regression_figures_draw_predictions():
     titles = [title for title, _ in figures_for(result)]
     assert titles[0].startswith("Predicted against actual")
     assert result.formula.rows_off == 0, result.formula.text   # c = 7a + 3b by construction
+
+
+def _ranked_matrices(rows: int, seed: int):
+    """Integer matrices of different shapes (2x2 to 15x15) with their ranks, computed exactly by
+    sympy (the reference), and two more invariants: the matrix's size and a noise column."""
+    import sympy
+
+    rng = np.random.default_rng(seed)
+    records = []
+    for i in range(rows):
+        size = int(rng.integers(2, 16))
+        rank = int(rng.integers(1, size + 1))
+        left = rng.integers(-2, 3, (size, rank))
+        right = rng.integers(-2, 3, (rank, size))
+        m = left @ right
+        records.append({"name": f"m{i}", "matrix": m.tolist(), "size": size,
+                        "noise": int(rng.integers(0, 5)),
+                        "rank": int(sympy.Matrix(m.tolist()).rank())})
+    return read_table(json.dumps(records).encode(), "ranks.json")
+
+
+def test_whole_number_target_is_judged_by_exact_hits_and_never_explodes():
+    # Matrices of different shapes, padded when flattened: with few training rows, test rows
+    # hold padded entries never seen in training. Clipping to the training range keeps the
+    # predictions sane (R^2 had been -4.9e22 on such a table); the rank is a whole number, so
+    # the share of exactly right predictions is reported beside R^2, with both baselines.
+    table = _ranked_matrices(400, 5)
+    step = SeparatorStep(target="rank", array_encoding="flat", train_fraction=0.2,
+                         permutations=19, repeats=2)
+    result = step.run(table)
+    m, b = result.metrics, result.baseline
+    assert result.task == "regression"
+    assert m["r2"] > -1.0, f"R^2 {m['r2']} on test rows"
+    assert 0.0 <= m["exact"] <= 1.0 and m["exact_ci"][0] <= m["exact"] <= m["exact_ci"][1]
+    ranks = Counter(table.frame["rank"])
+    assert b["most_common_value"] in ranks
+    assert "formula_exact" in b and 0.0 <= b["formula_exact"] <= 1.0
+    assert "exactly right" in result.summary()
+    assert "confusion matrix" not in " ".join(result.notes)
+    data = result.to_json()
+    assert data["metrics"]["exact"] == m["exact"] and data["baseline"]["exact"] == b["exact"]
+
+
+def test_a_mostly_empty_column_is_left_out_and_the_rows_kept():
+    # 13,000 rows; one feature column missing in three quarters of them. The default features
+    # leave it out (with a warning), so at least 90% of the rows are used.
+    rng = np.random.default_rng(0)
+    n = 13_000
+    a = rng.integers(0, 50, n)
+    b = rng.integers(0, 50, n)
+    sparse = rng.integers(0, 9, n).astype(float)
+    sparse[rng.random(n) < 0.77] = np.nan
+    frame = pd.DataFrame({"a": a, "b": b, "sparse": sparse, "flag": (a + 2 * b > 75)})
+    result = SeparatorStep(target="flag", permutations=0, repeats=1).run(_table(frame))
+    assert result.rows_used >= 0.9 * n, result.rows_used
+    assert result.left_out_columns == ("sparse",)
+    assert any("sparse" in w and "left out" in w for w in result.warnings), result.warnings
+    assert result.to_json()["left_out_columns"] == ["sparse"]
+    assert "warning: left out" in result.summary()
+
+
+def test_many_dropped_rows_are_a_warning():
+    rng = np.random.default_rng(1)
+    n = 600
+    a = rng.integers(0, 50, n).astype(float)
+    a[rng.random(n) < 0.2] = np.nan
+    frame = pd.DataFrame({"a": a, "b": rng.integers(0, 50, n), "flag": rng.random(n) < 0.5})
+    result = SeparatorStep(target="flag", columns=["a", "b"], permutations=0,
+                           repeats=1).run(_table(frame))
+    assert any(w.startswith("Dropped") and "more than 10%" in w for w in result.warnings), \
+        result.warnings
+
+
+def test_a_target_that_follows_from_the_features_is_said_first():
+    # The Euler number of a Calabi-Yau threefold is 2 (h11 - h21) (Candelas, Dale, Lutken and
+    # Schimmrigk 1988): with h21 and euler as features, h11 follows exactly.
+    rng = np.random.default_rng(2)
+    h11 = rng.integers(1, 20, 300)
+    h21 = rng.integers(1, 100, 300)
+    frame = pd.DataFrame({"h11": h11, "h21": h21, "euler": 2 * (h11 - h21),
+                          "other": rng.integers(0, 9, 300)})
+    result = SeparatorStep(target="h11", permutations=0, repeats=1).run(_table(frame))
+    assert result.target_follows is not None
+    assert set(result.target_follows.columns) == {"h21", "euler"}
+    assert "follows exactly from the features" in result.warnings[0]
+    assert result.summary().splitlines()[1].startswith("  finding: the target follows")
+
+
+def test_progress_reports_phases_and_first_figures():
+    from analysis.progress import StepStopped, Stopper
+
+    frame = pd.DataFrame({"a": np.arange(200) % 17, "b": np.arange(200) % 5,
+                          "flag": (np.arange(200) % 17) > 8})
+    seen = []
+    SeparatorStep(target="flag", permutations=19, repeats=2).run(_table(frame),
+                                                                  progress=seen.append)
+    phases = [p.phase for p in seen]
+    for phase in ("fitting the splits", "permutation test", "learning curve",
+                  "searching the exact equation"):
+        assert phase in phases, phases
+    first = next(p for p in seen if p.first_figures)
+    assert dict(first.first_figures)["accuracy"] >= 0.9
+    stopper = Stopper()
+    stopper.request()
+    from analysis.progress import Reporter
+
+    with pytest.raises(StepStopped, match="stopped by request"):
+        SeparatorStep(target="flag", permutations=19).run(
+            _table(frame), progress=Reporter(stopper=stopper))
