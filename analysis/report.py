@@ -429,11 +429,22 @@ _METRIC_WORDS = {
     "r2": "R\u00b2",
     "r2_ci": "R\u00b2 95% interval",
     "mean_absolute_error": "mean absolute error",
+    "exact": "share predicted exactly",
+    "exact_ci": "share predicted exactly, 95% interval",
+    "formula_exact": "share the closest formula gets exactly",
 }
 
 
 def _separator(data: dict) -> str:
-    parts = [f"<p class=\"verdict {_verdict_class(data)}\">{_e(_verdict(data))}</p>"]
+    parts = []
+    follows = data.get("target_follows")
+    if isinstance(follows, dict):
+        parts.append(f"<p class=\"verdict\">Finding: the target follows from the features: "
+                     f"{_code(follows.get('relation'))} holds on all {_e(follows.get('holds_on'))}"
+                     " objects used, so the verdict below says nothing new.</p>")
+    parts.append(f"<p class=\"verdict {_verdict_class(data)}\">{_e(_verdict(data))}</p>")
+    for warning in data.get("warnings") or []:
+        parts.append(f"<p class=\"settings\">Warning: {_e(warning)}</p>")
     if data.get("beats_chance_rule"):
         parts.append(f"<p class=\"settings\">{_e(data['beats_chance_rule'])}</p>")
     rows = []
@@ -465,10 +476,10 @@ def _separator(data: dict) -> str:
         parts.append(f"<p>Rows on the wrong side ({_e(count)}): {_ids(violating)}</p>")
     formula = data.get("formula")
     if isinstance(formula, dict):
-        parts.append("<h3>Formula for the target</h3>")
+        parts.append("<h3>Closest formula for the target</h3>")
         parts.append(f"<pre class=\"equation\">{_e(_equation_text(formula))}</pre>")
-        parts.append(f"<p>Rows where it is not exact ({_e(formula.get('rows_off'))}): "
-                     f"{_ids(formula.get('off_rows'))}</p>")
+        parts.append(f"<p>Objects it does not get exactly right ({_e(formula.get('rows_off'))}):"
+                     f" {_ids(formula.get('off_rows'))}</p>")
     surrogate = data.get("surrogate")
     if isinstance(surrogate, dict):
         parts.append("<h3>Quadratic stand-in for the kernel machine</h3>")

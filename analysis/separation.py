@@ -1013,7 +1013,7 @@ class _Run:
                                                                                          int)
             order = chosen[np.argsort(-residual[chosen], kind="stable")][:MISPREDICTED_LIMIT]
             return [{"row": row_id(ids[test[i]]), "actual": float(y[test[i]]),
-                     "predicted": float(predicted[i]), "confidence": float(residual[i])}
+                     "predicted": float(predicted[i]), "error": float(residual[i])}
                     for i in order]
         wrong = np.flatnonzero(predicted != y[test])
         if len(wrong) == 0 or not hasattr(model, "decision_function"):

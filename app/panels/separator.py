@@ -126,7 +126,9 @@ def show(ctx: settings.StepContext, result) -> None:
     options = _view_options(ctx, table, result)
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector, **options)
     if result.mispredicted:
-        with st.expander(f"Test rows the separator gets wrong ({len(result.mispredicted)})"):
+        what = ("Test rows predicted furthest from their value" if result.task == "regression"
+                else "Test rows the separator gets wrong")
+        with st.expander(f"{what} ({len(result.mispredicted)})"):
             st.dataframe(pd.DataFrame([{k: display.cell(v) for k, v in m.items()}
                                        for m in result.mispredicted]),
                          hide_index=True, key=ctx.key("mispredicted"))
@@ -159,9 +161,19 @@ def _view_options(ctx, table, result) -> dict:
 
 
 def _verdict(result) -> None:
+    from analysis.separation import MODEL_WORDS, REGRESSION_WORDS
+
+    if result.target_follows is not None:
+        st.info(f"**Finding: the target follows from the features.** "
+                f"`{result.target_follows.relation}` holds on all "
+                f"{display.number(result.target_follows.holds_on)} objects used, so the "
+                "verdict below says nothing new. Leave out "
+                f"{', '.join(f'`{c}`' for c in result.target_follows.columns)} in the feature "
+                "columns to ask whether the other invariants predict it.")
     word = "yes" if result.beats_chance else "no"
     colour = "green" if result.beats_chance else "orange"
-    words = MODELS.get(result.model, result.model)
+    words = (REGRESSION_WORDS if result.task == "regression" else MODEL_WORDS).get(
+        result.model, result.model)
     st.markdown(f"#### Beats chance: :{colour}[{word}]")
     rule = result.beats_chance_rule
     if rule.startswith("beats chance: "):
@@ -187,8 +199,6 @@ def _p_floor(result) -> str | None:
     count = len(result.permutation_scores)
     if result.permutation_p is None or not count:
         return None
-    if abs(result.permutation_p - 1 / (count + 1)) < 1e-12:
-        return "smallest possible"
     return f"{count} permutations"
 
 
@@ -210,8 +220,7 @@ def _classification_metrics(result) -> None:
     columns[3].metric("Permutation p-value", _p_value(result), delta=_p_floor(result),
                       delta_color="off", delta_arrow="off",
                       help=f"How often shuffled targets score as well: "
-                           f"{result.permutation_method}. With n permutations the "
-                           "smallest possible value is 1/(n+1).")
+                           f"{result.permutation_method}.")
 
 
 def _regression_metrics(result) -> None:
@@ -226,6 +235,21 @@ def _regression_metrics(result) -> None:
     columns[2].metric("R² of predicting the mean", display.number(b["r2"]))
     columns[3].metric("Permutation p-value", _p_value(result), delta=_p_floor(result),
                       delta_color="off", delta_arrow="off", help=result.permutation_method)
+    if "exact" in m:
+        from analysis.separation import exact_text
+
+        columns = st.columns(4)
+        columns[0].metric("Exactly right on test rows", f"{m['exact']:.1%}",
+                          delta=f"95% interval {m['exact_ci'][0]:.1%} to {m['exact_ci'][1]:.1%}",
+                          delta_color="off", delta_arrow="off",
+                          help="The share of test rows whose rounded prediction equals the "
+                               "whole-number target (Wilson's interval).")
+        columns[1].metric(f"Most common value ({display.number(b['most_common_value'])})",
+                          f"{b['exact']:.1%}")
+        if "formula_exact" in b:
+            columns[2].metric("Closest formula", f"{b['formula_exact']:.1%}",
+                              help=b["formula"])
+        st.caption(exact_text(result).capitalize() + ".")
 
 
 def _equation(ctx, table, result, equation, number: int) -> None:
@@ -261,7 +285,10 @@ def _equation_columns(equation) -> list[str]:
 
 
 def _formula(ctx, table, formula) -> None:
-    st.markdown("**Formula for the target**, exact in the table's own invariants:")
+    right = formula.n_rows - formula.rows_off
+    st.markdown(f"**Closest formula** in the table's own invariants, exactly right on "
+                f"{display.number(right)} of {display.number(formula.n_rows)} objects "
+                f"({right / max(formula.n_rows, 1):.1%}):")
     st.latex(formula.latex())
     st.code(formula.text, language=None)
     if formula.rows_off:
