@@ -23,7 +23,11 @@ import pandas as pd
 from analysis.errors import StepError, TableError
 from analysis.table import Table
 
-ARRAY_ENCODINGS = ("invariant", "flat", "both")
+# "invariant": the full permutation-invariant features for small matrices and the compact
+# ones (analysis/matrix_features.py) past COMPACT_FROM_ENTRIES entries; "full": the full ones
+# at any size; "compact": the compact ones at any size; "flat": padded entries; "both":
+# invariant and flat.
+ARRAY_ENCODINGS = ("invariant", "compact", "full", "flat", "both")
 # A default feature column missing in more than this share of the rows is left out.
 MISSING_SHARE_LIMIT = 0.30
 # Dropping more than this share of the rows for missing values is a warning, not a note.
@@ -534,7 +538,21 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
                          f"{'x'.join(map(str, _max_shape(shapes)))} for flattening.")
         blocks.append(block)
         features.extend(names)
-    if encoding in ("invariant", "both"):
+    from analysis.matrix_features import COMPACT_FROM_ENTRIES
+
+    largest = max(int(np.prod(shape)) for shape in shapes)
+    compact = encoding == "compact" or (encoding in ("invariant", "both")
+                                        and largest > COMPACT_FROM_ENTRIES)
+    if compact:
+        block, names = _compact(name, cells)
+        blocks.append(block)
+        features.extend(names)
+        if encoding != "compact":
+            notes.append(f"{name!r}: cells of up to {largest} entries: compact features (size, "
+                         "rank, trace, determinant, singular values, spectra of the matrix "
+                         "and of its symmetrised form) instead of every sorted entry; choose "
+                         "the array encoding full for those.")
+    elif encoding in ("invariant", "full", "both"):
         block, names = _invariants(name, cells, ndims, shapes)
         blocks.append(block)
         features.extend(names)
@@ -609,6 +627,40 @@ def _matrix_invariants(m: np.ndarray, square: bool, symmetric: bool) -> dict[str
         elif square:
             values["charpoly"] = np.poly(m)[1:] if m.size else np.zeros(0)
     return values
+
+
+def _compact(name: str, cells: list):
+    """The compact features of every cell (NaN for a missing or non-finite cell)."""
+    from analysis.matrix_features import (
+        COMPACT_SPECTRUM,
+        SCALAR_TITLES,
+        SPECTRUM_TITLES,
+        compact_invariants,
+    )
+
+    floats = [None if c is None else _as_floats(c) for c in cells]
+    found = [None if m is None or not np.isfinite(m).all() else compact_invariants(m)
+             for m in floats]
+    widths = {key: max((len(f[key]) for f in found if f is not None), default=0)
+              for key in SPECTRUM_TITLES}
+    widths = {key: min(width, COMPACT_SPECTRUM) for key, width in widths.items() if width}
+    width = len(SCALAR_TITLES) + sum(widths.values())
+    block = np.full((len(cells), width), np.nan)
+    for i, f in enumerate(found):
+        if f is None:
+            continue
+        values = [f[key] for key in SCALAR_TITLES]
+        for key, size in widths.items():
+            vector = np.zeros(size)
+            vector[:len(f[key])] = f[key]
+            values.extend(vector)
+        block[i] = values
+    features = [Feature(f"{key}({name})", name, key, title)
+                for key, title in SCALAR_TITLES.items()]
+    for key, size in widths.items():
+        features.extend(Feature(f"{key}{k + 1}({name})", name, key, SPECTRUM_TITLES[key])
+                        for k in range(size))
+    return block, features
 
 
 def _invariants(name: str, cells: list, ndims: set, shapes: set):

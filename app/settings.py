@@ -18,7 +18,9 @@ from app import state
 
 # What each array encoding means, in words.
 ENCODINGS = {
-    "invariant": "unchanged by permuting rows and columns",
+    "invariant": "unchanged by permuting rows and columns (compact for large matrices)",
+    "compact": "compact: size, rank, trace, determinant, spectra",
+    "full": "unchanged by permuting rows and columns, every sorted entry",
     "flat": "entries flattened (padded to one shape)",
     "both": "both",
 }

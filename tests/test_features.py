@@ -96,7 +96,7 @@ def test_text_and_id_columns_are_not_features(small):
 
 
 @pytest.mark.parametrize("setting, value, message", [
-    ("array_encoding", "sideways", r"array encoding 'sideways': use one of invariant, flat, both"),
+    ("array_encoding", "sideways", r"array encoding 'sideways': use one of invariant, compact, full, flat, both"),
     ("log_scale", "sometimes", r"log scale 'sometimes': use one of auto, never, always"),
     ("missing", "guess", r"missing-value policy 'guess': use drop or impute"),
 ])
@@ -155,12 +155,14 @@ def gappy():
     return read_table(data, "gappy.csv")
 
 
-def test_missing_drop_counts_rows_in_the_notes(gappy):
+def test_missing_drop_counts_rows_in_a_warning(gappy):
     fm = build_features(gappy, columns=["a", "b", "c"], target="t", missing="drop")
-    # rows 2 (a empty), 4 (b infinite), 5 (c empty) in features; row 3 in the target
+    # rows 2 (a empty), 4 (b infinite), 5 (c empty) in features; row 3 in the target: more
+    # than a tenth of the rows, so a warning rather than a note
     assert list(fm.rows) == [0, 5]
-    assert "dropped 4 of 6 rows with a missing value (3 in features, 1 in the target)." \
-        in fm.notes
+    assert fm.warnings[0].startswith(
+        "Dropped 4 of 6 rows with a missing value (3 in features, 1 in the target): more than "
+        "10% of the table.")
     assert "1 rows have an infinite feature value; treated as missing." in fm.notes
     assert np.isfinite(fm.values).all()
 
@@ -191,8 +193,8 @@ def test_a_target_with_nan_and_infinity_drops_those_rows():
     table = read_table(b"k,x,y\n1,1,2.5\n2,2,nan\n3,3,inf\n4,4,-1e400\n5,5,7\n", "t.csv")
     fm = build_features(table, columns=["x"], target="y")
     assert list(fm.rows) == [0, 4]
-    assert "dropped 3 of 5 rows with a missing value (0 in features, 3 in the target)." \
-        in fm.notes
+    assert fm.warnings[0].startswith(
+        "Dropped 3 of 5 rows with a missing value (0 in features, 3 in the target)")
     assert target_values(table, "y", fm.rows).tolist() == [2.5, 7.0]
 
 
@@ -465,3 +467,34 @@ def test_equal_group_keys_mean_equivalent_matrices(matrices):
 
 def test_group_keys_of_a_plain_column_are_its_values(small):
     assert group_keys(small, "kind").tolist() == ["toric", "fano", "toric", "other"]
+
+
+def test_large_matrices_get_compact_features_by_default():
+    # 16x16 integer matrices: the default encoding gives a few dozen compact features instead
+    # of every sorted entry; their rank feature matches numpy's matrix_rank (the reference).
+    import json
+
+    rng = np.random.default_rng(4)
+    cells = []
+    for _ in range(30):
+        rank = int(rng.integers(1, 17))
+        cells.append((rng.integers(-1, 2, (16, rank)) @ rng.integers(-1, 2, (rank, 16))))
+    records = [{"name": f"k{i}", "m": c.tolist()} for i, c in enumerate(cells)]
+    table = read_table(json.dumps(records).encode(), "knots.json")
+    fm = build_features(table)
+    assert len(fm.features) <= 7 + 3 * 16, len(fm.features)
+    assert any("compact features" in note for note in fm.notes)
+    rank = fm.values[:, fm.names.index("rank(m)")]
+    assert rank.tolist() == [float(np.linalg.matrix_rank(c)) for c in cells]
+    full = build_features(table, array_encoding="full")
+    assert len(full.features) > 256
+
+
+def test_small_matrices_keep_the_full_invariant_features():
+    import json
+
+    records = [{"m": [[1, 2], [3, 4]]}, {"m": [[0, 1], [1, 0]]}, {"m": [[2, 2], [0, 1]]}]
+    table = read_table(json.dumps(records).encode(), "small.json")
+    names = build_features(table).names
+    assert "sorted1(m)" in names and "rank(m)" not in names
+    assert "rank(m)" in build_features(table, array_encoding="compact").names
