@@ -65,6 +65,9 @@ MAX_BOUND_COLUMNS = 20
 MAX_TRIPLE_COLUMNS = 8
 MAX_BOUNDS = 30
 MAX_LISTED_ROWS = 1000
+# A relation or bound broken by at most this many rows makes each breaker an object to look
+# at; one broken by more is a tendency, and its breakers are listed but not flagged.
+FEW_BREAKERS = 5
 # Fraction of the spread of a bound's left side within which a row "comes close" to it.
 NEAR_FRACTION = Fraction(1, 20)
 # Bounds that all but a few rows obey are also searched along every direction of two integer
@@ -260,23 +263,31 @@ def relation_reasons(result: RelationsResult) -> dict:
     """Why each row is worth a look, in words, for the objects-to-look-at list.
 
     Returns ``{row_id: [reason, ...]}``: "breaks <relation>" for rows that break a relation
-    or a bound, "attains <bound>" for the extremal rows of a bound, "is off <relation>" for
-    rows outside the tolerance of an approximate relation.
+    or a bound that every other row obeys, "attains <bound>" for the extremal rows of a bound,
+    "is off <relation>" for rows outside the tolerance of an approximate relation. A statement
+    broken by more than ``FEW_BREAKERS`` rows is a tendency, not a law, and breaking it is no
+    reason to look at a row.
     """
     reasons: dict = {}
 
     def add(row, text):
         reasons.setdefault(_plain(row), []).append(text)
 
+    def broken(statement, verb="breaks"):
+        count = len(statement.violations)
+        if count > FEW_BREAKERS:
+            return
+        others = "" if count == 1 else f" (one of the {count} objects that do)"
+        for row in statement.violations:
+            add(row, f"{verb} {statement.text}, which every other object obeys{others}")
+
     for relation in result.relations:
-        for row in relation.violations:
-            add(row, f"breaks {relation.text}")
+        broken(relation)
     for relation in result.approximate:
         for row in relation.violations:
             add(row, f"is off {relation.text}")
     for bound in result.bounds:
-        for row in bound.violations:
-            add(row, f"breaks {bound.text}")
+        broken(bound)
         for row in bound.attained_by:
             add(row, f"attains {bound.text}")
     return reasons

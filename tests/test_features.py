@@ -96,7 +96,8 @@ def test_text_and_id_columns_are_not_features(small):
 
 
 @pytest.mark.parametrize("setting, value, message", [
-    ("array_encoding", "sideways", r"array encoding 'sideways': use one of invariant, compact, full, flat, both"),
+    ("array_encoding", "sideways",
+     r"array encoding 'sideways': use one of invariant, compact, full, flat, both"),
     ("log_scale", "sometimes", r"log scale 'sometimes': use one of auto, never, always"),
     ("missing", "guess", r"missing-value policy 'guess': use drop or impute"),
 ])
@@ -478,7 +479,7 @@ def test_large_matrices_get_compact_features_by_default():
     cells = []
     for _ in range(30):
         rank = int(rng.integers(1, 17))
-        cells.append((rng.integers(-1, 2, (16, rank)) @ rng.integers(-1, 2, (rank, 16))))
+        cells.append(rng.integers(-1, 2, (16, rank)) @ rng.integers(-1, 2, (rank, 16)))
     records = [{"name": f"k{i}", "m": c.tolist()} for i, c in enumerate(cells)]
     table = read_table(json.dumps(records).encode(), "knots.json")
     fm = build_features(table)

@@ -14,7 +14,7 @@ from analysis.plain import row_id
 MAX_BARS = 50
 GROUP_COLOURS = {"position": PALETTE[0], "separator": PALETTE[1], "relations": PALETTE[3]}
 GROUP_WORDS = {"position": "sits apart from the other rows",
-               "separator": "the separator gets it wrong",
+               "separator": "a cross-validated model of the target gets it wrong",
                "relations": "breaks a relation or bound"}
 
 
