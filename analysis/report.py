@@ -489,6 +489,14 @@ def _separator(data: dict) -> str:
                          f"{_e(_text(100 * surrogate['agreement']))}% of rows.</p>")
     if not equations and not isinstance(formula, dict) and not isinstance(surrogate, dict):
         parts.append("<p>No equation was found.</p>")
+    opened = [p for p in data.get("open_predictions") or [] if isinstance(p, dict)]
+    if opened:
+        parts.append(f"<h3>Predictions for {_e(len(opened))} objects with no known value</h3>")
+        parts.append("<p>Predictions to check by hand, not values.</p>")
+        parts.append(_table(["object", "prediction", "confidence", "interval", "inside it"],
+                            [[p.get("row"), p.get("prediction"), p.get("confidence"),
+                              p.get("interval"), p.get("inside")] for p in opened[:50]],
+                            numeric=(2,)))
     mispredicted = data.get("mispredicted")
     if mispredicted:
         parts.append(f"<p>Mispredicted test rows ({len(mispredicted)}): "

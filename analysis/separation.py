@@ -74,6 +74,8 @@ NYSTROEM_FIT_ROWS = 50_000
 # Rows a fitted pipeline evaluates at once, so that Nystroem features stay small in memory.
 PREDICT_BLOCK_ROWS = 20_000
 MISPREDICTED_LIMIT = 100
+# Objects with an open target value predicted at most.
+OPEN_PREDICTION_LIMIT = 5000
 # The check that the target follows from the features runs on at most this many rows (a seeded
 # sample), and a relation it finds is then checked on every row.
 LEAKAGE_SAMPLE_ROWS = 5000
@@ -144,6 +146,8 @@ class SeparatorResult:
     permutations_run: int = 0
     left_out_columns: tuple[str, ...] = ()
     target_follows: object = None   # analysis.leakage.TargetFollows: the target is a formula
+    importance: tuple = ()          # analysis.importance.Importance records, largest first
+    open_predictions: tuple[dict, ...] = ()  # rows with no known target value, predicted
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "separator"
 
@@ -193,6 +197,8 @@ class SeparatorResult:
             "permutations_run": self.permutations_run,
             "left_out_columns": list(self.left_out_columns),
             "target_follows": _json_or_none(self.target_follows),
+            "importance": [r.to_json() for r in self.importance],
+            "open_predictions": list(self.open_predictions),
             "warnings": list(self.warnings),
             "notes": list(self.notes),
         })
@@ -258,6 +264,31 @@ def exact_text(result: SeparatorResult) -> str:
         verdict = "beats both" if m.get("exact_beats_baselines") else "does not clearly beat both"
         text += f": the model {verdict} (the interval's low end against the better baseline)"
     return text
+
+
+def _target_intervals(table, target: str) -> dict:
+    """Position -> (low, high) of the target's interval cells (none for most tables)."""
+    reader = getattr(table, "intervals", None)
+    if reader is None:
+        return {}
+    found = reader(target)
+    return {int(p): (float(lo), float(hi))
+            for p, lo, hi in zip(found.positions, found.low, found.high)}
+
+
+def _class_confidence(model, X: np.ndarray) -> np.ndarray:
+    """The probability the model gives its predicted class, where it gives probabilities;
+    else the distance from the boundary in decision units."""
+    if hasattr(model, "predict_proba"):
+        try:
+            return np.asarray(model.predict_proba(X)).max(axis=1)
+        except AttributeError:
+            pass
+    scores = _decision(model, X)
+    if scores.ndim == 1:
+        return np.abs(scores)
+    ordered = np.sort(scores, axis=1)
+    return ordered[:, -1] - ordered[:, -2]
 
 
 def _first_figures(metrics: dict) -> dict:
@@ -772,6 +803,8 @@ class _Run:
             confusion = None
         else:
             metrics, baseline, interval, confusion = self._class_report(test, predicted)
+        self.progress.phase("permutation importance of the features")
+        importance = self._importance(model, test)
         p_value, null, observed, permutation_method = self._permutation_test(train, test)
         statistic = metrics["r2_ci"] if self.regression else metrics["mcc_ci"]
         beats = bool(statistic[0] is not None and statistic[0] > 0 and p_value is not None
@@ -780,6 +813,8 @@ class _Run:
         mispredicted = self._mispredicted(model, test, predicted)
         self.progress.phase("searching the exact equation")
         equation_part = self._equation_part()
+        self.progress.phase("predicting the open values")
+        open_predictions = self._open_predictions(test, predicted)
         if self.regression and self.integer_target and equation_part.get("formula"):
             from analysis.integer_target import exact_share
 
@@ -813,7 +848,8 @@ class _Run:
             kernel_method=self.kernel_method, mispredicted=tuple(mispredicted),
             warnings=tuple(self.warnings), notes=tuple(self.notes), rows_used=n,
             permutations_run=self.permutations_run, left_out_columns=self.left_out,
-            target_follows=self.follows,
+            target_follows=self.follows, importance=importance,
+            open_predictions=tuple(open_predictions),
             **equation_part,
         )
 
@@ -960,6 +996,72 @@ class _Run:
 
         return refit, None
 
+    def _importance(self, model, test) -> tuple:
+        """Permutation importance of every feature on split 1's test rows (seeded)."""
+        from sklearn.metrics import make_scorer, matthews_corrcoef, r2_score
+
+        from analysis.importance import permutation_importances
+
+        rows = test
+        limit = KERNEL_PERMUTATION_TEST_ROWS if self.kernel_method is not None else None
+        if limit and len(rows) > limit:
+            rows = np.sort(np.random.default_rng([self.step.seed, 43]).choice(
+                rows, limit, replace=False))
+        scorer = make_scorer(r2_score if self.regression else matthews_corrcoef)
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            return permutation_importances(
+                model, self.X[rows], self.y[rows], list(self.fm.names),
+                [f.column for f in self.fm.features], scorer, seed=self.step.seed)
+
+    def _open_predictions(self, test, predicted) -> list[dict]:
+        """Objects whose target is missing or an interval, predicted by the model fitted on
+        the known rows (split 1's model on a large table), with its confidence."""
+        from analysis.features import build_features
+
+        table, step = self.table, self.step
+        known = np.zeros(table.n_rows, dtype=bool)
+        known[self.fm.rows] = True
+        intervals = _target_intervals(table, step.target)
+        try:
+            every = build_features(table, columns=list(self.fm.columns),
+                                   array_encoding=step.array_encoding,
+                                   log_scale=step.log_scale, missing=step.missing)
+        except StepError:
+            return []
+        names_match = every.names == self.fm.names
+        wanted = ~known[every.rows]
+        if not names_match or not wanted.any():
+            return []
+        rows = every.rows[wanted][:OPEN_PREDICTION_LIMIT]
+        X = np.ascontiguousarray(every.values[wanted][:OPEN_PREDICTION_LIMIT])
+        model = self.full_model
+        guesses = np.asarray(_predict(model, X))
+        if self.regression:
+            typical = float(np.mean(np.abs(self.y[test] - predicted)))
+            confidence = np.full(len(rows), np.nan)
+        else:
+            confidence = _class_confidence(model, X)
+            typical = None
+        out = []
+        for k, position in enumerate(rows):
+            interval = intervals.get(int(position))
+            value = float(guesses[k]) if self.regression else self.classes[int(guesses[k])]
+            inside = None
+            if interval is not None and self.regression:
+                inside = bool(interval[0] <= value <= interval[1])
+            out.append({"row": row_id(table.row_ids[position]), "prediction": value,
+                        "confidence": None if np.isnan(confidence[k]) else float(confidence[k]),
+                        "typical_error": typical,
+                        "interval": None if interval is None else [float(interval[0]),
+                                                                   float(interval[1])],
+                        "inside": inside})
+        if len(out):
+            self.notes.append(f"{len(out)} objects with no known value of {step.target!r} are "
+                              "predicted by the model fitted on the known rows: predictions "
+                              "to check by hand, not values.")
+        return out
+
     def _learning_curve(self) -> list[dict]:
         step = self.step
         kernel = self.kernel_method is not None
@@ -1056,6 +1158,7 @@ class _Run:
                               "the decision scores, instead of a refit on every row.")
         else:
             model = self._fit(np.arange(n), seed_offset=5000)
+        self.full_model = model
         predicted = np.asarray(_predict(model, self.X))
         names = list(self.fm.names)
         ids = self.fm.row_ids

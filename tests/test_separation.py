@@ -690,3 +690,35 @@ def test_progress_reports_phases_and_first_figures():
     with pytest.raises(StepStopped, match="stopped by request"):
         SeparatorStep(target="flag", permutations=19).run(
             _table(frame), progress=Reporter(stopper=stopper))
+
+
+def test_importance_puts_the_planted_columns_first():
+    # a planted rule on a and b; c and d are noise
+    rng = np.random.default_rng(6)
+    n = 800
+    frame = pd.DataFrame({"a": rng.integers(0, 40, n), "b": rng.integers(0, 40, n),
+                          "c": rng.integers(0, 40, n), "d": rng.integers(0, 40, n)})
+    frame["flag"] = frame["a"] - 2 * frame["b"] > -20
+    result = SeparatorStep(target="flag", permutations=0, repeats=1).run(_table(frame))
+    order = [r.feature for r in result.importance]
+    assert set(order[:2]) == {"a", "b"}, order
+    assert result.importance[0].mean > 0.1
+    assert result.to_json()["importance"][0]["feature"] == order[0]
+
+
+def test_open_values_are_predicted_and_said_to_be_predictions():
+    # the planted rule decides the flag; a tenth of the rows have no flag recorded
+    rng = np.random.default_rng(7)
+    n = 600
+    frame = pd.DataFrame({"a": rng.integers(0, 40, n), "b": rng.integers(0, 40, n)})
+    truth = frame["a"] + frame["b"] > 40
+    frame["flag"] = truth.astype(object)
+    hidden = rng.choice(n, 60, replace=False)
+    frame.loc[hidden, "flag"] = None
+    result = SeparatorStep(target="flag", permutations=0, repeats=1).run(_table(frame))
+    assert len(result.open_predictions) == 60
+    right = sum(p["prediction"] == bool(truth[p["row"]]) for p in result.open_predictions)
+    assert right >= 54, right
+    assert all(p["confidence"] is not None and p["interval"] is None
+               for p in result.open_predictions)
+    assert any("to check by hand, not values" in note for note in result.notes)

@@ -37,6 +37,8 @@ def figures(result, table=None, **options) -> list:
     if result.learning_curve:
         out.append(("Learning curve", learning_curve_figure(result)))
     out.append(("Score against chance", chance_figure(result)))
+    if getattr(result, "importance", ()):
+        out.append(("What the prediction rests on", importance_figure(result)))
     if result.decision is not None and result.task == "classification":
         out.append(("Decision score of every row",
                     decision_figure(result, table, feature=options.get("feature"),
@@ -44,6 +46,31 @@ def figures(result, table=None, **options) -> list:
                                     hover=options.get("hover"),
                                     max_points=options.get("max_points", MAX_POINTS))))
     return out
+
+
+IMPORTANCE_BARS = 20
+
+
+def importance_figure(result):
+    """Horizontal bars: the drop in score when each feature (or whole matrix column) is
+    shuffled on the test rows, with the spread over the repeats; largest at the top."""
+    import plotly.graph_objects as go
+
+    shown = list(result.importance[:IMPORTANCE_BARS])[::-1]
+    names = [(f"{r.feature} (whole column)" if r.whole_column else r.feature) for r in shown]
+    figure = go.Figure(go.Bar(
+        x=[r.mean for r in shown], y=names, orientation="h",
+        error_x={"type": "data", "array": [r.std for r in shown], "visible": True},
+        marker={"color": [PALETTE[1] if r.whole_column else PALETTE[0] for r in shown]},
+        hovertemplate="%{y}: drop %{x:.3f}<extra></extra>"))
+    statistic = "R^2" if result.task == "regression" else "Matthews correlation"
+    more = len(result.importance) - len(shown)
+    apply_style(figure, title=escaped(f"{result.target}: drop in {statistic} when a feature is "
+                                      "shuffled on the test rows"
+                                      + (f" (top {len(shown)}, {more} more)" if more else "")),
+                x_title=f"drop in {statistic} (mean and spread over repeats)", y_title="")
+    figure.update_layout(height=max(260, 26 * len(shown) + 120))
+    return figure
 
 
 def confusion_figure(result):

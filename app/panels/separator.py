@@ -125,6 +125,7 @@ def show(ctx: settings.StepContext, result) -> None:
         st.caption(CONJECTURE)
     options = _view_options(ctx, table, result)
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector, **options)
+    _open_predictions(ctx, result)
     if result.mispredicted:
         what = ("Test rows predicted furthest from their value" if result.task == "regression"
                 else "Test rows the separator gets wrong")
@@ -301,6 +302,27 @@ def _formula(ctx, table, formula) -> None:
                              key=ctx.key("formula_off"))
     else:
         st.markdown(f"Every one of the {display.number(formula.n_rows)} objects fits it.")
+
+
+def _open_predictions(ctx, result) -> None:
+    """Objects whose target is open, with the model's guesses and a CSV download."""
+    found = result.open_predictions
+    if not found:
+        return
+    with st.expander(f"Predictions for {display.number(len(found))} objects whose "
+                     f"{result.target} is not known"):
+        st.caption("Predictions to check by hand, not values: the model fitted on the "
+                   "objects whose value is known, applied to the others.")
+        frame = pd.DataFrame([{"object": p["row"], "prediction": display.cell(p["prediction"]),
+                               "confidence": p["confidence"],
+                               "known interval": None if p["interval"] is None
+                               else f"[{p['interval'][0]:g}, {p['interval'][1]:g}]",
+                               "inside it": p["inside"]} for p in found])
+        st.dataframe(frame, hide_index=True, key=ctx.key("open"))
+        st.download_button("Download these predictions (CSV)",
+                           data=frame.to_csv(index=False).encode("utf-8"),
+                           file_name=f"predicted_{result.target}.csv", mime="text/csv",
+                           key=ctx.key("open_csv"), on_click="ignore")
 
 
 def _surrogate(surrogate) -> None:
