@@ -75,7 +75,15 @@ def _parser() -> argparse.ArgumentParser:
 
     separate = _command(commands, "separate",
                         "is TARGET predictable from the other invariants, and by what equation")
-    separate.add_argument("--target", required=True, metavar="COL")
+    chosen = separate.add_mutually_exclusive_group(required=True)
+    chosen.add_argument("--target", metavar="COL")
+    chosen.add_argument("--breaks", metavar="STATEMENT",
+                        help="a relation, bound or congruence as the relations step writes it "
+                             "(e.g. 'h11 - num_factors >= 0'); the target is then whether an "
+                             "object breaks it")
+    separate.add_argument("--reading", choices=["auto", "number", "classes"],
+                          help="an invariant target as a number or as classes (default: a "
+                               "number past 12 distinct values)")
     separate.add_argument("--model", default="linear",
                           choices=["linear", "logistic", "lda", "rbf", "poly2"])
     separate.add_argument("--train-fraction", type=float, default=0.5, metavar="F")
@@ -163,6 +171,12 @@ def _params(args: argparse.Namespace) -> dict:
     for option, name in mapping.items():
         if hasattr(args, option) and getattr(args, option) is not None:
             params[name] = getattr(args, option)
+    if getattr(args, "reading", None):
+        params["reading"] = args.reading
+    if getattr(args, "breaks", None):
+        from analysis.derived import Statement
+
+        params["target_statement"] = Statement.parse(args.breaks).to_json()
     if getattr(args, "features", None):
         params["columns"] = _split(args.features)
     if getattr(args, "columns", None):

@@ -14,6 +14,7 @@ missing value in one of the statement's columns is missing in the flag.
 from __future__ import annotations
 
 import dataclasses
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from fractions import Fraction
@@ -67,6 +68,33 @@ class Statement:
         return data
 
     @classmethod
+    def parse(cls, text: str) -> Statement:
+        """A statement written as the program writes them: ``h11 - num_factors >= 0``,
+        ``2*a + b = 3``, ``x + y ≡ 1 (mod 4)`` (also ``==``, ``=<``, ``mod`` without the sign).
+
+        >>> Statement.parse("2*a - b/2 <= 3").terms
+        (('a', Fraction(2, 1)), ('b', Fraction(-1, 2)))
+        """
+        found = _STATEMENT.fullmatch(text.strip())
+        if not found:
+            raise StepError(f"cannot read the statement {text!r}: write it as a sum of "
+                            "coefficient*column terms, a relation (=, <=, >=, or ≡ r (mod m)) "
+                            "and a number, e.g. 'h11 - num_factors >= 0'.")
+        left, relation, constant, modulus = found.group("left", "relation", "constant",
+                                                        "modulus")
+        terms = []
+        for sign, body in _TERM.findall("+" + left.strip() if left.strip()[0] not in "+-"
+                                        else left.strip()):
+            coef, name = _split_term(body.strip())
+            terms.append((name, -coef if sign == "-" else coef))
+        relation = {"==": "=", "=<": "<=", "=>": ">=", "≡": "mod"}.get(relation, relation)
+        if modulus is not None:
+            relation = "mod"
+        return cls.from_json({"terms": [{"column": n, "coef": str(c)} for n, c in terms],
+                              "relation": relation, "constant": constant,
+                              **({"modulus": int(modulus)} if modulus else {})})
+
+    @classmethod
     def from_json(cls, data: Mapping) -> Statement:
         """A statement from a relation, bound, congruence or formula record of a result's
         JSON (or a study file); StepError saying what is wrong otherwise."""
@@ -114,6 +142,25 @@ class Statement:
             return total >= self.constant
         difference = total - self.constant
         return difference.denominator == 1 and difference.numerator % self.modulus == 0
+
+
+_NAME = r"[A-Za-z_][\w.()\[\],]*"
+_STATEMENT = re.compile(
+    r"(?P<left>.+?)\s*(?P<relation>==|<=|>=|=<|=>|=|≡)\s*(?P<constant>[+-]?\d+(?:/\d+)?)"
+    r"\s*(?:\(\s*mod\s+(?P<modulus>\d+)\s*\))?")
+_TERM = re.compile(r"([+-])\s*([^+-]+)")
+
+
+def _split_term(body: str) -> tuple[Fraction, str]:
+    """``2*a``, ``a``, ``1/2*a``, ``a/2`` -> (coefficient, column)."""
+    match = re.fullmatch(rf"(?:(\d+(?:/\d+)?)\s*\*\s*)?({_NAME})(?:\s*/\s*(\d+))?", body)
+    if not match:
+        raise StepError(f"cannot read the term {body!r} of a statement: write it as "
+                        "coefficient*column.")
+    coef = Fraction(match.group(1) or 1)
+    if match.group(3):
+        coef /= int(match.group(3))
+    return coef, match.group(2)
 
 
 def with_breaks_flag(table, statement: Statement):

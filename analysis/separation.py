@@ -374,6 +374,9 @@ class SeparatorStep:
         every row) starts the equation search. The equation is searched on a sample of
         ``sample_rows`` rows past that size, then checked on every row.
     max_terms, max_denominator: limits for the exact equation (None: the search's defaults).
+    target_statement: a relation, bound, congruence or formula (its JSON, as a result gives
+        it); the target is then the derived flag "breaks: <statement>", true on the rows that
+        break it, so the step asks whether the breakers can be told apart, and how.
     reading: how an invariant target is read: "auto" (a number past 12 distinct values, else
         each value a class), "number" (a regression; whole-number targets are also judged by
         the share predicted exactly) or "classes" (each value a class).
@@ -400,6 +403,7 @@ class SeparatorStep:
     max_terms: int | None = None
     max_denominator: int | None = None
     reading: str = "auto"
+    target_statement: dict | None = None
     seed: int = 0
     kind: ClassVar[str] = "separator"
 
@@ -411,8 +415,15 @@ class SeparatorStep:
             step by raising :class:`analysis.progress.StepStopped`.
         """
         started = time.perf_counter()
-        self._check_settings(table)
-        result = _Run(self, table, quiet(progress)).execute()
+        step = self
+        if self.target_statement is not None:
+            from analysis.derived import Statement, with_breaks_flag
+
+            self.check()
+            table, name = with_breaks_flag(table, Statement.from_json(self.target_statement))
+            step = dataclasses.replace(self, target=name)
+        step._check_settings(table)
+        result = _Run(step, table, quiet(progress)).execute()
         return dataclasses.replace(result, elapsed_seconds=time.perf_counter() - started)
 
     def _check_settings(self, table: Table) -> None:
@@ -458,6 +469,13 @@ class SeparatorStep:
                 math.isfinite(self.c) and self.c > 0):
             raise StepError(f"c {self.c!r}: use a positive number (the support vector "
                             "machine's C; larger fits the training rows more tightly).")
+        if self.target_statement is not None:
+            from analysis.derived import Statement
+
+            statement = Statement.from_json(self.target_statement)
+            if self.target is not None and self.target != statement.flag_name:
+                raise StepError(f"target {self.target!r} and target_statement "
+                                f"{statement.text!r} both name a target; give one of them.")
         if self.reading not in READINGS:
             raise StepError(f"reading {self.reading!r}: use one of {', '.join(READINGS)}.")
         if self.kernel_approximation not in KERNEL_APPROXIMATIONS:
@@ -1724,12 +1742,19 @@ def _resolve_positive(values: list, counts: list[int], requested, target: str,
 
 def excluded_columns(table: Table, step: SeparatorStep) -> tuple[str, ...]:
     """Columns left out of the default features: the group column when it is not a matrix
-    (a group label is a name for the object, not an invariant of it)."""
-    if step.groups is None or step.columns is not None:
+    (a group label is a name for the object, not an invariant of it), and the columns of the
+    statement a derived target comes from (they tell its breakers apart by the statement
+    itself; the question is whether the other invariants can)."""
+    if step.columns is not None:
         return ()
-    if table.column(step.groups).role == "array":
-        return ()
-    return (step.groups,)
+    left_out: tuple[str, ...] = ()
+    if step.groups is not None and table.column(step.groups).role != "array":
+        left_out += (step.groups,)
+    if step.target_statement is not None:
+        from analysis.derived import Statement
+
+        left_out += tuple(name for name, _ in Statement.from_json(step.target_statement).terms)
+    return left_out
 
 
 def _augment_column(table: Table, fm, groups: str | None) -> str:

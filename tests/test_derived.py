@@ -71,3 +71,39 @@ def test_a_statement_nobody_breaks_is_refused():
     statement = Statement(terms=(("e", Fraction(1)),), relation=">=", constant=Fraction(0))
     with pytest.raises(StepError, match="every checked row obeys"):
         with_breaks_flag(table, statement)
+
+
+def test_a_separator_asks_what_sets_the_breakers_apart():
+    # A connected graph has at least v - 1 edges, with equality exactly for trees (a standard
+    # fact of graph theory, e.g. Diestel, Graph Theory, Cor. 1.5.3). On the sample atlas table
+    # (diameter is missing for disconnected graphs, so only connected ones are used) the
+    # breakers of "edges - vertices >= 0" are the trees, and the separator says so without
+    # the statement's own columns.
+    import json
+    from pathlib import Path
+
+    from analysis.separation import SeparatorStep
+    from analysis.steps import make_step, step_params
+    from analysis.table import load_table
+
+    table = load_table(Path(__file__).resolve().parent.parent / "sample_tables" /
+                       "graphs_up_to_7.csv")
+    statement = Statement.parse("edges - vertices >= 0")
+    step = SeparatorStep(target_statement=statement.to_json(), permutations=19, repeats=2)
+    result = step.run(table)
+    assert result.target == "breaks: edges - vertices >= 0"
+    assert result.equation is not None and result.equation.violations == 0
+    assert [t.feature for t in result.equation.terms] == ["tree"], result.equation.text
+    used = {f for t in result.equation.terms for f in t.factor_names()}
+    assert not used & {"edges", "vertices"}
+    # the study file keeps the statement, and the step made again gives the same numbers
+    again = make_step("separator", json.loads(json.dumps(step_params(step))))
+    assert again.run(table).equation.text == result.equation.text
+
+
+def test_target_and_statement_together_are_refused():
+    from analysis.separation import SeparatorStep
+
+    statement = Statement.parse("a <= 3")
+    with pytest.raises(StepError, match="both name a target"):
+        SeparatorStep(target="b", target_statement=statement.to_json()).check()
