@@ -64,6 +64,8 @@ MAX_APPROXIMATE_COLUMNS = 20
 MAX_BOUND_COLUMNS = 20
 MAX_TRIPLE_COLUMNS = 8
 MAX_BOUNDS = 30
+# Bounds that all but a few rows obey, reported at most, after those that hold on every row.
+MAX_NEAR_BOUNDS = 15
 MAX_LISTED_ROWS = 1000
 # A relation or bound broken by at most this many rows makes each breaker an object to look
 # at; one broken by more is a tendency, and its breakers are listed but not flagged.
@@ -1720,10 +1722,15 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
         if key not in seen:
             seen.add(key)
             distinct.append(bound)
-    found = distinct
-    if len(found) > MAX_BOUNDS:
-        notes.append(f"the best {MAX_BOUNDS} of {len(found)} bounds are reported")
-    return found[:MAX_BOUNDS]
+    exact = [b for b in distinct if not b.violations]
+    near = [b for b in distinct if b.violations]
+    if len(exact) > MAX_BOUNDS:
+        notes.append(f"the best {MAX_BOUNDS} of {len(exact)} bounds are reported")
+    if len(near) > MAX_NEAR_BOUNDS:
+        notes.append(f"the best {MAX_NEAR_BOUNDS} of {len(near)} bounds that all but a few "
+                     "rows obey are reported")
+    # bounds that hold on every row first, then those a few rows break: never mixed
+    return exact[:MAX_BOUNDS] + near[:MAX_NEAR_BOUNDS]
 
 
 # --------------------------------------------------------------------------------------------

@@ -616,9 +616,11 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     bounds = _drop_crowded_triples(bounds, found)
     bounds.sort(key=rel.bound_rank)
     notes = [n for n in notes if not (n.startswith("the best ") and "bounds are reported" in n)]
-    if len(bounds) > rel.MAX_BOUNDS:
-        notes.append(f"the best {rel.MAX_BOUNDS} of {len(bounds)} bounds are reported")
-        bounds = bounds[:rel.MAX_BOUNDS]
+    exact = [b for b in bounds if not b.violations]
+    near = [b for b in bounds if b.violations]
+    if len(exact) > rel.MAX_BOUNDS:
+        notes.append(f"the best {rel.MAX_BOUNDS} of {len(exact)} bounds are reported")
+    bounds = exact[:rel.MAX_BOUNDS] + near[:rel.MAX_NEAR_BOUNDS]
     settled_approximate = []
     for relation, (present, off, ids) in zip(approximate, counts["approximate"]):
         if off > allowed:
