@@ -133,9 +133,10 @@ def _exact_values(name: str, values, n_rows: int) -> tuple[np.ndarray, np.ndarra
                         "give one value per row.")
     array = values if isinstance(values, np.ndarray) else None
     if array is not None and array.dtype.kind in "iu":
-        return np.ones(n_rows, dtype=bool), array.astype(np.int64, copy=False) \
-            if array.dtype.kind == "i" or n_rows == 0 or array.max() < 2 ** 63 \
-            else array.astype(object)
+        # int64 arithmetic on a*x + b*y stays exact below 2**62; larger values go exact.
+        small = n_rows == 0 or (int(array.max()) < 2 ** 62 and int(array.min()) > -(2 ** 62))
+        exact = array.astype(np.int64) if small else np.array(array.tolist(), dtype=object)
+        return np.ones(n_rows, dtype=bool), exact
     present = np.ones(n_rows, dtype=bool)
     exact = []
     for row, value in enumerate(values):
@@ -186,9 +187,12 @@ def _prepare(columns: Mapping[str, Sequence], n_rows: int, moduli: list[int]) ->
 def _distinct_at_least(values: np.ndarray, count: int) -> bool:
     if len(values) == 0:
         return False
-    if values.dtype == object:
-        return len(set(values.tolist())) >= count
-    return len(np.unique(values)) >= count
+    # Most columns show enough distinct values in their first rows: look there first.
+    for part in (values[:1000], values):
+        found = len(set(part.tolist())) if values.dtype == object else len(np.unique(part))
+        if found >= count:
+            return True
+    return False
 
 
 def _fold(histogram: np.ndarray, base: int, modulus: int) -> np.ndarray:

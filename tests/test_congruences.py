@@ -168,6 +168,13 @@ def test_near_congruence_lists_its_planted_breakers():
     assert find_congruences({"x": too_many}, ids) == []
 
 
+def test_listed_breakers_are_capped_but_counted():
+    # Common practice: the listing is capped, the count is not.
+    values = np.array([2 * k + (k in (3, 8, 9)) for k in range(1000)], dtype=np.uint64)
+    found = find_congruences({"x": values}, range(1000), max_listed_rows=2)
+    assert found[0].violations == (3, 8) and found[0].violation_count == 3
+
+
 def test_missing_values_count_only_where_present():
     # Common practice: missing cells are left out, not counted for or against.
     values = [None if i % 5 == 0 else 3 * i for i in range(100)]
