@@ -219,6 +219,7 @@ class RelationsResult:
     n_rows: int
     columns: tuple[str, ...]
     caveat: str = CAVEAT
+    congruences: tuple = ()   # analysis.congruences.Congruence, simplest first
     kind: ClassVar[str] = "relations"
 
     def to_json(self) -> dict:
@@ -229,6 +230,7 @@ class RelationsResult:
             "relations": [relation.to_json() for relation in self.relations],
             "approximate_relations": [relation.to_json() for relation in self.approximate],
             "bounds": [bound.to_json() for bound in self.bounds],
+            "congruences": [congruence.to_json() for congruence in self.congruences],
             "notes": list(self.notes),
             "caveat": self.caveat,
         })
@@ -256,6 +258,16 @@ class RelationsResult:
                 broken = f", broken by {len(bound.violations)}" if bound.violations else ""
                 lines.append(f"  {bound.text}  (attained by {bound.attained_count}, "
                              f"{bound.near} close{broken})")
+        if self.congruences:
+            lines.append(f"congruences ({len(self.congruences)}):")
+            for congruence in self.congruences[:10]:
+                broken = (f"  (broken by {congruence.violation_count} rows)"
+                          if congruence.violation_count else "")
+                lines.append(f"  {congruence.text}{broken}")
+        broken = [s for s in (*self.relations, *self.bounds) if s.violations]
+        if broken:
+            lines.append(f"  to ask what sets the breakers of a statement apart: separate "
+                         f"TABLE --breaks '{broken[0].text}'")
         lines.extend(f"  note: {note}" for note in self.notes)
         lines.append(self.caveat)
         return "\n".join(lines)
@@ -292,6 +304,8 @@ def relation_reasons(result: RelationsResult) -> dict:
         broken(bound)
         for row in bound.attained_by:
             add(row, f"attains {bound.text}")
+    for congruence in result.congruences:
+        broken(congruence)
     return reasons
 
 
@@ -1879,6 +1893,7 @@ class RelationsStep:
         max_coefficient: largest coefficient size in a reported bound.
         bounds: search sharp bounds in pairs of columns; triples: and in triples, where cheap.
         tolerance: relative tolerance of approximate relations among real-valued columns.
+        congruences: also search congruences sum(c*x) ≡ r (mod m) on the integer columns.
         seed: seed of the random subsets of rows.
 
     ``run(table)`` returns a :class:`RelationsResult`.
@@ -1894,6 +1909,7 @@ class RelationsStep:
     bounds: bool = True
     triples: bool = True
     tolerance: float = 1e-9
+    congruences: bool = True
     seed: int = 0
     kind: ClassVar[str] = "relations"
 
@@ -1959,8 +1975,18 @@ class RelationsStep:
                 exact[name] = table.frame[name].to_numpy()
             else:
                 exact[name] = table.exact(name)
-        return find_relations(
+        found = find_relations(
             exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
             max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,
             tolerance=self.tolerance, seed=self.seed,
         )
+        if not self.congruences:
+            return found
+        from analysis.congruences import find_congruences
+
+        integers = {name: values for name, values in exact.items()
+                    if table.column(name).dtype in ("integer", "big integer")}
+        laws = [r for r in found.relations if not r.violations]
+        congruences = find_congruences(integers, table.row_ids, relations=laws) \
+            if integers else []
+        return replace(found, congruences=tuple(congruences))

@@ -271,6 +271,17 @@ def _add(table) -> None:
         return
     try:
         params = new_step_params(kind, table, pg.focus)
+    except ScoutError as exc:
+        pg.notices.append(f"add:Could not add the step: {exc}")
+        return
+    add_step_with(kind, params)
+
+
+def add_step_with(kind: str, params: dict) -> None:
+    """Add a step of ``kind`` with ``params`` at the end of the study (a message on the page
+    if the settings do not fit)."""
+    pg = state.page()
+    try:
         new = add_step(state.study(), kind, params)
     except ScoutError as exc:
         pg.notices.append(f"add:Could not add the step: {exc}")

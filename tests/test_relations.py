@@ -682,3 +682,19 @@ def test_a_simple_bound_with_a_few_breakers_comes_before_a_long_one_attained_by_
     assert near[0] is planted, [b.text for b in near]
     exact = [b for b in found.bounds if not b.violations]
     assert found.bounds[:len(exact)] == tuple(exact)
+
+
+def test_the_step_reports_congruences_beside_relations_and_bounds():
+    # An imaginary quadratic field has 2, 4 or 6 roots of unity (from memory: 4 for Q(i), 6
+    # for Q(sqrt(-3)), 2 otherwise), so the sample table's units column is even; and the
+    # discriminant's residue mod 8 is the column disc_mod_8, by its definition.
+    table = load_table(Path(__file__).resolve().parent.parent / "sample_tables" /
+                       "quadratic_fields.csv")
+    result = RelationsStep().run(table)
+    texts = [c.text for c in result.congruences]
+    assert "units ≡ 0 (mod 2)" in texts, texts
+    assert "discriminant - disc_mod_8 ≡ 0 (mod 8)" in texts, texts
+    data = result.to_json()["congruences"]
+    assert {"terms", "modulus", "residue", "text", "holds_on", "violations"} <= set(data[0])
+    assert "congruences (" in result.summary()
+    assert RelationsStep(congruences=False).run(table).congruences == ()

@@ -65,15 +65,30 @@ def show(ctx: settings.StepContext, result) -> None:
     if trivial:
         st.caption("Also true, and uninteresting: " + "; ".join(
             f"`{r.text}`" for r in trivial[:8]) + ("…" if len(trivial) > 8 else ""))
-    st.markdown("##### Sharp bounds")
-    if result.bounds:
+    holding = [b for b in result.bounds if not b.violations]
+    near = [b for b in result.bounds if b.violations]
+    st.markdown("##### Sharp bounds that hold on every object")
+    if holding:
         st.dataframe(pd.DataFrame([{
-            "bound": b.text, "attained by": b.attained_count,
-            "close to it": b.near, "broken by": len(b.violations),
-            "some objects attaining it": _ids(b.attained_by)} for b in result.bounds]),
-            hide_index=True, key=ctx.key("bounds"))
+            "bound": b.text, "attained by": b.attained_count, "close to it": b.near,
+            "some objects attaining it": _ids(b.attained_by, total=b.attained_count)}
+            for b in holding]), hide_index=True, key=ctx.key("bounds"))
     else:
         st.caption("None found (or the search for bounds is off).")
+    if near:
+        st.markdown("##### Bounds that all but a few objects obey")
+        st.dataframe(pd.DataFrame([{
+            "bound": b.text, "broken by": len(b.violations), "attained by": b.attained_count,
+            "objects breaking it": _ids(b.violations)} for b in near]),
+            hide_index=True, key=ctx.key("near_bounds"))
+    if result.congruences:
+        st.markdown("##### Congruences")
+        st.dataframe(pd.DataFrame([{
+            "congruence": c.text, "holds on": c.holds_on, "broken by": c.violation_count,
+            "also gives": ", ".join(f"mod {m}" for m in c.implied_moduli),
+            "objects breaking it": _ids(c.violations, total=c.violation_count)}
+            for c in result.congruences]), hide_index=True, key=ctx.key("congruences"))
+    _breakers_action(ctx, result, nearly, near)
     _rows_of_choice(ctx, table, result, nearly)
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
     st.caption(result.caveat)
@@ -85,10 +100,30 @@ def _statement(terms, relation: str, constant, text: str) -> None:
     st.code(text, language=None)
 
 
-def _ids(ids, limit: int = 6) -> str:
+def _ids(ids, limit: int = 6, total: int | None = None) -> str:
     ids = list(ids)
+    total = len(ids) if total is None else total
     shown = ", ".join(str(display.cell(v)) for v in ids[:limit])
-    return shown + (f", … ({len(ids)} in all)" if len(ids) > limit else "")
+    return shown + (f", … ({total} in all)" if total > limit else "")
+
+
+def _breakers_action(ctx, result, nearly, near) -> None:
+    """One action per statement a few objects break: a separator step whose target is
+    "breaks this statement", to ask whether the breakers can be told apart."""
+    statements = {s.text: s for s in (*nearly, *near, *(c for c in result.congruences
+                                                       if c.violation_count))}
+    if not statements:
+        return
+    left, right = st.columns([3, 1], vertical_alignment="bottom")
+    chosen = left.selectbox("What sets the objects that break a statement apart?",
+                            list(statements), key=ctx.key("breaks_choice"))
+    from analysis.derived import Statement
+    from app import study_section
+
+    statement = Statement.from_json(statements[chosen].to_json())
+    right.button("Add a separator step", key=ctx.key("breaks_add"), icon=":material/add:",
+                 width="stretch", on_click=study_section.add_step_with,
+                 args=("separator", {"target_statement": statement.to_json()}))
 
 
 def _rows_of_choice(ctx, table, result, nearly) -> None:

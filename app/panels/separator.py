@@ -31,15 +31,24 @@ ROWS_SHOWN = 200
 
 def describe(params: dict) -> str:
     model = MODELS.get(params.get("model"), params.get("model"))
+    if params.get("target_statement"):
+        from analysis.derived import Statement
+
+        text = Statement.from_json(params["target_statement"]).text
+        return f"what sets apart the objects that break {text}, with a {model}"
     return f"predict {params.get('target')} with a {model}"
 
 
 def settings_panel(ctx: settings.StepContext) -> None:
     table = ctx.table
     left, right = st.columns(2)
-    settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
-                    optional=False,
-                    container=left, help="The flag, category or invariant to predict.")
+    if ctx.params.get("target_statement"):
+        left.caption("Target: whether an object breaks the statement above (the statement's "
+                     "own columns are left out of the features).")
+    else:
+        settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
+                        optional=False,
+                        container=left, help="The flag, category or invariant to predict.")
     settings.choice(ctx, "model", "Separator", MODELS, container=right,
                     help="Linear models and the degree-2 kernel give an equation in the "
                          "table's own invariants.")
