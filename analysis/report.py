@@ -563,14 +563,29 @@ def _relations(data: dict) -> str:
              for r in approximate],
             numeric=(1,)))
     bounds = data.get("bounds") or []
-    parts.append("<h3>Bounds</h3>")
-    if bounds:
+    holding = [b for b in bounds if not b.get("violations")]
+    near = [b for b in bounds if b.get("violations")]
+    parts.append("<h3>Bounds that hold on every row</h3>")
+    if holding:
         parts.append(_table(
-            ["bound", "attained by", "rows breaking it"],
-            [[_code(_equation_text(b)), _ids(b.get("attained_by")), _ids(b.get("violations"))]
-             for b in bounds]))
+            ["bound", "attained by (count)", "some rows attaining it"],
+            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("attained_by"))]
+             for b in holding], numeric=(1,)))
     else:
         parts.append("<p>No sharp bound was found.</p>")
+    if near:
+        parts.append("<h3>Bounds that all but a few rows obey</h3>")
+        parts.append(_table(
+            ["bound", "attained by (count)", "rows breaking it"],
+            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("violations"))]
+             for b in near], numeric=(1,)))
+    congruences = data.get("congruences") or []
+    if congruences:
+        parts.append("<h3>Congruences</h3>")
+        parts.append(_table(
+            ["congruence", "holds on", "rows breaking it"],
+            [[_code(c.get("text")), c.get("holds_on"), _ids(c.get("violations"))]
+             for c in congruences], numeric=(1,)))
     return "\n".join(parts)
 
 
