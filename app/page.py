@@ -11,6 +11,23 @@ CAVEAT = ("A relation, bound or separating equation found here holds on the rows
           "table: it is a conjecture the table supports, not a proof.")
 
 
+def icon():
+    """The page's icon, drawn here: a few points of a scatter picture on the page's blue.
+
+    An image made in the process is served by the app itself, so the page asks no other host
+    for it (a named icon or an emoji would be fetched from the network).
+    """
+    from PIL import Image, ImageDraw
+
+    size = 64
+    picture = Image.new("RGBA", (size, size), (0, 0, 0, 0))
+    pen = ImageDraw.Draw(picture)
+    pen.rounded_rectangle((2, 2, size - 3, size - 3), radius=12, fill=(58, 97, 144, 255))
+    for x, y in ((16, 46), (26, 34), (36, 38), (44, 22), (50, 14)):
+        pen.ellipse((x - 5, y - 5, x + 5, y + 5), fill=(255, 255, 255, 255))
+    return picture
+
+
 def _first_visit() -> None:
     """Open a sample table with its short study (run as the page draws): the one named in
     the address (``?table=graphs_up_to_7.csv``), else the lattice polygons."""

@@ -19,6 +19,6 @@ import streamlit as st  # noqa: E402
 
 from app import page  # noqa: E402
 
-st.set_page_config(page_title="Invariant Scout", page_icon=":material/scatter_plot:",
+st.set_page_config(page_title="Invariant Scout", page_icon=page.icon(),
                    layout="wide", initial_sidebar_state="expanded")
 page.main()

@@ -12,9 +12,12 @@ NO_COLOUR = "(one colour)"
 
 
 def describe(params: dict) -> str:
+    """The step's caption. The colouring is a view choice made under the picture, so the
+    caption names the target only where it changes the picture's axes (LDA)."""
     method = METHODS.get(params.get("method"), params.get("method")).split(" (")[0]
     target = params.get("target")
-    return f"{method} of the feature columns" + (f", coloured by {target}" if target else "")
+    separating = params.get("method") == "lda" and target
+    return f"{method} of the feature columns" + (f", separating {target}" if separating else "")
 
 
 def settings_panel(ctx: settings.StepContext) -> None:
