@@ -17,6 +17,7 @@ from analysis.frames import table_from_frame, write_frame
 from analysis.notebook import run, show
 from analysis.steps import make_step, step_class, step_params
 from analysis.study import (
+    Study,
     add_step,
     default_study,
     load_study,
@@ -33,6 +34,7 @@ __all__ = [
     "Limits",
     "ScoutError",
     "StepError",
+    "Study",
     "StudyError",
     "Table",
     "TableError",
