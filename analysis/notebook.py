@@ -26,7 +26,7 @@ from __future__ import annotations
 import html
 import weakref
 
-from analysis.errors import StepError
+from analysis.errors import ScoutError, StepError
 from analysis.steps import KIND_TITLES, make_step
 from analysis.table import Table
 
@@ -178,8 +178,12 @@ def _figures_html(result, table, include_plotlyjs: bool | None) -> list[str]:
     global _plotly_embedded
     from analysis.figures import figures_for
 
+    try:
+        drawn = figures_for(result, table)
+    except ScoutError as exc:
+        return [f"<p><strong>figures could not be drawn:</strong> {_e(exc)}</p>"]
     out = []
-    for title, figure in figures_for(result, table):
+    for title, figure in drawn:
         embed = (not _plotly_embedded) if include_plotlyjs is None else include_plotlyjs
         out.append(f"<h4>{_e(title)}</h4>")
         out.append(figure.to_html(full_html=False, include_plotlyjs=embed,

@@ -187,3 +187,11 @@ def test_a_notebook_builds_a_table_from_a_frame_and_shows_a_separator_and_relati
                           for _, types, _ in bounds), drawn["relations"]
     frame_page = _html_output(notebook.cells[4])
     assert "twice_area - 2*interior_points - boundary_points = -2" in frame_page
+
+
+def test_a_result_that_cannot_be_drawn_says_so_instead_of_failing():
+    import types
+
+    page = result_html(types.SimpleNamespace(summary=lambda: "three rows"))
+    assert "three rows" in page
+    assert "figures could not be drawn:" in page and "names no step kind" in page

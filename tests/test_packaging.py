@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 import shutil
+import site
 import subprocess
 import sys
 import tomllib
@@ -90,6 +91,11 @@ def test_install_into_a_fresh_venv_and_run_the_command_elsewhere(tmp_path, edita
     subprocess.run([sys.executable, "-m", "venv", "--system-site-packages", "--without-pip",
                     str(venv)], check=True)
     python = venv / "bin" / "python"
+    if sys.prefix != sys.base_prefix:
+        # these tests run inside a venv themselves: its packages are the "installed ones"
+        inner = subprocess.run([str(python), "-c", "import site; print(site.getsitepackages()[0])"],
+                               capture_output=True, text=True, check=True).stdout.strip()
+        Path(inner, "outer-venv.pth").write_text("\n".join(site.getsitepackages()) + "\n")
     install = [str(python), "-m", "pip", "install", "--quiet", "--no-deps", "--no-index",
                "--no-build-isolation"] + (["-e"] if editable else []) + [str(source)]
     done = subprocess.run(install, capture_output=True, text=True, cwd=tmp_path)
