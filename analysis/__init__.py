@@ -13,7 +13,18 @@ from analysis.features import (
     group_keys,
     target_values,
 )
+from analysis.frames import table_from_frame, write_frame
+from analysis.notebook import run, show
 from analysis.steps import make_step, step_class, step_params
+from analysis.study import (
+    Study,
+    add_step,
+    default_study,
+    load_study,
+    new_step,
+    run_study,
+    save_study,
+)
 from analysis.table import ColumnInfo, Limits, Table, load_table, read_table
 
 __all__ = [
@@ -23,16 +34,27 @@ __all__ = [
     "Limits",
     "ScoutError",
     "StepError",
+    "Study",
     "StudyError",
     "Table",
     "TableError",
+    "add_step",
     "build_features",
     "canonical_key",
+    "default_study",
     "group_keys",
+    "load_study",
     "load_table",
     "make_step",
+    "new_step",
     "read_table",
+    "run",
+    "run_study",
+    "save_study",
+    "show",
     "step_class",
     "step_params",
+    "table_from_frame",
     "target_values",
+    "write_frame",
 ]

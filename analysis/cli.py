@@ -17,6 +17,8 @@ from analysis.errors import ScoutError, StepError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 1
+# The console command `pip install` makes (pyproject.toml, [project.scripts]).
+COMMAND_NAME = "invariant-scout"
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -51,7 +53,7 @@ def main(argv: list[str] | None = None) -> int:
 
 def _parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
-        prog="python -m analysis",
+        prog=_program_name(),
         description="Find patterns in a table of computed invariants.",
     )
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -123,6 +125,12 @@ def _parser() -> argparse.ArgumentParser:
     report.add_argument("--study-out", metavar="STUDY.json", help="also save the study")
     report.set_defaults(handler=_report)
     return parser
+
+
+def _program_name() -> str:
+    """How the user started us: the installed command's name, else ``python -m analysis``."""
+    called = Path(sys.argv[0]).name if sys.argv and sys.argv[0] else ""
+    return called if called == COMMAND_NAME else "python -m analysis"
 
 
 def _command(commands, name: str, help_text: str) -> argparse.ArgumentParser:

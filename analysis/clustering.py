@@ -102,6 +102,17 @@ class ClusteringResult:
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "clustering"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
+    def to_frame(self):
+        """The result as a pandas frame (see analysis.frames.clustering_frame)."""
+        from analysis.frames import clustering_frame
+
+        return clustering_frame(self)
+
     def to_json(self) -> dict:
         payload = {
             "method": self.method,

@@ -2175,3 +2175,11 @@ def find_formula(
         feature_names=tuple(names),
         exact=best.exact,
     )
+
+
+def latex_statement(terms: Sequence[tuple[str, Fraction]], relation: str, constant) -> str:
+    """LaTeX for ``sum(coef * name) relation constant`` with ``relation`` one of =, <=, >=
+    (the form of a relation or bound), written the way equations are."""
+    symbols = {"=": "=", "<=": r"\leq", ">=": r"\geq"}
+    body = _latex_sum([Term(feature=name, coef=Fraction(coef)) for name, coef in terms])
+    return f"{body} {symbols[relation]} {_latex_number(Fraction(constant))}"

@@ -101,6 +101,11 @@ class OutliersResult:
     combination: str = COMBINATION
     kind: ClassVar[str] = "outliers"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
     def to_json(self) -> dict:
         return plain({
             "outliers": [o.to_json() for o in self.outliers],

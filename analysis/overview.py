@@ -52,6 +52,17 @@ class OverviewResult:
     correlation_rows: int | None = None
     kind: ClassVar[str] = "overview"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
+    def to_frame(self):
+        """The result as a pandas frame (see analysis.frames.overview_frame)."""
+        from analysis.frames import overview_frame
+
+        return overview_frame(self)
+
     def to_json(self) -> dict:
         return plain({
             "table": self.table,

@@ -120,6 +120,17 @@ class ProjectionResult:
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "projection"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
+    def to_frame(self):
+        """The result as a pandas frame (see analysis.frames.projection_frame)."""
+        from analysis.frames import projection_frame
+
+        return projection_frame(self)
+
     @property
     def n_projected(self) -> int:
         return len(self.row_ids)

@@ -222,6 +222,17 @@ class RelationsResult:
     congruences: tuple = ()   # analysis.congruences.Congruence, simplest first
     kind: ClassVar[str] = "relations"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
+    def to_frame(self):
+        """The result as a pandas frame (see analysis.frames.relations_frame)."""
+        from analysis.frames import relations_frame
+
+        return relations_frame(self)
+
     def to_json(self) -> dict:
         """Plain JSON data: ``relations``, ``bounds`` as in the design, plus ``caveat``."""
         return plain({

@@ -151,6 +151,17 @@ class SeparatorResult:
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "separator"
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import result_html
+
+        return result_html(self)
+
+    def to_frame(self):
+        """The result as a pandas frame (see analysis.frames.separator_frame)."""
+        from analysis.frames import separator_frame
+
+        return separator_frame(self)
+
     @property
     def beats_chance_text(self) -> str:
         return "yes" if self.beats_chance else "no"

@@ -695,6 +695,11 @@ class StudyRun:
         """The results of the steps that ran, in order."""
         return [o.result for o in self.outcomes if o.result is not None]
 
+    def _repr_html_(self) -> str:
+        from analysis.notebook import run_html
+
+        return run_html(self)
+
     def summary(self) -> str:
         """The run in a few lines per step, for the command line."""
         title = self.study.title or f"Study of {self.table.name}"
