@@ -1028,14 +1028,15 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
             word_cells.append((i, parsed))
         elif kind == "invalid":
             invalid = invalid or (i, parsed)
-            numbers.append((i, None))
         elif kind != "missing":
             if not requested:
                 return None
             raise _CellProblem(i, column, (
                 f"expected a number or an interval like [1, 2], got {_short(value)}"))
-    distinct = len({v for _, v in numbers if v is not None})
-    if not reads_as_marked_numbers(numbers=len(numbers), intervals=len(intervals),
+    distinct = len({v for _, v in numbers})
+    # a cell that fails to parse counts as a mark, so that its column is read (and refused)
+    if not reads_as_marked_numbers(numbers=len(numbers),
+                                   intervals=len(intervals) + (invalid is not None),
                                    words=words, distinct_numbers=distinct,
                                    requested=requested):
         if requested:
@@ -1175,9 +1176,9 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
                                   intervals, counts))
     id_column = next((c.name for c in columns if c.role == "id"), None)
     if problems:
-        shown = id_hint if id_hint in typed else id_column
-        ids = typed[shown].tolist() if shown is not None else None
         problem = problems[0]
+        shown = id_hint if id_hint in typed else id_column
+        ids = typed[shown].tolist() if shown not in (None, problem.column) else None
         raise TableError(f"{_where(name, problem.row, problem.column, ids)}: "
                          f"{problem.message}.")
     return Table(name=name, digest=digest, frame=frame, columns=tuple(columns),
