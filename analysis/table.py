@@ -11,6 +11,20 @@ scale become exact rationals). Integers longer than Python's digit limit for rea
 (4300 digits unless PYTHONINTMAXSTRDIGITS says otherwise) are refused with a message saying
 so; a column given the role text or category is kept as text without being parsed.
 
+Tables from public databases write an open value as an interval ``[1,2]`` and put a word
+where an invariant does not apply (``infty``, ``D.N.E.``). A column of numbers with a few such
+cells is still an invariant: see :class:`MarkerRule` for when (one rule, :data:`MARKER_RULE`
+and :func:`reads_as_marked_numbers`, shared with the partitioned reader), :meth:`Table.intervals`
+for the intervals, and ``ColumnInfo.intervals`` and ``ColumnInfo.markers`` for the counts. A
+cell of JSON-array text is an array unless its column also holds plain numbers: a column whose
+every filled cell is a two-element list stays an array column, while plain numbers mixed with
+two-element brackets are numbers and intervals. Flags are 0/1 and the words of
+:data:`TRUE_WORDS` and :data:`FALSE_WORDS` in any case (see :func:`reads_as_flag`). Category
+labels are read without surrounding spaces, with a warning.
+
+``ColumnInfo.missing`` counts every cell with no single value in the typed frame: empty
+cells, marker words and intervals.
+
 Every failure is a :class:`~analysis.errors.TableError` whose message names the file and,
 where it applies, the row and column. Rows are counted from 1 after the header in messages,
 the way a spreadsheet shows them; row ids in results are 0-based positions when the table
@@ -54,8 +68,10 @@ _INT64_MAX = 2**63 - 1
 _FLOAT_EXACT = 2**53
 _INTEGER_TEXT = re.compile(r"^\s*[+-]?\d+\s*$")
 _RATIONAL_TEXT = re.compile(r"^\s*[+-]?\d+\s*(/\s*\d+\s*)?$")
-_TRUE_WORDS = {"true", "yes", "t", "y"}
-_FALSE_WORDS = {"false", "no", "f", "n"}
+# The words read as a flag's two values, in any case (besides 0 and 1): the one word set,
+# for every reader of tables.
+TRUE_WORDS = frozenset({"true", "yes", "t", "y"})
+FALSE_WORDS = frozenset({"false", "no", "f", "n"})
 _ID_NAMES = {"id", "name", "label", "key", "index"}
 # Cell texts read as missing in CSV and TSV files.
 _MISSING_WORDS = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
@@ -94,6 +110,8 @@ class ColumnInfo:
     distinct: int
     detected_role: str
     note: str = ""
+    intervals: int = 0
+    markers: dict[str, int] = field(default_factory=dict, hash=False)
 
     def to_json(self) -> dict:
         return {
@@ -104,6 +122,8 @@ class ColumnInfo:
             "distinct": int(self.distinct),
             "detected_role": self.detected_role,
             "note": self.note,
+            "intervals": int(self.intervals),
+            "markers": {str(word): int(count) for word, count in self.markers.items()},
         }
 
 
@@ -119,6 +139,8 @@ class Table:
     id_column: str | None = None
     format: str = "csv"
     limits: Limits = field(default_factory=Limits, repr=False, compare=False)
+    # interval cells and cell texts of marked columns, by column (see Table.intervals)
+    marks: dict = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def n_rows(self) -> int:
@@ -139,6 +161,22 @@ class Table:
 
     def role(self, name: str) -> str:
         return self.column(name).role
+
+    def intervals(self, name: str) -> Intervals:
+        """The interval cells ``[low, high]`` of a column (none for most columns).
+
+        In ``frame`` (and so in ``numeric`` and ``exact``) these cells are missing values;
+        here are their positions, row ids and ends, for steps that use what is known of
+        them: a feature may take the low end, high end or midpoint, and a statement is
+        broken by an interval row only when every value in the interval breaks it.
+
+        >>> table.intervals("chromatic_bounds").numeric("midpoint")   # doctest: +SKIP
+        """
+        self.column(name)
+        marks = self.marks.get(name)
+        positions = np.array(marks.positions if marks else (), dtype=np.int64)
+        return Intervals(column=name, positions=positions, row_ids=self.row_ids[positions],
+                         low=marks.low if marks else (), high=marks.high if marks else ())
 
     def names_with_role(self, *roles: str) -> list[str]:
         return [c.name for c in self.columns if c.role in roles]
@@ -202,6 +240,8 @@ class Table:
                     f"Roles are {', '.join(ROLES)}."
                 )
         frame = self.frame
+        marks = dict(self.marks)
+        ids = None if self.id_column is None else self.frame[self.id_column].tolist()
         infos = []
         for info in self.columns:
             role = roles.get(info.name)
@@ -211,8 +251,11 @@ class Table:
             if role is None or role == info.role:
                 infos.append(info)
                 continue
-            new_values, new_info = _retype(self.name, frame[info.name], info, role,
-                                           self.limits)
+            new_values, new_info, new_marks = _retype(
+                self.name, frame[info.name], info, role, self.limits, marks.get(info.name), ids)
+            marks.pop(info.name, None)
+            if new_marks is not None:
+                marks[info.name] = new_marks
             if new_values is not None:
                 if frame is self.frame:
                     frame = frame.copy(deep=False)
@@ -227,7 +270,7 @@ class Table:
         new_id = ids[0] if ids else None
         if new_id is not None:
             _check_unique_ids(self.name, frame[new_id])
-        return replace(self, frame=frame, columns=tuple(infos), id_column=new_id)
+        return replace(self, frame=frame, columns=tuple(infos), id_column=new_id, marks=marks)
 
     def summary(self) -> dict:
         """The `inspect` result as plain JSON."""
@@ -334,7 +377,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
     # over-long integer, a ragged matrix) can be kept by giving its column the role text.
     as_text = {column for column, role in (roles or {}).items() if role in ("text", "category")}
-    table = _type_columns(frame, name, digest, fmt, warnings, limits, as_text)
+    table = _type_columns(frame, name, digest, fmt, warnings, limits, as_text, id_column)
     if roles or id_column is not None:
         table = table.with_roles(roles, id_column=id_column if id_column is not None else ...)
     return table
@@ -763,21 +806,336 @@ def _check_column_names(name: str, header: list[str]) -> None:
 
 
 # ----------------------------------------------------------------------------------------
+# Marked numbers: intervals and marker words among the numbers of a column
+
+
+@dataclass(frozen=True)
+class MarkerRule:
+    """When a column of numbers with intervals and words in it is read as an invariant.
+
+    Public databases write an open value as an interval ``[low, high]`` and put a word where
+    an invariant does not apply (``infty``, ``D.N.E.``, ``-``). A column is read as such
+    *marked numbers* when every filled cell is a number, an interval or a word, and
+
+    - at least one cell is an interval or a word, and at least one is a plain number (a column
+      of two-element brackets only is an array column);
+    - it has at most ``max_words`` different words;
+    - word cells are at most ``max_share`` of the filled cells;
+    - it never has more different words than different plain numbers.
+
+    A user who gives such a column the role invariant asks for the reading outright: only the
+    limit on different words applies then, and the column needs one number or interval.
+    """
+
+    max_words: int = 5
+    max_share: Fraction = Fraction(1, 3)
+
+    def describe(self) -> str:
+        return (f"at most {self.max_words} different words, in at most "
+                f"{self.max_share} of the filled cells, never more different words than "
+                "different numbers, and at least one plain number")
+
+
+# The one rule for reading marked numbers; a partitioned reader calls
+# reads_as_marked_numbers with its merged counts and gets the same answer.
+MARKER_RULE = MarkerRule()
+
+
+def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, int],
+                            distinct_numbers: int, requested: bool = False,
+                            rule: MarkerRule = MARKER_RULE) -> bool:
+    """Whether a column is read as marked numbers (see :class:`MarkerRule`).
+
+    ``numbers`` counts plain number cells, ``intervals`` interval cells, ``words`` maps each
+    word to its cell count, ``distinct_numbers`` counts different plain numbers (only whether
+    it reaches ``len(words)`` matters, so a reader may stop counting at ``rule.max_words``).
+    ``requested`` is True when the user gave the column the role invariant.
+
+    >>> reads_as_marked_numbers(numbers=9, intervals=1, words={"-": 2}, distinct_numbers=4)
+    True
+    >>> reads_as_marked_numbers(numbers=0, intervals=5, words={}, distinct_numbers=0)
+    False
+    """
+    word_cells = sum(words.values())
+    if len(words) > rule.max_words or (not words and not intervals):
+        return False
+    if requested:
+        return numbers + intervals > 0
+    if numbers == 0:
+        return False
+    filled = numbers + intervals + word_cells
+    return word_cells <= rule.max_share * filled and len(words) <= distinct_numbers
+
+
+_NUMBER = r"[+-]?(?:\d+\s*/\s*\d+|(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
+_NUMBER_TEXT = re.compile(rf"^\s*({_NUMBER})\s*$")
+_INTERVAL_TEXT = re.compile(rf"^\s*\[\s*({_NUMBER})\s*,\s*({_NUMBER})\s*\]\s*$")
+
+
+def read_marked_cell(value) -> tuple[str, object]:
+    """One cell of a possibly marked column: ``(kind, value)``.
+
+    Kinds: ``"missing"``; ``"number"`` (an int, a Fraction for ``p/q`` text, a float for
+    decimals); ``"interval"`` with ``(low, high)`` (from text ``[a, b]``, spaces allowed, or a
+    two-element list of numbers; ends typed as numbers are); ``"word"`` (any other text that
+    is not bracketed, stripped); ``"other"`` (anything else: longer lists, records, booleans,
+    text starting with a bracket). A zero denominator or an over-long integer is
+    ``("invalid", reason)``. Low above high is still an interval: the caller says where.
+
+    >>> read_marked_cell(" [1, 3/2] ")
+    ('interval', (1, Fraction(3, 2)))
+    >>> read_marked_cell("D.N.E.")
+    ('word', 'D.N.E.')
+    """
+    if _is_missing(value):
+        return "missing", None
+    if isinstance(value, (bool, np.bool_)):
+        return "other", value
+    if isinstance(value, (int, np.integer)):
+        return "number", int(value)
+    if isinstance(value, (float, np.floating)):
+        return "number", float(value)
+    if isinstance(value, (list, tuple, np.ndarray)):
+        ends = list(value.tolist() if isinstance(value, np.ndarray) else value)
+        if len(ends) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
+                                  for x in ends):
+            return "interval", (ends[0], ends[1])
+        return "other", value
+    if not isinstance(value, str):
+        return "other", value
+    text = value.strip()
+    try:
+        match = _NUMBER_TEXT.match(text)
+        if match:
+            return "number", _number_text(match.group(1))
+        match = _INTERVAL_TEXT.match(text)
+        if match:
+            return "interval", (_number_text(match.group(1)), _number_text(match.group(2)))
+    except ZeroDivisionError:
+        return "invalid", f"{text!r} divides by zero"
+    except ValueError:
+        return "invalid", f"{_short(text)} has more digits than Python reads from text"
+    if not text:
+        return "missing", None
+    if text.startswith(("[", "{")):
+        return "other", value
+    return "word", text
+
+
+def _number_text(text: str):
+    if "/" in text:
+        return Fraction(text.replace(" ", ""))
+    if _INTEGER_TEXT.match(text):
+        return int(text)
+    return float(text)
+
+
+@dataclass(frozen=True)
+class Intervals:
+    """The interval cells of one column: where they are and their two ends.
+
+    ``positions`` are 0-based row positions (increasing), ``row_ids`` the matching row ids.
+    ``low`` and ``high`` are exact (int or Fraction) in integer and rational columns and
+    floats in real ones. In ``Table.frame`` these cells are missing values.
+    """
+
+    column: str
+    positions: np.ndarray
+    row_ids: np.ndarray
+    low: tuple
+    high: tuple
+
+    def __len__(self) -> int:
+        return len(self.positions)
+
+    def exact(self, end: str = "low") -> list:
+        """One exact value per interval: ``end`` is "low", "high" or "midpoint"."""
+        lows = [v if isinstance(v, (int, Fraction)) else Fraction(v) for v in self.low]
+        highs = [v if isinstance(v, (int, Fraction)) else Fraction(v) for v in self.high]
+        if end == "low":
+            return lows
+        if end == "high":
+            return highs
+        if end == "midpoint":
+            return [Fraction(a + b, 2) for a, b in zip(lows, highs)]
+        raise TableError(f"column {self.column!r}: an interval end is 'low', 'high' or "
+                         f"'midpoint', not {end!r}.")
+
+    def numeric(self, end: str = "low") -> np.ndarray:
+        """One float64 value per interval: ``end`` is "low", "high" or "midpoint"."""
+        if end == "low":
+            return np.array([_to_float(v) for v in self.low], dtype=np.float64)
+        if end == "high":
+            return np.array([_to_float(v) for v in self.high], dtype=np.float64)
+        if end == "midpoint":
+            return np.array([_to_float(v) for v in self.exact("midpoint")], dtype=np.float64)
+        return self.exact(end)  # raises the message for an unknown end
+
+
+@dataclass(frozen=True)
+class _Marks:
+    """What a marked column keeps beside its typed values: interval cells and cell texts."""
+
+    positions: tuple[int, ...]
+    low: tuple
+    high: tuple
+    texts: tuple[tuple[int, str], ...]   # (position, stripped text) of every marked cell
+
+
+class _CellProblem(Exception):
+    """A cell that fits no reading; raised while typing, turned into a TableError once the
+    id column is known so that the message can name the object."""
+
+    def __init__(self, row: int, column: str, message: str):
+        super().__init__(message)
+        self.row, self.column, self.message = row, column, message
+
+
+def _where(name: str, row: int, column: str, ids=None) -> str:
+    """'t.csv, row 5 (id 'K7a1'), column 'volume'': rows counted from 1 after the header."""
+    shown = ""
+    if ids is not None and 0 <= row < len(ids) and not _is_missing(ids[row]):
+        shown = f" (id {_short(ids[row])})"
+    return f"{name}, row {row + 1}{shown}, column {column!r}"
+
+
+def _marked(series: pd.Series, present: list, column: str, limits: Limits,
+            requested: bool = False):
+    """(values, dtype, note, marks) when the column reads as marked numbers, else None.
+
+    Raises _CellProblem for a reversed interval or a zero denominator in a column that reads
+    as marked numbers, and (when ``requested``) for the first cell that fits no reading.
+    """
+    numbers, intervals, word_cells = [], [], []
+    words: dict[str, int] = {}
+    invalid = None
+    for i, value in present:
+        kind, parsed = read_marked_cell(value)
+        if kind == "number":
+            numbers.append((i, parsed))
+        elif kind == "interval":
+            intervals.append((i, parsed))
+        elif kind == "word":
+            if parsed not in words and len(words) == MARKER_RULE.max_words:
+                if not requested:
+                    return None
+                shown = ", ".join(repr(w) for w in words)
+                raise _CellProblem(i, column, (
+                    f"expected a number or an interval like [1, 2], got {_short(parsed)}; a "
+                    f"column of numbers may hold at most {MARKER_RULE.max_words} different "
+                    f"words read as missing, and this one already has {shown}"))
+            words[parsed] = words.get(parsed, 0) + 1
+            word_cells.append((i, parsed))
+        elif kind == "invalid":
+            invalid = invalid or (i, parsed)
+        elif kind != "missing":
+            if not requested:
+                return None
+            raise _CellProblem(i, column, (
+                f"expected a number or an interval like [1, 2], got {_short(value)}"))
+    distinct = len({v for _, v in numbers})
+    # a cell that fails to parse counts as a mark, so that its column is read (and refused)
+    if not reads_as_marked_numbers(numbers=len(numbers),
+                                   intervals=len(intervals) + (invalid is not None),
+                                   words=words, distinct_numbers=distinct,
+                                   requested=requested):
+        if requested:
+            row = word_cells[0][0] if word_cells else present[0][0] if present else 0
+            raise _CellProblem(row, column, (
+                f"expected a number, got {_short(series.iloc[row])}; the column holds no "
+                "number or interval"))
+        return None
+    if invalid is not None:
+        raise _CellProblem(invalid[0], column, invalid[1])
+    for i, (low, high) in intervals:
+        if Fraction(low) > Fraction(high):
+            raise _CellProblem(i, column, (
+                f"the interval {_short(str(series.iloc[i]).strip())} has its low end {low} "
+                f"above its high end {high}. Write intervals as [low, high] with low <= high"))
+    return _marked_values(series, numbers, intervals, word_cells, words, column, limits)
+
+
+def _marked_values(series, numbers, intervals, word_cells, words, column, limits):
+    ends = [v for _, pair in intervals for v in pair]
+    every = [v for _, v in numbers] + ends
+    if any(isinstance(v, float) for v in every):
+        dtype, convert = "real", float
+    elif any(isinstance(v, Fraction) for v in every):
+        dtype, convert = "rational", Fraction
+    else:
+        dtype, convert = "integer", int
+    note = ""
+    if dtype == "real":
+        floats = np.full(len(series), np.nan)
+        for i, v in numbers:
+            floats[i] = float(v)
+        values = pd.Series(floats, index=series.index)
+        if np.isinf(floats).any():
+            note = "has infinite values"
+    elif dtype == "rational":
+        values = _rebuild(series, numbers, Fraction, object)
+    elif numbers:
+        values, dtype, note = _integers(series, numbers, "", column, flags=False)
+    else:
+        values = pd.Series(np.full(len(series), np.nan), index=series.index)
+    texts = sorted([(i, str(series.iloc[i]).strip()) for i, _ in intervals]
+                   + [(i, w) for i, w in word_cells])
+    marks = _Marks(positions=tuple(i for i, _ in intervals),
+                   low=tuple(convert(a) for _, (a, _) in intervals),
+                   high=tuple(convert(b) for _, (_, b) in intervals),
+                   texts=tuple(texts))
+    shown = [f"{len(intervals)} interval{'s' if len(intervals) != 1 else ''}"] \
+        if intervals else []
+    if words:
+        shown.append("words read as missing: " + ", ".join(
+            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: -kv[1])))
+    note = "; ".join(([note] if note else []) + shown)
+    return values, dtype, note, marks
+
+
+def _marker_counts(marks: _Marks | None) -> dict[str, int]:
+    """Each marker word of a marked column and its count, most frequent first."""
+    if marks is None:
+        return {}
+    intervals = set(marks.positions)
+    counts: dict[str, int] = {}
+    for position, text in marks.texts:
+        if position not in intervals:
+            counts[text] = counts.get(text, 0) + 1
+    return dict(sorted(counts.items(), key=lambda kv: (-kv[1], kv[0])))
+
+
+# ----------------------------------------------------------------------------------------
 # Typing columns and detecting roles
 
 
 def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
-                  warnings: list[str], limits: Limits, as_text: set[str] = frozenset()) -> Table:
+                  warnings: list[str], limits: Limits, as_text: set[str] = frozenset(),
+                  id_hint: str | None = None) -> Table:
     infos = []
     # one pass over the columns, and one new frame at the end: per-column lookups and
     # assignments on a frame with thousands of columns would dominate the loading time
     typed: dict[str, pd.Series] = {}
     changed: list[int] = []
+    marks: dict[str, _Marks] = {}
+    problems: list[_CellProblem] = []
     for position, (column, series) in enumerate(frame.items()):
+        found: dict = {}
         if column in as_text:
             values, dtype, note = _as_text(series, name, column, limits)
         else:
-            values, dtype, note = _type_one(series, name, column, limits)
+            try:
+                values, dtype, note = _type_one(series, name, column, limits, found)
+            except _CellProblem as problem:
+                # said once the id column is known, so that the message names the object
+                problems.append(problem)
+                values, dtype, note = _as_text(series, name, column, limits)
+        if dtype == "text" and column not in as_text:
+            merged = _merged_labels(series if values is None else values, name, column,
+                                    warnings)
+            values = values if merged is None else merged
+        if "marks" in found:
+            marks[column] = found["marks"]
         typed[column] = series if values is None else values
         if values is not None:
             changed.append(position)
@@ -800,7 +1158,7 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         if role == "id":
             id_taken = True
         if dtype == "big integer":
-            beyond = "64 bits" if not note else "2**53 and missing cells"
+            beyond = "2**53 and missing cells" if "2**53" in note else "64 bits"
             warnings.append(
                 f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
                 "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
@@ -809,10 +1167,49 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
             warnings.append(f"{name}: column {column!r} is empty in every row.")
         elif distinct == 1 and n > 1 and role != "id":
             warnings.append(f"{name}: column {column!r} is constant; it carries no information.")
-        columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
+        counts = _marker_counts(marks.get(column))
+        intervals = len(marks[column].positions) if column in marks else 0
+        if column in marks:
+            warnings.append(f"{name}: column {column!r} is read as numbers with marks ({note}); "
+                            "intervals and words are missing values in the typed column.")
+        columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,
+                                  intervals, counts))
     id_column = next((c.name for c in columns if c.role == "id"), None)
+    if problems:
+        problem = problems[0]
+        shown = id_hint if id_hint in typed else id_column
+        ids = typed[shown].tolist() if shown not in (None, problem.column) else None
+        raise TableError(f"{_where(name, problem.row, problem.column, ids)}: "
+                         f"{problem.message}.")
     return Table(name=name, digest=digest, frame=frame, columns=tuple(columns),
-                 warnings=tuple(warnings), id_column=id_column, format=fmt, limits=limits)
+                 warnings=tuple(warnings), id_column=id_column, format=fmt, limits=limits,
+                 marks=marks)
+
+
+def _merged_labels(series: pd.Series, name: str, column: str,
+                   warnings: list[str]) -> pd.Series | None:
+    """A text column whose labels differ only by surrounding spaces, as one label each.
+
+    Only when the stripped labels make a category (a few values): then " toric" and "toric"
+    are one label, and a warning names the column and the cells read without their spaces.
+    The file is not changed. Returns None when nothing is merged.
+    """
+    cells = series.tolist()
+    padded = [i for i, v in enumerate(cells) if isinstance(v, str) and v != v.strip()]
+    if not padded:
+        return None
+    stripped = [v.strip() if isinstance(v, str) else v for v in cells]
+    labels = {v for v in stripped if not _is_missing(v)}
+    before = {v for v in cells if not _is_missing(v)}
+    missing = sum(_is_missing(v) for v in cells)
+    if detect_role(column, "text", len(labels), missing, len(cells), True) != "category":
+        return None
+    cells_word = "cell has" if len(padded) == 1 else "cells have"
+    warnings.append(
+        f"{name}: column {column!r}: {len(padded)} {cells_word} spaces around the label, "
+        f"read without them, so the column's {len(before)} labels as written are "
+        f"{len(labels)} labels.")
+    return pd.Series(stripped, dtype=object, index=series.index)
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:
@@ -860,6 +1257,21 @@ def _array_token(value: np.ndarray) -> tuple:
     return (value.shape, value.tobytes() if value.dtype != object else repr(value.tolist()))
 
 
+def reads_as_flag(words: set[str]) -> bool:
+    """Whether a column whose filled cells hold these (stripped) texts is a flag.
+
+    Every text is one of TRUE_WORDS or FALSE_WORDS in any case (``Y``/``N``, ``yes``/``no``,
+    ``T``/``F``, ``true``/``false``), with at most one spelling for each of the two values.
+    Columns of 0 and 1 are flags too; they are told apart before text is looked at.
+
+    >>> reads_as_flag({"Y", "N"}), reads_as_flag({"yes", "y"}), reads_as_flag({"x", "y"})
+    (True, False, False)
+    """
+    lowered = {w.lower() for w in words}
+    return bool(lowered) and lowered <= TRUE_WORDS | FALSE_WORDS and \
+        len(lowered & TRUE_WORDS) <= 1 and len(lowered & FALSE_WORDS) <= 1
+
+
 def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
                  id_taken: bool) -> str:
     unique = distinct == n - missing and missing == 0 and n > 1
@@ -881,8 +1293,10 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
     return "text"
 
 
-def _type_one(series: pd.Series, name: str, column: str, limits: Limits):
-    """Return (new values or None, dtype label, note)."""
+def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
+              marks_out: dict | None = None):
+    """Return (new values or None, dtype label, note); a marked column's _Marks go to
+    ``marks_out``."""
     kind = series.dtype.kind
     if kind == "b":
         return None, "boolean", ""
@@ -920,7 +1334,7 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits):
             return series.astype(_smallest_integer_type(int(finite.min()), int(finite.max()))), \
                 "integer", ""
         return None, "real", ""
-    return _type_object(series, name, column, limits)
+    return _type_object(series, name, column, limits, marks_out)
 
 
 def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
@@ -966,7 +1380,10 @@ def _is_zero_one(series: pd.Series) -> bool:
     return len(values) == 2 and set(values.tolist()) == {0, 1}
 
 
-def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
+def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
+                 marks_out: dict | None = None):
+    """Type a column of Python objects; a marked column's _Marks go to ``marks_out["marks"]``
+    (it is read as plain text when no ``marks_out`` is given)."""
     present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
     if not present:
         return None, "empty", ""
@@ -990,9 +1407,15 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
     if "decimal" in kinds:
         # Parquet decimals: exact rationals, read through their text so that integers and
         # fractions get the same types as in a CSV file.
-        return _type_object(series.map(_from_decimal), name, column, limits)
+        return _type_object(series.map(_from_decimal), name, column, limits, marks_out)
     if kinds <= {"list"}:
         return _arrays(series, present, name, column, limits), "array", ""
+    if marks_out is not None and "list" in kinds and kinds <= {"int", "float", "list", "text"}:
+        # numbers with two-element lists (intervals) and words, from JSON
+        marked = _marked(series, present, column, limits)
+        if marked is not None:
+            marks_out["marks"] = marked[3]
+            return marked[:3]
     if "list" in kinds:
         row, bad = next((i, v) for i, v in present if _kind_of(v) != "list")
         good_row = next(i for i, v in present if _kind_of(v) == "list")
@@ -1033,11 +1456,14 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
                     "Fix the cell or mark the column as text."
                 ) from None
         return _rebuild(series, parsed, lambda v: v, object), "rational", ""
-    lowered = {t.lower() for t in stripped}
-    if lowered <= _TRUE_WORDS | _FALSE_WORDS and len(lowered) <= 2 and \
-            not (lowered <= {"t", "f", "y", "n"}):
-        parsed = [(i, t.lower() in _TRUE_WORDS) for (i, _), t in zip(present, stripped)]
+    if reads_as_flag(set(stripped)):
+        parsed = [(i, t.lower() in TRUE_WORDS) for (i, _), t in zip(present, stripped)]
         return _booleans(series, parsed), "boolean", ""
+    if marks_out is not None:
+        marked = _marked(series, present, column, limits)
+        if marked is not None:
+            marks_out["marks"] = marked[3]
+            return marked[:3]
     arrays = sum(t.startswith("[") for t in stripped)
     if arrays and arrays >= 0.5 * len(stripped):
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
@@ -1082,10 +1508,10 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
     return _arrays(rebuilt, decoded, name, column, limits)
 
 
-def _integers(series: pd.Series, present: list, name: str, column: str):
+def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
     present = [(i, int(v)) for i, v in present]
     complete = len(present) == len(series)
-    if {v for _, v in present} == {0, 1}:
+    if flags and {v for _, v in present} == {0, 1}:
         return _booleans(series, present), "boolean", "0/1 read as false/true"
     largest = max(abs(v) for _, v in present)
     beyond_64_bits = largest > _INT64_MAX and any(
@@ -1178,20 +1604,77 @@ def _to_array(value, name: str, row: int, column: str, limits: Limits) -> np.nda
 
 
 def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
-            limits: Limits | None = None):
-    """Values and ColumnInfo for a column given a new role; checks every cell."""
-    column = info.name
+            limits: Limits | None = None, marks: _Marks | None = None, ids=None):
+    """Values, ColumnInfo and _Marks (or None) for a column given a new role; checks every
+    cell. ``marks`` are the column's marks so far, ``ids`` the row ids named in messages."""
     limits = limits or Limits()
     new = replace(info, role=role)
+    if role == "invariant" and info.dtype in ("integer", "big integer", "rational", "real"):
+        return None, new, marks
+    unmarked = replace(new, intervals=0, markers={})
     if role in ("text", "category"):
-        if info.dtype in ("text", "category"):
-            return None, new
-        if info.dtype == "array":
-            values = [None if v is None else json.dumps(v.tolist()) for v in series]
-        else:
-            values = [None if _is_missing(v) else str(v) for v in series.tolist()]
-        return pd.Series(values, dtype=object, index=series.index), replace(
-            new, dtype="text", note=f"shown as text (was {info.dtype})")
+        return (*_retype_text(table_name, series, info, role, unmarked, marks), None)
+    if role == "invariant" and info.dtype != "boolean":
+        return _as_invariant(table_name, series, info, new, limits, ids)
+    values, new = _retype_other(table_name, series, info, role, unmarked, limits)
+    return values, new, None
+
+
+def _retype_text(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
+                 new: ColumnInfo, marks: _Marks | None):
+    """Values and ColumnInfo for a column given the role text or category."""
+    if info.dtype in ("text", "category"):
+        if role == "category":
+            notes: list[str] = []
+            merged = _merged_labels(series, table_name, info.name, notes)
+            if merged is not None:
+                return merged, replace(new, note=notes[0].split(": ", 2)[-1])
+        return None, new
+    if info.dtype == "array":
+        values = [None if v is None else json.dumps(v.tolist()) for v in series]
+    elif info.dtype == "integer":
+        # integers with missing cells are stored as floats: written as integers again
+        values = [None if _is_missing(v) else str(int(v)) for v in series.tolist()]
+    else:
+        values = [None if _is_missing(v) else str(v) for v in series.tolist()]
+    for position, text in (marks.texts if marks else ()):
+        values[position] = text  # an interval or word as the file wrote it
+    return pd.Series(values, dtype=object, index=series.index), replace(
+        new, dtype="text", note=f"shown as text (was {info.dtype})")
+
+
+def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: ColumnInfo,
+                  limits: Limits, ids):
+    """A text, category or array column given the role invariant: plain numbers, or marked
+    numbers read as the user asks (only the limit on different words applies)."""
+    column = info.name
+    present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    if any(read_marked_cell(v)[0] != "number" for _, v in present):
+        try:
+            values, dtype, note, marks = _marked(series, present, column, limits,
+                                                 requested=True)
+        except _CellProblem as problem:
+            shown = None if ids is None or info.role == "id" else ids
+            raise TableError(
+                f"{_where(table_name, problem.row, column, shown)}: {problem.message}. Fix "
+                f"the cell, or keep the column as {info.role} (or mark it as text)."
+            ) from None
+        return values, replace(new, dtype=dtype, note=note, intervals=len(marks.positions),
+                               markers=_marker_counts(marks)), marks
+    typed, dtype, note = _type_object(series.astype(object), table_name, column, limits)
+    if dtype not in ("integer", "big integer", "rational", "real", "boolean"):
+        floats = pd.to_numeric(series, errors="coerce")
+        return floats, replace(new, dtype="real"), None
+    if dtype == "boolean":
+        typed = typed.map(lambda v: None if v is None else int(v))
+        dtype = "integer"
+    return typed, replace(new, dtype=dtype, note=note), None
+
+
+def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
+                  new: ColumnInfo, limits: Limits):
+    """Values and ColumnInfo for the roles id, flag, array, and invariant from a flag."""
+    column = info.name
     if role == "id":
         if info.dtype == "array":
             raise TableError(
@@ -1199,31 +1682,9 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
                 "names each row with text or a number, not an array. Choose another id column."
             )
         return None, new
-    if role == "invariant":
-        if info.dtype in ("integer", "big integer", "rational", "real"):
-            return None, new
-        if info.dtype == "boolean":
-            return series.map(lambda v: None if _is_missing(v) else int(bool(v))).astype(
-                "float64" if series.isna().any() else "int64"), replace(new, dtype="integer")
-        for row, value in enumerate(series.tolist()):
-            if _is_missing(value):
-                continue
-            text = str(value).strip()
-            try:
-                float(text) if not _RATIONAL_TEXT.match(text) else Fraction(text)
-            except (ValueError, ZeroDivisionError):
-                raise TableError(
-                    f"{table_name}, row {row + 1}, column {column!r}: expected a number, got "
-                    f"{_short(value)}. Fix the cell or keep the column as {info.role}."
-                ) from None
-        typed, dtype, note = _type_object(series.astype(object), table_name, column, limits)
-        if dtype not in ("integer", "big integer", "rational", "real", "boolean"):
-            floats = pd.to_numeric(series, errors="coerce")
-            return floats, replace(new, dtype="real")
-        if dtype == "boolean":
-            typed = typed.map(lambda v: None if v is None else int(v))
-            dtype = "integer"
-        return typed, replace(new, dtype=dtype, note=note)
+    if role == "invariant":  # from a flag
+        return series.map(lambda v: None if _is_missing(v) else int(bool(v))).astype(
+            "float64" if series.isna().any() else "int64"), replace(new, dtype="integer")
     if role == "flag":
         if info.dtype == "array":
             raise TableError(
@@ -1282,7 +1743,7 @@ def _flag_token(value):
 
 def _true_level(levels: list):
     for level in levels:
-        if level is True or str(level).lower() in _TRUE_WORDS or str(level) == "1":
+        if level is True or str(level).lower() in TRUE_WORDS or str(level) == "1":
             return level
     return levels[-1] if levels else True
 

@@ -393,7 +393,7 @@ def mixed():
     data = (b'name,n,q,flag,kind,m,word,parity\n'
             b'A,1,1/2,true,x,"[1,2]",hello,odd\n'
             b'B,2,3/4,false,y,"[3,4]",2,even\n'
-            b'C,3,5,true,x,"[5,6]",3,odd\n')
+            b'C,3,5,true,x,"[5,6]","[3, 4, 5]",odd\n')
     return read_table(data, "mixed.csv")
 
 
@@ -450,17 +450,17 @@ def test_half_arrays_half_words_is_a_clear_error_unless_kept_as_text():
 
 @pytest.mark.parametrize("column, role, message", [
     ("name", "invariant", r"mixed\.csv, row 1, column 'name': expected a number, got 'A'"),
-    ("word", "invariant", r"mixed\.csv, row 1, column 'word': expected a number, got 'hello'"),
+    ("word", "invariant", r"mixed\.csv, row 3 \(id 'C'\), column 'word': expected a number "
+                          r"or an interval like \[1, 2\], got '\[3, 4, 5\]'.*mark it as text"),
     ("n", "flag", r"mixed\.csv, row 3, column 'n': a third value '3'.*a flag has two values"),
     ("kind", "array", r"mixed\.csv, row 1, column 'kind': expected an array like \[1, 2\]"),
     ("n", "array", r"mixed\.csv, row 1, column 'n': expected an array.*integer values"),
-    ("m", "invariant", r"mixed\.csv, row 1, column 'm': expected a number"),
     ("m", "id", r"mixed\.csv, row 1, column 'm': an id names each row"),
     ("kind", "id", r"column 'kind' cannot be the id: the value 'x' appears in rows 1, 3"),
     ("n", "colour", r"column 'n': unknown role 'colour'\. Roles are id, invariant"),
     ("missing", "text", r"no column named 'missing'\. Columns are: 'name', 'n'"),
 ], ids=["text to invariant", "mixed text to invariant", "three values to flag",
-        "category to array", "integer to array", "array to invariant", "array to id",
+        "category to array", "integer to array", "array to id",
         "repeated value to id", "unknown role", "unknown column"])
 def test_role_override_rejects_cells_that_do_not_fit(mixed, column, role, message):
     with pytest.raises(TableError, match=message):
@@ -547,3 +547,268 @@ def test_relations_on_narrow_integer_columns_do_not_wrap(tmp_path):
     assert any("3*a" in text and "b" in text for text in texts), texts
     found = [r for r in result.relations if "3*a" in r.text]
     assert all(r.exact and not r.violations and r.holds_on == len(a) for r in found)
+
+
+# ------------------------------------------------------------------------------------------
+# Marked numbers: intervals and marker words among the numbers of a column
+
+# A small table written the way public databases write unknown and non-applicable values
+# (common practice: an open value as [lower bound, upper bound], a word where the invariant
+# does not apply). Twelve objects; the id column names them.
+MARKED_CELLS = [
+    # object, colours (intervals), volume (words), family (stray spaces), hyperbolic (Y/N)
+    ("K1", "[3,4]", "2.0299", "torus", "N"),
+    ("K2", "3", "Not Hyperbolic", " torus", "N"),
+    ("K3", "4", "2.8281", "twist", "Y"),
+    ("K4", "[2, 3]", "3.1640", "twist ", "Y"),
+    ("K5", "5", "D.N.E.", "torus", "N"),
+    ("K6", "3", "4.4008", "twist", "Y"),
+    ("K7", "4", "2.8281", "pretzel", "Y"),
+    ("K8", "[7/2, 5]", "3.1640", "pretzel", "Y"),
+    ("K9", "6", "Not Hyperbolic", "torus", "N"),
+    ("K10", "3", "5.1379", "twist", "Y"),
+    ("K11", "", "4.4008", "pretzel", "Y"),
+    ("K12", "4", "2.0299", "twist", "Y"),
+]
+MARKED_HEADER = ["object", "colours", "volume", "family", "hyperbolic"]
+
+
+def _marked_csv(cells=MARKED_CELLS) -> bytes:
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")  # quotes the cells holding commas
+    writer.writerow(MARKED_HEADER)
+    writer.writerows(cells)
+    return buffer.getvalue().encode()
+
+
+def _marked_json(lines: bool = False) -> bytes:
+    # the same cells as JSON records: numbers as JSON numbers, intervals and words as strings
+    records = []
+    for row in MARKED_CELLS:
+        record = {}
+        for key, cell in zip(MARKED_HEADER, row):
+            try:
+                record[key] = int(cell) if key == "colours" else float(cell) \
+                    if key == "volume" else cell
+            except ValueError:
+                record[key] = cell if cell else None
+        records.append(record)
+    if lines:
+        return "\n".join(json.dumps(r) for r in records).encode() + b"\n"
+    return json.dumps(records).encode()
+
+
+@pytest.fixture(scope="module")
+def marked():
+    return read_table(_marked_csv(), "knots.csv")
+
+
+def test_intervals_are_kept_and_missing_in_the_typed_frame(marked):
+    info = marked.column("colours")
+    assert (info.role, info.dtype, info.intervals, info.markers) == (
+        "invariant", "rational", 3, {})
+    # interval rows and the empty cell are missing; the plain numbers are exact
+    assert marked.exact("colours") == [None, 3, 4, None, 5, 3, 4, None, 6, 3, None, 4]
+    assert info.missing == 4
+    found = marked.intervals("colours")
+    assert found.positions.tolist() == [0, 3, 7]
+    assert found.row_ids.tolist() == ["K1", "K4", "K8"]
+    # exact ends: integers stay ints, 7/2 is a Fraction (sympy's Rational agrees)
+    assert found.low == (3, 2, Fraction(7, 2)) and found.high == (4, 3, 5)
+    assert found.exact("midpoint") == [Fraction(7, 2), Fraction(5, 2), Fraction(17, 4)]
+    assert found.numeric("high").tolist() == [4.0, 3.0, 5.0]
+    with pytest.raises(TableError, match=r"column 'colours': an interval end is 'low', "
+                                         r"'high' or 'midpoint', not 'middle'"):
+        found.exact("middle")
+
+
+def test_an_integer_column_with_integer_intervals_stays_integer():
+    table = read_table(b'k,c\na,"[1,2]"\nb,3\nc,4\nd,3\ne,"[5 ,6]"\n', "t.csv")
+    info = table.column("c")
+    assert (info.dtype, info.intervals) == ("integer", 2)
+    assert table.intervals("c").low == (1, 5) and table.intervals("c").high == (2, 6)
+    assert table.exact("c") == [None, 3, 4, 3, None]
+
+
+def test_marker_words_are_missing_and_counted(marked):
+    info = marked.column("volume")
+    assert (info.role, info.dtype, info.intervals) == ("invariant", "real", 0)
+    assert info.markers == {"Not Hyperbolic": 2, "D.N.E.": 1}
+    assert np.isnan(marked.numeric("volume")[[1, 4, 8]]).all()
+    assert marked.numeric("volume")[0] == 2.0299
+    assert "Not Hyperbolic" in info.note
+    assert any("'volume' is read as numbers with marks" in w for w in marked.warnings)
+    assert len(marked.intervals("volume")) == 0
+
+
+def test_inspect_json_names_intervals_and_markers(marked):
+    by_name = {c["name"]: c for c in marked.summary()["columns"]}
+    assert by_name["colours"]["intervals"] == 3 and by_name["colours"]["markers"] == {}
+    assert by_name["volume"]["markers"] == {"Not Hyperbolic": 2, "D.N.E.": 1}
+    assert by_name["object"]["intervals"] == 0
+    json.dumps(marked.summary())  # plain JSON
+
+
+@pytest.mark.parametrize("fmt", ["json", "jsonl"])
+def test_csv_and_json_give_the_same_typing(fmt, marked):
+    table = read_table(_marked_json(lines=fmt == "jsonl"), f"knots.{fmt}")
+    for info in marked.columns:
+        other = table.column(info.name)
+        assert (other.role, other.dtype, other.missing, other.intervals, other.markers) == (
+            info.role, info.dtype, info.missing, info.intervals, info.markers), info.name
+    assert table.intervals("colours").low == marked.intervals("colours").low
+    assert table.exact("colours") == marked.exact("colours")
+
+
+def test_json_lists_mixed_with_numbers_are_intervals_and_lists_alone_an_array():
+    mixed = read_table(json.dumps([{"c": [1, 2]}, {"c": 3}, {"c": 4}, {"c": 4}]).encode(),
+                       "t.json")
+    assert (mixed.role("c"), mixed.column("c").intervals) == ("invariant", 1)
+    alone = read_table(json.dumps([{"c": [1, 2]}, {"c": [3, 4]}, {"c": [0, 9]}]).encode(),
+                       "t.json")
+    assert alone.role("c") == "array"
+
+
+def test_two_element_arrays_alone_stay_an_array_column():
+    # every filled cell a two-element list, no plain number: a list column, not intervals
+    table = read_table(b'k,p\na,"[1, 2]"\nb,"[3, 4]"\nc,\nd,"[0, 9]"\n', "t.csv")
+    assert (table.role("p"), table.column("p").dtype, table.column("p").intervals) == (
+        "array", "array", 0)
+    assert table.frame["p"].iloc[0].tolist() == [1, 2]
+    # plain numbers beside them: intervals
+    mixed = read_table(b'k,p\na,"[1, 2]"\nb,"[3, 4]"\nc,5\nd,"[0, 9]"\n', "t.csv")
+    assert (mixed.role("p"), mixed.column("p").intervals) == ("invariant", 3)
+
+
+def test_a_reversed_interval_names_file_row_column_and_object():
+    data = b'object,c\nA,3\nB,"[5,2]"\nC,4\nD,1\n'
+    with pytest.raises(TableError, match=r"knots\.csv, row 2 \(id 'B'\), column 'c': the "
+                                         r"interval '\[5,2\]' has its low end 5 above its "
+                                         r"high end 2\. Write intervals as \[low, high\]"):
+        read_table(data, "knots.csv")
+    # without an id column the row alone places it
+    with pytest.raises(TableError, match=r"t\.csv, row 2, column 'c': the interval"):
+        read_table(b'c,d\n3,1\n"[5,2]",1\n4,2\n1,1\n', "t.csv")
+
+
+def test_an_interval_dividing_by_zero_is_refused():
+    with pytest.raises(TableError, match=r"t\.csv, row 1, column 'c': '\[1/0, 2\]' divides "
+                                         r"by zero"):
+        read_table(b'c,d\n"[1/0, 2]",1\n4,2\n1,1\n', "t.csv")
+
+
+@pytest.mark.parametrize("cells, marked_reading", [
+    (["1", "2", "3", "-", "4", "5"], True),
+    (["1", "2", "3", "a", "b", "c", "d", "e", "f", "4", "5", "6", "7", "8"], False),
+    (["1", "-", "-", "2"], False),
+    (["1", "x", "y", "1", "1", "1", "1"], False),
+    (["[1,2]", "[3,4]", "-"], False),
+], ids=["one word", "six words", "words in half the cells", "more words than numbers",
+        "no plain number"])
+def test_the_marker_rule_thresholds(cells, marked_reading):
+    data = "k,c\n" + "".join(f'{i},"{c}"\n' for i, c in enumerate(cells))
+    try:
+        table = read_table(data.encode(), "t.csv")
+    except TableError:
+        table = None  # half arrays, half words: a clear error, as for any array column
+    assert (table is not None and table.role("c") == "invariant") == marked_reading
+
+
+def test_the_rule_function_is_the_one_the_loader_follows():
+    from analysis.table import MARKER_RULE, reads_as_marked_numbers
+
+    assert (MARKER_RULE.max_words, MARKER_RULE.max_share) == (5, Fraction(1, 3))
+    assert reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 1}, distinct_numbers=2)
+    assert not reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 2},
+                                       distinct_numbers=2)  # more than a third
+    assert not reads_as_marked_numbers(numbers=3, intervals=0, words={}, distinct_numbers=3)
+    assert reads_as_marked_numbers(numbers=0, intervals=4, words={}, distinct_numbers=0,
+                                   requested=True)
+    words = {f"w{i}": 1 for i in range(6)}
+    assert not reads_as_marked_numbers(numbers=100, intervals=0, words=words,
+                                       distinct_numbers=100, requested=True)
+
+
+def test_a_marked_column_can_be_given_another_role_and_back(marked):
+    as_text = marked.with_roles({"colours": "text", "volume": "category"})
+    # the cells as the file wrote them (the interval and word texts come back)
+    assert as_text.frame["colours"].tolist()[:4] == ["[3,4]", "3", "4", "[2, 3]"]
+    assert as_text.frame["volume"].tolist()[1] == "Not Hyperbolic"
+    assert as_text.column("colours").intervals == 0 and as_text.column("volume").markers == {}
+    assert len(as_text.intervals("colours")) == 0
+    back = as_text.with_roles({"colours": "invariant", "volume": "invariant"})
+    assert back.column("colours").intervals == 3
+    assert back.intervals("colours").high == marked.intervals("colours").high
+    assert back.column("volume").markers == {"Not Hyperbolic": 2, "D.N.E.": 1}
+
+
+def test_override_to_invariant_reads_intervals_of_an_array_or_text_column():
+    # detected as an array (two-element lists only); asked for as an invariant: intervals
+    table = read_table(b'k,p\na,"[1, 2]"\nb,"[3, 4]"\nc,"[0, 9]"\n', "t.csv")
+    interval = table.with_roles({"p": "invariant"})
+    assert (interval.role("p"), interval.column("p").dtype) == ("invariant", "integer")
+    assert interval.intervals("p").exact("midpoint") == [Fraction(3, 2), Fraction(7, 2),
+                                                          Fraction(9, 2)]
+    # more words than the rule allows when detecting: text, but the user may ask
+    words = read_table(b"k,v\n1,2\n2,unknown\n3,open\n4,5\n", "t.csv")
+    assert words.role("v") != "invariant"
+    asked = words.with_roles({"v": "invariant"})
+    assert asked.exact("v") == [2, None, None, 5]
+    assert asked.column("v").markers == {"open": 1, "unknown": 1}
+
+
+def test_override_to_invariant_names_row_object_column_and_cell():
+    data = ("name,v\n" + "".join(f"N{i},{i}\n" for i in range(1, 8))
+            + "".join(f"W{i},word{i}\n" for i in range(6))).encode()
+    table = read_table(data, "t.csv")
+    assert table.role("v") == "text"
+    with pytest.raises(TableError, match=r"t\.csv, row 13 \(id 'W5'\), column 'v': expected a "
+                                         r"number or an interval like \[1, 2\], got 'word5'; "
+                                         r"a column of numbers may hold at most 5 different "
+                                         r"words.*mark it as text"):
+        table.with_roles({"v": "invariant"})
+
+
+def test_marked_bytes_are_unchanged(tmp_path):
+    data = _marked_csv()
+    path = tmp_path / "knots.csv"
+    path.write_bytes(data)
+    table = load_table(path)
+    table.with_roles({"colours": "text"}).with_roles({"colours": "invariant"})
+    assert path.read_bytes() == data
+    assert table.digest == hashlib.sha256(data).hexdigest()  # hashlib is the reference
+
+
+# ------------------------------------------------------------------------------------------
+# Flags and category labels
+
+
+@pytest.mark.parametrize("words", [("Y", "N"), ("y", "n"), ("T", "F"), ("yes", "no"),
+                                   ("YES", "No"), ("true", "FALSE")],
+                         ids=lambda w: "/".join(w))
+def test_two_flag_words_in_any_case_are_a_flag(words):
+    yes, no = words
+    data = f"k,f\n1,{yes}\n2,{no}\n3,{no}\n4,\n5,{yes}\n".encode()
+    table = read_table(data, "t.csv")
+    assert (table.role("f"), table.column("f").dtype) == ("flag", "boolean")
+    assert table.frame["f"].tolist() == [True, False, False, None, True]
+
+
+def test_the_flag_words_are_one_public_set():
+    from analysis.table import FALSE_WORDS, TRUE_WORDS, reads_as_flag
+
+    assert {"y", "t", "yes", "true"} == TRUE_WORDS and {"n", "f", "no", "false"} == FALSE_WORDS
+    assert reads_as_flag({"Y", "n"}) and not reads_as_flag({"yes", "y"})
+    assert not reads_as_flag({"x", "y"})
+
+
+def test_labels_differing_by_spaces_are_one_label_with_a_warning(marked, tmp_path):
+    assert marked.role("family") == "category"
+    assert marked.frame["family"].tolist()[:4] == ["torus", "torus", "twist", "twist"]
+    assert marked.column("family").distinct == 3
+    warning = next(w for w in marked.warnings if "'family'" in w)
+    assert "2 cells have spaces around the label" in warning
+    assert "5 labels as written are 3 labels" in warning
+    # a column of free text keeps its cells as written
+    names = "k,t\n" + "".join(f"{i}, name {i}\n" for i in range(40))
+    assert read_table(names.encode(), "t.csv").frame["t"].iloc[0] == " name 0"
