@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
+import inspect
 import json
 import math
 import os
@@ -806,15 +807,16 @@ def run_study(study: Study, table: Table, *, cache: ResultCache | None = None,
 
 
 def run_step(step: StudyStep, table: Table, *, index: int = 0,
-             cache: ResultCache | None = None) -> StepOutcome:
+             cache: ResultCache | None = None, progress=None) -> StepOutcome:
     """Run one step on a table whose study settings are already applied (see
     :func:`apply_table_settings`). Never raises for a failing step: the outcome holds the
-    result or the message."""
-    return _run_one(index, step, step.display_title, table, cache)
+    result or the message. ``progress`` receives the step's :class:`analysis.progress.Progress`
+    records, for the steps that report them."""
+    return _run_one(index, step, step.display_title, table, cache, progress)
 
 
 def _run_one(index: int, step: StudyStep, title: str, table: Table,
-             cache: ResultCache | None) -> StepOutcome:
+             cache: ResultCache | None, progress=None) -> StepOutcome:
     base = dict(index=index, kind=step.kind, title=title, params=_copy_json(step.params))
     key = result_key(table, step.kind, step.params)
     if cache is not None:
@@ -823,7 +825,11 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
             return StepOutcome(**base, result=hit, cached=True)
     started = time.perf_counter()
     try:
-        result = step.build().run(table)
+        built = step.build()
+        if progress is not None and "progress" in inspect.signature(built.run).parameters:
+            result = built.run(table, progress=progress)
+        else:
+            result = built.run(table)
     except ScoutError as exc:
         return StepOutcome(**base, error=str(exc),
                            elapsed_seconds=time.perf_counter() - started)

@@ -175,8 +175,22 @@ def _run(step, table, key: str, place):
     umap = step.kind == "projection" and step.params.get("method") == "umap"
     if umap:
         label = _umap_label(step.display_title) or label
-    with place.status(label + "…", expanded=False) as box:
-        outcome = run_step(step, table, cache=state.cache())
+    with place.status(label + "…", expanded=True) as box:
+        bar = box.progress(0.0, text="starting")
+        early = box.empty()
+
+        def report(found) -> None:
+            share = found.share
+            bar.progress(0.0 if share is None else share, text=found.text)
+            figures = dict(found.first_figures)
+            if "accuracy" in figures and "baseline_accuracy" in figures:
+                early.caption(f"Split 1: accuracy {figures['accuracy']:.3f} against "
+                              f"{figures['baseline_accuracy']:.3f} for always guessing the "
+                              "most common class.")
+            elif "r2" in figures:
+                early.caption(f"Split 1: R² {figures['r2']:.3f} on the test rows.")
+
+        outcome = run_step(step, table, cache=state.cache(), progress=report)
         box.update(label=f"{step.display_title}: done in {outcome.elapsed_seconds:.1f} s",
                    state="complete" if outcome.ok else "error")
     place.empty()

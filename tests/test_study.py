@@ -510,3 +510,19 @@ def test_a_bad_setting_value_is_refused_when_the_study_is_read(kind, params, mat
             "steps": [{"kind": kind, "params": params}]}
     with pytest.raises(StudyError, match=match):
         study_from_json(data)
+
+
+def test_run_step_passes_progress_to_steps_that_report_it():
+    from analysis.study import new_step, run_step
+    from analysis.table import read_table
+
+    rows = "\n".join(f"{i},{i % 7},{i % 3},{'true' if i % 7 > 3 else 'false'}"
+                     for i in range(120))
+    table = read_table(f"k,a,b,f\n{rows}\n".encode(), "small.csv")
+    seen = []
+    step = new_step("separator", {"target": "f", "permutations": 19, "repeats": 2})
+    outcome = run_step(step, table, progress=seen.append)
+    assert outcome.ok, outcome.error
+    assert any(p.phase == "permutation test" for p in seen)
+    quiet = run_step(new_step("overview", {}), table, progress=seen.append)
+    assert quiet.ok
