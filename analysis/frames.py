@@ -183,6 +183,19 @@ def separator_frame(result) -> pd.DataFrame:
     return frame
 
 
+def open_predictions_frame(result) -> pd.DataFrame:
+    """A separator's predictions for the objects whose target is open, one row each: object,
+    prediction, confidence, typical error, known interval (low, high) and whether the
+    prediction lies inside it. Predictions to check by hand, not values."""
+    rows = [{"object": p["row"], "prediction": p["prediction"],
+             "confidence": p["confidence"], "typical_error": p["typical_error"],
+             "interval_low": None if p["interval"] is None else p["interval"][0],
+             "interval_high": None if p["interval"] is None else p["interval"][1],
+             "inside": p["inside"]} for p in result.open_predictions]
+    return pd.DataFrame(rows, columns=["object", "prediction", "confidence", "typical_error",
+                                       "interval_low", "interval_high", "inside"])
+
+
 def _labels(result, codes) -> list:
     codes = np.asarray(codes)
     if result.task != "classification":

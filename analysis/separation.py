@@ -162,6 +162,12 @@ class SeparatorResult:
 
         return separator_frame(self)
 
+    def open_predictions_frame(self):
+        """The predictions for objects whose target is open, as a pandas frame."""
+        from analysis.frames import open_predictions_frame
+
+        return open_predictions_frame(self)
+
     @property
     def beats_chance_text(self) -> str:
         return "yes" if self.beats_chance else "no"

@@ -722,3 +722,5 @@ def test_open_values_are_predicted_and_said_to_be_predictions():
     assert all(p["confidence"] is not None and p["interval"] is None
                for p in result.open_predictions)
     assert any("to check by hand, not values" in note for note in result.notes)
+    frame = result.open_predictions_frame()
+    assert len(frame) == 60 and set(frame["object"]) == set(int(h) for h in hidden)
