@@ -243,6 +243,8 @@ def _inspect(args: argparse.Namespace) -> int:
     table = _load(args)
     result = OverviewStep(seed=args.seed).run(table)
     print(result.summary())
+    for line in table.marked_lines():
+        print(line)
     if args.json:
         payload = table.summary()
         payload.update({"summary": result.to_json()})

@@ -272,6 +272,29 @@ class Table:
             _check_unique_ids(self.name, frame[new_id])
         return replace(self, frame=frame, columns=tuple(infos), id_column=new_id, marks=marks)
 
+    def marked_lines(self) -> list[str]:
+        """One line of text per marked column: its intervals and its words with their counts.
+
+        For the command line's ``inspect`` summary; empty when no column is marked.
+        """
+        lines = []
+        for info in self.columns:
+            if not info.intervals and not info.markers:
+                continue
+            parts = []
+            if info.intervals:
+                parts.append(f"{info.intervals} interval{'s' if info.intervals != 1 else ''} "
+                             "[low, high] kept apart")
+            if info.markers:
+                parts.append("read as missing: " + ", ".join(
+                    f"{word!r} in {count} row{'s' if count != 1 else ''}"
+                    for word, count in info.markers.items()))
+            lines.append(f"  {info.name}: " + "; ".join(parts))
+        if lines:
+            lines.insert(0, "numbers with marks (intervals and words are missing values "
+                            "in the typed columns):")
+        return lines
+
     def summary(self) -> dict:
         """The `inspect` result as plain JSON."""
         return {
@@ -1088,7 +1111,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
         if intervals else []
     if words:
         shown.append("words read as missing: " + ", ".join(
-            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: -kv[1])))
+            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
     note = "; ".join(([note] if note else []) + shown)
     return values, dtype, note, marks
 
@@ -1169,9 +1192,6 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
             warnings.append(f"{name}: column {column!r} is constant; it carries no information.")
         counts = _marker_counts(marks.get(column))
         intervals = len(marks[column].positions) if column in marks else 0
-        if column in marks:
-            warnings.append(f"{name}: column {column!r} is read as numbers with marks ({note}); "
-                            "intervals and words are missing values in the typed column.")
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,
                                   intervals, counts))
     id_column = next((c.name for c in columns if c.role == "id"), None)

@@ -637,7 +637,10 @@ def test_marker_words_are_missing_and_counted(marked):
     assert np.isnan(marked.numeric("volume")[[1, 4, 8]]).all()
     assert marked.numeric("volume")[0] == 2.0299
     assert "Not Hyperbolic" in info.note
-    assert any("'volume' is read as numbers with marks" in w for w in marked.warnings)
+    assert marked.marked_lines() == [
+        "numbers with marks (intervals and words are missing values in the typed columns):",
+        "  colours: 3 intervals [low, high] kept apart",
+        "  volume: read as missing: 'Not Hyperbolic' in 2 rows, 'D.N.E.' in 1 row"]
     assert len(marked.intervals("volume")) == 0
 
 
