@@ -52,7 +52,9 @@ _EXTENSIONS = {
 _INT64_MAX = 2**63 - 1
 # Past this, float64 no longer holds every integer exactly.
 _FLOAT_EXACT = 2**53
-_INTEGER_TEXT = re.compile(r"^\s*[+-]?\d+\s*$")
+# A whole number written as text (the partitioned reader matches cells against it too).
+INTEGER_TEXT = r"\s*[+-]?\d+\s*"
+_INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
 _RATIONAL_TEXT = re.compile(r"^\s*[+-]?\d+\s*(/\s*\d+\s*)?$")
 _TRUE_WORDS = {"true", "yes", "t", "y"}
 _FALSE_WORDS = {"false", "no", "f", "n"}
@@ -799,16 +801,7 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
-        if dtype == "big integer":
-            beyond = "64 bits" if not note else "2**53 and missing cells"
-            warnings.append(
-                f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
-                "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
-            )
-        if dtype == "empty":
-            warnings.append(f"{name}: column {column!r} is empty in every row.")
-        elif distinct == 1 and n > 1 and role != "id":
-            warnings.append(f"{name}: column {column!r} is constant; it carries no information.")
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
     id_column = next((c.name for c in columns if c.role == "id"), None)
     return Table(name=name, digest=digest, frame=frame, columns=tuple(columns),
@@ -879,6 +872,43 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
     if distinct <= max(20, int(0.05 * n)) and distinct < n:
         return "category"
     return "text"
+
+
+def reads_as_boolean(words) -> bool:
+    """Whether a column whose present cells are these words is read as true/false.
+
+    At most two distinct words, all of them true/false words, and not single letters only
+    (a column of t/f or y/n letters stays text)."""
+    lowered = {str(w).strip().lower() for w in words}
+    return (bool(lowered) and lowered <= _TRUE_WORDS | _FALSE_WORDS and len(lowered) <= 2
+            and not lowered <= {"t", "f", "y", "n"})
+
+
+def is_true_word(word) -> bool:
+    """Whether a true/false word (any case, spaces around it ignored) means true."""
+    return str(word).strip().lower() in _TRUE_WORDS
+
+
+def is_missing(value) -> bool:
+    """Whether a cell value is a missing cell (None, pandas' NA or a float NaN)."""
+    return _is_missing(value)
+
+
+def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
+                    role: str) -> list[str]:
+    """The loading warnings a typed column gives (big integers, empty, constant)."""
+    out = []
+    if dtype == "big integer":
+        beyond = "64 bits" if not note else "2**53 and missing cells"
+        out.append(
+            f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
+            "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
+        )
+    if dtype == "empty":
+        out.append(f"{name}: column {column!r} is empty in every row.")
+    elif distinct == 1 and n > 1 and role != "id":
+        out.append(f"{name}: column {column!r} is constant; it carries no information.")
+    return out
 
 
 def _type_one(series: pd.Series, name: str, column: str, limits: Limits):
@@ -1034,9 +1064,8 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits):
                 ) from None
         return _rebuild(series, parsed, lambda v: v, object), "rational", ""
     lowered = {t.lower() for t in stripped}
-    if lowered <= _TRUE_WORDS | _FALSE_WORDS and len(lowered) <= 2 and \
-            not (lowered <= {"t", "f", "y", "n"}):
-        parsed = [(i, t.lower() in _TRUE_WORDS) for (i, _), t in zip(present, stripped)]
+    if reads_as_boolean(lowered):
+        parsed = [(i, is_true_word(t)) for (i, _), t in zip(present, stripped)]
         return _booleans(series, parsed), "boolean", ""
     arrays = sum(t.startswith("[") for t in stripped)
     if arrays and arrays >= 0.5 * len(stripped):
