@@ -183,7 +183,7 @@ class ClusteringStep:
 
     def run(self, table: Table) -> ClusteringResult:
         started = time.perf_counter()
-        self._check(table)
+        self.check_table(table)
         fm = build_features(table, columns=self.columns, target=self.compare,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing)
@@ -192,7 +192,7 @@ class ClusteringStep:
         values = prepared(fm.values, self.standardize, table.name, "clustering")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
-        ks = self._ks(n, table.name)
+        ks = self.candidate_ks(n, table.name)
         scorer = _Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
         runs: list[tuple[SweepEntry, np.ndarray]] = []
@@ -202,7 +202,7 @@ class ClusteringStep:
             warnings.simplefilter("ignore")
             for method in methods:
                 runs.extend(self._sweep(method, values, ks, scorer, notes))
-        entry, labels, reason = _choose(self.method, runs, self.k is not None)
+        entry, labels, reason = choose_run(self.method, runs, self.k is not None)
         labels = _by_size(labels)
         agreement = None
         if self.compare is not None:
@@ -237,7 +237,7 @@ class ClusteringStep:
             raise StepError(f"min_cluster_size {self.min_cluster_size!r}: give a whole number "
                             "of at least 2 rows.")
 
-    def _check(self, table: Table) -> None:
+    def check_table(self, table: Table) -> None:
         self.check()
         if self.compare is not None:
             table.column(self.compare)
@@ -246,7 +246,7 @@ class ClusteringStep:
                                 "with, so it cannot also be a feature; leave it out of the "
                                 "feature columns.")
 
-    def _ks(self, n: int, table_name: str) -> list[int]:
+    def candidate_ks(self, n: int, table_name: str) -> list[int]:
         if self.method == "hdbscan":
             return []
         if self.k is not None:
@@ -404,7 +404,7 @@ def _nearest(values: np.ndarray, centres: np.ndarray) -> np.ndarray:
     return pairwise_distances_argmin(values, centres)
 
 
-def _choose(method: str, runs: list, fixed_k: bool):
+def choose_run(method: str, runs: list, fixed_k: bool):
     """The chosen run and why, in words."""
     scored = [(e, labels) for e, labels in runs if e.silhouette is not None]
     if method == "hdbscan":
@@ -512,12 +512,12 @@ def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
             cluster=int(cluster), size=int(inside.sum()),
             means={name: float(m) for name, m in zip(names, means)},
             differences={name: float(d) for name, d in zip(names, difference)},
-            distinguished_by=_distinguished(names, kinds, means, rest, difference),
+            distinguished_by=distinguishing_columns(names, kinds, means, rest, difference),
         ))
     return tuple(profiles)
 
 
-def _distinguished(names, kinds, means, rest, difference, top: int = 3) -> tuple[str, ...]:
+def distinguishing_columns(names, kinds, means, rest, difference, top: int = 3) -> tuple[str, ...]:
     order = [j for j in np.argsort(-np.abs(difference), kind="stable")
              if abs(difference[j]) >= NOTABLE_DIFFERENCE][:top]
     if not order:

@@ -1093,10 +1093,20 @@ def _score_counts(scores: np.ndarray, positive: np.ndarray):
 def _best_cut(scores: np.ndarray, positive: np.ndarray):
     """The relation and cut between consecutive score values with fewest violations.
 
-    Returns (violations, relation, low, high): for ">=" the rows with score >= high are
-    predicted positive, for "<=" the rows with score <= low; no row scores strictly between.
+    Returns (violations, relation, low, high, counts): for ">=" the rows with score >= high
+    are predicted positive, for "<=" the rows with score <= low; no row scores strictly
+    between. ``counts`` are the per-value counts the cut was read from.
     """
-    values, rows_at, positives_at = _score_counts(scores, positive)
+    return cut_of_counts(*_score_counts(scores, positive))
+
+
+def cut_of_counts(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndarray):
+    """The best cut from the distinct scores, the rows at each and the positive rows at each.
+
+    Fewest violations, ">=" before "<=" on a tie, and among equally good cuts the widest gap;
+    returns (violations, relation, low, high, counts) or None with fewer than two scores.
+    Engines that count scores block by block call it on their merged counts.
+    """
     if values.size < 2:
         return None
     total_pos = int(positives_at.sum())
@@ -1215,10 +1225,8 @@ def _evaluate(space: _Space, candidate: tuple, positive: np.ndarray) -> _Evaluat
     if cut is None:
         return None
     fewest, relation, low, high, counts = cut
-    constant = choose_constant(low, high, denominator, relation, exact)
-    rounded = None if exact else _rounded_constant(counts, relation, fewest, low, high)
-    if rounded is not None:
-        constant = rounded
+    constant, rounded = settled_constant(counts, fewest, relation, low, high, denominator,
+                                         exact)
     predicted = _compare(scores, denominator, constant, relation)
     wrong = np.flatnonzero(predicted != positive)
     gap = (Fraction(low) / denominator, Fraction(high) / denominator)
@@ -1226,12 +1234,28 @@ def _evaluate(space: _Space, candidate: tuple, positive: np.ndarray) -> _Evaluat
     evaluation = _Evaluation(
         candidate, relation, constant, int(wrong.size), wrong, exact, gap, inexact
     )
-    if rounded is not None:
-        evaluation.rounding = (
-            f"constant rounded to {_fraction_text(rounded)}, {int(wrong.size) - fewest} more "
-            f"violations than the best constant ({fewest}); at most 0.1% more is allowed"
-        )
+    if rounded:
+        evaluation.rounding = rounding_note(constant, int(wrong.size), fewest)
     return evaluation
+
+
+def settled_constant(counts, fewest: int, relation: str, low, high, denominator: int,
+                     exact: bool) -> tuple[Fraction, bool]:
+    """The constant of a cut, and whether it was rounded.
+
+    Exact scores keep choose_constant's constant; floating-point scores with many violations
+    take a short constant costing at most 0.1% more of them (_rounded_constant).
+    """
+    rounded = None if exact else _rounded_constant(counts, relation, fewest, low, high)
+    if rounded is None:
+        return choose_constant(low, high, denominator, relation, exact), False
+    return rounded, True
+
+
+def rounding_note(constant: Fraction, violations: int, fewest: int) -> str:
+    """What a rounded constant costs, in the words of the equation's notes."""
+    return (f"constant rounded to {_fraction_text(constant)}, {violations - fewest} more "
+            f"violations than the best constant ({fewest}); at most 0.1% more is allowed")
 
 
 # ----------------------------------------------------------------------------------------------

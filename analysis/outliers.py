@@ -174,7 +174,7 @@ class OutliersStep:
 
     def run(self, table: Table) -> OutliersResult:
         started = time.perf_counter()
-        self._check(table)
+        self.check_table(table)
         fm = build_features(table, columns=self.columns, target=self.target,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing)
@@ -210,13 +210,13 @@ class OutliersStep:
             else:
                 notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
                              "counted.")
-        standing = {name: _standing(m.scores) for name, m in used.items()}
-        combined, breadth = _combined(standing, n)
+        standing = {name: rank_standing(m.scores) for name, m in used.items()}
+        combined, breadth = combined_standing(standing, n)
         # highest score first, then the higher mean standing, then table order
         order = np.lexsort((np.arange(n), -breadth, -combined))[: self.top].tolist()
         outliers = tuple(
             Outlier(rank=rank, row=fm.row_ids[i], score=float(combined[i]),
-                    reasons=_reasons(i, used, standing),
+                    reasons=outlier_reasons(i, used, standing),
                     standing={name: float(s[i]) for name, s in standing.items()})
             for rank, i in enumerate(order, start=1))
         return OutliersResult(
@@ -240,7 +240,7 @@ class OutliersStep:
             raise StepError(f"sample size {self.sample_size!r}: give a whole number of rows, "
                             f"more than n_neighbors ({self.n_neighbors}).")
 
-    def _check(self, table: Table) -> None:
+    def check_table(self, table: Table) -> None:
         self.check()
         if self.target is not None:
             table.column(self.target)
@@ -361,14 +361,14 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
                     lambda i, s: s >= STANDS_OUT, "no spread within clusters")
 
 
-def _standing(scores: np.ndarray) -> np.ndarray:
+def rank_standing(scores: np.ndarray) -> np.ndarray:
     """For each row, the fraction of the other rows scoring strictly lower."""
     ordered = np.sort(scores)
     below = np.searchsorted(ordered, scores, side="left")
     return below / max(len(scores) - 1, 1)
 
 
-def _combined(standing: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.ndarray]:
+def combined_standing(standing: dict[str, np.ndarray], n: int) -> tuple[np.ndarray, np.ndarray]:
     """Scores (highest group standing) and tie-breaks (mean group standing) of every row.
 
     The groups are position (the mean standing on the position measures), separator and
@@ -497,7 +497,7 @@ def number_text(x: float) -> str:
     return str(int(x)) if float(x).is_integer() else f"{x:.4g}"
 
 
-def _reasons(i: int, used: dict, standing: dict) -> tuple[str, ...]:
+def outlier_reasons(i: int, used: dict, standing: dict) -> tuple[str, ...]:
     if not used:
         return ("no measure tells the rows apart",)
     words: list[str] = []

@@ -504,7 +504,7 @@ def integer_kernel(rows: Sequence[Sequence]) -> list[list[int]]:
     return _tidy(basis)
 
 
-class _RankTracker:
+class RankTracker:
     """Keeps rational row-echelon vectors to tell whether a new vector adds to the span."""
 
     def __init__(self) -> None:
@@ -775,7 +775,7 @@ def _relation_from_vector(vector, names, holds_on, violations, note="", trivial=
     )
 
 
-def _breakers_allowed(max_breakers, size: int) -> int:
+def breakers_allowed(max_breakers, size: int) -> int:
     if isinstance(max_breakers, Integral) or (
         isinstance(max_breakers, float) and max_breakers >= 1
     ):
@@ -817,7 +817,7 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
     """Relations that all but at most ``breakers`` rows obey, beyond those in ``base``."""
     size = matrix.size
     every_row = np.arange(size)
-    tracker = _RankTracker()
+    tracker = RankTracker()
     for vector in base:
         tracker.add(vector)
     candidates = []
@@ -920,7 +920,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
                         "this one are forced by the small number of rows")
             found.append(_relation_from_vector(vector, core, n, (), note))
         equalities += [_as_equality(r) for r in found]
-        breakers = _breakers_allowed(max_breakers, n) if robust else 0
+        breakers = breakers_allowed(max_breakers, n) if robust else 0
         if breakers > 0 and n > width:
             robust_found = _robust_relations(matrix, core, base, row_ids, every_row, breakers,
                                              rng)
@@ -937,7 +937,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
         lattice = _kernel_on(matrix, np.arange(len(rows)), rng)
         # Relations among the other columns alone (on these rows) are not news about this one.
         unit = [0] * len(core) + [1, 0]
-        tracker = _RankTracker()
+        tracker = RankTracker()
         for vector in _restrict([list(v) for v in lattice], unit):
             tracker.add(vector)
         for vector in lattice:
@@ -990,7 +990,7 @@ def _approximate_relations(
     if size < width + 2:
         notes.append("too few rows for an approximate relation search")
         return []
-    breakers = _breakers_allowed(breakers_setting, size) if robust else 0
+    breakers = breakers_allowed(breakers_setting, size) if robust else 0
     scale = np.sqrt(np.mean(values**2, axis=0))
     scale[scale == 0] = 1.0
     scaled = values / scale
@@ -1677,7 +1677,7 @@ def bound_rank(bound: Bound) -> tuple:
 
 
 def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robust,
-                  max_breakers, triples, notes) -> list[Bound]:
+                  max_breakers, triples, notes, max_bounds) -> list[Bound]:
     bound_columns: dict = {}
     wider = 0
     for name in names:
@@ -1704,7 +1704,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             ranges[name] = (min(present), max(present))
     facts = (ranges, equalities, [])
     n = len(row_ids)
-    breakers = _breakers_allowed(max_breakers, n) if robust else 0
+    breakers = breakers_allowed(max_breakers, n) if robust else 0
     pair_edges: list = []
     found: list[Bound] = []
     for first, second in combinations(usable, 2):
@@ -1749,13 +1749,15 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             distinct.append(bound)
     exact = [b for b in distinct if not b.violations]
     near = [b for b in distinct if b.violations]
-    if len(exact) > MAX_BOUNDS:
-        notes.append(f"the best {MAX_BOUNDS} of {len(exact)} bounds are reported")
+    if max_bounds is None:
+        return exact + near
+    if len(exact) > max_bounds:
+        notes.append(f"the best {max_bounds} of {len(exact)} bounds are reported")
     if len(near) > MAX_NEAR_BOUNDS:
         notes.append(f"the best {MAX_NEAR_BOUNDS} of {len(near)} bounds that all but a few "
                      "rows obey are reported")
     # bounds that hold on every row first, then those a few rows break: never mixed
-    return exact[:MAX_BOUNDS] + near[:MAX_NEAR_BOUNDS]
+    return exact[:max_bounds] + near[:MAX_NEAR_BOUNDS]
 
 
 # --------------------------------------------------------------------------------------------
@@ -1763,7 +1765,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
 # --------------------------------------------------------------------------------------------
 
 
-def _check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
+def check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
     if isinstance(max_breakers, bool) or not isinstance(max_breakers, (int, float)):
         raise StepError(
             f"relations: max_breakers must be a fraction of the rows (below 1) or a count of "
@@ -1801,6 +1803,7 @@ def find_relations(
     triples: bool = True,
     tolerance: float = 1e-9,
     seed: int = 0,
+    max_bounds: int | None = MAX_BOUNDS,
 ) -> RelationsResult:
     """Relations and bounds among columns given as plain data.
 
@@ -1816,12 +1819,13 @@ def find_relations(
         bounds, triples: search bounds in pairs of columns, and in triples where cheap.
         tolerance: relative tolerance of approximate relations.
         seed: seed of the random subsets of rows.
+        max_bounds: how many bounds to report at most (None: every one found).
 
     >>> r = find_relations({"v": [4, 8, 6], "e": [6, 12, 12], "f": [4, 6, 8]}, bounds=False)
     >>> r.relations[0].text
     'v - e + f = 2'
     """
-    _check_settings(max_breakers=max_breakers, max_coefficient=max_coefficient,
+    check_settings(max_breakers=max_breakers, max_coefficient=max_coefficient,
                     tolerance=tolerance, seed=seed)
     real_columns = dict(real_columns or {})
     lengths = {len(v) for v in exact_columns.values()} | {len(v) for v in real_columns.values()}
@@ -1874,7 +1878,8 @@ def find_relations(
         found_bounds = _sharp_bounds(
             columns, [name for name in names if name not in repeated], row_ids, equalities,
             max_coefficient=int(max_coefficient),
-            robust=robust, max_breakers=max_breakers, triples=triples, notes=notes)
+            robust=robust, max_breakers=max_breakers, triples=triples, notes=notes,
+            max_bounds=max_bounds)
 
     return RelationsResult(
         relations=tuple(relations),
@@ -1924,7 +1929,7 @@ class RelationsStep:
     seed: int = 0
     kind: ClassVar[str] = "relations"
 
-    def _chosen(self, table) -> list[str]:
+    def chosen_columns(self, table) -> list[str]:
         all_names = [info.name for info in table.columns]
         if self.columns is None:
             return [
@@ -1956,13 +1961,16 @@ class RelationsStep:
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
-        _check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
+        check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
                         tolerance=self.tolerance, seed=self.seed)
 
-    def run(self, table) -> RelationsResult:
-        """Search the table; see the class docstring for the settings."""
+    def run(self, table, *, max_bounds: int | None = MAX_BOUNDS) -> RelationsResult:
+        """Search the table; see the class docstring for the settings.
+
+        ``max_bounds`` caps the bounds reported (None keeps every one found, for an engine
+        that ranks them again on more rows)."""
         self.check()
-        names = self._chosen(table)
+        names = self.chosen_columns(table)
         if not names:
             raise StepError(
                 f"relations: table '{table.name}' has no numeric invariant columns to search; "
@@ -1989,7 +1997,7 @@ class RelationsStep:
         found = find_relations(
             exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
             max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,
-            tolerance=self.tolerance, seed=self.seed,
+            tolerance=self.tolerance, seed=self.seed, max_bounds=max_bounds,
         )
         if not self.congruences:
             return found

@@ -66,7 +66,9 @@ _EXTENSIONS = {
 _INT64_MAX = 2**63 - 1
 # Past this, float64 no longer holds every integer exactly.
 _FLOAT_EXACT = 2**53
-_INTEGER_TEXT = re.compile(r"^\s*[+-]?\d+\s*$")
+# A whole number written as text (the partitioned reader matches cells against it too).
+INTEGER_TEXT = r"\s*[+-]?\d+\s*"
+_INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
 _RATIONAL_TEXT = re.compile(r"^\s*[+-]?\d+\s*(/\s*\d+\s*)?$")
 # The words read as a flag's two values, in any case (besides 0 and 1): the one word set,
 # for every reader of tables.
@@ -1180,16 +1182,7 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
-        if dtype == "big integer":
-            beyond = "2**53 and missing cells" if "2**53" in note else "64 bits"
-            warnings.append(
-                f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
-                "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
-            )
-        if dtype == "empty":
-            warnings.append(f"{name}: column {column!r} is empty in every row.")
-        elif distinct == 1 and n > 1 and role != "id":
-            warnings.append(f"{name}: column {column!r} is constant; it carries no information.")
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
         counts = _marker_counts(marks.get(column))
         intervals = len(marks[column].positions) if column in marks else 0
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,
@@ -1311,6 +1304,39 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
     if distinct <= max(20, int(0.05 * n)) and distinct < n:
         return "category"
     return "text"
+
+
+def reads_as_boolean(words) -> bool:
+    """Whether a column whose present cells are these words is read as true/false: the one
+    rule of :func:`reads_as_flag`, under the name the partitioned reader uses."""
+    return reads_as_flag({str(w).strip() for w in words})
+
+
+def is_true_word(word) -> bool:
+    """Whether a true/false word (any case, spaces around it ignored) means true."""
+    return str(word).strip().lower() in TRUE_WORDS
+
+
+def is_missing(value) -> bool:
+    """Whether a cell value is a missing cell (None, pandas' NA or a float NaN)."""
+    return _is_missing(value)
+
+
+def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
+                    role: str) -> list[str]:
+    """The loading warnings a typed column gives (big integers, empty, constant)."""
+    out = []
+    if dtype == "big integer":
+        beyond = "2**53 and missing cells" if "2**53" in note else "64 bits"
+        out.append(
+            f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
+            "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
+        )
+    if dtype == "empty":
+        out.append(f"{name}: column {column!r} is empty in every row.")
+    elif distinct == 1 and n > 1 and role != "id":
+        out.append(f"{name}: column {column!r} is constant; it carries no information.")
+    return out
 
 
 def _type_one(series: pd.Series, name: str, column: str, limits: Limits,

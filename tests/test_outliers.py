@@ -12,7 +12,7 @@ from sklearn.datasets import make_blobs
 
 from analysis.errors import StepError
 from analysis.export import csv_text
-from analysis.outliers import OutliersStep, _standing
+from analysis.outliers import OutliersStep, rank_standing
 from analysis.table import read_table
 
 FEATURES = ["x1", "x2", "x3"]
@@ -87,7 +87,7 @@ def test_standing_matches_scipy_ranks():
     # reference: scipy.stats.rankdata with ties given their lowest rank; a row's standing
     # is the number of rows strictly below it, over the number of other rows
     expected = (rankdata(scores, method="min") - 1) / (len(scores) - 1)
-    np.testing.assert_allclose(_standing(scores), expected)
+    np.testing.assert_allclose(rank_standing(scores), expected)
 
 
 def test_row_breaking_an_exact_relation_is_listed_with_the_reason():

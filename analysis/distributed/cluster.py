@@ -20,7 +20,7 @@ DEFAULT_WORKERS = 2
 CONNECT_TIMEOUT = 15
 
 
-def _dask_missing() -> StepError:
+def dask_missing() -> StepError:
     return StepError("the dask engine needs the packages dask and distributed, which are not "
                      "installed; install them (pip install 'dask[dataframe]' distributed) or "
                      "use --engine local.")
@@ -47,7 +47,7 @@ def open_cluster(scheduler: str | None = None, *, n_workers: int | None = None,
     try:
         from distributed import Client, LocalCluster
     except ImportError:
-        raise _dask_missing() from None
+        raise dask_missing() from None
 
     if scheduler:
         address = scheduler if "://" in scheduler else f"tcp://{scheduler}"

@@ -34,7 +34,7 @@ LLOYD_TOLERANCE = 1e-4
 
 def run_clustering(step, ctx: Context):
     """A ClusteringResult for ``step`` on the partitioned table in ``ctx``."""
-    step._check(ctx.table)
+    step.check_table(ctx.table)
     plan = plan_for(ctx, columns=step.columns, target=step.compare,
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
@@ -66,23 +66,23 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     stats, counts, kept_per_block = ctx.compute([
         tree([delayed(block_moments)(b) for b in blocks], merge_moments),
         tree([delayed(block_counts)(b) for b in blocks], add_counts),
-        [delayed(_kept)(b) for b in blocks],
+        [delayed(kept_rows)(b) for b in blocks],
     ])
     notes = feature_notes(plan, counts, ctx.table.n_rows)
     n, mean, m2 = stats
-    scale = _scale(n, mean, m2) if step.standardize else np.ones(len(mean))
+    scale = spread_scale(n, mean, m2) if step.standardize else np.ones(len(mean))
     shift = mean if step.standardize else np.zeros(len(mean))
     notes.append("features standardized to mean 0 and standard deviation 1."
                  if step.standardize else "features used in their own units.")
-    ks = step._ks(n, ctx.table.name)
+    ks = step.candidate_ks(n, ctx.table.name)
     offsets = np.concatenate([[0], np.cumsum(kept_per_block)[:-1]]).astype(np.int64)
-    sample = _gather_rows(ctx, blocks, kept_per_block, offsets,
-                          _positions(n, SAMPLE_ROWS, step.seed), shift, scale)
-    silhouette_rows = _positions(n, step.sample_size, step.seed)
+    sample = gather_rows(ctx, blocks, kept_per_block, offsets,
+                          sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
+    silhouette_rows = sample_rows(n, step.sample_size, step.seed)
     if n > step.sample_size:
         notes.append(f"silhouettes computed on a random sample of {step.sample_size} of the "
                      f"{n} rows (seed {step.seed}).")
-    scored = _gather_rows(ctx, blocks, kept_per_block, offsets, silhouette_rows, shift, scale)
+    scored = gather_rows(ctx, blocks, kept_per_block, offsets, silhouette_rows, shift, scale)
     methods = cl.K_METHODS if step.method == "auto" else (step.method,)
     runs = []
     with warnings.catch_warnings():
@@ -130,11 +130,11 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     return Clusters(result, chosen_assigner, order, shift, scale)
 
 
-def _kept(block) -> int:
+def kept_rows(block) -> int:
     return len(block.positions)
 
 
-def _scale(n, mean, m2) -> np.ndarray:
+def spread_scale(n, mean, m2) -> np.ndarray:
     variance = np.diag(m2) / n
     eps = np.finfo(np.float64).eps
     constant = variance <= n * eps * variance + (n * mean * eps) ** 2
@@ -143,13 +143,13 @@ def _scale(n, mean, m2) -> np.ndarray:
     return scale
 
 
-def _positions(n: int, size: int, seed: int) -> np.ndarray:
+def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
     from analysis.projection import sample_positions
 
     return np.arange(n) if n <= size else sample_positions(n, size, seed)
 
 
-def _gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
+def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
     """Standardized feature rows at the given kept-row indices (in order)."""
     from dask import delayed
 
@@ -247,7 +247,7 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
     elif method == "agglomerative":
         from scipy.cluster.hierarchy import fcluster, linkage
 
-        fit = sample[_positions(len(sample), step.sample_size, step.seed)]
+        fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         if len(fit) < n:
             notes.append(f"agglomerative clustering (Ward) built on a random sample of "
                          f"{len(fit)} of the {n} rows; the other rows join the cluster with "
@@ -260,7 +260,7 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
     elif method == "hdbscan":
         from sklearn.cluster import HDBSCAN
 
-        fit = sample[_positions(len(sample), step.sample_size, step.seed)]
+        fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         size = min(step.min_cluster_size, max(2, len(fit) // 2))
         labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(fit)
         notes.append(f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are "
@@ -357,7 +357,7 @@ def _size_order(labels: np.ndarray) -> dict:
 def _choose(cl, step, runs: list):
     """The in-memory rule for choosing a run, with Lloyd refinement of the k-means runs."""
     pairs = [(entry, _Placeholder(i)) for i, (entry, _, _) in enumerate(runs)]
-    entry, marker, reason = cl._choose(step.method, pairs, step.k is not None)
+    entry, marker, reason = cl.choose_run(step.method, pairs, step.k is not None)
     return entry, runs[marker.index][1], reason
 
 
@@ -391,7 +391,7 @@ def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> 
             cluster=int(order[cluster]), size=int(size),
             means={name: float(m) for name, m in zip(names, means)},
             differences={name: float(d) for name, d in zip(names, difference)},
-            distinguished_by=cl._distinguished(names, kinds, means, rest, difference),
+            distinguished_by=cl.distinguishing_columns(names, kinds, means, rest, difference),
         ))
     return tuple(profiles)
 

@@ -38,12 +38,12 @@ def run_outliers(step, ctx: Context):
     from dask import delayed
 
     from analysis import outliers as ol
-    from analysis.distributed.clustering import _kept
+    from analysis.distributed.clustering import kept_rows
     from analysis.distributed.matrix import add_counts, block_counts, feature_notes
     from analysis.distributed.projection import block_moments, merge_moments
 
     started = time.perf_counter()
-    step._check(ctx.table)
+    step.check_table(ctx.table)
     plan = plan_for(ctx, columns=step.columns, target=step.target,
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
@@ -51,7 +51,7 @@ def run_outliers(step, ctx: Context):
     stats, counts, kept = ctx.compute([
         tree([delayed(block_moments)(b) for b in blocks], merge_moments),
         tree([delayed(block_counts)(b) for b in blocks], add_counts),
-        [delayed(_kept)(b) for b in blocks],
+        [delayed(kept_rows)(b) for b in blocks],
     ])
     n, mean, m2 = stats
     if n < 5:
@@ -59,17 +59,17 @@ def run_outliers(step, ctx: Context):
                         f"feature present; {n} remain. Impute missing values or choose other "
                         "columns.")
     notes = feature_notes(plan, counts, ctx.table.n_rows)
-    from analysis.distributed.clustering import _gather_rows, _positions, _scale
+    from analysis.distributed.clustering import gather_rows, sample_rows, spread_scale
 
     shift = mean if step.standardize else np.zeros(len(mean))
-    scale = _scale(n, mean, m2) if step.standardize else np.ones(len(mean))
+    scale = spread_scale(n, mean, m2) if step.standardize else np.ones(len(mean))
     notes.append("features standardized to mean 0 and standard deviation 1."
                  if step.standardize else "features used in their own units.")
     offsets = np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64)
-    lof_rows = _positions(n, step.sample_size, step.seed)
-    lof_sample = _gather_rows(ctx, blocks, kept, offsets, lof_rows, shift, scale)
-    fit_rows = _positions(n, SAMPLE_ROWS, step.seed + 1)
-    fit_sample = _gather_rows(ctx, blocks, kept, offsets, fit_rows, shift, scale)
+    lof_rows = sample_rows(n, step.sample_size, step.seed)
+    lof_sample = gather_rows(ctx, blocks, kept, offsets, lof_rows, shift, scale)
+    fit_rows = sample_rows(n, SAMPLE_ROWS, step.seed + 1)
+    fit_sample = gather_rows(ctx, blocks, kept, offsets, fit_rows, shift, scale)
     models = {}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -118,12 +118,12 @@ def run_outliers(step, ctx: Context):
         else:
             notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
                          "counted.")
-    standing = {name: ol._standing(m.scores) for name, m in kept_measures.items()}
-    combined, breadth = ol._combined(standing, n)
+    standing = {name: ol.rank_standing(m.scores) for name, m in kept_measures.items()}
+    combined, breadth = ol.combined_standing(standing, n)
     order = np.lexsort((np.arange(n), -breadth, -combined))[: step.top]
     outliers = tuple(
         ol.Outlier(rank=rank, row=row_ids[i], score=float(combined[i]),
-                   reasons=ol._reasons(i, kept_measures, standing),
+                   reasons=ol.outlier_reasons(i, kept_measures, standing),
                    standing={name: float(s[i]) for name, s in standing.items()})
         for rank, i in enumerate(order.tolist(), start=1))
     return ol.OutliersResult(
@@ -178,9 +178,9 @@ def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, sc
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
 
-    from analysis.distributed.clustering import _gather_rows
+    from analysis.distributed.clustering import gather_rows
 
-    values = _gather_rows(ctx, blocks, kept, offsets, fit_rows, np.zeros(len(shift)),
+    values = gather_rows(ctx, blocks, kept, offsets, fit_rows, np.zeros(len(shift)),
                           np.ones(len(scale)))
     targets = _gather_targets(ctx, blocks, kept, offsets, fit_rows)
     info = ctx.table.column(step.target)

@@ -63,11 +63,11 @@ def _summarize(table, info) -> ColumnSummary:
 def _common_text(facts: dict, info, n_rows: int) -> tuple:
     counts = facts.get("counts")
     if info.dtype == "boolean" and counts is not None:
-        from analysis.distributed.source import _TRUE_WORDS
+        from analysis.table import is_true_word
 
         merged: dict[str, list] = {}
         for word, (count, first) in counts.items():
-            key = str(word.strip().lower() in _TRUE_WORDS)
+            key = str(is_true_word(word))
             entry = merged.setdefault(key, [0, first])
             entry[0] += count
             entry[1] = min(entry[1], first)

@@ -22,10 +22,8 @@ few rows, and which bounds broken by a few rows, are proposed (they come from sa
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import math
-import threading
 from fractions import Fraction
 from itertools import combinations
 
@@ -35,7 +33,6 @@ from analysis.distributed.common import Context, tree
 from analysis.errors import StepError
 
 SAMPLE_ROWS = 20_000
-_BOUNDS_LOCK = threading.Lock()
 # Distinct points of a triple counted exactly (past this, the triple counts as crowded).
 DISTINCT_POINTS_CAP = 250_000
 # Pairs and triples whose values span at most this many cells are handled on a grid.
@@ -51,9 +48,9 @@ def run_relations(step, ctx: Context):
     from analysis.distributed.source import sample_table
 
     table = ctx.table
-    rel._check_settings(max_breakers=step.max_breakers, max_coefficient=step.max_coefficient,
+    rel.check_settings(max_breakers=step.max_breakers, max_coefficient=step.max_coefficient,
                         tolerance=step.tolerance, seed=step.seed)
-    names = step._chosen(table)
+    names = step.chosen_columns(table)
     if not names:
         raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
                         "search; mark some columns as invariants")
@@ -84,10 +81,9 @@ def run_relations(step, ctx: Context):
     from analysis.distributed.source import as_table
 
     candidates = as_table(table, frame, all_positions)
-    with _every_bound():
-        # the rows searched rank bounds by their own counts: keep them all, rank them again
-        # by the counts on every row, then cut as the in-memory step does
-        second = step.run(candidates)
+    # the rows searched rank bounds by their own counts: keep them all, rank them again
+    # by the counts on every row, then cut as the in-memory step does
+    second = step.run(candidates, max_bounds=None)
     ctx.notes.append(
         f"relations and bounds searched on {len(all_positions)} rows: a uniform random sample "
         f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
@@ -547,7 +543,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
 
     table = ctx.table
     used = found["used"]
-    allowed = rel._breakers_allowed(step.max_breakers, used) if step.robust else 0
+    allowed = rel.breakers_allowed(step.max_breakers, used) if step.robust else 0
     every = [r for r in second.relations if r.exact and not r.violations]
     every_vectors = [_vector(r, exact) for r in every]
     # relations broken by a few rows: those of both searches, and relations of the sample
@@ -585,7 +581,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
                      + "; ".join(broken))
     settled_every = [dataclasses.replace(r, holds_on=used)
                      for r, (count, _) in zip(every, every_counts) if not count]
-    tracker = rel._RankTracker()
+    tracker = rel.RankTracker()
     for v in every_vectors:
         if v is not None:
             tracker.add(v)
@@ -636,20 +632,6 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     return dataclasses.replace(second, relations=tuple(ordered), bounds=tuple(bounds),
                                approximate=tuple(settled_approximate), notes=tuple(notes),
                                n_rows=table.n_rows)
-
-
-@contextlib.contextmanager
-def _every_bound():
-    """Let the in-memory search report every bound it finds, for the length of the block."""
-    from analysis import relations as rel
-
-    with _BOUNDS_LOCK:
-        saved = rel.MAX_BOUNDS
-        rel.MAX_BOUNDS = 10**9
-        try:
-            yield
-        finally:
-            rel.MAX_BOUNDS = saved
 
 
 def _robust_note(relation, count: int) -> str:

@@ -153,37 +153,6 @@ def _merge_counts(a, b):
     return merged, rows_at, positives_at
 
 
-def best_cut(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndarray):
-    """(violations, relation, low, high) of the best cut between consecutive scores.
-
-    The rule of the in-memory search: fewest violations, ">=" before "<=" on a tie, and among
-    equally good cuts the widest gap.
-    """
-    if len(values) < 2:
-        return None
-    total_pos = int(positives_at.sum())
-    total_neg = int(rows_at.sum()) - total_pos
-    pos_below = np.cumsum(positives_at)[:-1]
-    neg_below = np.cumsum(rows_at)[:-1] - pos_below
-    at_least = pos_below + (total_neg - neg_below)
-    at_most = neg_below + (total_pos - pos_below)
-    if at_least.min() <= at_most.min():
-        relation, violations = ">=", at_least
-    else:
-        relation, violations = "<=", at_most
-    fewest = int(violations.min())
-    ties = np.flatnonzero(violations == fewest)
-    chosen = ties[0]
-    if ties.size > 1:
-        widths = np.array([float(values[t + 1] - values[t]) for t in ties])
-        chosen = ties[int(np.argmax(widths))]
-    return fewest, relation, _scalar(values[chosen]), _scalar(values[chosen + 1])
-
-
-def _scalar(value):
-    return value.item() if isinstance(value, np.generic) else value
-
-
 def _wrong_rows(block, names, equation):
     """Ids of the rows of one partition where the equation's prediction is wrong."""
     predicted = equation.holds(_columns_of(block, names))
@@ -196,7 +165,7 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     """The equation with its constant chosen on every row and its violations counted there."""
     from dask import delayed
 
-    from analysis.equations import choose_constant  # the search's own rule for a constant
+    from analysis.equations import cut_of_counts, rounding_note, settled_constant
 
     names = plan.names
     missing = [n for t in equation.terms for n in t.factor_names() if n not in names]
@@ -212,14 +181,17 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
                                for b in blocks], _merge_counts))
     settled = equation
     gap = None
+    rounded = False
     notes = list(equation.notes)
     if counts is not None:
-        cut = best_cut(*counts)
+        cut = cut_of_counts(*counts)
         if cut is not None:
-            _, relation, low, high = cut
+            fewest, relation, low, high, _ = cut
             denominator = exact_scores(equation.terms, {n: np.zeros(1) for n in names},
                                        exact)[1]
-            constant = choose_constant(low, high, denominator, relation, exact)
+            # the in-memory search's own rule, rounding included
+            constant, rounded = settled_constant(counts, fewest, relation, low, high,
+                                                 denominator, exact)
             gap = _gap_text(Fraction(low) / denominator, Fraction(high) / denominator,
                             relation, exact)
             settled = dataclasses.replace(equation, relation=relation, constant=constant)
@@ -233,7 +205,10 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     # (ids, positions) of the violating rows of each partition
     ids = np.concatenate([p[0] for p in pieces]) if pieces else np.array([])
     kept = int(counts[1].sum()) if counts is not None else ctx.table.n_rows
-    notes = [_of_sample(n) for n in notes if not n.startswith(("searched", "any constant"))]
+    if rounded:
+        gap = rounding_note(settled.constant, int(len(ids)), fewest)
+    notes = [_of_sample(n) for n in notes
+             if not n.startswith(("searched", "any constant", "constant rounded"))]
     notes.insert(0, f"searched on a sample; threshold chosen and verified on all {kept} rows "
                     "across partitions")
     if gap is not None:

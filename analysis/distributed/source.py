@@ -16,7 +16,6 @@ from __future__ import annotations
 import csv
 import functools
 import hashlib
-import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -24,7 +23,16 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import StepError, TableError
-from analysis.table import ColumnInfo, Table
+from analysis.table import (
+    INTEGER_TEXT,
+    ColumnInfo,
+    Table,
+    column_warnings,
+    detect_role,
+    is_missing,
+    is_true_word,
+    reads_as_boolean,
+)
 
 # Distinct values kept per column while merging facts; past this a column's distinct count is
 # computed by a separate exact pass that splits values by hash.
@@ -34,9 +42,6 @@ FULL_DIGEST_BYTES = 2 * 1024**3
 CSV_BLOCKSIZE = "64MB"
 _NA_TEXT = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
 _INT64_MAX = 2**63 - 1
-_INTEGER_TEXT = r"\s*[+-]?\d+\s*"
-_TRUE_WORDS = {"true", "yes", "t", "y"}
-_FALSE_WORDS = {"false", "no", "f", "n"}
 _KIND_WORDS = {"int": "number", "uint": "number", "float": "number", "bool": "true/false",
                "bigint": "number", "text": "text", "list": "array"}
 _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
@@ -127,9 +132,9 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     try:
         import dask.dataframe as dd
     except ImportError:
-        from analysis.distributed.cluster import _dask_missing
+        from analysis.distributed.cluster import dask_missing
 
-        raise _dask_missing() from None
+        raise dask_missing() from None
     path = Path(path)
     name = path.name
     if not path.exists():
@@ -343,7 +348,7 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
     text = present.astype(str)
     # CSV cells are numbers when pandas would read them as numbers; other text cells only
     # when every one is a whole number, as analysis.table reads text cells in memory
-    integers = bool(text.str.fullmatch(_INTEGER_TEXT).all())
+    integers = bool(text.str.fullmatch(INTEGER_TEXT).all())
     if integers and int(text.str.strip().str.lstrip("+-").str.len().max()) >= 16:
         # past 2**53 a float would round: keep exact Python integers
         facts.update(_number_facts(pd.Series([int(t) for t in text], dtype=object)))
@@ -582,7 +587,6 @@ def _tree(items: list, combine, *, final=None, split_every: int = 8):
 
 def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
                   fmt: str) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
-    from analysis.table import detect_role  # one rule for both engines
 
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
@@ -597,14 +601,7 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
-        if dtype == "big integer":
-            warnings.append(
-                f"{name}: column {column!r} has integers beyond 64 bits; they are kept exact, "
-                "and features derived from them use the signed log scale sign(x)*log10(1+|x|).")
-        if dtype == "empty":
-            warnings.append(f"{name}: column {column!r} is empty in every row.")
-        elif distinct == 1 and n > 1 and role != "id":
-            warnings.append(f"{name}: column {column!r} is constant; it carries no information.")
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
         infos.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
     return infos, how
 
@@ -619,7 +616,7 @@ def _dtype_of(f: dict, fmt: str) -> tuple[str, str, str]:
         return "array", "", ""
     if kind == "text":
         words = f["words"]
-        if words and words <= _TRUE_WORDS | _FALSE_WORDS and not words <= {"t", "f", "y", "n"}:
+        if words and reads_as_boolean(words):
             return "boolean", "", "words"
         return "text", "", ""
     if kind == "bool":
@@ -663,7 +660,7 @@ def _distinct_of(f: dict, dtype: str) -> int:
         return -1   # not counted on this engine (arrays are summarized by shape)
     if kind == "text":
         if dtype == "boolean":
-            return len({w in _TRUE_WORDS for w in f["words"]})
+            return len({is_true_word(w) for w in f["words"]})
         return len(f["counts"])
     return len(f["values"])
 
@@ -693,23 +690,19 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
         elif how == "bool":
             series = series.astype(bool)
         elif how == "words":
-            series = pd.Series([None if _missing(v) else str(v).strip().lower() in _TRUE_WORDS
+            series = pd.Series([None if is_missing(v) else is_true_word(v)
                                 for v in series.tolist()], dtype=object, index=series.index)
         elif how == "bigint":
-            series = pd.Series([None if _missing(v) else int(v) for v in series.tolist()],
+            series = pd.Series([None if is_missing(v) else int(v) for v in series.tolist()],
                                dtype=object, index=series.index)
         elif how == "text":
-            series = pd.Series([None if _missing(v) else str(v) for v in series.tolist()],
+            series = pd.Series([None if is_missing(v) else str(v) for v in series.tolist()],
                                dtype=object, index=series.index)
         elif how == "bool_to_int":
-            series = series.map(lambda v: None if _missing(v) else int(bool(v))).astype(
+            series = series.map(lambda v: None if is_missing(v) else int(bool(v))).astype(
                 np.float64 if series.isna().any() else np.int64)
         frame[column] = series
     return frame
-
-
-def _missing(value) -> bool:
-    return value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value))
 
 
 # ----------------------------------------------------------------------------------------
