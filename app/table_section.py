@@ -135,12 +135,16 @@ def _roles_editor(table) -> None:
         "missing": [c.missing for c in table.columns],
         "distinct": [c.distinct for c in table.columns],
         "found as": [c.detected_role for c in table.columns],
+        "intervals": [c.intervals for c in table.columns],
+        "marker words": ["; ".join(f"{w} ({n})" for w, n in c.markers.items())
+                         for c in table.columns],
         "note": [c.note for c in table.columns],
     })
     key = f"table.roles.{pg.roles_version}"
     edited = st.data_editor(
         frame, key=key, hide_index=True, num_rows="fixed",
-        disabled=["column", "type", "missing", "distinct", "found as", "note"],
+        disabled=["column", "type", "missing", "distinct", "found as", "intervals",
+                  "marker words", "note"],
         column_config={"role": st.column_config.SelectboxColumn(
             "role", options=list(ROLES), required=True,
             help="What the column means to the steps"),

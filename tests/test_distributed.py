@@ -119,7 +119,12 @@ def test_csv_column_with_numbers_then_text_is_text(client, tmp_path):
     pd.DataFrame({"code": values, "n": range(len(values))}).to_csv(path, index=False)
     table = read_partitioned(path, client, blocksize=4_000)
     assert table.npartitions > 2
-    assert table.column("code").dtype == load_table(path).column("code").dtype == "text"
+    # In memory, numbers with one word among them are marked numbers: an integer invariant
+    # with the marker word counted. The partitioned reader does not read marked numbers yet
+    # and keeps such a column as text (an open difference between the engines).
+    in_memory = load_table(path).column("code")
+    assert (in_memory.dtype, in_memory.markers) == ("integer", {"seven": 1})
+    assert table.column("code").dtype == "text"
 
 
 def _absent(folder: Path) -> Path:
