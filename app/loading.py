@@ -28,6 +28,8 @@ SAMPLE_NOTES = {
     "quadratic_fields.csv": "quadratic fields: discriminants and class numbers",
     "symmetric_matrices.json": "integer symmetric matrices: signature and definiteness",
     "elliptic_curves.csv": "elliptic curves over small prime fields: point counts",
+    "graphs_as_downloaded.csv": "the graph atlas written as a downloaded database writes it: "
+                                "intervals, marker words, Y/N flags, a mostly-empty column",
 }
 # The study the page opens with on the first sample: a picture and an equation.
 FIRST_TARGET = "is_reflexive"

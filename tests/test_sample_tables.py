@@ -514,3 +514,51 @@ def test_curve_table_structure(curves):
         # j = 0 is supersingular for p = 2 mod 3 and j = 1728 for p = 3 mod 4 (Deuring, 1941).
         if (a == 0 and p % 3 == 2) or (b == 0 and p % 4 == 3):
             assert supersingular, curve
+
+
+# --------------------------------------------------------------------------------------------
+# The atlas as a downloaded database writes it
+
+
+def test_downloaded_graphs_read_their_marks_as_a_mathematician_means():
+    # Reference: networkx's own functions on the atlas graphs (graph_atlas_g), and two
+    # theorems behind the intervals: a clique needs its own colours (clique number <= chi),
+    # and greedy colouring needs at most largest degree + 1 colours (chi <= Delta + 1).
+    import networkx as nx
+
+    table = load_table(TABLES / "graphs_as_downloaded.csv")
+    atlas = nx.graph_atlas_g()
+    graph_of = {f"G{i:04d}": g for i, g in enumerate(atlas)}
+    ids = table.row_ids.tolist()
+    # every graph on 3 to 7 vertices is there: 4 + 11 + 34 + 156 + 1044 (OEIS A000088)
+    assert len(ids) == 4 + 11 + 34 + 156 + 1044
+    chromatic = table.column("chromatic_number")
+    assert (chromatic.role, chromatic.dtype) == ("invariant", "integer")
+    intervals = table.intervals("chromatic_number")
+    assert chromatic.intervals == len(intervals.positions) > 300
+    for row, low, high in zip(intervals.row_ids, intervals.low, intervals.high):
+        g = graph_of[row]
+        assert low == max(len(c) for c in nx.find_cliques(g))
+        assert high == max(d for _, d in g.degree()) + 1
+    girth = table.column("girth")
+    forests = sum(nx.is_forest(graph_of[r]) for r in ids)
+    assert girth.role == "invariant" and girth.markers == {"infty": forests}
+    disconnected = sum(not nx.is_connected(graph_of[r]) for r in ids)
+    assert table.column("diameter").markers == {"D.N.E.": disconnected}
+    assert table.column("planar").role == table.column("bipartite").role == "flag"
+    planar = table.frame["planar"].tolist()
+    assert planar == [nx.check_planarity(graph_of[r])[0] for r in ids]
+    assert table.column("family").distinct == 4
+    assert any("spaces around the label" in w for w in table.warnings)
+
+
+def test_downloaded_graphs_keep_their_rows_in_a_separator():
+    # independence_number is empty in most rows: the default features leave it out (with a
+    # warning) instead of dropping those rows.
+    from analysis.separation import SeparatorStep
+
+    table = load_table(TABLES / "graphs_as_downloaded.csv")
+    assert table.column("independence_number").missing > 0.9 * table.n_rows
+    result = SeparatorStep(target="bipartite", permutations=0, repeats=1).run(table)
+    assert "independence_number" in result.left_out_columns
+    assert any("independence_number" in w for w in result.warnings)
