@@ -119,6 +119,11 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
         browser = playwright.chromium.launch(executable_path=str(chromium), headless=True,
                                              args=CHROMIUM_ARGS)
         page = browser.new_page(viewport={"width": 1440, "height": 1000})
+        # The app works offline: no request may leave 127.0.0.1 (an icon or a font fetched
+        # from another host would fail without a network, and tell that host of the use).
+        elsewhere: list[str] = []
+        page.on("request", lambda r: elsewhere.append(r.url) if not r.url.startswith(
+            ("http://127.0.0.1", "ws://127.0.0.1", "data:", "blob:", "about:")) else None)
         try:
             # Open on a small sample so that the opening study is quick.
             page.goto(f"{app_url}/?table=quadratic_fields.csv")
@@ -166,6 +171,7 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
             shot = tmp_path / "separator.png"
             page.screenshot(path=str(shot))
             assert shot.stat().st_size > 10_000
+            assert not elsewhere, f"the page asked other hosts: {elsewhere[:5]}"
         except Exception:
             page.screenshot(path=str(tmp_path / "failure.png"))
             raise
