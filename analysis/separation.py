@@ -1121,6 +1121,11 @@ class _Run:
             except StepError:
                 skipped.append(fraction)
                 continue
+            if not self.regression and any(len(np.unique(self.y[pool[train]])) < 2
+                                           for train, _ in splits):
+                # a rare class can miss a small training side entirely: no fit is possible
+                skipped.append(fraction)
+                continue
             scores = []
             for j, (train, test) in enumerate(splits):
                 model = self._fit(pool[train], seed_offset=2000 + j)

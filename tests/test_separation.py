@@ -728,3 +728,16 @@ def test_open_values_are_predicted_and_said_to_be_predictions():
     assert any("to check by hand, not values" in note for note in result.notes)
     frame = result.open_predictions_frame()
     assert len(frame) == 60 and set(frame["object"]) == set(int(h) for h in hidden)
+
+
+def test_a_class_of_three_rows_runs_and_the_curve_skips_what_cannot_be_fitted():
+    # three breakers among 300 objects (a statement nearly every object obeys): small training
+    # sides of the learning curve can miss them; those points are skipped, never a crash
+    rng = np.random.default_rng(9)
+    frame = pd.DataFrame({"a": rng.integers(0, 50, 300), "b": rng.integers(0, 50, 300)})
+    frame["rare"] = False
+    frame.loc[[5, 77, 150], "rare"] = True
+    result = SeparatorStep(target="rare", permutations=19, repeats=2).run(_table(frame))
+    fractions = [p["train_fraction"] for p in result.learning_curve]
+    assert 0.1 not in fractions
+    assert any("learning curve: no valid split" in note for note in result.notes)

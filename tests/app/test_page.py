@@ -509,3 +509,26 @@ def test_a_sample_study_whose_roles_do_not_fit_leaves_the_page_as_it_was():
     assert any("units" in e for e in texts(second.error)), texts(second.error)
     assert table(second).name == "graphs_up_to_7.csv"
     assert study(second) is before
+
+
+def test_a_statement_few_objects_break_adds_a_separator_on_its_breakers():
+    # Quadratic fields: the relations step lists bounds a few fields break; its action adds a
+    # separator whose target is "breaks: <statement>", kept in the study by the statement.
+    at = open_page("quadratic_fields.csv")
+    uid = add_step(at, "relations")
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception
+    choice = at.selectbox(key=f"s{uid}.breaks_choice")
+    statement = choice.value
+    at.button(key=f"s{uid}.breaks_add").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    added = study(at).steps[-1]
+    assert added.kind == "separator"
+    from analysis.derived import Statement
+
+    assert Statement.from_json(added.params["target_statement"]).text == \
+        Statement.parse(statement).text
+    new_uid = step_ids(at)[-1]
+    at.button(key=f"s{new_uid}.run").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert results(at)[-1].target == "breaks: " + Statement.parse(statement).text
