@@ -11,6 +11,11 @@ Several measures each score every row, higher meaning stranger:
 * with ``relations``, how many relations and bounds among the invariants the row breaks
   (a listed row that attains a bound few rows attain is told so, without extra score).
 
+With a target, objects whose target value is open (a missing cell or an interval) are
+listed too, apart from the ranking, when a model fitted on the known rows predicts them
+confidently: checking such an object by hand would settle its value. These are predictions
+to check, not values.
+
 The measures are combined by rank: each row's score on a measure becomes its standing, the
 fraction of the other rows that score strictly lower (0 for the most ordinary, 1 for the
 strangest), so that a measure counts the same whatever its units. The first three measures
@@ -59,6 +64,31 @@ MAX_CLASSES = 50
 RESIDUAL_REASON = 3.0
 # A bound attained by at most this many rows makes attaining it a reason to look.
 RARELY_ATTAINED = 3
+# An open value is predicted confidently when the chance of being right is at least this: the
+# class probability for labels, the cross-validated share of exactly right rounded predictions
+# for a whole-number target.
+OPEN_CONFIDENCE = 0.9
+# Open values listed, at most.
+MAX_OPEN_VALUES = 200
+
+
+@dataclass(frozen=True)
+class OpenValue:
+    """An object whose target value is open (missing, or an interval ``[low, high]``) and
+    that a model fitted on the known rows predicts confidently; ``reason`` says so in words."""
+
+    row: object
+    prediction: object
+    confidence: float
+    interval: tuple | None
+    inside: bool | None   # for an interval: whether the prediction lies in it
+    reason: str
+
+    def to_json(self) -> dict:
+        return plain({"row": row_id(self.row), "prediction": self.prediction,
+                      "confidence": self.confidence,
+                      "interval": None if self.interval is None else list(self.interval),
+                      "inside": self.inside, "reason": self.reason})
 
 
 @dataclass(frozen=True)
@@ -99,6 +129,7 @@ class OutliersResult:
     notes: tuple[str, ...] = ()
     elapsed_seconds: float = 0.0
     combination: str = COMBINATION
+    open_values: tuple[OpenValue, ...] = ()  # confident predictions that would settle a value
     kind: ClassVar[str] = "outliers"
 
     def _repr_html_(self) -> str:
@@ -119,15 +150,21 @@ class OutliersResult:
             "features": list(self.features),
             "notes": list(self.notes),
             "elapsed_seconds": self.elapsed_seconds,
+            "open_values": [v.to_json() for v in self.open_values],
         })
 
     def to_frame(self) -> pd.DataFrame:
-        """rank, row, score, reasons (joined by "; "): the list as a table for CSV export."""
+        """rank, row, score, reasons (joined by "; "): the list as a table for CSV export.
+
+        Objects with an open target value that a confident prediction would settle follow the
+        ranked ones, with no rank and their confidence as the score."""
         return pd.DataFrame({
-            "rank": [o.rank for o in self.outliers],
-            "row": [row_id(o.row) for o in self.outliers],
-            "score": [o.score for o in self.outliers],
-            "reasons": ["; ".join(o.reasons) for o in self.outliers],
+            "rank": [o.rank for o in self.outliers] + [None] * len(self.open_values),
+            "row": [row_id(o.row) for o in (*self.outliers, *self.open_values)],
+            "score": [o.score for o in self.outliers]
+            + [v.confidence for v in self.open_values],
+            "reasons": ["; ".join(o.reasons) for o in self.outliers]
+            + [v.reason for v in self.open_values],
         })
 
     def summary(self) -> str:
@@ -139,6 +176,12 @@ class OutliersResult:
                          + "; ".join(o.reasons))
         if len(self.outliers) > 10:
             lines.append(f"  ... {len(self.outliers) - 10} more (--json or --csv for all)")
+        if self.open_values:
+            lines.append(f"  {len(self.open_values)} objects with an open value of "
+                         f"{self.target!r} that a confident prediction would settle:")
+            lines.extend(f"    {row_id(v.row)}: {v.reason}" for v in self.open_values[:10])
+            if len(self.open_values) > 10:
+                lines.append(f"    ... {len(self.open_values) - 10} more (--json for all)")
         lines.append(f"  score: {self.combination}.")
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
@@ -197,8 +240,11 @@ class OutliersStep:
                 values, self.n_neighbors, self.sample_size, self.seed, notes)
             centre, k = self._centre_distance(table, fm, values, notes)
             measures["distance from cluster centre"] = centre
+            opened: tuple[OpenValue, ...] = ()
             if self.target is not None:
-                measures["separator"] = _separator(table, self.target, fm, self.seed, notes)
+                guessed = _cross_validated(table, self.target, fm, self.seed)
+                measures["separator"] = _separator(table, self.target, guessed, notes)
+                opened = open_values(table, self, fm, guessed, notes)
         if self.relations:
             found = self._relations(table, fm.row_ids, notes)
             if found is not None:
@@ -223,7 +269,7 @@ class OutliersStep:
             outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
             measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
             seed=self.seed, features=tuple(fm.names), notes=tuple(dict.fromkeys(notes)),
-            elapsed_seconds=time.perf_counter() - started,
+            elapsed_seconds=time.perf_counter() - started, open_values=opened,
         )
 
     def check(self) -> None:
@@ -434,32 +480,34 @@ def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int
                     "local outlier factor")
 
 
-def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> Measure:
-    from sklearn.linear_model import LogisticRegression, Ridge
-    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
+def _number_model():
+    from sklearn.linear_model import Ridge
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
+
+    return make_pipeline(StandardScaler(), Ridge(alpha=1.0))
+
+
+def _label_model():
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    return make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
+
+
+def _cross_validated(table: Table, target: str, fm, seed: int):
+    """The target on the rows used and its cross-validated prediction: for a number
+    ``(truth, predicted, None, None)``, for labels ``(labels, probability, classes, splits)``."""
+    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
 
     raw = target_values(table, target, fm.rows)
     if is_numeric_target(table, target):
         truth = np.asarray(raw, dtype=float)
-        model = make_pipeline(StandardScaler(), Ridge(alpha=1.0))
         folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=seed)
-        predicted = cross_val_predict(model, fm.values, truth, cv=folds)
-        residual = truth - predicted
-        spread = float(np.std(residual)) or 1.0
-        z = residual / spread
-        notes.append(f"separator: {target!r} predicted by a {folds.n_splits}-fold "
-                     "cross-validated ridge regression on standardized features.")
-
-        def say(i: int, standing: float) -> str:
-            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
-                    f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
-                    "cross-validated linear fit)")
-
-        return Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
-                        "separator")
-    labels = np.array([str(v) for v in raw], dtype=object)
+        return truth, cross_val_predict(_number_model(), fm.values, truth, cv=folds), None, \
+            folds.n_splits
+    labels = np.array([label_text(v) for v in raw], dtype=object)
     classes, counts = np.unique(labels, return_counts=True)
     if len(classes) < 2:
         raise StepError(f"{table.name}: the target {target!r} has one value ({classes[0]!r}) "
@@ -471,11 +519,31 @@ def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> Me
                         "a category or a numeric invariant.")
     splits = int(min(5, max(2, counts.min())))
     folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
-    model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
-    probability = cross_val_predict(model, fm.values, labels, cv=folds, method="predict_proba")
+    probability = cross_val_predict(_label_model(), fm.values, labels, cv=folds,
+                                    method="predict_proba")
+    return labels, probability, classes, splits
+
+
+def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> Measure:
+    truth, predicted, classes, splits = guessed
+    if classes is None:
+        residual = truth - predicted
+        spread = float(np.std(residual)) or 1.0
+        z = residual / spread
+        notes.append(f"separator: {target!r} predicted by a {splits}-fold "
+                     "cross-validated ridge regression on standardized features.")
+
+        def say(i: int, standing: float) -> str:
+            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
+                    f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
+                    "cross-validated linear fit)")
+
+        return Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
+                        "separator")
+    labels, probability = truth, predicted
     index = {c: j for j, c in enumerate(classes)}
-    truth = np.array([index[c] for c in labels])
-    p_true = probability[np.arange(len(labels)), truth]
+    own = np.array([index[c] for c in labels])
+    p_true = probability[np.arange(len(labels)), own]
     guess = probability.argmax(axis=1)
     boolean = table.column(target).dtype == "boolean"
     notes.append(f"separator: {target!r} predicted by a {splits}-fold cross-validated logistic "
@@ -490,7 +558,83 @@ def _separator(table: Table, target: str, fm, seed: int, notes: list[str]) -> Me
         return (f"predicted {target} = {said} with probability {probability[i, guess[i]]:.2f} "
                 f"(the table says {labels[i]})")
 
-    return Measure(1.0 - p_true, say, lambda i, s: guess[i] != truth[i], "separator")
+    return Measure(1.0 - p_true, say, lambda i, s: guess[i] != own[i], "separator")
+
+
+def open_values(table: Table, step, fm, guessed: tuple,
+                notes: list[str]) -> tuple[OpenValue, ...]:
+    """The objects whose ``step.target`` is open (missing or an interval) that a model fitted
+    on the known rows predicts with a chance of being right of at least ``OPEN_CONFIDENCE``.
+
+    Labels: a scaled logistic regression, the chance being its class probability. A
+    whole-number target: a ridge fit rounded to the nearest whole number, the chance being
+    the cross-validated share of known rows it gets exactly right. A real-valued target is
+    not settled by a prediction, and gives none. ``guessed`` is what ``_cross_validated``
+    gave for the known rows."""
+    target = step.target
+    try:
+        every = build_features(table, columns=list(fm.columns),
+                               array_encoding=step.array_encoding, log_scale=step.log_scale,
+                               missing=step.missing)
+    except StepError:
+        return ()
+    wanted = ~np.isin(every.rows, fm.rows)
+    if not wanted.any() or every.names != fm.names:
+        return ()
+    positions = every.rows[wanted]
+    X = every.values[wanted]
+    truth, predicted, classes, _ = guessed
+    if classes is None:
+        if not np.all(truth == np.round(truth)):
+            return ()
+        chance = float(np.mean(np.round(predicted) == truth))
+        guesses = np.round(_number_model().fit(fm.values, truth).predict(X))
+        said = [int(g) for g in guesses]
+        chances = np.full(len(said), chance)
+        how = [f"a ridge fit on the other invariants, rounded, predicts {s} (exactly right on "
+               f"{chance:.0%} of the known rows, cross-validated)" for s in said]
+    else:
+        model = _label_model().fit(fm.values, truth)
+        probability = model.predict_proba(X)
+        said = [str(c) for c in model.classes_[probability.argmax(axis=1)]]
+        chances = probability.max(axis=1)
+        how = [f"a logistic regression on the other invariants predicts {s} with probability "
+               f"{p:.2f}" for s, p in zip(said, chances)]
+    marks = table.intervals(target)
+    spans = {int(p): (lo, hi) for p, lo, hi in zip(marks.positions, marks.low, marks.high)}
+    out = []
+    for k in np.flatnonzero(chances >= OPEN_CONFIDENCE)[:MAX_OPEN_VALUES]:
+        span = spans.get(int(positions[k]))
+        known, inside = "unknown", None
+        if span is not None:
+            inside = _inside(said[k], span)
+            known = f"known only to lie in [{span[0]}, {span[1]}]"
+        where = {None: "", True: " (inside the interval)",
+                 False: " (outside the interval: the table or the model is wrong here)"}[inside]
+        reason = (f"{target} is {known}; {how[k]}{where}: checking it by hand would settle "
+                  "it; a prediction, not a value")
+        out.append(OpenValue(row=table.row_ids[positions[k]], prediction=said[k],
+                             confidence=float(chances[k]), interval=span, inside=inside,
+                             reason=reason))
+    if out:
+        notes.append(f"{len(out)} objects with an open value of {target!r} are predicted with "
+                     f"a chance of at least {OPEN_CONFIDENCE:.0%} by a model fitted on the "
+                     "known rows; they follow the ranked list, to be checked by hand.")
+    return tuple(out)
+
+
+def _inside(said, span: tuple) -> bool | None:
+    try:
+        return bool(span[0] <= float(said) <= span[1])
+    except (TypeError, ValueError):
+        return None
+
+
+def label_text(value) -> str:
+    """A target value as a class label: whole floats without their ".0"."""
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
 
 
 def number_text(x: float) -> str:

@@ -597,9 +597,19 @@ def _outliers(data: dict) -> str:
         rows.append([item.get("rank", position), _Html(f"<span class=\"mono\">"
                                                        f"{_e(item.get('row'))}</span>"),
                      item.get("score"), "; ".join(map(str, reasons))])
-    if not rows:
+    opened = [v for v in data.get("open_values") or [] if isinstance(v, dict)]
+    if not rows and not opened:
         return "<p>No object stands out.</p>"
-    return _table(["rank", "row", "score", "why"], rows, numeric=(0, 2))
+    parts = [_table(["rank", "row", "score", "why"], rows, numeric=(0, 2))] if rows else []
+    if opened:
+        parts.append(f"<p>{len(opened)} objects have an open value of "
+                     f"{_e(data.get('target'))} that a confident prediction would settle "
+                     "(predictions to check by hand, not values):</p>")
+        parts.append(_table(
+            ["row", "prediction", "chance of being right", "why"],
+            [[_Html(f"<span class=\"mono\">{_e(v.get('row'))}</span>"), v.get("prediction"),
+              v.get("confidence"), v.get("reason")] for v in opened], numeric=(2,)))
+    return "\n".join(parts)
 
 
 _RENDERERS = {

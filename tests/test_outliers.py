@@ -215,3 +215,65 @@ def test_rows_no_measure_tells_apart_are_said_so():
     assert result.measures == ()
     assert all(o.reasons == ("no measure tells the rows apart",) for o in result.outliers)
     assert "no measure tells the rows apart" in result.summary()
+
+
+def test_open_flag_values_are_predicted_from_the_known_rows():
+    # planted truth: the flag is membership of the first make_blobs blob, which sits 10 standard
+    # deviations from the others; blank cells of the flag are open values the list must settle
+    frame = _blobs(n=240, seed=5)
+    truth = frame["first_blob"].copy()
+    hidden = frame.index[::12]
+    frame["first_blob"] = frame["first_blob"].astype(object)
+    frame.loc[hidden, "first_blob"] = None
+    result = OutliersStep(target="first_blob", relations=False, top=10).run(_table(frame))
+    opened = {v.row: v for v in result.open_values}
+    # only open rows are listed, and most of them: the blobs are far apart
+    assert set(opened) <= set(frame.loc[hidden, "point"])
+    assert len(opened) >= 0.75 * len(hidden)
+    for position in hidden:
+        value = opened.get(frame.loc[position, "point"])
+        if value is None:
+            continue
+        assert value.prediction == str(bool(truth[position]))
+        assert value.confidence >= 0.9 and value.interval is None and value.inside is None
+        assert "a prediction, not a value" in value.reason
+    listed = result.to_frame()
+    assert len(listed) == len(result.outliers) + len(opened)
+    assert listed["rank"].isna().sum() == len(opened)
+    assert result.to_json()["open_values"][0]["row"] in opened
+
+
+def test_open_whole_number_values_inside_their_intervals():
+    nx = pytest.importorskip("networkx")
+    # networkx's graph atlas; the handshake lemma: the degree sum is twice the number of edges
+    graphs = [g for g in nx.graph_atlas_g()[1:400]]
+    degree_sums = [sum(d for _, d in g.degree()) for g in graphs]
+    edges = [g.number_of_edges() for g in graphs]
+    cells = [str(e) for e in edges]
+    hidden = list(range(3, len(graphs), 17))
+    for i in hidden:
+        cells[i] = f"[{max(edges[i] - 1, 0)},{edges[i] + 2}]"
+    frame = pd.DataFrame({"graph": [f"g{i}" for i in range(len(graphs))],
+                          "vertices": [g.number_of_nodes() for g in graphs],
+                          "degree_sum": degree_sums,
+                          "max_degree": [max((d for _, d in g.degree()), default=0)
+                                         for g in graphs],
+                          "edges": cells})
+    table = _table(frame, "atlas.csv")
+    assert len(table.intervals("edges")) == len(hidden)
+    result = OutliersStep(target="edges", relations=False, top=5).run(table)
+    opened = {v.row: v for v in result.open_values}
+    assert set(opened) == {f"g{i}" for i in hidden}
+    for i in hidden:
+        value = opened[f"g{i}"]
+        assert value.prediction == edges[i]
+        assert value.inside is True and value.interval == (max(edges[i] - 1, 0), edges[i] + 2)
+
+
+def test_a_real_valued_target_settles_no_open_value():
+    # common practice: a real number is not settled by a prediction, so none is offered
+    frame = _blobs(n=120, seed=2)
+    frame["x3"] = frame["x3"].astype(object)
+    frame.loc[frame.index[::10], "x3"] = None
+    result = OutliersStep(target="x3", relations=False, top=5).run(_table(frame))
+    assert result.open_values == ()

@@ -291,3 +291,25 @@ def test_relations_and_bounds_with_the_rows_that_attain_them():
     attained = {str(i) for b in data["bounds"] for i in b["attained_by"]}
     assert attained & {"<b>x1</b>", "<u>x6</u>"}, "a marked-up id attains some bound"
     assert all(i in text for i in attained)
+
+
+def test_open_values_follow_the_objects_to_look_at():
+    # planted truth: the flag is x > 10 on two groups of points 20 apart; blank flags are open
+    rng = __import__("numpy").random.default_rng(4)
+    lines = ["name,x,y,big"]
+    for i in range(80):
+        x = float(rng.normal(0 if i % 2 else 20, 1))
+        flag = "" if i % 10 == 3 else str(x > 10)
+        lines.append(f"o{i},{x:.3f},{rng.normal():.3f},{flag}")
+    table = read_table("\n".join(lines).encode(), "open.csv", id_column="name")
+    step = new_step("outliers", {"target": "big", "relations": False})
+    run = run_study(Study(table=table.name, steps=(step,)), table)
+    assert run.ok, run.summary()
+    data = run.outcomes[0].result.to_json()
+    assert data["open_values"], "the open flags sit deep inside their group"
+    page = report_html(run)
+    assert "a confident prediction would settle" in page
+    rows = re.findall(r"<tr>(.*?)</tr>", page)
+    for value in data["open_values"]:
+        row = next(r for r in rows if f">{value['row']}<" in r)
+        assert html.escape(value["reason"]) in row

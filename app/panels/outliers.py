@@ -51,7 +51,12 @@ def show(ctx: settings.StepContext, result) -> None:
                          selection_mode="multi-row",
                          column_config={"score": st.column_config.NumberColumn(format="%.3f")})
     left, right = st.columns([3, 1], vertical_alignment="center")
-    left.caption(f"Score: {result.combination}. Select rows to see all their invariants.")
+    caption = f"Score: {result.combination}. Select rows to see all their invariants."
+    if result.open_values:
+        caption += (f" The last {display.plural(len(result.open_values), 'object')} have an "
+                    f"open value of {result.target} (missing or an interval) that a confident "
+                    "prediction would settle: predictions to check by hand, not values.")
+    left.caption(caption)
     right.download_button("Download the list (CSV)", data=csv_text(frame),
                           file_name=f"{slug(table.name)}-objects-to-look-at.csv",
                           mime="text/csv", key=ctx.key("csv"), icon=":material/download:",
@@ -59,7 +64,8 @@ def show(ctx: settings.StepContext, result) -> None:
                           width="stretch")
     picked = list(getattr(getattr(event, "selection", None), "rows", []) or [])
     if picked:
-        ids = [result.outliers[i].row for i in picked if i < len(result.outliers)]
+        listed = (*result.outliers, *result.open_values)
+        ids = [listed[i].row for i in picked if i < len(listed)]
         st.dataframe(display.rows_frame(table, ids), hide_index=True,
                      key=ctx.key("picked"))
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
