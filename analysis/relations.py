@@ -132,6 +132,7 @@ class Relation:
     trivial: bool = False
     note: str = ""
     tolerance: float | None = None
+    consistent_with: tuple = ()   # ids of rows known by an interval that some value obeys
 
     @property
     def text(self) -> str:
@@ -153,6 +154,7 @@ class Relation:
             "exact": self.exact,
             "trivial": self.trivial,
             "note": self.note,
+            "consistent_with": [_plain(v) for v in self.consistent_with],
         }
         if not self.exact:
             data["tolerance"] = self.tolerance
@@ -179,6 +181,7 @@ class Bound:
     holds_on: int
     violations: tuple = ()
     note: str = ""
+    consistent_with: tuple = ()   # ids of rows known by an interval that some value obeys
 
     @property
     def text(self) -> str:
@@ -199,6 +202,7 @@ class Bound:
             "near_margin": str(self.near_margin),
             "holds_on": self.holds_on,
             "note": self.note,
+            "consistent_with": [_plain(v) for v in self.consistent_with],
         }
 
 
@@ -255,7 +259,7 @@ class RelationsResult:
             for relation in exact:
                 broken = (f"  (broken by {len(relation.violations)} rows)"
                           if relation.violations else "")
-                lines.append(f"  {relation.text}{broken}")
+                lines.append(f"  {relation.text}{broken}{_consistent_text(relation)}")
         else:
             lines.append("  no exact relation")
         for relation in self.approximate:
@@ -268,7 +272,7 @@ class RelationsResult:
             for bound in self.bounds[:10]:
                 broken = f", broken by {len(bound.violations)}" if bound.violations else ""
                 lines.append(f"  {bound.text}  (attained by {bound.attained_count}, "
-                             f"{bound.near} close{broken})")
+                             f"{bound.near} close{broken}){_consistent_text(bound)}")
         if self.congruences:
             lines.append(f"congruences ({len(self.congruences)}):")
             for congruence in self.congruences[:10]:
@@ -282,6 +286,12 @@ class RelationsResult:
         lines.extend(f"  note: {note}" for note in self.notes)
         lines.append(self.caveat)
         return "\n".join(lines)
+
+
+def _consistent_text(statement) -> str:
+    count = len(statement.consistent_with)
+    return (f"  (consistent with {count} row{'s' if count != 1 else ''} known only by an "
+            "interval)") if count else ""
 
 
 def relation_reasons(result: RelationsResult) -> dict:
@@ -1999,6 +2009,7 @@ class RelationsStep:
             max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,
             tolerance=self.tolerance, seed=self.seed, max_bounds=max_bounds,
         )
+        found = _with_interval_rows(table, names, found)
         if not self.congruences:
             return found
         from analysis.congruences import find_congruences
@@ -2009,3 +2020,30 @@ class RelationsStep:
         congruences = find_congruences(integers, table.row_ids, relations=laws) \
             if integers else []
         return replace(found, congruences=tuple(congruences))
+
+
+def _with_interval_rows(table, names: list[str], found: RelationsResult) -> RelationsResult:
+    """Hold each exact relation and bound against the rows known only by an interval in one
+    of its columns (see analysis.interval_rows): rows every value of whose intervals breaks
+    it join its violations; the others are listed as consistent with it."""
+    from analysis.interval_rows import IntervalRows
+
+    rows = IntervalRows(table, names)
+    if not rows:
+        return found
+
+    def judged(statement, relation):
+        verdict = rows.judge(statement.terms, relation, statement.constant)
+        if not verdict.breaking and not verdict.consistent:
+            return statement
+        return replace(statement, violations=tuple(statement.violations) + verdict.breaking,
+                       consistent_with=verdict.consistent)
+
+    relations = tuple(judged(r, "=") for r in found.relations)
+    bounds = tuple(judged(b, b.relation) for b in found.bounds)
+    counted = sum(len(s.violations) - len(o.violations) for s, o in
+                  zip((*relations, *bounds), (*found.relations, *found.bounds)))
+    note = ("rows known only by an interval were held against each relation and bound: a row "
+            "breaks one only when every value of its intervals does (listed with the "
+            f"breakers; {counted} such breaks), and is consistent with it otherwise.")
+    return replace(found, relations=relations, bounds=bounds, notes=(*found.notes, note))

@@ -545,13 +545,20 @@ def _equation_text(equation: dict) -> str:
 def _relations(data: dict) -> str:
     parts = []
     relations = data.get("relations") or []
+    bounds = data.get("bounds") or []
+    consistent = any(s.get("consistent_with") for s in (*relations, *bounds))
+    extra = ["consistent rows known by an interval"] if consistent else []
+
+    def also(statement):
+        return [len(statement.get("consistent_with") or [])] if consistent else []
+
     parts.append("<h3>Exact relations</h3>")
     if relations:
         parts.append(_table(
-            ["relation", "holds on", "rows breaking it"],
-            [[_code(_equation_text(r)), r.get("holds_on"), _ids(r.get("violations"))]
+            ["relation", "holds on", "rows breaking it", *extra],
+            [[_code(_equation_text(r)), r.get("holds_on"), _ids(r.get("violations")), *also(r)]
              for r in relations],
-            numeric=(1,)))
+            numeric=(1, 3)))
     else:
         parts.append("<p>No exact linear relation was found.</p>")
     approximate = data.get("approximate_relations") or []
@@ -562,23 +569,25 @@ def _relations(data: dict) -> str:
             [[_code(_equation_text(r)), r.get("holds_on"), _ids(r.get("violations"))]
              for r in approximate],
             numeric=(1,)))
-    bounds = data.get("bounds") or []
     holding = [b for b in bounds if not b.get("violations")]
     near = [b for b in bounds if b.get("violations")]
     parts.append("<h3>Bounds that hold on every row</h3>")
     if holding:
         parts.append(_table(
-            ["bound", "attained by (count)", "some rows attaining it"],
-            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("attained_by"))]
-             for b in holding], numeric=(1,)))
+            ["bound", "attained by (count)", "some rows attaining it", *extra],
+            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("attained_by")),
+              *also(b)] for b in holding], numeric=(1, 3)))
     else:
         parts.append("<p>No sharp bound was found.</p>")
     if near:
         parts.append("<h3>Bounds that all but a few rows obey</h3>")
         parts.append(_table(
-            ["bound", "attained by (count)", "rows breaking it"],
-            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("violations"))]
-             for b in near], numeric=(1,)))
+            ["bound", "attained by (count)", "rows breaking it", *extra],
+            [[_code(_equation_text(b)), b.get("attained_count"), _ids(b.get("violations")),
+              *also(b)] for b in near], numeric=(1, 3)))
+    if consistent:
+        parts.append("<p>A row known only by an interval breaks a statement only when every "
+                     "value in its interval does; otherwise it is consistent with it.</p>")
     congruences = data.get("congruences") or []
     if congruences:
         parts.append("<h3>Congruences</h3>")

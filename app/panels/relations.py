@@ -50,13 +50,16 @@ def show(ctx: settings.StepContext, result) -> None:
     if exact:
         for relation in exact:
             _statement(relation.terms, "=", relation.constant, relation.text)
+            if relation.consistent_with:
+                st.caption(_consistent_words(relation))
     else:
         st.caption("None among these columns.")
     if nearly:
         st.markdown("##### Relations that all but a few objects obey")
         st.dataframe(pd.DataFrame([{
             "relation": r.text, "holds on": r.holds_on, "broken by": len(r.violations),
-            "first objects breaking it": _ids(r.violations)} for r in nearly]),
+            "first objects breaking it": _ids(r.violations),
+            **_consistent_cell(result, r)} for r in nearly]),
             hide_index=True, key=ctx.key("nearly"))
     if result.approximate:
         st.markdown("##### Relations among real columns, to a tolerance")
@@ -71,15 +74,17 @@ def show(ctx: settings.StepContext, result) -> None:
     if holding:
         st.dataframe(pd.DataFrame([{
             "bound": b.text, "attained by": b.attained_count, "close to it": b.near,
-            "some objects attaining it": _ids(b.attained_by, total=b.attained_count)}
-            for b in holding]), hide_index=True, key=ctx.key("bounds"))
+            "some objects attaining it": _ids(b.attained_by, total=b.attained_count),
+            **_consistent_cell(result, b)} for b in holding]),
+            hide_index=True, key=ctx.key("bounds"))
     else:
         st.caption("None found (or the search for bounds is off).")
     if near:
         st.markdown("##### Bounds that all but a few objects obey")
         st.dataframe(pd.DataFrame([{
             "bound": b.text, "broken by": len(b.violations), "attained by": b.attained_count,
-            "objects breaking it": _ids(b.violations)} for b in near]),
+            "objects breaking it": _ids(b.violations),
+            **_consistent_cell(result, b)} for b in near]),
             hide_index=True, key=ctx.key("near_bounds"))
     if result.congruences:
         st.markdown("##### Congruences")
@@ -93,6 +98,21 @@ def show(ctx: settings.StepContext, result) -> None:
     show_figures(result, table, ctx.key("figures"), vector=ctx.vector)
     st.caption(result.caveat)
     display.notes(result.notes)
+
+
+def _consistent_words(statement) -> str:
+    count = len(statement.consistent_with)
+    return (f"Consistent with {display.plural(count, 'object')} known only by an interval "
+            f"(first: {_ids(statement.consistent_with)}); an interval row breaks a statement "
+            "only when every value in it does.")
+
+
+def _consistent_cell(result, statement) -> dict:
+    """The column of objects known by an interval that a statement leaves open, shown only
+    when some statement of the result has one."""
+    if not any(s.consistent_with for s in (*result.relations, *result.bounds)):
+        return {}
+    return {"consistent interval rows": len(statement.consistent_with)}
 
 
 def _statement(terms, relation: str, constant, text: str) -> None:
