@@ -153,10 +153,15 @@ def _feature_options(sub: argparse.ArgumentParser) -> None:
     sub.add_argument("--features", metavar="A,B,...",
                      help="feature columns (default: every invariant, flag, category and array "
                           "column but the target)")
-    sub.add_argument("--array-encoding", choices=["invariant", "flat", "both"],
+    from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
+
+    sub.add_argument("--array-encoding", choices=ARRAY_ENCODINGS,
                      default="invariant", help="how matrix and list cells become features")
-    sub.add_argument("--log-scale", choices=["auto", "never", "always"], default="auto")
-    sub.add_argument("--missing", choices=["drop", "impute"], default="drop")
+    sub.add_argument("--log-scale", choices=LOG_SCALES, default="auto")
+    sub.add_argument("--missing", choices=MISSING_POLICIES, default="drop")
+    sub.add_argument("--intervals", choices=INTERVAL_READINGS, default="missing",
+                     help="interval cells [low, high] of number columns: missing (default), "
+                          "or read as their low end, high end or midpoint")
 
 
 def _split(text: str | None) -> list[str] | None:
@@ -175,6 +180,7 @@ def _params(args: argparse.Namespace) -> dict:
         "method": "method", "target": "target", "k": "k", "compare": "compare",
         "model": "model", "train_fraction": "train_fraction", "groups": "groups",
         "array_encoding": "array_encoding", "log_scale": "log_scale", "missing": "missing",
+        "intervals": "intervals",
     }
     for option, name in mapping.items():
         if hasattr(args, option) and getattr(args, option) is not None:

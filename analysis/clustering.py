@@ -175,6 +175,7 @@ class ClusteringStep:
     array_encoding: str = "invariant"
     log_scale: str = "auto"
     missing: str = "drop"
+    intervals: str = "missing"
     standardize: bool = True
     sample_size: int = 4000
     min_cluster_size: int = 10
@@ -186,7 +187,8 @@ class ClusteringStep:
         self.check_table(table)
         fm = build_features(table, columns=self.columns, target=self.compare,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
-                            missing=self.missing)
+                            missing=self.missing,
+                            intervals=self.intervals)
         n = len(fm.rows)
         notes = list(fm.warnings) + list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "clustering")

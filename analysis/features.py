@@ -34,6 +34,9 @@ MISSING_SHARE_LIMIT = 0.30
 DROPPED_ROWS_WARNING = 0.10
 LOG_SCALES = ("auto", "never", "always")
 MISSING_POLICIES = ("drop", "impute")
+# How an interval cell [low, high] of a number column becomes a feature value: a missing cell
+# (dropped or filled in like any other), its low end, its high end or its midpoint.
+INTERVAL_READINGS = ("missing", "low", "high", "midpoint")
 # Most row orders the exact canonical key will try before it falls back to invariants.
 EXACT_KEY_ORDERS = 5040
 
@@ -90,16 +93,23 @@ class FeatureMatrix:
         return list(dict.fromkeys(f.column for f in self.features))
 
 
-def mostly_empty_columns(table: Table, columns: list[str]) -> list[tuple[str, float]]:
+def mostly_empty_columns(table: Table, columns: list[str],
+                         intervals: str = "missing") -> list[tuple[str, float]]:
     """The columns missing in more than ``MISSING_SHARE_LIMIT`` of the rows, with that share.
 
-    Empty cells, marker words and interval cells all count as missing. Such a column is left
-    out of the default features before any row is dropped, so that one mostly-empty column
-    does not take most of the table with it.
+    Empty cells and marker words count as missing, and so do interval cells unless
+    ``intervals`` reads them as a value. Such a column is left out of the default features
+    before any row is dropped, so that one mostly-empty column does not take most of the
+    table with it.
     """
     n = max(table.n_rows, 1)
-    return [(name, table.column(name).missing / n) for name in columns
-            if table.column(name).missing / n > MISSING_SHARE_LIMIT]
+
+    def share(name: str) -> float:
+        info = table.column(name)
+        read = 0 if intervals == "missing" else (info.intervals or 0)
+        return (info.missing - read) / n
+
+    return [(name, share(name)) for name in columns if share(name) > MISSING_SHARE_LIMIT]
 
 
 def default_feature_columns(table: Table, *, target: str | None = None,
@@ -113,7 +123,7 @@ def default_feature_columns(table: Table, *, target: str | None = None,
 def chosen_feature_columns(table, *, columns: list[str] | None = None,
                            target: str | None = None, exclude: tuple[str, ...] = (),
                            array_encoding: str = "invariant", log_scale: str = "auto",
-                           missing: str = "drop") -> list[str]:
+                           missing: str = "drop", intervals: str = "missing") -> list[str]:
     """Check the feature settings and return the feature columns (StepError if unusable).
 
     Shared by the in-memory and the partitioned feature builders, so both refuse the same
@@ -125,7 +135,11 @@ def chosen_feature_columns(table, *, columns: list[str] | None = None,
     if log_scale not in LOG_SCALES:
         raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
     if missing not in MISSING_POLICIES:
-        raise StepError(f"missing-value policy {missing!r}: use drop or impute.")
+        raise StepError(f"missing-value policy {missing!r}: use "
+                        f"{' or '.join(MISSING_POLICIES)}.")
+    if intervals not in INTERVAL_READINGS:
+        raise StepError(f"interval reading {intervals!r}: use one of "
+                        f"{', '.join(INTERVAL_READINGS)}.")
     if columns is None:
         columns = default_feature_columns(table, target=target, exclude=exclude)
     else:
@@ -146,7 +160,8 @@ def chosen_feature_columns(table, *, columns: list[str] | None = None,
 
 def build_features(table: Table, *, columns: list[str] | None = None, target: str | None = None,
                    array_encoding: str = "invariant", log_scale: str = "auto",
-                   missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeatureMatrix:
+                   missing: str = "drop", exclude: tuple[str, ...] = (),
+                   intervals: str = "missing") -> FeatureMatrix:
     """Build the feature matrix of ``table``.
 
     Parameters
@@ -158,18 +173,20 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
         eigenvalues or characteristic polynomial), "flat" (padded flattening) or "both".
     log_scale: "auto" (signed log for integers beyond 64 bits), "never" or "always".
     missing: "drop" rows with a missing feature or target, or "impute" (median / most common).
+    intervals: how interval cells of number columns are read (``INTERVAL_READINGS``):
+        "missing" (default), or their "low" end, "high" end or "midpoint".
     """
     chosen_by_default = columns is None
     columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
                                      array_encoding=array_encoding, log_scale=log_scale,
-                                     missing=missing)
+                                     missing=missing, intervals=intervals)
     blocks: list[np.ndarray] = []
     features: list[Feature] = []
     notes: list[str] = []
     warnings: list[str] = []
     left_out: list[tuple[str, float]] = []
     if chosen_by_default:
-        left_out = mostly_empty_columns(table, columns)
+        left_out = mostly_empty_columns(table, columns, intervals)
         if len(left_out) < len(columns):
             columns = [name for name in columns if name not in dict(left_out)]
             if left_out:
@@ -191,6 +208,8 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             blocks.append(block)
             features.extend(names)
     values = _stacked(blocks, table.n_rows)
+    if intervals != "missing":
+        _read_intervals(table, values, features, intervals, notes)
     bad = ~np.isfinite(values)
     target_missing = np.zeros(table.n_rows, dtype=bool)
     if target is not None:
@@ -230,6 +249,23 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     return FeatureMatrix(values=values, features=tuple(features),
                          rows=rows, row_ids=row_ids, notes=tuple(notes),
                          left_out=tuple(left_out), warnings=tuple(warnings))
+
+
+def _read_intervals(table: Table, values: np.ndarray, features: list[Feature], end: str,
+                    notes: list[str]) -> None:
+    """Write each interval cell's ``end`` ("low", "high", "midpoint") into the features of
+    its number column, in place (on the same scale as the column's other values)."""
+    for j, feature in enumerate(features):
+        if feature.kind not in ("value", "log"):
+            continue
+        marks = table.intervals(feature.column)
+        if not len(marks):
+            continue
+        read = marks.numeric(end)
+        values[marks.positions, j] = read if feature.kind == "value" \
+            else _signed_log(read.tolist())
+        notes.append(f"{len(marks)} interval cells of {feature.column!r} read as their "
+                     f"{'midpoint' if end == 'midpoint' else end + ' end'}.")
 
 
 def _left_out_text(left_out: list[tuple[str, float]]) -> str:

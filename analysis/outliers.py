@@ -206,6 +206,7 @@ class OutliersStep:
     array_encoding: str = "invariant"
     log_scale: str = "auto"
     missing: str = "drop"
+    intervals: str = "missing"
     standardize: bool = True
     k: int | None = None
     relations: bool = True
@@ -220,7 +221,7 @@ class OutliersStep:
         self.check_table(table)
         fm = build_features(table, columns=self.columns, target=self.target,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
-                            missing=self.missing)
+                            missing=self.missing, intervals=self.intervals)
         n = len(fm.rows)
         if n < 5:
             raise StepError(f"{table.name}: ranking objects needs at least 5 rows with every "
@@ -299,6 +300,7 @@ class OutliersStep:
         step = ClusteringStep(method="kmeans", k=self.k, compare=self.target,
                               columns=self.columns, array_encoding=self.array_encoding,
                               log_scale=self.log_scale, missing=self.missing,
+                              intervals=self.intervals,
                               standardize=self.standardize, seed=self.seed)
         clusters = step.run(table)
         if not np.array_equal(clusters.positions, fm.rows):
@@ -575,7 +577,7 @@ def open_values(table: Table, step, fm, guessed: tuple,
     try:
         every = build_features(table, columns=list(fm.columns),
                                array_encoding=step.array_encoding, log_scale=step.log_scale,
-                               missing=step.missing)
+                               missing=step.missing, intervals=step.intervals)
     except StepError:
         return ()
     wanted = ~np.isin(every.rows, fm.rows)

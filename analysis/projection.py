@@ -207,6 +207,7 @@ class ProjectionStep:
     array_encoding: str = "invariant"
     log_scale: str = "auto"
     missing: str = "drop"
+    intervals: str = "missing"
     standardize: bool = True
     sample_size: int | None = None
     n_neighbors: int = 15
@@ -224,7 +225,8 @@ class ProjectionStep:
                             target=self.target if needs_target else None,
                             exclude=(self.target,) if self.target and not needs_target else (),
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
-                            missing=self.missing)
+                            missing=self.missing,
+                            intervals=self.intervals)
         notes = list(fm.warnings) + list(fm.notes)
         if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
             notes.append(f"{METHOD_TITLES[self.method]} uses every row; the sample size "

@@ -411,6 +411,7 @@ class SeparatorStep:
     array_encoding: str = "invariant"
     log_scale: str = "auto"
     missing: str = "drop"
+    intervals: str = "missing"
     positive_class: str | int | float | bool | None = None
     augment_permutations: int = 0
     kernel_approximation: str = "exact"
@@ -529,7 +530,8 @@ class _Run:
         step, table = self.step, self.table
         fm = build_features(table, columns=step.columns, target=step.target,
                             array_encoding=step.array_encoding, log_scale=step.log_scale,
-                            missing=step.missing, exclude=excluded_columns(table, step))
+                            missing=step.missing, exclude=excluded_columns(table, step),
+                            intervals=step.intervals)
         self.notes.extend(fm.notes)
         self.warnings.extend(fm.warnings)
         self.left_out = tuple(name for name, _ in fm.left_out)
@@ -1061,7 +1063,8 @@ class _Run:
         try:
             every = build_features(table, columns=list(self.fm.columns),
                                    array_encoding=step.array_encoding,
-                                   log_scale=step.log_scale, missing=step.missing)
+                                   log_scale=step.log_scale, missing=step.missing,
+                                   intervals=step.intervals)
         except StepError:
             return []
         names_match = every.names == self.fm.names

@@ -71,10 +71,10 @@ def check_settings(step) -> None:
     is opened, not halfway through a run.
     """
     from analysis.errors import StepError
-    from analysis.features import ARRAY_ENCODINGS, LOG_SCALES, MISSING_POLICIES
+    from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
 
     shared = {"array_encoding": ARRAY_ENCODINGS, "log_scale": LOG_SCALES,
-              "missing": MISSING_POLICIES}
+              "missing": MISSING_POLICIES, "intervals": INTERVAL_READINGS}
     for name, allowed in shared.items():
         value = getattr(step, name, None)
         if value is not None and value not in allowed:

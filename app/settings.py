@@ -30,6 +30,8 @@ LOG_SCALES = {
     "always": "every numeric feature",
 }
 MISSING = {"drop": "leave the row out", "impute": "fill in (median or most common)"}
+INTERVALS = {"missing": "as missing cells", "low": "their low end", "high": "their high end",
+             "midpoint": "their midpoint"}
 NONE_LABEL = "(none)"
 
 
@@ -200,6 +202,9 @@ def feature_block(ctx: StepContext, *, label: str = "target", container=st) -> N
                help="sign(x)·log10(1+|x|), for invariants with a heavy tail.")
     if "missing" in ctx.params:
         choice(ctx, "missing", "Missing values", MISSING, container=right)
+    if "intervals" in ctx.params and any(c.intervals for c in table.columns):
+        choice(ctx, "intervals", "Interval cells [low, high]", INTERVALS, container=right,
+               help="Cells known only by an interval: read as missing, or by one value.")
 
 
 def label_columns(table) -> list[str]:

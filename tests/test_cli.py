@@ -282,3 +282,24 @@ def test_long_json_is_written_compact_and_reads_back_the_same(tmp_path, monkeypa
     cli._write_json(str(long), payload)
     assert "\n" not in long.read_text().rstrip("\n")
     assert json.loads(long.read_text()) == json.loads(short.read_text()) == payload
+
+
+def test_interval_cells_as_features_by_their_midpoint(tmp_path, capsys):
+    # the sample table gives 400 chromatic numbers only by their bounds: as missing cells the
+    # column is mostly empty and left out; read by their midpoint it is a feature on every row
+    table = Path(__file__).resolve().parent.parent / "sample_tables" / "graphs_as_downloaded.csv"
+    plain, read = tmp_path / "plain.json", tmp_path / "read.json"
+    common = ["separate", str(table), "--target", "planar", "--model", "lda", "--seed", "1"]
+    assert main(common + ["--json", str(plain)]) == 0
+    assert main(common + ["--intervals", "midpoint", "--json", str(read)]) == 0
+    before, after = json.loads(plain.read_text()), json.loads(read.read_text())
+    assert "chromatic_number" in [c["column"] if isinstance(c, dict) else c
+                                  for c in before["left_out_columns"]]
+    assert "chromatic_number" not in json.dumps(after["left_out_columns"])
+    assert "chromatic_number" in [item["feature"] for item in after["importance"]]
+    # and costs no row: the interval rows are the only ones it lacks
+    assert after["rows_used"] == before["rows_used"]
+    capsys.readouterr()
+    with pytest.raises(SystemExit) as stopped:
+        main(common + ["--intervals", "middle"])
+    assert stopped.value.code == 2 and "middle" in capsys.readouterr().err

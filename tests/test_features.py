@@ -499,3 +499,30 @@ def test_small_matrices_keep_the_full_invariant_features():
     names = build_features(table).names
     assert "sorted1(m)" in names and "rank(m)" not in names
     assert "rank(m)" in build_features(table, array_encoding="compact").names
+
+
+def _interval_table():
+    # worked by hand: x is known exactly on most rows and only as [low, high] on three
+    lines = ["obj,x,y", 'a,1,0', 'b,"[2,4]",1', 'c,3,0', 'd,"[5,8]",1', 'e,6,0',
+             'f,"[0,1]",1', 'g,7,0', 'h,9,1', 'i,10,0', 'j,11,1']
+    return read_table("\n".join(lines).encode(), "marked.csv", id_column="obj")
+
+
+@pytest.mark.parametrize("end, expected", [("low", [2, 5, 0]), ("high", [4, 8, 1]),
+                                           ("midpoint", [3, 6.5, 0.5])])
+def test_interval_cells_read_by_a_stated_end(end, expected):
+    table = _interval_table()
+    assert len(table.intervals("x")) == 3
+    dropped = build_features(table, columns=["x", "y"])
+    assert list(dropped.row_ids) == ["a", "c", "e", "g", "h", "i", "j"]
+    read = build_features(table, columns=["x", "y"], intervals=end)
+    assert len(read.rows) == 10
+    values = dict(zip(read.row_ids, read.values[:, 0]))
+    assert [values[r] for r in ("b", "d", "f")] == expected
+    assert values["a"] == 1 and values["j"] == 11
+    assert any("3 interval cells of 'x' read as their" in n for n in read.notes)
+
+
+def test_an_unknown_interval_reading_is_refused_by_name():
+    with pytest.raises(StepError, match="interval reading 'middle'"):
+        build_features(_interval_table(), columns=["x"], intervals="middle")

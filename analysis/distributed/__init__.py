@@ -64,6 +64,11 @@ def run_distributed(step, table_path: str | Path, *, scheduler: str | None = Non
     kind = getattr(step, "kind", None)
     if kind not in HANDLERS:
         raise StepError(f"the dask engine runs the steps {', '.join(HANDLERS)}; got {kind!r}.")
+    if getattr(step, "intervals", "missing") != "missing":
+        raise StepError(f"{kind}: the dask engine reads interval cells as missing values; "
+                        f"reading them as their {step.intervals} (intervals: "
+                        f"{step.intervals}) is done by the in-memory engine. Leave intervals "
+                        "at missing, or run without --engine dask.")
     module_name, function_name = HANDLERS[kind]
     handler = getattr(importlib.import_module(module_name), function_name)
 
