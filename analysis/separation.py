@@ -34,6 +34,7 @@ from analysis.errors import StepError
 from analysis.features import build_features, group_keys, is_numeric_target, target_values
 from analysis.plain import plain, row_id
 from analysis.progress import Reporter, quiet
+from analysis.reading import Reading, choose_reading
 from analysis.table import Table
 from analysis.threads import one_thread_each, refit_workers
 
@@ -148,6 +149,7 @@ class SeparatorResult:
     target_follows: object = None   # analysis.leakage.TargetFollows: the target is a formula
     importance: tuple = ()          # analysis.importance.Importance records, largest first
     open_predictions: tuple[dict, ...] = ()  # rows with no known target value, predicted
+    reading: object = None          # analysis.reading.Reading: number or classes, and why
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "separator"
 
@@ -216,6 +218,7 @@ class SeparatorResult:
             "target_follows": _json_or_none(self.target_follows),
             "importance": [r.to_json() for r in self.importance],
             "open_predictions": list(self.open_predictions),
+            "reading": None if self.reading is None else self.reading.to_json(),
             "warnings": list(self.warnings),
             "notes": list(self.notes),
         })
@@ -230,6 +233,8 @@ class SeparatorResult:
         if self.target_follows is not None:
             lines.append(f"  finding: the target follows from the features: "
                          f"{self.target_follows.relation}")
+        if self.reading is not None and self.reading.chosen_by == "learning curve":
+            lines.append(f"  reading: {self.reading.text}")
         lines += [f"  {self.rows_used} rows; split 1 has {self.train_rows} training and "
                  f"{self.test_rows} test rows ({self.split_method})"]
         m, b = self.metrics, self.baseline
@@ -538,8 +543,20 @@ class _Run:
         self.X = np.ascontiguousarray(fm.values, dtype=np.float64)
         # one copy of the matrix, in the row order the solvers want, shared with the features
         self.fm = dataclasses.replace(fm, values=self.X)
-        self.regression = is_numeric_target(table, step.target, step.reading)
         raw = target_values(table, step.target, fm.rows)
+        if step.reading == "auto" and (
+                not is_numeric_target(table, step.target, "number")
+                or step.model not in REGRESSION_WORDS or step.positive_class is not None):
+            # a class-only model, or a positive class, asks for classes: the rule decides
+            self.reading = Reading(is_numeric_target(table, step.target), "rule", "")
+        else:
+            if step.reading == "auto":
+                self.progress.phase("choosing between the number and class readings")
+            self.reading = choose_reading(table, step.target, step.reading, self.X, raw,
+                                          step.seed)
+        self.regression = self.reading.number
+        if self.reading.text and self.reading.chosen_by == "learning curve":
+            self.notes.append(self.reading.text)
         if self.regression:
             self._prepare_regression(raw)
         else:
@@ -886,7 +903,7 @@ class _Run:
             warnings=tuple(self.warnings), notes=tuple(self.notes), rows_used=n,
             permutations_run=self.permutations_run, left_out_columns=self.left_out,
             target_follows=self.follows, importance=importance,
-            open_predictions=tuple(open_predictions),
+            open_predictions=tuple(open_predictions), reading=self.reading,
             **equation_part,
         )
 
