@@ -21,6 +21,8 @@ from test_page import (
     waiting_buttons,
 )
 
+from analysis.report import FOLD_LIMIT
+
 
 def _choose_sample(at, name: str):
     if at.radio(key="table.source").value != "sample":
@@ -149,3 +151,28 @@ def test_a_change_of_one_steps_target_is_listed_in_that_step_and_can_be_undone()
     assert study(at) == before
     assert study(at).steps[-1].params["target"] == old
     assert results(at)[-1] is before_results[-1]
+
+
+def _wide_csv(width: int, rows: int = 30) -> bytes:
+    """A table of ``width`` integer invariants (seeded random digits) and an id."""
+    import numpy as np
+
+    values = np.random.default_rng(3).integers(0, 10, size=(rows, width))
+    lines = [",".join(["object", *(f"x{j}" for j in range(width))])]
+    lines += [",".join([f"o{i}", *map(str, values[i])]) for i in range(rows)]
+    return ("\n".join(lines) + "\n").encode()
+
+
+def test_a_long_feature_list_is_folded_on_the_page_and_a_short_one_is_not():
+    width = 3 * FOLD_LIMIT
+    at = open_page("quadratic_fields.csv")
+    upload(at, "wide.csv", _wide_csv(width))
+    assert table(at).name == "wide.csv"
+    assert all(r is not None for r in results(at))
+    labels = [e.label for e in at.expander]
+    assert f"Features used ({width})" in labels, labels
+    assert not [m for m in texts(at.markdown) if m.startswith("Features used:")]
+
+    upload(at, "narrow.csv", _wide_csv(FOLD_LIMIT))
+    assert not [e.label for e in at.expander if e.label.startswith("Features used")]
+    assert any(m.startswith("Features used: `x0`") for m in texts(at.markdown))
