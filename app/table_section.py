@@ -43,7 +43,8 @@ SOURCES = {"sample": "A sample table", "file": "A file of mine"}
 
 
 def table_picker() -> None:
-    """A sample table or an upload. A new choice replaces the table and the study."""
+    """A sample table or an upload. A new choice puts the table on the page aside with its
+    study (at once, or after the user's word when the study has results)."""
     pg = state.page()
     if pg.show_sample is not None:
         # A study opened on a sample table: show that sample as the choice.
