@@ -32,6 +32,9 @@ CAVEAT = (
 MAX_IDS = 20
 # Rows of long tables (outliers, sweeps, relations) shown in the report.
 MAX_ROWS = 50
+# A list or table longer than this is folded, here and on the page: a list shows a line with
+# its count and opens to every item; a table shows this many rows and opens to the rest.
+FOLD_LIMIT = 30
 FIGURE_HEIGHT = "460px"
 
 # The page may run its own inline scripts and styles and nothing else: no network requests.
@@ -81,6 +84,7 @@ nav ol { margin: 4px 0; padding-left: 1.6em; }
 a { color: var(--accent); }
 footer { border-top: 2px solid var(--line); margin-top: 36px; padding-top: 14px; }
 .cut { color: var(--muted); }
+details.fold > summary { color: var(--accent); cursor: pointer; }
 """
 
 
@@ -308,6 +312,8 @@ def _facts(pairs) -> str:
 
 
 def _table(headers, rows, *, numeric=(), limit: int = MAX_ROWS) -> str:
+    """A table of at most ``limit`` rows; past :data:`FOLD_LIMIT` rows the rest is folded
+    under a line that counts them."""
     rows = list(rows)
     head = "".join(f"<th>{_e(h)}</th>" for h in headers)
     body = []
@@ -320,8 +326,26 @@ def _table(headers, rows, *, numeric=(), limit: int = MAX_ROWS) -> str:
     cut = ""
     if len(rows) > limit:
         cut = f"<p class=\"cut\">The first {limit} of {len(rows)} rows are shown.</p>"
-    return (f"<table class=\"data\"><thead><tr>{head}</tr></thead>"
-            f"<tbody>{''.join(body)}</tbody></table>{cut}")
+    shown = f"<table class=\"data\"><thead><tr>{head}</tr></thead>" \
+        f"<tbody>{''.join(body[:FOLD_LIMIT])}</tbody></table>"
+    if len(body) > FOLD_LIMIT:
+        shown += (f"<details class=\"fold\"><summary>{len(body) - FOLD_LIMIT} more rows"
+                  f"</summary><table class=\"data\"><thead><tr>{head}</tr></thead>"
+                  f"<tbody>{''.join(body[FOLD_LIMIT:])}</tbody></table></details>")
+    return shown + cut
+
+
+def _names(names, noun: str) -> _Html:
+    """Names (features, columns) in one line; more than :data:`FOLD_LIMIT` of them are
+    folded under a line that counts them."""
+    names = [str(n) for n in names or []]
+    if not names:
+        return _Html("none")
+    listed = f"<span class=\"mono\">{_e(', '.join(names))}</span>"
+    if len(names) <= FOLD_LIMIT:
+        return _Html(listed)
+    return _Html(f"<details class=\"fold\"><summary>{len(names)} {_e(noun)}</summary>"
+                 f"{listed}</details>")
 
 
 def _ids(ids, limit: int = MAX_IDS) -> _Html:
@@ -386,7 +410,7 @@ def _projection(data: dict) -> str:
     if ratio:
         facts.append(("explained variance ratio", ", ".join(_text(r) for r in ratio[:6])))
     if data.get("features"):
-        facts.append(("features", ", ".join(map(str, data["features"]))))
+        facts.append(("features", _names(data["features"], "features")))
     return _facts(facts)
 
 
@@ -461,6 +485,9 @@ def _separator(data: dict) -> str:
             rows.append([label, len(value) if isinstance(value, list) else value])
     if rows:
         parts.append(_table(["measure", "value"], rows, numeric=(1,)))
+    if data.get("left_out_columns"):
+        parts.append(_facts([("columns left out of the features",
+                              _names(data["left_out_columns"], "columns"))]))
     equations = [e for e in [data.get("equation"), *(data.get("equations") or [])]
                  if isinstance(e, dict)]
     if equations:

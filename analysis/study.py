@@ -241,6 +241,52 @@ def update_step(study: Study, index: int, *, params: dict | None = None,
     return dataclasses.replace(study, steps=tuple(steps))
 
 
+# The setting through which a step of each kind follows the study's target: the column a
+# projection and the objects to look at colour and rank by, the separator predicts, and a
+# clustering is compared with.
+TARGET_SETTINGS = {"projection": "target", "separator": "target", "outliers": "target",
+                   "clustering": "compare"}
+
+
+def target_setting(kind: str) -> str | None:
+    """The setting of a step of ``kind`` that names the study's target, or None."""
+    return TARGET_SETTINGS.get(kind)
+
+
+def steps_following_target(study: Study, target: str | None) -> tuple[int, ...]:
+    """The steps (0-based) whose settings change when the study's target becomes ``target``,
+    so whose results must be computed again.
+
+    A step follows the target through :func:`target_setting`. A separator always needs a
+    target, so it keeps its own when the study's target is cleared, and a separator that
+    explains the objects breaking a statement keeps that statement.
+    """
+    following = []
+    for index, step in enumerate(study.steps):
+        name = target_setting(step.kind)
+        if name is None or name not in step.params:
+            continue
+        if step.kind == "separator" and (target is None or step.params.get("target_statement")):
+            continue
+        if step.params.get(name) != target:
+            following.append(index)
+    return tuple(following)
+
+
+def with_target(study: Study, target: str | None) -> Study:
+    """The study with ``target`` given to every step of :func:`steps_following_target`; a
+    step that uses the target as a feature column stops doing so."""
+    for index in steps_following_target(study, target):
+        step = study.steps[index]
+        name = target_setting(step.kind)
+        change: dict = {name: target}
+        chosen = step.params.get("columns")
+        if name == "target" and target is not None and chosen and target in chosen:
+            change["columns"] = [c for c in chosen if c != target] or None
+        study = update_step(study, index, params=change)
+    return study
+
+
 def default_study(table: Table, target: str | None = None, seed: int = 0) -> Study:
     """A first study of ``table``: overview, PCA projection, clustering (method chosen by a
     sweep), a separator when ``target`` is given, relations and bounds, objects to look at.

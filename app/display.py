@@ -9,6 +9,8 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from analysis.report import FOLD_LIMIT
+
 # Widest a cell of a listed row is shown before it is shortened.
 CELL_WIDTH = 80
 
@@ -131,3 +133,17 @@ def notes(lines) -> None:
     lines = [str(line).strip().rstrip(".") for line in lines if str(line).strip()]
     if lines:
         st.caption("Notes: " + "; ".join(lines) + ".")
+
+
+def names_list(label: str, names, *, container=st) -> None:
+    """Names (features, columns) after ``label`` on one line; more than ``FOLD_LIMIT`` of
+    them are folded under a title that counts them, as in the report."""
+    names = [str(name) for name in names or ()]
+    if not names:
+        return
+    text = ", ".join(f"`{name}`" for name in names)
+    if len(names) <= FOLD_LIMIT:
+        container.markdown(f"{label}: {text}")
+        return
+    with container.expander(f"{label} ({len(names)})"):
+        st.markdown(text)

@@ -88,7 +88,15 @@ def opening_study(table, *, sample: bool = False) -> Study:
 
 
 def put_table(table_state: state.TableState) -> None:
-    """Show a newly loaded table with a fresh short study, run at once."""
+    """Show a newly loaded table. The table on the page is put aside with its study; a table
+    loaded before in this session (the same bytes) comes back with its own study and
+    results, any other gets a fresh short study, run at once."""
+    state.page().pending = None
+    state.keep_current()
+    kept = state.kept_for(table_state.base.digest)
+    if kept is not None:
+        state.resume(kept)
+        return
     state.set_table(table_state)
     study = opening_study(table_state.base, sample=table_state.sample)
     state.page().focus = {"target": _first_target(study)}
@@ -138,6 +146,7 @@ def open_study(study: Study) -> str | None:
     # Check the study's id column and roles against the table before anything changes.
     apply_table_settings(study, chosen.base)
     if chosen is not current:
+        state.keep_current()
         state.set_table(chosen)
         state.page().show_sample = chosen.name
     chosen.table = chosen.base

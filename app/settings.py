@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 import streamlit as st
 
 from analysis.errors import StudyError
-from analysis.study import StudyStep, update_step
+from analysis.study import StudyStep, target_setting, update_step
 from app import state
 
 # What each array encoding means, in words.
@@ -68,6 +68,11 @@ def _changed(uid: int, name: str, key: str, convert) -> None:
         state.set_study(update_step(current, index, params={name: value}))
     except StudyError as exc:
         pg.errors[f"settings:{uid}"] = str(exc)
+        return
+    step = current.steps[index]
+    if name == target_setting(step.kind) and step.params.get(name) != value:
+        state.note_target_change(current, [index], old=step.params.get(name), new=value,
+                                 uid=uid)
 
 
 def _sync(key: str, value) -> None:

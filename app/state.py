@@ -1,4 +1,4 @@
-"""What a browser session remembers, under four namespaced keys of ``st.session_state``.
+"""What a browser session remembers, under five namespaced keys of ``st.session_state``.
 
 - ``scout.table``: the loaded table (:class:`TableState`): its bytes, the table as read, and
   the table with the study's id column and role changes applied.
@@ -9,9 +9,12 @@
   not parameters, so changing them never recomputes a step.
 - ``scout.page``: page bookkeeping (:class:`PageState`): a stable id per step for widget keys,
   the messages of steps that could not run, and what the last upload was.
+- ``scout.kept``: the studies of the other tables loaded in this session (:class:`KeptStudy`),
+  by the sha256 digest of the table's bytes, so that going back to a table brings back its
+  study, its settings and the results already computed.
 
 Widget keys are separate (streamlit keeps them in session state too); they start with
-``table.``, ``focus.``, ``study.``, ``add.``, ``share.`` or ``s<step id>.``.
+``table.``, ``focus.``, ``study.``, ``add.``, ``share.``, ``target.`` or ``s<step id>.``.
 """
 
 from __future__ import annotations
@@ -20,13 +23,14 @@ from dataclasses import dataclass, field
 
 import streamlit as st
 
-from analysis.study import ResultCache, Study, apply_table_settings
+from analysis.study import ResultCache, Study, apply_table_settings, result_key
 from analysis.table import Table
 
 TABLE = "scout.table"
 STUDY = "scout.study"
 CACHE = "scout.cache"
 PAGE = "scout.page"
+KEPT = "scout.kept"
 
 # The study-wide choices offered above the steps, and the step setting each one sets.
 FOCUS_FIELDS = ("target", "columns", "array_encoding", "groups")
@@ -65,6 +69,37 @@ class PageState:
     show_sample: str | None = None
     roles_version: int = 0
     roles_error: str | None = None
+    # a table that arrived while the study had results, waiting for the user to open it
+    pending: TableState | None = None
+    # the last change of a target, offered for undoing until something else changes
+    target_change: TargetChange | None = None
+    # steps to run in the next pass (by step id), besides those the user runs one by one
+    run_uids: set[int] = field(default_factory=set)
+
+
+@dataclass
+class TargetChange:
+    """A target just changed: the study before and after, and the steps that follow it."""
+
+    before: Study
+    after: Study
+    step_uids: list[int]
+    old: str | None
+    new: str | None
+    uid: int | None = None  # the step whose own target changed; None for the study's target
+
+
+@dataclass
+class KeptStudy:
+    """A table put aside with its study: what it takes to show both again as they were."""
+
+    table: TableState
+    study: Study
+    step_ids: list[int]
+    focus: dict
+    # result key -> result, so that the results come back even when the cache let them go
+    results: dict
+    errors: dict
 
 
 def page() -> PageState:
@@ -134,3 +169,78 @@ def refresh_table() -> None:
         return
     state.table = apply_table_settings(current, state.base)
     state.settings = current.table_settings
+
+
+def study_has_results() -> bool:
+    """True when at least one step of the study on the page has a result."""
+    current, table = study(), table_state()
+    if current is None or table is None:
+        return False
+    found = cache()
+    return any(result_key(table.table, step.kind, step.params) in found
+               for step in current.steps)
+
+
+def kept_studies() -> dict[str, KeptStudy]:
+    if KEPT not in st.session_state:
+        st.session_state[KEPT] = {}
+    return st.session_state[KEPT]
+
+
+def keep_current() -> None:
+    """Put the table on the page aside with its study, by the digest of the table's bytes."""
+    current, table = study(), table_state()
+    if current is None or table is None:
+        return
+    pg = page()
+    found = cache()
+    results = {}
+    for step in current.steps:
+        key = result_key(table.table, step.kind, step.params)
+        if key in found:
+            results[key] = found.get(key)
+    kept_studies()[table.base.digest] = KeptStudy(
+        table=table, study=current, step_ids=list(pg.step_ids), focus=dict(pg.focus),
+        results=results, errors=dict(pg.errors))
+
+
+def kept_for(digest: str) -> KeptStudy | None:
+    """The study kept for the table with these bytes, if one was put aside."""
+    return kept_studies().get(digest)
+
+
+def resume(kept: KeptStudy) -> None:
+    """Show a kept table and its study again as they were; nothing runs by itself."""
+    pg = page()
+    st.session_state[TABLE] = kept.table
+    st.session_state[STUDY] = kept.study
+    pg.step_ids = list(kept.step_ids)
+    pg.focus = dict(kept.focus)
+    pg.errors = dict(kept.errors)
+    pg.run_all = False
+    pg.just_added = None
+    found = cache()
+    for key, result in kept.results.items():
+        found.put(key, result)
+    refresh_table()
+
+
+def note_target_change(before: Study, indices, *, old, new, uid: int | None = None) -> None:
+    """Remember a change of target just made to the study on the page (``indices``: the
+    steps, 0-based, that follow it), so that the page can list them and offer to go back."""
+    pg = page()
+    pg.target_change = TargetChange(before=before, after=study(),
+                                    step_uids=[pg.step_ids[i] for i in indices],
+                                    old=old, new=new, uid=uid)
+
+
+def undo_target_change() -> None:
+    """Go back to the study as it was before the last change of target."""
+    pg = page()
+    change = pg.target_change
+    pg.target_change = None
+    if change is None or study() is not change.after:
+        return
+    set_study(change.before)
+    if change.uid is None:
+        pg.focus["target"] = change.old

@@ -19,7 +19,7 @@ from analysis.study import (
 from app import state
 from app.loading import available_kinds
 from app.panels import panel
-from app.settings import StepContext
+from app.settings import NONE_LABEL, StepContext
 from app.share import vector_ready
 
 # What a step is doing while it runs, by kind (the status line under its title).
@@ -68,7 +68,13 @@ def show_study() -> None:
     missing = [key for key in keys if key not in cache]
     # Steps that could not run are not "waiting": their message says what to change.
     waiting = [key for key in missing if key not in pg.errors]
+    change = pg.target_change
+    if change is not None and change.after is not study:
+        pg.target_change = change = None  # something else changed since: the offer lapses
     top = st.container()
+    if change is not None and change.uid is None:
+        with top:
+            _target_notice(change)
     progress = None
     if pg.run_all and missing:
         progress = top.progress(0.0, text=f"Running {len(missing)} of "
@@ -86,7 +92,8 @@ def show_study() -> None:
             others.setdefault(step.kind, found)
     done = 0
     for index, (uid, step) in enumerate(zip(list(pg.step_ids), study.steps)):
-        ran = _show_step(index, uid, step, table, run_all=pg.run_all, others=others)
+        ran = _show_step(index, uid, step, table, run_all=pg.run_all or uid in pg.run_uids,
+                         others=others)
         if progress is not None and ran:
             done += 1
             progress.progress(min(done / len(missing), 1.0),
@@ -94,8 +101,42 @@ def show_study() -> None:
     if progress is not None:
         progress.empty()
     pg.run_all = False
+    pg.run_uids.clear()
     pg.just_added = None
     _add_step_row(table)
+
+
+def _target_notice(change) -> None:
+    """Which steps follow the changed target and will run again, before any of them runs;
+    run them, or go back to the target before."""
+    pg = state.page()
+    study = state.study()
+    listed = [f"{pg.step_ids.index(u) + 1}. {study.steps[pg.step_ids.index(u)].display_title}"
+              for u in change.step_uids if u in pg.step_ids]
+    whose = "The study's target" if change.uid is None else "This step's target"
+    old = NONE_LABEL if change.old is None else change.old
+    new = NONE_LABEL if change.new is None else change.new
+    with st.container(border=True, key=f"target-change-{change.uid or 0}"):
+        st.markdown(f"{whose} is now **{new}** (it was **{old}**). Nothing has run yet.")
+        if listed:
+            verb = "depends" if len(listed) == 1 else "depend"
+            st.markdown(f"{_count(len(listed), 'step')} {verb} on the target and will run "
+                        "again: " + ", ".join(listed) + ".")
+        else:
+            st.markdown("No step depends on the target: nothing needs to run again.")
+        left, right = st.columns(2)
+        left.button("Run them now", key="target.run", type="primary", disabled=not listed,
+                    icon=":material/play_arrow:", on_click=_run_target_steps, width="stretch")
+        right.button(f"Back to {old}", key="target.undo", icon=":material/undo:",
+                     on_click=state.undo_target_change, width="stretch")
+
+
+def _run_target_steps() -> None:
+    pg = state.page()
+    change = pg.target_change
+    pg.target_change = None
+    if change is not None:
+        pg.run_uids.update(change.step_uids)
 
 
 def _count(n: int, word: str) -> str:
@@ -137,6 +178,9 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
             message = pg.errors.get(f"settings:{uid}")
             if message:
                 st.error(message)
+        change = pg.target_change
+        if change is not None and change.uid == uid:
+            _target_notice(change)
         # The settings may have changed the step just now: read it again.
         step = state.study().steps[index]
         ctx.step = step

@@ -10,9 +10,16 @@ import streamlit as st
 
 from analysis.errors import ScoutError, StudyError
 from analysis.features import default_feature_columns
-from analysis.study import TableSettings, apply_table_settings, update_step
+from analysis.study import (
+    TableSettings,
+    apply_table_settings,
+    steps_following_target,
+    update_step,
+    with_target,
+)
 from analysis.table import ROLES
-from app import loading, state
+from app import loading, share, state
+from app.figure_view import slug
 from app.settings import ENCODINGS, NONE_LABEL
 
 ROLE_WORDS = {
@@ -36,7 +43,8 @@ SOURCES = {"sample": "A sample table", "file": "A file of mine"}
 
 
 def table_picker() -> None:
-    """A sample table or an upload. A new choice replaces the table and the study."""
+    """A sample table or an upload. A new choice puts the table on the page aside with its
+    study (at once, or after the user's word when the study has results)."""
     pg = state.page()
     if pg.show_sample is not None:
         # A study opened on a sample table: show that sample as the choice.
@@ -53,6 +61,70 @@ def table_picker() -> None:
         _upload_box(pg)
     if pg.load_error:
         st.caption(":red[This file could not be read; the message is at the top of the page.]")
+    if pg.pending is not None:
+        _pending_box(pg)
+
+
+def offer_table(loaded: state.TableState) -> None:
+    """A table arrived: open it at once when the study on the page has no results yet (or
+    it is the same table), else let it wait for the user's word."""
+    current = state.table_state()
+    same = current is not None and current.base.digest == loaded.base.digest
+    if same or not state.study_has_results():
+        loading.put_table(loaded)
+    else:
+        state.page().pending = loaded
+
+
+def _waiting(name: str | None, *, sample: bool) -> bool:
+    """Whether a table of this kind (and name, when given) waits to be opened."""
+    pending = state.page().pending
+    return pending is not None and pending.sample == sample \
+        and (name is None or pending.name == name)
+
+
+def _pending_box(pg) -> None:
+    """What happens to the study on the page if the waiting table is opened, the study file
+    to download first, and the choice to open the table or stay."""
+    current = state.table_state()
+    study = state.study()
+    waiting = pg.pending
+    again = state.kept_for(waiting.base.digest) is not None
+    with st.container(border=True, key="table.waiting"):
+        st.markdown(f"**{waiting.name}** is read and waiting to be opened.")
+        st.caption(f"The study on the page stays kept for {current.name}, with its steps, "
+                   f"settings and results: choose {current.name} again in this session and "
+                   "it comes back. A file of it keeps it for later sessions too."
+                   + (f" {waiting.name} was open before: its own study comes back."
+                      if again else ""))
+        st.download_button("Download the current study first", data=share.study_text(study),
+                           file_name=f"{slug(study.title or current.name)}.study.json",
+                           mime="application/json", key="table.keep_file",
+                           icon=":material/download:", on_click="ignore", width="stretch")
+        left, right = st.columns(2)
+        left.button(f"Open {waiting.name}", key="table.switch", type="primary",
+                    on_click=_open_waiting, width="stretch")
+        right.button(f"Stay with {current.name}", key="table.stay", on_click=_stay,
+                     width="stretch")
+
+
+def _open_waiting() -> None:
+    pg = state.page()
+    if pg.pending is not None:
+        loading.put_table(pg.pending)
+
+
+def _stay() -> None:
+    """Keep the table on the page; the pickers show it again."""
+    pg = state.page()
+    pg.pending = None
+    current = state.table_state()
+    if current.sample:
+        st.session_state["table.source"] = "sample"
+        st.session_state["table.sample"] = current.name
+        pg.sample_choice = current.name
+    else:
+        st.session_state["table.source"] = "file"
 
 
 def _sample_picker(pg) -> None:
@@ -63,10 +135,10 @@ def _sample_picker(pg) -> None:
     showing = current is not None and current.sample and current.name == choice
     if pg.sample_choice is None:
         pg.sample_choice = choice
-    elif choice != pg.sample_choice or not showing:
+    elif (choice != pg.sample_choice or not showing) and not _waiting(choice, sample=True):
         pg.sample_choice = choice
         try:
-            loading.put_table(loading.load_sample(choice))
+            offer_table(loading.load_sample(choice))
             pg.load_error = None
         except ScoutError as exc:
             pg.load_error = str(exc)
@@ -88,9 +160,11 @@ def _upload_box(pg) -> None:
             pg.load_error = str(exc)
         else:
             pg.load_error = None
-            loading.put_table(loaded)
+            offer_table(loaded)
     elif upload is None:
         pg.upload_id = None
+        if _waiting(None, sample=False):
+            pg.pending = None  # the file waiting to be opened was taken out of the box
         pg.load_error = None  # the file that could not be read is gone from the box
         current = state.table_state()
         if current is not None and current.sample:
@@ -254,6 +328,7 @@ def _focus_changed(name: str, key: str) -> None:
     pg = state.page()
     table = state.table_state().table
     value = st.session_state[key]
+    before, old_target = state.study(), pg.focus.get("target")
     if name == "columns":
         target = pg.focus.get("target")
         defaults = default_feature_columns(table, target=target)
@@ -264,26 +339,23 @@ def _focus_changed(name: str, key: str) -> None:
         state.set_study(apply_focus(state.study(), table, name, value))
     except StudyError as exc:
         pg.notices.append(f"focus:{exc}")
+        return
+    if name == "target":
+        # Nothing runs yet: the page says which steps follow the target and offers to go back.
+        changed = steps_following_target(before, value)
+        state.note_target_change(before, changed, old=old_target, new=value)
     else:
         pg.run_all = True  # the steps follow the study-wide choice at once
 
 
 def apply_focus(study, table, name: str, value):
     """The study with a study-wide choice given to every step that has the setting."""
+    if name == "target":
+        return with_target(study, value)
     for index, step in enumerate(study.steps):
         params = step.params
         change: dict = {}
-        if name == "target":
-            if step.kind in ("projection", "outliers") and "target" in params:
-                change["target"] = value
-            elif step.kind == "separator" and value is not None:
-                change["target"] = value
-            elif step.kind == "clustering" and "compare" in params:
-                change["compare"] = value
-            chosen = params.get("columns")
-            if value is not None and chosen and value in chosen and "target" in change:
-                change["columns"] = [c for c in chosen if c != value] or None
-        elif name == "columns" and "columns" in params:
+        if name == "columns" and "columns" in params:
             if step.kind == "relations":
                 change["columns"] = None if value is None else (
                     [c for c in value if table.role(c) == "invariant"] or None)

@@ -14,7 +14,7 @@ import pytest
 from plotly.offline import get_plotlyjs
 
 import analysis.figures
-from analysis.report import CAVEAT, report_html, write_report
+from analysis.report import CAVEAT, FOLD_LIMIT, report_html, write_report
 from analysis.study import Study, TableSettings, new_step, run_study, study_from_json
 from analysis.table import load_table, read_table
 
@@ -313,3 +313,78 @@ def test_open_values_follow_the_objects_to_look_at():
     for value in data["open_values"]:
         row = next(r for r in rows if f">{value['row']}<" in r)
         assert html.escape(value["reason"]) in row
+
+
+class _Folds(HTMLParser):
+    """Rows and items in view (outside every <details>), and the summary line of each fold."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.depth = 0
+        self.in_view = 0
+        self.summaries: list[str] = []
+        self._summary: list[str] | None = None
+
+    def handle_starttag(self, tag, attrs):
+        if tag == "details":
+            self.depth += 1
+        elif tag == "summary":
+            self._summary = []
+        elif tag in ("tr", "li") and not self.depth:
+            self.in_view += 1
+
+    def handle_endtag(self, tag):
+        if tag == "details":
+            self.depth -= 1
+        elif tag == "summary" and self._summary is not None:
+            self.summaries.append("".join(self._summary).strip())
+            self._summary = None
+
+    def handle_data(self, data):
+        if self._summary is not None:
+            self._summary.append(data)
+
+
+def _wide_table(width: int, rows: int = 30):
+    """A table of ``width`` integer invariants (seeded random digits), an id and a flag."""
+    import numpy as np
+
+    rng = np.random.default_rng(7)
+    values = rng.integers(0, 10, size=(rows, width))
+    lines = [",".join(["object", *(f"x{j}" for j in range(width)), "big"])]
+    for i in range(rows):
+        lines.append(",".join([f"o{i}", *map(str, values[i]),
+                               "true" if values[i, 0] >= 5 else "false"]))
+    return read_table(("\n".join(lines) + "\n").encode(), "wide.csv")
+
+
+def test_a_study_of_four_thousand_feature_columns_keeps_its_report_readable():
+    width = 4000
+    table = _wide_table(width)
+    study = Study(table="wide.csv", table_digest=table.digest,
+                  steps=(new_step("overview"), new_step("projection", {"target": "big"})))
+    run = run_study(study, table)
+    assert run.ok, [o.error for o in run.outcomes]
+    assert len(run.outcomes[1].result.features) == width  # every invariant but the target
+    page = report_html(run)
+    folds = _Folds()
+    folds.feed(page)
+    # the feature list is one line with its count, every name behind it
+    assert f"{width} features" in folds.summaries, folds.summaries
+    assert "x0, x1, x2" in page and "x3998, x3999" in page
+    # the overview's column table: FOLD_LIMIT rows in view, the rest folded with a count
+    assert any(s.endswith("more rows") for s in folds.summaries), folds.summaries
+    # readable: a few hundred rows and items in view at most, whatever the width
+    # (common practice: a page a reader scrolls through, not thousands of lines)
+    assert folds.in_view <= 300, folds.in_view
+
+
+def test_a_short_feature_list_stays_in_view():
+    table = _wide_table(FOLD_LIMIT)
+    study = Study(table="wide.csv", table_digest=table.digest,
+                  steps=(new_step("projection", {"target": "big"}),))
+    folds = _Folds()
+    page = report_html(run_study(study, table))
+    folds.feed(page)
+    assert not [s for s in folds.summaries if s.endswith("features")], folds.summaries
+    assert ", ".join(f"x{j}" for j in range(FOLD_LIMIT)) in page

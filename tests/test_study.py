@@ -28,9 +28,11 @@ from analysis.study import (
     remove_step,
     run_study,
     save_study,
+    steps_following_target,
     study_from_json,
     study_to_json,
     update_step,
+    with_target,
     without_timing,
 )
 from analysis.table import load_table, read_table
@@ -526,3 +528,38 @@ def test_run_step_passes_progress_to_steps_that_report_it():
     assert any(p.phase == "permutation test" for p in seen)
     quiet = run_step(new_step("overview", {}), table, progress=seen.append)
     assert quiet.ok
+
+
+def _target_plan() -> Study:
+    """Every kind of step, one separator explaining the breakers of a statement."""
+    plan = Study(table="graphs_up_to_7.csv")
+    for kind, params in [("overview", {}), ("projection", {"columns": ["edges", "planar"]}),
+                         ("clustering", {}), ("separator", {"target": "tree"}),
+                         ("relations", {}), ("outliers", {})]:
+        plan = add_step(plan, kind, params)
+    return plan
+
+
+def test_the_steps_that_follow_the_target_are_those_whose_settings_change():
+    plan = _target_plan()
+    # projection, clustering (compared with it), separator, objects to look at
+    assert steps_following_target(plan, "planar") == (1, 2, 3, 5)
+    changed = with_target(plan, "planar")
+    for index, (old, new) in enumerate(zip(plan.steps, changed.steps, strict=True)):
+        assert (old != new) == (index in (1, 2, 3, 5)), index
+    assert changed.steps[1].params["target"] == "planar"
+    assert changed.steps[1].params["columns"] == ["edges"]  # the target is no feature
+    assert changed.steps[2].params["compare"] == "planar"
+    # once given, nothing more follows; and a separator keeps its target when it is cleared
+    assert steps_following_target(changed, "planar") == ()
+    assert steps_following_target(changed, None) == (1, 2, 5)
+    assert with_target(changed, None).steps[3].params["target"] == "planar"
+
+
+def test_a_separator_explaining_a_statement_does_not_follow_the_target():
+    statement = {"kind": "bound", "terms": [{"column": "edges", "coef": "1"}],
+                 "relation": "<=", "constant": "21", "text": "edges <= 21"}
+    plan = add_step(Study(table="graphs_up_to_7.csv"), "separator",
+                    {"target_statement": statement})
+    assert steps_following_target(plan, "planar") == ()
+    assert with_target(plan, "planar") == plan

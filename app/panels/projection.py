@@ -57,6 +57,7 @@ def show(ctx: settings.StepContext, result) -> None:
         shown = sum(result.explained_variance_ratio[:2])
         facts.append(f"the picture shows {shown:.0%} of the variance")
     st.markdown(" · ".join(facts))
+    display.names_list("Features used", result.features)
     clustering = ctx.others.get("clustering")
     outliers = ctx.others.get("outliers")
     extra = tuple(name for name, found in (("cluster", clustering),

@@ -6,6 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
+from analysis.report import FOLD_LIMIT
 from app import display, settings
 from app.figure_view import show_figures
 
@@ -15,7 +16,8 @@ NONE_CHOSEN = "(choose a relation or bound)"
 
 def describe(params: dict) -> str:
     chosen = params.get("columns")
-    where = "every numeric invariant" if not chosen else ", ".join(chosen)
+    where = "every numeric invariant" if not chosen else (
+        ", ".join(chosen) if len(chosen) <= FOLD_LIMIT else f"{len(chosen)} chosen columns")
     return f"exact relations and sharp bounds among {where}"
 
 

@@ -142,6 +142,7 @@ def show(ctx: settings.StepContext, result) -> None:
             st.dataframe(pd.DataFrame([{k: display.cell(v) for k, v in m.items()}
                                        for m in result.mispredicted]),
                          hide_index=True, key=ctx.key("mispredicted"))
+    display.names_list("Columns left out of the features", result.left_out_columns)
     display.notes(result.notes)
 
 

@@ -104,12 +104,36 @@ def open_study_file(at: AppTest, name: str, data: bytes) -> AppTest:
     return at
 
 
-def upload(at: AppTest, name: str, data: bytes, mime: str = "text/csv") -> AppTest:
+def arrive(at: AppTest, name: str, data: bytes, mime: str = "text/csv") -> AppTest:
+    """Put a file in the table upload box (it may then wait to be opened)."""
     if at.radio(key="table.source").value != "file":
         at.radio(key="table.source").set_value("file").run()
     at.file_uploader(key="table.upload").upload(name, data, mime)
     at.run()
     assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def waiting_buttons(at: AppTest) -> list[str]:
+    return [b.key for b in at.button if b.key in ("table.switch", "table.stay")]
+
+
+def upload(at: AppTest, name: str, data: bytes, mime: str = "text/csv") -> AppTest:
+    """Upload a table and open it (saying yes when it waits for the user's word)."""
+    arrive(at, name, data, mime)
+    if "table.switch" in waiting_buttons(at):
+        at.button(key="table.switch").click().run()
+        assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def set_target(at: AppTest, name: str | None) -> AppTest:
+    """Choose the study's target and run the steps that follow it."""
+    at.selectbox(key="focus.target").set_value(name).run()
+    assert not at.exception, [e.value for e in at.exception]
+    if [b for b in at.button if b.key == "target.run" and not b.disabled]:
+        at.button(key="target.run").click().run()
+        assert not at.exception, [e.value for e in at.exception]
     return at
 
 
@@ -227,11 +251,10 @@ def test_the_id_role_moves_to_another_column():
 
 def test_study_wide_target_reaches_every_step():
     at = open_page("quadratic_fields.csv")
-    at.selectbox(key="focus.target").set_value("class_number_one").run()
-    assert not at.exception
+    set_target(at, "class_number_one")
     projection = [s for s in study(at).steps if s.kind == "projection"][0]
     assert projection.params["target"] == "class_number_one"
-    # the page follows at once: the projection ran again, coloured by the new target
+    # once asked, the projection ran again, coloured by the new target
     assert all(r is not None for r in results(at))
     assert results(at)[1].target == "class_number_one"
 
@@ -298,7 +321,7 @@ def test_colour_and_hover_change_the_picture_not_the_numbers():
 
 def test_a_saved_study_opened_in_a_new_session_gives_the_same_numbers():
     first = open_page("quadratic_fields.csv")
-    first.selectbox(key="focus.target").set_value("class_number_one").run()
+    set_target(first, "class_number_one")
     add_step(first, "separator")
     uid = step_ids(first)[-1]
     first.button(key=f"s{uid}.run").click().run()

@@ -134,6 +134,10 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
                 has_text="Your table")
             expect(uploader).to_have_count(1, timeout=60_000)
             uploader.locator("input[type=file]").set_input_files(str(upload))
+            # The study on the page has results: the table waits for the word to open it.
+            opener = page.get_by_role("button", name="Open polygons.csv")
+            expect(opener).to_be_visible(timeout=STEP_TIMEOUT_MS)
+            opener.click()
             expect(page.get_by_text("polygons.csv (uploaded)")).to_be_visible(
                 timeout=STEP_TIMEOUT_MS)
             expect(page.get_by_text("3\u2009000 objects")).to_be_visible()

@@ -1,0 +1,178 @@
+"""A working session on the page: each table keeps its study while other tables are open,
+and a table that arrives over a study with results waits for the user's word.
+
+Driven by streamlit's AppTest with the helpers of test_page.py; the tables are the shipped
+samples and scikit-learn's iris data.
+"""
+
+from __future__ import annotations
+
+from test_page import (
+    add_step,
+    arrive,
+    iris_csv,
+    open_page,
+    results,
+    step_ids,
+    study,
+    table,
+    texts,
+    upload,
+    waiting_buttons,
+)
+
+from analysis.report import FOLD_LIMIT
+
+
+def _choose_sample(at, name: str):
+    if at.radio(key="table.source").value != "sample":
+        at.radio(key="table.source").set_value("sample").run()
+    if at.selectbox(key="table.sample").value != name:
+        at.selectbox(key="table.sample").set_value(name).run()
+    assert not at.exception, [e.value for e in at.exception]
+    return at
+
+
+def test_going_back_to_a_table_brings_back_its_study_and_its_results():
+    at = open_page("quadratic_fields.csv")
+    uid = add_step(at, "outliers")
+    at.button(key=f"s{uid}.run").click().run()
+    kept_study, kept_ids, kept_results = study(at), step_ids(at), results(at)
+    assert all(r is not None for r in kept_results)
+
+    upload(at, "iris.csv", iris_csv())
+    assert table(at).name == "iris.csv" and study(at).table == "iris.csv"
+    iris_study, iris_results = study(at), results(at)
+
+    _choose_sample(at, "quadratic_fields.csv")
+    at.button(key="table.switch").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert table(at).name == "quadratic_fields.csv"
+    assert study(at) == kept_study
+    assert step_ids(at) == kept_ids
+    # the very result objects: nothing was computed again
+    assert all(a is b for a, b in zip(results(at), kept_results, strict=True))
+
+    # and the iris table, uploaded again, finds its own study and results, even when the
+    # page's cache has let them go meanwhile
+    at.session_state["scout.cache"].clear()
+    upload(at, "iris.csv", iris_csv())
+    assert study(at) == iris_study
+    assert all(a is b for a, b in zip(results(at), iris_results, strict=True))
+    assert texts(at.error) == []
+
+
+def test_a_table_arriving_over_results_waits_and_offers_the_study_file_first():
+    at = open_page("quadratic_fields.csv")
+    before = study(at)
+    arrive(at, "iris.csv", iris_csv())
+    assert study(at) is before
+    assert table(at).name == "quadratic_fields.csv"
+    assert waiting_buttons(at) == ["table.switch", "table.stay"]
+    words = " ".join(texts(at.caption) + texts(at.markdown))
+    assert "iris.csv" in words and "stays kept for quadratic_fields.csv" in words, words
+    labels = [b.proto.label for b in at.get("download_button")]
+    assert "Download the current study first" in labels, labels
+
+    at.button(key="table.stay").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert waiting_buttons(at) == []
+    assert study(at) is before
+    assert table(at).name == "quadratic_fields.csv"
+
+
+def test_staying_puts_the_sample_picker_back_on_the_table_shown():
+    at = open_page("quadratic_fields.csv")
+    _choose_sample(at, "elliptic_curves.csv")
+    assert table(at).name == "quadratic_fields.csv"
+    assert "table.stay" in waiting_buttons(at)
+    at.button(key="table.stay").click().run()
+    assert at.selectbox(key="table.sample").value == "quadratic_fields.csv"
+    assert table(at).name == "quadratic_fields.csv"
+    assert waiting_buttons(at) == []
+
+
+def test_a_table_arriving_before_any_result_opens_at_once():
+    at = open_page("quadratic_fields.csv")
+    for uid in step_ids(at):
+        at.button(key=f"s{uid}.remove").click().run()
+    assert study(at).steps == ()
+    arrive(at, "iris.csv", iris_csv())
+    assert waiting_buttons(at) == []
+    assert table(at).name == "iris.csv"
+    assert all(r is not None for r in results(at))
+
+
+def test_a_change_of_target_lists_the_steps_that_follow_it_and_can_be_undone():
+    from analysis.study import steps_following_target
+
+    at = open_page("quadratic_fields.csv")
+    before, before_results = study(at), results(at)
+    at.selectbox(key="focus.target").set_value("class_number_one").run()
+    assert not at.exception, [e.value for e in at.exception]
+    following = steps_following_target(before, "class_number_one")
+    assert following, "the opening study has a projection, which follows the target"
+    words = " ".join(texts(at.markdown))
+    assert "Nothing has run yet" in words, words
+    for index in following:
+        assert f"{index + 1}. {before.steps[index].display_title}" in words, words
+    # nothing ran: the steps that follow the target wait, the others keep their results
+    for index, (now, then) in enumerate(zip(results(at), before_results, strict=True)):
+        assert (now is None) if index in following else (now is then), index
+
+    at.button(key="target.undo").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert study(at) == before
+    assert at.selectbox(key="focus.target").value is None
+    assert all(a is b for a, b in zip(results(at), before_results, strict=True))
+    assert not [b for b in at.button if b.key == "target.undo"]
+
+    at.selectbox(key="focus.target").set_value("class_number_one").run()
+    at.button(key="target.run").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert all(r is not None for r in results(at))
+    assert results(at)[following[0]].target == "class_number_one"
+
+
+def test_a_change_of_one_steps_target_is_listed_in_that_step_and_can_be_undone():
+    at = open_page("quadratic_fields.csv")
+    uid = add_step(at, "separator")
+    at.button(key=f"s{uid}.run").click().run()
+    before, before_results = study(at), results(at)
+    old = before.steps[-1].params["target"]
+    at.selectbox(key=f"s{uid}.target").set_value("class_number_one").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert study(at).steps[-1].params["target"] == "class_number_one"
+    words = " ".join(texts(at.markdown))
+    assert "This step's target is now **class_number_one**" in words, words
+    assert f"{len(before.steps)}. Separator" in words, words
+    assert results(at)[-1] is None  # waits for its run action
+    at.button(key="target.undo").click().run()
+    assert study(at) == before
+    assert study(at).steps[-1].params["target"] == old
+    assert results(at)[-1] is before_results[-1]
+
+
+def _wide_csv(width: int, rows: int = 30) -> bytes:
+    """A table of ``width`` integer invariants (seeded random digits) and an id."""
+    import numpy as np
+
+    values = np.random.default_rng(3).integers(0, 10, size=(rows, width))
+    lines = [",".join(["object", *(f"x{j}" for j in range(width))])]
+    lines += [",".join([f"o{i}", *map(str, values[i])]) for i in range(rows)]
+    return ("\n".join(lines) + "\n").encode()
+
+
+def test_a_long_feature_list_is_folded_on_the_page_and_a_short_one_is_not():
+    width = 3 * FOLD_LIMIT
+    at = open_page("quadratic_fields.csv")
+    upload(at, "wide.csv", _wide_csv(width))
+    assert table(at).name == "wide.csv"
+    assert all(r is not None for r in results(at))
+    labels = [e.label for e in at.expander]
+    assert f"Features used ({width})" in labels, labels
+    assert not [m for m in texts(at.markdown) if m.startswith("Features used:")]
+
+    upload(at, "narrow.csv", _wide_csv(FOLD_LIMIT))
+    assert not [e.label for e in at.expander if e.label.startswith("Features used")]
+    assert any(m.startswith("Features used: `x0`") for m in texts(at.markdown))
