@@ -1080,15 +1080,62 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
     return _marked_values(series, numbers, intervals, word_cells, words, column, limits)
 
 
+def marked_dtype(*, has_float: bool, has_fraction: bool) -> str:
+    """The dtype of a marked column from the kinds among its plain numbers and interval ends
+    (as :func:`read_marked_cell` types them): real with any float, else rational with any
+    fraction, else integer.
+
+    >>> marked_dtype(has_float=False, has_fraction=True)
+    'rational'
+    """
+    if has_float:
+        return "real"
+    return "rational" if has_fraction else "integer"
+
+
+def marked_note(note: str, intervals: int, words: dict[str, int]) -> str:
+    """A marked column's note: ``note`` (from its numbers), then its intervals and its words
+    with their counts, most frequent first.
+
+    >>> marked_note("has missing cells", 2, {"infty": 3})
+    "has missing cells; 2 intervals; words read as missing: 'infty' (3)"
+    """
+    shown = [f"{intervals} interval{'s' if intervals != 1 else ''}"] if intervals else []
+    if words:
+        shown.append("words read as missing: " + ", ".join(
+            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
+    return "; ".join(([note] if note else []) + shown)
+
+
+def marker_counts(words: dict[str, int]) -> dict[str, int]:
+    """``ColumnInfo.markers`` from word counts: each word and its count, most frequent first."""
+    return dict(sorted(words.items(), key=lambda kv: (-kv[1], kv[0])))
+
+
+def incomplete_integer_dtype(low: int, high: int) -> tuple[str, str]:
+    """(dtype, note) of a column of integers from ``low`` to ``high`` with missing cells.
+
+    float64 holds integers exactly only up to 2**53, so past that the column keeps exact
+    Python integers ("big integer"), as it does past 64 bits.
+
+    >>> incomplete_integer_dtype(0, 9)
+    ('integer', 'has missing cells')
+    >>> incomplete_integer_dtype(0, 2**60)
+    ('big integer', 'kept exact: beyond 2**53 with missing cells')
+    """
+    if high > _INT64_MAX or low < -_INT64_MAX - 1:
+        return "big integer", ""
+    if max(abs(low), abs(high)) > _FLOAT_EXACT:
+        return "big integer", "kept exact: beyond 2**53 with missing cells"
+    return "integer", "has missing cells"
+
+
 def _marked_values(series, numbers, intervals, word_cells, words, column, limits):
     ends = [v for _, pair in intervals for v in pair]
     every = [v for _, v in numbers] + ends
-    if any(isinstance(v, float) for v in every):
-        dtype, convert = "real", float
-    elif any(isinstance(v, Fraction) for v in every):
-        dtype, convert = "rational", Fraction
-    else:
-        dtype, convert = "integer", int
+    dtype = marked_dtype(has_float=any(isinstance(v, float) for v in every),
+                         has_fraction=any(isinstance(v, Fraction) for v in every))
+    convert = {"real": float, "rational": Fraction, "integer": int}[dtype]
     note = ""
     if dtype == "real":
         floats = np.full(len(series), np.nan)
@@ -1109,13 +1156,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
                    low=tuple(convert(a) for _, (a, _) in intervals),
                    high=tuple(convert(b) for _, (_, b) in intervals),
                    texts=tuple(texts))
-    shown = [f"{len(intervals)} interval{'s' if len(intervals) != 1 else ''}"] \
-        if intervals else []
-    if words:
-        shown.append("words read as missing: " + ", ".join(
-            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
-    note = "; ".join(([note] if note else []) + shown)
-    return values, dtype, note, marks
+    return values, dtype, marked_note(note, len(intervals), words), marks
 
 
 def _marker_counts(marks: _Marks | None) -> dict[str, int]:
@@ -1127,7 +1168,7 @@ def _marker_counts(marks: _Marks | None) -> dict[str, int]:
     for position, text in marks.texts:
         if position not in intervals:
             counts[text] = counts.get(text, 0) + 1
-    return dict(sorted(counts.items(), key=lambda kv: (-kv[1], kv[0])))
+    return marker_counts(counts)
 
 
 # ----------------------------------------------------------------------------------------
@@ -1559,17 +1600,16 @@ def _integers(series: pd.Series, present: list, name: str, column: str, flags: b
     complete = len(present) == len(series)
     if flags and {v for _, v in present} == {0, 1}:
         return _booleans(series, present), "boolean", "0/1 read as false/true"
-    largest = max(abs(v) for _, v in present)
-    beyond_64_bits = largest > _INT64_MAX and any(
-        v > _INT64_MAX or v < -_INT64_MAX - 1 for _, v in present)
-    # float64 holds integers exactly only up to 2**53, so a column with missing cells (which
-    # would otherwise become float64) keeps Python integers once its values pass that.
-    if beyond_64_bits or (not complete and largest > _FLOAT_EXACT):
-        note = "" if beyond_64_bits else "kept exact: beyond 2**53 with missing cells"
-        return _rebuild(series, present, lambda v: v, object), "big integer", note
+    low, high = min(v for _, v in present), max(v for _, v in present)
     if complete:
+        if high > _INT64_MAX or low < -_INT64_MAX - 1:
+            return _rebuild(series, present, lambda v: v, object), "big integer", ""
         values = np.array([v for _, v in present], dtype=np.int64)
         return pd.Series(values, index=series.index), "integer", ""
+    # a column with missing cells would become float64: see incomplete_integer_dtype
+    dtype, note = incomplete_integer_dtype(low, high)
+    if dtype == "big integer":
+        return _rebuild(series, present, lambda v: v, object), dtype, note
     floats = np.full(len(series), np.nan)
     for i, v in present:
         floats[i] = float(v)

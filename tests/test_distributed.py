@@ -113,18 +113,108 @@ def test_csv_is_read_in_blocks_with_the_same_types(client, mixed, tmp_path):
     assert table.columns == load_table(path).columns
 
 
-def test_csv_column_with_numbers_then_text_is_text(client, tmp_path):
+def test_csv_column_with_numbers_then_a_word_is_marked_numbers(client, tmp_path):
     path = tmp_path / "late_text.csv"
     values = [str(i) for i in range(3000)] + ["seven"]
     pd.DataFrame({"code": values, "n": range(len(values))}).to_csv(path, index=False)
     table = read_partitioned(path, client, blocksize=4_000)
     assert table.npartitions > 2
-    # In memory, numbers with one word among them are marked numbers: an integer invariant
-    # with the marker word counted. The partitioned reader does not read marked numbers yet
-    # and keeps such a column as text (an open difference between the engines).
-    in_memory = load_table(path).column("code")
-    assert (in_memory.dtype, in_memory.markers) == ("integer", {"seven": 1})
-    assert table.column("code").dtype == "text"
+    # numbers with one word among them, the word only in the last block: marked numbers on
+    # both engines, an integer invariant with the word counted as missing
+    assert table.columns == load_table(path).columns
+    assert (table.column("code").dtype, table.column("code").markers) == \
+        ("integer", {"seven": 1})
+
+
+@pytest.fixture(scope="module")
+def atlas(tmp_path_factory):
+    """networkx's graph atlas (1 to 7 vertices) written as a downloaded database writes it.
+
+    girth is "infty" for a forest and diameter "D.N.E." for a disconnected graph; the
+    chromatic number is exact for graphs with at most two colours and otherwise the interval
+    [3, max degree + 1] (an odd cycle needs 3 colours; a greedy colouring uses at most
+    max degree + 1: both common practice), a single number when the two ends meet.
+    """
+    nx = pytest.importorskip("networkx")
+    rows = []
+    for k, graph in enumerate(nx.graph_atlas_g()[1:], start=1):
+        degrees = [d for _, d in graph.degree()]
+        top = max(degrees)
+        if nx.is_bipartite(graph):
+            chromatic = str(1 if graph.number_of_edges() == 0 else 2)
+        else:
+            chromatic = "3" if top + 1 == 3 else f"[3,{top + 1}]"
+        girth = nx.girth(graph)
+        rows.append({
+            "graph": f"G{k:04d}", "vertices": graph.number_of_nodes(),
+            "edges": graph.number_of_edges(), "degree_sum": sum(degrees),
+            "girth": "infty" if girth == float("inf") else str(girth),
+            "diameter": str(nx.diameter(graph)) if nx.is_connected(graph) else "D.N.E.",
+            "chromatic": chromatic, "bipartite": nx.is_bipartite(graph),
+        })
+    frame = pd.DataFrame(rows)
+    folder, whole = write_parts(frame, tmp_path_factory.mktemp("atlas") / "atlas")
+    return folder, whole, frame
+
+
+def test_marked_numbers_read_as_in_memory(client, atlas, tmp_path):
+    folder, whole, frame = atlas
+    in_memory = load_table(whole)
+    path = tmp_path / "atlas.csv"
+    frame.to_csv(path, index=False)
+    for table in (read_partitioned(folder, client),
+                  read_partitioned(path, client, blocksize=6_000)):
+        assert table.npartitions > 2
+        assert table.columns == in_memory.columns
+    girth, diameter = table.column("girth"), table.column("diameter")
+    chromatic = table.column("chromatic")
+    assert (girth.dtype, girth.role, diameter.dtype, chromatic.dtype) == \
+        ("integer", "invariant", "integer", "integer")
+    # counted independently from the frame written from networkx's atlas
+    assert girth.markers == {"infty": int((frame.girth == "infty").sum())}
+    assert diameter.markers == {"D.N.E.": int((frame.diameter == "D.N.E.").sum())}
+    assert chromatic.intervals == int(frame.chromatic.str.startswith("[").sum()) > 0
+    assert chromatic.missing == chromatic.intervals
+    overview = run_distributed(OverviewStep(), folder, client=client)
+    expected = OverviewStep().run(in_memory)
+    assert [c.to_json() for c in overview.columns if c.name in ("girth", "chromatic")] == \
+        [c.to_json() for c in expected.columns if c.name in ("girth", "chromatic")]
+
+
+def test_a_reversed_interval_is_named(client, tmp_path):
+    frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
+    folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)
+    with pytest.raises(TableError, match=r"row 3, column 'v': the interval '\[5,3\]' has its "
+                                         "low end 5 above its high end 3"):
+        read_partitioned(folder, client)
+    with pytest.raises(TableError, match="row 3.*low end 5 above its high end 3"):
+        load_table(whole)
+
+
+def test_steps_drop_the_missing_cells_of_marked_numbers(client, atlas, monkeypatch):
+    import analysis.distributed.relations as engine
+
+    folder, whole, frame = atlas
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 400)
+    step = RelationsStep(columns=["vertices", "edges", "degree_sum", "girth"])
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert result.n_rows == expected.n_rows == len(frame)
+    assert [r.to_json() for r in result.relations] == [r.to_json() for r in expected.relations]
+    # girth is searched on the graphs with a cycle only: a forest's "infty" is a missing cell
+    searched = [n for n in result.notes if "searched on the rows where they are present" in n]
+    assert searched and searched == [n for n in expected.notes if n in searched]
+    exact_bounds = [b.to_json() for b in result.bounds if not b.violations]
+    assert exact_bounds == [b.to_json() for b in expected.bounds if not b.violations]
+    assert any("girth" in b["text"] for b in exact_bounds)
+    # the handshake lemma: the degrees add up to twice the number of edges (Euler, 1736)
+    assert "2*edges - degree_sum = 0" in {r.text for r in result.relations}
+    separator = SeparatorStep(target="bipartite", columns=["edges", "diameter"],
+                              permutations=10, repeats=2)
+    found = run_distributed(separator, folder, client=client)
+    wanted = separator.run(load_table(whole))
+    connected = int((frame.diameter != "D.N.E.").sum())
+    assert found.equation.n_rows == wanted.equation.n_rows == connected
 
 
 def _absent(folder: Path) -> Path:

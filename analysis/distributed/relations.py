@@ -179,12 +179,27 @@ def _projection(values: np.ndarray, generators: list) -> np.ndarray:
     return augmented.astype(object).dot(matrix.T)
 
 
+def _present_rows(missing: np.ndarray, vector: list[int]) -> np.ndarray:
+    """Rows where every column of a relation (its nonzero coefficients) has a value: a
+    relation counts only those, as in memory."""
+    support = [j for j, c in enumerate(vector[:-1]) if c]
+    return ~missing[:, support].any(axis=1) if support else np.ones(len(missing), dtype=bool)
+
+
+def _masked_projection(values: np.ndarray, missing: np.ndarray, vectors: list) -> np.ndarray:
+    """Rows times relations, zero where one of a relation's columns is missing."""
+    projected = _projection(values, vectors)
+    for j, vector in enumerate(vectors):
+        projected[~_present_rows(missing, vector), j] = 0
+    return projected
+
+
 def _pass_a(frame, offset: int, spec: _Spec) -> dict:
     values, missing = _exact_matrix(frame, spec.exact)
     used = ~missing.any(axis=1)
     positions = np.arange(offset, offset + len(frame), dtype=np.int64)
     out: dict = {"used": int(used.sum()), "breakers": {}}
-    projected = _projection(values[used], spec.generators)
+    projected = _masked_projection(values, missing, spec.generators)
     if projected.shape[1]:
         broken = (projected != 0).any(axis=1)
         rows = np.flatnonzero(broken)
@@ -192,10 +207,8 @@ def _pass_a(frame, offset: int, spec: _Spec) -> dict:
             distinct, first = np.unique(projected[rows].astype(object) if projected.dtype ==
                                         object else projected[rows], axis=0, return_index=True)
             chosen = _independent([list(map(int, v)) for v in distinct])
-            used_positions = positions[used]
             for i in chosen:
-                out["breakers"][int(used_positions[rows[first[i]]])] = \
-                    [int(x) for x in distinct[i]]
+                out["breakers"][int(positions[rows[first[i]]])] = [int(x) for x in distinct[i]]
     index = {n: j for j, n in enumerate(spec.exact)}
     columns = {n: np.ascontiguousarray(values[:, index[n]]) for n in set(spec.pairs)}
     absent = {n: missing[:, index[n]] for n in set(spec.pairs)}
@@ -456,13 +469,12 @@ def _pass_b(frame, offset: int, spec: _Spec, id_column):
     values, missing = _exact_matrix(frame, spec.exact)
     ids = frame[id_column].to_numpy() if id_column else \
         np.arange(offset, offset + len(frame), dtype=np.int64)
-    used = ~missing.any(axis=1)
     out = {"relations": [], "bounds": [], "approximate": []}
-    projected = _projection(values[used], spec.relations)
-    used_ids = ids[used]
-    for j in range(len(spec.relations)):
+    projected = _masked_projection(values, missing, spec.relations)
+    for j, vector in enumerate(spec.relations):
         bad = np.flatnonzero(np.asarray(projected[:, j] != 0, dtype=bool))
-        out["relations"].append((len(bad), used_ids[bad[: spec.cap]]))
+        present = int(_present_rows(missing, vector).sum())
+        out["relations"].append((len(bad), ids[bad[: spec.cap]], present))
     index = {n: i for i, n in enumerate(spec.exact)}
     for coefs, columns, limit, near_limit in spec.bounds:
         cols = [index[c] for c in columns]
@@ -511,8 +523,8 @@ def _combine(values: np.ndarray, coefs: list[int]) -> np.ndarray:
 
 def _merge_b(a: dict, b: dict, cap: int, listed: int) -> dict:
     out = {"relations": [], "bounds": [], "approximate": []}
-    for (ca, ia), (cb, ib) in zip(a["relations"], b["relations"]):
-        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap]))
+    for (ca, ia, pa), (cb, ib, pb) in zip(a["relations"], b["relations"]):
+        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap], pa + pb))
     for x, y in zip(a["bounds"], b["bounds"]):
         out["bounds"].append({
             "present": x["present"] + y["present"], "attained": x["attained"] + y["attained"],
@@ -574,13 +586,13 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     notes = list(second.notes)
     checked = len([v for v in every_vectors if v is not None])
     every_counts = counts["relations"][:checked]
-    broken = [r.text for r, (count, _) in zip(every, every_counts) if count]
+    broken = [r.text for r, (count, _, _) in zip(every, every_counts) if count]
     if broken:
         # cannot happen when the breaking rows were gathered; say so rather than hide it
         notes.append("relations of the rows searched that other rows break, left out: "
                      + "; ".join(broken))
-    settled_every = [dataclasses.replace(r, holds_on=used)
-                     for r, (count, _) in zip(every, every_counts) if not count]
+    settled_every = [dataclasses.replace(r, holds_on=present)
+                     for r, (count, _, present) in zip(every, every_counts) if not count]
     tracker = rel.RankTracker()
     for v in every_vectors:
         if v is not None:
@@ -589,11 +601,11 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
                     key=lambda item: (item[1][0], len(item[0][0].terms),
                                       sum(x * x for x in item[0][1])))
     robust = []
-    for (relation, vector), (count, ids) in ranked:
+    for (relation, vector), (count, ids, present) in ranked:
         if not 0 < count <= allowed or not tracker.add(vector):
             continue
         robust.append(dataclasses.replace(
-            relation, holds_on=used - count, violations=tuple(ids.tolist()),
+            relation, holds_on=present - count, violations=tuple(ids.tolist()),
             note=_robust_note(relation, count)))
     ordered = ([r for r in settled_every if not r.trivial] + [r for r in robust if not r.trivial]
                + [r for r in settled_every if r.trivial] + [r for r in robust if r.trivial])

@@ -17,6 +17,7 @@ import csv
 import functools
 import hashlib
 from dataclasses import dataclass, field, replace
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
@@ -25,13 +26,20 @@ import pandas as pd
 from analysis.errors import StepError, TableError
 from analysis.table import (
     INTEGER_TEXT,
+    MARKER_RULE,
     ColumnInfo,
     Table,
     column_warnings,
     detect_role,
+    incomplete_integer_dtype,
     is_missing,
     is_true_word,
+    marked_dtype,
+    marked_note,
+    marker_counts,
+    read_marked_cell,
     reads_as_boolean,
+    reads_as_marked_numbers,
 )
 
 # Distinct values kept per column while merging facts; past this a column's distinct count is
@@ -331,6 +339,7 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
         facts["kind"] = "text"
         facts["words"] = None
         facts.update(_text_counts(text, ~missing_mask))
+        facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
         return facts
     if not from_text and kind in "biuf":
         facts.update(_number_facts(series[~missing_mask] if kind == "f" else series))
@@ -364,6 +373,7 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
     lowered = set(text.str.strip().str.lower().unique().tolist())
     facts["words"] = lowered if len(lowered) <= 2 else None
     facts.update(_text_counts(text, ~missing_mask))
+    facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
     return facts
 
 
@@ -471,6 +481,7 @@ def _merge_facts(a: dict, b: dict) -> dict:
                 else:
                     counts[key] = (count, first + a["n"])
             out["counts"] = counts if len(counts) <= DISTINCT_CAP else None
+        out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
         return out
     out["count"] = a["count"] + b["count"]
     out["inf"] = a["inf"] or b["inf"]
@@ -509,7 +520,8 @@ def _like(empty: dict, other: dict) -> dict:
     if kind == "list":
         out["shapes"] = {}
     elif kind == "text":
-        out.update(words=set(), counts={}, first_values=[], first_positions=[])
+        out.update(words=set(), counts={}, first_values=[], first_positions=[],
+                   marked=marked_facts([], []))
     else:
         values = other["values"]
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
@@ -527,8 +539,10 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
     if not over:
         return
     csv_columns = {c for c, how in conversions if how == "csv"}
+    # marked numbers count their plain numbers, typed as they will be
+    marked = {c: _marked_type(facts[c]["marked"]) for c in over if _reads_marked(facts[c])}
     buckets = max(1, min(32, frame.npartitions))
-    pieces = [delayed(_bucketed_uniques)(part, over, csv_columns, buckets)
+    pieces = [delayed(_bucketed_uniques)(part, over, csv_columns, buckets, marked)
               for part in frame[over].to_delayed()]
     totals = []
     for column in over:
@@ -542,11 +556,16 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
         k += buckets
 
 
-def _bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int) -> dict:
+def _bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int,
+                      marked: dict) -> dict:
     out = {}
     for column in columns:
         series = frame[column].dropna()
-        if column in csv_columns:
+        if column in marked:
+            series = _marked_values(series, marked[column]).dropna()
+            if marked[column] not in ("integer", "real"):
+                series = series.map(str)   # exact values hash alike by their text
+        elif column in csv_columns:
             numbers = pd.to_numeric(series, errors="coerce")
             if not numbers.isna().any():
                 series = numbers
@@ -582,6 +601,158 @@ def _tree(items: list, combine, *, final=None, split_every: int = 8):
 
 
 # ----------------------------------------------------------------------------------------
+# Marked numbers: numbers with intervals and marker words, read by analysis.table's rule
+
+
+def marked_facts(values: list, positions) -> dict | None:
+    """What a run of filled cells says about reading its column as marked numbers.
+
+    ``values`` are the cells, ``positions`` their 0-based rows in the run. None when a cell
+    rules the reading out (a cell that is no number, interval or word, or more different words
+    than :data:`analysis.table.MARKER_RULE` allows); cells are typed by
+    :func:`analysis.table.read_marked_cell`, as in memory.
+    """
+    out = {"numbers": 0, "intervals": 0, "words": {}, "distinct": set(), "float": False,
+           "fraction": False, "inf": False, "minimum": None, "maximum": None, "total": 0.0,
+           "invalid": None, "backwards": None}
+    for position, value in zip(positions, values):
+        kind, parsed = read_marked_cell(value)
+        if kind == "number":
+            _add_number(out, parsed)
+        elif kind == "interval":
+            out["intervals"] += 1
+            low, high = parsed
+            out["float"] |= isinstance(low, float) or isinstance(high, float)
+            out["fraction"] |= isinstance(low, Fraction) or isinstance(high, Fraction)
+            if out["backwards"] is None and Fraction(low) > Fraction(high):
+                out["backwards"] = (int(position), str(value).strip(), low, high)
+        elif kind == "word":
+            out["words"][parsed] = out["words"].get(parsed, 0) + 1
+            if len(out["words"]) > MARKER_RULE.max_words:
+                return None
+        elif kind == "invalid":
+            out["invalid"] = out["invalid"] or (int(position), parsed)
+        elif kind != "missing":
+            return None
+    return out
+
+
+def _add_number(out: dict, value) -> None:
+    out["numbers"] += 1
+    out["float"] |= isinstance(value, float)
+    out["fraction"] |= isinstance(value, Fraction)
+    out["inf"] |= isinstance(value, float) and np.isinf(value)
+    out["minimum"] = value if out["minimum"] is None else min(out["minimum"], value)
+    out["maximum"] = value if out["maximum"] is None else max(out["maximum"], value)
+    out["total"] += float(value)
+    if out["distinct"] is not None:
+        out["distinct"].add(value)
+        if len(out["distinct"]) > DISTINCT_CAP:
+            out["distinct"] = None
+
+
+def merge_marked(a: dict | None, b: dict | None, offset: int) -> dict | None:
+    """The marked facts of two consecutive runs (``b`` starts at row ``offset`` of ``a``)."""
+    if a is None or b is None:
+        return None
+    words = dict(a["words"])
+    for word, count in b["words"].items():
+        words[word] = words.get(word, 0) + count
+    if len(words) > MARKER_RULE.max_words:
+        return None
+    distinct = None if a["distinct"] is None or b["distinct"] is None \
+        else a["distinct"] | b["distinct"]
+    ends = [v for v in (a["minimum"], b["minimum"]) if v is not None]
+    tops = [v for v in (a["maximum"], b["maximum"]) if v is not None]
+    later = {key: None if b[key] is None else (b[key][0] + offset, *b[key][1:])
+             for key in ("invalid", "backwards")}
+    return {"numbers": a["numbers"] + b["numbers"], "intervals": a["intervals"] + b["intervals"],
+            "words": words,
+            "distinct": distinct if distinct is None or len(distinct) <= DISTINCT_CAP else None,
+            "float": a["float"] or b["float"], "fraction": a["fraction"] or b["fraction"],
+            "inf": a["inf"] or b["inf"], "minimum": min(ends) if ends else None,
+            "maximum": max(tops) if tops else None, "total": a["total"] + b["total"],
+            "invalid": a["invalid"] or later["invalid"],
+            "backwards": a["backwards"] or later["backwards"]}
+
+
+def _reads_marked(f: dict) -> bool:
+    """Whether a column's merged facts read as marked numbers (analysis.table's rule)."""
+    m = f.get("marked") if f.get("kind") == "text" else None
+    if m is None:
+        return False
+    if f.get("words") and reads_as_boolean(f["words"]):
+        return False   # true/false words come first, as in memory
+    distinct = DISTINCT_CAP if m["distinct"] is None else len(m["distinct"])
+    # a cell that fails to parse counts as a mark, so that its column is read (and refused)
+    return reads_as_marked_numbers(numbers=m["numbers"],
+                                   intervals=m["intervals"] + (m["invalid"] is not None),
+                                   words=m["words"], distinct_numbers=distinct)
+
+
+def _marked_type(m: dict) -> str:
+    dtype = marked_dtype(has_float=m["float"], has_fraction=m["fraction"])
+    if dtype == "integer" and m["numbers"]:
+        dtype = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[0]
+    return dtype
+
+
+def _as_marked(name: str, column: str, f: dict) -> tuple[dict, ColumnInfo]:
+    """Number facts (for the overview and ranges) and the column's description, for a column
+    whose merged facts read as marked numbers; a bad interval or cell is a TableError."""
+    m = f["marked"]
+    if m["invalid"] is not None:
+        row, reason = m["invalid"]
+        raise TableError(f"{name}, row {row + 1}, column {column!r}: {reason}. Fix the cell "
+                         "or mark the column as text.")
+    if m["backwards"] is not None:
+        row, text, low, high = m["backwards"]
+        raise TableError(f"{name}, row {row + 1}, column {column!r}: the interval {text!r} "
+                         f"has its low end {low} above its high end {high}. Write intervals "
+                         "as [low, high] with low <= high.")
+    dtype = _marked_type(m)
+    note = ""
+    if dtype == "real":
+        note = "has infinite values" if m["inf"] else ""
+    elif dtype in ("integer", "big integer") and m["numbers"]:
+        note = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[1]
+    distinct = f.get("distinct")
+    values = m["distinct"]
+    if values is not None:
+        convert = {"real": float, "rational": Fraction}.get(dtype, int)
+        values = sorted({convert(v) for v in values})
+        distinct = len(values)
+    word_cells = sum(m["words"].values())
+    missing = f["missing"] + m["intervals"] + word_cells
+    wide = dtype in ("real", "integer")
+    number_facts = {
+        "n": f["n"], "missing": missing, "kind": "float" if wide else "bigint",
+        "count": m["numbers"], "inf": m["inf"], "integral": dtype != "real", "big": False,
+        "total": m["total"], "minimum": m["minimum"], "maximum": m["maximum"],
+        "values": None if values is None else np.array(
+            values, dtype=np.float64 if wide else object),
+        "distinct": distinct, "marked": m}
+    info = ColumnInfo(column, "invariant", dtype, missing, distinct, "invariant",
+                      marked_note(note, m["intervals"], m["words"]), m["intervals"],
+                      marker_counts(m["words"]))
+    return number_facts, info
+
+
+def _marked_values(series: pd.Series, dtype: str) -> pd.Series:
+    """A raw marked column typed as in memory: plain numbers kept, other cells missing."""
+    numbers = []
+    for value in series.tolist():
+        kind, parsed = read_marked_cell(value)
+        numbers.append(parsed if kind == "number" else None)
+    if dtype in ("integer", "real"):
+        return pd.Series([np.nan if v is None else float(v) for v in numbers],
+                         dtype=np.float64, index=series.index)
+    convert = Fraction if dtype == "rational" else int
+    return pd.Series([None if v is None else convert(v) for v in numbers], dtype=object,
+                     index=series.index)
+
+
+# ----------------------------------------------------------------------------------------
 # Typing: the same dtypes and roles as analysis.table gives the same data in memory
 
 
@@ -593,16 +764,22 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
     id_taken = False
     for column in header:
         f = facts[column]
-        dtype, note, convert = _dtype_of(f, fmt)
+        marked = None
+        if _reads_marked(f):
+            facts[column], marked = _as_marked(name, column, f)
+            dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
+            missing, distinct = marked.missing, marked.distinct
+        else:
+            dtype, note, convert = _dtype_of(f, fmt)
+            missing, distinct = f["missing"], _distinct_of(f, dtype)
         if convert:
             how.append((column, convert))
-        missing = f["missing"]
-        distinct = _distinct_of(f, dtype)
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
         warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
-        infos.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
+        info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
+        infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
     return infos, how
 
 
@@ -670,13 +847,17 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
 
     ``conversions`` pairs a column with how to convert it: "number" (text to numbers),
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
-    "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first.
+    "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
+    "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
         if column not in frame.columns:
             continue
         series = frame[column]
+        if how.startswith("marked:"):
+            frame[column] = _marked_values(series, how.split(":", 1)[1])
+            continue
         if how.startswith("csv+"):
             how = how[4:]
             if how in ("float", "int64", "bool"):
@@ -733,7 +914,8 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
                 raise StepError(f"{table.name}: column {info.name!r}: turning arrays into text "
                                 "is not done on the dask engine; use --engine local.")
             if info.dtype not in ("text",):
-                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})")
+                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})",
+                              intervals=0, markers={})
                 how[info.name] = "text"
         elif role == "invariant":
             if info.dtype == "boolean":
