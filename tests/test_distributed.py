@@ -405,6 +405,73 @@ def test_relations_and_breakers_equal_in_memory(client, planted, monkeypatch):
     assert result.n_rows == 2400
 
 
+def test_congruences_equal_in_memory_and_follow_picks_theorem(client, tmp_path, monkeypatch):
+    import math
+
+    import analysis.distributed.relations as engine
+
+    # Lattice triangles: by Pick's theorem (Pick, 1899) A = I + B/2 - 1, so twice the area
+    # 2A = 2I + B - 2 has the parity of the boundary point count B. B is counted as the sum of
+    # gcd(|dx|, |dy|) over the edges (common practice), 2A as the absolute cross product.
+    rng = np.random.default_rng(3)
+    rows = []
+    while len(rows) < 1200:
+        (x0, y0), (x1, y1), (x2, y2) = rng.integers(-7, 8, size=(3, 2)).tolist()
+        twice_area = abs((x1 - x0) * (y2 - y0) - (x2 - x0) * (y1 - y0))
+        if twice_area == 0:
+            continue
+        boundary = sum(math.gcd(abs(a - c), abs(b - d)) for (a, b), (c, d) in
+                       [((x0, y0), (x1, y1)), ((x1, y1), (x2, y2)), ((x2, y2), (x0, y0))])
+        rows.append({"twice_area": twice_area, "boundary": boundary,
+                     "width": max(x0, x1, x2) - min(x0, x1, x2)})
+    frame = pd.DataFrame(rows)
+    breakers = [250, 1111]
+    frame.loc[breakers, "boundary"] += 1   # two rows written wrong, breaking the parity
+    folder, whole = write_parts(frame, tmp_path / "pick")
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 400)
+    step = RelationsStep(columns=["twice_area", "boundary", "width"])
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert [c.to_json() for c in result.congruences] == \
+        [c.to_json() for c in expected.congruences]
+    found = {c.text: c for c in result.congruences}
+    parity = found["twice_area + boundary ≡ 0 (mod 2)"]
+    assert (parity.violations, parity.violation_count, parity.holds_on) == \
+        (tuple(breakers), 2, 1200)
+    assert any("congruences proposed on a uniform random sample of 400 rows" in note
+               for note in result.notes)
+
+
+def test_congruences_keep_the_strongest_modulus_and_missing_cells_as_in_memory(
+        client, tmp_path, monkeypatch):
+    import analysis.distributed.relations as engine
+
+    rng = np.random.default_rng(8)
+    n = rng.integers(-60, 61, 1500)
+    odd = 2 * rng.integers(0, 40, 1500) + 1
+    frame = pd.DataFrame({"n": n, "square": n**2, "cube": n**3, "odd_square": odd**2})
+    frame.loc[[77, 1400], "cube"] += 1          # two rows written wrong
+    frame["odd_square"] = frame["odd_square"].astype(object)
+    frame.loc[[5, 600], "odd_square"] = "-"     # a marker word: two missing cells
+    frame["odd_square"] = frame["odd_square"].astype(str)
+    folder, whole = write_parts(frame, tmp_path / "powers")
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 500)
+    step = RelationsStep()
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert [c.to_json() for c in result.congruences] == \
+        [c.to_json() for c in expected.congruences]
+    found = {c.text: c for c in result.congruences}
+    # an odd square is 1 mod 8 (Hardy and Wright, An Introduction to the Theory of Numbers,
+    # from memory), which makes the same fact mod 2 and mod 4 redundant; checked on the rows
+    # where the column has a value
+    square = found["odd_square ≡ 1 (mod 8)"]
+    assert (square.implied_moduli, square.holds_on) == ((2, 4), 1498)
+    # n^3 - n = (n - 1) n (n + 1) is divisible by 6 (common practice): broken by the two rows
+    cube = found["n - cube ≡ 0 (mod 6)"]
+    assert (cube.violations, cube.implied_moduli) == ((77, 1400), (2, 3))
+
+
 # ----------------------------------------------------------------------------------------
 # Clusters are closed
 
