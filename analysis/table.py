@@ -1745,8 +1745,11 @@ def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: Col
                 f"{_where(table_name, problem.row, column, shown)}: {problem.message}. Fix "
                 f"the cell, or keep the column as {info.role} (or mark it as text)."
             ) from None
+        # intervals and words are missing cells now, and only plain numbers count as values
+        missing, distinct = _missing_and_distinct(values, dtype)
         return values, replace(new, dtype=dtype, note=note, intervals=len(marks.positions),
-                               markers=_marker_counts(marks)), marks
+                               markers=_marker_counts(marks), missing=missing,
+                               distinct=distinct), marks
     typed, dtype, note = _type_object(series.astype(object), table_name, column, limits)
     if dtype not in ("integer", "big integer", "rational", "real", "boolean"):
         floats = pd.to_numeric(series, errors="coerce")

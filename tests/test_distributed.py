@@ -181,6 +181,19 @@ def test_marked_numbers_read_as_in_memory(client, atlas, tmp_path):
         [c.to_json() for c in expected.columns if c.name in ("girth", "chromatic")]
 
 
+def test_marked_numbers_asked_for_as_an_invariant(client, tmp_path):
+    # words in half the cells: text unless the user asks for an invariant (common practice)
+    frame = pd.DataFrame({"score": ["3", "n/a yet", "[2,4]", "unknown"] * 30,
+                          "v": range(120)})
+    folder, whole = write_parts(frame, tmp_path / "asked", parts=3)
+    assert read_partitioned(folder, client).column("score").dtype == "text"
+    table = read_partitioned(folder, client, roles={"score": "invariant"})
+    assert table.columns == load_table(whole, roles={"score": "invariant"}).columns
+    score = table.column("score")
+    assert (score.dtype, score.intervals, score.markers) == \
+        ("integer", 30, {"n/a yet": 30, "unknown": 30})
+
+
 def test_a_reversed_interval_is_named(client, tmp_path):
     frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
     folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)

@@ -676,18 +676,20 @@ def merge_marked(a: dict | None, b: dict | None, offset: int) -> dict | None:
             "backwards": a["backwards"] or later["backwards"]}
 
 
-def _reads_marked(f: dict) -> bool:
-    """Whether a column's merged facts read as marked numbers (analysis.table's rule)."""
+def _reads_marked(f: dict, requested: bool = False) -> bool:
+    """Whether a column's merged facts read as marked numbers (analysis.table's rule);
+    ``requested`` when the user gave the column the role invariant."""
     m = f.get("marked") if f.get("kind") == "text" else None
     if m is None:
         return False
-    if f.get("words") and reads_as_boolean(f["words"]):
+    if not requested and f.get("words") and reads_as_boolean(f["words"]):
         return False   # true/false words come first, as in memory
     distinct = DISTINCT_CAP if m["distinct"] is None else len(m["distinct"])
     # a cell that fails to parse counts as a mark, so that its column is read (and refused)
     return reads_as_marked_numbers(numbers=m["numbers"],
                                    intervals=m["intervals"] + (m["invalid"] is not None),
-                                   words=m["words"], distinct_numbers=distinct)
+                                   words=m["words"], distinct_numbers=distinct,
+                                   requested=requested)
 
 
 def _marked_type(m: dict) -> str:
@@ -900,6 +902,7 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
         table.column(column)
     infos = []
     how = dict(table.conversions)
+    facts = dict(table.facts)
     for info in table.columns:
         role = roles.get(info.name)
         if id_column is not None and info.role == "id" and info.name != id_column \
@@ -921,6 +924,11 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
             if info.dtype == "boolean":
                 new = replace(new, dtype="integer")
                 how[info.name] = "bool_to_int"
+            elif info.dtype == "text" and _reads_marked(facts[info.name], requested=True):
+                # asked for outright: only the limit on different words applies, as in memory
+                facts[info.name], marked = _as_marked(table.name, info.name, facts[info.name])
+                new = replace(marked, detected_role=info.detected_role)
+                how[info.name] = "marked:" + marked.dtype
             elif info.dtype not in ("integer", "real", "big integer"):
                 raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
                                 "on the dask engine only numbers and flags can be invariants.")
@@ -949,7 +957,7 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
         raise TableError(f"{table.name}: only one column can be the id; got "
                          f"{', '.join(map(repr, ids))}. Give the others another role.")
     return replace(table, columns=tuple(infos), id_column=ids[0] if ids else None,
-                   conversions=tuple(how.items()))
+                   conversions=tuple(how.items()), facts=facts)
 
 
 # ----------------------------------------------------------------------------------------
