@@ -540,6 +540,33 @@ def test_command_line_runs_pca_on_dask(mixed, tmp_path):
     assert len(payload["explained_variance_ratio"]) == 4
 
 
+def test_command_line_inspect_reports_marked_numbers_as_in_memory(tmp_path):
+    import csv
+    import json
+
+    table = ROOT / "sample_tables" / "graphs_as_downloaded.csv"
+    payloads = {}
+    for engine in ("local", "dask"):
+        out = tmp_path / f"{engine}.json"
+        done = subprocess.run(
+            [sys.executable, "-m", "analysis", "inspect", str(table), "--engine", engine,
+             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=180)
+        assert done.returncode == 0, done.stderr
+        payloads[engine] = {c["name"]: c for c in json.loads(out.read_text())["columns"]}
+    facts = ("dtype", "role", "intervals", "markers", "missing")
+    # JSON-array text in a CSV file is read as arrays in memory, as text on the Dask engine
+    names = [n for n in payloads["local"] if n != "adjacency"]
+    for name in names:
+        assert [payloads["dask"][name][k] for k in facts] == \
+            [payloads["local"][name][k] for k in facts], name
+    with table.open(newline="", encoding="utf-8") as handle:
+        cells = list(csv.DictReader(handle))   # the csv module as the independent count
+    girth, chromatic = payloads["dask"]["girth"], payloads["dask"]["chromatic_number"]
+    assert girth["markers"] == {"infty": sum(r["girth"] == "infty" for r in cells)}
+    assert chromatic["intervals"] == sum(r["chromatic_number"].startswith("[") for r in cells)
+    assert (girth["dtype"], chromatic["dtype"]) == ("integer", "integer")
+
+
 # ----------------------------------------------------------------------------------------
 # Objects to look at
 
