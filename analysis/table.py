@@ -1551,48 +1551,68 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
         if marked is not None:
             marks_out["marks"] = marked[3]
             return marked[:3]
-    arrays = sum(t.startswith("[") for t in stripped)
-    if arrays and arrays >= 0.5 * len(stripped):
+    if reads_as_array_texts(sum(t.startswith("[") for t in stripped), len(stripped)):
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
     return None, "text", ""
 
 
+def reads_as_array_texts(brackets: int, filled: int) -> bool:
+    """Whether a column of text cells (not numbers, flags or marked numbers) is read as
+    arrays: when at least half of its ``filled`` cells start with ``[`` (``brackets``, after
+    stripping spaces). Every filled cell must then be a JSON array.
+
+    >>> reads_as_array_texts(3, 5), reads_as_array_texts(2, 5)
+    (True, False)
+    """
+    return brackets > 0 and 2 * brackets >= filled
+
+
+def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,
+                first_row: int = 0) -> pd.Series:
+    """A column of JSON-array text as numpy arrays (None where a cell is empty), each cell
+    checked as :func:`load_table` checks it. ``first_row`` is the row of the first cell in
+    the whole table, for the messages of a partition read on its own.
+    """
+    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    return _array_texts(series, present, name, column, limits or Limits(), first_row)
+
+
 def _array_texts(series: pd.Series, present: list, name: str, column: str,
-                 limits: Limits) -> pd.Series:
+                 limits: Limits, first_row: int = 0) -> pd.Series:
     """Arrays from cells holding JSON-array text (parsed as data, never evaluated)."""
     decoded = []
     for i, t in present:
         if not t.startswith("["):
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
-                f"got {_short(t)}. Make every cell of the column an array, or empty."
+                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
+                f"[1, 2], got {_short(t)}. Make every cell of the column an array, or empty."
             )
         if _depth_ok(t, limits.max_depth) > 2:
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: arrays nested more than 2 deep; "
-                "cells may hold lists or matrices only."
+                f"{name}, row {i + first_row + 1}, column {column!r}: arrays nested more than "
+                "2 deep; cells may hold lists or matrices only."
             )
         try:
             decoded.append((i, json.loads(t)))
         except ValueError as exc:
             if "integer string conversion" in str(exc):
                 raise TableError(
-                    _too_many_digits(name, f", row {i + 1}", t, column)) from None
+                    _too_many_digits(name, f", row {i + first_row + 1}", t, column)) from None
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: not a valid JSON array "
+                f"{name}, row {i + first_row + 1}, column {column!r}: not a valid JSON array "
                 f"({_one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
             ) from None
     for i, value in decoded:
         if not isinstance(value, list):
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
-                f"got {_short(value)}. Make every cell of the column an array, or empty."
+                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
+                f"[1, 2], got {_short(value)}. Make every cell of the column an array, or empty."
             )
     rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
     for i, v in decoded:
         rebuilt.iat[i] = v
-    return _arrays(rebuilt, decoded, name, column, limits)
+    return _arrays(rebuilt, decoded, name, column, limits, first_row)
 
 
 def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
@@ -1643,11 +1663,11 @@ def _rebuild(series: pd.Series, present: list, convert, dtype) -> pd.Series:
 
 
 def _arrays(series: pd.Series, present: list, name: str, column: str,
-            limits: Limits) -> pd.Series:
+            limits: Limits, first_row: int = 0) -> pd.Series:
     out = np.empty(len(series), dtype=object)
     out[:] = None
     for i, value in present:
-        out[i] = _to_array(value, name, i, column, limits)
+        out[i] = _to_array(value, name, i + first_row, column, limits)
     return pd.Series(out, dtype=object, index=series.index)
 
 

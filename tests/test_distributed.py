@@ -194,6 +194,25 @@ def test_marked_numbers_asked_for_as_an_invariant(client, tmp_path):
         ("integer", 30, {"n/a yet": 30, "unknown": 30})
 
 
+def test_csv_array_text_is_read_as_arrays_and_a_bad_cell_named(client, tmp_path):
+    path = tmp_path / "matrices.csv"
+    cells = [f"[[{i % 3}, 1], [1, 0]]" for i in range(2000)]
+    pd.DataFrame({"m": cells, "v": range(2000)}).to_csv(path, index=False)
+    table = read_partitioned(path, client, blocksize=8_000)
+    assert table.npartitions > 2
+    in_memory = load_table(path).column("m")
+    assert (table.column("m").dtype, table.column("m").role) == \
+        (in_memory.dtype, in_memory.role) == ("array", "array")
+    overview = run_distributed(OverviewStep(), path, client=client)
+    assert overview.columns[0].common == (("shape 2x2", 2000),)
+    cells[1500] = "[[1, 2], [3]]"   # a ragged matrix in a later block
+    pd.DataFrame({"m": cells, "v": range(2000)}).to_csv(path, index=False)
+    with pytest.raises(TableError, match="row 1501, column 'm': a ragged matrix"):
+        read_partitioned(path, client, blocksize=8_000)
+    with pytest.raises(TableError, match="row 1501, column 'm': a ragged matrix"):
+        load_table(path)
+
+
 def test_a_reversed_interval_is_named(client, tmp_path):
     frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
     folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)
@@ -554,9 +573,8 @@ def test_command_line_inspect_reports_marked_numbers_as_in_memory(tmp_path):
         assert done.returncode == 0, done.stderr
         payloads[engine] = {c["name"]: c for c in json.loads(out.read_text())["columns"]}
     facts = ("dtype", "role", "intervals", "markers", "missing")
-    # JSON-array text in a CSV file is read as arrays in memory, as text on the Dask engine
-    names = [n for n in payloads["local"] if n != "adjacency"]
-    for name in names:
+    assert list(payloads["dask"]) == list(payloads["local"])
+    for name in payloads["local"]:
         assert [payloads["dask"][name][k] for k in facts] == \
             [payloads["local"][name][k] for k in facts], name
     with table.open(newline="", encoding="utf-8") as handle:

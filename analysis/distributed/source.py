@@ -29,6 +29,7 @@ from analysis.table import (
     MARKER_RULE,
     ColumnInfo,
     Table,
+    array_cells,
     column_warnings,
     detect_role,
     incomplete_integer_dtype,
@@ -38,6 +39,7 @@ from analysis.table import (
     marked_note,
     marker_counts,
     read_marked_cell,
+    reads_as_array_texts,
     reads_as_boolean,
     reads_as_marked_numbers,
 )
@@ -204,6 +206,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
                 raise TableError(f"{name}: column {column!r} {exc}.") from None
     _exact_distinct(client, frame, facts, conversions)
     infos, how = _type_columns(name, header, facts, n, warnings, fmt)
+    _array_text_shapes(client, frame, facts, how, name, partition_rows)
     table = PartitionedTable(
         name=name, path=str(path), digest=digest, format=fmt, columns=tuple(infos),
         id_column=next((c.name for c in infos if c.role == "id"), None),
@@ -340,6 +343,7 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
         facts["words"] = None
         facts.update(_text_counts(text, ~missing_mask))
         facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
+        facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
         return facts
     if not from_text and kind in "biuf":
         facts.update(_number_facts(series[~missing_mask] if kind == "f" else series))
@@ -374,6 +378,7 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
     facts["words"] = lowered if len(lowered) <= 2 else None
     facts.update(_text_counts(text, ~missing_mask))
     facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
+    facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
     return facts
 
 
@@ -482,6 +487,7 @@ def _merge_facts(a: dict, b: dict) -> dict:
                     counts[key] = (count, first + a["n"])
             out["counts"] = counts if len(counts) <= DISTINCT_CAP else None
         out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
+        out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
         return out
     out["count"] = a["count"] + b["count"]
     out["inf"] = a["inf"] or b["inf"]
@@ -754,6 +760,39 @@ def _marked_values(series: pd.Series, dtype: str) -> pd.Series:
                      index=series.index)
 
 
+def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_rows) -> None:
+    """Check every cell of the JSON-array text columns, as in memory, and count their shapes
+    (a bad cell is a TableError naming its row in the whole table)."""
+    from dask import delayed
+
+    columns = [c for c, h in how if h == "array_text"]
+    if not columns:
+        return
+    offsets = np.concatenate([[0], np.cumsum(partition_rows)[:-1]]).astype(int)
+    pieces = [delayed(_shapes_of_texts)(part, columns, name, int(offsets[k]))
+              for k, part in enumerate(frame[columns].to_delayed())]
+    found = client.gather(client.compute(pieces))
+    for column in columns:
+        shapes: dict[str, int] = {}
+        for piece in found:
+            for shape, count in piece[column].items():
+                shapes[shape] = shapes.get(shape, 0) + count
+        f = facts[column]
+        facts[column] = {"n": f["n"], "missing": f["missing"], "kind": "list", "shapes": shapes}
+
+
+def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) -> dict:
+    out = {}
+    for column in columns:
+        shapes: dict[str, int] = {}
+        for value in array_cells(frame[column], name, column, first_row=first_row).tolist():
+            if value is not None:
+                shape = "x".join(map(str, np.shape(value)))
+                shapes[shape] = shapes.get(shape, 0) + 1
+        out[column] = shapes
+    return out
+
+
 # ----------------------------------------------------------------------------------------
 # Typing: the same dtypes and roles as analysis.table gives the same data in memory
 
@@ -774,6 +813,10 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
         else:
             dtype, note, convert = _dtype_of(f, fmt)
             missing, distinct = f["missing"], _distinct_of(f, dtype)
+            if dtype == "text" and reads_as_array_texts(f.get("brackets", 0),
+                                                        f["n"] - f["missing"]):
+                # JSON-array text: arrays, every cell checked by analysis.table's reader
+                dtype, note, convert, distinct = "array", "", "array_text", -1
         if convert:
             how.append((column, convert))
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
@@ -850,7 +893,8 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
     ``conversions`` pairs a column with how to convert it: "number" (text to numbers),
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
     "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
-    "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing.
+    "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing;
+    "array_text" reads JSON-array text as arrays.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
@@ -859,6 +903,9 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
         series = frame[column]
         if how.startswith("marked:"):
             frame[column] = _marked_values(series, how.split(":", 1)[1])
+            continue
+        if how == "array_text":
+            frame[column] = array_cells(series, "", column)
             continue
         if how.startswith("csv+"):
             how = how[4:]
