@@ -1256,14 +1256,27 @@ def _merged_labels(series: pd.Series, name: str, column: str,
     labels = {v for v in stripped if not _is_missing(v)}
     before = {v for v in cells if not _is_missing(v)}
     missing = sum(_is_missing(v) for v in cells)
-    if detect_role(column, "text", len(labels), missing, len(cells), True) != "category":
+    warning = label_merge_warning(name, column, padded=len(padded), written=len(before),
+                                  labels=len(labels), missing=missing, rows=len(cells))
+    if warning is None:
         return None
-    cells_word = "cell has" if len(padded) == 1 else "cells have"
-    warnings.append(
-        f"{name}: column {column!r}: {len(padded)} {cells_word} spaces around the label, "
-        f"read without them, so the column's {len(before)} labels as written are "
-        f"{len(labels)} labels.")
+    warnings.append(warning)
     return pd.Series(stripped, dtype=object, index=series.index)
+
+
+def label_merge_warning(name: str, column: str, *, padded: int, written: int, labels: int,
+                        missing: int, rows: int) -> str | None:
+    """The warning for a text column read without the spaces around its labels, or None
+    when its labels stay as written (see ``_merged_labels``: only a column whose stripped
+    labels make a category is merged). ``padded`` counts the cells with such spaces,
+    ``written`` the different labels as written, ``labels`` those without the spaces.
+    """
+    if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
+        return None
+    cells_word = "cell has" if padded == 1 else "cells have"
+    return (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
+            f"read without them, so the column's {written} labels as written are "
+            f"{labels} labels.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:

@@ -35,6 +35,7 @@ from analysis.table import (
     incomplete_integer_dtype,
     is_missing,
     is_true_word,
+    label_merge_warning,
     marked_dtype,
     marked_note,
     marker_counts,
@@ -803,6 +804,8 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
     id_taken = False
+    merged: list[str] = []   # said before the columns' own warnings, as in memory
+    start = len(warnings)
     for column in header:
         f = facts[column]
         marked = None
@@ -817,6 +820,8 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
                                                         f["n"] - f["missing"]):
                 # JSON-array text: arrays, every cell checked by analysis.table's reader
                 dtype, note, convert, distinct = "array", "", "array_text", -1
+            elif dtype == "text" and _merge_labels(name, column, f, n, merged):
+                convert, distinct = "strip", len(f["counts"])
         if convert:
             how.append((column, convert))
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
@@ -825,7 +830,29 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
         warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
         info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
         infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
+    warnings[start:start] = merged
     return infos, how
+
+
+def _merge_labels(name: str, column: str, f: dict, n: int, merged: list[str]) -> bool:
+    """Labels differing only by surrounding spaces made one, when analysis.table's rule
+    says so: the column's counts are merged and the warning goes to ``merged``."""
+    counts = f.get("counts")
+    if counts is None:
+        return False
+    stripped: dict[str, tuple[int, int]] = {}
+    for label, (count, first) in counts.items():
+        key = label.strip()
+        had = stripped.get(key, (0, first))
+        stripped[key] = (had[0] + count, min(had[1], first))
+    padded = sum(count for label, (count, _) in counts.items() if label != label.strip())
+    warning = label_merge_warning(name, column, padded=padded, written=len(counts),
+                                  labels=len(stripped), missing=f["missing"], rows=n)
+    if warning is None:
+        return False
+    merged.append(warning)
+    f["counts"] = stripped
+    return True
 
 
 def _dtype_of(f: dict, fmt: str) -> tuple[str, str, str]:
@@ -894,7 +921,8 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
     "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
     "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing;
-    "array_text" reads JSON-array text as arrays.
+    "array_text" reads JSON-array text as arrays; "strip" reads labels without surrounding
+    spaces.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
@@ -906,6 +934,11 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
             continue
         if how == "array_text":
             frame[column] = array_cells(series, "", column)
+            continue
+        if how == "strip":
+            frame[column] = pd.Series([None if is_missing(v) else str(v).strip()
+                                       for v in series.tolist()], dtype=object,
+                                      index=series.index)
             continue
         if how.startswith("csv+"):
             how = how[4:]
