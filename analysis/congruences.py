@@ -49,6 +49,10 @@ from analysis.plain import row_id
 
 MAX_MODULUS = 64
 """The largest modulus searched; a pair test costs a histogram of modulus squared bins."""
+MODULI = tuple(range(2, 13))
+"""The moduli searched unless others are asked for."""
+MAX_LISTED_ROWS = 1000
+"""Breaking rows listed per congruence unless another number is asked for."""
 
 
 @dataclass(frozen=True)
@@ -400,17 +404,19 @@ def _to_congruence(fact: dict, row_ids: np.ndarray, limit: int) -> Congruence:
 
 
 def simplicity_key(congruence: Congruence) -> tuple:
-    """The ranking: fewer terms, smaller coefficients, larger modulus, fewer breakers."""
+    """The ranking: fewer terms, smaller coefficients, larger modulus, fewer breakers (then
+    names, coefficients and residue, so that the order never depends on the search's)."""
     return (len(congruence.terms), sum(abs(c) for _, c in congruence.terms),
             -congruence.modulus, congruence.violation_count,
-            tuple(name for name, _ in congruence.terms))
+            tuple(name for name, _ in congruence.terms),
+            tuple(c for _, c in congruence.terms), congruence.residue)
 
 
 def find_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
-                     moduli: Sequence[int] = range(2, 13), max_coefficient: int = 3,
+                     moduli: Sequence[int] = MODULI, max_coefficient: int = 3,
                      max_breakers: int = 3, max_breaker_share: float = 0.01,
                      min_distinct: int = 3, relations=(),
-                     max_listed_rows: int = 1000) -> list[Congruence]:
+                     max_listed_rows: int = MAX_LISTED_ROWS) -> list[Congruence]:
     """Congruences of single columns and of pairs with small coefficients, simplest first.
 
     ``columns`` maps a column name to its exact integer values (Python ints of any size,
@@ -454,3 +460,79 @@ def find_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
             continue
         result.append(_to_congruence(fact, ids, int(max_listed_rows)))
     return sorted(result, key=simplicity_key)
+
+
+def _fact_of(congruence: Congruence, moduli: Sequence[int]) -> dict:
+    """A congruence as the fact record the strongest-modulus rule reads."""
+    m = congruence.modulus
+    if len(congruence.terms) == 1:
+        key, covers = (1,), {(d, (1,)) for d in moduli if m % d == 0 and d < m}
+    else:
+        (_, a), (_, b) = congruence.terms
+        units = [u for u in range(1, m) if math.gcd(u, m) == 1]
+        key, covers = _canonical_key(a % m, b % m, m, units), _pair_covers(a, b, m, moduli)
+    return {"group": tuple(name for name, _ in congruence.terms), "modulus": m, "key": key,
+            "covers": covers, "breakers": congruence.violation_count, "implied": set(),
+            "congruence": congruence}
+
+
+def settle_congruences(candidates: Sequence[Congruence], *, moduli: Sequence[int] = MODULI,
+                       max_breakers: int = 3, max_breaker_share: float = 0.01,
+                       constants: Sequence[str] = (), relations=()) -> list[Congruence]:
+    """The congruences :func:`find_congruences` keeps, from candidates counted elsewhere.
+
+    For an engine that proposes congruences on some rows and counts each on every row:
+    ``candidates`` carry the counts over every row (``holds_on``, ``violation_count``,
+    ``violations``; each modulus and residue its own candidate, single-column facts with
+    coefficient 1 and pairs in canonical form, as :func:`find_congruences` writes them, whose
+    obeying rows were already seen to hold ``min_distinct`` values). The same rules then
+    apply: the breaker limit, the strongest modulus, pairs whose term a kept single-column
+    fact (or a column in ``constants``) determines, congruences that follow from one of the
+    exact ``relations``; simplest first.
+    """
+    moduli = _validate(moduli, 1, max_breakers, max_breaker_share, 2, 0)
+    fit = [c for c in candidates if c.modulus in moduli
+           and not any(name in constants for name, _ in c.terms)
+           and c.violation_count <= _allowed_breakers(c.holds_on, int(max_breakers),
+                                                      float(max_breaker_share))]
+    singles_by_column: dict[str, list[dict]] = {}
+    pairs_by_group: dict[tuple, list[dict]] = {}
+    for congruence in fit:
+        fact = _fact_of(congruence, moduli)
+        target = singles_by_column if len(congruence.terms) == 1 else pairs_by_group
+        target.setdefault(fact["group"][0] if len(congruence.terms) == 1 else fact["group"],
+                          []).append(fact)
+    facts, singles = [], {}
+    for name, found in singles_by_column.items():
+        kept = _strongest(found)
+        singles[name] = [f["modulus"] for f in kept]
+        facts.extend(kept)
+    for found in pairs_by_group.values():
+        open_pairs = []
+        for fact in found:
+            (first, a), (second, b) = fact["congruence"].terms
+            m = fact["modulus"]
+            if not (_determined(_Named(first), a, m, singles, set(constants))
+                    or _determined(_Named(second), b, m, singles, set(constants))):
+                open_pairs.append(fact)
+        facts.extend(_strongest(open_pairs))
+    known = _integer_relations(relations)
+    result = []
+    for fact in facts:
+        congruence = fact["congruence"]
+        if any(follows_from_relation(dict(congruence.terms), congruence.modulus,
+                                     congruence.residue, relation) for relation in known):
+            continue
+        result.append(Congruence(
+            terms=congruence.terms, modulus=congruence.modulus, residue=congruence.residue,
+            holds_on=congruence.holds_on, violations=congruence.violations,
+            violation_count=congruence.violation_count,
+            implied_moduli=tuple(sorted(fact["implied"]))))
+    return sorted(result, key=simplicity_key)
+
+
+@dataclass(frozen=True)
+class _Named:
+    """A column known by its name alone (all that the determined-term rule reads)."""
+
+    name: str

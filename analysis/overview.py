@@ -29,6 +29,8 @@ class ColumnSummary:
     maximum: object = None
     mean: float | None = None
     common: tuple = ()
+    intervals: int = 0                     # interval cells of marked numbers (missing values)
+    markers: tuple[tuple[str, int], ...] = ()   # marker words and their counts
 
     def to_json(self) -> dict:
         return plain({
@@ -36,6 +38,7 @@ class ColumnSummary:
             "missing": self.missing, "distinct": self.distinct,
             "min": self.minimum, "max": self.maximum, "mean": self.mean,
             "common": [list(pair) for pair in self.common],
+            "intervals": self.intervals, "markers": dict(self.markers),
         })
 
 
@@ -117,7 +120,8 @@ class OverviewStep:
 def _summarize(table: Table, info) -> ColumnSummary:
     series = table.frame[info.name]
     base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
-                distinct=info.distinct)
+                distinct=info.distinct, intervals=info.intervals,
+                markers=tuple(info.markers.items()))
     if info.dtype in ("integer", "real"):
         raw = series.to_numpy()
         if raw.dtype.kind in "iu" and len(raw):

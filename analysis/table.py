@@ -1080,15 +1080,62 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
     return _marked_values(series, numbers, intervals, word_cells, words, column, limits)
 
 
+def marked_dtype(*, has_float: bool, has_fraction: bool) -> str:
+    """The dtype of a marked column from the kinds among its plain numbers and interval ends
+    (as :func:`read_marked_cell` types them): real with any float, else rational with any
+    fraction, else integer.
+
+    >>> marked_dtype(has_float=False, has_fraction=True)
+    'rational'
+    """
+    if has_float:
+        return "real"
+    return "rational" if has_fraction else "integer"
+
+
+def marked_note(note: str, intervals: int, words: dict[str, int]) -> str:
+    """A marked column's note: ``note`` (from its numbers), then its intervals and its words
+    with their counts, most frequent first.
+
+    >>> marked_note("has missing cells", 2, {"infty": 3})
+    "has missing cells; 2 intervals; words read as missing: 'infty' (3)"
+    """
+    shown = [f"{intervals} interval{'s' if intervals != 1 else ''}"] if intervals else []
+    if words:
+        shown.append("words read as missing: " + ", ".join(
+            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
+    return "; ".join(([note] if note else []) + shown)
+
+
+def marker_counts(words: dict[str, int]) -> dict[str, int]:
+    """``ColumnInfo.markers`` from word counts: each word and its count, most frequent first."""
+    return dict(sorted(words.items(), key=lambda kv: (-kv[1], kv[0])))
+
+
+def incomplete_integer_dtype(low: int, high: int) -> tuple[str, str]:
+    """(dtype, note) of a column of integers from ``low`` to ``high`` with missing cells.
+
+    float64 holds integers exactly only up to 2**53, so past that the column keeps exact
+    Python integers ("big integer"), as it does past 64 bits.
+
+    >>> incomplete_integer_dtype(0, 9)
+    ('integer', 'has missing cells')
+    >>> incomplete_integer_dtype(0, 2**60)
+    ('big integer', 'kept exact: beyond 2**53 with missing cells')
+    """
+    if high > _INT64_MAX or low < -_INT64_MAX - 1:
+        return "big integer", ""
+    if max(abs(low), abs(high)) > _FLOAT_EXACT:
+        return "big integer", "kept exact: beyond 2**53 with missing cells"
+    return "integer", "has missing cells"
+
+
 def _marked_values(series, numbers, intervals, word_cells, words, column, limits):
     ends = [v for _, pair in intervals for v in pair]
     every = [v for _, v in numbers] + ends
-    if any(isinstance(v, float) for v in every):
-        dtype, convert = "real", float
-    elif any(isinstance(v, Fraction) for v in every):
-        dtype, convert = "rational", Fraction
-    else:
-        dtype, convert = "integer", int
+    dtype = marked_dtype(has_float=any(isinstance(v, float) for v in every),
+                         has_fraction=any(isinstance(v, Fraction) for v in every))
+    convert = {"real": float, "rational": Fraction, "integer": int}[dtype]
     note = ""
     if dtype == "real":
         floats = np.full(len(series), np.nan)
@@ -1109,13 +1156,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
                    low=tuple(convert(a) for _, (a, _) in intervals),
                    high=tuple(convert(b) for _, (_, b) in intervals),
                    texts=tuple(texts))
-    shown = [f"{len(intervals)} interval{'s' if len(intervals) != 1 else ''}"] \
-        if intervals else []
-    if words:
-        shown.append("words read as missing: " + ", ".join(
-            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
-    note = "; ".join(([note] if note else []) + shown)
-    return values, dtype, note, marks
+    return values, dtype, marked_note(note, len(intervals), words), marks
 
 
 def _marker_counts(marks: _Marks | None) -> dict[str, int]:
@@ -1127,7 +1168,7 @@ def _marker_counts(marks: _Marks | None) -> dict[str, int]:
     for position, text in marks.texts:
         if position not in intervals:
             counts[text] = counts.get(text, 0) + 1
-    return dict(sorted(counts.items(), key=lambda kv: (-kv[1], kv[0])))
+    return marker_counts(counts)
 
 
 # ----------------------------------------------------------------------------------------
@@ -1215,14 +1256,27 @@ def _merged_labels(series: pd.Series, name: str, column: str,
     labels = {v for v in stripped if not _is_missing(v)}
     before = {v for v in cells if not _is_missing(v)}
     missing = sum(_is_missing(v) for v in cells)
-    if detect_role(column, "text", len(labels), missing, len(cells), True) != "category":
+    warning = label_merge_warning(name, column, padded=len(padded), written=len(before),
+                                  labels=len(labels), missing=missing, rows=len(cells))
+    if warning is None:
         return None
-    cells_word = "cell has" if len(padded) == 1 else "cells have"
-    warnings.append(
-        f"{name}: column {column!r}: {len(padded)} {cells_word} spaces around the label, "
-        f"read without them, so the column's {len(before)} labels as written are "
-        f"{len(labels)} labels.")
+    warnings.append(warning)
     return pd.Series(stripped, dtype=object, index=series.index)
+
+
+def label_merge_warning(name: str, column: str, *, padded: int, written: int, labels: int,
+                        missing: int, rows: int) -> str | None:
+    """The warning for a text column read without the spaces around its labels, or None
+    when its labels stay as written (see ``_merged_labels``: only a column whose stripped
+    labels make a category is merged). ``padded`` counts the cells with such spaces,
+    ``written`` the different labels as written, ``labels`` those without the spaces.
+    """
+    if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
+        return None
+    cells_word = "cell has" if padded == 1 else "cells have"
+    return (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
+            f"read without them, so the column's {written} labels as written are "
+            f"{labels} labels.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:
@@ -1510,48 +1564,68 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
         if marked is not None:
             marks_out["marks"] = marked[3]
             return marked[:3]
-    arrays = sum(t.startswith("[") for t in stripped)
-    if arrays and arrays >= 0.5 * len(stripped):
+    if reads_as_array_texts(sum(t.startswith("[") for t in stripped), len(stripped)):
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
     return None, "text", ""
 
 
+def reads_as_array_texts(brackets: int, filled: int) -> bool:
+    """Whether a column of text cells (not numbers, flags or marked numbers) is read as
+    arrays: when at least half of its ``filled`` cells start with ``[`` (``brackets``, after
+    stripping spaces). Every filled cell must then be a JSON array.
+
+    >>> reads_as_array_texts(3, 5), reads_as_array_texts(2, 5)
+    (True, False)
+    """
+    return brackets > 0 and 2 * brackets >= filled
+
+
+def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,
+                first_row: int = 0) -> pd.Series:
+    """A column of JSON-array text as numpy arrays (None where a cell is empty), each cell
+    checked as :func:`load_table` checks it. ``first_row`` is the row of the first cell in
+    the whole table, for the messages of a partition read on its own.
+    """
+    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    return _array_texts(series, present, name, column, limits or Limits(), first_row)
+
+
 def _array_texts(series: pd.Series, present: list, name: str, column: str,
-                 limits: Limits) -> pd.Series:
+                 limits: Limits, first_row: int = 0) -> pd.Series:
     """Arrays from cells holding JSON-array text (parsed as data, never evaluated)."""
     decoded = []
     for i, t in present:
         if not t.startswith("["):
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
-                f"got {_short(t)}. Make every cell of the column an array, or empty."
+                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
+                f"[1, 2], got {_short(t)}. Make every cell of the column an array, or empty."
             )
         if _depth_ok(t, limits.max_depth) > 2:
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: arrays nested more than 2 deep; "
-                "cells may hold lists or matrices only."
+                f"{name}, row {i + first_row + 1}, column {column!r}: arrays nested more than "
+                "2 deep; cells may hold lists or matrices only."
             )
         try:
             decoded.append((i, json.loads(t)))
         except ValueError as exc:
             if "integer string conversion" in str(exc):
                 raise TableError(
-                    _too_many_digits(name, f", row {i + 1}", t, column)) from None
+                    _too_many_digits(name, f", row {i + first_row + 1}", t, column)) from None
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: not a valid JSON array "
+                f"{name}, row {i + first_row + 1}, column {column!r}: not a valid JSON array "
                 f"({_one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
             ) from None
     for i, value in decoded:
         if not isinstance(value, list):
             raise TableError(
-                f"{name}, row {i + 1}, column {column!r}: expected an array like [1, 2], "
-                f"got {_short(value)}. Make every cell of the column an array, or empty."
+                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
+                f"[1, 2], got {_short(value)}. Make every cell of the column an array, or empty."
             )
     rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
     for i, v in decoded:
         rebuilt.iat[i] = v
-    return _arrays(rebuilt, decoded, name, column, limits)
+    return _arrays(rebuilt, decoded, name, column, limits, first_row)
 
 
 def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
@@ -1559,17 +1633,16 @@ def _integers(series: pd.Series, present: list, name: str, column: str, flags: b
     complete = len(present) == len(series)
     if flags and {v for _, v in present} == {0, 1}:
         return _booleans(series, present), "boolean", "0/1 read as false/true"
-    largest = max(abs(v) for _, v in present)
-    beyond_64_bits = largest > _INT64_MAX and any(
-        v > _INT64_MAX or v < -_INT64_MAX - 1 for _, v in present)
-    # float64 holds integers exactly only up to 2**53, so a column with missing cells (which
-    # would otherwise become float64) keeps Python integers once its values pass that.
-    if beyond_64_bits or (not complete and largest > _FLOAT_EXACT):
-        note = "" if beyond_64_bits else "kept exact: beyond 2**53 with missing cells"
-        return _rebuild(series, present, lambda v: v, object), "big integer", note
+    low, high = min(v for _, v in present), max(v for _, v in present)
     if complete:
+        if high > _INT64_MAX or low < -_INT64_MAX - 1:
+            return _rebuild(series, present, lambda v: v, object), "big integer", ""
         values = np.array([v for _, v in present], dtype=np.int64)
         return pd.Series(values, index=series.index), "integer", ""
+    # a column with missing cells would become float64: see incomplete_integer_dtype
+    dtype, note = incomplete_integer_dtype(low, high)
+    if dtype == "big integer":
+        return _rebuild(series, present, lambda v: v, object), dtype, note
     floats = np.full(len(series), np.nan)
     for i, v in present:
         floats[i] = float(v)
@@ -1603,11 +1676,11 @@ def _rebuild(series: pd.Series, present: list, convert, dtype) -> pd.Series:
 
 
 def _arrays(series: pd.Series, present: list, name: str, column: str,
-            limits: Limits) -> pd.Series:
+            limits: Limits, first_row: int = 0) -> pd.Series:
     out = np.empty(len(series), dtype=object)
     out[:] = None
     for i, value in present:
-        out[i] = _to_array(value, name, i, column, limits)
+        out[i] = _to_array(value, name, i + first_row, column, limits)
     return pd.Series(out, dtype=object, index=series.index)
 
 
@@ -1705,8 +1778,11 @@ def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: Col
                 f"{_where(table_name, problem.row, column, shown)}: {problem.message}. Fix "
                 f"the cell, or keep the column as {info.role} (or mark it as text)."
             ) from None
+        # intervals and words are missing cells now, and only plain numbers count as values
+        missing, distinct = _missing_and_distinct(values, dtype)
         return values, replace(new, dtype=dtype, note=note, intervals=len(marks.positions),
-                               markers=_marker_counts(marks)), marks
+                               markers=_marker_counts(marks), missing=missing,
+                               distinct=distinct), marks
     typed, dtype, note = _type_object(series.astype(object), table_name, column, limits)
     if dtype not in ("integer", "big integer", "rational", "real", "boolean"):
         floats = pd.to_numeric(series, errors="coerce")

@@ -10,7 +10,7 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from analysis.congruences import Congruence, find_congruences
+from analysis.congruences import MODULI, Congruence, find_congruences, settle_congruences
 from analysis.errors import StepError
 
 
@@ -256,3 +256,26 @@ def test_bad_values_raise_with_column_and_row():
         find_congruences({"x": [1, 1.5, 3]}, range(3))
     with pytest.raises(StepError, match=r"column 'x': 2 values for 3 row ids"):
         find_congruences({"x": [1, 2]}, range(3))
+
+
+def test_each_modulus_alone_then_settled_equals_one_search():
+    # n^3 - n = (n - 1) n (n + 1) is divisible by 6 and n^2 - n by 2 (common practice); an odd
+    # square is 1 mod 8 (Hardy and Wright, from memory). Searched one modulus at a time and
+    # settled, the facts are those of one search over all moduli, implied moduli included.
+    rng = np.random.default_rng(8)
+    n = rng.integers(-60, 61, 1500)
+    odd = 2 * rng.integers(0, 40, 1500) + 1
+    cube = n ** 3
+    cube[[77, 1400]] += 1
+    columns = {"n": n, "square": n ** 2, "cube": cube, "odd_square": odd ** 2}
+    whole = find_congruences(columns, range(1500))
+    apart = [c for m in MODULI for c in find_congruences(columns, range(1500), moduli=[m])]
+    assert settle_congruences(apart) == whole
+    texts = {c.text: c for c in whole}
+    assert texts["odd_square ≡ 1 (mod 8)"].implied_moduli == (2, 4)
+    assert texts["n - cube ≡ 0 (mod 6)"].violations == (77, 1400)
+
+
+def test_settling_rejects_bad_settings():
+    with pytest.raises(StepError, match="moduli: expected whole numbers from 2"):
+        settle_congruences([], moduli=[1])

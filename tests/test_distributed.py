@@ -113,18 +113,140 @@ def test_csv_is_read_in_blocks_with_the_same_types(client, mixed, tmp_path):
     assert table.columns == load_table(path).columns
 
 
-def test_csv_column_with_numbers_then_text_is_text(client, tmp_path):
+def test_csv_column_with_numbers_then_a_word_is_marked_numbers(client, tmp_path):
     path = tmp_path / "late_text.csv"
     values = [str(i) for i in range(3000)] + ["seven"]
     pd.DataFrame({"code": values, "n": range(len(values))}).to_csv(path, index=False)
     table = read_partitioned(path, client, blocksize=4_000)
     assert table.npartitions > 2
-    # In memory, numbers with one word among them are marked numbers: an integer invariant
-    # with the marker word counted. The partitioned reader does not read marked numbers yet
-    # and keeps such a column as text (an open difference between the engines).
-    in_memory = load_table(path).column("code")
-    assert (in_memory.dtype, in_memory.markers) == ("integer", {"seven": 1})
-    assert table.column("code").dtype == "text"
+    # numbers with one word among them, the word only in the last block: marked numbers on
+    # both engines, an integer invariant with the word counted as missing
+    assert table.columns == load_table(path).columns
+    assert (table.column("code").dtype, table.column("code").markers) == \
+        ("integer", {"seven": 1})
+
+
+@pytest.fixture(scope="module")
+def atlas(tmp_path_factory):
+    """networkx's graph atlas (1 to 7 vertices) written as a downloaded database writes it.
+
+    girth is "infty" for a forest and diameter "D.N.E." for a disconnected graph; the
+    chromatic number is exact for graphs with at most two colours and otherwise the interval
+    [3, max degree + 1] (an odd cycle needs 3 colours; a greedy colouring uses at most
+    max degree + 1: both common practice), a single number when the two ends meet.
+    """
+    nx = pytest.importorskip("networkx")
+    rows = []
+    for k, graph in enumerate(nx.graph_atlas_g()[1:], start=1):
+        degrees = [d for _, d in graph.degree()]
+        top = max(degrees)
+        if nx.is_bipartite(graph):
+            chromatic = str(1 if graph.number_of_edges() == 0 else 2)
+        else:
+            chromatic = "3" if top + 1 == 3 else f"[3,{top + 1}]"
+        girth = nx.girth(graph)
+        rows.append({
+            "graph": f"G{k:04d}", "vertices": graph.number_of_nodes(),
+            "edges": graph.number_of_edges(), "degree_sum": sum(degrees),
+            "girth": "infty" if girth == float("inf") else str(girth),
+            "diameter": str(nx.diameter(graph)) if nx.is_connected(graph) else "D.N.E.",
+            "chromatic": chromatic, "bipartite": nx.is_bipartite(graph),
+        })
+    frame = pd.DataFrame(rows)
+    folder, whole = write_parts(frame, tmp_path_factory.mktemp("atlas") / "atlas")
+    return folder, whole, frame
+
+
+def test_marked_numbers_read_as_in_memory(client, atlas, tmp_path):
+    folder, whole, frame = atlas
+    in_memory = load_table(whole)
+    path = tmp_path / "atlas.csv"
+    frame.to_csv(path, index=False)
+    for table in (read_partitioned(folder, client),
+                  read_partitioned(path, client, blocksize=6_000)):
+        assert table.npartitions > 2
+        assert table.columns == in_memory.columns
+    girth, diameter = table.column("girth"), table.column("diameter")
+    chromatic = table.column("chromatic")
+    assert (girth.dtype, girth.role, diameter.dtype, chromatic.dtype) == \
+        ("integer", "invariant", "integer", "integer")
+    # counted independently from the frame written from networkx's atlas
+    assert girth.markers == {"infty": int((frame.girth == "infty").sum())}
+    assert diameter.markers == {"D.N.E.": int((frame.diameter == "D.N.E.").sum())}
+    assert chromatic.intervals == int(frame.chromatic.str.startswith("[").sum()) > 0
+    assert chromatic.missing == chromatic.intervals
+    overview = run_distributed(OverviewStep(), folder, client=client)
+    expected = OverviewStep().run(in_memory)
+    assert [c.to_json() for c in overview.columns if c.name in ("girth", "chromatic")] == \
+        [c.to_json() for c in expected.columns if c.name in ("girth", "chromatic")]
+
+
+def test_marked_numbers_asked_for_as_an_invariant(client, tmp_path):
+    # words in half the cells: text unless the user asks for an invariant (common practice)
+    frame = pd.DataFrame({"score": ["3", "n/a yet", "[2,4]", "unknown"] * 30,
+                          "v": range(120)})
+    folder, whole = write_parts(frame, tmp_path / "asked", parts=3)
+    assert read_partitioned(folder, client).column("score").dtype == "text"
+    table = read_partitioned(folder, client, roles={"score": "invariant"})
+    assert table.columns == load_table(whole, roles={"score": "invariant"}).columns
+    score = table.column("score")
+    assert (score.dtype, score.intervals, score.markers) == \
+        ("integer", 30, {"n/a yet": 30, "unknown": 30})
+
+
+def test_csv_array_text_is_read_as_arrays_and_a_bad_cell_named(client, tmp_path):
+    path = tmp_path / "matrices.csv"
+    cells = [f"[[{i % 3}, 1], [1, 0]]" for i in range(2000)]
+    pd.DataFrame({"m": cells, "v": range(2000)}).to_csv(path, index=False)
+    table = read_partitioned(path, client, blocksize=8_000)
+    assert table.npartitions > 2
+    in_memory = load_table(path).column("m")
+    assert (table.column("m").dtype, table.column("m").role) == \
+        (in_memory.dtype, in_memory.role) == ("array", "array")
+    overview = run_distributed(OverviewStep(), path, client=client)
+    assert overview.columns[0].common == (("shape 2x2", 2000),)
+    cells[1500] = "[[1, 2], [3]]"   # a ragged matrix in a later block
+    pd.DataFrame({"m": cells, "v": range(2000)}).to_csv(path, index=False)
+    with pytest.raises(TableError, match="row 1501, column 'm': a ragged matrix"):
+        read_partitioned(path, client, blocksize=8_000)
+    with pytest.raises(TableError, match="row 1501, column 'm': a ragged matrix"):
+        load_table(path)
+
+
+def test_a_reversed_interval_is_named(client, tmp_path):
+    frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
+    folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)
+    with pytest.raises(TableError, match=r"row 3, column 'v': the interval '\[5,3\]' has its "
+                                         "low end 5 above its high end 3"):
+        read_partitioned(folder, client)
+    with pytest.raises(TableError, match="row 3.*low end 5 above its high end 3"):
+        load_table(whole)
+
+
+def test_steps_drop_the_missing_cells_of_marked_numbers(client, atlas, monkeypatch):
+    import analysis.distributed.relations as engine
+
+    folder, whole, frame = atlas
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 400)
+    step = RelationsStep(columns=["vertices", "edges", "degree_sum", "girth"])
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert result.n_rows == expected.n_rows == len(frame)
+    assert [r.to_json() for r in result.relations] == [r.to_json() for r in expected.relations]
+    # girth is searched on the graphs with a cycle only: a forest's "infty" is a missing cell
+    searched = [n for n in result.notes if "searched on the rows where they are present" in n]
+    assert searched and searched == [n for n in expected.notes if n in searched]
+    exact_bounds = [b.to_json() for b in result.bounds if not b.violations]
+    assert exact_bounds == [b.to_json() for b in expected.bounds if not b.violations]
+    assert any("girth" in b["text"] for b in exact_bounds)
+    # the handshake lemma: the degrees add up to twice the number of edges (Euler, 1736)
+    assert "2*edges - degree_sum = 0" in {r.text for r in result.relations}
+    separator = SeparatorStep(target="bipartite", columns=["edges", "diameter"],
+                              permutations=10, repeats=2)
+    found = run_distributed(separator, folder, client=client)
+    wanted = separator.run(load_table(whole))
+    connected = int((frame.diameter != "D.N.E.").sum())
+    assert found.equation.n_rows == wanted.equation.n_rows == connected
 
 
 def _absent(folder: Path) -> Path:
@@ -315,6 +437,73 @@ def test_relations_and_breakers_equal_in_memory(client, planted, monkeypatch):
     assert result.n_rows == 2400
 
 
+def test_congruences_equal_in_memory_and_follow_picks_theorem(client, tmp_path, monkeypatch):
+    import math
+
+    import analysis.distributed.relations as engine
+
+    # Lattice triangles: by Pick's theorem (Pick, 1899) A = I + B/2 - 1, so twice the area
+    # 2A = 2I + B - 2 has the parity of the boundary point count B. B is counted as the sum of
+    # gcd(|dx|, |dy|) over the edges (common practice), 2A as the absolute cross product.
+    rng = np.random.default_rng(3)
+    rows = []
+    while len(rows) < 1200:
+        (x0, y0), (x1, y1), (x2, y2) = rng.integers(-7, 8, size=(3, 2)).tolist()
+        twice_area = abs((x1 - x0) * (y2 - y0) - (x2 - x0) * (y1 - y0))
+        if twice_area == 0:
+            continue
+        boundary = sum(math.gcd(abs(a - c), abs(b - d)) for (a, b), (c, d) in
+                       [((x0, y0), (x1, y1)), ((x1, y1), (x2, y2)), ((x2, y2), (x0, y0))])
+        rows.append({"twice_area": twice_area, "boundary": boundary,
+                     "width": max(x0, x1, x2) - min(x0, x1, x2)})
+    frame = pd.DataFrame(rows)
+    breakers = [250, 1111]
+    frame.loc[breakers, "boundary"] += 1   # two rows written wrong, breaking the parity
+    folder, whole = write_parts(frame, tmp_path / "pick")
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 400)
+    step = RelationsStep(columns=["twice_area", "boundary", "width"])
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert [c.to_json() for c in result.congruences] == \
+        [c.to_json() for c in expected.congruences]
+    found = {c.text: c for c in result.congruences}
+    parity = found["twice_area + boundary ≡ 0 (mod 2)"]
+    assert (parity.violations, parity.violation_count, parity.holds_on) == \
+        (tuple(breakers), 2, 1200)
+    assert any("congruences proposed on a uniform random sample of 400 rows" in note
+               for note in result.notes)
+
+
+def test_congruences_keep_the_strongest_modulus_and_missing_cells_as_in_memory(
+        client, tmp_path, monkeypatch):
+    import analysis.distributed.relations as engine
+
+    rng = np.random.default_rng(8)
+    n = rng.integers(-60, 61, 1500)
+    odd = 2 * rng.integers(0, 40, 1500) + 1
+    frame = pd.DataFrame({"n": n, "square": n**2, "cube": n**3, "odd_square": odd**2})
+    frame.loc[[77, 1400], "cube"] += 1          # two rows written wrong
+    frame["odd_square"] = frame["odd_square"].astype(object)
+    frame.loc[[5, 600], "odd_square"] = "-"     # a marker word: two missing cells
+    frame["odd_square"] = frame["odd_square"].astype(str)
+    folder, whole = write_parts(frame, tmp_path / "powers")
+    monkeypatch.setattr(engine, "SAMPLE_ROWS", 500)
+    step = RelationsStep()
+    result = run_distributed(step, folder, client=client)
+    expected = step.run(load_table(whole))
+    assert [c.to_json() for c in result.congruences] == \
+        [c.to_json() for c in expected.congruences]
+    found = {c.text: c for c in result.congruences}
+    # an odd square is 1 mod 8 (Hardy and Wright, An Introduction to the Theory of Numbers,
+    # from memory), which makes the same fact mod 2 and mod 4 redundant; checked on the rows
+    # where the column has a value
+    square = found["odd_square ≡ 1 (mod 8)"]
+    assert (square.implied_moduli, square.holds_on) == ((2, 4), 1498)
+    # n^3 - n = (n - 1) n (n + 1) is divisible by 6 (common practice): broken by the two rows
+    cube = found["n - cube ≡ 0 (mod 6)"]
+    assert (cube.violations, cube.implied_moduli) == ((77, 1400), (2, 3))
+
+
 # ----------------------------------------------------------------------------------------
 # Clusters are closed
 
@@ -368,6 +557,38 @@ def test_command_line_runs_pca_on_dask(mixed, tmp_path):
     payload = json.loads(out.read_text())
     assert len(payload["coordinates"]) == 1199
     assert len(payload["explained_variance_ratio"]) == 4
+
+
+def test_command_line_inspect_reports_marked_numbers_as_in_memory(tmp_path):
+    import csv
+    import json
+
+    table = ROOT / "sample_tables" / "graphs_as_downloaded.csv"
+    payloads = {}
+    for engine in ("local", "dask"):
+        out = tmp_path / f"{engine}.json"
+        done = subprocess.run(
+            [sys.executable, "-m", "analysis", "inspect", str(table), "--engine", engine,
+             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=180)
+        assert done.returncode == 0, done.stderr
+        payload = json.loads(out.read_text())
+        payloads[engine] = {c["name"]: c for c in payload["columns"]}
+        payloads[engine + " warnings"] = payload["warnings"]
+    # labels written with stray spaces are merged, with the same warning, on both engines
+    assert payloads["dask warnings"] == payloads["local warnings"]
+    assert any("'family'" in w for w in payloads["dask warnings"])
+    payloads = {"local": payloads["local"], "dask": payloads["dask"]}
+    facts = ("dtype", "role", "intervals", "markers", "missing")
+    assert list(payloads["dask"]) == list(payloads["local"])
+    for name in payloads["local"]:
+        assert [payloads["dask"][name][k] for k in facts] == \
+            [payloads["local"][name][k] for k in facts], name
+    with table.open(newline="", encoding="utf-8") as handle:
+        cells = list(csv.DictReader(handle))   # the csv module as the independent count
+    girth, chromatic = payloads["dask"]["girth"], payloads["dask"]["chromatic_number"]
+    assert girth["markers"] == {"infty": sum(r["girth"] == "infty" for r in cells)}
+    assert chromatic["intervals"] == sum(r["chromatic_number"].startswith("[") for r in cells)
+    assert (girth["dtype"], chromatic["dtype"]) == ("integer", "integer")
 
 
 # ----------------------------------------------------------------------------------------

@@ -34,7 +34,8 @@ def run_overview(step, ctx: Context) -> OverviewResult:
 def _summarize(table, info) -> ColumnSummary:
     facts = table.facts[info.name]
     base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
-                distinct=info.distinct)
+                distinct=info.distinct, intervals=info.intervals,
+                markers=tuple(info.markers.items()))
     kind = facts.get("kind")
     if info.dtype in ("integer", "real") and kind not in ("text", "list", None) \
             and facts.get("count"):

@@ -13,11 +13,16 @@
    hull, and so every sharp bound, that of the whole table.
 4. A last pass counts, on every row, the rows that break each relation broken by a few rows,
    the rows that attain, come near or break each bound, and the rows off each approximate
-   relation; relations and bounds that more rows break than allowed are dropped.
+   relation; relations and bounds that more rows break than allowed are dropped. Each
+   relation counts the rows where its own columns have values, as in memory.
+5. Congruences of the integer columns are proposed on the sample, one modulus at a time, each
+   counted on every row, and kept by :func:`analysis.congruences.settle_congruences`, the
+   rules of the in-memory search.
 
 Exact: the relations that hold on every row (the same lattice as in memory), the bounds in
 two and three columns, and every count and row list. Approximate: which relations broken by a
-few rows, and which bounds broken by a few rows, are proposed (they come from samples).
+few rows, and which bounds broken by a few rows, are proposed (they come from samples), and
+which congruences are proposed (a note says so when the sample is not the whole table).
 """
 
 from __future__ import annotations
@@ -89,7 +94,8 @@ def run_relations(step, ctx: Context):
         f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
         f"sample, and the rows at the corners of every hull; then checked on all "
         f"{table.n_rows} rows across {table.npartitions} partitions.")
-    return _settle(ctx, step, first, second, exact, real, found, spec)
+    settled = _settle(ctx, step, first, second, exact, real, found, spec)
+    return dataclasses.replace(settled, congruences=_congruences(ctx, step, sample, settled))
 
 
 # ----------------------------------------------------------------------------------------
@@ -179,12 +185,27 @@ def _projection(values: np.ndarray, generators: list) -> np.ndarray:
     return augmented.astype(object).dot(matrix.T)
 
 
+def _present_rows(missing: np.ndarray, vector: list[int]) -> np.ndarray:
+    """Rows where every column of a relation (its nonzero coefficients) has a value: a
+    relation counts only those, as in memory."""
+    support = [j for j, c in enumerate(vector[:-1]) if c]
+    return ~missing[:, support].any(axis=1) if support else np.ones(len(missing), dtype=bool)
+
+
+def _masked_projection(values: np.ndarray, missing: np.ndarray, vectors: list) -> np.ndarray:
+    """Rows times relations, zero where one of a relation's columns is missing."""
+    projected = _projection(values, vectors)
+    for j, vector in enumerate(vectors):
+        projected[~_present_rows(missing, vector), j] = 0
+    return projected
+
+
 def _pass_a(frame, offset: int, spec: _Spec) -> dict:
     values, missing = _exact_matrix(frame, spec.exact)
     used = ~missing.any(axis=1)
     positions = np.arange(offset, offset + len(frame), dtype=np.int64)
     out: dict = {"used": int(used.sum()), "breakers": {}}
-    projected = _projection(values[used], spec.generators)
+    projected = _masked_projection(values, missing, spec.generators)
     if projected.shape[1]:
         broken = (projected != 0).any(axis=1)
         rows = np.flatnonzero(broken)
@@ -192,10 +213,8 @@ def _pass_a(frame, offset: int, spec: _Spec) -> dict:
             distinct, first = np.unique(projected[rows].astype(object) if projected.dtype ==
                                         object else projected[rows], axis=0, return_index=True)
             chosen = _independent([list(map(int, v)) for v in distinct])
-            used_positions = positions[used]
             for i in chosen:
-                out["breakers"][int(used_positions[rows[first[i]]])] = \
-                    [int(x) for x in distinct[i]]
+                out["breakers"][int(positions[rows[first[i]]])] = [int(x) for x in distinct[i]]
     index = {n: j for j, n in enumerate(spec.exact)}
     columns = {n: np.ascontiguousarray(values[:, index[n]]) for n in set(spec.pairs)}
     absent = {n: missing[:, index[n]] for n in set(spec.pairs)}
@@ -456,13 +475,12 @@ def _pass_b(frame, offset: int, spec: _Spec, id_column):
     values, missing = _exact_matrix(frame, spec.exact)
     ids = frame[id_column].to_numpy() if id_column else \
         np.arange(offset, offset + len(frame), dtype=np.int64)
-    used = ~missing.any(axis=1)
     out = {"relations": [], "bounds": [], "approximate": []}
-    projected = _projection(values[used], spec.relations)
-    used_ids = ids[used]
-    for j in range(len(spec.relations)):
+    projected = _masked_projection(values, missing, spec.relations)
+    for j, vector in enumerate(spec.relations):
         bad = np.flatnonzero(np.asarray(projected[:, j] != 0, dtype=bool))
-        out["relations"].append((len(bad), used_ids[bad[: spec.cap]]))
+        present = int(_present_rows(missing, vector).sum())
+        out["relations"].append((len(bad), ids[bad[: spec.cap]], present))
     index = {n: i for i, n in enumerate(spec.exact)}
     for coefs, columns, limit, near_limit in spec.bounds:
         cols = [index[c] for c in columns]
@@ -511,8 +529,8 @@ def _combine(values: np.ndarray, coefs: list[int]) -> np.ndarray:
 
 def _merge_b(a: dict, b: dict, cap: int, listed: int) -> dict:
     out = {"relations": [], "bounds": [], "approximate": []}
-    for (ca, ia), (cb, ib) in zip(a["relations"], b["relations"]):
-        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap]))
+    for (ca, ia, pa), (cb, ib, pb) in zip(a["relations"], b["relations"]):
+        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap], pa + pb))
     for x, y in zip(a["bounds"], b["bounds"]):
         out["bounds"].append({
             "present": x["present"] + y["present"], "attained": x["attained"] + y["attained"],
@@ -574,13 +592,13 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     notes = list(second.notes)
     checked = len([v for v in every_vectors if v is not None])
     every_counts = counts["relations"][:checked]
-    broken = [r.text for r, (count, _) in zip(every, every_counts) if count]
+    broken = [r.text for r, (count, _, _) in zip(every, every_counts) if count]
     if broken:
         # cannot happen when the breaking rows were gathered; say so rather than hide it
         notes.append("relations of the rows searched that other rows break, left out: "
                      + "; ".join(broken))
-    settled_every = [dataclasses.replace(r, holds_on=used)
-                     for r, (count, _) in zip(every, every_counts) if not count]
+    settled_every = [dataclasses.replace(r, holds_on=present)
+                     for r, (count, _, present) in zip(every, every_counts) if not count]
     tracker = rel.RankTracker()
     for v in every_vectors:
         if v is not None:
@@ -589,11 +607,11 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
                     key=lambda item: (item[1][0], len(item[0][0].terms),
                                       sum(x * x for x in item[0][1])))
     robust = []
-    for (relation, vector), (count, ids) in ranked:
+    for (relation, vector), (count, ids, present) in ranked:
         if not 0 < count <= allowed or not tracker.add(vector):
             continue
         robust.append(dataclasses.replace(
-            relation, holds_on=used - count, violations=tuple(ids.tolist()),
+            relation, holds_on=present - count, violations=tuple(ids.tolist()),
             note=_robust_note(relation, count)))
     ordered = ([r for r in settled_every if not r.trivial] + [r for r in robust if not r.trivial]
                + [r for r in settled_every if r.trivial] + [r for r in robust if r.trivial])
@@ -656,3 +674,76 @@ def _drop_crowded_triples(bounds, found):
     kept = [b for b in bounds
             if len(b.terms) != 3 or frozenset(n for n, _ in b.terms) not in crowded]
     return kept
+
+
+# ----------------------------------------------------------------------------------------
+# Congruences: proposed on the sample, counted on every row
+
+
+def _congruences(ctx: Context, step, sample, settled) -> tuple:
+    """The congruences of the integer columns, as the in-memory step finds them.
+
+    Each modulus is searched on its own on the sample (so that no fact there hides a weaker
+    modulus or a pair that only every row can settle); every candidate is then counted on
+    every row, and :func:`analysis.congruences.settle_congruences` keeps those the in-memory
+    search would keep.
+    """
+    from dask import delayed
+
+    from analysis import congruences as cg
+
+    table = ctx.table
+    integers = [n for n in step.chosen_columns(table) if table.column(n).dtype == "integer"]
+    if not step.congruences or not integers:
+        return ()
+    columns = {name: sample.exact(name) for name in integers}
+    candidates = {}
+    for modulus in cg.MODULI:
+        for congruence in cg.find_congruences(columns, sample.row_ids, moduli=[modulus]):
+            candidates[(congruence.terms, modulus, congruence.residue)] = congruence
+    if not candidates:
+        return ()
+    index = {n: j for j, n in enumerate(integers)}
+    specs = [([index[n] for n, _ in terms], [c for _, c in terms], m, r)
+             for terms, m, r in candidates]
+    listed = cg.MAX_LISTED_ROWS
+    parts = table.typed_partitions(integers)
+    offsets = table.offsets
+    counts = ctx.compute(tree([delayed(_count_congruences)(p, int(offsets[k]), integers, specs,
+                                                           table.id_column, listed)
+                               for k, p in enumerate(parts)],
+                              lambda a, b: _merge_congruences(a, b, listed)))
+    counted = [dataclasses.replace(congruence, holds_on=present, violation_count=broken,
+                                   violations=tuple(ids.tolist()), implied_moduli=())
+               for congruence, (present, broken, ids) in zip(candidates.values(), counts)]
+    laws = [r for r in settled.relations if not r.violations]
+    constants = [n for n in integers if table.column(n).distinct == 1]
+    if len(sample.row_ids) < table.n_rows:
+        ctx.notes.append(
+            f"congruences proposed on a uniform random sample of {len(sample.row_ids)} rows "
+            f"and counted on all {table.n_rows} rows; one that the sample shows with too few "
+            "different values, or breaks more often than the whole table does, is not "
+            "proposed.")
+    return tuple(cg.settle_congruences(counted, relations=laws, constants=constants))
+
+
+def _count_congruences(frame, offset: int, names, specs, id_column, listed: int) -> list:
+    """Per candidate: rows with every term present, rows breaking it, their first ids."""
+    values, missing = _exact_matrix(frame, names)
+    ids = frame[id_column].to_numpy() if id_column else \
+        np.arange(offset, offset + len(frame), dtype=np.int64)
+    out = []
+    for columns, coefs, modulus, residue in specs:
+        present = ~missing[:, columns].any(axis=1)
+        total = np.zeros(len(frame), dtype=np.int64)
+        for j, coef in zip(columns, coefs):
+            # reduced first: no product can overflow
+            total += (coef % modulus) * (values[:, j] % modulus)
+        broken = np.flatnonzero(present & (total % modulus != residue))
+        out.append((int(present.sum()), len(broken), ids[broken[:listed]]))
+    return out
+
+
+def _merge_congruences(a: list, b: list, listed: int) -> list:
+    return [(pa + pb, ca + cb, np.concatenate([ia, ib])[:listed])
+            for (pa, ca, ia), (pb, cb, ib) in zip(a, b)]

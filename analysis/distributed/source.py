@@ -7,6 +7,10 @@ column gets the dtype and role that :func:`analysis.table.load_table` would give
 data in memory. Each later pass turns a raw partition into typed values with the same dtypes
 as ``Table.frame`` has in memory, so every step sees the same numbers either way.
 
+Numbers with intervals and marker words among them (marked numbers), JSON-array text and
+labels with stray spaces are read by :mod:`analysis.table`'s own public rules, asked with the
+counts merged over the partitions.
+
 Rows are numbered across partitions in file order: a row's id is its id-column value, else its
 0-based position in the whole table, exactly as in memory.
 """
@@ -17,6 +21,7 @@ import csv
 import functools
 import hashlib
 from dataclasses import dataclass, field, replace
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
@@ -25,13 +30,23 @@ import pandas as pd
 from analysis.errors import StepError, TableError
 from analysis.table import (
     INTEGER_TEXT,
+    MARKER_RULE,
     ColumnInfo,
     Table,
+    array_cells,
     column_warnings,
     detect_role,
+    incomplete_integer_dtype,
     is_missing,
     is_true_word,
+    label_merge_warning,
+    marked_dtype,
+    marked_note,
+    marker_counts,
+    read_marked_cell,
+    reads_as_array_texts,
     reads_as_boolean,
+    reads_as_marked_numbers,
 )
 
 # Distinct values kept per column while merging facts; past this a column's distinct count is
@@ -196,6 +211,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
                 raise TableError(f"{name}: column {column!r} {exc}.") from None
     _exact_distinct(client, frame, facts, conversions)
     infos, how = _type_columns(name, header, facts, n, warnings, fmt)
+    _array_text_shapes(client, frame, facts, how, name, partition_rows)
     table = PartitionedTable(
         name=name, path=str(path), digest=digest, format=fmt, columns=tuple(infos),
         id_column=next((c.name for c in infos if c.role == "id"), None),
@@ -331,6 +347,8 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
         facts["kind"] = "text"
         facts["words"] = None
         facts.update(_text_counts(text, ~missing_mask))
+        facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
+        facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
         return facts
     if not from_text and kind in "biuf":
         facts.update(_number_facts(series[~missing_mask] if kind == "f" else series))
@@ -364,6 +382,8 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
     lowered = set(text.str.strip().str.lower().unique().tolist())
     facts["words"] = lowered if len(lowered) <= 2 else None
     facts.update(_text_counts(text, ~missing_mask))
+    facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
+    facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
     return facts
 
 
@@ -471,6 +491,8 @@ def _merge_facts(a: dict, b: dict) -> dict:
                 else:
                     counts[key] = (count, first + a["n"])
             out["counts"] = counts if len(counts) <= DISTINCT_CAP else None
+        out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
+        out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
         return out
     out["count"] = a["count"] + b["count"]
     out["inf"] = a["inf"] or b["inf"]
@@ -509,7 +531,8 @@ def _like(empty: dict, other: dict) -> dict:
     if kind == "list":
         out["shapes"] = {}
     elif kind == "text":
-        out.update(words=set(), counts={}, first_values=[], first_positions=[])
+        out.update(words=set(), counts={}, first_values=[], first_positions=[],
+                   marked=marked_facts([], []))
     else:
         values = other["values"]
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
@@ -527,8 +550,10 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
     if not over:
         return
     csv_columns = {c for c, how in conversions if how == "csv"}
+    # marked numbers count their plain numbers, typed as they will be
+    marked = {c: _marked_type(facts[c]["marked"]) for c in over if _reads_marked(facts[c])}
     buckets = max(1, min(32, frame.npartitions))
-    pieces = [delayed(_bucketed_uniques)(part, over, csv_columns, buckets)
+    pieces = [delayed(_bucketed_uniques)(part, over, csv_columns, buckets, marked)
               for part in frame[over].to_delayed()]
     totals = []
     for column in over:
@@ -542,11 +567,16 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
         k += buckets
 
 
-def _bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int) -> dict:
+def _bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int,
+                      marked: dict) -> dict:
     out = {}
     for column in columns:
         series = frame[column].dropna()
-        if column in csv_columns:
+        if column in marked:
+            series = _marked_values(series, marked[column]).dropna()
+            if marked[column] not in ("integer", "real"):
+                series = series.map(str)   # exact values hash alike by their text
+        elif column in csv_columns:
             numbers = pd.to_numeric(series, errors="coerce")
             if not numbers.isna().any():
                 series = numbers
@@ -582,6 +612,193 @@ def _tree(items: list, combine, *, final=None, split_every: int = 8):
 
 
 # ----------------------------------------------------------------------------------------
+# Marked numbers: numbers with intervals and marker words, read by analysis.table's rule
+
+
+def marked_facts(values: list, positions) -> dict | None:
+    """What a run of filled cells says about reading its column as marked numbers.
+
+    ``values`` are the cells, ``positions`` their 0-based rows in the run. None when a cell
+    rules the reading out (a cell that is no number, interval or word, or more different words
+    than :data:`analysis.table.MARKER_RULE` allows); cells are typed by
+    :func:`analysis.table.read_marked_cell`, as in memory.
+    """
+    out = {"numbers": 0, "intervals": 0, "words": {}, "distinct": set(), "float": False,
+           "fraction": False, "inf": False, "minimum": None, "maximum": None, "total": 0.0,
+           "invalid": None, "backwards": None}
+    for position, value in zip(positions, values):
+        kind, parsed = read_marked_cell(value)
+        if kind == "number":
+            _add_number(out, parsed)
+        elif kind == "interval":
+            out["intervals"] += 1
+            low, high = parsed
+            out["float"] |= isinstance(low, float) or isinstance(high, float)
+            out["fraction"] |= isinstance(low, Fraction) or isinstance(high, Fraction)
+            if out["backwards"] is None and Fraction(low) > Fraction(high):
+                out["backwards"] = (int(position), str(value).strip(), low, high)
+        elif kind == "word":
+            out["words"][parsed] = out["words"].get(parsed, 0) + 1
+            if len(out["words"]) > MARKER_RULE.max_words:
+                return None
+        elif kind == "invalid":
+            out["invalid"] = out["invalid"] or (int(position), parsed)
+        elif kind != "missing":
+            return None
+    return out
+
+
+def _add_number(out: dict, value) -> None:
+    out["numbers"] += 1
+    out["float"] |= isinstance(value, float)
+    out["fraction"] |= isinstance(value, Fraction)
+    out["inf"] |= isinstance(value, float) and np.isinf(value)
+    out["minimum"] = value if out["minimum"] is None else min(out["minimum"], value)
+    out["maximum"] = value if out["maximum"] is None else max(out["maximum"], value)
+    out["total"] += float(value)
+    if out["distinct"] is not None:
+        out["distinct"].add(value)
+        if len(out["distinct"]) > DISTINCT_CAP:
+            out["distinct"] = None
+
+
+def merge_marked(a: dict | None, b: dict | None, offset: int) -> dict | None:
+    """The marked facts of two consecutive runs (``b`` starts at row ``offset`` of ``a``)."""
+    if a is None or b is None:
+        return None
+    words = dict(a["words"])
+    for word, count in b["words"].items():
+        words[word] = words.get(word, 0) + count
+    if len(words) > MARKER_RULE.max_words:
+        return None
+    distinct = None if a["distinct"] is None or b["distinct"] is None \
+        else a["distinct"] | b["distinct"]
+    ends = [v for v in (a["minimum"], b["minimum"]) if v is not None]
+    tops = [v for v in (a["maximum"], b["maximum"]) if v is not None]
+    later = {key: None if b[key] is None else (b[key][0] + offset, *b[key][1:])
+             for key in ("invalid", "backwards")}
+    return {"numbers": a["numbers"] + b["numbers"], "intervals": a["intervals"] + b["intervals"],
+            "words": words,
+            "distinct": distinct if distinct is None or len(distinct) <= DISTINCT_CAP else None,
+            "float": a["float"] or b["float"], "fraction": a["fraction"] or b["fraction"],
+            "inf": a["inf"] or b["inf"], "minimum": min(ends) if ends else None,
+            "maximum": max(tops) if tops else None, "total": a["total"] + b["total"],
+            "invalid": a["invalid"] or later["invalid"],
+            "backwards": a["backwards"] or later["backwards"]}
+
+
+def _reads_marked(f: dict, requested: bool = False) -> bool:
+    """Whether a column's merged facts read as marked numbers (analysis.table's rule);
+    ``requested`` when the user gave the column the role invariant."""
+    m = f.get("marked") if f.get("kind") == "text" else None
+    if m is None:
+        return False
+    if not requested and f.get("words") and reads_as_boolean(f["words"]):
+        return False   # true/false words come first, as in memory
+    distinct = DISTINCT_CAP if m["distinct"] is None else len(m["distinct"])
+    # a cell that fails to parse counts as a mark, so that its column is read (and refused)
+    return reads_as_marked_numbers(numbers=m["numbers"],
+                                   intervals=m["intervals"] + (m["invalid"] is not None),
+                                   words=m["words"], distinct_numbers=distinct,
+                                   requested=requested)
+
+
+def _marked_type(m: dict) -> str:
+    dtype = marked_dtype(has_float=m["float"], has_fraction=m["fraction"])
+    if dtype == "integer" and m["numbers"]:
+        dtype = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[0]
+    return dtype
+
+
+def _as_marked(name: str, column: str, f: dict) -> tuple[dict, ColumnInfo]:
+    """Number facts (for the overview and ranges) and the column's description, for a column
+    whose merged facts read as marked numbers; a bad interval or cell is a TableError."""
+    m = f["marked"]
+    if m["invalid"] is not None:
+        row, reason = m["invalid"]
+        raise TableError(f"{name}, row {row + 1}, column {column!r}: {reason}. Fix the cell "
+                         "or mark the column as text.")
+    if m["backwards"] is not None:
+        row, text, low, high = m["backwards"]
+        raise TableError(f"{name}, row {row + 1}, column {column!r}: the interval {text!r} "
+                         f"has its low end {low} above its high end {high}. Write intervals "
+                         "as [low, high] with low <= high.")
+    dtype = _marked_type(m)
+    note = ""
+    if dtype == "real":
+        note = "has infinite values" if m["inf"] else ""
+    elif dtype in ("integer", "big integer") and m["numbers"]:
+        note = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[1]
+    distinct = f.get("distinct")
+    values = m["distinct"]
+    if values is not None:
+        convert = {"real": float, "rational": Fraction}.get(dtype, int)
+        values = sorted({convert(v) for v in values})
+        distinct = len(values)
+    word_cells = sum(m["words"].values())
+    missing = f["missing"] + m["intervals"] + word_cells
+    wide = dtype in ("real", "integer")
+    number_facts = {
+        "n": f["n"], "missing": missing, "kind": "float" if wide else "bigint",
+        "count": m["numbers"], "inf": m["inf"], "integral": dtype != "real", "big": False,
+        "total": m["total"], "minimum": m["minimum"], "maximum": m["maximum"],
+        "values": None if values is None else np.array(
+            values, dtype=np.float64 if wide else object),
+        "distinct": distinct, "marked": m}
+    info = ColumnInfo(column, "invariant", dtype, missing, distinct, "invariant",
+                      marked_note(note, m["intervals"], m["words"]), m["intervals"],
+                      marker_counts(m["words"]))
+    return number_facts, info
+
+
+def _marked_values(series: pd.Series, dtype: str) -> pd.Series:
+    """A raw marked column typed as in memory: plain numbers kept, other cells missing."""
+    numbers = []
+    for value in series.tolist():
+        kind, parsed = read_marked_cell(value)
+        numbers.append(parsed if kind == "number" else None)
+    if dtype in ("integer", "real"):
+        return pd.Series([np.nan if v is None else float(v) for v in numbers],
+                         dtype=np.float64, index=series.index)
+    convert = Fraction if dtype == "rational" else int
+    return pd.Series([None if v is None else convert(v) for v in numbers], dtype=object,
+                     index=series.index)
+
+
+def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_rows) -> None:
+    """Check every cell of the JSON-array text columns, as in memory, and count their shapes
+    (a bad cell is a TableError naming its row in the whole table)."""
+    from dask import delayed
+
+    columns = [c for c, h in how if h == "array_text"]
+    if not columns:
+        return
+    offsets = np.concatenate([[0], np.cumsum(partition_rows)[:-1]]).astype(int)
+    pieces = [delayed(_shapes_of_texts)(part, columns, name, int(offsets[k]))
+              for k, part in enumerate(frame[columns].to_delayed())]
+    found = client.gather(client.compute(pieces))
+    for column in columns:
+        shapes: dict[str, int] = {}
+        for piece in found:
+            for shape, count in piece[column].items():
+                shapes[shape] = shapes.get(shape, 0) + count
+        f = facts[column]
+        facts[column] = {"n": f["n"], "missing": f["missing"], "kind": "list", "shapes": shapes}
+
+
+def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) -> dict:
+    out = {}
+    for column in columns:
+        shapes: dict[str, int] = {}
+        for value in array_cells(frame[column], name, column, first_row=first_row).tolist():
+            if value is not None:
+                shape = "x".join(map(str, np.shape(value)))
+                shapes[shape] = shapes.get(shape, 0) + 1
+        out[column] = shapes
+    return out
+
+
+# ----------------------------------------------------------------------------------------
 # Typing: the same dtypes and roles as analysis.table gives the same data in memory
 
 
@@ -591,19 +808,55 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
     id_taken = False
+    merged: list[str] = []   # said before the columns' own warnings, as in memory
+    start = len(warnings)
     for column in header:
         f = facts[column]
-        dtype, note, convert = _dtype_of(f, fmt)
+        marked = None
+        if _reads_marked(f):
+            facts[column], marked = _as_marked(name, column, f)
+            dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
+            missing, distinct = marked.missing, marked.distinct
+        else:
+            dtype, note, convert = _dtype_of(f, fmt)
+            missing, distinct = f["missing"], _distinct_of(f, dtype)
+            if dtype == "text" and reads_as_array_texts(f.get("brackets", 0),
+                                                        f["n"] - f["missing"]):
+                # JSON-array text: arrays, every cell checked by analysis.table's reader
+                dtype, note, convert, distinct = "array", "", "array_text", -1
+            elif dtype == "text" and _merge_labels(name, column, f, n, merged):
+                convert, distinct = "strip", len(f["counts"])
         if convert:
             how.append((column, convert))
-        missing = f["missing"]
-        distinct = _distinct_of(f, dtype)
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
         warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
-        infos.append(ColumnInfo(column, role, dtype, missing, distinct, role, note))
+        info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
+        infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
+    warnings[start:start] = merged
     return infos, how
+
+
+def _merge_labels(name: str, column: str, f: dict, n: int, merged: list[str]) -> bool:
+    """Labels differing only by surrounding spaces made one, when analysis.table's rule
+    says so: the column's counts are merged and the warning goes to ``merged``."""
+    counts = f.get("counts")
+    if counts is None:
+        return False
+    stripped: dict[str, tuple[int, int]] = {}
+    for label, (count, first) in counts.items():
+        key = label.strip()
+        had = stripped.get(key, (0, first))
+        stripped[key] = (had[0] + count, min(had[1], first))
+    padded = sum(count for label, (count, _) in counts.items() if label != label.strip())
+    warning = label_merge_warning(name, column, padded=padded, written=len(counts),
+                                  labels=len(stripped), missing=f["missing"], rows=n)
+    if warning is None:
+        return False
+    merged.append(warning)
+    f["counts"] = stripped
+    return True
 
 
 def _dtype_of(f: dict, fmt: str) -> tuple[str, str, str]:
@@ -670,13 +923,27 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
 
     ``conversions`` pairs a column with how to convert it: "number" (text to numbers),
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
-    "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first.
+    "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
+    "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing;
+    "array_text" reads JSON-array text as arrays; "strip" reads labels without surrounding
+    spaces.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
         if column not in frame.columns:
             continue
         series = frame[column]
+        if how.startswith("marked:"):
+            frame[column] = _marked_values(series, how.split(":", 1)[1])
+            continue
+        if how == "array_text":
+            frame[column] = array_cells(series, "", column)
+            continue
+        if how == "strip":
+            frame[column] = pd.Series([None if is_missing(v) else str(v).strip()
+                                       for v in series.tolist()], dtype=object,
+                                      index=series.index)
+            continue
         if how.startswith("csv+"):
             how = how[4:]
             if how in ("float", "int64", "bool"):
@@ -719,6 +986,7 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
         table.column(column)
     infos = []
     how = dict(table.conversions)
+    facts = dict(table.facts)
     for info in table.columns:
         role = roles.get(info.name)
         if id_column is not None and info.role == "id" and info.name != id_column \
@@ -733,12 +1001,18 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
                 raise StepError(f"{table.name}: column {info.name!r}: turning arrays into text "
                                 "is not done on the dask engine; use --engine local.")
             if info.dtype not in ("text",):
-                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})")
+                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})",
+                              intervals=0, markers={})
                 how[info.name] = "text"
         elif role == "invariant":
             if info.dtype == "boolean":
                 new = replace(new, dtype="integer")
                 how[info.name] = "bool_to_int"
+            elif info.dtype == "text" and _reads_marked(facts[info.name], requested=True):
+                # asked for outright: only the limit on different words applies, as in memory
+                facts[info.name], marked = _as_marked(table.name, info.name, facts[info.name])
+                new = replace(marked, detected_role=info.detected_role)
+                how[info.name] = "marked:" + marked.dtype
             elif info.dtype not in ("integer", "real", "big integer"):
                 raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
                                 "on the dask engine only numbers and flags can be invariants.")
@@ -767,7 +1041,7 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
         raise TableError(f"{table.name}: only one column can be the id; got "
                          f"{', '.join(map(repr, ids))}. Give the others another role.")
     return replace(table, columns=tuple(infos), id_column=ids[0] if ids else None,
-                   conversions=tuple(how.items()))
+                   conversions=tuple(how.items()), facts=facts)
 
 
 # ----------------------------------------------------------------------------------------
