@@ -129,20 +129,40 @@ def _ids(ids, limit: int = 6, total: int | None = None) -> str:
     return shown + (f", … ({total} in all)" if total > limit else "")
 
 
+OWN_STATEMENT = "a statement of my own…"
+
+
 def _breakers_action(ctx, result, nearly, near) -> None:
-    """One action per statement a few objects break: a separator step whose target is
-    "breaks this statement", to ask whether the breakers can be told apart."""
-    statements = {s.text: s for s in (*nearly, *near, *(c for c in result.congruences
-                                                       if c.violation_count))}
-    if not statements:
-        return
-    left, right = st.columns([3, 1], vertical_alignment="bottom")
-    chosen = left.selectbox("What sets the objects that break a statement apart?",
-                            list(statements), key=ctx.key("breaks_choice"))
+    """One action per statement a few objects break, or one the user writes: a separator
+    step whose target is "breaks this statement", to ask whether the breakers can be told
+    apart."""
     from analysis.derived import Statement
+    from analysis.errors import StepError
     from app import study_section
 
-    statement = Statement.from_json(statements[chosen].to_json())
+    statements = {s.text: s for s in (*nearly, *near, *(c for c in result.congruences
+                                                       if c.violation_count))}
+    left, right = st.columns([3, 1], vertical_alignment="bottom")
+    chosen = left.selectbox("What sets the objects that break a statement apart?",
+                            [*statements, OWN_STATEMENT], key=ctx.key("breaks_choice"))
+    if chosen != OWN_STATEMENT:
+        statement = Statement.from_json(statements[chosen].to_json())
+    else:
+        text = st.text_input("Statement", key=ctx.key("breaks_text"),
+                             placeholder="chromatic_number - max_degree <= 0",
+                             help="A sum of coefficient*column terms, then =, <=, >= or "
+                                  "≡ r (mod m), then a number.")
+        if not text.strip():
+            return
+        try:
+            statement = Statement.parse(text)
+            unknown = [name for name, _ in statement.terms
+                       if name not in {c.name for c in ctx.table.columns}]
+            if unknown:
+                raise StepError(f"the table has no column {unknown[0]!r}.")
+        except StepError as exc:
+            st.error(f"{exc}")
+            return
     right.button("Add a separator step", key=ctx.key("breaks_add"), icon=":material/add:",
                  width="stretch", on_click=study_section.add_step_with,
                  args=("separator", {"target_statement": statement.to_json()}))

@@ -555,3 +555,27 @@ def test_a_statement_few_objects_break_adds_a_separator_on_its_breakers():
     at.button(key=f"s{new_uid}.run").click().run()
     assert not at.exception, [e.value for e in at.exception]
     assert results(at)[-1].target == "breaks: " + Statement.parse(statement).text
+
+
+def test_a_statement_of_ones_own_adds_a_separator_on_its_breakers():
+    # Brooks' theorem: a connected graph other than a complete graph or an odd cycle has
+    # chromatic number at most its largest degree; the user types the bound to ask about
+    # the graphs that break it
+    from app.panels.relations import OWN_STATEMENT
+
+    at = open_page("graphs_up_to_7.csv")
+    uid = add_step(at, "relations")
+    at.button(key=f"s{uid}.run").click().run()
+    at.selectbox(key=f"s{uid}.breaks_choice").set_value(OWN_STATEMENT).run()
+    at.text_input(key=f"s{uid}.breaks_text").input("chromatic_number - girth <= 0").run()
+    assert any("no column 'girth'" in e for e in texts(at.error)), texts(at.error)
+    at.text_input(key=f"s{uid}.breaks_text").input("chromatic_number - max_degree <= 0").run()
+    assert not at.error
+    at.button(key=f"s{uid}.breaks_add").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    added = study(at).steps[-1]
+    assert added.kind == "separator"
+    from analysis.derived import Statement
+
+    assert Statement.from_json(added.params["target_statement"]).text == \
+        "chromatic_number - max_degree <= 0"
