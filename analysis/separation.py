@@ -1102,10 +1102,15 @@ class _Run:
         for k, position in enumerate(rows):
             interval = intervals.get(int(position))
             value = float(guesses[k]) if self.regression else self.classes[int(guesses[k])]
+            estimate = value
+            if self.regression and self.integer_target:
+                # a whole-number target is predicted as a whole number, as it is scored
+                value = int(round(value))
             inside = None
             if interval is not None and self.regression:
                 inside = bool(interval[0] <= value <= interval[1])
             out.append({"row": row_id(table.row_ids[position]), "prediction": value,
+                        "estimate": estimate,
                         "confidence": None if np.isnan(confidence[k]) else float(confidence[k]),
                         "typical_error": typical,
                         "interval": None if interval is None else [float(interval[0]),

@@ -562,3 +562,74 @@ def test_downloaded_graphs_keep_their_rows_in_a_separator():
     result = SeparatorStep(target="bipartite", permutations=0, repeats=1).run(table)
     assert "independence_number" in result.left_out_columns
     assert any("independence_number" in w for w in result.warnings)
+
+
+# The stories of sample_tables/README.md, one per kind of finding, checked as told there.
+
+
+def test_story_congruence_on_elliptic_curves():
+    # Lagrange and Cauchy: the points of order dividing 2 form a subgroup of order 1, 2 or 4,
+    # and the group has a point of order 2 exactly when its order is even; so the number of
+    # points and two_torsion have the same parity
+    from analysis.relations import RelationsStep
+
+    result = RelationsStep(bounds=False).run(load_table(TABLES / "elliptic_curves.csv"))
+    found = {c.text: c for c in result.congruences}
+    fact = found["points + two_torsion ≡ 0 (mod 2)"]
+    assert fact.violation_count == 0 and fact.holds_on == result.n_rows
+
+
+def test_story_the_graphs_breaking_brooks_bound():
+    # Brooks' theorem (1941): a connected graph has chromatic number at most its largest
+    # degree unless it is a complete graph or an odd cycle
+    from analysis.derived import Statement
+    from analysis.separation import SeparatorStep
+
+    table = load_table(TABLES / "graphs_up_to_7.csv")
+    statement = Statement.parse("chromatic_number - max_degree <= 0")
+    frame = table.frame
+    breaks = statement.breaks({name: table.exact(name) for name, _ in statement.terms})
+    atlas = nx.graph_atlas_g()
+    connected = frame["connected"].to_numpy(dtype=bool)
+    broken = {frame["graph"][i] for i in np.flatnonzero(np.asarray(breaks) & connected)}
+    expected = set()
+    for index in range(1, len(atlas)):
+        g = atlas[index]
+        n = g.number_of_nodes()
+        complete = g.number_of_edges() == n * (n - 1) // 2
+        odd_cycle = n % 2 == 1 and n >= 3 and nx.is_connected(g) and \
+            all(d == 2 for _, d in g.degree())
+        if complete or odd_cycle:
+            expected.add(f"G{index:04d}")
+    assert broken == expected and len(broken) == 9
+    result = SeparatorStep(target_statement=statement.to_json(), seed=0).run(table)
+    assert result.beats_chance
+    assert result.importance[0].feature == "regular"   # both exceptions are regular graphs
+
+
+def test_story_open_chromatic_numbers_predicted():
+    # the downloaded copy hides some chromatic numbers behind their bounds; the exact values
+    # are in graphs_up_to_7.csv (exhaustive search, checked above)
+    from analysis.separation import SeparatorStep
+
+    truth = dict(_records(load_table(TABLES / "graphs_up_to_7.csv"), "graph",
+                          "chromatic_number"))
+    result = SeparatorStep(target="chromatic_number", seed=0).run(
+        load_table(TABLES / "graphs_as_downloaded.csv"))
+    opened = result.open_predictions
+    assert len(opened) >= 300
+    right = sum(p["prediction"] == truth[p["row"]] for p in opened)
+    inside = sum(bool(p["inside"]) for p in opened)
+    assert right >= 0.9 * len(opened) and inside >= 0.95 * len(opened)
+
+
+def test_story_what_an_odd_class_number_rests_on():
+    # genus theory (Gauss): the class number of an imaginary quadratic field is odd exactly
+    # when its discriminant has one prime divisor
+    from analysis.separation import SeparatorStep
+
+    result = SeparatorStep(target="class_number_odd", seed=0).run(
+        load_table(TABLES / "quadratic_fields.csv"))
+    assert result.importance[0].feature == "prime_divisors"
+    assert result.importance[0].mean > 0.9
+    assert result.equation.text == "prime_divisors <= 1"
