@@ -554,11 +554,8 @@ def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> M
 
     def say(i: int, standing: float) -> str:
         said = classes[guess[i]]
-        if boolean and said in ("True", "False"):
-            words = target if said == "True" else f"not {target}"
-            return f"predicted {words} with probability {probability[i, guess[i]]:.2f}"
-        return (f"predicted {target} = {said} with probability {probability[i, guess[i]]:.2f} "
-                f"(the table says {labels[i]})")
+        return label_reason(target, said, probability[i, guess[i]], labels[i],
+                            boolean and said in ("True", "False"))
 
     return Measure(1.0 - p_true, say, lambda i, s: guess[i] != own[i], "separator")
 
@@ -637,6 +634,17 @@ def label_text(value) -> str:
     if isinstance(value, float) and value.is_integer():
         return str(int(value))
     return str(value)
+
+
+def label_reason(target: str, said: str, probability: float, table_says: str,
+                 flag: bool) -> str:
+    """Why a row whose label a cross-validated model doubts is worth a look, in words."""
+    if flag:
+        words = target if said == "True" else f"not {target}"
+        return (f"a cross-validated logistic regression predicts {words} with probability "
+                f"{probability:.2f}")
+    return (f"a cross-validated logistic regression predicts {target} = {said} with "
+            f"probability {probability:.2f} (the table says {table_says})")
 
 
 def number_text(x: float) -> str:

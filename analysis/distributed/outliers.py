@@ -348,7 +348,7 @@ def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int
 
 
 def _separator_measure(step, scores, details):
-    from analysis.outliers import RESIDUAL_REASON, Measure, number_text
+    from analysis.outliers import RESIDUAL_REASON, Measure, label_reason, number_text
 
     target = step.target
     if "z" in details:
@@ -366,11 +366,8 @@ def _separator_measure(step, scores, details):
 
     def say_class(i, s):
         said = classes[guess[i]] if guess[i] < len(classes) else str(guess[i])
-        if said in ("True", "False"):
-            words = target if said == "True" else f"not {target}"
-            return f"predicted {words} with probability {probability[i]:.2f}"
-        return (f"predicted {target} = {said} with probability {probability[i]:.2f} "
-                f"(the table says {labels[i]})")
+        return label_reason(target, said, probability[i], labels[i],
+                            said in ("True", "False"))
 
     return Measure(scores, say_class, lambda i, s: guess[i] != truth[i], "separator")
 
