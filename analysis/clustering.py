@@ -99,6 +99,7 @@ class ClusteringResult:
     compare: str | None = None
     agreement: dict[str, float] | None = None
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()  # what the user should know first: rows or columns lost
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "clustering"
 
@@ -128,6 +129,7 @@ class ClusteringResult:
             "n_rows": self.n_rows,
             "seed": self.seed,
             "notes": list(self.notes),
+            "warnings": list(self.warnings),
             "elapsed_seconds": self.elapsed_seconds,
         }
         if self.compare is not None:
@@ -147,6 +149,7 @@ class ClusteringResult:
             name = "noise" if profile.cluster == NOISE else f"cluster {profile.cluster}"
             lines.append(f"  {name} ({profile.size} rows): "
                          + "; ".join(profile.distinguished_by))
+        lines.extend(f"  warning: {w}" for w in self.warnings)
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -190,7 +193,7 @@ class ClusteringStep:
                             missing=self.missing,
                             intervals=self.intervals)
         n = len(fm.rows)
-        notes = list(fm.warnings) + list(fm.notes)
+        notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "clustering")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
@@ -216,7 +219,8 @@ class ClusteringStep:
             sweep=tuple(e for e, _ in runs), profiles=profiles, reason=reason,
             features=tuple(fm.names), standardize=self.standardize, n_rows=n, seed=self.seed,
             silhouette=entry.silhouette, compare=self.compare, agreement=agreement,
-            notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
+            notes=tuple(dict.fromkeys(notes)), warnings=tuple(fm.warnings),
+            elapsed_seconds=time.perf_counter() - started,
         )
 
     def check(self) -> None:

@@ -127,6 +127,7 @@ class OutliersResult:
     seed: int
     features: tuple[str, ...]
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()  # what the user should know first: rows or columns lost
     elapsed_seconds: float = 0.0
     combination: str = COMBINATION
     open_values: tuple[OpenValue, ...] = ()  # confident predictions that would settle a value
@@ -149,6 +150,7 @@ class OutliersResult:
             "seed": self.seed,
             "features": list(self.features),
             "notes": list(self.notes),
+            "warnings": list(self.warnings),
             "elapsed_seconds": self.elapsed_seconds,
             "open_values": [v.to_json() for v in self.open_values],
         })
@@ -183,6 +185,7 @@ class OutliersResult:
             if len(self.open_values) > 10:
                 lines.append(f"    ... {len(self.open_values) - 10} more (--json for all)")
         lines.append(f"  score: {self.combination}.")
+        lines.extend(f"  warning: {w}" for w in self.warnings)
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -227,7 +230,7 @@ class OutliersStep:
             raise StepError(f"{table.name}: ranking objects needs at least 5 rows with every "
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
-        notes = list(fm.warnings) + list(fm.notes)
+        notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
@@ -270,6 +273,7 @@ class OutliersStep:
             outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
             measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
             seed=self.seed, features=tuple(fm.names), notes=tuple(dict.fromkeys(notes)),
+            warnings=tuple(fm.warnings),
             elapsed_seconds=time.perf_counter() - started, open_values=opened,
         )
 

@@ -117,6 +117,7 @@ class ProjectionResult:
     loadings: dict[str, tuple[float, float]] | None = None
     axis_titles: tuple[str, str] = ("x", "y")
     notes: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()  # what the user should know first: rows or columns lost
     elapsed_seconds: float = 0.0
     kind: ClassVar[str] = "projection"
 
@@ -161,6 +162,7 @@ class ProjectionResult:
             "sampled": self.sampled,
             "seed": self.seed,
             "notes": list(self.notes),
+            "warnings": list(self.warnings),
             "elapsed_seconds": self.elapsed_seconds,
         })
         return {"method": data.pop("method"), "coordinates": coordinates, **data}
@@ -183,6 +185,7 @@ class ProjectionResult:
                 top = sorted(self.loadings.items(), key=lambda kv: -abs(kv[1][index]))[:3]
                 words = ", ".join(f"{name} ({w[index]:+.2f})" for name, w in top)
                 lines.append(f"  {axis} ({self.axis_titles[index]}) is mostly {words}")
+        lines.extend(f"  warning: {w}" for w in self.warnings)
         lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
@@ -227,7 +230,7 @@ class ProjectionStep:
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing,
                             intervals=self.intervals)
-        notes = list(fm.warnings) + list(fm.notes)
+        notes = list(fm.notes)
         if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
             notes.append(f"{METHOD_TITLES[self.method]} uses every row; the sample size "
                          "applies to UMAP and t-SNE only.")
@@ -270,6 +273,7 @@ class ProjectionStep:
             y=np.asarray(coordinates[:, 1], dtype=float),
             features=tuple(fm.names), standardize=self.standardize, target=self.target,
             n_rows=n, sampled=sampled, seed=self.seed, notes=tuple(notes),
+            warnings=tuple(fm.warnings),
             elapsed_seconds=elapsed, **extra,
         )
 

@@ -411,7 +411,7 @@ def _projection(data: dict) -> str:
         facts.append(("explained variance ratio", ", ".join(_text(r) for r in ratio[:6])))
     if data.get("features"):
         facts.append(("features", _names(data["features"], "features")))
-    return _facts(facts)
+    return _warnings(data) + _facts(facts)
 
 
 def _clustering(data: dict) -> str:
@@ -426,7 +426,7 @@ def _clustering(data: dict) -> str:
         facts.append((f"agreement with {_text(label)}",
                       f"adjusted Rand index {_text(agreement.get('ari'))}, normalized mutual "
                       f"information {_text(agreement.get('nmi'))}"))
-    parts = [_facts(facts)]
+    parts = [_warnings(data), _facts(facts)]
     profiles = [p for p in data.get("profiles") or [] if isinstance(p, dict)]
     if profiles:
         parts.append("<h3>What sets each cluster apart</h3>")
@@ -625,7 +625,16 @@ def _relations(data: dict) -> str:
     return "\n".join(parts)
 
 
+def _warnings(data: dict) -> str:
+    """A step's warnings (rows or columns it lost), first in its section."""
+    return "\n".join(f"<p class=\"warning\">{_e(w)}</p>" for w in data.get("warnings") or [])
+
+
 def _outliers(data: dict) -> str:
+    return _warnings(data) + _ranked(data)
+
+
+def _ranked(data: dict) -> str:
     ranked = data.get("outliers") or []
     rows = []
     for position, item in enumerate(ranked, start=1):

@@ -128,6 +128,12 @@ def linear_latex(terms, relation: str, constant) -> str:
     return f"{' '.join(parts) or '0'} {symbol} {_latex_number(constant)}"
 
 
+def warnings(lines) -> None:
+    """A step's warnings (rows or columns it lost), each in a warning box, first in its box."""
+    for line in lines or ():
+        st.warning(str(line))
+
+
 def notes(lines) -> None:
     """A step's notes (what was sampled, scaled, dropped or approximated) as one quiet line."""
     lines = [str(line).strip().rstrip(".") for line in lines if str(line).strip()]

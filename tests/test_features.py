@@ -526,3 +526,20 @@ def test_interval_cells_read_by_a_stated_end(end, expected):
 def test_an_unknown_interval_reading_is_refused_by_name():
     with pytest.raises(StepError, match="interval reading 'middle'"):
         build_features(_interval_table(), columns=["x"], intervals="middle")
+
+
+@pytest.mark.parametrize("kind", ["projection", "clustering", "outliers"])
+def test_lost_columns_and_rows_are_warnings_of_every_step(kind):
+    # the sample table's independence_number is missing in most rows: every step that builds
+    # features says so as a warning (first, in the summary too), not among its notes
+    from analysis.steps import make_step
+
+    table = load_table(Path(__file__).resolve().parent.parent / "sample_tables"
+                       / "graphs_as_downloaded.csv")
+    params = {"method": "pca"} if kind == "projection" else (
+        {"k": 2} if kind == "clustering" else {"relations": False})
+    result = make_step(kind, params).run(table)
+    assert any("independence_number" in w for w in result.warnings)
+    assert not any("independence_number" in n for n in result.notes)
+    assert result.to_json()["warnings"] == list(result.warnings)
+    assert "warning: left out of the features" in result.summary()

@@ -52,6 +52,7 @@ def settings_panel(ctx: settings.StepContext) -> None:
 
 
 def show(ctx: settings.StepContext, result) -> None:
+    display.warnings(result.warnings)
     table = ctx.table
     title = METHODS.get(result.method, result.method).split(" (")[0]
     st.markdown(f"**{title}, k = {result.k}** on {display.plural(result.n_rows, 'object')}. "

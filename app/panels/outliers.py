@@ -37,6 +37,7 @@ def settings_panel(ctx: settings.StepContext) -> None:
 
 
 def show(ctx: settings.StepContext, result) -> None:
+    display.warnings(result.warnings)
     table = ctx.table
     measures = ", ".join(result.measures) or "nothing: no measure tells the objects apart"
     st.markdown(f"**{display.plural(len(result.outliers), 'object')} to look at**, of "

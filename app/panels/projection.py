@@ -48,6 +48,7 @@ def settings_panel(ctx: settings.StepContext) -> None:
 
 
 def show(ctx: settings.StepContext, result) -> None:
+    display.warnings(result.warnings)
     table = ctx.table
     facts = [f"{display.number(result.n_projected)} objects drawn"
              + (f" (a random sample of {display.number(result.n_rows)})"
