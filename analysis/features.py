@@ -225,13 +225,14 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             text = (f"dropped {dropped} of {table.n_rows} rows with a missing value "
                     f"({int(bad.any(axis=1).sum())} in features, "
                     f"{int(target_missing.sum())} in the target).")
+            hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
             if dropped > DROPPED_ROWS_WARNING * table.n_rows:
                 warnings.append(text[0].upper() + text[1:-1] + f": more than "
                                 f"{DROPPED_ROWS_WARNING:.0%} of the table. Leave out the "
                                 "columns with most missing cells, or fill in missing values "
-                                "(missing: impute).")
+                                "(missing: impute)." + hint)
             else:
-                notes.append(text)
+                notes.append(text + hint)
             values = values[keep]
             rows = rows[keep]
         else:
@@ -268,9 +269,25 @@ def _read_intervals(table: Table, values: np.ndarray, features: list[Feature], e
                      f"{'midpoint' if end == 'midpoint' else end + ' end'}.")
 
 
+def _interval_hint(table: Table, columns: list[str], dropped: np.ndarray,
+                   intervals: str) -> str:
+    """A sentence for a drop that interval cells of the features caused in part: reading them
+    by one value would keep those rows."""
+    if intervals != "missing":
+        return ""
+    marked = np.zeros(table.n_rows, dtype=bool)
+    for name in columns:
+        marked[table.intervals(name).positions] = True
+    count = int((marked & dropped).sum())
+    if not count:
+        return ""
+    return (f" {count} of these rows are known by an interval in a feature column; reading "
+            "intervals by their low end, high end or midpoint (intervals) keeps them.")
+
+
 def _left_out_text(left_out: list[tuple[str, float]]) -> str:
     named = ", ".join(f"{name!r} (missing in {share:.0%} of rows)" for name, share in left_out)
-    return (f"left out of the features, being missing in more than "
+    return (f"Left out of the features, being missing in more than "
             f"{MISSING_SHARE_LIMIT:.0%} of the rows: {named}. Name the columns (columns) to "
             "use them anyway; rows missing them would then be dropped or filled in.")
 

@@ -1276,7 +1276,7 @@ def label_merge_warning(name: str, column: str, *, padded: int, written: int, la
     cells_word = "cell has" if padded == 1 else "cells have"
     return (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
             f"read without them, so the column's {written} labels as written are "
-            f"{labels} labels.")
+            f"{labels} label{'' if labels == 1 else 's'}.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:

@@ -101,11 +101,11 @@ def _pending_box(pg) -> None:
                            file_name=f"{slug(study.title or current.name)}.study.json",
                            mime="application/json", key="table.keep_file",
                            icon=":material/download:", on_click="ignore", width="stretch")
-        left, right = st.columns(2)
-        left.button(f"Open {waiting.name}", key="table.switch", type="primary",
-                    on_click=_open_waiting, width="stretch")
-        right.button(f"Stay with {current.name}", key="table.stay", on_click=_stay,
-                     width="stretch")
+        # one under the other: the sidebar is too narrow for two table names side by side
+        st.button(f"Open {waiting.name}", key="table.switch", type="primary",
+                  on_click=_open_waiting, width="stretch")
+        st.button(f"Stay with {current.name}", key="table.stay", on_click=_stay,
+                  width="stretch")
 
 
 def _open_waiting() -> None:

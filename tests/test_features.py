@@ -515,6 +515,7 @@ def test_interval_cells_read_by_a_stated_end(end, expected):
     assert len(table.intervals("x")) == 3
     dropped = build_features(table, columns=["x", "y"])
     assert list(dropped.row_ids) == ["a", "c", "e", "g", "h", "i", "j"]
+    assert any("3 of these rows are known by an interval" in w for w in dropped.warnings)
     read = build_features(table, columns=["x", "y"], intervals=end)
     assert len(read.rows) == 10
     values = dict(zip(read.row_ids, read.values[:, 0]))
@@ -542,4 +543,4 @@ def test_lost_columns_and_rows_are_warnings_of_every_step(kind):
     assert any("independence_number" in w for w in result.warnings)
     assert not any("independence_number" in n for n in result.notes)
     assert result.to_json()["warnings"] == list(result.warnings)
-    assert "warning: left out of the features" in result.summary()
+    assert "warning: Left out of the features" in result.summary()

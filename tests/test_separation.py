@@ -641,9 +641,9 @@ def test_a_mostly_empty_column_is_left_out_and_the_rows_kept():
     result = SeparatorStep(target="flag", permutations=0, repeats=1).run(_table(frame))
     assert result.rows_used >= 0.9 * n, result.rows_used
     assert result.left_out_columns == ("sparse",)
-    assert any("sparse" in w and "left out" in w for w in result.warnings), result.warnings
+    assert any("sparse" in w and "Left out" in w for w in result.warnings), result.warnings
     assert result.to_json()["left_out_columns"] == ["sparse"]
-    assert "warning: left out" in result.summary()
+    assert "warning: Left out" in result.summary()
 
 
 def test_many_dropped_rows_are_a_warning():
