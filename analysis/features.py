@@ -227,10 +227,16 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
                     f"{int(target_missing.sum())} in the target).")
             hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
             if dropped > DROPPED_ROWS_WARNING * table.n_rows:
+                advice = []
+                if bad.any():
+                    advice.append("Leave out the feature columns with most missing cells, or "
+                                  "fill in missing values (missing: impute).")
+                if target_missing.any():
+                    advice.append("Rows with no known target value cannot be learned from; "
+                                  "the separator predicts them for checking by hand.")
                 warnings.append(text[0].upper() + text[1:-1] + f": more than "
-                                f"{DROPPED_ROWS_WARNING:.0%} of the table. Leave out the "
-                                "columns with most missing cells, or fill in missing values "
-                                "(missing: impute)." + hint)
+                                f"{DROPPED_ROWS_WARNING:.0%} of the table. " + " ".join(advice)
+                                + hint)
             else:
                 notes.append(text + hint)
             values = values[keep]
