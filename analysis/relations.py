@@ -2045,5 +2045,6 @@ def _with_interval_rows(table, names: list[str], found: RelationsResult) -> Rela
                   zip((*relations, *bounds), (*found.relations, *found.bounds)))
     note = ("rows known only by an interval were held against each relation and bound: a row "
             "breaks one only when every value of its intervals does (listed with the "
-            f"breakers; {counted} such breaks), and is consistent with it otherwise.")
+            f"breakers; {counted} such break{'' if counted == 1 else 's'}), and is consistent "
+            "with it otherwise.")
     return replace(found, relations=relations, bounds=bounds, notes=(*found.notes, note))
