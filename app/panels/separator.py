@@ -24,6 +24,8 @@ KERNEL_APPROXIMATIONS = {
     "nystroem": "Nyström features",
     "sample": "exact machine on a sample",
 }
+READINGS = {"auto": "as a learning curve favours", "number": "a number (regression)",
+            "classes": "classes, one per value"}
 CONJECTURE = ("The equation holds on the rows of this table with the violations listed; "
               "it is a conjecture the table supports, not a proof.")
 ROWS_SHOWN = 200
@@ -73,6 +75,10 @@ def settings_panel(ctx: settings.StepContext) -> None:
                         {None: "chosen automatically", **{v: str(v) for v in positive}},
                         container=middle)
     settings.choice(ctx, "penalty", "Penalty", PENALTIES, container=right)
+    if _numeric_target(table, ctx.params.get("target")):
+        settings.choice(ctx, "reading", "Read the target as", READINGS, container=left,
+                        help="A whole-number invariant can be predicted as a number or each "
+                             "value as a class.")
     if st.toggle("More settings", key=ctx.key("more")):
         left, middle, right = st.columns(3)
         settings.real_number(ctx, "c", "C (inverse regularization)", minimum=1e-4,
@@ -90,6 +96,15 @@ def settings_panel(ctx: settings.StepContext) -> None:
                               help="Adds copies of each training row with its matrix's rows "
                                    "and columns permuted (never to test rows).")
         settings.seed(ctx, container=right)
+
+
+def _numeric_target(table, target: str | None) -> bool:
+    from analysis.features import is_numeric_target
+
+    try:
+        return bool(target) and is_numeric_target(table, target, "number")
+    except Exception:  # noqa: BLE001 - a missing target is reported when the step runs
+        return False
 
 
 def _classes(table, target: str | None) -> list:
@@ -120,6 +135,8 @@ def show(ctx: settings.StepContext, result) -> None:
         _regression_metrics(result)
     for warning in result.warnings:
         st.warning(warning)
+    if result.reading is not None and result.reading.chosen_by == "learning curve":
+        st.caption(result.reading.text)
     equations = list(result.equations) or ([result.equation] if result.equation else [])
     for number, equation in enumerate(equations):
         _equation(ctx, table, result, equation, number)

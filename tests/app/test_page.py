@@ -579,3 +579,24 @@ def test_a_statement_of_ones_own_adds_a_separator_on_its_breakers():
 
     assert Statement.from_json(added.params["target_statement"]).text == \
         "chromatic_number - max_degree <= 0"
+
+
+def test_a_whole_number_target_offers_its_reading_and_says_which_was_used():
+    from analysis.separation import READINGS
+    from app.panels.separator import READINGS as WORDS
+
+    assert list(WORDS) == list(READINGS)
+    at = open_page("graphs_up_to_7.csv")
+    uid = add_step(at, "separator")
+    at.selectbox(key=f"s{uid}.target").set_value("chromatic_number").run()
+    assert not at.exception, [e.value for e in at.exception]
+    reading = at.selectbox(key=f"s{uid}.reading")
+    assert reading.options == [WORDS[r] for r in READINGS]
+    reading.set_value("classes").run()
+    assert study(at).steps[-1].params["reading"] == "classes"
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert results(at)[-1].task == "classification"
+    # the flag target has no reading to choose
+    at.selectbox(key=f"s{uid}.target").set_value("bipartite").run()
+    assert not [s for s in at.selectbox if s.key == f"s{uid}.reading"]
