@@ -2073,6 +2073,49 @@ def find_formula(
     max_denominator = _check_max_denominator(max_denominator)
     if exact_columns is not None and len(exact_columns) != p:
         raise StepError(f"got {len(exact_columns)} exact_columns flags for {p} features.")
+    target_raw, target = _formula_target(y, n, target_name, row_ids)
+    target_exact = _exact_view(target_raw)
+    space = _Space(X, names, exact_columns, degree=1)
+    rng = np.random.default_rng(seed)
+    sample = np.arange(n) if n <= sample_size else np.sort(rng.choice(n, sample_size, False))
+    matrix = space.matrix(sample)
+    target_sample = target[sample]
+    candidates: set = set()
+    for direction in _formula_directions(matrix, target_sample):
+        candidates |= _snap_coefficients(direction, max_denominator)
+    candidates = sorted(
+        (c for c in candidates if max_terms is None or len(c) <= max_terms),
+        key=lambda c: (_formula_height(c), c),
+    )
+    scores = _sample_formula_scores(matrix, target_sample, candidates) if candidates else []
+    evaluations = [
+        _evaluate_formula(space, target, target_exact, candidates[i], max_denominator)
+        for i in _formula_shortlist(candidates, scores)
+    ]
+    evaluations.append(_evaluate_formula(space, target, target_exact, (), max_denominator))
+    best = _best_formula(evaluations)
+    method = (
+        "least squares on all features, on each feature alone and along a lasso path, "
+        f"coefficients rounded to rationals with denominators up to {max_denominator}, "
+        "checked on every row"
+    )
+    return Formula(
+        target=str(target_name),
+        terms=tuple(Term(names[index], coef) for index, coef in best.candidate),
+        constant=best.constant,
+        max_residual=best.max_residual,
+        rows_off=best.rows_off,
+        off_rows=tuple(row_ids[best.off].tolist()),
+        n_rows=n,
+        method=method,
+        notes=_formula_notes(best, sample.size, n),
+        feature_names=tuple(names),
+        exact=best.exact,
+    )
+
+
+def _formula_target(y, n: int, target_name: str, row_ids) -> tuple[np.ndarray, np.ndarray]:
+    """The target as given and as floats, checked: one finite number per row."""
     target_raw = np.asarray(y)
     if target_raw.shape != (n,):
         raise StepError(f"target '{target_name}': got {target_raw.size} values for {n} rows.")
@@ -2086,57 +2129,52 @@ def find_formula(
             f"target '{target_name}', row {_plain(row_ids[row])}: value is not a finite number. "
             "Drop rows with a missing target first."
         )
-    target_exact = _exact_view(target_raw)
-    space = _Space(X, names, exact_columns, degree=1)
-    rng = np.random.default_rng(seed)
-    sample = np.arange(n) if n <= sample_size else np.sort(rng.choice(n, sample_size, False))
-    matrix = space.matrix(sample)
+    return target_raw, target
+
+
+def _formula_directions(matrix: np.ndarray, target: np.ndarray) -> list[np.ndarray]:
+    """Least-squares coefficient vectors: on every varying feature, on each alone, and on the
+    supports along a least-angle (lasso) path."""
+    from sklearn.linear_model import lars_path
+
+    p = matrix.shape[1]
     mean, spread = matrix.mean(axis=0), matrix.std(axis=0)
     active = np.flatnonzero(spread > 0)
-    target_sample = target[sample]
+    ones = np.ones((len(target), 1))
     directions: list[np.ndarray] = []
-    ones = np.ones((sample.size, 1))
 
     def least_squares(columns):
-        coefs, *_ = np.linalg.lstsq(
-            np.hstack([matrix[:, columns], ones]), target_sample, rcond=None
-        )
+        coefs, *_ = np.linalg.lstsq(np.hstack([matrix[:, columns], ones]), target, rcond=None)
         full = np.zeros(p)
         full[columns] = coefs[:-1]
         directions.append(full)
 
+    if not active.size:
+        return directions
+    least_squares(list(active))
+    for j in active:
+        least_squares([j])
     supports: list[tuple[int, ...]] = []
-    if active.size:
-        least_squares(list(active))
-        for j in active:
-            least_squares([j])
-        from sklearn.linear_model import lars_path
+    Z = (matrix[:, active] - mean[active]) / spread[active]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            _, _, path = lars_path(Z, target - target.mean(), method="lar",
+                                   max_iter=min(active.size, 40))
+            for column in path.T[1:]:
+                support = tuple(active[np.flatnonzero(column)])
+                if support and support not in supports:
+                    supports.append(support)
+        except (ValueError, np.linalg.LinAlgError):
+            pass
+    for support in supports[:_MAX_SUPPORTS]:
+        least_squares(list(support))
+    return directions
 
-        Z = (matrix[:, active] - mean[active]) / spread[active]
-        centered = target_sample - target_sample.mean()
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            try:
-                _, _, path = lars_path(Z, centered, method="lar", max_iter=min(active.size, 40))
-                for column in path.T[1:]:
-                    support = tuple(active[np.flatnonzero(column)])
-                    if support and support not in supports:
-                        supports.append(support)
-            except (ValueError, np.linalg.LinAlgError):
-                pass
-        for support in supports[:_MAX_SUPPORTS]:
-            least_squares(list(support))
-    candidates: set = set()
-    for direction in directions:
-        candidates |= _snap_coefficients(direction, max_denominator)
-    candidates = sorted(
-        (c for c in candidates if max_terms is None or len(c) <= max_terms),
-        key=lambda c: (_formula_height(c), c),
-    )
-    if not candidates:
-        # No feature helps: the best formula is a constant.
-        candidates = []
-    scores = _sample_formula_scores(matrix, target_sample, candidates) if candidates else []
+
+def _formula_shortlist(candidates: list, scores: list) -> list[int]:
+    """The candidates worth checking on every row: the best eight on the sample, the best of
+    each number of terms, and the three simplest of those with the fewest rows off."""
     ranked = sorted(
         range(len(candidates)), key=lambda i: (scores[i], _formula_height(candidates[i]))
     )
@@ -2144,32 +2182,30 @@ def find_formula(
     by_terms: dict[int, int] = {}
     for i in ranked:
         by_terms.setdefault(len(candidates[i]), i)
-    for i in by_terms.values():
-        if i not in chosen:
-            chosen.append(i)
+    chosen += [i for i in by_terms.values() if i not in chosen]
     fewest_off = min((scores[i][0] for i in ranked), default=0)
-    sparsest = [i for i in ranked if scores[i][0] == fewest_off]
-    sparsest.sort(key=lambda i: _formula_height(candidates[i]))
-    for i in sparsest[:3]:
-        if i not in chosen:
-            chosen.append(i)
-    evaluations = [
-        _evaluate_formula(space, target, target_exact, candidates[i], max_denominator)
-        for i in chosen
-    ]
-    evaluations.append(_evaluate_formula(space, target, target_exact, (), max_denominator))
+    sparsest = sorted((i for i in ranked if scores[i][0] == fewest_off),
+                      key=lambda i: _formula_height(candidates[i]))
+    chosen += [i for i in sparsest[:3] if i not in chosen]
+    return chosen
+
+
+def _best_formula(evaluations: list):
+    """Fewest rows off; then within 1% of the best residual, the simplest formula."""
     fewest = min(e.rows_off for e in evaluations)
     eligible = [e for e in evaluations if e.rows_off == fewest]
     best_rms = min(e.rms for e in eligible)
     eligible = [e for e in eligible if e.rms <= 1.01 * best_rms + 1e-12 * (1 + abs(best_rms))]
-    best = min(
+    return min(
         eligible,
         key=lambda e: (_formula_height(e.candidate) if e.candidate else (0, 0, 0), e.rms),
     )
-    terms = tuple(Term(names[index], coef) for index, coef in best.candidate)
+
+
+def _formula_notes(best, sampled: int, n: int) -> tuple[str, ...]:
     notes = []
-    if sample.size < n:
-        notes.append(f"fitted on a sample of {sample.size} of {n} rows; verified on all {n} rows")
+    if sampled < n:
+        notes.append(f"fitted on a sample of {sampled} of {n} rows; verified on all {n} rows")
     else:
         notes.append(f"fitted and verified on all {n} rows")
     if best.exact:
@@ -2179,26 +2215,9 @@ def find_formula(
             "verified in floating point (a row is off when its residual exceeds 1e-9 of the "
             "target's size) because the target or a feature is not an exact value"
         )
-    if fewest and best.exact:
+    if best.rows_off and best.exact:
         notes.append(f"the constant is the most common exact residual; {best.rows_off} rows differ")
-    method = (
-        "least squares on all features, on each feature alone and along a lasso path, "
-        f"coefficients rounded to rationals with denominators up to {max_denominator}, "
-        "checked on every row"
-    )
-    return Formula(
-        target=str(target_name),
-        terms=terms,
-        constant=best.constant,
-        max_residual=best.max_residual,
-        rows_off=best.rows_off,
-        off_rows=tuple(row_ids[best.off].tolist()),
-        n_rows=n,
-        method=method,
-        notes=tuple(notes),
-        feature_names=tuple(names),
-        exact=best.exact,
-    )
+    return tuple(notes)
 
 
 def latex_statement(terms: Sequence[tuple[str, Fraction]], relation: str, constant) -> str:
