@@ -1581,19 +1581,8 @@ def find_linear_equation(
     directions: list[np.ndarray] = []
     hint_note = None
     if hint is not None:
-        try:
-            weights = np.asarray(hint[0], dtype=float).reshape(-1)
-            intercept = float(hint[1])
-        except (TypeError, ValueError, IndexError):
-            raise StepError("hint must be a pair (w, b) of a weight vector and a number.") from None
-        if weights.size != p or not np.all(np.isfinite(weights)):
-            raise StepError(f"hint weights must be {p} finite numbers, one per feature.")
+        weights, hint_note = _hint_direction(hint, space, positive)
         directions.append(weights)
-        hint_note = (
-            f"the fitted separator before rounding makes "
-            f"{_float_violations(space.Xf @ weights + intercept, positive)} violations on all "
-            f"{n} rows"
-        )
     fitter = None
     if active.size:
         Z = (matrix[:, active] - mean[active]) / spread[active]
@@ -1632,6 +1621,22 @@ def find_linear_equation(
         method=method,
         notes=notes,
     )
+
+
+def _hint_direction(hint, space, positive: np.ndarray) -> tuple[np.ndarray, str]:
+    """The weights of a fitted separator given as ``(w, b)``, checked, and a note on how many
+    rows it gets wrong before rounding."""
+    n, p = space.Xf.shape
+    try:
+        weights = np.asarray(hint[0], dtype=float).reshape(-1)
+        intercept = float(hint[1])
+    except (TypeError, ValueError, IndexError):
+        raise StepError("hint must be a pair (w, b) of a weight vector and a number.") from None
+    if weights.size != p or not np.all(np.isfinite(weights)):
+        raise StepError(f"hint weights must be {p} finite numbers, one per feature.")
+    return weights, (f"the fitted separator before rounding makes "
+                     f"{_float_violations(space.Xf @ weights + intercept, positive)} "
+                     f"violations on all {n} rows")
 
 
 def one_vs_rest_equations(
