@@ -1606,21 +1606,17 @@ def find_linear_equation(
         f"{result.tried} rounded candidates ranked on the sample, {result.finalists} checked on "
         "all rows"
     )
-    method = (
-        "sparse linear separators (L1-logistic path, lasso order, 1-norm support vector machine "
-        "as a linear program) on standardized features, normals rounded to rationals with "
-        f"denominators up to {max_denominator}, constant chosen exactly on all rows, "
-        "shortest description (terms plus violating rows) kept"
-    )
-    return _make_equation(
-        LinearEquation,
-        space,
-        result.best,
-        positive_class=positive_class,
-        row_ids=row_ids,
-        method=method,
-        notes=notes,
-    )
+    method = LINEAR_METHOD.format(max_denominator=max_denominator)
+    return _make_equation(LinearEquation, space, result.best, positive_class=positive_class,
+                          row_ids=row_ids, method=method, notes=notes)
+
+
+LINEAR_METHOD = (
+    "sparse linear separators (L1-logistic path, lasso order, 1-norm support vector machine "
+    "as a linear program) on standardized features, normals rounded to rationals with "
+    "denominators up to {max_denominator}, constant chosen exactly on all rows, "
+    "shortest description (terms plus violating rows) kept"
+)
 
 
 def _hint_direction(hint, space, positive: np.ndarray) -> tuple[np.ndarray, str]:
