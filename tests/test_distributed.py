@@ -614,3 +614,36 @@ def test_objects_to_look_at_equal_in_memory_and_find_planted_rows(client, tmp_pa
     # tolerance on each engine may move a row by a few ranks, no more
     moved = np.abs(result.scores - expected.scores).max() * 599
     assert moved <= 5, f"a row's standing moved by {moved:.1f} ranks"
+
+
+def test_sample_table_relations_equal_in_memory_with_big_integers_left_out(tmp_path):
+    # lattice polygons (Pick's theorem holds on every row: twice_area = 2*interior_points +
+    # boundary_points - 2); the column of counts past 64 bits is left out on Dask, said so,
+    # and the rest equals the in-memory search of the same columns
+    import json
+
+    table = ROOT / "sample_tables" / "lattice_polygons.csv"
+
+    def run(*options):
+        out = tmp_path / "out.json"
+        done = subprocess.run(
+            [sys.executable, "-m", "analysis", "relations", str(table), *options,
+             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=300)
+        assert done.returncode == 0, done.stderr
+        return json.loads(out.read_text())
+
+    partitioned = run("--engine", "dask")
+    assert "points_in_dilate_1e12" not in partitioned["columns"]
+    assert any("points_in_dilate_1e12" in n and "left out" in n for n in partitioned["notes"])
+    memory = run("--columns", ",".join(partitioned["columns"]))
+    pick = {"twice_area", "interior_points", "boundary_points"}
+    assert any({t["column"] for t in r["terms"]} == pick and not r["violations"]
+               for r in partitioned["relations"])
+    for key in ("relations", "bounds", "congruences"):
+        assert [(r["text"], r["violations"]) for r in partitioned[key]] == \
+            [(r["text"], r["violations"]) for r in memory[key]], key
+    named = subprocess.run(
+        [sys.executable, "-m", "analysis", "relations", str(table), "--engine", "dask",
+         "--columns", "vertices,points_in_dilate_1e12"], cwd=ROOT, capture_output=True,
+        text=True, timeout=300)
+    assert named.returncode == 2 and "does not search" in named.stderr

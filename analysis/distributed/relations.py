@@ -59,12 +59,22 @@ def run_relations(step, ctx: Context):
     if not names:
         raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
                         "search; mark some columns as invariants")
-    for name in names:
-        dtype = table.column(name).dtype
-        if dtype in ("big integer", "rational"):
-            raise StepError(f"relations: column '{name}' holds {dtype}s, which the dask engine "
-                            "does not search; leave it out with --columns, or use --engine "
-                            "local.")
+    unsearched = [n for n in names if table.column(n).dtype in ("big integer", "rational")]
+    if unsearched and step.columns is not None:
+        name = unsearched[0]
+        raise StepError(f"relations: column '{name}' holds {table.column(name).dtype}s, which "
+                        "the dask engine does not search; leave it out with --columns, or use "
+                        "--engine local.")
+    if unsearched:
+        names = [n for n in names if n not in unsearched]
+        if not names:
+            raise StepError(f"relations: the numeric columns of table '{table.name}' hold big "
+                            "integers or rationals, which the dask engine does not search; use "
+                            "--engine local.")
+        ctx.notes.append("left out on the dask engine, which does not search big integers or "
+                         f"rationals: {', '.join(unsearched)}; the in-memory engine searches "
+                         "them.")
+        step = dataclasses.replace(step, columns=names)
     exact = [n for n in names if table.column(n).dtype in ("integer", "boolean")]
     real = [n for n in names if table.column(n).dtype == "real"]
     sample, positions = sample_table(table, ctx.client, SAMPLE_ROWS, seed=step.seed,
