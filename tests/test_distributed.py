@@ -281,11 +281,16 @@ def test_duplicate_id_is_named(client, tmp_path):
         read_partitioned(folder, client, id_column="key")
 
 
-def test_array_columns_are_refused_as_features(client, tmp_path):
-    frame = pd.DataFrame({"m": [[1, 2], [3, 4], [5, 6], [7, 9]], "v": [1, 5, 2, 8]})
+def test_array_columns_are_left_out_by_default_and_refused_by_name(client, tmp_path):
+    frame = pd.DataFrame({"m": [[1, 2], [3, 4], [5, 6], [7, 9]], "v": [1, 5, 2, 8],
+                          "w": [2, 1, 4, 3]})
     folder, _ = write_parts(frame, tmp_path / "arrays", parts=2)
+    result = run_distributed(ProjectionStep(), folder, client=client)
+    assert result.features == ("v", "w")
+    assert any("left out of the features on the dask engine" in n and "m" in n
+               for n in result.notes)
     with pytest.raises(StepError, match="'m' holds arrays"):
-        run_distributed(ProjectionStep(), folder, client=client)
+        run_distributed(ProjectionStep(columns=["m", "v"]), folder, client=client)
 
 
 # ----------------------------------------------------------------------------------------
@@ -647,3 +652,30 @@ def test_sample_table_relations_equal_in_memory_with_big_integers_left_out(tmp_p
          "--columns", "vertices,points_in_dilate_1e12"], cwd=ROOT, capture_output=True,
         text=True, timeout=300)
     assert named.returncode == 2 and "does not search" in named.stderr
+
+
+def test_sample_table_pca_with_the_matrix_column_left_out_equals_in_memory(tmp_path):
+    # networkx's graph atlas: the adjacency matrices are left out on Dask, said so; the PCA of
+    # the other columns equals the in-memory PCA of the same columns
+    import json
+
+    table = ROOT / "sample_tables" / "graphs_up_to_7.csv"
+
+    def run(*options):
+        out = tmp_path / "out.json"
+        done = subprocess.run(
+            [sys.executable, "-m", "analysis", "project", str(table), "--method", "pca",
+             *options, "--json", str(out)], cwd=ROOT, capture_output=True, text=True,
+            timeout=300)
+        assert done.returncode == 0, done.stderr
+        return json.loads(out.read_text())
+
+    partitioned = run("--engine", "dask")
+    assert any("adjacency" in n and "left out" in n for n in partitioned["notes"])
+    columns = sorted({name.split("=")[0] for name in partitioned["features"]})
+    assert "adjacency" not in columns
+    memory = run("--features", ",".join(columns))
+    assert sorted(memory["features"]) == sorted(partitioned["features"])
+    assert memory["n_projected"] == partitioned["n_projected"]
+    assert memory["explained_variance_ratio"] == pytest.approx(
+        partitioned["explained_variance_ratio"], abs=1e-9)

@@ -71,6 +71,7 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
 
     ``medians`` gives the fill value of each numeric column when ``missing="impute"``.
     """
+    chosen_by_default = columns is None
     columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
                                      array_encoding=array_encoding, log_scale=log_scale,
                                      missing=missing)
@@ -79,6 +80,16 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
     log_columns: list[str] = []
     exact: dict[str, bool] = {}
     notes: list[str] = []
+    if chosen_by_default:
+        # columns this engine cannot encode are left out of the default features, said so;
+        # named ones are refused below, by name
+        unencoded = [n for n in columns if table.column(n).role == "array"
+                     or table.column(n).dtype in ("array", "big integer", "rational")]
+        if unencoded and len(unencoded) < len(columns):
+            columns = [n for n in columns if n not in unencoded]
+            notes.append("left out of the features on the dask engine, which does not encode "
+                         f"arrays, big integers or rationals yet: {', '.join(unencoded)}; the "
+                         "in-memory engine uses them.")
     for name in columns:
         info = table.column(name)
         if info.role == "array" or info.dtype == "array":
