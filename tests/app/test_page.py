@@ -600,3 +600,23 @@ def test_a_whole_number_target_offers_its_reading_and_says_which_was_used():
     # the flag target has no reading to choose
     at.selectbox(key=f"s{uid}.target").set_value("bipartite").run()
     assert not [s for s in at.selectbox if s.key == f"s{uid}.reading"]
+
+
+def test_interval_cells_can_be_read_by_one_value_where_the_table_has_them():
+    from analysis.features import INTERVAL_READINGS
+    from app.settings import INTERVALS
+
+    assert list(INTERVALS) == list(INTERVAL_READINGS)
+    at = open_page("graphs_as_downloaded.csv")
+    uid = add_step(at, "projection")
+    choice = at.selectbox(key=f"s{uid}.intervals")
+    choice.set_value("midpoint").run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert study(at).steps[-1].params["intervals"] == "midpoint"
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert any("interval cells of 'chromatic_number' read as their midpoint" in n
+               for n in results(at)[-1].notes)
+    plain = open_page("graphs_up_to_7.csv")
+    uid = add_step(plain, "projection")
+    assert not [s for s in plain.selectbox if s.key == f"s{uid}.intervals"]
