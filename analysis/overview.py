@@ -53,6 +53,7 @@ class OverviewResult:
     correlations: tuple[tuple[str, str, float], ...] = ()
     # rows the correlations were computed on when that is a sample; None for every row
     correlation_rows: int | None = None
+    notes: tuple[str, ...] = ()   # how it was computed (the engine, its partitions)
     kind: ClassVar[str] = "overview"
 
     def _repr_html_(self) -> str:
@@ -76,6 +77,7 @@ class OverviewResult:
             "warnings": list(self.warnings),
             "correlations": [{"a": a, "b": b, "pearson": r} for a, b, r in self.correlations],
             "correlation_rows": self.correlation_rows,
+            "notes": list(self.notes),
         })
 
     def summary(self) -> str:
@@ -96,6 +98,7 @@ class OverviewResult:
             lines.append(f"  (correlations on a random sample of {self.correlation_rows} of "
                          f"the {self.rows} rows)")
         lines.extend(f"  warning: {w}" for w in self.warnings)
+        lines.extend(f"  note: {n}" for n in self.notes)
         return "\n".join(lines)
 
 

@@ -37,6 +37,7 @@ def show(ctx: settings.StepContext, result) -> None:
                      icon=":material/view_list:"):
         st.dataframe(_columns_frame(result), hide_index=True, key=ctx.key("columns_table"))
     show_figures(result, ctx.table, ctx.key("figures"), vector=ctx.vector)
+    display.notes(result.notes)
 
 
 def _columns_frame(result) -> pd.DataFrame:
