@@ -3,11 +3,11 @@
 from __future__ import annotations
 
 import dataclasses
-import functools
 
 import numpy as np
 
 from analysis.distributed.matrix import FeaturePlan, feature_blocks, feature_plan
+from analysis.distributed.reduction import tree
 
 # Distinct values a column's median is computed from exactly; past this, from a sample.
 MEDIAN_CAP = 100_000
@@ -39,23 +39,6 @@ class Context:
         return (f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
                 f"{self.client.scheduler.address}) over {self.table.npartitions} partition"
                 f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.")
-
-
-def tree(items: list, combine, *, final=None, split_every: int = 8):
-    """A tree of delayed ``combine(a, b)`` reductions over ``items`` (dask objects)."""
-    from dask import delayed
-
-    def many(values):
-        return functools.reduce(combine, values)
-
-    level = list(items)
-    if not level:
-        raise ValueError("nothing to reduce")
-    while len(level) > 1:
-        level = [delayed(many)(level[i:i + split_every]) if len(level[i:i + split_every]) > 1
-                 else level[i] for i in range(0, len(level), split_every)]
-    root = level[0]
-    return delayed(final)(root) if final is not None else root
 
 
 def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",

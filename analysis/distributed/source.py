@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from analysis.distributed.reduction import tree
 from analysis.errors import StepError, TableError
 from analysis.table import (
     INTEGER_TEXT,
@@ -559,7 +560,7 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
     for column in over:
         for b in range(buckets):
             parts = [delayed(_pick)(piece, column, b) for piece in pieces]
-            totals.append(_tree(parts, _union_arrays, final=len))
+            totals.append(tree(parts, _union_pair, final=len))
     counts = client.gather(client.compute(totals))
     k = 0
     for column in over:
@@ -591,24 +592,8 @@ def _pick(piece: dict, column: str, bucket: int):
     return piece[column][bucket]
 
 
-def _union_arrays(arrays: list):
-    return pd.unique(np.concatenate(arrays)) if arrays else np.array([])
-
-
-def _tree(items: list, combine, *, final=None, split_every: int = 8):
-    """A tree of delayed ``combine(list)`` calls over ``items``; ``final`` applied at the root.
-
-    ``combine`` takes a list of values (possibly empty) and returns one value of the same kind.
-    """
-    from dask import delayed
-
-    items = list(items)
-    level = [delayed(combine)(items[i:i + split_every])
-             for i in range(0, max(len(items), 1), split_every)]
-    while len(level) > 1:
-        level = [delayed(combine)(level[i:i + split_every])
-                 for i in range(0, len(level), split_every)]
-    return delayed(final)(level[0]) if final is not None else level[0]
+def _union_pair(a, b):
+    return pd.unique(np.concatenate([a, b]))
 
 
 # ----------------------------------------------------------------------------------------
