@@ -516,6 +516,15 @@ def _separator(data: dict) -> str:
                          f"{_e(_text(100 * surrogate['agreement']))}% of rows.</p>")
     if not equations and not isinstance(formula, dict) and not isinstance(surrogate, dict):
         parts.append("<p>No equation was found.</p>")
+    importance = [i for i in data.get("importance") or [] if isinstance(i, dict)]
+    if importance:
+        parts.append("<h3>What the prediction rests on</h3>")
+        parts.append("<p>Permutation importance on the test rows: how much the score drops "
+                     "when a feature (or a whole matrix column) is shuffled, with the spread "
+                     "over repeats.</p>")
+        parts.append(_table(["feature", "drop in score", "spread"],
+                            [[_code(i.get("feature")), i.get("mean"), i.get("std")]
+                             for i in importance], numeric=(1, 2)))
     opened = [p for p in data.get("open_predictions") or [] if isinstance(p, dict)]
     if opened:
         parts.append(f"<h3>Predictions for {_e(len(opened))} objects with no known value</h3>")

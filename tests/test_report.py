@@ -388,3 +388,16 @@ def test_a_short_feature_list_stays_in_view():
     folds.feed(page)
     assert not [s for s in folds.summaries if s.endswith("features")], folds.summaries
     assert ", ".join(f"x{j}" for j in range(FOLD_LIMIT)) in page
+
+
+def test_the_report_says_what_the_prediction_rests_on():
+    # genus theory (Gauss): the class number is odd exactly when the discriminant has one
+    # prime divisor, so that column carries the separator
+    table = load_table(TABLES / "quadratic_fields.csv")
+    step = new_step("separator", {"target": "class_number_odd", "repeats": 2})
+    run = run_study(Study(table=table.name, steps=(step,)), table)
+    assert run.ok, run.summary()
+    page = report_html(run)
+    section = page[page.index("<h3>What the prediction rests on</h3>"):]
+    first = re.search(r"<tr><td><code>(.*?)</code></td>", section).group(1)
+    assert first == "prime_divisors"
