@@ -43,6 +43,7 @@ import math
 import os
 import re
 import secrets
+import threading
 import time
 import types
 import typing
@@ -52,6 +53,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from analysis.errors import ScoutError, StudyError, TableError
+from analysis.progress import Progress, Reporter, StepStopped, Stopper
 from analysis.steps import KIND_TITLES, STEP_KINDS, make_step, step_class, step_params
 from analysis.table import ROLES, Table
 
@@ -870,6 +872,7 @@ class StepOutcome:
     elapsed_seconds: float = 0.0
     cached: bool = False
     internal: bool = False
+    stopped: bool = False  # the user asked the step to stop before it finished
 
     @property
     def ok(self) -> bool:
@@ -1051,6 +1054,10 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
             result = built.run(table, progress=progress)
         else:
             result = built.run(table)
+    except StepStopped as exc:
+        text = str(exc)
+        return StepOutcome(**base, error=text[:1].upper() + text[1:], stopped=True,
+                           elapsed_seconds=time.perf_counter() - started)
     except ScoutError as exc:
         return StepOutcome(**base, error=str(exc),
                            elapsed_seconds=time.perf_counter() - started)
@@ -1066,6 +1073,73 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
     if cache is not None:
         cache.put(key, result)
     return StepOutcome(**base, result=result, elapsed_seconds=elapsed)
+
+
+class StepJob:
+    """One step running on a thread of its own, so that whoever waits for it (the page)
+    stays free to draw its progress and to ask it to stop.
+
+    The step's :class:`analysis.progress.Progress` records land in ``latest``; :meth:`stop`
+    asks it to end at its next report (``stoppable`` says whether the kind reports at all:
+    one that does not runs to its end, and its result is then dropped). ``outcome`` is the
+    :class:`StepOutcome` once the step has ended, with ``stopped`` set when it was stopped.
+    Nothing goes into a cache here; the caller keeps the result it wants.
+    """
+
+    def __init__(self, step: StudyStep, table: Table, *, index: int = 0):
+        self.step = step
+        self.index = index
+        self.latest: Progress | None = None
+        self.outcome: StepOutcome | None = None
+        self.started = time.monotonic()
+        self._stopper = Stopper()
+        self._table = table
+        self._thread = threading.Thread(target=self._work, daemon=True,
+                                        name=f"step {index + 1}: {step.kind}")
+        try:
+            run = step_class(step.kind).run
+            self.stoppable = "progress" in inspect.signature(run).parameters
+        except (ImportError, ScoutError, AttributeError):
+            self.stoppable = False
+
+    def start(self) -> StepJob:
+        self._thread.start()
+        return self
+
+    def _work(self) -> None:
+        reporter = Reporter(self._note, stopper=self._stopper)
+        outcome = run_step(self.step, self._table, index=self.index, progress=reporter)
+        if self._stopper.requested and outcome.ok:
+            # A kind that never reports ran to its end after all: its result is not wanted.
+            outcome = dataclasses.replace(outcome, result=None, stopped=True,
+                                          error="Stopped on request; the result that came "
+                                                "later was set aside.")
+        self.outcome = outcome
+
+    def _note(self, found: Progress) -> None:
+        self.latest = found
+
+    def stop(self) -> None:
+        """Ask the step to stop at its next report."""
+        self._stopper.request()
+
+    @property
+    def stopping(self) -> bool:
+        return self._stopper.requested
+
+    @property
+    def done(self) -> bool:
+        return self.outcome is not None
+
+    @property
+    def seconds(self) -> float:
+        """Seconds since the step started."""
+        return time.monotonic() - self.started
+
+    def wait(self, seconds: float | None = None) -> bool:
+        """Wait up to ``seconds`` (None: until the end) for the step; True once it ended."""
+        self._thread.join(seconds)
+        return self.done
 
 
 def _safe_summary(result) -> str:

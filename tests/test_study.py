@@ -659,3 +659,54 @@ def test_the_command_line_runs_a_study_saved_with_its_results(saved_once, tmp_pa
     ran = json.loads(out_json.read_text(encoding="utf-8"))["steps"]
     assert [without_timing(s["json"]) for s in stored] == \
         [without_timing(o["result"]) for o in ran]
+
+
+# ----------------------------------------------------------------------------------------
+# A step on a thread of its own, and stopping it
+
+
+def _wait_for_a_report(job):
+    import time as clock
+
+    for _ in range(600):
+        if job.latest is not None or job.done:
+            return
+        clock.sleep(0.05)
+
+
+def test_a_running_separator_stops_at_its_next_report_and_keeps_no_result():
+    from analysis.study import StepJob
+
+    table = load_table(TABLES / "quadratic_fields.csv")
+    step = new_step("separator", {"target": "class_number_one", "seed": 2})
+    job = StepJob(step, table).start()
+    assert job.stoppable
+    _wait_for_a_report(job)
+    assert not job.done, "the step ended before it could be stopped"
+    job.stop()
+    assert job.wait(120)
+    assert job.outcome.stopped and job.outcome.result is None
+    assert job.outcome.error.startswith("Stopped by request during ")
+
+
+def test_a_step_left_alone_on_its_thread_gives_what_the_runner_gives(small):
+    from analysis.study import StepJob, run_step
+
+    step = new_step("overview", {"seed": 0})
+    job = StepJob(step, small).start()
+    assert job.wait(120) and job.outcome.ok and not job.outcome.stopped
+    assert job.outcome.result.to_json() == run_step(step, small).result.to_json()
+    # Every row of the small table is read: eight objects x1 to x8.
+    assert job.outcome.result.rows == 8
+
+
+def test_a_kind_that_never_reports_runs_to_its_end_and_its_result_is_set_aside(small):
+    from analysis.study import StepJob
+
+    job = StepJob(new_step("overview", {"seed": 0}), small)
+    assert not job.stoppable
+    job.stop()
+    job.start()
+    assert job.wait(120)
+    assert job.outcome.stopped and job.outcome.result is None
+    assert "set aside" in job.outcome.error
