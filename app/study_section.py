@@ -161,7 +161,9 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
         title_col, up_col, down_col, remove_col = st.columns(
             [12, 1, 1, 1], vertical_alignment="center", gap="small")
         title_col.markdown(f"#### {index + 1}. {step.display_title}")
-        title_col.caption(module.describe(step.params))
+        # Drawn again once the result is known, so that it names what was computed.
+        caption = title_col.empty()
+        caption.caption(module.describe(step.params))
         up_col.button("", key=f"s{uid}.up", icon=":material/arrow_upward:",
                       help="Move this step up", type="tertiary", disabled=index == 0,
                       on_click=_move, args=(uid, -1))
@@ -203,6 +205,7 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
             if result is None:
                 place.button("Run this step", key=f"s{uid}.run", type="primary",
                              icon=":material/play_arrow:")
+        caption.caption(module.describe(step.params, result))
         stopped = pg.stopped.get(key) if result is None else None
         if stopped:
             st.warning(f"{stopped} The other steps keep their results; run this one again "
