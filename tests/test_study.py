@@ -674,19 +674,26 @@ def _wait_for_a_report(job):
         clock.sleep(0.05)
 
 
-def test_a_running_separator_stops_at_its_next_report_and_keeps_no_result():
+@pytest.mark.parametrize("kind, params, phase", [
+    ("separator", {"target": "class_number_one", "seed": 2}, None),
+    ("clustering", {"seed": 2}, "trying clusterings"),
+    ("outliers", {"target": "class_number_one", "seed": 2}, "scoring every object"),
+])
+def test_a_running_step_stops_at_its_next_report_and_keeps_no_result(kind, params, phase):
     from analysis.study import StepJob
 
     table = load_table(TABLES / "quadratic_fields.csv")
-    step = new_step("separator", {"target": "class_number_one", "seed": 2})
-    job = StepJob(step, table).start()
+    job = StepJob(new_step(kind, params), table).start()
     assert job.stoppable
     _wait_for_a_report(job)
+    # every one of these kinds reports again after its first report, so the stop lands
     assert not job.done, "the step ended before it could be stopped"
     job.stop()
     assert job.wait(120)
     assert job.outcome.stopped and job.outcome.result is None
     assert job.outcome.error.startswith("Stopped by request during ")
+    if phase is not None:
+        assert job.outcome.error == f"Stopped by request during {phase}."
 
 
 def test_a_step_left_alone_on_its_thread_gives_what_the_runner_gives(small):
