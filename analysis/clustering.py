@@ -24,6 +24,7 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.features import FeatureMatrix, build_features, target_values
 from analysis.plain import plain, row_id
+from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
 from analysis.table import Table
 from analysis.threads import threads_for
@@ -185,9 +186,14 @@ class ClusteringStep:
     seed: int = 0
     kind: ClassVar[str] = "clustering"
 
-    def run(self, table: Table) -> ClusteringResult:
+    def run(self, table: Table, *, progress=None) -> ClusteringResult:
+        """Cluster the rows. ``progress``: a callable (or :class:`analysis.progress.Reporter`)
+        told of each clustering tried; it may stop the step between two of them by raising
+        :class:`analysis.progress.StepStopped`."""
         started = time.perf_counter()
+        reporter = quiet(progress)
         self.check_table(table)
+        reporter.phase("building features")
         fm = build_features(table, columns=self.columns, target=self.compare,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing,
@@ -201,12 +207,16 @@ class ClusteringStep:
         scorer = _Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
         runs: list[tuple[SweepEntry, np.ndarray]] = []
+        reporter.phase("trying clusterings", total=max(1, len(methods) * len(ks)))
         with warnings.catch_warnings(), threads_for(n):
             # duplicate rows (common in tables of invariants) make k-means and mixtures warn
             # that fewer distinct clusters exist than asked; the sweep records what was found.
             warnings.simplefilter("ignore")
             for method in methods:
-                runs.extend(self._sweep(method, values, ks, scorer, notes))
+                for found in self._sweep(method, values, ks, scorer, notes):
+                    runs.append(found)
+                    reporter.advance()
+        reporter.phase("describing the clusters")
         entry, labels, reason = choose_run(self.method, runs, self.k is not None)
         labels = _by_size(labels)
         agreement = None

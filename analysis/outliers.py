@@ -45,6 +45,7 @@ import pandas as pd
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
 from analysis.plain import plain, row_id
+from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
 from analysis.table import Table
 from analysis.threads import threads_for
@@ -219,8 +220,13 @@ class OutliersStep:
     seed: int = 0
     kind: ClassVar[str] = "outliers"
 
-    def run(self, table: Table) -> OutliersResult:
+    def run(self, table: Table, *, progress=None) -> OutliersResult:
+        """Rank the objects. ``progress``: a callable (or :class:`analysis.progress.Reporter`)
+        told of each measure; it may stop the step between two measures by raising
+        :class:`analysis.progress.StepStopped`."""
         started = time.perf_counter()
+        reporter = quiet(progress)
+        reporter.phase("building features")
         self.check_table(table)
         fm = build_features(table, columns=self.columns, target=self.target,
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
@@ -235,20 +241,25 @@ class OutliersStep:
         notes.append("features standardized to mean 0 and standard deviation 1."
                      if self.standardize else "features used in their own units.")
         measures: dict[str, Measure] = {}
+        reporter.phase("scoring every object", total=4 + bool(self.relations))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             with threads_for(n):
                 measures["isolation forest"] = _isolation(values, self.seed)
+            reporter.advance()
             # neighbour searches gain from every core at any size
             measures["local outlier factor"] = _local_outlier_factor(
                 values, self.n_neighbors, self.sample_size, self.seed, notes)
+            reporter.advance()
             centre, k = self._centre_distance(table, fm, values, notes)
             measures["distance from cluster centre"] = centre
+            reporter.advance()
             opened: tuple[OpenValue, ...] = ()
             if self.target is not None:
                 guessed = _cross_validated(table, self.target, fm, self.seed)
                 measures["separator"] = _separator(table, self.target, guessed, notes)
                 opened = open_values(table, self, fm, guessed, notes)
+        reporter.advance()
         if self.relations:
             found = self._relations(table, fm.row_ids, notes)
             if found is not None:

@@ -11,8 +11,17 @@ A study file (``*.study.json``) looks like this::
       "steps": [
         {"kind": "overview", "title": null, "params": {"top_correlations": 10, "seed": 0}},
         {"kind": "projection", "title": "PCA", "params": {"method": "pca", "seed": 0, ...}}
-      ]
+      ],
+      "results": {                          (optional: a study saved with its results)
+        "table_digest": "3f1c...",          (the table the results were computed on)
+        "steps": [null, {"kind": "projection", "params": {...}, "json": {...},
+                         "stored": {...}}]  (one per step; null where a step has no result)
+      }
     }
+
+A saved result keeps its ``to_json()`` (the figures other programs read) and the whole result
+in the tagged form of :mod:`analysis.stored`, from which the page and the report draw it
+again without running; on reading, the rebuilt result must give the same JSON.
 
 The file is checked by hand against this schema when it is read: an unknown step kind, an
 unknown setting, a value of the wrong type or an unknown version gives a :class:`StudyError`
@@ -34,6 +43,7 @@ import math
 import os
 import re
 import secrets
+import threading
 import time
 import types
 import typing
@@ -43,15 +53,19 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from analysis.errors import ScoutError, StudyError, TableError
+from analysis.progress import Progress, Reporter, StepStopped, Stopper
 from analysis.steps import KIND_TITLES, STEP_KINDS, make_step, step_class, step_params
 from analysis.table import ROLES, Table
 
 STUDY_VERSION = "invariant-scout-study/1"
 RUN_VERSION = "invariant-scout-run/1"
 _VERSION_PREFIX = "invariant-scout-study/"
-# A study is a few kilobytes; anything far bigger is not a study.
-MAX_STUDY_BYTES = 10 * 1024**2
-_TOP_KEYS = ("version", "title", "table", "table_digest", "table_settings", "steps")
+# A study is a few kilobytes, and with its results a few megabytes for a table of tens of
+# thousands of rows; anything far bigger is not a study.
+MAX_STUDY_BYTES = 100 * 1024**2
+_TOP_KEYS = ("version", "title", "table", "table_digest", "table_settings", "steps", "results")
+_RESULTS_KEYS = ("table_digest", "steps")
+_SAVED_STEP_KEYS = ("kind", "params", "json", "stored")
 _STEP_KEYS = ("kind", "title", "params")
 _SETTINGS_KEYS = ("id_column", "roles")
 _DIGEST = re.compile(r"^[0-9a-f]{64}$")
@@ -331,9 +345,39 @@ def _position(index, length: int, verb: str) -> int:
 # JSON
 
 
-def study_to_json(study: Study) -> dict:
-    """The study as plain JSON, in the order the file shows it."""
-    return {
+@dataclass(frozen=True)
+class SavedResults:
+    """The results a study file carries: one per step of its study (None where a step has
+    none), computed on the table whose bytes have the sha256 digest ``table_digest``."""
+
+    table_digest: str
+    results: tuple = ()
+
+    def __post_init__(self):
+        object.__setattr__(self, "results", tuple(self.results))
+
+    def fits(self, table: Table) -> bool:
+        """True when the results were computed on a table with these very bytes."""
+        return self.table_digest == table.digest
+
+    @property
+    def count(self) -> int:
+        """How many steps have a saved result."""
+        return sum(result is not None for result in self.results)
+
+
+@dataclass(frozen=True)
+class StudyFile:
+    """What a study file holds: the study, and its results when it was saved with them."""
+
+    study: Study
+    saved: SavedResults | None = None
+
+
+def study_to_json(study: Study, saved: SavedResults | None = None) -> dict:
+    """The study as plain JSON, in the order the file shows it; with ``saved``, the file
+    also carries those results (one per step)."""
+    data = {
         "version": study.version,
         "title": study.title,
         "table": study.table,
@@ -341,14 +385,66 @@ def study_to_json(study: Study) -> dict:
         "table_settings": study.table_settings.to_json(),
         "steps": [step.to_json() for step in study.steps],
     }
+    if saved is not None:
+        if len(saved.results) != len(study.steps):
+            raise ValueError("saved results out of step with the study")  # a bug
+        data["results"] = {"table_digest": saved.table_digest,
+                           "steps": [_saved_step_json(step, result, number)
+                                     for number, (step, result)
+                                     in enumerate(zip(study.steps, saved.results), start=1)]}
+    return data
+
+
+def _saved_step_json(step: StudyStep, result, number: int):
+    if result is None:
+        return None
+    from analysis.stored import encode
+
+    return {"kind": step.kind, "params": _copy_json(step.params),
+            "json": _plain_json(result.to_json()),
+            "stored": encode(result, where=f"step {number}")}
+
+
+def _plain_json(value):
+    """``value`` as it reads back from a JSON file (tuples become lists, and so on)."""
+    return json.loads(json.dumps(value, ensure_ascii=False, allow_nan=False))
+
+
+def saved_results(study: Study, table: Table, cache: ResultCache) -> SavedResults:
+    """The results ``cache`` holds for the steps of ``study`` on ``table`` (the table with
+    the study's settings applied), ready to be saved with the study."""
+    found = [cache.get(result_key(table, step.kind, step.params)) for step in study.steps]
+    return SavedResults(table_digest=table.digest, results=tuple(found))
+
+
+def restore_results(study: Study, saved: SavedResults, table: Table,
+                    cache: ResultCache) -> int:
+    """Put the saved results in ``cache`` for ``table`` (the study's settings applied) when
+    they were computed on a table with the same bytes; return how many were put there
+    (0 when the table differs)."""
+    if not saved.fits(table):
+        return 0
+    count = 0
+    for step, result in zip(study.steps, saved.results):
+        if result is not None:
+            cache.put(result_key(table, step.kind, step.params), result)
+            count += 1
+    return count
 
 
 def study_from_json(data, source: str = "study") -> Study:
     """Check plain JSON against the study schema and build the Study.
 
     ``source`` (a file name) starts every message. Raises StudyError naming the step (counted
-    from 1) and the setting on any problem.
+    from 1) and the setting on any problem. Saved results are checked too; see
+    :func:`study_file_from_json` to have them.
     """
+    return study_file_from_json(data, source).study
+
+
+def study_file_from_json(data, source: str = "study") -> StudyFile:
+    """Check plain JSON against the study schema: the study and its saved results (each
+    rebuilt and held against its stored JSON). StudyError naming the step on any problem."""
     if not isinstance(data, dict):
         raise StudyError(f"{source}: a study is a JSON object with a 'version' and 'steps'; "
                          f"got {_json_type(data)}.")
@@ -386,8 +482,61 @@ def study_from_json(data, source: str = "study") -> Study:
                          f"{_short(steps_data)}.")
     steps = tuple(_step_from_json(item, f"{source}: step {number}")
                   for number, item in enumerate(steps_data, start=1))
-    return Study(table=table, steps=steps, title=title, table_digest=digest,
-                 table_settings=settings, version=version)
+    study = Study(table=table, steps=steps, title=title, table_digest=digest,
+                  table_settings=settings, version=version)
+    saved = None
+    if data.get("results") is not None:
+        saved = _saved_from_json(data["results"], steps, source)
+    return StudyFile(study=study, saved=saved)
+
+
+def _saved_from_json(data, steps: tuple[StudyStep, ...], source: str) -> SavedResults:
+    if not isinstance(data, dict) or set(data) != set(_RESULTS_KEYS):
+        raise StudyError(f"{source}: 'results' must be an object with the keys "
+                         f"{', '.join(_RESULTS_KEYS)}, got {_short(data)}.")
+    digest = data["table_digest"]
+    if not isinstance(digest, str) or not _DIGEST.match(digest):
+        raise StudyError(f"{source}: results: 'table_digest' must be a sha256 digest (64 "
+                         f"lowercase hex digits), got {_short(digest)}.")
+    items = data["steps"]
+    if not isinstance(items, list) or len(items) != len(steps):
+        raise StudyError(f"{source}: results: 'steps' must be a list with one entry per step "
+                         f"({len(steps)}), got {_short(items)}.")
+    results = tuple(_saved_step_from_json(item, step, f"{source}: results of step {number}")
+                    for number, (item, step) in enumerate(zip(items, steps), start=1))
+    return SavedResults(table_digest=digest, results=results)
+
+
+def _saved_step_from_json(item, step: StudyStep, where: str):
+    from analysis.stored import decode
+
+    if item is None:
+        return None
+    if not isinstance(item, dict) or set(item) != set(_SAVED_STEP_KEYS):
+        raise StudyError(f"{where}: a saved result is null or an object with the keys "
+                         f"{', '.join(_SAVED_STEP_KEYS)}.")
+    if item["kind"] != step.kind or item["params"] != step.params:
+        raise StudyError(f"{where}: the result was computed for another step or other "
+                         "settings than the step has; save the study again, or remove "
+                         "'results' from the file to run it afresh.")
+    try:
+        result = decode(item["stored"], where="stored")
+    except RecursionError:
+        raise StudyError(f"{where}: the stored result is nested too deeply.") from None
+    except StudyError as exc:
+        raise StudyError(f"{where}: {exc}") from None
+    if getattr(type(result), "kind", None) != step.kind or not hasattr(result, "to_json"):
+        raise StudyError(f"{where}: the stored result is not the result of a {step.kind} "
+                         "step.")
+    try:
+        again = _plain_json(result.to_json())
+    except Exception as exc:  # noqa: BLE001 - a hand-made record may break in many ways
+        raise StudyError(f"{where}: the stored result cannot be read back "
+                         f"({type(exc).__name__}: {exc}).") from None
+    if again != item["json"]:
+        raise StudyError(f"{where}: the stored result does not give the figures written "
+                         "beside it ('json'); the file was changed by hand or is damaged.")
+    return result
 
 
 def _settings_from_json(data, source: str) -> TableSettings:
@@ -432,13 +581,26 @@ def _step_from_json(item, where: str) -> StudyStep:
     return StudyStep(kind=item["kind"], params=params, title=title or None)
 
 
-def save_study(study: Study, path: str | Path) -> None:
-    """Write the study as indented JSON (replacing the file in one move).
+def save_study(study: Study, path: str | Path, saved: SavedResults | None = None) -> None:
+    """Write the study as indented JSON (replacing the file in one move), with ``saved``
+    results when given.
 
     Refuses (StudyError) to write over the study's own table.
     """
-    text = json.dumps(study_to_json(study), indent=2, ensure_ascii=False, allow_nan=False)
-    write_text_file(path, text + "\n", keep_safe=(study.table, study.table_digest))
+    text = study_file_text(study, saved)
+    write_text_file(path, text, keep_safe=(study.table, study.table_digest))
+
+
+def study_file_text(study: Study, saved: SavedResults | None = None) -> str:
+    """The text of the study's file: indented JSON; compact where results are stored, which
+    hold long arrays."""
+    data = study_to_json(study, saved)
+    if saved is None:
+        return json.dumps(data, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    results = data.pop("results")
+    head = json.dumps(data, indent=2, ensure_ascii=False, allow_nan=False)
+    body = json.dumps(results, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    return head[:-2] + ',\n  "results": ' + body + "\n}\n"
 
 
 def write_text_file(path: str | Path, text: str, *,
@@ -480,7 +642,14 @@ def _file_digest(path: Path) -> str:
 
 
 def load_study(path: str | Path) -> Study:
-    """Read and check a study file; StudyError (naming the file) if it is not a valid study."""
+    """Read and check a study file; StudyError (naming the file) if it is not a valid study.
+    Saved results in the file are checked and left aside (see :func:`load_study_file`)."""
+    return load_study_file(path).study
+
+
+def load_study_file(path: str | Path) -> StudyFile:
+    """Read and check a study file with its saved results, if any (StudyError naming the
+    file when it is not a valid study)."""
     path = Path(path)
     name = str(path)
     try:
@@ -495,6 +664,14 @@ def load_study(path: str | Path) -> Study:
         raise StudyError(f"{name}: no such file. Check the path.") from None
     except OSError as exc:
         raise StudyError(f"{name}: cannot be read ({exc.strerror}).") from None
+    return read_study_file(data, name)
+
+
+def read_study_file(data: bytes, name: str) -> StudyFile:
+    """A study file from its bytes (an upload, say), checked; StudyError naming ``name``."""
+    if len(data) > MAX_STUDY_BYTES:
+        raise StudyError(f"{name}: {len(data)} bytes is far too big for a study (at most "
+                         f"{MAX_STUDY_BYTES}); is this a table rather than a study?")
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -510,7 +687,7 @@ def load_study(path: str | Path) -> Study:
         raise StudyError(f"{name}: not valid JSON ({exc}).") from None
     except RecursionError:
         raise StudyError(f"{name}: JSON nested too deeply to be a study.") from None
-    return study_from_json(parsed, source=name)
+    return study_file_from_json(parsed, source=name)
 
 
 def _reject_constant(word: str):
@@ -695,6 +872,7 @@ class StepOutcome:
     elapsed_seconds: float = 0.0
     cached: bool = False
     internal: bool = False
+    stopped: bool = False  # the user asked the step to stop before it finished
 
     @property
     def ok(self) -> bool:
@@ -876,6 +1054,10 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
             result = built.run(table, progress=progress)
         else:
             result = built.run(table)
+    except StepStopped as exc:
+        text = str(exc)
+        return StepOutcome(**base, error=text[:1].upper() + text[1:], stopped=True,
+                           elapsed_seconds=time.perf_counter() - started)
     except ScoutError as exc:
         return StepOutcome(**base, error=str(exc),
                            elapsed_seconds=time.perf_counter() - started)
@@ -891,6 +1073,73 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
     if cache is not None:
         cache.put(key, result)
     return StepOutcome(**base, result=result, elapsed_seconds=elapsed)
+
+
+class StepJob:
+    """One step running on a thread of its own, so that whoever waits for it (the page)
+    stays free to draw its progress and to ask it to stop.
+
+    The step's :class:`analysis.progress.Progress` records land in ``latest``; :meth:`stop`
+    asks it to end at its next report (``stoppable`` says whether the kind reports at all:
+    one that does not runs to its end, and its result is then dropped). ``outcome`` is the
+    :class:`StepOutcome` once the step has ended, with ``stopped`` set when it was stopped.
+    Nothing goes into a cache here; the caller keeps the result it wants.
+    """
+
+    def __init__(self, step: StudyStep, table: Table, *, index: int = 0):
+        self.step = step
+        self.index = index
+        self.latest: Progress | None = None
+        self.outcome: StepOutcome | None = None
+        self.started = time.monotonic()
+        self._stopper = Stopper()
+        self._table = table
+        self._thread = threading.Thread(target=self._work, daemon=True,
+                                        name=f"step {index + 1}: {step.kind}")
+        try:
+            run = step_class(step.kind).run
+            self.stoppable = "progress" in inspect.signature(run).parameters
+        except (ImportError, ScoutError, AttributeError):
+            self.stoppable = False
+
+    def start(self) -> StepJob:
+        self._thread.start()
+        return self
+
+    def _work(self) -> None:
+        reporter = Reporter(self._note, stopper=self._stopper)
+        outcome = run_step(self.step, self._table, index=self.index, progress=reporter)
+        if self._stopper.requested and outcome.ok:
+            # A kind that never reports ran to its end after all: its result is not wanted.
+            outcome = dataclasses.replace(outcome, result=None, stopped=True,
+                                          error="Stopped on request; the result that came "
+                                                "later was set aside.")
+        self.outcome = outcome
+
+    def _note(self, found: Progress) -> None:
+        self.latest = found
+
+    def stop(self) -> None:
+        """Ask the step to stop at its next report."""
+        self._stopper.request()
+
+    @property
+    def stopping(self) -> bool:
+        return self._stopper.requested
+
+    @property
+    def done(self) -> bool:
+        return self.outcome is not None
+
+    @property
+    def seconds(self) -> float:
+        """Seconds since the step started."""
+        return time.monotonic() - self.started
+
+    def wait(self, seconds: float | None = None) -> bool:
+        """Wait up to ``seconds`` (None: until the end) for the step; True once it ended."""
+        self._thread.join(seconds)
+        return self.done
 
 
 def _safe_summary(result) -> str:

@@ -90,6 +90,12 @@ def row_key(value):
     return value
 
 
+def sentence(text: str) -> str:
+    """``text`` with its first letter made upper case and the rest left as written (column
+    names and abbreviations such as RBF keep their case, which str.capitalize would lose)."""
+    return text[:1].upper() + text[1:]
+
+
 def plural(count: int, word: str, many: str | None = None) -> str:
     return f"{count} {word}" if count == 1 else f"{count} {many or word + 's'}"
 

@@ -3,17 +3,18 @@
 from __future__ import annotations
 
 import dataclasses
-import json
 from pathlib import Path
 
-from analysis.errors import ScoutError, StudyError
+from analysis.errors import ScoutError
 from analysis.steps import STEP_KINDS, step_class
 from analysis.study import (
     Study,
+    StudyFile,
     TableSettings,
     add_step,
     apply_table_settings,
-    study_from_json,
+    read_study_file,
+    restore_results,
 )
 from analysis.table import read_table
 from app import state
@@ -110,29 +111,23 @@ def _first_target(study: Study):
     return None
 
 
-def read_study(name: str, data: bytes) -> Study:
-    """A study from the bytes of a .study.json file (StudyError with the file name)."""
-    if len(data) > 10 * 1024**2:
-        raise StudyError(f"{name}: too big to be a study file; did you mean to load it as "
-                         "a table?")
-    try:
-        parsed = json.loads(data.decode("utf-8-sig"))
-    except UnicodeDecodeError:
-        raise StudyError(f"{name}: not UTF-8 text; a study is a JSON file.") from None
-    except json.JSONDecodeError as exc:
-        raise StudyError(f"{name}, line {exc.lineno}, column {exc.colno}: not valid JSON "
-                         f"({exc.msg}). A study is a .study.json file saved from this page."
-                         ) from None
-    return study_from_json(parsed, source=name)
+def read_study(name: str, data: bytes) -> StudyFile:
+    """A study file from the bytes of an upload (StudyError with the file name)."""
+    return read_study_file(data, name)
 
 
-def open_study(study: Study) -> str | None:
+def open_study(opened: StudyFile | Study) -> str | None:
     """Put an opened study on the page, with its own table when it can be found.
 
     The study names its table: the loaded table when the name or digest agrees, else a
     sample of that name. Otherwise the study runs on the loaded table, and the returned
-    sentence says so.
+    sentence says so. A study saved with its results shows them at once when the table has
+    the bytes they were computed on; on another table its settings are kept, nothing runs,
+    and the sentence says why.
     """
+    if isinstance(opened, Study):
+        opened = StudyFile(study=opened)
+    study = opened.study
     current = state.table_state()
     chosen = current
     note = None
@@ -153,4 +148,21 @@ def open_study(study: Study) -> str | None:
     chosen.settings = TableSettings(id_column=chosen.base.id_column)
     state.start_study(study)
     state.page().focus = {"target": _first_target(study)}
+    if opened.saved is not None:
+        note = _saved_note(opened, chosen)
     return note
+
+
+def _saved_note(opened: StudyFile, chosen: state.TableState) -> str:
+    """Put the saved results on the page when they fit the table; nothing runs either way."""
+    saved = opened.saved
+    state.page().run_all = False
+    restored = restore_results(opened.study, saved, state.table_state().table, state.cache())
+    if restored or saved.fits(chosen.base):
+        return (f"Opened with the results saved in the study file ({restored} of "
+                f"{len(opened.study.steps)} steps), computed on these very contents of "
+                f"{chosen.name}; nothing was run. Run a step again to compute it afresh.")
+    return (f"The results saved in this study file were computed on a table with other "
+            f"contents (sha256 {saved.table_digest[:12]}…) than {chosen.name} "
+            f"(sha256 {chosen.base.digest[:12]}…), so they are not shown. The study's "
+            "settings are kept; run every step to compute its results on this table.")

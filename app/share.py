@@ -4,19 +4,24 @@ figures as SVG and PDF where kaleido can drive a chromium."""
 from __future__ import annotations
 
 import dataclasses
-import json
 
 import streamlit as st
 
 from analysis.errors import ScoutError
-from analysis.study import run_study, study_to_json
+from analysis.study import run_study, saved_results, study_file_text
 from app import loading, state
 from app.figure_view import slug, vector_export_problem
 
 
 def study_text(study) -> str:
     """The study as the text of its .study.json file."""
-    return json.dumps(study_to_json(study), indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    return study_file_text(study)
+
+
+def study_with_results_text(study, table, cache) -> str:
+    """The study with the results ``cache`` holds for its steps on ``table`` (the study's
+    settings applied), as the text of its .study.json file."""
+    return study_file_text(study, saved_results(study, table, cache))
 
 
 def report_bytes(study, base_table, cache) -> bytes:
@@ -44,6 +49,15 @@ def share_panel() -> None:
                             "every step with its settings and seed. Open it here again, or "
                             "re-run it with `python -m analysis run`.")
     cache = state.cache()
+    st.download_button("Download the study with its results",
+                       data=lambda: study_with_results_text(study, table_state.table, cache),
+                       file_name=f"{name}.results.study.json", mime="application/json",
+                       key="share.study_results", icon=":material/download:",
+                       on_click="ignore", width="stretch",
+                       help="The study file with every result computed so far, tied to the "
+                            "table's digest: opened here with the same table, the results "
+                            "show at once without running. Larger: it holds every row's "
+                            "figures.")
     st.download_button("Download the report (HTML)",
                        data=lambda: report_bytes(study, table_state.base, cache),
                        file_name=f"{name}.html", mime="text/html", key="share.report",
@@ -52,7 +66,8 @@ def share_panel() -> None:
                             "figures; it opens offline.")
     opened = st.file_uploader("Open a study", type=["json"], key="share.open",
                               help="A .study.json file saved from this page. Its steps "
-                                   "replace the page and run again.")
+                                   "replace the page and run again, or show their saved "
+                                   "results when the file carries them for this table.")
     if opened is not None and opened.file_id != pg.study_upload_id:
         pg.study_upload_id = opened.file_id
         try:
@@ -61,6 +76,7 @@ def share_panel() -> None:
             pg.study_error = str(exc)
         else:
             pg.study_error = None
+            pg.notices = [n for n in pg.notices if not n.startswith("study:")]
             if note:
                 pg.notices.append(f"study:{note}")
             st.rerun()

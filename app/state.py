@@ -1,4 +1,4 @@
-"""What a browser session remembers, under five namespaced keys of ``st.session_state``.
+"""What a browser session remembers, under six namespaced keys of ``st.session_state``.
 
 - ``scout.table``: the loaded table (:class:`TableState`): its bytes, the table as read, and
   the table with the study's id column and role changes applied.
@@ -9,6 +9,8 @@
   not parameters, so changing them never recomputes a step.
 - ``scout.page``: page bookkeeping (:class:`PageState`): a stable id per step for widget keys,
   the messages of steps that could not run, and what the last upload was.
+- ``scout.jobs``: the steps running now (:class:`analysis.study.StepJob`), by result key, so
+  that a pass of the script cut short by a click finds its running steps again.
 - ``scout.kept``: the studies of the other tables loaded in this session (:class:`KeptStudy`),
   by the sha256 digest of the table's bytes, so that going back to a table brings back its
   study, its settings and the results already computed.
@@ -31,6 +33,7 @@ STUDY = "scout.study"
 CACHE = "scout.cache"
 PAGE = "scout.page"
 KEPT = "scout.kept"
+JOBS = "scout.jobs"
 
 # The study-wide choices offered above the steps, and the step setting each one sets.
 FOCUS_FIELDS = ("target", "columns", "array_encoding", "groups")
@@ -56,6 +59,8 @@ class PageState:
     next_id: int = 1
     # result key -> message, for steps that could not run with those settings
     errors: dict[str, str] = field(default_factory=dict)
+    # result key -> message, for steps stopped on request before they finished
+    stopped: dict[str, str] = field(default_factory=dict)
     run_all: bool = False
     just_added: int | None = None
     # the study-wide target, feature columns, array encoding and group column
@@ -108,6 +113,13 @@ def page() -> PageState:
     return st.session_state[PAGE]
 
 
+def jobs() -> dict:
+    """The steps running now, by result key."""
+    if JOBS not in st.session_state:
+        st.session_state[JOBS] = {}
+    return st.session_state[JOBS]
+
+
 def cache() -> ResultCache:
     if CACHE not in st.session_state:
         st.session_state[CACHE] = ResultCache(max_entries=96)
@@ -139,6 +151,7 @@ def start_study(new: Study) -> None:
         pg.step_ids.append(pg.next_id)
         pg.next_id += 1
     pg.errors.clear()
+    pg.stopped.clear()
     pg.run_all = True
     pg.just_added = None
     st.session_state[STUDY] = new

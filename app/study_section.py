@@ -10,11 +10,11 @@ import streamlit as st
 from analysis.errors import ScoutError, StepError
 from analysis.steps import KIND_TITLES, STEP_KINDS, step_class
 from analysis.study import (
+    StepJob,
     add_step,
     move_step,
     remove_step,
     result_key,
-    run_step,
 )
 from app import state
 from app.loading import available_kinds
@@ -144,7 +144,9 @@ def _count(n: int, word: str) -> str:
 
 
 def _request_run_all() -> None:
-    state.page().run_all = True
+    pg = state.page()
+    pg.run_all = True
+    pg.stopped.clear()
 
 
 def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict) -> bool:
@@ -159,7 +161,9 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
         title_col, up_col, down_col, remove_col = st.columns(
             [12, 1, 1, 1], vertical_alignment="center", gap="small")
         title_col.markdown(f"#### {index + 1}. {step.display_title}")
-        title_col.caption(module.describe(step.params))
+        # Drawn again once the result is known, so that it names what was computed.
+        caption = title_col.empty()
+        caption.caption(module.describe(step.params))
         up_col.button("", key=f"s{uid}.up", icon=":material/arrow_upward:",
                       help="Move this step up", type="tertiary", disabled=index == 0,
                       on_click=_move, args=(uid, -1))
@@ -192,13 +196,21 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
             # A click of the run action arrives before the button is drawn again: run in
             # the button's place, and draw it only when the step still has no result.
             asked = bool(st.session_state.get(f"s{uid}.run"))
-            if asked or (run_all and error is None):
-                result, error = _run(step, table, key, place)
+            if asked:
+                pg.stopped.pop(key, None)
+            going = key in state.jobs()
+            if asked or going or (run_all and error is None and key not in pg.stopped):
+                result, error = _run(step, table, key, place, uid)
                 ran = True
             if result is None:
                 place.button("Run this step", key=f"s{uid}.run", type="primary",
                              icon=":material/play_arrow:")
-        if error:
+        caption.caption(module.describe(step.params, result))
+        stopped = pg.stopped.get(key) if result is None else None
+        if stopped:
+            st.warning(f"{stopped} The other steps keep their results; run this one again "
+                       "when you like.", icon=":material/stop_circle:")
+        elif error:
             st.error(error)
         elif result is None:
             st.caption("Not run yet with these settings.")
@@ -211,10 +223,16 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
     return ran
 
 
-def _run(step, table, key: str, place):
-    """Run one step through the study runner (its cache and its error messages), showing
-    what it does in ``place`` meanwhile."""
-    pg = state.page()
+def _run(step, table, key: str, place, uid: int):
+    """Run one step on a thread of its own (the study runner's error messages), showing in
+    ``place`` what it does and a way to stop it; a run already going for these settings is
+    watched rather than started again. A click anywhere on the page ends this pass of the
+    script at the next drawing here (streamlit reruns the script); the step runs on and the
+    next pass watches it again."""
+    jobs = state.jobs()
+    job = jobs.get(key)
+    if job is None:
+        job = jobs[key] = StepJob(step, table).start()
     label = f"{step.display_title}: {RUNNING.get(step.kind, 'running')}"
     umap = step.kind == "projection" and step.params.get("method") == "umap"
     if umap:
@@ -222,33 +240,79 @@ def _run(step, table, key: str, place):
     with place.status(label + "…", expanded=True) as box:
         bar = box.progress(0.0, text="starting")
         early = box.empty()
-
-        def report(found) -> None:
-            share = found.share
-            bar.progress(0.0 if share is None else share, text=found.text)
-            figures = dict(found.first_figures)
-            if "accuracy" in figures and "baseline_accuracy" in figures:
-                early.caption(f"Split 1: accuracy {figures['accuracy']:.3f} against "
-                              f"{figures['baseline_accuracy']:.3f} for always guessing the "
-                              "most common class.")
-            elif "r2" in figures:
-                early.caption(f"Split 1: R² {figures['r2']:.3f} on the test rows.")
-
-        outcome = run_step(step, table, cache=state.cache(), progress=report)
-        box.update(label=f"{step.display_title}: done in {outcome.elapsed_seconds:.1f} s",
-                   state="complete" if outcome.ok else "error")
+        box.button("Stop this step", key=f"s{uid}.stop", icon=":material/stop:",
+                   on_click=_stop, args=(key,),
+                   help="Ends this step at its next report; the other steps keep their "
+                        "results, and this one can be run again.")
+        while not job.wait(LOOK_EVERY):
+            _show_progress(job, bar, early)
+        box.update(label=f"{step.display_title}: done in {job.outcome.elapsed_seconds:.1f} s",
+                   state="complete" if job.outcome.ok else "error")
     place.empty()
+    jobs.pop(key, None)
+    return _collect(job.outcome, key, umap)
+
+
+# How often the page looks at a running step, in seconds: each look redraws its bar, which
+# is also where a click on the page takes effect.
+LOOK_EVERY = 0.3
+
+
+def _show_progress(job, bar, early) -> None:
+    found = job.latest
+    alive = f"{job.seconds:.0f} s"
+    if found is None:
+        bar.progress(0.0, text=f"working, {alive}")
+        return
+    share = found.share
+    bar.progress(0.0 if share is None else share, text=f"{found.text} ({alive})")
+    figures = dict(found.first_figures)
+    if "accuracy" in figures and "baseline_accuracy" in figures:
+        early.caption(f"Split 1: accuracy {figures['accuracy']:.3f} against "
+                      f"{figures['baseline_accuracy']:.3f} for always guessing the "
+                      "most common class.")
+    elif "r2" in figures:
+        early.caption(f"Split 1: R² {figures['r2']:.3f} on the test rows.")
+
+
+def _collect(outcome, key: str, umap: bool):
+    """Keep a finished step's result in the cache, or its message; a stopped step keeps
+    neither, only the note that it was stopped."""
+    pg = state.page()
     if umap and outcome.ok:
         _umap_runs()["done"] = True
     if outcome.ok:
         pg.errors.pop(key, None)
+        pg.stopped.pop(key, None)
+        state.cache().put(key, outcome.result)
         return outcome.result, None
+    if outcome.stopped:
+        pg.stopped[key] = outcome.error
+        return None, None
     message = outcome.error
     if outcome.internal:
         message = ("This step stopped on an internal error; the rest of the study is "
                    f"unaffected. {outcome.error}")
     pg.errors[key] = message
     return None, message
+
+
+def _stop(key: str) -> None:
+    """The stop action: ask the running step to end, and run nothing more in this pass.
+
+    A kind that reports its progress ends at its next report; one that does not cannot be
+    cut short, so it is left to finish on its own and its result is dropped."""
+    pg = state.page()
+    pg.run_all = False
+    pg.run_uids.clear()
+    job = state.jobs().get(key)
+    if job is None:
+        return
+    job.stop()
+    if not job.stoppable:
+        state.jobs().pop(key, None)
+        pg.stopped[key] = ("Stopped on request. This kind of step cannot be cut short, so "
+                           "it finishes out of sight and its result is set aside.")
 
 
 def _position(uid: int) -> int | None:

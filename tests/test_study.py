@@ -563,3 +563,157 @@ def test_a_separator_explaining_a_statement_does_not_follow_the_target():
                     {"target_statement": statement})
     assert steps_following_target(plan, "planar") == ()
     assert with_target(plan, "planar") == plan
+
+
+# ----------------------------------------------------------------------------------------
+# A study file that carries its results
+
+
+@pytest.fixture(scope="module")
+def saved_once(tmp_path_factory):
+    """The first study of the class-number table run once and saved with its results."""
+    from analysis.study import saved_results
+
+    table = load_table(TABLES / "quadratic_fields.csv")
+    study = default_study(table, target="class_number_one", seed=5)
+    cache = ResultCache()
+    first = run_study(study, table, cache=cache)
+    assert first.ok, [o.error for o in first.outcomes]
+    path = tmp_path_factory.mktemp("saved") / "fields.study.json"
+    save_study(study, path, saved_results(study, first.source_table, cache))
+    return table, study, path
+
+
+def test_a_study_saved_with_results_gives_them_back_and_a_fresh_run_the_same_figures(
+        saved_once):
+    from analysis.study import load_study_file, restore_results
+
+    table, study, path = saved_once
+    opened = load_study_file(path)
+    assert opened.study == study and load_study(path) == study
+    assert opened.saved.fits(table) and opened.saved.count == len(study.steps)
+    stored = json.loads(path.read_text(encoding="utf-8"))["results"]["steps"]
+    fresh = run_study(opened.study, table)  # no cache: every step computed again
+    assert [without_timing(s["json"]) for s in stored] == \
+        [without_timing(o["result"]) for o in fresh.to_json()["steps"]]
+    cache = ResultCache()
+    assert restore_results(opened.study, opened.saved, fresh.source_table, cache) == 6
+    shown = run_study(opened.study, table, cache=cache)
+    assert all(o.cached for o in shown.outcomes)
+    assert without_timing(shown.to_json()) == without_timing(fresh.to_json())
+    # The class number is 1 for exactly nine imaginary quadratic fields (the Baker-Heegner-
+    # Stark theorem); the table lists fields far past the largest, -163.
+    flag = [c for c in stored[0]["json"]["columns"] if c["name"] == "class_number_one"]
+    assert ["True", 9] in flag[0]["common"]
+
+
+def test_saved_results_are_not_restored_on_a_table_with_other_bytes(saved_once):
+    from analysis.study import load_study_file, restore_results
+
+    table, _, path = saved_once
+    changed = read_table((TABLES / "quadratic_fields.csv").read_bytes() + b"\n",
+                         "quadratic_fields.csv")
+    opened = load_study_file(path)
+    assert changed.digest != table.digest and not opened.saved.fits(changed)
+    cache = ResultCache()
+    assert restore_results(opened.study, opened.saved, changed, cache) == 0 and len(cache) == 0
+
+
+def _edit_saved(path, change) -> bytes:
+    data = json.loads(path.read_text(encoding="utf-8"))
+    change(data)
+    return json.dumps(data).encode()
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda d: d["results"]["steps"][0]["json"].update(rows=999), "does not give the figures"),
+    (lambda d: d["results"]["steps"].pop(), "one entry per step"),
+    (lambda d: d["results"].update(table_digest="abc"), "sha256 digest"),
+    (lambda d: d["results"]["steps"][1]["params"].update(seed=6), "other settings"),
+    (lambda d: d["results"]["steps"][1].update(stored={"$dataclass": "os.system",
+                                                       "fields": {}}), "not a record"),
+    (lambda d: d["results"]["steps"][0].update(stored=d["results"]["steps"][1]["stored"]),
+     "not the result of a overview step"),
+    (lambda d: d["results"].update(extra=1), "'results' must be an object"),
+])
+def test_a_damaged_saved_result_is_refused_naming_the_step(saved_once, change, words):
+    from analysis.study import read_study_file
+
+    _, _, path = saved_once
+    with pytest.raises(StudyError, match=words) as caught:
+        read_study_file(_edit_saved(path, change), "sent.study.json")
+    assert str(caught.value).startswith("sent.study.json")
+
+
+def test_the_command_line_runs_a_study_saved_with_its_results(saved_once, tmp_path,
+                                                               capsys):
+    from analysis.cli import main
+
+    table, _, saved_path = saved_once
+    path = tmp_path / saved_path.name
+    path.write_bytes(saved_path.read_bytes())
+    (tmp_path / table.name).write_bytes((TABLES / table.name).read_bytes())
+    out_json = tmp_path / "run.json"
+    assert main(["run", str(path), "--json", str(out_json)]) == 0, capsys.readouterr()
+    stored = json.loads(path.read_text(encoding="utf-8"))["results"]["steps"]
+    ran = json.loads(out_json.read_text(encoding="utf-8"))["steps"]
+    assert [without_timing(s["json"]) for s in stored] == \
+        [without_timing(o["result"]) for o in ran]
+
+
+# ----------------------------------------------------------------------------------------
+# A step on a thread of its own, and stopping it
+
+
+def _wait_for_a_report(job):
+    import time as clock
+
+    for _ in range(600):
+        if job.latest is not None or job.done:
+            return
+        clock.sleep(0.05)
+
+
+@pytest.mark.parametrize("kind, params, phase", [
+    ("separator", {"target": "class_number_one", "seed": 2}, None),
+    ("clustering", {"seed": 2}, "trying clusterings"),
+    ("outliers", {"target": "class_number_one", "seed": 2}, "scoring every object"),
+])
+def test_a_running_step_stops_at_its_next_report_and_keeps_no_result(kind, params, phase):
+    from analysis.study import StepJob
+
+    table = load_table(TABLES / "quadratic_fields.csv")
+    job = StepJob(new_step(kind, params), table).start()
+    assert job.stoppable
+    _wait_for_a_report(job)
+    # every one of these kinds reports again after its first report, so the stop lands
+    assert not job.done, "the step ended before it could be stopped"
+    job.stop()
+    assert job.wait(120)
+    assert job.outcome.stopped and job.outcome.result is None
+    assert job.outcome.error.startswith("Stopped by request during ")
+    if phase is not None:
+        assert job.outcome.error == f"Stopped by request during {phase}."
+
+
+def test_a_step_left_alone_on_its_thread_gives_what_the_runner_gives(small):
+    from analysis.study import StepJob, run_step
+
+    step = new_step("overview", {"seed": 0})
+    job = StepJob(step, small).start()
+    assert job.wait(120) and job.outcome.ok and not job.outcome.stopped
+    assert job.outcome.result.to_json() == run_step(step, small).result.to_json()
+    # Every row of the small table is read: eight objects x1 to x8.
+    assert job.outcome.result.rows == 8
+
+
+def test_a_kind_that_never_reports_runs_to_its_end_and_its_result_is_set_aside(small):
+    from analysis.study import StepJob
+
+    job = StepJob(new_step("overview", {"seed": 0}), small)
+    assert not job.stoppable
+    job.stop()
+    job.start()
+    assert job.wait(120)
+    assert job.outcome.stopped and job.outcome.result is None
+    assert "set aside" in job.outcome.error

@@ -1,4 +1,5 @@
-"""One panel per step kind: ``describe(params)``, ``settings_panel(ctx)`` and
+"""One panel per step kind: ``describe(params, result=None)`` (the caption under the step's
+title; with the result at hand it names what was computed), ``settings_panel(ctx)`` and
 ``show(ctx, result)``. A panel reads widgets, and draws a result that analysis/ computed."""
 
 from __future__ import annotations

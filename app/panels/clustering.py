@@ -18,7 +18,7 @@ METHODS = {
 }
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
     method = METHODS.get(params.get("method"), params.get("method"))
     if params.get("method") == "auto":
         method = "clusters chosen by a sweep"

@@ -10,10 +10,14 @@ from app import display, settings
 from app.figure_view import show_figures, slug
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
+    """What the step lists; once it ran, whether a prediction of the target took part (it
+    cannot when the target does not fit one)."""
     target = params.get("target")
+    judged = target and (result is None or "separator" in result.measures)
     return (f"the {params.get('top')} objects that stand out most"
-            + (f", including those a separator for {target} gets wrong" if target else ""))
+            + (f", including those whose {target} the other invariants predict worst"
+               if judged else ""))
 
 
 def settings_panel(ctx: settings.StepContext) -> None:

@@ -9,7 +9,7 @@ from app import display, settings
 from app.figure_view import show_figures
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
     return "the table's columns, ranges and strongly correlated pairs"
 
 

@@ -11,7 +11,7 @@ METHODS = {"pca": "PCA", "umap": "UMAP", "tsne": "t-SNE", "lda": "LDA (separates
 NO_COLOUR = "(one colour)"
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
     """The step's caption. The colouring is a view choice made under the picture, so the
     caption names the target only where it changes the picture's axes (LDA)."""
     method = METHODS.get(params.get("method"), params.get("method")).split(" (")[0]

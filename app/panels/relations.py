@@ -14,7 +14,7 @@ ROWS_SHOWN = 200
 NONE_CHOSEN = "(choose a relation or bound)"
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
     chosen = params.get("columns")
     where = "every numeric invariant" if not chosen else (
         ", ".join(chosen) if len(chosen) <= FOLD_LIMIT else f"{len(chosen)} chosen columns")

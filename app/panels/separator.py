@@ -31,8 +31,12 @@ CONJECTURE = ("The equation holds on the rows of this table with the violations 
 ROWS_SHOWN = 200
 
 
-def describe(params: dict) -> str:
+def describe(params: dict, result=None) -> str:
+    """What the step predicts and with which model: once it ran, the model as fitted (a
+    number target is fitted by a regression model)."""
     model = MODELS.get(params.get("model"), params.get("model"))
+    if result is not None:
+        model = model_words(result)
     if params.get("target_statement"):
         from analysis.derived import Statement
 
@@ -188,9 +192,15 @@ def _view_options(ctx, table, result) -> dict:
             "hover": list(st.session_state[hover_key])}
 
 
-def _verdict(result) -> None:
+def model_words(result) -> str:
+    """The model the result was fitted with, in words: a regression model for a number."""
     from analysis.separation import MODEL_WORDS, REGRESSION_WORDS
 
+    words = REGRESSION_WORDS if result.task == "regression" else MODEL_WORDS
+    return words.get(result.model, result.model)
+
+
+def _verdict(result) -> None:
     if result.target_follows is not None:
         st.info(f"**Finding: the target follows from the features.** "
                 f"`{result.target_follows.relation}` holds on all "
@@ -200,13 +210,12 @@ def _verdict(result) -> None:
                 "columns to ask whether the other invariants predict it.")
     word = "yes" if result.beats_chance else "no"
     colour = "green" if result.beats_chance else "orange"
-    words = (REGRESSION_WORDS if result.task == "regression" else MODEL_WORDS).get(
-        result.model, result.model)
+    words = model_words(result)
     st.markdown(f"#### Beats chance: :{colour}[{word}]")
     rule = result.beats_chance_rule
     if rule.startswith("beats chance: "):
         rule = "The verdict is " + rule[len("beats chance: "):]
-    st.caption(f"{words.capitalize()}, trained on {display.number(result.train_rows)} "
+    st.caption(f"{display.sentence(words)}, trained on {display.number(result.train_rows)} "
                f"objects, tested on {display.number(result.test_rows)} others "
                f"({result.split_method}). {rule}")
 
@@ -277,7 +286,7 @@ def _regression_metrics(result) -> None:
         if "formula_exact" in b:
             columns[2].metric("Closest formula", f"{b['formula_exact']:.1%}",
                               help=b["formula"])
-        st.caption(exact_text(result).capitalize() + ".")
+        st.caption(display.sentence(exact_text(result)) + ".")
 
 
 def _equation(ctx, table, result, equation, number: int) -> None:

@@ -176,3 +176,35 @@ def test_a_long_feature_list_is_folded_on_the_page_and_a_short_one_is_not():
     upload(at, "narrow.csv", _wide_csv(FOLD_LIMIT))
     assert not [e.label for e in at.expander if e.label.startswith("Features used")]
     assert any(m.startswith("Features used: `x0`") for m in texts(at.markdown))
+
+
+def test_a_stopped_step_says_so_keeps_the_others_and_runs_again():
+    """A click of a running step's stop action ends that pass of the script at its next
+    drawing; the next pass finds the step on its thread and watches it end. Here the step
+    was asked to stop before its thread started, so it stops at its first report."""
+    from analysis.study import StepJob, result_key
+
+    at = open_page("quadratic_fields.csv")
+    before = results(at)
+    uid = add_step(at, "separator")
+    step = study(at).steps[-1]
+    key = result_key(table(at), step.kind, step.params)
+    job = StepJob(step, table(at))
+    job.stop()
+    at.session_state["scout.jobs"] = {key: job.start()}
+    at.run()
+    assert not at.exception, [e.value for e in at.exception]
+    warnings = texts(at.warning)
+    assert any(w.startswith("Stopped by request during ") and "keep their results" in w
+               for w in warnings), warnings
+    assert results(at)[:-1] == before and results(at)[-1] is None
+    assert f"s{uid}.run" in [b.key for b in at.button]
+    assert key not in at.session_state["scout.jobs"]
+
+    at.button(key=f"s{uid}.run").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert results(at)[-1] is not None
+    assert not any(w.startswith("Stopped") for w in texts(at.warning))
+    # nine imaginary quadratic fields of class number 1 (the Baker-Heegner-Stark theorem):
+    # the separator predicts the flag those nine carry.
+    assert set(results(at)[-1].classes) == {False, True}

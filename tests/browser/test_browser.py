@@ -91,9 +91,11 @@ def app_url(chromium, tmp_path):
             server.wait(timeout=20)
 
 
-def _choose(page, label: str, option: str) -> None:
-    """Pick the option starting with ``option`` in the selectbox labelled ``label``."""
-    box = page.get_by_role("combobox", name=label, exact=True).first
+def _choose(where, label: str, option: str) -> None:
+    """Pick the option starting with ``option`` in the selectbox labelled ``label`` (on the
+    page, or inside one part of it)."""
+    page = getattr(where, "page", where)
+    box = where.get_by_role("combobox", name=label, exact=True).first
     box.click()
     page.keyboard.type(option)
     page.get_by_role("option").filter(has_text=option).first.click()
@@ -176,6 +178,86 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
             page.screenshot(path=str(shot))
             assert shot.stat().st_size > 10_000
             assert not elsewhere, f"the page asked other hosts: {elsewhere[:5]}"
+        except Exception:
+            page.screenshot(path=str(tmp_path / "failure.png"))
+            raise
+        finally:
+            browser.close()
+
+
+def _outside(url: str) -> bool:
+    """A request that would leave this machine (the page) or the report's own file."""
+    return not url.startswith(("http://127.0.0.1", "ws://127.0.0.1", "data:", "blob:",
+                               "about:", "file:"))
+
+
+@pytest.mark.browser
+def test_stop_a_running_step_and_open_the_report_offline_in_chromium(chromium, app_url,
+                                                                     tmp_path):
+    """A click on a running step's stop action during its run: the step says it stopped and
+    can run again, the other steps keep their results. Then the HTML report downloaded from
+    the page opens in chromium asking no host at all."""
+    from playwright.sync_api import expect, sync_playwright
+
+    with sync_playwright() as playwright:
+        browser = playwright.chromium.launch(executable_path=str(chromium), headless=True,
+                                             args=CHROMIUM_ARGS)
+        page = browser.new_page(viewport={"width": 1440, "height": 1000},
+                                accept_downloads=True)
+        elsewhere: list[str] = []
+        page.on("request", lambda r: elsewhere.append(r.url) if _outside(r.url) else None)
+        try:
+            page.goto(f"{app_url}/?table=quadratic_fields.csv")
+            expect(page.get_by_text("Add a step")).to_be_visible(timeout=STEP_TIMEOUT_MS)
+            _settle(page)
+            _choose(page, "Kind of step", "Separator")
+            page.get_by_role("button", name="Add step").click()
+            _settle(page)
+            step = page.locator("[class*='st-key-step-']").filter(
+                has=page.get_by_role("heading", name="3. Separator"))
+            expect(step).to_have_count(1, timeout=60_000)
+            # A kernel machine refits for every split and permutation: fifty splits make a
+            # run of many seconds, long past the click even on a loaded machine.
+            _choose(step, "Separator", "support vector machine, RBF")
+            _settle(page)
+            splits = step.get_by_label("Random splits")
+            splits.fill("50")
+            splits.press("Enter")
+            _settle(page)
+            step.get_by_role("button", name="Run this step").click()
+            stop = step.get_by_role("button", name="Stop this step")
+            expect(stop).to_be_visible(timeout=60_000)
+            stop.click()
+            expect(step.get_by_text("Stopped by request during")).to_be_visible(
+                timeout=120_000)
+            expect(step.get_by_role("button", name="Run this step")).to_be_visible()
+            _settle(page)
+            # The opening steps keep their results: no run action, their figures drawn.
+            for title in ("1. Overview", "2. Projection"):
+                earlier = page.locator("[class*='st-key-step-']").filter(
+                    has=page.get_by_role("heading", name=title))
+                expect(earlier.get_by_role("button", name="Run this step")).to_have_count(0)
+            expect(page.locator("[class*='st-key-step-']").filter(
+                has=page.get_by_role("heading", name="2. Projection")).locator(
+                    ".js-plotly-plot").first).to_be_visible()
+
+            with page.expect_download(timeout=STEP_TIMEOUT_MS) as waiting:
+                page.get_by_role("button", name="Download the report (HTML)").click()
+            report = tmp_path / "report.html"
+            waiting.value.save_as(str(report))
+            assert not elsewhere, f"the page asked other hosts: {elsewhere[:5]}"
+
+            # The report as a collaborator opens it: a file, no server behind it.
+            reader = browser.new_page(viewport={"width": 1200, "height": 900})
+            seen: list[str] = []
+            reader.on("request", lambda r: seen.append(r.url))
+            reader.goto(report.as_uri())
+            expect(reader.locator(".js-plotly-plot").first).to_be_visible(timeout=60_000)
+            expect(reader.get_by_text("not a proof").first).to_be_visible()
+            reader.wait_for_timeout(2000)
+            assert report.as_uri() in seen, seen[:5]  # the listener hears the page itself
+            asked = [url for url in seen if _outside(url)]
+            assert not asked, f"the report asked other hosts: {asked[:5]}"
         except Exception:
             page.screenshot(path=str(tmp_path / "failure.png"))
             raise
