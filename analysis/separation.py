@@ -151,6 +151,9 @@ class SeparatorResult:
     open_predictions: tuple[dict, ...] = ()  # rows with no known target value, predicted
     reading: object = None          # analysis.reading.Reading: number or classes, and why
     elapsed_seconds: float = 0.0
+    # seconds of each part of the protocol ("split 1", "later splits", "learning curve", ...),
+    # in the order they ran; like elapsed_seconds, not part of the JSON
+    phase_seconds: tuple[tuple[str, float], ...] = ()
     kind: ClassVar[str] = "separator"
 
     def _repr_html_(self) -> str:
@@ -177,7 +180,8 @@ class SeparatorResult:
     def to_json(self) -> dict:
         """Plain JSON: the contract's fields first, then everything else the step reports.
 
-        ``elapsed_seconds`` is left out so that the same seed gives byte-identical JSON.
+        ``elapsed_seconds`` and ``phase_seconds`` are left out so that the same seed gives
+        byte-identical JSON.
         """
         return plain({
             "metrics": self.metrics,
@@ -528,6 +532,16 @@ class _Run:
         self.fit_warnings: set[str] = set()
         self.permutations_run = 0
         self.integer_target = False
+        self.phase_seconds: dict[str, float] = {}
+
+    def _clocked(self, name: str, work, *args):
+        """``work(*args)``, its seconds added to the part of the protocol called ``name``."""
+        started = time.perf_counter()
+        try:
+            return work(*args)
+        finally:
+            self.phase_seconds[name] = self.phase_seconds.get(name, 0.0) + (
+                time.perf_counter() - started)
 
     # -- preparation ----------------------------------------------------------------------
 
@@ -578,7 +592,7 @@ class _Run:
         self._choose_kernel_method()
         self._prepare_copies()
         self.progress.phase("checking whether the target follows from the features")
-        self.follows = self._target_follows()
+        self.follows = self._clocked("target check", self._target_follows)
         return self._protocol()
 
     def _target_follows(self):
@@ -835,18 +849,20 @@ class _Run:
         else:
             metrics, baseline, interval, confusion = self._class_report(test, predicted)
         self.progress.phase("permutation importance of the features")
-        importance = self._importance(model, test)
-        p_value, null, observed, permutation_method = self._permutation_test(train, test,
-                                                                             predicted)
+        importance = self._clocked("importance", self._importance, model, test)
+        p_value, null, observed, permutation_method = self._clocked(
+            "permutation test", self._permutation_test, train, test, predicted)
         statistic = metrics["r2_ci"] if self.regression else metrics["mcc_ci"]
         beats = bool(statistic[0] is not None and statistic[0] > 0 and p_value is not None
                      and p_value < CHANCE_LEVEL)
-        curve = self._learning_curve()
+        curve = self._clocked("learning curve", self._learning_curve)
         mispredicted = self._mispredicted(model, test, predicted)
         self.progress.phase("searching the exact equation")
-        equation_part = self._equation_part()
+        equation_part = self._clocked("fit on every row and exact equation",
+                                      self._equation_part)
         self.progress.phase("predicting the open values")
-        open_predictions = self._open_predictions(test, predicted)
+        open_predictions = self._clocked("open values", self._open_predictions, test,
+                                         predicted)
         if self.regression and self.integer_target and equation_part.get("formula"):
             from analysis.integer_target import exact_share
 
@@ -882,7 +898,7 @@ class _Run:
             permutations_run=self.permutations_run, left_out_columns=self.left_out,
             target_follows=self.follows, importance=importance,
             open_predictions=tuple(open_predictions), reading=self.reading,
-            **equation_part,
+            phase_seconds=tuple(self.phase_seconds.items()), **equation_part,
         )
 
     def _fit_splits(self, splits, strata) -> tuple[list[dict], tuple]:
@@ -912,13 +928,15 @@ class _Run:
             return record, (train, test, model, predicted)
 
         self.progress.phase("fitting the splits", total=len(splits))
-        record, first = one(0)
+        record, first = self._clocked("split 1", one, 0)
         self.progress.first_figures(**_first_figures(record))
         self.progress.advance()
         per_split = [record]
+        started = time.perf_counter()
         for record, _ in self._on_workers(one, range(1, len(splits)), self._split_workers()):
             per_split.append(record)
             self.progress.advance()
+        self.phase_seconds["later splits"] = time.perf_counter() - started
         return per_split, first
 
     def _split_workers(self) -> int:

@@ -344,6 +344,11 @@ def _separator_check(result) -> dict:
     notes = [n for n in result.notes if "sample" in n or "approximate" in n]
     if notes:
         check["large_table_notes"] = notes[:4]
+    if result.phase_seconds and result.elapsed_seconds > 0:
+        # each part's share of the whole step, largest first
+        shares = sorted(result.phase_seconds, key=lambda kv: -kv[1])
+        check["shares"] = {name: round(seconds / result.elapsed_seconds, 3)
+                           for name, seconds in shares}
     return check
 
 
