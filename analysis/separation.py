@@ -933,16 +933,21 @@ class _Run:
         self.progress.advance()
         per_split = [record]
         started = time.perf_counter()
-        for record, _ in self._on_workers(one, range(1, len(splits)), self._split_workers()):
+        largest = max((len(train) for train, _ in splits[1:]), default=0)
+        for record, _ in self._on_workers(one, range(1, len(splits)),
+                                          self._split_workers(largest)):
             per_split.append(record)
             self.progress.advance()
         self.phase_seconds["later splits"] = time.perf_counter() - started
         return per_split, first
 
-    def _split_workers(self) -> int:
-        """Threads for the later splits: one for Nystroem machines, whose fits each hold a
-        matrix of up to 50000 x 1000 features (two at once would double the peak memory)."""
-        return 1 if self.kernel_mode == "nystroem" else refit_workers()
+    def _split_workers(self, fit_rows: int) -> int:
+        """Threads for fits on up to ``fit_rows`` rows: one for Nystroem machines on more than
+        ``KERNEL_CURVE_ROWS`` rows, whose fits each hold a matrix of up to 50000 x 1000
+        features (two at once would double the peak memory); every core otherwise."""
+        if self.kernel_mode == "nystroem" and fit_rows > KERNEL_CURVE_ROWS:
+            return 1
+        return refit_workers()
 
     def _on_workers(self, work, items, workers: int):
         """``work(item)`` for each item, in order, on ``workers`` threads (each fit on one
@@ -1234,7 +1239,7 @@ class _Run:
         self.progress.phase("learning curve", total=len(LEARNING_FRACTIONS))
         ends = np.cumsum([len(splits) for _, splits in planned]).tolist()
         scores = []
-        for value in self._on_workers(score, jobs, self._split_workers()):
+        for value in self._on_workers(score, jobs, self._split_workers(len(pool))):
             scores.append(value)
             if len(scores) in ends:
                 self.progress.advance()
