@@ -3,12 +3,15 @@
 Every subcommand reads any supported table, prints a short human summary and, with
 ``--json PATH``, writes its full result as JSON. Bad input ends with one line on stderr and
 exit status 2, never a traceback. The subcommands build the same steps a study holds, so the
-command line and the app give the same numbers.
+command line and the app give the same numbers. When stderr is a terminal, a running step's
+phases ("fitting the splits 2 of at most 5", "permutation test ...") are shown there, one line
+rewritten in place per phase; piped or redirected, stderr gets none of them.
 """
 
 from __future__ import annotations
 
 import argparse
+import inspect as _inspect_module
 import json
 import sys
 from pathlib import Path
@@ -271,7 +274,13 @@ def _step(args: argparse.Namespace) -> int:
         result = run_distributed(step, args.table, scheduler=args.scheduler,
                                  id_column=args.id)
     else:
-        result = step.run(_load(args))
+        table = _load(args)
+        shown = phase_printer()
+        if shown is not None and "progress" in _inspect_module.signature(step.run).parameters:
+            result = step.run(table, progress=shown)
+            shown.finish()
+        else:
+            result = step.run(table)
     print(result.summary())
     if args.json:
         _write_json(args.json, result.to_json())
@@ -284,14 +293,14 @@ def _step(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from analysis.study import load_study, run_study
+    from analysis.study import load_study
     from analysis.table import load_table
 
     study_path = Path(args.study)
     study = load_study(study_path)
     table_path = Path(args.table) if args.table else study.table_path(study_path)
     table = load_table(table_path, id_column=args.id, limits=_limits(args))
-    outcome = run_study(study, table)
+    outcome = _study_with_phases(study, table)
     print(outcome.summary())
     if args.json:
         _write_json(args.json, outcome.to_json())
@@ -305,11 +314,11 @@ def _run(args: argparse.Namespace) -> int:
 
 def _report(args: argparse.Namespace) -> int:
     from analysis.report import write_report
-    from analysis.study import default_study, run_study, save_study
+    from analysis.study import default_study, save_study
 
     table = _load(args)
     study = default_study(table, target=args.target, seed=args.seed)
-    outcome = run_study(study, table)
+    outcome = _study_with_phases(study, table)
     print(outcome.summary())
     write_report(outcome, args.out)
     print(f"wrote {args.out}")
@@ -319,6 +328,68 @@ def _report(args: argparse.Namespace) -> int:
     if args.json:
         _write_json(args.json, outcome.to_json())
     return 0 if outcome.ok else EXIT_BAD_INPUT
+
+
+def _study_with_phases(study, table):
+    """Run a study, showing which step runs on stderr when it is a terminal."""
+    from analysis.study import run_study
+
+    shown = phase_printer()
+    if shown is None:
+        return run_study(study, table)
+    outcome = run_study(study, table, progress=shown.stage)
+    shown.finish()
+    return outcome
+
+
+class PhasePrinter:
+    """Writes a running step's phases to a terminal stream, one line per phase.
+
+    Called with :class:`analysis.progress.Progress` records (a step's ``progress``) or, through
+    :meth:`stage`, with a study's ``(stage, done, total)``. A phase's counts rewrite its line
+    in place (carriage return); a new phase starts a new line.
+    """
+
+    def __init__(self, stream):
+        self._stream = stream
+        self._phase: str | None = None
+
+    def __call__(self, record) -> None:
+        self._show(record.phase, record.text)
+
+    def stage(self, stage: str, done: int, total: int) -> None:
+        """A study's report before each step ("step 2 of 5: separator") and at the end."""
+        if stage != "done":
+            self._show(stage, stage)
+
+    def finish(self) -> None:
+        """End the last phase's line."""
+        if self._phase is not None:
+            self._stream.write("\n")
+            self._stream.flush()
+            self._phase = None
+
+    def _show(self, phase: str, text: str) -> None:
+        if phase != self._phase:
+            if self._phase is not None:
+                self._stream.write("\n")
+            self._phase = phase
+        # \x1b[K clears what a longer earlier text of the same phase left on the line
+        self._stream.write(f"\r{text}\x1b[K")
+        self._stream.flush()
+
+
+def phase_printer(stream=None) -> PhasePrinter | None:
+    """A :class:`PhasePrinter` on ``stream`` (default stderr) when it is a terminal, else None:
+    phases are for a person watching, not for a log or a pipe."""
+    stream = sys.stderr if stream is None else stream
+    isatty = getattr(stream, "isatty", None)
+    try:
+        terminal = bool(isatty()) if callable(isatty) else False
+    except ValueError:
+        # a closed stream
+        terminal = False
+    return PhasePrinter(stream) if terminal else None
 
 
 if __name__ == "__main__":

@@ -22,7 +22,8 @@ the first look is larger by that share than the plain one; the result's words sa
 
 The permuted scores depend only on their index (the caller seeds each shuffle by its index),
 so the same seed gives the same p-value whatever the number of workers: work is done in
-batches of a fixed size and scores past the stopping point are discarded.
+batches of a fixed size (the last one before the first look cut short at it) and scores past
+the stopping point are discarded.
 """
 
 from __future__ import annotations
@@ -131,12 +132,28 @@ def sequential_test(observed: float, score_of: Callable[[int], float], *, cap: i
     if cap < 1:
         raise StepError(f"a permutation test needs at least 1 shuffle; got {cap}.")
     look = first_look if first_look and cap >= 2 * first_look else 0
+    if workers <= 1:
+        return _run_test(observed, score_of, cap, exceedances, look, None, reporter)
+    from concurrent.futures import ThreadPoolExecutor
+
+    # threads: the refits spend their time in numpy and compiled solvers, and nothing needs
+    # pickling; one pool for the whole test, so no batch waits for threads to start
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        return _run_test(observed, score_of, cap, exceedances, look, pool, reporter)
+
+
+def _run_test(observed, score_of, cap, exceedances, look, pool, reporter) -> PermutationTest:
+    """The batches of a sequential test, on ``pool`` (None: in this thread)."""
     scores: list[float] = []
     reached = 0
     ended = "cap" if (exceedances or look) else "full"
     while len(scores) < cap:
         start = len(scores)
-        batch = _scores(score_of, range(start, min(cap, start + BATCH)), workers)
+        stop = min(cap, start + BATCH)
+        if start < look:
+            # a batch ends at the first look, so a clear signal takes no shuffle past it
+            stop = min(stop, look)
+        batch = _scores(score_of, range(start, stop), pool)
         for value in batch:
             scores.append(value)
             reached += value >= observed - TIE_TOLERANCE
@@ -166,12 +183,8 @@ def _p_value(ended: str, reached: int, count: int, cap: int, look: int) -> float
     return min(1.0, spent + plain)
 
 
-def _scores(score_of: Callable[[int], float], indices: range, workers: int) -> list[float]:
-    if workers <= 1 or len(indices) == 1:
+def _scores(score_of: Callable[[int], float], indices: range, pool) -> list[float]:
+    if pool is None or len(indices) == 1:
         return [float(score_of(i)) for i in indices]
-    from joblib import Parallel, delayed
-
-    # threads: the refits spend their time in numpy and compiled solvers, and nothing needs
-    # pickling; the order of the returned list is the order of the indices
-    run = Parallel(n_jobs=workers, backend="threading")
-    return [float(v) for v in run(delayed(score_of)(i) for i in indices)]
+    # the order of the returned list is the order of the indices
+    return [float(v) for v in pool.map(score_of, indices)]

@@ -151,6 +151,9 @@ class SeparatorResult:
     open_predictions: tuple[dict, ...] = ()  # rows with no known target value, predicted
     reading: object = None          # analysis.reading.Reading: number or classes, and why
     elapsed_seconds: float = 0.0
+    # seconds of each part of the protocol ("split 1", "later splits", "learning curve", ...),
+    # in the order they ran; like elapsed_seconds, not part of the JSON
+    phase_seconds: tuple[tuple[str, float], ...] = ()
     kind: ClassVar[str] = "separator"
 
     def _repr_html_(self) -> str:
@@ -177,7 +180,8 @@ class SeparatorResult:
     def to_json(self) -> dict:
         """Plain JSON: the contract's fields first, then everything else the step reports.
 
-        ``elapsed_seconds`` is left out so that the same seed gives byte-identical JSON.
+        ``elapsed_seconds`` and ``phase_seconds`` are left out so that the same seed gives
+        byte-identical JSON.
         """
         return plain({
             "metrics": self.metrics,
@@ -528,6 +532,16 @@ class _Run:
         self.fit_warnings: set[str] = set()
         self.permutations_run = 0
         self.integer_target = False
+        self.phase_seconds: dict[str, float] = {}
+
+    def _clocked(self, name: str, work, *args):
+        """``work(*args)``, its seconds added to the part of the protocol called ``name``."""
+        started = time.perf_counter()
+        try:
+            return work(*args)
+        finally:
+            self.phase_seconds[name] = self.phase_seconds.get(name, 0.0) + (
+                time.perf_counter() - started)
 
     # -- preparation ----------------------------------------------------------------------
 
@@ -578,7 +592,7 @@ class _Run:
         self._choose_kernel_method()
         self._prepare_copies()
         self.progress.phase("checking whether the target follows from the features")
-        self.follows = self._target_follows()
+        self.follows = self._clocked("target check", self._target_follows)
         return self._protocol()
 
     def _target_follows(self):
@@ -807,30 +821,7 @@ class _Run:
         splits, split_method = _splits(n, strata, self.group_labels,
                                        float(step.train_fraction), step.repeats, step.seed,
                                        self.table.name)
-        per_split = []
-        first = None
-        self.progress.phase("fitting the splits", total=len(splits))
-        for index, (train, test) in enumerate(splits):
-            fit_rows = train
-            if self.big and index > 0:
-                # a large table: split 1 is fitted on all its training rows; the others,
-                # which only give the spread over splits, on a sample of them
-                if self.group_labels is None:
-                    fit_rows = _share_sample(train, None if strata is None else strata[train],
-                                             step.sample_rows, step.seed + 41 + index)
-                else:
-                    fit_rows = _subsample(train, None if strata is None else strata[train],
-                                          step.sample_rows, step.seed + 41 + index,
-                                          groups=self.group_labels)
-            model = self._fit(fit_rows, seed_offset=index)
-            predicted = _predict(model, self.X[test])
-            metrics = self._split_metrics(fit_rows, test, predicted)
-            per_split.append({"split": index + 1, "train_rows": len(fit_rows),
-                              "test_rows": len(test), **metrics})
-            if index == 0:
-                first = (train, test, model, predicted)
-                self.progress.first_figures(**_first_figures(metrics))
-            self.progress.advance()
+        per_split, first = self._fit_splits(splits, strata)
         if self.big and len(splits) > 1:
             self.notes.append(f"the table is large ({n} rows): splits 2 to {len(splits)} were "
                               f"fitted on a random sample of at most {step.sample_rows} of "
@@ -858,17 +849,20 @@ class _Run:
         else:
             metrics, baseline, interval, confusion = self._class_report(test, predicted)
         self.progress.phase("permutation importance of the features")
-        importance = self._importance(model, test)
-        p_value, null, observed, permutation_method = self._permutation_test(train, test)
+        importance = self._clocked("importance", self._importance, model, test)
+        p_value, null, observed, permutation_method = self._clocked(
+            "permutation test", self._permutation_test, train, test, predicted)
         statistic = metrics["r2_ci"] if self.regression else metrics["mcc_ci"]
         beats = bool(statistic[0] is not None and statistic[0] > 0 and p_value is not None
                      and p_value < CHANCE_LEVEL)
-        curve = self._learning_curve()
+        curve = self._clocked("learning curve", self._learning_curve)
         mispredicted = self._mispredicted(model, test, predicted)
         self.progress.phase("searching the exact equation")
-        equation_part = self._equation_part()
+        equation_part = self._clocked("fit on every row and exact equation",
+                                      self._equation_part)
         self.progress.phase("predicting the open values")
-        open_predictions = self._open_predictions(test, predicted)
+        open_predictions = self._clocked("open values", self._open_predictions, test,
+                                         predicted)
         if self.regression and self.integer_target and equation_part.get("formula"):
             from analysis.integer_target import exact_share
 
@@ -904,8 +898,69 @@ class _Run:
             permutations_run=self.permutations_run, left_out_columns=self.left_out,
             target_follows=self.follows, importance=importance,
             open_predictions=tuple(open_predictions), reading=self.reading,
-            **equation_part,
+            phase_seconds=tuple(self.phase_seconds.items()), **equation_part,
         )
+
+    def _fit_splits(self, splits, strata) -> tuple[list[dict], tuple]:
+        """Fit and score every split; split 1 first (its figures are reported at once), the
+        others on worker threads. Each fit is seeded by its split alone, so the numbers do not
+        depend on the number of workers."""
+        step = self.step
+
+        def one(index):
+            train, test = splits[index]
+            fit_rows = train
+            if self.big and index > 0:
+                # a large table: split 1 is fitted on all its training rows; the others,
+                # which only give the spread over splits, on a sample of them
+                if self.group_labels is None:
+                    fit_rows = _share_sample(train, None if strata is None else strata[train],
+                                             step.sample_rows, step.seed + 41 + index)
+                else:
+                    fit_rows = _subsample(train, None if strata is None else strata[train],
+                                          step.sample_rows, step.seed + 41 + index,
+                                          groups=self.group_labels)
+            model = self._fit(fit_rows, seed_offset=index)
+            predicted = _predict(model, self.X[test])
+            metrics = self._split_metrics(fit_rows, test, predicted)
+            record = {"split": index + 1, "train_rows": len(fit_rows), "test_rows": len(test),
+                      **metrics}
+            return record, (train, test, model, predicted)
+
+        self.progress.phase("fitting the splits", total=len(splits))
+        record, first = self._clocked("split 1", one, 0)
+        self.progress.first_figures(**_first_figures(record))
+        self.progress.advance()
+        per_split = [record]
+        started = time.perf_counter()
+        largest = max((len(train) for train, _ in splits[1:]), default=0)
+        for record, _ in self._on_workers(one, range(1, len(splits)),
+                                          self._split_workers(largest)):
+            per_split.append(record)
+            self.progress.advance()
+        self.phase_seconds["later splits"] = time.perf_counter() - started
+        return per_split, first
+
+    def _split_workers(self, fit_rows: int) -> int:
+        """Threads for fits on up to ``fit_rows`` rows: one for Nystroem machines on more than
+        ``KERNEL_CURVE_ROWS`` rows, whose fits each hold a matrix of up to 50000 x 1000
+        features (two at once would double the peak memory); every core otherwise."""
+        if self.kernel_mode == "nystroem" and fit_rows > KERNEL_CURVE_ROWS:
+            return 1
+        return refit_workers()
+
+    def _on_workers(self, work, items, workers: int):
+        """``work(item)`` for each item, in order, on ``workers`` threads (each fit on one
+        library thread); results are yielded in the order of ``items`` as they are ready."""
+        items = list(items)
+        if workers <= 1 or len(items) <= 1:
+            for item in items:
+                yield work(item)
+            return
+        from concurrent.futures import ThreadPoolExecutor
+
+        with one_thread_each(workers), ThreadPoolExecutor(max_workers=workers) as pool:
+            yield from pool.map(work, items)
 
     def _split_metrics(self, train, test, predicted) -> dict:
         y = self.y
@@ -966,7 +1021,9 @@ class _Run:
             interval += f" (a sample of the {len(test)} test rows)"
         return metrics, baseline, interval
 
-    def _permutation_test(self, train, test):
+    def _permutation_test(self, train, test, predicted):
+        """The sequential permutation test on split 1 (``predicted``: its model's predictions
+        on ``test``)."""
         from analysis.permutation import sequential_test
 
         step = self.step
@@ -988,8 +1045,15 @@ class _Run:
         test_limit = KERNEL_PERMUTATION_TEST_ROWS if kernel else step.sample_rows
         test_part = test if len(test) <= test_limit else np.sort(
             rng.choice(test, test_limit, replace=False))
-        observed_model = self._fit(train_part, seed_offset=1000)
-        observed = self._score(self.y[test_part], _predict(observed_model, self.X[test_part]))
+        if len(train_part) == len(train) and len(test_part) == len(test) \
+                and self._fit_ignores_seed():
+            # the same rows and a fit that does not use its seed: split 1's model is the
+            # refit, so its predictions give the observed score
+            observed = self._score(self.y[test], predicted)
+        else:
+            observed_model = self._fit(train_part, seed_offset=1000)
+            observed = self._score(self.y[test_part], _predict(observed_model,
+                                                               self.X[test_part]))
         score_of, shortcut = self._shuffled_scorer(train_part, test_part)
         self.progress.phase("permutation test", total=count)
         workers = 1 if shortcut else refit_workers()
@@ -1013,6 +1077,16 @@ class _Run:
                               "be yes.")
         self.permutations_run = test_result.count
         return (float(test_result.p_value), test_result.scores, float(observed), method)
+
+    def _fit_ignores_seed(self) -> bool:
+        """Whether two fits on the same rows give the same model whatever their seeds: the
+        linear machine (liblinear's primal solver), ridge, lasso, LDA and exact kernel
+        machines do; Nystroem features, samples of the training rows and logistic regression
+        (its solvers may shuffle) take the seed."""
+        step = self.step
+        if self.kernel_mode != "exact" or step.model == "logistic":
+            return False
+        return step.model in ("linear", "lda", "rbf", "poly2")
 
     def _shuffled_scorer(self, train_part, test_part):
         """``score_of(i)``: the score of a refit on the i-th shuffle of the training labels,
@@ -1051,9 +1125,12 @@ class _Run:
         return refit, None
 
     def _importance(self, model, test) -> tuple:
-        """Permutation importance of every feature on split 1's test rows (seeded)."""
-        from sklearn.metrics import make_scorer, matthews_corrcoef, r2_score
+        """Permutation importance of every feature on split 1's test rows (seeded).
 
+        The scorer is the protocol's own (Matthews correlation from the confusion counts, or
+        R^2), the same numbers as scikit-learn's scorers to rounding, without their checks of
+        every call's input, which took most of the time (a 16 x 16 matrix column gives dozens
+        of features, each scored five times)."""
         from analysis.importance import permutation_importances
 
         rows = test
@@ -1061,7 +1138,10 @@ class _Run:
         if limit and len(rows) > limit:
             rows = np.sort(np.random.default_rng([self.step.seed, 43]).choice(
                 rows, limit, replace=False))
-        scorer = make_scorer(r2_score if self.regression else matthews_corrcoef)
+
+        def scorer(estimator, X, y):
+            return self._score(y, np.asarray(_predict(estimator, X)))
+
         with _warnings.catch_warnings():
             _warnings.simplefilter("ignore")
             return permutation_importances(
@@ -1076,6 +1156,10 @@ class _Run:
         table, step = self.table, self.step
         known = np.zeros(table.n_rows, dtype=bool)
         known[self.fm.rows] = True
+        if known.all():
+            # every row was used, so no object waits for a prediction: building the features
+            # of the whole table again (seconds for a matrix column) would find none
+            return []
         intervals = _target_intervals(table, step.target)
         try:
             every = build_features(table, columns=list(self.fm.columns),
@@ -1134,12 +1218,9 @@ class _Run:
             self.notes.append(f"learning curve on a sample of {len(pool)} of the {n} rows.")
         strata = None if self.regression else self.y[pool]
         groups = None if self.group_labels is None else self.group_labels[pool]
-        points = []
         skipped = []
-        self.progress.phase("learning curve", total=len(LEARNING_FRACTIONS))
+        planned = []
         for k, fraction in enumerate(LEARNING_FRACTIONS):
-            if k:
-                self.progress.advance()
             try:
                 splits, _ = _splits(len(pool), strata, groups, fraction, LEARNING_REPEATS,
                                     step.seed + 101 * (k + 1), self.table.name)
@@ -1151,16 +1232,30 @@ class _Run:
                 # a rare class can miss a small training side entirely: no fit is possible
                 skipped.append(fraction)
                 continue
-            scores = []
-            for j, (train, test) in enumerate(splits):
-                model = self._fit(pool[train], seed_offset=2000 + j)
-                scores.append(self._score(self.y[pool[test]],
-                                          _predict(model, self.X[pool[test]])))
+            planned.append((fraction, splits))
+
+        def score(job):
+            j, train, test = job
+            model = self._fit(pool[train], seed_offset=2000 + j)
+            return self._score(self.y[pool[test]], _predict(model, self.X[pool[test]]))
+
+        jobs = [(j, train, test) for _, splits in planned
+                for j, (train, test) in enumerate(splits)]
+        self.progress.phase("learning curve", total=len(LEARNING_FRACTIONS))
+        ends = np.cumsum([len(splits) for _, splits in planned]).tolist()
+        scores = []
+        for value in self._on_workers(score, jobs, self._split_workers(len(pool))):
+            scores.append(value)
+            if len(scores) in ends:
+                self.progress.advance()
+        points = []
+        for (fraction, splits), end in zip(planned, ends):
+            mine = scores[end - len(splits):end]
             points.append({"train_fraction": fraction,
                            "train_rows": int(np.mean([len(t) for t, _ in splits])),
                            "metric": "r2" if self.regression else "mcc",
-                           "mean": float(np.mean(scores)), "std": float(np.std(scores)),
-                           "scores": [float(s) for s in scores]})
+                           "mean": float(np.mean(mine)), "std": float(np.std(mine)),
+                           "scores": [float(v) for v in mine]})
         if skipped:
             self.notes.append("learning curve: no valid split at training fraction "
                               f"{', '.join(map(str, skipped))} (too few rows per class or "

@@ -30,6 +30,9 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
+HERE = Path(__file__).resolve().parent
+if str(HERE) not in sys.path:
+    sys.path.insert(0, str(HERE))
 
 TARGET = "label"
 SEED = 0
@@ -57,6 +60,14 @@ class Case:
     goal: float | None = 1.15        # ours / bare at most this, at the goal size
     goal_rows: int | None = 100_000
     note: str = ""
+    # more (rows, ratio) goals of the same kind as goal and goal_rows
+    more_goals: tuple[tuple[int, float], ...] = ()
+    # a goal against another case's ours side instead of the bare side: (case, rows, ratio)
+    goal_against: tuple[str, int, float] | None = None
+    # a case on a table of its own, run once at this many rows (not at every --sizes size)
+    rows: int | None = None
+    # seconds the ours side may take at most (a bound, not a ratio)
+    limit_seconds: float | None = None
 
 
 CASES: dict[str, Case] = {c.name: c for c in [
@@ -90,8 +101,9 @@ CASES: dict[str, Case] = {c.name: c for c in [
          "SeparatorStep(target='label'): 5 splits, bootstrap interval, baseline, permutation "
          "p-value, learning curve, fit on every row, exact equation checked on every row",
          "one scaled LinearSVC fit on half the rows (as separator_fit)",
-         goal=3.0, goal_rows=1_000_000,
-         note="the whole protocol against one bare fit; goal 3x at 1M rows."),
+         goal=3.0, goal_rows=1_000_000, more_goals=((10_000, 10.0), (100_000, 10.0)),
+         note="the whole protocol against one bare fit; goals 10x at 10k and 100k rows, 3x at "
+              "1M rows."),
     Case("kernel_fit", "kernel separator (one fit)",
          "SeparatorStep(target='label', model='rbf', kernel_approximation='auto'): split 1, "
          "the fit and its predictions",
@@ -101,21 +113,33 @@ CASES: dict[str, Case] = {c.name: c for c in [
          note="the matching part of the kernel separator."),
     Case("kernel_separate", "kernel separator (whole step)",
          "SeparatorStep(target='label', model='rbf', kernel_approximation='auto')",
-         "one kernel fit on half the rows (as kernel_fit)", goal=None,
-         note="the whole protocol against one bare fit; no goal."),
+         "one kernel fit on half the rows (as kernel_fit)", goal=10.0, goal_rows=100_000,
+         more_goals=((10_000, 10.0),),
+         note="the whole protocol against one bare fit; goal 10x at 10k and 100k rows."),
     Case("umap", "UMAP", "ProjectionStep(method='umap'): a 50000-row sample past 50000 rows",
          "StandardScaler + umap.UMAP(n_neighbors=15, random_state=0, n_jobs=1) on the same "
          "rows",
          note="both sides compiled beforehand by a small untimed fit in the same process."),
     Case("relations", "relations (exact relations only)",
-         "RelationsStep(bounds=False, robust=False): the exact integer relation lattice, "
+         "RelationsStep(bounds=False, robust=False, congruences=False): the exact integer "
+         "relation lattice, "
          "LLL-reduced and checked on every row",
          "numpy SVD of [columns | 1] (the real null space, in floating point)",
          note="ours is exact and checks every row; the bare call only finds the floating-"
               "point null space."),
     Case("relations_full", "relations (whole step)", "RelationsStep(): relations, robust "
          "relations, sharp bounds in pairs and triples", "numpy SVD of [columns | 1]",
-         goal=None, note="the whole step does much more than the bare call; no goal."),
+         goal=None, goal_against=("relations", 100_000, 20.0),
+         note="the whole step does much more than the bare call; goal: at most 20x its "
+              "exact-relations part (the relations case, ours) at 100k rows."),
+    Case("matrix_separate", "separator on 16x16 matrices (whole step)",
+         "SeparatorStep(target='low_rank') on a 13000-row table whose column m holds a 16x16 "
+         "integer matrix in every row (compact features: rank, trace, determinant, spectra), "
+         "with two integer columns and the flag rank <= 13 (bench/data.py)",
+         "numpy singular values of every matrix (one batched SVD), then one scaled LinearSVC "
+         "fit on a stratified half of them, predicting the other half",
+         goal=None, rows=13_000, limit_seconds=60.0,
+         note="the whole protocol on matrix cells; goal: at most 60 s on 2 cores."),
     Case("outliers_fit", "outliers (matching part)",
          "OutliersStep(k=4, relations=False) with the distance-from-centre measure switched "
          "off: features, standardize, isolation forest, local outlier factor (fitted on a "
@@ -321,6 +345,11 @@ def _separator_check(result) -> dict:
     notes = [n for n in result.notes if "sample" in n or "approximate" in n]
     if notes:
         check["large_table_notes"] = notes[:4]
+    if result.phase_seconds and result.elapsed_seconds > 0:
+        # each part's share of the whole step, largest first
+        shares = sorted(result.phase_seconds, key=lambda kv: -kv[1])
+        check["shares"] = {name: round(seconds / result.elapsed_seconds, 3)
+                           for name, seconds in shares}
     return check
 
 
@@ -456,6 +485,8 @@ def prepare(case: str, side: str, paths: dict):
         if kernel:
             return lambda: _bare_fit(frame, _kernel_pipeline, fit_rows=NYSTROEM_FIT_ROWS)
         return lambda: _bare_fit(frame, lambda n: _linear_pipeline())
+    if case == "matrix_separate":
+        return _matrix_case(side, paths)
     if case == "umap":
         from analysis.warmup import configure_numba_cache
 
@@ -496,7 +527,10 @@ def prepare(case: str, side: str, paths: dict):
             from analysis.relations import RelationsStep
 
             table = _table(paths)
-            settings = {"bounds": False, "robust": False} if case == "relations" else {}
+            # the exact part alone: no bounds, no robust relations, no congruences (which the
+            # step searches too, since a later change, and which took most of its second)
+            settings = {"bounds": False, "robust": False, "congruences": False} \
+                if case == "relations" else {}
 
             def ours():
                 result = RelationsStep(seed=SEED, **settings).run(table)
@@ -551,6 +585,40 @@ def prepare(case: str, side: str, paths: dict):
                     "strangest_by_factor": int(np.argmax(factor))}
         return bare
     raise SystemExit(f"unknown case {case!r}; cases are {', '.join(CASES)}")
+
+
+def _matrix_case(side: str, paths: dict):
+    """The separator on the matrix table (bench/data.py, ensure_matrix_table)."""
+    import numpy as np
+    import scipy.optimize  # noqa: F401 - the exact equation search's linear programs
+    import sklearn.model_selection  # noqa: F401
+    import sklearn.svm  # noqa: F401
+    from data import MATRIX_COLUMN, MATRIX_TARGET
+
+    import analysis.equations  # noqa: F401
+    import analysis.separation  # noqa: F401
+
+    if side == "ours":
+        from analysis.separation import SeparatorStep
+        from analysis.table import load_table
+
+        table = load_table(paths["csv"])
+        return lambda: _separator_check(SeparatorStep(target=MATRIX_TARGET, seed=SEED)
+                                        .run(table))
+    import pandas as pd
+
+    frame = pd.read_csv(paths["csv"])
+    matrices = np.array([json.loads(cell) for cell in frame[MATRIX_COLUMN]], dtype=np.float64)
+    y = (frame[MATRIX_TARGET].astype(str).str.lower() == "true").to_numpy().astype(np.int64)
+
+    def bare():
+        singular = np.linalg.svd(matrices, compute_uv=False)
+        train, test = _half_split(y)
+        model = _linear_pipeline().fit(singular[train], y[train])
+        predicted = model.predict(singular[test])
+        return {"test_accuracy": round(float(np.mean(predicted == y[test])), 4),
+                "train_rows": int(len(train))}
+    return bare
 
 
 def _shape(frame) -> dict:

@@ -86,3 +86,66 @@ def ensure_tables(folder: Path, rows: int, seed: int = 0) -> dict:
             "parquet_bytes": parquet_path.stat().st_size}
     info_path.write_text(json.dumps(info))
     return {**info, "csv": csv_path, "parquet": parquet_path}
+
+
+# ----------------------------------------------------------------------------------------
+# A table of integer matrices
+
+MATRIX_ROWS = 13_000
+MATRIX_SIZE = 16
+MATRIX_COLUMN = "m"
+MATRIX_TARGET = "low_rank"
+# the flag is true exactly when the matrix's rank is at most this
+MATRIX_RANK_CUT = 13
+MATRIX_VERSION = 1
+
+
+def make_matrices(rows: int = MATRIX_ROWS, seed: int = 0):
+    """Integer matrices of planted rank, and the flag ``rank <= MATRIX_RANK_CUT``.
+
+    Each matrix is A @ B with A of shape 16 x r and B of shape r x 16, entries from -3 to 3,
+    and r drawn from 10 to 16, so its rank is at most r (almost always exactly r). The flag is
+    computed from numpy's rank of the product, not from r, so it is right for every row.
+    Returns (matrices as an int64 array rows x 16 x 16, ranks, flags, extra integer columns).
+    """
+    rng = np.random.default_rng([seed, rows, MATRIX_SIZE])
+    n = MATRIX_SIZE
+    matrices = np.empty((rows, n, n), dtype=np.int64)
+    inner = rng.integers(10, n + 1, size=rows)
+    for i, r in enumerate(inner.tolist()):
+        left = rng.integers(-3, 4, size=(n, r))
+        right = rng.integers(-3, 4, size=(r, n))
+        matrices[i] = left @ right
+    ranks = np.linalg.matrix_rank(matrices.astype(np.float64))
+    flags = ranks <= MATRIX_RANK_CUT
+    # two plain integer columns beside the matrix: its trace and a number unrelated to it
+    extra = {"trace": np.trace(matrices, axis1=1, axis2=2),
+             "noise": rng.integers(0, 100, size=rows)}
+    return matrices, ranks, flags, extra
+
+
+def ensure_matrix_table(folder: Path, rows: int = MATRIX_ROWS, seed: int = 0) -> dict:
+    """Write (or reuse) ``M{rows}.csv``: an object id, the matrix as JSON-array text, the two
+    integer columns and the flag. Returns {"csv": path, "parquet": path (the same CSV: the
+    matrix table has no Parquet form), "rows": rows, "frame_bytes": n, "true_rows": k}."""
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    csv_path = folder / f"M{rows}.csv"
+    info_path = folder / f"M{rows}.json"
+    if info_path.exists():
+        info = json.loads(info_path.read_text())
+        if info.get("version") == MATRIX_VERSION and info.get("seed") == seed \
+                and csv_path.exists():
+            return {**info, "csv": csv_path, "parquet": csv_path}
+    matrices, ranks, flags, extra = make_matrices(rows, seed)
+    with csv_path.open("w", encoding="utf-8") as out:
+        out.write(f"object,{MATRIX_COLUMN},trace,noise,{MATRIX_TARGET}\n")
+        for i in range(rows):
+            cell = json.dumps(matrices[i].tolist(), separators=(",", ":"))
+            out.write(f'o{i},"{cell}",{extra["trace"][i]},{extra["noise"][i]},'
+                      f'{"true" if flags[i] else "false"}\n')
+    info = {"version": MATRIX_VERSION, "seed": seed, "rows": rows,
+            "frame_bytes": int(csv_path.stat().st_size), "true_rows": int(flags.sum()),
+            "ranks": {int(r): int(c) for r, c in zip(*np.unique(ranks, return_counts=True))}}
+    info_path.write_text(json.dumps(info))
+    return {**info, "csv": csv_path, "parquet": csv_path}

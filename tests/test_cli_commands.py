@@ -66,3 +66,51 @@ def test_each_command_writes_its_json_and_leaves_the_table_alone(table_path, tmp
                    {"a", "b", "c"} for t in texts), texts
     if command == "outliers":
         assert (tmp_path / "list.csv").read_text().startswith("rank,row,score,reasons")
+
+
+class _FakeTerminal:
+    """A text stream that says it is a terminal, keeping what is written to it."""
+
+    def __init__(self, terminal: bool = True):
+        self.terminal = terminal
+        self.parts: list[str] = []
+
+    def isatty(self) -> bool:
+        return self.terminal
+
+    def write(self, text: str) -> int:
+        self.parts.append(text)
+        return len(text)
+
+    def flush(self) -> None:
+        pass
+
+
+def _phase_lines(text: str) -> list[str]:
+    # each phase is one line; counts rewrite it after a carriage return
+    return [line.split("\r")[-1].replace("\x1b[K", "") for line in text.split("\n") if line]
+
+
+def test_separate_shows_its_phases_on_a_terminal_stderr_only(table_path, tmp_path, capsys):
+    from contextlib import redirect_stderr
+
+    out = tmp_path / "separate.json"
+    argv = ["separate", str(table_path), "--target", "label", "--features", "a,b",
+            "--json", str(out)]
+    terminal = _FakeTerminal()
+    with redirect_stderr(terminal):
+        assert main(argv) == 0
+    lines = _phase_lines("".join(terminal.parts))
+    result = json.loads(out.read_text())
+    # the planted rule 2*a - b >= 3 is found by every split (common practice), so the
+    # permutation test runs its shuffles and the line ends at the count the result reports
+    assert "fitting the splits 5 of at most 5" in lines, lines
+    shuffles = [line for line in lines if line.startswith("permutation test")]
+    assert shuffles == [f"permutation test {result['permutations_run']} of at most 200"], lines
+    assert lines.index("searching the exact equation") > lines.index(shuffles[0]), lines
+    assert capsys.readouterr().out.strip(), "the summary still goes to stdout"
+
+    piped = _FakeTerminal(terminal=False)
+    with redirect_stderr(piped):
+        assert main(argv) == 0
+    assert piped.parts == [], "no phases on a stderr that is not a terminal"

@@ -119,3 +119,24 @@ def test_small_cap_takes_no_first_look():
 def test_bad_cap_is_refused():
     with pytest.raises(StepError, match="at least 1 shuffle"):
         sequential_test(0.5, lambda i: 0.0, cap=0)
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_a_clear_signal_refits_no_shuffle_past_the_first_look(workers):
+    # all permuted scores below the observed one: p = 1/(first_look + 1) after exactly
+    # first_look shuffles (the ordinary Monte Carlo p-value, common practice); a shuffle
+    # computed past the look would be work thrown away
+    import threading
+
+    calls = []
+    lock = threading.Lock()
+
+    def score_of(i):
+        with lock:
+            calls.append(i)
+        return 0.0
+
+    result = sequential_test(1.0, score_of, cap=200, workers=workers)
+    assert result.ended == "clear signal"
+    assert result.p_value == pytest.approx(1 / (FIRST_LOOK + 1))
+    assert sorted(calls) == list(range(FIRST_LOOK)), f"shuffles refitted: {sorted(calls)}"

@@ -698,3 +698,29 @@ def test_the_step_reports_congruences_beside_relations_and_bounds():
     assert {"terms", "modulus", "residue", "text", "holds_on", "violations"} <= set(data[0])
     assert "congruences (" in result.summary()
     assert RelationsStep(congruences=False).run(table).congruences == ()
+
+
+def test_bounds_in_columns_too_wide_for_one_counting_grid_are_exact():
+    # Three columns of 0..200 make 8 million grid cells, past the counting grid, and a fourth
+    # spans ten million values: their distinct points are found by sorting one integer key.
+    # Brute force (common practice): the planted face x + y + z <= 400 is reported, holds on
+    # every row and is attained by exactly the rows on it; every other bound holds too.
+    rng = np.random.default_rng(5)
+    points = rng.integers(0, 201, size=(6000, 3))
+    points = points[points.sum(axis=1) <= 400][:2500]
+    on_face = rng.integers(0, 201, size=(40, 2))
+    on_face = on_face[on_face.sum(axis=1) >= 200]
+    points = np.vstack([points, np.column_stack([on_face, 400 - on_face.sum(axis=1)])])
+    wide = rng.integers(0, 10**7, size=len(points))
+    columns = {"x": points[:, 0].tolist(), "y": points[:, 1].tolist(),
+               "z": points[:, 2].tolist(), "w": wide.tolist()}
+    result = find_relations(columns, robust=False)
+    texts = {b.text: b for b in result.bounds}
+    assert "x + y + z <= 400" in texts, sorted(texts)
+    face = texts["x + y + z <= 400"]
+    on = [i for i in range(len(points)) if points[i].sum() == 400]
+    assert face.attained_count == len(on) and sorted(face.attained_by) == on[:len(
+        face.attained_by)]
+    for bound in result.bounds:
+        rows = [{name: columns[name][i] for name in columns} for i in range(len(points))]
+        assert all(_satisfies(bound, row) for row in rows), bound.text

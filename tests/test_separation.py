@@ -741,3 +741,19 @@ def test_a_class_of_three_rows_runs_and_the_curve_skips_what_cannot_be_fitted():
     fractions = [p["train_fraction"] for p in result.learning_curve]
     assert 0.1 not in fractions
     assert any("learning curve: no valid split" in note for note in result.notes)
+
+
+def test_the_result_times_each_part_of_the_protocol_outside_its_json(iris):
+    # Fisher's iris data (scikit-learn's copy): setosa against the rest, a protocol that runs
+    # every part; the parts' seconds never add up to more than the whole step's
+    step = SeparatorStep(target="species", positive_class="setosa", permutations=60, seed=3)
+    result = step.run(iris)
+    parts = dict(result.phase_seconds)
+    assert [name for name, _ in result.phase_seconds] == [
+        "target check", "split 1", "later splits", "importance", "permutation test",
+        "learning curve", "fit on every row and exact equation", "open values"]
+    assert all(seconds >= 0 for seconds in parts.values())
+    assert sum(parts.values()) <= result.elapsed_seconds
+    again = step.run(iris)
+    assert json.dumps(again.to_json()) == json.dumps(result.to_json()), \
+        "the timings must stay out of the JSON"
