@@ -603,6 +603,7 @@ def test_story_the_graphs_breaking_brooks_bound():
             expected.add(f"G{index:04d}")
     assert broken == expected and len(broken) == 9
     result = SeparatorStep(target_statement=statement.to_json(), seed=0).run(table)
+    assert result.rows_used == 996 == int(connected.sum())
     assert result.beats_chance
     assert result.importance[0].feature == "regular"   # both exceptions are regular graphs
 
@@ -617,10 +618,11 @@ def test_story_open_chromatic_numbers_predicted():
     result = SeparatorStep(target="chromatic_number", seed=0).run(
         load_table(TABLES / "graphs_as_downloaded.csv"))
     opened = result.open_predictions
-    assert len(opened) >= 300
     right = sum(p["prediction"] == truth[p["row"]] for p in opened)
     inside = sum(bool(p["inside"]) for p in opened)
-    assert right >= 0.9 * len(opened) and inside >= 0.95 * len(opened)
+    # the figures sample_tables/README.md gives
+    assert result.reading.number and result.reading.chosen_by == "learning curve"
+    assert (len(opened), inside, right) == (317, 312, 301)
 
 
 def test_story_what_an_odd_class_number_rests_on():
