@@ -39,6 +39,7 @@ import numpy as np
 
 from analysis.errors import StepError
 from analysis.plain import plain
+from analysis.progress import quiet
 
 __all__ = [
     "CAVEAT",
@@ -1727,7 +1728,8 @@ def bound_rank(bound: Bound) -> tuple:
 
 
 def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robust,
-                  max_breakers, triples, notes, max_bounds) -> list[Bound]:
+                  max_breakers, triples, notes, max_bounds, progress=None) -> list[Bound]:
+    progress = quiet(progress)
     bound_columns: dict = {}
     wider = 0
     for name in names:
@@ -1757,7 +1759,11 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
     breakers = breakers_allowed(max_breakers, n) if robust else 0
     pair_edges: list = []
     found: list[Bound] = []
-    for first, second in combinations(usable, 2):
+    pairs = list(combinations(usable, 2))
+    progress.phase("bounds in pairs of columns", total=len(pairs))
+    for k, (first, second) in enumerate(pairs):
+        if k:
+            progress.advance()
         found += _pair_bounds(bound_columns[first], bound_columns[second], row_ids, facts,
                               max_coefficient=max_coefficient, breakers=breakers,
                               edges_out=pair_edges)
@@ -1771,7 +1777,11 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
         triple_facts = (ranges, equalities, pair_edges)
         skipped = 0
-        for triple in combinations(eligible, 3):
+        triples_of = list(combinations(eligible, 3))
+        progress.phase("bounds in triples of columns", total=len(triples_of))
+        for k, triple in enumerate(triples_of):
+            if k:
+                progress.advance()
             chosen = [bound_columns[name] for name in triple]
             # Cheap when the values fit a grid (one counting pass) or the table is small.
             if _grid_cells(chosen) is None and n > MAX_TRIPLE_POINTS:
@@ -1854,6 +1864,7 @@ def find_relations(
     tolerance: float = 1e-9,
     seed: int = 0,
     max_bounds: int | None = MAX_BOUNDS,
+    progress=None,
 ) -> RelationsResult:
     """Relations and bounds among columns given as plain data.
 
@@ -1870,6 +1881,9 @@ def find_relations(
         tolerance: relative tolerance of approximate relations.
         seed: seed of the random subsets of rows.
         max_bounds: how many bounds to report at most (None: every one found).
+        progress: a callable or :class:`analysis.progress.Reporter` told of each phase (and
+            each pair and triple of the bound search); it may stop the search by raising
+            :class:`analysis.progress.StepStopped`.
 
     >>> r = find_relations({"v": [4, 8, 6], "e": [6, 12, 12], "f": [4, 6, 8]}, bounds=False)
     >>> r.relations[0].text
@@ -1889,6 +1903,8 @@ def find_relations(
     notes: list[str] = []
     columns = {name: _exact_column(name, values) for name, values in exact_columns.items()}
     names = list(columns)
+    progress = quiet(progress)
+    progress.phase("exact relations")
 
     relations, equalities, repeated = [], [], set()
     if names and n:
@@ -1913,6 +1929,7 @@ def find_relations(
             as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
             as_float[missing] = np.nan
             data[name] = as_float
+        progress.phase("approximate relations among real columns")
         approximate = _approximate_relations(
             data, set(real_columns), row_ids, tolerance=float(tolerance),
             breakers_setting=max_breakers, robust=robust, rng=rng, known=equalities,
@@ -1929,7 +1946,7 @@ def find_relations(
             columns, [name for name in names if name not in repeated], row_ids, equalities,
             max_coefficient=int(max_coefficient),
             robust=robust, max_breakers=max_breakers, triples=triples, notes=notes,
-            max_bounds=max_bounds)
+            max_bounds=max_bounds, progress=progress)
 
     return RelationsResult(
         relations=tuple(relations),
@@ -2014,11 +2031,15 @@ class RelationsStep:
         check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
                         tolerance=self.tolerance, seed=self.seed)
 
-    def run(self, table, *, max_bounds: int | None = MAX_BOUNDS) -> RelationsResult:
+    def run(self, table, *, max_bounds: int | None = MAX_BOUNDS,
+            progress=None) -> RelationsResult:
         """Search the table; see the class docstring for the settings.
 
         ``max_bounds`` caps the bounds reported (None keeps every one found, for an engine
-        that ranks them again on more rows)."""
+        that ranks them again on more rows). ``progress``: a callable (or
+        :class:`analysis.progress.Reporter`) told of each phase; it may stop the step by
+        raising :class:`analysis.progress.StepStopped`."""
+        progress = quiet(progress)
         self.check()
         names = self.chosen_columns(table)
         if not names:
@@ -2047,13 +2068,14 @@ class RelationsStep:
         found = find_relations(
             exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
             max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,
-            tolerance=self.tolerance, seed=self.seed, max_bounds=max_bounds,
+            tolerance=self.tolerance, seed=self.seed, max_bounds=max_bounds, progress=progress,
         )
         found = _with_interval_rows(table, names, found)
         if not self.congruences:
             return found
         from analysis.congruences import find_congruences
 
+        progress.phase("congruences")
         integers = {name: values for name, values in exact.items()
                     if table.column(name).dtype in ("integer", "big integer")}
         laws = [r for r in found.relations if not r.violations]

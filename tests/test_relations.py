@@ -724,3 +724,31 @@ def test_bounds_in_columns_too_wide_for_one_counting_grid_are_exact():
     for bound in result.bounds:
         rows = [{name: columns[name][i] for name in columns} for i in range(len(points))]
         assert all(_satisfies(bound, row) for row in rows), bound.text
+
+
+def test_the_relations_step_reports_its_phases_and_can_be_stopped():
+    # networkx's graph atlas, as the sample table holds it
+    from analysis.progress import Reporter, StepStopped, Stopper
+    from analysis.relations import RelationsStep
+    from analysis.table import load_table
+
+    table = load_table(Path(__file__).resolve().parent.parent / "sample_tables"
+                       / "graphs_up_to_7.csv")
+    seen = []
+    RelationsStep().run(table, progress=seen.append)
+    phases = [p.phase for p in seen]
+    assert phases[0] == "exact relations" and "bounds in pairs of columns" in phases
+    assert "congruences" in phases
+    pairs = [p for p in seen if p.phase == "bounds in pairs of columns"]
+    assert pairs[-1].done == pairs[-1].total - 1 > 0
+    stopper = Stopper()
+
+    def stop_at_pairs(record):
+        if record.phase == "bounds in pairs of columns" and record.done == 3:
+            stopper.request()
+
+    with pytest.raises(StepStopped):
+        RelationsStep().run(table, progress=Reporter(stop_at_pairs, stopper=stopper))
+    from analysis.study import StepJob, new_step
+
+    assert StepJob(new_step("relations"), table).stoppable
