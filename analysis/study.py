@@ -12,7 +12,8 @@ A study file (``*.study.json``) looks like this::
         {"kind": "overview", "title": null, "params": {"top_correlations": 10, "seed": 0}},
         {"kind": "projection", "title": "PCA", "params": {"method": "pca", "seed": 0, ...}}
       ],
-      "results": {                          (optional: a study saved with its results)
+      "results": {                          (optional: a study saved with its results, whose
+                                             "version" is then "invariant-scout-study/2")
         "table_digest": "3f1c...",          (the table the results were computed on)
         "steps": [null, {"kind": "projection", "params": {...}, "json": {...},
                          "stored": {...}}]  (one per step; null where a step has no result)
@@ -58,6 +59,12 @@ from analysis.steps import KIND_TITLES, STEP_KINDS, make_step, step_class, step_
 from analysis.table import ROLES, Table
 
 STUDY_VERSION = "invariant-scout-study/1"
+# A file that carries results has a format of its own, so that a reader from before results
+# existed says which format it met rather than stumbling on the key "results".
+RESULTS_VERSION = "invariant-scout-study/2"
+# The formats this version reads: settings only, and settings with their results (a file of
+# format 1 with results, written before format 2 existed, is read too).
+READ_VERSIONS = (STUDY_VERSION, RESULTS_VERSION)
 RUN_VERSION = "invariant-scout-run/1"
 _VERSION_PREFIX = "invariant-scout-study/"
 # A study is a few kilobytes, and with its results a few megabytes for a table of tens of
@@ -141,7 +148,6 @@ class Study:
     title: str = ""
     table_digest: str | None = None
     table_settings: TableSettings = field(default_factory=TableSettings)
-    version: str = STUDY_VERSION
 
     def __post_init__(self):
         object.__setattr__(self, "steps", tuple(self.steps))
@@ -378,7 +384,7 @@ def study_to_json(study: Study, saved: SavedResults | None = None) -> dict:
     """The study as plain JSON, in the order the file shows it; with ``saved``, the file
     also carries those results (one per step)."""
     data = {
-        "version": study.version,
+        "version": STUDY_VERSION if saved is None else RESULTS_VERSION,
         "title": study.title,
         "table": study.table,
         "table_digest": study.table_digest,
@@ -452,11 +458,12 @@ def study_file_from_json(data, source: str = "study") -> StudyFile:
         raise StudyError(f"{source}: no 'version'; this does not look like an Invariant Scout "
                          f"study (expected \"version\": \"{STUDY_VERSION}\").")
     version = data["version"]
-    if version != STUDY_VERSION:
+    if version not in READ_VERSIONS:
         if isinstance(version, str) and version.startswith(_VERSION_PREFIX):
             raise StudyError(f"{source}: study format {version!r} is not one this version of "
-                             f"Invariant Scout reads ({STUDY_VERSION!r}). Upgrade Invariant "
-                             "Scout or save the study again from the version that wrote it.")
+                             f"Invariant Scout reads ({' or '.join(map(repr, READ_VERSIONS))})."
+                             " Upgrade Invariant Scout or save the study again from the "
+                             "version that wrote it.")
         raise StudyError(f"{source}: unknown version {_short(version)}; an Invariant Scout "
                          f"study has \"version\": \"{STUDY_VERSION}\".")
     unknown = [key for key in data if key not in _TOP_KEYS]
@@ -483,7 +490,7 @@ def study_file_from_json(data, source: str = "study") -> StudyFile:
     steps = tuple(_step_from_json(item, f"{source}: step {number}")
                   for number, item in enumerate(steps_data, start=1))
     study = Study(table=table, steps=steps, title=title, table_digest=digest,
-                  table_settings=settings, version=version)
+                  table_settings=settings)
     saved = None
     if data.get("results") is not None:
         saved = _saved_from_json(data["results"], steps, source)
@@ -526,8 +533,8 @@ def _saved_step_from_json(item, step: StudyStep, where: str):
     except StudyError as exc:
         raise StudyError(f"{where}: {exc}") from None
     if getattr(type(result), "kind", None) != step.kind or not hasattr(result, "to_json"):
-        raise StudyError(f"{where}: the stored result is not the result of a {step.kind} "
-                         "step.")
+        raise StudyError(f"{where}: the stored result is not the result of its step "
+                         f"({KIND_TITLES[step.kind]}).")
     try:
         again = _plain_json(result.to_json())
     except Exception as exc:  # noqa: BLE001 - a hand-made record may break in many ways
