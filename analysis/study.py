@@ -829,6 +829,10 @@ class ResultCache:
     def clear(self) -> None:
         self._entries.clear()
 
+    def discard(self, key: str) -> None:
+        """Let the result for ``key`` go, if it is held."""
+        self._entries.pop(key, None)
+
     def __contains__(self, key: str) -> bool:
         return key in self._entries
 

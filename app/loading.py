@@ -96,7 +96,7 @@ def put_table(table_state: state.TableState) -> None:
     state.keep_current()
     kept = state.kept_for(table_state.base.digest)
     if kept is not None:
-        state.resume(kept)
+        state.resume(kept, table_state)
         return
     state.set_table(table_state)
     study = opening_study(table_state.base, sample=table_state.sample)

@@ -59,7 +59,7 @@ def main() -> None:
         kind, _, text = notice.partition(":")
         if kind in ("focus",):
             st.error(text)
-        elif kind == "study":
+        elif kind in ("study", "kept"):
             st.info(text)
     st.caption(CAVEAT)
     study_section.show_study()

@@ -13,7 +13,9 @@
   that a pass of the script cut short by a click finds its running steps again.
 - ``scout.kept``: the studies of the other tables loaded in this session (:class:`KeptStudy`),
   by the sha256 digest of the table's bytes, so that going back to a table brings back its
-  study, its settings and the results already computed.
+  study, its settings and the results already computed. Only the ``KEPT_WHOLE`` tables put
+  aside last keep their bytes and results; an older one keeps its study (steps, settings),
+  which comes back, without results, when the same table is opened again.
 
 Widget keys are separate (streamlit keeps them in session state too); they start with
 ``table.``, ``focus.``, ``study.``, ``add.``, ``share.``, ``target.`` or ``s<step id>.``.
@@ -34,6 +36,10 @@ CACHE = "scout.cache"
 PAGE = "scout.page"
 KEPT = "scout.kept"
 JOBS = "scout.jobs"
+
+# How many tables put aside keep their bytes and results in the session's memory; older ones
+# keep only their study. A table of a million rows takes hundreds of megabytes.
+KEPT_WHOLE = 3
 
 # The study-wide choices offered above the steps, and the step setting each one sets.
 FOCUS_FIELDS = ("target", "columns", "array_encoding", "groups")
@@ -98,13 +104,19 @@ class TargetChange:
 class KeptStudy:
     """A table put aside with its study: what it takes to show both again as they were."""
 
-    table: TableState
+    table: TableState | None  # None once let go to save memory (the study stays)
     study: Study
     step_ids: list[int]
     focus: dict
     # result key -> result, so that the results come back even when the cache let them go
     results: dict
     errors: dict
+    name: str = ""
+
+    @property
+    def whole(self) -> bool:
+        """True while the table's bytes and results are kept, not only its study."""
+        return self.table is not None
 
 
 def page() -> PageState:
@@ -203,18 +215,49 @@ def kept_studies() -> dict[str, KeptStudy]:
 def keep_current() -> None:
     """Put the table on the page aside with its study, by the digest of the table's bytes."""
     current, table = study(), table_state()
+    pg = page()
+    pg.notices = [n for n in pg.notices if not n.startswith("kept:")]
     if current is None or table is None:
         return
-    pg = page()
     found = cache()
     results = {}
     for step in current.steps:
         key = result_key(table.table, step.kind, step.params)
         if key in found:
             results[key] = found.get(key)
-    kept_studies()[table.base.digest] = KeptStudy(
+    kept = kept_studies()
+    kept.pop(table.base.digest, None)  # put aside again: now the latest
+    kept[table.base.digest] = KeptStudy(
         table=table, study=current, step_ids=list(pg.step_ids), focus=dict(pg.focus),
-        results=results, errors=dict(pg.errors))
+        results=results, errors=dict(pg.errors), name=table.name)
+    for name in _let_go(kept):
+        pg.notices.append(f"kept:The results of the study on {name} were let go to save "
+                          f"memory (the {KEPT_WHOLE} tables put aside last keep theirs). Its "
+                          f"steps and settings are kept: open {name} again and they come back, "
+                          "ready to run.")
+
+
+def to_let_go(digest: str) -> list[str]:
+    """The tables whose results putting aside the table with ``digest`` would let go."""
+    kept = kept_studies()
+    whole = [k for d, k in kept.items() if k.whole and d != digest]
+    return [k.name for k in whole[:max(0, len(whole) + 1 - KEPT_WHOLE)]]
+
+
+def _let_go(kept: dict[str, KeptStudy]) -> list[str]:
+    """Keep the bytes and results of the last KEPT_WHOLE tables only; return the others'
+    names, whose studies stay."""
+    whole = [d for d, k in kept.items() if k.whole]
+    names = []
+    found = cache()
+    for digest in whole[:max(0, len(whole) - KEPT_WHOLE)]:
+        old = kept[digest]
+        for key in old.results:
+            found.discard(key)
+        kept[digest] = KeptStudy(table=None, study=old.study, step_ids=old.step_ids,
+                                 focus=old.focus, results={}, errors={}, name=old.name)
+        names.append(old.name)
+    return names
 
 
 def kept_for(digest: str) -> KeptStudy | None:
@@ -222,14 +265,19 @@ def kept_for(digest: str) -> KeptStudy | None:
     return kept_studies().get(digest)
 
 
-def resume(kept: KeptStudy) -> None:
-    """Show a kept table and its study again as they were; nothing runs by itself."""
+def resume(kept: KeptStudy, arrived: TableState | None = None) -> None:
+    """Show a kept table and its study again as they were; nothing runs by itself. A study
+    whose table was let go comes back on ``arrived`` (the same bytes, read again)."""
     pg = page()
-    st.session_state[TABLE] = kept.table
+    st.session_state[TABLE] = kept.table if kept.whole else arrived
     st.session_state[STUDY] = kept.study
     pg.step_ids = list(kept.step_ids)
     pg.focus = dict(kept.focus)
     pg.errors = dict(kept.errors)
+    if not kept.whole:
+        pg.notices.append(f"kept:The study on {kept.name} is back with its steps and settings; "
+                          "its results were let go earlier to save memory. Run its steps to "
+                          "compute them again.")
     pg.run_all = False
     pg.just_added = None
     found = cache()

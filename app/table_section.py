@@ -96,7 +96,8 @@ def _pending_box(pg) -> None:
                    f"settings and results: choose {current.name} again in this session and "
                    "it comes back. A file of it keeps it for later sessions too."
                    + (f" {waiting.name} was open before: its own study comes back."
-                      if again else ""))
+                      if again else "")
+                   + _letting_go(state.to_let_go(current.base.digest)))
         st.download_button("Download the current study first", data=share.study_text(study),
                            file_name=f"{slug(study.title or current.name)}.study.json",
                            mime="application/json", key="table.keep_file",
@@ -106,6 +107,14 @@ def _pending_box(pg) -> None:
                   on_click=_open_waiting, width="stretch")
         st.button(f"Stay with {current.name}", key="table.stay", on_click=_stay,
                   width="stretch")
+
+
+def _letting_go(names: list[str]) -> str:
+    if not names:
+        return ""
+    return (f" To keep memory in bounds, the results of the study on {' and '.join(names)} will "
+            f"be let go (the {state.KEPT_WHOLE} tables put aside last keep theirs); "
+            "their steps and settings stay.")
 
 
 def _open_waiting() -> None:

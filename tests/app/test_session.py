@@ -208,3 +208,40 @@ def test_a_stopped_step_says_so_keeps_the_others_and_runs_again():
     # nine imaginary quadratic fields of class number 1 (the Baker-Heegner-Stark theorem):
     # the separator predicts the flag those nine carry.
     assert set(results(at)[-1].classes) == {False, True}
+
+
+def _iris_without(count: int) -> bytes:
+    """The iris table less its last ``count`` flowers: other bytes, another table."""
+    lines = iris_csv().decode().splitlines()
+    return ("\n".join(lines[:len(lines) - count]) + "\n").encode()
+
+
+def test_past_the_kept_limit_the_oldest_table_keeps_its_study_but_not_its_results():
+    from app.state import KEPT_WHOLE
+
+    at = open_page("quadratic_fields.csv")
+    first_study = study(at)
+    first = table(at).digest
+    assert all(r is not None for r in results(at))
+    for count in range(KEPT_WHOLE):
+        upload(at, f"iris_{count}.csv", _iris_without(count))
+        assert at.session_state["scout.kept"][first].whole
+    # one more table: the table put aside first is the one whose results go, and the waiting
+    # box says so before anything is let go
+    arrive(at, "iris_last.csv", _iris_without(KEPT_WHOLE))
+    words = " ".join(texts(at.caption))
+    assert "the results of the study on quadratic_fields.csv will be let go" in words, words
+    at.button(key="table.switch").click().run()
+    kept = at.session_state["scout.kept"]
+    assert not kept[first].whole and kept[first].results == {}
+    assert sum(k.whole for k in kept.values()) == KEPT_WHOLE
+    assert any("results of the study on quadratic_fields.csv were let go" in t
+               for t in texts(at.info)), texts(at.info)
+
+    # opened again, the table finds its study: the same steps and settings, nothing computed
+    _choose_sample(at, "quadratic_fields.csv")
+    at.button(key="table.switch").click().run()
+    assert not at.exception, [e.value for e in at.exception]
+    assert table(at).digest == first and study(at) == first_study
+    assert all(r is None for r in results(at))
+    assert any("back with its steps and settings" in t for t in texts(at.info)), texts(at.info)
