@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.plain import plain
+from analysis.progress import quiet, stoppable_call
 from analysis.projection import sample_positions
 from analysis.table import Table
 
@@ -110,9 +111,19 @@ class OverviewStep:
     seed: int = 0
     kind: ClassVar[str] = "overview"
 
-    def run(self, table: Table) -> OverviewResult:
-        summaries = [_summarize(table, c) for c in table.columns]
-        pairs, sampled = _correlations(table, self.top_correlations, self.seed)
+    def run(self, table: Table, *, progress=None) -> OverviewResult:
+        """Describe the table. ``progress``: a callable (or
+        :class:`analysis.progress.Reporter`) that receives the phases and may stop the step
+        with :class:`analysis.progress.StepStopped`."""
+        reporter = quiet(progress)
+        reporter.phase("describing the columns", total=len(table.columns))
+        summaries = []
+        for column in table.columns:
+            summaries.append(_summarize(table, column))
+            reporter.advance()
+        reporter.phase("correlated pairs")
+        pairs, sampled = stoppable_call(reporter, _correlations, table, self.top_correlations,
+                                        self.seed)
         return OverviewResult(
             table=table.name, digest=table.digest, rows=table.n_rows,
             columns=tuple(summaries), warnings=table.warnings, id_column=table.id_column,

@@ -22,7 +22,10 @@ from dataclasses import dataclass
 
 from analysis.errors import ScoutError
 
-__all__ = ["Progress", "Reporter", "StepStopped", "Stopper", "quiet"]
+__all__ = ["Progress", "Reporter", "StepStopped", "Stopper", "quiet", "stoppable_call"]
+
+# How often a step waiting on one long library call asks whether it should stop (seconds).
+STOP_POLL_SECONDS = 0.2
 
 
 class StepStopped(ScoutError):
@@ -98,6 +101,11 @@ class Reporter:
         if self._stopper is not None and self._stopper.requested:
             raise StepStopped(f"stopped by request during {self._phase or 'the step'}.")
 
+    @property
+    def listened_to(self) -> bool:
+        """True when someone reads the reports or may ask the step to stop."""
+        return self._callback is not None or self._stopper is not None
+
     def _send(self) -> None:
         self.check()
         if self._callback is not None:
@@ -124,3 +132,32 @@ def quiet(progress: Reporter | Callable[[Progress], None] | None) -> Reporter:
     if isinstance(progress, Reporter):
         return progress
     return Reporter(progress)
+
+
+def stoppable_call(reporter: Reporter, work: Callable, *args, **kwargs):
+    """``work(*args, **kwargs)`` for a step that waits on one long library call (a UMAP
+    layout, a t-SNE fit) with no units of its own to report between.
+
+    When the reporter is listened to, the call runs on a thread of its own while the step
+    asks every STOP_POLL_SECONDS whether to stop, so a stop request ends the step at once
+    (StepStopped). The library call itself cannot be cut short: it runs to its end on its
+    thread and what it returns is set aside. Exceptions of ``work`` reach the caller.
+    """
+    if not reporter.listened_to:
+        return work(*args, **kwargs)
+    outcome: dict = {}
+
+    def call():
+        try:
+            outcome["value"] = work(*args, **kwargs)
+        except BaseException as exc:  # noqa: BLE001 - handed to the waiting step as it is
+            outcome["error"] = exc
+
+    worker = threading.Thread(target=call, daemon=True, name="long library call")
+    worker.start()
+    while worker.is_alive():
+        reporter.check()
+        worker.join(STOP_POLL_SECONDS)
+    if "error" in outcome:
+        raise outcome["error"]
+    return outcome["value"]

@@ -19,6 +19,7 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.features import build_features, target_values
 from analysis.plain import plain, row_id
+from analysis.progress import quiet, stoppable_call
 from analysis.table import Table
 
 METHODS = ("pca", "umap", "tsne", "lda")
@@ -218,9 +219,14 @@ class ProjectionStep:
     seed: int = 0
     kind: ClassVar[str] = "projection"
 
-    def run(self, table: Table) -> ProjectionResult:
+    def run(self, table: Table, *, progress=None) -> ProjectionResult:
+        """Project the rows to two coordinates. ``progress``: a callable (or
+        :class:`analysis.progress.Reporter`) that receives the phases and may stop the step
+        with :class:`analysis.progress.StepStopped`."""
         started = time.perf_counter()
+        reporter = quiet(progress)
         self._check(table)
+        reporter.phase("reading the features")
         # LDA needs the target on every row it uses; the other methods only colour by it, so
         # rows without a target value are still drawn
         needs_target = self.method == "lda"
@@ -255,17 +261,21 @@ class ProjectionStep:
         # every row projected: no copy of the matrix (PCA and LDA never sample)
         work = values[keep] if sampled else values
         extra: dict = {}
+        if self.method != "umap":
+            reporter.phase(f"{METHOD_TITLES[self.method]} on {len(work)} rows")
         if self.method == "pca":
-            coordinates, extra = _pca(work, fm.names)
+            coordinates, extra = stoppable_call(reporter, _pca, work, fm.names)
             if len(extra["explained_variance_ratio"]) < 2:
                 notes.append("one feature gives one principal component; y is 0.")
         elif self.method == "lda":
             labels = target_values(table, self.target, fm.rows)
-            coordinates, extra = _lda(work, labels, fm.names, self.target, table.name, notes)
+            coordinates, extra = stoppable_call(reporter, _lda, work, labels, fm.names,
+                                                self.target, table.name, notes)
         elif self.method == "tsne":
-            coordinates = _tsne(work, self.perplexity, self.seed, notes)
+            coordinates = stoppable_call(reporter, _tsne, work, self.perplexity, self.seed,
+                                         notes)
         else:
-            coordinates = _umap(work, self.n_neighbors, self.seed, notes)
+            coordinates = _umap(work, self.n_neighbors, self.seed, notes, reporter)
         elapsed = time.perf_counter() - started
         return ProjectionResult(
             method=self.method, row_ids=fm.row_ids[keep], positions=fm.rows[keep],
@@ -374,7 +384,8 @@ def _tsne(values: np.ndarray, perplexity: float, seed: int, notes: list[str]) ->
     return model.fit_transform(values)
 
 
-def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str]) -> np.ndarray:
+def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str],
+          reporter) -> np.ndarray:
     global _umap_has_run
     try:
         from analysis.warmup import import_umap
@@ -390,15 +401,22 @@ def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str]) -> 
         notes.append(f"n_neighbors lowered from {n_neighbors} to {usable} for {n} rows.")
     if not _umap_has_run:
         notes.append(UMAP_COMPILE_NOTE)
+    reporter.phase(f"UMAP: nearest neighbours of {n} rows")
+    neighbours = stoppable_call(reporter, _exact_neighbours, values, usable)
     # a fixed random_state makes UMAP deterministic only on one thread
     model = umap.UMAP(n_neighbors=usable, n_components=2, random_state=seed, n_jobs=1,
                       init="spectral" if n > usable + 2 else "random",
-                      precomputed_knn=_exact_neighbours(values, usable))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        coordinates = model.fit_transform(values)
+                      precomputed_knn=neighbours)
+    reporter.phase(f"UMAP: layout of {n} rows")
+    coordinates = stoppable_call(reporter, _quiet_fit, model, values)
     _umap_has_run = True
     return np.asarray(coordinates, dtype=float)
+
+
+def _quiet_fit(model, values: np.ndarray) -> np.ndarray:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return model.fit_transform(values)
 
 
 def _exact_neighbours(values: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray, None]:
