@@ -38,7 +38,6 @@ from __future__ import annotations
 
 import dataclasses
 import hashlib
-import inspect
 import json
 import math
 import os
@@ -1061,10 +1060,7 @@ def _run_one(index: int, step: StudyStep, title: str, table: Table,
     started = time.perf_counter()
     try:
         built = step.build()
-        if progress is not None and "progress" in inspect.signature(built.run).parameters:
-            result = built.run(table, progress=progress)
-        else:
-            result = built.run(table)
+        result = built.run(table, progress=progress)
     except StepStopped as exc:
         text = str(exc)
         return StepOutcome(**base, error=text[:1].upper() + text[1:], stopped=True,
@@ -1091,10 +1087,11 @@ class StepJob:
     stays free to draw its progress and to ask it to stop.
 
     The step's :class:`analysis.progress.Progress` records land in ``latest``; :meth:`stop`
-    asks it to end at its next report (``stoppable`` says whether the kind reports at all:
-    one that does not runs to its end, and its result is then dropped). ``outcome`` is the
-    :class:`StepOutcome` once the step has ended, with ``stopped`` set when it was stopped.
-    Nothing goes into a cache here; the caller keeps the result it wants.
+    asks it to end at its next report (every kind reports, between units of its work). A
+    step asked to stop after its last report still ends as stopped, its result set aside.
+    ``outcome`` is the :class:`StepOutcome` once the step has ended, with ``stopped`` set
+    when it was stopped. Nothing goes into a cache here; the caller keeps the result it
+    wants.
     """
 
     def __init__(self, step: StudyStep, table: Table, *, index: int = 0):
@@ -1107,11 +1104,6 @@ class StepJob:
         self._table = table
         self._thread = threading.Thread(target=self._work, daemon=True,
                                         name=f"step {index + 1}: {step.kind}")
-        try:
-            run = step_class(step.kind).run
-            self.stoppable = "progress" in inspect.signature(run).parameters
-        except (ImportError, ScoutError, AttributeError):
-            self.stoppable = False
 
     def start(self) -> StepJob:
         self._thread.start()
@@ -1121,7 +1113,7 @@ class StepJob:
         reporter = Reporter(self._note, stopper=self._stopper)
         outcome = run_step(self.step, self._table, index=self.index, progress=reporter)
         if self._stopper.requested and outcome.ok:
-            # A kind that never reports ran to its end after all: its result is not wanted.
+            # the stop came after the step's last report: its result is not wanted
             outcome = dataclasses.replace(outcome, result=None, stopped=True,
                                           error="Stopped on request; the result that came "
                                                 "later was set aside.")

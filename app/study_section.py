@@ -298,10 +298,8 @@ def _collect(outcome, key: str, umap: bool):
 
 
 def _stop(key: str) -> None:
-    """The stop action: ask the running step to end, and run nothing more in this pass.
-
-    A kind that reports its progress ends at its next report; one that does not cannot be
-    cut short, so it is left to finish on its own and its result is dropped."""
+    """The stop action: ask the running step to end at its next report, and run nothing
+    more in this pass."""
     pg = state.page()
     pg.run_all = False
     pg.run_uids.clear()
@@ -309,10 +307,6 @@ def _stop(key: str) -> None:
     if job is None:
         return
     job.stop()
-    if not job.stoppable:
-        state.jobs().pop(key, None)
-        pg.stopped[key] = ("Stopped on request. This kind of step cannot be cut short, so "
-                           "it finishes out of sight and its result is set aside.")
 
 
 def _position(uid: int) -> int | None:

@@ -749,6 +749,4 @@ def test_the_relations_step_reports_its_phases_and_can_be_stopped():
 
     with pytest.raises(StepStopped):
         RelationsStep().run(table, progress=Reporter(stop_at_pairs, stopper=stopper))
-    from analysis.study import StepJob, new_step
 
-    assert StepJob(new_step("relations"), table).stoppable
