@@ -96,6 +96,18 @@ def sentence(text: str) -> str:
     return text[:1].upper() + text[1:]
 
 
+def duration(seconds: float) -> str:
+    """A span of time as people say it: "0.4 s", "12 s", "3 min 5 s", "1 h 2 min"."""
+    if round(seconds, 1) < 10:
+        return f"{seconds:.1f} s"
+    whole = round(seconds)
+    if whole < 60:
+        return f"{whole} s"
+    if whole < 3600:
+        return f"{whole // 60} min {whole % 60} s"
+    return f"{whole // 3600} h {whole % 3600 // 60} min"
+
+
 def plural(count: int, word: str, many: str | None = None) -> str:
     return f"{count} {word}" if count == 1 else f"{count} {many or word + 's'}"
 

@@ -17,6 +17,7 @@ from analysis.study import (
     result_key,
 )
 from app import state
+from app.display import duration
 from app.loading import available_kinds
 from app.panels import panel
 from app.settings import NONE_LABEL, StepContext
@@ -74,7 +75,7 @@ def show_study() -> None:
     top = st.container()
     if change is not None and change.uid is None:
         with top:
-            _target_notice(change)
+            _target_notice(change, table)
     progress = None
     if pg.run_all and missing:
         progress = top.progress(0.0, text=f"Running {len(missing)} of "
@@ -106,9 +107,9 @@ def show_study() -> None:
     _add_step_row(table)
 
 
-def _target_notice(change) -> None:
-    """Which steps follow the changed target and will run again, before any of them runs;
-    run them, or go back to the target before."""
+def _target_notice(change, table) -> None:
+    """Which steps follow the changed target and will run again, and how long they took
+    last time, before any of them runs; run them, or go back to the target before."""
     pg = state.page()
     study = state.study()
     listed = [f"{pg.step_ids.index(u) + 1}. {study.steps[pg.step_ids.index(u)].display_title}"
@@ -121,7 +122,7 @@ def _target_notice(change) -> None:
         if listed:
             verb = "depends" if len(listed) == 1 else "depend"
             st.markdown(f"{_count(len(listed), 'step')} {verb} on the target and will run "
-                        "again: " + ", ".join(listed) + ".")
+                        "again: " + ", ".join(listed) + "." + _last_cost(change, table))
         else:
             st.markdown("No step depends on the target: nothing needs to run again.")
         left, right = st.columns(2)
@@ -129,6 +130,24 @@ def _target_notice(change) -> None:
                     icon=":material/play_arrow:", on_click=_run_target_steps, width="stretch")
         right.button(f"Back to {old}", key="target.undo", icon=":material/undo:",
                      on_click=state.undo_target_change, width="stretch")
+
+
+def _last_cost(change, table) -> str:
+    """How long the listed steps took with the target before, from their results kept."""
+    pg, cache = state.page(), state.cache()
+    took = []
+    for uid in change.step_uids:
+        if uid not in pg.step_ids:
+            continue
+        before = change.before.steps[pg.step_ids.index(uid)]
+        found = cache.get(result_key(table, before.kind, before.params))
+        seconds = getattr(found, "elapsed_seconds", None)
+        if seconds is not None:
+            took.append(seconds)
+    if not took:
+        return ""
+    which = "they" if len(took) == len(change.step_uids) else f"{len(took)} of them"
+    return f" With the target before, {which} took {duration(sum(took))} in all."
 
 
 def _run_target_steps() -> None:
@@ -184,7 +203,7 @@ def _show_step(index: int, uid: int, step, table, *, run_all: bool, others: dict
                 st.error(message)
         change = pg.target_change
         if change is not None and change.uid == uid:
-            _target_notice(change)
+            _target_notice(change, table)
         # The settings may have changed the step just now: read it again.
         step = state.study().steps[index]
         ctx.step = step

@@ -73,3 +73,13 @@ def test_exact_values_are_shown_as_exact_text():
     assert shown.iloc[0]["big"] == "123456789012345678901234567890"
     assert shown.iloc[0]["ratio"] == "7/3"
     assert isinstance(shown, pd.DataFrame)
+
+
+@pytest.mark.parametrize("seconds, said", [
+    (0.42, "0.4 s"), (9.96, "10 s"), (12.4, "12 s"), (59.6, "1 min 0 s"), (185, "3 min 5 s"),
+    (3720, "1 h 2 min"),
+])
+def test_a_span_of_time_reads_as_people_say_it(seconds, said):
+    from app.display import duration
+
+    assert duration(seconds) == said

@@ -116,6 +116,12 @@ def test_a_change_of_target_lists_the_steps_that_follow_it_and_can_be_undone():
     assert "Nothing has run yet" in words, words
     for index in following:
         assert f"{index + 1}. {before.steps[index].display_title}" in words, words
+    # what re-running costs, from the time the same steps took with the target before
+    from app.display import duration
+
+    took = [getattr(before_results[i], "elapsed_seconds", None) for i in following]
+    assert all(t is not None for t in took), "each step that follows the target is timed"
+    assert f"With the target before, they took {duration(sum(took))} in all." in words, words
     # nothing ran: the steps that follow the target wait, the others keep their results
     for index, (now, then) in enumerate(zip(results(at), before_results, strict=True)):
         assert (now is None) if index in following else (now is then), index
