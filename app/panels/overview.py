@@ -19,14 +19,14 @@ def settings_panel(ctx: settings.StepContext) -> None:
 
 
 def show(ctx: settings.StepContext, result) -> None:
+    # how the table was read (labels merged, cells not read as numbers): first, as elsewhere
+    display.warnings(result.warnings)
     named = f"named by {result.id_column}" if result.id_column else "named by row number"
     missing = sum(1 for c in result.columns if c.missing)
     st.markdown(f"{display.plural(result.rows, 'object')}, "
                 f"{display.plural(len(result.columns), 'column')}, {named}; "
                 + (f"{display.plural(missing, 'column')} with missing values."
                    if missing else "no missing values."))
-    for warning in result.warnings:
-        st.caption(f"Note: {warning}")
     if result.correlations:
         lines = [f"- `{a}` and `{b}`: Pearson r = {r:+.3f}" for a, b, r in result.correlations]
         st.markdown("**Invariants that move together** (|r| ≥ 0.9)\n" + "\n".join(lines))
