@@ -55,6 +55,12 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _parser() -> argparse.ArgumentParser:
+    # the options' words are the step modules' own tuples, so the two faces cannot drift
+    from analysis.clustering import METHODS as CLUSTERING_METHODS
+    from analysis.projection import METHODS as PROJECTION_METHODS
+    from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
+    from analysis.separation import MODELS, READINGS
+
     parser = argparse.ArgumentParser(
         prog=_program_name(),
         description="Find patterns in a table of computed invariants.",
@@ -65,14 +71,13 @@ def _parser() -> argparse.ArgumentParser:
     inspect.set_defaults(handler=_inspect, kind="overview")
 
     project = _command(commands, "project", "a 2-d picture of the table (PCA, UMAP, t-SNE, LDA)")
-    project.add_argument("--method", choices=["pca", "umap", "tsne", "lda"], default="pca")
+    project.add_argument("--method", choices=PROJECTION_METHODS, default="pca")
     project.add_argument("--target", help="column to colour by (needed for LDA)")
     _feature_options(project)
     project.set_defaults(handler=_step, kind="projection")
 
     cluster = _command(commands, "cluster", "groups of similar objects, with a sweep over k")
-    cluster.add_argument("--method", default="auto",
-                         choices=["auto", "kmeans", "gmm", "agglomerative", "hdbscan"])
+    cluster.add_argument("--method", default="auto", choices=CLUSTERING_METHODS)
     cluster.add_argument("--k", type=int, help="number of clusters (default: chosen by sweep)")
     cluster.add_argument("--compare", metavar="COL", help="a label to compare the clusters with")
     _feature_options(cluster)
@@ -86,11 +91,11 @@ def _parser() -> argparse.ArgumentParser:
                         help="a relation, bound or congruence as the relations step writes it "
                              "(e.g. 'h11 - num_factors >= 0'); the target is then whether an "
                              "object breaks it")
-    separate.add_argument("--reading", choices=["auto", "number", "classes"],
-                          help="an invariant target as a number or as classes (default: a "
-                               "number past 12 distinct values)")
-    separate.add_argument("--model", default="linear",
-                          choices=["linear", "logistic", "lda", "rbf", "poly2"])
+    separate.add_argument("--reading", choices=READINGS,
+                          help="an invariant target as a number or as classes (default auto: "
+                               f"for {CURVE_MIN_VALUES} to {CURVE_MAX_VALUES} whole-number "
+                               "values a learning curve decides)")
+    separate.add_argument("--model", default="linear", choices=MODELS)
     separate.add_argument("--train-fraction", type=float, default=0.5, metavar="F")
     separate.add_argument("--groups", metavar="COL",
                           help="rows with the same value (or the same matrix up to "
