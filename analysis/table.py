@@ -487,6 +487,9 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     except (ValueError, OverflowError, MemoryError) as exc:
         raise TableError(f"{name}: could not be parsed as a delimited table "
                          f"({_one_line(exc)}).") from None
+    if not frame.index.equals(pd.RangeIndex(len(frame))):
+        # pandas makes the first cells an index when the first row is longer than the header
+        _check_long_rows(text, delimiter, len(header), name)
     frame.columns = header if len(header) == len(frame.columns) else frame.columns
     if len(frame) and frame.iloc[:, -1].isna().any():
         _check_short_rows(text, delimiter, len(header), name)
@@ -575,12 +578,35 @@ def _parser_message(message: str, header: list[str]) -> str:
     if match:
         expected, line, saw = (int(g) for g in match.groups())
         return (f"row {line - 1} (line {line}) has {saw} cells but the header names "
-                f"{len(header) or expected} columns. Fix that row, or quote cells that "
-                "contain the delimiter.")
+                f"{len(header) or expected} columns. {_LONG_ROW_ADVICE}")
     if "EOF inside string" in message or "EOF" in message:
         return ("a quoted cell is never closed (a lone \" character). "
                 "Close the quote or remove it.")
     return f"could not be parsed as a delimited table ({_one_line(message)})."
+
+
+# What to do about a row with more cells than the header: the usual cause in downloaded
+# tables is an interval or a list written with the delimiter inside it.
+_LONG_ROW_ADVICE = ("Fix that row, or quote cells that contain the delimiter (an interval "
+                    "such as [0,2] or a list such as [1,2,3] must be in double quotes).")
+
+
+def _check_long_rows(text: str, delimiter: str, width: int, name: str) -> None:
+    """Name the first row with more cells than the header (pandas would have made an index
+    of its first cells and shifted every column)."""
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
+    try:
+        next(reader, None)
+        rows = (cells for cells in reader if cells)
+        for number, cells in enumerate(rows, start=1):
+            if len(cells) > width:
+                raise TableError(f"{name}, row {number} (line {reader.line_num}): "
+                                 f"{len(cells)} cells but the header names {width} columns. "
+                                 f"{_LONG_ROW_ADVICE}")
+    except csv.Error:
+        pass
+    raise TableError(f"{name}: a row has more cells than the header names columns. "
+                     f"{_LONG_ROW_ADVICE}")
 
 
 def _check_short_rows(text: str, delimiter: str, width: int, name: str) -> None:

@@ -64,6 +64,12 @@ CASES = {
     "too many cells": Case("long.csv", b"a,b\n1,2\n3,4,5\n6,7\n", error=(
         r"long\.csv", r"row 2 \(line 3\) has 3 cells but the header names 2 columns",
         r"Fix that row, or quote cells that contain the delimiter")),
+    # the first row longer than the header: pandas alone would make an index of its first
+    # cells and shift every column by one, so that each name labels its neighbour's values
+    "an unquoted interval in the first row": Case("interval.csv", b"n,rank,t\n1,[0,2],3\n4,5,6\n",
+                                                  error=(
+        r"interval\.csv, row 1 \(line 2\): 4 cells but the header names 3 columns",
+        r"an interval such as \[0,2\] .* must be in double quotes")),
     "too few cells": Case("short.csv", b"a,b,c\n1,2,3\n4,5\n6,7,8\n", error=(
         r"short\.csv, row 2 \(line 3\): 2 cells but the header names 3 columns",
         r"Fill the missing cells")),
