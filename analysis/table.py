@@ -1300,9 +1300,12 @@ def label_merge_warning(name: str, column: str, *, padded: int, written: int, la
     if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
         return None
     cells_word = "cell has" if padded == 1 else "cells have"
-    return (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
-            f"read without them, so the column's {written} labels as written are "
-            f"{labels} label{'' if labels == 1 else 's'}.")
+    said = (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
+            "read without them")
+    if written == labels:
+        return f"{said}."
+    return (f"{said}, so the column's {written} labels as written are {labels} "
+            f"label{'' if labels == 1 else 's'}.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:

@@ -812,6 +812,11 @@ def test_labels_differing_by_spaces_are_one_label_with_a_warning(marked, tmp_pat
     warning = next(w for w in marked.warnings if "'family'" in w)
     assert "2 cells have spaces around the label" in warning
     assert "5 labels as written are 3 labels" in warning
+    # padded labels that never meet their unpadded spelling: no merge to speak of
+    padded = "k,c\n" + "".join(f"{i},{'A ' if i % 2 else ' B'}\n" for i in range(40))
+    said = [w for w in read_table(padded.encode(), "p.csv").warnings if "'c'" in w]
+    assert said == ["p.csv: column 'c': 40 cells have spaces around the label, read without "
+                    "them."], said
     # a column of free text keeps its cells as written
     names = "k,t\n" + "".join(f"{i}, name {i}\n" for i in range(40))
     assert read_table(names.encode(), "t.csv").frame["t"].iloc[0] == " name 0"
