@@ -1249,7 +1249,8 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
+        labels = series.dropna().unique() if role == "category" and dtype == "text" else None
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
         counts = _marker_counts(marks.get(column))
         intervals = len(marks[column].positions) if column in marks else 0
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,
@@ -1389,6 +1390,20 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
     return "text"
 
 
+def flag_spelling_warning(name: str, column: str, labels) -> str | None:
+    """The warning for a category whose labels are all true/false words but in more than
+    one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
+    own, which is seldom what the table meant. None for any other column."""
+    words = sorted({str(w).strip() for w in labels})
+    lowered = {w.lower() for w in words}
+    if len(words) < 3 or not lowered <= TRUE_WORDS | FALSE_WORDS or reads_as_flag(set(words)):
+        return None
+    return (f"{name}: column {column!r} holds only true/false words, in more than one "
+            f"spelling ({', '.join(words)}), so it is read as a category of {len(words)} "
+            "labels, each spelling a class of its own. Give the column the role flag, or write "
+            "one spelling for each value (such as Y and N), to read it as a flag.")
+
+
 def reads_as_boolean(words) -> bool:
     """Whether a column whose present cells are these words is read as true/false: the one
     rule of :func:`reads_as_flag`, under the name the partitioned reader uses."""
@@ -1406,9 +1421,14 @@ def is_missing(value) -> bool:
 
 
 def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
-                    role: str) -> list[str]:
-    """The loading warnings a typed column gives (big integers, empty, constant)."""
+                    role: str, labels=None) -> list[str]:
+    """The loading warnings a typed column gives (big integers, empty, constant, true/false
+    words in several spellings). ``labels``: a category's distinct labels, when known."""
     out = []
+    if role == "category" and labels is not None:
+        spelled = flag_spelling_warning(name, column, labels)
+        if spelled:
+            out.append(spelled)
     if dtype == "big integer":
         beyond = "2**53 and missing cells" if "2**53" in note else "64 bits"
         out.append(
@@ -1860,9 +1880,11 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
                 seen.append(_flag_token(value))
         truthy = _true_level(levels)
         values = [None if _is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
-        note = "" if info.dtype == "boolean" else f"true means {truthy!r}"
+        note = "" if info.dtype == "boolean" else (
+            "read from true/false words" if truthy is True else f"true means {truthy!r}")
         return pd.Series(values, dtype=object if None in values else bool,
-                         index=series.index), replace(new, dtype="boolean", note=note)
+                         index=series.index), replace(new, dtype="boolean", note=note,
+                                                      distinct=len(levels))
     if role == "array":
         if info.dtype == "array":
             return None, new
@@ -1889,6 +1911,11 @@ def _flag_token(value):
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     text = str(value).strip()
+    # true/false words in any spelling are the two values themselves: Y beside True is one
+    if text.lower() in TRUE_WORDS:
+        return True
+    if text.lower() in FALSE_WORDS:
+        return False
     return text
 
 

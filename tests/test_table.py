@@ -797,6 +797,24 @@ def test_two_flag_words_in_any_case_are_a_flag(words):
     assert table.frame["f"].tolist() == [True, False, False, None, True]
 
 
+def test_true_false_words_in_two_spellings_are_a_category_with_a_warning_until_made_a_flag():
+    cells = ["Y", "N", "True", "False", "N", "", "Y", "false"]
+    data = ("k,f\n" + "".join(f"{i},{c}\n" for i, c in enumerate(cells))).encode()
+    table = read_table(data, "t.csv")
+    assert table.role("f") == "category" and table.column("f").distinct == 5
+    said = [w for w in table.warnings if "'f'" in w]
+    assert len(said) == 1 and "holds only true/false words, in more than one spelling " \
+        "(False, N, True, Y, false)" in said[0] and "role flag" in said[0], said
+    flag = table.with_roles({"f": "flag"})
+    assert (flag.column("f").dtype, flag.column("f").distinct) == ("boolean", 2)
+    assert flag.frame["f"].tolist() == [True, False, True, False, False, None, True, False]
+    # two spellings in all are a flag already, and a category of other words gives no warning
+    assert read_table(b"k,f\n1,Y\n2,N\n3,Y\n", "t.csv").role("f") == "flag"
+    plain = read_table(("k,f\n" + "".join(f"{i},{'AB'[i % 2]}\n" for i in range(30))).encode(),
+                       "t.csv")
+    assert plain.role("f") == "category" and not [w for w in plain.warnings if "'f'" in w]
+
+
 def test_the_flag_words_are_one_public_set():
     from analysis.table import FALSE_WORDS, TRUE_WORDS, reads_as_flag
 
