@@ -242,7 +242,7 @@ def _step_section(outcome: StepOutcome, table) -> str:
     else:
         result = outcome.result
         data = _result_json(result)
-        renderer = _RENDERERS.get(outcome.kind)
+        renderer = RENDERERS.get(outcome.kind)
         if renderer is not None and data is not None:
             try:
                 parts.append(renderer(data))
@@ -666,7 +666,7 @@ def _ranked(data: dict) -> str:
     return "\n".join(parts)
 
 
-_RENDERERS = {
+RENDERERS = {
     "overview": _overview,
     "projection": _projection,
     "clustering": _clustering,
