@@ -45,6 +45,16 @@ def describe(params: dict, result=None) -> str:
     return f"predict {params.get('target')} with a {model}"
 
 
+def _model_choices() -> dict:
+    """Each model in the words of a class target, and what fits a number target instead,
+    so that the choice says what will be computed whichever the target is."""
+    from analysis.separation import REGRESSION_WORDS
+
+    return {model: f"{words}; for a number target, {REGRESSION_WORDS[model]}"
+            if model in REGRESSION_WORDS else f"{words}; classes only"
+            for model, words in MODELS.items()}
+
+
 def settings_panel(ctx: settings.StepContext) -> None:
     table = ctx.table
     left, right = st.columns(2)
@@ -55,9 +65,10 @@ def settings_panel(ctx: settings.StepContext) -> None:
         settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
                         optional=False,
                         container=left, help="The flag, category or invariant to predict.")
-    settings.choice(ctx, "model", "Separator", MODELS, container=right,
+    settings.choice(ctx, "model", "Separator", _model_choices(), container=right,
                     help="Linear models and the degree-2 kernel give an equation in the "
-                         "table's own invariants.")
+                         "table's own invariants. A target read as a number is fitted by "
+                         "the regression named after the semicolon.")
     settings.feature_block(ctx)
     left, middle, right = st.columns(3)
     settings.real_number(ctx, "train_fraction", "Share of rows for training", minimum=0.05,
@@ -281,7 +292,11 @@ def _regression_metrics(result) -> None:
                           delta_color="off", delta_arrow="off",
                           help="The share of test rows whose rounded prediction equals the "
                                "whole-number target (Wilson's interval).")
-        columns[1].metric(f"Most common value ({display.number(b['most_common_value'])})",
+        common = b["most_common_value"]
+        # a whole-number target's most common value, whole even when JSON made it a real
+        if isinstance(common, float) and common.is_integer():
+            common = int(common)
+        columns[1].metric(f"Most common value ({display.number(common)})",
                           f"{b['exact']:.1%}")
         if "formula_exact" in b:
             columns[2].metric("Closest formula", f"{b['formula_exact']:.1%}",

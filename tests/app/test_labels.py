@@ -108,6 +108,12 @@ def test_the_separator_names_the_model_it_fitted(page):
         assert {"Accuracy on test rows", "Matthews correlation"} <= metrics
         assert "R² on test rows" not in metrics
     assert separator.train_rows + separator.test_rows == 150
+    # the model choice names what a number target is fitted with, whatever the target is
+    uid = at.session_state["scout.page"].step_ids[KINDS.index("separator")]
+    chosen = at.selectbox(key=f"s{uid}.model")
+    assert chosen.value == separator.model == "linear"
+    assert chosen.format_func(chosen.value) == ("linear support vector machine; for a number "
+                                                "target, linear regression (ridge)")
 
 
 def test_the_relations_say_what_they_searched(page):
