@@ -66,6 +66,8 @@ _EXTENSIONS = {
 _INT64_MAX = 2**63 - 1
 # Past this, float64 no longer holds every integer exactly.
 _FLOAT_EXACT = 2**53
+# The note of a column of integers that only missing cells and float64's 2**53 make big.
+_BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
 # A whole number written as text (the partitioned reader matches cells against it too).
 INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
@@ -1152,7 +1154,7 @@ def incomplete_integer_dtype(low: int, high: int) -> tuple[str, str]:
     if high > _INT64_MAX or low < -_INT64_MAX - 1:
         return "big integer", ""
     if max(abs(low), abs(high)) > _FLOAT_EXACT:
-        return "big integer", "kept exact: beyond 2**53 with missing cells"
+        return "big integer", _BEYOND_FLOAT_NOTE
     return "integer", "has missing cells"
 
 
@@ -1223,9 +1225,10 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
                 problems.append(problem)
                 values, dtype, note = _as_text(series, name, column, limits)
         if dtype == "text" and column not in as_text:
-            merged = _merged_labels(series if values is None else values, name, column,
-                                    warnings)
-            values = values if merged is None else merged
+            merged = _merged_labels(series if values is None else values, column)
+            if merged is not None:
+                values = merged[0]
+                warnings.append(label_merge_warning(name, column, **merged[1]))
         if "marks" in found:
             marks[column] = found["marks"]
         typed[column] = series if values is None else values
@@ -1267,42 +1270,46 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
                  marks=marks)
 
 
-def _merged_labels(series: pd.Series, name: str, column: str,
-                   warnings: list[str]) -> pd.Series | None:
+def _merged_labels(series: pd.Series, column: str) -> tuple[pd.Series, dict] | None:
     """A text column whose labels differ only by surrounding spaces, as one label each.
 
     Only when the stripped labels make a category (a few values): then " toric" and "toric"
-    are one label, and a warning names the column and the cells read without their spaces.
-    The file is not changed. Returns None when nothing is merged.
+    are one label. Returns the merged labels and the counts that :func:`label_merge_warning`
+    words, or None when nothing is merged. The file is not changed.
     """
     cells = series.tolist()
     padded = [i for i, v in enumerate(cells) if isinstance(v, str) and v != v.strip()]
     if not padded:
         return None
     stripped = [v.strip() if isinstance(v, str) else v for v in cells]
-    labels = {v for v in stripped if not _is_missing(v)}
-    before = {v for v in cells if not _is_missing(v)}
-    missing = sum(_is_missing(v) for v in cells)
-    warning = label_merge_warning(name, column, padded=len(padded), written=len(before),
-                                  labels=len(labels), missing=missing, rows=len(cells))
-    if warning is None:
+    counts = dict(padded=len(padded), written=len({v for v in cells if not _is_missing(v)}),
+                  labels=len({v for v in stripped if not _is_missing(v)}),
+                  missing=sum(_is_missing(v) for v in cells), rows=len(cells))
+    if label_merge_words(column, **counts) is None:
         return None
-    warnings.append(warning)
-    return pd.Series(stripped, dtype=object, index=series.index)
+    return pd.Series(stripped, dtype=object, index=series.index), counts
 
 
 def label_merge_warning(name: str, column: str, *, padded: int, written: int, labels: int,
                         missing: int, rows: int) -> str | None:
     """The warning for a text column read without the spaces around its labels, or None
-    when its labels stay as written (see ``_merged_labels``: only a column whose stripped
-    labels make a category is merged). ``padded`` counts the cells with such spaces,
-    ``written`` the different labels as written, ``labels`` those without the spaces.
+    when its labels stay as written (only a column whose stripped labels make a category is
+    merged). ``padded`` counts the cells with such spaces, ``written`` the different labels
+    as written, ``labels`` those without the spaces.
     """
+    words = label_merge_words(column, padded=padded, written=written, labels=labels,
+                              missing=missing, rows=rows)
+    return None if words is None else f"{name}: column {column!r}: {words}"
+
+
+def label_merge_words(column: str, *, padded: int, written: int, labels: int, missing: int,
+                      rows: int) -> str | None:
+    """What :func:`label_merge_warning` says of the column, without naming it (the column's
+    own note), or None when its labels stay as written."""
     if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
         return None
     cells_word = "cell has" if padded == 1 else "cells have"
-    said = (f"{name}: column {column!r}: {padded} {cells_word} spaces around the label, "
-            "read without them")
+    said = f"{padded} {cells_word} spaces around the label, read without them"
     if written == labels:
         return f"{said}."
     return (f"{said}, so the column's {written} labels as written are {labels} "
@@ -1430,7 +1437,7 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
         if spelled:
             out.append(spelled)
     if dtype == "big integer":
-        beyond = "2**53 and missing cells" if "2**53" in note else "64 bits"
+        beyond = "2**53 and missing cells" if note == _BEYOND_FLOAT_NOTE else "64 bits"
         out.append(
             f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
             "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
@@ -1793,10 +1800,9 @@ def _retype_text(table_name: str, series: pd.Series, info: ColumnInfo, role: str
     """Values and ColumnInfo for a column given the role text or category."""
     if info.dtype in ("text", "category"):
         if role == "category":
-            notes: list[str] = []
-            merged = _merged_labels(series, table_name, info.name, notes)
+            merged = _merged_labels(series, info.name)
             if merged is not None:
-                return merged, replace(new, note=notes[0].split(": ", 2)[-1])
+                return merged[0], replace(new, note=label_merge_words(info.name, **merged[1]))
         return None, new
     if info.dtype == "array":
         values = [None if v is None else json.dumps(v.tolist()) for v in series]
