@@ -54,13 +54,11 @@ def main() -> None:
         share.share_panel()
     table_section.table_header()
     _digest_warning()
-    pg = state.page()
-    for notice in pg.notices:
-        kind, _, text = notice.partition(":")
-        if kind in ("focus",):
-            st.error(text)
-        elif kind in ("study", "kept"):
-            st.info(text)
+    for notice in state.notices_of("focus", "study", "kept"):
+        if notice.kind == "focus":
+            st.error(notice.text)
+        else:
+            st.info(notice.text)
     st.caption(CAVEAT)
     study_section.show_study()
     _warm_up_umap()

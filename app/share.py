@@ -76,9 +76,9 @@ def share_panel() -> None:
             pg.study_error = str(exc)
         else:
             pg.study_error = None
-            pg.notices = [n for n in pg.notices if not n.startswith("study:")]
+            state.clear_notices("study")
             if note:
-                pg.notices.append(f"study:{note}")
+                state.post("study", note)
             st.rerun()
     elif opened is None:
         pg.study_upload_id = None

@@ -76,7 +76,8 @@ class PageState:
     study_upload_id: str | None = None
     load_error: str | None = None
     study_error: str | None = None
-    notices: list[str] = field(default_factory=list)
+    # messages for the page, each tagged with the part of the page that posted it
+    notices: list[Notice] = field(default_factory=list)
     show_sample: str | None = None
     roles_version: int = 0
     roles_error: str | None = None
@@ -86,6 +87,30 @@ class PageState:
     target_change: TargetChange | None = None
     # steps to run in the next pass (by step id), besides those the user runs one by one
     run_uids: set[int] = field(default_factory=set)
+
+
+@dataclass(frozen=True)
+class Notice:
+    """A message for the page: ``kind`` says which part posted it (and so where it shows and
+    when it is cleared): "focus", "study", "add" or "kept"."""
+
+    kind: str
+    text: str
+
+
+def post(kind: str, text: str) -> None:
+    """Put a message of ``kind`` on the page."""
+    page().notices.append(Notice(kind, text))
+
+
+def clear_notices(kind: str) -> None:
+    """Take the messages of ``kind`` off the page."""
+    pg = page()
+    pg.notices = [n for n in pg.notices if n.kind != kind]
+
+
+def notices_of(*kinds: str) -> list[Notice]:
+    return [n for n in page().notices if n.kind in kinds]
 
 
 @dataclass
@@ -216,7 +241,7 @@ def keep_current() -> None:
     """Put the table on the page aside with its study, by the digest of the table's bytes."""
     current, table = study(), table_state()
     pg = page()
-    pg.notices = [n for n in pg.notices if not n.startswith("kept:")]
+    clear_notices("kept")
     if current is None or table is None:
         return
     found = cache()
@@ -231,7 +256,7 @@ def keep_current() -> None:
         table=table, study=current, step_ids=list(pg.step_ids), focus=dict(pg.focus),
         results=results, errors=dict(pg.errors), name=table.name)
     for name in _let_go(kept):
-        pg.notices.append(f"kept:The results of the study on {name} were let go to save "
+        post("kept", f"The results of the study on {name} were let go to save "
                           f"memory (the {KEPT_WHOLE} tables put aside last keep theirs). Its "
                           f"steps and settings are kept: open {name} again and they come back, "
                           "ready to run.")
@@ -275,7 +300,7 @@ def resume(kept: KeptStudy, arrived: TableState | None = None) -> None:
     pg.focus = dict(kept.focus)
     pg.errors = dict(kept.errors)
     if not kept.whole:
-        pg.notices.append(f"kept:The study on {kept.name} is back with its steps and settings; "
+        post("kept", f"The study on {kept.name} is back with its steps and settings; "
                           "its results were let go earlier to save memory. Run its steps to "
                           "compute them again.")
     pg.run_all = False

@@ -401,13 +401,13 @@ def first_flag(table) -> str | None:
 def _add(table) -> None:
     kind = st.session_state.get("add.kind")
     pg = state.page()
-    pg.notices = [n for n in pg.notices if not n.startswith("add:")]
+    state.clear_notices("add")
     if kind is None:
         return
     try:
         params = new_step_params(kind, table, pg.focus)
     except ScoutError as exc:
-        pg.notices.append(f"add:Could not add the step: {exc}")
+        state.post("add", f"Could not add the step: {exc}")
         return
     add_step_with(kind, params)
 
@@ -419,7 +419,7 @@ def add_step_with(kind: str, params: dict) -> None:
     try:
         new = add_step(state.study(), kind, params)
     except ScoutError as exc:
-        pg.notices.append(f"add:Could not add the step: {exc}")
+        state.post("add", f"Could not add the step: {exc}")
         return
     uid = state.new_step_id()
     pg.step_ids.append(uid)
@@ -429,7 +429,6 @@ def add_step_with(kind: str, params: dict) -> None:
 
 def _add_step_row(table) -> None:
     kinds = available_kinds()
-    pg = state.page()
     st.markdown("##### Add a step")
     left, right = st.columns([3, 1], vertical_alignment="bottom")
     left.selectbox("Kind of step", kinds, key="add.kind",
@@ -437,9 +436,8 @@ def _add_step_row(table) -> None:
                    label_visibility="collapsed")
     right.button("Add step", key="add.button", on_click=_add, args=(table,),
                  icon=":material/add:", width="stretch")
-    for notice in pg.notices:
-        if notice.startswith("add:"):
-            st.error(notice[4:])
+    for notice in state.notices_of("add"):
+        st.error(notice.text)
     waiting = [KIND_TITLES[k] for k in STEP_KINDS if k not in kinds]
     if waiting:
         st.caption("Not installed yet: " + ", ".join(waiting) + ".")

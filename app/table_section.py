@@ -343,11 +343,11 @@ def _focus_changed(name: str, key: str) -> None:
         defaults = default_feature_columns(table, target=target)
         value = None if not value or list(value) == defaults else list(value)
     pg.focus[name] = value
-    pg.notices = [n for n in pg.notices if not n.startswith("focus:")]
+    state.clear_notices("focus")
     try:
         state.set_study(apply_focus(state.study(), table, name, value))
     except StudyError as exc:
-        pg.notices.append(f"focus:{exc}")
+        state.post("focus", str(exc))
         return
     if name == "target":
         # Nothing runs yet: the page says which steps follow the target and offers to go back.
