@@ -295,40 +295,30 @@ def _bare_fit(frame, pipeline_of, fit_rows: int | None = None):
 def _one_split_step(table, **settings):
     """Our separator run with its protocol cut down to split 1's fit and predictions.
 
-    Everything before the protocol (features, labels, the choice of kernel method) runs as
-    in a full run; then the real split function and the real fitting recipe are used once.
+    Everything before the protocol (features, labels, the choice of kernel method, the check
+    whether the target follows from the features) runs as in a full run; then the real split
+    function and the real fitting recipe are used once.
     """
     import numpy as np
 
-    from analysis import separation
+    from analysis.progress import quiet
     from analysis.separation import SeparatorStep
+    from analysis.separator_models import fit, predict
+    from analysis.separator_prepare import RunLog, prepare, target_follows
+    from analysis.separator_protocol import make_splits
 
-    outcome = {}
-
-    class Done(Exception):
-        """Raised once split 1 is scored, to end the run there."""
-
-    def first_split_only(run):
-        strata = None if run.regression else run.y
-        splits, _ = separation._splits(len(run.y), strata, run.group_labels,
-                                       float(run.step.train_fraction), 1, run.step.seed,
-                                       run.table.name)
-        train, test = splits[0]
-        model = run._fit(train)
-        predicted = separation._predict(model, run.X[test])
-        outcome["test_accuracy"] = round(float(np.mean(predicted == run.y[test])), 4)
-        outcome["train_rows"] = int(len(train))
-        raise Done
-
-    original = separation._Run._protocol
-    separation._Run._protocol = first_split_only
-    try:
-        SeparatorStep(target=TARGET, seed=SEED, **settings).run(table)
-    except Done:
-        pass
-    finally:
-        separation._Run._protocol = original
-    return outcome
+    step = SeparatorStep(target=TARGET, seed=SEED, **settings)
+    step.check()
+    run = prepare(step, table, quiet(None), RunLog())
+    target_follows(run)
+    strata = None if run.regression else run.y
+    splits, _ = make_splits(len(run.y), strata, run.group_labels, float(step.train_fraction),
+                            1, step.seed, table.name)
+    train, test = splits[0]
+    model = fit(run, train)
+    predicted = predict(model, run.X[test])
+    return {"test_accuracy": round(float(np.mean(predicted == run.y[test])), 4),
+            "train_rows": int(len(train))}
 
 
 def _separator_check(result) -> dict:

@@ -20,13 +20,9 @@ from sklearn.metrics import balanced_accuracy_score, matthews_corrcoef
 from analysis.errors import StepError
 from analysis.features import canonical_key
 from analysis.figures import figures_for
-from analysis.separation import (
-    SeparatorResult,
-    SeparatorStep,
-    _decision,
-    _mcc_from_counts,
-    _predict,
-)
+from analysis.separation import SeparatorResult, SeparatorStep
+from analysis.separator_metrics import mcc_from_counts
+from analysis.separator_models import decision, predict
 from analysis.steps import make_step, step_params
 from analysis.table import load_table, read_table
 
@@ -261,7 +257,7 @@ def test_mcc_formula_matches_scikit_learn_on_random_predictions(classes):
         predicted = np.where(rng.random(80) < 0.5, actual, rng.integers(0, classes, 80))
         counts = np.zeros((classes, classes), dtype=int)
         np.add.at(counts, (actual, predicted), 1)
-        assert float(_mcc_from_counts(counts)) == pytest.approx(
+        assert float(mcc_from_counts(counts)) == pytest.approx(
             matthews_corrcoef(actual, predicted), abs=1e-12)
 
 
@@ -420,8 +416,8 @@ def test_kernel_decision_values_match_scikit_learn(kernel):
     model = make_pipeline(StandardScaler(), SVC(kernel=kernel, degree=2, coef0=1.0,
                                                 gamma="scale")).fit(X, y)
     fresh = rng.normal(size=(500, 4))
-    assert np.allclose(_decision(model, fresh), model.decision_function(fresh), atol=1e-9)
-    assert np.array_equal(_predict(model, fresh), model.predict(fresh))
+    assert np.allclose(decision(model, fresh), model.decision_function(fresh), atol=1e-9)
+    assert np.array_equal(predict(model, fresh), model.predict(fresh))
 
 
 @pytest.mark.parametrize("model", ["logistic", "lda"], ids=["logistic", "lda"])

@@ -1,0 +1,162 @@
+"""The separator's equation: the model fitted on every row (split 1's on a large table),
+stated as an exact equation in the table's own units and checked on every row (the linear
+models' hyperplanes, the degree-2 kernel's polynomial, a quadratic surrogate of the RBF
+kernel, an exact formula of a numeric target), with every row's decision score for figures.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from analysis.separator_models import decision, fit, predict
+
+# Features whose values are the table's own numbers (or sums of them): an equation in them
+# is checked exactly whenever the values are integers or short decimals.
+_TABLE_VALUED_KINDS = ("value", "flag", "onehot", "flat", "sorted", "row_sums", "column_sums")
+
+
+def equation_part(run, split_model) -> tuple[dict, object]:
+    """Fit on every row, then state the separator as an exact equation checked on every
+    row (the search itself runs on a sample of ``sample_rows`` rows past that size).
+
+    Returns the result's fields (``equation``, ``equations``, ``surrogate`` or ``formula``,
+    and ``decision``: the fields of its decision scores) and the model fitted on every row.
+    """
+    step = run.step
+    n = len(run.y)
+    fitted_on = "all rows"
+    if run.big:
+        # a refit on every row of a large table costs twice split 1's fit and moves the
+        # starting direction little; the exact search and its check on every row decide
+        model = split_model
+        fitted_on = "split 1's training rows"
+        run.log.notes.append(f"the table is large ({n} rows): the separator fitted on split "
+                             "1's training rows gives the equation's starting direction and "
+                             "the decision scores, instead of a refit on every row.")
+    else:
+        model = fit(run, np.arange(n), seed_offset=5000)
+    predicted = np.asarray(predict(model, run.X))
+    options = {"exact_columns": _exact_flags(run.fm),
+               "sample_size": step.sample_rows, "seed": step.seed}
+    if step.max_terms is not None:
+        options["max_terms"] = step.max_terms
+    if step.max_denominator is not None:
+        options["max_denominator"] = step.max_denominator
+    if n > step.sample_rows:
+        run.log.notes.append(f"the equation was searched on a sample of {step.sample_rows} "
+                             f"rows, then checked on all {n} rows.")
+
+    def scores_of(source, values):
+        return {"rows": run.fm.rows, "row_ids": run.fm.row_ids, "scores": values,
+                "labels": run.y, "predicted": predicted, "source": source}
+
+    if run.regression:
+        from analysis import equations as eqs
+
+        formula = eqs.find_formula(run.X, _exact_target(run), list(run.fm.names),
+                                   row_ids=run.fm.row_ids, target_name=step.target, **options)
+        return {"formula": formula,
+                "decision": scores_of(f"prediction of the model fitted on {fitted_on}",
+                                      predicted.astype(np.float64))}, model
+    if step.model in ("linear", "logistic", "lda"):
+        return _linear_equations(run, model, options, scores_of), model
+    return _kernel_equation(run, model, predicted, fitted_on, options, scores_of), model
+
+
+def _linear_equations(run, model, options: dict, scores_of) -> dict:
+    """The equation of a linear model (one per class against the rest for several classes),
+    each started from the fitted model's hyperplane."""
+    from analysis import equations as eqs
+
+    names = list(run.fm.names)
+    ids = run.fm.row_ids
+    weights, intercepts = _raw_hyperplanes(model)
+    if run.n_classes == 2:
+        equation = eqs.find_linear_equation(
+            run.X, run.y == 1, names, row_ids=ids,
+            positive_class=run.positive_class,
+            hint=(weights[0], float(intercepts[0])), **options)
+        return {"equation": equation,
+                "decision": scores_of("equation margin (>= 0 on the positive side)",
+                                      _left_side(equation, run.X, names))}
+    # one equation per class against the rest, each seeded with that class's
+    # hyperplane from the fitted model
+    equations = tuple(
+        eqs.find_linear_equation(
+            run.X, run.y == k, names, row_ids=ids, positive_class=label,
+            hint=(weights[k], float(intercepts[k])), **options)
+        for k, label in enumerate(run.classes))
+    columns = np.column_stack([_left_side(e, run.X, names) for e in equations])
+    return {"equations": equations,
+            "decision": scores_of("equation margin of each class against the rest "
+                                  "(>= 0 on that class's side)", columns)}
+
+
+def _kernel_equation(run, model, predicted, fitted_on: str, options: dict, scores_of) -> dict:
+    """The expanded polynomial of an exact degree-2 machine, else a quadratic surrogate of
+    the machine's predictions (two classes only)."""
+    from analysis import equations as eqs
+
+    names = list(run.fm.names)
+    ids = run.fm.row_ids
+    machine_scores = scores_of(f"decision value of the kernel machine fitted on "
+                               f"{fitted_on}", decision(model, run.X))
+    if run.n_classes != 2:
+        run.log.notes.append("no equation for a kernel machine over several classes; choose "
+                             "a positive class to get one for that class against the rest.")
+        return {"decision": machine_scores}
+    if run.step.model == "poly2" and run.kernel_mode != "nystroem":
+        equation = eqs.poly2_equation(model, None, names, run.X, run.y == 1, row_ids=ids,
+                                      positive_class=run.positive_class, **options)
+        return {"equation": equation,
+                "decision": scores_of("polynomial equation margin (>= 0 on the "
+                                      "positive side)", _left_side(equation, run.X, names))}
+    surrogate = eqs.surrogate_quadratic(run.X, predicted == 1, names, row_ids=ids,
+                                        positive_class=run.positive_class, **options)
+    return {"surrogate": surrogate, "decision": machine_scores}
+
+
+def _exact_target(run) -> np.ndarray:
+    """The numeric target as exact values when the column is integer or rational."""
+    info = run.table.column(run.step.target)
+    if info.dtype in ("integer", "big integer", "rational"):
+        exact = run.table.exact(run.step.target)
+        values = [exact[i] for i in run.fm.rows]
+        if all(v is not None for v in values):
+            return np.array(values, dtype=object)
+    return run.y
+
+
+def _exact_flags(fm) -> tuple[bool, ...]:
+    """Per feature: may the equation search treat it as exact? Integer features always;
+    decimals from the table when they are short (the search checks); never derived floats
+    such as singular values, eigenvalues or the signed log."""
+    return tuple(bool(exact or feature.kind in _TABLE_VALUED_KINDS)
+                 for exact, feature in zip(fm.exact_columns, fm.features))
+
+
+def _raw_hyperplanes(pipeline) -> tuple[np.ndarray, np.ndarray]:
+    """Hyperplanes of a scaler + linear model in the table's own units.
+
+    With z = (x - mean) / scale, w.z + b = (w / scale).x + (b - (w / scale).mean).
+    For two classes, one row: positive decision means class code 1.
+    """
+    scaler, model = pipeline[0], pipeline[-1]
+    weights = np.atleast_2d(np.asarray(model.coef_, dtype=np.float64)) / scaler.scale_
+    intercepts = np.atleast_1d(np.asarray(model.intercept_, dtype=np.float64)) \
+        - weights @ scaler.mean_
+    return weights, intercepts
+
+
+def _left_side(equation, X: np.ndarray, names: list[str]) -> np.ndarray:
+    """The equation's left side minus its constant on every row, signed so that a row is
+    predicted positive exactly when the value is >= 0."""
+    position = {name: j for j, name in enumerate(names)}
+    total = np.zeros(len(X))
+    for term in equation.terms:
+        column = np.ones(len(X))
+        for factor in term.factor_names():
+            column = column * X[:, position[factor]]
+        total = total + float(term.coef) * column
+    total = total - float(equation.constant)
+    return -total if equation.relation == "<=" else total

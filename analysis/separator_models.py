@@ -1,0 +1,289 @@
+"""The separator's models: the scikit-learn pipeline of each model, the kernel method past
+the exact machine's row limit (Nystroem features or a sample), the fitting recipe (samples,
+permuted copies, solver warnings), and predictions and decision values of a fitted pipeline.
+"""
+
+from __future__ import annotations
+
+import warnings as _warnings
+
+import numpy as np
+
+from analysis.errors import StepError
+from analysis.separator_protocol import subsample
+
+MODELS = ("linear", "logistic", "lda", "rbf", "poly2")
+MODEL_WORDS = {
+    "linear": "linear support vector machine",
+    "logistic": "logistic regression",
+    "lda": "linear discriminant analysis",
+    "rbf": "support vector machine with an RBF kernel",
+    "poly2": "support vector machine with a degree-2 polynomial kernel",
+}
+REGRESSION_WORDS = {
+    "linear": "linear regression (ridge)",
+    "rbf": "support vector regression with an RBF kernel",
+    "poly2": "ridge regression on degree-2 monomials",
+}
+NYSTROEM_COMPONENTS = 1000
+# A Nystroem machine is fitted on at most this many rows (a stratified sample of the training
+# rows past it): its features take components x rows x 8 bytes, and the linear solver copies
+# them again, about 1.2 GB at this size and 12 GB for half of a million-row table.
+NYSTROEM_FIT_ROWS = 50_000
+# Rows a fitted pipeline evaluates at once, so that Nystroem features stay small in memory.
+PREDICT_BLOCK_ROWS = 20_000
+
+
+def kernel_method(step, n: int, regression: bool, table_name: str) -> tuple[str, str | None]:
+    """How the step's kernel machine is fitted on ``n`` rows: the mode ("exact", "nystroem"
+    or "sample") and the sentence the notes give (None when the model has no kernel)."""
+    kernel = step.model == "rbf" or (step.model == "poly2" and not regression)
+    mode = "exact"
+    if not kernel:
+        return mode, None
+    if n > step.kernel_row_limit:
+        if step.kernel_approximation == "exact":
+            raise StepError(
+                f"{table_name}: model {step.model!r} on {n} rows: an exact kernel "
+                f"machine past {step.kernel_row_limit} rows takes too long and too much "
+                "memory. Set kernel_approximation to 'auto' (Nystroem features with a "
+                "linear machine) or 'sample' (the exact machine on a sample of "
+                f"{step.kernel_row_limit} rows), raise kernel_row_limit, or use the "
+                "linear model.")
+        mode = "sample" if step.kernel_approximation == "sample" else "nystroem"
+    elif step.kernel_approximation == "nystroem":
+        mode = "nystroem"
+    if mode == "nystroem":
+        method = (f"approximate: Nystroem features ({_components(n)} "
+                  "components on all rows, a quarter of the training rows up "
+                  f"to {NYSTROEM_COMPONENTS} in every fit; seeded) with a "
+                  "linear machine")
+        if n > NYSTROEM_FIT_ROWS:
+            method += (f", each fit on at most {NYSTROEM_FIT_ROWS} of its "
+                       "training rows (a stratified sample)")
+    elif mode == "sample":
+        method = (f"exact kernel machine fitted on a stratified sample of at "
+                  f"most {step.kernel_row_limit} training rows")
+    else:
+        method = "exact kernel machine"
+    return mode, method
+
+
+def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset: int = 0):
+    """Fit the model of ``run`` (a prepared run) on ``train`` rows (labels default to the
+    true ones), with the permuted copies of those rows; solver warnings go to its log."""
+    step = run.step
+    y = run.y if labels is None else labels
+    rows = train
+    if run.kernel_mode == "sample" and len(rows) > step.kernel_row_limit:
+        rows = subsample(rows, None if run.regression else y[rows],
+                         step.kernel_row_limit, step.seed + 17 + seed_offset)
+    if run.kernel_mode == "nystroem" and len(rows) > NYSTROEM_FIT_ROWS:
+        rows = subsample(rows, None if run.regression else y[rows],
+                         NYSTROEM_FIT_ROWS, step.seed + 19 + seed_offset)
+    X_train = run.X[rows]
+    y_train = y[rows]
+    if run.copy_values is not None:
+        chosen = np.isin(run.copy_source, rows)
+        X_train = np.vstack([X_train, run.copy_values[chosen]])
+        y_train = np.concatenate([y_train, y[run.copy_source[chosen]]])
+    estimator = make_estimator(step, regression=run.regression, n_classes=run.n_classes,
+                               kernel_mode=run.kernel_mode, n_rows=len(y_train),
+                               seed=step.seed + seed_offset)
+    with _warnings.catch_warnings(record=True) as caught:
+        _warnings.simplefilter("always")
+        estimator.fit(X_train, y_train)
+    for w in caught:
+        name = w.category.__name__
+        if name == "ConvergenceWarning":
+            run.log.fit_warnings.add("the solver stopped at its iteration limit on some "
+                                     "fits; the scores still come from held-out rows.")
+        elif "collinear" in str(w.message).lower():
+            run.log.fit_warnings.add("some features are collinear (LDA).")
+    return estimator
+
+
+def fit_ignores_seed(model: str, kernel_mode: str) -> bool:
+    """Whether two fits on the same rows give the same model whatever their seeds: the
+    linear machine (liblinear's primal solver), ridge, lasso, LDA and exact kernel
+    machines do; Nystroem features, samples of the training rows and logistic regression
+    (its solvers may shuffle) take the seed."""
+    if kernel_mode != "exact" or model == "logistic":
+        return False
+    return model in ("linear", "lda", "rbf", "poly2")
+
+
+def make_estimator(step, *, regression: bool, n_classes: int, kernel_mode: str,
+                   n_rows: int, seed: int):
+    """The scikit-learn pipeline for the step's model: always standardized features first."""
+    if regression:
+        return _regressor(step, kernel_mode=kernel_mode, n_rows=n_rows, seed=seed)
+    return _classifier(step, n_classes=n_classes, kernel_mode=kernel_mode, n_rows=n_rows,
+                       seed=seed)
+
+
+def _regressor(step, *, kernel_mode: str, n_rows: int, seed: int):
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.linear_model import Lasso, Ridge
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    from analysis.scaling import TrainingRangeScaler
+
+    c = float(step.c)
+    model = step.model
+    if model == "linear":
+        inner = Ridge(alpha=1.0 / c) if step.penalty == "l2" else Lasso(
+            alpha=0.01 / c, max_iter=5000)
+        pipeline = make_pipeline(TrainingRangeScaler(), inner)
+    elif model == "poly2":
+        from sklearn.preprocessing import PolynomialFeatures
+
+        pipeline = make_pipeline(TrainingRangeScaler(), PolynomialFeatures(2),
+                                 StandardScaler(), Ridge(alpha=1.0 / c))
+    else:
+        if kernel_mode == "nystroem":
+            from sklearn.kernel_approximation import Nystroem
+
+            pipeline = make_pipeline(
+                TrainingRangeScaler(),
+                Nystroem(kernel="rbf", n_components=_components(n_rows),
+                         random_state=seed),
+                Ridge(alpha=1.0 / c))
+        else:
+            from sklearn.svm import SVR
+
+            pipeline = make_pipeline(TrainingRangeScaler(), SVR(kernel="rbf", C=c,
+                                                           gamma="scale"))
+    # the target is standardized too, so the penalty means the same at any scale
+    return TransformedTargetRegressor(regressor=pipeline, transformer=StandardScaler())
+
+
+def _classifier(step, *, n_classes: int, kernel_mode: str, n_rows: int, seed: int):
+    from sklearn.pipeline import make_pipeline
+
+    from analysis.scaling import TrainingRangeScaler
+
+    c = float(step.c)
+    model = step.model
+    if model == "linear":
+        from sklearn.svm import LinearSVC
+
+        inner = LinearSVC(C=c, penalty=step.penalty, dual=False, class_weight="balanced",
+                          max_iter=5000)
+    elif model == "logistic":
+        from sklearn.linear_model import LogisticRegression
+
+        if step.penalty == "l1":
+            solver = "liblinear" if n_classes == 2 else "saga"
+            inner = LogisticRegression(C=c, l1_ratio=1.0, solver=solver,
+                                       class_weight="balanced", max_iter=5000,
+                                       random_state=seed)
+        else:
+            # liblinear is much quicker than lbfgs on the many small refits of the protocol
+            solver = "liblinear" if n_classes == 2 else "lbfgs"
+            inner = LogisticRegression(C=c, solver=solver, class_weight="balanced",
+                                       max_iter=2000, random_state=seed)
+    elif model == "lda":
+        from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+
+        inner = LinearDiscriminantAnalysis(solver="svd")
+    elif kernel_mode == "nystroem":
+        from sklearn.kernel_approximation import Nystroem
+        from sklearn.svm import LinearSVC
+
+        kernel = {"kernel": "rbf"} if model == "rbf" else {"kernel": "poly", "degree": 2,
+                                                          "coef0": 1.0}
+        return make_pipeline(
+            TrainingRangeScaler(),
+            Nystroem(n_components=_components(n_rows), random_state=seed,
+                     **kernel),
+            LinearSVC(C=c, dual=False, class_weight="balanced", max_iter=5000))
+    else:
+        from sklearn.svm import SVC
+
+        if model == "rbf":
+            inner = SVC(kernel="rbf", C=c, gamma="scale", class_weight="balanced")
+        else:
+            inner = SVC(kernel="poly", degree=2, coef0=1.0, C=c, gamma="scale",
+                        class_weight="balanced")
+    return make_pipeline(TrainingRangeScaler(), inner)
+
+
+def _components(rows: int) -> int:
+    """Nystroem components for a fit on ``rows`` rows: a quarter of them, 50 to 1000."""
+    return int(min(NYSTROEM_COMPONENTS, rows, max(50, rows // 4)))
+
+
+def predict(model, X: np.ndarray) -> np.ndarray:
+    """Predictions of a fitted pipeline (a two-class kernel machine through decision)."""
+    if _two_class_svc(model) is None:
+        return _in_blocks(model, model.predict, X)
+    last = model[-1]
+    return last.classes_[(decision(model, X) > 0).astype(np.int64)]
+
+
+def decision(model, X: np.ndarray) -> np.ndarray:
+    """Decision values of a fitted pipeline.
+
+    A two-class kernel machine is evaluated as K(rows, support vectors) @ dual coefficients
+    + intercept with one matrix product: the same decision value the machine computes row by
+    row, many times faster on the permutation test's repeated scoring.
+    """
+    last = _two_class_svc(model)
+    if last is None:
+        return np.asarray(_in_blocks(model, model.decision_function, X), dtype=np.float64)
+    from sklearn.metrics.pairwise import pairwise_kernels
+
+    scaled = model[0].transform(X)
+    options = {"gamma": float(last._gamma)}
+    if last.kernel == "poly":
+        options.update(degree=last.degree, coef0=float(last.coef0))
+    # in blocks, so the kernel matrix stays small on large tables
+    out = np.empty(len(scaled))
+    step = max(1, 20_000_000 // max(1, len(last.support_vectors_)))
+    for start in range(0, len(scaled), step):
+        block = pairwise_kernels(scaled[start:start + step], last.support_vectors_,
+                                 metric=last.kernel, **options)
+        out[start:start + step] = block @ last.dual_coef_[0] + last.intercept_[0]
+    return out
+
+
+def _in_blocks(model, function, X: np.ndarray) -> np.ndarray:
+    """``function`` of the rows of ``X``, evaluated ``PREDICT_BLOCK_ROWS`` rows at a time when
+    ``model`` makes Nystroem features (each row becomes up to 1000 of them); at once else."""
+    if len(X) <= PREDICT_BLOCK_ROWS or not _makes_nystroem_features(model):
+        return function(X)
+    return np.concatenate([function(X[start:start + PREDICT_BLOCK_ROWS])
+                           for start in range(0, len(X), PREDICT_BLOCK_ROWS)])
+
+
+def _makes_nystroem_features(model) -> bool:
+    pipeline = getattr(model, "regressor_", model)
+    return any(type(part).__name__ == "Nystroem"
+               for _, part in getattr(pipeline, "steps", ()))
+
+
+def _two_class_svc(model):
+    steps = getattr(model, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    last = steps[-1][1]
+    if type(last).__name__ != "SVC" or len(last.classes_) != 2:
+        return None
+    return last
+
+
+def class_confidence(model, X: np.ndarray) -> np.ndarray:
+    """The probability the model gives its predicted class, where it gives probabilities;
+    else the distance from the boundary in decision units."""
+    if hasattr(model, "predict_proba"):
+        try:
+            return np.asarray(model.predict_proba(X)).max(axis=1)
+        except AttributeError:
+            pass
+    scores = decision(model, X)
+    if scores.ndim == 1:
+        return np.abs(scores)
+    ordered = np.sort(scores, axis=1)
+    return ordered[:, -1] - ordered[:, -2]
