@@ -372,9 +372,11 @@ class SeparatorStep:
     target_statement: a relation, bound, congruence or formula (its JSON, as a result gives
         it); the target is then the derived flag "breaks: <statement>", true on the rows that
         break it, so the step asks whether the breakers can be told apart, and how.
-    reading: how an invariant target is read: "auto" (a number past 12 distinct values, else
-        each value a class), "number" (a regression; whole-number targets are also judged by
-        the share predicted exactly) or "classes" (each value a class).
+    reading: how an invariant target is read: "auto" (a whole-number target of 3 to 50
+        values is read as a number or as classes, whichever a learning curve favours
+        (analysis/reading.py); otherwise by the table's rule, features.is_numeric_target),
+        "number" (a regression; whole-number targets are also judged by the share predicted
+        exactly) or "classes" (each value a class).
     """
 
     target: str | None = None
