@@ -14,7 +14,7 @@ import numpy as np
 
 from analysis.errors import StepError
 from analysis.separator_metrics import CHANCE_LEVEL, score
-from analysis.separator_models import fit, fit_ignores_seed, predict
+from analysis.separator_models import fit, fit_ignores_seed, predict, shares_process_random
 from analysis.separator_protocol import (
     KERNEL_CURVE_ROWS,
     KERNEL_PERMUTATION_ROWS,
@@ -66,7 +66,7 @@ def permutation_test(run, train, test, predicted):
         observed = score(run, run.y[test_part], predict(observed_model, run.X[test_part]))
     score_of, shortcut = _shuffled_scorer(run, train_part, test_part)
     run.progress.phase("permutation test", total=count)
-    workers = 1 if shortcut else refit_workers()
+    workers = 1 if shortcut or shares_process_random(step) else refit_workers()
     with one_thread_each(workers):
         test_result = sequential_test(observed, score_of, cap=count, workers=workers,
                                       reporter=run.progress)
@@ -149,7 +149,9 @@ def learning_curve(run) -> list[dict]:
     run.progress.phase("learning curve", total=len(LEARNING_FRACTIONS))
     ends = np.cumsum([len(splits) for _, splits in planned]).tolist()
     scores = []
-    for value in on_workers(one, jobs, split_workers(run.kernel_mode, len(pool))):
+    workers = split_workers(run.kernel_mode, len(pool),
+                            one_at_a_time=shares_process_random(run.step))
+    for value in on_workers(one, jobs, workers):
         scores.append(value)
         if len(scores) in ends:
             run.progress.advance()

@@ -159,6 +159,17 @@ def _regressor(step, *, kernel_mode: str, n_rows: int, seed: int):
     return TransformedTargetRegressor(regressor=pipeline, transformer=StandardScaler())
 
 
+def shares_process_random(step) -> bool:
+    """Whether the step's fits draw from the C library's one random state of the process.
+
+    liblinear's l1 solvers (the linear machine and the two-class logistic regression with
+    penalty l1) shuffle their coordinates with C's rand(), seeded per fit but shared by the
+    whole process: two such fits at once on threads interleave their draws, and the same
+    seed then does not give the same numbers. Such fits run one at a time.
+    """
+    return step.penalty == "l1" and step.model in ("linear", "logistic")
+
+
 def _classifier(step, *, n_classes: int, kernel_mode: str, n_rows: int, seed: int):
     from sklearn.pipeline import make_pipeline
 

@@ -191,11 +191,12 @@ def identical_across(X: np.ndarray, train: np.ndarray, test: np.ndarray) -> int:
 # Worker threads
 
 
-def split_workers(kernel_mode: str, fit_rows: int) -> int:
+def split_workers(kernel_mode: str, fit_rows: int, *, one_at_a_time: bool = False) -> int:
     """Threads for fits on up to ``fit_rows`` rows: one for Nystroem machines on more than
     ``KERNEL_CURVE_ROWS`` rows, whose fits each hold a matrix of up to 50000 x 1000
-    features (two at once would double the peak memory); every core otherwise."""
-    if kernel_mode == "nystroem" and fit_rows > KERNEL_CURVE_ROWS:
+    features (two at once would double the peak memory), and for fits that must run
+    ``one_at_a_time`` (separator_models.shares_process_random); every core otherwise."""
+    if one_at_a_time or (kernel_mode == "nystroem" and fit_rows > KERNEL_CURVE_ROWS):
         return 1
     return refit_workers()
 

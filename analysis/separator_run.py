@@ -28,7 +28,7 @@ from analysis.separator_metrics import (
     split_metrics,
     std_of,
 )
-from analysis.separator_models import class_confidence, fit, predict
+from analysis.separator_models import class_confidence, fit, predict, shares_process_random
 from analysis.separator_prepare import PreparedRun, RunLog, prepare, target_follows
 from analysis.separator_protocol import (
     identical_across,
@@ -185,8 +185,9 @@ def _fit_splits(run: PreparedRun, splits, strata) -> tuple[list[dict], tuple]:
     per_split = [record]
     started = time.perf_counter()
     largest = max((len(train) for train, _ in splits[1:]), default=0)
-    for record, _ in on_workers(one, range(1, len(splits)),
-                                split_workers(run.kernel_mode, largest)):
+    workers = split_workers(run.kernel_mode, largest,
+                            one_at_a_time=shares_process_random(run.step))
+    for record, _ in on_workers(one, range(1, len(splits)), workers):
         per_split.append(record)
         run.progress.advance()
     run.log.phase_seconds["later splits"] = time.perf_counter() - started

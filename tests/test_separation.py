@@ -753,3 +753,21 @@ def test_the_result_times_each_part_of_the_protocol_outside_its_json(iris):
     again = step.run(iris)
     assert json.dumps(again.to_json()) == json.dumps(result.to_json()), \
         "the timings must stay out of the JSON"
+
+
+def test_l1_fits_run_one_at_a_time_and_the_same_seed_gives_the_same_numbers(iris):
+    # liblinear's l1 solvers draw from C's one random state per process, so their refits
+    # may not share it between threads: the rule, then its effect on a sample table
+    from analysis.separator_models import shares_process_random
+    from analysis.separator_protocol import split_workers
+
+    assert shares_process_random(SeparatorStep(model="logistic", penalty="l1"))
+    assert shares_process_random(SeparatorStep(model="linear", penalty="l1"))
+    assert not shares_process_random(SeparatorStep(model="logistic"))
+    assert not shares_process_random(SeparatorStep(model="linear"))
+    assert split_workers("exact", 100, one_at_a_time=True) == 1
+    # versicolor against virginica on Fisher's iris: not separable, so every refit works
+    step = SeparatorStep(target="species", positive_class="virginica", model="logistic",
+                         penalty="l1", seed=4, **FEW)
+    runs = [json.dumps(step.run(iris).to_json(), sort_keys=True) for _ in range(3)]
+    assert runs[0] == runs[1] == runs[2]
