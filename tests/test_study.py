@@ -331,7 +331,7 @@ def test_a_failing_step_leaves_the_others_intact(small, kind, params, message):
 
 
 def test_an_unexpected_exception_is_recorded_not_raised(small, monkeypatch):
-    def broken(self, table):
+    def broken(self, table, *, progress=None):
         raise ZeroDivisionError("division by zero")
 
     monkeypatch.setattr(OverviewStep, "run", broken)
@@ -343,7 +343,7 @@ def test_an_unexpected_exception_is_recorded_not_raised(small, monkeypatch):
 
 
 def test_a_step_error_from_a_step_is_recorded(small, monkeypatch):
-    def refuses(self, table):
+    def refuses(self, table, *, progress=None):
         raise StepError("small.csv: this step refuses.")
 
     monkeypatch.setattr(OverviewStep, "run", refuses)
@@ -360,9 +360,9 @@ def test_results_come_from_the_cache_on_a_second_run(small, monkeypatch):
     calls = []
     original = OverviewStep.run
 
-    def counted(self, table):
+    def counted(self, table, *, progress=None):
         calls.append(self)
-        return original(self, table)
+        return original(self, table, progress=progress)
 
     monkeypatch.setattr(OverviewStep, "run", counted)
     second = run_study(study, small, cache=cache)
