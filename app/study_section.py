@@ -146,6 +146,8 @@ def _last_cost(change, table) -> str:
             took.append(seconds)
     if not took:
         return ""
+    if len(took) == len(change.step_uids) == 1:
+        return f" With the target before, it took {duration(took[0])}."
     which = "they" if len(took) == len(change.step_uids) else f"{len(took)} of them"
     return f" With the target before, {which} took {duration(sum(took))} in all."
 

@@ -121,7 +121,9 @@ def test_a_change_of_target_lists_the_steps_that_follow_it_and_can_be_undone():
 
     took = [getattr(before_results[i], "elapsed_seconds", None) for i in following]
     assert all(t is not None for t in took), "each step that follows the target is timed"
-    assert f"With the target before, they took {duration(sum(took))} in all." in words, words
+    said = (f"it took {duration(took[0])}." if len(took) == 1
+            else f"they took {duration(sum(took))} in all.")
+    assert f"With the target before, {said}" in words, words
     # nothing ran: the steps that follow the target wait, the others keep their results
     for index, (now, then) in enumerate(zip(results(at), before_results, strict=True)):
         assert (now is None) if index in following else (now is then), index
