@@ -1,0 +1,285 @@
+"""Both engines give the same exact figures for every step kind on the same table.
+
+The table is the start of networkx's graph atlas (graphs G1 to G300, up to 7 vertices), with
+cells of every kind a user's table holds: integers, decimals (a density written as a float),
+rationals written as text like ``7/2``, exact Parquet decimals, integers past 2**63, missing
+cells (the girth of a forest), a mostly-empty column (the diameter of a disconnected graph),
+a matrix column (the adjacency matrix) and a flag. It is read whole in memory and, written as
+four Parquet files, in partitions by the Dask engine on one local cluster.
+
+Where the Dask engine refuses something the test names it and checks its message; where the
+two engines still differ in a step module of the Dask engine, the case is marked xfail with
+the difference stated.
+"""
+
+from __future__ import annotations
+
+import re
+from decimal import Decimal
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+import pytest
+
+pytest.importorskip("dask.dataframe")
+pytest.importorskip("distributed")
+nx = pytest.importorskip("networkx")
+
+from conftest import write_parts  # noqa: E402
+
+from analysis.distributed import open_cluster, read_partitioned, run_distributed  # noqa: E402
+from analysis.errors import StepError  # noqa: E402
+from analysis.steps import make_step  # noqa: E402
+from analysis.table import load_table  # noqa: E402
+
+# dask's Parquet reader calls a pandas method pandas 3.1 deprecates; not ours to change
+pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword in DataFrame.reset_index")
+
+GRAPHS = 300
+# integer invariants with no gap but girth's (missing for the forests)
+NUMBERS = ["vertices", "edges", "degree_sum", "components", "cycle_rank", "max_degree", "girth"]
+FEW = {"permutations": 10, "repeats": 2}
+
+
+def atlas_frame() -> pd.DataFrame:
+    """Graphs G1..G300 of networkx's atlas (graph_atlas_g) and their invariants, computed by
+    networkx: the cycle rank is the size of networkx's cycle basis."""
+    rows = []
+    for k, graph in enumerate(nx.graph_atlas_g()[1:GRAPHS + 1], start=1):
+        v, e = graph.number_of_nodes(), graph.number_of_edges()
+        degrees = [d for _, d in graph.degree()]
+        components = nx.number_connected_components(graph)
+        girth = nx.girth(graph)
+        rows.append({
+            "graph": f"G{k:04d}", "vertices": v, "edges": e, "degree_sum": sum(degrees),
+            "components": components, "cycle_rank": len(nx.cycle_basis(graph)),
+            "max_degree": max(degrees),
+            "density": nx.density(graph) if v > 1 else None,
+            "mean_degree": str(Fraction(2 * e, v)),            # rationals written like 7/2
+            "half_edges": Decimal(e) / 2,                       # an exact Parquet decimal
+            "power": str(v**24 + e),                            # past 2**63 from 7 vertices
+            "girth": None if girth == float("inf") else girth,  # missing for a forest
+            "diameter": nx.diameter(graph) if components == 1 else None,   # mostly empty
+            "adjacency": nx.to_numpy_array(graph, dtype=int).tolist(),
+            "bipartite": nx.is_bipartite(graph),
+        })
+    return pd.DataFrame(rows)
+
+
+@pytest.fixture(scope="module")
+def client():
+    with open_cluster(n_workers=1) as active:
+        yield active
+
+
+@pytest.fixture(scope="module")
+def atlas(tmp_path_factory):
+    frame = atlas_frame()
+    folder, whole = write_parts(frame, tmp_path_factory.mktemp("parity") / "atlas")
+    return frame, folder, load_table(whole)
+
+
+def _said(texts) -> list[str]:
+    """Warnings without the table's name in front (a file in memory, a folder on Dask)."""
+    return [re.sub(r"^atlas(\.parquet)?: ", "", text) for text in texts]
+
+
+# ----------------------------------------------------------------------------------------
+# Typing
+
+
+def test_every_column_is_typed_alike(client, atlas):
+    frame, folder, in_memory = atlas
+    table = read_partitioned(folder, client)
+    assert table.npartitions == 4
+    assert table.columns == in_memory.columns
+    assert _said(table.warnings) == _said(in_memory.warnings)
+    kinds = {c.name: (c.dtype, c.role) for c in table.columns}
+    assert {name: kinds[name] for name in ("density", "mean_degree", "half_edges", "power",
+                                           "girth", "adjacency", "bipartite")} == {
+        "density": ("real", "invariant"), "mean_degree": ("rational", "invariant"),
+        "half_edges": ("rational", "invariant"), "power": ("big integer", "invariant"),
+        "girth": ("integer", "invariant"), "adjacency": ("array", "array"),
+        "bipartite": ("boolean", "flag")}
+    # counted independently by pandas on the frame written from networkx
+    assert {c.name: c.missing for c in table.columns} == frame.isna().sum().to_dict()
+    assert table.column("adjacency").distinct == len({str(a) for a in frame.adjacency})
+    assert table.column("mean_degree").distinct == frame.mean_degree.nunique()
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "in memory (analysis/table.py, _type_one) a Parquet column of pandas' nullable Int64 "
+    "with gaps is counted as having no missing cells and the wrong number of distinct "
+    "values; the Dask engine counts them"))
+def test_a_nullable_integer_column_is_counted_alike(client, tmp_path):
+    frame = pd.DataFrame({"girth": pd.array([3, None, 4, None, 5, 3] * 10, dtype="Int64"),
+                          "v": range(60)})
+    folder, whole = write_parts(frame, tmp_path / "nullable", parts=3)
+    girth = read_partitioned(folder, client).column("girth")
+    assert (girth.missing, girth.distinct) == (20, 3)   # counted from the frame above
+    assert load_table(whole).column("girth") == girth
+
+
+# ----------------------------------------------------------------------------------------
+# Steps: the exact figures of each kind
+
+
+def _overview(result):
+    return {"rows": result.rows, "id": result.id_column,
+            "warnings": _said(result.warnings),
+            "columns": [{**c.to_json(), "mean": _rounded(c.mean)}
+                        for c in result.columns if c.dtype != "rational"],
+            "correlations": [(a, b, _rounded(r)) for a, b, r in result.correlations]}
+
+
+def _rounded(value: float | None) -> float | None:
+    """A float sum to 12 significant digits: partitions add in another order."""
+    return None if value is None else float(f"{value:.12g}")
+
+
+def _rational_ranges(result):
+    return [(c.name, c.minimum, c.maximum) for c in result.columns if c.dtype == "rational"]
+
+
+def _projection(result):
+    return {"features": list(result.features), "rows": list(result.row_ids),
+            "ratios": [round(float(r), 12) for r in result.explained_variance_ratio]}
+
+
+def _clustering(result):
+    return {"k": result.k, "rows": len(result.labels),
+            "sizes": sorted(p.size for p in result.profiles)}
+
+
+def _separator(result):
+    equation = result.to_json()["equation"]
+    keys = ("terms", "relation", "constant", "positive_class", "text", "violations",
+            "violating_rows")
+    return {"equation": {k: equation[k] for k in keys}, "rows": result.equation.n_rows}
+
+
+def _relations(result):
+    data = result.to_json()
+    return {"relations": data["relations"], "congruences": data["congruences"],
+            "exact bounds": [b for b in data["bounds"] if not b["violations"]],
+            "rows": result.n_rows}
+
+
+def _near_bounds(result):
+    return [b["text"] for b in result.to_json()["bounds"] if b["violations"]]
+
+
+def _outliers(result):
+    by_statements = [[r for r in o["reasons"] if r.startswith(("breaks", "attains"))]
+                     for o in result.to_json()["outliers"]]
+    return {"rows": [o["row"] for o in result.to_json()["outliers"]],
+            "statements": by_statements}
+
+
+def _feature_warnings(result):
+    return {"features": list(result.features), "warnings": _said(result.warnings)}
+
+
+def _mostly_empty(result):
+    return {"diameter is a feature": "diameter" in result.features,
+            "said": [w for w in result.warnings if "being missing in more than" in w]}
+
+
+def _gap(reason: str):
+    return pytest.mark.xfail(strict=True, reason=reason)
+
+
+CASES = [
+    pytest.param("overview", {}, _overview, id="overview"),
+    pytest.param("overview", {}, _rational_ranges, id="overview-rational-ranges", marks=_gap(
+        "analysis/distributed/overview.py summarizes only integer, real and big integer "
+        "columns: the smallest and largest value of a rational column (mean_degree, "
+        "half_edges) are None on Dask, '0' and '5' (and '0', '15/2') in memory")),
+    pytest.param("projection", {"method": "pca", "columns": NUMBERS + ["density"]},
+                 _projection, id="projection-pca"),
+    pytest.param("clustering", {"method": "kmeans", "k": 3, "columns": NUMBERS},
+                 _clustering, id="clustering-kmeans"),
+    pytest.param("separator", {"target": "bipartite", "columns": NUMBERS, "model": "linear",
+                               **FEW}, _separator, id="separator-linear"),
+    pytest.param("relations", {"columns": NUMBERS}, _relations, id="relations"),
+    pytest.param("relations", {"columns": NUMBERS}, _near_bounds, id="relations-near-bounds",
+                 marks=_gap(
+        "analysis/distributed/relations.py keeps other bounds that a few rows break: with "
+        "every row searched it leaves out 'components + max_degree >= 3' (broken by G0001, "
+        "G0002, G0003) and keeps 'vertices - max_degree <= 6' (broken by G0209), and does "
+        "not say that the best 15 of 65 such bounds are reported")),
+    pytest.param("outliers", {"columns": NUMBERS, "top": 10}, _outliers, id="outliers"),
+    pytest.param("projection", {"method": "pca", "columns": NUMBERS}, _feature_warnings,
+                 id="dropped-rows-warning", marks=_gap(
+        "analysis/distributed/matrix.py: rows dropped for a missing value (79 of 300, past "
+        "features.DROPPED_ROWS_WARNING) are a warning in memory and only a note on Dask")),
+    pytest.param("projection", {"method": "pca"}, _mostly_empty, id="mostly-empty-column",
+                 marks=_gap(
+        "analysis/distributed/matrix.py (feature_plan) does not apply "
+        "features.mostly_empty_columns: by default 'diameter' (missing in 49% of rows) is "
+        "a feature on Dask, dropping those rows, where memory leaves it out with a warning")),
+]
+
+
+@pytest.mark.parametrize("kind, params, figures", CASES)
+def test_every_step_kind_gives_the_same_exact_figures(client, atlas, kind, params, figures):
+    frame, folder, in_memory = atlas
+    step = make_step(kind, params)
+    expected = step.run(in_memory)
+    result = run_distributed(step, folder, client=client)
+    assert figures(result) == figures(expected)
+    _check_reference(kind, result, frame)
+
+
+def _check_reference(kind: str, result, frame: pd.DataFrame) -> None:
+    """What the Dask result must say whatever the in-memory one says, from outside."""
+    kept = frame.dropna(subset=NUMBERS)
+    if kind == "overview":
+        assert result.rows == GRAPHS
+    elif kind == "projection" and list(result.features) == NUMBERS + ["density"]:
+        # PCA of standardized features: the eigenvalues of the correlation matrix (common
+        # practice), computed with numpy on the rows with every value
+        rows = frame.dropna(subset=NUMBERS + ["density"])[NUMBERS + ["density"]]
+        eigen = np.sort(np.linalg.eigvalsh(np.corrcoef(rows.to_numpy(float), rowvar=False)))
+        np.testing.assert_allclose(result.explained_variance_ratio, eigen[::-1] / eigen.sum(),
+                                   atol=1e-9)
+    elif kind == "clustering":
+        assert sum(p.size for p in result.profiles) == len(kept)
+    elif kind == "separator":
+        # every listed row is one where the equation, evaluated exactly, disagrees with the
+        # target (the positive class is predicted exactly when the relation holds)
+        equation = result.equation
+        ids = list(frame.graph)
+        for row in equation.violating_rows:
+            cells = frame.iloc[ids.index(row)]
+            total = sum(Fraction(t.coef) * int(cells[t.feature]) for t in equation.terms)
+            holds = total >= equation.constant if equation.relation == ">=" \
+                else total <= equation.constant
+            assert holds != (cells["bipartite"] == equation.positive_class), row
+    elif kind == "relations":
+        texts = {r.text for r in result.relations}
+        # the handshake lemma (Euler, 1736): the degrees add up to twice the edges
+        assert "2*edges - degree_sum = 0" in texts
+        # the cycle rank of a graph is edges - vertices + components (Kirchhoff; the size
+        # of networkx's cycle basis)
+        assert any(set(t.split(" = ")[0].replace("-", "+").split(" + ")) >=
+                   {"vertices", "edges", "components", "cycle_rank"} for t in texts), texts
+
+
+# ----------------------------------------------------------------------------------------
+# What the Dask engine refuses, by name, while the in-memory engine uses it
+
+
+@pytest.mark.parametrize("column, message", [
+    ("mean_degree", "'mean_degree' holds rationals, which the dask engine does not encode"),
+    ("half_edges", "'half_edges' holds rationals, which the dask engine does not encode"),
+    ("power", "'power' holds big integers, which the dask engine does not encode"),
+    ("adjacency", "'adjacency' holds arrays, which the dask engine does not encode"),
+], ids=["rational text", "parquet decimal", "big integer", "matrix"])
+def test_features_the_dask_engine_refuses_are_named(client, atlas, column, message):
+    _, folder, in_memory = atlas
+    step = make_step("projection", {"method": "pca", "columns": ["edges", column]})
+    assert step.run(in_memory).features[0] == "edges"
+    with pytest.raises(StepError, match=message):
+        run_distributed(step, folder, client=client)
