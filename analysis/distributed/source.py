@@ -219,6 +219,9 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     _exact_distinct(client, frame, facts, conversions)
     infos, how = _type_columns(name, header, facts, n, warnings, fmt)
     _array_text_shapes(client, frame, facts, how, name, partition_rows)
+    texts = {c for c, h in how if h == "array_text"}
+    infos = [replace(i, distinct=_distinct_of(facts[i.name], i.dtype)) if i.name in texts
+             else i for i in infos]
     table = PartitionedTable(
         name=name, path=str(path), digest=digest, format=fmt, columns=tuple(infos),
         id_column=next((c.name for c in infos if c.role == "id"), None),
@@ -907,7 +910,7 @@ def _dtype_of(f: dict, fmt: str) -> tuple[str, str, str]:
     if kind is None:
         return "empty", "", ""
     if kind == "list":
-        return "array", "", ""
+        return "array", "", "arrays"
     if kind == "text":
         words = f["words"]
         if words and reads_as_boolean(words):
@@ -966,8 +969,9 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
     "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
     "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing;
-    "array_text" reads JSON-array text as arrays; "strip" reads labels without surrounding
-    spaces.
+    "array_text" reads JSON-array text as arrays, "arrays" list cells as numpy arrays;
+    "strip" reads labels without surrounding spaces; "decimal+X" reads Parquet decimals as
+    the text of their exact values first.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
@@ -981,6 +985,12 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
             continue
         if how == "array_text":
             frame[column] = array_cells(series, "", column)
+            continue
+        if how == "arrays":
+            frame[column] = pd.Series([None if is_missing(v) else array_value(v, "", 0, column,
+                                                                              Limits())
+                                       for v in series.tolist()], dtype=object,
+                                      index=series.index)
             continue
         if how == "strip":
             frame[column] = pd.Series([None if is_missing(v) else str(v).strip()
