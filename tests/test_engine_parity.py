@@ -44,6 +44,8 @@ pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword in DataFrame
 GRAPHS = 300
 # integer invariants with no gap but girth's (missing for the forests)
 NUMBERS = ["vertices", "edges", "degree_sum", "components", "cycle_rank", "max_degree", "girth"]
+# plane graphs: faces (missing for the 15 graphs that are not planar) and odd degrees
+EULER = ["vertices", "edges", "faces", "components", "odd_degree_vertices"]
 FEW = {"permutations": 10, "repeats": 2}
 
 
@@ -66,10 +68,33 @@ def atlas_frame() -> pd.DataFrame:
             "power": str(v**24 + e),                            # past 2**63 from 7 vertices
             "girth": None if girth == float("inf") else girth,  # missing for a forest
             "diameter": nx.diameter(graph) if components == 1 else None,   # mostly empty
+            "faces": _faces(graph),                             # missing if not planar
+            "odd_degree_vertices": sum(d % 2 for d in degrees),
             "adjacency": nx.to_numpy_array(graph, dtype=int).tolist(),
             "bipartite": nx.is_bipartite(graph),
         })
     return pd.DataFrame(rows)
+
+
+def _faces(graph) -> int | None:
+    """The faces of a graph drawn in the plane, counted on networkx's planar embedding of
+    each component (each face traversed once), the components' outer faces being one face;
+    None for a graph that is not planar."""
+    planar, embedding = nx.check_planarity(graph)
+    if not planar:
+        return None
+    faces = 1
+    for part in nx.connected_components(graph):
+        if len(part) < 2:
+            continue
+        _, drawn = nx.check_planarity(graph.subgraph(part))
+        seen: set = set()
+        for u, v in drawn.edges():
+            if (u, v) not in seen:
+                drawn.traverse_face(u, v, mark_half_edges=seen)
+                faces += 1
+        faces -= 1   # its outer face is the one outer face
+    return faces
 
 
 @pytest.fixture(scope="module")
@@ -267,6 +292,7 @@ CASES = [
     pytest.param("separator", {"target": "bipartite", "columns": NUMBERS, "model": "linear",
                                **FEW}, _separator, id="separator-linear"),
     pytest.param("relations", {"columns": NUMBERS}, _relations, id="relations"),
+    pytest.param("relations", {"columns": EULER}, _relations, id="relations-euler"),
     pytest.param("relations", {"columns": NUMBERS}, _near_bounds, id="relations-near-bounds",
                  marks=_gap(
         "analysis/distributed/relations.py keeps other bounds that a few rows break: with "
@@ -302,10 +328,10 @@ def test_every_step_kind_gives_the_same_exact_figures(client, atlas, kind, param
     expected = step.run(in_memory)
     result = run_distributed(step, folder, client=client)
     assert figures(result) == figures(expected)
-    _check_reference(kind, result, frame)
+    _check_reference(kind, params, result, frame)
 
 
-def _check_reference(kind: str, result, frame: pd.DataFrame) -> None:
+def _check_reference(kind: str, params: dict, result, frame: pd.DataFrame) -> None:
     """What the Dask result must say whatever the in-memory one says, from outside."""
     kept = frame.dropna(subset=NUMBERS)
     if kind == "overview":
@@ -330,6 +356,14 @@ def _check_reference(kind: str, result, frame: pd.DataFrame) -> None:
             holds = total >= equation.constant if equation.relation == ">=" \
                 else total <= equation.constant
             assert holds != (cells["bipartite"] == equation.positive_class), row
+    elif kind == "relations" and params["columns"] == EULER:
+        # Euler's formula for a plane graph with C components: V - E + F = 1 + C (common
+        # practice); by the handshake lemma the number of odd-degree vertices is even
+        assert {r.text for r in result.relations} == {"vertices - edges - components + faces = 1"}
+        assert [c.text for c in result.congruences] == ["odd_degree_vertices ≡ 0 (mod 2)"]
+        assert result.congruences[0].holds_on == GRAPHS
+        planar = int(frame.faces.notna().sum())
+        assert result.relations[0].holds_on == planar < GRAPHS
     elif kind == "relations":
         texts = {r.text for r in result.relations}
         # the handshake lemma (Euler, 1736): the degrees add up to twice the edges
