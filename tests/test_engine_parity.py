@@ -17,6 +17,7 @@ from __future__ import annotations
 import re
 from decimal import Decimal
 from fractions import Fraction
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -167,6 +168,41 @@ def test_typed_rows_equal_the_in_memory_frame(client, atlas):
     # networkx's own adjacency matrix of G7 (the triangle), as the independent reference
     assert rows.frame["adjacency"][6].tolist() == nx.to_numpy_array(
         nx.graph_atlas(7), dtype=int).tolist() == [[0, 1, 1], [1, 0, 1], [1, 1, 0]]
+
+
+@pytest.mark.parametrize("roles", [
+    {"mean_degree": "text"}, {"half_edges": "category"}, {"power": "text"},
+    {"bipartite": "invariant"}, {"girth": "category", "graph": "text"},
+], ids=["rational as text", "decimal as category", "big integer as text", "flag as number",
+        "number as category"])
+def test_roles_asked_for_type_columns_alike(client, atlas, roles):
+    _, folder, in_memory = atlas
+    whole = Path(str(folder) + ".parquet")
+    expected = load_table(whole, roles=roles)
+    table = read_partitioned(folder, client, roles=roles)
+    assert table.columns == expected.columns
+    rows = sample_table(table, client, table.n_rows)[0]
+    for name in roles:
+        assert _cells(rows, name) == _cells(expected, name), name
+    assert [table.column(name).role for name in roles] == list(roles.values())
+
+
+def test_arrays_asked_to_be_text_are_refused_by_name(client, atlas):
+    _, folder, _ = atlas
+    with pytest.raises(StepError, match="column 'adjacency': turning arrays into text is not "
+                                        "done on the dask engine"):
+        read_partitioned(folder, client, roles={"adjacency": "text"})
+
+
+@pytest.mark.xfail(strict=True, raises=TypeError, reason=(
+    "in memory, analysis/table.py (_as_text) writes a matrix cell read from Parquet (numpy "
+    "arrays inside a numpy array) with json.dumps, which raises TypeError: a traceback "
+    "instead of the column as text"))
+def test_matrix_cells_asked_to_be_text_in_memory(atlas):
+    _, folder, _ = atlas
+    adjacency = load_table(Path(str(folder) + ".parquet"),
+                           roles={"adjacency": "text"}).column("adjacency")
+    assert (adjacency.dtype, adjacency.role) == ("text", "text")
 
 
 @pytest.mark.parametrize("whole, later", [

@@ -206,18 +206,15 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
             facts[column] = functools.reduce(_merge_facts, [p[column] for p in merged_parts])
         except TableError:
             mixed.append(column)
-    if mixed:
-        # numbers in some partitions and text in others: the column is text, as in memory
-        forced = tuple((c, "text") for c in mixed)
-        again = client.gather(client.compute([_facts_task(part, forced)
-                                              for part in frame[mixed].to_delayed()]))
-        for column in mixed:
-            try:
-                facts[column] = functools.reduce(_merge_facts, [p[column] for p in again])
-            except TableError as exc:
-                raise TableError(f"{name}: column {column!r} {exc}.") from None
+    # numbers in some partitions and text in others: the column is text, as in memory
+    _facts_again(client, frame, facts, mixed, "text", name)
+    # columns the user asks to be text or a category are read as text, cells as given, as
+    # load_table reads them (array cells stay arrays: with_roles refuses to make them text)
+    asked = [c for c, role in (roles or {}).items() if role in ("text", "category")
+             and facts.get(c, {}).get("kind") != "list"]
+    _facts_again(client, frame, facts, asked, "as_text", name)
     _exact_distinct(client, frame, facts, conversions)
-    infos, how = _type_columns(name, header, facts, n, warnings, fmt)
+    infos, how = _type_columns(name, header, facts, n, warnings, fmt, set(asked))
     _array_text_shapes(client, frame, facts, how, name, partition_rows)
     texts = {c for c, h in how if h == "array_text"}
     infos = [replace(i, distinct=_distinct_of(facts[i.name], i.dtype)) if i.name in texts
@@ -231,6 +228,22 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     if roles or id_column is not None:
         table = with_roles(table, roles or {}, id_column)
     return table
+
+
+def _facts_again(client, frame, facts: dict, columns: list[str], how: str,
+                 name: str) -> None:
+    """The facts of ``columns`` gathered again with every cell read as text (``how``:
+    "text" for a column mixing kinds, "as_text" for one asked to be text)."""
+    if not columns:
+        return
+    forced = tuple((c, how) for c in columns)
+    again = client.gather(client.compute([_facts_task(part, forced)
+                                          for part in frame[columns].to_delayed()]))
+    for column in columns:
+        try:
+            facts[column] = functools.reduce(_merge_facts, [p[column] for p in again])
+        except TableError as exc:
+            raise TableError(f"{name}: column {column!r} {exc}.") from None
 
 
 def _files_of(path: Path) -> tuple[str, list[Path]]:
@@ -336,21 +349,24 @@ def _facts_task(part, conversions):
 def partition_facts(frame: pd.DataFrame, conversions=()) -> dict:
     """Per-column facts of one raw partition (a pandas frame); see :func:`_merge_facts`."""
     csv_columns = {c for c, how in conversions if how == "csv"}
-    text_columns = {c for c, how in conversions if how == "text"}
+    text_columns = {c for c, how in conversions if how in ("text", "as_text")}
+    asked = {c for c, how in conversions if how == "as_text"}
     out: dict = {"__rows__": len(frame)}
     for column in frame.columns:
         series = frame[column]
-        out[column] = _column_facts(series, column in csv_columns, column in text_columns)
+        out[column] = _column_facts(series, column in csv_columns, column in text_columns,
+                                    exact_decimals=column not in asked)
     return out
 
 
-def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> dict:
+def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False,
+                  exact_decimals: bool = True) -> dict:
     n = len(series)
     missing_mask = series.isna().to_numpy()
     facts: dict = {"n": n, "missing": int(missing_mask.sum()), "kind": None}
     if facts["missing"] == n:
         return facts   # says nothing about the column's kind
-    if _holds_decimals(series, missing_mask):
+    if exact_decimals and _holds_decimals(series, missing_mask):
         series = _decimal_texts(series)
         facts["decimal"] = True
     kind = series.dtype.kind
@@ -480,8 +496,9 @@ def _holds_decimals(series: pd.Series, missing_mask: np.ndarray) -> bool:
 def _decimal_texts(series: pd.Series) -> pd.Series:
     """Parquet decimals as the text of their exact values (``7/2``, ``3``), which are then
     typed as text cells are: the values analysis.table reads decimals as."""
-    return pd.Series([None if is_missing(v) or from_decimal(v) is None else str(from_decimal(v))
-                      for v in series.tolist()], dtype=object, index=series.index)
+    exact = [None if is_missing(v) else from_decimal(v) for v in series.tolist()]
+    return pd.Series([None if v is None else str(v) for v in exact], dtype=object,
+                     index=series.index)
 
 
 def _text_counts(text: pd.Series, present_mask: np.ndarray) -> dict:
@@ -746,8 +763,7 @@ def _reads_rational(f: dict) -> bool:
     """Whether a text column's cells are all integers or p/q (analysis.table's rational
     rule), with at least one p/q among them: read as exact rationals, as in memory."""
     m = f.get("marked")
-    return bool(f.get("kind") == "text" and f.get("rational") and m is not None
-                and m["fraction"] and not (f.get("words") and reads_as_boolean(f["words"])))
+    return bool(f.get("kind") == "text" and f.get("rational") and m and m["fraction"])
 
 
 def _marked_type(m: dict) -> str:
@@ -845,8 +861,9 @@ def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) ->
 
 
 def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
-                  fmt: str) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
-
+                  fmt: str, as_text: set[str] = frozenset(),
+                  ) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
+    """Each column's description and conversion; ``as_text`` columns are text as asked."""
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
     id_taken = False
@@ -855,7 +872,10 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
     for column in header:
         f = facts[column]
         marked = None
-        if _reads_marked(f) or _reads_rational(f):
+        if column in as_text:
+            dtype, note, convert = ("text", "", "text") if f["kind"] else ("empty", "", "")
+            missing, distinct = f["missing"], _distinct_of(f, dtype)
+        elif _reads_marked(f) or _reads_rational(f):
             facts[column], marked = _as_marked(name, column, f)
             dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
             missing, distinct = marked.missing, marked.distinct
