@@ -71,7 +71,9 @@ _BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
 # A whole number written as text (the partitioned reader matches cells against it too).
 INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
-_RATIONAL_TEXT = re.compile(r"^\s*[+-]?\d+\s*(/\s*\d+\s*)?$")
+# a cell read as an exact rational: an integer, or p/q with whole p and q
+RATIONAL_TEXT = r"\s*[+-]?\d+\s*(?:/\s*\d+\s*)?"
+_RATIONAL_TEXT = re.compile(rf"^{RATIONAL_TEXT}$")
 # The words read as a flag's two values, in any case (besides 0 and 1): the one word set,
 # for every reader of tables.
 TRUE_WORDS = frozenset({"true", "yes", "t", "y"})
@@ -1350,14 +1352,15 @@ def _count_distinct(values: np.ndarray) -> int:
 
 def _distinct(series: pd.Series, dtype: str) -> int:
     if dtype == "array":
-        return len({_array_token(v) for v in series if v is not None})
+        return len({array_token(v) for v in series if v is not None})
     try:
         return int(series.nunique(dropna=True))
     except TypeError:
         return len({repr(v) for v in series if not _is_missing(v)})
 
 
-def _array_token(value: np.ndarray) -> tuple:
+def array_token(value: np.ndarray) -> tuple:
+    """What makes two array cells (as :func:`array_value` reads them) one distinct value."""
     return (value.shape, value.tobytes() if value.dtype != object else repr(value.tolist()))
 
 
@@ -1563,7 +1566,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
     if "decimal" in kinds:
         # Parquet decimals: exact rationals, read through their text so that integers and
         # fractions get the same types as in a CSV file.
-        return _type_object(series.map(_from_decimal), name, column, limits, marks_out)
+        return _type_object(series.map(from_decimal), name, column, limits, marks_out)
     if kinds <= {"list"}:
         return _arrays(series, present, name, column, limits), "array", ""
     if marks_out is not None and "list" in kinds and kinds <= {"int", "float", "list", "text"}:
@@ -1736,11 +1739,14 @@ def _arrays(series: pd.Series, present: list, name: str, column: str,
     out = np.empty(len(series), dtype=object)
     out[:] = None
     for i, value in present:
-        out[i] = _to_array(value, name, i + first_row, column, limits)
+        out[i] = array_value(value, name, i + first_row, column, limits)
     return pd.Series(out, dtype=object, index=series.index)
 
 
-def _to_array(value, name: str, row: int, column: str, limits: Limits) -> np.ndarray:
+def array_value(value, name: str, row: int, column: str, limits: Limits) -> np.ndarray:
+    """One list or matrix cell (a list, or nested lists or numpy arrays) as a numpy array,
+    checked (rectangular, numbers only, at most ``limits.max_array`` entries); a bad cell is a
+    TableError naming ``name``, ``row`` (0-based) and ``column``."""
     where = f"{name}, row {row + 1}, column {column!r}"
     if isinstance(value, np.ndarray):
         value = value.tolist()
@@ -1975,8 +1981,13 @@ def _is_missing(value) -> bool:
     return False
 
 
-def _from_decimal(value):
-    """A Parquet decimal as an exact int or Fraction (NaN as missing, infinities as floats)."""
+def from_decimal(value):
+    """A Parquet decimal as an exact int or Fraction (NaN as missing, infinities as floats);
+    any other value as it is. Both engines read decimals through it.
+
+    >>> from_decimal(Decimal("3.50"))
+    Fraction(7, 2)
+    """
     if not isinstance(value, Decimal):
         return value
     if value.is_nan():

@@ -2,11 +2,10 @@
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import table_from_frame
 from sklearn.datasets import make_blobs
 from sklearn.metrics import (
     adjusted_rand_score,
@@ -18,15 +17,8 @@ import analysis.clustering as clustering
 from analysis.clustering import ClusteringStep
 from analysis.errors import StepError
 from analysis.steps import make_step, step_params
-from analysis.table import read_table
 
 FEATURES = ["x1", "x2", "x3"]
-
-
-def _table(frame: pd.DataFrame, name: str = "blobs.csv"):
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), name)
 
 
 # Blob centres at least 10 apart; with spread 0.5 every blob is 20 standard deviations from
@@ -46,7 +38,7 @@ def _blobs(centers: int, n: int = 240, seed: int = 7, spread: float = 0.5) -> pd
 
 @pytest.fixture(scope="module")
 def four_blobs():
-    return _table(_blobs(4))
+    return table_from_frame(_blobs(4), "blobs.csv")
 
 
 def _truth(table, result):
@@ -80,7 +72,7 @@ def test_agreement_equals_scikit_learn_scores(four_blobs):
 
 @pytest.mark.parametrize("centers", [3, 5], ids=["three-blobs", "five-blobs"])
 def test_auto_picks_the_number_of_blobs(centers):
-    table = _table(_blobs(centers, seed=11))
+    table = table_from_frame(_blobs(centers, seed=11), "blobs.csv")
     result = ClusteringStep(method="auto", compare="blob").run(table)
     assert result.k == centers, f"auto chose k = {result.k}: {result.reason}"
     assert result.agreement["ari"] == 1.0, f"adjusted Rand index {result.agreement['ari']}"
@@ -124,7 +116,7 @@ def test_profiles_are_cluster_means_in_table_units():
     frame = _blobs(3, seed=5)
     # a count that only the first blob has large values of, in the table's own units
     frame["count"] = np.where(frame["blob"] == "blob 0", 40, 2) + np.arange(len(frame)) % 3
-    table = _table(frame)
+    table = table_from_frame(frame, "blobs.csv")
     result = ClusteringStep(method="kmeans", k=3, columns=FEATURES + ["count"]).run(table)
     labels = pd.Series(result.labels, index=table.frame.index[result.positions])
     # reference: pandas groupby means of the untouched columns

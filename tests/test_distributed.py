@@ -21,6 +21,8 @@ import pytest
 pytest.importorskip("dask.dataframe")
 pytest.importorskip("distributed")
 
+from conftest import write_parts  # noqa: E402
+
 from analysis.clustering import ClusteringStep  # noqa: E402
 from analysis.distributed import open_cluster, read_partitioned, run_distributed  # noqa: E402
 from analysis.errors import StepError, TableError  # noqa: E402
@@ -33,16 +35,6 @@ from analysis.table import load_table  # noqa: E402
 ROOT = Path(__file__).resolve().parents[1]
 # dask's Parquet reader calls a pandas method pandas 3.1 deprecates; not ours to change
 pytestmark = pytest.mark.filterwarnings("ignore:The inplace keyword in DataFrame.reset_index")
-
-
-def write_parts(frame: pd.DataFrame, folder: Path, parts: int = 4) -> tuple[Path, Path]:
-    """The frame as a folder of Parquet files (in row order) and as one Parquet file."""
-    folder.mkdir(parents=True, exist_ok=True)
-    for k, rows in enumerate(np.array_split(np.arange(len(frame)), parts)):
-        frame.iloc[rows].to_parquet(folder / f"part{k:02d}.parquet", index=False)
-    whole = folder.with_suffix(".parquet")
-    frame.to_parquet(whole, index=False)
-    return folder, whole
 
 
 @pytest.fixture(scope="module")

@@ -3,14 +3,13 @@ builder functions: every row id in customdata, hover columns, colours matching t
 
 from __future__ import annotations
 
-import io
 import math
 
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 import pytest
-from sklearn.datasets import load_iris
+from conftest import iris_frame, table_from_frame
 
 from analysis.clustering import ClusteringStep
 from analysis.errors import ScoutError, StepError
@@ -25,27 +24,17 @@ from analysis.figures.projection import (
 )
 from analysis.outliers import OutliersStep
 from analysis.projection import ProjectionStep
-from analysis.table import read_table
 
 FEATURES = ["sepal_length", "sepal_width", "petal_length", "petal_width"]
-
-
-def _table(frame: pd.DataFrame, name: str):
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), name)
 
 
 @pytest.fixture(scope="module")
 def iris():
     # Fisher's iris measurements as shipped with scikit-learn, with an id, a label and a count
-    data = load_iris()
-    frame = pd.DataFrame(data.data, columns=FEATURES)
-    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
-    frame["species"] = [str(data.target_names[t]) for t in data.target]
+    frame = iris_frame(short_names=True)
     frame["petals_mm"] = (frame["petal_length"] * 10).round().astype(int)
     frame.loc[5, "petals_mm"] = None
-    return _table(frame, "iris.csv")
+    return table_from_frame(frame, "iris.csv")
 
 
 @pytest.fixture(scope="module")
@@ -131,7 +120,7 @@ def test_huge_integers_are_coloured_on_the_signed_log_scale():
     huge = [3**700, -(5**500), 7, 0, 2**1100]
     frame = pd.DataFrame({"a": [1.0, 2.0, 3.5, 4.0, 6.0], "b": [2.0, 1.0, 0.0, 3.0, 5.0],
                           "height": [str(v) for v in huge]})
-    table = _table(frame, "huge.csv")
+    table = table_from_frame(frame, "huge.csv")
     result = ProjectionStep(method="pca", columns=["a", "b"]).run(table)
     figure = scatter_figure(result, table, color_by="height")
     trace = figure.data[0]
@@ -144,7 +133,7 @@ def test_huge_integers_are_coloured_on_the_signed_log_scale():
 def test_large_results_draw_with_webgl():
     rng = np.random.default_rng(0)
     frame = pd.DataFrame(rng.normal(size=(5001, 2)), columns=["u", "v"])
-    table = _table(frame, "many.csv")
+    table = table_from_frame(frame, "many.csv")
     result = ProjectionStep(method="pca").run(table)
     figure = scatter_figure(result, table)
     assert isinstance(figure.data[0], go.Scattergl)

@@ -2,27 +2,19 @@
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import table_from_frame
 from scipy.stats import rankdata
 from sklearn.datasets import make_blobs
 
 from analysis.errors import StepError
 from analysis.export import csv_text
 from analysis.outliers import OutliersStep, rank_standing
-from analysis.table import read_table
 
 FEATURES = ["x1", "x2", "x3"]
 CENTRES = np.array([[0, 0, 0], [10, 0, 0], [0, 10, 0]], dtype=float)
-
-
-def _table(frame: pd.DataFrame, name: str = "points.csv"):
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), name)
 
 
 def _blobs(n: int = 180, seed: int = 3) -> pd.DataFrame:
@@ -40,7 +32,7 @@ def planted_far():
     frame = _blobs()
     far = pd.DataFrame([{"point": "far", "x1": 40.0, "x2": 40.0, "x3": -30.0,
                          "first_blob": False}])
-    return _table(pd.concat([frame, far], ignore_index=True))
+    return table_from_frame(pd.concat([frame, far], ignore_index=True), "points.csv")
 
 
 def test_far_away_row_is_first(planted_far):
@@ -99,7 +91,8 @@ def test_row_breaking_an_exact_relation_is_listed_with_the_reason():
                           "c": a + b, "d": rng.integers(0, 30, n)})
     # one ordinary-looking row breaks c = a + b by one
     frame.loc[77, "c"] += 1
-    result = OutliersStep(columns=["a", "b", "c", "d"], top=10).run(_table(frame))
+    table = table_from_frame(frame, "points.csv")
+    result = OutliersStep(columns=["a", "b", "c", "d"], top=10).run(table)
     listed = {o.row: o for o in result.outliers}
     assert "o77" in listed, f"o77 not among {list(listed)}"
     breaks = [r for r in listed["o77"].reasons if r.startswith("breaks ")]
@@ -116,7 +109,7 @@ def test_confident_separator_errors_are_listed():
     centre = np.argmin(np.linalg.norm(frame[FEATURES].to_numpy() - CENTRES[0], axis=1))
     assert frame.loc[centre, "first_blob"]
     frame.loc[centre, "first_blob"] = False
-    table = _table(frame)
+    table = table_from_frame(frame, "points.csv")
     result = OutliersStep(target="first_blob", columns=FEATURES, relations=False,
                           top=10).run(table)
     listed = {o.row: o for o in result.outliers}
@@ -137,7 +130,7 @@ def test_category_target_reason_names_both_values():
     centre = int(np.argmin(np.linalg.norm(frame[FEATURES].to_numpy() - CENTRES[1], axis=1)))
     frame.loc[centre, "blob"] = "first"
     result = OutliersStep(target="blob", columns=FEATURES, relations=False,
-                          top=5).run(_table(frame))
+                          top=5).run(table_from_frame(frame, "points.csv"))
     reasons = {o.row: o.reasons for o in result.outliers}
     assert any(r.startswith("a cross-validated logistic regression predicts blob = other with "
                       "probability")
@@ -151,7 +144,7 @@ def test_numeric_target_uses_a_cross_validated_fit():
     frame["w"] = 2 * frame["u"] + 3 * frame["v"]
     frame.loc[40, "w"] += 60
     result = OutliersStep(target="w", columns=["u", "v"], relations=False,
-                          top=5).run(_table(frame))
+                          top=5).run(table_from_frame(frame, "points.csv"))
     top = result.outliers[0]
     assert top.row == 40, f"ranked first: {top.row} {top.reasons}"
     assert any(r.startswith(f"w is {int(frame.loc[40, 'w'])} but the other invariants "
@@ -199,13 +192,13 @@ def test_target_with_one_class_is_refused():
     frame["first_blob"] = True
     with pytest.raises(StepError, match="has one value"):
         OutliersStep(target="first_blob", columns=FEATURES, relations=False).run(
-            _table(frame))
+            table_from_frame(frame, "points.csv"))
 
 
 def test_target_with_too_many_labels_is_refused():
     frame = _blobs()
     frame["name"] = [f"n{i}" for i in range(len(frame))]
-    table = _table(frame).with_roles({"name": "category"})
+    table = table_from_frame(frame, "points.csv").with_roles({"name": "category"})
     with pytest.raises(StepError, match="180 distinct labels"):
         OutliersStep(target="name", columns=FEATURES, relations=False).run(table)
 
@@ -213,7 +206,7 @@ def test_target_with_too_many_labels_is_refused():
 def test_rows_no_measure_tells_apart_are_said_so():
     # two objects, each written ten times: every measure scores all rows alike
     frame = pd.DataFrame({"a": [1.0] * 10 + [2.0] * 10, "b": [0.0] * 20})
-    result = OutliersStep(relations=False).run(_table(frame, "twins.csv"))
+    result = OutliersStep(relations=False).run(table_from_frame(frame, "twins.csv"))
     assert result.measures == ()
     assert all(o.reasons == ("no measure tells the rows apart",) for o in result.outliers)
     assert "no measure tells the rows apart" in result.summary()
@@ -227,7 +220,8 @@ def test_open_flag_values_are_predicted_from_the_known_rows():
     hidden = frame.index[::12]
     frame["first_blob"] = frame["first_blob"].astype(object)
     frame.loc[hidden, "first_blob"] = None
-    result = OutliersStep(target="first_blob", relations=False, top=10).run(_table(frame))
+    table = table_from_frame(frame, "points.csv")
+    result = OutliersStep(target="first_blob", relations=False, top=10).run(table)
     opened = {v.row: v for v in result.open_values}
     # only open rows are listed, and most of them: the blobs are far apart
     assert set(opened) <= set(frame.loc[hidden, "point"])
@@ -261,7 +255,7 @@ def test_open_whole_number_values_inside_their_intervals():
                           "max_degree": [max((d for _, d in g.degree()), default=0)
                                          for g in graphs],
                           "edges": cells})
-    table = _table(frame, "atlas.csv")
+    table = table_from_frame(frame, "atlas.csv")
     assert len(table.intervals("edges")) == len(hidden)
     result = OutliersStep(target="edges", relations=False, top=5).run(table)
     opened = {v.row: v for v in result.open_values}
@@ -277,5 +271,6 @@ def test_a_real_valued_target_settles_no_open_value():
     frame = _blobs(n=120, seed=2)
     frame["x3"] = frame["x3"].astype(object)
     frame.loc[frame.index[::10], "x3"] = None
-    result = OutliersStep(target="x3", relations=False, top=5).run(_table(frame))
+    table = table_from_frame(frame, "points.csv")
+    result = OutliersStep(target="x3", relations=False, top=5).run(table)
     assert result.open_values == ()

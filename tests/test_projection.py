@@ -2,42 +2,31 @@
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 import pandas as pd
 import pytest
-from sklearn.datasets import load_iris
+from conftest import iris_frame as iris_data
+from conftest import table_from_frame
 
 from analysis.clustering import ClusteringStep
 from analysis.errors import StepError
 from analysis.outliers import OutliersStep
 from analysis.projection import ProjectionStep
 from analysis.steps import make_step, step_params
-from analysis.table import read_table
 
 FEATURES = ["sepal_length", "sepal_width", "petal_length", "petal_width"]
 
-
-def _table(frame: pd.DataFrame, name: str):
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), name)
 
 
 @pytest.fixture(scope="module")
 def iris_frame():
     # Fisher's iris measurements as shipped with scikit-learn (sklearn.datasets.load_iris)
-    data = load_iris()
-    frame = pd.DataFrame(data.data, columns=FEATURES)
-    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
-    frame["species"] = [str(data.target_names[t]) for t in data.target]
-    return frame
+    return iris_data(short_names=True)
 
 
 @pytest.fixture(scope="module")
 def iris(iris_frame):
-    return _table(iris_frame, "iris.csv")
+    return table_from_frame(iris_frame, "iris.csv")
 
 
 def test_pca_unscaled_matches_documented_iris_ratios(iris):
@@ -107,7 +96,8 @@ def test_coordinates_keep_row_ids_and_json_fields(iris):
 def test_rows_with_missing_features_are_dropped_and_said(iris_frame):
     frame = iris_frame.copy()
     frame.loc[7, "petal_width"] = np.nan
-    result = ProjectionStep(method="pca", columns=FEATURES).run(_table(frame, "gappy.csv"))
+    gappy = table_from_frame(frame, "gappy.csv")
+    result = ProjectionStep(method="pca", columns=FEATURES).run(gappy)
     assert "F007" not in set(result.row_ids)
     assert result.n_rows == 149
     assert any("dropped 1" in note for note in result.notes)
@@ -133,7 +123,7 @@ def test_lda_with_two_classes_uses_principal_axis_for_y(iris_frame):
     frame = iris_frame.copy()
     frame["setosa"] = frame["species"] == "setosa"
     frame = frame.drop(columns=["species"])
-    result = ProjectionStep(method="lda", target="setosa").run(_table(frame, "two.csv"))
+    result = ProjectionStep(method="lda", target="setosa").run(table_from_frame(frame, "two.csv"))
     assert result.axis_titles[1] == "first principal component"
     assert any("one discriminant axis" in note for note in result.notes)
 
@@ -147,7 +137,7 @@ def test_lda_with_one_class_is_refused(iris_frame):
     frame = iris_frame[iris_frame["species"] == "setosa"].copy()
     frame["kind"] = "flower"
     frame = frame.drop(columns=["species"])
-    table = _table(frame, "setosa.csv").with_roles({"kind": "category"})
+    table = table_from_frame(frame, "setosa.csv").with_roles({"kind": "category"})
     with pytest.raises(StepError, match="at least two classes"):
         ProjectionStep(method="lda", target="kind").run(table)
 
@@ -197,7 +187,7 @@ def test_table_is_not_changed(iris_frame, iris):
 def test_rows_without_a_target_are_drawn_but_not_used_by_lda(iris_frame):
     frame = iris_frame.copy()
     frame.loc[[4, 60], "species"] = None
-    table = _table(frame, "unlabelled.csv")
+    table = table_from_frame(frame, "unlabelled.csv")
     picture = ProjectionStep(method="pca", target="species").run(table)
     assert picture.n_rows == 150 and "species" not in " ".join(picture.features)
     separated = ProjectionStep(method="lda", target="species").run(table)
@@ -207,7 +197,7 @@ def test_rows_without_a_target_are_drawn_but_not_used_by_lda(iris_frame):
 
 def test_one_feature_is_enough_for_t_sne():
     frame = pd.DataFrame({"genus": [0, 1, 1, 2, 3, 5, 8, 13]})
-    result = ProjectionStep(method="tsne").run(_table(frame, "one.csv"))
+    result = ProjectionStep(method="tsne").run(table_from_frame(frame, "one.csv"))
     assert result.n_projected == 8
     assert np.all(np.isfinite(result.x)) and np.all(np.isfinite(result.y))
 
@@ -218,4 +208,4 @@ def test_one_feature_is_enough_for_t_sne():
 def test_constant_table_is_refused(step):
     frame = pd.DataFrame({"a": [1] * 12, "b": [2] * 12})
     with pytest.raises(StepError, match="every row has the same value in every feature"):
-        step.run(_table(frame, "constant.csv"))
+        step.run(table_from_frame(frame, "constant.csv"))

@@ -4,13 +4,12 @@ refused with the place named."""
 
 from __future__ import annotations
 
-import io
 import json
 from fractions import Fraction
 
 import numpy as np
 import pytest
-from sklearn.datasets import load_iris
+from conftest import iris_csv
 
 from analysis.steps import STEP_KINDS
 from analysis.stored import StoredResultError, decode, encode
@@ -20,13 +19,7 @@ from analysis.table import read_table
 
 def iris_table():
     """scikit-learn's iris data (150 flowers, 4 measurements, 3 species) as a CSV table."""
-    frame = load_iris(as_frame=True).frame
-    frame["species"] = frame["target"].map(dict(enumerate(load_iris().target_names)))
-    frame = frame.drop(columns="target")
-    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), "iris.csv")
+    return read_table(iris_csv(), "iris.csv")
 
 
 @pytest.fixture(scope="module")

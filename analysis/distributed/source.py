@@ -21,6 +21,7 @@ import csv
 import functools
 import hashlib
 from dataclasses import dataclass, field, replace
+from decimal import Decimal
 from fractions import Fraction
 from pathlib import Path
 
@@ -32,11 +33,16 @@ from analysis.errors import StepError, TableError
 from analysis.table import (
     INTEGER_TEXT,
     MARKER_RULE,
+    RATIONAL_TEXT,
     ColumnInfo,
+    Limits,
     Table,
     array_cells,
+    array_token,
+    array_value,
     column_warnings,
     detect_role,
+    from_decimal,
     incomplete_integer_dtype,
     is_missing,
     is_true_word,
@@ -200,19 +206,19 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
             facts[column] = functools.reduce(_merge_facts, [p[column] for p in merged_parts])
         except TableError:
             mixed.append(column)
-    if mixed:
-        # numbers in some partitions and text in others: the column is text, as in memory
-        forced = tuple((c, "text") for c in mixed)
-        again = client.gather(client.compute([_facts_task(part, forced)
-                                              for part in frame[mixed].to_delayed()]))
-        for column in mixed:
-            try:
-                facts[column] = functools.reduce(_merge_facts, [p[column] for p in again])
-            except TableError as exc:
-                raise TableError(f"{name}: column {column!r} {exc}.") from None
+    # numbers in some partitions and text in others: the column is text, as in memory
+    _facts_again(client, frame, facts, mixed, "text", name)
+    # columns the user asks to be text or a category are read as text, cells as given, as
+    # load_table reads them (array cells stay arrays: with_roles refuses to make them text)
+    asked = [c for c, role in (roles or {}).items() if role in ("text", "category")
+             and facts.get(c, {}).get("kind") != "list"]
+    _facts_again(client, frame, facts, asked, "as_text", name)
     _exact_distinct(client, frame, facts, conversions)
-    infos, how = _type_columns(name, header, facts, n, warnings, fmt)
+    infos, how = _type_columns(name, header, facts, n, warnings, fmt, set(asked))
     _array_text_shapes(client, frame, facts, how, name, partition_rows)
+    texts = {c for c, h in how if h == "array_text"}
+    infos = [replace(i, distinct=_distinct_of(facts[i.name], i.dtype)) if i.name in texts
+             else i for i in infos]
     table = PartitionedTable(
         name=name, path=str(path), digest=digest, format=fmt, columns=tuple(infos),
         id_column=next((c.name for c in infos if c.role == "id"), None),
@@ -222,6 +228,22 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     if roles or id_column is not None:
         table = with_roles(table, roles or {}, id_column)
     return table
+
+
+def _facts_again(client, frame, facts: dict, columns: list[str], how: str,
+                 name: str) -> None:
+    """The facts of ``columns`` gathered again with every cell read as text (``how``:
+    "text" for a column mixing kinds, "as_text" for one asked to be text)."""
+    if not columns:
+        return
+    forced = tuple((c, how) for c in columns)
+    again = client.gather(client.compute([_facts_task(part, forced)
+                                          for part in frame[columns].to_delayed()]))
+    for column in columns:
+        try:
+            facts[column] = functools.reduce(_merge_facts, [p[column] for p in again])
+        except TableError as exc:
+            raise TableError(f"{name}: column {column!r} {exc}.") from None
 
 
 def _files_of(path: Path) -> tuple[str, list[Path]]:
@@ -327,42 +349,41 @@ def _facts_task(part, conversions):
 def partition_facts(frame: pd.DataFrame, conversions=()) -> dict:
     """Per-column facts of one raw partition (a pandas frame); see :func:`_merge_facts`."""
     csv_columns = {c for c, how in conversions if how == "csv"}
-    text_columns = {c for c, how in conversions if how == "text"}
+    text_columns = {c for c, how in conversions if how in ("text", "as_text")}
+    asked = {c for c, how in conversions if how == "as_text"}
     out: dict = {"__rows__": len(frame)}
     for column in frame.columns:
         series = frame[column]
-        out[column] = _column_facts(series, column in csv_columns, column in text_columns)
+        out[column] = _column_facts(series, column in csv_columns, column in text_columns,
+                                    exact_decimals=column not in asked)
     return out
 
 
-def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> dict:
+def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False,
+                  exact_decimals: bool = True) -> dict:
     n = len(series)
     missing_mask = series.isna().to_numpy()
     facts: dict = {"n": n, "missing": int(missing_mask.sum()), "kind": None}
     if facts["missing"] == n:
         return facts   # says nothing about the column's kind
+    if exact_decimals and _holds_decimals(series, missing_mask):
+        series = _decimal_texts(series)
+        facts["decimal"] = True
     kind = series.dtype.kind
     if as_text:
         present = series[~missing_mask]
         text = present.map(lambda v: str(v)) if present.dtype == object else present.astype(str)
-        facts["kind"] = "text"
         facts["words"] = None
-        facts.update(_text_counts(text, ~missing_mask))
-        facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
-        facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
-        return facts
+        return _text_facts(facts, text, present, missing_mask)
     if not from_text and kind in "biuf":
-        facts.update(_number_facts(series[~missing_mask] if kind == "f" else series))
+        # nullable integers and flags (pandas' Int64, boolean) hold missing cells too
+        facts.update(_number_facts(series[~missing_mask] if kind == "f" or facts["missing"]
+                                   else series))
         return facts
     present = series[~missing_mask]
     if isinstance(present.iloc[0], (list, tuple, np.ndarray)):
         facts["kind"] = "list"
-        shapes: dict[str, int] = {}
-        for value in present.tolist():
-            shape = "x".join(map(str, np.shape(np.asarray(value, dtype=object)))) \
-                if isinstance(value, (list, tuple, np.ndarray)) else "not an array"
-            shapes[shape] = shapes.get(shape, 0) + 1
-        facts["shapes"] = shapes
+        facts.update(_array_facts(present.tolist(), str(series.name)))
         return facts
     text = present.astype(str)
     # CSV cells are numbers when pandas would read them as numbers; other text cells only
@@ -379,13 +400,46 @@ def _column_facts(series: pd.Series, from_text: bool, as_text: bool = False) -> 
             facts.update(_number_facts(numbers))
             facts["parsed"] = True
             return facts
-    facts["kind"] = "text"
     lowered = set(text.str.strip().str.lower().unique().tolist())
     facts["words"] = lowered if len(lowered) <= 2 else None
+    return _text_facts(facts, text, present, missing_mask)
+
+
+def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask) -> dict:
+    """The facts of a run of text cells: counts, marked numbers, brackets, rationals."""
+    facts["kind"] = "text"
     facts.update(_text_counts(text, ~missing_mask))
     facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
     facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
+    # every cell an integer or p/q: the column is read as exact rationals, as in memory
+    facts["rational"] = bool(text.str.fullmatch(RATIONAL_TEXT).all())
     return facts
+
+
+def _array_facts(values: list, column: str) -> dict:
+    """Shapes and distinct cells of list or matrix cells, each read by analysis.table's rule
+    (a cell it refuses counts as "not an array")."""
+    shapes: dict[str, int] = {}
+    tokens: set | None = set()
+    for value in values:
+        try:
+            array = array_value(value, "", 0, column, Limits())
+        except TableError:
+            shapes["not an array"] = shapes.get("not an array", 0) + 1
+            continue
+        shape = "x".join(map(str, array.shape))
+        shapes[shape] = shapes.get(shape, 0) + 1
+        if tokens is not None:
+            tokens.add(array_token(array))
+            tokens = tokens if len(tokens) <= DISTINCT_CAP else None
+    return {"shapes": shapes, "tokens": tokens}
+
+
+def _union_capped(a: set | None, b: set | None) -> set | None:
+    if a is None or b is None:
+        return None
+    both = a | b
+    return both if len(both) <= DISTINCT_CAP else None
 
 
 def _number_facts(values: pd.Series) -> dict:
@@ -433,6 +487,20 @@ def _number_facts(values: pd.Series) -> dict:
     return facts
 
 
+def _holds_decimals(series: pd.Series, missing_mask: np.ndarray) -> bool:
+    """Whether a raw column holds Parquet decimals (its first filled cell is one)."""
+    return series.dtype.kind == "O" and isinstance(
+        series.iloc[int(np.argmin(missing_mask))], Decimal)
+
+
+def _decimal_texts(series: pd.Series) -> pd.Series:
+    """Parquet decimals as the text of their exact values (``7/2``, ``3``), which are then
+    typed as text cells are: the values analysis.table reads decimals as."""
+    exact = [None if is_missing(v) else from_decimal(v) for v in series.tolist()]
+    return pd.Series([None if v is None else str(v) for v in exact], dtype=object,
+                     index=series.index)
+
+
 def _text_counts(text: pd.Series, present_mask: np.ndarray) -> dict:
     positions = np.flatnonzero(present_mask)
     counts = text.value_counts(sort=False)
@@ -467,13 +535,15 @@ def _merge_facts(a: dict, b: dict) -> dict:
                              "value (all numbers, all text, or all arrays). Fix the cells, or "
                              "use --engine local")
     out = {"n": a["n"] + b["n"], "missing": a["missing"] + b["missing"], "kind": a["kind"],
-           "parsed": a.get("parsed", False) or b.get("parsed", False)}
+           "parsed": a.get("parsed", False) or b.get("parsed", False),
+           "decimal": a.get("decimal", False) or b.get("decimal", False)}
     kind = out["kind"]
     if kind == "list":
         shapes = dict(a["shapes"])
         for k, v in b["shapes"].items():
             shapes[k] = shapes.get(k, 0) + v
         out["shapes"] = shapes
+        out["tokens"] = _union_capped(a.get("tokens"), b.get("tokens"))
         return out
     if kind == "text":
         words_a, words_b = a["words"], b["words"]
@@ -494,6 +564,7 @@ def _merge_facts(a: dict, b: dict) -> dict:
             out["counts"] = counts if len(counts) <= DISTINCT_CAP else None
         out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
         out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
+        out["rational"] = a.get("rational", False) and b.get("rational", False)
         return out
     out["count"] = a["count"] + b["count"]
     out["inf"] = a["inf"] or b["inf"]
@@ -530,10 +601,10 @@ def _like(empty: dict, other: dict) -> dict:
     out = {"n": empty["n"], "missing": empty["missing"], "kind": other["kind"]}
     kind = other["kind"]
     if kind == "list":
-        out["shapes"] = {}
+        out["shapes"], out["tokens"] = {}, set()
     elif kind == "text":
         out.update(words=set(), counts={}, first_values=[], first_positions=[],
-                   marked=marked_facts([], []))
+                   marked=marked_facts([], []), rational=True)
     else:
         values = other["values"]
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
@@ -688,6 +759,13 @@ def _reads_marked(f: dict, requested: bool = False) -> bool:
                                    requested=requested)
 
 
+def _reads_rational(f: dict) -> bool:
+    """Whether a text column's cells are all integers or p/q (analysis.table's rational
+    rule), with at least one p/q among them: read as exact rationals, as in memory."""
+    m = f.get("marked")
+    return bool(f.get("kind") == "text" and f.get("rational") and m and m["fraction"])
+
+
 def _marked_type(m: dict) -> str:
     dtype = marked_dtype(has_float=m["float"], has_fraction=m["fraction"])
     if dtype == "integer" and m["numbers"]:
@@ -763,23 +841,18 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
               for k, part in enumerate(frame[columns].to_delayed())]
     found = client.gather(client.compute(pieces))
     for column in columns:
-        shapes: dict[str, int] = {}
-        for piece in found:
-            for shape, count in piece[column].items():
-                shapes[shape] = shapes.get(shape, 0) + count
         f = facts[column]
-        facts[column] = {"n": f["n"], "missing": f["missing"], "kind": "list", "shapes": shapes}
+        facts[column] = functools.reduce(_merge_facts, [piece[column] for piece in found])
+        facts[column].update(n=f["n"], missing=f["missing"])
 
 
 def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) -> dict:
     out = {}
     for column in columns:
-        shapes: dict[str, int] = {}
-        for value in array_cells(frame[column], name, column, first_row=first_row).tolist():
-            if value is not None:
-                shape = "x".join(map(str, np.shape(value)))
-                shapes[shape] = shapes.get(shape, 0) + 1
-        out[column] = shapes
+        cells = [v for v in array_cells(frame[column], name, column,
+                                        first_row=first_row).tolist() if v is not None]
+        out[column] = {"n": len(frame), "missing": len(frame) - len(cells), "kind": "list",
+                       **_array_facts(cells, column)}
     return out
 
 
@@ -788,8 +861,9 @@ def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) ->
 
 
 def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
-                  fmt: str) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
-
+                  fmt: str, as_text: set[str] = frozenset(),
+                  ) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
+    """Each column's description and conversion; ``as_text`` columns are text as asked."""
     infos: list[ColumnInfo] = []
     how: list[tuple[str, str]] = []
     id_taken = False
@@ -798,7 +872,10 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
     for column in header:
         f = facts[column]
         marked = None
-        if _reads_marked(f):
+        if column in as_text:
+            dtype, note, convert = ("text", "", "text") if f["kind"] else ("empty", "", "")
+            missing, distinct = f["missing"], _distinct_of(f, dtype)
+        elif _reads_marked(f) or _reads_rational(f):
             facts[column], marked = _as_marked(name, column, f)
             dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
             missing, distinct = marked.missing, marked.distinct
@@ -811,6 +888,8 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
                 dtype, note, convert, distinct = "array", "", "array_text", -1
             elif dtype == "text" and _merge_labels(name, column, f, n, merged):
                 convert, distinct = "strip", len(f["counts"])
+        if convert and f.get("decimal"):
+            convert = "decimal+" + convert
         if convert:
             how.append((column, convert))
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
@@ -851,7 +930,7 @@ def _dtype_of(f: dict, fmt: str) -> tuple[str, str, str]:
     if kind is None:
         return "empty", "", ""
     if kind == "list":
-        return "array", "", ""
+        return "array", "", "arrays"
     if kind == "text":
         words = f["words"]
         if words and reads_as_boolean(words):
@@ -895,7 +974,7 @@ def _distinct_of(f: dict, dtype: str) -> int:
     if kind is None:
         return 0
     if kind == "list":
-        return -1   # not counted on this engine (arrays are summarized by shape)
+        return -1 if f.get("tokens") is None else len(f["tokens"])
     if kind == "text":
         if dtype == "boolean":
             return len({is_true_word(w) for w in f["words"]})
@@ -910,19 +989,28 @@ def typed_partition(frame: pd.DataFrame, conversions) -> pd.DataFrame:
     "float", "int64", "bool", "words" (true/false words), "bigint" (exact Python integers),
     "text" (values as strings) or "bool_to_int"; "csv+X" reads text as numbers first;
     "marked:<dtype>" keeps the plain numbers of marked numbers, intervals and words missing;
-    "array_text" reads JSON-array text as arrays; "strip" reads labels without surrounding
-    spaces.
+    "array_text" reads JSON-array text as arrays, "arrays" list cells as numpy arrays;
+    "strip" reads labels without surrounding spaces; "decimal+X" reads Parquet decimals as
+    the text of their exact values first.
     """
     frame = frame.copy(deep=False)
     for column, how in conversions:
         if column not in frame.columns:
             continue
         series = frame[column]
+        if how.startswith("decimal+"):
+            series, how = _decimal_texts(series), how[len("decimal+"):]
         if how.startswith("marked:"):
             frame[column] = _marked_values(series, how.split(":", 1)[1])
             continue
         if how == "array_text":
             frame[column] = array_cells(series, "", column)
+            continue
+        if how == "arrays":
+            frame[column] = pd.Series([None if is_missing(v) else array_value(v, "", 0, column,
+                                                                              Limits())
+                                       for v in series.tolist()], dtype=object,
+                                      index=series.index)
             continue
         if how == "strip":
             frame[column] = pd.Series([None if is_missing(v) else str(v).strip()

@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from sklearn.datasets import load_iris
+from conftest import iris_csv
 from streamlit.testing.v1 import AppTest
 
 from analysis.study import result_key, study_from_json
@@ -35,17 +35,6 @@ def open_page(table: str | None = None) -> AppTest:
     at.run()
     assert not at.exception, [e.value for e in at.exception]
     return at
-
-
-def iris_csv() -> bytes:
-    """scikit-learn's iris data (150 flowers, 4 measurements, 3 species) as a CSV."""
-    frame = load_iris(as_frame=True).frame
-    frame["species"] = frame["target"].map(dict(enumerate(load_iris().target_names)))
-    frame = frame.drop(columns="target")
-    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return buffer.getvalue().encode()
 
 
 def study(at: AppTest):

@@ -3,11 +3,9 @@ rows shown for them. Checked on scikit-learn's iris data without a browser."""
 
 from __future__ import annotations
 
-import io
-
 import pandas as pd
 import pytest
-from sklearn.datasets import load_iris
+from conftest import iris_csv
 
 from analysis.figures import figures_for
 from analysis.projection import ProjectionStep
@@ -20,13 +18,7 @@ from app.figure_view import row_traces, selected_ids
 @pytest.fixture(scope="module")
 def iris():
     """scikit-learn's iris: 150 flowers, 4 measurements, 3 species (sklearn documentation)."""
-    data = load_iris(as_frame=True)
-    frame = data.frame.drop(columns="target")
-    frame.insert(0, "flower", [f"F{i:03d}" for i in range(len(frame))])
-    frame["species"] = [data.target_names[t] for t in data.target]
-    buffer = io.StringIO()
-    frame.to_csv(buffer, index=False)
-    return read_table(buffer.getvalue().encode(), "iris.csv")
+    return read_table(iris_csv(), "iris.csv")
 
 
 def test_the_projection_scatter_holds_objects(iris):
