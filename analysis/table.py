@@ -1452,6 +1452,25 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
     return out
 
 
+def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits,
+                       marks_out: dict | None):
+    """A column of pandas' nullable integers (Parquet written from Int64, say) typed as the
+    same integers read from text are: numpy integers without gaps, float64 with NaN for
+    gaps while every value is exact there, Python integers past that."""
+    present = series.dropna()
+    if len(present) < len(series) and len(present) and \
+            max(abs(int(present.min())), abs(int(present.max()))) > _FLOAT_EXACT:
+        values = [None if pd.isna(v) else int(v) for v in series.tolist()]
+        return pd.Series(values, dtype=object, index=series.index), "big integer", \
+            _BEYOND_FLOAT_NOTE
+    if len(present) < len(series):
+        plain = series.astype("float64")
+    else:
+        plain = series.astype(np.int64 if series.dtype.kind == "i" else np.uint64)
+    values, dtype, note = _type_one(plain, name, column, limits, marks_out)
+    return (plain if values is None else values), dtype, note
+
+
 def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
               marks_out: dict | None = None):
     """Return (new values or None, dtype label, note); a marked column's _Marks go to
@@ -1459,8 +1478,10 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
     kind = series.dtype.kind
     if kind == "b":
         return None, "boolean", ""
+    if kind in "iu" and not isinstance(series.dtype, np.dtype):
+        return _nullable_integers(series, name, column, limits, marks_out)
     if kind in "iu":
-        if not isinstance(series.dtype, np.dtype) or not len(series):
+        if not len(series):
             return None, "integer", ""
         raw = series.to_numpy()
         low, high = int(raw.min()), int(raw.max())
@@ -1496,6 +1517,15 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
     return _type_object(series, name, column, limits, marks_out)
 
 
+def _plain_json_value(value):
+    """What json.dumps cannot write itself: numpy arrays as lists, numpy numbers as numbers."""
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    raise TypeError(f"{type(value).__name__} is not a table cell")
+
+
 def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
     """A column kept as text at the caller's request: cells as given, not parsed."""
     values = []
@@ -1504,7 +1534,8 @@ def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
             values.append(None)
             continue
         if isinstance(value, (list, tuple, dict, np.ndarray)):
-            value = json.dumps(value.tolist() if isinstance(value, np.ndarray) else value)
+            # Parquet's list cells are numpy arrays, nested ones arrays of arrays
+            value = json.dumps(value, default=_plain_json_value)
         text = value if isinstance(value, str) else str(value)
         if len(text) > limits.max_cell:
             raise TableError(

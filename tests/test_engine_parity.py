@@ -194,10 +194,6 @@ def test_arrays_asked_to_be_text_are_refused_by_name(client, atlas):
         read_partitioned(folder, client, roles={"adjacency": "text"})
 
 
-@pytest.mark.xfail(strict=True, raises=TypeError, reason=(
-    "in memory, analysis/table.py (_as_text) writes a matrix cell read from Parquet (numpy "
-    "arrays inside a numpy array) with json.dumps, which raises TypeError: a traceback "
-    "instead of the column as text"))
 def test_matrix_cells_asked_to_be_text_in_memory(atlas):
     _, folder, _ = atlas
     adjacency = load_table(Path(str(folder) + ".parquet"),
@@ -224,10 +220,6 @@ def test_rationals_after_whole_numbers_in_earlier_parts_are_rationals(client, tm
         sum(Fraction(str(c)) for c in whole + later if c is not None) * 5
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "in memory (analysis/table.py, _type_one) a Parquet column of pandas' nullable Int64 "
-    "with gaps is counted as having no missing cells and the wrong number of distinct "
-    "values; the Dask engine counts them"))
 def test_a_nullable_integer_column_is_counted_alike(client, tmp_path):
     frame = pd.DataFrame({"girth": pd.array([3, None, 4, None, 5, 3] * 10, dtype="Int64"),
                           "v": range(60)})
