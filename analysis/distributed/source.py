@@ -895,7 +895,9 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
         role = detect_role(column, dtype, distinct, missing, n, id_taken)
         if role == "id":
             id_taken = True
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role))
+        labels = list(f["counts"]) if role == "category" and dtype == "text" \
+            and f.get("counts") is not None else None
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
         info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
         infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
     warnings[start:start] = merged
