@@ -164,7 +164,10 @@ def _upload_box(pg) -> None:
     if upload is not None and upload.file_id != pg.upload_id:
         pg.upload_id = upload.file_id
         try:
-            loaded = loading.load_bytes(upload.name, upload.getvalue(), sample=False)
+            # a sign of life at once: a large table takes seconds to read and type
+            with st.spinner(f"Reading {upload.name} ({upload.size / 1e6:,.1f} MB) and typing "
+                            "its columns…"):
+                loaded = loading.load_bytes(upload.name, upload.getvalue(), sample=False)
         except ScoutError as exc:
             pg.load_error = str(exc)
         else:
