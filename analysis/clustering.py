@@ -360,15 +360,20 @@ def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
 
 
 def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
-    from sklearn.mixture import GaussianMixture
 
     fit_rows = values
     if len(values) > MINIBATCH_ROWS:
         fit_rows = values[sample_positions(len(values), MINIBATCH_ROWS, seed)]
         notes.append(mixture_note(MINIBATCH_ROWS, len(values)))
-    model = GaussianMixture(n_components=k, covariance_type="full", random_state=seed)
-    model.fit(fit_rows)
+    model = mixture_model(fit_rows, k, seed)
     return model.predict(values), float(model.bic(fit_rows))
+
+
+def mixture_model(values: np.ndarray, k: int, seed: int):
+    """A Gaussian mixture of ``k`` full-covariance components fitted to ``values``."""
+    from sklearn.mixture import GaussianMixture
+
+    return GaussianMixture(n_components=k, covariance_type="full", random_state=seed).fit(values)
 
 
 def mixture_note(fitted: int, n: int) -> str:
@@ -404,23 +409,29 @@ def hdbscan_size(min_cluster_size: int, fitted: int) -> int:
 
 def _agglomerative(values: np.ndarray, ks: list[int], sample_size: int, seed: int,
                    notes: list[str]):
-    from scipy.cluster.hierarchy import fcluster, linkage
 
     n = len(values)
     fit = np.arange(n)
     if n > sample_size:
         fit = sample_positions(n, sample_size, seed)
         notes.append(agglomerative_note(sample_size, n))
-    # one Ward tree serves every k: cutting it at k clusters is Ward clustering with k
-    tree = linkage(values[fit], method="ward")
-    for k in ks:
-        sample_labels = fcluster(tree, t=k, criterion="maxclust") - 1
+    for k, sample_labels, centres in ward_cuts(values[fit], ks):
         if len(fit) == n:
             yield k, sample_labels
             continue
-        centres = np.array([values[fit][sample_labels == c].mean(axis=0)
-                            for c in range(sample_labels.max() + 1)])
         yield k, _nearest(values, centres)
+
+
+def ward_cuts(values: np.ndarray, ks: list[int]):
+    """For each k: Ward clustering of ``values`` into k clusters, as (k, labels, centres)."""
+    from scipy.cluster.hierarchy import fcluster, linkage
+
+    # one Ward tree serves every k: cutting it at k clusters is Ward clustering with k
+    tree = linkage(values, method="ward")
+    for k in ks:
+        labels = fcluster(tree, t=k, criterion="maxclust") - 1
+        centres = np.array([values[labels == c].mean(axis=0) for c in range(labels.max() + 1)])
+        yield k, labels, centres
 
 
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,

@@ -530,7 +530,8 @@ def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int
     return factor_measure(factor, neighbours)
 
 
-def _number_model():
+def number_model():
+    """The separator fitted to a number target: ridge regression on scaled features."""
     from sklearn.linear_model import Ridge
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
@@ -538,7 +539,8 @@ def _number_model():
     return make_pipeline(StandardScaler(), Ridge(alpha=1.0))
 
 
-def _label_model():
+def label_model():
+    """The separator fitted to a label target: logistic regression on scaled features."""
     from sklearn.linear_model import LogisticRegression
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
@@ -546,30 +548,45 @@ def _label_model():
     return make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
 
 
+def number_folds(n: int, seed: int):
+    """The cross-validation folds for a number target on ``n`` rows."""
+    from sklearn.model_selection import KFold
+
+    return KFold(n_splits=min(5, n), shuffle=True, random_state=seed)
+
+
+def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str):
+    """(classes, splits, folds) of the cross-validation for a label target; StepError when
+    every row has one label."""
+    from sklearn.model_selection import StratifiedKFold
+
+    classes, counts = np.unique(labels, return_counts=True)
+    if len(classes) < 2:
+        raise StepError(f"{table_name}: the target {target!r} has one value ({classes[0]!r}) "
+                        "on every row used; a separator needs two or more. Choose another "
+                        "target or leave it unset.")
+    splits = int(min(5, max(2, counts.min())))
+    return classes, splits, StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
+
+
 def _cross_validated(table: Table, target: str, fm, seed: int):
     """The target on the rows used and its cross-validated prediction: for a number
     ``(truth, predicted, None, None)``, for labels ``(labels, probability, classes, splits)``."""
-    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
+    from sklearn.model_selection import cross_val_predict
 
     raw = target_values(table, target, fm.rows)
     if is_numeric_target(table, target):
         truth = np.asarray(raw, dtype=float)
-        folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=seed)
-        return truth, cross_val_predict(_number_model(), fm.values, truth, cv=folds), None, \
+        folds = number_folds(len(truth), seed)
+        return truth, cross_val_predict(number_model(), fm.values, truth, cv=folds), None, \
             folds.n_splits
     labels = np.array([label_text(v) for v in raw], dtype=object)
-    classes, counts = np.unique(labels, return_counts=True)
-    if len(classes) < 2:
-        raise StepError(f"{table.name}: the target {target!r} has one value ({classes[0]!r}) "
-                        "on every row used; a separator needs two or more. Choose another "
-                        "target or leave it unset.")
+    classes, splits, folds = label_folds(labels, seed, table.name, target)
     if len(classes) > MAX_CLASSES:
         raise StepError(f"{table.name}: the target {target!r} has {len(classes)} distinct "
                         f"labels; a separator can judge at most {MAX_CLASSES}. Choose a flag, "
                         "a category or a numeric invariant.")
-    splits = int(min(5, max(2, counts.min())))
-    folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
-    probability = cross_val_predict(_label_model(), fm.values, labels, cv=folds,
+    probability = cross_val_predict(label_model(), fm.values, labels, cv=folds,
                                     method="predict_proba")
     return labels, probability, classes, splits
 
@@ -649,13 +666,13 @@ def open_values(table: Table, step, fm, guessed: tuple,
         if not np.all(truth == np.round(truth)):
             return ()
         chance = float(np.mean(np.round(predicted) == truth))
-        guesses = np.round(_number_model().fit(fm.values, truth).predict(X))
+        guesses = np.round(number_model().fit(fm.values, truth).predict(X))
         said = [int(g) for g in guesses]
         chances = np.full(len(said), chance)
         how = [f"a ridge fit on the other invariants, rounded, predicts {s} (exactly right on "
                f"{chance:.0%} of the known rows, cross-validated)" for s in said]
     else:
-        model = _label_model().fit(fm.values, truth)
+        model = label_model().fit(fm.values, truth)
         probability = model.predict_proba(X)
         said = [str(c) for c in model.classes_[probability.argmax(axis=1)]]
         chances = probability.max(axis=1)

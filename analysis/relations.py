@@ -846,8 +846,7 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
             bad = np.flatnonzero(broken[:, j])
             if 0 < len(bad) <= breakers:
                 candidates.append((vector, bad))
-    candidates.sort(key=lambda c: (len(c[1]), sum(1 for x in c[0][:-1] if x),
-                                   sum(x * x for x in c[0])))
+    candidates.sort(key=lambda c: robust_rank(len(c[1]), c[0]))
     found = []
     for vector, bad in candidates:
         support = [j for j, c in enumerate(vector[:-1]) if c]
@@ -868,6 +867,12 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
         found.append(_relation_from_vector(vector, core, size - len(bad), violations, note,
                                            trivial))
     return found
+
+
+def robust_rank(breaking: int, vector: Sequence[int]) -> tuple:
+    """Sort key of a relation (integer vector, constant last) that ``breaking`` rows break:
+    fewer breaking rows, then fewer columns, then smaller coefficients first."""
+    return breaking, sum(1 for x in vector[:-1] if x), sum(x * x for x in vector)
 
 
 def robust_note(names: Sequence[str], breaking: int, trivial: bool) -> str:

@@ -217,24 +217,16 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
             _, centres = cl.kmeans_labels(sample, k, step.seed)
             yield k, _Lloyd(centres), None, None
     elif method == "gmm":
-        from sklearn.mixture import GaussianMixture
-
         if len(sample) < n:
             notes.append(cl.mixture_note(len(sample), n))
         for k in ks:
-            model = GaussianMixture(n_components=k, covariance_type="full",
-                                    random_state=step.seed).fit(sample)
+            model = cl.mixture_model(sample, k, step.seed)
             yield k, MixtureAssigner(model), float(model.bic(sample)), None
     elif method == "agglomerative":
-        from scipy.cluster.hierarchy import fcluster, linkage
-
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         if len(fit) < n:
             notes.append(cl.agglomerative_note(len(fit), n))
-        links = linkage(fit, method="ward")
-        for k in ks:
-            labels = fcluster(links, t=k, criterion="maxclust") - 1
-            centres = np.array([fit[labels == c].mean(axis=0) for c in range(labels.max() + 1)])
+        for k, _, centres in cl.ward_cuts(fit, ks):
             yield k, NearestCentre(centres), None, None
     elif method == "hdbscan":
         from sklearn.cluster import HDBSCAN

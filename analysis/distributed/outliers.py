@@ -154,22 +154,18 @@ def _typical_distances(clusters, sample: np.ndarray):
 
 def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, scale, notes):
     """A fit on the sample, and cross-validated scores for the sample's own rows."""
-    from sklearn.linear_model import LogisticRegression, Ridge
-    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
+    from sklearn.model_selection import cross_val_predict
 
+    from analysis import outliers as ol
     from analysis.distributed.clustering import gather_rows
+    from analysis.features import is_numeric_target
 
     values = gather_rows(ctx, blocks, kept, offsets, fit_rows, np.zeros(len(shift)),
                           np.ones(len(scale)))
     targets = _gather_targets(ctx, blocks, kept, offsets, fit_rows)
-    info = ctx.table.column(step.target)
-    numeric = info.role == "invariant" and info.distinct > 12
-    if numeric:
+    if is_numeric_target(ctx.table, step.target):
         truth = np.asarray(targets, dtype=float)
-        model = make_pipeline(StandardScaler(), Ridge(alpha=1.0))
-        folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=step.seed)
+        model, folds = ol.number_model(), ol.number_folds(len(truth), step.seed)
         inside = cross_val_predict(model, values, truth, cv=folds)
         model.fit(values, truth)
         spread = float(np.std(truth - inside)) or 1.0
@@ -179,14 +175,8 @@ def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, sc
         return {"numeric": True, "model": model, "inside": inside, "rows": fit_rows,
                 "spread": spread, "classes": None}
     labels = np.array([str(v) for v in targets], dtype=object)
-    classes, counts = np.unique(labels, return_counts=True)
-    if len(classes) < 2:
-        raise StepError(f"{ctx.table.name}: the target {step.target!r} has one value "
-                        f"({classes[0]!r}) on every row used; a separator needs two or more. "
-                        "Choose another target or leave it unset.")
-    splits = int(min(5, max(2, counts.min())))
-    folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=step.seed)
-    model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
+    classes, splits, folds = ol.label_folds(labels, step.seed, ctx.table.name, step.target)
+    model = ol.label_model()
     inside = cross_val_predict(model, values, labels, cv=folds, method="predict_proba")
     model.fit(values, labels)
     notes.append(f"separator: {step.target!r} predicted by a {splits}-fold cross-validated "
@@ -194,7 +184,7 @@ def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, sc
                  "the fit on the whole sample; a row scores 1 minus the probability given to "
                  "its own class.")
     return {"numeric": False, "model": model, "inside": inside, "rows": fit_rows,
-            "classes": classes, "boolean": info.dtype == "boolean"}
+            "classes": classes, "boolean": ctx.table.column(step.target).dtype == "boolean"}
 
 
 def _gather_targets(ctx, blocks, kept, offsets, wanted):

@@ -594,8 +594,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
         if v is not None:
             tracker.add(v)
     ranked = sorted(zip(candidates, counts["relations"][checked:]),
-                    key=lambda item: (item[1][0], len(item[0][0].terms),
-                                      sum(x * x for x in item[0][1])))
+                    key=lambda item: rel.robust_rank(item[1][0], item[0][1]))
     robust = []
     for (relation, vector), (count, ids, present) in ranked:
         if not 0 < count <= allowed or not tracker.add(vector):
