@@ -1477,9 +1477,12 @@ def listed_note(note: str, attaining: int) -> str:
 
 def recounted_note(bound: Bound, attaining: int) -> str:
     """The note of ``bound`` as it reads when ``attaining`` rows attain it (not the
-    ``bound.attained_count`` it was found with)."""
-    parts = [part for part in bound.note.split("; ")
-             if part and part != _listed_phrase(bound.attained_count)]
+    ``bound.attained_count`` it was found with): what it said before saying how many
+    attaining rows are listed, and that count again."""
+    parts = bound.note.split("; ") if bound.note else []
+    listed = _listed_phrase(bound.attained_count)
+    if listed in parts:
+        parts = parts[:parts.index(listed)]
     return listed_note("; ".join(parts), attaining)
 
 
