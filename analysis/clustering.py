@@ -296,8 +296,7 @@ class ClusteringStep:
                 yield _entry(method, k, labels, scorer), labels
         else:
             if self.k is not None:
-                notes.append(f"HDBSCAN finds its own number of clusters; k = {self.k} was "
-                             "not used.")
+                notes.append(hdbscan_k_note(self.k))
             labels = _hdbscan(values, self.min_cluster_size, self.sample_size, self.seed,
                               notes)
             yield _entry(method, None, labels, scorer), labels
@@ -337,14 +336,20 @@ class _Silhouette:
 
         labels = labels[self.rows]
         clustered = labels != NOISE
-        distinct = len(set(labels[clustered].tolist()))
-        # the silhouette is defined for 2 <= clusters <= rows - 1; noise rows are left out
-        if distinct < 2 or distinct >= int(clustered.sum()):
+        if not silhouette_defined(labels):
             return None
         distances = self.distances
         if not clustered.all():
             distances = distances[np.ix_(clustered, clustered)]
         return float(silhouette_score(distances, labels[clustered], metric="precomputed"))
+
+
+def silhouette_defined(labels: np.ndarray) -> bool:
+    """Whether the silhouette of ``labels`` is defined: from 2 clusters to one fewer than the
+    rows, noise rows left out."""
+    clustered = labels != NOISE
+    distinct = len(set(labels[clustered].tolist()))
+    return 2 <= distinct < int(clustered.sum())
 
 
 def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
@@ -355,40 +360,78 @@ def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
 
 
 def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
-    from sklearn.mixture import GaussianMixture
 
     fit_rows = values
     if len(values) > MINIBATCH_ROWS:
         fit_rows = values[sample_positions(len(values), MINIBATCH_ROWS, seed)]
-        notes.append(f"Gaussian mixtures fitted on a random sample of {MINIBATCH_ROWS} of "
-                     f"the {len(values)} rows; every row then joins its most likely "
-                     "component.")
-    model = GaussianMixture(n_components=k, covariance_type="full", random_state=seed)
-    model.fit(fit_rows)
+        notes.append(mixture_note(MINIBATCH_ROWS, len(values)))
+    model = mixture_model(fit_rows, k, seed)
     return model.predict(values), float(model.bic(fit_rows))
+
+
+def mixture_model(values: np.ndarray, k: int, seed: int):
+    """A Gaussian mixture of ``k`` full-covariance components fitted to ``values``."""
+    from sklearn.mixture import GaussianMixture
+
+    return GaussianMixture(n_components=k, covariance_type="full", random_state=seed).fit(values)
+
+
+def mixture_note(fitted: int, n: int) -> str:
+    """Gaussian mixtures fitted on ``fitted`` of the ``n`` rows."""
+    return (f"Gaussian mixtures fitted on a random sample of {fitted} of the {n} rows; every "
+            "row then joins its most likely component.")
+
+
+def agglomerative_note(fitted: int, n: int) -> str:
+    """Ward's tree built on ``fitted`` of the ``n`` rows."""
+    return (f"agglomerative clustering (Ward) built on a random sample of {fitted} of the {n} "
+            "rows; the other rows join the cluster with the nearest mean.")
+
+
+def hdbscan_size_note(size: int) -> str:
+    return (f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are noise "
+            "(cluster -1).")
+
+
+def hdbscan_sample_note(fitted: int, n: int) -> str:
+    return (f"HDBSCAN ran on a random sample of {fitted} of the {n} rows; each other row takes "
+            "the cluster (or noise) of its nearest sampled row.")
+
+
+def hdbscan_k_note(k: int) -> str:
+    return f"HDBSCAN finds its own number of clusters; k = {k} was not used."
+
+
+def hdbscan_size(min_cluster_size: int, fitted: int) -> int:
+    """The smallest cluster HDBSCAN is asked for on ``fitted`` rows."""
+    return min(min_cluster_size, max(2, fitted // 2))
 
 
 def _agglomerative(values: np.ndarray, ks: list[int], sample_size: int, seed: int,
                    notes: list[str]):
-    from scipy.cluster.hierarchy import fcluster, linkage
 
     n = len(values)
     fit = np.arange(n)
     if n > sample_size:
         fit = sample_positions(n, sample_size, seed)
-        notes.append(f"agglomerative clustering (Ward) built on a random sample of "
-                     f"{sample_size} of the {n} rows; the other rows join the cluster with "
-                     "the nearest mean.")
-    # one Ward tree serves every k: cutting it at k clusters is Ward clustering with k
-    tree = linkage(values[fit], method="ward")
-    for k in ks:
-        sample_labels = fcluster(tree, t=k, criterion="maxclust") - 1
+        notes.append(agglomerative_note(sample_size, n))
+    for k, sample_labels, centres in ward_cuts(values[fit], ks):
         if len(fit) == n:
             yield k, sample_labels
             continue
-        centres = np.array([values[fit][sample_labels == c].mean(axis=0)
-                            for c in range(sample_labels.max() + 1)])
         yield k, _nearest(values, centres)
+
+
+def ward_cuts(values: np.ndarray, ks: list[int]):
+    """For each k: Ward clustering of ``values`` into k clusters, as (k, labels, centres)."""
+    from scipy.cluster.hierarchy import fcluster, linkage
+
+    # one Ward tree serves every k: cutting it at k clusters is Ward clustering with k
+    tree = linkage(values, method="ward")
+    for k in ks:
+        labels = fcluster(tree, t=k, criterion="maxclust") - 1
+        centres = np.array([values[labels == c].mean(axis=0) for c in range(labels.max() + 1)])
+        yield k, labels, centres
 
 
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
@@ -398,15 +441,13 @@ def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: 
 
     n = len(values)
     fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
-    size = min(min_cluster_size, max(2, len(fit) // 2))
+    size = hdbscan_size(min_cluster_size, len(fit))
     model = HDBSCAN(min_cluster_size=size, copy=True)
     sample_labels = model.fit_predict(values[fit])
-    notes.append(f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are "
-                 "noise (cluster -1).")
+    notes.append(hdbscan_size_note(size))
     if len(fit) == n:
         return sample_labels
-    notes.append(f"HDBSCAN ran on a random sample of {sample_size} of the {n} rows; each other "
-                 "row takes the cluster (or noise) of its nearest sampled row.")
+    notes.append(hdbscan_sample_note(sample_size, n))
     nearest = NearestNeighbors(n_neighbors=1).fit(values[fit])
     index = nearest.kneighbors(values, return_distance=False)[:, 0]
     labels = sample_labels[index]
@@ -472,22 +513,34 @@ def _span(ks: list[int]) -> str:
     return ", ".join(map(str, ks))
 
 
-def _by_size(labels: np.ndarray) -> np.ndarray:
-    """Renumber clusters 0, 1, ... from the largest (ties by first row); noise stays -1."""
+def size_order(labels: np.ndarray) -> dict:
+    """Old cluster number -> new: 0 for the largest cluster (ties by first row), noise -1."""
     labels = np.asarray(labels)
     found = [c for c in dict.fromkeys(labels.tolist()) if c != NOISE]
     order = sorted(found, key=lambda c: -int(np.sum(labels == c)))
     mapping = {old: new for new, old in enumerate(order)}
     mapping[NOISE] = NOISE
-    return np.array([mapping[c] for c in labels.tolist()], dtype=int)
+    return mapping
+
+
+def _by_size(labels: np.ndarray) -> np.ndarray:
+    """Renumber clusters 0, 1, ... from the largest (ties by first row); noise stays -1."""
+    mapping = size_order(labels)
+    return np.array([mapping[c] for c in np.asarray(labels).tolist()], dtype=int)
+
+
+def agreement_scores(truth, labels: np.ndarray) -> dict:
+    """Adjusted Rand index and normalized mutual information of ``labels`` with the label
+    column's values ``truth`` (compared as text)."""
+    from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
+
+    truth = np.array([str(v) for v in truth], dtype=object)
+    return {"ari": float(adjusted_rand_score(truth, labels)),
+            "nmi": float(normalized_mutual_info_score(truth, labels))}
 
 
 def _agreement(table: Table, column: str, rows: np.ndarray, labels: np.ndarray) -> dict:
-    from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
-
-    truth = np.array([str(v) for v in target_values(table, column, rows)], dtype=object)
-    return {"ari": float(adjusted_rand_score(truth, labels)),
-            "nmi": float(normalized_mutual_info_score(truth, labels))}
+    return agreement_scores(target_values(table, column, rows), labels)
 
 
 def profile_values(table: Table, fm: FeatureMatrix) -> tuple[list[str], np.ndarray, list[str]]:
@@ -522,15 +575,23 @@ def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
             rest = means
         else:
             rest = values[~inside].mean(axis=0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            difference = np.where(spread > 0, (means - rest) / spread, 0.0)
-        profiles.append(ClusterProfile(
-            cluster=int(cluster), size=int(inside.sum()),
-            means={name: float(m) for name, m in zip(names, means)},
-            differences={name: float(d) for name, d in zip(names, difference)},
-            distinguished_by=distinguishing_columns(names, kinds, means, rest, difference),
-        ))
+        profiles.append(cluster_profile(int(cluster), int(inside.sum()), names, kinds, means,
+                                        rest, spread))
     return tuple(profiles)
+
+
+def cluster_profile(cluster: int, size: int, names, kinds, means: np.ndarray, rest: np.ndarray,
+                    spread: np.ndarray) -> ClusterProfile:
+    """A cluster's profile from its feature means, those of the other rows (``rest``) and
+    each feature's standard deviation over every row."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        difference = np.where(spread > 0, (means - rest) / spread, 0.0)
+    return ClusterProfile(
+        cluster=cluster, size=size,
+        means={name: float(m) for name, m in zip(names, means)},
+        differences={name: float(d) for name, d in zip(names, difference)},
+        distinguished_by=distinguishing_columns(names, kinds, means, rest, difference),
+    )
 
 
 def distinguishing_columns(names, kinds, means, rest, difference, top: int = 3) -> tuple[str, ...]:

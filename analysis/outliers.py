@@ -264,22 +264,7 @@ class OutliersStep:
             found = self._relations(table, fm.row_ids, notes)
             if found is not None:
                 measures["relations"] = found
-        used = {}
-        for name, measure in measures.items():
-            if np.ptp(measure.scores) > 0:
-                used[name] = measure
-            else:
-                notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
-                             "counted.")
-        standing = {name: rank_standing(m.scores) for name, m in used.items()}
-        combined, breadth = combined_standing(standing, n)
-        # highest score first, then the higher mean standing, then table order
-        order = np.lexsort((np.arange(n), -breadth, -combined))[: self.top].tolist()
-        outliers = tuple(
-            Outlier(rank=rank, row=fm.row_ids[i], score=float(combined[i]),
-                    reasons=outlier_reasons(i, used, standing),
-                    standing={name: float(s[i]) for name, s in standing.items()})
-            for rank, i in enumerate(order, start=1))
+        used, combined, outliers = ranked_list(measures, fm.row_ids, self.top, notes)
         return OutliersResult(
             outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
             measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
@@ -326,7 +311,7 @@ class OutliersStep:
 
     def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
         try:
-            from analysis.relations import RelationsStep, relation_reasons
+            from analysis.relations import RelationsStep
         except ModuleNotFoundError as exc:
             if exc.name != "analysis.relations":
                 raise
@@ -347,25 +332,56 @@ class OutliersStep:
         except StepError as exc:
             notes.append(f"relations not checked: {exc}")
             return None
-        # relation_reasons says which rows break (or sit off) a relation or bound; bounds
-        # attained by almost every row are no reason to look, so only rare attainers count
-        broken_texts = {row: [t for t in texts if not t.startswith("attains ")]
-                        for row, texts in relation_reasons(result).items()}
-        rare: dict = {}
-        for bound in result.bounds:
-            if 0 < bound.attained_count <= RARELY_ATTAINED:
-                others = bound.attained_count - 1
-                company = "alone" if others == 0 else \
-                    f"with {others} other row{'s' if others > 1 else ''}"
-                for row in bound.attained_by:
-                    rare.setdefault(row_id(row), []).append(
-                        f"attains the bound {bound.text} ({company})")
-        texts = [broken_texts.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
-        # the score counts broken relations and bounds; attaining a rare bound is said but
-        # not scored, since the corners of any cloud of points attain some bound
-        counts = np.array([len(broken_texts.get(row_id(r), [])) for r in row_ids], dtype=float)
-        return Measure(counts, None, lambda i, s: bool(texts[i]),
-                        "no row breaks a relation", say_all=lambda i: list(texts[i]))
+        return relations_measure(result, row_ids)
+
+
+def relations_measure(result, row_ids: np.ndarray) -> Measure:
+    """The relations and bounds of ``result`` (a RelationsResult) each row breaks, as a
+    measure over the rows ``row_ids``."""
+    from analysis.relations import relation_reasons
+
+    # relation_reasons says which rows break (or sit off) a relation or bound; bounds
+    # attained by almost every row are no reason to look, so only rare attainers count
+    broken_texts = {row: [t for t in texts if not t.startswith("attains ")]
+                    for row, texts in relation_reasons(result).items()}
+    rare: dict = {}
+    for bound in result.bounds:
+        if 0 < bound.attained_count <= RARELY_ATTAINED:
+            others = bound.attained_count - 1
+            company = "alone" if others == 0 else \
+                f"with {others} other row{'s' if others > 1 else ''}"
+            for row in bound.attained_by:
+                rare.setdefault(row_id(row), []).append(
+                    f"attains the bound {bound.text} ({company})")
+    texts = [broken_texts.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
+    # the score counts broken relations and bounds; attaining a rare bound is said but
+    # not scored, since the corners of any cloud of points attain some bound
+    counts = np.array([len(broken_texts.get(row_id(r), [])) for r in row_ids], dtype=float)
+    return Measure(counts, None, lambda i, s: bool(texts[i]),
+                   "no row breaks a relation", say_all=lambda i: list(texts[i]))
+
+
+def ranked_list(measures: dict, row_ids: np.ndarray, top: int, notes: list[str]):
+    """(measures used, combined score of every row, the ``top`` Outliers) from every
+    measure's scores; measures on which every row scores the same are left out, in a note."""
+    n = len(row_ids)
+    used = {}
+    for name, measure in measures.items():
+        if np.ptp(measure.scores) > 0:
+            used[name] = measure
+        else:
+            notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
+                         "counted.")
+    standing = {name: rank_standing(m.scores) for name, m in used.items()}
+    combined, breadth = combined_standing(standing, n)
+    # highest score first, then the higher mean standing, then table order
+    order = np.lexsort((np.arange(n), -breadth, -combined))[:top].tolist()
+    outliers = tuple(
+        Outlier(rank=rank, row=row_ids[i], score=float(combined[i]),
+                reasons=outlier_reasons(i, used, standing),
+                standing={name: float(s[i]) for name, s in standing.items()})
+        for rank, i in enumerate(order, start=1))
+    return used, combined, outliers
 
 
 @dataclass(frozen=True)
@@ -410,18 +426,24 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
     scale = np.array([typical.get(c, 0.0) for c in clusters])[index]
     with np.errstate(divide="ignore", invalid="ignore"):
         relative = np.where(scale > 0, gap / scale, np.where(gap > 0, np.inf, 0.0))
+    return centre_measure(relative, labels, reference, sizes, k)
 
+
+def centre_measure(relative: np.ndarray, labels: np.ndarray, reference: np.ndarray,
+                   sizes: dict, k: int) -> Measure:
+    """Distance from cluster centre as a measure: ``relative`` distances, each row's cluster
+    (``labels``) and the cluster it is measured from (``reference``), clusters' ``sizes``."""
     def say(i: int, standing: float) -> str:
         times = "infinitely many" if not np.isfinite(relative[i]) else f"{relative[i]:.1f}"
         if reference[i] != labels[i]:
-            return (f"in a cluster of only {sizes[labels[i]]} row(s) (k-means, k = {k}); "
-                    f"{times} times as far from the centre of the nearest large cluster "
-                    f"{reference[i]} as that cluster's typical row")
+            return (f"in a cluster of only {sizes.get(int(labels[i]), 0)} row(s) (k-means, "
+                    f"k = {k}); {times} times as far from the centre of the nearest large "
+                    f"cluster {reference[i]} as that cluster's typical row")
         return (f"{times} times as far from the centre of cluster {labels[i]} as the "
                 f"cluster's typical row (k-means, k = {k})")
 
     return Measure(np.nan_to_num(relative, posinf=np.finfo(float).max), say,
-                    lambda i, s: s >= STANDS_OUT, "no spread within clusters")
+                   lambda i, s: s >= STANDS_OUT, "no spread within clusters")
 
 
 def rank_standing(scores: np.ndarray) -> np.ndarray:
@@ -460,13 +482,32 @@ def _isolation(values: np.ndarray, seed: int) -> Measure:
 
     model = IsolationForest(n_estimators=200, random_state=seed).fit(values)
     # score_samples is minus the anomaly score of the original paper: higher is stranger
-    scores = -model.score_samples(values)
+    return forest_measure(-model.score_samples(values))
 
+
+def forest_measure(scores: np.ndarray) -> Measure:
+    """Isolation forest scores (higher: stranger) as a measure."""
     def say(i: int, standing: float) -> str:
         return (f"isolated by few random cuts: isolation forest score {scores[i]:.2f}, higher "
                 f"than {percent_of_rows(standing)}")
 
     return Measure(scores, say, lambda i, s: s >= STANDS_OUT, "isolation forest")
+
+
+def factor_measure(factor: np.ndarray, neighbours: int) -> Measure:
+    """Local outlier factors against ``neighbours`` nearest neighbours as a measure."""
+    def say(i: int, standing: float) -> str:
+        size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
+        return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
+                f"nearest neighbours, higher than {percent_of_rows(standing)}")
+
+    return Measure(factor, say, lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
+                   "local outlier factor")
+
+
+def factor_sample_note(fitted: int, n: int, seed: int) -> str:
+    return (f"local outlier factor fitted on a random sample of {fitted} of the {n} rows "
+            f"(seed {seed}); the other rows are scored against that sample.")
 
 
 def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int, seed: int,
@@ -485,19 +526,12 @@ def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int
         # a sampled row is its own nearest neighbour in novelty scoring; use its in-sample
         # factor instead
         factor[sample] = -model.negative_outlier_factor_
-        notes.append(f"local outlier factor fitted on a random sample of {sample_size} of the "
-                     f"{n} rows (seed {seed}); the other rows are scored against that sample.")
-
-    def say(i: int, standing: float) -> str:
-        size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
-        return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
-                f"nearest neighbours, higher than {percent_of_rows(standing)}")
-
-    return Measure(factor, say, lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
-                    "local outlier factor")
+        notes.append(factor_sample_note(sample_size, n, seed))
+    return factor_measure(factor, neighbours)
 
 
-def _number_model():
+def number_model():
+    """The separator fitted to a number target: ridge regression on scaled features."""
     from sklearn.linear_model import Ridge
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
@@ -505,7 +539,8 @@ def _number_model():
     return make_pipeline(StandardScaler(), Ridge(alpha=1.0))
 
 
-def _label_model():
+def label_model():
+    """The separator fitted to a label target: logistic regression on scaled features."""
     from sklearn.linear_model import LogisticRegression
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
@@ -513,30 +548,45 @@ def _label_model():
     return make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
 
 
+def number_folds(n: int, seed: int):
+    """The cross-validation folds for a number target on ``n`` rows."""
+    from sklearn.model_selection import KFold
+
+    return KFold(n_splits=min(5, n), shuffle=True, random_state=seed)
+
+
+def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str):
+    """(classes, splits, folds) of the cross-validation for a label target; StepError when
+    every row has one label."""
+    from sklearn.model_selection import StratifiedKFold
+
+    classes, counts = np.unique(labels, return_counts=True)
+    if len(classes) < 2:
+        raise StepError(f"{table_name}: the target {target!r} has one value ({classes[0]!r}) "
+                        "on every row used; a separator needs two or more. Choose another "
+                        "target or leave it unset.")
+    splits = int(min(5, max(2, counts.min())))
+    return classes, splits, StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
+
+
 def _cross_validated(table: Table, target: str, fm, seed: int):
     """The target on the rows used and its cross-validated prediction: for a number
     ``(truth, predicted, None, None)``, for labels ``(labels, probability, classes, splits)``."""
-    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
+    from sklearn.model_selection import cross_val_predict
 
     raw = target_values(table, target, fm.rows)
     if is_numeric_target(table, target):
         truth = np.asarray(raw, dtype=float)
-        folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=seed)
-        return truth, cross_val_predict(_number_model(), fm.values, truth, cv=folds), None, \
+        folds = number_folds(len(truth), seed)
+        return truth, cross_val_predict(number_model(), fm.values, truth, cv=folds), None, \
             folds.n_splits
     labels = np.array([label_text(v) for v in raw], dtype=object)
-    classes, counts = np.unique(labels, return_counts=True)
-    if len(classes) < 2:
-        raise StepError(f"{table.name}: the target {target!r} has one value ({classes[0]!r}) "
-                        "on every row used; a separator needs two or more. Choose another "
-                        "target or leave it unset.")
+    classes, splits, folds = label_folds(labels, seed, table.name, target)
     if len(classes) > MAX_CLASSES:
         raise StepError(f"{table.name}: the target {target!r} has {len(classes)} distinct "
                         f"labels; a separator can judge at most {MAX_CLASSES}. Choose a flag, "
                         "a category or a numeric invariant.")
-    splits = int(min(5, max(2, counts.min())))
-    folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
-    probability = cross_val_predict(_label_model(), fm.values, labels, cv=folds,
+    probability = cross_val_predict(label_model(), fm.values, labels, cv=folds,
                                     method="predict_proba")
     return labels, probability, classes, splits
 
@@ -549,14 +599,7 @@ def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> M
         z = residual / spread
         notes.append(f"separator: {target!r} predicted by a {splits}-fold "
                      "cross-validated ridge regression on standardized features.")
-
-        def say(i: int, standing: float) -> str:
-            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
-                    f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
-                    "cross-validated linear fit)")
-
-        return Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON,
-                        "separator")
+        return residual_measure(target, truth, predicted, z)
     labels, probability = truth, predicted
     index = {c: j for j, c in enumerate(classes)}
     own = np.array([index[c] for c in labels])
@@ -566,13 +609,34 @@ def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> M
     notes.append(f"separator: {target!r} predicted by a {splits}-fold cross-validated logistic "
                  "regression on standardized features; a row scores 1 minus the probability "
                  "given to its own class.")
+    return label_measure(target, 1.0 - p_true, lambda i: classes[guess[i]],
+                         probability[np.arange(len(labels)), guess], labels, guess != own,
+                         boolean)
 
+
+def residual_measure(target: str, truth: np.ndarray, predicted: np.ndarray,
+                     z: np.ndarray) -> Measure:
+    """A number target's cross-validated residuals (``z`` in standard deviations) as a
+    measure."""
     def say(i: int, standing: float) -> str:
-        said = classes[guess[i]]
-        return label_reason(target, said, probability[i, guess[i]], labels[i],
-                            boolean and said in ("True", "False"))
+        return (f"{target} is {number_text(truth[i])} but the other invariants predict "
+                f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
+                "cross-validated linear fit)")
 
-    return Measure(1.0 - p_true, say, lambda i, s: guess[i] != own[i], "separator")
+    return Measure(np.abs(z), say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON, "separator")
+
+
+def label_measure(target: str, scores: np.ndarray, said, probability: np.ndarray, labels,
+                  wrong: np.ndarray, flag: bool) -> Measure:
+    """A label target's cross-validated doubt as a measure: ``said(i)`` is the label the
+    model gives row i, with ``probability[i]``; ``wrong`` marks rows it gets wrong; ``flag``
+    whether the target is a flag (then True and False are said in words)."""
+    def say(i: int, standing: float) -> str:
+        guess = said(i)
+        return label_reason(target, guess, probability[i], labels[i],
+                            flag and guess in ("True", "False"))
+
+    return Measure(scores, say, lambda i, s: wrong[i], "separator")
 
 
 def open_values(table: Table, step, fm, guessed: tuple,
@@ -602,13 +666,13 @@ def open_values(table: Table, step, fm, guessed: tuple,
         if not np.all(truth == np.round(truth)):
             return ()
         chance = float(np.mean(np.round(predicted) == truth))
-        guesses = np.round(_number_model().fit(fm.values, truth).predict(X))
+        guesses = np.round(number_model().fit(fm.values, truth).predict(X))
         said = [int(g) for g in guesses]
         chances = np.full(len(said), chance)
         how = [f"a ridge fit on the other invariants, rounded, predicts {s} (exactly right on "
                f"{chance:.0%} of the known rows, cross-validated)" for s in said]
     else:
-        model = _label_model().fit(fm.values, truth)
+        model = label_model().fit(fm.values, truth)
         probability = model.predict_proba(X)
         said = [str(c) for c in model.classes_[probability.argmax(axis=1)]]
         chances = probability.max(axis=1)

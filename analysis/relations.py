@@ -846,8 +846,7 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
             bad = np.flatnonzero(broken[:, j])
             if 0 < len(bad) <= breakers:
                 candidates.append((vector, bad))
-    candidates.sort(key=lambda c: (len(c[1]), sum(1 for x in c[0][:-1] if x),
-                                   sum(x * x for x in c[0])))
+    candidates.sort(key=lambda c: robust_rank(len(c[1]), c[0]))
     found = []
     for vector, bad in candidates:
         support = [j for j, c in enumerate(vector[:-1]) if c]
@@ -864,15 +863,34 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
             len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
         )
         violations = tuple(row_ids[used[bad]].tolist())
-        note = f"holds on all but {len(bad)} rows"
-        if trivial and len(terms) == 1:
-            note = f"trivial: column '{terms[0][0]}' is constant on all but {len(bad)} rows"
-        elif trivial:
-            note = (f"trivial: columns '{terms[0][0]}' and '{terms[1][0]}' are equal on all "
-                    f"but {len(bad)} rows")
+        note = robust_note([name for name, _ in terms], len(bad), trivial)
         found.append(_relation_from_vector(vector, core, size - len(bad), violations, note,
                                            trivial))
     return found
+
+
+def robust_rank(breaking: int, vector: Sequence[int]) -> tuple:
+    """Sort key of a relation (integer vector, constant last) that ``breaking`` rows break:
+    fewer breaking rows, then fewer columns, then smaller coefficients first."""
+    return breaking, sum(1 for x in vector[:-1] if x), sum(x * x for x in vector)
+
+
+def robust_note(names: Sequence[str], breaking: int, trivial: bool) -> str:
+    """The note of an exact relation over ``names`` that ``breaking`` rows break."""
+    if trivial and len(names) == 1:
+        return f"trivial: column '{names[0]}' is constant on all but {breaking} rows"
+    if trivial and len(names) == 2:
+        return (f"trivial: columns '{names[0]}' and '{names[1]}' are equal on all but "
+                f"{breaking} rows")
+    return f"holds on all but {breaking} rows"
+
+
+def approximate_note(breaking: int) -> str:
+    """The note of an approximate relation that ``breaking`` rows are off."""
+    note = "approximate: the columns hold floating point values"
+    if breaking:
+        note += f"; holds on all but {breaking} rows"
+    return note
 
 
 def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, notes):
@@ -983,6 +1001,63 @@ def _snap(value: float, tolerance: float) -> Fraction:
     return Fraction(f"{value:.12g}")
 
 
+def _null_relations(scaled: np.ndarray, scale: np.ndarray, sample: np.ndarray, names: list,
+                    real_names: set, tolerance: float) -> list[np.ndarray]:
+    """Relations (in table units) that the sampled rows of ``scaled`` nearly obey, in
+    echelon form."""
+    width = scaled.shape[1]
+    _, singular, right = np.linalg.svd(scaled[sample], full_matrices=False)
+    limit = singular[0] * tolerance * math.sqrt(len(sample))
+    null = right[singular <= limit]
+    if len(null) == 0:
+        return []
+    # Echelon form with pivots on real-valued columns first, so each relation names one
+    # real column in terms of the others.
+    null = null.copy()
+    order = [j for j in range(width - 1) if names[j] in real_names] + [
+        j for j in range(width - 1) if names[j] not in real_names
+    ]
+    pivots = []
+    for row in range(len(null)):
+        choices = [j for j in order if j not in pivots]
+        if not choices:
+            break
+        sizes = {j: float(abs(null[row:, j]).max()) for j in choices}
+        largest = max(sizes.values())
+        if largest == 0:
+            break
+        best = next(j for j in choices if sizes[j] >= 0.1 * largest)
+        swap = row + int(np.argmax(abs(null[row:, best])))
+        null[[row, swap]] = null[[swap, row]]
+        null[row] /= null[row, best]
+        for other in range(len(null)):
+            if other != row:
+                null[other] -= null[other, best] * null[row]
+        pivots.append(best)
+    return [vector / scale for vector in null[: len(pivots)]]
+
+
+def approximately_off(values: np.ndarray, coefs: np.ndarray, tolerance: float) -> np.ndarray:
+    """Which rows of ``values`` (a last column of ones for the constant) are off the
+    approximate relation ``values @ coefs = 0``, beyond ``tolerance`` relative to its terms."""
+    residual = np.abs(values @ coefs)
+    size_of_terms = np.abs(values) @ np.abs(coefs)
+    return ~(residual <= tolerance * np.maximum(size_of_terms, 1e-300))
+
+
+def _known_vectors(known: list[tuple[dict, Fraction]], names: list, scale: np.ndarray) -> list:
+    """The exact relations among ``names`` as scaled float vectors (constant last)."""
+    tracker_rows: list[np.ndarray] = []
+    for coefs, constant in known:
+        if set(coefs) <= set(names):
+            vector = np.zeros(len(names) + 1)
+            for name, coef in coefs.items():
+                vector[names.index(name)] = float(coef)
+            vector[-1] = -float(constant)
+            tracker_rows.append(vector * scale)
+    return tracker_rows
+
+
 def _approximate_relations(
     data: dict, real_names: set, row_ids, *, tolerance, breakers_setting, robust, rng,
     known: list[tuple[dict, Fraction]], notes,
@@ -1006,51 +1081,13 @@ def _approximate_relations(
     scale[scale == 0] = 1.0
     scaled = values / scale
 
-    def candidates_from(sample: np.ndarray) -> list[np.ndarray]:
-        _, singular, right = np.linalg.svd(scaled[sample], full_matrices=False)
-        limit = singular[0] * tolerance * math.sqrt(len(sample))
-        null = right[singular <= limit]
-        if len(null) == 0:
-            return []
-        # Echelon form with pivots on real-valued columns first, so each relation names one
-        # real column in terms of the others.
-        null = null.copy()
-        order = [j for j in range(width - 1) if names[j] in real_names] + [
-            j for j in range(width - 1) if names[j] not in real_names
-        ]
-        pivots = []
-        for row in range(len(null)):
-            choices = [j for j in order if j not in pivots]
-            if not choices:
-                break
-            sizes = {j: float(abs(null[row:, j]).max()) for j in choices}
-            largest = max(sizes.values())
-            if largest == 0:
-                break
-            best = next(j for j in choices if sizes[j] >= 0.1 * largest)
-            swap = row + int(np.argmax(abs(null[row:, best])))
-            null[[row, swap]] = null[[swap, row]]
-            null[row] /= null[row, best]
-            for other in range(len(null)):
-                if other != row:
-                    null[other] -= null[other, best] * null[row]
-            pivots.append(best)
-        return [vector / scale for vector in null[: len(pivots)]]
-
     samples = [np.sort(rng.choice(size, size=min(size, 20_000), replace=False))]
     if breakers:
         small = min(size, 2 * width + 10)
         samples += [np.sort(rng.choice(size, size=small, replace=False))
                     for _ in range(_trials_needed(breakers, size, small))]
 
-    tracker_rows: list[np.ndarray] = []
-    for coefs, constant in known:
-        if set(coefs) <= set(names):
-            vector = np.zeros(width)
-            for name, coef in coefs.items():
-                vector[names.index(name)] = float(coef)
-            vector[-1] = -float(constant)
-            tracker_rows.append(vector * scale)
+    tracker_rows = _known_vectors(known, names, scale)
 
     def independent(vector: np.ndarray) -> bool:
         stacked = np.vstack(tracker_rows + [vector * scale])
@@ -1059,7 +1096,7 @@ def _approximate_relations(
 
     found: list[tuple[int, Relation]] = []
     for sample in samples:
-        for vector in candidates_from(sample):
+        for vector in _null_relations(scaled, scale, sample, names, real_names, tolerance):
             lead = max(range(width - 1), key=lambda j: abs(vector[j]) * scale[j])
             vector = vector / vector[lead]
             sizes = np.abs(vector) * scale
@@ -1068,17 +1105,12 @@ def _approximate_relations(
                 continue  # among exact columns only: the exact search covers it
             snapped = [_snap(float(x), tolerance) for x in vector]
             coefs = np.array([float(x) for x in snapped])
-            residual = np.abs(values @ coefs)
-            size_of_terms = np.abs(values) @ np.abs(coefs)
-            ok = residual <= tolerance * np.maximum(size_of_terms, 1e-300)
-            bad = np.flatnonzero(~ok)
+            bad = np.flatnonzero(approximately_off(values, coefs, tolerance))
             if len(bad) > breakers or not independent(coefs):
                 continue
             tracker_rows.append(coefs * scale)
             terms = tuple((names[j], snapped[j]) for j in range(width - 1) if snapped[j])
-            note = "approximate: the columns hold floating point values"
-            if len(bad):
-                note += f"; holds on all but {len(bad)} rows"
+            note = approximate_note(len(bad))
             trivial = len(terms) == 1 or (
                 len(terms) == 2 and terms[0][1] == -terms[1][1] and snapped[-1] == 0)
             if trivial:
@@ -1107,7 +1139,7 @@ def _cross(o, a, b):
     return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
 
 
-def _hull_2d(points) -> list[tuple]:
+def hull_2d(points) -> list[tuple]:
     """Vertices of the convex hull, counterclockwise, exact, without points mid-edge."""
     points = sorted(set(points))
     if len(points) < 3:
@@ -1339,18 +1371,18 @@ def _combine(coefs, arrays):
 def _exact_hull(candidates: np.ndarray) -> list[tuple]:
     """Exact hull of many points: a floating point hull picks candidates, exact checks decide."""
     if candidates.dtype == object or len(candidates) <= 4000:
-        return _hull_2d([tuple(p) for p in candidates.tolist()])
+        return hull_2d([tuple(p) for p in candidates.tolist()])
     from scipy.spatial import ConvexHull, QhullError
 
     as_float = candidates.astype(np.float64)
     try:
         equations = ConvexHull(as_float).equations
     except QhullError:
-        return _hull_2d([tuple(p) for p in candidates.tolist()])
+        return hull_2d([tuple(p) for p in candidates.tolist()])
     margin = 1e-9 * (1.0 + float(np.abs(as_float).max()))
     keep = (as_float @ equations[:, :2].T + equations[:, 2]).max(axis=1) >= -margin
     while True:
-        hull = _hull_2d([tuple(p) for p in candidates[keep].tolist()])
+        hull = hull_2d([tuple(p) for p in candidates[keep].tolist()])
         outside = np.zeros(len(candidates), dtype=bool)
         for a, b, c in _edges(hull):
             outside |= _combine((a, b), (candidates[:, 0], candidates[:, 1])) > c
@@ -1431,6 +1463,29 @@ def _unscaled(coefs, scales) -> tuple[list[int], int]:
     return [c // divisor for c in shown], divisor
 
 
+def _listed_phrase(attaining: int) -> str:
+    return f"the first {MAX_LISTED_ROWS} of {attaining} attaining rows are listed"
+
+
+def listed_note(note: str, attaining: int) -> str:
+    """``note``, saying that only the first ``MAX_LISTED_ROWS`` attaining rows are listed when
+    ``attaining`` rows attain the bound."""
+    if attaining <= MAX_LISTED_ROWS:
+        return note
+    return (note + "; " if note else "") + _listed_phrase(attaining)
+
+
+def recounted_note(bound: Bound, attaining: int) -> str:
+    """The note of ``bound`` as it reads when ``attaining`` rows attain it (not the
+    ``bound.attained_count`` it was found with): what it said before saying how many
+    attaining rows are listed, and that count again."""
+    parts = bound.note.split("; ") if bound.note else []
+    listed = _listed_phrase(bound.attained_count)
+    if listed in parts:
+        parts = parts[:parts.index(listed)]
+    return listed_note("; ".join(parts), attaining)
+
+
 def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
     """Bound sum(coefs*columns) <= constant, judged on the distinct points.
 
@@ -1455,9 +1510,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scale
     attaining_rows = points.rows_at(attained)
     breaking_rows = points.rows_at(broken)
     terms, relation, shown = _oriented(list(zip(names, shown_coefs)), shown_constant)
-    if len(attaining_rows) > MAX_LISTED_ROWS:
-        note = (note + "; " if note else "") + (
-            f"the first {MAX_LISTED_ROWS} of {len(attaining_rows)} attaining rows are listed")
+    note = listed_note(note, len(attaining_rows))
     return Bound(
         terms=tuple(terms),
         relation=relation,
@@ -1590,7 +1643,7 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
             if len(left):
                 candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
                 candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
-            current = _hull_2d(candidates)
+            current = hull_2d(candidates)
             hulls_left -= 1
             if len(current) < 3:
                 break
@@ -1851,6 +1904,26 @@ def check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
         raise StepError(f"relations: seed must be a whole number, got {seed!r}")
 
 
+def _approximate_columns(real_columns: Mapping, columns: dict, notes: list[str]) -> dict:
+    """The columns of the approximate search: the real ones, then exact ones as floats."""
+    data = {name: np.asarray(values, dtype=np.float64) for name, values in real_columns.items()}
+    # Exact columns join to relate the real ones to them; one with missing values would
+    # take those rows out of the whole search, so it stays out.
+    extra = [name for name in columns if name not in data and not columns[name][1].any()]
+    room = MAX_APPROXIMATE_COLUMNS - len(data)
+    if room < len(extra):
+        notes.append(
+            f"approximate relations searched with {max(room, 0)} of the {len(extra)} exact "
+            "columns besides the real-valued ones"
+        )
+    for name in extra[: max(room, 0)]:
+        values, missing = columns[name]
+        as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
+        as_float[missing] = np.nan
+        data[name] = as_float
+    return data
+
+
 def find_relations(
     exact_columns: Mapping[str, Sequence],
     real_columns: Mapping[str, Sequence[float]] | None = None,
@@ -1914,21 +1987,7 @@ def find_relations(
 
     approximate: list[Relation] = []
     if real_columns and n:
-        data = {name: np.asarray(values, dtype=np.float64) for name, values in real_columns.items()}
-        # Exact columns join to relate the real ones to them; one with missing values would
-        # take those rows out of the whole search, so it stays out.
-        extra = [name for name in names if name not in data and not columns[name][1].any()]
-        room = MAX_APPROXIMATE_COLUMNS - len(data)
-        if room < len(extra):
-            notes.append(
-                f"approximate relations searched with {max(room, 0)} of the {len(extra)} exact "
-                "columns besides the real-valued ones"
-            )
-        for name in extra[: max(room, 0)]:
-            values, missing = columns[name]
-            as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
-            as_float[missing] = np.nan
-            data[name] = as_float
+        data = _approximate_columns(real_columns, columns, notes)
         progress.phase("approximate relations among real columns")
         approximate = _approximate_relations(
             data, set(real_columns), row_ids, tolerance=float(tolerance),

@@ -20,8 +20,14 @@ import warnings
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, plan_for, tree
-from analysis.distributed.projection import block_moments, merge_moments
+from analysis.distributed.common import (
+    Context,
+    blocks_for,
+    feature_moments,
+    plan_for,
+    standardizing,
+    tree,
+)
 from analysis.errors import StepError
 
 # Rows of the sample that starting centres and sample-fitted methods use.
@@ -61,19 +67,12 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     from analysis import clustering as cl
 
     started = time.perf_counter()
-    from analysis.distributed.matrix import add_counts, block_counts, feature_notes
+    from analysis.distributed.matrix import feature_notes
 
-    stats, counts, kept_per_block = ctx.compute([
-        tree([delayed(block_moments)(b) for b in blocks], merge_moments),
-        tree([delayed(block_counts)(b) for b in blocks], add_counts),
-        [delayed(kept_rows)(b) for b in blocks],
-    ])
+    stats, counts, kept_per_block = feature_moments(ctx, blocks)
     notes = feature_notes(plan, counts, ctx.table.n_rows)
     n, mean, m2 = stats
-    scale = spread_scale(n, mean, m2) if step.standardize else np.ones(len(mean))
-    shift = mean if step.standardize else np.zeros(len(mean))
-    notes.append("features standardized to mean 0 and standard deviation 1."
-                 if step.standardize else "features used in their own units.")
+    shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
     offsets = np.concatenate([[0], np.cumsum(kept_per_block)[:-1]]).astype(np.int64)
     sample = gather_rows(ctx, blocks, kept_per_block, offsets,
@@ -106,19 +105,14 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     pieces = ctx.compute([delayed(_assign_block)(b, chosen_assigner, shift, scale)
                           for b in blocks])
     labels = np.concatenate([p[2] for p in pieces])
-    order = _size_order(labels)
+    order = cl.size_order(labels)
     labels = np.array([order[c] for c in labels.tolist()], dtype=int)
     row_ids = np.concatenate([p[1] for p in pieces])
     positions = np.concatenate([p[0] for p in pieces])
     profiles = _profiles(ctx, plan, blocks, chosen_assigner, order, shift, scale, n, mean, m2)
     agreement = None
     if step.compare is not None:
-        truth = np.concatenate([p[3] for p in pieces])
-        from sklearn.metrics import adjusted_rand_score, normalized_mutual_info_score
-
-        truth = np.array([str(v) for v in truth], dtype=object)
-        agreement = {"ari": float(adjusted_rand_score(truth, labels)),
-                     "nmi": float(normalized_mutual_info_score(truth, labels))}
+        agreement = cl.agreement_scores(np.concatenate([p[3] for p in pieces]), labels)
     k = int(len(set(labels.tolist()) - {cl.NOISE}))
     result = cl.ClusteringResult(
         method=chosen_entry.method, k=k, row_ids=row_ids, positions=positions, labels=labels,
@@ -128,19 +122,6 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
         notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
     )
     return Clusters(result, chosen_assigner, order, shift, scale)
-
-
-def kept_rows(block) -> int:
-    return len(block.positions)
-
-
-def spread_scale(n, mean, m2) -> np.ndarray:
-    variance = np.diag(m2) / n
-    eps = np.finfo(np.float64).eps
-    constant = variance <= n * eps * variance + (n * mean * eps) ** 2
-    scale = np.sqrt(variance)
-    scale[constant | (scale == 0)] = 1.0
-    return scale
 
 
 def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
@@ -170,9 +151,10 @@ def _take(block, local, shift, scale):
 def _silhouette(values: np.ndarray, labels: np.ndarray):
     from sklearn.metrics import silhouette_score
 
-    clustered = labels != -1
-    distinct = len(set(labels[clustered].tolist()))
-    if distinct < 2 or distinct >= int(clustered.sum()):
+    from analysis.clustering import NOISE, silhouette_defined
+
+    clustered = labels != NOISE
+    if not silhouette_defined(labels):
         return None
     return float(silhouette_score(values[clustered], labels[clustered]))
 
@@ -235,42 +217,28 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
             _, centres = cl.kmeans_labels(sample, k, step.seed)
             yield k, _Lloyd(centres), None, None
     elif method == "gmm":
-        from sklearn.mixture import GaussianMixture
-
         if len(sample) < n:
-            notes.append(f"Gaussian mixtures fitted on a random sample of {len(sample)} of the "
-                         f"{n} rows; every row then joins its most likely component.")
+            notes.append(cl.mixture_note(len(sample), n))
         for k in ks:
-            model = GaussianMixture(n_components=k, covariance_type="full",
-                                    random_state=step.seed).fit(sample)
+            model = cl.mixture_model(sample, k, step.seed)
             yield k, MixtureAssigner(model), float(model.bic(sample)), None
     elif method == "agglomerative":
-        from scipy.cluster.hierarchy import fcluster, linkage
-
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         if len(fit) < n:
-            notes.append(f"agglomerative clustering (Ward) built on a random sample of "
-                         f"{len(fit)} of the {n} rows; the other rows join the cluster with "
-                         "the nearest mean.")
-        links = linkage(fit, method="ward")
-        for k in ks:
-            labels = fcluster(links, t=k, criterion="maxclust") - 1
-            centres = np.array([fit[labels == c].mean(axis=0) for c in range(labels.max() + 1)])
+            notes.append(cl.agglomerative_note(len(fit), n))
+        for k, _, centres in cl.ward_cuts(fit, ks):
             yield k, NearestCentre(centres), None, None
     elif method == "hdbscan":
         from sklearn.cluster import HDBSCAN
 
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
-        size = min(step.min_cluster_size, max(2, len(fit) // 2))
+        size = cl.hdbscan_size(step.min_cluster_size, len(fit))
         labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(fit)
-        notes.append(f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are "
-                     "noise (cluster -1).")
+        notes.append(cl.hdbscan_size_note(size))
         if len(fit) < n:
-            notes.append(f"HDBSCAN ran on a random sample of {len(fit)} of the {n} rows; each "
-                         "other row takes the cluster (or noise) of its nearest sampled row.")
+            notes.append(cl.hdbscan_sample_note(len(fit), n))
         if step.k is not None:
-            notes.append(f"HDBSCAN finds its own number of clusters; k = {step.k} was not "
-                         "used.")
+            notes.append(cl.hdbscan_k_note(step.k))
         yield None, NearestSampled(fit, labels), None, None
     else:
         raise StepError(f"clustering method {method!r} is not available on the dask engine.")
@@ -344,16 +312,6 @@ def _assign_block(block, assigner, shift, scale):
     return block.positions, block.row_ids, np.asarray(labels, dtype=int), truth
 
 
-def _size_order(labels: np.ndarray) -> dict:
-    """Old label -> new label, 0 for the largest cluster (ties by first row), noise -1."""
-    found = [c for c in dict.fromkeys(labels.tolist()) if c != -1]
-    sizes = {c: int(np.sum(labels == c)) for c in found}
-    order = sorted(found, key=lambda c: -sizes[c])
-    mapping = {old: new for new, old in enumerate(order)}
-    mapping[-1] = -1
-    return mapping
-
-
 def _choose(cl, step, runs: list):
     """The in-memory rule for choosing a run, with Lloyd refinement of the k-means runs."""
     pairs = [(entry, _Placeholder(i)) for i, (entry, _, _) in enumerate(runs)]
@@ -385,14 +343,8 @@ def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> 
         size, inside_sum = sums[cluster]
         means = inside_sum / size
         rest = means if size == n else (total - inside_sum) / (n - size)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            difference = np.where(spread > 0, (means - rest) / spread, 0.0)
-        profiles.append(cl.ClusterProfile(
-            cluster=int(order[cluster]), size=int(size),
-            means={name: float(m) for name, m in zip(names, means)},
-            differences={name: float(d) for name, d in zip(names, difference)},
-            distinguished_by=cl.distinguishing_columns(names, kinds, means, rest, difference),
-        ))
+        profiles.append(cl.cluster_profile(int(order[cluster]), int(size), names, kinds, means,
+                                           rest, spread))
     return tuple(profiles)
 
 

@@ -58,6 +58,72 @@ def blocks_for(ctx: Context, plan: FeaturePlan, *, persist: bool | None = None) 
     return feature_blocks(ctx.table, plan, ctx.client, persist=persist)
 
 
+def feature_moments(ctx: Context, blocks: list) -> tuple:
+    """((rows, mean, centred Gram matrix) of the features, the row counts summed over
+    partitions, the kept rows of each block), in one pass."""
+    from dask import delayed
+
+    from analysis.distributed.matrix import add_counts, block_counts
+
+    return ctx.compute([
+        tree([delayed(block_moments)(b) for b in blocks], merge_moments),
+        tree([delayed(block_counts)(b) for b in blocks], add_counts),
+        [delayed(_kept_rows)(b) for b in blocks],
+    ])
+
+
+def _kept_rows(block) -> int:
+    return len(block.positions)
+
+
+def block_moments(block) -> tuple[int, np.ndarray, np.ndarray]:
+    """(rows, mean, centred Gram matrix) of one block's features."""
+    values = block.values
+    n = len(values)
+    if n == 0:
+        p = values.shape[1]
+        return 0, np.zeros(p), np.zeros((p, p))
+    mean = values.mean(axis=0)
+    centred = values - mean
+    return n, mean, centred.T @ centred
+
+
+def merge_moments(a, b):
+    """Merge two (rows, mean, centred Gram) triples (Chan, Golub and LeVeque's update)."""
+    na, mean_a, m2_a = a
+    nb, mean_b, m2_b = b
+    n = na + nb
+    if na == 0:
+        return b
+    if nb == 0:
+        return a
+    delta = mean_b - mean_a
+    mean = mean_a + delta * (nb / n)
+    m2 = m2_a + m2_b + np.outer(delta, delta) * (na * nb / n)
+    return n, mean, m2
+
+
+def spread_scale(n, mean, m2) -> np.ndarray:
+    """Each feature's population standard deviation from moments, 1 for a feature that
+    scikit-learn's ``StandardScaler`` counts as constant (variance at rounding level)."""
+    variance = np.diag(m2) / n
+    eps = np.finfo(np.float64).eps
+    constant = variance <= n * eps * variance + (n * mean * eps) ** 2
+    scale = np.sqrt(variance)
+    scale[constant | (scale == 0)] = 1.0
+    return scale
+
+
+def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
+    """(shift, scale) that standardize the features, or leave them in their own units, and
+    the note saying which."""
+    notes.append("features standardized to mean 0 and standard deviation 1."
+                 if standardize else "features used in their own units.")
+    if standardize:
+        return mean, spread_scale(n, mean, m2)
+    return np.zeros(len(mean)), np.ones(len(mean))
+
+
 def _medians(ctx: Context, plan: FeaturePlan) -> dict:
     """Median of each feature over the rows where it is present (np.median's convention)."""
     from dask import delayed
@@ -137,4 +203,5 @@ def with_notes(result, extra: list[str]):
     return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
 
 
-__all__ = ["Context", "blocks_for", "plan_for", "tree", "with_notes"]
+__all__ = ["Context", "block_moments", "blocks_for", "feature_moments", "merge_moments",
+           "plan_for", "spread_scale", "standardizing", "tree", "with_notes"]

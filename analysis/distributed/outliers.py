@@ -26,7 +26,13 @@ import warnings
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.distributed.common import (
+    Context,
+    blocks_for,
+    feature_moments,
+    plan_for,
+    standardizing,
+)
 from analysis.errors import StepError
 
 # Rows the isolation forest and the separator are fitted on.
@@ -38,9 +44,7 @@ def run_outliers(step, ctx: Context):
     from dask import delayed
 
     from analysis import outliers as ol
-    from analysis.distributed.clustering import kept_rows
-    from analysis.distributed.matrix import add_counts, block_counts, feature_notes
-    from analysis.distributed.projection import block_moments, merge_moments
+    from analysis.distributed.matrix import feature_notes
 
     started = time.perf_counter()
     step.check_table(ctx.table)
@@ -48,23 +52,16 @@ def run_outliers(step, ctx: Context):
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
     blocks = blocks_for(ctx, plan)
-    stats, counts, kept = ctx.compute([
-        tree([delayed(block_moments)(b) for b in blocks], merge_moments),
-        tree([delayed(block_counts)(b) for b in blocks], add_counts),
-        [delayed(kept_rows)(b) for b in blocks],
-    ])
+    stats, counts, kept = feature_moments(ctx, blocks)
     n, mean, m2 = stats
     if n < 5:
         raise StepError(f"{ctx.table.name}: ranking objects needs at least 5 rows with every "
                         f"feature present; {n} remain. Impute missing values or choose other "
                         "columns.")
     notes = feature_notes(plan, counts, ctx.table.n_rows)
-    from analysis.distributed.clustering import gather_rows, sample_rows, spread_scale
+    from analysis.distributed.clustering import gather_rows, sample_rows
 
-    shift = mean if step.standardize else np.zeros(len(mean))
-    scale = spread_scale(n, mean, m2) if step.standardize else np.ones(len(mean))
-    notes.append("features standardized to mean 0 and standard deviation 1."
-                 if step.standardize else "features used in their own units.")
+    shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     offsets = np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64)
     lof_rows = sample_rows(n, step.sample_size, step.seed)
     lof_sample = gather_rows(ctx, blocks, kept, offsets, lof_rows, shift, scale)
@@ -86,9 +83,7 @@ def run_outliers(step, ctx: Context):
         models["local outlier factor"] = LocalOutlierFactor(
             n_neighbors=neighbours, novelty=len(lof_rows) < n).fit(lof_sample)
         if len(lof_rows) < n:
-            notes.append(f"local outlier factor fitted on a random sample of {len(lof_rows)} "
-                         f"of the {n} rows (seed {step.seed}); the other rows are scored "
-                         "against that sample.")
+            notes.append(ol.factor_sample_note(len(lof_rows), n, step.seed))
     clusters = _clusters(step, ctx, plan, blocks, notes)
     typical, sizes = _typical_distances(clusters, lof_sample)
     separator = None
@@ -111,21 +106,7 @@ def run_outliers(step, ctx: Context):
         found = _relations(ctx, step, plan, row_ids, notes)
         if found is not None:
             used["relations"] = found
-    kept_measures = {}
-    for name, measure in used.items():
-        if np.ptp(measure.scores) > 0:
-            kept_measures[name] = measure
-        else:
-            notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
-                         "counted.")
-    standing = {name: ol.rank_standing(m.scores) for name, m in kept_measures.items()}
-    combined, breadth = ol.combined_standing(standing, n)
-    order = np.lexsort((np.arange(n), -breadth, -combined))[: step.top]
-    outliers = tuple(
-        ol.Outlier(rank=rank, row=row_ids[i], score=float(combined[i]),
-                   reasons=ol.outlier_reasons(i, kept_measures, standing),
-                   standing={name: float(s[i]) for name, s in standing.items()})
-        for rank, i in enumerate(order.tolist(), start=1))
+    kept_measures, combined, outliers = ol.ranked_list(used, row_ids, step.top, notes)
     return ol.OutliersResult(
         outliers=outliers, row_ids=row_ids, positions=positions, scores=combined,
         measures=tuple(kept_measures), target=step.target, k=clusters.result.k, n_rows=n,
@@ -173,22 +154,18 @@ def _typical_distances(clusters, sample: np.ndarray):
 
 def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, scale, notes):
     """A fit on the sample, and cross-validated scores for the sample's own rows."""
-    from sklearn.linear_model import LogisticRegression, Ridge
-    from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
+    from sklearn.model_selection import cross_val_predict
 
+    from analysis import outliers as ol
     from analysis.distributed.clustering import gather_rows
+    from analysis.features import is_numeric_target
 
     values = gather_rows(ctx, blocks, kept, offsets, fit_rows, np.zeros(len(shift)),
                           np.ones(len(scale)))
     targets = _gather_targets(ctx, blocks, kept, offsets, fit_rows)
-    info = ctx.table.column(step.target)
-    numeric = info.role == "invariant" and info.distinct > 12
-    if numeric:
+    if is_numeric_target(ctx.table, step.target):
         truth = np.asarray(targets, dtype=float)
-        model = make_pipeline(StandardScaler(), Ridge(alpha=1.0))
-        folds = KFold(n_splits=min(5, len(truth)), shuffle=True, random_state=step.seed)
+        model, folds = ol.number_model(), ol.number_folds(len(truth), step.seed)
         inside = cross_val_predict(model, values, truth, cv=folds)
         model.fit(values, truth)
         spread = float(np.std(truth - inside)) or 1.0
@@ -198,14 +175,8 @@ def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, sc
         return {"numeric": True, "model": model, "inside": inside, "rows": fit_rows,
                 "spread": spread, "classes": None}
     labels = np.array([str(v) for v in targets], dtype=object)
-    classes, counts = np.unique(labels, return_counts=True)
-    if len(classes) < 2:
-        raise StepError(f"{ctx.table.name}: the target {step.target!r} has one value "
-                        f"({classes[0]!r}) on every row used; a separator needs two or more. "
-                        "Choose another target or leave it unset.")
-    splits = int(min(5, max(2, counts.min())))
-    folds = StratifiedKFold(n_splits=splits, shuffle=True, random_state=step.seed)
-    model = make_pipeline(StandardScaler(), LogisticRegression(max_iter=2000))
+    classes, splits, folds = ol.label_folds(labels, step.seed, ctx.table.name, step.target)
+    model = ol.label_model()
     inside = cross_val_predict(model, values, labels, cv=folds, method="predict_proba")
     model.fit(values, labels)
     notes.append(f"separator: {step.target!r} predicted by a {splits}-fold cross-validated "
@@ -213,7 +184,7 @@ def _separator_model(step, ctx, plan, blocks, kept, offsets, fit_rows, shift, sc
                  "the fit on the whole sample; a row scores 1 minus the probability given to "
                  "its own class.")
     return {"numeric": False, "model": model, "inside": inside, "rows": fit_rows,
-            "classes": classes, "boolean": info.dtype == "boolean"}
+            "classes": classes, "boolean": ctx.table.column(step.target).dtype == "boolean"}
 
 
 def _gather_targets(ctx, blocks, kept, offsets, wanted):
@@ -305,79 +276,38 @@ def _separator_scores(block, values, index, spec) -> dict:
 
 def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int, notes):
     """The in-memory step's measures (scores and how to say why) from the gathered scores."""
-    from analysis.outliers import STANDS_OUT, Measure, percent_of_rows
-
-    used = {}
-    forest = measures["isolation forest"]
-    used["isolation forest"] = Measure(
-        forest, lambda i, s: (f"isolated by few random cuts: isolation forest score "
-                              f"{forest[i]:.2f}, higher than {percent_of_rows(s)}"),
-        lambda i, s: s >= STANDS_OUT, "isolation forest")
-    factor = measures["local outlier factor"]
-
-    def say_lof(i, s):
-        size = "above 1000" if factor[i] > 1000 else f"{factor[i]:.1f}"
-        return (f"in a sparse spot: local outlier factor {size} against its {neighbours} "
-                f"nearest neighbours, higher than {percent_of_rows(s)}")
-
-    used["local outlier factor"] = Measure(factor, say_lof,
-                                            lambda i, s: s >= STANDS_OUT and factor[i] > 1.0,
-                                            "local outlier factor")
-    relative = measures["distance from cluster centre"]
-    labels, reference = details["label"], details["reference"]
-    k = clusters.result.k
     sizes = {p.cluster: p.size for p in clusters.result.profiles}
-
-    def say_centre(i, s):
-        times = "infinitely many" if not np.isfinite(relative[i]) else f"{relative[i]:.1f}"
-        if reference[i] != labels[i]:
-            return (f"in a cluster of only {sizes.get(int(labels[i]), 0)} row(s) (k-means, "
-                    f"k = {k}); {times} times as far from the centre of the nearest large "
-                    f"cluster {reference[i]} as that cluster's typical row")
-        return (f"{times} times as far from the centre of cluster {labels[i]} as the "
-                f"cluster's typical row (k-means, k = {k})")
-
-    used["distance from cluster centre"] = Measure(
-        np.nan_to_num(relative, posinf=np.finfo(float).max), say_centre,
-        lambda i, s: s >= STANDS_OUT, "no spread within clusters")
+    used = {
+        "isolation forest": ol.forest_measure(measures["isolation forest"]),
+        "local outlier factor": ol.factor_measure(measures["local outlier factor"], neighbours),
+        "distance from cluster centre": ol.centre_measure(
+            measures["distance from cluster centre"], details["label"], details["reference"],
+            sizes, clusters.result.k),
+    }
     if "separator" in measures:
-        used["separator"] = _separator_measure(step, measures["separator"], details)
+        used["separator"] = _separator_measure(ol, step, measures["separator"], details)
     notes.append("typical distances from cluster centres are medians over the rows of the "
                  "local outlier factor's sample.")
     return used
 
 
-def _separator_measure(step, scores, details):
-    from analysis.outliers import RESIDUAL_REASON, Measure, label_reason, number_text
-
-    target = step.target
+def _separator_measure(ol, step, scores, details):
     if "z" in details:
-        truth, predicted, z = details["truth"], details["predicted"], details["z"]
-
-        def say(i, s):
-            return (f"{target} is {number_text(truth[i])} but the other invariants predict "
-                    f"{predicted[i]:.3g} ({abs(z[i]):.1f} residual standard deviations, "
-                    "cross-validated linear fit)")
-
-        return Measure(scores, say, lambda i, s: abs(z[i]) >= RESIDUAL_REASON, "separator")
-    guess, truth = details["guess"], details["truth_index"]
-    probability, labels = details["guess_probability"], details["labels"]
+        return ol.residual_measure(step.target, details["truth"], details["predicted"],
+                                   details["z"])
+    guess, labels = details["guess"], details["labels"]
     classes = sorted(set(labels.tolist()))
-
-    def say_class(i, s):
-        said = classes[guess[i]] if guess[i] < len(classes) else str(guess[i])
-        return label_reason(target, said, probability[i], labels[i],
-                            said in ("True", "False"))
-
-    return Measure(scores, say_class, lambda i, s: guess[i] != truth[i], "separator")
+    return ol.label_measure(
+        step.target, scores,
+        lambda i: classes[guess[i]] if guess[i] < len(classes) else str(guess[i]),
+        details["guess_probability"], labels, guess != details["truth_index"], True)
 
 
 def _relations(ctx, step, plan, row_ids, notes):
     """The relations step on Dask, as a measure: relations and bounds each row breaks."""
     from analysis.distributed.relations import run_relations
-    from analysis.outliers import RARELY_ATTAINED, Measure
-    from analysis.plain import row_id
-    from analysis.relations import RelationsStep, relation_reasons
+    from analysis.outliers import relations_measure
+    from analysis.relations import RelationsStep
 
     columns = None
     if step.columns is not None:
@@ -395,21 +325,7 @@ def _relations(ctx, step, plan, row_ids, notes):
     except StepError as exc:
         notes.append(f"relations not checked: {exc}")
         return None
-    broken = {row: [t for t in texts if not t.startswith("attains ")]
-              for row, texts in relation_reasons(result).items()}
-    rare: dict = {}
-    for bound in result.bounds:
-        if 0 < bound.attained_count <= RARELY_ATTAINED:
-            others = bound.attained_count - 1
-            company = "alone" if others == 0 else \
-                f"with {others} other row{'s' if others > 1 else ''}"
-            for row in bound.attained_by:
-                rare.setdefault(row_id(row), []).append(
-                    f"attains the bound {bound.text} ({company})")
-    texts = [broken.get(row_id(r), []) + rare.get(row_id(r), []) for r in row_ids]
-    counts = np.array([len(broken.get(row_id(r), [])) for r in row_ids], dtype=float)
-    return Measure(counts, None, lambda i, s: bool(texts[i]), "no row breaks a relation",
-                    say_all=lambda i: list(texts[i]))
+    return relations_measure(result, row_ids)
 
 
 __all__ = ["run_outliers"]

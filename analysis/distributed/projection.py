@@ -18,7 +18,7 @@ import time
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.distributed.common import Context, blocks_for, feature_moments, plan_for, spread_scale
 from analysis.errors import StepError
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
@@ -40,8 +40,7 @@ def run_projection(step, ctx: Context):
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
     blocks = blocks_for(ctx, plan)
-    stats, counts = ctx.compute([tree([_stats_task(b) for b in blocks], merge_moments),
-                                 _counts_task(ctx, blocks)])
+    stats, counts, _ = feature_moments(ctx, blocks)
     from analysis.distributed.matrix import feature_notes
 
     notes = feature_notes(plan, counts, ctx.table.n_rows)
@@ -80,47 +79,6 @@ def run_projection(step, ctx: Context):
     )
 
 
-def _stats_task(block):
-    from dask import delayed
-
-    return delayed(block_moments)(block)
-
-
-def _counts_task(ctx: Context, blocks: list):
-    from dask import delayed
-
-    from analysis.distributed.matrix import add_counts, block_counts
-
-    return tree([delayed(block_counts)(b) for b in blocks], add_counts)
-
-
-def block_moments(block) -> tuple[int, np.ndarray, np.ndarray]:
-    """(rows, mean, centred Gram matrix) of one block's features."""
-    values = block.values
-    n = len(values)
-    if n == 0:
-        p = values.shape[1]
-        return 0, np.zeros(p), np.zeros((p, p))
-    mean = values.mean(axis=0)
-    centred = values - mean
-    return n, mean, centred.T @ centred
-
-
-def merge_moments(a, b):
-    """Merge two (rows, mean, centred Gram) triples (Chan, Golub and LeVeque's update)."""
-    na, mean_a, m2_a = a
-    nb, mean_b, m2_b = b
-    n = na + nb
-    if na == 0:
-        return b
-    if nb == 0:
-        return a
-    delta = mean_b - mean_a
-    mean = mean_a + delta * (nb / n)
-    m2 = m2_a + m2_b + np.outer(delta, delta) * (na * nb / n)
-    return n, mean, m2
-
-
 def pca_from_moments(n: int, mean: np.ndarray, m2: np.ndarray, *, standardize: bool = True):
     """Explained variance ratios, principal axes (rows) and feature scales, from moments.
 
@@ -128,22 +86,13 @@ def pca_from_moments(n: int, mean: np.ndarray, m2: np.ndarray, *, standardize: b
     column it counts as constant), so the axes and ratios are those of scikit-learn's PCA on
     the standardized features. Axes are signed so that each one's largest entry is positive.
     """
-    variance = np.diag(m2) / n
-    p = len(mean)
-    if standardize:
-        eps = np.finfo(np.float64).eps
-        # scikit-learn's test for a constant feature (variance at rounding level)
-        constant = variance <= n * eps * variance + (n * mean * eps) ** 2
-        scale = np.sqrt(variance)
-        scale[constant | (scale == 0)] = 1.0
-    else:
-        scale = np.ones(p)
+    scale = spread_scale(n, mean, m2) if standardize else np.ones(len(mean))
     covariance = m2 / n / np.outer(scale, scale)
     eigenvalues, eigenvectors = np.linalg.eigh(covariance)
     order = np.argsort(eigenvalues)[::-1]
     eigenvalues = np.clip(eigenvalues[order], 0.0, None)
     components = eigenvectors[:, order].T
-    keep = min(n, p)
+    keep = min(n, len(mean))
     eigenvalues, components = eigenvalues[:keep], components[:keep]
     total = float(np.trace(covariance))
     ratio = eigenvalues / total if total > 0 else np.zeros_like(eigenvalues)

@@ -222,7 +222,7 @@ def _pass_a(frame, offset: int, spec: _Spec) -> dict:
         if len(rows):
             distinct, first = np.unique(projected[rows].astype(object) if projected.dtype ==
                                         object else projected[rows], axis=0, return_index=True)
-            chosen = _independent([list(map(int, v)) for v in distinct])
+            chosen = _independent([list(map(int, v)) for v in distinct], len(spec.generators))
             for i in chosen:
                 out["breakers"][int(positions[rows[first[i]]])] = [int(x) for x in distinct[i]]
     index = {n: j for j, n in enumerate(spec.exact)}
@@ -326,12 +326,15 @@ def _hull_corners(unique: np.ndarray) -> np.ndarray:
 
 
 def _merge_a(a: dict, b: dict) -> dict:
+    from analysis.relations import RankTracker
+
     breakers = dict(a["breakers"])
-    vectors = list(breakers.values())
+    tracker = RankTracker()
+    for vector in breakers.values():
+        tracker.add(vector)
     for position, vector in sorted(b["breakers"].items()):
-        if _independent(vectors + [vector]) == list(range(len(vectors) + 1)):
+        if tracker.add(vector):
             breakers[position] = vector
-            vectors.append(vector)
     pairs = {k: _merge_extremes(a["pairs"][k], b["pairs"][k]) for k in a["pairs"]}
     triples = {}
     for k in a["triples"]:
@@ -354,53 +357,30 @@ def _merge_a(a: dict, b: dict) -> dict:
             "triples": triples}
 
 
-def _independent(vectors: list[list[int]]) -> list[int]:
-    """Indices of a greedy maximal linearly independent subset (exact, fraction-free)."""
-    echelon: list[tuple[int, list[int]]] = []
+def _independent(vectors: list[list[int]], rank: int) -> list[int]:
+    """Indices of a greedy maximal linearly independent subset of vectors of rank at most
+    ``rank`` (exact)."""
+    from analysis.relations import RankTracker
+
+    tracker = RankTracker()
     chosen = []
     for index, vector in enumerate(vectors):
-        v = [int(x) for x in vector]
-        for pivot, row in echelon:
-            if v[pivot]:
-                a, b = row[pivot], v[pivot]
-                v = [a * x - b * y for x, y in zip(v, row)]
-                g = math.gcd(*v)
-                if g > 1:
-                    v = [x // g for x in v]
-        lead = next((i for i, x in enumerate(v) if x), None)
-        if lead is not None:
-            echelon.append((lead, v))
+        if len(chosen) == rank:
+            break  # the span is full: no later vector adds to it
+        if tracker.add(vector):
             chosen.append(index)
     return chosen
 
 
-def _hull_2d(points: list[tuple]) -> list[tuple]:
-    """The vertices of the convex hull of integer points, exact."""
-    points = sorted(set(points))
-    if len(points) < 3:
-        return points
-
-    def cross(o, a, b):
-        return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
-
-    def chain(sequence):
-        kept: list = []
-        for p in sequence:
-            while len(kept) >= 2 and cross(kept[-2], kept[-1], p) <= 0:
-                kept.pop()
-            kept.append(p)
-        return kept
-
-    return list(dict.fromkeys(chain(points)[:-1] + chain(list(reversed(points)))[:-1]))
-
-
 def _wanted_points(found: dict, spec: _Spec) -> dict:
     """{columns tuple: set of value tuples} whose rows the second search needs."""
+    from analysis.relations import hull_2d
+
     wanted: dict = {}
     for (a, b), (x, low, high) in found["pairs"].items():
         points = [(int(p), int(q)) for p, q in zip(x, low)] + \
                  [(int(p), int(q)) for p, q in zip(x, high)]
-        wanted[(a, b)] = np.array(_hull_2d(points), dtype=np.int64).reshape(-1, 2)
+        wanted[(a, b)] = np.array(hull_2d(points), dtype=np.int64).reshape(-1, 2)
     for combo, (corners, _) in found["triples"].items():
         wanted[combo] = np.asarray(corners, dtype=np.int64).reshape(-1, 3)
     for name in spec.exact:
@@ -482,6 +462,8 @@ _PassB = _Spec
 
 
 def _pass_b(frame, offset: int, spec: _Spec, id_column):
+    from analysis.relations import approximately_off
+
     values, missing = _exact_matrix(frame, spec.exact)
     ids = frame[id_column].to_numpy() if id_column else \
         np.arange(offset, offset + len(frame), dtype=np.int64)
@@ -523,9 +505,7 @@ def _pass_b(frame, offset: int, spec: _Spec, id_column):
         data = np.column_stack(columns + [np.ones(len(frame))])
         finite = np.isfinite(data).all(axis=1)
         full = np.append(np.asarray(coefs, dtype=float), -constant)
-        residual = np.abs(data[finite] @ full)
-        size = np.abs(data[finite]) @ np.abs(full)
-        off = np.flatnonzero(residual > spec.tolerance * np.maximum(size, 1e-300))
+        off = np.flatnonzero(approximately_off(data[finite], full, spec.tolerance))
         out["approximate"].append((int(finite.sum()), len(off), ids[finite][off[: spec.cap]]))
     return out
 
@@ -614,32 +594,27 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
         if v is not None:
             tracker.add(v)
     ranked = sorted(zip(candidates, counts["relations"][checked:]),
-                    key=lambda item: (item[1][0], len(item[0][0].terms),
-                                      sum(x * x for x in item[0][1])))
+                    key=lambda item: rel.robust_rank(item[1][0], item[0][1]))
     robust = []
     for (relation, vector), (count, ids, present) in ranked:
         if not 0 < count <= allowed or not tracker.add(vector):
             continue
         robust.append(dataclasses.replace(
             relation, holds_on=present - count, violations=tuple(ids.tolist()),
-            note=_robust_note(relation, count)))
+            note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial)))
     ordered = ([r for r in settled_every if not r.trivial] + [r for r in robust if not r.trivial]
                + [r for r in settled_every if r.trivial] + [r for r in robust if r.trivial])
     bounds = []
     for bound, c in zip(second.bounds, counts["bounds"]):
         if c["broken"] > (allowed if bound.violations else 0):
             continue
-        note = bound.note.split("the first ")[0].rstrip("; ") if bound.note else ""
-        if c["attained"] > rel.MAX_LISTED_ROWS:
-            note = (note + "; " if note else "") + (
-                f"the first {rel.MAX_LISTED_ROWS} of {c['attained']} attaining rows are listed")
+        note = rel.recounted_note(bound, c["attained"])
         bounds.append(dataclasses.replace(
             bound, attained_by=tuple(c["attained_ids"].tolist()), attained_count=c["attained"],
             near=c["near"], holds_on=c["present"] - c["broken"],
             violations=tuple(c["broken_ids"].tolist()), note=note))
     bounds = _drop_crowded_triples(bounds, found)
     bounds.sort(key=rel.bound_rank)
-    notes = [n for n in notes if not (n.startswith("the best ") and "bounds are reported" in n)]
     exact = [b for b in bounds if not b.violations]
     near = [b for b in bounds if b.violations]
     if len(exact) > rel.MAX_BOUNDS:
@@ -649,11 +624,9 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     for relation, (present, off, ids) in zip(approximate, counts["approximate"]):
         if off > allowed:
             continue
-        note = "approximate: the columns hold floating point values"
-        if off:
-            note += f"; holds on all but {off} rows"
         settled_approximate.append(dataclasses.replace(
-            relation, holds_on=present - off, violations=tuple(ids.tolist()), note=note))
+            relation, holds_on=present - off, violations=tuple(ids.tolist()),
+            note=rel.approximate_note(off)))
     if step.robust:
         ctx.notes.append("relations and bounds broken by a few rows are proposed from the rows "
                          "searched (not from every row) and kept when every row's count allows.")
@@ -662,23 +635,12 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
                                n_rows=table.n_rows)
 
 
-def _robust_note(relation, count: int) -> str:
-    names = [name for name, _ in relation.terms]
-    if relation.trivial and len(names) == 1:
-        return f"trivial: column '{names[0]}' is constant on all but {count} rows"
-    if relation.trivial and len(names) == 2:
-        return f"trivial: columns '{names[0]}' and '{names[1]}' are equal on all but {count} rows"
-    return f"holds on all but {count} rows"
-
-
 def _drop_crowded_triples(bounds, found):
     """Bounds in three columns whose triple has too many distinct points to be searched in
     memory are left out here too, so that both engines report the same bounds."""
     from analysis import relations as rel
 
-    limit = getattr(rel, "MAX_TRIPLE_POINTS", None)
-    if limit is None:
-        return bounds
+    limit = rel.MAX_TRIPLE_POINTS
     crowded = {frozenset(k) for k, (_, keys) in found["triples"].items()
                if keys is None or len(keys) > limit}
     kept = [b for b in bounds
