@@ -190,7 +190,7 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
         if len(left_out) < len(columns):
             columns = [name for name in columns if name not in dict(left_out)]
             if left_out:
-                warnings.append(_left_out_text(left_out))
+                warnings.append(left_out_warning(left_out))
         else:
             left_out = []
     run: list[str] = []         # consecutive plain number columns, converted together
@@ -221,24 +221,11 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             notes.append(f"{inf_count} rows have an infinite feature value; treated as missing.")
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
-            dropped = int((~keep).sum())
-            text = (f"dropped {dropped} of {table.n_rows} rows with a missing value "
-                    f"({int(bad.any(axis=1).sum())} in features, "
-                    f"{int(target_missing.sum())} in the target).")
             hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
-            if dropped > DROPPED_ROWS_WARNING * table.n_rows:
-                advice = []
-                if bad.any():
-                    advice.append("Leave out the feature columns with most missing cells, or "
-                                  "fill in missing values (missing: impute).")
-                if target_missing.any():
-                    advice.append("Rows with no known target value cannot be learned from; "
-                                  "the separator predicts them for checking by hand.")
-                warnings.append(text[0].upper() + text[1:-1] + f": more than "
-                                f"{DROPPED_ROWS_WARNING:.0%} of the table. " + " ".join(advice)
-                                + hint)
-            else:
-                notes.append(text + hint)
+            text, serious = dropped_rows_text(table.n_rows, int((~keep).sum()),
+                                              int(bad.any(axis=1).sum()),
+                                              int(target_missing.sum()), hint)
+            (warnings if serious else notes).append(text)
             values = values[keep]
             rows = rows[keep]
         else:
@@ -291,7 +278,27 @@ def _interval_hint(table: Table, columns: list[str], dropped: np.ndarray,
             "intervals by their low end, high end or midpoint (intervals) keeps them.")
 
 
-def _left_out_text(left_out: list[tuple[str, float]]) -> str:
+def dropped_rows_text(n_rows: int, dropped: int, in_features: int, in_target: int,
+                      hint: str = "") -> tuple[str, bool]:
+    """What dropping rows with a missing value says, and whether it is a warning (more than
+    DROPPED_ROWS_WARNING of the table) rather than a note. Both engines word it here."""
+    text = (f"dropped {dropped} of {n_rows} rows with a missing value ({in_features} in "
+            f"features, {in_target} in the target).")
+    if dropped <= DROPPED_ROWS_WARNING * n_rows:
+        return text + hint, False
+    advice = []
+    if in_features:
+        advice.append("Leave out the feature columns with most missing cells, or fill in "
+                      "missing values (missing: impute).")
+    if in_target:
+        advice.append("Rows with no known target value cannot be learned from; the separator "
+                      "predicts them for checking by hand.")
+    return (text[0].upper() + text[1:-1] + f": more than {DROPPED_ROWS_WARNING:.0%} of the "
+            "table. " + " ".join(advice) + hint), True
+
+
+def left_out_warning(left_out: list[tuple[str, float]]) -> str:
+    """The warning for mostly-empty columns left out of the default features."""
     named = ", ".join(f"{name!r} (missing in {share:.0%} of rows)" for name, share in left_out)
     return (f"Left out of the features, being missing in more than "
             f"{MISSING_SHARE_LIMIT:.0%} of the rows: {named}. Name the columns (columns) to "

@@ -65,7 +65,7 @@ def exact_share(y_true, y_predicted) -> ExactShare:
     rounded = np.round(np.asarray(y_predicted, dtype=float))
     rows = len(y_true)
     hits = int(np.sum(rounded == y_true))
-    low, high = _wilson(hits, rows)
+    low, high = wilson_interval(hits, rows)
     return ExactShare(share=hits / rows if rows else float("nan"), low=low, high=high,
                       hits=hits, rows=rows)
 
@@ -76,7 +76,8 @@ def most_common_value(train_values) -> float:
     return float(values[np.argmax(counts)])
 
 
-def _wilson(hits: int, rows: int) -> tuple[float, float]:
+def wilson_interval(hits: int, rows: int) -> tuple[float, float]:
+    """Wilson's score interval at INTERVAL_LEVEL for a share of ``hits`` in ``rows``."""
     if rows == 0:
         return float("nan"), float("nan")
     from scipy.stats import norm

@@ -57,6 +57,23 @@ POSITION = ("isolation forest", "local outlier factor", "distance from cluster c
 COMBINATION = ("the highest standing (fraction of other rows scoring strictly lower) on "
                "position (mean of isolation forest, local outlier factor and distance from "
                "cluster centre), separator and relations; ties ordered by the mean of these")
+
+
+def combination_text(measures) -> str:
+    """How the score of a row is made, naming only the ``measures`` that were counted (the
+    words of COMBINATION when all of them were)."""
+    position = [m for m in POSITION if m in measures]
+    groups = []
+    if position:
+        named = position[0] if len(position) == 1 else \
+            f"{', '.join(position[:-1])} and {position[-1]}"
+        groups.append(f"position (mean of {named})" if len(position) > 1 else named)
+    groups.extend(m for m in MEASURES if m in measures and m not in POSITION)
+    if not groups:
+        return "no measure tells the rows apart, so every row scores 0"
+    listed = groups[0] if len(groups) == 1 else f"{', '.join(groups[:-1])} and {groups[-1]}"
+    return ("the highest standing (fraction of other rows scoring strictly lower) on "
+            f"{listed}; ties ordered by the mean of these")
 # A row "stands out" on a measure when it scores higher than this fraction of rows.
 STANDS_OUT = 0.95
 # Labels a separator is asked to tell apart, at most.
@@ -257,7 +274,9 @@ class OutliersStep:
             opened: tuple[OpenValue, ...] = ()
             if self.target is not None:
                 guessed = _cross_validated(table, self.target, fm, self.seed)
-                measures["separator"] = _separator(table, self.target, guessed, notes)
+                doubts = _separator(table, self.target, guessed, notes)
+                if doubts is not None:
+                    measures["separator"] = doubts
                 opened = open_values(table, self, fm, guessed, notes)
         reporter.advance()
         if self.relations:
@@ -268,6 +287,7 @@ class OutliersStep:
         return OutliersResult(
             outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
             measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
+            combination=combination_text(used),
             seed=self.seed, features=tuple(fm.names), notes=tuple(dict.fromkeys(notes)),
             warnings=tuple(fm.warnings),
             elapsed_seconds=time.perf_counter() - started, open_values=opened,
@@ -591,9 +611,56 @@ def _cross_validated(table: Table, target: str, fm, seed: int):
     return labels, probability, classes, splits
 
 
-def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> Measure:
+def _clearly_positive(gains: np.ndarray) -> tuple[bool, float, float]:
+    """Whether per-row gains have a mean clearly above 0 (the low end of its 95% normal
+    interval), with the mean and that low end."""
+    from scipy.stats import norm
+
+    mean = float(np.mean(gains))
+    half = float(norm.ppf(0.975)) * float(np.std(gains, ddof=1)) / np.sqrt(len(gains)) \
+        if len(gains) > 1 else np.inf
+    return mean - half > 0, mean, mean - half
+
+
+def label_doubts_note(target: str, p_own: np.ndarray, own: np.ndarray) -> str | None:
+    """None when the cross-validated label model is worth its doubts: its probability of
+    each row's own label (``p_own``; ``own`` the label's index) beats the label's share of
+    the rows, on the log score (a proper scoring rule, fair to a rare label), by a mean gain
+    per row clearly above 0. Otherwise the note that leaves the separator out of the
+    ranking: a model no better than the shares alone doubts labels at random."""
+    shares = np.bincount(own) / len(own)
+    gains = np.log(np.clip(p_own, 1e-12, 1.0)) - np.log(shares[own])
+    clear, mean, low = _clearly_positive(gains)
+    if clear:
+        return None
+    return (f"separator: left out of the ranking: a cross-validated logistic regression "
+            f"gives the labels of {target!r} no clearly higher probability than their shares "
+            f"of the rows do (log score gain per object {mean:+.3f}, 95% interval from "
+            f"{low:+.3f}); its doubts about single objects would be noise.")
+
+
+def number_doubts_note(target: str, truth: np.ndarray, predicted: np.ndarray) -> str | None:
+    """None when the cross-validated fit's squared errors are clearly smaller than those of
+    the mean of the target; otherwise the note that leaves the separator out of the ranking."""
+    gains = (truth - truth.mean()) ** 2 - (truth - predicted) ** 2
+    clear, _, _ = _clearly_positive(gains)
+    if clear:
+        return None
+    spread = float(np.sum((truth - truth.mean()) ** 2))
+    r2 = 1.0 - float(np.sum((truth - predicted) ** 2)) / spread if spread > 0 else 0.0
+    return (f"separator: left out of the ranking: a cross-validated ridge regression predicts "
+            f"{target!r} no clearly better than its mean does (R^2 = {r2:.3f}); its residuals "
+            "would rank objects at random.")
+
+
+def _separator(table: Table, target: str, guessed: tuple,
+               notes: list[str]) -> Measure | None:
     truth, predicted, classes, splits = guessed
     if classes is None:
+        empty = number_doubts_note(target, truth, predicted)
+        if empty is not None:
+            notes.append(empty)
+            return None
         residual = truth - predicted
         spread = float(np.std(residual)) or 1.0
         z = residual / spread
@@ -605,6 +672,10 @@ def _separator(table: Table, target: str, guessed: tuple, notes: list[str]) -> M
     own = np.array([index[c] for c in labels])
     p_true = probability[np.arange(len(labels)), own]
     guess = probability.argmax(axis=1)
+    empty = label_doubts_note(target, p_true, own)
+    if empty is not None:
+        notes.append(empty)
+        return None
     boolean = table.column(target).dtype == "boolean"
     notes.append(f"separator: {target!r} predicted by a {splits}-fold cross-validated logistic "
                  "regression on standardized features; a row scores 1 minus the probability "

@@ -349,15 +349,11 @@ CASES = [
         "analysis/distributed/outliers.py (_score_block) scores a partition with no row "
         "left and IsolationForest.score_samples raises ValueError ('Found array with 0 "
         "sample(s)'), a traceback where memory ranks the rows", raises=ValueError)),
+    # rows dropped past features.DROPPED_ROWS_WARNING are a warning on both engines
     pytest.param("projection", {"method": "pca", "columns": NUMBERS}, _feature_warnings,
-                 id="dropped-rows-warning", marks=_gap(
-        "analysis/distributed/matrix.py: rows dropped for a missing value (79 of 300, past "
-        "features.DROPPED_ROWS_WARNING) are a warning in memory and only a note on Dask")),
-    pytest.param("projection", {"method": "pca"}, _mostly_empty, id="mostly-empty-column",
-                 marks=_gap(
-        "analysis/distributed/matrix.py (feature_plan) does not apply "
-        "features.mostly_empty_columns: by default 'diameter' (missing in 49% of rows) is "
-        "a feature on Dask, dropping those rows, where memory leaves it out with a warning")),
+                 id="dropped-rows-warning"),
+    # 'diameter' is missing in 49% of rows: left out of the default features, with a warning
+    pytest.param("projection", {"method": "pca"}, _mostly_empty, id="mostly-empty-column"),
 ]
 
 

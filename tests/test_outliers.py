@@ -274,3 +274,33 @@ def test_a_real_valued_target_settles_no_open_value():
     table = table_from_frame(frame, "points.csv")
     result = OutliersStep(target="x3", relations=False, top=5).run(table)
     assert result.open_values == ()
+
+
+@pytest.mark.parametrize("kind", ["labels", "numbers"])
+def test_a_target_the_features_do_not_predict_is_left_out_of_the_ranking(kind):
+    # a seeded fair coin (or uniform noise) knows nothing of the blobs: its model's doubts
+    # are noise, so they are not ranked, and the score's words leave the separator out
+    values, _ = make_blobs(n_samples=400, centers=3, n_features=3, random_state=5)
+    rng = np.random.default_rng(9)
+    frame = pd.DataFrame(values, columns=["a", "b", "c"])
+    frame["noise"] = rng.choice(["heads", "tails"], 400) if kind == "labels" \
+        else rng.uniform(0, 1, 400)
+    result = OutliersStep(target="noise", relations=False, seed=1).run(
+        table_from_frame(frame, name="noise.csv"))
+    assert "separator" not in result.measures
+    assert any(n.startswith("separator: left out of the ranking") for n in result.notes)
+    assert "separator" not in result.combination and "position" in result.combination
+    assert all("separator" not in o.standing for o in result.outliers)
+
+
+def test_a_rare_label_the_features_decide_keeps_its_doubts():
+    # 12 of 400 rows carry a label that a line through the blobs decides: accuracy alone
+    # (97% by always saying the common label) would hide it; the log score does not
+    values, _ = make_blobs(n_samples=400, centers=3, n_features=3, random_state=5)
+    frame = pd.DataFrame(values, columns=["a", "b", "c"])
+    order = np.argsort(frame["a"].to_numpy())
+    frame["rare"] = "no"
+    frame.loc[order[-12:], "rare"] = "yes"
+    result = OutliersStep(target="rare", relations=False, seed=1).run(
+        table_from_frame(frame, name="rare.csv"))
+    assert "separator" in result.measures and "separator" in result.combination

@@ -67,10 +67,11 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     from analysis import clustering as cl
 
     started = time.perf_counter()
-    from analysis.distributed.matrix import feature_notes
+    from analysis.distributed.matrix import feature_notes, feature_warnings
 
     stats, counts, kept_per_block = feature_moments(ctx, blocks)
     notes = feature_notes(plan, counts, ctx.table.n_rows)
+    warned = feature_warnings(plan, counts, ctx.table.n_rows)
     n, mean, m2 = stats
     shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
@@ -119,7 +120,8 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
         sweep=tuple(r[0] for r in runs), profiles=profiles, reason=reason,
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
         silhouette=chosen_entry.silhouette, compare=step.compare, agreement=agreement,
-        notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
+        notes=tuple(dict.fromkeys(notes)), warnings=warned,
+        elapsed_seconds=time.perf_counter() - started,
     )
     return Clusters(result, chosen_assigner, order, shift, scale)
 

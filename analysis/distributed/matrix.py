@@ -19,7 +19,13 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import StepError
-from analysis.features import Feature, chosen_feature_columns
+from analysis.features import (
+    Feature,
+    chosen_feature_columns,
+    dropped_rows_text,
+    left_out_warning,
+    mostly_empty_columns,
+)
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
@@ -42,6 +48,7 @@ class FeaturePlan:
     notes: tuple[str, ...]
     id_column: str | None
     exact_columns: tuple[bool, ...] = ()   # True where a feature is an exact integer
+    warnings: tuple[str, ...] = ()         # the mostly-empty columns left out, said so
 
     @property
     def names(self) -> list[str]:
@@ -80,6 +87,13 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
     log_columns: list[str] = []
     exact: dict[str, bool] = {}
     notes: list[str] = []
+    warnings: list[str] = []
+    if chosen_by_default:
+        # the in-memory rule: a mostly-empty column is left out before rows are dropped
+        left_out = mostly_empty_columns(table, columns)
+        if left_out and len(left_out) < len(columns):
+            columns = [name for name in columns if name not in dict(left_out)]
+            warnings.append(left_out_warning(left_out))
     if chosen_by_default:
         # columns this engine cannot encode are left out of the default features, said so;
         # named ones are refused below, by name
@@ -141,7 +155,8 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
                        numeric_target=numeric_target, missing=missing,
                        log_columns=tuple(log_columns), levels=levels, fill=fill,
                        notes=tuple(notes), id_column=table.id_column,
-                       exact_columns=tuple(exact.get(f.name, False) for f in features))
+                       exact_columns=tuple(exact.get(f.name, False) for f in features),
+                       warnings=tuple(warnings))
     return plan
 
 
@@ -226,22 +241,38 @@ def _as_float(series: pd.Series) -> np.ndarray:
 
 
 def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
-    """The notes build_features writes, from counts summed over partitions."""
+    """The notes build_features writes, from counts summed over partitions (its warnings:
+    :func:`feature_warnings`)."""
     notes = list(plan.notes)
     if counts["infinite"]:
         notes.append(f"{counts['infinite']} rows have an infinite feature value; treated as "
                      "missing.")
     if counts["dropped_features"] or counts["dropped_target"] or counts["filled"]:
         if plan.missing == "drop":
-            dropped = counts["rows"] - counts["kept"]
-            notes.append(f"dropped {dropped} of {n_rows} rows with a missing value "
-                         f"({counts['dropped_features']} in features, "
-                         f"{counts['dropped_target']} in the target).")
+            text, serious = _dropped(counts, n_rows)
+            if not serious:
+                notes.append(text)
         else:
             notes.append(f"filled {counts['filled']} missing feature cells with the column "
                          f"median; dropped {counts['dropped_target']} rows with no target "
                          "value.")
     return notes
+
+
+def feature_warnings(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[str, ...]:
+    """The warnings build_features gives, from counts summed over partitions: mostly-empty
+    columns left out, and a drop of more than a tenth of the table."""
+    found = list(plan.warnings)
+    if plan.missing == "drop" and (counts["dropped_features"] or counts["dropped_target"]):
+        text, serious = _dropped(counts, n_rows)
+        if serious:
+            found.append(text)
+    return tuple(found)
+
+
+def _dropped(counts: dict, n_rows: int) -> tuple[str, bool]:
+    return dropped_rows_text(n_rows, counts["rows"] - counts["kept"],
+                             counts["dropped_features"], counts["dropped_target"])
 
 
 def block_counts(block: Block) -> dict:

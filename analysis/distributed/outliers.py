@@ -44,7 +44,7 @@ def run_outliers(step, ctx: Context):
     from dask import delayed
 
     from analysis import outliers as ol
-    from analysis.distributed.matrix import feature_notes
+    from analysis.distributed.matrix import feature_notes, feature_warnings
 
     started = time.perf_counter()
     step.check_table(ctx.table)
@@ -59,6 +59,7 @@ def run_outliers(step, ctx: Context):
                         f"feature present; {n} remain. Impute missing values or choose other "
                         "columns.")
     notes = feature_notes(plan, counts, ctx.table.n_rows)
+    warned = feature_warnings(plan, counts, ctx.table.n_rows)
     from analysis.distributed.clustering import gather_rows, sample_rows
 
     shift, scale = standardizing(step.standardize, n, mean, m2, notes)
@@ -110,8 +111,10 @@ def run_outliers(step, ctx: Context):
     return ol.OutliersResult(
         outliers=outliers, row_ids=row_ids, positions=positions, scores=combined,
         measures=tuple(kept_measures), target=step.target, k=clusters.result.k, n_rows=n,
+        combination=ol.combination_text(kept_measures),
         top=step.top, seed=step.seed, features=tuple(plan.names),
-        notes=tuple(dict.fromkeys(notes)), elapsed_seconds=time.perf_counter() - started,
+        notes=tuple(dict.fromkeys(notes)), warnings=warned,
+        elapsed_seconds=time.perf_counter() - started,
     )
 
 
@@ -285,16 +288,30 @@ def _measures(ol, step, measures: dict, details: dict, clusters, neighbours: int
             sizes, clusters.result.k),
     }
     if "separator" in measures:
-        used["separator"] = _separator_measure(ol, step, measures["separator"], details)
+        doubts = _separator_measure(ol, step, measures["separator"], details, notes)
+        if doubts is not None:
+            used["separator"] = doubts
     notes.append("typical distances from cluster centres are medians over the rows of the "
                  "local outlier factor's sample.")
     return used
 
 
-def _separator_measure(ol, step, scores, details):
+def _separator_measure(ol, step, scores, details, notes):
+    """The separator's measure, or None (with the in-memory step's note) when its model is
+    no better than the plain guess."""
     if "z" in details:
+        empty = ol.number_doubts_note(step.target, details["truth"], details["predicted"])
+        if empty is not None:
+            notes.append(empty)
+            return None
         return ol.residual_measure(step.target, details["truth"], details["predicted"],
                                    details["z"])
+    known = details["truth_index"] >= 0
+    empty = ol.label_doubts_note(step.target, (1.0 - scores)[known],
+                                 details["truth_index"][known])
+    if empty is not None:
+        notes.append(empty)
+        return None
     guess, labels = details["guess"], details["labels"]
     classes = sorted(set(labels.tolist()))
     return ol.label_measure(

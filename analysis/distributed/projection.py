@@ -41,9 +41,10 @@ def run_projection(step, ctx: Context):
                     missing=step.missing)
     blocks = blocks_for(ctx, plan)
     stats, counts, _ = feature_moments(ctx, blocks)
-    from analysis.distributed.matrix import feature_notes
+    from analysis.distributed.matrix import feature_notes, feature_warnings
 
     notes = feature_notes(plan, counts, ctx.table.n_rows)
+    warned = feature_warnings(plan, counts, ctx.table.n_rows)
     n, mean, m2 = stats
     if n < 3:
         raise StepError(f"{ctx.table.name}: a projection needs at least 3 rows with every "
@@ -75,7 +76,7 @@ def run_projection(step, ctx: Context):
         features=tuple(names), standardize=step.standardize, target=step.target, n_rows=n,
         sampled=False, seed=step.seed, explained_variance_ratio=tuple(float(r) for r in ratio),
         loadings=loadings, axis_titles=("first principal component", "second principal component"),
-        notes=tuple(notes), elapsed_seconds=time.perf_counter() - started,
+        notes=tuple(notes), warnings=warned, elapsed_seconds=time.perf_counter() - started,
     )
 
 
