@@ -1051,22 +1051,42 @@ def _violations_for_weights(matrix: np.ndarray, positive: np.ndarray, weights) -
     total_neg = m - total_pos
     count = weights.shape[1]
     result = np.empty(count, dtype=np.int64)
-    below = np.arange(1, m)[:, None]
+    below = np.arange(1, m)
     chunk_size = max(1, 2_000_000 // max(m, 1))
     for start in range(0, count, chunk_size):
-        chunk = range(start, min(count, start + chunk_size))
         scores = matrix @ weights[:, start : start + chunk_size]
-        order = np.argsort(scores, axis=0, kind="stable")
-        ordered = np.take_along_axis(scores, order, axis=0)
-        labels = positive[order]
-        pos_below = np.cumsum(labels, axis=0)[:-1]
+        # one candidate per row from here on, so that each sort runs over contiguous memory
+        ordered, labels = _sorted_with_labels(np.ascontiguousarray(scores.T), positive)
+        pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
         neg_below = below - pos_below
         at_least = pos_below + (total_neg - neg_below)
         at_most = neg_below + (total_pos - pos_below)
-        valid = ordered[1:] > ordered[:-1]
-        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=0)
-        result[start : start + len(chunk)] = best
+        valid = ordered[:, 1:] > ordered[:, :-1]
+        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
+        result[start : start + best.size] = best
     return result
+
+
+# Below this, twice an integer-valued score plus a 0/1 label is still an exact float.
+_LABEL_KEY_LIMIT = 2.0**50
+
+
+def _sorted_with_labels(scores: np.ndarray, positive: np.ndarray):
+    """Each row of ``scores`` sorted, with the labels of its rows in the same order.
+
+    The order among equal scores is left open: the counts read from the result only look at
+    cuts between different scores, where every row of a score lies on one side.
+    """
+    if scores.size and np.abs(scores).max() < _LABEL_KEY_LIMIT and np.array_equal(
+        scores, np.rint(scores)
+    ):
+        # Integer-valued scores: sort 2*score + label once instead of sorting indices and
+        # gathering twice; both halves come back exactly.
+        keys = np.sort(2.0 * scores + positive, axis=1)
+        labels = keys - 2.0 * np.floor(keys / 2.0)
+        return (keys - labels) / 2.0, labels.astype(np.int8)
+    order = np.argsort(scores, axis=1)
+    return np.take_along_axis(scores, order, axis=1), positive[order]
 
 
 def _score_counts(scores: np.ndarray, positive: np.ndarray):
