@@ -925,25 +925,33 @@ class _DirectionFitter:
 # ----------------------------------------------------------------------------------------------
 
 
-def _primitive(indices, integers) -> tuple[tuple[int, int], ...] | None:
-    """Integer coefficients divided by their gcd, signed so most coefficients are positive."""
-    integers = np.asarray(integers, dtype=np.int64)
+def _primitive_rows(indices, integers: np.ndarray) -> set:
+    """Each row of integer coefficients divided by its gcd, signed so most coefficients are
+    positive, as ``((index, coefficient), ...)`` over its nonzero entries; rows that are all
+    zero or taller than _MAX_HEIGHT after dividing are left out."""
+    integers = np.asarray(integers, dtype=np.int64).reshape(-1, len(indices))
     nonzero = integers != 0
-    if not nonzero.any():
-        return None
-    indices = np.asarray(indices)[nonzero]
-    integers = integers[nonzero]
-    integers = integers // np.gcd.reduce(np.abs(integers))
-    negatives = int((integers < 0).sum())
-    if 2 * negatives > integers.size or (2 * negatives == integers.size and integers[0] < 0):
-        integers = -integers
-    if int(np.abs(integers).max()) > _MAX_HEIGHT:
-        return None
-    return tuple(zip(indices.tolist(), integers.tolist()))
+    integers = integers[nonzero.any(axis=1)]
+    if not integers.size:
+        return set()
+    integers = integers // np.gcd.reduce(np.abs(integers), axis=1)[:, None]
+    nonzero = integers != 0
+    negatives = (integers < 0).sum(axis=1)
+    sizes = nonzero.sum(axis=1)
+    first = integers[np.arange(len(integers)), nonzero.argmax(axis=1)]
+    flip = (2 * negatives > sizes) | ((2 * negatives == sizes) & (first < 0))
+    integers = np.where(flip[:, None], -integers, integers)
+    integers = integers[np.abs(integers).max(axis=1) <= _MAX_HEIGHT]
+    indices = list(indices)
+    return {
+        tuple((index, value) for index, value in zip(indices, row) if value)
+        for row in integers.tolist()
+    }
 
 
-def _ladder(ratios: np.ndarray, max_denominator: int):
-    """Integer vectors approximating ``ratios`` for denominators 1..max_denominator.
+def _ladder(ratios: np.ndarray, max_denominator: int) -> np.ndarray:
+    """Integer vectors approximating each row of ``ratios`` for denominators 1..max_denominator,
+    all stacked as rows.
 
     For each d two versions: one common denominator d for all coefficients, and each
     coefficient's own best approximation with denominator at most d (the continued-fraction
@@ -952,6 +960,7 @@ def _ladder(ratios: np.ndarray, max_denominator: int):
     best_numerators = np.rint(ratios)
     best_denominators = np.ones_like(ratios)
     best_errors = np.abs(ratios - best_numerators)
+    rows = []
     for denominator in range(1, max_denominator + 1):
         numerators = np.rint(ratios * denominator)
         errors = np.abs(ratios - numerators / denominator)
@@ -959,9 +968,10 @@ def _ladder(ratios: np.ndarray, max_denominator: int):
         best_numerators = np.where(better, numerators, best_numerators)
         best_denominators = np.where(better, denominator, best_denominators)
         best_errors = np.where(better, errors, best_errors)
-        yield numerators.astype(np.int64)
-        common = int(np.lcm.reduce(best_denominators.astype(np.int64)))
-        yield (best_numerators * (common // best_denominators)).astype(np.int64)
+        rows.append(numerators.astype(np.int64))
+        common = np.lcm.reduce(best_denominators.astype(np.int64), axis=1)
+        rows.append((best_numerators * (common[:, None] // best_denominators)).astype(np.int64))
+    return np.concatenate(rows)
 
 
 def _snap_direction(
@@ -990,19 +1000,10 @@ def _snap_direction(
         normalizers = {float(magnitudes.min()), float(magnitudes.max())}
         if len(kept) <= 3:
             normalizers.update(float(v) for v in magnitudes)
-        for normalizer in normalizers:
-            ratios = values / normalizer
-            if np.max(np.abs(ratios)) * max_denominator > _MAX_HEIGHT:
-                continue
-            seen = set()
-            for integers in _ladder(ratios, max_denominator):
-                key = integers.tobytes()
-                if key in seen:
-                    continue
-                seen.add(key)
-                candidate = _primitive(kept, integers)
-                if candidate is not None:
-                    found.add(candidate)
+        ratios = [values / normalizer for normalizer in normalizers]
+        ratios = [r for r in ratios if np.max(np.abs(r)) * max_denominator <= _MAX_HEIGHT]
+        if ratios:
+            found |= _primitive_rows(kept, _ladder(np.array(ratios), max_denominator))
     return found
 
 
@@ -1051,22 +1052,42 @@ def _violations_for_weights(matrix: np.ndarray, positive: np.ndarray, weights) -
     total_neg = m - total_pos
     count = weights.shape[1]
     result = np.empty(count, dtype=np.int64)
-    below = np.arange(1, m)[:, None]
+    below = np.arange(1, m)
     chunk_size = max(1, 2_000_000 // max(m, 1))
     for start in range(0, count, chunk_size):
-        chunk = range(start, min(count, start + chunk_size))
         scores = matrix @ weights[:, start : start + chunk_size]
-        order = np.argsort(scores, axis=0, kind="stable")
-        ordered = np.take_along_axis(scores, order, axis=0)
-        labels = positive[order]
-        pos_below = np.cumsum(labels, axis=0)[:-1]
+        # one candidate per row from here on, so that each sort runs over contiguous memory
+        ordered, labels = _sorted_with_labels(np.ascontiguousarray(scores.T), positive)
+        pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
         neg_below = below - pos_below
         at_least = pos_below + (total_neg - neg_below)
         at_most = neg_below + (total_pos - pos_below)
-        valid = ordered[1:] > ordered[:-1]
-        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=0)
-        result[start : start + len(chunk)] = best
+        valid = ordered[:, 1:] > ordered[:, :-1]
+        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
+        result[start : start + best.size] = best
     return result
+
+
+# Below this, twice an integer-valued score plus a 0/1 label is still an exact float.
+_LABEL_KEY_LIMIT = 2.0**50
+
+
+def _sorted_with_labels(scores: np.ndarray, positive: np.ndarray):
+    """Each row of ``scores`` sorted, with the labels of its rows in the same order.
+
+    The order among equal scores is left open: the counts read from the result only look at
+    cuts between different scores, where every row of a score lies on one side.
+    """
+    if scores.size and np.abs(scores).max() < _LABEL_KEY_LIMIT and np.array_equal(
+        scores, np.rint(scores)
+    ):
+        # Integer-valued scores: sort 2*score + label once instead of sorting indices and
+        # gathering twice; both halves come back exactly.
+        keys = np.sort(2.0 * scores + positive, axis=1)
+        labels = keys - 2.0 * np.floor(keys / 2.0)
+        return (keys - labels) / 2.0, labels.astype(np.int8)
+    order = np.argsort(scores, axis=1)
+    return np.take_along_axis(scores, order, axis=1), positive[order]
 
 
 def _score_counts(scores: np.ndarray, positive: np.ndarray):
@@ -1330,12 +1351,7 @@ def _lattice_candidates(
     fewest = counts.min()
     best = grid[counts == fewest]
     order = np.lexsort((np.abs(best).sum(axis=1), np.abs(best).max(axis=1)))
-    found = set()
-    for row in best[order[:3]]:
-        candidate = _primitive(support, row)
-        if candidate is not None:
-            found.add(candidate)
-    return found
+    return _primitive_rows(support.tolist(), best[order[:3]])
 
 
 def _search(

@@ -110,6 +110,24 @@ def test_flipped_labels_are_exactly_the_violating_rows():
     assert sorted(equation.violating_rows) == sorted(row_ids[flipped].tolist())
 
 
+@pytest.mark.parametrize("offset", [0, 2**49], ids=["small", "near-2^49"])
+def test_planted_rule_is_found_whatever_the_size_of_the_values(offset):
+    # Planted rule a - 2*b + c >= 4 (known by construction) on integers shifted by a common
+    # offset, so that the rule's left side moves by a multiple of the offset only through
+    # a - 2*b + c's coefficient sum, which is 0. Near 2**49 the candidates' scores pass 2**50
+    # and are ranked by sorting the scores themselves; small values take the other way. Both
+    # must find the same rule with no violation, checked row by row in Python Fractions.
+    X = integer_table(3000, 4, seed=11)
+    positive = X[:, 0] - 2 * X[:, 1] + X[:, 2] >= 4
+    shifted = X.astype(np.int64) + offset
+    names = ["a", "b", "c", "d"]
+    equation = find_linear_equation(shifted, positive, names)
+    assert equation.text == "a - 2*b + c >= 4"
+    assert equation.violations == 0
+    records = [{name: int(value) for name, value in zip(names, row)} for row in shifted.tolist()]
+    assert np.array_equal(exact_mask(equation, records), positive)
+
+
 def test_hint_from_a_fitted_separator_is_rounded_to_the_rule():
     # A linear support vector machine fitted in raw units gives a float normal close to
     # (2, -1); the rounded equation must be the planted rule and the notes must say how the
