@@ -95,7 +95,9 @@ def run_outliers(step, ctx: Context):
                   typical=typical, sizes=sizes, n=n, shift=shift, scale=scale,
                   separator=separator, lof_rows=lof_rows, offsets=offsets)
     shared = ctx.share(spec)   # fitted models: sent to each worker once, not per task
-    scored = ctx.compute([delayed(_score_block)(b, k, shared) for k, b in enumerate(blocks)])
+    # a partition with no row left (every row missing a feature) has nothing to score
+    scored = ctx.compute([delayed(_score_block)(b, k, shared) for k, b in enumerate(blocks)
+                          if kept[k]])
     positions = np.concatenate([s["positions"] for s in scored])
     row_ids = np.concatenate([s["row_ids"] for s in scored])
     measures = {name: np.concatenate([s[name] for s in scored])
