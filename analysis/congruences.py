@@ -403,6 +403,35 @@ def _to_congruence(fact: dict, row_ids: np.ndarray, limit: int) -> Congruence:
         violation_count=fact["breakers"], implied_moduli=tuple(sorted(fact["implied"])))
 
 
+def joined_congruences(congruences: Sequence[Congruence]) -> list[Congruence]:
+    """Congruences of the same sum that every row obeys, joined by the Chinese remainder
+    theorem: ``x ≡ 0 (mod 4)`` and ``x ≡ 0 (mod 10)`` are ``x ≡ 0 (mod 20)``, said once.
+
+    Only facts with no breaker are joined (then both hold on each row, so their join does
+    too); the joined fact lists the moduli it makes redundant. Others are left as they are.
+    """
+    out = list(congruences)
+    joined = True
+    while joined:
+        joined = False
+        for i, j in combinations(range(len(out)), 2):
+            a, b = out[i], out[j]
+            if a.terms != b.terms or a.violation_count or b.violation_count \
+                    or a.holds_on != b.holds_on \
+                    or a.modulus % b.modulus == 0 or b.modulus % a.modulus == 0:
+                continue
+            modulus = math.lcm(a.modulus, b.modulus)
+            residue = next(r for r in range(a.residue, modulus, a.modulus)
+                           if r % b.modulus == b.residue)
+            implied = set(a.implied_moduli) | set(b.implied_moduli) | {a.modulus, b.modulus}
+            out[i] = Congruence(terms=a.terms, modulus=modulus, residue=residue,
+                                holds_on=a.holds_on, implied_moduli=tuple(sorted(implied)))
+            del out[j]
+            joined = True
+            break
+    return out
+
+
 def simplicity_key(congruence: Congruence) -> tuple:
     """The ranking: fewer terms, smaller coefficients, larger modulus, fewer breakers (then
     names, coefficients and residue, so that the order never depends on the search's)."""
@@ -459,7 +488,7 @@ def find_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
                for relation in known):
             continue
         result.append(_to_congruence(fact, ids, int(max_listed_rows)))
-    return sorted(result, key=simplicity_key)
+    return sorted(joined_congruences(result), key=simplicity_key)
 
 
 def _fact_of(congruence: Congruence, moduli: Sequence[int]) -> dict:
@@ -528,7 +557,7 @@ def settle_congruences(candidates: Sequence[Congruence], *, moduli: Sequence[int
             holds_on=congruence.holds_on, violations=congruence.violations,
             violation_count=congruence.violation_count,
             implied_moduli=tuple(sorted(fact["implied"]))))
-    return sorted(result, key=simplicity_key)
+    return sorted(joined_congruences(result), key=simplicity_key)
 
 
 @dataclass(frozen=True)

@@ -279,3 +279,18 @@ def test_each_modulus_alone_then_settled_equals_one_search():
 def test_settling_rejects_bad_settings():
     with pytest.raises(StepError, match="moduli: expected whole numbers from 2"):
         settle_congruences([], moduli=[1])
+
+
+def test_congruences_of_one_sum_are_joined_by_the_chinese_remainder_theorem():
+    # for every prime p >= 5, 24 divides p^2 - 1 (an exercise of elementary number theory,
+    # common practice): the search finds it mod 8 and mod 3 (or 12) and says it once, mod 24
+    from sympy import primerange
+
+    primes = list(primerange(5, 400))
+    found = find_congruences({"p2_minus_1": [p * p - 1 for p in primes]}, primes)
+    assert [c.text for c in found] == ["p2_minus_1 ≡ 0 (mod 24)"]
+    assert {8, 12} <= set(found[0].implied_moduli) and found[0].holds_on == len(primes)
+    # a fact some row breaks is not joined with another: its breakers are its own
+    values = [p * p - 1 for p in primes] + [10]
+    found = find_congruences({"x": values}, primes + [1], max_breakers=1, max_breaker_share=0.1)
+    assert "x ≡ 0 (mod 24)" not in [c.text for c in found]

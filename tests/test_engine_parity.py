@@ -319,10 +319,8 @@ def _gap(reason: str, raises=AssertionError):
 
 CASES = [
     pytest.param("overview", {}, _overview, id="overview"),
-    pytest.param("overview", {}, _rational_ranges, id="overview-rational-ranges", marks=_gap(
-        "analysis/distributed/overview.py summarizes only integer, real and big integer "
-        "columns: the smallest and largest value of a rational column (mean_degree, "
-        "half_edges) are None on Dask, '0' and '5' (and '0', '15/2') in memory")),
+    # a rational column's exact smallest and largest value ('0' and '15/2', say)
+    pytest.param("overview", {}, _rational_ranges, id="overview-rational-ranges"),
     pytest.param("projection", {"method": "pca", "columns": NUMBERS + ["density"]},
                  _projection, id="projection-pca"),
     pytest.param("clustering", {"method": "kmeans", "k": 3, "columns": NUMBERS},

@@ -47,6 +47,12 @@ def _summarize(table, info) -> ColumnSummary:
     if info.dtype == "big integer" and facts.get("count"):
         return ColumnSummary(**base, minimum=str(facts["minimum"]), maximum=str(facts["maximum"]),
                              mean=float(facts["total"] / facts["count"]))
+    marked = facts.get("marked") or {}
+    if info.dtype == "rational" and marked.get("numbers"):
+        # the exact smallest and largest cell, as the in-memory summary writes them
+        return ColumnSummary(**base, minimum=_exact_text(marked["minimum"]),
+                             maximum=_exact_text(marked["maximum"]),
+                             mean=float(marked["total"] / marked["numbers"]))
     if info.dtype == "array":
         shapes = sorted(facts.get("shapes", {}).items(), key=lambda kv: -kv[1])[:5]
         return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in shapes))
@@ -59,6 +65,13 @@ def _summarize(table, info) -> ColumnSummary:
     if kind == "text":
         return ColumnSummary(**base, common=_common_text(facts, info, table.n_rows))
     return ColumnSummary(**base)
+
+
+def _exact_text(value) -> str:
+    """A cell's value as an exact rational's text ("15/2"); decimals read from their digits."""
+    from fractions import Fraction
+
+    return str(value if isinstance(value, (int, Fraction)) else Fraction(str(value)))
 
 
 def _common_text(facts: dict, info, n_rows: int) -> tuple:
