@@ -1860,16 +1860,22 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
         if key not in seen:
             seen.add(key)
             distinct.append(bound)
-    exact = [b for b in distinct if not b.violations]
-    near = [b for b in distinct if b.violations]
     if max_bounds is None:
-        return exact + near
+        return [b for b in distinct if not b.violations] + [b for b in distinct if b.violations]
+    return reported_bounds(distinct, max_bounds, notes)
+
+
+def reported_bounds(ranked: list[Bound], max_bounds: int, notes: list[str]) -> list[Bound]:
+    """The bounds reported, from bounds in rank order: the best ``max_bounds`` that hold on
+    every row, then the best MAX_NEAR_BOUNDS that a few rows break (never mixed), with a note
+    for each list cut short."""
+    exact = [b for b in ranked if not b.violations]
+    near = [b for b in ranked if b.violations]
     if len(exact) > max_bounds:
         notes.append(f"the best {max_bounds} of {len(exact)} bounds are reported")
     if len(near) > MAX_NEAR_BOUNDS:
         notes.append(f"the best {MAX_NEAR_BOUNDS} of {len(near)} bounds that all but a few "
                      "rows obey are reported")
-    # bounds that hold on every row first, then those a few rows break: never mixed
     return exact[:max_bounds] + near[:MAX_NEAR_BOUNDS]
 
 

@@ -7,9 +7,9 @@ cells (the girth of a forest), a mostly-empty column (the diameter of a disconne
 a matrix column (the adjacency matrix) and a flag. It is read whole in memory and, written as
 four Parquet files, in partitions by the Dask engine on one local cluster.
 
-Where the Dask engine refuses something the test names it and checks its message; where the
-two engines still differ in a step module of the Dask engine, the case is marked xfail with
-the difference stated.
+Where the Dask engine refuses something the test names it and checks its message (arrays,
+big integers and rationals named as features, arrays asked to be text); everything else is
+compared figure by figure.
 """
 
 from __future__ import annotations
@@ -287,7 +287,8 @@ def _relations(result):
 
 
 def _near_bounds(result):
-    return [b["text"] for b in result.to_json()["bounds"] if b["violations"]]
+    return {"bounds": [b["text"] for b in result.to_json()["bounds"] if b["violations"]],
+            "said": [n for n in result.notes if n.startswith("the best ")]}
 
 
 def _outliers(result):
@@ -313,9 +314,6 @@ def _auto_clustering(result):
                      for run in result.to_json()["sweep"]]}
 
 
-def _gap(reason: str, raises=AssertionError):
-    return pytest.mark.xfail(strict=True, raises=raises, reason=reason)
-
 
 CASES = [
     pytest.param("overview", {}, _overview, id="overview"),
@@ -331,22 +329,15 @@ CASES = [
                                **FEW}, _separator, id="separator-linear"),
     pytest.param("relations", {"columns": NUMBERS}, _relations, id="relations"),
     pytest.param("relations", {"columns": EULER}, _relations, id="relations-euler"),
-    pytest.param("relations", {"columns": NUMBERS}, _near_bounds, id="relations-near-bounds",
-                 marks=_gap(
-        "analysis/distributed/relations.py keeps other bounds that a few rows break: with "
-        "every row searched it leaves out 'components + max_degree >= 3' (broken by G0001, "
-        "G0002, G0003) and keeps 'vertices - max_degree <= 6' (broken by G0209), and does "
-        "not say that the best 15 of 65 such bounds are reported")),
+    # the bounds a few rows break, chosen with the breakers a share of every row allows
+    pytest.param("relations", {"columns": NUMBERS}, _near_bounds, id="relations-near-bounds"),
     pytest.param("outliers", {"columns": NUMBERS, "top": 10}, _outliers, id="outliers"),
     # no graph of the last part (G226..G300) is connected with a cycle: no row of it has
     # every feature
     pytest.param("projection", {"method": "pca", "columns": NUMBERS + ["diameter"]},
                  _projection, id="projection-a-part-with-no-complete-row"),
     pytest.param("outliers", {"columns": NUMBERS + ["diameter"], "top": 10}, _outliers,
-                 id="outliers-a-part-with-no-complete-row", marks=_gap(
-        "it runs now (the part with no complete row is skipped), but its reasons differ "
-        "where analysis/distributed/relations.py keeps another set of the bounds a few rows "
-        "break (see relations-near-bounds)")),
+                 id="outliers-a-part-with-no-complete-row"),
     # rows dropped past features.DROPPED_ROWS_WARNING are a warning on both engines
     pytest.param("projection", {"method": "pca", "columns": NUMBERS}, _feature_warnings,
                  id="dropped-rows-warning"),

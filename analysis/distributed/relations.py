@@ -550,8 +550,9 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
     from analysis import relations as rel
 
     table = ctx.table
-    used = found["used"]
-    allowed = rel.breakers_allowed(step.max_breakers, used) if step.robust else 0
+    # as in memory, a share of breakers is a share of every row of the table, not only of
+    # the rows where all the searched columns are present
+    allowed = rel.breakers_allowed(step.max_breakers, table.n_rows) if step.robust else 0
     every = [r for r in second.relations if r.exact and not r.violations]
     every_vectors = [_vector(r, exact) for r in every]
     # relations broken by a few rows: those of both searches, and relations of the sample
@@ -615,11 +616,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
             violations=tuple(c["broken_ids"].tolist()), note=note))
     bounds = _drop_crowded_triples(bounds, found)
     bounds.sort(key=rel.bound_rank)
-    exact = [b for b in bounds if not b.violations]
-    near = [b for b in bounds if b.violations]
-    if len(exact) > rel.MAX_BOUNDS:
-        notes.append(f"the best {rel.MAX_BOUNDS} of {len(exact)} bounds are reported")
-    bounds = exact[:rel.MAX_BOUNDS] + near[:rel.MAX_NEAR_BOUNDS]
+    bounds = rel.reported_bounds(bounds, rel.MAX_BOUNDS, notes)
     settled_approximate = []
     for relation, (present, off, ids) in zip(approximate, counts["approximate"]):
         if off > allowed:
