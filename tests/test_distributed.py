@@ -671,3 +671,28 @@ def test_sample_table_pca_with_the_matrix_column_left_out_equals_in_memory(tmp_p
     assert memory["n_projected"] == partitioned["n_projected"]
     assert memory["explained_variance_ratio"] == pytest.approx(
         partitioned["explained_variance_ratio"], abs=1e-9)
+
+
+@pytest.mark.parametrize("name", ["elliptic_curves.csv", "quadratic_fields.csv",
+                                  "graphs_as_downloaded.csv"])
+def test_sample_table_relations_are_the_same_on_both_engines(tmp_path, name):
+    # the command line as a user runs it, on each engine: the same relations, bounds and
+    # congruences, with the same breakers, on the columns the Dask engine searched
+    import json
+
+    table = ROOT / "sample_tables" / name
+
+    def run(*options):
+        out = tmp_path / "out.json"
+        done = subprocess.run(
+            [sys.executable, "-m", "analysis", "relations", str(table), *options,
+             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=600)
+        assert done.returncode == 0, done.stderr
+        return json.loads(out.read_text())
+
+    partitioned = run("--engine", "dask")
+    memory = run("--columns", ",".join(partitioned["columns"]))
+    assert partitioned["relations"] or partitioned["bounds"], "something was found"
+    for key in ("relations", "bounds", "congruences"):
+        assert [(r["text"], r["violations"]) for r in partitioned[key]] == \
+            [(r["text"], r["violations"]) for r in memory[key]], key
