@@ -38,3 +38,28 @@ def test_the_page_labels_test_covers_every_kind():
     finally:
         sys.path.pop(0)
     assert set(labels.KINDS) == KINDS
+
+
+def test_every_page_choice_offers_exactly_the_options_its_step_checks():
+    # the page adds words to an option list; the list itself is the step module's
+    from analysis import clustering, features, projection, separation
+    from app import settings
+    from app.panels import clustering as clustering_panel
+    from app.panels import projection as projection_panel
+    from app.panels import separator as separator_panel
+
+    pairs = [
+        (separator_panel.MODELS, separation.MODELS),
+        (separator_panel.PENALTIES, separation.PENALTIES),
+        (separator_panel.KERNEL_APPROXIMATIONS, separation.KERNEL_APPROXIMATIONS),
+        (separator_panel.READINGS, separation.READINGS),
+        (projection_panel.METHODS, projection.METHODS),
+        (clustering_panel.METHODS, clustering.METHODS),
+        (settings.ENCODINGS, features.ARRAY_ENCODINGS),
+        (settings.LOG_SCALES, features.LOG_SCALES),
+        (settings.MISSING, features.MISSING_POLICIES),
+        (settings.INTERVALS, features.INTERVAL_READINGS),
+    ]
+    for words, options in pairs:
+        assert tuple(words) == tuple(options), (tuple(words), options)
+    assert separator_panel.MODELS == separation.MODEL_WORDS

@@ -7,16 +7,12 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from analysis.separation import MODEL_WORDS
 from app import display, settings
 from app.figure_view import show_figures
 
-MODELS = {
-    "linear": "linear support vector machine",
-    "logistic": "logistic regression",
-    "lda": "linear discriminant analysis",
-    "rbf": "support vector machine, RBF kernel",
-    "poly2": "support vector machine, degree-2 polynomial kernel",
-}
+# the model words are the step's own, so a model is named alike everywhere
+MODELS = dict(MODEL_WORDS)
 PENALTIES = {"l2": "l2 (all features)", "l1": "l1 (few features, shorter equations)"}
 KERNEL_APPROXIMATIONS = {
     "exact": "exact (refuse past the row limit)",

@@ -226,7 +226,7 @@ def test_stop_a_running_step_and_open_the_report_offline_in_chromium(chromium, a
             expect(step).to_have_count(1, timeout=60_000)
             # A kernel machine refits for every split and permutation: fifty splits make a
             # run of many seconds, long past the click even on a loaded machine.
-            _choose(step, "Separator", "support vector machine, RBF")
+            _choose(step, "Separator", "support vector machine with an RBF")
             _settle(page)
             splits = step.get_by_label("Random splits", exact=True)
             if not splits.is_visible():
