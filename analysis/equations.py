@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note, note_code
 
 __all__ = [
     "Formula",
@@ -1273,10 +1274,41 @@ def settled_constant(counts, fewest: int, relation: str, low, high, denominator:
     return rounded, True
 
 
-def rounding_note(constant: Fraction, violations: int, fewest: int) -> str:
+def rounding_note(constant: Fraction, violations: int, fewest: int) -> Note:
     """What a rounded constant costs, in the words of the equation's notes."""
-    return (f"constant rounded to {_fraction_text(constant)}, {violations - fewest} more "
-            f"violations than the best constant ({fewest}); at most 0.1% more is allowed")
+    return Note("constant_rounded",
+                f"constant rounded to {_fraction_text(constant)}, {violations - fewest} more "
+                f"violations than the best constant ({fewest}); at most 0.1% more is allowed",
+                constant=constant, violations=violations, fewest=fewest)
+
+
+def gap_note(low: Fraction, high: Fraction, relation: str, exact: bool) -> Note:
+    """Which constants give the same rows as the one chosen (``low`` to ``high``, the ends
+    the relation ``relation`` leaves open or closed), in the words of the equation's notes."""
+    if not exact:
+        text = f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
+    elif relation == ">=":
+        text = (f"any constant c with {_fraction_text(low)} < c <= {_fraction_text(high)} "
+                "gives the same rows")
+    else:
+        text = (f"any constant c with {_fraction_text(low)} <= c < {_fraction_text(high)} "
+                "gives the same rows")
+    return Note("constant_gap", text, low=low, high=high)
+
+
+# The notes of an equation or formula that say where it was searched or fitted, and which
+# constants it could have had: an engine that chooses the constant on other rows replaces them.
+SCOPE_NOTES = ("search_scope", "fit_scope", "constant_gap", "constant_rounded")
+
+
+def sample_wording(note):
+    """A note of a search run on a sample, worded for that: "on the 500 rows of the sample"
+    where the search said "on all 500 rows". Notes that say nothing of their rows stay."""
+    if note_code(note) == "hint_violations":
+        return Note("hint_violations", f"the fitted separator before rounding makes "
+                    f"{note.figures['violations']} violations on the {note.figures['rows']} "
+                    "rows of the sample", **note.figures)
+    return note
 
 
 # ----------------------------------------------------------------------------------------------
@@ -1440,32 +1472,21 @@ def _search(
     return _SearchResult(best, tried, len(evaluations))
 
 
-def _describe_gap(evaluation: _Evaluation) -> str:
+def _describe_gap(evaluation: _Evaluation) -> Note:
     low, high = evaluation.gap
-    if evaluation.relation == ">=":
-        return (
-            f"any constant c with {_fraction_text(low)} < c <= {_fraction_text(high)} gives "
-            "the same rows"
-            if evaluation.exact
-            else f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
-        )
-    return (
-        f"any constant c with {_fraction_text(low)} <= c < {_fraction_text(high)} gives the "
-        "same rows"
-        if evaluation.exact
-        else f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
-    )
+    return gap_note(low, high, evaluation.relation, evaluation.exact)
 
 
 def _evaluation_notes(space: _Space, evaluation: _Evaluation, n: int, sample: np.ndarray):
     notes = []
     if sample.size < n:
-        notes.append(
+        notes.append(Note(
+            "search_scope",
             f"searched on a sample of {sample.size} of {n} rows (both classes kept); threshold "
-            f"chosen and verified on all {n} rows"
-        )
+            f"chosen and verified on all {n} rows", rows=n, sample=int(sample.size)))
     else:
-        notes.append(f"searched, thresholded and verified on all {n} rows")
+        notes.append(Note("search_scope", f"searched, thresholded and verified on all {n} rows",
+                          rows=n))
     if evaluation.exact:
         decimals = sorted(
             {
@@ -1646,9 +1667,10 @@ def _hint_direction(hint, space, positive: np.ndarray) -> tuple[np.ndarray, str]
         raise StepError("hint must be a pair (w, b) of a weight vector and a number.") from None
     if weights.size != p or not np.all(np.isfinite(weights)):
         raise StepError(f"hint weights must be {p} finite numbers, one per feature.")
-    return weights, (f"the fitted separator before rounding makes "
-                     f"{_float_violations(space.Xf @ weights + intercept, positive)} "
-                     f"violations on all {n} rows")
+    violations = _float_violations(space.Xf @ weights + intercept, positive)
+    return weights, Note("hint_violations", f"the fitted separator before rounding makes "
+                         f"{violations} violations on all {n} rows", violations=violations,
+                         rows=n)
 
 
 def one_vs_rest_equations(
@@ -2222,9 +2244,10 @@ def _best_formula(evaluations: list):
 def _formula_notes(best, sampled: int, n: int) -> tuple[str, ...]:
     notes = []
     if sampled < n:
-        notes.append(f"fitted on a sample of {sampled} of {n} rows; verified on all {n} rows")
+        notes.append(Note("fit_scope", f"fitted on a sample of {sampled} of {n} rows; verified "
+                          f"on all {n} rows", rows=n, sample=sampled))
     else:
-        notes.append(f"fitted and verified on all {n} rows")
+        notes.append(Note("fit_scope", f"fitted and verified on all {n} rows", rows=n))
     if best.exact:
         notes.append("verified exactly in rational arithmetic")
     else:

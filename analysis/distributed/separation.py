@@ -15,14 +15,22 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import re
 import time
 from fractions import Fraction
 
 import numpy as np
 
 from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.equations import (
+    SCOPE_NOTES,
+    cut_of_counts,
+    gap_note,
+    rounding_note,
+    sample_wording,
+    settled_constant,
+)
 from analysis.errors import StepError
+from analysis.notes import note_code
 
 # Rows of the sample the protocol runs on (uniform across partitions).
 SAMPLE_ROWS = 100_000
@@ -165,7 +173,6 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     """The equation with its constant chosen on every row and its violations counted there."""
     from dask import delayed
 
-    from analysis.equations import cut_of_counts, rounding_note, settled_constant
 
     names = plan.names
     missing = [n for t in equation.terms for n in t.factor_names() if n not in names]
@@ -192,8 +199,8 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
             # the in-memory search's own rule, rounding included
             constant, rounded = settled_constant(counts, fewest, relation, low, high,
                                                  denominator, exact)
-            gap = _gap_text(Fraction(low) / denominator, Fraction(high) / denominator,
-                            relation, exact)
+            gap = gap_note(Fraction(low) / denominator, Fraction(high) / denominator,
+                           relation, exact)
             settled = dataclasses.replace(equation, relation=relation, constant=constant)
             if (relation, constant) != (equation.relation, equation.constant):
                 notes.append(f"constant chosen again on all rows: the sample gave "
@@ -207,28 +214,15 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     kept = int(counts[1].sum()) if counts is not None else ctx.table.n_rows
     if rounded:
         gap = rounding_note(settled.constant, int(len(ids)), fewest)
-    notes = [_of_sample(n) for n in notes
-             if not n.startswith(("searched", "any constant", "constant rounded"))]
+    # the search's own notes of where it ran and which constants it allowed give way to
+    # those of every row; the others are said of the sample
+    notes = [sample_wording(n) for n in notes if note_code(n) not in SCOPE_NOTES]
     notes.insert(0, f"searched on a sample; threshold chosen and verified on all {kept} rows "
                     "across partitions")
     if gap is not None:
         notes.insert(1, gap)
     return dataclasses.replace(settled, violations=int(len(ids)), violating_rows=tuple(
         ids.tolist()), n_rows=kept, notes=tuple(notes))
-
-
-def _gap_text(low: Fraction, high: Fraction, relation: str, exact: bool) -> str:
-    if not exact:
-        return f"any constant between {float(low):.6g} and {float(high):.6g} gives the same rows"
-    if relation == ">=":
-        return f"any constant c with {low} < c <= {high} gives the same rows"
-    return f"any constant c with {low} <= c < {high} gives the same rows"
-
-
-def _of_sample(note: str) -> str:
-    """A note of the search on the sample, saying so where it speaks of 'all rows'."""
-    note = re.sub(r"on all (\d+) rows", r"on the \1 rows of the sample", note)
-    return note.replace("on all rows", "on all rows of the sample")
 
 
 # ----------------------------------------------------------------------------------------
@@ -307,7 +301,7 @@ def settle_formula(ctx: Context, plan, blocks: list, formula):
                                                          denominator) for b in blocks]))
     if kept is None:
         kept = ctx.table.n_rows
-    notes = [n for n in formula.notes if not n.startswith(("fitted on a sample", "fitted and"))]
+    notes = [n for n in formula.notes if note_code(n) not in SCOPE_NOTES]
     notes.insert(0, f"fitted on a sample; constant and rows off taken over all {kept} rows "
                     "across partitions" if exact else
                  f"fitted on a sample; rows off counted over all {kept} rows across partitions")
