@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import StepError, TableError
+from analysis.notes import Note
 from analysis.table import Table
 
 # "invariant": the full permutation-invariant features for small matrices and the compact
@@ -284,8 +285,9 @@ def dropped_rows_text(n_rows: int, dropped: int, in_features: int, in_target: in
     DROPPED_ROWS_WARNING of the table) rather than a note. Both engines word it here."""
     text = (f"dropped {dropped} of {n_rows} rows with a missing value ({in_features} in "
             f"features, {in_target} in the target).")
+    figures = dict(dropped=dropped, rows=n_rows, in_features=in_features, in_target=in_target)
     if dropped <= DROPPED_ROWS_WARNING * n_rows:
-        return text + hint, False
+        return Note("rows_dropped", text + hint, **figures), False
     advice = []
     if in_features:
         advice.append("Leave out the feature columns with most missing cells, or fill in "
@@ -293,16 +295,19 @@ def dropped_rows_text(n_rows: int, dropped: int, in_features: int, in_target: in
     if in_target:
         advice.append("Rows with no known target value cannot be learned from; the separator "
                       "predicts them for checking by hand.")
-    return (text[0].upper() + text[1:-1] + f": more than {DROPPED_ROWS_WARNING:.0%} of the "
-            "table. " + " ".join(advice) + hint), True
+    return Note("rows_dropped", text[0].upper() + text[1:-1] + f": more than "
+                f"{DROPPED_ROWS_WARNING:.0%} of the table. " + " ".join(advice) + hint,
+                **figures), True
 
 
-def left_out_warning(left_out: list[tuple[str, float]]) -> str:
+def left_out_warning(left_out: list[tuple[str, float]]) -> Note:
     """The warning for mostly-empty columns left out of the default features."""
     named = ", ".join(f"{name!r} (missing in {share:.0%} of rows)" for name, share in left_out)
-    return (f"Left out of the features, being missing in more than "
-            f"{MISSING_SHARE_LIMIT:.0%} of the rows: {named}. Name the columns (columns) to "
-            "use them anyway; rows missing them would then be dropped or filled in.")
+    return Note("columns_left_out", f"Left out of the features, being missing in more than "
+                f"{MISSING_SHARE_LIMIT:.0%} of the rows: {named}. Name the columns (columns) "
+                "to use them anyway; rows missing them would then be dropped or filled in.",
+                columns=tuple(name for name, _ in left_out),
+                shares=tuple(share for _, share in left_out))
 
 
 def _stacked(blocks: list[np.ndarray], n_rows: int) -> np.ndarray:

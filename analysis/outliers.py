@@ -44,6 +44,7 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
+from analysis.notes import Note
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
@@ -633,10 +634,12 @@ def label_doubts_note(target: str, p_own: np.ndarray, own: np.ndarray) -> str | 
     clear, mean, low = _clearly_positive(gains)
     if clear:
         return None
-    return (f"separator: left out of the ranking: a cross-validated logistic regression "
-            f"gives the labels of {target!r} no clearly higher probability than their shares "
-            f"of the rows do (log score gain per object {mean:+.3f}, 95% interval from "
-            f"{low:+.3f}); its doubts about single objects would be noise.")
+    return Note("separator_left_out",
+                f"separator: left out of the ranking: a cross-validated logistic regression "
+                f"gives the labels of {target!r} no clearly higher probability than their "
+                f"shares of the rows do (log score gain per object {mean:+.3f}, 95% interval "
+                f"from {low:+.3f}); its doubts about single objects would be noise.",
+                gain=mean, low=low)
 
 
 def number_doubts_note(target: str, truth: np.ndarray, predicted: np.ndarray) -> str | None:
@@ -648,9 +651,10 @@ def number_doubts_note(target: str, truth: np.ndarray, predicted: np.ndarray) ->
         return None
     spread = float(np.sum((truth - truth.mean()) ** 2))
     r2 = 1.0 - float(np.sum((truth - predicted) ** 2)) / spread if spread > 0 else 0.0
-    return (f"separator: left out of the ranking: a cross-validated ridge regression predicts "
-            f"{target!r} no clearly better than its mean does (R^2 = {r2:.3f}); its residuals "
-            "would rank objects at random.")
+    return Note("separator_left_out",
+                f"separator: left out of the ranking: a cross-validated ridge regression "
+                f"predicts {target!r} no clearly better than its mean does (R^2 = {r2:.3f}); "
+                "its residuals would rank objects at random.", r2=r2)
 
 
 def _separator(table: Table, target: str, guessed: tuple,

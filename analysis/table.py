@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import TableError
+from analysis.notes import Note
 
 ROLES = ("id", "invariant", "category", "flag", "array", "text")
 FORMATS = ("csv", "tsv", "json", "jsonl", "parquet")
@@ -1301,7 +1302,9 @@ def label_merge_warning(name: str, column: str, *, padded: int, written: int, la
     """
     words = label_merge_words(column, padded=padded, written=written, labels=labels,
                               missing=missing, rows=rows)
-    return None if words is None else f"{name}: column {column!r}: {words}"
+    return None if words is None else Note("labels_merged", f"{name}: column {column!r}: "
+                                           f"{words}", column=column, padded=padded,
+                                           written=written, labels=labels)
 
 
 def label_merge_words(column: str, *, padded: int, written: int, labels: int, missing: int,
@@ -1408,10 +1411,11 @@ def flag_spelling_warning(name: str, column: str, labels) -> str | None:
     lowered = {w.lower() for w in words}
     if len(words) < 3 or not lowered <= TRUE_WORDS | FALSE_WORDS or reads_as_flag(set(words)):
         return None
-    return (f"{name}: column {column!r} holds only true/false words, in more than one "
-            f"spelling ({', '.join(words)}), so it is read as a category of {len(words)} "
-            "labels, each spelling a class of its own. Give the column the role flag, or write "
-            "one spelling for each value (such as Y and N), to read it as a flag.")
+    return Note("flag_spellings", f"{name}: column {column!r} holds only true/false words, in "
+                f"more than one spelling ({', '.join(words)}), so it is read as a category of "
+                f"{len(words)} labels, each spelling a class of its own. Give the column the "
+                "role flag, or write one spelling for each value (such as Y and N), to read it "
+                "as a flag.", column=column, spellings=tuple(words))
 
 
 def reads_as_boolean(words) -> bool:
@@ -1441,14 +1445,17 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
             out.append(spelled)
     if dtype == "big integer":
         beyond = "2**53 and missing cells" if note == _BEYOND_FLOAT_NOTE else "64 bits"
-        out.append(
+        out.append(Note(
+            "big_integers",
             f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
-            "and features derived from them use the signed log scale sign(x)*log10(1+|x|)."
-        )
+            "and features derived from them use the signed log scale sign(x)*log10(1+|x|).",
+            column=column))
     if dtype == "empty":
-        out.append(f"{name}: column {column!r} is empty in every row.")
+        out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
+                        column=column))
     elif distinct == 1 and n > 1 and role != "id":
-        out.append(f"{name}: column {column!r} is constant; it carries no information.")
+        out.append(Note("column_constant", f"{name}: column {column!r} is constant; it carries "
+                        "no information.", column=column))
     return out
 
 
