@@ -44,7 +44,7 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, target_values
-from analysis.notes import Note
+from analysis.notes import Note, note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
@@ -289,8 +289,8 @@ class OutliersStep:
             outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
             measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
             combination=combination_text(used),
-            seed=self.seed, features=tuple(fm.names), notes=tuple(dict.fromkeys(notes)),
-            warnings=tuple(fm.warnings),
+            seed=self.seed, features=tuple(fm.names), notes=said_as_notes(notes),
+            warnings=tuple(fm.warnings) + said_as_warnings(notes),
             elapsed_seconds=time.perf_counter() - started, open_values=opened,
         )
 
@@ -621,6 +621,20 @@ def _clearly_positive(gains: np.ndarray) -> tuple[bool, float, float]:
     half = float(norm.ppf(0.975)) * float(np.std(gains, ddof=1)) / np.sqrt(len(gains)) \
         if len(gains) > 1 else np.inf
     return mean - half > 0, mean, mean - half
+
+
+# Notes of the ranking that the user must read first: the target asked for was not used.
+WARNING_CODES = ("separator_left_out",)
+
+
+def said_as_notes(notes: list) -> tuple:
+    """The ranking's notes that stay notes (each once, in order)."""
+    return tuple(dict.fromkeys(n for n in notes if note_code(n) not in WARNING_CODES))
+
+
+def said_as_warnings(notes: list) -> tuple:
+    """The ranking's notes that are warnings (WARNING_CODES)."""
+    return tuple(dict.fromkeys(n for n in notes if note_code(n) in WARNING_CODES))
 
 
 def label_doubts_note(target: str, p_own: np.ndarray, own: np.ndarray) -> str | None:

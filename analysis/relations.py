@@ -279,7 +279,9 @@ class RelationsResult:
             for congruence in self.congruences[:10]:
                 broken = (f"  (broken by {congruence.violation_count} rows)"
                           if congruence.violation_count else "")
-                lines.append(f"  {congruence.text}{broken}")
+                present = (f"  (on the {congruence.holds_on} rows where its columns are "
+                           "present)" if congruence.holds_on < self.n_rows else "")
+                lines.append(f"  {congruence.text}{broken}{present}")
         broken = [s for s in (*self.relations, *self.bounds) if s.violations]
         if broken:
             lines.append(f"  to ask what sets the breakers of a statement apart: separate "

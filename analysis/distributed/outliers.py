@@ -115,7 +115,7 @@ def run_outliers(step, ctx: Context):
         measures=tuple(kept_measures), target=step.target, k=clusters.result.k, n_rows=n,
         combination=ol.combination_text(kept_measures),
         top=step.top, seed=step.seed, features=tuple(plan.names),
-        notes=tuple(dict.fromkeys(notes)), warnings=warned,
+        notes=ol.said_as_notes(notes), warnings=warned + ol.said_as_warnings(notes),
         elapsed_seconds=time.perf_counter() - started,
     )
 
