@@ -1137,10 +1137,6 @@ GRID_LIMIT = 4_000_000
 MAX_TRIPLE_POINTS = 200_000
 
 
-def _cross(o, a, b):
-    return (a[0] - o[0]) * (b[1] - o[1]) - (a[1] - o[1]) * (b[0] - o[0])
-
-
 def hull_2d(points) -> list[tuple]:
     """Vertices of the convex hull, counterclockwise, exact, without points mid-edge."""
     points = sorted(set(points))
@@ -1148,9 +1144,14 @@ def hull_2d(points) -> list[tuple]:
         return points
 
     def chain(sequence):
+        # _cross written out: this loop runs millions of times on a large table
         kept: list = []
         for p in sequence:
-            while len(kept) >= 2 and _cross(kept[-2], kept[-1], p) <= 0:
+            px, py = p
+            while len(kept) >= 2:
+                (ox, oy), (ax, ay) = kept[-2], kept[-1]
+                if (ax - ox) * (py - oy) - (ay - oy) * (px - ox) > 0:
+                    break
                 kept.pop()
             kept.append(p)
         return kept
@@ -1587,8 +1588,16 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
         combined = _combine((a, b), points.coords)
         if combined.dtype == object:
             continue
+        weighed = weights
+        top = breakers + 1
+        if len(combined) > 4 * top:
+            # a constant has at most ``breakers`` rows beyond it, so it is one of the values
+            # of the ``breakers + 1`` highest points: only those and their equals are counted
+            cut = np.partition(combined, len(combined) - top)[len(combined) - top]
+            kept = combined >= cut
+            combined, weighed = combined[kept], weights[kept]
         values, inverse = np.unique(combined, return_inverse=True)
-        per_value = np.bincount(inverse.ravel(), weights=weights).astype(np.int64)
+        per_value = np.bincount(inverse.ravel(), weights=weighed).astype(np.int64)
         beyond = np.cumsum(per_value[::-1])[::-1] - per_value   # rows above each value
         usable = (beyond > 0) & (beyond <= breakers) & (per_value >= 3 * beyond)
         if not usable.any():
