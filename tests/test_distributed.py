@@ -613,21 +613,26 @@ def test_objects_to_look_at_equal_in_memory_and_find_planted_rows(client, tmp_pa
     assert moved <= 5, f"a row's standing moved by {moved:.1f} ranks"
 
 
+def _relations_json(table, folder, *options) -> dict:
+    """The relations step's JSON as the command line writes it for ``table``."""
+    import json
+
+    out = folder / "out.json"
+    done = subprocess.run(
+        [sys.executable, "-m", "analysis", "relations", str(table), *options,
+         "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    return json.loads(out.read_text())
+
+
 def test_sample_table_relations_equal_in_memory_with_big_integers_left_out(tmp_path):
     # lattice polygons (Pick's theorem holds on every row: twice_area = 2*interior_points +
     # boundary_points - 2); the column of counts past 64 bits is left out on Dask, said so,
     # and the rest equals the in-memory search of the same columns
-    import json
-
     table = ROOT / "sample_tables" / "lattice_polygons.csv"
 
     def run(*options):
-        out = tmp_path / "out.json"
-        done = subprocess.run(
-            [sys.executable, "-m", "analysis", "relations", str(table), *options,
-             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=300)
-        assert done.returncode == 0, done.stderr
-        return json.loads(out.read_text())
+        return _relations_json(table, tmp_path, *options)
 
     partitioned = run("--engine", "dask")
     assert "points_in_dilate_1e12" not in partitioned["columns"]
@@ -678,20 +683,9 @@ def test_sample_table_pca_with_the_matrix_column_left_out_equals_in_memory(tmp_p
 def test_sample_table_relations_are_the_same_on_both_engines(tmp_path, name):
     # the command line as a user runs it, on each engine: the same relations, bounds and
     # congruences, with the same breakers, on the columns the Dask engine searched
-    import json
-
     table = ROOT / "sample_tables" / name
-
-    def run(*options):
-        out = tmp_path / "out.json"
-        done = subprocess.run(
-            [sys.executable, "-m", "analysis", "relations", str(table), *options,
-             "--json", str(out)], cwd=ROOT, capture_output=True, text=True, timeout=600)
-        assert done.returncode == 0, done.stderr
-        return json.loads(out.read_text())
-
-    partitioned = run("--engine", "dask")
-    memory = run("--columns", ",".join(partitioned["columns"]))
+    partitioned = _relations_json(table, tmp_path, "--engine", "dask")
+    memory = _relations_json(table, tmp_path, "--columns", ",".join(partitioned["columns"]))
     assert partitioned["relations"] or partitioned["bounds"], "something was found"
     for key in ("relations", "bounds", "congruences"):
         assert [(r["text"], r["violations"]) for r in partitioned[key]] == \
