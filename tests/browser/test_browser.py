@@ -119,6 +119,19 @@ def _settle(page) -> None:
         page.wait_for_timeout(1000)
 
 
+def _add_step(page, kind_title: str, heading: str):
+    """Add a step of the kind shown as ``kind_title`` and return its box, headed ``heading``."""
+    from playwright.sync_api import expect
+
+    _choose(page, "Kind of step", kind_title)
+    page.get_by_role("button", name="Add step").click()
+    _settle(page)
+    step = page.locator("[class*='st-key-step-']").filter(
+        has=page.get_by_role("heading", name=heading))
+    expect(step).to_have_count(1, timeout=60_000)
+    return step
+
+
 @pytest.mark.browser
 def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_path):
     from playwright.sync_api import expect, sync_playwright
@@ -155,13 +168,8 @@ def test_upload_a_table_and_run_a_separator_in_chromium(chromium, app_url, tmp_p
 
             _choose(page, "Target", "is_reflexive")
             _settle(page)
-            _choose(page, "Kind of step", "Separator")
-            page.get_by_role("button", name="Add step").click()
-            _settle(page)
             # The new step is the last one on the page; it waits for its run action.
-            step = page.locator("[class*='st-key-step-']").filter(
-                has=page.get_by_role("heading", name="3. Separator"))
-            expect(step).to_have_count(1, timeout=60_000)
+            step = _add_step(page, "Separator", "3. Separator")
             step.get_by_role("button", name="Run this step").click()
 
             # The equation as text to copy: a sum of the table's columns against a constant.
@@ -218,12 +226,7 @@ def test_stop_a_running_step_and_open_the_report_offline_in_chromium(chromium, a
             page.goto(f"{app_url}/?table=quadratic_fields.csv")
             expect(page.get_by_text("Add a step")).to_be_visible(timeout=STEP_TIMEOUT_MS)
             _settle(page)
-            _choose(page, "Kind of step", "Separator")
-            page.get_by_role("button", name="Add step").click()
-            _settle(page)
-            step = page.locator("[class*='st-key-step-']").filter(
-                has=page.get_by_role("heading", name="3. Separator"))
-            expect(step).to_have_count(1, timeout=60_000)
+            step = _add_step(page, "Separator", "3. Separator")
             # A kernel machine refits for every split and permutation: fifty splits make a
             # run of many seconds, long past the click even on a loaded machine.
             _choose(step, "Separator", "support vector machine with an RBF")
@@ -498,10 +501,8 @@ def test_every_step_says_what_it_computed_on_a_class_and_a_number_target_in_chro
             _settle(page)
             _choose(page, "Target", TARGETS["class"], exact=True)
             _settle(page)
-            for kind in KINDS[2:]:
-                _choose(page, "Kind of step", KIND_TITLES[kind])
-                page.get_by_role("button", name="Add step").click()
-                _settle(page)
+            for number, kind in enumerate(KINDS[2:], start=3):
+                _add_step(page, KIND_TITLES[kind], f"{number}. {KIND_TITLES[kind]}")
             _run_and_wait(page, page.get_by_role("button", name="Run every step"))
             before = _read_steps(page, tmp_path / "labels-class.json")
             _check_labels(before, "class", facts)
