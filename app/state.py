@@ -23,6 +23,7 @@ Widget keys are separate (streamlit keeps them in session state too); they start
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import streamlit as st
@@ -265,22 +266,27 @@ def keep_current() -> None:
 def to_let_go(digest: str) -> list[str]:
     """The tables whose results putting aside the table with ``digest`` would let go."""
     kept = kept_studies()
-    whole = [k for d, k in kept.items() if k.whole and d != digest]
-    return [k.name for k in whole[:max(0, len(whole) + 1 - KEPT_WHOLE)]]
+    return [kept[d].name for d in _past_limit(kept, also=digest)]
+
+
+def _past_limit(kept: dict[str, KeptStudy], also: str | None = None) -> list[str]:
+    """The digests of the tables kept whole beyond the last KEPT_WHOLE, oldest first, once
+    the table ``also`` (if any) is put aside as the latest."""
+    whole = [d for d, k in kept.items() if k.whole and d != also]
+    extra = 1 if also is not None else 0
+    return whole[:max(0, len(whole) + extra - KEPT_WHOLE)]
 
 
 def _let_go(kept: dict[str, KeptStudy]) -> list[str]:
     """Keep the bytes and results of the last KEPT_WHOLE tables only; return the others'
     names, whose studies stay."""
-    whole = [d for d, k in kept.items() if k.whole]
     names = []
     found = cache()
-    for digest in whole[:max(0, len(whole) - KEPT_WHOLE)]:
+    for digest in _past_limit(kept):
         old = kept[digest]
         for key in old.results:
             found.discard(key)
-        kept[digest] = KeptStudy(table=None, study=old.study, step_ids=old.step_ids,
-                                 focus=old.focus, results={}, errors={}, name=old.name)
+        kept[digest] = dataclasses.replace(old, table=None, results={}, errors={})
         names.append(old.name)
     return names
 
