@@ -627,6 +627,10 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
         block, names = _invariants(name, cells, ndims, shapes)
         blocks.append(block)
         features.extend(names)
+        if _symmetric_only(names):
+            notes.append(Note("symmetric_sums", f"{name!r}: every matrix is symmetric, so its "
+                              "column sums are its row sums and are not features twice.",
+                              column=name))
         if len(shapes) > 1:
             notes.append(f"{name!r}: permutation-invariant features of different-sized arrays "
                          "padded with 0.")
@@ -639,6 +643,13 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
                      "entries, and every permutation-invariant feature of those arrays, count "
                      "as missing.")
     return np.column_stack(blocks), features
+
+
+def _symmetric_only(features: list[Feature]) -> bool:
+    """Whether permutation-invariant features were read from symmetric matrices only: they
+    have eigenvalues, which only symmetric matrices get, and no column sums."""
+    kinds = {f.kind for f in features}
+    return "eigen" in kinds and "column_sums" not in kinds
 
 
 def _max_shape(shapes: set) -> tuple:
@@ -684,7 +695,9 @@ def _matrix_invariants(m: np.ndarray, square: bool, symmetric: bool) -> dict[str
     values = {"sorted": -np.sort(-m.ravel())}
     if m.ndim == 2:
         values["row_sums"] = -np.sort(-m.sum(axis=1))
-        values["column_sums"] = -np.sort(-m.sum(axis=0))
+        if not symmetric:
+            # a symmetric matrix's column sums are its row sums: the same feature twice
+            values["column_sums"] = -np.sort(-m.sum(axis=0))
         if not np.isfinite(values["row_sums"]).all():
             # entries near the float limit: the decompositions below would not converge
             nan = np.full(min(m.shape), np.nan)

@@ -544,3 +544,28 @@ def test_lost_columns_and_rows_are_warnings_of_every_step(kind):
     assert not any("independence_number" in n for n in result.notes)
     assert result.to_json()["warnings"] == list(result.warnings)
     assert "warning: Left out of the features" in result.summary()
+
+
+def test_symmetric_matrices_give_row_sums_once():
+    # reference: networkx's graph atlas; an adjacency matrix is symmetric and its row sums
+    # are the vertex degrees (networkx's degree view)
+    import networkx as nx
+
+    graphs = [g for g in nx.graph_atlas_g()[1:60] if g.number_of_nodes() == 4]
+    rows = [{"k": i, "m": nx.to_numpy_array(g, dtype=int).tolist()}
+            for i, g in enumerate(graphs)]
+    fm = build_features(_table(rows), columns=["m"], array_encoding="invariant")
+    kinds = {f.kind for f in fm.features}
+    assert "column_sums" not in kinds and {"row_sums", "eigen"} <= kinds
+    assert any(getattr(n, "code", None) == "symmetric_sums" for n in fm.notes)
+    for g, values in zip(graphs, fm.values):
+        row = dict(zip(fm.names, values))
+        degrees = sorted((d for _, d in g.degree()), reverse=True)
+        assert [row[f"rowsum{k}(m)"] for k in range(1, 5)] == degrees
+
+
+def test_one_asymmetric_matrix_keeps_column_sums():
+    rows = [{"k": 0, "m": [[0, 1], [1, 0]]}, {"k": 1, "m": [[0, 2], [1, 0]]}]
+    fm = build_features(_table(rows), columns=["m"], array_encoding="invariant")
+    assert {"row_sums", "column_sums", "charpoly"} <= {f.kind for f in fm.features}
+    assert not any(getattr(n, "code", None) == "symmetric_sums" for n in fm.notes)
