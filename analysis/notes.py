@@ -25,7 +25,7 @@ class Note(str):
     code: str
     figures: dict
 
-    def __new__(cls, code: str, text: str, **figures):
+    def __new__(cls, code: str, text: str, /, **figures):
         note = super().__new__(cls, text)
         note.code = code
         note.figures = dict(figures)

@@ -13,6 +13,10 @@ The tags are one-key objects whose key starts with ``$``::
     {"$array": {"dtype": "int64", "shape": [3], "data": [1, 2, 3]}}
     {"$tuple": [...]}   {"$dict": [[key, value], ...]}   {"$fraction": "3/4"}
     {"$float": "nan"}   (also "inf" and "-inf"; finite floats are plain JSON numbers)
+    {"$note": {"code": "rows_dropped", "text": "...", "figures": {"$dict": [...]}}}
+
+A :class:`~analysis.notes.Note` keeps its code and figures through the file; the result's
+``to_json`` (the command line's JSON and the study's ``json``) still writes its words only.
 """
 
 from __future__ import annotations
@@ -26,6 +30,7 @@ from fractions import Fraction
 import numpy as np
 
 from analysis.errors import StudyError
+from analysis.notes import Note
 
 # The modules whose dataclasses a stored result may hold: the step modules and the records
 # their results carry.
@@ -39,6 +44,8 @@ RESULT_MODULES = (
 # (each element then stored and checked like any other value).
 _ARRAY_KINDS = "biufUO"
 _NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]*$")
+_NOTE_CODE = re.compile(r"^[a-z][a-z0-9_]*$")
+_NOTE_KEYS = {"code", "text", "figures"}
 _FLOAT_WORDS = {"nan": math.nan, "inf": math.inf, "-inf": -math.inf}
 # Arrays with more cells than this are not a result of a table a study file could carry.
 MAX_CELLS = 50_000_000
@@ -50,6 +57,9 @@ class StoredResultError(StudyError):
 
 def encode(value, where: str = "result"):
     """``value`` (a step's result, or any part of it) as tagged plain JSON."""
+    if isinstance(value, Note):
+        return {"$note": {"code": value.code, "text": str(value),
+                          "figures": encode(value.figures, f"{where}.figures")}}
     if value is None or isinstance(value, (bool, str)):
         return value
     if isinstance(value, int):
@@ -133,6 +143,8 @@ def decode(data, where: str = "result"):
         return _FLOAT_WORDS[body]
     if tag == "$array" and isinstance(body, dict):
         return _decode_array(body, where)
+    if tag == "$note" and isinstance(body, dict):
+        return _decode_note(body, where)
     raise StoredResultError(f"{where}: unknown or malformed tag {tag!r}.")
 
 
@@ -148,6 +160,18 @@ def _decode_dict(body: list, where: str) -> dict:
             raise StoredResultError(f"{where}: key {i} of a dict cannot be a key.") from None
         out[key] = decode(pair[1], f"{where}[{key!r}]")
     return out
+
+
+def _decode_note(body: dict, where: str) -> Note:
+    code, text = body.get("code"), body.get("text")
+    if set(body) != _NOTE_KEYS or not isinstance(text, str) or not isinstance(code, str) \
+            or not _NOTE_CODE.match(code):
+        raise StoredResultError(f"{where}: a stored note needs a code (snake_case), a text and "
+                                "figures.")
+    figures = decode(body["figures"], f"{where}.figures")
+    if not isinstance(figures, dict) or not all(isinstance(k, str) for k in figures):
+        raise StoredResultError(f"{where}: a stored note's figures are a dict named by words.")
+    return Note(code, text, **figures)
 
 
 def _result_class(name, where: str):

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from conftest import iris_csv
 
+from analysis.notes import Note, note_code
 from analysis.steps import STEP_KINDS
 from analysis.stored import StoredResultError, decode, encode
 from analysis.study import default_study, run_study
@@ -71,12 +72,43 @@ def test_arrays_fractions_and_odd_floats_keep_their_type_and_value():
     ({"$fraction": "1/0"}, "not a fraction"),
     ({"$float": "huge"}, "malformed tag"),
     ({"$pickle": "gASV"}, "malformed tag"),
+    ({"$note": {"code": "Not Snake", "text": "a", "figures": {"$dict": []}}}, "snake_case"),
+    ({"$note": {"code": "a", "text": 3, "figures": {"$dict": []}}}, "needs a code"),
+    ({"$note": {"code": "a", "text": "b", "figures": [1]}}, "figures are a dict"),
+    ({"$note": {"code": "a", "text": "b"}}, "needs a code"),
     ({"plain": 1}, "malformed tag"),
 ])
 def test_anything_but_a_stored_value_is_refused_naming_where(data, words):
     with pytest.raises(StoredResultError, match=words) as caught:
         decode({"$tuple": [0, data]}, where="step 2")
     assert "step 2[1]" in str(caught.value)
+
+
+def _notes_of(result):
+    return [n for n in (*getattr(result, "warnings", ()), *getattr(result, "notes", ()))]
+
+
+def test_a_note_comes_back_with_its_code_its_words_and_its_figures():
+    note = Note("rows_dropped", "3 rows dropped", rows=3, share=0.25, columns=("a", "b"),
+                code="a figure may be called code")
+    back = _through_a_file({"notes": (note, "words only")})["notes"]
+    assert type(back[0]) is Note and note_code(back[1]) is None
+    assert (str(back[0]), back[0].code, back[0].figures) == \
+        ("3 rows dropped", "rows_dropped",
+         {"rows": 3, "share": 0.25, "columns": ("a", "b"), "code": "a figure may be called code"})
+
+
+def test_the_notes_of_every_kind_of_result_keep_their_codes_and_figures(iris_run):
+    seen = 0
+    for outcome in iris_run.outcomes:
+        before = _notes_of(outcome.result)
+        after = _notes_of(_through_a_file(outcome.result))
+        assert after == before, outcome.kind
+        assert [(note_code(n), n.figures) for n in after] == \
+            [(note_code(n), n.figures) for n in before], outcome.kind
+        assert None not in [note_code(n) for n in after], outcome.kind
+        seen += len(after)
+    assert seen, "no step of the iris study carried a note"
 
 
 def test_only_values_of_results_can_be_written():
