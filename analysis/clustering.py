@@ -23,9 +23,10 @@ import numpy as np
 
 from analysis.errors import StepError
 from analysis.features import FeatureMatrix, build_features, target_values
+from analysis.notes import Note
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
-from analysis.projection import prepared, sample_positions
+from analysis.projection import prepared, sample_positions, scaling_note
 from analysis.table import Table
 from analysis.threads import threads_for
 
@@ -201,8 +202,7 @@ class ClusteringStep:
         n = len(fm.rows)
         notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "clustering")
-        notes.append("features standardized to mean 0 and standard deviation 1."
-                     if self.standardize else "features used in their own units.")
+        notes.append(scaling_note(self.standardize))
         ks = self.candidate_ks(n, table.name)
         scorer = _Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
@@ -282,8 +282,8 @@ class ClusteringStep:
         n = len(values)
         if method == "kmeans":
             if n > MINIBATCH_ROWS:
-                notes.append(f"{n} rows: mini-batch k-means (batches of 4096 rows) instead "
-                             "of exact k-means.")
+                notes.append(Note("minibatch_kmeans", f"{n} rows: mini-batch k-means (batches "
+                                  "of 4096 rows) instead of exact k-means.", rows=n))
             for k in ks:
                 labels = kmeans_labels(values, k, self.seed)[0]
                 yield _entry(method, k, labels, scorer), labels
@@ -327,8 +327,9 @@ class _Silhouette:
         self.rows = np.arange(n)
         if n > sample_size:
             self.rows = sample_positions(n, sample_size, seed)
-            notes.append(f"silhouettes computed on a random sample of {sample_size} of the "
-                         f"{n} rows (seed {seed}).")
+            notes.append(Note("silhouette_sample", f"silhouettes computed on a random sample "
+                              f"of {sample_size} of the {n} rows (seed {seed}).",
+                              sample=sample_size, rows=n, seed=seed))
         self.distances = pairwise_distances(values[self.rows])
 
     def __call__(self, labels: np.ndarray) -> float | None:
@@ -376,30 +377,34 @@ def mixture_model(values: np.ndarray, k: int, seed: int):
     return GaussianMixture(n_components=k, covariance_type="full", random_state=seed).fit(values)
 
 
-def mixture_note(fitted: int, n: int) -> str:
+def mixture_note(fitted: int, n: int) -> Note:
     """Gaussian mixtures fitted on ``fitted`` of the ``n`` rows."""
-    return (f"Gaussian mixtures fitted on a random sample of {fitted} of the {n} rows; every "
-            "row then joins its most likely component.")
+    return Note("mixture_sample", f"Gaussian mixtures fitted on a random sample of {fitted} of "
+                f"the {n} rows; every row then joins its most likely component.",
+                sample=fitted, rows=n)
 
 
-def agglomerative_note(fitted: int, n: int) -> str:
+def agglomerative_note(fitted: int, n: int) -> Note:
     """Ward's tree built on ``fitted`` of the ``n`` rows."""
-    return (f"agglomerative clustering (Ward) built on a random sample of {fitted} of the {n} "
-            "rows; the other rows join the cluster with the nearest mean.")
+    return Note("agglomerative_sample", f"agglomerative clustering (Ward) built on a random "
+                f"sample of {fitted} of the {n} rows; the other rows join the cluster with the "
+                "nearest mean.", sample=fitted, rows=n)
 
 
-def hdbscan_size_note(size: int) -> str:
-    return (f"HDBSCAN with a smallest cluster of {size} rows; rows in no cluster are noise "
-            "(cluster -1).")
+def hdbscan_size_note(size: int) -> Note:
+    return Note("hdbscan_size", f"HDBSCAN with a smallest cluster of {size} rows; rows in no "
+                "cluster are noise (cluster -1).", size=size)
 
 
-def hdbscan_sample_note(fitted: int, n: int) -> str:
-    return (f"HDBSCAN ran on a random sample of {fitted} of the {n} rows; each other row takes "
-            "the cluster (or noise) of its nearest sampled row.")
+def hdbscan_sample_note(fitted: int, n: int) -> Note:
+    return Note("hdbscan_sample", f"HDBSCAN ran on a random sample of {fitted} of the {n} "
+                "rows; each other row takes the cluster (or noise) of its nearest sampled row.",
+                sample=fitted, rows=n)
 
 
-def hdbscan_k_note(k: int) -> str:
-    return f"HDBSCAN finds its own number of clusters; k = {k} was not used."
+def hdbscan_k_note(k: int) -> Note:
+    return Note("hdbscan_k_unused",
+                f"HDBSCAN finds its own number of clusters; k = {k} was not used.", k=k)
 
 
 def hdbscan_size(min_cluster_size: int, fitted: int) -> int:

@@ -219,7 +219,8 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     if bad.any() or target_missing.any():
         inf_count = int(np.isinf(values).any(axis=1).sum())
         if inf_count:
-            notes.append(f"{inf_count} rows have an infinite feature value; treated as missing.")
+            notes.append(Note("infinite_values", f"{inf_count} rows have an infinite feature "
+                              "value; treated as missing.", rows=inf_count))
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
             hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
@@ -234,9 +235,10 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             keep = ~target_missing
             values = values[keep]
             rows = rows[keep]
-            notes.append(f"filled {filled} missing feature cells (the median for numbers, the "
-                         "most common value for flags and categories); dropped "
-                         f"{int(target_missing.sum())} rows with no target value.")
+            notes.append(Note("cells_filled", f"filled {filled} missing feature cells (the "
+                              "median for numbers, the most common value for flags and "
+                              f"categories); dropped {int(target_missing.sum())} rows with no "
+                              "target value.", cells=filled, dropped=int(target_missing.sum())))
     if len(rows) == 0:
         raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
                         "other columns or impute missing values.")
@@ -259,8 +261,10 @@ def _read_intervals(table: Table, values: np.ndarray, features: list[Feature], e
         read = marks.numeric(end)
         values[marks.positions, j] = read if feature.kind == "value" \
             else _signed_log(read.tolist())
-        notes.append(f"{len(marks)} interval cells of {feature.column!r} read as their "
-                     f"{'midpoint' if end == 'midpoint' else end + ' end'}.")
+        notes.append(Note("intervals_read", f"{len(marks)} interval cells of "
+                          f"{feature.column!r} read as their "
+                          f"{'midpoint' if end == 'midpoint' else end + ' end'}.",
+                          cells=len(marks), column=feature.column, end=end))
 
 
 def _interval_hint(table: Table, columns: list[str], dropped: np.ndarray,
@@ -551,8 +555,8 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
                 beyond = "64 bits" if any(
                     v is not None and not isinstance(v, float) and abs(v) > 2**63 - 1
                     for v in series.tolist()) else "2**53"
-                notes.append(f"{name!r} holds integers beyond {beyond}: used as "
-                             f"sign(x)*log10(1+|x|).")
+                notes.append(Note("signed_log", f"{name!r} holds integers beyond {beyond}: "
+                                  "used as sign(x)*log10(1+|x|).", column=name, beyond=beyond))
             return values[:, None], [Feature(f"slog({name})", name, "log",
                                              "sign(x)*log10(1+|x|)")]
         return table.numeric(name)[:, None], [Feature(name, name, "value")]
@@ -605,8 +609,9 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
     if encoding in ("flat", "both"):
         block, names = _flattened(name, cells, shapes)
         if len(shapes) > 1:
-            notes.append(f"{name!r}: arrays of different shapes padded with 0 to "
-                         f"{'x'.join(map(str, _max_shape(shapes)))} for flattening.")
+            notes.append(Note("arrays_padded", f"{name!r}: arrays of different shapes padded "
+                              f"with 0 to {'x'.join(map(str, _max_shape(shapes)))} for "
+                              "flattening.", column=name, shape=tuple(_max_shape(shapes))))
         blocks.append(block)
         features.extend(names)
     from analysis.matrix_features import COMPACT_FROM_ENTRIES
@@ -619,10 +624,11 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
         blocks.append(block)
         features.extend(names)
         if encoding != "compact":
-            notes.append(f"{name!r}: cells of up to {largest} entries: compact features (size, "
-                         "rank, trace, determinant, singular values, spectra of the matrix "
-                         "and of its symmetrised form) instead of every sorted entry; choose "
-                         "the array encoding full for those.")
+            notes.append(Note("compact_arrays", f"{name!r}: cells of up to {largest} entries: "
+                              "compact features (size, rank, trace, determinant, singular "
+                              "values, spectra of the matrix and of its symmetrised form) "
+                              "instead of every sorted entry; choose the array encoding full "
+                              "for those.", column=name, entries=largest))
     elif encoding in ("invariant", "full", "both"):
         block, names = _invariants(name, cells, ndims, shapes)
         blocks.append(block)
@@ -632,16 +638,18 @@ def _array_block(table: Table, name: str, encoding: str, notes: list[str]):
                               "column sums are its row sums and are not features twice.",
                               column=name))
         if len(shapes) > 1:
-            notes.append(f"{name!r}: permutation-invariant features of different-sized arrays "
-                         "padded with 0.")
+            notes.append(Note("invariants_padded", f"{name!r}: permutation-invariant features "
+                              "of different-sized arrays padded with 0.", column=name))
         if ndims == {1, 2}:
-            notes.append(f"{name!r}: lists among matrices treated as matrices with one row "
-                         "for the permutation-invariant features.")
+            notes.append(Note("lists_as_matrices", f"{name!r}: lists among matrices treated "
+                              "as matrices with one row for the permutation-invariant "
+                              "features.", column=name))
     unusable = sum(not np.isfinite(_as_floats(c)).all() for c in present)
     if unusable:
-        notes.append(f"{name!r}: {unusable} arrays hold NaN or infinite entries; those "
-                     "entries, and every permutation-invariant feature of those arrays, count "
-                     "as missing.")
+        notes.append(Note("arrays_not_finite", f"{name!r}: {unusable} arrays hold NaN or "
+                          "infinite entries; those entries, and every permutation-invariant "
+                          "feature of those arrays, count as missing.", column=name,
+                          arrays=unusable))
     return np.column_stack(blocks), features
 
 

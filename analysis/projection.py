@@ -18,6 +18,7 @@ import numpy as np
 
 from analysis.errors import StepError
 from analysis.features import build_features, target_values
+from analysis.notes import Note
 from analysis.plain import plain, row_id
 from analysis.progress import quiet, stoppable_call
 from analysis.table import Table
@@ -29,8 +30,9 @@ SAMPLE_THRESHOLDS = {"tsne": 20_000, "umap": 50_000}
 # LDA looks for directions separating classes; a target with more values than this is
 # almost certainly a number, not a label.
 MAX_LDA_CLASSES = 50
-UMAP_COMPILE_NOTE = ("UMAP compiles its numerical code the first time it runs in a process; "
-                     "that first run takes 15 s or more, later ones are much faster.")
+UMAP_COMPILE_NOTE = Note("umap_compiles", "UMAP compiles its numerical code the first time it "
+                         "runs in a process; that first run takes 15 s or more, later ones are "
+                         "much faster.")
 
 # Whether UMAP has already run in this process (its first call pays for compilation).
 _umap_has_run = False
@@ -62,6 +64,12 @@ def standardized(values: np.ndarray) -> np.ndarray:
     """
     out, _ = _centred_and_scaled(values)
     return out
+
+
+def scaling_note(standardize: bool) -> Note:
+    """The note of whether a step's features were standardized (see :func:`prepared`)."""
+    return Note("features_scaled", "features standardized to mean 0 and standard deviation 1."
+                if standardize else "features used in their own units.", standardized=standardize)
 
 
 def prepared(values: np.ndarray, standardize: bool, table_name: str, what: str) -> np.ndarray:
@@ -238,16 +246,16 @@ class ProjectionStep:
                             intervals=self.intervals)
         notes = list(fm.notes)
         if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
-            notes.append(f"{METHOD_TITLES[self.method]} uses every row; the sample size "
-                         "applies to UMAP and t-SNE only.")
+            notes.append(Note("sample_size_unused", f"{METHOD_TITLES[self.method]} uses every "
+                              "row; the sample size applies to UMAP and t-SNE only.",
+                              method=self.method))
         n = len(fm.rows)
         if n < 3:
             raise StepError(f"{table.name}: a projection needs at least 3 rows with every "
                             f"feature present; {n} remain. Impute missing values or choose "
                             "other columns.")
         values = prepared(fm.values, self.standardize, table.name, "a projection")
-        notes.append("features standardized to mean 0 and standard deviation 1."
-                     if self.standardize else "features used in their own units.")
+        notes.append(scaling_note(self.standardize))
         keep = np.arange(n)
         sampled = False
         if self.method in SAMPLE_THRESHOLDS:
@@ -255,9 +263,11 @@ class ProjectionStep:
             if n > limit:
                 keep = sample_positions(n, limit, self.seed)
                 sampled = True
-                notes.append(f"{METHOD_TITLES[self.method]} ran on a random sample of {limit} "
-                             f"of the {n} rows (seed {self.seed}); {METHOD_TITLES[self.method]} "
-                             "does not scale exactly to large tables.")
+                notes.append(Note("projection_sample", f"{METHOD_TITLES[self.method]} ran on a "
+                                  f"random sample of {limit} of the {n} rows (seed "
+                                  f"{self.seed}); {METHOD_TITLES[self.method]} does not scale "
+                                  "exactly to large tables.", method=self.method,
+                                  sample=limit, rows=n, seed=self.seed))
         # every row projected: no copy of the matrix (PCA and LDA never sample)
         work = values[keep] if sampled else values
         extra: dict = {}
@@ -266,7 +276,8 @@ class ProjectionStep:
         if self.method == "pca":
             coordinates, extra = stoppable_call(reporter, _pca, work, fm.names)
             if len(extra["explained_variance_ratio"]) < 2:
-                notes.append("one feature gives one principal component; y is 0.")
+                notes.append(Note("one_component",
+                                  "one feature gives one principal component; y is 0."))
         elif self.method == "lda":
             labels = target_values(table, self.target, fm.rows)
             coordinates, extra = stoppable_call(reporter, _lda, work, labels, fm.names,
@@ -363,8 +374,8 @@ def _lda(values: np.ndarray, labels: np.ndarray, names: list[str], target: str,
         coordinates = np.column_stack([scores[:, 0], spread.transform(values)[:, 0]])
         titles = ("discriminant axis", "first principal component")
         second = spread.components_[0]
-        notes.append("two classes give one discriminant axis (x); y is the first principal "
-                     "component of the same features.")
+        notes.append(Note("one_discriminant", "two classes give one discriminant axis (x); y "
+                          "is the first principal component of the same features."))
     loadings = {name: (float(scalings[j, 0]), float(second[j])) for j, name in enumerate(names)}
     return coordinates, {"loadings": loadings, "axis_titles": titles}
 
@@ -377,7 +388,8 @@ def _tsne(values: np.ndarray, perplexity: float, seed: int, notes: list[str]) ->
     # meaningful on tiny tables
     usable = min(perplexity, max(1.0, (n - 1) / 3))
     if usable < perplexity:
-        notes.append(f"perplexity lowered from {perplexity:g} to {usable:.3g} for {n} rows.")
+        notes.append(Note("perplexity_lowered", f"perplexity lowered from {perplexity:g} to "
+                          f"{usable:.3g} for {n} rows.", asked=perplexity, used=usable, rows=n))
     # the PCA start needs two features; with one, start from random positions
     start = "pca" if values.shape[1] >= 2 else "random"
     model = TSNE(n_components=2, perplexity=usable, init=start, random_state=seed)
@@ -398,7 +410,8 @@ def _umap(values: np.ndarray, n_neighbors: int, seed: int, notes: list[str],
     n = len(values)
     usable = min(n_neighbors, n - 1)
     if usable < n_neighbors:
-        notes.append(f"n_neighbors lowered from {n_neighbors} to {usable} for {n} rows.")
+        notes.append(Note("neighbours_lowered", f"n_neighbors lowered from {n_neighbors} to "
+                          f"{usable} for {n} rows.", asked=n_neighbors, used=usable, rows=n))
     if not _umap_has_run:
         notes.append(UMAP_COMPILE_NOTE)
     reporter.phase(f"UMAP: nearest neighbours of {n} rows")
