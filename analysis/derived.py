@@ -22,6 +22,7 @@ from fractions import Fraction
 import pandas as pd
 
 from analysis.errors import StepError
+from analysis.notes import Note
 from analysis.plain import fraction_text
 
 __all__ = ["RELATIONS", "Statement", "with_breaks_flag"]
@@ -191,5 +192,7 @@ def with_breaks_flag(table, statement: Statement):
     missing = sum(1 for f in flags if f is None)
     info = ColumnInfo(name=name, role="flag", dtype="boolean", missing=missing, distinct=2,
                       detected_role="flag",
-                      note=f"derived: true on the {broken} rows that break {statement.text}")
+                      note=Note("derived_flag", f"derived: true on the {broken} rows that "
+                                f"break {statement.text}", rows=broken,
+                                statement=statement.text))
     return dataclasses.replace(table, frame=frame, columns=table.columns + (info,)), name

@@ -326,7 +326,8 @@ class OutliersStep:
         if not np.array_equal(clusters.positions, fm.rows):
             raise RuntimeError("the clustering used other rows than the ranking")
         notes.extend(note for note in clusters.notes if note not in fm.notes)
-        notes.append(f"distance from centre uses k-means clusters: {clusters.reason}")
+        notes.append(Note("centre_clusters", "distance from centre uses k-means clusters: "
+                          f"{clusters.reason}", k=clusters.k))
         return _centre_distance(values, clusters.labels, clusters.k), clusters.k
 
     def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
@@ -335,7 +336,8 @@ class OutliersStep:
         except ModuleNotFoundError as exc:
             if exc.name != "analysis.relations":
                 raise
-            notes.append("relations not checked: the relations module is not available.")
+            notes.append(Note("relations_unchecked", "relations not checked: the relations "
+                              "module is not available."))
             return None
         columns = None
         if self.columns is not None:
@@ -344,13 +346,14 @@ class OutliersStep:
                        and table.column(name).dtype in ("integer", "big integer", "rational",
                                                         "boolean", "real")]
             if not columns:
-                notes.append("relations not checked: no numeric invariant among the feature "
-                             "columns.")
+                notes.append(Note("relations_unchecked", "relations not checked: no numeric "
+                                  "invariant among the feature columns."))
                 return None
         try:
             result = RelationsStep(columns=columns, robust=True, seed=self.seed).run(table)
         except StepError as exc:
-            notes.append(f"relations not checked: {exc}")
+            notes.append(Note("relations_unchecked", f"relations not checked: {exc}",
+                              reason=str(exc)))
             return None
         return relations_measure(result, row_ids)
 
@@ -362,7 +365,7 @@ def relations_measure(result, row_ids: np.ndarray) -> Measure:
 
     # relation_reasons says which rows break (or sit off) a relation or bound; bounds
     # attained by almost every row are no reason to look, so only rare attainers count
-    broken_texts = {row: [t for t in texts if not t.startswith("attains ")]
+    broken_texts = {row: [t for t in texts if note_code(t) != "bound_attained"]
                     for row, texts in relation_reasons(result).items()}
     rare: dict = {}
     for bound in result.bounds:
@@ -390,8 +393,8 @@ def ranked_list(measures: dict, row_ids: np.ndarray, top: int, notes: list[str])
         if np.ptp(measure.scores) > 0:
             used[name] = measure
         else:
-            notes.append(f"{name}: every row scores the same ({measure.flat_text}); not "
-                         "counted.")
+            notes.append(Note("measure_flat", f"{name}: every row scores the same "
+                              f"({measure.flat_text}); not counted.", measure=name))
     standing = {name: rank_standing(m.scores) for name, m in used.items()}
     combined, breadth = combined_standing(standing, n)
     # highest score first, then the higher mean standing, then table order
@@ -525,9 +528,10 @@ def factor_measure(factor: np.ndarray, neighbours: int) -> Measure:
                    "local outlier factor")
 
 
-def factor_sample_note(fitted: int, n: int, seed: int) -> str:
-    return (f"local outlier factor fitted on a random sample of {fitted} of the {n} rows "
-            f"(seed {seed}); the other rows are scored against that sample.")
+def factor_sample_note(fitted: int, n: int, seed: int) -> Note:
+    return Note("factor_sample", f"local outlier factor fitted on a random sample of {fitted} "
+                f"of the {n} rows (seed {seed}); the other rows are scored against that sample.",
+                sample=fitted, rows=n, seed=seed)
 
 
 def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int, seed: int,
@@ -681,8 +685,9 @@ def _separator(table: Table, target: str, guessed: tuple,
         residual = truth - predicted
         spread = float(np.std(residual)) or 1.0
         z = residual / spread
-        notes.append(f"separator: {target!r} predicted by a {splits}-fold "
-                     "cross-validated ridge regression on standardized features.")
+        notes.append(Note("separator_measure", f"separator: {target!r} predicted by a "
+                          f"{splits}-fold cross-validated ridge regression on standardized "
+                          "features.", target=target, folds=splits))
         return residual_measure(target, truth, predicted, z)
     labels, probability = truth, predicted
     index = {c: j for j, c in enumerate(classes)}
@@ -694,9 +699,10 @@ def _separator(table: Table, target: str, guessed: tuple,
         notes.append(empty)
         return None
     boolean = table.column(target).dtype == "boolean"
-    notes.append(f"separator: {target!r} predicted by a {splits}-fold cross-validated logistic "
-                 "regression on standardized features; a row scores 1 minus the probability "
-                 "given to its own class.")
+    notes.append(Note("separator_measure", f"separator: {target!r} predicted by a {splits}-fold "
+                      "cross-validated logistic regression on standardized features; a row "
+                      "scores 1 minus the probability given to its own class.", target=target,
+                      folds=splits))
     return label_measure(target, 1.0 - p_true, lambda i: classes[guess[i]],
                          probability[np.arange(len(labels)), guess], labels, guess != own,
                          boolean)
@@ -783,9 +789,10 @@ def open_values(table: Table, step, fm, guessed: tuple,
                              confidence=float(chances[k]), interval=span, inside=inside,
                              reason=reason))
     if out:
-        notes.append(f"{len(out)} objects with an open value of {target!r} are predicted with "
-                     f"a chance of at least {OPEN_CONFIDENCE:.0%} by a model fitted on the "
-                     "known rows; they follow the ranked list, to be checked by hand.")
+        notes.append(Note("open_values", f"{len(out)} objects with an open value of {target!r} "
+                          f"are predicted with a chance of at least {OPEN_CONFIDENCE:.0%} by a "
+                          "model fitted on the known rows; they follow the ranked list, to be "
+                          "checked by hand.", objects=len(out), target=target))
     return tuple(out)
 
 

@@ -38,6 +38,7 @@ from typing import ClassVar
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note, note_code
 from analysis.plain import plain
 from analysis.progress import quiet
 
@@ -317,17 +318,18 @@ def relation_reasons(result: RelationsResult) -> dict:
             return
         others = "" if count == 1 else f" (one of the {count} objects that do)"
         for row in statement.violations:
-            add(row, f"{verb} {statement.text}, which every other object obeys{others}")
+            add(row, Note("statement_broken", f"{verb} {statement.text}, which every other "
+                          f"object obeys{others}", statement=statement.text, breaking=count))
 
     for relation in result.relations:
         broken(relation)
     for relation in result.approximate:
         for row in relation.violations:
-            add(row, f"is off {relation.text}")
+            add(row, Note("relation_off", f"is off {relation.text}", statement=relation.text))
     for bound in result.bounds:
         broken(bound)
         for row in bound.attained_by:
-            add(row, f"attains {bound.text}")
+            add(row, Note("bound_attained", f"attains {bound.text}", statement=bound.text))
     for congruence in result.congruences:
         broken(congruence)
     return reasons
@@ -804,7 +806,8 @@ def _repeat(columns, name, rows, earlier, where=""):
     if bool(np.all(values == first)):
         return Relation(
             terms=((name, Fraction(1)),), constant=Fraction(first), holds_on=len(rows),
-            trivial=True, note=f"trivial: column '{name}' is constant{where}",
+            trivial=True, note=Note("trivial_constant", f"trivial: column '{name}' is "
+                                    f"constant{where}", columns=(name,)),
         )
     # Comparing the first values rules most pairs out without a pass over every row.
     twin = next(
@@ -818,7 +821,8 @@ def _repeat(columns, name, rows, earlier, where=""):
     return Relation(
         terms=((twin, Fraction(1)), (name, Fraction(-1))), constant=Fraction(0),
         holds_on=len(rows), trivial=True,
-        note=f"trivial: columns '{twin}' and '{name}' are equal{where or ' on every row'}",
+        note=Note("trivial_equal", f"trivial: columns '{twin}' and '{name}' are "
+                  f"equal{where or ' on every row'}", columns=(twin, name)),
     )
 
 
@@ -877,22 +881,40 @@ def robust_rank(breaking: int, vector: Sequence[int]) -> tuple:
     return breaking, sum(1 for x in vector[:-1] if x), sum(x * x for x in vector)
 
 
-def robust_note(names: Sequence[str], breaking: int, trivial: bool) -> str:
+def robust_note(names: Sequence[str], breaking: int, trivial: bool) -> Note:
     """The note of an exact relation over ``names`` that ``breaking`` rows break."""
     if trivial and len(names) == 1:
-        return f"trivial: column '{names[0]}' is constant on all but {breaking} rows"
+        return Note("trivial_constant", f"trivial: column '{names[0]}' is constant on all but "
+                    f"{breaking} rows", columns=tuple(names), breaking=breaking)
     if trivial and len(names) == 2:
-        return (f"trivial: columns '{names[0]}' and '{names[1]}' are equal on all but "
-                f"{breaking} rows")
-    return f"holds on all but {breaking} rows"
+        return Note("trivial_equal", f"trivial: columns '{names[0]}' and '{names[1]}' are "
+                    f"equal on all but {breaking} rows", columns=tuple(names), breaking=breaking)
+    return _breakers_note(breaking)
 
 
-def approximate_note(breaking: int) -> str:
+def _breakers_note(breaking: int) -> Note:
+    return Note("breakers", f"holds on all but {breaking} rows", breaking=breaking)
+
+
+def joined_note(*notes) -> Note | str:
+    """The notes of one relation or bound said as one, in order (``a; b``); empty ones are
+    left out. The parts stay records: ``figures["parts"]`` of a note coded ``several``."""
+    parts = [part for note in notes for part in _note_parts(note)]
+    if len(parts) < 2:
+        return parts[0] if parts else ""
+    return Note("several", "; ".join(parts), parts=tuple(parts))
+
+
+def _note_parts(note) -> tuple:
+    if not note:
+        return ()
+    return note.figures["parts"] if note_code(note) == "several" else (note,)
+
+
+def approximate_note(breaking: int) -> Note:
     """The note of an approximate relation that ``breaking`` rows are off."""
-    note = "approximate: the columns hold floating point values"
-    if breaking:
-        note += f"; holds on all but {breaking} rows"
-    return note
+    note = Note("approximate", "approximate: the columns hold floating point values")
+    return joined_note(note, _breakers_note(breaking) if breaking else "")
 
 
 def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, notes):
@@ -911,16 +933,19 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
     share = {name: float(columns[name][1].mean()) for name in names}
     dropped = [name for name in names if share[name] > 0.5]
     if dropped:
-        notes.append(
+        notes.append(Note(
+            "relation_columns_left_out",
             "left out of the relation search (missing in more than half of the rows): "
-            + ", ".join(dropped)
-        )
+            + ", ".join(dropped), columns=tuple(dropped),
+        ))
     names = [name for name in names if name not in dropped]
     if len(names) > MAX_RELATION_COLUMNS:
-        notes.append(
+        notes.append(Note(
+            "relation_columns_limited",
             f"relation search limited to the first {MAX_RELATION_COLUMNS} of {len(names)} "
-            "exact columns; name columns to search others"
-        )
+            "exact columns; name columns to search others",
+            searched=MAX_RELATION_COLUMNS, columns=len(names),
+        ))
         names = names[:MAX_RELATION_COLUMNS]
     complete = [name for name in names if share[name] == 0]
     partial = [name for name in names if share[name] > 0]
@@ -947,8 +972,9 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
         for vector in base:
             note = ""
             if distinct <= width:
-                note = (f"only {distinct} distinct rows for {len(core)} columns: relations like "
-                        "this one are forced by the small number of rows")
+                note = Note("few_distinct_rows", f"only {distinct} distinct rows for "
+                            f"{len(core)} columns: relations like this one are forced by the "
+                            "small number of rows", distinct=distinct, columns=len(core))
             found.append(_relation_from_vector(vector, core, n, (), note))
         equalities += [_as_equality(r) for r in found]
         breakers = breakers_allowed(max_breakers, n) if robust else 0
@@ -974,12 +1000,14 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
         for vector in lattice:
             if vector[len(core)] and tracker.add(vector):
                 partial_found.append(_relation_from_vector(
-                    vector, core + [name], len(rows), (), f"holds{where}"))
+                    vector, core + [name], len(rows), (),
+                    Note("holds_where_present", f"holds{where}", rows=len(rows))))
     if partial:
-        notes.append(
+        notes.append(Note(
+            "searched_where_present",
             "columns with missing values were searched on the rows where they are present: "
-            + ", ".join(partial)
-        )
+            + ", ".join(partial), columns=tuple(partial),
+        ))
     ordered = (
         found
         + partial_found
@@ -1069,14 +1097,16 @@ def _approximate_relations(
     finite = np.isfinite(matrix).all(axis=1)
     used = np.flatnonzero(finite)
     if len(used) < len(row_ids):
-        notes.append(
+        notes.append(Note(
+            "approximate_rows_left_out",
             f"{len(row_ids) - len(used)} rows with a missing or infinite value were left out "
-            "of the approximate relation search"
-        )
+            "of the approximate relation search", rows=len(row_ids) - len(used),
+        ))
     values = matrix[used]
     size, width = values.shape
     if size < width + 2:
-        notes.append("too few rows for an approximate relation search")
+        notes.append(Note("approximate_too_few_rows",
+                          "too few rows for an approximate relation search", rows=size))
         return []
     breakers = breakers_allowed(breakers_setting, size) if robust else 0
     scale = np.sqrt(np.mean(values**2, axis=0))
@@ -1116,8 +1146,10 @@ def _approximate_relations(
             trivial = len(terms) == 1 or (
                 len(terms) == 2 and terms[0][1] == -terms[1][1] and snapped[-1] == 0)
             if trivial:
-                note = ("trivial: a constant column" if len(terms) == 1
-                        else "trivial: two equal columns") + f" ({note})"
+                note = Note("trivial_constant" if len(terms) == 1 else "trivial_equal",
+                            ("trivial: a constant column" if len(terms) == 1
+                             else "trivial: two equal columns") + f" ({note})",
+                            columns=tuple(name for name, _ in terms), breaking=len(bad))
             found.append((len(bad), Relation(
                 terms=terms, constant=-snapped[-1], holds_on=size - len(bad),
                 violations=tuple(row_ids[used[bad]].tolist()), exact=False, trivial=trivial,
@@ -1466,8 +1498,9 @@ def _unscaled(coefs, scales) -> tuple[list[int], int]:
     return [c // divisor for c in shown], divisor
 
 
-def _listed_phrase(attaining: int) -> str:
-    return f"the first {MAX_LISTED_ROWS} of {attaining} attaining rows are listed"
+def _listed_phrase(attaining: int) -> Note:
+    return Note("rows_listed", f"the first {MAX_LISTED_ROWS} of {attaining} attaining rows are "
+                "listed", listed=MAX_LISTED_ROWS, attaining=attaining)
 
 
 def listed_note(note: str, attaining: int) -> str:
@@ -1475,18 +1508,18 @@ def listed_note(note: str, attaining: int) -> str:
     ``attaining`` rows attain the bound."""
     if attaining <= MAX_LISTED_ROWS:
         return note
-    return (note + "; " if note else "") + _listed_phrase(attaining)
+    return joined_note(note, _listed_phrase(attaining))
 
 
 def recounted_note(bound: Bound, attaining: int) -> str:
     """The note of ``bound`` as it reads when ``attaining`` rows attain it (not the
     ``bound.attained_count`` it was found with): what it said before saying how many
     attaining rows are listed, and that count again."""
-    parts = bound.note.split("; ") if bound.note else []
-    listed = _listed_phrase(bound.attained_count)
-    if listed in parts:
-        parts = parts[:parts.index(listed)]
-    return listed_note("; ".join(parts), attaining)
+    parts = list(_note_parts(bound.note))
+    codes = [note_code(part) for part in parts]
+    if "rows_listed" in codes:
+        parts = parts[:codes.index("rows_listed")]
+    return listed_note(joined_note(*parts), attaining)
 
 
 def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
@@ -1608,8 +1641,8 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
         if _implied(dict(zip(names, shown)), shown_constant, facts):
             continue
         bound = _make_bound(names, (a, b), constant, points, row_ids, integer, scales)
-        note = f"holds on all but {len(bound.violations)} rows"
-        found.append(replace(bound, note=(bound.note + "; " if bound.note else "") + note))
+        found.append(replace(bound, note=joined_note(bound.note,
+                                                    _breakers_note(len(bound.violations)))))
     return found
 
 
@@ -1671,9 +1704,8 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
                 # Many more rows reaching it than breaking it, or it is just a ragged edge.
                 broken = len(bound.violations)
                 if 0 < broken <= breakers and bound.attained_count >= 3 * broken:
-                    note = f"holds on all but {len(bound.violations)} rows"
-                    found.append(replace(
-                        bound, note=(bound.note + "; " if bound.note else "") + note))
+                    found.append(replace(bound, note=joined_note(
+                        bound.note, _breakers_note(len(bound.violations)))))
             uncovered = sorted((weight(v), v) for v in current if v not in original)
             if hulls_left <= 0 or not uncovered or used + uncovered[0][0] > breakers:
                 break
@@ -1806,10 +1838,12 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             continue
         bound_columns[name] = column
     if wider:
-        notes.append(
+        notes.append(Note(
+            "bound_columns_limited",
             f"bounds searched among the first {MAX_BOUND_COLUMNS} columns with three or more "
-            f"values; {wider} more were not searched (name columns to search others)"
-        )
+            f"values; {wider} more were not searched (name columns to search others)",
+            searched=MAX_BOUND_COLUMNS, left_out=wider,
+        ))
     usable = list(bound_columns)
     if len(usable) < 2:
         return []
@@ -1834,10 +1868,12 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
     if triples:
         eligible = [name for name in usable if bound_columns[name].exact_int]
         if len(eligible) > MAX_TRIPLE_COLUMNS:
-            notes.append(
+            notes.append(Note(
+                "triple_columns_limited",
                 f"bounds in three columns searched among the first {MAX_TRIPLE_COLUMNS} "
-                f"of {len(eligible)} integer columns"
-            )
+                f"of {len(eligible)} integer columns",
+                searched=MAX_TRIPLE_COLUMNS, columns=len(eligible),
+            ))
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
         triple_facts = (ranges, equalities, pair_edges)
         skipped = 0
@@ -1858,10 +1894,12 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
             else:
                 found += triple
         if skipped:
-            notes.append(
+            notes.append(Note(
+                "triples_skipped",
                 f"{skipped} triples of columns with wide value ranges or too many distinct "
-                "points were not searched for bounds (too costly on a table this size)"
-            )
+                "points were not searched for bounds (too costly on a table this size)",
+                triples=skipped,
+            ))
     found.sort(key=bound_rank)
     reducer = _Reducer(list(columns), equalities)
     seen: set = set()
@@ -1883,10 +1921,12 @@ def reported_bounds(ranked: list[Bound], max_bounds: int, notes: list[str]) -> l
     exact = [b for b in ranked if not b.violations]
     near = [b for b in ranked if b.violations]
     if len(exact) > max_bounds:
-        notes.append(f"the best {max_bounds} of {len(exact)} bounds are reported")
+        notes.append(Note("bounds_cut", f"the best {max_bounds} of {len(exact)} bounds are "
+                          "reported", reported=max_bounds, found=len(exact), breaking=False))
     if len(near) > MAX_NEAR_BOUNDS:
-        notes.append(f"the best {MAX_NEAR_BOUNDS} of {len(near)} bounds that all but a few "
-                     "rows obey are reported")
+        notes.append(Note("bounds_cut", f"the best {MAX_NEAR_BOUNDS} of {len(near)} bounds "
+                          "that all but a few rows obey are reported", reported=MAX_NEAR_BOUNDS,
+                          found=len(near), breaking=True))
     return exact[:max_bounds] + near[:MAX_NEAR_BOUNDS]
 
 
@@ -1929,10 +1969,11 @@ def _approximate_columns(real_columns: Mapping, columns: dict, notes: list[str])
     extra = [name for name in columns if name not in data and not columns[name][1].any()]
     room = MAX_APPROXIMATE_COLUMNS - len(data)
     if room < len(extra):
-        notes.append(
+        notes.append(Note(
+            "approximate_columns_limited",
             f"approximate relations searched with {max(room, 0)} of the {len(extra)} exact "
-            "columns besides the real-valued ones"
-        )
+            "columns besides the real-valued ones", searched=max(room, 0), columns=len(extra),
+        ))
     for name in extra[: max(room, 0)]:
         values, missing = columns[name]
         as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
@@ -2181,8 +2222,9 @@ def _with_interval_rows(table, names: list[str], found: RelationsResult) -> Rela
     bounds = tuple(judged(b, b.relation) for b in found.bounds)
     counted = sum(len(s.violations) - len(o.violations) for s, o in
                   zip((*relations, *bounds), (*found.relations, *found.bounds)))
-    note = ("rows known only by an interval were held against each relation and bound: a row "
-            "breaks one only when every value of its intervals does (listed with the "
-            f"breakers; {counted} such break{'' if counted == 1 else 's'}), and is consistent "
-            "with it otherwise.")
+    note = Note("interval_rows_held", "rows known only by an interval were held against each "
+                "relation and bound: a row breaks one only when every value of its intervals "
+                f"does (listed with the breakers; {counted} such break"
+                f"{'' if counted == 1 else 's'}), and is consistent with it otherwise.",
+                breaks=counted)
     return replace(found, relations=relations, bounds=bounds, notes=(*found.notes, note))
