@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from analysis.features import is_numeric_target
+from analysis.notes import Note
 
 # Training fractions of the curve that chooses a reading, and seeded repeats at each.
 CURVE_FRACTIONS = (0.25, 0.5, 0.75)
@@ -63,8 +64,9 @@ def choose_reading(table, target: str, reading: str, values: np.ndarray,
     used). ``reading`` is the step's setting: "number", "classes" or "auto"."""
     number = is_numeric_target(table, target, reading)
     if reading != "auto":
-        return Reading(number, "setting", f"{target!r} read as "
-                       f"{'a number' if number else 'classes'}, as the step's setting asks.")
+        return Reading(number, "setting", Note("target_reading", f"{target!r} read as "
+                       f"{'a number' if number else 'classes'}, as the step's setting asks.",
+                       target=target, number=number))
     info = table.column(target)
     known = np.asarray(truth, dtype=float) if info.role == "invariant" \
         and info.dtype in WHOLE_DTYPES else None
@@ -76,11 +78,13 @@ def choose_reading(table, target: str, reading: str, values: np.ndarray,
         return Reading(number, "rule", "")
     as_number = curve["number"][-1] >= curve["classes"][-1]
     largest = f"{CURVE_FRACTIONS[-1]:.0%}"
-    text = (f"{target!r} ({distinct} whole-number values) read as "
-            f"{'a number' if as_number else 'classes'}: on a learning curve scored by the "
-            f"share exactly right on held-out rows ({MODELS}), training on {largest} of the "
-            f"rows, the number reading got {curve['number'][-1]:.1%} right and the class "
-            f"reading {curve['classes'][-1]:.1%}. Choose the reading to use the other.")
+    text = Note("target_reading", f"{target!r} ({distinct} whole-number values) read as "
+                f"{'a number' if as_number else 'classes'}: on a learning curve scored by the "
+                f"share exactly right on held-out rows ({MODELS}), training on {largest} of "
+                f"the rows, the number reading got {curve['number'][-1]:.1%} right and the "
+                f"class reading {curve['classes'][-1]:.1%}. Choose the reading to use the "
+                "other.", target=target, number=bool(as_number), values=distinct,
+                number_share=curve["number"][-1], class_share=curve["classes"][-1])
     return Reading(as_number, "learning curve", text, curve)
 
 

@@ -13,6 +13,7 @@ import warnings as _warnings
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note
 from analysis.separator_metrics import CHANCE_LEVEL, score
 from analysis.separator_models import fit, fit_ignores_seed, predict, shares_process_random
 from analysis.separator_protocol import (
@@ -82,9 +83,11 @@ def permutation_test(run, train, test, predicted):
         method += f" (at most 50 shuffles, fewer than the {step.permutations} asked: the " \
                   "table is large)"
     if test_result.smallest_possible >= CHANCE_LEVEL:
-        run.log.notes.append(f"at most {count} permutations: the smallest possible p-value "
-                             f"is {test_result.smallest_possible:.3f}, so the verdict cannot "
-                             "be yes.")
+        run.log.notes.append(Note("few_permutations", f"at most {count} permutations: the "
+                                  "smallest possible p-value is "
+                                  f"{test_result.smallest_possible:.3f}, so the verdict cannot "
+                                  "be yes.", permutations=count,
+                                  smallest_p=float(test_result.smallest_possible)))
     return (float(test_result.p_value), test_result.scores, float(observed), method,
             test_result.count)
 
@@ -136,7 +139,8 @@ def learning_curve(run) -> list[dict]:
     if n > limit:
         pool = subsample(pool, None if run.regression else run.y, limit,
                          step.seed + 31, groups=run.group_labels)
-        run.log.notes.append(f"learning curve on a sample of {len(pool)} of the {n} rows.")
+        run.log.notes.append(Note("curve_sample", f"learning curve on a sample of {len(pool)} "
+                                  f"of the {n} rows.", sample=len(pool), rows=n))
     planned, skipped = _curve_splits(run, pool)
 
     def one(job):
@@ -164,9 +168,9 @@ def learning_curve(run) -> list[dict]:
                        "mean": float(np.mean(mine)), "std": float(np.std(mine)),
                        "scores": [float(v) for v in mine]})
     if skipped:
-        run.log.notes.append("learning curve: no valid split at training fraction "
-                             f"{', '.join(map(str, skipped))} (too few rows per class or "
-                             "group).")
+        run.log.notes.append(Note("curve_fractions_skipped", "learning curve: no valid split "
+                                  f"at training fraction {', '.join(map(str, skipped))} (too "
+                                  "few rows per class or group).", fractions=tuple(skipped)))
     return points
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from analysis.notes import Note
 from analysis.separator_models import decision, fit, predict
 
 # Features whose values are the table's own numbers (or sums of them): an equation in them
@@ -30,9 +31,10 @@ def equation_part(run, split_model) -> tuple[dict, object]:
         # starting direction little; the exact search and its check on every row decide
         model = split_model
         fitted_on = "split 1's training rows"
-        run.log.notes.append(f"the table is large ({n} rows): the separator fitted on split "
-                             "1's training rows gives the equation's starting direction and "
-                             "the decision scores, instead of a refit on every row.")
+        run.log.notes.append(Note("equation_from_split", f"the table is large ({n} rows): the "
+                                  "separator fitted on split 1's training rows gives the "
+                                  "equation's starting direction and the decision scores, "
+                                  "instead of a refit on every row.", rows=n))
     else:
         model = fit(run, np.arange(n), seed_offset=5000)
     predicted = np.asarray(predict(model, run.X))
@@ -43,8 +45,9 @@ def equation_part(run, split_model) -> tuple[dict, object]:
     if step.max_denominator is not None:
         options["max_denominator"] = step.max_denominator
     if n > step.sample_rows:
-        run.log.notes.append(f"the equation was searched on a sample of {step.sample_rows} "
-                             f"rows, then checked on all {n} rows.")
+        run.log.notes.append(Note("equation_sample", f"the equation was searched on a sample "
+                                  f"of {step.sample_rows} rows, then checked on all {n} rows.",
+                                  sample=step.sample_rows, rows=n))
 
     def scores_of(source, values):
         return {"rows": run.fm.rows, "row_ids": run.fm.row_ids, "scores": values,
@@ -102,8 +105,9 @@ def _kernel_equation(run, model, predicted, fitted_on: str, options: dict, score
     machine_scores = scores_of(f"decision value of the kernel machine fitted on "
                                f"{fitted_on}", decision(model, run.X))
     if run.n_classes != 2:
-        run.log.notes.append("no equation for a kernel machine over several classes; choose "
-                             "a positive class to get one for that class against the rest.")
+        run.log.notes.append(Note("no_kernel_equation", "no equation for a kernel machine "
+                                  "over several classes; choose a positive class to get one "
+                                  "for that class against the rest.", classes=run.n_classes))
         return {"decision": machine_scores}
     if run.step.model == "poly2" and run.kernel_mode != "nystroem":
         equation = eqs.poly2_equation(model, None, names, run.X, run.y == 1, row_ids=ids,

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note
 
 
 @dataclass(frozen=True, eq=False)
@@ -52,9 +53,10 @@ def class_target(raw: np.ndarray, step, table_name: str) -> Target:
     rare = [v for v, c in zip(values, counts) if c < 2]
     if rare and step.positive_class is None:
         keep = ~np.isin(labels, np.array(rare, dtype=object))
-        notes.append(f"left out {int((~keep).sum())} rows of classes with a single "
-                     f"row ({', '.join(map(repr, rare[:10]))}): a split cannot put "
-                     "them on both sides.")
+        notes.append(Note("single_row_classes", f"left out {int((~keep).sum())} rows of "
+                          f"classes with a single row ({', '.join(map(repr, rare[:10]))}): a "
+                          "split cannot put them on both sides.", rows=int((~keep).sum()),
+                          classes=tuple(rare)))
         labels = labels[keep]
         flags = None if flags is None else flags[keep]
         values, counts = count_labels(labels, flags)
@@ -70,7 +72,8 @@ def class_target(raw: np.ndarray, step, table_name: str) -> Target:
     negative = values[0] if len(values) == 2 and values[1] == positive else (
         values[1] if len(values) == 2 else f"not {positive}")
     if len(values) > 2:
-        notes.append(f"{len(values)} classes: {positive!r} against the rest.")
+        notes.append(Note("one_against_rest", f"{len(values)} classes: {positive!r} against "
+                          "the rest.", classes=len(values), positive=positive))
     if flags is not None and isinstance(positive, bool):
         y = (flags == positive).astype(np.int64)
     else:
@@ -101,12 +104,12 @@ def numeric_target(raw: np.ndarray, step, table_name: str) -> Target:
     notes = []
     integer_target = is_integer_target(y)
     if integer_target:
-        notes.append(f"{step.target!r} takes whole values: the share of test rows whose "
-                     "rounded prediction is exactly right (exact) is reported beside "
-                     "R^2, against the most common training value and the closest "
-                     "formula.")
-    notes.append(f"{step.target!r} is a numeric invariant with many values: fitted "
-                 "as a regression.")
+        notes.append(Note("whole_target", f"{step.target!r} takes whole values: the share of "
+                          "test rows whose rounded prediction is exactly right (exact) is "
+                          "reported beside R^2, against the most common training value and "
+                          "the closest formula.", target=step.target))
+    notes.append(Note("regression", f"{step.target!r} is a numeric invariant with many "
+                      "values: fitted as a regression.", target=step.target))
     return Target(y=y, classes=(), positive_class=None, n_classes=0,
                   integer_target=integer_target, keep=None, notes=tuple(notes))
 

@@ -10,6 +10,7 @@ import warnings as _warnings
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note
 from analysis.separator_protocol import subsample
 
 MODELS = ("linear", "logistic", "lda", "rbf", "poly2")
@@ -96,10 +97,12 @@ def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset
     for w in caught:
         name = w.category.__name__
         if name == "ConvergenceWarning":
-            run.log.fit_warnings.add("the solver stopped at its iteration limit on some "
-                                     "fits; the scores still come from held-out rows.")
+            run.log.fit_warnings.add(Note("iteration_limit", "the solver stopped at its "
+                                          "iteration limit on some fits; the scores still come "
+                                          "from held-out rows."))
         elif "collinear" in str(w.message).lower():
-            run.log.fit_warnings.add("some features are collinear (LDA).")
+            run.log.fit_warnings.add(Note("collinear_features",
+                                          "some features are collinear (LDA)."))
     return estimator
 
 

@@ -17,6 +17,7 @@ import numpy as np
 
 from analysis.errors import StepError
 from analysis.features import build_features, group_keys, is_numeric_target, target_values
+from analysis.notes import Note
 from analysis.progress import Reporter
 from analysis.reading import Reading, choose_reading
 from analysis.separator_labels import class_target, numeric_target
@@ -108,7 +109,7 @@ def prepare(step, table: Table, progress: Reporter, log: RunLog) -> PreparedRun:
     group_labels = _group_labels(step, table, fm, log)
     kernel_mode, method = kernel_method(step, n, reading.number, table.name)
     if method is not None:
-        log.notes.append(f"kernel: {method}.")
+        log.notes.append(Note("kernel", f"kernel: {method}.", mode=kernel_mode))
     copy_values, copy_source = _copies(step, table, fm, log)
     return PreparedRun(
         step=step, table=table, progress=progress, log=log, fm=fm, X=X, y=target.y,
@@ -143,8 +144,9 @@ def _group_labels(step, table: Table, fm, log: RunLog) -> np.ndarray | None:
                         "another group column.")
     what = "canonical keys of the matrix column" if \
         table.column(step.groups).role == "array" else "values of the column"
-    log.notes.append(f"groups: {distinct} groups from the {what} {step.groups!r}; "
-                     "each group stays on one side of every split.")
+    log.notes.append(Note("groups", f"groups: {distinct} groups from the {what} "
+                          f"{step.groups!r}; each group stays on one side of every split.",
+                          groups=distinct, column=step.groups))
     return labels
 
 
@@ -155,10 +157,11 @@ def _copies(step, table: Table, fm, log: RunLog):
     column = augment_column(table, fm, step.groups)
     values, source = permuted_copies(table, fm, column, step.augment_permutations, step.seed,
                                      step.array_encoding, step.log_scale)
-    log.notes.append(f"augmentation: {step.augment_permutations} permuted copies of "
-                     f"{column!r} per training row (rows and columns permuted "
-                     "together for symmetric matrices, independently otherwise); test "
-                     "rows are never copied.")
+    log.notes.append(Note("augmentation", f"augmentation: {step.augment_permutations} "
+                          f"permuted copies of {column!r} per training row (rows and columns "
+                          "permuted together for symmetric matrices, independently "
+                          "otherwise); test rows are never copied.",
+                          copies=step.augment_permutations, column=column))
     return values, source
 
 

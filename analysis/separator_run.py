@@ -13,6 +13,7 @@ import time
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import Note
 from analysis.plain import row_id
 from analysis.progress import Reporter
 from analysis.separator_checks import importance, learning_curve, permutation_test
@@ -63,10 +64,11 @@ def _protocol(run: PreparedRun, follows) -> dict:
                                        step.repeats, step.seed, run.table.name)
     per_split, first = _fit_splits(run, splits, strata)
     if run.big and len(splits) > 1:
-        log.notes.append(f"the table is large ({n} rows): splits 2 to {len(splits)} were "
-                         f"fitted on a random sample of at most {step.sample_rows} of "
-                         "their training rows (split 1 on all of its), and each was "
-                         "scored on all its test rows.")
+        log.notes.append(Note("splits_sampled", f"the table is large ({n} rows): splits 2 "
+                              f"to {len(splits)} were fitted on a random sample of at most "
+                              f"{step.sample_rows} of their training rows (split 1 on all of "
+                              "its), and each was scored on all its test rows.", rows=n,
+                              splits=len(splits), sample=step.sample_rows))
     train, test, model, predicted = first
     repeats = {"splits": per_split, "mean": mean_of(per_split), "std": std_of(per_split)}
     identical = _identical_warning(run, splits)
@@ -95,8 +97,9 @@ def _protocol(run: PreparedRun, follows) -> dict:
     small = n <= ROW_ID_LIST_LIMIT
     ids = run.fm.row_ids
     carried = "the metrics" if run.regression else "the metrics, the confusion matrix"
-    log.notes.append(f"split 1 carries {carried}, the interval and the permutation test; "
-                     f"{len(splits)} splits give the mean and spread.")
+    log.notes.append(Note("splits", f"split 1 carries {carried}, the interval and the "
+                          f"permutation test; {len(splits)} splits give the mean and spread.",
+                          splits=len(splits)))
     log.notes.extend(sorted(log.fit_warnings))
     return dict(
         target=step.target, model=step.model,
@@ -133,10 +136,12 @@ def _identical_warning(run: PreparedRun, splits) -> int:
         else:
             advice = ("They belong to other groups than their training twins: the "
                       "features cannot tell these objects apart.")
-        run.log.warnings.append(
+        run.log.warnings.append(Note(
+            "test_rows_seen",
             f"{identical} test rows of split 1 have the same feature values as a training "
             f"row (and {others} of the other {len(splits) - 1} splits have such rows): "
-            f"the separator is partly scored on rows it has seen. {advice}")
+            f"the separator is partly scored on rows it has seen. {advice}",
+            rows=identical, splits=others, grouped=run.group_labels is not None))
     return identical
 
 
@@ -252,9 +257,10 @@ def _open_predictions(run: PreparedRun, model, test, predicted) -> list[dict]:
                                                                float(interval[1])],
                     "inside": inside})
     if len(out):
-        run.log.notes.append(f"{len(out)} objects with no known value of {step.target!r} are "
-                             "predicted by the model fitted on the known rows: predictions "
-                             "to check by hand, not values.")
+        run.log.notes.append(Note("open_predictions", f"{len(out)} objects with no known "
+                                  f"value of {step.target!r} are predicted by the model fitted "
+                                  "on the known rows: predictions to check by hand, not "
+                                  "values.", objects=len(out), target=step.target))
     return out
 
 
