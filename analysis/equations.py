@@ -1496,18 +1496,22 @@ def _evaluation_notes(space: _Space, evaluation: _Evaluation, n: int, sample: np
                 if space.base_exact(j) is not None and space.base_exact(j).decimals
             }
         )
-        notes.append("evaluated exactly in integer arithmetic")
+        notes.append(Note("evaluated_exactly", "evaluated exactly in integer arithmetic"))
         for name, digits in decimals:
             unit = "digit" if digits == 1 else "digits"
-            notes.append(
-                f"values of '{name}' read as decimals with {digits} {unit} after the point"
-            )
+            notes.append(Note(
+                "decimal_values",
+                f"values of '{name}' read as decimals with {digits} {unit} after the point",
+                feature=name, digits=digits,
+            ))
     else:
         features = ", ".join(f"'{name}'" for name in evaluation.inexact_features)
-        notes.append(
+        notes.append(Note(
+            "evaluated_in_floats",
             f"evaluated in floating point because {features} "
-            f"{'is' if len(evaluation.inexact_features) == 1 else 'are'} not exact values"
-        )
+            f"{'is' if len(evaluation.inexact_features) == 1 else 'are'} not exact values",
+            features=tuple(evaluation.inexact_features),
+        ))
     notes.append(evaluation.rounding or _describe_gap(evaluation))
     return notes
 
@@ -1614,7 +1618,9 @@ def find_linear_equation(
     notes: list[str] = []
     constant_features = [names[j] for j in range(p) if spread[j] == 0]
     if constant_features:
-        notes.append("left out (constant on the rows searched): " + ", ".join(constant_features))
+        notes.append(Note("constant_features_left_out", "left out (constant on the rows "
+                          "searched): " + ", ".join(constant_features),
+                          features=tuple(constant_features)))
     directions: list[np.ndarray] = []
     hint_note = None
     if hint is not None:
@@ -1639,10 +1645,11 @@ def find_linear_equation(
     notes = _evaluation_notes(space, result.best, n, sample) + notes
     if hint_note:
         notes.append(hint_note)
-    notes.append(
+    notes.append(Note(
+        "candidates",
         f"{result.tried} rounded candidates ranked on the sample, {result.finalists} checked on "
-        "all rows"
-    )
+        "all rows", tried=result.tried, checked=result.finalists,
+    ))
     method = LINEAR_METHOD.format(max_denominator=max_denominator)
     return _make_equation(LinearEquation, space, result.best, positive_class=positive_class,
                           row_ids=row_ids, method=method, notes=notes)
@@ -1832,7 +1839,8 @@ def poly2_equation(
     )
     machine = _float_violations(expansion.decision(space.Xf), positive)
     notes = _evaluation_notes(space, result.best, X.shape[0], sample)
-    notes.append(f"the machine's own polynomial (float coefficients) makes {machine} violations")
+    notes.append(Note("machine_violations", "the machine's own polynomial (float "
+                      f"coefficients) makes {machine} violations", violations=machine))
     method = (
         "degree-2 polynomial kernel support vector machine expanded into monomials of the raw "
         f"features, coefficients rounded to rationals with denominators up to {max_denominator}, "
@@ -1906,7 +1914,8 @@ def surrogate_quadratic(
         fitter=fitter,
     )
     notes = _evaluation_notes(space, result.best, n, sample)
-    notes.append("violations count the rows where the equation and the machine disagree")
+    notes.append(Note("surrogate_violations",
+                      "violations count the rows where the equation and the machine disagree"))
     method = (
         "sparse separators on degree-2 monomials fitted to the machine's predicted labels, "
         f"coefficients rounded to rationals with denominators up to {max_denominator}, constant "
@@ -2249,14 +2258,16 @@ def _formula_notes(best, sampled: int, n: int) -> tuple[str, ...]:
     else:
         notes.append(Note("fit_scope", f"fitted and verified on all {n} rows", rows=n))
     if best.exact:
-        notes.append("verified exactly in rational arithmetic")
+        notes.append(Note("verified_exactly", "verified exactly in rational arithmetic"))
     else:
-        notes.append(
+        notes.append(Note(
+            "verified_in_floats",
             "verified in floating point (a row is off when its residual exceeds 1e-9 of the "
             "target's size) because the target or a feature is not an exact value"
-        )
+        ))
     if best.rows_off and best.exact:
-        notes.append(f"the constant is the most common exact residual; {best.rows_off} rows differ")
+        notes.append(Note("common_residual", "the constant is the most common exact residual; "
+                          f"{best.rows_off} rows differ", rows_off=best.rows_off))
     return tuple(notes)
 
 
