@@ -1106,7 +1106,7 @@ def _approximate_relations(
     size, width = values.shape
     if size < width + 2:
         notes.append(Note("approximate_too_few_rows",
-                          "too few rows for an approximate relation search", rows=size))
+                          "too few rows for an approximate relation search"))
         return []
     breakers = breakers_allowed(breakers_setting, size) if robust else 0
     scale = np.sqrt(np.mean(values**2, axis=0))

@@ -107,7 +107,7 @@ def _kernel_equation(run, model, predicted, fitted_on: str, options: dict, score
     if run.n_classes != 2:
         run.log.notes.append(Note("no_kernel_equation", "no equation for a kernel machine "
                                   "over several classes; choose a positive class to get one "
-                                  "for that class against the rest.", classes=run.n_classes))
+                                  "for that class against the rest."))
         return {"decision": machine_scores}
     if run.step.model == "poly2" and run.kernel_mode != "nystroem":
         equation = eqs.poly2_equation(model, None, names, run.X, run.y == 1, row_ids=ids,

@@ -53,6 +53,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from analysis.errors import ScoutError, StudyError, TableError
+from analysis.notes import Note
 from analysis.progress import Progress, Reporter, StepStopped, Stopper
 from analysis.steps import KIND_TITLES, STEP_KINDS, make_step, step_class, step_params
 from analysis.table import ROLES, Table
@@ -1020,11 +1021,13 @@ def run_study(study: Study, table: Table, *, cache: ResultCache | None = None,
     table = apply_table_settings(study, table)
     warnings = []
     if study.table_digest is not None and study.table_digest != table.digest:
-        warnings.append(
+        warnings.append(Note(
+            "other_table",
             f"{table.name} is not the table this study was saved with (its sha256 digest "
             f"{table.digest[:12]}... differs from {study.table_digest[:12]}...); the numbers "
-            "may differ from the saved study's."
-        )
+            "may differ from the saved study's.",
+            table=table.name, digest=table.digest, saved_digest=study.table_digest,
+        ))
     total = len(study.steps)
     outcomes = []
     for index, step in enumerate(study.steps):
