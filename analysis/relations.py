@@ -40,7 +40,8 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.plain import plain
 from analysis.progress import quiet
-from analysis.settings import SEED, Setting, bound, named
+from analysis.settings import SEED, Setting, named
+from analysis.settings import bound as bound_settings
 
 __all__ = [
     "CAVEAT",
@@ -1921,7 +1922,7 @@ def check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
             f"relations: max_breakers must be a fraction in [0, 1) or a whole number of rows, "
             f"got {max_breakers!r}"
         )
-    named(bound(RelationsStep))["max_coefficient"].check(max_coefficient)
+    named(bound_settings(RelationsStep))["max_coefficient"].check(max_coefficient)
     if not isinstance(tolerance, (int, float)) or not 0 < tolerance < 1:
         raise StepError(
             f"relations: tolerance must lie strictly between 0 and 1, got {tolerance!r}"

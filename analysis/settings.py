@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from analysis.errors import StepError
 from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
 
-# the largest seed is what numpy's legacy generators accept
+# Seeds go to numpy and scikit-learn, which take 0 <= seed < 2**32.
 SEED_LIMIT = 2**32
 
 
