@@ -99,10 +99,15 @@ class Setting:
     @property
     def base_type(self):
         """The field's type without None: int, float, str, bool, list, ... (None: unknown)."""
-        args = [a for a in typing.get_args(self.type) if a is not type(None)]
-        if typing.get_origin(self.type) in (typing.Union, types.UnionType):
-            return typing.get_origin(args[0]) or args[0] if len(args) == 1 else None
-        return typing.get_origin(self.type) or self.type
+        if typing.get_origin(self.type) not in (typing.Union, types.UnionType):
+            kinds = {typing.get_origin(self.type) or self.type}
+        else:
+            kinds = {typing.get_origin(a) or a for a in typing.get_args(self.type)
+                     if a is not type(None)}
+        if kinds <= {list, tuple}:
+            # a list in a study file, a tuple or a list on the step
+            return list
+        return kinds.pop() if len(kinds) == 1 else None
 
     @property
     def low(self):
