@@ -25,7 +25,7 @@ COMMAND_NAME = "invariant-scout"
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = _parser()
+    parser = build_parser()
     args = parser.parse_args(argv)
     try:
         return args.handler(args)
@@ -54,7 +54,9 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
-def _parser() -> argparse.ArgumentParser:
+def build_parser() -> argparse.ArgumentParser:
+    """The command line's parser: every subcommand with its options (a step's from its setting
+    records)."""
     parser = argparse.ArgumentParser(
         prog=_program_name(),
         description="Find patterns in a table of computed invariants.",

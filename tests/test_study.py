@@ -508,7 +508,8 @@ def test_writing_into_a_missing_folder_is_a_study_error(tmp_path, small):
      r"array encoding 'zigzag': use one of invariant, compact, full, flat, both"),
     ("separator", {"target": "t", "kernel_approximation": "fast"},
      r"kernel approximation 'fast': use one of exact, auto, nystroem, sample"),
-    ("overview", {"top_correlations": -1}, r"top_correlations -1: use a whole number of at least 0"),
+    ("overview", {"top_correlations": -1},
+     r"top_correlations -1: use a whole number of at least 0"),
 ], ids=["projection-method", "clustering-k", "separator-model", "train-fraction", "top",
         "relations-coefficient", "array-encoding", "kernel-approximation", "top-correlations"])
 def test_a_bad_setting_value_is_refused_when_the_study_is_read(kind, params, match):
