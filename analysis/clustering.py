@@ -43,7 +43,8 @@ SETTINGS = (
             advice="give a whole number of clusters, at least 2, or leave k unset to choose "
                    "it by a sweep",
             option="--k", option_help="number of clusters (default: chosen by sweep)"),
-    Setting("compare", label="Compare with", option="--compare", metavar="COL",
+    Setting("compare", follows_target=True, label="Compare with", option="--compare",
+            metavar="COL",
             help="A label to compare the clusters with (adjusted Rand index, normalized mutual "
                  "information). It is not used as a feature.",
             option_help="a label to compare the clusters with"),

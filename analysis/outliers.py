@@ -53,7 +53,8 @@ from analysis.table import Table
 from analysis.threads import threads_for
 
 SETTINGS = (
-    Setting("target", label="Target for this step", option="--target", metavar="COL",
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
+            metavar="COL",
             help="Objects that a cross-validated separator for it gets wrong with confidence "
                  "rank higher."),
     *FEATURE_SETTINGS,

@@ -30,7 +30,7 @@ SETTINGS = (
             choices=(Choice("pca", "PCA", "PCA"), Choice("umap", "UMAP", "UMAP"),
                      Choice("tsne", "t-SNE", "t-SNE"),
                      Choice("lda", "LDA (separates the target)", "LDA"))),
-    Setting("target", label="Target for this step", option="--target",
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
             help="Colours the picture; LDA separates its classes.",
             option_help="column to colour by (needed for LDA)"),
     *FEATURE_SETTINGS,

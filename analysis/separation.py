@@ -79,7 +79,8 @@ __all__ = [
 ]
 
 SETTINGS = (
-    Setting("target", label="Target for this step", option="--target", metavar="COL",
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
+            metavar="COL",
             help="The flag, category or invariant to predict."),
     Setting("reading", label="Read the target as", option="--reading",
             help="A whole-number invariant can be predicted as a number or each value as a "

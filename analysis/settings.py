@@ -55,6 +55,8 @@ class Setting:
     spoken, advice: how a message names the setting and says what to use (defaults: the
         name; "use one of ..." or "use a whole number of at least ...").
     option, option_help, metavar: the command line's option (None: not offered there).
+    follows_target: this setting names the study's target for the step (at most one per
+        step): it changes when the study's target does.
     type, default: the step's field annotation and default, filled in by :func:`bound`.
     """
 
@@ -73,6 +75,7 @@ class Setting:
     option: str | None = None
     option_help: str | None = None
     metavar: str | None = None
+    follows_target: bool = False
     type: object = None
     default: object = _UNSET
 

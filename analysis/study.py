@@ -260,16 +260,11 @@ def update_step(study: Study, index: int, *, params: dict | None = None,
     return dataclasses.replace(study, steps=tuple(steps))
 
 
-# The setting through which a step of each kind follows the study's target: the column a
-# projection and the objects to look at colour and rank by, the separator predicts, and a
-# clustering is compared with.
-TARGET_SETTINGS = {"projection": "target", "separator": "target", "outliers": "target",
-                   "clustering": "compare"}
-
-
 def target_setting(kind: str) -> str | None:
-    """The setting of a step of ``kind`` that names the study's target, or None."""
-    return TARGET_SETTINGS.get(kind)
+    """The setting of a step of ``kind`` that names the study's target, or None: the column a
+    projection and the objects to look at colour and rank by, the separator predicts, and a
+    clustering is compared with (its record says ``follows_target``)."""
+    return next((r.name for r in step_settings(kind) if r.follows_target), None)
 
 
 def steps_following_target(study: Study, target: str | None) -> tuple[int, ...]:

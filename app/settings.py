@@ -202,13 +202,14 @@ def seed(ctx: StepContext, container=st) -> None:
     whole_number(ctx, "seed", container=container)
 
 
-def feature_block(ctx: StepContext, *, label: str = "target", container=st) -> None:
-    """The settings every step that builds a feature matrix shares. The column named by
-    the ``label`` setting (the target) is never offered as a feature."""
+def feature_block(ctx: StepContext, *, container=st) -> None:
+    """The settings every step that builds a feature matrix shares. The column the step's
+    target setting names (a clustering's compared label too) is never offered as a
+    feature."""
     from analysis.features import default_feature_columns
 
     table = ctx.table
-    target = ctx.params.get(label)
+    target = ctx.params.get(target_setting(ctx.step.kind) or "target")
     usable = [c.name for c in table.columns
               if c.role in ("invariant", "flag", "category", "array") and c.name != target]
     defaults = default_feature_columns(table, target=target)

@@ -33,7 +33,7 @@ def settings_panel(ctx: settings.StepContext) -> None:
     settings.whole_number(ctx, "k", container=left)
     settings.whole_range(ctx, "k_range", container=right)
     # The compared label is left out of the features, as a target would be.
-    settings.feature_block(ctx, label="compare")
+    settings.feature_block(ctx)
     left, middle, right = st.columns(3)
     settings.flag(ctx, "standardize", container=left)
     if ctx.params.get("method") == "hdbscan":
