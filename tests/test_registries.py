@@ -123,3 +123,18 @@ def test_every_command_line_option_of_a_step_is_its_record(command, kind):
             with pytest.raises(SystemExit):
                 parser.parse_args([command, "t.csv", *needed, record.option,
                                    "not-a-choice"])
+
+
+def test_at_most_one_setting_of_a_kind_follows_the_study_target_and_it_names_a_column():
+    from analysis.steps import step_settings
+    from analysis.study import target_setting
+
+    for kind in KINDS:
+        following = [r for r in step_settings(kind) if r.follows_target]
+        assert len(following) <= 1, kind
+        assert target_setting(kind) == (following[0].name if following else None)
+        for record in following:
+            assert record.base_type is str and record.optional, (kind, record.name)
+    # a clustering follows the target as the label it is compared with (the design notes)
+    assert target_setting("clustering") == "compare"
+    assert target_setting("relations") is None
