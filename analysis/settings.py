@@ -173,25 +173,15 @@ class Setting:
         return text + (", or leave it unset" if self.optional else "")
 
 
-def words_of(settings, name: str) -> dict:
-    """The words of each choice of the setting ``name`` among ``settings``."""
-    return named(settings)[name].words
-
-
-def values_of(settings, name: str) -> tuple:
-    """The allowed values of the setting ``name`` among ``settings``."""
-    return named(settings)[name].values
-
-
 def named(settings) -> dict[str, Setting]:
     """The settings by name."""
     return {s.name: s for s in settings}
 
 
-def check_values(step, settings=None) -> None:
+def check_values(step) -> None:
     """Check every setting of ``step`` that its record judges (choices and ranges), in the
     record's order; StepError names the first bad one and what to use."""
-    for record in bound(type(step)) if settings is None else settings:
+    for record in bound(type(step)):
         record.check(getattr(step, record.name))
 
 
