@@ -64,31 +64,32 @@ def make_step(kind: str, params: dict | None = None):
     return step
 
 
+def step_settings(kind: str) -> tuple:
+    """The records of every setting of a step of ``kind`` (:class:`analysis.settings.Setting`,
+    with the step's types and defaults), in the order the page and the command line offer
+    them; StudyError for an unknown kind."""
+    from analysis.settings import bound
+
+    return bound(step_class(kind))
+
+
 def check_settings(step) -> None:
-    """Check a step's settings without a table: shared feature settings, then its own check().
+    """Check a step's settings without a table: every value its records judge (choices and
+    ranges, the shared feature settings and the seed among them), then its own check().
 
     A bad value becomes a StudyError naming the kind, so a study file with a typo fails when it
     is opened, not halfway through a run.
     """
     from analysis.errors import StepError
-    from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
+    from analysis.settings import check_values
 
-    shared = {"array_encoding": ARRAY_ENCODINGS, "log_scale": LOG_SCALES,
-              "missing": MISSING_POLICIES, "intervals": INTERVAL_READINGS}
-    for name, allowed in shared.items():
-        value = getattr(step, name, None)
-        if value is not None and value not in allowed:
-            raise StudyError(f"step {step.kind!r}: {name} {value!r} is not one of "
-                             f"{', '.join(allowed)}.")
-    seed = getattr(step, "seed", 0)
-    if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
-        raise StudyError(f"step {step.kind!r}: seed {seed!r} must be a whole number >= 0.")
-    check = getattr(step, "check", None)
-    if check is not None:
-        try:
+    try:
+        check_values(step)
+        check = getattr(step, "check", None)
+        if check is not None:
             check()
-        except StepError as exc:
-            raise StudyError(f"step {step.kind!r}: {exc}") from None
+    except StepError as exc:
+        raise StudyError(f"step {step.kind!r}: {exc}") from None
 
 
 def step_params(step) -> dict:
