@@ -14,25 +14,45 @@ import importlib
 
 from analysis.errors import StudyError
 
-# kind -> (module, class name)
-STEP_KINDS: dict[str, tuple[str, str]] = {
-    "overview": ("analysis.overview", "OverviewStep"),
-    "projection": ("analysis.projection", "ProjectionStep"),
-    "clustering": ("analysis.clustering", "ClusteringStep"),
-    "separator": ("analysis.separation", "SeparatorStep"),
-    "relations": ("analysis.relations", "RelationsStep"),
-    "outliers": ("analysis.outliers", "OutliersStep"),
+
+@dataclasses.dataclass(frozen=True)
+class StepKind:
+    """What the program says once about a kind of step: where its class lives, its title (the
+    page, the report, the notebook), what it finds (the page's list of kinds to add) and what it
+    is doing while it runs (the page's status line)."""
+
+    module: str
+    class_name: str
+    title: str
+    finds: str
+    running: str
+
+
+KINDS: dict[str, StepKind] = {
+    "overview": StepKind("analysis.overview", "OverviewStep", "Overview",
+                         "columns, ranges, correlated pairs",
+                         "Summarizing every column"),
+    "projection": StepKind("analysis.projection", "ProjectionStep", "Projection",
+                           "a 2-d picture (PCA, UMAP, t-SNE, LDA)",
+                           "Building features and projecting to two dimensions"),
+    "clustering": StepKind("analysis.clustering", "ClusteringStep", "Clustering",
+                           "groups of similar objects",
+                           "Trying clusterings and comparing their scores"),
+    "separator": StepKind("analysis.separation", "SeparatorStep", "Separator",
+                          "is the target predictable, and by what equation?",
+                          "Fitting on training rows, testing on the others, comparing with chance"),
+    "relations": StepKind("analysis.relations", "RelationsStep", "Relations and bounds",
+                          "exact linear relations and sharp bounds",
+                          "Searching for exact relations and sharp bounds, checking every row"),
+    "outliers": StepKind("analysis.outliers", "OutliersStep", "Objects to look at",
+                         "objects to look at by hand",
+                         "Scoring every object"),
 }
 
-# Words shown for each kind in the app and the report.
-KIND_TITLES = {
-    "overview": "Overview",
-    "projection": "Projection",
-    "clustering": "Clustering",
-    "separator": "Separator",
-    "relations": "Relations and bounds",
-    "outliers": "Objects to look at",
-}
+# kind -> (module, class name), and kind -> title: views of KINDS
+STEP_KINDS: dict[str, tuple[str, str]] = {
+    kind: (record.module, record.class_name) for kind, record in KINDS.items()}
+KIND_TITLES = {kind: record.title for kind, record in KINDS.items()}
 
 
 def step_class(kind: str) -> type:
