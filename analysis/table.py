@@ -48,8 +48,34 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from analysis.column_facts import (
+    BEYOND_FLOAT_NOTE,
+    FALSE_WORDS,
+    FLOAT_EXACT,
+    INT64_MAX,
+    INTEGER_TEXT,
+    MARKER_RULE,
+    MISSING_WORDS,
+    RATIONAL_TEXT,
+    TRUE_WORDS,
+    column_warnings,
+    detect_role,
+    from_decimal,
+    incomplete_integer_dtype,
+    is_missing,
+    is_true_word,  # noqa: F401 - still read from here by the Dask overview
+    label_merge_warning,
+    label_merge_words,
+    marked_dtype,
+    marked_note,
+    marker_counts,
+    read_marked_cell,
+    reads_as_array_texts,
+    reads_as_flag,
+    reads_as_marked_numbers,
+    shown_value,
+)
 from analysis.errors import TableError
-from analysis.notes import Note
 
 ROLES = ("id", "invariant", "category", "flag", "array", "text")
 FORMATS = ("csv", "tsv", "json", "jsonl", "parquet")
@@ -64,24 +90,9 @@ _EXTENSIONS = {
     ".parquet": "parquet",
     ".pq": "parquet",
 }
-_INT64_MAX = 2**63 - 1
-# Past this, float64 no longer holds every integer exactly.
-_FLOAT_EXACT = 2**53
-# The note of a column of integers that only missing cells and float64's 2**53 make big.
-_BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
-# A whole number written as text (the partitioned reader matches cells against it too).
-INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
-# a cell read as an exact rational: an integer, or p/q with whole p and q
-RATIONAL_TEXT = r"\s*[+-]?\d+\s*(?:/\s*\d+\s*)?"
 _RATIONAL_TEXT = re.compile(rf"^{RATIONAL_TEXT}$")
-# The words read as a flag's two values, in any case (besides 0 and 1): the one word set,
-# for every reader of tables.
-TRUE_WORDS = frozenset({"true", "yes", "t", "y"})
-FALSE_WORDS = frozenset({"false", "no", "f", "n"})
-_ID_NAMES = {"id", "name", "label", "key", "index"}
-# Cell texts read as missing in CSV and TSV files.
-_MISSING_WORDS = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
+_MISSING_WORDS = list(MISSING_WORDS)
 # The header is looked for in this many leading characters of a delimited file.
 _HEADER_CHARS = 64 * 1024 * 1024
 # Up to this many retyped columns are replaced one by one in the parsed frame; past it, one
@@ -216,13 +227,13 @@ class Table:
         if info.dtype == "integer":
             if series.dtype.kind in "iu":
                 return [int(v) for v in series.tolist()]
-            return [None if _is_missing(v) else int(v) for v in series.tolist()]
+            return [None if is_missing(v) else int(v) for v in series.tolist()]
         if info.dtype == "boolean":
-            return [None if _is_missing(v) else int(bool(v)) for v in series.tolist()]
+            return [None if is_missing(v) else int(bool(v)) for v in series.tolist()]
         if info.dtype in ("big integer", "rational"):
-            return [None if _is_missing(v) else v for v in series.tolist()]
+            return [None if is_missing(v) else v for v in series.tolist()]
         if info.dtype == "real":
-            return [None if _is_missing(v) or math.isinf(v) else Fraction(v)
+            return [None if is_missing(v) or math.isinf(v) else Fraction(v)
                     for v in series.tolist()]
         raise TableError(
             f"{self.name}: column {name!r} holds {info.dtype} values, which have no exact "
@@ -519,7 +530,7 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
         if series.dtype.kind == "f":
             raw = series.to_numpy()
             finite = raw[np.isfinite(raw)]
-            if len(finite) and np.isnan(raw).any() and np.abs(finite).max() >= _FLOAT_EXACT \
+            if len(finite) and np.isnan(raw).any() and np.abs(finite).max() >= FLOAT_EXACT \
                     and bool((finite == np.round(finite)).all()):
                 positions.append(position)
         elif series.dtype.kind == "O" or pd.api.types.is_string_dtype(series):
@@ -770,7 +781,7 @@ def _records_frame(records: list, name: str, unit: str) -> pd.DataFrame:
         if not isinstance(record, dict):
             raise TableError(
                 f"{name}, {unit} {number}: expected a record (an object like {{\"a\": 1}}), "
-                f"got {_short(record)}. Every element of the array must be a record."
+                f"got {shown_value(record)}. Every element of the array must be a record."
             )
         for key in record:
             columns.setdefault(key, None)
@@ -820,7 +831,7 @@ def _narrowed(column):
         return column
     extremes = pc.min_max(column)
     low, high = extremes["min"].as_py(), extremes["max"].as_py()
-    if high > _INT64_MAX:
+    if high > INT64_MAX:
         return column
     narrow = pa.from_numpy_dtype(_smallest_integer_type(low, high))
     return column if narrow == column.type else column.cast(narrow)
@@ -840,7 +851,7 @@ def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.Dat
             row = int(np.flatnonzero(filled.to_numpy())[0]) + 1
             raise TableError(
                 f"{name}: column {position + 1} has no name in the header but holds values "
-                f"(row {row}: {_short(values.iloc[row - 1])}). Name it in the header."
+                f"(row {row}: {shown_value(values.iloc[row - 1])}). Name it in the header."
             )
         warnings.append(f"{name}: column {position + 1} has no name and no values; ignored.")
     if len(keep) == frame.shape[1]:
@@ -863,127 +874,6 @@ def _check_column_names(name: str, header: list[str]) -> None:
 
 # ----------------------------------------------------------------------------------------
 # Marked numbers: intervals and marker words among the numbers of a column
-
-
-@dataclass(frozen=True)
-class MarkerRule:
-    """When a column of numbers with intervals and words in it is read as an invariant.
-
-    Public databases write an open value as an interval ``[low, high]`` and put a word where
-    an invariant does not apply (``infty``, ``D.N.E.``, ``-``). A column is read as such
-    *marked numbers* when every filled cell is a number, an interval or a word, and
-
-    - at least one cell is an interval or a word, and at least one is a plain number (a column
-      of two-element brackets only is an array column);
-    - it has at most ``max_words`` different words;
-    - word cells are at most ``max_share`` of the filled cells;
-    - it never has more different words than different plain numbers.
-
-    A user who gives such a column the role invariant asks for the reading outright: only the
-    limit on different words applies then, and the column needs one number or interval.
-    """
-
-    max_words: int = 5
-    max_share: Fraction = Fraction(1, 3)
-
-    def describe(self) -> str:
-        return (f"at most {self.max_words} different words, in at most "
-                f"{self.max_share} of the filled cells, never more different words than "
-                "different numbers, and at least one plain number")
-
-
-# The one rule for reading marked numbers; a partitioned reader calls
-# reads_as_marked_numbers with its merged counts and gets the same answer.
-MARKER_RULE = MarkerRule()
-
-
-def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, int],
-                            distinct_numbers: int, requested: bool = False,
-                            rule: MarkerRule = MARKER_RULE) -> bool:
-    """Whether a column is read as marked numbers (see :class:`MarkerRule`).
-
-    ``numbers`` counts plain number cells, ``intervals`` interval cells, ``words`` maps each
-    word to its cell count, ``distinct_numbers`` counts different plain numbers (only whether
-    it reaches ``len(words)`` matters, so a reader may stop counting at ``rule.max_words``).
-    ``requested`` is True when the user gave the column the role invariant.
-
-    >>> reads_as_marked_numbers(numbers=9, intervals=1, words={"-": 2}, distinct_numbers=4)
-    True
-    >>> reads_as_marked_numbers(numbers=0, intervals=5, words={}, distinct_numbers=0)
-    False
-    """
-    word_cells = sum(words.values())
-    if len(words) > rule.max_words or (not words and not intervals):
-        return False
-    if requested:
-        return numbers + intervals > 0
-    if numbers == 0:
-        return False
-    filled = numbers + intervals + word_cells
-    return word_cells <= rule.max_share * filled and len(words) <= distinct_numbers
-
-
-_NUMBER = r"[+-]?(?:\d+\s*/\s*\d+|(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
-_NUMBER_TEXT = re.compile(rf"^\s*({_NUMBER})\s*$")
-_INTERVAL_TEXT = re.compile(rf"^\s*\[\s*({_NUMBER})\s*,\s*({_NUMBER})\s*\]\s*$")
-
-
-def read_marked_cell(value) -> tuple[str, object]:
-    """One cell of a possibly marked column: ``(kind, value)``.
-
-    Kinds: ``"missing"``; ``"number"`` (an int, a Fraction for ``p/q`` text, a float for
-    decimals); ``"interval"`` with ``(low, high)`` (from text ``[a, b]``, spaces allowed, or a
-    two-element list of numbers; ends typed as numbers are); ``"word"`` (any other text that
-    is not bracketed, stripped); ``"other"`` (anything else: longer lists, records, booleans,
-    text starting with a bracket). A zero denominator or an over-long integer is
-    ``("invalid", reason)``. Low above high is still an interval: the caller says where.
-
-    >>> read_marked_cell(" [1, 3/2] ")
-    ('interval', (1, Fraction(3, 2)))
-    >>> read_marked_cell("D.N.E.")
-    ('word', 'D.N.E.')
-    """
-    if _is_missing(value):
-        return "missing", None
-    if isinstance(value, (bool, np.bool_)):
-        return "other", value
-    if isinstance(value, (int, np.integer)):
-        return "number", int(value)
-    if isinstance(value, (float, np.floating)):
-        return "number", float(value)
-    if isinstance(value, (list, tuple, np.ndarray)):
-        ends = list(value.tolist() if isinstance(value, np.ndarray) else value)
-        if len(ends) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
-                                  for x in ends):
-            return "interval", (ends[0], ends[1])
-        return "other", value
-    if not isinstance(value, str):
-        return "other", value
-    text = value.strip()
-    try:
-        match = _NUMBER_TEXT.match(text)
-        if match:
-            return "number", _number_text(match.group(1))
-        match = _INTERVAL_TEXT.match(text)
-        if match:
-            return "interval", (_number_text(match.group(1)), _number_text(match.group(2)))
-    except ZeroDivisionError:
-        return "invalid", f"{text!r} divides by zero"
-    except ValueError:
-        return "invalid", f"{_short(text)} has more digits than Python reads from text"
-    if not text:
-        return "missing", None
-    if text.startswith(("[", "{")):
-        return "other", value
-    return "word", text
-
-
-def _number_text(text: str):
-    if "/" in text:
-        return Fraction(text.replace(" ", ""))
-    if _INTEGER_TEXT.match(text):
-        return int(text)
-    return float(text)
 
 
 @dataclass(frozen=True)
@@ -1050,8 +940,8 @@ class _CellProblem(Exception):
 def _where(name: str, row: int, column: str, ids=None) -> str:
     """'t.csv, row 5 (id 'K7a1'), column 'volume'': rows counted from 1 after the header."""
     shown = ""
-    if ids is not None and 0 <= row < len(ids) and not _is_missing(ids[row]):
-        shown = f" (id {_short(ids[row])})"
+    if ids is not None and 0 <= row < len(ids) and not is_missing(ids[row]):
+        shown = f" (id {shown_value(ids[row])})"
     return f"{name}, row {row + 1}{shown}, column {column!r}"
 
 
@@ -1077,7 +967,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
                     return None
                 shown = ", ".join(repr(w) for w in words)
                 raise _CellProblem(i, column, (
-                    f"expected a number or an interval like [1, 2], got {_short(parsed)}; a "
+                    f"expected a number or an interval like [1, 2], got {shown_value(parsed)}; a "
                     f"column of numbers may hold at most {MARKER_RULE.max_words} different "
                     f"words read as missing, and this one already has {shown}"))
             words[parsed] = words.get(parsed, 0) + 1
@@ -1088,7 +978,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
             if not requested:
                 return None
             raise _CellProblem(i, column, (
-                f"expected a number or an interval like [1, 2], got {_short(value)}"))
+                f"expected a number or an interval like [1, 2], got {shown_value(value)}"))
     distinct = len({v for _, v in numbers})
     # a cell that fails to parse counts as a mark, so that its column is read (and refused)
     if not reads_as_marked_numbers(numbers=len(numbers),
@@ -1098,7 +988,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
         if requested:
             row = word_cells[0][0] if word_cells else present[0][0] if present else 0
             raise _CellProblem(row, column, (
-                f"expected a number, got {_short(series.iloc[row])}; the column holds no "
+                f"expected a number, got {shown_value(series.iloc[row])}; the column holds no "
                 "number or interval"))
         return None
     if invalid is not None:
@@ -1106,59 +996,10 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
     for i, (low, high) in intervals:
         if Fraction(low) > Fraction(high):
             raise _CellProblem(i, column, (
-                f"the interval {_short(str(series.iloc[i]).strip())} has its low end {low} "
+                f"the interval {shown_value(str(series.iloc[i]).strip())} has its low end {low} "
                 f"above its high end {high}. Write intervals as [low, high] with low <= high"))
     return _marked_values(series, numbers, intervals, word_cells, words, column, limits)
 
-
-def marked_dtype(*, has_float: bool, has_fraction: bool) -> str:
-    """The dtype of a marked column from the kinds among its plain numbers and interval ends
-    (as :func:`read_marked_cell` types them): real with any float, else rational with any
-    fraction, else integer.
-
-    >>> marked_dtype(has_float=False, has_fraction=True)
-    'rational'
-    """
-    if has_float:
-        return "real"
-    return "rational" if has_fraction else "integer"
-
-
-def marked_note(note: str, intervals: int, words: dict[str, int]) -> str:
-    """A marked column's note: ``note`` (from its numbers), then its intervals and its words
-    with their counts, most frequent first.
-
-    >>> marked_note("has missing cells", 2, {"infty": 3})
-    "has missing cells; 2 intervals; words read as missing: 'infty' (3)"
-    """
-    shown = [f"{intervals} interval{'s' if intervals != 1 else ''}"] if intervals else []
-    if words:
-        shown.append("words read as missing: " + ", ".join(
-            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
-    return "; ".join(([note] if note else []) + shown)
-
-
-def marker_counts(words: dict[str, int]) -> dict[str, int]:
-    """``ColumnInfo.markers`` from word counts: each word and its count, most frequent first."""
-    return dict(sorted(words.items(), key=lambda kv: (-kv[1], kv[0])))
-
-
-def incomplete_integer_dtype(low: int, high: int) -> tuple[str, str]:
-    """(dtype, note) of a column of integers from ``low`` to ``high`` with missing cells.
-
-    float64 holds integers exactly only up to 2**53, so past that the column keeps exact
-    Python integers ("big integer"), as it does past 64 bits.
-
-    >>> incomplete_integer_dtype(0, 9)
-    ('integer', 'has missing cells')
-    >>> incomplete_integer_dtype(0, 2**60)
-    ('big integer', 'kept exact: beyond 2**53 with missing cells')
-    """
-    if high > _INT64_MAX or low < -_INT64_MAX - 1:
-        return "big integer", ""
-    if max(abs(low), abs(high)) > _FLOAT_EXACT:
-        return "big integer", _BEYOND_FLOAT_NOTE
-    return "integer", "has missing cells"
 
 
 def _marked_values(series, numbers, intervals, word_cells, words, column, limits):
@@ -1285,40 +1126,13 @@ def _merged_labels(series: pd.Series, column: str) -> tuple[pd.Series, dict] | N
     if not padded:
         return None
     stripped = [v.strip() if isinstance(v, str) else v for v in cells]
-    counts = dict(padded=len(padded), written=len({v for v in cells if not _is_missing(v)}),
-                  labels=len({v for v in stripped if not _is_missing(v)}),
-                  missing=sum(_is_missing(v) for v in cells), rows=len(cells))
+    counts = dict(padded=len(padded), written=len({v for v in cells if not is_missing(v)}),
+                  labels=len({v for v in stripped if not is_missing(v)}),
+                  missing=sum(is_missing(v) for v in cells), rows=len(cells))
     if label_merge_words(column, **counts) is None:
         return None
     return pd.Series(stripped, dtype=object, index=series.index), counts
 
-
-def label_merge_warning(name: str, column: str, *, padded: int, written: int, labels: int,
-                        missing: int, rows: int) -> str | None:
-    """The warning for a text column read without the spaces around its labels, or None
-    when its labels stay as written (only a column whose stripped labels make a category is
-    merged). ``padded`` counts the cells with such spaces, ``written`` the different labels
-    as written, ``labels`` those without the spaces.
-    """
-    words = label_merge_words(column, padded=padded, written=written, labels=labels,
-                              missing=missing, rows=rows)
-    return None if words is None else Note("labels_merged", f"{name}: column {column!r}: "
-                                           f"{words}", column=column, padded=padded,
-                                           written=written, labels=labels)
-
-
-def label_merge_words(column: str, *, padded: int, written: int, labels: int, missing: int,
-                      rows: int) -> str | None:
-    """What :func:`label_merge_warning` says of the column, without naming it (the column's
-    own note), or None when its labels stay as written."""
-    if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
-        return None
-    cells_word = "cell has" if padded == 1 else "cells have"
-    said = f"{padded} {cells_word} spaces around the label, read without them"
-    if written == labels:
-        return f"{said}."
-    return (f"{said}, so the column's {written} labels as written are {labels} "
-            f"label{'' if labels == 1 else 's'}.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:
@@ -1359,104 +1173,13 @@ def _distinct(series: pd.Series, dtype: str) -> int:
     try:
         return int(series.nunique(dropna=True))
     except TypeError:
-        return len({repr(v) for v in series if not _is_missing(v)})
+        return len({repr(v) for v in series if not is_missing(v)})
 
 
 def array_token(value: np.ndarray) -> tuple:
     """What makes two array cells (as :func:`array_value` reads them) one distinct value."""
     return (value.shape, value.tobytes() if value.dtype != object else repr(value.tolist()))
 
-
-def reads_as_flag(words: set[str]) -> bool:
-    """Whether a column whose filled cells hold these (stripped) texts is a flag.
-
-    Every text is one of TRUE_WORDS or FALSE_WORDS in any case (``Y``/``N``, ``yes``/``no``,
-    ``T``/``F``, ``true``/``false``), with at most one spelling for each of the two values.
-    Columns of 0 and 1 are flags too; they are told apart before text is looked at.
-
-    >>> reads_as_flag({"Y", "N"}), reads_as_flag({"yes", "y"}), reads_as_flag({"x", "y"})
-    (True, False, False)
-    """
-    lowered = {w.lower() for w in words}
-    return bool(lowered) and lowered <= TRUE_WORDS | FALSE_WORDS and \
-        len(lowered & TRUE_WORDS) <= 1 and len(lowered & FALSE_WORDS) <= 1
-
-
-def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
-                 id_taken: bool) -> str:
-    unique = distinct == n - missing and missing == 0 and n > 1
-    if dtype == "array":
-        return "array"
-    if dtype == "boolean":
-        return "flag"
-    if dtype == "empty":
-        return "text"
-    if dtype in ("integer", "big integer", "rational", "real"):
-        if not id_taken and unique and dtype == "integer" and column.strip().lower() in _ID_NAMES:
-            return "id"
-        return "invariant"
-    # text-valued columns
-    if not id_taken and unique:
-        return "id"
-    if distinct <= max(20, int(0.05 * n)) and distinct < n:
-        return "category"
-    return "text"
-
-
-def flag_spelling_warning(name: str, column: str, labels) -> str | None:
-    """The warning for a category whose labels are all true/false words but in more than
-    one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
-    own, which is seldom what the table meant. None for any other column."""
-    words = sorted({str(w).strip() for w in labels})
-    lowered = {w.lower() for w in words}
-    if len(words) < 3 or not lowered <= TRUE_WORDS | FALSE_WORDS or reads_as_flag(set(words)):
-        return None
-    return Note("flag_spellings", f"{name}: column {column!r} holds only true/false words, in "
-                f"more than one spelling ({', '.join(words)}), so it is read as a category of "
-                f"{len(words)} labels, each spelling a class of its own. Give the column the "
-                "role flag, or write one spelling for each value (such as Y and N), to read it "
-                "as a flag.", column=column, spellings=tuple(words))
-
-
-def reads_as_boolean(words) -> bool:
-    """Whether a column whose present cells are these words is read as true/false: the one
-    rule of :func:`reads_as_flag`, under the name the partitioned reader uses."""
-    return reads_as_flag({str(w).strip() for w in words})
-
-
-def is_true_word(word) -> bool:
-    """Whether a true/false word (any case, spaces around it ignored) means true."""
-    return str(word).strip().lower() in TRUE_WORDS
-
-
-def is_missing(value) -> bool:
-    """Whether a cell value is a missing cell (None, pandas' NA or a float NaN)."""
-    return _is_missing(value)
-
-
-def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
-                    role: str, labels=None) -> list[str]:
-    """The loading warnings a typed column gives (big integers, empty, constant, true/false
-    words in several spellings). ``labels``: a category's distinct labels, when known."""
-    out = []
-    if role == "category" and labels is not None:
-        spelled = flag_spelling_warning(name, column, labels)
-        if spelled:
-            out.append(spelled)
-    if dtype == "big integer":
-        beyond = "2**53 and missing cells" if note == _BEYOND_FLOAT_NOTE else "64 bits"
-        out.append(Note(
-            "big_integers",
-            f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
-            "and features derived from them use the signed log scale sign(x)*log10(1+|x|).",
-            column=column))
-    if dtype == "empty":
-        out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
-                        column=column))
-    elif distinct == 1 and n > 1 and role != "id":
-        out.append(Note("column_constant", f"{name}: column {column!r} is constant; it carries "
-                        "no information.", column=column))
-    return out
 
 
 def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits,
@@ -1466,10 +1189,10 @@ def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits
     gaps while every value is exact there, Python integers past that."""
     present = series.dropna()
     if len(present) < len(series) and len(present) and \
-            max(abs(int(present.min())), abs(int(present.max()))) > _FLOAT_EXACT:
+            max(abs(int(present.min())), abs(int(present.max()))) > FLOAT_EXACT:
         values = [None if pd.isna(v) else int(v) for v in series.tolist()]
         return pd.Series(values, dtype=object, index=series.index), "big integer", \
-            _BEYOND_FLOAT_NOTE
+            BEYOND_FLOAT_NOTE
     if len(present) < len(series):
         plain = series.astype("float64")
     else:
@@ -1492,7 +1215,7 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
             return None, "integer", ""
         raw = series.to_numpy()
         low, high = int(raw.min()), int(raw.max())
-        if high > _INT64_MAX:
+        if high > INT64_MAX:
             return pd.Series([int(v) for v in series.tolist()], dtype=object,
                              index=series.index), "big integer", ""
         if low == 0 and high == 1:
@@ -1537,7 +1260,7 @@ def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
     """A column kept as text at the caller's request: cells as given, not parsed."""
     values = []
     for row, value in enumerate(series.tolist()):
-        if _is_missing(value):
+        if is_missing(value):
             values.append(None)
             continue
         if isinstance(value, (list, tuple, dict, np.ndarray)):
@@ -1581,7 +1304,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                  marks_out: dict | None = None):
     """Type a column of Python objects; a marked column's _Marks go to ``marks_out["marks"]``
     (it is read as plain text when no ``marks_out`` is given)."""
-    present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     if not present:
         return None, "empty", ""
     values = [v for _, v in present]
@@ -1618,14 +1341,14 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
         good_row = next(i for i, v in present if _kind_of(v) == "list")
         raise TableError(
             f"{name}, row {row + 1}, column {column!r}: expected an array like [1, 2] (row "
-            f"{good_row + 1} holds one), got {_short(bad)}. Make every cell of the column an "
+            f"{good_row + 1} holds one), got {shown_value(bad)}. Make every cell of the column an "
             "array, or empty."
         )
     if kinds & {"dict"}:
         row, bad = next((i, v) for i, v in present if _kind_of(v) == "dict")
         raise TableError(
             f"{name}, row {row + 1}, column {column!r}: a cell holds a JSON object "
-            f"{_short(bad)}; cells may hold numbers, text, or arrays. Flatten the record."
+            f"{shown_value(bad)}; cells may hold numbers, text, or arrays. Flatten the record."
         )
     # Text cells: numbers, rationals, booleans or JSON arrays written as text.
     texts = [str(v) for v in values]
@@ -1667,16 +1390,6 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
     return None, "text", ""
 
 
-def reads_as_array_texts(brackets: int, filled: int) -> bool:
-    """Whether a column of text cells (not numbers, flags or marked numbers) is read as
-    arrays: when at least half of its ``filled`` cells start with ``[`` (``brackets``, after
-    stripping spaces). Every filled cell must then be a JSON array.
-
-    >>> reads_as_array_texts(3, 5), reads_as_array_texts(2, 5)
-    (True, False)
-    """
-    return brackets > 0 and 2 * brackets >= filled
-
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,
                 first_row: int = 0) -> pd.Series:
@@ -1684,7 +1397,7 @@ def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None
     checked as :func:`load_table` checks it. ``first_row`` is the row of the first cell in
     the whole table, for the messages of a partition read on its own.
     """
-    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     return _array_texts(series, present, name, column, limits or Limits(), first_row)
 
 
@@ -1696,7 +1409,7 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
         if not t.startswith("["):
             raise TableError(
                 f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {_short(t)}. Make every cell of the column an array, or empty."
+                f"[1, 2], got {shown_value(t)}. Make every cell of the column an array, or empty."
             )
         if _depth_ok(t, limits.max_depth) > 2:
             raise TableError(
@@ -1717,7 +1430,8 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
         if not isinstance(value, list):
             raise TableError(
                 f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {_short(value)}. Make every cell of the column an array, or empty."
+                f"[1, 2], got {shown_value(value)}. Make every cell of the column an array, "
+                "or empty."
             )
     rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
     for i, v in decoded:
@@ -1732,7 +1446,7 @@ def _integers(series: pd.Series, present: list, name: str, column: str, flags: b
         return _booleans(series, present), "boolean", "0/1 read as false/true"
     low, high = min(v for _, v in present), max(v for _, v in present)
     if complete:
-        if high > _INT64_MAX or low < -_INT64_MAX - 1:
+        if high > INT64_MAX or low < -INT64_MAX - 1:
             return _rebuild(series, present, lambda v: v, object), "big integer", ""
         values = np.array([v for _, v in present], dtype=np.int64)
         return pd.Series(values, index=series.index), "integer", ""
@@ -1814,9 +1528,9 @@ def array_value(value, name: str, row: int, column: str, limits: Limits) -> np.n
                          f"{limits.max_array}. Raise it with --limit max_array=N if you need it.")
     for x in flat:
         if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
-            raise TableError(f"{where}: array entries must be numbers, got {_short(x)}.")
+            raise TableError(f"{where}: array entries must be numbers, got {shown_value(x)}.")
     if all(isinstance(x, (int, np.integer)) for x in flat):
-        if flat and max(abs(int(x)) for x in flat) > _INT64_MAX:
+        if flat and max(abs(int(x)) for x in flat) > INT64_MAX:
             return np.array([int(x) for x in flat], dtype=object).reshape(shape)
         return np.array(flat, dtype=np.int64).reshape(shape)
     return np.array(flat, dtype=np.float64).reshape(shape)
@@ -1852,9 +1566,9 @@ def _retype_text(table_name: str, series: pd.Series, info: ColumnInfo, role: str
         values = [None if v is None else json.dumps(v.tolist()) for v in series]
     elif info.dtype == "integer":
         # integers with missing cells are stored as floats: written as integers again
-        values = [None if _is_missing(v) else str(int(v)) for v in series.tolist()]
+        values = [None if is_missing(v) else str(int(v)) for v in series.tolist()]
     else:
-        values = [None if _is_missing(v) else str(v) for v in series.tolist()]
+        values = [None if is_missing(v) else str(v) for v in series.tolist()]
     for position, text in (marks.texts if marks else ()):
         values[position] = text  # an interval or word as the file wrote it
     return pd.Series(values, dtype=object, index=series.index), replace(
@@ -1866,7 +1580,7 @@ def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: Col
     """A text, category or array column given the role invariant: plain numbers, or marked
     numbers read as the user asks (only the limit on different words applies)."""
     column = info.name
-    present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     if any(read_marked_cell(v)[0] != "number" for _, v in present):
         try:
             values, dtype, note, marks = _marked(series, present, column, limits,
@@ -1904,7 +1618,7 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
             )
         return None, new
     if role == "invariant":  # from a flag
-        return series.map(lambda v: None if _is_missing(v) else int(bool(v))).astype(
+        return series.map(lambda v: None if is_missing(v) else int(bool(v))).astype(
             "float64" if series.isna().any() else "int64"), replace(new, dtype="integer")
     if role == "flag":
         if info.dtype == "array":
@@ -1912,24 +1626,24 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
                 f"{table_name}, row {_first_present(series) + 1}, column {column!r}: a flag "
                 "holds two values, not arrays. Keep the column as an array."
             )
-        present = [v for v in series.tolist() if not _is_missing(v)]
+        present = [v for v in series.tolist() if not is_missing(v)]
         levels = sorted({_flag_token(v) for v in present}, key=str)
         if len(levels) > 2:
             seen: list = []
             for row, value in enumerate(series.tolist()):
-                if _is_missing(value) or _flag_token(value) in seen:
+                if is_missing(value) or _flag_token(value) in seen:
                     continue
                 if len(seen) == 2:
                     raise TableError(
                         f"{table_name}, row {row + 1}, column {column!r}: a third value "
-                        f"{_short(_flag_token(value))} (besides {_short(seen[0])} and "
-                        f"{_short(seen[1])}); "
+                        f"{shown_value(_flag_token(value))} (besides {shown_value(seen[0])} and "
+                        f"{shown_value(seen[1])}); "
                         f"a flag has two values and this column has {len(levels)}. Use the "
                         "category role, or fix the cell."
                     )
                 seen.append(_flag_token(value))
         truthy = _true_level(levels)
-        values = [None if _is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
+        values = [None if is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
         note = "" if info.dtype == "boolean" else (
             "read from true/false words" if truthy is True else f"true means {truthy!r}")
         return pd.Series(values, dtype=object if None in values else bool,
@@ -1939,14 +1653,14 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
         if info.dtype == "array":
             return None, new
         present = [(row, str(v).strip()) for row, v in enumerate(series.tolist())
-                   if not _is_missing(v)]
+                   if not is_missing(v)]
         if info.dtype in ("text", "category") and present:
             return _array_texts(series, present, table_name, column, limits), replace(
                 new, dtype="array", note=f"read as arrays (was {info.dtype})")
         row, value = present[0] if present else (0, None)
         raise TableError(
             f"{table_name}, row {row + 1}, column {column!r}: expected an array like [1, 2], "
-            f"got {_short(value)} (the column holds {info.dtype} values). Array cells are "
+            f"got {shown_value(value)} (the column holds {info.dtype} values). Array cells are "
             "written like [1, 2] or [[1, 0], [0, 1]]; keep the column as "
             f"{info.role}."
         )
@@ -1954,7 +1668,7 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
 
 
 def _first_present(series: pd.Series) -> int:
-    return next((row for row, v in enumerate(series.tolist()) if not _is_missing(v)), 0)
+    return next((row for row, v in enumerate(series.tolist()) if not is_missing(v)), 0)
 
 
 def _flag_token(value):
@@ -1982,7 +1696,7 @@ def _check_unique_ids(name: str, series: pd.Series) -> None:
         first = duplicated.iloc[0]
         rows = [int(i) + 1 for i in np.flatnonzero((series == first).to_numpy())[:3]]
         raise TableError(
-            f"{name}: column {series.name!r} cannot be the id: the value {_short(first)} "
+            f"{name}: column {series.name!r} cannot be the id: the value {shown_value(first)} "
             f"appears in rows {', '.join(map(str, rows))}. Choose a column with unique values."
         )
     if series.isna().any():
@@ -2011,29 +1725,6 @@ def _kind_of(value) -> str:
     return "text"
 
 
-def _is_missing(value) -> bool:
-    if value is None or value is pd.NA:
-        return True
-    if isinstance(value, float) and np.isnan(value):
-        return True
-    return False
-
-
-def from_decimal(value):
-    """A Parquet decimal as an exact int or Fraction (NaN as missing, infinities as floats);
-    any other value as it is. Both engines read decimals through it.
-
-    >>> from_decimal(Decimal("3.50"))
-    Fraction(7, 2)
-    """
-    if not isinstance(value, Decimal):
-        return value
-    if value.is_nan():
-        return None
-    if value.is_infinite():
-        return float(value)
-    exact = Fraction(value)
-    return exact.numerator if exact.denominator == 1 else exact
 
 
 def _int_text(text: str, name: str, row: int, column: str) -> int:
@@ -2045,7 +1736,7 @@ def _int_text(text: str, name: str, row: int, column: str) -> int:
 
 
 def _to_float(value) -> float:
-    if _is_missing(value):
+    if is_missing(value):
         return np.nan
     try:
         return float(value)
@@ -2056,10 +1747,3 @@ def _to_float(value) -> float:
 def _one_line(error) -> str:
     """A library's error text on one line: the command line prints one line per error."""
     return " ".join(str(error).split())
-
-
-def _short(value, width: int = 40) -> str:
-    if isinstance(value, np.generic):
-        value = value.item()  # show 1, not np.int64(1)
-    text = repr(value) if not isinstance(value, str) else repr(value)
-    return text if len(text) <= width else text[: width - 3] + "..."

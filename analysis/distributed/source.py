@@ -28,18 +28,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from analysis.distributed.reduction import tree
-from analysis.errors import StepError, TableError
-from analysis.table import (
+from analysis.column_facts import (
     INTEGER_TEXT,
     MARKER_RULE,
     RATIONAL_TEXT,
-    ColumnInfo,
-    Limits,
-    Table,
-    array_cells,
-    array_token,
-    array_value,
     column_warnings,
     detect_role,
     from_decimal,
@@ -54,6 +46,16 @@ from analysis.table import (
     reads_as_array_texts,
     reads_as_boolean,
     reads_as_marked_numbers,
+)
+from analysis.distributed.reduction import tree
+from analysis.errors import StepError, TableError
+from analysis.table import (
+    ColumnInfo,
+    Limits,
+    Table,
+    array_cells,
+    array_token,
+    array_value,
 )
 
 # Distinct values kept per column while merging facts; past this a column's distinct count is
