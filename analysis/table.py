@@ -58,6 +58,7 @@ from analysis.column_facts import (
     MISSING_WORDS,
     RATIONAL_TEXT,
     TRUE_WORDS,
+    ColumnInfo,
     column_warnings,
     detect_role,
     from_decimal,
@@ -115,34 +116,6 @@ class Limits:
     max_cell: int = 1_000_000
     max_array: int = 100_000
     max_depth: int = 64
-
-
-@dataclass(frozen=True)
-class ColumnInfo:
-    """What the program knows about one column."""
-
-    name: str
-    role: str
-    dtype: str
-    missing: int
-    distinct: int
-    detected_role: str
-    note: str = ""
-    intervals: int = 0
-    markers: dict[str, int] = field(default_factory=dict, hash=False)
-
-    def to_json(self) -> dict:
-        return {
-            "name": self.name,
-            "role": self.role,
-            "dtype": self.dtype,
-            "missing": int(self.missing),
-            "distinct": int(self.distinct),
-            "detected_role": self.detected_role,
-            "note": self.note,
-            "intervals": int(self.intervals),
-            "markers": {str(word): int(count) for word, count in self.markers.items()},
-        }
 
 
 @dataclass(frozen=True)
