@@ -427,7 +427,14 @@ def frame_facts(frame: pd.DataFrame, conversions=()) -> dict:
 
 
 def block_facts(series: pd.Series, from_text: bool, as_text: bool = False,
-                  exact_decimals: bool = True) -> dict:
+                exact_decimals: bool = True) -> dict:
+    """The facts of one block of a column's raw cells (a pandas series); see merge_facts.
+
+    ``from_text``: the cells are CSV text, numbers where pandas reads them as numbers (other
+    text cells are numbers only when every one is a whole number); ``as_text``: every cell
+    is read as text, as written; ``exact_decimals``: Parquet decimals are read as the text
+    of their exact values.
+    """
     n = len(series)
     missing_mask = series.isna().to_numpy()
     facts: dict = {"n": n, "missing": int(missing_mask.sum()), "kind": None}
@@ -467,19 +474,33 @@ def block_facts(series: pd.Series, from_text: bool, as_text: bool = False,
             facts.update(_number_facts(numbers))
             facts["parsed"] = True
             return facts
-    lowered = set(text.str.strip().str.lower().unique().tolist())
-    facts["words"] = lowered if len(lowered) <= 2 else None
     return _text_facts(facts, text, present, missing_mask)
 
 
-def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask) -> dict:
-    """The facts of a run of text cells: counts, marked numbers, brackets, rationals."""
+def text_block_facts(series: pd.Series, *, counts: bool = True) -> dict:
+    """The facts of one block of cells read as text (missing cells among them), which
+    :func:`text_reading` reads; ``counts`` False leaves out the count of every label."""
+    missing_mask = series.isna().to_numpy()
+    present = series[~missing_mask]
+    facts: dict = {"n": len(series), "missing": int(missing_mask.sum()), "kind": None}
+    return _text_facts(facts, present.astype(str), present, missing_mask, counts)
+
+
+def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask,
+                counts: bool = True) -> dict:
+    """The facts of a run of text cells: counts, marked numbers, brackets, rationals, and
+    its true/false words (``words``, None past two) unless the caller set them."""
     facts["kind"] = "text"
-    facts.update(_text_counts(text, ~missing_mask))
+    if "words" not in facts:
+        lowered = set(text.str.strip().str.lower().unique().tolist())
+        facts["words"] = lowered if len(lowered) <= 2 else None
+    if counts:
+        facts.update(_text_counts(text, ~missing_mask))
     facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
     facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
     # every cell an integer or p/q: the column is read as exact rationals, as in memory
     facts["rational"] = bool(text.str.fullmatch(RATIONAL_TEXT).all())
+    facts["integers"] = bool(facts["rational"] and text.str.fullmatch(INTEGER_TEXT).all())
     return facts
 
 
@@ -636,6 +657,7 @@ def merge_facts(a: dict, b: dict) -> dict:
         out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
         out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
         out["rational"] = a.get("rational", False) and b.get("rational", False)
+        out["integers"] = a.get("integers", False) and b.get("integers", False)
         return out
     out["count"] = a["count"] + b["count"]
     out["inf"] = a["inf"] or b["inf"]
@@ -675,7 +697,8 @@ def _like(empty: dict, other: dict) -> dict:
         out["shapes"], out["tokens"] = {}, set()
     elif kind == "text":
         out.update(words=set(), counts={}, first_values=[], first_positions=[],
-                   marked=marked_facts([], []), rational=True)
+                   marked=marked_facts([], []), rational=True,
+                   integers=True)
     else:
         values = other["values"]
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
@@ -771,11 +794,29 @@ def reads_marked(f: dict, requested: bool = False) -> bool:
                                    requested=requested)
 
 
+def text_reading(f: dict, *, marked: bool = True) -> str:
+    """How a column of text cells is read, from its (merged) facts, the first that holds of
+    "integer" (every cell a whole number), "rational" (integers and p/q), "flag" (true/false
+    words, :func:`reads_as_flag`), "marked" (numbers with intervals and words,
+    :class:`MarkerRule`; only when ``marked``), "array" (JSON-array text) and "text".
+    """
+    if f.get("integers"):
+        return "integer"
+    if reads_rational(f):
+        return "rational"
+    if f.get("words") and reads_as_boolean(f["words"]):
+        return "flag"
+    if marked and reads_marked(f):
+        return "marked"
+    if reads_as_array_texts(f.get("brackets", 0), f["n"] - f["missing"]):
+        return "array"
+    return "text"
+
+
 def reads_rational(f: dict) -> bool:
     """Whether a text column's cells are all integers or p/q (analysis.table's rational
-    rule), with at least one p/q among them: read as exact rationals, as in memory."""
-    m = f.get("marked")
-    return bool(f.get("kind") == "text" and f.get("rational") and m and m["fraction"])
+    rule), not all integers: read as exact rationals."""
+    return bool(f.get("kind") == "text" and f.get("rational") and not f.get("integers"))
 
 
 def marked_type(m: dict) -> str:
@@ -841,9 +882,12 @@ def marked_values(series: pd.Series, dtype: str) -> pd.Series:
 
 
 def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
-    """(dtype, note, conversion for typed_block) from a column's merged facts."""
+    """(dtype, note, conversion for :func:`typed_block`) from a column's merged facts.
+
+    Text columns that read as marked numbers, rationals or JSON-array text are told apart
+    by the reader first (:func:`text_reading`); here they are text or true/false words.
+    """
     kind = f["kind"]
-    csv = fmt == "csv" or f.get("parsed", False)
     if kind is None:
         return "empty", "", ""
     if kind == "list":
@@ -854,34 +898,55 @@ def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
             return "boolean", "", "words"
         return "text", "", ""
     if kind == "bool":
-        return "boolean", "", ""
-    if f["big"]:
-        return "big integer", "", "bigint"
-    if kind == "bigint":
-        # integers of 16 or more digits that still fit in 64 bits
-        return "integer", ("has missing cells" if f["missing"] else ""), \
-            ("csv+float" if f["missing"] else "csv+int64")
-    prefix = "csv+" if csv else ""
+        return "boolean", "", "flags" if f["missing"] else ""
     if f["count"] == 0:
         return "empty", "", ""
+    csv = fmt == "csv" or f.get("parsed", False)
+    if kind == "float" and f["inf"]:
+        return "real", "has infinite values", "number" if csv else ""
+    if kind == "float" and not f["integral"]:
+        return "real", "", "number" if csv else ""
     values = f["values"]
     zero_one = values is not None and len(values) == 2 and set(values.tolist()) == {0, 1}
-    if kind in ("int", "uint"):
-        if zero_one and not f["missing"]:
-            return "boolean", "0/1 read as false/true", prefix + "bool"
-        if f["missing"]:
-            return "integer", "has missing cells", prefix + "float"
-        return "integer", "", prefix + "int64" if csv or kind == "uint" else ""
-    # floats
-    if f["inf"]:
-        return "real", "has infinite values", "number" if csv else ""
-    if f["integral"]:
-        if f["missing"]:
-            return "integer", "has missing cells", "number" if csv else ""
-        if zero_one:
-            return "boolean", "0/1 read as false/true", prefix + "bool"
-        return "integer", "", prefix + "int64"
-    return "real", "", "number" if csv else ""
+    dtype, note = integer_type(int(f["minimum"]), int(f["maximum"]),
+                               complete=not f["missing"], zero_one=zero_one)
+    return dtype, note, _integer_conversion(dtype, f, csv)
+
+
+def _integer_conversion(dtype: str, f: dict, csv: bool) -> str:
+    """How typed_block turns a column of whole numbers into ``dtype`` (see integer_type)."""
+    prefix = "csv+" if csv else ""
+    if dtype == "big integer":
+        return "bigint"
+    if dtype == "boolean":
+        return prefix + ("flags" if f["missing"] else "bool")
+    if f["missing"]:
+        return prefix + "float" if f["kind"] != "float" or csv else ""
+    if f["kind"] in ("int", "uint") and not csv:
+        return "int64" if f["kind"] == "uint" else ""
+    return prefix + "int64"
+
+
+def integer_type(low: int, high: int, *, complete: bool, zero_one: bool,
+                 flags: bool = True) -> tuple[str, str]:
+    """(dtype, note) of a column of whole numbers from ``low`` to ``high``: the one rule.
+
+    Only 0 and 1 (``zero_one``, missing cells allowed) make a flag, unless ``flags`` is
+    False; otherwise an integer column, or big integer past 64 bits, or past 2**53 when a
+    cell is missing (``complete`` False), as :func:`incomplete_integer_dtype` says.
+
+    >>> integer_type(0, 1, complete=False, zero_one=True)
+    ('boolean', '0/1 read as false/true')
+    >>> integer_type(0, 2**60, complete=False, zero_one=False)
+    ('big integer', 'kept exact: beyond 2**53 with missing cells')
+    """
+    if flags and zero_one:
+        return "boolean", "0/1 read as false/true"
+    if not complete:
+        return incomplete_integer_dtype(low, high)
+    if high > INT64_MAX or low < -INT64_MAX - 1:
+        return "big integer", ""
+    return "integer", ""
 
 
 def distinct_of(f: dict, dtype: str) -> int:
@@ -938,7 +1003,7 @@ def typed_block(frame: pd.DataFrame, conversions) -> pd.DataFrame:
             continue
         if how.startswith("csv+"):
             how = how[4:]
-            if how in ("float", "int64", "bool"):
+            if how in ("float", "int64", "bool", "flags"):
                 series = pd.to_numeric(series, errors="coerce")
         if how == "number":
             series = pd.to_numeric(series, errors="coerce")
@@ -948,6 +1013,9 @@ def typed_block(frame: pd.DataFrame, conversions) -> pd.DataFrame:
             series = series.astype(np.int64)
         elif how == "bool":
             series = series.astype(bool)
+        elif how == "flags":
+            series = pd.Series([None if is_missing(v) else bool(v) for v in series.tolist()],
+                               dtype=object, index=series.index)
         elif how == "words":
             series = pd.Series([None if is_missing(v) else is_true_word(v)
                                 for v in series.tolist()], dtype=object, index=series.index)

@@ -39,9 +39,8 @@ from analysis.column_facts import (
     marked_type,
     marked_values,
     merge_facts,
-    reads_as_array_texts,
     reads_marked,
-    reads_rational,
+    text_reading,
     typed_block,
 )
 from analysis.distributed.reduction import tree
@@ -441,15 +440,14 @@ def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: l
         if column in as_text:
             dtype, note, convert = ("text", "", "text") if f["kind"] else ("empty", "", "")
             missing, distinct = f["missing"], distinct_of(f, dtype)
-        elif reads_marked(f) or reads_rational(f):
+        elif f["kind"] == "text" and text_reading(f) in ("marked", "rational"):
             facts[column], marked = marked_column(name, column, f)
             dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
             missing, distinct = marked.missing, marked.distinct
         else:
             dtype, note, convert = column_type(f, fmt)
             missing, distinct = f["missing"], distinct_of(f, dtype)
-            if dtype == "text" and reads_as_array_texts(f.get("brackets", 0),
-                                                        f["n"] - f["missing"]):
+            if f["kind"] == "text" and text_reading(f) == "array":
                 # JSON-array text: arrays, every cell checked by analysis.table's reader
                 dtype, note, convert, distinct = "array", "", "array_text", -1
             elif dtype == "text" and _merge_labels(name, column, f, n, merged):
