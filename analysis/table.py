@@ -49,7 +49,6 @@ import numpy as np
 import pandas as pd
 
 from analysis.column_facts import (
-    BEYOND_FLOAT_NOTE,
     FALSE_WORDS,
     FLOAT_EXACT,
     INT64_MAX,
@@ -63,6 +62,7 @@ from analysis.column_facts import (
     detect_role,
     from_decimal,
     incomplete_integer_dtype,
+    integer_type,
     is_missing,
     is_true_word,  # noqa: F401 - still read from here by the Dask overview
     label_merge_warning,
@@ -71,10 +71,10 @@ from analysis.column_facts import (
     marked_note,
     marker_counts,
     read_marked_cell,
-    reads_as_array_texts,
-    reads_as_flag,
     reads_as_marked_numbers,
     shown_value,
+    text_block_facts,
+    text_reading,
 )
 from analysis.errors import TableError
 
@@ -1161,11 +1161,11 @@ def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits
     same integers read from text are: numpy integers without gaps, float64 with NaN for
     gaps while every value is exact there, Python integers past that."""
     present = series.dropna()
-    if len(present) < len(series) and len(present) and \
-            max(abs(int(present.min())), abs(int(present.max()))) > FLOAT_EXACT:
+    if len(present) < len(series) and len(present) and incomplete_integer_dtype(
+            int(present.min()), int(present.max()))[0] == "big integer":
         values = [None if pd.isna(v) else int(v) for v in series.tolist()]
-        return pd.Series(values, dtype=object, index=series.index), "big integer", \
-            BEYOND_FLOAT_NOTE
+        return pd.Series(values, dtype=object, index=series.index), \
+            *incomplete_integer_dtype(int(present.min()), int(present.max()))
     if len(present) < len(series):
         plain = series.astype("float64")
     else:
@@ -1179,6 +1179,10 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
     """Return (new values or None, dtype label, note); a marked column's _Marks go to
     ``marks_out``."""
     kind = series.dtype.kind
+    if kind == "b" and not isinstance(series.dtype, np.dtype):
+        # pandas' nullable flags: True, False and None, as flags with missing cells are
+        present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
+        return _booleans(series, present), "boolean", ""
     if kind == "b":
         return None, "boolean", ""
     if kind in "iu" and not isinstance(series.dtype, np.dtype):
@@ -1188,36 +1192,45 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
             return None, "integer", ""
         raw = series.to_numpy()
         low, high = int(raw.min()), int(raw.max())
-        if high > INT64_MAX:
+        dtype, note = integer_type(low, high, complete=True, zero_one=low == 0 and high == 1)
+        if dtype == "big integer":
             return pd.Series([int(v) for v in series.tolist()], dtype=object,
-                             index=series.index), "big integer", ""
-        if low == 0 and high == 1:
-            return series.astype(bool), "boolean", "0/1 read as false/true"
+                             index=series.index), dtype, note
+        if dtype == "boolean":
+            return series.astype(bool), dtype, note
         smallest = _smallest_integer_type(low, high)
         if smallest != raw.dtype:
             # the smallest signed type that holds every value exactly: a quarter of the
             # memory for most invariants, and no unsigned arithmetic surprises later
-            return series.astype(smallest), "integer", ""
-        return None, "integer", ""
+            return series.astype(smallest), dtype, note
+        return None, dtype, note
     if kind == "f":
-        raw = series.to_numpy()
-        if np.isinf(raw).any():
-            return None, "real", "has infinite values"
-        finite = series[np.isfinite(raw)]
-        if len(finite) == 0:
-            if series.isna().all():
-                return None, "empty", ""
-            return None, "real", ""
-        if bool((finite == np.round(finite)).all()) and finite.abs().max() < 2**53:
-            if _is_zero_one(series):
-                flags = [(i, v) for i, v in enumerate(raw.tolist()) if not np.isnan(v)]
-                return _booleans(series, flags), "boolean", "0/1 read as false/true"
-            if series.isna().any():
-                return None, "integer", "has missing cells"
-            return series.astype(_smallest_integer_type(int(finite.min()), int(finite.max()))), \
-                "integer", ""
-        return None, "real", ""
+        return _type_floats(series)
     return _type_object(series, name, column, limits, marks_out)
+
+
+def _type_floats(series: pd.Series):
+    """(new values or None, dtype, note) of a float64 column: whole numbers below 2**53 are
+    integers (or flags) by :func:`integer_type`."""
+    raw = series.to_numpy()
+    if np.isinf(raw).any():
+        return None, "real", "has infinite values"
+    finite = series[np.isfinite(raw)]
+    if len(finite) == 0:
+        if series.isna().all():
+            return None, "empty", ""
+        return None, "real", ""
+    if not (bool((finite == np.round(finite)).all()) and finite.abs().max() < FLOAT_EXACT):
+        return None, "real", ""
+    low, high = int(finite.min()), int(finite.max())
+    dtype, note = integer_type(low, high, complete=not series.isna().any(),
+                               zero_one=_is_zero_one(series))
+    if dtype == "boolean":
+        flags = [(i, v) for i, v in enumerate(raw.tolist()) if not np.isnan(v)]
+        return _booleans(series, flags), dtype, note
+    if series.isna().any():
+        return None, dtype, note
+    return series.astype(_smallest_integer_type(low, high)), dtype, note
 
 
 def _plain_json_value(value):
@@ -1332,11 +1345,19 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
             f"{name}, row {row + 1}, column {column!r}: a cell of {longest} characters is "
             f"over the limit of {limits.max_cell}. Shorten it or raise it with --limit max_cell=N."
         )
-    stripped = [t.strip() for t in texts]
-    if all(_INTEGER_TEXT.match(t) for t in stripped):
+    return _type_texts(series, present, name, column, limits, marks_out)
+
+
+def _type_texts(series: pd.Series, present: list, name: str, column: str, limits: Limits,
+                marks_out: dict | None):
+    """Type a column of text cells by the reading its facts give (one block, see
+    :func:`analysis.column_facts.text_reading`)."""
+    stripped = [str(v).strip() for _, v in present]
+    reading = text_reading(text_block_facts(series, counts=False), marked=marks_out is not None)
+    if reading == "integer":
         parsed = [(i, _int_text(t, name, i, column)) for (i, _), t in zip(present, stripped)]
         return _integers(series, parsed, name, column)
-    if all(_RATIONAL_TEXT.match(t) for t in stripped):
+    if reading == "rational":
         parsed = []
         for (i, _), t in zip(present, stripped):
             _int_text(t.split("/")[0], name, i, column)
@@ -1349,19 +1370,18 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                     "Fix the cell or mark the column as text."
                 ) from None
         return _rebuild(series, parsed, lambda v: v, object), "rational", ""
-    if reads_as_flag(set(stripped)):
+    if reading == "flag":
         parsed = [(i, t.lower() in TRUE_WORDS) for (i, _), t in zip(present, stripped)]
         return _booleans(series, parsed), "boolean", ""
-    if marks_out is not None:
+    if reading == "marked":
         marked = _marked(series, present, column, limits)
         if marked is not None:
             marks_out["marks"] = marked[3]
             return marked[:3]
-    if reads_as_array_texts(sum(t.startswith("[") for t in stripped), len(stripped)):
+    if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
     return None, "text", ""
-
 
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,
@@ -1415,22 +1435,21 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
 def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
     present = [(i, int(v)) for i, v in present]
     complete = len(present) == len(series)
-    if flags and {v for _, v in present} == {0, 1}:
-        return _booleans(series, present), "boolean", "0/1 read as false/true"
     low, high = min(v for _, v in present), max(v for _, v in present)
-    if complete:
-        if high > INT64_MAX or low < -INT64_MAX - 1:
-            return _rebuild(series, present, lambda v: v, object), "big integer", ""
-        values = np.array([v for _, v in present], dtype=np.int64)
-        return pd.Series(values, index=series.index), "integer", ""
-    # a column with missing cells would become float64: see incomplete_integer_dtype
-    dtype, note = incomplete_integer_dtype(low, high)
+    dtype, note = integer_type(low, high, complete=complete, flags=flags,
+                               zero_one={v for _, v in present} == {0, 1})
+    if dtype == "boolean":
+        return _booleans(series, present), dtype, note
     if dtype == "big integer":
         return _rebuild(series, present, lambda v: v, object), dtype, note
+    if complete:
+        values = np.array([v for _, v in present], dtype=np.int64)
+        return pd.Series(values, index=series.index), dtype, note
+    # a column with missing cells is float64, exact below 2**53 (see integer_type)
     floats = np.full(len(series), np.nan)
     for i, v in present:
         floats[i] = float(v)
-    return pd.Series(floats, index=series.index), "integer", "has missing cells"
+    return pd.Series(floats, index=series.index), dtype, note
 
 
 def _booleans(series: pd.Series, present: list) -> pd.Series:
