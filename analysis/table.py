@@ -385,7 +385,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
         )
     frame.columns = [str(c) for c in frame.columns]
     frame = _drop_unnamed(frame, name, warnings)
-    _check_column_names(name, list(frame.columns))
+    check_column_names(name, list(frame.columns))
     if len(frame) == 1:
         warnings.append(f"{name}: only one row; most steps need many more.")
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
@@ -452,11 +452,11 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if fmt == "tsv":
         delimiter = "\t"
     else:
-        delimiter = _sniff_delimiter(text)
-    header = [h.strip() for h in _header_record(text, delimiter)]
+        delimiter = sniff_delimiter(text)
+    header = [h.strip() for h in header_record(text, delimiter)]
     if not any(header):
         raise TableError(f"{name}: the first line is empty; it must name the columns.")
-    _check_column_names(name, header)
+    check_column_names(name, header)
     if len(header) > limits.max_columns:
         raise TableError(
             f"{name}: {len(header)} columns is over the limit of {limits.max_columns}. "
@@ -483,10 +483,18 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if len(frame) and frame.iloc[:, -1].isna().any():
         _check_short_rows(text, delimiter, len(header), name)
     frame = _exact_integers(frame, text, delimiter, limits)
-    if delimiter != ",":
-        shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
-        warnings.append(f"{name}: columns separated by {shown}.")
+    said = delimiter_warning(name, delimiter)
+    if said:
+        warnings.append(said)
     return frame
+
+
+def delimiter_warning(name: str, delimiter: str) -> str | None:
+    """The warning for a delimited table whose cells are not separated by commas."""
+    if delimiter == ",":
+        return None
+    shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
+    return f"{name}: columns separated by {shown}."
 
 
 def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
@@ -527,9 +535,10 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
     return frame
 
 
-def _header_record(text: str, delimiter: str) -> list[str]:
-    """The first record, read the way pandas reads it: a quoted name may hold a line break,
-    and old files end lines with a lone carriage return.
+def header_record(text: str, delimiter: str) -> list[str]:
+    """The header's names as written (strip them to use them): the first record, read the
+    way pandas reads it: a quoted name may hold a line break, and old files end lines with
+    a lone carriage return.
 
     Read from the first megabyte when a second record starts there (so the first one ended
     inside it); otherwise from up to _HEADER_CHARS characters. Copying a whole large file
@@ -551,7 +560,9 @@ def _header_record(text: str, delimiter: str) -> list[str]:
         return []
 
 
-def _sniff_delimiter(text: str) -> str:
+def sniff_delimiter(text: str) -> str:
+    """The delimiter of a CSV-like text (comma, semicolon, tab or vertical bar), from its first
+    50 lines; a comma when nothing else stands out."""
     sample = "\n".join(text[:65536].splitlines()[:50])
     try:
         return csv.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
@@ -772,7 +783,7 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
         source = pq.ParquetFile(pa.BufferReader(data))
         schema = source.schema_arrow
         names = schema.names
-        _check_column_names(name, [str(n) for n in names])
+        check_column_names(name, [str(n) for n in names])
         # a column at a time, each integer column narrowed before the next is read: peak
         # memory near one wide column plus the narrowed table, not the whole table twice
         # (see bench/RESULTS.md)
@@ -821,18 +832,29 @@ def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.Dat
         values = frame.iloc[:, position]
         filled = values.notna() & (values.astype(str).str.strip() != "")
         if filled.any():
-            row = int(np.flatnonzero(filled.to_numpy())[0]) + 1
-            raise TableError(
-                f"{name}: column {position + 1} has no name in the header but holds values "
-                f"(row {row}: {shown_value(values.iloc[row - 1])}). Name it in the header."
-            )
-        warnings.append(f"{name}: column {position + 1} has no name and no values; ignored.")
+            row = int(np.flatnonzero(filled.to_numpy())[0])
+            unnamed_column_error(name, position, row, values.iloc[row])
+        warnings.append(unnamed_column_warning(name, position))
     if len(keep) == frame.shape[1]:
         return frame
     return frame.iloc[:, keep]
 
 
-def _check_column_names(name: str, header: list[str]) -> None:
+def unnamed_column_warning(name: str, position: int) -> str:
+    """The warning for the column at 0-based ``position``, with no name and no values."""
+    return f"{name}: column {position + 1} has no name and no values; ignored."
+
+
+def unnamed_column_error(name: str, position: int, row: int, value) -> None:
+    """Refuse the column at ``position`` with no name but a ``value`` in 0-based ``row``."""
+    raise TableError(
+        f"{name}: column {position + 1} has no name in the header but holds values "
+        f"(row {row + 1}: {shown_value(value)}). Name it in the header."
+    )
+
+
+def check_column_names(name: str, header: list[str]) -> None:
+    """Refuse a header naming one column twice (unnamed columns are looked at apart)."""
     seen: dict[str, int] = {}
     for position, column in enumerate(header, start=1):
         if not column.strip():

@@ -17,7 +17,6 @@ Rows are numbered across partitions in file order: a row's id is its id-column v
 
 from __future__ import annotations
 
-import csv
 import functools
 import hashlib
 from dataclasses import dataclass, field, replace
@@ -49,13 +48,20 @@ from analysis.table import (
     ColumnInfo,
     Table,
     array_cells,
+    check_column_names,
+    delimiter_warning,
+    header_record,
+    sniff_delimiter,
+    unnamed_column_error,
+    unnamed_column_warning,
 )
 
 # Files up to this many bytes in all are hashed whole for the digest; past it a fingerprint.
 FULL_DIGEST_BYTES = 2 * 1024**3
 CSV_BLOCKSIZE = "64MB"
 _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
-_CSV_SUFFIXES = {".csv": ",", ".txt": None, ".tsv": "\t", ".tab": "\t"}
+_CSV_SUFFIXES = (".csv", ".txt", ".tsv", ".tab")
+_TAB_SUFFIXES = {".tsv": "\t", ".tab": "\t"}
 
 
 @dataclass(frozen=True)
@@ -159,7 +165,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
             raise TableError(f"{name}: not readable as Parquet ({_first_line(exc)}). Check "
                              "the files or export them again.") from None
     else:
-        delimiter = _csv_delimiter(files[0], warnings, name)
+        delimiter, written = _csv_layout(files[0], warnings, name)
         try:
             frame = dd.read_csv([str(f) for f in files], sep=delimiter, dtype=object,
                                 blocksize=blocksize, keep_default_na=False,
@@ -168,7 +174,12 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
             raise TableError(f"{name}: not readable as a delimited table "
                              f"({_first_line(exc)}).") from None
     header = [str(c) for c in frame.columns]
-    _check_names(name, header)
+    unnamed = set()
+    if fmt == "csv" and len(written) == len(header):
+        # names as in memory: stripped; a column with none keeps pandas' name until dropped
+        unnamed = {c for c, w in zip(header, written) if not w}
+        header = [w or c for c, w in zip(header, written)]
+    check_column_names(name, [c for c in header if c not in unnamed])
     frame.columns = header
     if not header:
         raise TableError(f"{name}: no columns found. A table needs a header row.")
@@ -185,8 +196,6 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     n = sum(partition_rows)
     if n == 0:
         raise TableError(f"{name}: a header but no rows. Add at least two rows of data.")
-    if n == 1:
-        warnings.append(f"{name}: only one row; most steps need many more.")
     facts = {}
     mixed = []
     for column in header:
@@ -194,6 +203,10 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
             facts[column] = functools.reduce(merge_facts, [p[column] for p in merged_parts])
         except TableError:
             mixed.append(column)
+    frame, header = _drop_unnamed(client, frame, facts, unnamed, name, warnings)
+    mixed = [c for c in mixed if c in header]
+    if n == 1:
+        warnings.append(f"{name}: only one row; most steps need many more.")
     # numbers in some partitions and text in others: the column is text, as in memory
     _facts_again(client, frame, facts, mixed, "text", name)
     # columns the user asks to be text or a category are read as text, cells as given, as
@@ -282,8 +295,8 @@ def _digest(files: list[Path], root: Path, warnings: list[str]) -> str:
     return digest.hexdigest()
 
 
-def _csv_delimiter(path: Path, warnings: list[str], name: str) -> str:
-    fixed = _CSV_SUFFIXES.get(path.suffix.lower())
+def _csv_layout(path: Path, warnings: list[str], name: str) -> tuple[str, list[str]]:
+    """The delimiter and the header's names of a delimited file, read as in memory."""
     with path.open("rb") as handle:
         head = handle.read(65536)
     try:
@@ -294,29 +307,39 @@ def _csv_delimiter(path: Path, warnings: list[str], name: str) -> str:
         except UnicodeDecodeError as exc:
             raise TableError(f"{name}: bytes at offset {exc.start} are not UTF-8. Re-save "
                              "the file as UTF-8.") from None
-    if fixed:
-        return fixed
-    sample = "\n".join(text.splitlines()[:50])
-    try:
-        delimiter = csv.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
-    except csv.Error:
-        first = sample.split("\n", 1)[0]
-        counts = {d: first.count(d) for d in ",;\t|"}
-        best = max(counts, key=counts.get)
-        delimiter = best if counts[best] else ","
-    if delimiter != ",":
-        shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
-        warnings.append(f"{name}: columns separated by {shown}.")
-    return delimiter
+    delimiter = _TAB_SUFFIXES.get(path.suffix.lower()) or sniff_delimiter(text)
+    said = delimiter_warning(name, delimiter)
+    if said:
+        warnings.append(said)
+    return delimiter, [h.strip() for h in header_record(text, delimiter)]
 
 
-def _check_names(name: str, header: list[str]) -> None:
-    seen: dict[str, int] = {}
-    for position, column in enumerate(header, start=1):
-        if column in seen:
-            raise TableError(f"{name}: column name {column!r} appears twice (columns "
-                             f"{seen[column]} and {position}). Rename one of them.")
-        seen[column] = position
+def _drop_unnamed(client, frame, facts: dict, unnamed: set, name: str, warnings: list[str]):
+    """Columns with no name: dropped when empty (with a warning), refused when not."""
+    header = list(frame.columns)
+    for position, column in enumerate(header):
+        if column not in unnamed:
+            continue
+        if facts[column]["kind"] is not None:
+            from dask import delayed
+
+            firsts = client.gather(client.compute(
+                [delayed(_first_filled)(part) for part in frame[column].to_delayed()]))
+            offset = 0
+            for rows, found in firsts:
+                if found is not None:
+                    unnamed_column_error(name, position, offset + found[0], found[1])
+                offset += rows
+        warnings.append(unnamed_column_warning(name, position))
+        facts.pop(column)
+    kept = [c for c in header if c not in unnamed]
+    return (frame, header) if len(kept) == len(header) else (frame[kept], kept)
+
+
+def _first_filled(series: pd.Series):
+    filled = np.flatnonzero(series.notna().to_numpy())
+    return len(series), (None if not len(filled) else (int(filled[0]),
+                                                       series.iloc[int(filled[0])]))
 
 
 def _first_line(exc: Exception) -> str:
