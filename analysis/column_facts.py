@@ -19,7 +19,7 @@ spaces (:func:`label_merge_warning`).
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from decimal import Decimal
 from fractions import Fraction
 
@@ -1030,3 +1030,105 @@ def typed_block(frame: pd.DataFrame, conversions) -> pd.DataFrame:
                 np.float64 if series.isna().any() else np.int64)
         frame[column] = series
     return frame
+
+
+def type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
+                  fmt: str, as_text: set[str] = frozenset(),
+                  ) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
+    """Each column's description and its conversion for :func:`typed_block`, from the facts
+    merged over every block; ``as_text`` columns are text as asked. Warnings go to
+    ``warnings`` in the order the in-memory reader gives them."""
+    infos: list[ColumnInfo] = []
+    how: list[tuple[str, str]] = []
+    id_taken = False
+    merged: list[str] = []   # said before the columns' own warnings, as in memory
+    start = len(warnings)
+    for column in header:
+        f = facts[column]
+        marked = None
+        if column in as_text:
+            dtype, note, convert = ("text", "", "text") if f["kind"] else ("empty", "", "")
+            missing, distinct = f["missing"], distinct_of(f, dtype)
+        elif f["kind"] == "text" and text_reading(f) in ("marked", "rational"):
+            facts[column], marked = marked_column(name, column, f)
+            dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
+            missing, distinct = marked.missing, marked.distinct
+        else:
+            dtype, note, convert = column_type(f, fmt)
+            missing, distinct = f["missing"], distinct_of(f, dtype)
+            if f["kind"] == "text" and text_reading(f) == "array":
+                # JSON-array text: arrays, every cell checked by analysis.table's reader
+                dtype, note, convert, distinct = "array", "", "array_text", -1
+            elif dtype == "text" and _merge_labels(name, column, f, n, merged):
+                convert, distinct = "strip", len(f["counts"])
+        if convert and f.get("decimal"):
+            convert = "decimal+" + convert
+        if convert:
+            how.append((column, convert))
+        role = detect_role(column, dtype, distinct, missing, n, id_taken)
+        if role == "id":
+            id_taken = True
+        labels = list(f["counts"]) if role == "category" and dtype == "text" \
+            and f.get("counts") is not None else None
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
+        info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
+        infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
+    warnings[start:start] = merged
+    return infos, how
+
+
+def _merge_labels(name: str, column: str, f: dict, n: int, merged: list[str]) -> bool:
+    """Labels differing only by surrounding spaces made one, when analysis.table's rule
+    says so: the column's counts are merged and the warning goes to ``merged``."""
+    counts = f.get("counts")
+    if counts is None:
+        return False
+    stripped: dict[str, tuple[int, int]] = {}
+    for label, (count, first) in counts.items():
+        key = label.strip()
+        had = stripped.get(key, (0, first))
+        stripped[key] = (had[0] + count, min(had[1], first))
+    padded = sum(count for label, (count, _) in counts.items() if label != label.strip())
+    warning = label_merge_warning(name, column, padded=padded, written=len(counts),
+                                  labels=len(stripped), missing=f["missing"], rows=n)
+    if warning is None:
+        return False
+    merged.append(warning)
+    f["counts"] = stripped
+    return True
+
+
+def array_text_facts(frame: pd.DataFrame, columns, name: str, first_row: int) -> dict:
+    """The list facts of JSON-array text ``columns`` of one block, every cell checked by the
+    in-memory reader (``first_row``: the block's first row in the whole table)."""
+    from analysis.table import array_cells  # see array_facts
+
+    out = {}
+    for column in columns:
+        cells = [v for v in array_cells(frame[column], name, column,
+                                        first_row=first_row).tolist() if v is not None]
+        out[column] = {"n": len(frame), "missing": len(frame) - len(cells), "kind": "list",
+                       **array_facts(cells, column)}
+    return out
+
+
+def bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int,
+                      marked: dict) -> dict:
+    """The distinct values of ``columns`` in one block, split into ``buckets`` by hash, so
+    that buckets can be counted apart; ``marked`` maps a marked column to its dtype."""
+    out = {}
+    for column in columns:
+        series = frame[column].dropna()
+        if column in marked:
+            series = marked_values(series, marked[column]).dropna()
+            if marked[column] not in ("integer", "real"):
+                series = series.map(str)   # exact values hash alike by their text
+        elif column in csv_columns:
+            numbers = pd.to_numeric(series, errors="coerce")
+            if not numbers.isna().any():
+                series = numbers
+        values = pd.unique(series.to_numpy())
+        hashed = pd.util.hash_array(np.asarray(values, dtype=object)
+                                    if values.dtype == object else values) % buckets
+        out[column] = [values[hashed == b] for b in range(buckets)]
+    return out

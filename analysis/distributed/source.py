@@ -27,19 +27,15 @@ import pandas as pd
 
 from analysis.column_facts import (
     MISSING_WORDS,
-    array_facts,
-    column_type,
-    column_warnings,
-    detect_role,
+    array_text_facts,
+    bucketed_uniques,
     distinct_of,
     frame_facts,
-    label_merge_warning,
     marked_column,
     marked_type,
-    marked_values,
     merge_facts,
     reads_marked,
-    text_reading,
+    type_columns,
     typed_block,
 )
 from analysis.distributed.reduction import tree
@@ -47,7 +43,6 @@ from analysis.errors import StepError, TableError
 from analysis.table import (
     ColumnInfo,
     Table,
-    array_cells,
     check_column_names,
     delimiter_warning,
     header_record,
@@ -215,7 +210,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
              and facts.get(c, {}).get("kind") != "list"]
     _facts_again(client, frame, facts, asked, "as_text", name)
     _exact_distinct(client, frame, facts, conversions)
-    infos, how = _type_columns(name, header, facts, n, warnings, fmt, set(asked))
+    infos, how = type_columns(name, header, facts, n, warnings, fmt, set(asked))
     _array_text_shapes(client, frame, facts, how, name, partition_rows)
     texts = {c for c, h in how if h == "array_text"}
     infos = [replace(i, distinct=distinct_of(facts[i.name], i.dtype)) if i.name in texts
@@ -370,7 +365,7 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
     # marked numbers count their plain numbers, typed as they will be
     marked = {c: marked_type(facts[c]["marked"]) for c in over if reads_marked(facts[c])}
     buckets = max(1, min(32, frame.npartitions))
-    pieces = [delayed(_bucketed_uniques)(part, over, csv_columns, buckets, marked)
+    pieces = [delayed(bucketed_uniques)(part, over, csv_columns, buckets, marked)
               for part in frame[over].to_delayed()]
     totals = []
     for column in over:
@@ -382,26 +377,6 @@ def _exact_distinct(client, frame, facts: dict, conversions) -> None:
     for column in over:
         facts[column]["distinct"] = int(sum(counts[k:k + buckets]))
         k += buckets
-
-
-def _bucketed_uniques(frame: pd.DataFrame, columns, csv_columns, buckets: int,
-                      marked: dict) -> dict:
-    out = {}
-    for column in columns:
-        series = frame[column].dropna()
-        if column in marked:
-            series = marked_values(series, marked[column]).dropna()
-            if marked[column] not in ("integer", "real"):
-                series = series.map(str)   # exact values hash alike by their text
-        elif column in csv_columns:
-            numbers = pd.to_numeric(series, errors="coerce")
-            if not numbers.isna().any():
-                series = numbers
-        values = pd.unique(series.to_numpy())
-        hashed = pd.util.hash_array(np.asarray(values, dtype=object)
-                                    if values.dtype == object else values) % buckets
-        out[column] = [values[hashed == b] for b in range(buckets)]
-    return out
 
 
 def _pick(piece: dict, column: str, bucket: int):
@@ -425,7 +400,7 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
     if not columns:
         return
     offsets = np.concatenate([[0], np.cumsum(partition_rows)[:-1]]).astype(int)
-    pieces = [delayed(_shapes_of_texts)(part, columns, name, int(offsets[k]))
+    pieces = [delayed(array_text_facts)(part, columns, name, int(offsets[k]))
               for k, part in enumerate(frame[columns].to_delayed())]
     found = client.gather(client.compute(pieces))
     for column in columns:
@@ -434,82 +409,8 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
         facts[column].update(n=f["n"], missing=f["missing"])
 
 
-def _shapes_of_texts(frame: pd.DataFrame, columns, name: str, first_row: int) -> dict:
-    out = {}
-    for column in columns:
-        cells = [v for v in array_cells(frame[column], name, column,
-                                        first_row=first_row).tolist() if v is not None]
-        out[column] = {"n": len(frame), "missing": len(frame) - len(cells), "kind": "list",
-                       **array_facts(cells, column)}
-    return out
-
-
 # ----------------------------------------------------------------------------------------
 # Typing: the same dtypes and roles as analysis.table gives the same data in memory
-
-
-def _type_columns(name: str, header: list[str], facts: dict, n: int, warnings: list[str],
-                  fmt: str, as_text: set[str] = frozenset(),
-                  ) -> tuple[list[ColumnInfo], list[tuple[str, str]]]:
-    """Each column's description and conversion; ``as_text`` columns are text as asked."""
-    infos: list[ColumnInfo] = []
-    how: list[tuple[str, str]] = []
-    id_taken = False
-    merged: list[str] = []   # said before the columns' own warnings, as in memory
-    start = len(warnings)
-    for column in header:
-        f = facts[column]
-        marked = None
-        if column in as_text:
-            dtype, note, convert = ("text", "", "text") if f["kind"] else ("empty", "", "")
-            missing, distinct = f["missing"], distinct_of(f, dtype)
-        elif f["kind"] == "text" and text_reading(f) in ("marked", "rational"):
-            facts[column], marked = marked_column(name, column, f)
-            dtype, note, convert = marked.dtype, marked.note, "marked:" + marked.dtype
-            missing, distinct = marked.missing, marked.distinct
-        else:
-            dtype, note, convert = column_type(f, fmt)
-            missing, distinct = f["missing"], distinct_of(f, dtype)
-            if f["kind"] == "text" and text_reading(f) == "array":
-                # JSON-array text: arrays, every cell checked by analysis.table's reader
-                dtype, note, convert, distinct = "array", "", "array_text", -1
-            elif dtype == "text" and _merge_labels(name, column, f, n, merged):
-                convert, distinct = "strip", len(f["counts"])
-        if convert and f.get("decimal"):
-            convert = "decimal+" + convert
-        if convert:
-            how.append((column, convert))
-        role = detect_role(column, dtype, distinct, missing, n, id_taken)
-        if role == "id":
-            id_taken = True
-        labels = list(f["counts"]) if role == "category" and dtype == "text" \
-            and f.get("counts") is not None else None
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
-        info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
-        infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
-    warnings[start:start] = merged
-    return infos, how
-
-
-def _merge_labels(name: str, column: str, f: dict, n: int, merged: list[str]) -> bool:
-    """Labels differing only by surrounding spaces made one, when analysis.table's rule
-    says so: the column's counts are merged and the warning goes to ``merged``."""
-    counts = f.get("counts")
-    if counts is None:
-        return False
-    stripped: dict[str, tuple[int, int]] = {}
-    for label, (count, first) in counts.items():
-        key = label.strip()
-        had = stripped.get(key, (0, first))
-        stripped[key] = (had[0] + count, min(had[1], first))
-    padded = sum(count for label, (count, _) in counts.items() if label != label.strip())
-    warning = label_merge_warning(name, column, padded=padded, written=len(counts),
-                                  labels=len(stripped), missing=f["missing"], rows=n)
-    if warning is None:
-        return False
-    merged.append(warning)
-    f["counts"] = stripped
-    return True
 
 
 # ----------------------------------------------------------------------------------------
