@@ -13,13 +13,13 @@ so; a column given the role text or category is kept as text without being parse
 
 Tables from public databases write an open value as an interval ``[1,2]`` and put a word
 where an invariant does not apply (``infty``, ``D.N.E.``). A column of numbers with a few such
-cells is still an invariant: see :class:`MarkerRule` for when (one rule, :data:`MARKER_RULE`
-and :func:`reads_as_marked_numbers`, shared with the partitioned reader), :meth:`Table.intervals`
+cells is still an invariant: see :class:`analysis.column_facts.MarkerRule` for when (the
+typing rule of both readers lives in :mod:`analysis.column_facts`), :meth:`Table.intervals`
 for the intervals, and ``ColumnInfo.intervals`` and ``ColumnInfo.markers`` for the counts. A
 cell of JSON-array text is an array unless its column also holds plain numbers: a column whose
 every filled cell is a two-element list stays an array column, while plain numbers mixed with
 two-element brackets are numbers and intervals. Flags are 0/1 and the words of
-:data:`TRUE_WORDS` and :data:`FALSE_WORDS` in any case (see :func:`reads_as_flag`). Category
+``TRUE_WORDS`` and ``FALSE_WORDS`` in any case (see ``column_facts.reads_as_flag``). Category
 labels are read without surrounding spaces, with a warning.
 
 ``ColumnInfo.missing`` counts every cell with no single value in the typed frame: empty

@@ -7,9 +7,9 @@ column gets the dtype and role that :func:`analysis.table.load_table` would give
 data in memory. Each later pass turns a raw partition into typed values with the same dtypes
 as ``Table.frame`` has in memory, so every step sees the same numbers either way.
 
-Numbers with intervals and marker words among them (marked numbers), JSON-array text and
-labels with stray spaces are read by :mod:`analysis.table`'s own public rules, asked with the
-counts merged over the partitions.
+The facts, their merge and the typing decided from them are :mod:`analysis.column_facts`,
+the one rule the in-memory reader follows too (it reads one block); the file-level rules
+(delimiter, header names, unnamed columns) are :mod:`analysis.table`'s public ones.
 
 Rows are numbered across partitions in file order: a row's id is its id-column value, else its
 0-based position in the whole table, exactly as in memory.
