@@ -718,7 +718,7 @@ def test_the_marker_rule_thresholds(cells, marked_reading):
 
 
 def test_the_rule_function_is_the_one_the_loader_follows():
-    from analysis.table import MARKER_RULE, reads_as_marked_numbers
+    from analysis.column_facts import MARKER_RULE, reads_as_marked_numbers
 
     assert (MARKER_RULE.max_words, MARKER_RULE.max_share) == (5, Fraction(1, 3))
     assert reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 1}, distinct_numbers=2)
@@ -816,7 +816,7 @@ def test_true_false_words_in_two_spellings_are_a_category_with_a_warning_until_m
 
 
 def test_the_flag_words_are_one_public_set():
-    from analysis.table import FALSE_WORDS, TRUE_WORDS, reads_as_flag
+    from analysis.column_facts import FALSE_WORDS, TRUE_WORDS, reads_as_flag
 
     assert {"y", "t", "yes", "true"} == TRUE_WORDS and {"n", "f", "no", "false"} == FALSE_WORDS
     assert reads_as_flag({"Y", "n"}) and not reads_as_flag({"yes", "y"})
