@@ -1169,7 +1169,8 @@ def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
     for p, q in zip(hull, hull[1:] + hull[:1]):
         dx, dy = q[0] - p[0], q[1] - p[1]
         # Clear denominators (rational columns) before making the normal primitive.
-        scale = math.lcm(Fraction(dx).denominator, Fraction(dy).denominator)
+        scale = 1 if type(dx) is int and type(dy) is int else math.lcm(
+            Fraction(dx).denominator, Fraction(dy).denominator)
         a, b = int(dy * scale), int(-dx * scale)
         g = math.gcd(a, b)
         a, b = a // g, b // g
@@ -1346,12 +1347,17 @@ def _ranked_points(columns: list[_BoundColumn], rows) -> _Points | None:
     return _Points(coords[::-1], counts, rows, inverse=inverse.ravel())
 
 
-def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Of points sorted by (x, y): the least and greatest y at each x, the only points that
-    can be corners of the hull."""
+def _extreme_positions(x: np.ndarray) -> np.ndarray:
+    """Of points sorted by (x, y): where the least and greatest y at each x sit, the only
+    points that can be corners of the hull."""
     starts = np.flatnonzero(np.r_[True, x[1:] != x[:-1]])
     ends = np.r_[starts[1:], len(x)] - 1
-    picked = np.unique(np.r_[starts, ends])
+    return np.unique(np.r_[starts, ends])
+
+
+def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Of points sorted by (x, y): the least and greatest y at each x."""
+    picked = _extreme_positions(x)
     return np.column_stack([x[picked], y[picked]])
 
 
@@ -1613,6 +1619,71 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
     return found
 
 
+class _PeeledHull:
+    """The hull of the candidate points while corners are peeled off one at a time.
+
+    The candidates start as the least and greatest point of every column of points (the
+    only ones that can be corners). Taking a corner ``v`` away, with ``p`` and ``n`` its
+    neighbours on the hull, leaves every other candidate either inside the hull of the other
+    corners or inside the triangle (p, v, n); so the new hull is the hull of the other
+    corners and the candidates in that triangle: the same hull as from all candidates, at
+    the cost of a few points.
+    """
+
+    def __init__(self, x, y, start_positions, hull) -> None:
+        self.x, self.y = x, y
+        self.alive = np.ones(len(x), dtype=bool)
+        self.member = np.zeros(len(x), dtype=bool)
+        self.member[start_positions] = True
+        self.positions = start_positions
+        self.hull = hull
+
+    def _present(self) -> np.ndarray:
+        kept = self.positions[self.member[self.positions]]
+        self.positions = kept
+        return kept
+
+    def peel(self, corner, where: int, start: int, stop: int) -> list[tuple]:
+        """Take the candidate ``corner`` (at ``where`` among the points, its column of points
+        from ``start`` to ``stop``) away and return the hull of those left."""
+        self.alive[where] = False
+        self.member[where] = False
+        # The corner's column may hold other points: its new least and greatest join.
+        left = np.flatnonzero(self.alive[start:stop]) + start
+        if len(left):
+            added = [p for p in dict.fromkeys((int(left[0]), int(left[-1])))
+                     if not self.member[p]]
+            self.member[added] = True
+            self.positions = np.r_[self.positions, np.array(added, dtype=np.int64)]
+        hull = self.hull
+        i = hull.index(corner)
+        (px, py), (vx, vy), (nx, ny) = hull[i - 1], corner, hull[(i + 1) % len(hull)]
+        present = self._present()
+        qx, qy = self.x[present], self.y[present]
+        inside = (((vx - px) * (qy - py) - (vy - py) * (qx - px)) >= 0) & (
+            ((nx - vx) * (qy - vy) - (ny - vy) * (qx - vx)) >= 0) & (
+            ((px - nx) * (qy - ny) - (py - ny) * (qx - nx)) >= 0)
+        picked = present[inside]
+        self.hull = hull_2d(hull[:i] + hull[i + 1:]
+                            + list(zip(self.x[picked].tolist(), self.y[picked].tolist())))
+        return self.hull
+
+    def on_line(self, a, b, c) -> int:
+        """How many candidates lie on the line a*x + b*y = c."""
+        present = self._present()
+        c = int(c) if Fraction(c).denominator == 1 else c
+        return int(np.count_nonzero(a * self.x[present] + b * self.y[present] == c))
+
+
+def _overflow_safe(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The coordinates as int64 when every turn test and edge sum on them fits in 64 bits
+    (all values below 2**30 in size), else as Python numbers."""
+    if x.dtype != object and y.dtype != object and len(x) and max(
+            abs(int(x.min())), abs(int(x.max())), abs(int(y.min())), abs(int(y.max()))) < 2**30:
+        return x.astype(np.int64, copy=False), y.astype(np.int64, copy=False)
+    return x.astype(object), y.astype(object)
+
+
 def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_coefficient,
                    breakers, integer):
     """Bounds that all but a few rows obey: peel off thinly populated hull corners.
@@ -1624,11 +1695,15 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     breaking rows as its violations.
     """
     x, y = points.coords
+    located: dict = {}
 
     def locate(vertex) -> tuple[int, int, int]:
-        start = int(np.searchsorted(x, vertex[0], side="left"))
-        stop = int(np.searchsorted(x, vertex[0], side="right"))
-        return start + int(np.searchsorted(y[start:stop], vertex[1])), start, stop
+        if vertex not in located:
+            start = int(np.searchsorted(x, vertex[0], side="left"))
+            stop = int(np.searchsorted(x, vertex[0], side="right"))
+            where = start + int(np.searchsorted(y[start:stop], vertex[1]))
+            located[vertex] = where, start, stop
+        return located[vertex]
 
     def weight(vertex) -> int:
         return int(points.weights[locate(vertex)[0]])
@@ -1636,36 +1711,29 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     light = sorted((weight(v), v) for v in hull if weight(v) <= breakers)
     if not light:
         return []
-    extremes = {tuple(p) for p in _extremes(x, y).tolist()}
+    extremes = _extreme_positions(x)
+    safe_x, safe_y = _overflow_safe(x, y)
     known = {(a, b, c) for a, b, c in edges}
     original = set(hull)
     found = []
     hulls_left = 40  # keeps a table with a long, ragged hull cheap
     for first_weight, first in light:
-        alive = np.ones(len(points), dtype=bool)
-        candidates = set(extremes)
+        peeled = _PeeledHull(safe_x, safe_y, extremes, hull)
         corner, used = first, first_weight
         for _step in range(5):
-            where, start, stop = locate(corner)
-            alive[where] = False
-            candidates.discard(corner)
-            # The corner's column may hold other points: its new least and greatest join.
-            left = np.flatnonzero(alive[start:stop]) + start
-            if len(left):
-                candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
-                candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
-            current = hull_2d(candidates)
+            current = peeled.peel(corner, *locate(corner))
             hulls_left -= 1
             if len(current) < 3:
                 break
             for a, b, c in _edges(current):
+                if (a, b, c) in known or a == 0 or b == 0:
+                    continue
                 shown, constant = _in_table_units((a, b), c, scales)
-                if (a, b, c) in known or a == 0 or b == 0 or (
-                        max(map(abs, shown)) > max_coefficient):
+                if max(map(abs, shown)) > max_coefficient:
                     continue
                 known.add((a, b, c))
-                on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
-                if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
+                if peeled.on_line(a, b, c) < 3 or _implied(dict(zip(names, shown)), constant,
+                                                           facts):
                     continue
                 bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
                 # Many more rows reaching it than breaking it, or it is just a ragged edge.
