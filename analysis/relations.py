@@ -1412,11 +1412,118 @@ def _oriented(terms: list[tuple[str, int]], constant) -> tuple[list, str, Fracti
     return [(n, Fraction(-c)) for n, c in terms], ">=", Fraction(-constant)
 
 
+# Past this many vertices of the dual programme, an implication is left to HiGHS alone.
+MAX_DUAL_VERTICES = 2000
+
+
+class _EdgeFacts:
+    """Known bounds in two columns (hull edges of pairs), kept in the order found and looked
+    up by their pair of columns, so that those within a few columns are found at once."""
+
+    def __init__(self, edges: list[tuple[dict, Fraction]]) -> None:
+        self.edges = edges
+        self.by_pair: dict = {}
+        for position, (terms, _) in enumerate(edges):
+            self.by_pair.setdefault(frozenset(terms), []).append(position)
+
+    def __len__(self) -> int:
+        return len(self.edges)
+
+    def within(self, allowed: set) -> list[tuple[dict, Fraction]]:
+        """The edges whose columns all lie in ``allowed``, in the order found."""
+        positions = [p for key, found in self.by_pair.items() if key <= allowed for p in found]
+        return [self.edges[p] for p in sorted(positions)]
+
+
+def _solve(matrix: list[list[Fraction]], rhs: list[Fraction]) -> list[Fraction] | None:
+    """The exact solution of a small square system, or None when it is singular."""
+    size = len(rhs)
+    rows = [list(row) + [value] for row, value in zip(matrix, rhs)]
+    for col in range(size):
+        pivot = next((r for r in range(col, size) if rows[r][col]), None)
+        if pivot is None:
+            return None
+        rows[col], rows[pivot] = rows[pivot], rows[col]
+        for r in range(size):
+            if r != col and rows[r][col]:
+                factor = rows[r][col] / rows[col][col]
+                rows[r] = [a - factor * b for a, b in zip(rows[r], rows[col])]
+    return [rows[r][size] / rows[r][r] for r in range(size)]
+
+
+def _dual_vertex(objective, matrix, rhs, low, high) -> np.ndarray | None:
+    """Columns of the vertex of the dual programme where its value is least, found in
+    floating point: the dual of max objective.x over the box [low, high] cut by matrix.x =
+    rhs is min over y of y.rhs + sum_j max(low_j s_j, high_j s_j), s = objective - y.matrix,
+    a convex piecewise linear function least at a point where s_j = 0 for k columns j."""
+    k, n = len(matrix), len(objective)
+    if math.comb(n, k) > MAX_DUAL_VERTICES:
+        return None
+    equations = np.array(matrix, dtype=np.float64)
+    target = np.array(objective, dtype=np.float64)
+    subsets = np.array(list(combinations(range(n), k)), dtype=np.int64)
+    blocks = equations[:, subsets].transpose(1, 2, 0)
+    size = np.prod(np.linalg.norm(blocks, axis=2), axis=1)
+    regular = np.abs(np.linalg.det(blocks)) > 1e-9 * size
+    if not regular.any():
+        return None
+    subsets, blocks = subsets[regular], blocks[regular]
+    duals = np.linalg.solve(blocks, target[subsets][..., None])[..., 0]
+    slack = target - duals @ equations
+    lows = np.array(low, dtype=np.float64)
+    highs = np.array(high, dtype=np.float64)
+    values = duals @ np.array(rhs, dtype=np.float64) + np.maximum(slack * lows,
+                                                                   slack * highs).sum(axis=1)
+    return subsets[int(np.argmin(values))]
+
+
+def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) -> bool | None:
+    """Whether ``sum coefs <= constant`` follows from the ranges and the equalities, decided
+    in exact arithmetic when the answer is clear of the linear programme's tolerance; None
+    leaves it to the programme.
+
+    At a vertex of the dual (see :func:`_dual_vertex`) the dual's value bounds the largest
+    value of the left side from above; the point of the box that the vertex names (each
+    other column at the end its slack points to, the vertex's own columns solved from the
+    equalities) reaches that value when it lies in the box, which proves it the largest.
+    """
+    objective = [Fraction(coefs.get(name, 0)) for name in names]
+    matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
+    rhs = [Fraction(c) for _, c in equalities]
+    low = [Fraction(ranges[name][0]) for name in names]
+    high = [Fraction(ranges[name][1]) for name in names]
+    vertex = _dual_vertex(objective, matrix, rhs, low, high)
+    if vertex is None:
+        return None
+    vertex = vertex.tolist()
+    dual = _solve([[row[j] for row in matrix] for j in vertex], [objective[j] for j in vertex])
+    if dual is None:
+        return None
+    slack = [c - sum(y * row[j] for y, row in zip(dual, matrix))
+             for j, c in enumerate(objective)]
+    upper = sum(y * r for y, r in zip(dual, rhs)) + sum(
+        max(s * lo, s * hi) for s, lo, hi in zip(slack, low, high))
+    limit = Fraction(constant)
+    if upper <= limit:
+        return True
+    point = [hi if s > 0 else lo for s, lo, hi in zip(slack, low, high)]
+    others = [j for j in range(len(names)) if j not in vertex]
+    solved = _solve([[row[j] for j in vertex] for row in matrix],
+                    [r - sum(row[j] * point[j] for j in others) for row, r in zip(matrix, rhs)])
+    if solved is None or not all(low[j] <= v <= high[j] for j, v in zip(vertex, solved)):
+        return None
+    # the point lies in the box and meets the equalities: ``upper`` is the largest value
+    if upper > limit + Fraction(2, 10**7) * (1 + abs(limit)):
+        return False
+    return None
+
+
 def _implied(coefs: dict, constant: Fraction, facts) -> bool:
     """Whether ``sum coefs <= constant`` follows from the ranges, relations and given bounds.
 
     A linear programme: the largest value of the left side over the region the known facts
     cut out. The bound adds nothing when that largest value does not exceed its constant.
+    Without given bounds the programme's answer is first sought exactly through its dual.
     """
     ranges, equalities, inequalities = facts
     names = set(coefs)
@@ -1432,6 +1539,14 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
         return False
     if any(abs(v) > 1e12 for name in names for v in ranges[name]):
         return False  # too large for a floating point programme to judge reliably
+    # the facts in these columns only (a set built once: the bounds found so far grow long)
+    allowed = set(names)
+    within = [(eq, c) for eq, c in equalities if eq.keys() <= allowed]
+    given = inequalities.within(allowed) if inequalities else []
+    if not given:
+        verdict = _equality_verdict(coefs, constant, names, within, ranges)
+        if verdict is not None:
+            return verdict
     from scipy.optimize import linprog
 
     index = {name: i for i, name in enumerate(names)}
@@ -1442,10 +1557,8 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
             vector[index[name]] = float(coef)
         return vector
 
-    # the facts in these columns only (a set built once: the bounds found so far grow long)
-    allowed = set(names)
-    eqs = [(row(eq), float(c)) for eq, c in equalities if eq.keys() <= allowed]
-    ineqs = [(row(iq), float(c)) for iq, c in inequalities if iq.keys() <= allowed]
+    eqs = [(row(eq), float(c)) for eq, c in within]
+    ineqs = [(row(iq), float(c)) for iq, c in given]
     result = linprog(
         -row(coefs),
         A_ub=np.array([r for r, _ in ineqs]) if ineqs else None,
@@ -1907,7 +2020,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 f"of {len(eligible)} integer columns"
             )
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
-        triple_facts = (ranges, equalities, pair_edges)
+        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges))
         skipped = 0
         triples_of = list(combinations(eligible, 3))
         progress.phase("bounds in triples of columns", total=len(triples_of))
