@@ -1477,6 +1477,32 @@ def _dual_vertex(objective, matrix, rhs, low, high) -> np.ndarray | None:
     return subsets[int(np.argmin(values))]
 
 
+def _reaches(matrix, rhs, slack, low, high, vertex: list[int]) -> bool:
+    """Whether some point of the box meets the equalities with every column of nonzero slack
+    at the end its slack points to (so that the left side takes the dual's value there).
+
+    Columns of zero slack may take any value in their range. When each of them appears in
+    one equality at most, the equalities are met exactly when each one's remainder lies in
+    the range its free columns can reach; otherwise the free columns other than the vertex's
+    are set to their lower ends and the vertex's solved for.
+    """
+    free = [j for j, s in enumerate(slack) if s == 0]
+    point = [hi if s > 0 else lo for s, lo, hi in zip(slack, low, high)]
+    fixed = [j for j, s in enumerate(slack) if s != 0]
+    remainders = [r - sum(row[j] * point[j] for j in fixed) for row, r in zip(matrix, rhs)]
+    if all(sum(1 for row in matrix if row[j]) <= 1 for j in free):
+        for row, remainder in zip(matrix, remainders):
+            terms = [(row[j] * low[j], row[j] * high[j]) for j in free if row[j]]
+            if not sum(min(t) for t in terms) <= remainder <= sum(max(t) for t in terms):
+                return False
+        return True
+    rest = [j for j in free if j not in vertex]
+    solved = _solve([[row[j] for j in vertex] for row in matrix],
+                    [r - sum(row[j] * low[j] for j in rest)
+                     for row, r in zip(matrix, remainders)])
+    return solved is not None and all(low[j] <= v <= high[j] for j, v in zip(vertex, solved))
+
+
 def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) -> bool | None:
     """Whether ``sum coefs <= constant`` follows from the ranges and the equalities, decided
     in exact arithmetic when the answer is clear of the linear programme's tolerance; None
@@ -1506,11 +1532,7 @@ def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) ->
     limit = Fraction(constant)
     if upper <= limit:
         return True
-    point = [hi if s > 0 else lo for s, lo, hi in zip(slack, low, high)]
-    others = [j for j in range(len(names)) if j not in vertex]
-    solved = _solve([[row[j] for j in vertex] for row in matrix],
-                    [r - sum(row[j] * point[j] for j in others) for row, r in zip(matrix, rhs)])
-    if solved is None or not all(low[j] <= v <= high[j] for j, v in zip(vertex, solved)):
+    if not _reaches(matrix, rhs, slack, low, high, vertex):
         return None
     # the point lies in the box and meets the equalities: ``upper`` is the largest value
     if upper > limit + Fraction(2, 10**7) * (1 + abs(limit)):
