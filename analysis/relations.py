@@ -1414,6 +1414,9 @@ def _oriented(terms: list[tuple[str, int]], constant) -> tuple[list, str, Fracti
 
 # Past this many vertices of the dual programme, an implication is left to HiGHS alone.
 MAX_DUAL_VERTICES = 2000
+# A bound is found not to follow without HiGHS only when some point of the region lies beyond
+# it by this much (relative), ten times the tolerance HiGHS's answer is judged with.
+_CLEAR = Fraction(1, 10**6)
 
 
 class _EdgeFacts:
@@ -1535,17 +1538,81 @@ def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) ->
     if not _reaches(matrix, rhs, slack, low, high, vertex):
         return None
     # the point lies in the box and meets the equalities: ``upper`` is the largest value
-    if upper > limit + Fraction(2, 10**7) * (1 + abs(limit)):
+    if upper > limit + _CLEAR * (1 + abs(limit)):
         return False
     return None
 
 
-def _implied(coefs: dict, constant: Fraction, facts) -> bool:
+def _centroid(columns: Mapping, rows: np.ndarray, names) -> dict | None:
+    """The mean of the given rows in the named columns, exact (None without rows)."""
+    if not len(rows):
+        return None
+    mean = {}
+    for name in names:
+        values = columns[name][0][rows]
+        if values.dtype != object and len(values) * max(
+                abs(int(values.min())), abs(int(values.max()))) < _INT64_SAFE:
+            total = int(values.sum())
+        else:
+            total = sum(values.tolist())
+        mean[name] = Fraction(total) / len(rows)
+    return mean
+
+
+def _integral(vector: list[Fraction]) -> tuple[list[int], int]:
+    """``vector`` times the least common multiple of its denominators, and that multiple."""
+    scale = math.lcm(*(Fraction(v).denominator for v in vector))
+    return [int(v * scale) for v in vector], scale
+
+
+def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges,
+            start: dict | None) -> bool:
+    """Whether the region holds a point clearly beyond ``sum coefs <= constant``: from
+    ``start``, a point of the region on the bound, along the bound's normal (projected so as
+    to keep the equalities) as far as the ranges and the given bounds allow."""
+    if start is None:
+        return False
+    normal = [Fraction(coefs.get(name, 0)) for name in names]
+    matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
+    direction = normal
+    if matrix:
+        gram = [[sum(a * b for a, b in zip(r, s)) for s in matrix] for r in matrix]
+        weights = _solve(gram, [sum(a * b for a, b in zip(r, normal)) for r in matrix])
+        if weights is None:
+            return False
+        direction = [c - sum(w * row[j] for w, row in zip(weights, matrix))
+                     for j, c in enumerate(normal)]
+    if all(d == 0 for d in direction):
+        return False
+    step, _ = _integral(direction)
+    point, denominator = _integral([start[name] for name in names])
+    index = {name: j for j, name in enumerate(names)}
+    limits = []   # (room along the direction, in units of the step) for each binding fact
+    for j, name in enumerate(names):
+        low, high = ranges[name]
+        if step[j]:
+            end = high if step[j] > 0 else low
+            limits.append((Fraction(end) * denominator - point[j], denominator * step[j]))
+    for terms, bound in inequalities:
+        rise = sum(int(c) * step[index[n]] for n, c in terms.items())
+        if rise > 0:
+            used = sum(int(c) * point[index[n]] for n, c in terms.items())
+            limits.append((Fraction(bound) * denominator - used, denominator * rise))
+    room = min((Fraction(top) / bottom for top, bottom in limits), default=None)
+    if room is None or room <= 0:
+        return False
+    gain = room * sum(c * s for c, s in zip(normal, step))
+    return gain > _CLEAR * (1 + abs(Fraction(constant)))
+
+
+def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     """Whether ``sum coefs <= constant`` follows from the ranges, relations and given bounds.
 
     A linear programme: the largest value of the left side over the region the known facts
     cut out. The bound adds nothing when that largest value does not exceed its constant.
-    Without given bounds the programme's answer is first sought exactly through its dual.
+    Without given bounds the programme's answer is first sought exactly through its dual;
+    with them, ``start`` (a callable naming a point of the region on the bound, given the
+    programme's columns) lets a point clearly beyond the bound answer first.
     """
     ranges, equalities, inequalities = facts
     names = set(coefs)
@@ -1569,6 +1636,9 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
         verdict = _equality_verdict(coefs, constant, names, within, ranges)
         if verdict is not None:
             return verdict
+    elif start is not None and _beyond(coefs, constant, names, within, given, ranges,
+                                       start(names)):
+        return False
     from scipy.optimize import linprog
 
     index = {name: i for i, name in enumerate(names)}
@@ -1887,7 +1957,8 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     return found
 
 
-def _triple_bounds(columns, row_ids, facts, *, max_coefficient) -> list[Bound] | None:
+def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
+                  table_columns) -> list[Bound] | None:
     from scipy.spatial import ConvexHull, QhullError
 
     names = [c.name for c in columns]
@@ -1929,9 +2000,12 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient) -> list[Bound] |
         shown, shown_constant = _in_table_units(normal, constant, scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
-        if (_combine(normal, points.coords) > constant).any():
+        combined = _combine(normal, points.coords)
+        if (combined > constant).any():
             continue  # a floating point facet that is not exact
-        if _implied(dict(zip(names, shown)), shown_constant, facts):
+        on_face = points.rows_at(combined == constant)
+        if _implied(dict(zip(names, shown)), shown_constant, facts,
+                    start=lambda wanted, rows=on_face: _centroid(table_columns, rows, wanted)):
             continue
         found.append(_make_bound(names, tuple(normal), constant, points, row_ids, integer,
                                  scales))
@@ -2055,7 +2129,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 skipped += 1
                 continue
             triple = _triple_bounds(chosen, row_ids, triple_facts,
-                                    max_coefficient=max_coefficient)
+                                    max_coefficient=max_coefficient, table_columns=columns)
             if triple is None:
                 skipped += 1
             else:
