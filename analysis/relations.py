@@ -1162,7 +1162,8 @@ def hull_2d(points) -> list[tuple]:
 
 
 def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
-    """Each hull edge as (a, b, c) with a*x + b*y <= c on the whole set, (a, b) primitive."""
+    """Each hull edge as (a, b, c) with a*x + b*y <= c on the whole set, (a, b) primitive
+    (c an int on integer points, else a Fraction)."""
     if len(hull) < 3:
         return []
     edges = []
@@ -1174,7 +1175,8 @@ def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
         a, b = int(dy * scale), int(-dx * scale)
         g = math.gcd(a, b)
         a, b = a // g, b // g
-        edges.append((a, b, Fraction(a * p[0] + b * p[1])))
+        value = a * p[0] + b * p[1]
+        edges.append((a, b, value if type(value) is int else Fraction(value)))
     return edges
 
 
@@ -1779,6 +1781,18 @@ def _directions(largest: int) -> list[tuple[int, int]]:
     return found
 
 
+def _value_weights(values: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct integers among ``values``, increasing, and the weight on each: counted on
+    a grid when their range is narrow, else sorted."""
+    low, high = int(values.min()), int(values.max())
+    if high - low <= 4 * len(values):
+        per_value = np.bincount(values - low, weights=weights)
+        present = np.flatnonzero(per_value)  # every weight is at least 1
+        return present + low, per_value[present].astype(np.int64)
+    distinct, inverse = np.unique(values, return_inverse=True)
+    return distinct, np.bincount(inverse.ravel(), weights=weights).astype(np.int64)
+
+
 def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient, breakers,
                       integer):
     """Bounds in two integer columns that all but a few rows obey, along small directions.
@@ -1807,8 +1821,7 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
             cut = np.partition(combined, len(combined) - top)[len(combined) - top]
             kept = combined >= cut
             combined, weighed = combined[kept], weights[kept]
-        values, inverse = np.unique(combined, return_inverse=True)
-        per_value = np.bincount(inverse.ravel(), weights=weighed).astype(np.int64)
+        values, per_value = _value_weights(combined, weighed)
         beyond = np.cumsum(per_value[::-1])[::-1] - per_value   # rows above each value
         usable = (beyond > 0) & (beyond <= breakers) & (per_value >= 3 * beyond)
         if not usable.any():
