@@ -1589,19 +1589,29 @@ def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges
     step, _ = _integral(direction)
     point, denominator = _integral([start[name] for name in names])
     index = {name: j for j, name in enumerate(names)}
-    limits = []   # (room along the direction, in units of the step) for each binding fact
+    limits = []   # room along the direction (in steps) for each fact it runs into, as p/q
     for j, name in enumerate(names):
         low, high = ranges[name]
         if step[j]:
-            end = high if step[j] > 0 else low
-            limits.append((Fraction(end) * denominator - point[j], denominator * step[j]))
+            end = Fraction(high if step[j] > 0 else low)
+            limits.append((end.numerator * denominator - point[j] * end.denominator,
+                           end.denominator * denominator * step[j]))
     for terms, bound in inequalities:
         rise = sum(int(c) * step[index[n]] for n, c in terms.items())
         if rise > 0:
             used = sum(int(c) * point[index[n]] for n, c in terms.items())
-            limits.append((Fraction(bound) * denominator - used, denominator * rise))
-    room = min((Fraction(top) / bottom for top, bottom in limits), default=None)
-    if room is None or room <= 0:
+            bound = Fraction(bound)
+            limits.append((bound.numerator * denominator - used * bound.denominator,
+                           bound.denominator * denominator * rise))
+    if not limits:
+        return False
+    # the least room, exact: among the few that floating point puts near the least
+    rough = [top / bottom for top, bottom in limits]
+    least = min(rough)
+    cutoff = least + 1e-9 * (1 + abs(least))
+    room = min(Fraction(top, bottom) for (top, bottom), value in zip(limits, rough)
+               if value <= cutoff)
+    if room <= 0:
         return False
     gain = room * sum(c * s for c, s in zip(normal, step))
     return gain > _CLEAR * (1 + abs(Fraction(constant)))
