@@ -1816,19 +1816,32 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
     found = []
     largest = min(DIRECTION_COEFFICIENT, max_coefficient)
     weights = points.weights
+    x, y = points.coords
+    if x.dtype == object or y.dtype == object or not len(x):
+        return found
+    sizes = [max(abs(int(v.min())), abs(int(v.max()))) for v in (x, y)]
+    x, y = x.astype(np.int64, copy=False), y.astype(np.int64, copy=False)
+    top = breakers + 1
+    opposite = None   # (a, b, values, least cut) of the direction just before
     for a, b in _directions(largest):
         shown, _ = _in_table_units((a, b), 0, scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
-        combined = _combine((a, b), points.coords)
-        if combined.dtype == object:
-            continue
+        if abs(a) * sizes[0] + abs(b) * sizes[1] >= _INT64_SAFE:
+            continue  # the exact values would need Python integers
+        if opposite is not None and opposite[:2] == (-a, -b):
+            # the opposite direction's values, negated, and its cut from below
+            combined, cut = -opposite[2], -opposite[3]
+        else:
+            combined, cut = a * x + b * y, None
+            if len(combined) > 4 * top:
+                n = len(combined)
+                low_cut, cut = np.partition(combined, [top - 1, n - top])[[top - 1, n - top]]
+                opposite = (a, b, combined, low_cut)
         weighed = weights
-        top = breakers + 1
-        if len(combined) > 4 * top:
+        if cut is not None:
             # a constant has at most ``breakers`` rows beyond it, so it is one of the values
             # of the ``breakers + 1`` highest points: only those and their equals are counted
-            cut = np.partition(combined, len(combined) - top)[len(combined) - top]
             kept = combined >= cut
             combined, weighed = combined[kept], weights[kept]
         values, per_value = _value_weights(combined, weighed)
