@@ -1283,16 +1283,25 @@ def _distinct_points(columns: list[_BoundColumn]) -> _Points:
         key = picked(columns[0].codes)
         for column in columns[1:]:
             key = key * (column.high - column.low + 1) + picked(column.codes)
-        counts = np.bincount(key, minlength=cells)
-        point_keys = np.flatnonzero(counts)
+        inverse = None
+        if cells <= 8 * len(key):
+            counts = np.bincount(key, minlength=cells)
+            point_keys = np.flatnonzero(counts)
+            counts = counts[point_keys]
+        else:
+            # far more cells than rows: sorting the keys is cheaper than counting every cell
+            point_keys, inverse, counts = np.unique(key, return_inverse=True,
+                                                    return_counts=True)
+            inverse = inverse.ravel()
         coords = []
         rest = point_keys
         for column in reversed(columns):
             size = column.high - column.low + 1
             coords.append(rest % size + column.low)
             rest = rest // size
-        return _Points(coords[::-1], counts[point_keys], rows, key=key, point_keys=point_keys,
-                       cells=cells)
+        if inverse is not None:
+            return _Points(coords[::-1], counts, rows, inverse=inverse)
+        return _Points(coords[::-1], counts, rows, key=key, point_keys=point_keys, cells=cells)
     ranked = _ranked_points(columns, rows)
     if ranked is not None:
         return ranked
