@@ -34,6 +34,8 @@ INT64_MAX = 2**63 - 1
 FLOAT_EXACT = 2**53
 # The note of a column of integers that only missing cells and float64's 2**53 make big.
 BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
+# the note of a real column with inf or -inf cells
+INFINITE_NOTE = "has infinite values"
 # A whole number written as text.
 INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
@@ -376,6 +378,12 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
             f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
             "and features derived from them use the signed log scale sign(x)*log10(1+|x|).",
             column=column))
+    if note == INFINITE_NOTE:
+        out.append(Note(
+            "infinite_values",
+            f"{name}: column {column!r} holds infinite values (inf or -inf); the table keeps "
+            "them, and features read them as missing values, so steps leave those rows out "
+            "or impute them.", column=column))
     if dtype == "empty":
         out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
                         column=column))
@@ -842,7 +850,7 @@ def marked_column(name: str, column: str, f: dict) -> tuple[dict, ColumnInfo]:
     dtype = marked_type(m)
     note = ""
     if dtype == "real":
-        note = "has infinite values" if m["inf"] else ""
+        note = INFINITE_NOTE if m["inf"] else ""
     elif dtype in ("integer", "big integer") and m["numbers"]:
         note = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[1]
     distinct = f.get("distinct")
@@ -903,7 +911,7 @@ def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
         return "empty", "", ""
     csv = fmt == "csv" or f.get("parsed", False)
     if kind == "float" and f["inf"]:
-        return "real", "has infinite values", "number" if csv else ""
+        return "real", INFINITE_NOTE, "number" if csv else ""
     if kind == "float" and not f["integral"]:
         return "real", "", "number" if csv else ""
     values = f["values"]

@@ -51,6 +51,7 @@ import pandas as pd
 from analysis.column_facts import (
     FALSE_WORDS,
     FLOAT_EXACT,
+    INFINITE_NOTE,
     INT64_MAX,
     INTEGER_TEXT,
     MARKER_RULE,
@@ -1010,7 +1011,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
             floats[i] = float(v)
         values = pd.Series(floats, index=series.index)
         if np.isinf(floats).any():
-            note = "has infinite values"
+            note = INFINITE_NOTE
     elif dtype == "rational":
         values = _rebuild(series, numbers, Fraction, object)
     elif numbers:
@@ -1236,7 +1237,7 @@ def _type_floats(series: pd.Series):
     integers (or flags) by :func:`integer_type`."""
     raw = series.to_numpy()
     if np.isinf(raw).any():
-        return None, "real", "has infinite values"
+        return None, "real", INFINITE_NOTE
     finite = series[np.isfinite(raw)]
     if len(finite) == 0:
         if series.isna().all():
@@ -1330,7 +1331,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                 flags = [(i, v) for i, v in enumerate(floats.tolist()) if not np.isnan(v)]
                 return _booleans(series, flags), "boolean", "0/1 read as false/true"
             return ints, "integer", ("has missing cells" if np.isnan(floats).any() else "")
-        note = "has infinite values" if np.isinf(floats).any() else ""
+        note = INFINITE_NOTE if np.isinf(floats).any() else ""
         return pd.Series(floats, index=series.index), "real", note
     if "decimal" in kinds:
         # Parquet decimals: exact rationals, read through their text so that integers and

@@ -838,3 +838,14 @@ def test_labels_differing_by_spaces_are_one_label_with_a_warning(marked, tmp_pat
     # a column of free text keeps its cells as written
     names = "k,t\n" + "".join(f"{i}, name {i}\n" for i in range(40))
     assert read_table(names.encode(), "t.csv").frame["t"].iloc[0] == " name 0"
+
+
+def test_infinite_cells_are_named_in_a_warning():
+    # "inf" and "-inf" are the spellings Python's float() reads as infinities (the Python
+    # documentation of float); a real column holding them warns once, naming the column
+    table = read_table(b"k,exponent,order\n1,2,4\n2,inf,8\n3,-inf,16\n4,8,32\n", "g.csv")
+    infinite = [w for w in table.warnings if getattr(w, "code", None) == "infinite_values"]
+    assert len(infinite) == 1 and "'exponent'" in infinite[0]
+    assert [c.note for c in table.columns if c.name == "exponent"] == ["has infinite values"]
+    finite = read_table(b"k,exponent\n1,2\n2,1e3\n", "g.csv")
+    assert not [w for w in finite.warnings if getattr(w, "code", None) == "infinite_values"]
