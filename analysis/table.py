@@ -56,6 +56,7 @@ from analysis.column_facts import (
     INTEGER_TEXT,
     MARKER_RULE,
     MISSING_WORDS,
+    MOSTLY_NUMBERS_NOTE,
     RATIONAL_TEXT,
     TRUE_WORDS,
     ColumnInfo,
@@ -71,6 +72,7 @@ from analysis.column_facts import (
     marked_dtype,
     marked_note,
     marker_counts,
+    mostly_numbers,
     read_marked_cell,
     reads_as_marked_numbers,
     shown_value,
@@ -1376,7 +1378,8 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
     """Type a column of text cells by the reading its facts give (one block, see
     :func:`analysis.column_facts.text_reading`)."""
     stripped = [str(v).strip() for _, v in present]
-    reading = text_reading(text_block_facts(series, counts=False), marked=marks_out is not None)
+    facts = text_block_facts(series, counts=False)
+    reading = text_reading(facts, marked=marks_out is not None)
     if reading == "integer":
         parsed = [(i, _int_text(t, name, i, column)) for (i, _), t in zip(present, stripped)]
         return _integers(series, parsed, name, column)
@@ -1404,7 +1407,7 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
     if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
-    return None, "text", ""
+    return None, "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(facts) else ""
 
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,

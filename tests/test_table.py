@@ -849,3 +849,26 @@ def test_infinite_cells_are_named_in_a_warning():
     assert [c.note for c in table.columns if c.name == "exponent"] == ["has infinite values"]
     finite = read_table(b"k,exponent\n1,2\n2,1e3\n", "g.csv")
     assert not [w for w in finite.warnings if getattr(w, "code", None) == "infinite_values"]
+
+
+def _nilpotency_table(words: int, numbers: int):
+    # a nilpotency class column as group tables print it: a number, or a word where the group
+    # is not nilpotent (common practice in downloaded tables: '-' or a phrase)
+    cells = [str(1 + i % 3) for i in range(numbers)] + ["-", "not nilpotent"] * (words // 2)
+    body = "".join(f"G{i},{c}\n" for i, c in enumerate(cells))
+    return read_table(("label,nilpotency\n" + body).encode(), "groups.csv")
+
+
+@pytest.mark.parametrize("words, numbers, warned", [(4, 12, False), (8, 12, True),
+                                                     (10, 8, False)],
+                         ids=["marked numbers", "mostly numbers", "mostly words"])
+def test_a_column_of_numbers_with_many_words_is_named(words, numbers, warned):
+    table = _nilpotency_table(words, numbers)
+    said = [w for w in table.warnings if getattr(w, "code", None) == "mostly_numbers"]
+    assert bool(said) == warned, table.warnings
+    if warned:
+        assert "'nilpotency'" in said[0] and "role invariant" in said[0]
+        asked = table.with_roles({"nilpotency": "invariant"})
+        column = next(c for c in asked.columns if c.name == "nilpotency")
+        assert (column.dtype, column.missing) == ("integer", words)
+        assert column.markers == {"-": words // 2, "not nilpotent": words // 2}
