@@ -34,6 +34,10 @@ INT64_MAX = 2**63 - 1
 FLOAT_EXACT = 2**53
 # The note of a column of integers that only missing cells and float64's 2**53 make big.
 BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
+# the note of a real column with inf or -inf cells
+INFINITE_NOTE = "has infinite values"
+# the note of a text column that would read as marked numbers but for its share of words
+MOSTLY_NUMBERS_NOTE = "mostly numbers, too many words to read as marked numbers"
 # A whole number written as text.
 INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
@@ -375,6 +379,21 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
             "big_integers",
             f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
             "and features derived from them use the signed log scale sign(x)*log10(1+|x|).",
+            column=column))
+    if note == INFINITE_NOTE:
+        out.append(Note(
+            "infinite_values",
+            f"{name}: column {column!r} holds infinite values (inf or -inf); the table keeps "
+            "them, and features read them as missing values, so steps leave those rows out "
+            "or impute them.", column=column))
+    if note == MOSTLY_NUMBERS_NOTE:
+        out.append(Note(
+            "mostly_numbers",
+            f"{name}: column {column!r} holds numbers in most of its filled cells, but words "
+            f"in more than {MARKER_RULE.max_share} of them, so it is read as "
+            f"{'a category' if role == 'category' else 'text'}. If the "
+            "words mean that the invariant does not apply, give the column the role "
+            "invariant: its numbers are read and its words counted as missing values.",
             column=column))
     if dtype == "empty":
         out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
@@ -813,6 +832,20 @@ def text_reading(f: dict, *, marked: bool = True) -> str:
     return "text"
 
 
+def mostly_numbers(f: dict) -> bool:
+    """Whether a text column that is not read as marked numbers would be, were it not for
+    the share of its word cells: numbers (and intervals) in at least half of its filled
+    cells, words in the rest, few enough different words for the role invariant to read it
+    (:class:`MarkerRule`). Such a column's note says so, and a warning names it."""
+    m = f.get("marked") if f.get("kind") == "text" else None
+    if m is None or not m["words"] or reads_marked(f):
+        return False
+    if f.get("words") and reads_as_boolean(f["words"]):
+        return False
+    words = sum(m["words"].values())
+    return m["numbers"] + m["intervals"] >= words and reads_marked(f, requested=True)
+
+
 def reads_rational(f: dict) -> bool:
     """Whether a text column's cells are all integers or p/q (analysis.table's rational
     rule), not all integers: read as exact rationals."""
@@ -842,7 +875,7 @@ def marked_column(name: str, column: str, f: dict) -> tuple[dict, ColumnInfo]:
     dtype = marked_type(m)
     note = ""
     if dtype == "real":
-        note = "has infinite values" if m["inf"] else ""
+        note = INFINITE_NOTE if m["inf"] else ""
     elif dtype in ("integer", "big integer") and m["numbers"]:
         note = incomplete_integer_dtype(int(m["minimum"]), int(m["maximum"]))[1]
     distinct = f.get("distinct")
@@ -896,14 +929,14 @@ def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
         words = f["words"]
         if words and reads_as_boolean(words):
             return "boolean", "", "words"
-        return "text", "", ""
+        return "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(f) else "", ""
     if kind == "bool":
         return "boolean", "", "flags" if f["missing"] else ""
     if f["count"] == 0:
         return "empty", "", ""
     csv = fmt == "csv" or f.get("parsed", False)
     if kind == "float" and f["inf"]:
-        return "real", "has infinite values", "number" if csv else ""
+        return "real", INFINITE_NOTE, "number" if csv else ""
     if kind == "float" and not f["integral"]:
         return "real", "", "number" if csv else ""
     values = f["values"]

@@ -51,10 +51,12 @@ import pandas as pd
 from analysis.column_facts import (
     FALSE_WORDS,
     FLOAT_EXACT,
+    INFINITE_NOTE,
     INT64_MAX,
     INTEGER_TEXT,
     MARKER_RULE,
     MISSING_WORDS,
+    MOSTLY_NUMBERS_NOTE,
     RATIONAL_TEXT,
     TRUE_WORDS,
     ColumnInfo,
@@ -70,6 +72,7 @@ from analysis.column_facts import (
     marked_dtype,
     marked_note,
     marker_counts,
+    mostly_numbers,
     read_marked_cell,
     reads_as_marked_numbers,
     shown_value,
@@ -1010,7 +1013,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
             floats[i] = float(v)
         values = pd.Series(floats, index=series.index)
         if np.isinf(floats).any():
-            note = "has infinite values"
+            note = INFINITE_NOTE
     elif dtype == "rational":
         values = _rebuild(series, numbers, Fraction, object)
     elif numbers:
@@ -1236,7 +1239,7 @@ def _type_floats(series: pd.Series):
     integers (or flags) by :func:`integer_type`."""
     raw = series.to_numpy()
     if np.isinf(raw).any():
-        return None, "real", "has infinite values"
+        return None, "real", INFINITE_NOTE
     finite = series[np.isfinite(raw)]
     if len(finite) == 0:
         if series.isna().all():
@@ -1330,7 +1333,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                 flags = [(i, v) for i, v in enumerate(floats.tolist()) if not np.isnan(v)]
                 return _booleans(series, flags), "boolean", "0/1 read as false/true"
             return ints, "integer", ("has missing cells" if np.isnan(floats).any() else "")
-        note = "has infinite values" if np.isinf(floats).any() else ""
+        note = INFINITE_NOTE if np.isinf(floats).any() else ""
         return pd.Series(floats, index=series.index), "real", note
     if "decimal" in kinds:
         # Parquet decimals: exact rationals, read through their text so that integers and
@@ -1375,7 +1378,8 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
     """Type a column of text cells by the reading its facts give (one block, see
     :func:`analysis.column_facts.text_reading`)."""
     stripped = [str(v).strip() for _, v in present]
-    reading = text_reading(text_block_facts(series, counts=False), marked=marks_out is not None)
+    facts = text_block_facts(series, counts=False)
+    reading = text_reading(facts, marked=marks_out is not None)
     if reading == "integer":
         parsed = [(i, _int_text(t, name, i, column)) for (i, _), t in zip(present, stripped)]
         return _integers(series, parsed, name, column)
@@ -1403,7 +1407,7 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
     if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
-    return None, "text", ""
+    return None, "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(facts) else ""
 
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,

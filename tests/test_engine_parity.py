@@ -430,6 +430,10 @@ BLOCK_CASES = {
     "empty unnamed column": "a,b,\n" + "".join(f"{k},{k + 1},\n" for k in range(600)),
     "rationals with blanks": "r\n" + "".join(f"{'' if k % 5 == 2 else f'{k}/7'}\n"
                                             for k in range(600)),
+    "infinite reals": "x\n" + "".join(f"{'inf' if k % 11 == 5 else k / 4}\n"
+                                      for k in range(600)),
+    "numbers with many words": "c\n" + "".join(f"{'-' if k % 5 < 2 else k % 4}\n"
+                                               for k in range(2000)),
 }
 
 
