@@ -80,6 +80,7 @@ from analysis.column_facts import (
     text_reading,
 )
 from analysis.errors import TableError
+from analysis.notes import Note
 
 ROLES = ("id", "invariant", "category", "flag", "array", "text")
 FORMATS = ("csv", "tsv", "json", "jsonl", "parquet")
@@ -390,7 +391,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
     frame = _drop_unnamed(frame, name, warnings)
     check_column_names(name, list(frame.columns))
     if len(frame) == 1:
-        warnings.append(f"{name}: only one row; most steps need many more.")
+        warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
     # over-long integer, a ragged matrix) can be kept by giving its column the role text.
     as_text = {column for column, role in (roles or {}).items() if role in ("text", "category")}
@@ -425,7 +426,7 @@ def _decode(data: bytes, name: str, warnings: list[str]) -> str:
         except UnicodeDecodeError as exc:
             raise TableError(f"{name}: starts like UTF-16 but is not ({exc.reason}). "
                              "Re-save the file as UTF-8.") from None
-        warnings.append(f"{name}: read as UTF-16 (byte-order mark found).")
+        warnings.append(Note("utf16", f"{name}: read as UTF-16 (byte-order mark found)."))
         return text
     try:
         return data.decode("utf-8-sig")
@@ -497,7 +498,7 @@ def delimiter_warning(name: str, delimiter: str) -> str | None:
     if delimiter == ",":
         return None
     shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
-    return f"{name}: columns separated by {shown}."
+    return Note("delimiter", f"{name}: columns separated by {shown}.", delimiter=delimiter)
 
 
 def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
@@ -695,8 +696,10 @@ def _json_loads(text: str, name: str, where: str, limits: Limits,
 
 
 def _constants_warning(name: str, constants: set[str]) -> str:
-    return (f"{name}: found {', '.join(sorted(constants))}, which standard JSON does not "
-            "allow; NaN is read as a missing value, Infinity as an infinite number.")
+    return Note("json_constants",
+                f"{name}: found {', '.join(sorted(constants))}, which standard JSON does not "
+                "allow; NaN is read as a missing value, Infinity as an infinite number.",
+                constants=sorted(constants))
 
 
 def _too_many_digits(name: str, where: str, text: str, column: str | None = None) -> str:
@@ -729,7 +732,8 @@ def _read_json(data: bytes, name: str, warnings: list[str], limits: Limits) -> p
     if isinstance(records, dict):
         for key in ("rows", "records", "data"):
             if isinstance(records.get(key), list):
-                warnings.append(f"{name}: read the records under the key {key!r}.")
+                warnings.append(Note("records_key",
+                                     f"{name}: read the records under the key {key!r}.", key=key))
                 records = records[key]
                 break
     if not isinstance(records, list):
@@ -845,7 +849,9 @@ def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.Dat
 
 def unnamed_column_warning(name: str, position: int) -> str:
     """The warning for the column at 0-based ``position``, with no name and no values."""
-    return f"{name}: column {position + 1} has no name and no values; ignored."
+    return Note("unnamed_empty_column",
+                f"{name}: column {position + 1} has no name and no values; ignored.",
+                column=position + 1)
 
 
 def unnamed_column_error(name: str, position: int, row: int, value) -> None:
