@@ -1214,18 +1214,20 @@ def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
     (c an int on integer points, else a Fraction)."""
     if len(hull) < 3:
         return []
-    edges = []
-    for p, q in zip(hull, hull[1:] + hull[:1]):
-        dx, dy = q[0] - p[0], q[1] - p[1]
-        # Clear denominators (rational columns) before making the normal primitive.
-        scale = 1 if type(dx) is int and type(dy) is int else math.lcm(
-            Fraction(dx).denominator, Fraction(dy).denominator)
-        a, b = int(dy * scale), int(-dx * scale)
-        g = math.gcd(a, b)
-        a, b = a // g, b // g
-        value = a * p[0] + b * p[1]
-        edges.append((a, b, value if type(value) is int else Fraction(value)))
-    return edges
+    return [_edge(p, q) for p, q in zip(hull, hull[1:] + hull[:1])]
+
+
+def _edge(p: tuple, q: tuple) -> tuple[int, int, Fraction]:
+    """The edge from ``p`` to ``q`` of a counterclockwise hull, as in :func:`_edges`."""
+    dx, dy = q[0] - p[0], q[1] - p[1]
+    # Clear denominators (rational columns) before making the normal primitive.
+    scale = 1 if type(dx) is int and type(dy) is int else math.lcm(
+        Fraction(dx).denominator, Fraction(dy).denominator)
+    a, b = int(dy * scale), int(-dx * scale)
+    g = math.gcd(a, b)
+    a, b = a // g, b // g
+    value = a * p[0] + b * p[1]
+    return a, b, value if type(value) is int else Fraction(value)
 
 
 class _BoundColumn:
@@ -1882,7 +1884,7 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
     top = breakers + 1
     opposite = None   # (a, b, values, least cut) of the direction just before
     for a, b in _directions(largest):
-        shown, _ = _in_table_units((a, b), 0, scales)
+        shown, _ = _unscaled((a, b), scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
         if abs(a) * sizes[0] + abs(b) * sizes[1] >= _INT64_SAFE:
@@ -1963,8 +1965,11 @@ class _PeeledHull:
             ((nx - vx) * (qy - vy) - (ny - vy) * (qx - vx)) >= 0) & (
             ((px - nx) * (qy - ny) - (py - ny) * (qx - nx)) >= 0)
         picked = present[inside]
-        self.hull = hull_2d(hull[:i] + hull[i + 1:]
-                            + list(zip(self.x[picked].tolist(), self.y[picked].tolist())))
+        inner = list(zip(self.x[picked].tolist(), self.y[picked].tolist()))
+        if len(hull) < 4:
+            self.hull = hull_2d(hull[:i] + hull[i + 1:] + inner)
+        else:
+            self.hull = _spliced(hull, i, inner)
         return self.hull
 
     def on_line(self, a, b, c) -> int:
@@ -1972,6 +1977,27 @@ class _PeeledHull:
         present = self._present()
         c = int(c) if Fraction(c).denominator == 1 else c
         return int(np.count_nonzero(a * self.x[present] + b * self.y[present] == c))
+
+
+def _spliced(hull: list[tuple], i: int, inner: list[tuple]) -> list[tuple]:
+    """What :func:`hull_2d` gives for the corners of ``hull`` but the ``i``-th and the points
+    ``inner`` of the triangle that corner makes with its neighbours, from a hull of that
+    triangle alone. Every other corner stays a corner (a corner of a larger convex set
+    that lies in the smaller one), so only the path between the neighbours is new: the
+    small hull's path from one neighbour to the other, the way that avoids the segment
+    between them. ``hull`` has four corners or more, so the result has three or more."""
+    before, after = hull[i - 1], hull[(i + 1) % len(hull)]
+    small = hull_2d([before, after] + inner)
+    start = small.index(before)
+    path = []
+    for k in range(1, len(small)):
+        point = small[(start + k) % len(small)]
+        if point == after:
+            break
+        path.append(point)
+    joined = hull[:i] + path + hull[i + 1:]
+    first = joined.index(min(joined))
+    return joined[first:] + joined[:first]
 
 
 def _overflow_safe(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -2004,8 +2030,22 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
             located[vertex] = where, start, stop
         return located[vertex]
 
+    weights: dict = {}
+
     def weight(vertex) -> int:
-        return int(points.weights[locate(vertex)[0]])
+        if vertex not in weights:
+            weights[vertex] = int(points.weights[locate(vertex)[0]])
+        return weights[vertex]
+
+    sides: dict = {}   # the edge between two corners, once per pair
+
+    def edges_of(current) -> list[tuple]:
+        listed = []
+        for pair in zip(current, current[1:] + current[:1]):
+            if pair not in sides:
+                sides[pair] = _edge(*pair)
+            listed.append(sides[pair])
+        return listed
 
     light = sorted((weight(v), v) for v in hull if weight(v) <= breakers)
     if not light:
@@ -2024,12 +2064,13 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
             hulls_left -= 1
             if len(current) < 3:
                 break
-            for a, b, c in _edges(current):
+            for a, b, c in edges_of(current):
                 if (a, b, c) in known or a == 0 or b == 0:
                     continue
-                shown, constant = _in_table_units((a, b), c, scales)
+                shown, divisor = _unscaled((a, b), scales)
                 if max(map(abs, shown)) > max_coefficient:
                     continue
+                constant = Fraction(c) / divisor   # as _in_table_units gives it
                 known.add((a, b, c))
                 if peeled.on_line(a, b, c) < 3 or _implied(dict(zip(names, shown)), constant,
                                                            facts):
@@ -2141,9 +2182,11 @@ class _Reducer:
         sign = 1 if bound.relation == "<=" else -1
         vector = self._reduce(self._vector({n: sign * c for n, c in bound.terms},
                                            sign * bound.constant))
-        # Only a positive factor keeps the direction of an inequality.
-        size = max((abs(x) for x in vector), default=Fraction(1)) or Fraction(1)
-        return tuple(x / size for x in vector)
+        # Only a positive factor keeps the direction of an inequality. The nonzero entries
+        # with their positions: equal exactly when the whole scaled vectors are.
+        nonzero = [(i, x) for i, x in enumerate(vector) if x]
+        size = max((abs(x) for _, x in nonzero), default=1)
+        return tuple((i, x / size) for i, x in nonzero)
 
 
 def bound_rank(bound: Bound) -> tuple:
