@@ -1685,7 +1685,7 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     with them, ``start`` (a callable naming a point of the region on the bound, given the
     programme's columns) lets a point clearly beyond the bound answer first.
     """
-    ranges, equalities, inequalities = facts
+    ranges, equalities, inequalities, judged = facts
     names = set(coefs)
     touching = [eq for eq, _ in equalities if names & set(eq)]
     if not touching and not inequalities:
@@ -1695,10 +1695,8 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     for eq in touching:
         names |= set(eq)
     names = sorted(names)
-    if any(name not in ranges for name in names):
-        return False
-    if any(abs(v) > 1e12 for name in names for v in ranges[name]):
-        return False  # too large for a floating point programme to judge reliably
+    if any(name not in judged for name in names):
+        return False  # no range, or one too large for a floating point programme to judge
     # the facts in these columns only (a set built once: the bounds found so far grow long)
     allowed = set(names)
     within = [(eq, c) for eq, c in equalities if eq.keys() <= allowed]
@@ -1734,6 +1732,12 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     if result.status != 0:
         return False
     return -result.fun <= float(constant) + 1e-7 * (1 + abs(float(constant)))
+
+
+def _judged(ranges: Mapping) -> set:
+    """The columns whose range a floating point programme judges reliably (at most 1e12 in
+    size), found once for every implication checked."""
+    return {name for name, (low, high) in ranges.items() if abs(low) <= 1e12 and abs(high) <= 1e12}
 
 
 def _in_table_units(coefs, constant, scales) -> tuple[list[int], Fraction]:
@@ -2233,7 +2237,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
         if name not in ranges and (~missing).any():
             present = values[~missing].tolist()
             ranges[name] = (min(present), max(present))
-    facts = (ranges, equalities, [])
+    facts = (ranges, equalities, [], _judged(ranges))
     n = len(row_ids)
     breakers = breakers_allowed(max_breakers, n) if robust else 0
     pair_edges: list = []
@@ -2256,7 +2260,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 searched=MAX_TRIPLE_COLUMNS, columns=len(eligible),
             ))
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
-        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges))
+        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges), facts[3])
         skipped = 0
         triples_of = list(combinations(eligible, 3))
         progress.phase("bounds in triples of columns", total=len(triples_of))
