@@ -1958,8 +1958,10 @@ class _PeeledHull:
         if len(left):
             added = [p for p in dict.fromkeys((int(left[0]), int(left[-1])))
                      if not self.member[p]]
-            self.member[added] = True
-            self.positions = np.r_[self.positions, np.array(added, dtype=np.int64)]
+            if added:
+                self.member[added] = True
+                self.positions = np.concatenate((self.positions,
+                                                 np.array(added, dtype=np.int64)))
         hull = self.hull
         i = hull.index(corner)
         (px, py), (vx, vy), (nx, ny) = hull[i - 1], corner, hull[(i + 1) % len(hull)]
@@ -2002,6 +2004,15 @@ def _spliced(hull: list[tuple], i: int, inner: list[tuple]) -> list[tuple]:
     joined = hull[:i] + path + hull[i + 1:]
     first = joined.index(min(joined))
     return joined[first:] + joined[:first]
+
+
+def _few_breakers(points: _Points, coefs, constant, breakers: int) -> bool:
+    """Whether rows break ``sum coefs <= constant``, at most ``breakers`` of them, and at
+    least three times as many reach it: else it is just a ragged edge of the points."""
+    combined = _combine(coefs, points.coords)
+    broken = int(points.weights[combined > constant].sum())
+    attained = int(points.weights[combined == constant].sum())
+    return 0 < broken <= breakers and attained >= 3 * broken
 
 
 def _overflow_safe(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -2076,15 +2087,13 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
                     continue
                 constant = Fraction(c) / divisor   # as _in_table_units gives it
                 known.add((a, b, c))
-                if peeled.on_line(a, b, c) < 3 or _implied(dict(zip(names, shown)), constant,
-                                                           facts):
+                if peeled.on_line(a, b, c) < 3 or not _few_breakers(
+                        points, (a, b), c, breakers) or _implied(
+                        dict(zip(names, shown)), constant, facts):
                     continue
                 bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
-                # Many more rows reaching it than breaking it, or it is just a ragged edge.
-                broken = len(bound.violations)
-                if 0 < broken <= breakers and bound.attained_count >= 3 * broken:
-                    found.append(replace(bound, note=joined_note(
-                        bound.note, _breakers_note(len(bound.violations)))))
+                found.append(replace(bound, note=joined_note(
+                    bound.note, _breakers_note(len(bound.violations)))))
             uncovered = sorted((weight(v), v) for v in current if v not in original)
             if hulls_left <= 0 or not uncovered or used + uncovered[0][0] > breakers:
                 break
