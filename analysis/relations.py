@@ -1487,6 +1487,7 @@ class _EdgeFacts:
     def __init__(self, edges: list[tuple[dict, Fraction]]) -> None:
         self.edges = edges
         self.by_pair: dict = {}
+        self._rows: dict = {}
         for position, (terms, _) in enumerate(edges):
             self.by_pair.setdefault(frozenset(terms), []).append(position)
 
@@ -1497,6 +1498,19 @@ class _EdgeFacts:
         """The edges whose columns all lie in ``allowed``, in the order found."""
         positions = [p for key, found in self.by_pair.items() if key <= allowed for p in found]
         return [self.edges[p] for p in sorted(positions)]
+
+    def rows_in(self, names: list) -> list[tuple[tuple, int, int]]:
+        """The edges within ``names`` (in the order found) as the positions among ``names``
+        with the coefficients, and the constant's numerator and denominator; worked out once
+        for each list of names (the edges are all known when they are asked for)."""
+        key = (tuple(names), len(self.edges))
+        if key not in self._rows:
+            index = {name: j for j, name in enumerate(names)}
+            self._rows[key] = [
+                (tuple((index[n], int(c)) for n, c in terms.items()),
+                 Fraction(bound).numerator, Fraction(bound).denominator)
+                for terms, bound in self.within(set(names))]
+        return self._rows[key]
 
 
 def _solve(matrix: list[list[Fraction]], rhs: list[Fraction]) -> list[Fraction] | None:
@@ -1630,7 +1644,8 @@ def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges
             start: dict | None) -> bool:
     """Whether the region holds a point clearly beyond ``sum coefs <= constant``: from
     ``start``, a point of the region on the bound, along the bound's normal (projected so as
-    to keep the equalities) as far as the ranges and the given bounds allow."""
+    to keep the equalities) as far as the ranges and the given bounds allow (``inequalities``,
+    as :meth:`_EdgeFacts.rows_in` lists them)."""
     if start is None:
         return False
     normal = [Fraction(coefs.get(name, 0)) for name in names]
@@ -1647,7 +1662,6 @@ def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges
         return False
     step, _ = _integral(direction)
     point, denominator = _integral([start[name] for name in names])
-    index = {name: j for j, name in enumerate(names)}
     limits = []   # room along the direction (in steps) for each fact it runs into, as p/q
     for j, name in enumerate(names):
         low, high = ranges[name]
@@ -1655,13 +1669,15 @@ def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges
             end = Fraction(high if step[j] > 0 else low)
             limits.append((end.numerator * denominator - point[j] * end.denominator,
                            end.denominator * denominator * step[j]))
-    for terms, bound in inequalities:
-        rise = sum(int(c) * step[index[n]] for n, c in terms.items())
+    for terms, top, bottom in inequalities:
+        rise = 0
+        for j, c in terms:
+            rise += c * step[j]
         if rise > 0:
-            used = sum(int(c) * point[index[n]] for n, c in terms.items())
-            bound = Fraction(bound)
-            limits.append((bound.numerator * denominator - used * bound.denominator,
-                           bound.denominator * denominator * rise))
+            used = 0
+            for j, c in terms:
+                used += c * point[j]
+            limits.append((top * denominator - used * bottom, bottom * denominator * rise))
     if not limits:
         return False
     # the least room, exact: among the few that floating point puts near the least
@@ -1705,8 +1721,8 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
         verdict = _equality_verdict(coefs, constant, names, within, ranges)
         if verdict is not None:
             return verdict
-    elif start is not None and _beyond(coefs, constant, names, within, given, ranges,
-                                       start(names)):
+    elif start is not None and _beyond(coefs, constant, names, within,
+                                       inequalities.rows_in(names), ranges, start(names)):
         return False
     from scipy.optimize import linprog
 
