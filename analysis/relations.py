@@ -1529,29 +1529,37 @@ def _solve(matrix: list[list[Fraction]], rhs: list[Fraction]) -> list[Fraction] 
     return [rows[r][size] / rows[r][r] for r in range(size)]
 
 
-def _dual_vertex(objective, matrix, rhs, low, high) -> np.ndarray | None:
-    """Columns of the vertex of the dual programme where its value is least, found in
-    floating point: the dual of max objective.x over the box [low, high] cut by matrix.x =
-    rhs is min over y of y.rhs + sum_j max(low_j s_j, high_j s_j), s = objective - y.matrix,
-    a convex piecewise linear function least at a point where s_j = 0 for k columns j."""
-    k, n = len(matrix), len(objective)
+def _dual_parts(matrix, rhs, low, high) -> tuple | None:
+    """What :func:`_dual_vertex` needs of the box and the equalities, in floating point, found
+    once for every objective over them: None when there are too many vertices to try or no
+    regular one."""
+    k, n = len(matrix), len(low)
     if math.comb(n, k) > MAX_DUAL_VERTICES:
         return None
     equations = np.array(matrix, dtype=np.float64)
-    target = np.array(objective, dtype=np.float64)
     subsets = np.array(list(combinations(range(n), k)), dtype=np.int64)
     blocks = equations[:, subsets].transpose(1, 2, 0)
     size = np.prod(np.linalg.norm(blocks, axis=2), axis=1)
     regular = np.abs(np.linalg.det(blocks)) > 1e-9 * size
     if not regular.any():
         return None
-    subsets, blocks = subsets[regular], blocks[regular]
+    return (equations, subsets[regular], blocks[regular], np.array(rhs, dtype=np.float64),
+            np.array(low, dtype=np.float64), np.array(high, dtype=np.float64))
+
+
+def _dual_vertex(objective, parts) -> np.ndarray | None:
+    """Columns of the vertex of the dual programme where its value is least, found in
+    floating point: the dual of max objective.x over the box [low, high] cut by matrix.x =
+    rhs is min over y of y.rhs + sum_j max(low_j s_j, high_j s_j), s = objective - y.matrix,
+    a convex piecewise linear function least at a point where s_j = 0 for k columns j.
+    ``parts`` are the box and equalities as :func:`_dual_parts` gives them."""
+    if parts is None:
+        return None
+    equations, subsets, blocks, rhs, lows, highs = parts
+    target = np.array(objective, dtype=np.float64)
     duals = np.linalg.solve(blocks, target[subsets][..., None])[..., 0]
     slack = target - duals @ equations
-    lows = np.array(low, dtype=np.float64)
-    highs = np.array(high, dtype=np.float64)
-    values = duals @ np.array(rhs, dtype=np.float64) + np.maximum(slack * lows,
-                                                                   slack * highs).sum(axis=1)
+    values = duals @ rhs + np.maximum(slack * lows, slack * highs).sum(axis=1)
     return subsets[int(np.argmin(values))]
 
 
@@ -1581,7 +1589,8 @@ def _reaches(matrix, rhs, slack, low, high, vertex: list[int]) -> bool:
     return solved is not None and all(low[j] <= v <= high[j] for j, v in zip(vertex, solved))
 
 
-def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) -> bool | None:
+def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges,
+                      systems: dict) -> bool | None:
     """Whether ``sum coefs <= constant`` follows from the ranges and the equalities, decided
     in exact arithmetic when the answer is clear of the linear programme's tolerance; None
     leaves it to the programme.
@@ -1590,13 +1599,18 @@ def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) ->
     value of the left side from above; the point of the box that the vertex names (each
     other column at the end its slack points to, the vertex's own columns solved from the
     equalities) reaches that value when it lies in the box, which proves it the largest.
+    ``equalities`` are those within ``names``; ``systems`` keeps them and the box, exact and
+    as :func:`_dual_parts` gives them, for each list of names.
     """
+    if tuple(names) not in systems:
+        matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
+        rhs = [Fraction(c) for _, c in equalities]
+        low = [Fraction(ranges[name][0]) for name in names]
+        high = [Fraction(ranges[name][1]) for name in names]
+        systems[tuple(names)] = matrix, rhs, low, high, _dual_parts(matrix, rhs, low, high)
+    matrix, rhs, low, high, parts = systems[tuple(names)]
     objective = [Fraction(coefs.get(name, 0)) for name in names]
-    matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
-    rhs = [Fraction(c) for _, c in equalities]
-    low = [Fraction(ranges[name][0]) for name in names]
-    high = [Fraction(ranges[name][1]) for name in names]
-    vertex = _dual_vertex(objective, matrix, rhs, low, high)
+    vertex = _dual_vertex(objective, parts)
     if vertex is None:
         return None
     vertex = vertex.tolist()
@@ -1701,7 +1715,7 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     with them, ``start`` (a callable naming a point of the region on the bound, given the
     programme's columns) lets a point clearly beyond the bound answer first.
     """
-    ranges, equalities, inequalities, judged = facts
+    ranges, equalities, inequalities, judged, systems = facts
     names = set(coefs)
     touching = [eq for eq, _ in equalities if names & set(eq)]
     if not touching and not inequalities:
@@ -1718,7 +1732,7 @@ def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     within = [(eq, c) for eq, c in equalities if eq.keys() <= allowed]
     given = inequalities.within(allowed) if inequalities else []
     if not given:
-        verdict = _equality_verdict(coefs, constant, names, within, ranges)
+        verdict = _equality_verdict(coefs, constant, names, within, ranges, systems)
         if verdict is not None:
             return verdict
     elif start is not None and _beyond(coefs, constant, names, within,
@@ -2262,7 +2276,9 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
         if name not in ranges and (~missing).any():
             present = values[~missing].tolist()
             ranges[name] = (min(present), max(present))
-    facts = (ranges, equalities, [], _judged(ranges))
+    # the ranges, relations, known bounds, the columns a programme can judge, and the linear
+    # systems worked out so far (see _equality_verdict)
+    facts = (ranges, equalities, [], _judged(ranges), {})
     n = len(row_ids)
     breakers = breakers_allowed(max_breakers, n) if robust else 0
     pair_edges: list = []
@@ -2285,7 +2301,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 searched=MAX_TRIPLE_COLUMNS, columns=len(eligible),
             ))
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
-        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges), facts[3])
+        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges), *facts[3:])
         skipped = 0
         triples_of = list(combinations(eligible, 3))
         progress.phase("bounds in triples of columns", total=len(triples_of))
