@@ -2218,7 +2218,8 @@ class _Reducer:
     def _reduce(self, vector: list[Fraction]) -> list[Fraction]:
         for pivot, row in self.rows:
             if vector[pivot]:
-                vector = [a - vector[pivot] * b for a, b in zip(vector, row)]
+                factor = vector[pivot]
+                vector = [a - factor * b if b else a for a, b in zip(vector, row)]
         return vector
 
     def key(self, bound: Bound) -> tuple:
