@@ -133,7 +133,8 @@ def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
 
 
 def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
-    """Standardized feature rows at the given kept-row indices (in order)."""
+    """Standardized feature rows at the given kept-row indices (in order); their targets
+    when ``shift`` is None."""
     from dask import delayed
 
     picks = []
@@ -143,11 +144,13 @@ def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> n
         if len(local):
             picks.append(delayed(_take)(block, local, shift, scale))
     parts = ctx.compute(picks)
+    if shift is None:
+        return np.concatenate(parts) if parts else np.array([])
     return np.vstack(parts) if parts else np.empty((0, len(shift)))
 
 
 def _take(block, local, shift, scale):
-    return (block.values[local] - shift) / scale
+    return block.target[local] if shift is None else (block.values[local] - shift) / scale
 
 
 def _silhouette(values: np.ndarray, labels: np.ndarray):

@@ -43,13 +43,12 @@ class Context:
 
 def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",
              log_scale="auto", missing="drop", exclude=()) -> FeaturePlan:
-    """The feature plan for a step's settings, with medians for ``missing="impute"``."""
+    """The feature plan for a step's settings, with the fills of ``missing="impute"``."""
     plan = feature_plan(ctx.table, columns=columns, target=target,
                         array_encoding=array_encoding, log_scale=log_scale, missing=missing,
                         exclude=exclude)
     if missing == "impute":
-        medians = _medians(ctx, plan)
-        plan = dataclasses.replace(plan, fill=medians)
+        plan = dataclasses.replace(plan, fill=_fills(ctx, plan))
     return plan
 
 
@@ -124,44 +123,45 @@ def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
     return np.zeros(len(mean)), np.ones(len(mean))
 
 
-def _medians(ctx: Context, plan: FeaturePlan) -> dict:
-    """Median of each feature over the rows where it is present (np.median's convention)."""
+def _fills(ctx: Context, plan: FeaturePlan) -> dict:
+    """The in-memory fill of each feature (:func:`analysis.features.fill_value`; a category
+    its most common level), from value counts summed over partitions."""
     from dask import delayed
 
     from analysis.distributed.matrix import partition_features
+    from analysis.features import build_features, fill_value
 
     raw = dataclasses.replace(plan, missing="keep")
     parts = ctx.table.typed_partitions(list(plan.columns))
-    offsets = ctx.table.offsets
-    pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(offsets[k]), raw))
+    pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(ctx.table.offsets[k]),
+                                                                 raw))
               for k, p in enumerate(parts)]
     merged = ctx.compute(tree(pieces, _merge_value_counts))
-    medians = {}
-    approximate = []
-    for j, feature in enumerate(plan.features):
-        table = merged[j]
-        if table is None:
+    fills, approximate, levels = {}, [], {}
+    for feature, counted in zip(plan.features, merged):
+        if feature.kind == "onehot":
+            values, counts = counted
+            levels.setdefault(feature.column, []).append(
+                (feature.name, int(counts[values == 1.0].sum())))
+        elif counted is None:
             approximate.append(feature.name)
-            continue
-        values, counts = table
-        if counts.sum() == 0:
-            medians[feature.name] = 0.0
-            continue
-        medians[feature.name] = _median_from_counts(values, counts)
+        else:
+            fills[feature.name] = fill_value(feature.kind, *counted)
+    for found in levels.values():
+        top = int(np.argmax([count for _, count in found]))
+        fills.update((name, float(j == top)) for j, (name, _) in enumerate(found))
     if approximate:
         from analysis.distributed.source import sample_table
 
         sample, _ = sample_table(ctx.table, ctx.client, MEDIAN_SAMPLE_ROWS, seed=0,
                                  columns=list(plan.columns))
-        from analysis.features import build_features
-
         fm = build_features(sample, columns=list(plan.columns), missing="drop")
         for name in approximate:
-            medians[name] = float(np.median(fm.values[:, fm.names.index(name)]))
+            fills[name] = float(np.median(fm.values[:, fm.names.index(name)]))
         ctx.notes.append(f"missing values of {', '.join(approximate)} filled with the median "
                          f"of a random sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct "
                          "values for an exact median across partitions).")
-    return medians
+    return fills
 
 
 def _value_counts(block) -> list:
@@ -186,14 +186,6 @@ def _merge_value_counts(a: list, b: list) -> list:
         summed = np.bincount(inverse, weights=counts).astype(np.int64)
         out.append((unique, summed) if len(unique) <= MEDIAN_CAP else None)
     return out
-
-
-def _median_from_counts(values: np.ndarray, counts: np.ndarray) -> float:
-    total = int(counts.sum())
-    cumulative = np.cumsum(counts)
-    low = values[int(np.searchsorted(cumulative, (total - 1) // 2 + 1))]
-    high = values[int(np.searchsorted(cumulative, total // 2 + 1))]
-    return float((low + high) / 2)
 
 
 def with_notes(result, extra: list[str]):

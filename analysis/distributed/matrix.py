@@ -20,17 +20,18 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import (
+    MAX_LEVELS,
     Feature,
     chosen_feature_columns,
     dropped_rows_text,
+    filled_note,
     left_out_warning,
     mostly_empty_columns,
+    too_many_levels,
 )
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
-# Most one-hot levels of a category column, as in memory.
-MAX_LEVELS = 200
 
 
 @dataclass(frozen=True)
@@ -130,10 +131,7 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
         elif info.role == "category":
             found = _levels(table, name)
             if len(found) > MAX_LEVELS:
-                raise StepError(
-                    f"{table.name}: category column {name!r} has {len(found)} values; one-hot "
-                    "encoding it would swamp the other features. Give it the role text, or "
-                    "group its values first.")
+                raise too_many_levels(table.name, name, len(found))
             levels[name] = found
             for level in found:
                 feature = Feature(f"{name}={level}", name, "onehot", level)
@@ -253,9 +251,7 @@ def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
             if not serious:
                 notes.append(text)
         else:
-            notes.append(f"filled {counts['filled']} missing feature cells with the column "
-                         f"median; dropped {counts['dropped_target']} rows with no target "
-                         "value.")
+            notes.append(filled_note(counts["filled"], counts["dropped_target"]))
     return notes
 
 

@@ -45,8 +45,10 @@ GRID_CELLS = 4_000_000
 _INT64_SAFE = 2**62
 
 
-def run_relations(step, ctx: Context):
-    """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
+def run_relations(step, ctx: Context, *, leave_out: bool = False):
+    """A RelationsResult for ``step`` on the partitioned table in ``ctx``; ``leave_out``:
+    columns of big integers or rationals named in ``step`` are left out (said so), not
+    refused."""
     from dask import delayed
 
     from analysis import relations as rel
@@ -60,7 +62,7 @@ def run_relations(step, ctx: Context):
         raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
                         "search; mark some columns as invariants")
     unsearched = [n for n in names if table.column(n).dtype in ("big integer", "rational")]
-    if unsearched and step.columns is not None:
+    if unsearched and step.columns is not None and not leave_out:
         name = unsearched[0]
         raise StepError(f"relations: column '{name}' holds {table.column(name).dtype}s, which "
                         "the dask engine does not search; leave it out with --columns, or use "
