@@ -25,7 +25,7 @@ from analysis.errors import StepError
 from analysis.features import FeatureMatrix, build_features, target_values
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
-from analysis.projection import prepared, sample_positions
+from analysis.projection import prepared, sample_positions, scaling_note
 from analysis.table import Table
 from analysis.threads import threads_for
 
@@ -201,10 +201,9 @@ class ClusteringStep:
         n = len(fm.rows)
         notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "clustering")
-        notes.append("features standardized to mean 0 and standard deviation 1."
-                     if self.standardize else "features used in their own units.")
+        notes.append(scaling_note(self.standardize))
         ks = self.candidate_ks(n, table.name)
-        scorer = _Silhouette(values, self.sample_size, self.seed, notes)
+        scorer = Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
         runs: list[tuple[SweepEntry, np.ndarray]] = []
         reporter.phase("trying clusterings", total=max(1, len(methods) * len(ks)))
@@ -277,7 +276,7 @@ class ClusteringStep:
                             "a smaller k_range or a larger table.")
         return ks
 
-    def _sweep(self, method: str, values: np.ndarray, ks: list[int], scorer: _Silhouette,
+    def _sweep(self, method: str, values: np.ndarray, ks: list[int], scorer: Silhouette,
                notes: list[str]):
         n = len(values)
         if method == "kmeans":
@@ -314,7 +313,7 @@ def kmeans_labels(values: np.ndarray, k: int, seed: int) -> tuple[np.ndarray, np
     return labels, model.cluster_centers_
 
 
-class _Silhouette:
+class Silhouette:
     """Silhouette scores on one fixed set of rows (a random sample for large tables).
 
     The distances between those rows are computed once and shared by every run of the sweep.
@@ -327,9 +326,13 @@ class _Silhouette:
         self.rows = np.arange(n)
         if n > sample_size:
             self.rows = sample_positions(n, sample_size, seed)
-            notes.append(f"silhouettes computed on a random sample of {sample_size} of the "
-                         f"{n} rows (seed {seed}).")
+            notes.append(silhouette_note(sample_size, n, seed))
         self.distances = pairwise_distances(values[self.rows])
+
+    @classmethod
+    def of_rows(cls, values: np.ndarray) -> Silhouette:
+        """Silhouettes on exactly these rows (an engine that draws the sample itself)."""
+        return cls(values, len(values), 0, [])
 
     def __call__(self, labels: np.ndarray) -> float | None:
         from sklearn.metrics import silhouette_score
@@ -344,6 +347,11 @@ class _Silhouette:
         return float(silhouette_score(distances, labels[clustered], metric="precomputed"))
 
 
+def silhouette_note(size: int, n: int, seed: int) -> str:
+    """The note for silhouettes computed on a sample of ``size`` of ``n`` rows."""
+    return f"silhouettes computed on a random sample of {size} of the {n} rows (seed {seed})."
+
+
 def silhouette_defined(labels: np.ndarray) -> bool:
     """Whether the silhouette of ``labels`` is defined: from 2 clusters to one fewer than the
     rows, noise rows left out."""
@@ -352,7 +360,7 @@ def silhouette_defined(labels: np.ndarray) -> bool:
     return 2 <= distinct < int(clustered.sum())
 
 
-def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
+def _entry(method: str, k: int | None, labels: np.ndarray, scorer: Silhouette,
            bic: float | None = None) -> SweepEntry:
     found = set(labels.tolist()) - {NOISE}
     return SweepEntry(method=method, k=k, silhouette=scorer(labels), bic=bic,

@@ -47,7 +47,7 @@ from analysis.features import build_features, is_numeric_target, target_values
 from analysis.notes import Note, note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
-from analysis.projection import prepared, sample_positions
+from analysis.projection import prepared, sample_positions, scaling_note
 from analysis.table import Table
 from analysis.threads import threads_for
 
@@ -253,8 +253,7 @@ class OutliersStep:
         check_rows(table.name, n)
         notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
-        notes.append("features standardized to mean 0 and standard deviation 1."
-                     if self.standardize else "features used in their own units.")
+        notes.append(scaling_note(self.standardize))
         measures: dict[str, Measure] = {}
         reporter.phase("scoring every object", total=4 + bool(self.relations))
         with warnings.catch_warnings():

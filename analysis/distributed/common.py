@@ -26,6 +26,18 @@ class Context:
         """Compute dask objects on the cluster and return their values (a list for a list)."""
         return self.client.gather(self.client.compute(items))
 
+    def each(self, function, blocks: list, *args) -> list:
+        """``function(block, *args)`` for every block, computed on the cluster."""
+        from dask import delayed
+
+        return self.compute([delayed(function)(b, *args) for b in blocks])
+
+    def reduce(self, function, blocks: list, merge, *args):
+        """``function(block, *args)`` for every block, merged pairwise by ``merge``."""
+        from dask import delayed
+
+        return self.compute(tree([delayed(function)(b, *args) for b in blocks], merge))
+
     def share(self, value):
         """``value`` sent once to every worker (a future to pass to tasks), so that a large
         object, such as a fitted model, is not copied into every task of a graph."""
@@ -116,8 +128,9 @@ def spread_scale(n, mean, m2) -> np.ndarray:
 def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
     """(shift, scale) that standardize the features, or leave them in their own units, and
     the note saying which."""
-    notes.append("features standardized to mean 0 and standard deviation 1."
-                 if standardize else "features used in their own units.")
+    from analysis.projection import scaling_note
+
+    notes.append(scaling_note(standardize))
     if standardize:
         return mean, spread_scale(n, mean, m2)
     return np.zeros(len(mean)), np.ones(len(mean))
@@ -131,7 +144,7 @@ def _fills(ctx: Context, plan: FeaturePlan) -> dict:
     from analysis.distributed.matrix import partition_features
     from analysis.features import build_features, fill_value
 
-    raw = dataclasses.replace(plan, missing="keep")
+    raw = dataclasses.replace(plan, missing="keep", target=None)   # the features' cells only
     parts = ctx.table.typed_partitions(list(plan.columns))
     pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(ctx.table.offsets[k]),
                                                                  raw))

@@ -1,14 +1,8 @@
-"""Feature matrices built partition by partition, with the names and values of the in-memory ones.
+"""Feature blocks built partition by partition, with the names and values of the in-memory ones.
 
-:func:`feature_plan` decides once, from the whole table's column descriptions, which features
-there are (so every partition has the same columns, e.g. one-hot levels taken over the whole
-table); :func:`partition_features` builds one partition's block. The features are those of
-:func:`analysis.features.build_features` for invariant, flag and category columns: the same
-names, values and notes. Array columns and integers beyond 64 bits are not encoded on this
-engine (the step says so and names the column).
-
-Partition blocks can be kept in the cluster's memory between passes (:func:`feature_blocks`)
-when they fit, so that iterative methods (k-means) do not read the files again.
+:func:`feature_plan` decides once, from the whole table's column facts, which features there
+are (one-hot levels over the whole table); :func:`partition_features` builds one block.
+Arrays, big integers and rationals are not encoded on this engine (said, by column).
 """
 
 from __future__ import annotations

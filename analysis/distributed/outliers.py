@@ -1,22 +1,8 @@
 """Objects to look at, on Dask: every row scored partition by partition, the top rows gathered.
 
-Each measure of the in-memory step is fitted once and then scores every row where it lies:
-
-* isolation forest: fitted on a uniform sample (each tree looks at 256 rows anyway), every
-  row scored partition by partition;
-* local outlier factor: fitted on the same random sample of rows the in-memory step uses past
-  ``sample_size`` rows (all rows when fewer), every other row scored against it;
-* distance from cluster centre: the clustering step on Dask (k-means by Lloyd iterations over
-  every row), each row's distance from its centre over the cluster's typical distance (the
-  median over the rows of the local outlier factor's sample in that cluster);
-* separator: a logistic (or ridge) fit on a sample, cross-validated on the sample's rows; the
-  rows outside the sample are scored by the fit on the whole sample, so no row is scored by a
-  model that saw it;
-* relations: the relations step on Dask; a row scores the relations and bounds it breaks.
-
-Ranking needs each row's standing among all rows, so the few scores per row come back to the
-client (the table itself never does); standings, the combined score, the ranking and the
-reasons are then those of the in-memory step.
+Each measure is fitted once (on a sample where the in-memory step would sample) and scores
+every row where it lies; the scores come back to the client, and the standings, ranking and
+reasons are the in-memory step's.
 """
 
 from __future__ import annotations

@@ -1,28 +1,12 @@
 """The relations step on Dask: candidates from a few rows, everything checked on every row.
 
-1. The in-memory search (:class:`analysis.relations.RelationsStep`) runs on a uniform random
-   sample of rows; its relations that hold on every sampled row span a lattice that contains
-   the table's relations.
-2. One pass over every partition tests that lattice on every row and keeps, per partition,
-   a few breaking rows whose values span all the ways the lattice is broken; it also gathers
-   each column's extremes, the least and greatest value of each column of a pair over each
-   value of the other (the only candidates for corners of the pair's convex hull), and the
-   corners of the hull of each triple.
-3. The search runs again on the sample together with those rows: the breaking rows cut the
-   lattice down to exactly the relations of the whole table, and the corner rows make every
-   hull, and so every sharp bound, that of the whole table.
-4. A last pass counts, on every row, the rows that break each relation broken by a few rows,
-   the rows that attain, come near or break each bound, and the rows off each approximate
-   relation; relations and bounds that more rows break than allowed are dropped. Each
-   relation counts the rows where its own columns have values, as in memory.
-5. Congruences of the integer columns are proposed on the sample, one modulus at a time, each
-   counted on every row, and kept by :func:`analysis.congruences.settle_congruences`, the
-   rules of the in-memory search.
-
-Exact: the relations that hold on every row (the same lattice as in memory), the bounds in
-two and three columns, and every count and row list. Approximate: which relations broken by a
-few rows, and which bounds broken by a few rows, are proposed (they come from samples), and
-which congruences are proposed (a note says so when the sample is not the whole table).
+1. The in-memory search runs on a uniform sample; its relations span a lattice.
+2. One pass tests that lattice on every row (keeping a few breaking rows that span every way
+   it is broken) and gathers the candidates for corners of each pair's and triple's hull.
+3. The search runs again on the sample with those rows: the relations and sharp bounds of
+   the whole table.
+4. A last pass counts on every row the rows breaking, attaining or near each statement.
+5. Congruences are proposed on the sample one modulus at a time and counted on every row.
 """
 
 from __future__ import annotations

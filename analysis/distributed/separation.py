@@ -1,14 +1,8 @@
-"""The separator step on Dask: the protocol on a sample, the equation settled on every row.
+"""The separator step on Dask: the protocol on a sample, equations settled on every row.
 
-The validation protocol (splits, metrics against the majority-class baseline, bootstrap
-interval, permutation test, learning curve) and the search for a readable equation run in
-memory, with the same code as the in-memory step, on a uniform random sample of rows drawn
-across all partitions. The equation the search finds is then settled on the whole table:
-its constant is chosen again from the exact scores of every row (counts per distinct score,
-summed over partitions), and each partition is checked row by row with the equation's own
-exact evaluation (:meth:`analysis.equations.LinearEquation.holds`), so the violations and
-violating rows are those of the whole table. A formula for a numeric target is settled the
-same way (its constant is the most common exact residual over all rows).
+The protocol and the search run in memory on a uniform sample; an equation's constant is
+chosen again from the exact scores of every row (counted per partition and merged) and its
+violations counted row by row; a formula's constant is the most common exact residual.
 """
 
 from __future__ import annotations
