@@ -53,6 +53,24 @@ class Context:
                 f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.")
 
 
+class Settings:
+    """What a pass over partitions needs, as a plain object: dask walks through the
+    dataclasses, dicts and lists given to a task, but leaves this as it is."""
+
+    def __init__(self, **settings):
+        self.__dict__.update(settings)
+
+
+def partition_tasks(ctx: Context, function, columns: list[str], *args) -> list:
+    """``function(typed partition, offset of its first row, *args)`` for every partition,
+    as dask objects."""
+    from dask import delayed
+
+    offsets = ctx.table.offsets
+    return [delayed(function)(part, int(offsets[k]), *args)
+            for k, part in enumerate(ctx.table.typed_partitions(columns))]
+
+
 def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",
              log_scale="auto", missing="drop", exclude=()) -> FeaturePlan:
     """The feature plan for a step's settings, with the fills of ``missing="impute"``."""
@@ -139,17 +157,11 @@ def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
 def _fills(ctx: Context, plan: FeaturePlan) -> dict:
     """The in-memory fill of each feature (:func:`analysis.features.fill_value`; a category
     its most common level), from value counts summed over partitions."""
-    from dask import delayed
-
-    from analysis.distributed.matrix import partition_features
     from analysis.features import build_features, fill_value
 
     raw = dataclasses.replace(plan, missing="keep", target=None)   # the features' cells only
-    parts = ctx.table.typed_partitions(list(plan.columns))
-    pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(ctx.table.offsets[k]),
-                                                                 raw))
-              for k, p in enumerate(parts)]
-    merged = ctx.compute(tree(pieces, _merge_value_counts))
+    merged = ctx.compute(tree(partition_tasks(ctx, _value_counts, list(plan.columns), raw),
+                              _merge_value_counts))
     fills, approximate, levels = {}, [], {}
     for feature, counted in zip(plan.features, merged):
         if feature.kind == "onehot":
@@ -177,7 +189,10 @@ def _fills(ctx: Context, plan: FeaturePlan) -> dict:
     return fills
 
 
-def _value_counts(block) -> list:
+def _value_counts(frame, offset: int, plan: FeaturePlan) -> list:
+    from analysis.distributed.matrix import partition_features
+
+    block = partition_features(frame, offset, plan)
     out = []
     for j in range(block.values.shape[1]):
         column = block.values[:, j]
@@ -208,5 +223,6 @@ def with_notes(result, extra: list[str]):
     return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
 
 
-__all__ = ["Context", "block_moments", "blocks_for", "feature_moments", "merge_moments",
-           "plan_for", "spread_scale", "standardizing", "tree", "with_notes"]
+__all__ = ["Context", "Settings", "block_moments", "blocks_for", "feature_moments",
+           "merge_moments", "partition_tasks", "plan_for", "spread_scale", "standardizing",
+           "tree", "with_notes"]

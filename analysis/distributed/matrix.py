@@ -42,7 +42,6 @@ class FeaturePlan:
     fill: dict
     notes: tuple[str, ...]
     id_column: str | None
-    exact_columns: tuple[bool, ...] = ()   # True where a feature is an exact integer
     warnings: tuple[str, ...] = ()         # the mostly-empty columns left out, said so
 
     @property
@@ -67,31 +66,22 @@ class Block:
 
 def feature_plan(table, *, columns: list[str] | None = None, target: str | None = None,
                  array_encoding: str = "invariant", log_scale: str = "auto",
-                 missing: str = "drop", exclude: tuple[str, ...] = (),
-                 medians: dict | None = None) -> FeaturePlan:
-    """The features of a partitioned table, checked as build_features checks them.
-
-    ``medians`` gives the fill value of each numeric column when ``missing="impute"``.
-    """
+                 missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeaturePlan:
+    """The features of a partitioned table, checked as build_features checks them (the fills
+    of ``missing="impute"`` are added by :func:`analysis.distributed.common.plan_for`)."""
     chosen_by_default = columns is None
     columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
                                      array_encoding=array_encoding, log_scale=log_scale,
                                      missing=missing)
-    features: list[Feature] = []
-    levels: dict[str, list[str]] = {}
-    log_columns: list[str] = []
-    exact: dict[str, bool] = {}
-    notes: list[str] = []
-    warnings: list[str] = []
+    notes, warnings = [], []
     if chosen_by_default:
         # the in-memory rule: a mostly-empty column is left out before rows are dropped
         left_out = mostly_empty_columns(table, columns)
         if left_out and len(left_out) < len(columns):
             columns = [name for name in columns if name not in dict(left_out)]
             warnings.append(left_out_warning(left_out))
-    if chosen_by_default:
         # columns this engine cannot encode are left out of the default features, said so;
-        # named ones are refused below, by name
+        # named ones are refused by name
         unencoded = [n for n in columns if table.column(n).role == "array"
                      or table.column(n).dtype in ("array", "big integer", "rational")]
         if unencoded and len(unencoded) < len(columns):
@@ -99,57 +89,45 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
             notes.append("left out of the features on the dask engine, which does not encode "
                          f"arrays, big integers or rationals yet: {', '.join(unencoded)}; the "
                          "in-memory engine uses them.")
+    features, levels = [], {}
     for name in columns:
-        info = table.column(name)
-        if info.role == "array" or info.dtype == "array":
-            raise StepError(f"{table.name}: column {name!r} holds arrays, which the dask "
-                            "engine does not encode as features yet. Leave it out with "
-                            "--features, or use --engine local.")
-        if info.dtype in ("big integer", "rational"):
-            raise StepError(f"{table.name}: column {name!r} holds {info.dtype}s, which the "
-                            "dask engine does not encode as features. Leave it out with "
-                            "--features, or use --engine local.")
-        if info.role == "invariant":
-            if log_scale == "always":
-                features.append(Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)"))
-                log_columns.append(name)
-            else:
-                features.append(Feature(name, name, "value"))
-                exact[name] = info.dtype == "integer"
-        elif info.role == "flag":
-            if info.dtype != "boolean":
-                raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} "
-                                "values; on the dask engine a flag is a true/false column.")
-            features.append(Feature(name, name, "flag"))
-            exact[name] = True
-        elif info.role == "category":
-            found = _levels(table, name)
-            if len(found) > MAX_LEVELS:
-                raise too_many_levels(table.name, name, len(found))
-            levels[name] = found
-            for level in found:
-                feature = Feature(f"{name}={level}", name, "onehot", level)
-                features.append(feature)
-                exact[feature.name] = True
-        else:
-            raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
-                            "feature.")
+        features.extend(_column_features(table, name, log_scale, levels))
     numeric_target = False
     if target is not None:
         info = table.column(target)
         if info.role == "array":
             raise StepError(f"{table.name}: the array column {target!r} cannot be a target.")
         numeric_target = info.role == "invariant" and info.dtype in ("integer", "real")
-    fill = {}
-    if missing == "impute":
-        fill = dict(medians or {})
-    plan = FeaturePlan(features=tuple(features), columns=tuple(columns), target=target,
+    return FeaturePlan(features=tuple(features), columns=tuple(columns), target=target,
                        numeric_target=numeric_target, missing=missing,
-                       log_columns=tuple(log_columns), levels=levels, fill=fill,
-                       notes=tuple(notes), id_column=table.id_column,
-                       exact_columns=tuple(exact.get(f.name, False) for f in features),
+                       log_columns=tuple(f.column for f in features if f.kind == "log"),
+                       levels=levels, fill={}, notes=tuple(notes), id_column=table.id_column,
                        warnings=tuple(warnings))
-    return plan
+
+
+def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Feature]:
+    """The features of one column, as build_features names them (one-hot ``levels`` kept)."""
+    info = table.column(name)
+    if info.role == "array" or info.dtype in ("array", "big integer", "rational"):
+        what = "arrays" if info.role == "array" or info.dtype == "array" else f"{info.dtype}s"
+        raise StepError(f"{table.name}: column {name!r} holds {what}, which the dask engine "
+                        "does not encode as features yet. Leave it out with --features, or "
+                        "use --engine local.")
+    if info.role == "invariant":
+        return [Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
+                if log_scale == "always" else Feature(name, name, "value")]
+    if info.role == "flag":
+        if info.dtype != "boolean":
+            raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} values; "
+                            "on the dask engine a flag is a true/false column.")
+        return [Feature(name, name, "flag")]
+    if info.role != "category":
+        raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
+                        "feature.")
+    levels[name] = _levels(table, name)
+    if len(levels[name]) > MAX_LEVELS:
+        raise too_many_levels(table.name, name, len(levels[name]))
+    return [Feature(f"{name}={level}", name, "onehot", level) for level in levels[name]]
 
 
 def _levels(table, name: str) -> list[str]:

@@ -14,6 +14,7 @@ import numpy as np
 
 from analysis.distributed.common import (
     Context,
+    Settings,
     blocks_for,
     feature_moments,
     plan_for,
@@ -65,7 +66,7 @@ def run_outliers(step, ctx: Context):
     clusters = _clusters(step, ctx, plan, blocks, notes)
     separator = None if step.target is None else \
         _separator_model(step, ctx, at, fit_rows, len(shift), notes)
-    spec = _Score(forest=forest, factor=factor, clusters=clusters, n=n, shift=shift,
+    spec = Settings(forest=forest, factor=factor, clusters=clusters, n=n, shift=shift,
                   scale=scale, separator=separator, lof_rows=lof_rows, offsets=at[3],
                   typical=_typical_distances(clusters, lof_sample))
     shared = ctx.share(spec)   # fitted models: sent to each worker once, not per task
@@ -89,13 +90,6 @@ def run_outliers(step, ctx: Context):
         notes=ol.said_as_notes(notes), warnings=warned + ol.said_as_warnings(notes),
         elapsed_seconds=time.perf_counter() - started,
     )
-
-
-class _Score:
-    """What scoring a partition needs (a plain object: dask leaves it as it is)."""
-
-    def __init__(self, **settings):
-        self.__dict__.update(settings)
 
 
 def _clusters(step, ctx, plan, blocks, notes):
@@ -160,7 +154,7 @@ def _in_sample(spec, index: int, count: int, rows: np.ndarray):
     return inside, np.searchsorted(rows, local[inside])
 
 
-def _score_block(block, index: int, spec: _Score) -> dict:
+def _score_block(block, index: int, spec: Settings) -> dict:
     """Every measure's score for one partition's rows, and what the reasons need."""
     from analysis.outliers import relative_distances
 
