@@ -444,15 +444,11 @@ def ward_cuts(values: np.ndarray, ks: list[int]):
 
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
              notes: list[str]) -> np.ndarray:
-    from sklearn.cluster import HDBSCAN
     from sklearn.neighbors import NearestNeighbors
 
     n = len(values)
     fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
-    size = hdbscan_size(min_cluster_size, len(fit))
-    model = HDBSCAN(min_cluster_size=size, copy=True)
-    sample_labels = model.fit_predict(values[fit])
-    notes.append(hdbscan_size_note(size))
+    sample_labels = hdbscan_fit(values[fit], min_cluster_size, notes)
     if len(fit) == n:
         return sample_labels
     notes.append(hdbscan_sample_note(sample_size, n))
@@ -460,6 +456,16 @@ def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: 
     index = nearest.kneighbors(values, return_distance=False)[:, 0]
     labels = sample_labels[index]
     labels[fit] = sample_labels
+    return labels
+
+
+def hdbscan_fit(values: np.ndarray, min_cluster_size: int, notes: list[str]) -> np.ndarray:
+    """HDBSCAN's labels of ``values`` (noise -1), and the note of the smallest cluster."""
+    from sklearn.cluster import HDBSCAN
+
+    size = hdbscan_size(min_cluster_size, len(values))
+    labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(values)
+    notes.append(hdbscan_size_note(size))
     return labels
 
 

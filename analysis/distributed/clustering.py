@@ -201,12 +201,8 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
         for k, _, centres in cl.ward_cuts(fit, ks):
             yield k, NearestCentre(centres), None
     elif method == "hdbscan":
-        from sklearn.cluster import HDBSCAN
-
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
-        size = cl.hdbscan_size(step.min_cluster_size, len(fit))
-        labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(fit)
-        notes.append(cl.hdbscan_size_note(size))
+        labels = cl.hdbscan_fit(fit, step.min_cluster_size, notes)
         if len(fit) < n:
             notes.append(cl.hdbscan_sample_note(len(fit), n))
         if step.k is not None:
@@ -218,10 +214,6 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
 
 class _Lloyd(NearestCentre):
     """Nearest-centre assignment whose centres are refined over all rows before first use."""
-
-    def __init__(self, centres):
-        super().__init__(centres)
-        self.refined = False
 
 
 def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,

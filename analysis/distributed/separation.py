@@ -43,9 +43,7 @@ def run_separator(step, ctx: Context):
 
     started = time.perf_counter()
     table = ctx.table
-    if not step.target:
-        raise StepError(f"{table.name}: the separator needs a target column; name one with "
-                        "target (--target COL on the command line).")
+    step.check_table(table)
     if step.augment_permutations:
         raise StepError(f"{table.name}: augment_permutations needs matrix columns, which the "
                         "dask engine does not encode; set it to 0 or use --engine local.")
