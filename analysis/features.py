@@ -258,7 +258,7 @@ def _read_intervals(table: Table, values: np.ndarray, features: list[Feature], e
             continue
         read = marks.numeric(end)
         values[marks.positions, j] = read if feature.kind == "value" \
-            else _signed_log(read.tolist())
+            else signed_log(read.tolist())
         notes.append(f"{len(marks)} interval cells of {feature.column!r} read as their "
                      f"{'midpoint' if end == 'midpoint' else end + ' end'}.")
 
@@ -532,7 +532,8 @@ def _missing_mask(table: Table, column: str) -> np.ndarray:
     return mask
 
 
-def _signed_log(values) -> np.ndarray:
+def signed_log(values) -> np.ndarray:
+    """sign(x)*log10(1+|x|) of each value (None or NaN: NaN), exact enough for any integer."""
     out = np.empty(len(values), dtype=np.float64)
     for i, v in enumerate(values):
         if v is None or (isinstance(v, float) and math.isnan(v)):
@@ -565,8 +566,8 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
             return _flag_block(table, name, notes)
         use_log = log_scale == "always" or (log_scale == "auto" and info.dtype == "big integer")
         if use_log:
-            values = _signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
-                else _signed_log(table.numeric(name).tolist())
+            values = signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
+                else signed_log(table.numeric(name).tolist())
             if log_scale == "auto":
                 beyond = "64 bits" if any(
                     v is not None and not isinstance(v, float) and abs(v) > 2**63 - 1
@@ -583,17 +584,24 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
         levels = sorted({str(v) for v in labels if v is not None})
         if len(levels) > MAX_LEVELS:
             raise too_many_levels(table.name, name, len(levels))
-        block = np.zeros((len(labels), len(levels)))
-        position = {level: j for j, level in enumerate(levels)}
-        for i, v in enumerate(labels):
-            if v is None:
-                block[i, :] = np.nan
-            else:
-                block[i, position[str(v)]] = 1.0
-        return block, [Feature(f"{name}={level}", name, "onehot", level) for level in levels]
+        return one_hot(labels, levels), [Feature(f"{name}={level}", name, "onehot", level)
+                                         for level in levels]
     if info.role == "array":
         return _array_block(table, name, array_encoding, notes)
     raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a feature.")
+
+
+def one_hot(labels: list, levels: list[str]) -> np.ndarray:
+    """One column per level: 1 where a label (read as text) is that level, a row of NaN for a
+    missing label (None)."""
+    block = np.zeros((len(labels), len(levels)))
+    position = {level: j for j, level in enumerate(levels)}
+    for i, v in enumerate(labels):
+        if v is None:
+            block[i, :] = np.nan
+        else:
+            block[i, position[str(v)]] = 1.0
+    return block
 
 
 def too_many_levels(table_name: str, name: str, count: int) -> StepError:

@@ -21,6 +21,8 @@ from analysis.features import (
     filled_note,
     left_out_warning,
     mostly_empty_columns,
+    one_hot,
+    signed_log,
     too_many_levels,
 )
 
@@ -148,22 +150,13 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     blocks = []
     for name in plan.columns:
         series = frame[name]
-        if name in plan.levels:
-            found = plan.levels[name]
-            labels = series.astype(object).where(series.notna(), None).to_numpy()
-            text = np.array(["" if v is None else str(v) for v in labels], dtype=object)
-            block = np.zeros((n, len(found)))
-            index = {level: j for j, level in enumerate(found)}
-            columns = np.array([index.get(t, -1) for t in text], dtype=np.int64)
-            hit = columns >= 0
-            block[np.flatnonzero(hit), columns[hit]] = 1.0
-            block[np.array([v is None for v in labels], dtype=bool)] = np.nan
-            blocks.append(block)
+        if name in plan.levels:   # the levels are those of the whole table
+            blocks.append(one_hot(series.astype(object).where(series.notna(), None).tolist(),
+                                  plan.levels[name]))
             continue
         values = _as_float(series)
-        if name in plan.log_columns:
-            values = np.sign(values) * np.log10(1 + np.abs(values))
-        blocks.append(values[:, None])
+        blocks.append((signed_log(values.tolist()) if name in plan.log_columns
+                       else values)[:, None])
     values = np.column_stack(blocks) if blocks else np.empty((n, 0))
     positions = np.arange(offset, offset + n, dtype=np.int64)
     ids = frame[plan.id_column].to_numpy() if plan.id_column else positions
