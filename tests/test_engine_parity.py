@@ -343,6 +343,9 @@ CASES = [
                  id="dropped-rows-warning"),
     # 'diameter' is missing in 49% of rows: left out of the default features, with a warning
     pytest.param("projection", {"method": "pca"}, _mostly_empty, id="mostly-empty-column"),
+    # a target only colours a PCA picture: the forests, with no girth, are still drawn
+    pytest.param("projection", {"method": "pca", "columns": NUMBERS[:-1], "target": "girth"},
+                 _projection, id="projection-coloured-by-a-column-with-gaps"),
 ]
 
 
@@ -368,6 +371,9 @@ def _check_reference(kind: str, params: dict, result, frame: pd.DataFrame) -> No
         eigen = np.sort(np.linalg.eigvalsh(np.corrcoef(rows.to_numpy(float), rowvar=False)))
         np.testing.assert_allclose(result.explained_variance_ratio, eigen[::-1] / eigen.sum(),
                                    atol=1e-9)
+    elif kind == "projection" and params.get("target") == "girth":
+        # every graph of the atlas has the other numbers; 20 forests have no girth
+        assert len(result.row_ids) == GRAPHS > int(frame.girth.notna().sum())
     elif kind == "clustering":
         assert sum(p.size for p in result.profiles) == len(kept)
     elif kind == "separator":
