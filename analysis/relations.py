@@ -40,6 +40,8 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.plain import plain
 from analysis.progress import quiet
+from analysis.settings import SEED, Setting, named
+from analysis.settings import bound as bound_settings
 
 __all__ = [
     "CAVEAT",
@@ -60,6 +62,20 @@ CAVEAT = (
 )
 
 # Caps that keep a 20-column, million-row table within seconds; the result notes each cut.
+SETTINGS = (
+    Setting("columns", label="Columns to search", option="--columns", metavar="A,B,...",
+            help="Integer, rational and flag columns are searched exactly; real columns for "
+                 "relations that hold to a tolerance.",
+            option_help="columns to search (default: every integer invariant)"),
+    Setting("robust", label="Also relations a few rows break"),
+    Setting("bounds", label="Sharp bounds in pairs"),
+    Setting("triples", label="and in triples"),
+    Setting("max_breakers", page_minimum=0.0, page_maximum=1e6, page_step=0.01,
+            label="Rows allowed to break (share, or a count)"),
+    Setting("max_coefficient", minimum=1, page_maximum=100, spoken="relations: max_coefficient",
+            label="Largest coefficient in a bound"),
+    SEED,
+)
 MAX_RELATION_COLUMNS = 40
 MAX_APPROXIMATE_COLUMNS = 20
 MAX_BOUND_COLUMNS = 20
@@ -1906,13 +1922,7 @@ def check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
             f"relations: max_breakers must be a fraction in [0, 1) or a whole number of rows, "
             f"got {max_breakers!r}"
         )
-    if isinstance(max_coefficient, bool) or not isinstance(max_coefficient, Integral) or (
-        max_coefficient < 1
-    ):
-        raise StepError(
-            f"relations: max_coefficient must be a whole number of at least 1, got "
-            f"{max_coefficient!r}"
-        )
+    named(bound_settings(RelationsStep))["max_coefficient"].check(max_coefficient)
     if not isinstance(tolerance, (int, float)) or not 0 < tolerance < 1:
         raise StepError(
             f"relations: tolerance must lie strictly between 0 and 1, got {tolerance!r}"
