@@ -145,7 +145,7 @@ class LinearEquation:
         (in ``feature_names`` order), or a mapping (dict, pandas DataFrame) from feature name
         to a column of values. Integer and short-decimal columns are evaluated exactly.
         """
-        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        values, exact = term_scores(self.terms, X, self.feature_names)
         if exact:
             scores, denominator = values
             return _compare(scores, denominator, self.constant, self.relation)
@@ -222,7 +222,7 @@ class Formula:
 
     def predict(self, X) -> np.ndarray:
         """Values of the right-hand side as floats (X as for ``LinearEquation.holds``)."""
-        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        values, exact = term_scores(self.terms, X, self.feature_names)
         if exact:
             total, denominator = values
             return np.asarray(total, dtype=float) / denominator + float(self.constant)
@@ -1091,8 +1091,10 @@ def _sorted_with_labels(scores: np.ndarray, positive: np.ndarray):
     return np.take_along_axis(scores, order, axis=1), positive[order]
 
 
-def _score_counts(scores: np.ndarray, positive: np.ndarray):
-    """Distinct score values (ascending) with the number of rows and of positive rows at each."""
+def score_counts(scores: np.ndarray, positive: np.ndarray):
+    """Distinct score values (ascending) with the number of rows and of positive rows at each.
+
+    Engines that score block by block count each block here and merge the counts."""
     if scores.dtype == np.int64 and scores.size:
         smallest, largest = int(scores.min()), int(scores.max())
         if largest - smallest <= 4 * scores.size + 1024:
@@ -1119,7 +1121,7 @@ def _best_cut(scores: np.ndarray, positive: np.ndarray):
     are predicted positive, for "<=" the rows with score <= low; no row scores strictly
     between. ``counts`` are the per-value counts the cut was read from.
     """
-    return cut_of_counts(*_score_counts(scores, positive))
+    return cut_of_counts(*score_counts(scores, positive))
 
 
 def cut_of_counts(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndarray):
@@ -1153,7 +1155,7 @@ def cut_of_counts(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndar
 
 
 def _violations_at(counts, relation: str, threshold: float) -> int:
-    """Violations of ``score relation threshold`` from the per-value counts of _score_counts."""
+    """Violations of ``score relation threshold`` from the per-value counts of score_counts."""
     values, rows_at, positives_at = counts
     total_pos = int(positives_at.sum())
     total_neg = int(rows_at.sum()) - total_pos
@@ -1953,8 +1955,10 @@ def _term_column(X, name: str, feature_names: Sequence[str]):
     return X[:, list(feature_names).index(name)]
 
 
-def _evaluate_terms(terms: Sequence[Term], X, feature_names: Sequence[str]):
-    """(S, D) exact sums, exact=True; or float sums, exact=False."""
+def term_scores(terms: Sequence[Term], X, feature_names: Sequence[str] = ()):
+    """The terms summed on every row: ``((S, D), True)``, exact integers S over a common
+    denominator D, when every column is exact (integers, short decimals, values below 2**53);
+    else ``(float sums, False)``. ``X`` as for :meth:`LinearEquation.holds`."""
     factor_columns = [
         [_term_column(X, name, feature_names) for name in term.factor_names()] for term in terms
     ]
