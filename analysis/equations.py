@@ -872,8 +872,10 @@ class _DirectionFitter:
                 pass
 
         errors = 1.0
-        for penalty_scale in (0.01, 0.3):
-            direction, missed, _ = _l1_svm_direction(Z, signs, self.working, penalty_scale)
+        # the two penalties' programmes are independent: solved at once, kept in order
+        for direction, missed, _ in _in_order(
+            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), (0.01, 0.3)
+        ):
             keep(direction)
             errors = min(errors, missed)
         # When the classes overlap a lot, the linear programs are slow and their refits add
@@ -895,8 +897,10 @@ class _DirectionFitter:
 
         # Refit each support found so far without shrinkage.
         supports.sort(key=len)
-        for support in supports[:_MAX_SUPPORTS]:
-            for direction in self._refit_local(list(support)):
+        refits = _in_order(lambda support: self._refit_local(list(support)),
+                           supports[:_MAX_SUPPORTS])
+        for found in refits:
+            for direction in found:
                 keep(direction, record_support=False)
         return [self._raw(direction) for direction in directions]
 
@@ -916,9 +920,31 @@ class _DirectionFitter:
             supports += [sorted(set(current) - {j}) for j in current]
         found = []
         errors: list = []
-        for columns in supports:
-            found.extend(self._raw(direction) for direction in self._refit_local(columns, errors))
+
+        def refit(columns):
+            mine: list = []
+            return self._refit_local(columns, mine), mine
+
+        for directions, mine in _in_order(refit, supports):
+            found.extend(self._raw(direction) for direction in directions)
+            errors.extend(mine)
         return found, [(missed, self._raw(direction)) for missed, direction in errors]
+
+
+def _in_order(work, items) -> list:
+    """``work(item)`` for each item, in the order of ``items``, on every core (threads: the
+    linear programmes and numpy release Python's lock). Each result depends on its item
+    alone, so the numbers do not depend on the number of workers."""
+    from analysis.threads import one_thread_each, refit_workers
+
+    items = list(items)
+    workers = min(refit_workers(), len(items))
+    if workers <= 1:
+        return [work(item) for item in items]
+    from concurrent.futures import ThreadPoolExecutor
+
+    with one_thread_each(workers), ThreadPoolExecutor(max_workers=workers) as pool:
+        return list(pool.map(work, items))
 
 
 # ----------------------------------------------------------------------------------------------
