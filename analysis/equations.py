@@ -1075,24 +1075,40 @@ def _sample_violations(matrix: np.ndarray, positive: np.ndarray, candidates: lis
 def _violations_for_weights(matrix: np.ndarray, positive: np.ndarray, weights) -> np.ndarray:
     """Fewest violations any constant gives, per column of ``weights``, on these rows."""
     m = matrix.shape[0]
-    total_pos = int(positive.sum())
-    total_neg = m - total_pos
     count = weights.shape[1]
     result = np.empty(count, dtype=np.int64)
-    below = np.arange(1, m)
     chunk_size = max(1, 2_000_000 // max(m, 1))
     for start in range(0, count, chunk_size):
         scores = matrix @ weights[:, start : start + chunk_size]
         # one candidate per row from here on, so that each sort runs over contiguous memory
-        ordered, labels = _sorted_with_labels(np.ascontiguousarray(scores.T), positive)
-        pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
-        neg_below = below - pos_below
-        at_least = pos_below + (total_neg - neg_below)
-        at_most = neg_below + (total_pos - pos_below)
-        valid = ordered[:, 1:] > ordered[:, :-1]
-        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
-        result[start : start + best.size] = best
+        scores = np.ascontiguousarray(scores.T)
+        # the sorts of separate candidates are independent: split among the cores
+        pieces = max(1, min(len(scores) // _SORT_PIECE_ROWS, 8))
+        bounds = np.linspace(0, len(scores), pieces + 1).astype(int)
+        parts = [scores[a:b] for a, b in zip(bounds[:-1], bounds[1:])]
+        found = _in_order(lambda part: _fewest_violations(part, positive), parts)
+        result[start : start + len(scores)] = np.concatenate(found)
     return result
+
+
+# Candidates below which their sorts are not split among threads.
+_SORT_PIECE_ROWS = 64
+
+
+def _fewest_violations(scores: np.ndarray, positive: np.ndarray) -> np.ndarray:
+    """Per row of ``scores`` (one candidate's scores on every row): the fewest violations
+    any threshold between two distinct scores gives."""
+    m = scores.shape[1]
+    total_pos = int(positive.sum())
+    total_neg = m - total_pos
+    below = np.arange(1, m)
+    ordered, labels = _sorted_with_labels(scores, positive)
+    pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
+    neg_below = below - pos_below
+    at_least = pos_below + (total_neg - neg_below)
+    at_most = neg_below + (total_pos - pos_below)
+    valid = ordered[:, 1:] > ordered[:, :-1]
+    return np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
 
 
 # Below this, twice an integer-valued score plus a 0/1 label is still an exact float.
