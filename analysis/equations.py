@@ -1470,7 +1470,12 @@ def _search(
     else:
         chosen = _shortlist(candidates, first, _FINALISTS, sample.size, space.size)
         finalists = [candidates[i] for i in chosen]
-    evaluations = [_evaluate(space, candidate, positive) for candidate in finalists]
+    # each finalist's exact check on every row is independent of the others: run on every
+    # core, once the exact columns they share are read (in this thread)
+    for candidate in finalists:
+        for index, _ in candidate:
+            space.exact_column(index)
+    evaluations = _in_order(lambda candidate: _evaluate(space, candidate, positive), finalists)
     evaluations = [e for e in evaluations if e is not None]
     if not evaluations:
         raise StepError(
