@@ -38,6 +38,15 @@ def table_from_frame(frame, name: str):
     return read_table(buffer.getvalue().encode(), name)
 
 
+def records_table(records: list[dict], name: str = "t.json"):
+    """A list of records written as a JSON file's bytes and read by analysis.table."""
+    import json
+
+    from analysis.table import read_table
+
+    return read_table(json.dumps(records).encode(), name)
+
+
 def iris_frame(*, short_names: bool = False):
     """scikit-learn's iris data (150 flowers, 4 measurements, 3 species; the
     sklearn.datasets.load_iris documentation): an id column ``flower`` (F000 to F149), the

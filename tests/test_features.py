@@ -16,16 +16,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 import sympy
+from conftest import records_table
 
 from analysis.errors import StepError, TableError
 from analysis.features import build_features, canonical_key, group_keys, target_values
 from analysis.table import load_table, read_table
 
 TABLES = Path(__file__).resolve().parent.parent / "sample_tables"
-
-
-def _table(records: list[dict], name: str = "t.json"):
-    return read_table(json.dumps(records).encode(), name)
 
 
 @pytest.fixture(scope="module")
@@ -36,7 +33,7 @@ def small():
         {"obj": "c", "n": 10, "q": "-2", "smooth": True, "kind": "toric", "m": [[2, 2], [2, 2]]},
         {"obj": "d", "n": 0, "q": "7/3", "smooth": False, "kind": "other", "m": [[5, 0], [0, 1]]},
     ]
-    return _table(records, "small.json")
+    return records_table(records, "small.json")
 
 
 # ------------------------------------------------------------------------------------------
@@ -117,7 +114,7 @@ def _signed_log(x: int) -> float:
 
 def test_big_integers_use_the_signed_log_and_say_so():
     values = [2**200 + 1, -(10**40), 17, 0]
-    table = _table([{"k": i, "big": v} for i, v in enumerate(values)])
+    table = records_table([{"k": i, "big": v} for i, v in enumerate(values)])
     fm = build_features(table, columns=["big"])
     assert fm.names == ["slog(big)"] and fm.features[0].kind == "log"
     assert np.allclose(fm.values[:, 0], [_signed_log(v) for v in values], rtol=1e-12)
@@ -128,7 +125,7 @@ def test_big_integers_use_the_signed_log_and_say_so():
 
 def test_log_scale_never_and_always():
     values = [2**70, -5, 999]
-    table = _table([{"k": i, "big": v, "small": i * 10 - 5} for i, v in enumerate(values)])
+    table = records_table([{"k": i, "big": v, "small": i * 10 - 5} for i, v in enumerate(values)])
     never = build_features(table, columns=["big"], log_scale="never")
     assert never.names == ["big"]
     assert never.values[:, 0].tolist() == [float(v) for v in values]
@@ -139,7 +136,7 @@ def test_log_scale_never_and_always():
 
 
 def test_integers_past_2_53_with_a_gap_use_the_log_and_say_how_big():
-    table = _table([{"n": 2**60 + 1}, {"n": None}, {"n": 5}])
+    table = records_table([{"n": 2**60 + 1}, {"n": None}, {"n": 5}])
     fm = build_features(table, columns=["n"], missing="impute")
     assert fm.names == ["slog(n)"]
     assert any("beyond 2**53" in note for note in fm.notes)
@@ -218,7 +215,7 @@ def test_a_target_with_one_class_builds_features():
 
 @pytest.fixture(scope="module")
 def ragged():
-    return _table([{"k": 0, "m": [[1, 2, 3]]}, {"k": 1, "m": [[4], [5]]},
+    return records_table([{"k": 0, "m": [[1, 2, 3]]}, {"k": 1, "m": [[4], [5]]},
                    {"k": 2, "m": [[1, 0], [0, 1]]}])
 
 
@@ -232,7 +229,7 @@ def test_flat_encoding_pads_with_zero_and_says_so(ragged):
 
 def test_invariant_encoding_kinds_and_values():
     m = [[3, 0, 1], [1, 1, 1]]
-    table = _table([{"k": 0, "m": m}, {"k": 1, "m": [[0, 0, 0], [2, 2, 2]]}])
+    table = records_table([{"k": 0, "m": m}, {"k": 1, "m": [[0, 0, 0], [2, 2, 2]]}])
     fm = build_features(table, columns=["m"], array_encoding="invariant")
     kinds = {f.kind for f in fm.features}
     assert kinds == {"sorted", "row_sums", "column_sums", "singular"}
@@ -258,14 +255,14 @@ def test_invariant_features_do_not_change_under_permutations():
     rng = np.random.default_rng(11)
     m = rng.integers(-5, 6, size=(4, 6))
     copies = [m, m[rng.permutation(4)][:, rng.permutation(6)], m[::-1, ::-1]]
-    table = _table([{"k": i, "m": c.tolist()} for i, c in enumerate(copies)])
+    table = records_table([{"k": i, "m": c.tolist()} for i, c in enumerate(copies)])
     fm = build_features(table, columns=["m"], array_encoding="invariant")
     for i in (1, 2):
         assert np.allclose(fm.values[i], fm.values[0], atol=1e-9)
 
 
 def test_lists_and_matrices_in_one_column():
-    table = _table([{"k": 0, "m": [3, 1, 2]}, {"k": 1, "m": [[1, 2], [3, 4]]}])
+    table = records_table([{"k": 0, "m": [3, 1, 2]}, {"k": 1, "m": [[1, 2], [3, 4]]}])
     fm = build_features(table, columns=["m"], array_encoding="invariant")
     row = dict(zip(fm.names, fm.values[0]))
     # the list is read as the one-row matrix [[3, 1, 2]]
@@ -297,7 +294,7 @@ def test_eigenvalue_features_agree_with_numpy_eigvalsh():
     for size in (3, 3, 4, 4, 4):
         a = rng.integers(-6, 7, size=(size, size))
         matrices.append(a + a.T)
-    table = _table([{"k": i, "m": m.tolist()} for i, m in enumerate(matrices)])
+    table = records_table([{"k": i, "m": m.tolist()} for i, m in enumerate(matrices)])
     fm = build_features(table, columns=["m"], array_encoding="invariant")
     eig = [j for j, f in enumerate(fm.features) if f.kind == "eigen"]
     assert [fm.names[j] for j in eig] == ["eig1(m)", "eig2(m)", "eig3(m)", "eig4(m)"]
@@ -316,7 +313,7 @@ def test_eigenvalues_of_cycle_graphs():
         for v in range(n):
             adjacency[v, (v + 1) % n] = adjacency[(v + 1) % n, v] = 1
         records.append({"k": n, "m": adjacency.tolist()})
-    fm = build_features(_table(records), columns=["m"], array_encoding="invariant")
+    fm = build_features(records_table(records), columns=["m"], array_encoding="invariant")
     eig = [j for j, f in enumerate(fm.features) if f.kind == "eigen"]
     for i, n in enumerate((5, 6)):
         expected = sorted((2 * math.cos(2 * math.pi * k / n) for k in range(n)), reverse=True)
@@ -327,7 +324,7 @@ def test_eigenvalues_of_cycle_graphs():
 def test_singular_values_agree_with_numpy_svd_and_gram_eigenvalues():
     rng = np.random.default_rng(8)
     matrices = [rng.integers(-4, 5, size=(3, 5)) for _ in range(4)]
-    fm = build_features(_table([{"k": i, "m": m.tolist()} for i, m in enumerate(matrices)]),
+    fm = build_features(records_table([{"k": i, "m": m.tolist()} for i, m in enumerate(matrices)]),
                         columns=["m"], array_encoding="invariant")
     sv = [j for j, f in enumerate(fm.features) if f.kind == "singular"]
     assert len(sv) == 3
@@ -341,7 +338,7 @@ def test_singular_values_agree_with_numpy_svd_and_gram_eigenvalues():
 
 def test_characteristic_polynomial_of_non_symmetric_matrices_agrees_with_sympy():
     matrices = [[[1, 2, 0], [0, 1, 3], [4, 0, 1]], [[0, 1, 0], [0, 0, 1], [1, 0, 0]]]
-    fm = build_features(_table([{"k": i, "m": m} for i, m in enumerate(matrices)]),
+    fm = build_features(records_table([{"k": i, "m": m} for i, m in enumerate(matrices)]),
                         columns=["m"], array_encoding="invariant")
     poly = [j for j, f in enumerate(fm.features) if f.kind == "charpoly"]
     for i, m in enumerate(matrices):
@@ -473,7 +470,6 @@ def test_group_keys_of_a_plain_column_are_its_values(small):
 def test_large_matrices_get_compact_features_by_default():
     # 16x16 integer matrices: the default encoding gives a few dozen compact features instead
     # of every sorted entry; their rank feature matches numpy's matrix_rank (the reference).
-    import json
 
     rng = np.random.default_rng(4)
     cells = []
@@ -492,7 +488,6 @@ def test_large_matrices_get_compact_features_by_default():
 
 
 def test_small_matrices_keep_the_full_invariant_features():
-    import json
 
     records = [{"m": [[1, 2], [3, 4]]}, {"m": [[0, 1], [1, 0]]}, {"m": [[2, 2], [0, 1]]}]
     table = read_table(json.dumps(records).encode(), "small.json")
@@ -554,7 +549,7 @@ def test_symmetric_matrices_give_row_sums_once():
     graphs = [g for g in nx.graph_atlas_g()[1:60] if g.number_of_nodes() == 4]
     rows = [{"k": i, "m": nx.to_numpy_array(g, dtype=int).tolist()}
             for i, g in enumerate(graphs)]
-    fm = build_features(_table(rows), columns=["m"], array_encoding="invariant")
+    fm = build_features(records_table(rows), columns=["m"], array_encoding="invariant")
     kinds = {f.kind for f in fm.features}
     assert "column_sums" not in kinds and {"row_sums", "eigen"} <= kinds
     assert any(getattr(n, "code", None) == "symmetric_sums" for n in fm.notes)
@@ -566,6 +561,6 @@ def test_symmetric_matrices_give_row_sums_once():
 
 def test_one_asymmetric_matrix_keeps_column_sums():
     rows = [{"k": 0, "m": [[0, 1], [1, 0]]}, {"k": 1, "m": [[0, 2], [1, 0]]}]
-    fm = build_features(_table(rows), columns=["m"], array_encoding="invariant")
+    fm = build_features(records_table(rows), columns=["m"], array_encoding="invariant")
     assert {"row_sums", "column_sums", "charpoly"} <= {f.kind for f in fm.features}
     assert not any(getattr(n, "code", None) == "symmetric_sums" for n in fm.notes)
