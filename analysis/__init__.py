@@ -15,6 +15,7 @@ from analysis.features import (
 )
 from analysis.frames import table_from_frame, write_frame
 from analysis.notebook import run, show
+from analysis.settings import Setting
 from analysis.steps import make_step, step_class, step_params
 from analysis.study import (
     Study,
@@ -33,6 +34,7 @@ __all__ = [
     "FeatureMatrix",
     "Limits",
     "ScoutError",
+    "Setting",
     "StepError",
     "Study",
     "StudyError",

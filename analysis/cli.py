@@ -25,7 +25,7 @@ COMMAND_NAME = "invariant-scout"
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = _parser()
+    parser = build_parser()
     args = parser.parse_args(argv)
     try:
         return args.handler(args)
@@ -54,13 +54,9 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
-def _parser() -> argparse.ArgumentParser:
-    # the options' words are the step modules' own tuples, so the two faces cannot drift
-    from analysis.clustering import METHODS as CLUSTERING_METHODS
-    from analysis.projection import METHODS as PROJECTION_METHODS
-    from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
-    from analysis.separation import MODELS, READINGS
-
+def build_parser() -> argparse.ArgumentParser:
+    """The command line's parser: every subcommand with its options (a step's from its setting
+    records)."""
     parser = argparse.ArgumentParser(
         prog=_program_name(),
         description="Find patterns in a table of computed invariants.",
@@ -71,48 +67,32 @@ def _parser() -> argparse.ArgumentParser:
     inspect.set_defaults(handler=_inspect, kind="overview")
 
     project = _command(commands, "project", "a 2-d picture of the table (PCA, UMAP, t-SNE, LDA)")
-    project.add_argument("--method", choices=PROJECTION_METHODS, default="pca")
-    project.add_argument("--target", help="column to colour by (needed for LDA)")
-    _feature_options(project)
+    _step_options(project, "projection")
     project.set_defaults(handler=_step, kind="projection")
 
     cluster = _command(commands, "cluster", "groups of similar objects, with a sweep over k")
-    cluster.add_argument("--method", default="auto", choices=CLUSTERING_METHODS)
-    cluster.add_argument("--k", type=int, help="number of clusters (default: chosen by sweep)")
-    cluster.add_argument("--compare", metavar="COL", help="a label to compare the clusters with")
-    _feature_options(cluster)
+    _step_options(cluster, "clustering")
     cluster.set_defaults(handler=_step, kind="clustering")
 
     separate = _command(commands, "separate",
                         "is TARGET predictable from the other invariants, and by what equation")
     chosen = separate.add_mutually_exclusive_group(required=True)
-    chosen.add_argument("--target", metavar="COL")
+    _option(chosen, _record("separator", "target"))
     chosen.add_argument("--breaks", metavar="STATEMENT",
                         help="a relation, bound or congruence as the relations step writes it "
                              "(e.g. 'h11 - num_factors >= 0'); the target is then whether an "
                              "object breaks it")
-    separate.add_argument("--reading", choices=READINGS,
-                          help="an invariant target as a number or as classes (default auto: "
-                               f"for {CURVE_MIN_VALUES} to {CURVE_MAX_VALUES} whole-number "
-                               "values a learning curve decides)")
-    separate.add_argument("--model", default="linear", choices=MODELS)
-    separate.add_argument("--train-fraction", type=float, default=0.5, metavar="F")
-    separate.add_argument("--groups", metavar="COL",
-                          help="rows with the same value (or the same matrix up to "
-                               "permutation, for an array column) stay on one side of a split")
-    _feature_options(separate)
+    _step_options(separate, "separator", skip=("target",))
     separate.set_defaults(handler=_step, kind="separator")
 
     relations = _command(commands, "relations",
                          "exact linear relations and sharp bounds among invariants")
-    relations.add_argument("--columns", metavar="A,B,...", help="columns to search (default: "
-                           "every integer invariant)")
+    _step_options(relations, "relations")
     relations.set_defaults(handler=_step, kind="relations")
 
     outliers = _command(commands, "outliers", "a ranked list of objects to look at by hand")
-    outliers.add_argument("--target", metavar="COL")
-    outliers.add_argument("--csv", metavar="PATH", help="also write the list as CSV")
-    _feature_options(outliers)
+    _step_options(outliers, "outliers", then=lambda: outliers.add_argument(
+        "--csv", metavar="PATH", help="also write the list as CSV"))
     outliers.set_defaults(handler=_step, kind="outliers")
 
     run = commands.add_parser("run", help="re-run a saved study and write its report")
@@ -157,19 +137,49 @@ def _command(commands, name: str, help_text: str) -> argparse.ArgumentParser:
     return sub
 
 
-def _feature_options(sub: argparse.ArgumentParser) -> None:
-    sub.add_argument("--features", metavar="A,B,...",
-                     help="feature columns (default: every invariant, flag, category and array "
-                          "column but the target)")
-    from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
+def _records(kind: str) -> tuple:
+    from analysis.steps import step_settings
 
-    sub.add_argument("--array-encoding", choices=ARRAY_ENCODINGS,
-                     default="invariant", help="how matrix and list cells become features")
-    sub.add_argument("--log-scale", choices=LOG_SCALES, default="auto")
-    sub.add_argument("--missing", choices=MISSING_POLICIES, default="drop")
-    sub.add_argument("--intervals", choices=INTERVAL_READINGS, default="missing",
-                     help="interval cells [low, high] of number columns: missing (default), "
-                          "or read as their low end, high end or midpoint")
+    return tuple(record for record in step_settings(kind) if record.option)
+
+
+def _record(kind: str, name: str):
+    return next(record for record in _records(kind) if record.name == name)
+
+
+def _step_options(sub: argparse.ArgumentParser, kind: str, *, skip: tuple = (),
+                  then=None) -> None:
+    """The options of a kind's settings that the command line offers, from the step's
+    records: its own settings first, then ``then()`` (the subcommand's other options), then
+    the shared feature settings."""
+    from analysis.settings import FEATURE_SETTINGS
+
+    shared = {record.name for record in FEATURE_SETTINGS}
+    records = [record for record in _records(kind) if record.name not in skip]
+    for record in records:
+        if record.name not in shared:
+            _option(sub, record)
+    if then is not None:
+        then()
+    for record in records:
+        if record.name in shared:
+            _option(sub, record)
+
+
+def _option(sub, record) -> None:
+    """One option from a setting's record: its choices, its number type, its words. The
+    default stays the step's own (an option not given is not passed)."""
+    kind = record.base_type
+    extra: dict = {}
+    if record.choices:
+        extra["choices"] = record.values
+    elif kind in (int, float):
+        extra["type"] = kind
+    if record.metavar:
+        extra["metavar"] = record.metavar
+    if record.option_help:
+        extra["help"] = record.option_help
+    sub.add_argument(record.option, dest=record.name, **extra)
 
 
 def _split(text: str | None) -> list[str] | None:
@@ -184,25 +194,17 @@ def _split(text: str | None) -> list[str] | None:
 def _params(args: argparse.Namespace) -> dict:
     """Step parameters from the options the subcommand has."""
     params: dict = {"seed": args.seed}
-    mapping = {
-        "method": "method", "target": "target", "k": "k", "compare": "compare",
-        "model": "model", "train_fraction": "train_fraction", "groups": "groups",
-        "array_encoding": "array_encoding", "log_scale": "log_scale", "missing": "missing",
-        "intervals": "intervals",
-    }
-    for option, name in mapping.items():
-        if hasattr(args, option) and getattr(args, option) is not None:
-            params[name] = getattr(args, option)
-    if getattr(args, "reading", None):
-        params["reading"] = args.reading
+    for record in _records(args.kind):
+        value = getattr(args, record.name, None)
+        if record.base_type is list:
+            if value:
+                params[record.name] = _split(value)
+        elif value is not None:
+            params[record.name] = value
     if getattr(args, "breaks", None):
         from analysis.derived import Statement
 
         params["target_statement"] = Statement.parse(args.breaks).to_json()
-    if getattr(args, "features", None):
-        params["columns"] = _split(args.features)
-    if getattr(args, "columns", None):
-        params["columns"] = _split(args.columns)
     return params
 
 

@@ -26,14 +26,41 @@ from analysis.features import FeatureMatrix, build_features, target_values
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
+from analysis.settings import FEATURE_SETTINGS, SEED, Choice, Setting, check_values, named
 from analysis.table import Table
 from analysis.threads import threads_for
 
-METHODS = ("auto", "kmeans", "gmm", "agglomerative", "hdbscan")
+SETTINGS = (
+    Setting("method", spoken="clustering method", label="Method", option="--method",
+            choices=(Choice("auto", "choose by a sweep (k-means, Gaussian mixture, "
+                                    "agglomerative)"),
+                     Choice("kmeans", "k-means", "k-means"),
+                     Choice("gmm", "Gaussian mixture", "Gaussian mixture"),
+                     Choice("agglomerative", "agglomerative (Ward)", "agglomerative (Ward)"),
+                     Choice("hdbscan", "HDBSCAN (finds its own number)", "HDBSCAN"))),
+    Setting("k", minimum=2, page_maximum=200, spoken="k =",
+            label="Number of clusters (0: let the sweep choose)",
+            advice="give a whole number of clusters, at least 2, or leave k unset to choose "
+                   "it by a sweep",
+            option="--k", option_help="number of clusters (default: chosen by sweep)"),
+    Setting("compare", follows_target=True, label="Compare with", option="--compare",
+            metavar="COL",
+            help="A label to compare the clusters with (adjusted Rand index, normalized mutual "
+                 "information). It is not used as a feature.",
+            option_help="a label to compare the clusters with"),
+    Setting("k_range", minimum=2, page_maximum=30, label="The sweep tries k from … to"),
+    *FEATURE_SETTINGS,
+    Setting("standardize", label="Standardize features"),
+    Setting("sample_size", minimum=10, spoken="sample size",
+            advice="give a whole number of at least 10 rows"),
+    Setting("min_cluster_size", minimum=2, page_maximum=100_000,
+            label="Smallest cluster (HDBSCAN)", advice="give a whole number of at least 2 rows"),
+    SEED,
+)
+METHODS = named(SETTINGS)["method"].values
 # Methods that take a number of clusters; "auto" sweeps these.
 K_METHODS = ("kmeans", "gmm", "agglomerative")
-METHOD_TITLES = {"kmeans": "k-means", "gmm": "Gaussian mixture",
-                 "agglomerative": "agglomerative (Ward)", "hdbscan": "HDBSCAN"}
+METHOD_TITLES = named(SETTINGS)["method"].titles
 MINIBATCH_ROWS = 100_000
 # A cluster "differs" on a feature when its mean is this many standard deviations from the
 # mean of the other rows (half a standard deviation: a medium effect, common practice).
@@ -235,23 +262,12 @@ class ClusteringStep:
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
-        if self.method not in METHODS:
-            raise StepError(f"clustering method {self.method!r}: use one of "
-                            f"{', '.join(METHODS)}.")
-        if self.k is not None and (not isinstance(self.k, int) or self.k < 2):
-            raise StepError(f"k = {self.k!r}: give a whole number of clusters, at least 2, "
-                            "or leave k unset to choose it by a sweep.")
+        check_values(self)
         bounds = tuple(self.k_range) if isinstance(self.k_range, (list, tuple)) else ()
         if len(bounds) != 2 or not all(isinstance(b, int) for b in bounds) \
                 or not 2 <= bounds[0] <= bounds[1]:
             raise StepError(f"k_range {self.k_range!r}: give the lowest and highest k to try, "
                             "two whole numbers with 2 <= lowest <= highest, e.g. [2, 8].")
-        if not isinstance(self.sample_size, int) or self.sample_size < 10:
-            raise StepError(f"sample size {self.sample_size!r}: give a whole number of at "
-                            "least 10 rows.")
-        if not isinstance(self.min_cluster_size, int) or self.min_cluster_size < 2:
-            raise StepError(f"min_cluster_size {self.min_cluster_size!r}: give a whole number "
-                            "of at least 2 rows.")
 
     def check_table(self, table: Table) -> None:
         self.check()

@@ -53,6 +53,8 @@ MODULI = tuple(range(2, 13))
 """The moduli searched unless others are asked for."""
 MAX_LISTED_ROWS = 1000
 """Breaking rows listed per congruence unless another number is asked for."""
+# Columns spanning at most this many values are counted on a grid of their values.
+_GRID_SPAN = 1 << 16
 
 
 @dataclass(frozen=True)
@@ -107,6 +109,8 @@ class _Column:
     present: np.ndarray  # bool mask over rows
     exact: np.ndarray  # exact values on present rows: int64 or object (Python ints)
     residues: dict  # base modulus -> int64 residues on present rows
+    low: int = 0  # least value, and how many values from it a grid of its values spans
+    span: int = 0  # (0 for a column too wide for a grid or held as Python ints)
 
 
 def _is_missing(value) -> bool:
@@ -184,7 +188,12 @@ def _prepare(columns: Mapping[str, Sequence], n_rows: int, moduli: list[int]) ->
             residues = {m: reduced % m for m in bases}
         else:
             residues = {m: _reduce(exact, m) for m in bases}
-        prepared.append(_Column(str(name), present, exact, residues))
+        low = span = 0
+        if exact.dtype != object and len(exact):
+            low = int(exact.min())
+            span = int(exact.max()) - low + 1
+            span = span if span <= _GRID_SPAN else 0
+        prepared.append(_Column(str(name), present, exact, residues, low, span))
     return prepared
 
 
@@ -243,6 +252,16 @@ def _canonical_pairs(modulus: int, max_coefficient: int) -> dict:
             if key not in found:
                 found[key] = (_signed(key[0], modulus), _signed(key[1], modulus))
     return found
+
+
+def _residue_labels(keys, modulus: int) -> np.ndarray:
+    """For each key k and each cell (x, y) of a modulus x modulus grid (flattened), the bin
+    k*modulus + (key[0]*x + key[1]*y mod modulus): one count over these bins gives the rows
+    by residue of every key at once."""
+    grid_x, grid_y = np.indices((modulus, modulus))
+    return np.concatenate([
+        k * modulus + ((key[0] * grid_x + key[1] * grid_y) % modulus).ravel()
+        for k, key in enumerate(keys)]) if keys else np.zeros(0, dtype=np.int64)
 
 
 def _integer_relations(relations) -> list[tuple[dict, int]]:
@@ -354,6 +373,31 @@ def _determined(column: _Column, coef: int, modulus: int, singles: dict, constan
     return any(known % need == 0 for known in singles.get(column.name, ()))
 
 
+def _joint_residues(first: _Column, second: _Column, x_rows, y_rows) -> dict:
+    """For each base modulus, the rows counted by their pair of residues (a base x base grid).
+
+    Two narrow columns are first counted by their pair of values, in one pass over the rows;
+    the residues are then read off the distinct pairs, each with its count.
+    """
+    bases = list(first.residues)
+    if first.span and second.span and first.span * second.span <= max(
+            _GRID_SPAN, 4 * len(first.exact)):
+        key = (first.exact[x_rows] - first.low) * second.span + (
+            second.exact[y_rows] - second.low)
+        counts = np.bincount(key, minlength=first.span * second.span)
+        pairs = np.flatnonzero(counts)
+        weights = counts[pairs]
+        x, y = pairs // second.span + first.low, pairs % second.span + second.low
+        return {base: np.bincount((x % base) * base + y % base, weights=weights,
+                                  minlength=base * base).astype(np.int64).reshape(base, base)
+                for base in bases}
+    joints = {}
+    for base in bases:
+        x, y = first.residues[base][x_rows], second.residues[base][y_rows]
+        joints[base] = np.bincount(x * base + y, minlength=base * base).reshape(base, base)
+    return joints
+
+
 def _pair_facts(first: _Column, second: _Column, moduli, settings, singles, constants):
     """Every pair congruence on two columns before the strongest-modulus rule."""
     both = first.present & second.present
@@ -361,20 +405,25 @@ def _pair_facts(first: _Column, second: _Column, moduli, settings, singles, cons
     rows = int(both.sum())
     allowed = _allowed_breakers(rows, settings["max_breakers"], settings["share"])
     facts = []
-    for base in first.residues:
-        x, y = first.residues[base][x_rows], second.residues[base][y_rows]
-        joint = np.bincount(x * base + y, minlength=base * base).reshape(base, base)
+    for base, joint in _joint_residues(first, second, x_rows, y_rows).items():
+        x = y = None  # the residues row by row, taken when a congruence is close
         for m in settings["owned"][base]:
-            folded = _fold(joint, base, m)
-            grid_x, grid_y = np.indices((m, m))
-            for key, (a, b) in settings["pairs"][m].items():
-                counts = np.bincount(((key[0] * grid_x + key[1] * grid_y) % m).ravel(),
-                                     weights=folded.ravel(), minlength=m)
-                residue = int(np.argmax(counts))
-                breakers = rows - int(counts[residue])
+            # rows by residue of every canonical pair at once: counts[k, r] for key k
+            keys = settings["pairs"][m]
+            if not keys:
+                continue
+            folded = _fold(joint, base, m).ravel()
+            counts = np.bincount(settings["labels"][m], weights=np.tile(folded, len(keys)),
+                                 minlength=len(keys) * m).reshape(len(keys), m)
+            residues = counts.argmax(axis=1).tolist()
+            best = counts.max(axis=1).tolist()
+            for (key, (a, b)), residue, top in zip(keys.items(), residues, best):
+                breakers = rows - int(top)
                 if breakers > allowed or _determined(first, a, m, singles, constants) \
                         or _determined(second, b, m, singles, constants):
                     continue
+                if x is None:
+                    x, y = first.residues[base][x_rows], second.residues[base][y_rows]
                 values = (key[0] * (x % m) + key[1] * (y % m)) % m
                 combined = _combination(first.exact[x_rows], second.exact[y_rows], a, b)
                 if not _distinct_at_least(combined[values == residue], settings["min_distinct"]):
@@ -468,6 +517,8 @@ def find_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
     settings = {"max_breakers": int(max_breakers), "share": float(max_breaker_share),
                 "min_distinct": int(min_distinct), "owned": _owned_moduli(moduli),
                 "pairs": {m: _canonical_pairs(m, int(max_coefficient)) for m in moduli}}
+    settings["labels"] = {m: _residue_labels(list(keys), m)
+                          for m, keys in settings["pairs"].items()}
     known = _integer_relations(relations)
     constants = {c.name for c in prepared if len(c.exact) and not _distinct_at_least(c.exact, 2)}
     facts, singles = [], {}

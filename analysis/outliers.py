@@ -48,8 +48,28 @@ from analysis.notes import Note, note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.projection import prepared, sample_positions
+from analysis.settings import FEATURE_SETTINGS, SEED, Setting, check_values
 from analysis.table import Table
 from analysis.threads import threads_for
+
+SETTINGS = (
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
+            metavar="COL",
+            help="Objects that a cross-validated separator for it gets wrong with confidence "
+                 "rank higher."),
+    *FEATURE_SETTINGS,
+    Setting("top", minimum=1, page_maximum=10_000, spoken="top =", label="Objects listed",
+            advice="give how many rows to list, at least 1"),
+    Setting("relations", label="Count broken relations",
+            help="Objects that break an exact relation among the invariants rank higher."),
+    Setting("k", minimum=2, page_maximum=100, spoken="k =",
+            label="Clusters for the distance from centre (0: chosen)",
+            advice="give a whole number of clusters, at least 2, or leave k unset to choose it "
+                   "by silhouette"),
+    Setting("n_neighbors", minimum=2, page_maximum=1000,
+            label="Neighbours (local outlier factor)", advice="give a whole number of at least 2"),
+    SEED,
+)
 
 MEASURES = ("isolation forest", "local outlier factor", "distance from cluster centre",
             "separator", "relations")
@@ -296,14 +316,7 @@ class OutliersStep:
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
-        if not isinstance(self.top, int) or self.top < 1:
-            raise StepError(f"top = {self.top!r}: give how many rows to list, at least 1.")
-        if self.k is not None and (not isinstance(self.k, int) or self.k < 2):
-            raise StepError(f"k = {self.k!r}: give a whole number of clusters, at least 2, or "
-                            "leave k unset to choose it by silhouette.")
-        if not isinstance(self.n_neighbors, int) or self.n_neighbors < 2:
-            raise StepError(f"n_neighbors {self.n_neighbors!r}: give a whole number of at "
-                            "least 2.")
+        check_values(self)
         if not isinstance(self.sample_size, int) or self.sample_size <= self.n_neighbors:
             raise StepError(f"sample size {self.sample_size!r}: give a whole number of rows, "
                             f"more than n_neighbors ({self.n_neighbors}).")

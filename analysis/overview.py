@@ -11,7 +11,14 @@ import pandas as pd
 from analysis.plain import plain
 from analysis.progress import quiet, stoppable_call
 from analysis.projection import sample_positions
+from analysis.settings import SEED, Setting, check_values
 from analysis.table import Table
+
+SETTINGS = (
+    Setting("top_correlations", minimum=0, page_maximum=100, spoken="top_correlations",
+            label="Correlated pairs to list", help="Pairs of invariants with Pearson |r| ≥ 0.9."),
+    SEED,
+)
 
 # Rows past which correlations between invariants are computed on a random sample.
 CORRELATION_ROWS = 200_000
@@ -110,6 +117,10 @@ class OverviewStep:
     top_correlations: int = 10
     seed: int = 0
     kind: ClassVar[str] = "overview"
+
+    def check(self) -> None:
+        """Check the settings alone (no table needed); StepError names a bad one."""
+        check_values(self)
 
     def run(self, table: Table, *, progress=None) -> OverviewResult:
         """Describe the table. ``progress``: a callable (or

@@ -20,10 +20,35 @@ from analysis.errors import StepError
 from analysis.features import build_features, target_values
 from analysis.plain import plain, row_id
 from analysis.progress import quiet, stoppable_call
+from analysis.settings import FEATURE_SETTINGS, SEED, Choice, Setting, check_values, named
 from analysis.table import Table
 
-METHODS = ("pca", "umap", "tsne", "lda")
-METHOD_TITLES = {"pca": "PCA", "umap": "UMAP", "tsne": "t-SNE", "lda": "LDA"}
+SETTINGS = (
+    Setting("method", spoken="projection method", label="Method", option="--method",
+            help="PCA and LDA are linear: their axes are sums of features. UMAP and t-SNE keep "
+                 "neighbours together and distort distances.",
+            choices=(Choice("pca", "PCA", "PCA"), Choice("umap", "UMAP", "UMAP"),
+                     Choice("tsne", "t-SNE", "t-SNE"),
+                     Choice("lda", "LDA (separates the target)", "LDA"))),
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
+            help="Colours the picture; LDA separates its classes.",
+            option_help="column to colour by (needed for LDA)"),
+    *FEATURE_SETTINGS,
+    Setting("standardize", label="Standardize features",
+            help="Scale every feature to standard deviation 1, so that no invariant dominates "
+                 "by its units alone."),
+    Setting("sample_size", minimum=10, spoken="sample size", label="Most rows drawn (0: default)",
+            advice="give a whole number of at least 10 rows, or leave it unset for the default",
+            help="Larger tables are drawn from a random sample of this size (default 50 000 "
+                 "for UMAP, 20 000 for t-SNE)."),
+    Setting("n_neighbors", minimum=2, page_maximum=500, label="Neighbours (UMAP)",
+            advice="give a whole number of at least 2"),
+    Setting("perplexity", minimum=0, above=True, page_minimum=1.0, page_maximum=500.0,
+            page_step=5.0, label="Perplexity (t-SNE)", advice="give a positive number"),
+    SEED,
+)
+METHODS = named(SETTINGS)["method"].values
+METHOD_TITLES = named(SETTINGS)["method"].titles
 # Rows past which a method runs on a random sample unless `sample_size` says otherwise.
 SAMPLE_THRESHOLDS = {"tsne": 20_000, "umap": 50_000}
 # LDA looks for directions separating classes; a target with more values than this is
@@ -289,18 +314,7 @@ class ProjectionStep:
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
-        if self.method not in METHODS:
-            raise StepError(f"projection method {self.method!r}: use one of "
-                            f"{', '.join(METHODS)}.")
-        if self.sample_size is not None and (
-                not isinstance(self.sample_size, int) or self.sample_size < 10):
-            raise StepError(f"sample size {self.sample_size!r}: give a whole number of at "
-                            "least 10 rows, or leave it unset for the default.")
-        if not isinstance(self.n_neighbors, int) or self.n_neighbors < 2:
-            raise StepError(f"n_neighbors {self.n_neighbors!r}: give a whole number of at "
-                            "least 2.")
-        if not isinstance(self.perplexity, (int, float)) or not self.perplexity > 0:
-            raise StepError(f"perplexity {self.perplexity!r}: give a positive number.")
+        check_values(self)
 
     def _check(self, table: Table) -> None:
         self.check()

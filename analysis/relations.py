@@ -40,6 +40,8 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.plain import plain
 from analysis.progress import quiet
+from analysis.settings import SEED, Setting, named
+from analysis.settings import bound as bound_settings
 
 __all__ = [
     "CAVEAT",
@@ -60,6 +62,20 @@ CAVEAT = (
 )
 
 # Caps that keep a 20-column, million-row table within seconds; the result notes each cut.
+SETTINGS = (
+    Setting("columns", label="Columns to search", option="--columns", metavar="A,B,...",
+            help="Integer, rational and flag columns are searched exactly; real columns for "
+                 "relations that hold to a tolerance.",
+            option_help="columns to search (default: every integer invariant)"),
+    Setting("robust", label="Also relations a few rows break"),
+    Setting("bounds", label="Sharp bounds in pairs"),
+    Setting("triples", label="and in triples"),
+    Setting("max_breakers", page_minimum=0.0, page_maximum=1e6, page_step=0.01,
+            label="Rows allowed to break (share, or a count)"),
+    Setting("max_coefficient", minimum=1, page_maximum=100, spoken="relations: max_coefficient",
+            label="Largest coefficient in a bound"),
+    SEED,
+)
 MAX_RELATION_COLUMNS = 40
 MAX_APPROXIMATE_COLUMNS = 20
 MAX_BOUND_COLUMNS = 20
@@ -1162,18 +1178,21 @@ def hull_2d(points) -> list[tuple]:
 
 
 def _edges(hull: list[tuple]) -> list[tuple[int, int, Fraction]]:
-    """Each hull edge as (a, b, c) with a*x + b*y <= c on the whole set, (a, b) primitive."""
+    """Each hull edge as (a, b, c) with a*x + b*y <= c on the whole set, (a, b) primitive
+    (c an int on integer points, else a Fraction)."""
     if len(hull) < 3:
         return []
     edges = []
     for p, q in zip(hull, hull[1:] + hull[:1]):
         dx, dy = q[0] - p[0], q[1] - p[1]
         # Clear denominators (rational columns) before making the normal primitive.
-        scale = math.lcm(Fraction(dx).denominator, Fraction(dy).denominator)
+        scale = 1 if type(dx) is int and type(dy) is int else math.lcm(
+            Fraction(dx).denominator, Fraction(dy).denominator)
         a, b = int(dy * scale), int(-dx * scale)
         g = math.gcd(a, b)
         a, b = a // g, b // g
-        edges.append((a, b, Fraction(a * p[0] + b * p[1])))
+        value = a * p[0] + b * p[1]
+        edges.append((a, b, value if type(value) is int else Fraction(value)))
     return edges
 
 
@@ -1280,16 +1299,25 @@ def _distinct_points(columns: list[_BoundColumn]) -> _Points:
         key = picked(columns[0].codes)
         for column in columns[1:]:
             key = key * (column.high - column.low + 1) + picked(column.codes)
-        counts = np.bincount(key, minlength=cells)
-        point_keys = np.flatnonzero(counts)
+        inverse = None
+        if cells <= 8 * len(key):
+            counts = np.bincount(key, minlength=cells)
+            point_keys = np.flatnonzero(counts)
+            counts = counts[point_keys]
+        else:
+            # far more cells than rows: sorting the keys is cheaper than counting every cell
+            point_keys, inverse, counts = np.unique(key, return_inverse=True,
+                                                    return_counts=True)
+            inverse = inverse.ravel()
         coords = []
         rest = point_keys
         for column in reversed(columns):
             size = column.high - column.low + 1
             coords.append(rest % size + column.low)
             rest = rest // size
-        return _Points(coords[::-1], counts[point_keys], rows, key=key, point_keys=point_keys,
-                       cells=cells)
+        if inverse is not None:
+            return _Points(coords[::-1], counts, rows, inverse=inverse)
+        return _Points(coords[::-1], counts, rows, key=key, point_keys=point_keys, cells=cells)
     ranked = _ranked_points(columns, rows)
     if ranked is not None:
         return ranked
@@ -1346,12 +1374,17 @@ def _ranked_points(columns: list[_BoundColumn], rows) -> _Points | None:
     return _Points(coords[::-1], counts, rows, inverse=inverse.ravel())
 
 
-def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """Of points sorted by (x, y): the least and greatest y at each x, the only points that
-    can be corners of the hull."""
+def _extreme_positions(x: np.ndarray) -> np.ndarray:
+    """Of points sorted by (x, y): where the least and greatest y at each x sit, the only
+    points that can be corners of the hull."""
     starts = np.flatnonzero(np.r_[True, x[1:] != x[:-1]])
     ends = np.r_[starts[1:], len(x)] - 1
-    picked = np.unique(np.r_[starts, ends])
+    return np.unique(np.r_[starts, ends])
+
+
+def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Of points sorted by (x, y): the least and greatest y at each x."""
+    picked = _extreme_positions(x)
     return np.column_stack([x[picked], y[picked]])
 
 
@@ -1406,11 +1439,217 @@ def _oriented(terms: list[tuple[str, int]], constant) -> tuple[list, str, Fracti
     return [(n, Fraction(-c)) for n, c in terms], ">=", Fraction(-constant)
 
 
-def _implied(coefs: dict, constant: Fraction, facts) -> bool:
+# Past this many vertices of the dual programme, an implication is left to HiGHS alone.
+MAX_DUAL_VERTICES = 2000
+# A bound is found not to follow without HiGHS only when some point of the region lies beyond
+# it by this much (relative), ten times the tolerance HiGHS's answer is judged with.
+_CLEAR = Fraction(1, 10**6)
+
+
+class _EdgeFacts:
+    """Known bounds in two columns (hull edges of pairs), kept in the order found and looked
+    up by their pair of columns, so that those within a few columns are found at once."""
+
+    def __init__(self, edges: list[tuple[dict, Fraction]]) -> None:
+        self.edges = edges
+        self.by_pair: dict = {}
+        for position, (terms, _) in enumerate(edges):
+            self.by_pair.setdefault(frozenset(terms), []).append(position)
+
+    def __len__(self) -> int:
+        return len(self.edges)
+
+    def within(self, allowed: set) -> list[tuple[dict, Fraction]]:
+        """The edges whose columns all lie in ``allowed``, in the order found."""
+        positions = [p for key, found in self.by_pair.items() if key <= allowed for p in found]
+        return [self.edges[p] for p in sorted(positions)]
+
+
+def _solve(matrix: list[list[Fraction]], rhs: list[Fraction]) -> list[Fraction] | None:
+    """The exact solution of a small square system, or None when it is singular."""
+    size = len(rhs)
+    rows = [list(row) + [value] for row, value in zip(matrix, rhs)]
+    for col in range(size):
+        pivot = next((r for r in range(col, size) if rows[r][col]), None)
+        if pivot is None:
+            return None
+        rows[col], rows[pivot] = rows[pivot], rows[col]
+        for r in range(size):
+            if r != col and rows[r][col]:
+                factor = rows[r][col] / rows[col][col]
+                rows[r] = [a - factor * b for a, b in zip(rows[r], rows[col])]
+    return [rows[r][size] / rows[r][r] for r in range(size)]
+
+
+def _dual_vertex(objective, matrix, rhs, low, high) -> np.ndarray | None:
+    """Columns of the vertex of the dual programme where its value is least, found in
+    floating point: the dual of max objective.x over the box [low, high] cut by matrix.x =
+    rhs is min over y of y.rhs + sum_j max(low_j s_j, high_j s_j), s = objective - y.matrix,
+    a convex piecewise linear function least at a point where s_j = 0 for k columns j."""
+    k, n = len(matrix), len(objective)
+    if math.comb(n, k) > MAX_DUAL_VERTICES:
+        return None
+    equations = np.array(matrix, dtype=np.float64)
+    target = np.array(objective, dtype=np.float64)
+    subsets = np.array(list(combinations(range(n), k)), dtype=np.int64)
+    blocks = equations[:, subsets].transpose(1, 2, 0)
+    size = np.prod(np.linalg.norm(blocks, axis=2), axis=1)
+    regular = np.abs(np.linalg.det(blocks)) > 1e-9 * size
+    if not regular.any():
+        return None
+    subsets, blocks = subsets[regular], blocks[regular]
+    duals = np.linalg.solve(blocks, target[subsets][..., None])[..., 0]
+    slack = target - duals @ equations
+    lows = np.array(low, dtype=np.float64)
+    highs = np.array(high, dtype=np.float64)
+    values = duals @ np.array(rhs, dtype=np.float64) + np.maximum(slack * lows,
+                                                                   slack * highs).sum(axis=1)
+    return subsets[int(np.argmin(values))]
+
+
+def _reaches(matrix, rhs, slack, low, high, vertex: list[int]) -> bool:
+    """Whether some point of the box meets the equalities with every column of nonzero slack
+    at the end its slack points to (so that the left side takes the dual's value there).
+
+    Columns of zero slack may take any value in their range. When each of them appears in
+    one equality at most, the equalities are met exactly when each one's remainder lies in
+    the range its free columns can reach; otherwise the free columns other than the vertex's
+    are set to their lower ends and the vertex's solved for.
+    """
+    free = [j for j, s in enumerate(slack) if s == 0]
+    point = [hi if s > 0 else lo for s, lo, hi in zip(slack, low, high)]
+    fixed = [j for j, s in enumerate(slack) if s != 0]
+    remainders = [r - sum(row[j] * point[j] for j in fixed) for row, r in zip(matrix, rhs)]
+    if all(sum(1 for row in matrix if row[j]) <= 1 for j in free):
+        for row, remainder in zip(matrix, remainders):
+            terms = [(row[j] * low[j], row[j] * high[j]) for j in free if row[j]]
+            if not sum(min(t) for t in terms) <= remainder <= sum(max(t) for t in terms):
+                return False
+        return True
+    rest = [j for j in free if j not in vertex]
+    solved = _solve([[row[j] for j in vertex] for row in matrix],
+                    [r - sum(row[j] * low[j] for j in rest)
+                     for row, r in zip(matrix, remainders)])
+    return solved is not None and all(low[j] <= v <= high[j] for j, v in zip(vertex, solved))
+
+
+def _equality_verdict(coefs: dict, constant, names: list, equalities, ranges) -> bool | None:
+    """Whether ``sum coefs <= constant`` follows from the ranges and the equalities, decided
+    in exact arithmetic when the answer is clear of the linear programme's tolerance; None
+    leaves it to the programme.
+
+    At a vertex of the dual (see :func:`_dual_vertex`) the dual's value bounds the largest
+    value of the left side from above; the point of the box that the vertex names (each
+    other column at the end its slack points to, the vertex's own columns solved from the
+    equalities) reaches that value when it lies in the box, which proves it the largest.
+    """
+    objective = [Fraction(coefs.get(name, 0)) for name in names]
+    matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
+    rhs = [Fraction(c) for _, c in equalities]
+    low = [Fraction(ranges[name][0]) for name in names]
+    high = [Fraction(ranges[name][1]) for name in names]
+    vertex = _dual_vertex(objective, matrix, rhs, low, high)
+    if vertex is None:
+        return None
+    vertex = vertex.tolist()
+    dual = _solve([[row[j] for row in matrix] for j in vertex], [objective[j] for j in vertex])
+    if dual is None:
+        return None
+    slack = [c - sum(y * row[j] for y, row in zip(dual, matrix))
+             for j, c in enumerate(objective)]
+    upper = sum(y * r for y, r in zip(dual, rhs)) + sum(
+        max(s * lo, s * hi) for s, lo, hi in zip(slack, low, high))
+    limit = Fraction(constant)
+    if upper <= limit:
+        return True
+    if not _reaches(matrix, rhs, slack, low, high, vertex):
+        return None
+    # the point lies in the box and meets the equalities: ``upper`` is the largest value
+    if upper > limit + _CLEAR * (1 + abs(limit)):
+        return False
+    return None
+
+
+def _centroid(columns: Mapping, rows: np.ndarray, names) -> dict | None:
+    """The mean of the given rows in the named columns, exact (None without rows)."""
+    if not len(rows):
+        return None
+    mean = {}
+    for name in names:
+        values = columns[name][0][rows]
+        if values.dtype != object and len(values) * max(
+                abs(int(values.min())), abs(int(values.max()))) < _INT64_SAFE:
+            total = int(values.sum())
+        else:
+            total = sum(values.tolist())
+        mean[name] = Fraction(total) / len(rows)
+    return mean
+
+
+def _integral(vector: list[Fraction]) -> tuple[list[int], int]:
+    """``vector`` times the least common multiple of its denominators, and that multiple."""
+    scale = math.lcm(*(Fraction(v).denominator for v in vector))
+    return [int(v * scale) for v in vector], scale
+
+
+def _beyond(coefs: dict, constant, names: list, equalities, inequalities, ranges,
+            start: dict | None) -> bool:
+    """Whether the region holds a point clearly beyond ``sum coefs <= constant``: from
+    ``start``, a point of the region on the bound, along the bound's normal (projected so as
+    to keep the equalities) as far as the ranges and the given bounds allow."""
+    if start is None:
+        return False
+    normal = [Fraction(coefs.get(name, 0)) for name in names]
+    matrix = [[Fraction(eq.get(name, 0)) for name in names] for eq, _ in equalities]
+    direction = normal
+    if matrix:
+        gram = [[sum(a * b for a, b in zip(r, s)) for s in matrix] for r in matrix]
+        weights = _solve(gram, [sum(a * b for a, b in zip(r, normal)) for r in matrix])
+        if weights is None:
+            return False
+        direction = [c - sum(w * row[j] for w, row in zip(weights, matrix))
+                     for j, c in enumerate(normal)]
+    if all(d == 0 for d in direction):
+        return False
+    step, _ = _integral(direction)
+    point, denominator = _integral([start[name] for name in names])
+    index = {name: j for j, name in enumerate(names)}
+    limits = []   # room along the direction (in steps) for each fact it runs into, as p/q
+    for j, name in enumerate(names):
+        low, high = ranges[name]
+        if step[j]:
+            end = Fraction(high if step[j] > 0 else low)
+            limits.append((end.numerator * denominator - point[j] * end.denominator,
+                           end.denominator * denominator * step[j]))
+    for terms, bound in inequalities:
+        rise = sum(int(c) * step[index[n]] for n, c in terms.items())
+        if rise > 0:
+            used = sum(int(c) * point[index[n]] for n, c in terms.items())
+            bound = Fraction(bound)
+            limits.append((bound.numerator * denominator - used * bound.denominator,
+                           bound.denominator * denominator * rise))
+    if not limits:
+        return False
+    # the least room, exact: among the few that floating point puts near the least
+    rough = [top / bottom for top, bottom in limits]
+    least = min(rough)
+    cutoff = least + 1e-9 * (1 + abs(least))
+    room = min(Fraction(top, bottom) for (top, bottom), value in zip(limits, rough)
+               if value <= cutoff)
+    if room <= 0:
+        return False
+    gain = room * sum(c * s for c, s in zip(normal, step))
+    return gain > _CLEAR * (1 + abs(Fraction(constant)))
+
+
+def _implied(coefs: dict, constant: Fraction, facts, start=None) -> bool:
     """Whether ``sum coefs <= constant`` follows from the ranges, relations and given bounds.
 
     A linear programme: the largest value of the left side over the region the known facts
     cut out. The bound adds nothing when that largest value does not exceed its constant.
+    Without given bounds the programme's answer is first sought exactly through its dual;
+    with them, ``start`` (a callable naming a point of the region on the bound, given the
+    programme's columns) lets a point clearly beyond the bound answer first.
     """
     ranges, equalities, inequalities = facts
     names = set(coefs)
@@ -1426,6 +1665,17 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
         return False
     if any(abs(v) > 1e12 for name in names for v in ranges[name]):
         return False  # too large for a floating point programme to judge reliably
+    # the facts in these columns only (a set built once: the bounds found so far grow long)
+    allowed = set(names)
+    within = [(eq, c) for eq, c in equalities if eq.keys() <= allowed]
+    given = inequalities.within(allowed) if inequalities else []
+    if not given:
+        verdict = _equality_verdict(coefs, constant, names, within, ranges)
+        if verdict is not None:
+            return verdict
+    elif start is not None and _beyond(coefs, constant, names, within, given, ranges,
+                                       start(names)):
+        return False
     from scipy.optimize import linprog
 
     index = {name: i for i, name in enumerate(names)}
@@ -1436,10 +1686,8 @@ def _implied(coefs: dict, constant: Fraction, facts) -> bool:
             vector[index[name]] = float(coef)
         return vector
 
-    # the facts in these columns only (a set built once: the bounds found so far grow long)
-    allowed = set(names)
-    eqs = [(row(eq), float(c)) for eq, c in equalities if eq.keys() <= allowed]
-    ineqs = [(row(iq), float(c)) for iq, c in inequalities if iq.keys() <= allowed]
+    eqs = [(row(eq), float(c)) for eq, c in within]
+    ineqs = [(row(iq), float(c)) for iq, c in given]
     result = linprog(
         -row(coefs),
         A_ub=np.array([r for r, _ in ineqs]) if ineqs else None,
@@ -1568,6 +1816,18 @@ def _directions(largest: int) -> list[tuple[int, int]]:
     return found
 
 
+def _value_weights(values: np.ndarray, weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct integers among ``values``, increasing, and the weight on each: counted on
+    a grid when their range is narrow, else sorted."""
+    low, high = int(values.min()), int(values.max())
+    if high - low <= 4 * len(values):
+        per_value = np.bincount(values - low, weights=weights)
+        present = np.flatnonzero(per_value)  # every weight is at least 1
+        return present + low, per_value[present].astype(np.int64)
+    distinct, inverse = np.unique(values, return_inverse=True)
+    return distinct, np.bincount(inverse.ravel(), weights=weights).astype(np.int64)
+
+
 def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient, breakers,
                       integer):
     """Bounds in two integer columns that all but a few rows obey, along small directions.
@@ -1581,23 +1841,35 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
     found = []
     largest = min(DIRECTION_COEFFICIENT, max_coefficient)
     weights = points.weights
+    x, y = points.coords
+    if x.dtype == object or y.dtype == object or not len(x):
+        return found
+    sizes = [max(abs(int(v.min())), abs(int(v.max()))) for v in (x, y)]
+    x, y = x.astype(np.int64, copy=False), y.astype(np.int64, copy=False)
+    top = breakers + 1
+    opposite = None   # (a, b, values, least cut) of the direction just before
     for a, b in _directions(largest):
         shown, _ = _in_table_units((a, b), 0, scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
-        combined = _combine((a, b), points.coords)
-        if combined.dtype == object:
-            continue
+        if abs(a) * sizes[0] + abs(b) * sizes[1] >= _INT64_SAFE:
+            continue  # the exact values would need Python integers
+        if opposite is not None and opposite[:2] == (-a, -b):
+            # the opposite direction's values, negated, and its cut from below
+            combined, cut = -opposite[2], -opposite[3]
+        else:
+            combined, cut = a * x + b * y, None
+            if len(combined) > 4 * top:
+                n = len(combined)
+                low_cut, cut = np.partition(combined, [top - 1, n - top])[[top - 1, n - top]]
+                opposite = (a, b, combined, low_cut)
         weighed = weights
-        top = breakers + 1
-        if len(combined) > 4 * top:
+        if cut is not None:
             # a constant has at most ``breakers`` rows beyond it, so it is one of the values
             # of the ``breakers + 1`` highest points: only those and their equals are counted
-            cut = np.partition(combined, len(combined) - top)[len(combined) - top]
             kept = combined >= cut
             combined, weighed = combined[kept], weights[kept]
-        values, inverse = np.unique(combined, return_inverse=True)
-        per_value = np.bincount(inverse.ravel(), weights=weighed).astype(np.int64)
+        values, per_value = _value_weights(combined, weighed)
         beyond = np.cumsum(per_value[::-1])[::-1] - per_value   # rows above each value
         usable = (beyond > 0) & (beyond <= breakers) & (per_value >= 3 * beyond)
         if not usable.any():
@@ -1613,6 +1885,71 @@ def _direction_bounds(names, scales, points, row_ids, facts, *, max_coefficient,
     return found
 
 
+class _PeeledHull:
+    """The hull of the candidate points while corners are peeled off one at a time.
+
+    The candidates start as the least and greatest point of every column of points (the
+    only ones that can be corners). Taking a corner ``v`` away, with ``p`` and ``n`` its
+    neighbours on the hull, leaves every other candidate either inside the hull of the other
+    corners or inside the triangle (p, v, n); so the new hull is the hull of the other
+    corners and the candidates in that triangle: the same hull as from all candidates, at
+    the cost of a few points.
+    """
+
+    def __init__(self, x, y, start_positions, hull) -> None:
+        self.x, self.y = x, y
+        self.alive = np.ones(len(x), dtype=bool)
+        self.member = np.zeros(len(x), dtype=bool)
+        self.member[start_positions] = True
+        self.positions = start_positions
+        self.hull = hull
+
+    def _present(self) -> np.ndarray:
+        kept = self.positions[self.member[self.positions]]
+        self.positions = kept
+        return kept
+
+    def peel(self, corner, where: int, start: int, stop: int) -> list[tuple]:
+        """Take the candidate ``corner`` (at ``where`` among the points, its column of points
+        from ``start`` to ``stop``) away and return the hull of those left."""
+        self.alive[where] = False
+        self.member[where] = False
+        # The corner's column may hold other points: its new least and greatest join.
+        left = np.flatnonzero(self.alive[start:stop]) + start
+        if len(left):
+            added = [p for p in dict.fromkeys((int(left[0]), int(left[-1])))
+                     if not self.member[p]]
+            self.member[added] = True
+            self.positions = np.r_[self.positions, np.array(added, dtype=np.int64)]
+        hull = self.hull
+        i = hull.index(corner)
+        (px, py), (vx, vy), (nx, ny) = hull[i - 1], corner, hull[(i + 1) % len(hull)]
+        present = self._present()
+        qx, qy = self.x[present], self.y[present]
+        inside = (((vx - px) * (qy - py) - (vy - py) * (qx - px)) >= 0) & (
+            ((nx - vx) * (qy - vy) - (ny - vy) * (qx - vx)) >= 0) & (
+            ((px - nx) * (qy - ny) - (py - ny) * (qx - nx)) >= 0)
+        picked = present[inside]
+        self.hull = hull_2d(hull[:i] + hull[i + 1:]
+                            + list(zip(self.x[picked].tolist(), self.y[picked].tolist())))
+        return self.hull
+
+    def on_line(self, a, b, c) -> int:
+        """How many candidates lie on the line a*x + b*y = c."""
+        present = self._present()
+        c = int(c) if Fraction(c).denominator == 1 else c
+        return int(np.count_nonzero(a * self.x[present] + b * self.y[present] == c))
+
+
+def _overflow_safe(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The coordinates as int64 when every turn test and edge sum on them fits in 64 bits
+    (all values below 2**30 in size), else as Python numbers."""
+    if x.dtype != object and y.dtype != object and len(x) and max(
+            abs(int(x.min())), abs(int(x.max())), abs(int(y.min())), abs(int(y.max()))) < 2**30:
+        return x.astype(np.int64, copy=False), y.astype(np.int64, copy=False)
+    return x.astype(object), y.astype(object)
+
+
 def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_coefficient,
                    breakers, integer):
     """Bounds that all but a few rows obey: peel off thinly populated hull corners.
@@ -1624,11 +1961,15 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     breaking rows as its violations.
     """
     x, y = points.coords
+    located: dict = {}
 
     def locate(vertex) -> tuple[int, int, int]:
-        start = int(np.searchsorted(x, vertex[0], side="left"))
-        stop = int(np.searchsorted(x, vertex[0], side="right"))
-        return start + int(np.searchsorted(y[start:stop], vertex[1])), start, stop
+        if vertex not in located:
+            start = int(np.searchsorted(x, vertex[0], side="left"))
+            stop = int(np.searchsorted(x, vertex[0], side="right"))
+            where = start + int(np.searchsorted(y[start:stop], vertex[1]))
+            located[vertex] = where, start, stop
+        return located[vertex]
 
     def weight(vertex) -> int:
         return int(points.weights[locate(vertex)[0]])
@@ -1636,36 +1977,29 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     light = sorted((weight(v), v) for v in hull if weight(v) <= breakers)
     if not light:
         return []
-    extremes = {tuple(p) for p in _extremes(x, y).tolist()}
+    extremes = _extreme_positions(x)
+    safe_x, safe_y = _overflow_safe(x, y)
     known = {(a, b, c) for a, b, c in edges}
     original = set(hull)
     found = []
     hulls_left = 40  # keeps a table with a long, ragged hull cheap
     for first_weight, first in light:
-        alive = np.ones(len(points), dtype=bool)
-        candidates = set(extremes)
+        peeled = _PeeledHull(safe_x, safe_y, extremes, hull)
         corner, used = first, first_weight
         for _step in range(5):
-            where, start, stop = locate(corner)
-            alive[where] = False
-            candidates.discard(corner)
-            # The corner's column may hold other points: its new least and greatest join.
-            left = np.flatnonzero(alive[start:stop]) + start
-            if len(left):
-                candidates.add((_plain(x[left[0]]), _plain(y[left[0]])))
-                candidates.add((_plain(x[left[-1]]), _plain(y[left[-1]])))
-            current = hull_2d(candidates)
+            current = peeled.peel(corner, *locate(corner))
             hulls_left -= 1
             if len(current) < 3:
                 break
             for a, b, c in _edges(current):
+                if (a, b, c) in known or a == 0 or b == 0:
+                    continue
                 shown, constant = _in_table_units((a, b), c, scales)
-                if (a, b, c) in known or a == 0 or b == 0 or (
-                        max(map(abs, shown)) > max_coefficient):
+                if max(map(abs, shown)) > max_coefficient:
                     continue
                 known.add((a, b, c))
-                on_edge = sum(1 for p in candidates if a * p[0] + b * p[1] == c)
-                if on_edge < 3 or _implied(dict(zip(names, shown)), constant, facts):
+                if peeled.on_line(a, b, c) < 3 or _implied(dict(zip(names, shown)), constant,
+                                                           facts):
                     continue
                 bound = _make_bound(names, (a, b), c, points, row_ids, integer, scales)
                 # Many more rows reaching it than breaking it, or it is just a ragged edge.
@@ -1684,7 +2018,8 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     return found
 
 
-def _triple_bounds(columns, row_ids, facts, *, max_coefficient) -> list[Bound] | None:
+def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
+                  table_columns) -> list[Bound] | None:
     from scipy.spatial import ConvexHull, QhullError
 
     names = [c.name for c in columns]
@@ -1726,9 +2061,12 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient) -> list[Bound] |
         shown, shown_constant = _in_table_units(normal, constant, scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
-        if (_combine(normal, points.coords) > constant).any():
+        combined = _combine(normal, points.coords)
+        if (combined > constant).any():
             continue  # a floating point facet that is not exact
-        if _implied(dict(zip(names, shown)), shown_constant, facts):
+        on_face = points.rows_at(combined == constant)
+        if _implied(dict(zip(names, shown)), shown_constant, facts,
+                    start=lambda wanted, rows=on_face: _centroid(table_columns, rows, wanted)):
             continue
         found.append(_make_bound(names, tuple(normal), constant, points, row_ids, integer,
                                  scales))
@@ -1839,7 +2177,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 f"of {len(eligible)} integer columns"
             )
             eligible = eligible[:MAX_TRIPLE_COLUMNS]
-        triple_facts = (ranges, equalities, pair_edges)
+        triple_facts = (ranges, equalities, _EdgeFacts(pair_edges))
         skipped = 0
         triples_of = list(combinations(eligible, 3))
         progress.phase("bounds in triples of columns", total=len(triples_of))
@@ -1852,7 +2190,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 skipped += 1
                 continue
             triple = _triple_bounds(chosen, row_ids, triple_facts,
-                                    max_coefficient=max_coefficient)
+                                    max_coefficient=max_coefficient, table_columns=columns)
             if triple is None:
                 skipped += 1
             else:
@@ -1906,13 +2244,7 @@ def check_settings(*, max_breakers, max_coefficient, tolerance, seed) -> None:
             f"relations: max_breakers must be a fraction in [0, 1) or a whole number of rows, "
             f"got {max_breakers!r}"
         )
-    if isinstance(max_coefficient, bool) or not isinstance(max_coefficient, Integral) or (
-        max_coefficient < 1
-    ):
-        raise StepError(
-            f"relations: max_coefficient must be a whole number of at least 1, got "
-            f"{max_coefficient!r}"
-        )
+    named(bound_settings(RelationsStep))["max_coefficient"].check(max_coefficient)
     if not isinstance(tolerance, (int, float)) or not 0 < tolerance < 1:
         raise StepError(
             f"relations: tolerance must lie strictly between 0 and 1, got {tolerance!r}"

@@ -22,7 +22,6 @@ absolute error, the training mean as the baseline, and an exact formula when one
 from __future__ import annotations
 
 import dataclasses
-import math
 import time
 from dataclasses import dataclass
 from typing import ClassVar
@@ -32,6 +31,7 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
+from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
 from analysis.separator_checks import LEARNING_FRACTIONS, LEARNING_REPEATS
 from analysis.separator_labels import class_label, same_label
 from analysis.separator_metrics import (
@@ -59,6 +59,7 @@ from analysis.separator_protocol import (
     excluded_columns,
 )
 from analysis.separator_run import OPEN_PREDICTION_LIMIT, ROW_ID_LIST_LIMIT, run_protocol
+from analysis.settings import FEATURE_SETTINGS, SEED, Choice, Setting, check_values, named
 from analysis.table import Table
 
 # The step's public face. The parts of a run live in their own modules: separator_prepare
@@ -77,9 +78,66 @@ __all__ = [
     "exact_text", "excluded_columns", "same_label",
 ]
 
-PENALTIES = ("l2", "l1")
-KERNEL_APPROXIMATIONS = ("exact", "auto", "nystroem", "sample")
-READINGS = ("auto", "number", "classes")
+SETTINGS = (
+    Setting("target", follows_target=True, label="Target for this step", option="--target",
+            metavar="COL",
+            help="The flag, category or invariant to predict."),
+    Setting("reading", label="Read the target as", option="--reading",
+            help="A whole-number invariant can be predicted as a number or each value as a "
+                 "class.",
+            option_help="an invariant target as a number or as classes (default auto: for "
+                        f"{CURVE_MIN_VALUES} to {CURVE_MAX_VALUES} whole-number values a "
+                        "learning curve decides)",
+            choices=(Choice("auto", "as a learning curve favours"),
+                     Choice("number", "a number (regression)"),
+                     Choice("classes", "classes, one per value"))),
+    Setting("model", label="Separator", option="--model",
+            help="Linear models and the degree-2 kernel give an equation in the table's own "
+                 "invariants. A target read as a number is fitted by the regression named "
+                 "after the semicolon.",
+            choices=tuple(Choice(model, words) for model, words in MODEL_WORDS.items())),
+    Setting("train_fraction", minimum=0.05, maximum=0.95, page_step=0.05,
+            spoken="train fraction", label="Share of rows for training",
+            advice="use a number from 0.05 to 0.95 (the share of rows used for training)",
+            help="The rest are test rows: every score is measured on them.",
+            option="--train-fraction", metavar="F"),
+    Setting("groups", label="Group column", option="--groups", metavar="COL",
+            help="Rows with equal values (equal matrices up to permuting rows and columns, for "
+                 "an array column) stay on one side of every split.",
+            option_help="rows with the same value (or the same matrix up to permutation, for "
+                        "an array column) stay on one side of a split"),
+    *FEATURE_SETTINGS,
+    Setting("penalty", label="Penalty", advice="use l2, or l1 for equations with few terms",
+            choices=(Choice("l2", "l2 (all features)"),
+                     Choice("l1", "l1 (few features, shorter equations)"))),
+    Setting("c", minimum=0, above=True, page_minimum=1e-4, page_maximum=1e4, page_step=0.5,
+            label="C (inverse regularization)",
+            advice="use a positive number (the support vector machine's C; larger fits the "
+                   "training rows more tightly)"),
+    Setting("repeats", minimum=1, page_maximum=50, label="Random splits",
+            help="Scores are averaged over this many splits."),
+    Setting("permutations", minimum=0, page_maximum=5000, label="Permutations",
+            help="Shuffled targets for the p-value (0 skips the test)."),
+    Setting("positive_class", label="Class the equation describes"),
+    Setting("augment_permutations", minimum=0, page_maximum=50,
+            label="Permuted copies per training matrix",
+            help="Adds copies of each training row with its matrix's rows and columns permuted "
+                 "(never to test rows)."),
+    Setting("kernel_approximation", spoken="kernel approximation",
+            label="Kernel on large tables",
+            choices=(Choice("exact", "exact (refuse past the row limit)"),
+                     Choice("auto", "automatic"), Choice("nystroem", "Nyström features"),
+                     Choice("sample", "exact machine on a sample"))),
+    Setting("kernel_row_limit", minimum=100),
+    Setting("large_table_rows", minimum=100),
+    Setting("sample_rows", minimum=100),
+    Setting("max_terms", minimum=1, label="Most terms in the equation (0: default)"),
+    Setting("max_denominator", minimum=1, label="Largest denominator (0: default)"),
+    SEED,
+)
+PENALTIES = named(SETTINGS)["penalty"].values
+KERNEL_APPROXIMATIONS = named(SETTINGS)["kernel_approximation"].values
+READINGS = named(SETTINGS)["reading"].values
 
 
 @dataclass(frozen=True, eq=False)
@@ -444,31 +502,10 @@ class SeparatorStep:
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
-        if self.model not in MODELS:
-            raise StepError(f"model {self.model!r}: use one of {', '.join(MODELS)}.")
-        if self.penalty not in PENALTIES:
-            raise StepError(f"penalty {self.penalty!r}: use l2, or l1 for equations with few "
-                            "terms.")
+        check_values(self)
         if self.penalty == "l1" and self.model not in ("linear", "logistic"):
             raise StepError(f"penalty l1 applies to the linear and logistic models, not to "
                             f"{self.model!r}. Use penalty l2 or another model.")
-        fraction = self.train_fraction
-        if not isinstance(fraction, (int, float)) or isinstance(fraction, bool) \
-                or not 0.05 <= float(fraction) <= 0.95:
-            raise StepError(f"train fraction {fraction!r}: use a number from 0.05 to 0.95 "
-                            "(the share of rows used for training).")
-        for name, value, low in (("repeats", self.repeats, 1),
-                                 ("permutations", self.permutations, 0),
-                                 ("augment_permutations", self.augment_permutations, 0),
-                                 ("kernel_row_limit", self.kernel_row_limit, 100),
-                                 ("large_table_rows", self.large_table_rows, 100),
-                                 ("sample_rows", self.sample_rows, 100)):
-            if not isinstance(value, int) or isinstance(value, bool) or value < low:
-                raise StepError(f"{name} {value!r}: use a whole number of at least {low}.")
-        if not isinstance(self.c, (int, float)) or isinstance(self.c, bool) or not (
-                math.isfinite(self.c) and self.c > 0):
-            raise StepError(f"c {self.c!r}: use a positive number (the support vector "
-                            "machine's C; larger fits the training rows more tightly).")
         if self.target_statement is not None:
             from analysis.derived import Statement
 
@@ -476,14 +513,3 @@ class SeparatorStep:
             if self.target is not None and self.target != statement.flag_name:
                 raise StepError(f"target {self.target!r} and target_statement "
                                 f"{statement.text!r} both name a target; give one of them.")
-        if self.reading not in READINGS:
-            raise StepError(f"reading {self.reading!r}: use one of {', '.join(READINGS)}.")
-        if self.kernel_approximation not in KERNEL_APPROXIMATIONS:
-            raise StepError(f"kernel approximation {self.kernel_approximation!r}: use one of "
-                            f"{', '.join(KERNEL_APPROXIMATIONS)}.")
-        for name, value in (("max_terms", self.max_terms),
-                            ("max_denominator", self.max_denominator)):
-            if value is not None and (not isinstance(value, int) or isinstance(value, bool)
-                                      or value < 1):
-                raise StepError(f"{name} {value!r}: use a whole number of at least 1, or "
-                                "leave it unset.")

@@ -12,7 +12,7 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.separator_protocol import subsample
 
-MODELS = ("linear", "logistic", "lda", "rbf", "poly2")
+# each model and its words for a class target; the step's record of settings offers these
 MODEL_WORDS = {
     "linear": "linear support vector machine",
     "logistic": "logistic regression",
@@ -20,6 +20,7 @@ MODEL_WORDS = {
     "rbf": "support vector machine with an RBF kernel",
     "poly2": "support vector machine with a degree-2 polynomial kernel",
 }
+MODELS = tuple(MODEL_WORDS)
 REGRESSION_WORDS = {
     "linear": "linear regression (ridge)",
     "rbf": "support vector regression with an RBF kernel",

@@ -14,25 +14,45 @@ import importlib
 
 from analysis.errors import StudyError
 
-# kind -> (module, class name)
-STEP_KINDS: dict[str, tuple[str, str]] = {
-    "overview": ("analysis.overview", "OverviewStep"),
-    "projection": ("analysis.projection", "ProjectionStep"),
-    "clustering": ("analysis.clustering", "ClusteringStep"),
-    "separator": ("analysis.separation", "SeparatorStep"),
-    "relations": ("analysis.relations", "RelationsStep"),
-    "outliers": ("analysis.outliers", "OutliersStep"),
+
+@dataclasses.dataclass(frozen=True)
+class StepKind:
+    """What the program says once about a kind of step: where its class lives, its title (the
+    page, the report, the notebook), what it finds (the page's list of kinds to add) and what it
+    is doing while it runs (the page's status line)."""
+
+    module: str
+    class_name: str
+    title: str
+    finds: str
+    running: str
+
+
+KINDS: dict[str, StepKind] = {
+    "overview": StepKind("analysis.overview", "OverviewStep", "Overview",
+                         "columns, ranges, correlated pairs",
+                         "Summarizing every column"),
+    "projection": StepKind("analysis.projection", "ProjectionStep", "Projection",
+                           "a 2-d picture (PCA, UMAP, t-SNE, LDA)",
+                           "Building features and projecting to two dimensions"),
+    "clustering": StepKind("analysis.clustering", "ClusteringStep", "Clustering",
+                           "groups of similar objects",
+                           "Trying clusterings and comparing their scores"),
+    "separator": StepKind("analysis.separation", "SeparatorStep", "Separator",
+                          "is the target predictable, and by what equation?",
+                          "Fitting on training rows, testing on the others, comparing with chance"),
+    "relations": StepKind("analysis.relations", "RelationsStep", "Relations and bounds",
+                          "exact linear relations and sharp bounds",
+                          "Searching for exact relations and sharp bounds, checking every row"),
+    "outliers": StepKind("analysis.outliers", "OutliersStep", "Objects to look at",
+                         "objects to look at by hand",
+                         "Scoring every object"),
 }
 
-# Words shown for each kind in the app and the report.
-KIND_TITLES = {
-    "overview": "Overview",
-    "projection": "Projection",
-    "clustering": "Clustering",
-    "separator": "Separator",
-    "relations": "Relations and bounds",
-    "outliers": "Objects to look at",
-}
+# kind -> (module, class name), and kind -> title: views of KINDS
+STEP_KINDS: dict[str, tuple[str, str]] = {
+    kind: (record.module, record.class_name) for kind, record in KINDS.items()}
+KIND_TITLES = {kind: record.title for kind, record in KINDS.items()}
 
 
 def step_class(kind: str) -> type:
@@ -64,31 +84,32 @@ def make_step(kind: str, params: dict | None = None):
     return step
 
 
+def step_settings(kind: str) -> tuple:
+    """The records of every setting of a step of ``kind`` (:class:`analysis.settings.Setting`,
+    with the step's types and defaults), in the order the page and the command line offer
+    them; StudyError for an unknown kind."""
+    from analysis.settings import bound
+
+    return bound(step_class(kind))
+
+
 def check_settings(step) -> None:
-    """Check a step's settings without a table: shared feature settings, then its own check().
+    """Check a step's settings without a table: every value its records judge (choices and
+    ranges, the shared feature settings and the seed among them), then its own check().
 
     A bad value becomes a StudyError naming the kind, so a study file with a typo fails when it
     is opened, not halfway through a run.
     """
     from analysis.errors import StepError
-    from analysis.features import ARRAY_ENCODINGS, INTERVAL_READINGS, LOG_SCALES, MISSING_POLICIES
+    from analysis.settings import check_values
 
-    shared = {"array_encoding": ARRAY_ENCODINGS, "log_scale": LOG_SCALES,
-              "missing": MISSING_POLICIES, "intervals": INTERVAL_READINGS}
-    for name, allowed in shared.items():
-        value = getattr(step, name, None)
-        if value is not None and value not in allowed:
-            raise StudyError(f"step {step.kind!r}: {name} {value!r} is not one of "
-                             f"{', '.join(allowed)}.")
-    seed = getattr(step, "seed", 0)
-    if not isinstance(seed, int) or isinstance(seed, bool) or seed < 0:
-        raise StudyError(f"step {step.kind!r}: seed {seed!r} must be a whole number >= 0.")
-    check = getattr(step, "check", None)
-    if check is not None:
-        try:
+    try:
+        check_values(step)
+        check = getattr(step, "check", None)
+        if check is not None:
             check()
-        except StepError as exc:
-            raise StudyError(f"step {step.kind!r}: {exc}") from None
+    except StepError as exc:
+        raise StudyError(f"step {step.kind!r}: {exc}") from None
 
 
 def step_params(step) -> dict:

@@ -54,7 +54,14 @@ from pathlib import Path
 
 from analysis.errors import ScoutError, StudyError, TableError
 from analysis.progress import Progress, Reporter, StepStopped, Stopper
-from analysis.steps import KIND_TITLES, STEP_KINDS, make_step, step_class, step_params
+from analysis.settings import SEED_LIMIT
+from analysis.steps import (
+    KIND_TITLES,
+    STEP_KINDS,
+    make_step,
+    step_params,
+    step_settings,
+)
 from analysis.table import ROLES, Table
 
 STUDY_VERSION = "invariant-scout-study/1"
@@ -75,8 +82,6 @@ _SAVED_STEP_KEYS = ("kind", "params", "json", "stored")
 _STEP_KEYS = ("kind", "title", "params")
 _SETTINGS_KEYS = ("id_column", "roles")
 _DIGEST = re.compile(r"^[0-9a-f]{64}$")
-# Seeds go to numpy and scikit-learn, which take 0 <= seed < 2**32.
-_SEED_LIMIT = 2**32
 
 
 # ----------------------------------------------------------------------------------------
@@ -175,7 +180,7 @@ def check_step(kind: str, params: dict | None = None, *, where: str = "step") ->
         raise StudyError(f"{where}: unknown step kind {kind!r}; known kinds are "
                          f"{', '.join(STEP_KINDS)}.")
     try:
-        cls = step_class(kind)
+        records = {record.name: record for record in step_settings(kind)}
     except ImportError as exc:
         raise StudyError(f"{where}: the {kind!r} step is not available in this "
                          f"installation ({exc}).") from None
@@ -183,24 +188,19 @@ def check_step(kind: str, params: dict | None = None, *, where: str = "step") ->
     if not isinstance(params, dict):
         raise StudyError(f"{where} ({kind}): 'params' must be an object of settings, got "
                          f"{_short(params)}.")
-    fields = {f.name: f for f in dataclasses.fields(cls)}
-    unknown = [name for name in params if name not in fields]
+    unknown = [name for name in params if name not in records]
     if unknown:
         raise StudyError(f"{where} ({kind}): unknown setting {unknown[0]!r}; known settings "
-                         f"are {', '.join(sorted(fields))}.")
-    try:
-        hints = typing.get_type_hints(cls)
-    except Exception:  # noqa: BLE001 - an annotation we cannot resolve is checked by the step
-        hints = {}
+                         f"are {', '.join(sorted(records))}.")
     for name, value in params.items():
-        expected = hints.get(name)
+        expected = records[name].type
         if expected is not None and not _fits(value, expected):
             raise StudyError(f"{where} ({kind}): setting {name!r} must be "
                              f"{_describe(expected)}, got {_short(value)}.")
     seed = params.get("seed")
-    if seed is not None and not (isinstance(seed, int) and 0 <= seed < _SEED_LIMIT):
+    if seed is not None and not (isinstance(seed, int) and 0 <= seed < SEED_LIMIT):
         raise StudyError(f"{where} ({kind}): setting 'seed' must be a whole number from 0 "
-                         f"to {_SEED_LIMIT - 1}, got {_short(seed)}.")
+                         f"to {SEED_LIMIT - 1}, got {_short(seed)}.")
     try:
         step = make_step(kind, _copy_json(params))
     except StudyError as exc:
@@ -260,16 +260,11 @@ def update_step(study: Study, index: int, *, params: dict | None = None,
     return dataclasses.replace(study, steps=tuple(steps))
 
 
-# The setting through which a step of each kind follows the study's target: the column a
-# projection and the objects to look at colour and rank by, the separator predicts, and a
-# clustering is compared with.
-TARGET_SETTINGS = {"projection": "target", "separator": "target", "outliers": "target",
-                   "clustering": "compare"}
-
-
 def target_setting(kind: str) -> str | None:
-    """The setting of a step of ``kind`` that names the study's target, or None."""
-    return TARGET_SETTINGS.get(kind)
+    """The setting of a step of ``kind`` that names the study's target, or None: the column a
+    projection and the objects to look at colour and rank by, the separator predicts, and a
+    clustering is compared with (its record says ``follows_target``)."""
+    return next((r.name for r in step_settings(kind) if r.follows_target), None)
 
 
 def steps_following_target(study: Study, target: str | None) -> tuple[int, ...]:
@@ -328,7 +323,7 @@ def default_study(table: Table, target: str | None = None, seed: int = 0) -> Stu
     plan.append(("outliers", {"target": target, "seed": seed}))
     steps = []
     for kind, params in plan:
-        known = {f.name for f in dataclasses.fields(step_class(kind))}
+        known = {record.name for record in step_settings(kind)}
         # Leave out settings a kind does not have (and unset ones), so defaults apply.
         params = {k: v for k, v in params.items() if k in known and v is not None}
         steps.append(new_step(kind, params))

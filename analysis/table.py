@@ -13,13 +13,13 @@ so; a column given the role text or category is kept as text without being parse
 
 Tables from public databases write an open value as an interval ``[1,2]`` and put a word
 where an invariant does not apply (``infty``, ``D.N.E.``). A column of numbers with a few such
-cells is still an invariant: see :class:`MarkerRule` for when (one rule, :data:`MARKER_RULE`
-and :func:`reads_as_marked_numbers`, shared with the partitioned reader), :meth:`Table.intervals`
+cells is still an invariant: see :class:`analysis.column_facts.MarkerRule` for when (the
+typing rule of both readers lives in :mod:`analysis.column_facts`), :meth:`Table.intervals`
 for the intervals, and ``ColumnInfo.intervals`` and ``ColumnInfo.markers`` for the counts. A
 cell of JSON-array text is an array unless its column also holds plain numbers: a column whose
 every filled cell is a two-element list stays an array column, while plain numbers mixed with
 two-element brackets are numbers and intervals. Flags are 0/1 and the words of
-:data:`TRUE_WORDS` and :data:`FALSE_WORDS` in any case (see :func:`reads_as_flag`). Category
+``TRUE_WORDS`` and ``FALSE_WORDS`` in any case (see ``column_facts.reads_as_flag``). Category
 labels are read without surrounding spaces, with a warning.
 
 ``ColumnInfo.missing`` counts every cell with no single value in the typed frame: empty
@@ -48,8 +48,38 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from analysis.column_facts import (
+    FALSE_WORDS,
+    FLOAT_EXACT,
+    INFINITE_NOTE,
+    INT64_MAX,
+    INTEGER_TEXT,
+    MARKER_RULE,
+    MISSING_WORDS,
+    MOSTLY_NUMBERS_NOTE,
+    RATIONAL_TEXT,
+    TRUE_WORDS,
+    ColumnInfo,
+    column_warnings,
+    detect_role,
+    from_decimal,
+    incomplete_integer_dtype,
+    integer_type,
+    is_missing,
+    is_true_word,  # noqa: F401 - still read from here by the Dask overview
+    label_merge_warning,
+    label_merge_words,
+    marked_dtype,
+    marked_note,
+    marker_counts,
+    mostly_numbers,
+    read_marked_cell,
+    reads_as_marked_numbers,
+    shown_value,
+    text_block_facts,
+    text_reading,
+)
 from analysis.errors import TableError
-from analysis.notes import Note
 
 ROLES = ("id", "invariant", "category", "flag", "array", "text")
 FORMATS = ("csv", "tsv", "json", "jsonl", "parquet")
@@ -64,24 +94,9 @@ _EXTENSIONS = {
     ".parquet": "parquet",
     ".pq": "parquet",
 }
-_INT64_MAX = 2**63 - 1
-# Past this, float64 no longer holds every integer exactly.
-_FLOAT_EXACT = 2**53
-# The note of a column of integers that only missing cells and float64's 2**53 make big.
-_BEYOND_FLOAT_NOTE = "kept exact: beyond 2**53 with missing cells"
-# A whole number written as text (the partitioned reader matches cells against it too).
-INTEGER_TEXT = r"\s*[+-]?\d+\s*"
 _INTEGER_TEXT = re.compile(rf"^{INTEGER_TEXT}$")
-# a cell read as an exact rational: an integer, or p/q with whole p and q
-RATIONAL_TEXT = r"\s*[+-]?\d+\s*(?:/\s*\d+\s*)?"
 _RATIONAL_TEXT = re.compile(rf"^{RATIONAL_TEXT}$")
-# The words read as a flag's two values, in any case (besides 0 and 1): the one word set,
-# for every reader of tables.
-TRUE_WORDS = frozenset({"true", "yes", "t", "y"})
-FALSE_WORDS = frozenset({"false", "no", "f", "n"})
-_ID_NAMES = {"id", "name", "label", "key", "index"}
-# Cell texts read as missing in CSV and TSV files.
-_MISSING_WORDS = ["", "NA", "NaN", "nan", "null", "None", "N/A"]
+_MISSING_WORDS = list(MISSING_WORDS)
 # The header is looked for in this many leading characters of a delimited file.
 _HEADER_CHARS = 64 * 1024 * 1024
 # Up to this many retyped columns are replaced one by one in the parsed frame; past it, one
@@ -104,34 +119,6 @@ class Limits:
     max_cell: int = 1_000_000
     max_array: int = 100_000
     max_depth: int = 64
-
-
-@dataclass(frozen=True)
-class ColumnInfo:
-    """What the program knows about one column."""
-
-    name: str
-    role: str
-    dtype: str
-    missing: int
-    distinct: int
-    detected_role: str
-    note: str = ""
-    intervals: int = 0
-    markers: dict[str, int] = field(default_factory=dict, hash=False)
-
-    def to_json(self) -> dict:
-        return {
-            "name": self.name,
-            "role": self.role,
-            "dtype": self.dtype,
-            "missing": int(self.missing),
-            "distinct": int(self.distinct),
-            "detected_role": self.detected_role,
-            "note": self.note,
-            "intervals": int(self.intervals),
-            "markers": {str(word): int(count) for word, count in self.markers.items()},
-        }
 
 
 @dataclass(frozen=True)
@@ -216,13 +203,13 @@ class Table:
         if info.dtype == "integer":
             if series.dtype.kind in "iu":
                 return [int(v) for v in series.tolist()]
-            return [None if _is_missing(v) else int(v) for v in series.tolist()]
+            return [None if is_missing(v) else int(v) for v in series.tolist()]
         if info.dtype == "boolean":
-            return [None if _is_missing(v) else int(bool(v)) for v in series.tolist()]
+            return [None if is_missing(v) else int(bool(v)) for v in series.tolist()]
         if info.dtype in ("big integer", "rational"):
-            return [None if _is_missing(v) else v for v in series.tolist()]
+            return [None if is_missing(v) else v for v in series.tolist()]
         if info.dtype == "real":
-            return [None if _is_missing(v) or math.isinf(v) else Fraction(v)
+            return [None if is_missing(v) or math.isinf(v) else Fraction(v)
                     for v in series.tolist()]
         raise TableError(
             f"{self.name}: column {name!r} holds {info.dtype} values, which have no exact "
@@ -401,7 +388,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
         )
     frame.columns = [str(c) for c in frame.columns]
     frame = _drop_unnamed(frame, name, warnings)
-    _check_column_names(name, list(frame.columns))
+    check_column_names(name, list(frame.columns))
     if len(frame) == 1:
         warnings.append(f"{name}: only one row; most steps need many more.")
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
@@ -468,11 +455,11 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if fmt == "tsv":
         delimiter = "\t"
     else:
-        delimiter = _sniff_delimiter(text)
-    header = [h.strip() for h in _header_record(text, delimiter)]
+        delimiter = sniff_delimiter(text)
+    header = [h.strip() for h in header_record(text, delimiter)]
     if not any(header):
         raise TableError(f"{name}: the first line is empty; it must name the columns.")
-    _check_column_names(name, header)
+    check_column_names(name, header)
     if len(header) > limits.max_columns:
         raise TableError(
             f"{name}: {len(header)} columns is over the limit of {limits.max_columns}. "
@@ -499,10 +486,18 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if len(frame) and frame.iloc[:, -1].isna().any():
         _check_short_rows(text, delimiter, len(header), name)
     frame = _exact_integers(frame, text, delimiter, limits)
-    if delimiter != ",":
-        shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
-        warnings.append(f"{name}: columns separated by {shown}.")
+    said = delimiter_warning(name, delimiter)
+    if said:
+        warnings.append(said)
     return frame
+
+
+def delimiter_warning(name: str, delimiter: str) -> str | None:
+    """The warning for a delimited table whose cells are not separated by commas."""
+    if delimiter == ",":
+        return None
+    shown = {"\t": "tab", ";": "semicolon", "|": "vertical bar"}.get(delimiter, delimiter)
+    return f"{name}: columns separated by {shown}."
 
 
 def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
@@ -519,7 +514,7 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
         if series.dtype.kind == "f":
             raw = series.to_numpy()
             finite = raw[np.isfinite(raw)]
-            if len(finite) and np.isnan(raw).any() and np.abs(finite).max() >= _FLOAT_EXACT \
+            if len(finite) and np.isnan(raw).any() and np.abs(finite).max() >= FLOAT_EXACT \
                     and bool((finite == np.round(finite)).all()):
                 positions.append(position)
         elif series.dtype.kind == "O" or pd.api.types.is_string_dtype(series):
@@ -543,9 +538,10 @@ def _exact_integers(frame: pd.DataFrame, text: str, delimiter: str,
     return frame
 
 
-def _header_record(text: str, delimiter: str) -> list[str]:
-    """The first record, read the way pandas reads it: a quoted name may hold a line break,
-    and old files end lines with a lone carriage return.
+def header_record(text: str, delimiter: str) -> list[str]:
+    """The header's names as written (strip them to use them): the first record, read the
+    way pandas reads it: a quoted name may hold a line break, and old files end lines with
+    a lone carriage return.
 
     Read from the first megabyte when a second record starts there (so the first one ended
     inside it); otherwise from up to _HEADER_CHARS characters. Copying a whole large file
@@ -567,7 +563,9 @@ def _header_record(text: str, delimiter: str) -> list[str]:
         return []
 
 
-def _sniff_delimiter(text: str) -> str:
+def sniff_delimiter(text: str) -> str:
+    """The delimiter of a CSV-like text (comma, semicolon, tab or vertical bar), from its first
+    50 lines; a comma when nothing else stands out."""
     sample = "\n".join(text[:65536].splitlines()[:50])
     try:
         return csv.Sniffer().sniff(sample, delimiters=",;\t|").delimiter
@@ -770,7 +768,7 @@ def _records_frame(records: list, name: str, unit: str) -> pd.DataFrame:
         if not isinstance(record, dict):
             raise TableError(
                 f"{name}, {unit} {number}: expected a record (an object like {{\"a\": 1}}), "
-                f"got {_short(record)}. Every element of the array must be a record."
+                f"got {shown_value(record)}. Every element of the array must be a record."
             )
         for key in record:
             columns.setdefault(key, None)
@@ -788,7 +786,7 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
         source = pq.ParquetFile(pa.BufferReader(data))
         schema = source.schema_arrow
         names = schema.names
-        _check_column_names(name, [str(n) for n in names])
+        check_column_names(name, [str(n) for n in names])
         # a column at a time, each integer column narrowed before the next is read: peak
         # memory near one wide column plus the narrowed table, not the whole table twice
         # (see bench/RESULTS.md)
@@ -820,7 +818,7 @@ def _narrowed(column):
         return column
     extremes = pc.min_max(column)
     low, high = extremes["min"].as_py(), extremes["max"].as_py()
-    if high > _INT64_MAX:
+    if high > INT64_MAX:
         return column
     narrow = pa.from_numpy_dtype(_smallest_integer_type(low, high))
     return column if narrow == column.type else column.cast(narrow)
@@ -837,18 +835,29 @@ def _drop_unnamed(frame: pd.DataFrame, name: str, warnings: list[str]) -> pd.Dat
         values = frame.iloc[:, position]
         filled = values.notna() & (values.astype(str).str.strip() != "")
         if filled.any():
-            row = int(np.flatnonzero(filled.to_numpy())[0]) + 1
-            raise TableError(
-                f"{name}: column {position + 1} has no name in the header but holds values "
-                f"(row {row}: {_short(values.iloc[row - 1])}). Name it in the header."
-            )
-        warnings.append(f"{name}: column {position + 1} has no name and no values; ignored.")
+            row = int(np.flatnonzero(filled.to_numpy())[0])
+            unnamed_column_error(name, position, row, values.iloc[row])
+        warnings.append(unnamed_column_warning(name, position))
     if len(keep) == frame.shape[1]:
         return frame
     return frame.iloc[:, keep]
 
 
-def _check_column_names(name: str, header: list[str]) -> None:
+def unnamed_column_warning(name: str, position: int) -> str:
+    """The warning for the column at 0-based ``position``, with no name and no values."""
+    return f"{name}: column {position + 1} has no name and no values; ignored."
+
+
+def unnamed_column_error(name: str, position: int, row: int, value) -> None:
+    """Refuse the column at ``position`` with no name but a ``value`` in 0-based ``row``."""
+    raise TableError(
+        f"{name}: column {position + 1} has no name in the header but holds values "
+        f"(row {row + 1}: {shown_value(value)}). Name it in the header."
+    )
+
+
+def check_column_names(name: str, header: list[str]) -> None:
+    """Refuse a header naming one column twice (unnamed columns are looked at apart)."""
     seen: dict[str, int] = {}
     for position, column in enumerate(header, start=1):
         if not column.strip():
@@ -863,127 +872,6 @@ def _check_column_names(name: str, header: list[str]) -> None:
 
 # ----------------------------------------------------------------------------------------
 # Marked numbers: intervals and marker words among the numbers of a column
-
-
-@dataclass(frozen=True)
-class MarkerRule:
-    """When a column of numbers with intervals and words in it is read as an invariant.
-
-    Public databases write an open value as an interval ``[low, high]`` and put a word where
-    an invariant does not apply (``infty``, ``D.N.E.``, ``-``). A column is read as such
-    *marked numbers* when every filled cell is a number, an interval or a word, and
-
-    - at least one cell is an interval or a word, and at least one is a plain number (a column
-      of two-element brackets only is an array column);
-    - it has at most ``max_words`` different words;
-    - word cells are at most ``max_share`` of the filled cells;
-    - it never has more different words than different plain numbers.
-
-    A user who gives such a column the role invariant asks for the reading outright: only the
-    limit on different words applies then, and the column needs one number or interval.
-    """
-
-    max_words: int = 5
-    max_share: Fraction = Fraction(1, 3)
-
-    def describe(self) -> str:
-        return (f"at most {self.max_words} different words, in at most "
-                f"{self.max_share} of the filled cells, never more different words than "
-                "different numbers, and at least one plain number")
-
-
-# The one rule for reading marked numbers; a partitioned reader calls
-# reads_as_marked_numbers with its merged counts and gets the same answer.
-MARKER_RULE = MarkerRule()
-
-
-def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, int],
-                            distinct_numbers: int, requested: bool = False,
-                            rule: MarkerRule = MARKER_RULE) -> bool:
-    """Whether a column is read as marked numbers (see :class:`MarkerRule`).
-
-    ``numbers`` counts plain number cells, ``intervals`` interval cells, ``words`` maps each
-    word to its cell count, ``distinct_numbers`` counts different plain numbers (only whether
-    it reaches ``len(words)`` matters, so a reader may stop counting at ``rule.max_words``).
-    ``requested`` is True when the user gave the column the role invariant.
-
-    >>> reads_as_marked_numbers(numbers=9, intervals=1, words={"-": 2}, distinct_numbers=4)
-    True
-    >>> reads_as_marked_numbers(numbers=0, intervals=5, words={}, distinct_numbers=0)
-    False
-    """
-    word_cells = sum(words.values())
-    if len(words) > rule.max_words or (not words and not intervals):
-        return False
-    if requested:
-        return numbers + intervals > 0
-    if numbers == 0:
-        return False
-    filled = numbers + intervals + word_cells
-    return word_cells <= rule.max_share * filled and len(words) <= distinct_numbers
-
-
-_NUMBER = r"[+-]?(?:\d+\s*/\s*\d+|(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
-_NUMBER_TEXT = re.compile(rf"^\s*({_NUMBER})\s*$")
-_INTERVAL_TEXT = re.compile(rf"^\s*\[\s*({_NUMBER})\s*,\s*({_NUMBER})\s*\]\s*$")
-
-
-def read_marked_cell(value) -> tuple[str, object]:
-    """One cell of a possibly marked column: ``(kind, value)``.
-
-    Kinds: ``"missing"``; ``"number"`` (an int, a Fraction for ``p/q`` text, a float for
-    decimals); ``"interval"`` with ``(low, high)`` (from text ``[a, b]``, spaces allowed, or a
-    two-element list of numbers; ends typed as numbers are); ``"word"`` (any other text that
-    is not bracketed, stripped); ``"other"`` (anything else: longer lists, records, booleans,
-    text starting with a bracket). A zero denominator or an over-long integer is
-    ``("invalid", reason)``. Low above high is still an interval: the caller says where.
-
-    >>> read_marked_cell(" [1, 3/2] ")
-    ('interval', (1, Fraction(3, 2)))
-    >>> read_marked_cell("D.N.E.")
-    ('word', 'D.N.E.')
-    """
-    if _is_missing(value):
-        return "missing", None
-    if isinstance(value, (bool, np.bool_)):
-        return "other", value
-    if isinstance(value, (int, np.integer)):
-        return "number", int(value)
-    if isinstance(value, (float, np.floating)):
-        return "number", float(value)
-    if isinstance(value, (list, tuple, np.ndarray)):
-        ends = list(value.tolist() if isinstance(value, np.ndarray) else value)
-        if len(ends) == 2 and all(isinstance(x, (int, float)) and not isinstance(x, bool)
-                                  for x in ends):
-            return "interval", (ends[0], ends[1])
-        return "other", value
-    if not isinstance(value, str):
-        return "other", value
-    text = value.strip()
-    try:
-        match = _NUMBER_TEXT.match(text)
-        if match:
-            return "number", _number_text(match.group(1))
-        match = _INTERVAL_TEXT.match(text)
-        if match:
-            return "interval", (_number_text(match.group(1)), _number_text(match.group(2)))
-    except ZeroDivisionError:
-        return "invalid", f"{text!r} divides by zero"
-    except ValueError:
-        return "invalid", f"{_short(text)} has more digits than Python reads from text"
-    if not text:
-        return "missing", None
-    if text.startswith(("[", "{")):
-        return "other", value
-    return "word", text
-
-
-def _number_text(text: str):
-    if "/" in text:
-        return Fraction(text.replace(" ", ""))
-    if _INTEGER_TEXT.match(text):
-        return int(text)
-    return float(text)
 
 
 @dataclass(frozen=True)
@@ -1050,8 +938,8 @@ class _CellProblem(Exception):
 def _where(name: str, row: int, column: str, ids=None) -> str:
     """'t.csv, row 5 (id 'K7a1'), column 'volume'': rows counted from 1 after the header."""
     shown = ""
-    if ids is not None and 0 <= row < len(ids) and not _is_missing(ids[row]):
-        shown = f" (id {_short(ids[row])})"
+    if ids is not None and 0 <= row < len(ids) and not is_missing(ids[row]):
+        shown = f" (id {shown_value(ids[row])})"
     return f"{name}, row {row + 1}{shown}, column {column!r}"
 
 
@@ -1077,7 +965,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
                     return None
                 shown = ", ".join(repr(w) for w in words)
                 raise _CellProblem(i, column, (
-                    f"expected a number or an interval like [1, 2], got {_short(parsed)}; a "
+                    f"expected a number or an interval like [1, 2], got {shown_value(parsed)}; a "
                     f"column of numbers may hold at most {MARKER_RULE.max_words} different "
                     f"words read as missing, and this one already has {shown}"))
             words[parsed] = words.get(parsed, 0) + 1
@@ -1088,7 +976,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
             if not requested:
                 return None
             raise _CellProblem(i, column, (
-                f"expected a number or an interval like [1, 2], got {_short(value)}"))
+                f"expected a number or an interval like [1, 2], got {shown_value(value)}"))
     distinct = len({v for _, v in numbers})
     # a cell that fails to parse counts as a mark, so that its column is read (and refused)
     if not reads_as_marked_numbers(numbers=len(numbers),
@@ -1098,7 +986,7 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
         if requested:
             row = word_cells[0][0] if word_cells else present[0][0] if present else 0
             raise _CellProblem(row, column, (
-                f"expected a number, got {_short(series.iloc[row])}; the column holds no "
+                f"expected a number, got {shown_value(series.iloc[row])}; the column holds no "
                 "number or interval"))
         return None
     if invalid is not None:
@@ -1106,59 +994,10 @@ def _marked(series: pd.Series, present: list, column: str, limits: Limits,
     for i, (low, high) in intervals:
         if Fraction(low) > Fraction(high):
             raise _CellProblem(i, column, (
-                f"the interval {_short(str(series.iloc[i]).strip())} has its low end {low} "
+                f"the interval {shown_value(str(series.iloc[i]).strip())} has its low end {low} "
                 f"above its high end {high}. Write intervals as [low, high] with low <= high"))
     return _marked_values(series, numbers, intervals, word_cells, words, column, limits)
 
-
-def marked_dtype(*, has_float: bool, has_fraction: bool) -> str:
-    """The dtype of a marked column from the kinds among its plain numbers and interval ends
-    (as :func:`read_marked_cell` types them): real with any float, else rational with any
-    fraction, else integer.
-
-    >>> marked_dtype(has_float=False, has_fraction=True)
-    'rational'
-    """
-    if has_float:
-        return "real"
-    return "rational" if has_fraction else "integer"
-
-
-def marked_note(note: str, intervals: int, words: dict[str, int]) -> str:
-    """A marked column's note: ``note`` (from its numbers), then its intervals and its words
-    with their counts, most frequent first.
-
-    >>> marked_note("has missing cells", 2, {"infty": 3})
-    "has missing cells; 2 intervals; words read as missing: 'infty' (3)"
-    """
-    shown = [f"{intervals} interval{'s' if intervals != 1 else ''}"] if intervals else []
-    if words:
-        shown.append("words read as missing: " + ", ".join(
-            f"{w!r} ({n})" for w, n in sorted(words.items(), key=lambda kv: (-kv[1], kv[0]))))
-    return "; ".join(([note] if note else []) + shown)
-
-
-def marker_counts(words: dict[str, int]) -> dict[str, int]:
-    """``ColumnInfo.markers`` from word counts: each word and its count, most frequent first."""
-    return dict(sorted(words.items(), key=lambda kv: (-kv[1], kv[0])))
-
-
-def incomplete_integer_dtype(low: int, high: int) -> tuple[str, str]:
-    """(dtype, note) of a column of integers from ``low`` to ``high`` with missing cells.
-
-    float64 holds integers exactly only up to 2**53, so past that the column keeps exact
-    Python integers ("big integer"), as it does past 64 bits.
-
-    >>> incomplete_integer_dtype(0, 9)
-    ('integer', 'has missing cells')
-    >>> incomplete_integer_dtype(0, 2**60)
-    ('big integer', 'kept exact: beyond 2**53 with missing cells')
-    """
-    if high > _INT64_MAX or low < -_INT64_MAX - 1:
-        return "big integer", ""
-    if max(abs(low), abs(high)) > _FLOAT_EXACT:
-        return "big integer", _BEYOND_FLOAT_NOTE
-    return "integer", "has missing cells"
 
 
 def _marked_values(series, numbers, intervals, word_cells, words, column, limits):
@@ -1174,7 +1013,7 @@ def _marked_values(series, numbers, intervals, word_cells, words, column, limits
             floats[i] = float(v)
         values = pd.Series(floats, index=series.index)
         if np.isinf(floats).any():
-            note = "has infinite values"
+            note = INFINITE_NOTE
     elif dtype == "rational":
         values = _rebuild(series, numbers, Fraction, object)
     elif numbers:
@@ -1285,40 +1124,13 @@ def _merged_labels(series: pd.Series, column: str) -> tuple[pd.Series, dict] | N
     if not padded:
         return None
     stripped = [v.strip() if isinstance(v, str) else v for v in cells]
-    counts = dict(padded=len(padded), written=len({v for v in cells if not _is_missing(v)}),
-                  labels=len({v for v in stripped if not _is_missing(v)}),
-                  missing=sum(_is_missing(v) for v in cells), rows=len(cells))
+    counts = dict(padded=len(padded), written=len({v for v in cells if not is_missing(v)}),
+                  labels=len({v for v in stripped if not is_missing(v)}),
+                  missing=sum(is_missing(v) for v in cells), rows=len(cells))
     if label_merge_words(column, **counts) is None:
         return None
     return pd.Series(stripped, dtype=object, index=series.index), counts
 
-
-def label_merge_warning(name: str, column: str, *, padded: int, written: int, labels: int,
-                        missing: int, rows: int) -> str | None:
-    """The warning for a text column read without the spaces around its labels, or None
-    when its labels stay as written (only a column whose stripped labels make a category is
-    merged). ``padded`` counts the cells with such spaces, ``written`` the different labels
-    as written, ``labels`` those without the spaces.
-    """
-    words = label_merge_words(column, padded=padded, written=written, labels=labels,
-                              missing=missing, rows=rows)
-    return None if words is None else Note("labels_merged", f"{name}: column {column!r}: "
-                                           f"{words}", column=column, padded=padded,
-                                           written=written, labels=labels)
-
-
-def label_merge_words(column: str, *, padded: int, written: int, labels: int, missing: int,
-                      rows: int) -> str | None:
-    """What :func:`label_merge_warning` says of the column, without naming it (the column's
-    own note), or None when its labels stay as written."""
-    if not padded or detect_role(column, "text", labels, missing, rows, True) != "category":
-        return None
-    cells_word = "cell has" if padded == 1 else "cells have"
-    said = f"{padded} {cells_word} spaces around the label, read without them"
-    if written == labels:
-        return f"{said}."
-    return (f"{said}, so the column's {written} labels as written are {labels} "
-            f"label{'' if labels == 1 else 's'}.")
 
 
 def _missing_and_distinct(series: pd.Series, dtype: str) -> tuple[int, int]:
@@ -1359,104 +1171,13 @@ def _distinct(series: pd.Series, dtype: str) -> int:
     try:
         return int(series.nunique(dropna=True))
     except TypeError:
-        return len({repr(v) for v in series if not _is_missing(v)})
+        return len({repr(v) for v in series if not is_missing(v)})
 
 
 def array_token(value: np.ndarray) -> tuple:
     """What makes two array cells (as :func:`array_value` reads them) one distinct value."""
     return (value.shape, value.tobytes() if value.dtype != object else repr(value.tolist()))
 
-
-def reads_as_flag(words: set[str]) -> bool:
-    """Whether a column whose filled cells hold these (stripped) texts is a flag.
-
-    Every text is one of TRUE_WORDS or FALSE_WORDS in any case (``Y``/``N``, ``yes``/``no``,
-    ``T``/``F``, ``true``/``false``), with at most one spelling for each of the two values.
-    Columns of 0 and 1 are flags too; they are told apart before text is looked at.
-
-    >>> reads_as_flag({"Y", "N"}), reads_as_flag({"yes", "y"}), reads_as_flag({"x", "y"})
-    (True, False, False)
-    """
-    lowered = {w.lower() for w in words}
-    return bool(lowered) and lowered <= TRUE_WORDS | FALSE_WORDS and \
-        len(lowered & TRUE_WORDS) <= 1 and len(lowered & FALSE_WORDS) <= 1
-
-
-def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
-                 id_taken: bool) -> str:
-    unique = distinct == n - missing and missing == 0 and n > 1
-    if dtype == "array":
-        return "array"
-    if dtype == "boolean":
-        return "flag"
-    if dtype == "empty":
-        return "text"
-    if dtype in ("integer", "big integer", "rational", "real"):
-        if not id_taken and unique and dtype == "integer" and column.strip().lower() in _ID_NAMES:
-            return "id"
-        return "invariant"
-    # text-valued columns
-    if not id_taken and unique:
-        return "id"
-    if distinct <= max(20, int(0.05 * n)) and distinct < n:
-        return "category"
-    return "text"
-
-
-def flag_spelling_warning(name: str, column: str, labels) -> str | None:
-    """The warning for a category whose labels are all true/false words but in more than
-    one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
-    own, which is seldom what the table meant. None for any other column."""
-    words = sorted({str(w).strip() for w in labels})
-    lowered = {w.lower() for w in words}
-    if len(words) < 3 or not lowered <= TRUE_WORDS | FALSE_WORDS or reads_as_flag(set(words)):
-        return None
-    return Note("flag_spellings", f"{name}: column {column!r} holds only true/false words, in "
-                f"more than one spelling ({', '.join(words)}), so it is read as a category of "
-                f"{len(words)} labels, each spelling a class of its own. Give the column the "
-                "role flag, or write one spelling for each value (such as Y and N), to read it "
-                "as a flag.", column=column, spellings=tuple(words))
-
-
-def reads_as_boolean(words) -> bool:
-    """Whether a column whose present cells are these words is read as true/false: the one
-    rule of :func:`reads_as_flag`, under the name the partitioned reader uses."""
-    return reads_as_flag({str(w).strip() for w in words})
-
-
-def is_true_word(word) -> bool:
-    """Whether a true/false word (any case, spaces around it ignored) means true."""
-    return str(word).strip().lower() in TRUE_WORDS
-
-
-def is_missing(value) -> bool:
-    """Whether a cell value is a missing cell (None, pandas' NA or a float NaN)."""
-    return _is_missing(value)
-
-
-def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
-                    role: str, labels=None) -> list[str]:
-    """The loading warnings a typed column gives (big integers, empty, constant, true/false
-    words in several spellings). ``labels``: a category's distinct labels, when known."""
-    out = []
-    if role == "category" and labels is not None:
-        spelled = flag_spelling_warning(name, column, labels)
-        if spelled:
-            out.append(spelled)
-    if dtype == "big integer":
-        beyond = "2**53 and missing cells" if note == _BEYOND_FLOAT_NOTE else "64 bits"
-        out.append(Note(
-            "big_integers",
-            f"{name}: column {column!r} has integers beyond {beyond}; they are kept exact, "
-            "and features derived from them use the signed log scale sign(x)*log10(1+|x|).",
-            column=column))
-    if dtype == "empty":
-        out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
-                        column=column))
-    elif distinct == 1 and n > 1 and role != "id":
-        out.append(Note("column_constant", f"{name}: column {column!r} is constant; it carries "
-                        "no information.", column=column))
-    return out
 
 
 def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits,
@@ -1465,11 +1186,11 @@ def _nullable_integers(series: pd.Series, name: str, column: str, limits: Limits
     same integers read from text are: numpy integers without gaps, float64 with NaN for
     gaps while every value is exact there, Python integers past that."""
     present = series.dropna()
-    if len(present) < len(series) and len(present) and \
-            max(abs(int(present.min())), abs(int(present.max()))) > _FLOAT_EXACT:
+    if len(present) < len(series) and len(present) and incomplete_integer_dtype(
+            int(present.min()), int(present.max()))[0] == "big integer":
         values = [None if pd.isna(v) else int(v) for v in series.tolist()]
-        return pd.Series(values, dtype=object, index=series.index), "big integer", \
-            _BEYOND_FLOAT_NOTE
+        return pd.Series(values, dtype=object, index=series.index), \
+            *incomplete_integer_dtype(int(present.min()), int(present.max()))
     if len(present) < len(series):
         plain = series.astype("float64")
     else:
@@ -1483,6 +1204,10 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
     """Return (new values or None, dtype label, note); a marked column's _Marks go to
     ``marks_out``."""
     kind = series.dtype.kind
+    if kind == "b" and not isinstance(series.dtype, np.dtype):
+        # pandas' nullable flags: True, False and None, as flags with missing cells are
+        present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
+        return _booleans(series, present), "boolean", ""
     if kind == "b":
         return None, "boolean", ""
     if kind in "iu" and not isinstance(series.dtype, np.dtype):
@@ -1492,36 +1217,45 @@ def _type_one(series: pd.Series, name: str, column: str, limits: Limits,
             return None, "integer", ""
         raw = series.to_numpy()
         low, high = int(raw.min()), int(raw.max())
-        if high > _INT64_MAX:
+        dtype, note = integer_type(low, high, complete=True, zero_one=low == 0 and high == 1)
+        if dtype == "big integer":
             return pd.Series([int(v) for v in series.tolist()], dtype=object,
-                             index=series.index), "big integer", ""
-        if low == 0 and high == 1:
-            return series.astype(bool), "boolean", "0/1 read as false/true"
+                             index=series.index), dtype, note
+        if dtype == "boolean":
+            return series.astype(bool), dtype, note
         smallest = _smallest_integer_type(low, high)
         if smallest != raw.dtype:
             # the smallest signed type that holds every value exactly: a quarter of the
             # memory for most invariants, and no unsigned arithmetic surprises later
-            return series.astype(smallest), "integer", ""
-        return None, "integer", ""
+            return series.astype(smallest), dtype, note
+        return None, dtype, note
     if kind == "f":
-        raw = series.to_numpy()
-        if np.isinf(raw).any():
-            return None, "real", "has infinite values"
-        finite = series[np.isfinite(raw)]
-        if len(finite) == 0:
-            if series.isna().all():
-                return None, "empty", ""
-            return None, "real", ""
-        if bool((finite == np.round(finite)).all()) and finite.abs().max() < 2**53:
-            if _is_zero_one(series):
-                flags = [(i, v) for i, v in enumerate(raw.tolist()) if not np.isnan(v)]
-                return _booleans(series, flags), "boolean", "0/1 read as false/true"
-            if series.isna().any():
-                return None, "integer", "has missing cells"
-            return series.astype(_smallest_integer_type(int(finite.min()), int(finite.max()))), \
-                "integer", ""
-        return None, "real", ""
+        return _type_floats(series)
     return _type_object(series, name, column, limits, marks_out)
+
+
+def _type_floats(series: pd.Series):
+    """(new values or None, dtype, note) of a float64 column: whole numbers below 2**53 are
+    integers (or flags) by :func:`integer_type`."""
+    raw = series.to_numpy()
+    if np.isinf(raw).any():
+        return None, "real", INFINITE_NOTE
+    finite = series[np.isfinite(raw)]
+    if len(finite) == 0:
+        if series.isna().all():
+            return None, "empty", ""
+        return None, "real", ""
+    if not (bool((finite == np.round(finite)).all()) and finite.abs().max() < FLOAT_EXACT):
+        return None, "real", ""
+    low, high = int(finite.min()), int(finite.max())
+    dtype, note = integer_type(low, high, complete=not series.isna().any(),
+                               zero_one=_is_zero_one(series))
+    if dtype == "boolean":
+        flags = [(i, v) for i, v in enumerate(raw.tolist()) if not np.isnan(v)]
+        return _booleans(series, flags), dtype, note
+    if series.isna().any():
+        return None, dtype, note
+    return series.astype(_smallest_integer_type(low, high)), dtype, note
 
 
 def _plain_json_value(value):
@@ -1537,7 +1271,7 @@ def _as_text(series: pd.Series, name: str, column: str, limits: Limits):
     """A column kept as text at the caller's request: cells as given, not parsed."""
     values = []
     for row, value in enumerate(series.tolist()):
-        if _is_missing(value):
+        if is_missing(value):
             values.append(None)
             continue
         if isinstance(value, (list, tuple, dict, np.ndarray)):
@@ -1581,7 +1315,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                  marks_out: dict | None = None):
     """Type a column of Python objects; a marked column's _Marks go to ``marks_out["marks"]``
     (it is read as plain text when no ``marks_out`` is given)."""
-    present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     if not present:
         return None, "empty", ""
     values = [v for _, v in present]
@@ -1599,7 +1333,7 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                 flags = [(i, v) for i, v in enumerate(floats.tolist()) if not np.isnan(v)]
                 return _booleans(series, flags), "boolean", "0/1 read as false/true"
             return ints, "integer", ("has missing cells" if np.isnan(floats).any() else "")
-        note = "has infinite values" if np.isinf(floats).any() else ""
+        note = INFINITE_NOTE if np.isinf(floats).any() else ""
         return pd.Series(floats, index=series.index), "real", note
     if "decimal" in kinds:
         # Parquet decimals: exact rationals, read through their text so that integers and
@@ -1618,14 +1352,14 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
         good_row = next(i for i, v in present if _kind_of(v) == "list")
         raise TableError(
             f"{name}, row {row + 1}, column {column!r}: expected an array like [1, 2] (row "
-            f"{good_row + 1} holds one), got {_short(bad)}. Make every cell of the column an "
+            f"{good_row + 1} holds one), got {shown_value(bad)}. Make every cell of the column an "
             "array, or empty."
         )
     if kinds & {"dict"}:
         row, bad = next((i, v) for i, v in present if _kind_of(v) == "dict")
         raise TableError(
             f"{name}, row {row + 1}, column {column!r}: a cell holds a JSON object "
-            f"{_short(bad)}; cells may hold numbers, text, or arrays. Flatten the record."
+            f"{shown_value(bad)}; cells may hold numbers, text, or arrays. Flatten the record."
         )
     # Text cells: numbers, rationals, booleans or JSON arrays written as text.
     texts = [str(v) for v in values]
@@ -1636,11 +1370,20 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
             f"{name}, row {row + 1}, column {column!r}: a cell of {longest} characters is "
             f"over the limit of {limits.max_cell}. Shorten it or raise it with --limit max_cell=N."
         )
-    stripped = [t.strip() for t in texts]
-    if all(_INTEGER_TEXT.match(t) for t in stripped):
+    return _type_texts(series, present, name, column, limits, marks_out)
+
+
+def _type_texts(series: pd.Series, present: list, name: str, column: str, limits: Limits,
+                marks_out: dict | None):
+    """Type a column of text cells by the reading its facts give (one block, see
+    :func:`analysis.column_facts.text_reading`)."""
+    stripped = [str(v).strip() for _, v in present]
+    facts = text_block_facts(series, counts=False)
+    reading = text_reading(facts, marked=marks_out is not None)
+    if reading == "integer":
         parsed = [(i, _int_text(t, name, i, column)) for (i, _), t in zip(present, stripped)]
         return _integers(series, parsed, name, column)
-    if all(_RATIONAL_TEXT.match(t) for t in stripped):
+    if reading == "rational":
         parsed = []
         for (i, _), t in zip(present, stripped):
             _int_text(t.split("/")[0], name, i, column)
@@ -1653,29 +1396,18 @@ def _type_object(series: pd.Series, name: str, column: str, limits: Limits,
                     "Fix the cell or mark the column as text."
                 ) from None
         return _rebuild(series, parsed, lambda v: v, object), "rational", ""
-    if reads_as_flag(set(stripped)):
+    if reading == "flag":
         parsed = [(i, t.lower() in TRUE_WORDS) for (i, _), t in zip(present, stripped)]
         return _booleans(series, parsed), "boolean", ""
-    if marks_out is not None:
+    if reading == "marked":
         marked = _marked(series, present, column, limits)
         if marked is not None:
             marks_out["marks"] = marked[3]
             return marked[:3]
-    if reads_as_array_texts(sum(t.startswith("[") for t in stripped), len(stripped)):
+    if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
-    return None, "text", ""
-
-
-def reads_as_array_texts(brackets: int, filled: int) -> bool:
-    """Whether a column of text cells (not numbers, flags or marked numbers) is read as
-    arrays: when at least half of its ``filled`` cells start with ``[`` (``brackets``, after
-    stripping spaces). Every filled cell must then be a JSON array.
-
-    >>> reads_as_array_texts(3, 5), reads_as_array_texts(2, 5)
-    (True, False)
-    """
-    return brackets > 0 and 2 * brackets >= filled
+    return None, "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(facts) else ""
 
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,
@@ -1684,7 +1416,7 @@ def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None
     checked as :func:`load_table` checks it. ``first_row`` is the row of the first cell in
     the whole table, for the messages of a partition read on its own.
     """
-    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     return _array_texts(series, present, name, column, limits or Limits(), first_row)
 
 
@@ -1696,7 +1428,7 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
         if not t.startswith("["):
             raise TableError(
                 f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {_short(t)}. Make every cell of the column an array, or empty."
+                f"[1, 2], got {shown_value(t)}. Make every cell of the column an array, or empty."
             )
         if _depth_ok(t, limits.max_depth) > 2:
             raise TableError(
@@ -1717,7 +1449,8 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
         if not isinstance(value, list):
             raise TableError(
                 f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {_short(value)}. Make every cell of the column an array, or empty."
+                f"[1, 2], got {shown_value(value)}. Make every cell of the column an array, "
+                "or empty."
             )
     rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
     for i, v in decoded:
@@ -1728,22 +1461,21 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
 def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
     present = [(i, int(v)) for i, v in present]
     complete = len(present) == len(series)
-    if flags and {v for _, v in present} == {0, 1}:
-        return _booleans(series, present), "boolean", "0/1 read as false/true"
     low, high = min(v for _, v in present), max(v for _, v in present)
-    if complete:
-        if high > _INT64_MAX or low < -_INT64_MAX - 1:
-            return _rebuild(series, present, lambda v: v, object), "big integer", ""
-        values = np.array([v for _, v in present], dtype=np.int64)
-        return pd.Series(values, index=series.index), "integer", ""
-    # a column with missing cells would become float64: see incomplete_integer_dtype
-    dtype, note = incomplete_integer_dtype(low, high)
+    dtype, note = integer_type(low, high, complete=complete, flags=flags,
+                               zero_one={v for _, v in present} == {0, 1})
+    if dtype == "boolean":
+        return _booleans(series, present), dtype, note
     if dtype == "big integer":
         return _rebuild(series, present, lambda v: v, object), dtype, note
+    if complete:
+        values = np.array([v for _, v in present], dtype=np.int64)
+        return pd.Series(values, index=series.index), dtype, note
+    # a column with missing cells is float64, exact below 2**53 (see integer_type)
     floats = np.full(len(series), np.nan)
     for i, v in present:
         floats[i] = float(v)
-    return pd.Series(floats, index=series.index), "integer", "has missing cells"
+    return pd.Series(floats, index=series.index), dtype, note
 
 
 def _booleans(series: pd.Series, present: list) -> pd.Series:
@@ -1814,9 +1546,9 @@ def array_value(value, name: str, row: int, column: str, limits: Limits) -> np.n
                          f"{limits.max_array}. Raise it with --limit max_array=N if you need it.")
     for x in flat:
         if isinstance(x, bool) or not isinstance(x, (int, float, np.integer, np.floating)):
-            raise TableError(f"{where}: array entries must be numbers, got {_short(x)}.")
+            raise TableError(f"{where}: array entries must be numbers, got {shown_value(x)}.")
     if all(isinstance(x, (int, np.integer)) for x in flat):
-        if flat and max(abs(int(x)) for x in flat) > _INT64_MAX:
+        if flat and max(abs(int(x)) for x in flat) > INT64_MAX:
             return np.array([int(x) for x in flat], dtype=object).reshape(shape)
         return np.array(flat, dtype=np.int64).reshape(shape)
     return np.array(flat, dtype=np.float64).reshape(shape)
@@ -1852,9 +1584,9 @@ def _retype_text(table_name: str, series: pd.Series, info: ColumnInfo, role: str
         values = [None if v is None else json.dumps(v.tolist()) for v in series]
     elif info.dtype == "integer":
         # integers with missing cells are stored as floats: written as integers again
-        values = [None if _is_missing(v) else str(int(v)) for v in series.tolist()]
+        values = [None if is_missing(v) else str(int(v)) for v in series.tolist()]
     else:
-        values = [None if _is_missing(v) else str(v) for v in series.tolist()]
+        values = [None if is_missing(v) else str(v) for v in series.tolist()]
     for position, text in (marks.texts if marks else ()):
         values[position] = text  # an interval or word as the file wrote it
     return pd.Series(values, dtype=object, index=series.index), replace(
@@ -1866,7 +1598,7 @@ def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: Col
     """A text, category or array column given the role invariant: plain numbers, or marked
     numbers read as the user asks (only the limit on different words applies)."""
     column = info.name
-    present = [(i, v) for i, v in enumerate(series.tolist()) if not _is_missing(v)]
+    present = [(i, v) for i, v in enumerate(series.tolist()) if not is_missing(v)]
     if any(read_marked_cell(v)[0] != "number" for _, v in present):
         try:
             values, dtype, note, marks = _marked(series, present, column, limits,
@@ -1904,7 +1636,7 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
             )
         return None, new
     if role == "invariant":  # from a flag
-        return series.map(lambda v: None if _is_missing(v) else int(bool(v))).astype(
+        return series.map(lambda v: None if is_missing(v) else int(bool(v))).astype(
             "float64" if series.isna().any() else "int64"), replace(new, dtype="integer")
     if role == "flag":
         if info.dtype == "array":
@@ -1912,24 +1644,24 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
                 f"{table_name}, row {_first_present(series) + 1}, column {column!r}: a flag "
                 "holds two values, not arrays. Keep the column as an array."
             )
-        present = [v for v in series.tolist() if not _is_missing(v)]
+        present = [v for v in series.tolist() if not is_missing(v)]
         levels = sorted({_flag_token(v) for v in present}, key=str)
         if len(levels) > 2:
             seen: list = []
             for row, value in enumerate(series.tolist()):
-                if _is_missing(value) or _flag_token(value) in seen:
+                if is_missing(value) or _flag_token(value) in seen:
                     continue
                 if len(seen) == 2:
                     raise TableError(
                         f"{table_name}, row {row + 1}, column {column!r}: a third value "
-                        f"{_short(_flag_token(value))} (besides {_short(seen[0])} and "
-                        f"{_short(seen[1])}); "
+                        f"{shown_value(_flag_token(value))} (besides {shown_value(seen[0])} and "
+                        f"{shown_value(seen[1])}); "
                         f"a flag has two values and this column has {len(levels)}. Use the "
                         "category role, or fix the cell."
                     )
                 seen.append(_flag_token(value))
         truthy = _true_level(levels)
-        values = [None if _is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
+        values = [None if is_missing(v) else _flag_token(v) == truthy for v in series.tolist()]
         note = "" if info.dtype == "boolean" else (
             "read from true/false words" if truthy is True else f"true means {truthy!r}")
         return pd.Series(values, dtype=object if None in values else bool,
@@ -1939,14 +1671,14 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
         if info.dtype == "array":
             return None, new
         present = [(row, str(v).strip()) for row, v in enumerate(series.tolist())
-                   if not _is_missing(v)]
+                   if not is_missing(v)]
         if info.dtype in ("text", "category") and present:
             return _array_texts(series, present, table_name, column, limits), replace(
                 new, dtype="array", note=f"read as arrays (was {info.dtype})")
         row, value = present[0] if present else (0, None)
         raise TableError(
             f"{table_name}, row {row + 1}, column {column!r}: expected an array like [1, 2], "
-            f"got {_short(value)} (the column holds {info.dtype} values). Array cells are "
+            f"got {shown_value(value)} (the column holds {info.dtype} values). Array cells are "
             "written like [1, 2] or [[1, 0], [0, 1]]; keep the column as "
             f"{info.role}."
         )
@@ -1954,7 +1686,7 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
 
 
 def _first_present(series: pd.Series) -> int:
-    return next((row for row, v in enumerate(series.tolist()) if not _is_missing(v)), 0)
+    return next((row for row, v in enumerate(series.tolist()) if not is_missing(v)), 0)
 
 
 def _flag_token(value):
@@ -1982,7 +1714,7 @@ def _check_unique_ids(name: str, series: pd.Series) -> None:
         first = duplicated.iloc[0]
         rows = [int(i) + 1 for i in np.flatnonzero((series == first).to_numpy())[:3]]
         raise TableError(
-            f"{name}: column {series.name!r} cannot be the id: the value {_short(first)} "
+            f"{name}: column {series.name!r} cannot be the id: the value {shown_value(first)} "
             f"appears in rows {', '.join(map(str, rows))}. Choose a column with unique values."
         )
     if series.isna().any():
@@ -2011,29 +1743,6 @@ def _kind_of(value) -> str:
     return "text"
 
 
-def _is_missing(value) -> bool:
-    if value is None or value is pd.NA:
-        return True
-    if isinstance(value, float) and np.isnan(value):
-        return True
-    return False
-
-
-def from_decimal(value):
-    """A Parquet decimal as an exact int or Fraction (NaN as missing, infinities as floats);
-    any other value as it is. Both engines read decimals through it.
-
-    >>> from_decimal(Decimal("3.50"))
-    Fraction(7, 2)
-    """
-    if not isinstance(value, Decimal):
-        return value
-    if value.is_nan():
-        return None
-    if value.is_infinite():
-        return float(value)
-    exact = Fraction(value)
-    return exact.numerator if exact.denominator == 1 else exact
 
 
 def _int_text(text: str, name: str, row: int, column: str) -> int:
@@ -2045,7 +1754,7 @@ def _int_text(text: str, name: str, row: int, column: str) -> int:
 
 
 def _to_float(value) -> float:
-    if _is_missing(value):
+    if is_missing(value):
         return np.nan
     try:
         return float(value)
@@ -2056,10 +1765,3 @@ def _to_float(value) -> float:
 def _one_line(error) -> str:
     """A library's error text on one line: the command line prints one line per error."""
     return " ".join(str(error).split())
-
-
-def _short(value, width: int = 40) -> str:
-    if isinstance(value, np.generic):
-        value = value.item()  # show 1, not np.int64(1)
-    text = repr(value) if not isinstance(value, str) else repr(value)
-    return text if len(text) <= width else text[: width - 3] + "..."

@@ -3,7 +3,8 @@
 The study is the single source of truth: before a widget is drawn its value is taken from
 the step's parameters, and a change goes straight back into the study (through
 ``analysis.study.update_step``, which checks it). Widget keys are ``s<step id>.<setting>``,
-stable while the step moves up and down the page.
+stable while the step moves up and down the page. A widget's label, help, choices with their
+words and range are the step's setting record's (``analysis.steps.step_settings``).
 """
 
 from __future__ import annotations
@@ -13,26 +14,14 @@ from dataclasses import dataclass, field
 import streamlit as st
 
 from analysis.errors import StudyError
+from analysis.settings import ARRAY_ENCODING, named
+from analysis.steps import step_settings
 from analysis.study import StudyStep, target_setting, update_step
 from app import state
 
-# What each array encoding means, in words.
-ENCODINGS = {
-    "invariant": "unchanged by permuting rows and columns (compact for large matrices)",
-    "compact": "compact: size, rank, trace, determinant, spectra",
-    "full": "unchanged by permuting rows and columns, every sorted entry",
-    "flat": "entries flattened (padded to one shape)",
-    "both": "both",
-}
-LOG_SCALES = {
-    "auto": "only for integers beyond 64 bits",
-    "never": "never",
-    "always": "every numeric feature",
-}
-MISSING = {"drop": "leave the row out", "impute": "fill in (median or most common)"}
-INTERVALS = {"missing": "as missing cells", "low": "their low end", "high": "their high end",
-             "midpoint": "their midpoint"}
 NONE_LABEL = "(none)"
+# the array encodings in words, for the table's study-wide choice too
+ENCODINGS = ARRAY_ENCODING.words
 
 
 @dataclass
@@ -53,6 +42,20 @@ class StepContext:
 
     def key(self, name: str) -> str:
         return f"s{self.uid}.{name}"
+
+    def record(self, name: str):
+        """The record of the step's setting ``name``."""
+        return record(self.step.kind, name)
+
+
+def record(kind: str, name: str):
+    """The record of setting ``name`` of a step of ``kind``."""
+    return named(step_settings(kind))[name]
+
+
+def words(kind: str, name: str) -> dict:
+    """Each choice of setting ``name`` of a step of ``kind`` and its words."""
+    return record(kind, name).words
 
 
 def _changed(uid: int, name: str, key: str, convert) -> None:
@@ -80,9 +83,13 @@ def _sync(key: str, value) -> None:
         st.session_state[key] = value
 
 
-def choice(ctx: StepContext, name: str, label: str, options: dict | list, *,
-           help: str | None = None, container=st) -> None:
-    """A selectbox over fixed options (a dict maps each value to the words shown)."""
+def choice(ctx: StepContext, name: str, options: dict | list | None = None, *,
+           container=st) -> None:
+    """A selectbox over the setting's choices, in their words; ``options`` (a dict maps each
+    value to the words shown) replaces them where the page words them otherwise."""
+    setting = ctx.record(name)
+    label, help = setting.label, setting.help
+    options = setting.words if options is None else options
     words = options if isinstance(options, dict) else {o: str(o) for o in options}
     values = list(words)
     current = ctx.params.get(name)
@@ -96,9 +103,10 @@ def choice(ctx: StepContext, name: str, label: str, options: dict | list, *,
                         on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
 
 
-def column(ctx: StepContext, name: str, label: str, columns: list[str], *,
-           optional: bool = True, help: str | None = None, container=st) -> None:
+def column(ctx: StepContext, name: str, columns: list[str], *, optional: bool = True,
+           container=st) -> None:
     """A selectbox over column names, with "(none)" when the setting may be empty."""
+    label, help = ctx.record(name).label, ctx.record(name).help
     values = ([None] if optional else []) + list(columns)
     current = ctx.params.get(name)
     if current not in values:
@@ -110,10 +118,11 @@ def column(ctx: StepContext, name: str, label: str, columns: list[str], *,
                         on_change=_changed, args=(ctx.uid, name, key, lambda v: v))
 
 
-def columns(ctx: StepContext, name: str, label: str, options: list[str], defaults: list[str],
-            *, help: str | None = None, container=st) -> None:
+def columns(ctx: StepContext, name: str, options: list[str], defaults: list[str], *,
+            container=st) -> None:
     """A multiselect of column names; left empty it means the defaults (stored as None, so
     that a saved study keeps meaning "every suitable column" on a wider table)."""
+    label, help = ctx.record(name).label, ctx.record(name).help
     current = ctx.params.get(name)
     shown = [] if current is None else list(current)
     options = list(options) + [c for c in shown if c not in options]
@@ -128,10 +137,13 @@ def columns(ctx: StepContext, name: str, label: str, options: list[str], default
                           on_change=_changed, args=(ctx.uid, name, key, convert))
 
 
-def whole_number(ctx: StepContext, name: str, label: str, *, minimum: int = 0,
-                 maximum: int | None = None, optional: bool = False, help: str | None = None,
-                 container=st) -> None:
-    """A number input for a whole number; with ``optional``, 0 stands for "not set"."""
+def whole_number(ctx: StepContext, name: str, *, container=st) -> None:
+    """A number input for a whole number; for a setting that may be unset, 0 stands for
+    "not set"."""
+    setting = ctx.record(name)
+    label, help, optional = setting.label, setting.help, setting.optional
+    minimum = 0 if setting.low is None else int(setting.low)
+    maximum = None if setting.high is None else int(setting.high)
     current = ctx.params.get(name)
     key = ctx.key(name)
     low = 0 if optional else minimum
@@ -150,9 +162,11 @@ def whole_number(ctx: StepContext, name: str, label: str, *, minimum: int = 0,
                            on_change=_changed, args=(ctx.uid, name, key, convert))
 
 
-def whole_range(ctx: StepContext, name: str, label: str, *, minimum: int, maximum: int,
-                help: str | None = None, container=st) -> None:
+def whole_range(ctx: StepContext, name: str, *, container=st) -> None:
     """A slider for a range of whole numbers, stored as [low, high]."""
+    setting = ctx.record(name)
+    label, help = setting.label, setting.help
+    minimum, maximum = int(setting.low), int(setting.high)
     low, high = (int(v) for v in ctx.params.get(name))
     low, high = max(low, minimum), max(high, minimum)
     key = ctx.key(name)
@@ -162,8 +176,11 @@ def whole_range(ctx: StepContext, name: str, label: str, *, minimum: int, maximu
                      args=(ctx.uid, name, key, lambda v: [int(v[0]), int(v[1])]))
 
 
-def real_number(ctx: StepContext, name: str, label: str, *, minimum: float, maximum: float,
-                step: float, help: str | None = None, container=st) -> None:
+def real_number(ctx: StepContext, name: str, *, container=st) -> None:
+    """A number input over the setting's range, in its steps."""
+    setting = ctx.record(name)
+    label, help, step = setting.label, setting.help, setting.page_step
+    minimum, maximum = setting.low, setting.high
     current = ctx.params.get(name)
     key = ctx.key(name)
     _sync(key, min(max(float(current), float(minimum)), float(maximum)))
@@ -172,8 +189,9 @@ def real_number(ctx: StepContext, name: str, label: str, *, minimum: float, maxi
                            on_change=_changed, args=(ctx.uid, name, key, float))
 
 
-def flag(ctx: StepContext, name: str, label: str, *, help: str | None = None,
-         container=st) -> None:
+def flag(ctx: StepContext, name: str, *, container=st) -> None:
+    """A toggle for a setting that is on or off."""
+    label, help = ctx.record(name).label, ctx.record(name).help
     key = ctx.key(name)
     _sync(key, bool(ctx.params.get(name)))
     container.toggle(label, key=key, help=help,
@@ -181,35 +199,30 @@ def flag(ctx: StepContext, name: str, label: str, *, help: str | None = None,
 
 
 def seed(ctx: StepContext, container=st) -> None:
-    whole_number(ctx, "seed", "Seed", minimum=0, maximum=2**32 - 1, container=container,
-                 help="The same seed gives the same numbers every time.")
+    whole_number(ctx, "seed", container=container)
 
 
-def feature_block(ctx: StepContext, *, label: str = "target", container=st) -> None:
-    """The settings every step that builds a feature matrix shares. The column named by
-    the ``label`` setting (the target) is never offered as a feature."""
+def feature_block(ctx: StepContext, *, container=st) -> None:
+    """The settings every step that builds a feature matrix shares. The column the step's
+    target setting names (a clustering's compared label too) is never offered as a
+    feature."""
     from analysis.features import default_feature_columns
 
     table = ctx.table
-    target = ctx.params.get(label)
+    target = ctx.params.get(target_setting(ctx.step.kind) or "target")
     usable = [c.name for c in table.columns
               if c.role in ("invariant", "flag", "category", "array") and c.name != target]
     defaults = default_feature_columns(table, target=target)
-    columns(ctx, "columns", "Feature columns", usable, defaults, container=container,
-            help="The invariants the step looks at. Leave empty for every invariant, flag, "
-                 "category and array column but the target.")
+    columns(ctx, "columns", usable, defaults, container=container)
     left, middle, right = container.columns(3)
     if "array_encoding" in ctx.params and table.names_with_role("array"):
-        choice(ctx, "array_encoding", "Matrix and list columns", ENCODINGS, container=left,
-               help="How array-valued cells become features.")
+        choice(ctx, "array_encoding", container=left)
     if "log_scale" in ctx.params:
-        choice(ctx, "log_scale", "Signed log scale", LOG_SCALES, container=middle,
-               help="sign(x)·log10(1+|x|), for invariants with a heavy tail.")
+        choice(ctx, "log_scale", container=middle)
     if "missing" in ctx.params:
-        choice(ctx, "missing", "Missing values", MISSING, container=right)
+        choice(ctx, "missing", container=right)
     if "intervals" in ctx.params and any(c.intervals for c in table.columns):
-        choice(ctx, "intervals", "Interval cells [low, high]", INTERVALS, container=right,
-               help="Cells known only by an interval: read as missing, or by one value.")
+        choice(ctx, "intervals", container=right)
 
 
 def label_columns(table) -> list[str]:

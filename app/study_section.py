@@ -8,7 +8,7 @@ import dataclasses
 import streamlit as st
 
 from analysis.errors import ScoutError, StepError
-from analysis.steps import KIND_TITLES, STEP_KINDS, step_class
+from analysis.steps import KIND_TITLES, KINDS, STEP_KINDS, step_class
 from analysis.study import (
     StepJob,
     add_step,
@@ -23,15 +23,6 @@ from app.panels import panel
 from app.settings import NONE_LABEL, StepContext
 from app.share import vector_ready
 
-# What a step is doing while it runs, by kind (the status line under its title).
-RUNNING = {
-    "overview": "Summarizing every column",
-    "projection": "Building features and projecting to two dimensions",
-    "clustering": "Trying clusterings and comparing their scores",
-    "separator": "Fitting on training rows, testing on the others, comparing with chance",
-    "relations": "Searching for exact relations and sharp bounds, checking every row",
-    "outliers": "Scoring every object",
-}
 UMAP_FIRST = ("UMAP compiles its numerical code on its first use in this session; "
               "this run takes 15 s or more")
 
@@ -254,7 +245,7 @@ def _run(step, table, key: str, place, uid: int):
     job = jobs.get(key)
     if job is None:
         job = jobs[key] = StepJob(step, table).start()
-    label = f"{step.display_title}: {RUNNING.get(step.kind, 'running')}"
+    label = f"{step.display_title}: {KINDS[step.kind].running}"
     umap = step.kind == "projection" and step.params.get("method") == "umap"
     if umap:
         label = _umap_label(step.display_title) or label
@@ -434,7 +425,7 @@ def _add_step_row(table) -> None:
     st.markdown("##### Add a step")
     left, right = st.columns([3, 1], vertical_alignment="bottom")
     left.selectbox("Kind of step", kinds, key="add.kind",
-                   format_func=lambda k: f"{KIND_TITLES.get(k, k)}: {_KIND_WORDS.get(k, '')}",
+                   format_func=lambda k: f"{KIND_TITLES.get(k, k)}: {KINDS[k].finds}",
                    label_visibility="collapsed")
     right.button("Add step", key="add.button", on_click=_add, args=(table,),
                  icon=":material/add:", width="stretch")
@@ -443,13 +434,3 @@ def _add_step_row(table) -> None:
     waiting = [KIND_TITLES[k] for k in STEP_KINDS if k not in kinds]
     if waiting:
         st.caption("Not installed yet: " + ", ".join(waiting) + ".")
-
-
-_KIND_WORDS = {
-    "overview": "columns, ranges, correlated pairs",
-    "projection": "a 2-d picture (PCA, UMAP, t-SNE, LDA)",
-    "clustering": "groups of similar objects",
-    "separator": "is the target predictable, and by what equation?",
-    "relations": "exact linear relations and sharp bounds",
-    "outliers": "objects to look at by hand",
-}

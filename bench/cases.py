@@ -514,6 +514,12 @@ def prepare(case: str, side: str, paths: dict):
         return lambda: {"rows_projected": int(len(fit(values)))}
     if case in ("relations", "relations_full"):
         if side == "ours":
+            # imports outside the clock, as for the other cases: the bound search's hulls and
+            # its few linear programmes
+            import scipy.optimize  # noqa: F401
+            import scipy.spatial  # noqa: F401
+
+            import analysis.congruences  # noqa: F401
             from analysis.relations import RelationsStep
 
             table = _table(paths)

@@ -415,3 +415,54 @@ def test_features_the_dask_engine_refuses_are_named(client, atlas, column, messa
     assert step.run(in_memory).features[0] == "edges"
     with pytest.raises(StepError, match=message):
         run_distributed(step, folder, client=client)
+
+
+# ----------------------------------------------------------------------------------------
+# Typing of delimited text read in blocks: one rule on both engines
+
+
+BLOCK_CASES = {
+    "flags with blanks": "k,f\n" + "".join(f"{k},{'' if k % 7 == 3 else k % 2}\n"
+                                           for k in range(600)),
+    "past 2**53 with blanks": "k,v\n" + "".join(f"{k},{'' if k % 9 == 4 else 2**60 + k}\n"
+                                                for k in range(600)),
+    "semicolons": "a;b\n" + "".join(f"{k};{k * k}\n" for k in range(600)),
+    "empty unnamed column": "a,b,\n" + "".join(f"{k},{k + 1},\n" for k in range(600)),
+    "rationals with blanks": "r\n" + "".join(f"{'' if k % 5 == 2 else f'{k}/7'}\n"
+                                            for k in range(600)),
+    "infinite reals": "x\n" + "".join(f"{'inf' if k % 11 == 5 else k / 4}\n"
+                                      for k in range(600)),
+    "numbers with many words": "c\n" + "".join(f"{'-' if k % 5 < 2 else k % 4}\n"
+                                               for k in range(2000)),
+}
+
+
+@pytest.mark.parametrize("case", list(BLOCK_CASES))
+def test_csv_blocks_are_typed_as_in_memory(client, tmp_path, case):
+    path = tmp_path / "cells.csv"
+    path.write_text(BLOCK_CASES[case])
+    table = read_partitioned(path, client, blocksize=1000)
+    assert table.npartitions > 1
+    in_memory = load_table(path)
+    assert table.columns == in_memory.columns
+    assert _said(table.warnings) == _said(in_memory.warnings)
+
+
+def test_typing_of_blocks_follows_pythons_own_numbers(client, tmp_path):
+    path = tmp_path / "cells.csv"
+    path.write_text(BLOCK_CASES["past 2**53 with blanks"])
+    column = read_partitioned(path, client, blocksize=1000).column("v")
+    # 2**60 + k is not a float64 value (IEEE 754 doubles stop at 2**53), so it stays exact
+    assert float(2**60 + 1) != 2**60 + 1 and column.dtype == "big integer"
+    assert column.missing == sum(1 for k in range(600) if k % 9 == 4)
+
+
+def test_nullable_flags_from_parquet_parts_are_flags_with_missing_cells(client, tmp_path):
+    frame = pd.DataFrame({"b": pd.array([True, None, False, True] * 10, dtype="boolean"),
+                          "k": range(40)})
+    folder, whole = write_parts(frame, tmp_path / "flags", parts=3)
+    table = read_partitioned(folder, client)
+    in_memory = load_table(whole)
+    assert table.columns == in_memory.columns
+    assert in_memory.column("b").missing == int(frame.b.isna().sum())   # counted by pandas
+    assert in_memory.exact("b") == [None if v is pd.NA else int(v) for v in frame.b]

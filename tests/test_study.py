@@ -504,9 +504,14 @@ def test_writing_into_a_missing_folder_is_a_study_error(tmp_path, small):
     ("separator", {"target": "t", "train_fraction": 1.5}, r"train fraction 1\.5"),
     ("outliers", {"top": 0}, r"top = 0: give how many rows to list"),
     ("relations", {"max_coefficient": 0}, r"step 1: step 'relations'"),
-    ("projection", {"array_encoding": "zigzag"}, r"array_encoding 'zigzag' is not one of"),
+    ("projection", {"array_encoding": "zigzag"},
+     r"array encoding 'zigzag': use one of invariant, compact, full, flat, both"),
+    ("separator", {"target": "t", "kernel_approximation": "fast"},
+     r"kernel approximation 'fast': use one of exact, auto, nystroem, sample"),
+    ("overview", {"top_correlations": -1},
+     r"top_correlations -1: use a whole number of at least 0"),
 ], ids=["projection-method", "clustering-k", "separator-model", "train-fraction", "top",
-        "relations-coefficient", "array-encoding"])
+        "relations-coefficient", "array-encoding", "kernel-approximation", "top-correlations"])
 def test_a_bad_setting_value_is_refused_when_the_study_is_read(kind, params, match):
     data = {"version": "invariant-scout-study/1", "table": "t.csv",
             "steps": [{"kind": kind, "params": params}]}

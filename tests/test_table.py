@@ -718,7 +718,7 @@ def test_the_marker_rule_thresholds(cells, marked_reading):
 
 
 def test_the_rule_function_is_the_one_the_loader_follows():
-    from analysis.table import MARKER_RULE, reads_as_marked_numbers
+    from analysis.column_facts import MARKER_RULE, reads_as_marked_numbers
 
     assert (MARKER_RULE.max_words, MARKER_RULE.max_share) == (5, Fraction(1, 3))
     assert reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 1}, distinct_numbers=2)
@@ -816,7 +816,7 @@ def test_true_false_words_in_two_spellings_are_a_category_with_a_warning_until_m
 
 
 def test_the_flag_words_are_one_public_set():
-    from analysis.table import FALSE_WORDS, TRUE_WORDS, reads_as_flag
+    from analysis.column_facts import FALSE_WORDS, TRUE_WORDS, reads_as_flag
 
     assert {"y", "t", "yes", "true"} == TRUE_WORDS and {"n", "f", "no", "false"} == FALSE_WORDS
     assert reads_as_flag({"Y", "n"}) and not reads_as_flag({"yes", "y"})
@@ -838,3 +838,37 @@ def test_labels_differing_by_spaces_are_one_label_with_a_warning(marked, tmp_pat
     # a column of free text keeps its cells as written
     names = "k,t\n" + "".join(f"{i}, name {i}\n" for i in range(40))
     assert read_table(names.encode(), "t.csv").frame["t"].iloc[0] == " name 0"
+
+
+def test_infinite_cells_are_named_in_a_warning():
+    # "inf" and "-inf" are the spellings Python's float() reads as infinities (the Python
+    # documentation of float); a real column holding them warns once, naming the column
+    table = read_table(b"k,exponent,order\n1,2,4\n2,inf,8\n3,-inf,16\n4,8,32\n", "g.csv")
+    infinite = [w for w in table.warnings if getattr(w, "code", None) == "infinite_values"]
+    assert len(infinite) == 1 and "'exponent'" in infinite[0]
+    assert [c.note for c in table.columns if c.name == "exponent"] == ["has infinite values"]
+    finite = read_table(b"k,exponent\n1,2\n2,1e3\n", "g.csv")
+    assert not [w for w in finite.warnings if getattr(w, "code", None) == "infinite_values"]
+
+
+def _nilpotency_table(words: int, numbers: int):
+    # a nilpotency class column as group tables print it: a number, or a word where the group
+    # is not nilpotent (common practice in downloaded tables: '-' or a phrase)
+    cells = [str(1 + i % 3) for i in range(numbers)] + ["-", "not nilpotent"] * (words // 2)
+    body = "".join(f"G{i},{c}\n" for i, c in enumerate(cells))
+    return read_table(("label,nilpotency\n" + body).encode(), "groups.csv")
+
+
+@pytest.mark.parametrize("words, numbers, warned", [(4, 12, False), (8, 12, True),
+                                                     (10, 8, False)],
+                         ids=["marked numbers", "mostly numbers", "mostly words"])
+def test_a_column_of_numbers_with_many_words_is_named(words, numbers, warned):
+    table = _nilpotency_table(words, numbers)
+    said = [w for w in table.warnings if getattr(w, "code", None) == "mostly_numbers"]
+    assert bool(said) == warned, table.warnings
+    if warned:
+        assert "'nilpotency'" in said[0] and "role invariant" in said[0]
+        asked = table.with_roles({"nilpotency": "invariant"})
+        column = next(c for c in asked.columns if c.name == "nilpotency")
+        assert (column.dtype, column.missing) == ("integer", words)
+        assert column.markers == {"-": words // 2, "not nilpotent": words // 2}

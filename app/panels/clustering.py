@@ -9,17 +9,13 @@ import streamlit as st
 from app import display, settings
 from app.figure_view import show_figures
 
-METHODS = {
-    "auto": "choose by a sweep (k-means, Gaussian mixture, agglomerative)",
-    "kmeans": "k-means",
-    "gmm": "Gaussian mixture",
-    "agglomerative": "agglomerative (Ward)",
-    "hdbscan": "HDBSCAN (finds its own number)",
-}
+
+def _method_words() -> dict:
+    return settings.words("clustering", "method")
 
 
 def describe(params: dict, result=None) -> str:
-    method = METHODS.get(params.get("method"), params.get("method"))
+    method = _method_words().get(params.get("method"), params.get("method"))
     if params.get("method") == "auto":
         method = "clusters chosen by a sweep"
     k = params.get("k")
@@ -31,30 +27,24 @@ def describe(params: dict, result=None) -> str:
 def settings_panel(ctx: settings.StepContext) -> None:
     table = ctx.table
     left, right = st.columns(2)
-    settings.choice(ctx, "method", "Method", METHODS, container=left)
-    settings.column(ctx, "compare", "Compare with", settings.label_columns(table),
-                    container=right, help="A label to compare the clusters with (adjusted "
-                                          "Rand index, normalized mutual information). It is "
-                                          "not used as a feature.")
+    settings.choice(ctx, "method", container=left)
+    settings.column(ctx, "compare", settings.label_columns(table), container=right)
     left, right = st.columns(2)
-    settings.whole_number(ctx, "k", "Number of clusters (0: let the sweep choose)",
-                          optional=True, maximum=200, container=left)
-    settings.whole_range(ctx, "k_range", "The sweep tries k from … to", minimum=2,
-                         maximum=30, container=right)
+    settings.whole_number(ctx, "k", container=left)
+    settings.whole_range(ctx, "k_range", container=right)
     # The compared label is left out of the features, as a target would be.
-    settings.feature_block(ctx, label="compare")
+    settings.feature_block(ctx)
     left, middle, right = st.columns(3)
-    settings.flag(ctx, "standardize", "Standardize features", container=left)
+    settings.flag(ctx, "standardize", container=left)
     if ctx.params.get("method") == "hdbscan":
-        settings.whole_number(ctx, "min_cluster_size", "Smallest cluster (HDBSCAN)",
-                              minimum=2, maximum=100_000, container=middle)
+        settings.whole_number(ctx, "min_cluster_size", container=middle)
     settings.seed(ctx, container=right)
 
 
 def show(ctx: settings.StepContext, result) -> None:
     display.warnings(result.warnings)
     table = ctx.table
-    title = METHODS.get(result.method, result.method).split(" (")[0]
+    title = _method_words().get(result.method, result.method).split(" (")[0]
     st.markdown(f"**{title}, k = {result.k}** on {display.plural(result.n_rows, 'object')}. "
                 f"{result.reason}")
     facts = st.columns(3)
@@ -81,7 +71,7 @@ def show(ctx: settings.StepContext, result) -> None:
     if result.sweep:
         with st.expander(f"The sweep ({len(result.sweep)} clusterings tried)"):
             st.dataframe(pd.DataFrame([{
-                "method": METHODS.get(e.method, e.method).split(" (")[0], "k": e.k,
+                "method": _method_words().get(e.method, e.method).split(" (")[0], "k": e.k,
                 "silhouette": e.silhouette, "BIC": e.bic, "clusters": e.clusters,
                 "noise": e.noise} for e in result.sweep]),
                 hide_index=True, key=ctx.key("sweep"))

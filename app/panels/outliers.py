@@ -23,20 +23,13 @@ def describe(params: dict, result=None) -> str:
 def settings_panel(ctx: settings.StepContext) -> None:
     table = ctx.table
     left, middle, right = st.columns(3)
-    settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
-                    container=left, help="Objects that a cross-validated separator for it "
-                                         "gets wrong with confidence rank higher.")
-    settings.whole_number(ctx, "top", "Objects listed", minimum=1, maximum=10_000,
-                          container=middle)
-    settings.flag(ctx, "relations", "Count broken relations", container=right,
-                  help="Objects that break an exact relation among the invariants rank "
-                       "higher.")
+    settings.column(ctx, "target", settings.label_columns(table), container=left)
+    settings.whole_number(ctx, "top", container=middle)
+    settings.flag(ctx, "relations", container=right)
     settings.feature_block(ctx)
     left, middle, right = st.columns(3)
-    settings.whole_number(ctx, "k", "Clusters for the distance from centre (0: chosen)",
-                          optional=True, maximum=100, container=left)
-    settings.whole_number(ctx, "n_neighbors", "Neighbours (local outlier factor)",
-                          minimum=2, maximum=1000, container=middle)
+    settings.whole_number(ctx, "k", container=left)
+    settings.whole_number(ctx, "n_neighbors", container=middle)
     settings.seed(ctx, container=right)
 
 

@@ -14,8 +14,7 @@ def describe(params: dict, result=None) -> str:
 
 
 def settings_panel(ctx: settings.StepContext) -> None:
-    settings.whole_number(ctx, "top_correlations", "Correlated pairs to list", minimum=0,
-                          maximum=100, help="Pairs of invariants with Pearson |r| ≥ 0.9.")
+    settings.whole_number(ctx, "top_correlations")
 
 
 def show(ctx: settings.StepContext, result) -> None:

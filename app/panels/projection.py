@@ -7,14 +7,14 @@ import streamlit as st
 from app import display, settings
 from app.figure_view import show_figures
 
-METHODS = {"pca": "PCA", "umap": "UMAP", "tsne": "t-SNE", "lda": "LDA (separates the target)"}
 NO_COLOUR = "(one colour)"
 
 
 def describe(params: dict, result=None) -> str:
     """The step's caption. The colouring is a view choice made under the picture, so the
     caption names the target only where it changes the picture's axes (LDA)."""
-    method = METHODS.get(params.get("method"), params.get("method")).split(" (")[0]
+    method = settings.words("projection", "method").get(
+        params.get("method"), params.get("method")).split(" (")[0]
     target = params.get("target")
     separating = params.get("method") == "lda" and target
     return f"{method} of the feature columns" + (f", separating {target}" if separating else "")
@@ -22,28 +22,18 @@ def describe(params: dict, result=None) -> str:
 
 def settings_panel(ctx: settings.StepContext) -> None:
     left, right = st.columns(2)
-    settings.choice(ctx, "method", "Method", METHODS, container=left,
-                    help="PCA and LDA are linear: their axes are sums of features. UMAP and "
-                         "t-SNE keep neighbours together and distort distances.")
-    settings.column(ctx, "target", "Target for this step", settings.label_columns(ctx.table),
-                    container=right, help="Colours the picture; LDA separates its classes.")
+    settings.choice(ctx, "method", container=left)
+    settings.column(ctx, "target", settings.label_columns(ctx.table), container=right)
     settings.feature_block(ctx)
     method = ctx.params.get("method")
     left, middle, right = st.columns(3)
-    settings.flag(ctx, "standardize", "Standardize features", container=left,
-                  help="Scale every feature to standard deviation 1, so that no invariant "
-                       "dominates by its units alone.")
+    settings.flag(ctx, "standardize", container=left)
     if method == "umap":
-        settings.whole_number(ctx, "n_neighbors", "Neighbours (UMAP)", minimum=2,
-                              maximum=500, container=middle)
+        settings.whole_number(ctx, "n_neighbors", container=middle)
     if method == "tsne":
-        settings.real_number(ctx, "perplexity", "Perplexity (t-SNE)", minimum=1.0,
-                             maximum=500.0, step=5.0, container=middle)
+        settings.real_number(ctx, "perplexity", container=middle)
     if method in ("umap", "tsne"):
-        settings.whole_number(ctx, "sample_size", "Most rows drawn (0: default)",
-                              optional=True, container=right,
-                              help="Larger tables are drawn from a random sample of this "
-                                   "size (default 50 000 for UMAP, 20 000 for t-SNE).")
+        settings.whole_number(ctx, "sample_size", container=right)
     settings.seed(ctx)
 
 

@@ -26,18 +26,14 @@ def settings_panel(ctx: settings.StepContext) -> None:
     numeric = [c.name for c in table.columns if c.role in ("invariant", "flag")
                and c.dtype in ("integer", "big integer", "rational", "boolean", "real")]
     defaults = [c for c in numeric if table.column(c).role in ("invariant", "flag")]
-    settings.columns(ctx, "columns", "Columns to search", numeric, defaults,
-                     help="Integer, rational and flag columns are searched exactly; real "
-                          "columns for relations that hold to a tolerance.")
+    settings.columns(ctx, "columns", numeric, defaults)
     left, middle, right = st.columns(3)
-    settings.flag(ctx, "robust", "Also relations a few rows break", container=left)
-    settings.flag(ctx, "bounds", "Sharp bounds in pairs", container=middle)
-    settings.flag(ctx, "triples", "and in triples", container=right)
+    settings.flag(ctx, "robust", container=left)
+    settings.flag(ctx, "bounds", container=middle)
+    settings.flag(ctx, "triples", container=right)
     left, middle, right = st.columns(3)
-    settings.real_number(ctx, "max_breakers", "Rows allowed to break (share, or a count)",
-                         minimum=0.0, maximum=1e6, step=0.01, container=left)
-    settings.whole_number(ctx, "max_coefficient", "Largest coefficient in a bound",
-                          minimum=1, maximum=100, container=middle)
+    settings.real_number(ctx, "max_breakers", container=left)
+    settings.whole_number(ctx, "max_coefficient", container=middle)
     settings.seed(ctx, container=right)
 
 

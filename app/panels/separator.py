@@ -7,21 +7,9 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
-from analysis.separation import MODEL_WORDS
 from app import display, settings
 from app.figure_view import show_figures
 
-# the model words are the step's own, so a model is named alike everywhere
-MODELS = dict(MODEL_WORDS)
-PENALTIES = {"l2": "l2 (all features)", "l1": "l1 (few features, shorter equations)"}
-KERNEL_APPROXIMATIONS = {
-    "exact": "exact (refuse past the row limit)",
-    "auto": "automatic",
-    "nystroem": "Nyström features",
-    "sample": "exact machine on a sample",
-}
-READINGS = {"auto": "as a learning curve favours", "number": "a number (regression)",
-            "classes": "classes, one per value"}
 CONJECTURE = ("The equation holds on the rows of this table with the violations listed; "
               "it is a conjecture the table supports, not a proof.")
 ROWS_SHOWN = 200
@@ -30,7 +18,7 @@ ROWS_SHOWN = 200
 def describe(params: dict, result=None) -> str:
     """What the step predicts and with which model: once it ran, the model as fitted (a
     number target is fitted by a regression model)."""
-    model = MODELS.get(params.get("model"), params.get("model"))
+    model = settings.words("separator", "model").get(params.get("model"), params.get("model"))
     if result is not None:
         model = model_words(result)
     if params.get("target_statement"):
@@ -48,7 +36,7 @@ def _model_choices() -> dict:
 
     return {model: f"{words}; for a number target, {REGRESSION_WORDS[model]}"
             if model in REGRESSION_WORDS else f"{words}; classes only"
-            for model, words in MODELS.items()}
+            for model, words in settings.words("separator", "model").items()}
 
 
 def settings_panel(ctx: settings.StepContext) -> None:
@@ -58,54 +46,33 @@ def settings_panel(ctx: settings.StepContext) -> None:
         left.caption("Target: whether an object breaks the statement above (the statement's "
                      "own columns are left out of the features).")
     else:
-        settings.column(ctx, "target", "Target for this step", settings.label_columns(table),
-                        optional=False,
-                        container=left, help="The flag, category or invariant to predict.")
-    settings.choice(ctx, "model", "Separator", _model_choices(), container=right,
-                    help="Linear models and the degree-2 kernel give an equation in the "
-                         "table's own invariants. A target read as a number is fitted by "
-                         "the regression named after the semicolon.")
+        settings.column(ctx, "target", settings.label_columns(table), optional=False,
+                        container=left)
+    settings.choice(ctx, "model", _model_choices(), container=right)
     settings.feature_block(ctx)
     left, middle, right = st.columns(3)
-    settings.real_number(ctx, "train_fraction", "Share of rows for training", minimum=0.05,
-                         maximum=0.95, step=0.05, container=left,
-                         help="The rest are test rows: every score is measured on them.")
-    settings.whole_number(ctx, "repeats", "Random splits", minimum=1, maximum=50,
-                          container=middle, help="Scores are averaged over this many splits.")
-    settings.whole_number(ctx, "permutations", "Permutations", minimum=0, maximum=5000,
-                          container=right,
-                          help="Shuffled targets for the p-value (0 skips the test).")
+    settings.real_number(ctx, "train_fraction", container=left)
+    settings.whole_number(ctx, "repeats", container=middle)
+    settings.whole_number(ctx, "permutations", container=right)
     groups = [c.name for c in table.columns if c.role != "id"]
     left, middle, right = st.columns(3)
-    settings.column(ctx, "groups", "Group column", groups, container=left,
-                    help="Rows with equal values (equal matrices up to permuting rows and "
-                         "columns, for an array column) stay on one side of every split.")
+    settings.column(ctx, "groups", groups, container=left)
     positive = _classes(table, ctx.params.get("target"))
     if positive:
-        settings.choice(ctx, "positive_class", "Class the equation describes",
+        settings.choice(ctx, "positive_class",
                         {None: "chosen automatically", **{v: str(v) for v in positive}},
                         container=middle)
-    settings.choice(ctx, "penalty", "Penalty", PENALTIES, container=right)
+    settings.choice(ctx, "penalty", container=right)
     if _numeric_target(table, ctx.params.get("target")):
-        settings.choice(ctx, "reading", "Read the target as", READINGS, container=left,
-                        help="A whole-number invariant can be predicted as a number or each "
-                             "value as a class.")
+        settings.choice(ctx, "reading", container=left)
     if st.toggle("More settings", key=ctx.key("more")):
         left, middle, right = st.columns(3)
-        settings.real_number(ctx, "c", "C (inverse regularization)", minimum=1e-4,
-                             maximum=1e4, step=0.5, container=left)
-        settings.whole_number(ctx, "max_terms", "Most terms in the equation (0: default)",
-                              optional=True, container=middle)
-        settings.whole_number(ctx, "max_denominator", "Largest denominator (0: default)",
-                              optional=True, container=right)
+        settings.real_number(ctx, "c", container=left)
+        settings.whole_number(ctx, "max_terms", container=middle)
+        settings.whole_number(ctx, "max_denominator", container=right)
         left, middle, right = st.columns(3)
-        settings.choice(ctx, "kernel_approximation", "Kernel on large tables",
-                        KERNEL_APPROXIMATIONS, container=left)
-        settings.whole_number(ctx, "augment_permutations",
-                              "Permuted copies per training matrix", minimum=0, maximum=50,
-                              container=middle,
-                              help="Adds copies of each training row with its matrix's rows "
-                                   "and columns permuted (never to test rows).")
+        settings.choice(ctx, "kernel_approximation", container=left)
+        settings.whole_number(ctx, "augment_permutations", container=middle)
         settings.seed(ctx, container=right)
 
 

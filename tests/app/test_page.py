@@ -572,8 +572,9 @@ def test_a_statement_of_ones_own_adds_a_separator_on_its_breakers():
 
 def test_a_whole_number_target_offers_its_reading_and_says_which_was_used():
     from analysis.separation import READINGS
-    from app.panels.separator import READINGS as WORDS
+    from app.settings import words
 
+    WORDS = words("separator", "reading")
     assert list(WORDS) == list(READINGS)
     at = open_page("graphs_up_to_7.csv")
     uid = add_step(at, "separator")
@@ -593,9 +594,9 @@ def test_a_whole_number_target_offers_its_reading_and_says_which_was_used():
 
 def test_interval_cells_can_be_read_by_one_value_where_the_table_has_them():
     from analysis.features import INTERVAL_READINGS
-    from app.settings import INTERVALS
+    from app.settings import words
 
-    assert list(INTERVALS) == list(INTERVAL_READINGS)
+    assert list(words("projection", "intervals")) == list(INTERVAL_READINGS)
     at = open_page("graphs_as_downloaded.csv")
     uid = add_step(at, "projection")
     choice = at.selectbox(key=f"s{uid}.intervals")
