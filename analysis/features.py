@@ -132,17 +132,13 @@ def chosen_feature_columns(table, *, columns: list[str] | None = None,
     Shared by the in-memory and the partitioned feature builders, so both refuse the same
     settings with the same words.
     """
-    if array_encoding not in ARRAY_ENCODINGS:
-        raise StepError(f"array encoding {array_encoding!r}: use one of "
-                        f"{', '.join(ARRAY_ENCODINGS)}.")
-    if log_scale not in LOG_SCALES:
-        raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
-    if missing not in MISSING_POLICIES:
-        raise StepError(f"missing-value policy {missing!r}: use "
-                        f"{' or '.join(MISSING_POLICIES)}.")
-    if intervals not in INTERVAL_READINGS:
-        raise StepError(f"interval reading {intervals!r}: use one of "
-                        f"{', '.join(INTERVAL_READINGS)}.")
+    # the feature settings' records judge their values (analysis.settings imports this
+    # module for the choices, so it is imported here)
+    from analysis.settings import ARRAY_ENCODING, INTERVALS, LOG_SCALE, MISSING
+
+    for record, value in ((ARRAY_ENCODING, array_encoding), (LOG_SCALE, log_scale),
+                          (MISSING, missing), (INTERVALS, intervals)):
+        record.check(value)
     if columns is None:
         columns = default_feature_columns(table, target=target, exclude=exclude)
     else:
