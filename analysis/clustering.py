@@ -231,7 +231,7 @@ class ClusteringStep:
         values = prepared(fm.values, self.standardize, table.name, "clustering")
         notes.append(scaling_note(self.standardize))
         ks = self.candidate_ks(n, table.name)
-        scorer = _Silhouette(values, self.sample_size, self.seed, notes)
+        scorer = Silhouette(values, self.sample_size, self.seed, notes)
         methods = K_METHODS if self.method == "auto" else (self.method,)
         runs: list[tuple[SweepEntry, np.ndarray]] = []
         reporter.phase("trying clusterings", total=max(1, len(methods) * len(ks)))
@@ -293,7 +293,7 @@ class ClusteringStep:
                             "a smaller k_range or a larger table.")
         return ks
 
-    def _sweep(self, method: str, values: np.ndarray, ks: list[int], scorer: _Silhouette,
+    def _sweep(self, method: str, values: np.ndarray, ks: list[int], scorer: Silhouette,
                notes: list[str]):
         n = len(values)
         if method == "kmeans":
@@ -330,7 +330,7 @@ def kmeans_labels(values: np.ndarray, k: int, seed: int) -> tuple[np.ndarray, np
     return labels, model.cluster_centers_
 
 
-class _Silhouette:
+class Silhouette:
     """Silhouette scores on one fixed set of rows (a random sample for large tables).
 
     The distances between those rows are computed once and shared by every run of the sweep.
@@ -343,10 +343,13 @@ class _Silhouette:
         self.rows = np.arange(n)
         if n > sample_size:
             self.rows = sample_positions(n, sample_size, seed)
-            notes.append(Note("silhouette_sample", f"silhouettes computed on a random sample "
-                              f"of {sample_size} of the {n} rows (seed {seed}).",
-                              sample=sample_size, rows=n, seed=seed))
+            notes.append(silhouette_note(sample_size, n, seed))
         self.distances = pairwise_distances(values[self.rows])
+
+    @classmethod
+    def of_rows(cls, values: np.ndarray) -> Silhouette:
+        """Silhouettes on exactly these rows (an engine that draws the sample itself)."""
+        return cls(values, len(values), 0, [])
 
     def __call__(self, labels: np.ndarray) -> float | None:
         from sklearn.metrics import silhouette_score
@@ -361,6 +364,12 @@ class _Silhouette:
         return float(silhouette_score(distances, labels[clustered], metric="precomputed"))
 
 
+def silhouette_note(size: int, n: int, seed: int) -> Note:
+    """The note for silhouettes computed on a sample of ``size`` of ``n`` rows."""
+    return Note("silhouette_sample", f"silhouettes computed on a random sample of {size} of "
+                f"the {n} rows (seed {seed}).", sample=size, rows=n, seed=seed)
+
+
 def silhouette_defined(labels: np.ndarray) -> bool:
     """Whether the silhouette of ``labels`` is defined: from 2 clusters to one fewer than the
     rows, noise rows left out."""
@@ -369,7 +378,7 @@ def silhouette_defined(labels: np.ndarray) -> bool:
     return 2 <= distinct < int(clustered.sum())
 
 
-def _entry(method: str, k: int | None, labels: np.ndarray, scorer: _Silhouette,
+def _entry(method: str, k: int | None, labels: np.ndarray, scorer: Silhouette,
            bic: float | None = None) -> SweepEntry:
     found = set(labels.tolist()) - {NOISE}
     return SweepEntry(method=method, k=k, silhouette=scorer(labels), bic=bic,
@@ -457,15 +466,11 @@ def ward_cuts(values: np.ndarray, ks: list[int]):
 
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
              notes: list[str]) -> np.ndarray:
-    from sklearn.cluster import HDBSCAN
     from sklearn.neighbors import NearestNeighbors
 
     n = len(values)
     fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
-    size = hdbscan_size(min_cluster_size, len(fit))
-    model = HDBSCAN(min_cluster_size=size, copy=True)
-    sample_labels = model.fit_predict(values[fit])
-    notes.append(hdbscan_size_note(size))
+    sample_labels = hdbscan_fit(values[fit], min_cluster_size, notes)
     if len(fit) == n:
         return sample_labels
     notes.append(hdbscan_sample_note(sample_size, n))
@@ -473,6 +478,16 @@ def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: 
     index = nearest.kneighbors(values, return_distance=False)[:, 0]
     labels = sample_labels[index]
     labels[fit] = sample_labels
+    return labels
+
+
+def hdbscan_fit(values: np.ndarray, min_cluster_size: int, notes: list[str]) -> np.ndarray:
+    """HDBSCAN's labels of ``values`` (noise -1), and the note of the smallest cluster."""
+    from sklearn.cluster import HDBSCAN
+
+    size = hdbscan_size(min_cluster_size, len(values))
+    labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(values)
+    notes.append(hdbscan_size_note(size))
     return labels
 
 

@@ -87,6 +87,16 @@ class ColumnInfo:
         }
 
 
+def column_named(table_name: str, columns, name: str) -> ColumnInfo:
+    """The column ``name`` among ``columns`` (a table's ColumnInfo records, on either
+    engine); TableError naming the table and its columns when there is none."""
+    for info in columns:
+        if info.name == name:
+            return info
+    known = ", ".join(repr(c.name) for c in columns[:30])
+    raise TableError(f"{table_name}: no column named {name!r}. Columns are: {known}.")
+
+
 def is_missing(value) -> bool:
     """Whether a cell value is a missing cell (None, pandas' NA or a float NaN)."""
     if value is None or value is pd.NA:

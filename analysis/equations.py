@@ -145,7 +145,7 @@ class LinearEquation:
         (in ``feature_names`` order), or a mapping (dict, pandas DataFrame) from feature name
         to a column of values. Integer and short-decimal columns are evaluated exactly.
         """
-        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        values, exact = term_scores(self.terms, X, self.feature_names)
         if exact:
             scores, denominator = values
             return _compare(scores, denominator, self.constant, self.relation)
@@ -222,7 +222,7 @@ class Formula:
 
     def predict(self, X) -> np.ndarray:
         """Values of the right-hand side as floats (X as for ``LinearEquation.holds``)."""
-        values, exact = _evaluate_terms(self.terms, X, self.feature_names)
+        values, exact = term_scores(self.terms, X, self.feature_names)
         if exact:
             total, denominator = values
             return np.asarray(total, dtype=float) / denominator + float(self.constant)
@@ -872,8 +872,10 @@ class _DirectionFitter:
                 pass
 
         errors = 1.0
-        for penalty_scale in (0.01, 0.3):
-            direction, missed, _ = _l1_svm_direction(Z, signs, self.working, penalty_scale)
+        # the two penalties' programmes are independent: solved at once, kept in order
+        for direction, missed, _ in _in_order(
+            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), (0.01, 0.3)
+        ):
             keep(direction)
             errors = min(errors, missed)
         # When the classes overlap a lot, the linear programs are slow and their refits add
@@ -895,8 +897,10 @@ class _DirectionFitter:
 
         # Refit each support found so far without shrinkage.
         supports.sort(key=len)
-        for support in supports[:_MAX_SUPPORTS]:
-            for direction in self._refit_local(list(support)):
+        refits = _in_order(lambda support: self._refit_local(list(support)),
+                           supports[:_MAX_SUPPORTS])
+        for found in refits:
+            for direction in found:
                 keep(direction, record_support=False)
         return [self._raw(direction) for direction in directions]
 
@@ -916,9 +920,31 @@ class _DirectionFitter:
             supports += [sorted(set(current) - {j}) for j in current]
         found = []
         errors: list = []
-        for columns in supports:
-            found.extend(self._raw(direction) for direction in self._refit_local(columns, errors))
+
+        def refit(columns):
+            mine: list = []
+            return self._refit_local(columns, mine), mine
+
+        for directions, mine in _in_order(refit, supports):
+            found.extend(self._raw(direction) for direction in directions)
+            errors.extend(mine)
         return found, [(missed, self._raw(direction)) for missed, direction in errors]
+
+
+def _in_order(work, items) -> list:
+    """``work(item)`` for each item, in the order of ``items``, on every core (threads: the
+    linear programmes and numpy release Python's lock). Each result depends on its item
+    alone, so the numbers do not depend on the number of workers."""
+    from analysis.threads import one_thread_each, refit_workers
+
+    items = list(items)
+    workers = min(refit_workers(), len(items))
+    if workers <= 1:
+        return [work(item) for item in items]
+    from concurrent.futures import ThreadPoolExecutor
+
+    with one_thread_each(workers), ThreadPoolExecutor(max_workers=workers) as pool:
+        return list(pool.map(work, items))
 
 
 # ----------------------------------------------------------------------------------------------
@@ -1049,24 +1075,40 @@ def _sample_violations(matrix: np.ndarray, positive: np.ndarray, candidates: lis
 def _violations_for_weights(matrix: np.ndarray, positive: np.ndarray, weights) -> np.ndarray:
     """Fewest violations any constant gives, per column of ``weights``, on these rows."""
     m = matrix.shape[0]
-    total_pos = int(positive.sum())
-    total_neg = m - total_pos
     count = weights.shape[1]
     result = np.empty(count, dtype=np.int64)
-    below = np.arange(1, m)
     chunk_size = max(1, 2_000_000 // max(m, 1))
     for start in range(0, count, chunk_size):
         scores = matrix @ weights[:, start : start + chunk_size]
         # one candidate per row from here on, so that each sort runs over contiguous memory
-        ordered, labels = _sorted_with_labels(np.ascontiguousarray(scores.T), positive)
-        pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
-        neg_below = below - pos_below
-        at_least = pos_below + (total_neg - neg_below)
-        at_most = neg_below + (total_pos - pos_below)
-        valid = ordered[:, 1:] > ordered[:, :-1]
-        best = np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
-        result[start : start + best.size] = best
+        scores = np.ascontiguousarray(scores.T)
+        # the sorts of separate candidates are independent: split among the cores
+        pieces = max(1, min(len(scores) // _SORT_PIECE_ROWS, 8))
+        bounds = np.linspace(0, len(scores), pieces + 1).astype(int)
+        parts = [scores[a:b] for a, b in zip(bounds[:-1], bounds[1:])]
+        found = _in_order(lambda part: _fewest_violations(part, positive), parts)
+        result[start : start + len(scores)] = np.concatenate(found)
     return result
+
+
+# Candidates below which their sorts are not split among threads.
+_SORT_PIECE_ROWS = 64
+
+
+def _fewest_violations(scores: np.ndarray, positive: np.ndarray) -> np.ndarray:
+    """Per row of ``scores`` (one candidate's scores on every row): the fewest violations
+    any threshold between two distinct scores gives."""
+    m = scores.shape[1]
+    total_pos = int(positive.sum())
+    total_neg = m - total_pos
+    below = np.arange(1, m)
+    ordered, labels = _sorted_with_labels(scores, positive)
+    pos_below = np.cumsum(labels, axis=1, dtype=np.int64)[:, :-1]
+    neg_below = below - pos_below
+    at_least = pos_below + (total_neg - neg_below)
+    at_most = neg_below + (total_pos - pos_below)
+    valid = ordered[:, 1:] > ordered[:, :-1]
+    return np.where(valid, np.minimum(at_least, at_most), m + 1).min(axis=1)
 
 
 # Below this, twice an integer-valued score plus a 0/1 label is still an exact float.
@@ -1091,8 +1133,10 @@ def _sorted_with_labels(scores: np.ndarray, positive: np.ndarray):
     return np.take_along_axis(scores, order, axis=1), positive[order]
 
 
-def _score_counts(scores: np.ndarray, positive: np.ndarray):
-    """Distinct score values (ascending) with the number of rows and of positive rows at each."""
+def score_counts(scores: np.ndarray, positive: np.ndarray):
+    """Distinct score values (ascending) with the number of rows and of positive rows at each.
+
+    Engines that score block by block count each block here and merge the counts."""
     if scores.dtype == np.int64 and scores.size:
         smallest, largest = int(scores.min()), int(scores.max())
         if largest - smallest <= 4 * scores.size + 1024:
@@ -1119,7 +1163,7 @@ def _best_cut(scores: np.ndarray, positive: np.ndarray):
     are predicted positive, for "<=" the rows with score <= low; no row scores strictly
     between. ``counts`` are the per-value counts the cut was read from.
     """
-    return cut_of_counts(*_score_counts(scores, positive))
+    return cut_of_counts(*score_counts(scores, positive))
 
 
 def cut_of_counts(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndarray):
@@ -1153,7 +1197,7 @@ def cut_of_counts(values: np.ndarray, rows_at: np.ndarray, positives_at: np.ndar
 
 
 def _violations_at(counts, relation: str, threshold: float) -> int:
-    """Violations of ``score relation threshold`` from the per-value counts of _score_counts."""
+    """Violations of ``score relation threshold`` from the per-value counts of score_counts."""
     values, rows_at, positives_at = counts
     total_pos = int(positives_at.sum())
     total_neg = int(rows_at.sum()) - total_pos
@@ -1428,7 +1472,12 @@ def _search(
     else:
         chosen = _shortlist(candidates, first, _FINALISTS, sample.size, space.size)
         finalists = [candidates[i] for i in chosen]
-    evaluations = [_evaluate(space, candidate, positive) for candidate in finalists]
+    # each finalist's exact check on every row is independent of the others: run on every
+    # core, once the exact columns they share are read (in this thread)
+    for candidate in finalists:
+        for index, _ in candidate:
+            space.exact_column(index)
+    evaluations = _in_order(lambda candidate: _evaluate(space, candidate, positive), finalists)
     evaluations = [e for e in evaluations if e is not None]
     if not evaluations:
         raise StepError(
@@ -1953,8 +2002,10 @@ def _term_column(X, name: str, feature_names: Sequence[str]):
     return X[:, list(feature_names).index(name)]
 
 
-def _evaluate_terms(terms: Sequence[Term], X, feature_names: Sequence[str]):
-    """(S, D) exact sums, exact=True; or float sums, exact=False."""
+def term_scores(terms: Sequence[Term], X, feature_names: Sequence[str] = ()):
+    """The terms summed on every row: ``((S, D), True)``, exact integers S over a common
+    denominator D, when every column is exact (integers, short decimals, values below 2**53);
+    else ``(float sums, False)``. ``X`` as for :meth:`LinearEquation.holds`."""
     factor_columns = [
         [_term_column(X, name, feature_names) for name in term.factor_names()] for term in terms
     ]

@@ -40,6 +40,8 @@ MISSING_POLICIES = ("drop", "impute")
 INTERVAL_READINGS = ("missing", "low", "high", "midpoint")
 # Most row orders the exact canonical key will try before it falls back to invariants.
 EXACT_KEY_ORDERS = 5040
+# Most one-hot levels of a category column.
+MAX_LEVELS = 200
 
 
 @dataclass(frozen=True)
@@ -130,17 +132,13 @@ def chosen_feature_columns(table, *, columns: list[str] | None = None,
     Shared by the in-memory and the partitioned feature builders, so both refuse the same
     settings with the same words.
     """
-    if array_encoding not in ARRAY_ENCODINGS:
-        raise StepError(f"array encoding {array_encoding!r}: use one of "
-                        f"{', '.join(ARRAY_ENCODINGS)}.")
-    if log_scale not in LOG_SCALES:
-        raise StepError(f"log scale {log_scale!r}: use one of {', '.join(LOG_SCALES)}.")
-    if missing not in MISSING_POLICIES:
-        raise StepError(f"missing-value policy {missing!r}: use "
-                        f"{' or '.join(MISSING_POLICIES)}.")
-    if intervals not in INTERVAL_READINGS:
-        raise StepError(f"interval reading {intervals!r}: use one of "
-                        f"{', '.join(INTERVAL_READINGS)}.")
+    # the feature settings' records judge their values (analysis.settings imports this
+    # module for the choices, so it is imported here)
+    from analysis.settings import ARRAY_ENCODING, INTERVALS, LOG_SCALE, MISSING
+
+    for record, value in ((ARRAY_ENCODING, array_encoding), (LOG_SCALE, log_scale),
+                          (MISSING, missing), (INTERVALS, intervals)):
+        record.check(value)
     if columns is None:
         columns = default_feature_columns(table, target=target, exclude=exclude)
     else:
@@ -235,10 +233,7 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
             keep = ~target_missing
             values = values[keep]
             rows = rows[keep]
-            notes.append(Note("cells_filled", f"filled {filled} missing feature cells (the "
-                              "median for numbers, the most common value for flags and "
-                              f"categories); dropped {int(target_missing.sum())} rows with no "
-                              "target value.", cells=filled, dropped=int(target_missing.sum())))
+            notes.append(filled_note(filled, int(target_missing.sum())))
     if len(rows) == 0:
         raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
                         "other columns or impute missing values.")
@@ -260,7 +255,7 @@ def _read_intervals(table: Table, values: np.ndarray, features: list[Feature], e
             continue
         read = marks.numeric(end)
         values[marks.positions, j] = read if feature.kind == "value" \
-            else _signed_log(read.tolist())
+            else signed_log(read.tolist())
         notes.append(Note("intervals_read", f"{len(marks)} interval cells of "
                           f"{feature.column!r} read as their "
                           f"{'midpoint' if end == 'midpoint' else end + ' end'}.",
@@ -360,13 +355,34 @@ def _impute(values: np.ndarray, bad: np.ndarray, features: list[Feature]) -> int
         if not len(good):
             fill = 0.0
         elif feature.kind == "flag":
-            levels, counts = np.unique(good, return_counts=True)
-            fill = float(levels[int(np.argmax(counts))])
+            fill = fill_value("flag", *np.unique(good, return_counts=True))
         else:
             fill = float(np.median(good))
         values[column_bad, j] = fill
         filled += int(column_bad.sum())
     return filled
+
+
+def fill_value(kind: str, values: np.ndarray, counts: np.ndarray) -> float:
+    """What a missing cell of a feature of ``kind`` is filled with (missing="impute"), from
+    the feature's distinct present values (ascending) and how many rows hold each: the most
+    common value for a flag (the smaller on a tie), else the median; 0 with no value at all.
+    A category's one-hot block takes its most common level whole (:func:`_impute`)."""
+    if not len(values):
+        return 0.0
+    if kind == "flag":
+        return float(values[int(np.argmax(counts))])
+    cumulative, total = np.cumsum(counts), int(np.sum(counts))
+    low = values[int(np.searchsorted(cumulative, (total - 1) // 2 + 1))]
+    high = values[int(np.searchsorted(cumulative, total // 2 + 1))]
+    return float((low + high) / 2)
+
+
+def filled_note(filled: int, no_target: int) -> Note:
+    """The note for cells filled in under missing="impute" (both engines word it here)."""
+    return Note("cells_filled", f"filled {filled} missing feature cells (the median for "
+                "numbers, the most common value for flags and categories); dropped "
+                f"{no_target} rows with no target value.", cells=filled, dropped=no_target)
 
 
 def target_values(table: Table, column: str, rows: np.ndarray | None = None) -> np.ndarray:
@@ -516,7 +532,8 @@ def _missing_mask(table: Table, column: str) -> np.ndarray:
     return mask
 
 
-def _signed_log(values) -> np.ndarray:
+def signed_log(values) -> np.ndarray:
+    """sign(x)*log10(1+|x|) of each value (None or NaN: NaN), exact enough for any integer."""
     out = np.empty(len(values), dtype=np.float64)
     for i, v in enumerate(values):
         if v is None or (isinstance(v, float) and math.isnan(v)):
@@ -549,8 +566,8 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
             return _flag_block(table, name, notes)
         use_log = log_scale == "always" or (log_scale == "auto" and info.dtype == "big integer")
         if use_log:
-            values = _signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
-                else _signed_log(table.numeric(name).tolist())
+            values = signed_log(series.tolist()) if info.dtype in ("big integer", "rational") \
+                else signed_log(table.numeric(name).tolist())
             if log_scale == "auto":
                 beyond = "64 bits" if any(
                     v is not None and not isinstance(v, float) and abs(v) > 2**63 - 1
@@ -565,23 +582,33 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
     if info.role == "category":
         labels = series.astype(object).where(series.notna(), None).tolist()
         levels = sorted({str(v) for v in labels if v is not None})
-        if len(levels) > 200:
-            raise StepError(
-                f"{table.name}: category column {name!r} has {len(levels)} values; one-hot "
-                "encoding it would swamp the other features. Give it the role text, or group "
-                "its values first."
-            )
-        block = np.zeros((len(labels), len(levels)))
-        position = {level: j for j, level in enumerate(levels)}
-        for i, v in enumerate(labels):
-            if v is None:
-                block[i, :] = np.nan
-            else:
-                block[i, position[str(v)]] = 1.0
-        return block, [Feature(f"{name}={level}", name, "onehot", level) for level in levels]
+        if len(levels) > MAX_LEVELS:
+            raise too_many_levels(table.name, name, len(levels))
+        return one_hot(labels, levels), [Feature(f"{name}={level}", name, "onehot", level)
+                                         for level in levels]
     if info.role == "array":
         return _array_block(table, name, array_encoding, notes)
     raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a feature.")
+
+
+def one_hot(labels: list, levels: list[str]) -> np.ndarray:
+    """One column per level: 1 where a label (read as text) is that level, a row of NaN for a
+    missing label (None)."""
+    block = np.zeros((len(labels), len(levels)))
+    position = {level: j for j, level in enumerate(levels)}
+    for i, v in enumerate(labels):
+        if v is None:
+            block[i, :] = np.nan
+        else:
+            block[i, position[str(v)]] = 1.0
+    return block
+
+
+def too_many_levels(table_name: str, name: str, count: int) -> StepError:
+    """The refusal of a category column with more than MAX_LEVELS values to one-hot encode."""
+    return StepError(f"{table_name}: category column {name!r} has {count} values; one-hot "
+                     "encoding it would swamp the other features. Give it the role text, or "
+                     "group its values first.")
 
 
 def _flag_block(table: Table, name: str, notes: list[str]):

@@ -270,10 +270,7 @@ class OutliersStep:
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing, intervals=self.intervals)
         n = len(fm.rows)
-        if n < 5:
-            raise StepError(f"{table.name}: ranking objects needs at least 5 rows with every "
-                            f"feature present; {n} remain. Impute missing values or choose "
-                            "other columns.")
+        check_rows(table.name, n)
         notes = list(fm.notes)
         values = prepared(fm.values, self.standardize, table.name, "a ranking of objects")
         notes.append(scaling_note(self.standardize))
@@ -352,16 +349,9 @@ class OutliersStep:
             notes.append(Note("relations_unchecked", "relations not checked: the relations "
                               "module is not available."))
             return None
-        columns = None
-        if self.columns is not None:
-            columns = [name for name in self.columns
-                       if table.column(name).role in ("invariant", "flag")
-                       and table.column(name).dtype in ("integer", "big integer", "rational",
-                                                        "boolean", "real")]
-            if not columns:
-                notes.append(Note("relations_unchecked", "relations not checked: no numeric "
-                                  "invariant among the feature columns."))
-                return None
+        columns = relation_columns(table, self.columns, notes)
+        if columns == []:
+            return None
         try:
             result = RelationsStep(columns=columns, robust=True, seed=self.seed).run(table)
         except StepError as exc:
@@ -369,6 +359,29 @@ class OutliersStep:
                               reason=str(exc)))
             return None
         return relations_measure(result, row_ids)
+
+
+def check_rows(table_name: str, n: int) -> None:
+    """StepError when fewer than 5 rows have every feature: too few to rank."""
+    if n < 5:
+        raise StepError(f"{table_name}: ranking objects needs at least 5 rows with every "
+                        f"feature present; {n} remain. Impute missing values or choose "
+                        "other columns.")
+
+
+def relation_columns(table, columns, notes: list) -> list[str] | None:
+    """The columns the relations measure searches: None (the relations step's own choice)
+    when the features are the default ones, else the numeric features; [] with a note when
+    none of them is numeric."""
+    if columns is None:
+        return None
+    chosen = [name for name in columns if table.column(name).role in ("invariant", "flag")
+              and table.column(name).dtype in ("integer", "big integer", "rational",
+                                               "boolean", "real")]
+    if not chosen:
+        notes.append(Note("relations_unchecked", "relations not checked: no numeric "
+                          "invariant among the feature columns."))
+    return chosen
 
 
 def relations_measure(result, row_ids: np.ndarray) -> Measure:
@@ -453,16 +466,26 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
     centres = {c: values[labels == c].mean(axis=0) for c in clusters}
     typical = {c: float(np.median(np.linalg.norm(values[labels == c] - centres[c], axis=1)))
                for c in large}
+    relative, reference = relative_distances(values, labels, centres, typical, large)
+    return centre_measure(relative, labels, reference, sizes, k)
+
+
+def relative_distances(values: np.ndarray, labels: np.ndarray, centres: dict, typical: dict,
+                       large: list) -> tuple[np.ndarray, np.ndarray]:
+    """(each row's distance from its reference centre over that cluster's ``typical``
+    distance, the reference cluster): its own cluster, or for a row of a cluster not in
+    ``large`` the nearest large one. ``centres`` maps every cluster to its centre."""
     reference = labels.copy()
     for i in np.flatnonzero(~np.isin(labels, large)):
         reference[i] = min(large, key=lambda c: np.linalg.norm(values[i] - centres[c]))
+    clusters = sorted(centres)
     order = {c: j for j, c in enumerate(clusters)}
-    index = np.array([order[c] for c in reference.tolist()])
+    index = np.array([order[c] for c in reference.tolist()], dtype=int)
     gap = np.linalg.norm(values - np.array([centres[c] for c in clusters])[index], axis=1)
     scale = np.array([typical.get(c, 0.0) for c in clusters])[index]
     with np.errstate(divide="ignore", invalid="ignore"):
         relative = np.where(scale > 0, gap / scale, np.where(gap > 0, np.inf, 0.0))
-    return centre_measure(relative, labels, reference, sizes, k)
+    return relative, reference
 
 
 def centre_measure(relative: np.ndarray, labels: np.ndarray, reference: np.ndarray,

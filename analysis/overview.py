@@ -210,10 +210,16 @@ def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]
     else:
         # pairwise-complete rows where values are missing, as pandas counts them
         matrix = pd.DataFrame(values.T).corr().to_numpy()
+    return strong_pairs(matrix, names, top), None if rows is None else len(rows)
+
+
+def strong_pairs(matrix: np.ndarray, names: list[str], top: int) -> tuple:
+    """The pairs of ``names`` whose correlation in ``matrix`` is at least 0.9 in size,
+    strongest first (table order on a tie), at most ``top`` of them."""
     # the pairs above the diagonal, in row order, found at once rather than one by one:
     # thousands of columns make millions of pairs
     with np.errstate(invalid="ignore"):
         strong = np.triu(np.isfinite(matrix) & (np.abs(matrix) >= 0.9), k=1)
     pairs = [(names[i], names[j], float(matrix[i, j])) for i, j in zip(*np.nonzero(strong))]
     pairs.sort(key=lambda p: -abs(p[2]))
-    return tuple(pairs[:top]), None if rows is None else len(rows)
+    return tuple(pairs[:top])

@@ -258,7 +258,7 @@ class ProjectionStep:
         with :class:`analysis.progress.StepStopped`."""
         started = time.perf_counter()
         reporter = quiet(progress)
-        self._check(table)
+        self.check_table(table)
         reporter.phase("reading the features")
         # LDA needs the target on every row it uses; the other methods only colour by it, so
         # rows without a target value are still drawn
@@ -269,16 +269,9 @@ class ProjectionStep:
                             array_encoding=self.array_encoding, log_scale=self.log_scale,
                             missing=self.missing,
                             intervals=self.intervals)
-        notes = list(fm.notes)
-        if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
-            notes.append(Note("sample_size_unused", f"{METHOD_TITLES[self.method]} uses every "
-                              "row; the sample size applies to UMAP and t-SNE only.",
-                              method=self.method))
+        notes = list(fm.notes) + self.setting_notes()
         n = len(fm.rows)
-        if n < 3:
-            raise StepError(f"{table.name}: a projection needs at least 3 rows with every "
-                            f"feature present; {n} remain. Impute missing values or choose "
-                            "other columns.")
+        check_rows(table.name, n)
         values = prepared(fm.values, self.standardize, table.name, "a projection")
         notes.append(scaling_note(self.standardize))
         keep = np.arange(n)
@@ -323,11 +316,20 @@ class ProjectionStep:
             elapsed_seconds=elapsed, **extra,
         )
 
+    def setting_notes(self) -> list[str]:
+        """What the settings do not do: a sample size for a method that uses every row."""
+        if self.sample_size is not None and self.method not in SAMPLE_THRESHOLDS:
+            return [Note("sample_size_unused", f"{METHOD_TITLES[self.method]} uses every "
+                         "row; the sample size applies to UMAP and t-SNE only.",
+                         method=self.method)]
+        return []
+
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
         check_values(self)
 
-    def _check(self, table: Table) -> None:
+    def check_table(self, table: Table) -> None:
+        """Check the settings and that the table has the columns they name."""
         self.check()
         if self.method == "lda" and self.target is None:
             raise StepError(f"{table.name}: LDA needs a target: the column whose classes the "
@@ -335,6 +337,14 @@ class ProjectionStep:
                             "Without one, use PCA, UMAP or t-SNE.")
         if self.target is not None:
             table.column(self.target)
+
+
+def check_rows(table_name: str, n: int) -> None:
+    """StepError when fewer than 3 rows have every feature: too few to project."""
+    if n < 3:
+        raise StepError(f"{table_name}: a projection needs at least 3 rows with every "
+                        f"feature present; {n} remain. Impute missing values or choose "
+                        "other columns.")
 
 
 def _pca(values: np.ndarray, names: list[str]):

@@ -1024,14 +1024,14 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
             "columns with missing values were searched on the rows where they are present: "
             + ", ".join(partial), columns=tuple(partial),
         ))
-    ordered = (
-        found
-        + partial_found
-        + [r for r in robust_found if not r.trivial]
-        + trivial
-        + [r for r in robust_found if r.trivial]
-    )
-    return ordered, equalities, repeated
+    return ordered_relations(found + partial_found + trivial, robust_found), equalities, repeated
+
+
+def ordered_relations(every: list, robust: list) -> list:
+    """Relations in the order they are reported: those of every row, then those broken by a
+    few rows, the trivial ones (constant or repeated columns) of each after all the others."""
+    return ([r for r in every if not r.trivial] + [r for r in robust if not r.trivial]
+            + [r for r in every if r.trivial] + [r for r in robust if r.trivial])
 
 
 # --------------------------------------------------------------------------------------------

@@ -478,13 +478,14 @@ class SeparatorStep:
             self.check()
             table, name = with_breaks_flag(table, Statement.from_json(self.target_statement))
             step = dataclasses.replace(self, target=name)
-        step._check_settings(table)
+        step.check_table(table)
         fields = run_protocol(step, table, quiet(progress))
         decision = DecisionScores(**fields.pop("decision"))
         return SeparatorResult(**fields, decision=decision,
                                elapsed_seconds=time.perf_counter() - started)
 
-    def _check_settings(self, table: Table) -> None:
+    def check_table(self, table: Table) -> None:
+        """Check the settings against the table (a target to predict, columns it has)."""
         if not self.target:
             raise StepError(f"{table.name}: the separator needs a target column; name one "
                             "with target (--target COL on the command line).")

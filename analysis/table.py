@@ -60,6 +60,7 @@ from analysis.column_facts import (
     RATIONAL_TEXT,
     TRUE_WORDS,
     ColumnInfo,
+    column_named,
     column_warnings,
     detect_role,
     from_decimal,
@@ -148,11 +149,7 @@ class Table:
         return self.frame[self.id_column].to_numpy()
 
     def column(self, name: str) -> ColumnInfo:
-        for info in self.columns:
-            if info.name == name:
-                return info
-        known = ", ".join(repr(c.name) for c in self.columns[:30])
-        raise TableError(f"{self.name}: no column named {name!r}. Columns are: {known}.")
+        return column_named(self.name, self.columns, name)
 
     def role(self, name: str) -> str:
         return self.column(name).role

@@ -33,7 +33,10 @@ def refit_workers() -> int:
     """
     import os
 
-    return max(1, min(4, os.cpu_count() or 1))
+    # the cores this process may run on (a task set or container may allow fewer than the
+    # machine has)
+    usable = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None
+    return max(1, min(4, usable or os.cpu_count() or 1))
 
 
 def one_thread_each(workers: int):

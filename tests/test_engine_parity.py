@@ -343,6 +343,9 @@ CASES = [
                  id="dropped-rows-warning"),
     # 'diameter' is missing in 49% of rows: left out of the default features, with a warning
     pytest.param("projection", {"method": "pca"}, _mostly_empty, id="mostly-empty-column"),
+    # a target only colours a PCA picture: the forests, with no girth, are still drawn
+    pytest.param("projection", {"method": "pca", "columns": NUMBERS[:-1], "target": "girth"},
+                 _projection, id="projection-coloured-by-a-column-with-gaps"),
 ]
 
 
@@ -368,6 +371,9 @@ def _check_reference(kind: str, params: dict, result, frame: pd.DataFrame) -> No
         eigen = np.sort(np.linalg.eigvalsh(np.corrcoef(rows.to_numpy(float), rowvar=False)))
         np.testing.assert_allclose(result.explained_variance_ratio, eigen[::-1] / eigen.sum(),
                                    atol=1e-9)
+    elif kind == "projection" and params.get("target") == "girth":
+        # every graph of the atlas has the other numbers; 20 forests have no girth
+        assert len(result.row_ids) == GRAPHS > int(frame.girth.notna().sum())
     elif kind == "clustering":
         assert sum(p.size for p in result.profiles) == len(kept)
     elif kind == "separator":
@@ -415,6 +421,69 @@ def test_features_the_dask_engine_refuses_are_named(client, atlas, column, messa
     assert step.run(in_memory).features[0] == "edges"
     with pytest.raises(StepError, match=message):
         run_distributed(step, folder, client=client)
+
+
+# ----------------------------------------------------------------------------------------
+# Rules the Dask engine once had its own copy of
+
+
+def test_imputed_flags_and_categories_take_their_most_common_value(client, tmp_path):
+    rng = np.random.default_rng(3)
+    n = 240
+    x = rng.normal(size=n)
+    x[rng.choice(n, 12, replace=False)] = np.nan
+    flag = pd.Series(rng.random(n) < 0.3, dtype=object)   # True on about 30% of rows
+    flag[rng.choice(n, 15, replace=False)] = None
+    kind = pd.Series(rng.choice(["p", "q", "r"], size=n, p=[0.2, 0.5, 0.3]), dtype=object)
+    kind[rng.choice(n, 10, replace=False)] = None
+    frame = pd.DataFrame({"x": x, "flag": flag, "kind": kind})
+    folder, whole = write_parts(frame, tmp_path / "gaps", parts=3)
+    step = make_step("projection", {"method": "pca", "columns": ["x", "flag", "kind"],
+                                    "missing": "impute"})
+    expected = step.run(load_table(whole))
+    result = run_distributed(step, folder, client=client)
+    np.testing.assert_allclose(result.explained_variance_ratio,
+                               expected.explained_variance_ratio, atol=1e-12)
+    np.testing.assert_allclose(result.x, expected.x, atol=1e-9)
+    assert [n for n in result.notes if n.startswith("filled")] == \
+        [n for n in expected.notes if n.startswith("filled")]
+    # the reference, from pandas: the median of x, the most common flag (False) and the most
+    # common level (q) fill the gaps; PCA of the standardized columns is the eigenvalues of
+    # their correlation matrix (common practice)
+    filled = pd.concat([frame.x.fillna(frame.x.median()),
+                        frame.flag.fillna(frame.flag.mode()[0]).astype(float),
+                        pd.get_dummies(frame.kind.fillna(frame.kind.mode()[0])).astype(float)],
+                       axis=1).to_numpy()
+    eigen = np.sort(np.linalg.eigvalsh(np.corrcoef(filled, rowvar=False)))[::-1]
+    np.testing.assert_allclose(result.explained_variance_ratio, (eigen / eigen.sum())[
+        :len(result.explained_variance_ratio)], atol=1e-9)
+
+
+def test_an_equation_in_short_decimals_is_settled_exactly_on_both_engines(client, tmp_path):
+    # x in quarters, y whole: the target is 4x - y >= 3 but for a few flipped rows, so the
+    # constant sits between two exact scores (a short decimal is exact in memory)
+    rng = np.random.default_rng(5)
+    n = 400
+    x = rng.integers(0, 40, size=n) / 4
+    y = rng.integers(0, 20, size=n)
+    label = 4 * x - y >= 3
+    label[rng.choice(n, 6, replace=False)] ^= True
+    frame = pd.DataFrame({"object": [f"o{i}" for i in range(n)], "x": x, "y": y,
+                          "label": label})
+    folder, whole = write_parts(frame, tmp_path / "quarters", parts=4)
+    step = make_step("separator", {"target": "label", "columns": ["x", "y"],
+                                   "model": "linear", **FEW})
+    expected = step.run(load_table(whole))
+    result = run_distributed(step, folder, client=client)
+    assert _separator(result) == _separator(expected)
+    # every listed row disagrees with the equation evaluated with Python fractions
+    equation = result.equation
+    for row in equation.violating_rows:
+        cells = frame[frame.object == row].iloc[0]
+        total = sum(Fraction(t.coef) * Fraction(str(cells[t.feature])) for t in equation.terms)
+        holds = total >= equation.constant if equation.relation == ">=" \
+            else total <= equation.constant
+        assert holds != bool(cells["label"] == equation.positive_class), row
 
 
 # ----------------------------------------------------------------------------------------

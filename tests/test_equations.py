@@ -10,7 +10,11 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import subprocess
+import sys
 from fractions import Fraction
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -494,3 +498,35 @@ def test_one_vs_rest_needs_two_classes():
     X = integer_table(20, 2, seed=0)
     with pytest.raises(StepError, match="at least two"):
         one_vs_rest_equations(X, ["x"] * 20, ["a", "b"])
+
+
+# ------------------------------------------------------------------------------------------
+# Workers
+# ------------------------------------------------------------------------------------------
+
+_ONE_CORE_SEARCH = """
+import json, os, sys
+import numpy as np
+os.sched_setaffinity(0, {min(os.sched_getaffinity(0))})
+from analysis.equations import find_linear_equation
+X = np.array(json.loads(sys.stdin.read()))
+y = 3 * X[:, 0] - 2 * X[:, 2] + X[:, 5] >= 10
+print(json.dumps(find_linear_equation(X, y, [f"c{j}" for j in range(X.shape[1])]).to_json()))
+"""
+
+
+@pytest.mark.skipif(not hasattr(os, "sched_setaffinity") or len(os.sched_getaffinity(0)) < 2,
+                    reason="needs two usable cores to compare one worker with several")
+def test_the_search_gives_the_same_equation_on_one_core_and_on_several():
+    # The planted rule is known by construction; the refits and sorts that run on every core
+    # must give the same equation, constant, violations and notes as one core does alone.
+    X = integer_table(3000, 8, seed=21, low=-10, high=10)
+    names = [f"c{j}" for j in range(8)]
+    y = 3 * X[:, 0] - 2 * X[:, 2] + X[:, 5] >= 10
+    several = find_linear_equation(X, y, names).to_json()
+    done = subprocess.run([sys.executable, "-c", _ONE_CORE_SEARCH], input=json.dumps(X.tolist()),
+                          capture_output=True, text=True, check=True, timeout=600,
+                          cwd=Path(__file__).resolve().parents[1])
+    one = json.loads(done.stdout)
+    assert several["text"] == "3*c0 - 2*c2 + c5 >= 10"
+    assert one == json.loads(json.dumps(several))

@@ -1,23 +1,13 @@
 """The steps of a study on a Dask cluster, for tables past one machine's memory.
 
-``run_distributed(step, path)`` reads a Parquet file, a folder of Parquet files, or a CSV file
-in partitions, runs ``step`` on a cluster (an existing scheduler, or a local one on 127.0.0.1
-that lives only as long as the call), and returns the same result dataclass the step returns
-in memory, so figures, JSON and summaries work unchanged. Where the computation is exact
-(summaries, PCA, equations and relations checked on every row, counts, ids) the numbers equal
-the in-memory ones; where it streams or samples (k-means by mini-batches or Lloyd iterations
-started from a sample, separators fitted on a sample, UMAP and t-SNE) the result's notes say
-so, and what was checked on every row regardless.
+``run_distributed(step, path)`` reads Parquet (a file or a folder of files) or CSV in
+partitions, runs ``step`` on a cluster (a named scheduler, or a local one on 127.0.0.1 for
+the length of the call) and returns the step's own result dataclass; its notes say what ran
+on a sample. DEVELOPERS.md lists what each kind computes over every row.
 
 Example::
 
-    from analysis.distributed import run_distributed
-    from analysis.projection import ProjectionStep
-
-    result = run_distributed(ProjectionStep(method="pca"), "invariants/")   # a folder of parts
-    result.explained_variance_ratio
-
-dask and distributed are imported when a function here first needs them.
+    result = run_distributed(ProjectionStep(method="pca"), "invariants/")
 """
 
 from __future__ import annotations

@@ -1,15 +1,6 @@
-"""The clustering step on Dask.
-
-Features are standardized with the exact mean and standard deviation of every row (summed
-over partitions). k-means is fitted by Lloyd iterations on partition sums: starting centres
-come from the in-memory k-means on a uniform sample (k-means++ with ``seed``), then each
-iteration assigns every row of every partition to its nearest centre and moves each centre
-to the mean of its rows, until the centres settle (scikit-learn's tolerance). Gaussian
-mixtures, agglomerative clustering and HDBSCAN are fitted on a sample, as the in-memory step
-does on large tables, and every row of every partition then joins a cluster (most likely
-component, nearest cluster mean, nearest sampled row). Silhouettes are computed on the same
-random sample of rows as in memory; profiles and the agreement with a label column use every
-row.
+"""The clustering step on Dask: Lloyd iterations over every partition, other methods on a
+sample, every row assigned to a cluster (nearest centre, most likely component, nearest
+sampled row); silhouettes on the in-memory step's sample, profiles over every row.
 """
 
 from __future__ import annotations
@@ -26,7 +17,6 @@ from analysis.distributed.common import (
     feature_moments,
     plan_for,
     standardizing,
-    tree,
 )
 from analysis.errors import StepError
 
@@ -62,68 +52,56 @@ class Clusters:
 
 def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     """Cluster the rows of the given feature blocks as ``step`` asks."""
-    from dask import delayed
-
     from analysis import clustering as cl
-
-    started = time.perf_counter()
     from analysis.distributed.matrix import feature_notes, feature_warnings
 
-    stats, counts, kept_per_block = feature_moments(ctx, blocks)
+    started = time.perf_counter()
+    (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
     notes = feature_notes(plan, counts, ctx.table.n_rows)
-    warned = feature_warnings(plan, counts, ctx.table.n_rows)
-    n, mean, m2 = stats
     shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
-    offsets = np.concatenate([[0], np.cumsum(kept_per_block)[:-1]]).astype(np.int64)
-    sample = gather_rows(ctx, blocks, kept_per_block, offsets,
-                          sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
-    silhouette_rows = sample_rows(n, step.sample_size, step.seed)
+    at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
+    sample = gather_rows(*at, sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
     if n > step.sample_size:
-        notes.append(f"silhouettes computed on a random sample of {step.sample_size} of the "
-                     f"{n} rows (seed {step.seed}).")
-    scored = gather_rows(ctx, blocks, kept_per_block, offsets, silhouette_rows, shift, scale)
-    methods = cl.K_METHODS if step.method == "auto" else (step.method,)
+        notes.append(cl.silhouette_note(step.sample_size, n, step.seed))
+    scored = gather_rows(*at, sample_rows(n, step.sample_size, step.seed), shift, scale)
+    silhouette = cl.Silhouette.of_rows(scored)
     runs = []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        for method in methods:
-            for k, assigner, bic, extra in _fits(method, step, ks, sample, n, notes):
+        for method in cl.K_METHODS if step.method == "auto" else (step.method,):
+            for k, assigner, bic in _fits(method, step, ks, sample, n, notes):
                 if isinstance(assigner, _Lloyd):
-                    extra = refine_lloyd(ctx, blocks, assigner, shift, scale,
-                                         float(np.mean(np.diag(m2) / n / scale ** 2)))
-                labels_scored = assigner(scored)
-                entry = cl.SweepEntry(
-                    method=method, k=k, silhouette=_silhouette(scored, labels_scored), bic=bic,
-                    clusters=0, noise=0)
-                runs.append([entry, assigner, extra])
-    # every run's cluster sizes over all rows (the sweep reports them)
-    sizes = ctx.compute([tree([delayed(_label_sizes)(b, assigner, shift, scale) for b in blocks],
-                              _add_sizes) for _, assigner, _ in runs])
-    for run, found in zip(runs, sizes):
-        run[0] = _with_sizes(run[0], found)
-    chosen_entry, chosen_assigner, reason = _choose(cl, step, runs)
-    pieces = ctx.compute([delayed(_assign_block)(b, chosen_assigner, shift, scale)
-                          for b in blocks])
+                    refine_lloyd(ctx, blocks, assigner, shift, scale,
+                                 float(np.mean(np.diag(m2) / n / scale ** 2)))
+                # the sweep's sizes are those of every row
+                sizes = {c: size for c, (size, _) in ctx.reduce(
+                    _profile_sums, blocks, _add_profile_sums, assigner, shift, scale).items()}
+                runs.append((cl.SweepEntry(
+                    method=method, k=k, silhouette=silhouette(assigner(scored)), bic=bic,
+                    clusters=len([c for c in sizes if c != cl.NOISE]),
+                    noise=int(sizes.get(cl.NOISE, 0))), assigner))
+    # the in-memory chooser passes a run's labels on; here they stand for its assigner
+    entry, chosen, reason = cl.choose_run(step.method, runs, step.k is not None)
+    pieces = ctx.each(_assign_block, blocks, chosen, shift, scale)
     labels = np.concatenate([p[2] for p in pieces])
     order = cl.size_order(labels)
     labels = np.array([order[c] for c in labels.tolist()], dtype=int)
-    row_ids = np.concatenate([p[1] for p in pieces])
-    positions = np.concatenate([p[0] for p in pieces])
-    profiles = _profiles(ctx, plan, blocks, chosen_assigner, order, shift, scale, n, mean, m2)
-    agreement = None
-    if step.compare is not None:
-        agreement = cl.agreement_scores(np.concatenate([p[3] for p in pieces]), labels)
-    k = int(len(set(labels.tolist()) - {cl.NOISE}))
+    agreement = None if step.compare is None else \
+        cl.agreement_scores(np.concatenate([p[3] for p in pieces]), labels)
     result = cl.ClusteringResult(
-        method=chosen_entry.method, k=k, row_ids=row_ids, positions=positions, labels=labels,
-        sweep=tuple(r[0] for r in runs), profiles=profiles, reason=reason,
+        method=entry.method, k=int(len(set(labels.tolist()) - {cl.NOISE})),
+        row_ids=np.concatenate([p[1] for p in pieces]),
+        positions=np.concatenate([p[0] for p in pieces]), labels=labels,
+        sweep=tuple(r[0] for r in runs), reason=reason,
+        profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, mean, m2),
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
-        silhouette=chosen_entry.silhouette, compare=step.compare, agreement=agreement,
-        notes=tuple(dict.fromkeys(notes)), warnings=warned,
+        silhouette=entry.silhouette, compare=step.compare, agreement=agreement,
+        notes=tuple(dict.fromkeys(notes)),
+        warnings=feature_warnings(plan, counts, ctx.table.n_rows),
         elapsed_seconds=time.perf_counter() - started,
     )
-    return Clusters(result, chosen_assigner, order, shift, scale)
+    return Clusters(result, chosen, order, shift, scale)
 
 
 def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
@@ -133,7 +111,8 @@ def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
 
 
 def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
-    """Standardized feature rows at the given kept-row indices (in order)."""
+    """Standardized feature rows at the given kept-row indices (in order); their targets
+    when ``shift`` is None."""
     from dask import delayed
 
     picks = []
@@ -143,26 +122,17 @@ def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> n
         if len(local):
             picks.append(delayed(_take)(block, local, shift, scale))
     parts = ctx.compute(picks)
+    if shift is None:
+        return np.concatenate(parts) if parts else np.array([])
     return np.vstack(parts) if parts else np.empty((0, len(shift)))
 
 
 def _take(block, local, shift, scale):
-    return (block.values[local] - shift) / scale
-
-
-def _silhouette(values: np.ndarray, labels: np.ndarray):
-    from sklearn.metrics import silhouette_score
-
-    from analysis.clustering import NOISE, silhouette_defined
-
-    clustered = labels != NOISE
-    if not silhouette_defined(labels):
-        return None
-    return float(silhouette_score(values[clustered], labels[clustered]))
+    return block.target[local] if shift is None else (block.values[local] - shift) / scale
 
 
 # ----------------------------------------------------------------------------------------
-# Fitting: each yields (k, assigner, bic, note) where assigner(values) -> labels
+# Fitting: each yields (k, assigner, bic) where assigner(values) -> labels
 
 
 class NearestCentre:
@@ -217,41 +187,33 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
                      f"{min(n, SAMPLE_ROWS)} rows.")
         for k in ks:
             _, centres = cl.kmeans_labels(sample, k, step.seed)
-            yield k, _Lloyd(centres), None, None
+            yield k, _Lloyd(centres), None
     elif method == "gmm":
         if len(sample) < n:
             notes.append(cl.mixture_note(len(sample), n))
         for k in ks:
             model = cl.mixture_model(sample, k, step.seed)
-            yield k, MixtureAssigner(model), float(model.bic(sample)), None
+            yield k, MixtureAssigner(model), float(model.bic(sample))
     elif method == "agglomerative":
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         if len(fit) < n:
             notes.append(cl.agglomerative_note(len(fit), n))
         for k, _, centres in cl.ward_cuts(fit, ks):
-            yield k, NearestCentre(centres), None, None
+            yield k, NearestCentre(centres), None
     elif method == "hdbscan":
-        from sklearn.cluster import HDBSCAN
-
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
-        size = cl.hdbscan_size(step.min_cluster_size, len(fit))
-        labels = HDBSCAN(min_cluster_size=size, copy=True).fit_predict(fit)
-        notes.append(cl.hdbscan_size_note(size))
+        labels = cl.hdbscan_fit(fit, step.min_cluster_size, notes)
         if len(fit) < n:
             notes.append(cl.hdbscan_sample_note(len(fit), n))
         if step.k is not None:
             notes.append(cl.hdbscan_k_note(step.k))
-        yield None, NearestSampled(fit, labels), None, None
+        yield None, NearestSampled(fit, labels), None
     else:
         raise StepError(f"clustering method {method!r} is not available on the dask engine.")
 
 
 class _Lloyd(NearestCentre):
     """Nearest-centre assignment whose centres are refined over all rows before first use."""
-
-    def __init__(self, centres):
-        super().__init__(centres)
-        self.refined = False
 
 
 def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,
@@ -260,11 +222,8 @@ def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,
 
     ``variance`` is the features' mean variance in the units clustered (1 when standardized).
     """
-    from dask import delayed
-
     for iteration in range(1, LLOYD_ITERATIONS + 1):
-        sums, counts = ctx.compute(tree([delayed(_cluster_sums)(b, assigner, shift, scale)
-                                         for b in blocks], _add_pairs))
+        sums, counts = ctx.reduce(_cluster_sums, blocks, _add_pairs, assigner, shift, scale)
         centres = assigner.centres.copy()
         filled = counts > 0
         centres[filled] = sums[filled] / counts[filled][:, None]
@@ -288,53 +247,16 @@ def _add_pairs(a, b):
     return a[0] + b[0], a[1] + b[1]
 
 
-def _label_sizes(block, assigner, shift, scale) -> dict:
-    labels = assigner((block.values - shift) / scale)
-    found, counts = np.unique(labels, return_counts=True)
-    return dict(zip(found.tolist(), counts.tolist()))
-
-
-def _add_sizes(a: dict, b: dict) -> dict:
-    out = dict(a)
-    for key, value in b.items():
-        out[key] = out.get(key, 0) + value
-    return out
-
-
-def _with_sizes(entry, sizes: dict):
-    import dataclasses
-
-    clusters = len([c for c in sizes if c != -1])
-    return dataclasses.replace(entry, clusters=clusters, noise=int(sizes.get(-1, 0)))
-
-
 def _assign_block(block, assigner, shift, scale):
     labels = assigner((block.values - shift) / scale)
     truth = block.target if block.target is not None else np.zeros(0)
     return block.positions, block.row_ids, np.asarray(labels, dtype=int), truth
 
 
-def _choose(cl, step, runs: list):
-    """The in-memory rule for choosing a run, with Lloyd refinement of the k-means runs."""
-    pairs = [(entry, _Placeholder(i)) for i, (entry, _, _) in enumerate(runs)]
-    entry, marker, reason = cl.choose_run(step.method, pairs, step.k is not None)
-    return entry, runs[marker.index][1], reason
-
-
-class _Placeholder:
-    """Stands in for a run's labels in the in-memory chooser, which only passes them on."""
-
-    def __init__(self, index: int):
-        self.index = index
-
-
 def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
-    from dask import delayed
-
     from analysis import clustering as cl
 
-    sums = ctx.compute(tree([delayed(_profile_sums)(b, assigner, shift, scale) for b in blocks],
-                            _add_profile_sums))
+    sums = ctx.reduce(_profile_sums, blocks, _add_profile_sums, assigner, shift, scale)
     spread = np.sqrt(np.diag(m2) / n)
     total = mean * n
     names = plan.names
@@ -362,8 +284,5 @@ def _profile_sums(block, assigner, shift, scale) -> dict:
 def _add_profile_sums(a: dict, b: dict) -> dict:
     out = dict(a)
     for key, (size, total) in b.items():
-        if key in out:
-            out[key] = (out[key][0] + size, out[key][1] + total)
-        else:
-            out[key] = (size, total)
+        out[key] = (out[key][0] + size, out[key][1] + total) if key in out else (size, total)
     return out

@@ -26,6 +26,18 @@ class Context:
         """Compute dask objects on the cluster and return their values (a list for a list)."""
         return self.client.gather(self.client.compute(items))
 
+    def each(self, function, blocks: list, *args) -> list:
+        """``function(block, *args)`` for every block, computed on the cluster."""
+        from dask import delayed
+
+        return self.compute([delayed(function)(b, *args) for b in blocks])
+
+    def reduce(self, function, blocks: list, merge, *args):
+        """``function(block, *args)`` for every block, merged pairwise by ``merge``."""
+        from dask import delayed
+
+        return self.compute(tree([delayed(function)(b, *args) for b in blocks], merge))
+
     def share(self, value):
         """``value`` sent once to every worker (a future to pass to tasks), so that a large
         object, such as a fitted model, is not copied into every task of a graph."""
@@ -41,15 +53,32 @@ class Context:
                 f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.")
 
 
+class Settings:
+    """What a pass over partitions needs, as a plain object: dask walks through the
+    dataclasses, dicts and lists given to a task, but leaves this as it is."""
+
+    def __init__(self, **settings):
+        self.__dict__.update(settings)
+
+
+def partition_tasks(ctx: Context, function, columns: list[str], *args) -> list:
+    """``function(typed partition, offset of its first row, *args)`` for every partition,
+    as dask objects."""
+    from dask import delayed
+
+    offsets = ctx.table.offsets
+    return [delayed(function)(part, int(offsets[k]), *args)
+            for k, part in enumerate(ctx.table.typed_partitions(columns))]
+
+
 def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",
              log_scale="auto", missing="drop", exclude=()) -> FeaturePlan:
-    """The feature plan for a step's settings, with medians for ``missing="impute"``."""
+    """The feature plan for a step's settings, with the fills of ``missing="impute"``."""
     plan = feature_plan(ctx.table, columns=columns, target=target,
                         array_encoding=array_encoding, log_scale=log_scale, missing=missing,
                         exclude=exclude)
     if missing == "impute":
-        medians = _medians(ctx, plan)
-        plan = dataclasses.replace(plan, fill=medians)
+        plan = dataclasses.replace(plan, fill=_fills(ctx, plan))
     return plan
 
 
@@ -117,54 +146,53 @@ def spread_scale(n, mean, m2) -> np.ndarray:
 def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
     """(shift, scale) that standardize the features, or leave them in their own units, and
     the note saying which."""
-    notes.append("features standardized to mean 0 and standard deviation 1."
-                 if standardize else "features used in their own units.")
+    from analysis.projection import scaling_note
+
+    notes.append(scaling_note(standardize))
     if standardize:
         return mean, spread_scale(n, mean, m2)
     return np.zeros(len(mean)), np.ones(len(mean))
 
 
-def _medians(ctx: Context, plan: FeaturePlan) -> dict:
-    """Median of each feature over the rows where it is present (np.median's convention)."""
-    from dask import delayed
+def _fills(ctx: Context, plan: FeaturePlan) -> dict:
+    """The in-memory fill of each feature (:func:`analysis.features.fill_value`; a category
+    its most common level), from value counts summed over partitions."""
+    from analysis.features import build_features, fill_value
 
-    from analysis.distributed.matrix import partition_features
-
-    raw = dataclasses.replace(plan, missing="keep")
-    parts = ctx.table.typed_partitions(list(plan.columns))
-    offsets = ctx.table.offsets
-    pieces = [delayed(_value_counts)(delayed(partition_features)(p, int(offsets[k]), raw))
-              for k, p in enumerate(parts)]
-    merged = ctx.compute(tree(pieces, _merge_value_counts))
-    medians = {}
-    approximate = []
-    for j, feature in enumerate(plan.features):
-        table = merged[j]
-        if table is None:
+    raw = dataclasses.replace(plan, missing="keep", target=None)   # the features' cells only
+    merged = ctx.compute(tree(partition_tasks(ctx, _value_counts, list(plan.columns), raw),
+                              _merge_value_counts))
+    fills, approximate, levels = {}, [], {}
+    for feature, counted in zip(plan.features, merged):
+        if feature.kind == "onehot":
+            values, counts = counted
+            levels.setdefault(feature.column, []).append(
+                (feature.name, int(counts[values == 1.0].sum())))
+        elif counted is None:
             approximate.append(feature.name)
-            continue
-        values, counts = table
-        if counts.sum() == 0:
-            medians[feature.name] = 0.0
-            continue
-        medians[feature.name] = _median_from_counts(values, counts)
+        else:
+            fills[feature.name] = fill_value(feature.kind, *counted)
+    for found in levels.values():
+        top = int(np.argmax([count for _, count in found]))
+        fills.update((name, float(j == top)) for j, (name, _) in enumerate(found))
     if approximate:
         from analysis.distributed.source import sample_table
 
         sample, _ = sample_table(ctx.table, ctx.client, MEDIAN_SAMPLE_ROWS, seed=0,
                                  columns=list(plan.columns))
-        from analysis.features import build_features
-
         fm = build_features(sample, columns=list(plan.columns), missing="drop")
         for name in approximate:
-            medians[name] = float(np.median(fm.values[:, fm.names.index(name)]))
+            fills[name] = float(np.median(fm.values[:, fm.names.index(name)]))
         ctx.notes.append(f"missing values of {', '.join(approximate)} filled with the median "
                          f"of a random sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct "
                          "values for an exact median across partitions).")
-    return medians
+    return fills
 
 
-def _value_counts(block) -> list:
+def _value_counts(frame, offset: int, plan: FeaturePlan) -> list:
+    from analysis.distributed.matrix import partition_features
+
+    block = partition_features(frame, offset, plan)
     out = []
     for j in range(block.values.shape[1]):
         column = block.values[:, j]
@@ -188,14 +216,6 @@ def _merge_value_counts(a: list, b: list) -> list:
     return out
 
 
-def _median_from_counts(values: np.ndarray, counts: np.ndarray) -> float:
-    total = int(counts.sum())
-    cumulative = np.cumsum(counts)
-    low = values[int(np.searchsorted(cumulative, (total - 1) // 2 + 1))]
-    high = values[int(np.searchsorted(cumulative, total // 2 + 1))]
-    return float((low + high) / 2)
-
-
 def with_notes(result, extra: list[str]):
     """The result with ``extra`` appended to its notes (results are frozen dataclasses)."""
     if not extra:
@@ -203,5 +223,6 @@ def with_notes(result, extra: list[str]):
     return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
 
 
-__all__ = ["Context", "block_moments", "blocks_for", "feature_moments", "merge_moments",
-           "plan_for", "spread_scale", "standardizing", "tree", "with_notes"]
+__all__ = ["Context", "Settings", "block_moments", "blocks_for", "feature_moments",
+           "merge_moments", "partition_tasks", "plan_for", "spread_scale", "standardizing",
+           "tree", "with_notes"]

@@ -1,14 +1,8 @@
-"""Feature matrices built partition by partition, with the names and values of the in-memory ones.
+"""Feature blocks built partition by partition, with the names and values of the in-memory ones.
 
-:func:`feature_plan` decides once, from the whole table's column descriptions, which features
-there are (so every partition has the same columns, e.g. one-hot levels taken over the whole
-table); :func:`partition_features` builds one partition's block. The features are those of
-:func:`analysis.features.build_features` for invariant, flag and category columns: the same
-names, values and notes. Array columns and integers beyond 64 bits are not encoded on this
-engine (the step says so and names the column).
-
-Partition blocks can be kept in the cluster's memory between passes (:func:`feature_blocks`)
-when they fit, so that iterative methods (k-means) do not read the files again.
+:func:`feature_plan` decides once, from the whole table's column facts, which features there
+are (one-hot levels over the whole table); :func:`partition_features` builds one block.
+Arrays, big integers and rationals are not encoded on this engine (said, by column).
 """
 
 from __future__ import annotations
@@ -20,17 +14,20 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import (
+    MAX_LEVELS,
     Feature,
     chosen_feature_columns,
     dropped_rows_text,
+    filled_note,
     left_out_warning,
     mostly_empty_columns,
+    one_hot,
+    signed_log,
+    too_many_levels,
 )
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
-# Most one-hot levels of a category column, as in memory.
-MAX_LEVELS = 200
 
 
 @dataclass(frozen=True)
@@ -47,7 +44,6 @@ class FeaturePlan:
     fill: dict
     notes: tuple[str, ...]
     id_column: str | None
-    exact_columns: tuple[bool, ...] = ()   # True where a feature is an exact integer
     warnings: tuple[str, ...] = ()         # the mostly-empty columns left out, said so
 
     @property
@@ -72,31 +68,22 @@ class Block:
 
 def feature_plan(table, *, columns: list[str] | None = None, target: str | None = None,
                  array_encoding: str = "invariant", log_scale: str = "auto",
-                 missing: str = "drop", exclude: tuple[str, ...] = (),
-                 medians: dict | None = None) -> FeaturePlan:
-    """The features of a partitioned table, checked as build_features checks them.
-
-    ``medians`` gives the fill value of each numeric column when ``missing="impute"``.
-    """
+                 missing: str = "drop", exclude: tuple[str, ...] = ()) -> FeaturePlan:
+    """The features of a partitioned table, checked as build_features checks them (the fills
+    of ``missing="impute"`` are added by :func:`analysis.distributed.common.plan_for`)."""
     chosen_by_default = columns is None
     columns = chosen_feature_columns(table, columns=columns, target=target, exclude=exclude,
                                      array_encoding=array_encoding, log_scale=log_scale,
                                      missing=missing)
-    features: list[Feature] = []
-    levels: dict[str, list[str]] = {}
-    log_columns: list[str] = []
-    exact: dict[str, bool] = {}
-    notes: list[str] = []
-    warnings: list[str] = []
+    notes, warnings = [], []
     if chosen_by_default:
         # the in-memory rule: a mostly-empty column is left out before rows are dropped
         left_out = mostly_empty_columns(table, columns)
         if left_out and len(left_out) < len(columns):
             columns = [name for name in columns if name not in dict(left_out)]
             warnings.append(left_out_warning(left_out))
-    if chosen_by_default:
         # columns this engine cannot encode are left out of the default features, said so;
-        # named ones are refused below, by name
+        # named ones are refused by name
         unencoded = [n for n in columns if table.column(n).role == "array"
                      or table.column(n).dtype in ("array", "big integer", "rational")]
         if unencoded and len(unencoded) < len(columns):
@@ -104,60 +91,45 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
             notes.append("left out of the features on the dask engine, which does not encode "
                          f"arrays, big integers or rationals yet: {', '.join(unencoded)}; the "
                          "in-memory engine uses them.")
+    features, levels = [], {}
     for name in columns:
-        info = table.column(name)
-        if info.role == "array" or info.dtype == "array":
-            raise StepError(f"{table.name}: column {name!r} holds arrays, which the dask "
-                            "engine does not encode as features yet. Leave it out with "
-                            "--features, or use --engine local.")
-        if info.dtype in ("big integer", "rational"):
-            raise StepError(f"{table.name}: column {name!r} holds {info.dtype}s, which the "
-                            "dask engine does not encode as features. Leave it out with "
-                            "--features, or use --engine local.")
-        if info.role == "invariant":
-            if log_scale == "always":
-                features.append(Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)"))
-                log_columns.append(name)
-            else:
-                features.append(Feature(name, name, "value"))
-                exact[name] = info.dtype == "integer"
-        elif info.role == "flag":
-            if info.dtype != "boolean":
-                raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} "
-                                "values; on the dask engine a flag is a true/false column.")
-            features.append(Feature(name, name, "flag"))
-            exact[name] = True
-        elif info.role == "category":
-            found = _levels(table, name)
-            if len(found) > MAX_LEVELS:
-                raise StepError(
-                    f"{table.name}: category column {name!r} has {len(found)} values; one-hot "
-                    "encoding it would swamp the other features. Give it the role text, or "
-                    "group its values first.")
-            levels[name] = found
-            for level in found:
-                feature = Feature(f"{name}={level}", name, "onehot", level)
-                features.append(feature)
-                exact[feature.name] = True
-        else:
-            raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
-                            "feature.")
+        features.extend(_column_features(table, name, log_scale, levels))
     numeric_target = False
     if target is not None:
         info = table.column(target)
         if info.role == "array":
             raise StepError(f"{table.name}: the array column {target!r} cannot be a target.")
         numeric_target = info.role == "invariant" and info.dtype in ("integer", "real")
-    fill = {}
-    if missing == "impute":
-        fill = dict(medians or {})
-    plan = FeaturePlan(features=tuple(features), columns=tuple(columns), target=target,
+    return FeaturePlan(features=tuple(features), columns=tuple(columns), target=target,
                        numeric_target=numeric_target, missing=missing,
-                       log_columns=tuple(log_columns), levels=levels, fill=fill,
-                       notes=tuple(notes), id_column=table.id_column,
-                       exact_columns=tuple(exact.get(f.name, False) for f in features),
+                       log_columns=tuple(f.column for f in features if f.kind == "log"),
+                       levels=levels, fill={}, notes=tuple(notes), id_column=table.id_column,
                        warnings=tuple(warnings))
-    return plan
+
+
+def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Feature]:
+    """The features of one column, as build_features names them (one-hot ``levels`` kept)."""
+    info = table.column(name)
+    if info.role == "array" or info.dtype in ("array", "big integer", "rational"):
+        what = "arrays" if info.role == "array" or info.dtype == "array" else f"{info.dtype}s"
+        raise StepError(f"{table.name}: column {name!r} holds {what}, which the dask engine "
+                        "does not encode as features yet. Leave it out with --features, or "
+                        "use --engine local.")
+    if info.role == "invariant":
+        return [Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
+                if log_scale == "always" else Feature(name, name, "value")]
+    if info.role == "flag":
+        if info.dtype != "boolean":
+            raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} values; "
+                            "on the dask engine a flag is a true/false column.")
+        return [Feature(name, name, "flag")]
+    if info.role != "category":
+        raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
+                        "feature.")
+    levels[name] = _levels(table, name)
+    if len(levels[name]) > MAX_LEVELS:
+        raise too_many_levels(table.name, name, len(levels[name]))
+    return [Feature(f"{name}={level}", name, "onehot", level) for level in levels[name]]
 
 
 def _levels(table, name: str) -> list[str]:
@@ -178,22 +150,13 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     blocks = []
     for name in plan.columns:
         series = frame[name]
-        if name in plan.levels:
-            found = plan.levels[name]
-            labels = series.astype(object).where(series.notna(), None).to_numpy()
-            text = np.array(["" if v is None else str(v) for v in labels], dtype=object)
-            block = np.zeros((n, len(found)))
-            index = {level: j for j, level in enumerate(found)}
-            columns = np.array([index.get(t, -1) for t in text], dtype=np.int64)
-            hit = columns >= 0
-            block[np.flatnonzero(hit), columns[hit]] = 1.0
-            block[np.array([v is None for v in labels], dtype=bool)] = np.nan
-            blocks.append(block)
+        if name in plan.levels:   # the levels are those of the whole table
+            blocks.append(one_hot(series.astype(object).where(series.notna(), None).tolist(),
+                                  plan.levels[name]))
             continue
         values = _as_float(series)
-        if name in plan.log_columns:
-            values = np.sign(values) * np.log10(1 + np.abs(values))
-        blocks.append(values[:, None])
+        blocks.append((signed_log(values.tolist()) if name in plan.log_columns
+                       else values)[:, None])
     values = np.column_stack(blocks) if blocks else np.empty((n, 0))
     positions = np.arange(offset, offset + n, dtype=np.int64)
     ids = frame[plan.id_column].to_numpy() if plan.id_column else positions
@@ -253,9 +216,7 @@ def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
             if not serious:
                 notes.append(text)
         else:
-            notes.append(f"filled {counts['filled']} missing feature cells with the column "
-                         f"median; dropped {counts['dropped_target']} rows with no target "
-                         "value.")
+            notes.append(filled_note(counts["filled"], counts["dropped_target"]))
     return notes
 
 

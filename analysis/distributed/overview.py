@@ -1,10 +1,5 @@
-"""The overview step on Dask: column summaries from the facts gathered per partition.
-
-Ranges, means, missing and distinct counts come from the typing pass that every partitioned
-table makes (:mod:`analysis.distributed.source`); the strongly correlated pairs come from one
-more pass of pairwise sums, exact over all rows (in memory, tables past 200,000 rows use a
-sample of that size for the correlations, so the two engines may differ there).
-"""
+"""The overview step on Dask: column summaries from the facts of the typing pass, strong
+correlations from one pass of pairwise sums over every row."""
 
 from __future__ import annotations
 
@@ -12,9 +7,7 @@ import numpy as np
 
 from analysis.distributed.common import Context, tree
 from analysis.overview import CORRELATION_ROWS as IN_MEMORY_CORRELATION_ROWS
-from analysis.overview import ColumnSummary, OverviewResult
-
-STRONG = 0.9
+from analysis.overview import ColumnSummary, OverviewResult, strong_pairs
 
 
 def run_overview(step, ctx: Context) -> OverviewResult:
@@ -114,14 +107,7 @@ def _correlations(ctx: Context, top: int):
         top_part = count * sxy - sx * sx.T
         bottom = np.sqrt((count * sxx - sx ** 2) * (count * sxx.T - (sx.T) ** 2))
         matrix = top_part / bottom
-    pairs = []
-    for i in range(len(names)):
-        for j in range(i + 1, len(names)):
-            r = matrix[i, j]
-            if np.isfinite(r) and abs(r) >= STRONG:
-                pairs.append((names[i], names[j], float(np.clip(r, -1.0, 1.0))))
-    pairs.sort(key=lambda p: -abs(p[2]))
-    return tuple(pairs[:top])
+    return strong_pairs(np.clip(matrix, -1.0, 1.0), names, top)
 
 
 def _pair_sums(frame, names: list[str], shift: np.ndarray):

@@ -1,15 +1,5 @@
-"""The projection step on Dask.
-
-PCA is exact: the mean and the centred Gram matrix of the features are summed partition by
-partition (each partition's own centred sums, merged with the parallel update of Chan, Golub
-and LeVeque, so no precision is lost to large means), standardized exactly as
-``StandardScaler`` does, and diagonalized on the client; every row's coordinates are then
-computed partition by partition. The explained variance ratios equal the in-memory ones to
-rounding, and the axes carry the same signs (largest loading positive, as scikit-learn's PCA).
-
-UMAP, t-SNE and LDA run the in-memory step on a uniform random sample of rows (of the size the
-in-memory step would use for UMAP and t-SNE), and the result says so.
-"""
+"""The projection step on Dask: exact PCA from the Gram matrix summed over partitions,
+coordinates computed partition by partition; UMAP, t-SNE and LDA on a uniform sample."""
 
 from __future__ import annotations
 
@@ -19,7 +9,6 @@ import time
 import numpy as np
 
 from analysis.distributed.common import Context, blocks_for, feature_moments, plan_for, spread_scale
-from analysis.errors import StepError
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
 LDA_SAMPLE_ROWS = 200_000
@@ -27,40 +16,35 @@ LDA_SAMPLE_ROWS = 200_000
 
 def run_projection(step, ctx: Context):
     """A ProjectionResult for ``step`` on the partitioned table in ``ctx``."""
-    from analysis.projection import METHOD_TITLES, METHODS, SAMPLE_THRESHOLDS, ProjectionResult
+    from analysis.distributed.matrix import feature_notes, feature_warnings
+    from analysis.projection import (
+        METHOD_TITLES,
+        SAMPLE_THRESHOLDS,
+        ProjectionResult,
+        check_rows,
+        scaling_note,
+    )
 
     started = time.perf_counter()
-    if step.method not in METHODS:
-        raise StepError(f"projection method {step.method!r}: use one of {', '.join(METHODS)}.")
+    step.check_table(ctx.table)
     if step.method != "pca":
         return _on_sample(step, ctx, SAMPLE_THRESHOLDS, METHOD_TITLES)
-    if step.target is not None:
-        ctx.table.column(step.target)
-    plan = plan_for(ctx, columns=step.columns, target=step.target,
+    # the target only colours the picture: rows without it are still drawn, as in memory
+    plan = plan_for(ctx, columns=step.columns, exclude=(step.target,) if step.target else (),
                     array_encoding=step.array_encoding, log_scale=step.log_scale,
                     missing=step.missing)
     blocks = blocks_for(ctx, plan)
-    stats, counts, _ = feature_moments(ctx, blocks)
-    from analysis.distributed.matrix import feature_notes, feature_warnings
-
-    notes = feature_notes(plan, counts, ctx.table.n_rows)
-    warned = feature_warnings(plan, counts, ctx.table.n_rows)
-    n, mean, m2 = stats
-    if n < 3:
-        raise StepError(f"{ctx.table.name}: a projection needs at least 3 rows with every "
-                        f"feature present; {n} remain. Impute missing values or choose "
-                        "other columns.")
+    (n, mean, m2), counts, _ = feature_moments(ctx, blocks)
+    notes = feature_notes(plan, counts, ctx.table.n_rows) + step.setting_notes()
+    check_rows(ctx.table.name, n)
     ratio, components, scale = pca_from_moments(n, mean, m2, standardize=step.standardize)
-    notes.append("features standardized to mean 0 and standard deviation 1."
-                 if step.standardize else "features used in their own units.")
+    notes.append(scaling_note(step.standardize))
     if len(ratio) < 2:
         notes.append("one feature gives one principal component; y is 0.")
     axes = components[:2]
     if len(axes) < 2:
         axes = np.vstack([axes, np.zeros((1, axes.shape[1]))])
-    from dask import delayed
-
-    pieces = ctx.compute([delayed(project_block)(b, mean, scale, axes) for b in blocks])
+    pieces = ctx.each(project_block, blocks, mean, scale, axes)
     positions = np.concatenate([p[0] for p in pieces])
     row_ids = np.concatenate([p[1] for p in pieces])
     coordinates = np.vstack([p[2] for p in pieces])
@@ -76,7 +60,8 @@ def run_projection(step, ctx: Context):
         features=tuple(names), standardize=step.standardize, target=step.target, n_rows=n,
         sampled=False, seed=step.seed, explained_variance_ratio=tuple(float(r) for r in ratio),
         loadings=loadings, axis_titles=("first principal component", "second principal component"),
-        notes=tuple(notes), warnings=warned, elapsed_seconds=time.perf_counter() - started,
+        notes=tuple(notes), warnings=feature_warnings(plan, counts, ctx.table.n_rows),
+        elapsed_seconds=time.perf_counter() - started,
     )
 
 

@@ -1,28 +1,12 @@
 """The relations step on Dask: candidates from a few rows, everything checked on every row.
 
-1. The in-memory search (:class:`analysis.relations.RelationsStep`) runs on a uniform random
-   sample of rows; its relations that hold on every sampled row span a lattice that contains
-   the table's relations.
-2. One pass over every partition tests that lattice on every row and keeps, per partition,
-   a few breaking rows whose values span all the ways the lattice is broken; it also gathers
-   each column's extremes, the least and greatest value of each column of a pair over each
-   value of the other (the only candidates for corners of the pair's convex hull), and the
-   corners of the hull of each triple.
-3. The search runs again on the sample together with those rows: the breaking rows cut the
-   lattice down to exactly the relations of the whole table, and the corner rows make every
-   hull, and so every sharp bound, that of the whole table.
-4. A last pass counts, on every row, the rows that break each relation broken by a few rows,
-   the rows that attain, come near or break each bound, and the rows off each approximate
-   relation; relations and bounds that more rows break than allowed are dropped. Each
-   relation counts the rows where its own columns have values, as in memory.
-5. Congruences of the integer columns are proposed on the sample, one modulus at a time, each
-   counted on every row, and kept by :func:`analysis.congruences.settle_congruences`, the
-   rules of the in-memory search.
-
-Exact: the relations that hold on every row (the same lattice as in memory), the bounds in
-two and three columns, and every count and row list. Approximate: which relations broken by a
-few rows, and which bounds broken by a few rows, are proposed (they come from samples), and
-which congruences are proposed (a note says so when the sample is not the whole table).
+1. The in-memory search runs on a uniform sample; its relations span a lattice.
+2. One pass tests that lattice on every row (keeping a few breaking rows that span every way
+   it is broken) and gathers the candidates for corners of each pair's and triple's hull.
+3. The search runs again on the sample with those rows: the relations and sharp bounds of
+   the whole table.
+4. A last pass counts on every row the rows breaking, attaining or near each statement.
+5. Congruences are proposed on the sample one modulus at a time and counted on every row.
 """
 
 from __future__ import annotations
@@ -34,7 +18,7 @@ from itertools import combinations
 
 import numpy as np
 
-from analysis.distributed.common import Context, tree
+from analysis.distributed.common import Context, Settings, partition_tasks, tree
 from analysis.errors import StepError
 
 SAMPLE_ROWS = 20_000
@@ -45,9 +29,10 @@ GRID_CELLS = 4_000_000
 _INT64_SAFE = 2**62
 
 
-def run_relations(step, ctx: Context):
-    """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
-    from dask import delayed
+def run_relations(step, ctx: Context, *, leave_out: bool = False):
+    """A RelationsResult for ``step`` on the partitioned table in ``ctx``; ``leave_out``:
+    columns of big integers or rationals named in ``step`` are left out (said so), not
+    refused."""
 
     from analysis import relations as rel
     from analysis.distributed.source import sample_table
@@ -60,7 +45,7 @@ def run_relations(step, ctx: Context):
         raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
                         "search; mark some columns as invariants")
     unsearched = [n for n in names if table.column(n).dtype in ("big integer", "rational")]
-    if unsearched and step.columns is not None:
+    if unsearched and step.columns is not None and not leave_out:
         name = unsearched[0]
         raise StepError(f"relations: column '{name}' holds {table.column(name).dtype}s, which "
                         "the dask engine does not search; leave it out with --columns, or use "
@@ -83,15 +68,12 @@ def run_relations(step, ctx: Context):
     generators = [_vector(r, exact) for r in first.relations if r.exact and not r.violations]
     generators = [g for g in generators if g is not None]
     pair_columns, triple_columns = _bound_candidates(table, exact)
-    spec = _PassA(exact, generators, pair_columns, triple_columns, _ranges(table, exact))
-    parts = table.typed_partitions(names)
-    offsets = table.offsets
-    found = ctx.compute(tree([delayed(_pass_a)(p, int(offsets[k]), spec)
-                              for k, p in enumerate(parts)], _merge_a))
+    spec = Settings(exact=exact, generators=generators, pairs=pair_columns,
+                    triples=triple_columns, ranges=_ranges(table, exact))
+    found = ctx.compute(tree(partition_tasks(ctx, _pass_a, names, spec), _merge_a))
     wanted = _wanted_points(found, spec)
     extra_positions = np.array(sorted(found["breakers"]), dtype=np.int64)
-    located = ctx.compute([delayed(_locate)(p, int(offsets[k]), spec, wanted, extra_positions)
-                           for k, p in enumerate(parts)])
+    located = ctx.compute(partition_tasks(ctx, _locate, names, spec, wanted, extra_positions))
     frame, all_positions = _candidate_rows(sample, positions, located, names, table)
     from analysis.distributed.source import as_table
 
@@ -110,18 +92,6 @@ def run_relations(step, ctx: Context):
 
 # ----------------------------------------------------------------------------------------
 # Pass A: test the sample's lattice, gather extremes and hull corners
-
-
-class _Spec:
-    """Settings of a pass, as a plain object (dask walks through dataclasses and lists)."""
-
-    def __init__(self, **settings):
-        self.__dict__.update(settings)
-
-
-def _PassA(exact, generators, pairs, triples, ranges) -> _Spec:  # noqa: N802 - a record
-    return _Spec(exact=exact, generators=generators, pairs=pairs, triples=triples,
-                 ranges=ranges)
 
 
 def _vector(relation, names: list[str]):
@@ -210,7 +180,7 @@ def _masked_projection(values: np.ndarray, missing: np.ndarray, vectors: list) -
     return projected
 
 
-def _pass_a(frame, offset: int, spec: _Spec) -> dict:
+def _pass_a(frame, offset: int, spec: Settings) -> dict:
     values, missing = _exact_matrix(frame, spec.exact)
     used = ~missing.any(axis=1)
     positions = np.arange(offset, offset + len(frame), dtype=np.int64)
@@ -372,7 +342,7 @@ def _independent(vectors: list[list[int]], rank: int) -> list[int]:
     return chosen
 
 
-def _wanted_points(found: dict, spec: _Spec) -> dict:
+def _wanted_points(found: dict, spec: Settings) -> dict:
     """{columns tuple: set of value tuples} whose rows the second search needs."""
     from analysis.relations import hull_2d
 
@@ -391,7 +361,7 @@ def _wanted_points(found: dict, spec: _Spec) -> dict:
     return wanted
 
 
-def _locate(frame, offset: int, spec: _Spec, wanted: dict, positions: np.ndarray):
+def _locate(frame, offset: int, spec: Settings, wanted: dict, positions: np.ndarray):
     """Rows of one partition at the wanted points (first per point) and at ``positions``."""
     values, missing = _exact_matrix(frame, spec.exact)
     index = {n: j for j, n in enumerate(spec.exact)}
@@ -458,10 +428,9 @@ def _candidate_rows(sample, positions, located, names, table):
 # columns and the constant); bounds (integer coefs, columns, limit K of sum <= K, near limit);
 # approximate relations (names, float coefs, constant); tolerance; cap (breaking row ids kept
 # per list); listed (attaining row ids kept per bound).
-_PassB = _Spec
 
 
-def _pass_b(frame, offset: int, spec: _Spec, id_column):
+def _pass_b(frame, offset: int, spec: Settings, id_column):
     from analysis.relations import approximately_off
 
     values, missing = _exact_matrix(frame, spec.exact)
@@ -544,8 +513,7 @@ def _bound_spec(bound) -> tuple:
     return ints, [name for name, _ in bound.terms], limit, math.floor(margin * scale)
 
 
-def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _Spec):
-    from dask import delayed
+def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: Settings):
 
     from analysis import relations as rel
 
@@ -566,7 +534,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
         known.add(tuple(vector))
         candidates.append((relation, vector))
     approximate = list(second.approximate)
-    b_spec = _PassB(
+    b_spec = Settings(
         exact=exact, real=real,
         relations=[v for v in every_vectors if v is not None] + [v for _, v in candidates],
         bounds=[_bound_spec(b) for b in second.bounds],
@@ -574,11 +542,9 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
                       float(r.constant)) for r in approximate],
         tolerance=float(step.tolerance), cap=max(allowed, 0) + 1, listed=rel.MAX_LISTED_ROWS,
     )
-    parts = table.typed_partitions(exact + real)
-    offsets = table.offsets
     cap, listed = b_spec.cap, b_spec.listed
-    counts = ctx.compute(tree([delayed(_pass_b)(p, int(offsets[k]), b_spec, table.id_column)
-                               for k, p in enumerate(parts)],
+    counts = ctx.compute(tree(partition_tasks(ctx, _pass_b, exact + real, b_spec,
+                                              table.id_column),
                               lambda a, b: _merge_b(a, b, cap, listed)))
     notes = list(second.notes)
     checked = len([v for v in every_vectors if v is not None])
@@ -603,8 +569,7 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: _
         robust.append(dataclasses.replace(
             relation, holds_on=present - count, violations=tuple(ids.tolist()),
             note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial)))
-    ordered = ([r for r in settled_every if not r.trivial] + [r for r in robust if not r.trivial]
-               + [r for r in settled_every if r.trivial] + [r for r in robust if r.trivial])
+    ordered = rel.ordered_relations(settled_every, robust)
     bounds = []
     for bound, c in zip(second.bounds, counts["bounds"]):
         if c["broken"] > (allowed if bound.violations else 0):
@@ -657,7 +622,6 @@ def _congruences(ctx: Context, step, sample, settled) -> tuple:
     every row, and :func:`analysis.congruences.settle_congruences` keeps those the in-memory
     search would keep.
     """
-    from dask import delayed
 
     from analysis import congruences as cg
 
@@ -676,11 +640,8 @@ def _congruences(ctx: Context, step, sample, settled) -> tuple:
     specs = [([index[n] for n, _ in terms], [c for _, c in terms], m, r)
              for terms, m, r in candidates]
     listed = cg.MAX_LISTED_ROWS
-    parts = table.typed_partitions(integers)
-    offsets = table.offsets
-    counts = ctx.compute(tree([delayed(_count_congruences)(p, int(offsets[k]), integers, specs,
-                                                           table.id_column, listed)
-                               for k, p in enumerate(parts)],
+    counts = ctx.compute(tree(partition_tasks(ctx, _count_congruences, integers, integers,
+                                              specs, table.id_column, listed),
                               lambda a, b: _merge_congruences(a, b, listed)))
     counted = [dataclasses.replace(congruence, holds_on=present, violation_count=broken,
                                    violations=tuple(ids.tolist()), implied_moduli=())

@@ -1,14 +1,8 @@
-"""The separator step on Dask: the protocol on a sample, the equation settled on every row.
+"""The separator step on Dask: the protocol on a sample, equations settled on every row.
 
-The validation protocol (splits, metrics against the majority-class baseline, bootstrap
-interval, permutation test, learning curve) and the search for a readable equation run in
-memory, with the same code as the in-memory step, on a uniform random sample of rows drawn
-across all partitions. The equation the search finds is then settled on the whole table:
-its constant is chosen again from the exact scores of every row (counts per distinct score,
-summed over partitions), and each partition is checked row by row with the equation's own
-exact evaluation (:meth:`analysis.equations.LinearEquation.holds`), so the violations and
-violating rows are those of the whole table. A formula for a numeric target is settled the
-same way (its constant is the most common exact residual over all rows).
+The protocol and the search run in memory on a uniform sample; an equation's constant is
+chosen again from the exact scores of every row (counted per partition and merged) and its
+violations counted row by row; a formula's constant is the most common exact residual.
 """
 
 from __future__ import annotations
@@ -23,11 +17,14 @@ import numpy as np
 from analysis.distributed.common import Context, blocks_for, plan_for, tree
 from analysis.equations import (
     SCOPE_NOTES,
+    Term,
     cut_of_counts,
     gap_note,
     rounding_note,
     sample_wording,
+    score_counts,
     settled_constant,
+    term_scores,
 )
 from analysis.errors import StepError
 from analysis.notes import note_code
@@ -37,7 +34,7 @@ SAMPLE_ROWS = 100_000
 # Distinct scores counted across partitions when settling a constant; past this the
 # constant found on the sample is kept (and the violations still counted on every row).
 MAX_DISTINCT_SCORES = 5_000_000
-_INT64_SAFE = 2**62
+_SAFE = 2**62   # int64 arithmetic stays below this
 
 
 def run_separator(step, ctx: Context):
@@ -46,9 +43,7 @@ def run_separator(step, ctx: Context):
 
     started = time.perf_counter()
     table = ctx.table
-    if not step.target:
-        raise StepError(f"{table.name}: the separator needs a target column; name one with "
-                        "target (--target COL on the command line).")
+    step.check_table(table)
     if step.augment_permutations:
         raise StepError(f"{table.name}: augment_permutations needs matrix columns, which the "
                         "dask engine does not encode; set it to 0 or use --engine local.")
@@ -87,7 +82,7 @@ def run_separator(step, ctx: Context):
 
 
 # ----------------------------------------------------------------------------------------
-# Scores of an equation's left side, per partition
+# Scores counted per partition with the in-memory rules (equations.term_scores, score_counts)
 
 
 def _columns_of(block, names: list[str]) -> dict:
@@ -101,116 +96,88 @@ def _positive(block, positive_class) -> np.ndarray:
     return np.array([same_label(class_label(v), want) for v in block.target], dtype=bool)
 
 
-def exact_scores(terms, columns: dict, exact: bool):
-    """(scores, denominator): the left side times ``denominator``, exact integers when
-    ``exact`` (Python integers past int64), else floats with denominator 1."""
-    n = len(next(iter(columns.values()))) if columns else 0
-    if not exact:
-        total = np.zeros(n)
-        for term in terms:
-            value = np.ones(n)
-            for name in term.factor_names():
-                value = value * columns[name]
-            total += float(term.coef) * value
-        return total, 1
-    denominator = 1
-    for term in terms:
-        denominator = math.lcm(denominator, Fraction(term.coef).denominator)
-    ints = {name: np.rint(columns[name]).astype(np.int64) for t in terms
-            for name in t.factor_names()}
-    bound = 0
-    for term in terms:
-        size = abs(int(Fraction(term.coef) * denominator))
-        for name in term.factor_names():
-            size *= int(np.abs(ints[name]).max()) if n else 0
-        bound += size
-    big = bound >= _INT64_SAFE
-    total = np.zeros(n, dtype=object if big else np.int64)
-    for term in terms:
-        multiplier = int(Fraction(term.coef) * denominator)
-        value = np.full(n, multiplier, dtype=object if big else np.int64)
-        for name in term.factor_names():
-            value = value * (ints[name].astype(object) if big else ints[name])
-        total = total + value
-    return total, denominator
+def _counts(block, names, terms, exact, positive_class=None):
+    """(distinct scores, rows at each, positive rows at each, denominator or None for float
+    scores) of one partition: the left side of ``terms`` as the in-memory search scores it."""
+    columns = _columns_of(block, names)
+    if positive_class is None:   # a formula: ``terms`` include the target, whose values these are
+        columns[terms[0].feature] = np.asarray(block.target, dtype=float)
+    values, is_exact = term_scores(terms, columns)
+    scores, denominator = values if is_exact else (values, None)
+    if denominator is not None and not exact:
+        scores, denominator = np.asarray(scores, dtype=float) / denominator, None
+    positive = np.zeros(len(scores), dtype=bool) if positive_class is None \
+        else _positive(block, positive_class)
+    return (*score_counts(scores, positive), denominator)
 
 
-def _score_counts(block, names, terms, exact, positive_class):
-    """Distinct scores of one partition with the rows and positive rows at each."""
-    scores, _ = exact_scores(terms, _columns_of(block, names), exact)
-    positive = _positive(block, positive_class)
-    if scores.dtype == object:
-        scores = np.array(scores.tolist(), dtype=object)
-    values, inverse = np.unique(scores, return_inverse=True)
-    rows_at = np.bincount(inverse, minlength=len(values))
-    positives_at = np.bincount(inverse, weights=positive, minlength=len(values)).astype(np.int64)
-    return values, rows_at, positives_at
+def _on_denominator(values, denominator, common):
+    """Scores over ``denominator`` rewritten over ``common`` (None: as floats)."""
+    if common is None:
+        return values if denominator is None else np.asarray(values, dtype=float) / denominator
+    factor = common // denominator
+    if factor == 1:
+        return values
+    big = values.dtype == object or (len(values) and int(np.abs(values).max()) * factor >= _SAFE)
+    return values.astype(object) * factor if big else values * factor
 
 
 def _merge_counts(a, b):
     if a is None or b is None:
         return None
-    values = np.concatenate([a[0], b[0]])
+    common = None if a[3] is None or b[3] is None else math.lcm(a[3], b[3])
+    values = np.concatenate([_on_denominator(a[0], a[3], common),
+                             _on_denominator(b[0], b[3], common)])
     merged, inverse = np.unique(values, return_inverse=True)
     if len(merged) > MAX_DISTINCT_SCORES:
         return None
-    rows_at = np.bincount(inverse, weights=np.concatenate([a[1], b[1]]),
-                          minlength=len(merged)).astype(np.int64)
-    positives_at = np.bincount(inverse, weights=np.concatenate([a[2], b[2]]),
-                               minlength=len(merged)).astype(np.int64)
-    return merged, rows_at, positives_at
+    rows_at, positives_at = (np.bincount(inverse, weights=np.concatenate([a[k], b[k]]),
+                                         minlength=len(merged)).astype(np.int64) for k in (1, 2))
+    return merged, rows_at, positives_at, common
 
 
 def _wrong_rows(block, names, equation):
     """Ids of the rows of one partition where the equation's prediction is wrong."""
-    predicted = equation.holds(_columns_of(block, names))
-    positive = _positive(block, equation.positive_class)
-    wrong = predicted != positive
-    return block.row_ids[wrong], block.positions[wrong]
+    wrong = equation.holds(_columns_of(block, names)) != _positive(block, equation.positive_class)
+    return block.row_ids[wrong]
+
+
+def _lacks(ctx, plan, names, what) -> bool:
+    missing = sorted({n for n in names if n not in plan.names})
+    if missing:
+        ctx.notes.append(f"the {what} uses {', '.join(missing)}, not features of the whole "
+                         "table; it was checked on the sample only.")
+    return bool(missing)
 
 
 def settle_equation(ctx: Context, plan, blocks: list, equation):
     """The equation with its constant chosen on every row and its violations counted there."""
     from dask import delayed
 
-
     names = plan.names
-    missing = [n for t in equation.terms for n in t.factor_names() if n not in names]
-    if missing:
-        ctx.notes.append(f"the equation uses {', '.join(sorted(set(missing)))}, not features "
-                         "of the whole table; it was checked on the sample only.")
+    if _lacks(ctx, plan, [n for t in equation.terms for n in t.factor_names()], "equation"):
         return equation
-    exact_flags = dict(zip(names, plan.exact_columns))
-    exact = equation.exact and all(exact_flags[n] for t in equation.terms
-                                   for n in t.factor_names())
-    counts = ctx.compute(tree([delayed(_score_counts)(b, names, equation.terms, exact,
-                                                      equation.positive_class)
+    counts = ctx.compute(tree([delayed(_counts)(b, names, equation.terms, equation.exact,
+                                                equation.positive_class)
                                for b in blocks], _merge_counts))
-    settled = equation
-    gap = None
-    rounded = False
-    notes = list(equation.notes)
-    if counts is not None:
-        cut = cut_of_counts(*counts)
-        if cut is not None:
-            fewest, relation, low, high, _ = cut
-            denominator = exact_scores(equation.terms, {n: np.zeros(1) for n in names},
-                                       exact)[1]
-            # the in-memory search's own rule, rounding included
-            constant, rounded = settled_constant(counts, fewest, relation, low, high,
-                                                 denominator, exact)
-            gap = gap_note(Fraction(low) / denominator, Fraction(high) / denominator,
-                           relation, exact)
-            settled = dataclasses.replace(equation, relation=relation, constant=constant)
-            if (relation, constant) != (equation.relation, equation.constant):
-                notes.append(f"constant chosen again on all rows: the sample gave "
-                             f"{equation.relation} {equation.constant}")
-    else:
+    settled, gap, rounded, notes = equation, None, False, list(equation.notes)
+    cut = None if counts is None else cut_of_counts(*counts[:3])
+    if cut is not None:
+        fewest, relation, low, high, _ = cut
+        exact, denominator = counts[3] is not None, counts[3] or 1
+        # the in-memory search's own rule, rounding included
+        constant, rounded = settled_constant(counts[:3], fewest, relation, low, high,
+                                             denominator, exact)
+        gap = gap_note(Fraction(low) / denominator, Fraction(high) / denominator, relation,
+                       exact)
+        settled = dataclasses.replace(equation, relation=relation, constant=constant)
+        if (relation, constant) != (equation.relation, equation.constant):
+            notes.append(f"constant chosen again on all rows: the sample gave "
+                         f"{equation.relation} {equation.constant}")
+    elif counts is None:
         notes.append("too many distinct scores to choose the constant across partitions: "
                      "the constant found on the sample is kept")
-    pieces = ctx.compute([delayed(_wrong_rows)(b, names, settled) for b in blocks])
-    # (ids, positions) of the violating rows of each partition
-    ids = np.concatenate([p[0] for p in pieces]) if pieces else np.array([])
+    ids = np.concatenate(ctx.compute([delayed(_wrong_rows)(b, names, settled) for b in blocks]))
     kept = int(counts[1].sum()) if counts is not None else ctx.table.n_rows
     if rounded:
         gap = rounding_note(settled.constant, int(len(ids)), fewest)
@@ -229,44 +196,23 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
 # Formulas for a numeric target
 
 
-def _residual_counts(block, names, formula, exact):
+def _residual_terms(formula) -> tuple:
+    """target - sum(coef * feature) as terms, so that residuals are scored like equations."""
+    return (Term(formula.target, Fraction(1)),
+            *(Term(t.feature, -Fraction(t.coef), t.factors) for t in formula.terms))
+
+
+def _off_rows(block, names, terms, exact, mode, common, constant):
     columns = _columns_of(block, names)
-    scores, denominator = exact_scores(formula.terms, columns, exact)
-    if exact:
-        target = np.rint(block.target).astype(np.int64)
-        residual = target * denominator - scores if scores.dtype != object else \
-            np.array([int(t) * denominator - int(s) for t, s in zip(target, scores)], dtype=object)
-        values, counts = np.unique(residual, return_counts=True)
-        return values, counts
-    residual = block.target - scores - float(formula.constant)
-    tolerance = 1e-9 * np.maximum(1.0, np.abs(block.target))
-    off = np.abs(residual) > tolerance
-    return int(off.sum()), float(np.abs(residual).max(initial=0.0))
-
-
-def _merge_residuals(a, b):
-    if isinstance(a[0], int):
-        return a[0] + b[0], max(a[1], b[1])
-    values = np.concatenate([a[0], b[0]])
-    merged, inverse = np.unique(values, return_inverse=True)
-    counts = np.bincount(inverse, weights=np.concatenate([a[1], b[1]]),
-                         minlength=len(merged)).astype(np.int64)
-    return merged, counts
-
-
-def _off_rows(block, names, formula, exact, mode, denominator):
-    columns = _columns_of(block, names)
-    scores, _ = exact_scores(formula.terms, columns, exact)
-    if exact:
-        target = np.rint(block.target).astype(np.int64)
-        residual = np.array([int(t) * denominator - int(s) for t, s in zip(target, scores)],
-                            dtype=object) if scores.dtype == object else \
-            target * denominator - scores
-        off = np.asarray(residual != mode, dtype=bool)
-    else:
-        residual = block.target - scores - float(formula.constant)
-        off = np.abs(residual) > 1e-9 * np.maximum(1.0, np.abs(block.target))
-    return block.row_ids[off]
+    columns[terms[0].feature] = np.asarray(block.target, dtype=float)
+    values, is_exact = term_scores(terms, columns)
+    if exact and is_exact and common is not None:
+        off = np.asarray(_on_denominator(values[0], values[1], common) != mode, dtype=bool)
+        return block.row_ids[off], 0.0
+    residual = (np.asarray(values[0], dtype=float) / values[1] if is_exact else values) \
+        - float(constant)
+    off = np.abs(residual) > 1e-9 * np.maximum(1.0, np.abs(block.target))
+    return block.row_ids[off], float(np.abs(residual).max(initial=0.0))
 
 
 def settle_formula(ctx: Context, plan, blocks: list, formula):
@@ -274,33 +220,28 @@ def settle_formula(ctx: Context, plan, blocks: list, formula):
     from dask import delayed
 
     names = plan.names
-    if any(t.feature not in names for t in formula.terms):
-        ctx.notes.append("the formula uses features the whole table does not have; it was "
-                         "checked on the sample only.")
+    if _lacks(ctx, plan, [t.feature for t in formula.terms], "formula"):
         return formula
-    exact_flags = dict(zip(names, plan.exact_columns))
-    info = ctx.table.column(formula.target)
-    exact = formula.exact and info.dtype == "integer" and all(
-        exact_flags[t.feature] for t in formula.terms)
-    merged = ctx.compute(tree([delayed(_residual_counts)(b, names, formula, exact)
-                               for b in blocks], _merge_residuals))
-    denominator = exact_scores(formula.terms, {n: np.zeros(1) for n in names}, exact)[1]
-    if exact:
-        values, counts = merged
+    exact = formula.exact and ctx.table.column(formula.target).dtype == "integer"
+    terms = _residual_terms(formula)
+    merged = ctx.compute(tree([delayed(_counts)(b, names, terms, exact) for b in blocks],
+                              _merge_counts))
+    constant, mode, common = formula.constant, None, None
+    max_residual, kept = formula.max_residual, ctx.table.n_rows
+    if exact and merged is not None and merged[3] is not None:
+        values, counts, _, common = merged
         mode = values[int(np.argmax(counts))]
         mode = mode.item() if hasattr(mode, "item") else mode
-        constant = Fraction(int(mode), denominator)
-        kept = int(counts.sum())
+        constant, kept = Fraction(int(mode), common), int(counts.sum())
         largest = max(abs(int(values[0]) - mode), abs(int(values[-1]) - mode))
-        max_residual = float(Fraction(largest, denominator))
+        max_residual = float(Fraction(largest, common))
     else:
-        constant, mode = formula.constant, None
-        kept = None
-        max_residual = merged[1]
-    ids = np.concatenate(ctx.compute([delayed(_off_rows)(b, names, formula, exact, mode,
-                                                         denominator) for b in blocks]))
-    if kept is None:
-        kept = ctx.table.n_rows
+        exact = False
+    pieces = ctx.compute([delayed(_off_rows)(b, names, terms, exact, mode, common, constant)
+                          for b in blocks])
+    ids = np.concatenate([p[0] for p in pieces])
+    if not exact:
+        max_residual = max(p[1] for p in pieces)
     notes = [n for n in formula.notes if note_code(n) not in SCOPE_NOTES]
     notes.insert(0, f"fitted on a sample; constant and rows off taken over all {kept} rows "
                     "across partitions" if exact else

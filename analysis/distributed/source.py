@@ -29,6 +29,7 @@ from analysis.column_facts import (
     MISSING_WORDS,
     array_text_facts,
     bucketed_uniques,
+    column_named,
     distinct_of,
     frame_facts,
     marked_column,
@@ -94,11 +95,7 @@ class PartitionedTable:
         return np.concatenate([[0], np.cumsum(self.partition_rows)[:-1]]).astype(np.int64)
 
     def column(self, name: str) -> ColumnInfo:
-        for info in self.columns:
-            if info.name == name:
-                return info
-        known = ", ".join(repr(c.name) for c in self.columns[:30])
-        raise TableError(f"{self.name}: no column named {name!r}. Columns are: {known}.")
+        return column_named(self.name, self.columns, name)
 
     def role(self, name: str) -> str:
         return self.column(name).role
