@@ -392,7 +392,7 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
             column=column))
     if note == INFINITE_NOTE:
         out.append(Note(
-            "infinite_values",
+            "infinite_cells",
             f"{name}: column {column!r} holds infinite values (inf or -inf); the table keeps "
             "them, and features read them as missing values, so steps leave those rows out "
             "or impute them.", column=column))

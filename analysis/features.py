@@ -217,8 +217,7 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     if bad.any() or target_missing.any():
         inf_count = int(np.isinf(values).any(axis=1).sum())
         if inf_count:
-            notes.append(Note("infinite_values", f"{inf_count} rows have an infinite feature "
-                              "value; treated as missing.", rows=inf_count))
+            notes.append(infinite_note(inf_count))
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
             hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
@@ -376,6 +375,12 @@ def fill_value(kind: str, values: np.ndarray, counts: np.ndarray) -> float:
     low = values[int(np.searchsorted(cumulative, (total - 1) // 2 + 1))]
     high = values[int(np.searchsorted(cumulative, total // 2 + 1))]
     return float((low + high) / 2)
+
+
+def infinite_note(rows: int) -> Note:
+    """The note for ``rows`` rows with an infinite feature value (both engines word it here)."""
+    return Note("infinite_values", f"{rows} rows have an infinite feature value; treated as "
+                "missing.", rows=rows)
 
 
 def filled_note(filled: int, no_target: int) -> Note:

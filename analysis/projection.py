@@ -91,6 +91,10 @@ def standardized(values: np.ndarray) -> np.ndarray:
     return out
 
 
+# PCA of a single feature (both engines say it with this record)
+ONE_COMPONENT_NOTE = Note("one_component", "one feature gives one principal component; y is 0.")
+
+
 def scaling_note(standardize: bool) -> Note:
     """The note of whether a step's features were standardized (see :func:`prepared`)."""
     return Note("features_scaled", "features standardized to mean 0 and standard deviation 1."
@@ -294,8 +298,7 @@ class ProjectionStep:
         if self.method == "pca":
             coordinates, extra = stoppable_call(reporter, _pca, work, fm.names)
             if len(extra["explained_variance_ratio"]) < 2:
-                notes.append(Note("one_component",
-                                  "one feature gives one principal component; y is 0."))
+                notes.append(ONE_COMPONENT_NOTE)
         elif self.method == "lda":
             labels = target_values(table, self.target, fm.rows)
             coordinates, extra = stoppable_call(reporter, _lda, work, labels, fm.names,

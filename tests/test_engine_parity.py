@@ -36,6 +36,7 @@ from analysis.distributed import (  # noqa: E402
     sample_table,
 )
 from analysis.errors import StepError  # noqa: E402
+from analysis.notes import note_code  # noqa: E402
 from analysis.steps import make_step  # noqa: E402
 from analysis.table import load_table  # noqa: E402
 
@@ -357,6 +358,10 @@ def test_every_step_kind_gives_the_same_exact_figures(client, atlas, kind, param
     result = run_distributed(step, folder, client=client)
     assert figures(result) == figures(expected)
     _check_reference(kind, params, result, frame)
+    # notes and warnings are records on both engines: code that tells them apart reads codes
+    said = (*result.notes, *getattr(result, "warnings", ()))
+    plain = [str(n) for n in said if note_code(n) is None]
+    assert plain == [], plain
 
 
 def _check_reference(kind: str, params: dict, result, frame: pd.DataFrame) -> None:

@@ -844,11 +844,11 @@ def test_infinite_cells_are_named_in_a_warning():
     # "inf" and "-inf" are the spellings Python's float() reads as infinities (the Python
     # documentation of float); a real column holding them warns once, naming the column
     table = read_table(b"k,exponent,order\n1,2,4\n2,inf,8\n3,-inf,16\n4,8,32\n", "g.csv")
-    infinite = [w for w in table.warnings if getattr(w, "code", None) == "infinite_values"]
+    infinite = [w for w in table.warnings if getattr(w, "code", None) == "infinite_cells"]
     assert len(infinite) == 1 and "'exponent'" in infinite[0]
     assert [c.note for c in table.columns if c.name == "exponent"] == ["has infinite values"]
     finite = read_table(b"k,exponent\n1,2\n2,1e3\n", "g.csv")
-    assert not [w for w in finite.warnings if getattr(w, "code", None) == "infinite_values"]
+    assert not [w for w in finite.warnings if getattr(w, "code", None) == "infinite_cells"]
 
 
 def _nilpotency_table(words: int, numbers: int):

@@ -19,6 +19,7 @@ from analysis.distributed.common import (
     standardizing,
 )
 from analysis.errors import StepError
+from analysis.notes import Note
 
 # Rows of the sample that starting centres and sample-fitted methods use.
 SAMPLE_ROWS = 100_000
@@ -182,9 +183,9 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
     from analysis import clustering as cl
 
     if method == "kmeans":
-        notes.append("k-means by exact Lloyd iterations over every row of every partition, "
-                     f"started from k-means++ centres fitted on a random sample of "
-                     f"{min(n, SAMPLE_ROWS)} rows.")
+        notes.append(Note("dask_lloyd", "k-means by exact Lloyd iterations over every row of "
+                          "every partition, started from k-means++ centres fitted on a random "
+                          f"sample of {min(n, SAMPLE_ROWS)} rows.", sample=min(n, SAMPLE_ROWS)))
         for k in ks:
             _, centres = cl.kmeans_labels(sample, k, step.seed)
             yield k, _Lloyd(centres), None

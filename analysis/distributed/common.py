@@ -8,6 +8,7 @@ import numpy as np
 
 from analysis.distributed.matrix import FeaturePlan, feature_blocks, feature_plan
 from analysis.distributed.reduction import tree
+from analysis.notes import Note
 
 # Distinct values a column's median is computed from exactly; past this, from a sample.
 MEDIAN_CAP = 100_000
@@ -43,14 +44,16 @@ class Context:
         object, such as a fitted model, is not copied into every task of a graph."""
         return self.client.scatter(value, broadcast=True, hash=False)
 
-    def engine_note(self) -> str:
+    def engine_note(self) -> Note:
         try:
             workers = len(self.client.scheduler_info(n_workers=-1)["workers"])
         except TypeError:
             workers = len(self.client.scheduler_info()["workers"])
-        return (f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
-                f"{self.client.scheduler.address}) over {self.table.npartitions} partition"
-                f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.")
+        return Note("dask_engine",
+                    f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
+                    f"{self.client.scheduler.address}) over {self.table.npartitions} partition"
+                    f"{'s' if self.table.npartitions != 1 else ''} of {self.table.n_rows} rows.",
+                    workers=workers, partitions=self.table.npartitions, rows=self.table.n_rows)
 
 
 class Settings:
@@ -183,9 +186,11 @@ def _fills(ctx: Context, plan: FeaturePlan) -> dict:
         fm = build_features(sample, columns=list(plan.columns), missing="drop")
         for name in approximate:
             fills[name] = float(np.median(fm.values[:, fm.names.index(name)]))
-        ctx.notes.append(f"missing values of {', '.join(approximate)} filled with the median "
-                         f"of a random sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct "
-                         "values for an exact median across partitions).")
+        ctx.notes.append(Note("dask_sampled_median", "missing values of "
+                              f"{', '.join(approximate)} filled with the median of a random "
+                              f"sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct values "
+                              "for an exact median across partitions).",
+                              columns=tuple(approximate), sample=MEDIAN_SAMPLE_ROWS))
     return fills
 
 

@@ -19,12 +19,14 @@ from analysis.features import (
     chosen_feature_columns,
     dropped_rows_text,
     filled_note,
+    infinite_note,
     left_out_warning,
     mostly_empty_columns,
     one_hot,
     signed_log,
     too_many_levels,
 )
+from analysis.notes import Note
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
@@ -88,9 +90,10 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
                      or table.column(n).dtype in ("array", "big integer", "rational")]
         if unencoded and len(unencoded) < len(columns):
             columns = [n for n in columns if n not in unencoded]
-            notes.append("left out of the features on the dask engine, which does not encode "
-                         f"arrays, big integers or rationals yet: {', '.join(unencoded)}; the "
-                         "in-memory engine uses them.")
+            notes.append(Note("dask_unencoded", "left out of the features on the dask engine, "
+                              "which does not encode arrays, big integers or rationals yet: "
+                              f"{', '.join(unencoded)}; the in-memory engine uses them.",
+                              columns=tuple(unencoded)))
     features, levels = [], {}
     for name in columns:
         features.extend(_column_features(table, name, log_scale, levels))
@@ -208,8 +211,7 @@ def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
     :func:`feature_warnings`)."""
     notes = list(plan.notes)
     if counts["infinite"]:
-        notes.append(f"{counts['infinite']} rows have an infinite feature value; treated as "
-                     "missing.")
+        notes.append(infinite_note(counts["infinite"]))
     if counts["dropped_features"] or counts["dropped_target"] or counts["filled"]:
         if plan.missing == "drop":
             text, serious = _dropped(counts, n_rows)

@@ -21,6 +21,7 @@ from analysis.distributed.common import (
     standardizing,
 )
 from analysis.errors import StepError
+from analysis.notes import Note
 
 # Rows the isolation forest and the separator are fitted on.
 SAMPLE_ROWS = 100_000
@@ -56,8 +57,10 @@ def run_outliers(step, ctx: Context):
         forest = IsolationForest(n_estimators=200, random_state=step.seed).fit(
             gather_rows(*at, fit_rows, shift, scale))
         if len(fit_rows) < n:
-            notes.append(f"isolation forest fitted on a random sample of {len(fit_rows)} of "
-                         f"the {n} rows; every row scored across partitions.")
+            notes.append(Note(
+                "dask_forest_sample",
+                f"isolation forest fitted on a random sample of {len(fit_rows)} of "
+                f"the {n} rows; every row scored across partitions."))
         neighbours = min(step.n_neighbors, n - 1)
         factor = LocalOutlierFactor(n_neighbors=neighbours,
                                     novelty=len(lof_rows) < n).fit(lof_sample)
@@ -102,7 +105,9 @@ def _clusters(step, ctx, plan, blocks, notes):
                                 standardize=step.standardize, seed=step.seed)
     found = cluster_blocks(clustering, ctx, plan, blocks)
     notes.extend(n for n in found.result.notes if n not in notes)
-    notes.append(f"distance from centre uses k-means clusters: {found.result.reason}")
+    notes.append(Note(
+        "centre_clusters",
+        f"distance from centre uses k-means clusters: {found.result.reason}"))
     return found
 
 
@@ -130,9 +135,11 @@ def _separator_model(step, ctx, at, fit_rows, width: int, notes):
         model, folds = ol.number_model(), ol.number_folds(len(truth), step.seed)
         inside = cross_val_predict(model, values, truth, cv=folds)
         model.fit(values, truth)
-        notes.append(f"separator: {step.target!r} predicted by a {folds.n_splits}-fold "
-                     f"cross-validated ridge regression on a sample of {len(fit_rows)} rows; "
-                     "the other rows by the fit on the whole sample.")
+        notes.append(Note(
+            "dask_separator_sample",
+            f"separator: {step.target!r} predicted by a {folds.n_splits}-fold "
+            f"cross-validated ridge regression on a sample of {len(fit_rows)} rows; "
+            "the other rows by the fit on the whole sample."))
         return {"model": model, "inside": inside, "rows": fit_rows, "classes": None,
                 "spread": float(np.std(truth - inside)) or 1.0}
     labels = np.array([ol.label_text(v) for v in targets], dtype=object)
@@ -140,10 +147,12 @@ def _separator_model(step, ctx, at, fit_rows, width: int, notes):
     model = ol.label_model()
     inside = cross_val_predict(model, values, labels, cv=folds, method="predict_proba")
     model.fit(values, labels)
-    notes.append(f"separator: {step.target!r} predicted by a {splits}-fold cross-validated "
-                 f"logistic regression on a sample of {len(fit_rows)} rows, the other rows by "
-                 "the fit on the whole sample; a row scores 1 minus the probability given to "
-                 "its own class.")
+    notes.append(Note(
+        "dask_separator_sample",
+        f"separator: {step.target!r} predicted by a {splits}-fold cross-validated "
+        f"logistic regression on a sample of {len(fit_rows)} rows, the other rows by "
+        "the fit on the whole sample; a row scores 1 minus the probability given to "
+        "its own class."))
     return {"model": model, "inside": inside, "rows": fit_rows, "classes": classes}
 
 
@@ -228,8 +237,10 @@ def _measures(ol, step, got: dict, clustering, neighbours: int, notes, flag: boo
         doubts = _separator_measure(ol, step, got, notes, flag)
         if doubts is not None:
             used["separator"] = doubts
-    notes.append("typical distances from cluster centres are medians over the rows of the "
-                 "local outlier factor's sample.")
+    notes.append(Note(
+        "dask_typical_distances",
+        "typical distances from cluster centres are medians over the rows of the "
+        "local outlier factor's sample."))
     return used
 
 
@@ -265,7 +276,7 @@ def _relations(ctx, step, row_ids, notes):
         result = run_relations(RelationsStep(columns=columns, robust=True, seed=step.seed),
                                Context(table=ctx.table, client=ctx.client), leave_out=True)
     except StepError as exc:
-        notes.append(f"relations not checked: {exc}")
+        notes.append(Note("relations_unchecked", f"relations not checked: {exc}"))
         return None
     return relations_measure(result, row_ids)
 

@@ -6,6 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from analysis.distributed.common import Context, tree
+from analysis.notes import Note
 from analysis.overview import CORRELATION_ROWS as IN_MEMORY_CORRELATION_ROWS
 from analysis.overview import ColumnSummary, OverviewResult, strong_pairs
 
@@ -16,8 +17,10 @@ def run_overview(step, ctx: Context) -> OverviewResult:
     summaries = tuple(_summarize(table, info) for info in table.columns)
     correlations = _correlations(ctx, step.top_correlations)
     if table.n_rows > IN_MEMORY_CORRELATION_ROWS and correlations is not None:
-        ctx.notes.append("correlations computed exactly over all rows (the in-memory engine "
-                         f"uses a sample of {IN_MEMORY_CORRELATION_ROWS} rows here).")
+        ctx.notes.append(Note("dask_correlations_exact", "correlations computed exactly over "
+                              "all rows (the in-memory engine uses a sample of "
+                              f"{IN_MEMORY_CORRELATION_ROWS} rows here).",
+                              sample=IN_MEMORY_CORRELATION_ROWS))
     return OverviewResult(
         table=table.name, digest=table.digest, rows=table.n_rows, columns=summaries,
         warnings=table.warnings, id_column=table.id_column, correlations=correlations or (),

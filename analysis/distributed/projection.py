@@ -9,6 +9,7 @@ import time
 import numpy as np
 
 from analysis.distributed.common import Context, blocks_for, feature_moments, plan_for, spread_scale
+from analysis.notes import Note
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
 LDA_SAMPLE_ROWS = 200_000
@@ -19,6 +20,7 @@ def run_projection(step, ctx: Context):
     from analysis.distributed.matrix import feature_notes, feature_warnings
     from analysis.projection import (
         METHOD_TITLES,
+        ONE_COMPONENT_NOTE,
         SAMPLE_THRESHOLDS,
         ProjectionResult,
         check_rows,
@@ -40,7 +42,7 @@ def run_projection(step, ctx: Context):
     ratio, components, scale = pca_from_moments(n, mean, m2, standardize=step.standardize)
     notes.append(scaling_note(step.standardize))
     if len(ratio) < 2:
-        notes.append("one feature gives one principal component; y is 0.")
+        notes.append(ONE_COMPONENT_NOTE)
     axes = components[:2]
     if len(axes) < 2:
         axes = np.vstack([axes, np.zeros((1, axes.shape[1]))])
@@ -52,8 +54,9 @@ def run_projection(step, ctx: Context):
     second = components[1] if len(components) > 1 else np.zeros(len(names))
     loadings = {name: (float(components[0, j]), float(second[j]))
                 for j, name in enumerate(names)}
-    ctx.notes.append("PCA computed exactly from the covariance matrix summed over all "
-                     "partitions; coordinates computed partition by partition.")
+    ctx.notes.append(Note("dask_pca_exact", "PCA computed exactly from the covariance matrix "
+                          "summed over all partitions; coordinates computed partition by "
+                          "partition."))
     return ProjectionResult(
         method="pca", row_ids=row_ids, positions=positions,
         x=np.asarray(coordinates[:, 0], dtype=float), y=np.asarray(coordinates[:, 1], dtype=float),
@@ -106,8 +109,10 @@ def _on_sample(step, ctx: Context, thresholds: dict, titles: dict):
     title = titles[step.method]
     sampled = len(positions) < n
     if sampled:
-        ctx.notes.append(f"{title} ran in memory on a uniform random sample of {len(positions)} "
-                         f"of the {n} rows (seed {step.seed}) drawn across all partitions.")
+        ctx.notes.append(Note("dask_sample", f"{title} ran in memory on a uniform random sample "
+                              f"of {len(positions)} of the {n} rows (seed {step.seed}) drawn "
+                              "across all partitions.", sample=len(positions), rows=n,
+                              seed=step.seed))
     # positions in the sample table -> positions in the whole table
     return dataclasses.replace(result, positions=positions[result.positions],
                                sampled=result.sampled or sampled,

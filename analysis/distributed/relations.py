@@ -20,6 +20,7 @@ import numpy as np
 
 from analysis.distributed.common import Context, Settings, partition_tasks, tree
 from analysis.errors import StepError
+from analysis.notes import Note
 
 SAMPLE_ROWS = 20_000
 # Distinct points of a triple counted exactly (past this, the triple counts as crowded).
@@ -56,9 +57,11 @@ def run_relations(step, ctx: Context, *, leave_out: bool = False):
             raise StepError(f"relations: the numeric columns of table '{table.name}' hold big "
                             "integers or rationals, which the dask engine does not search; use "
                             "--engine local.")
-        ctx.notes.append("left out on the dask engine, which does not search big integers or "
-                         f"rationals: {', '.join(unsearched)}; the in-memory engine searches "
-                         "them.")
+        ctx.notes.append(Note(
+            "dask_unsearched",
+            "left out on the dask engine, which does not search big integers or "
+            f"rationals: {', '.join(unsearched)}; the in-memory engine searches "
+            "them."))
         step = dataclasses.replace(step, columns=names)
     exact = [n for n in names if table.column(n).dtype in ("integer", "boolean")]
     real = [n for n in names if table.column(n).dtype == "real"]
@@ -81,11 +84,11 @@ def run_relations(step, ctx: Context, *, leave_out: bool = False):
     # the rows searched rank bounds by their own counts: keep them all, rank them again
     # by the counts on every row, then cut as the in-memory step does
     second = step.run(candidates, max_bounds=None)
-    ctx.notes.append(
+    ctx.notes.append(Note("dask_relations_sample",
         f"relations and bounds searched on {len(all_positions)} rows: a uniform random sample "
         f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
         f"sample, and the rows at the corners of every hull; then checked on all "
-        f"{table.n_rows} rows across {table.npartitions} partitions.")
+        f"{table.n_rows} rows across {table.npartitions} partitions."))
     settled = _settle(ctx, step, first, second, exact, real, found, spec)
     return dataclasses.replace(settled, congruences=_congruences(ctx, step, sample, settled))
 
@@ -552,8 +555,10 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: S
     broken = [r.text for r, (count, _, _) in zip(every, every_counts) if count]
     if broken:
         # cannot happen when the breaking rows were gathered; say so rather than hide it
-        notes.append("relations of the rows searched that other rows break, left out: "
-                     + "; ".join(broken))
+        notes.append(Note(
+            "dask_relations_broken",
+            "relations of the rows searched that other rows break, left out: "
+            + "; ".join(broken)))
     settled_every = [dataclasses.replace(r, holds_on=present)
                      for r, (count, _, present) in zip(every, every_counts) if not count]
     tracker = rel.RankTracker()
@@ -590,8 +595,10 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: S
             relation, holds_on=present - off, violations=tuple(ids.tolist()),
             note=rel.approximate_note(off)))
     if step.robust:
-        ctx.notes.append("relations and bounds broken by a few rows are proposed from the rows "
-                         "searched (not from every row) and kept when every row's count allows.")
+        ctx.notes.append(Note(
+            "dask_robust_proposed",
+            "relations and bounds broken by a few rows are proposed from the rows "
+            "searched (not from every row) and kept when every row's count allows."))
     return dataclasses.replace(second, relations=tuple(ordered), bounds=tuple(bounds),
                                approximate=tuple(settled_approximate), notes=tuple(notes),
                                n_rows=table.n_rows)
@@ -649,11 +656,11 @@ def _congruences(ctx: Context, step, sample, settled) -> tuple:
     laws = [r for r in settled.relations if not r.violations]
     constants = [n for n in integers if table.column(n).distinct == 1]
     if len(sample.row_ids) < table.n_rows:
-        ctx.notes.append(
+        ctx.notes.append(Note("dask_congruences_sample",
             f"congruences proposed on a uniform random sample of {len(sample.row_ids)} rows "
             f"and counted on all {table.n_rows} rows; one that the sample shows with too few "
             "different values, or breaks more often than the whole table does, is not "
-            "proposed.")
+            "proposed."))
     return tuple(cg.settle_congruences(counted, relations=laws, constants=constants))
 
 

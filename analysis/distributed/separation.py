@@ -27,7 +27,7 @@ from analysis.equations import (
     term_scores,
 )
 from analysis.errors import StepError
-from analysis.notes import note_code
+from analysis.notes import Note, note_code
 
 # Rows of the sample the protocol runs on (uniform across partitions).
 SAMPLE_ROWS = 100_000
@@ -56,11 +56,11 @@ def run_separator(step, ctx: Context):
     sample, positions = sample_table(table, ctx.client, size, seed=step.seed)
     result = step.run(sample)
     if len(positions) < table.n_rows:
-        ctx.notes.append(
+        ctx.notes.append(Note("dask_protocol_sample",
             f"the validation protocol (splits, metrics, interval, permutation test, learning "
             f"curve) ran on a uniform random sample of {len(positions)} of the {table.n_rows} "
             f"rows (seed {step.seed}), drawn across all {table.npartitions} partitions; the "
-            "test rows are rows of that sample.")
+            "test rows are rows of that sample."))
     blocks = blocks_for(ctx, plan)
     changes: dict = {}
     if result.equation is not None:
@@ -71,12 +71,16 @@ def run_separator(step, ctx: Context):
     if result.formula is not None:
         changes["formula"] = settle_formula(ctx, plan, blocks, result.formula)
     if result.surrogate is not None:
-        ctx.notes.append("the quadratic surrogate of the kernel machine was fitted and checked "
-                         "on the sample only.")
+        ctx.notes.append(Note(
+            "dask_surrogate_sample",
+            "the quadratic surrogate of the kernel machine was fitted and checked "
+            "on the sample only."))
     if result.decision is not None:
         decision = result.decision
         changes["decision"] = dataclasses.replace(decision, rows=positions[decision.rows])
-        ctx.notes.append("decision scores (for figures) are those of the sample rows.")
+        ctx.notes.append(Note(
+            "dask_sample_scores",
+            "decision scores (for figures) are those of the sample rows."))
     return dataclasses.replace(result, **changes,
                                elapsed_seconds=time.perf_counter() - started)
 
@@ -145,8 +149,10 @@ def _wrong_rows(block, names, equation):
 def _lacks(ctx, plan, names, what) -> bool:
     missing = sorted({n for n in names if n not in plan.names})
     if missing:
-        ctx.notes.append(f"the {what} uses {', '.join(missing)}, not features of the whole "
-                         "table; it was checked on the sample only.")
+        ctx.notes.append(Note(
+            "dask_checked_on_sample",
+            f"the {what} uses {', '.join(missing)}, not features of the whole "
+            "table; it was checked on the sample only."))
     return bool(missing)
 
 
@@ -172,11 +178,15 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
                        exact)
         settled = dataclasses.replace(equation, relation=relation, constant=constant)
         if (relation, constant) != (equation.relation, equation.constant):
-            notes.append(f"constant chosen again on all rows: the sample gave "
-                         f"{equation.relation} {equation.constant}")
+            notes.append(Note(
+                "dask_constant_again",
+                f"constant chosen again on all rows: the sample gave "
+                f"{equation.relation} {equation.constant}"))
     elif counts is None:
-        notes.append("too many distinct scores to choose the constant across partitions: "
-                     "the constant found on the sample is kept")
+        notes.append(Note(
+            "dask_constant_kept",
+            "too many distinct scores to choose the constant across partitions: "
+            "the constant found on the sample is kept"))
     ids = np.concatenate(ctx.compute([delayed(_wrong_rows)(b, names, settled) for b in blocks]))
     kept = int(counts[1].sum()) if counts is not None else ctx.table.n_rows
     if rounded:

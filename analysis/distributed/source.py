@@ -41,6 +41,7 @@ from analysis.column_facts import (
 )
 from analysis.distributed.reduction import tree
 from analysis.errors import StepError, TableError
+from analysis.notes import Note
 from analysis.table import (
     ColumnInfo,
     Table,
@@ -198,7 +199,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     frame, header = _drop_unnamed(client, frame, facts, unnamed, name, warnings)
     mixed = [c for c in mixed if c in header]
     if n == 1:
-        warnings.append(f"{name}: only one row; most steps need many more.")
+        warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # numbers in some partitions and text in others: the column is text, as in memory
     _facts_again(client, frame, facts, mixed, "text", name)
     # columns the user asks to be text or a category are read as text, cells as given, as
@@ -281,9 +282,9 @@ def _digest(files: list[Path], root: Path, warnings: list[str]) -> str:
                 handle.seek(max(0, size - (1 << 20)))
                 digest.update(handle.read())
     if not whole:
-        warnings.append(f"{root.name}: {total / 1024**3:.1f} GB; its digest is a fingerprint "
-                        "of the file names, sizes and first and last megabyte of each file, "
-                        "not of every byte.")
+        warnings.append(Note("digest_fingerprint", f"{root.name}: {total / 1024**3:.1f} GB; its "
+                             "digest is a fingerprint of the file names, sizes and first and "
+                             "last megabyte of each file, not of every byte.", bytes=total))
     return digest.hexdigest()
 
 
