@@ -428,7 +428,10 @@ def prepare(case: str, side: str, paths: dict):
                     def __call__(self, labels):
                         return None
 
-                clustering._Silhouette = NoSilhouette
+                for name in ("Silhouette", "_profiles"):
+                    if not hasattr(clustering, name):   # a renamed part would go unmeasured
+                        raise RuntimeError(f"analysis.clustering has no {name} to switch off")
+                clustering.Silhouette = NoSilhouette
                 clustering._profiles = lambda table, fm, labels: ()
 
             def ours():
