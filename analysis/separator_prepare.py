@@ -184,14 +184,13 @@ def target_follows(run: PreparedRun):
     if len(rows) > LEAKAGE_SAMPLE_ROWS:
         rows = np.sort(np.random.default_rng([step.seed, 47]).choice(
             rows, LEAKAGE_SAMPLE_ROWS, replace=False))
-    exact = {name: table.exact(name) for name in candidates + [step.target]}
-    pick = {name: [values[i] for i in rows] for name, values in exact.items()}
+    pick = {name: _exact_values(table, name, rows) for name in candidates + [step.target]}
     found = find_relation(step.target, pick.pop(step.target), pick)
     if found is None:
         return None
     if len(rows) < len(fm.rows):
         statement = Statement(terms=found.terms, relation="=", constant=found.constant)
-        every = {name: [exact[name][i] for i in fm.rows] for name, _ in found.terms}
+        every = {name: [table.exact(name)[i] for i in fm.rows] for name, _ in found.terms}
         if any(statement.breaks(every)):
             return None
         found = dataclasses.replace(found, holds_on=len(fm.rows))
@@ -201,3 +200,25 @@ def target_follows(run: PreparedRun):
         f"Leave out {', '.join(map(repr, found.columns))} (choose the feature columns) to "
         "ask whether the other invariants predict it."))
     return found
+
+
+# Whole numbers below this in size are summed in int64 by the relations core without overflow;
+# a column past it is handed over as exact Python values, which the core reads as it must.
+_INT64_SUMS = 2**62
+
+
+def _exact_values(table: Table, name: str, rows: np.ndarray):
+    """The exact values of column ``name`` at positions ``rows``: an int64 array when the
+    column is stored as machine integers or flags with no missing cell and every value is
+    small enough for the relations core's int64 sums (the same numbers it makes of the
+    Python values, without a Python object per cell), else ``table.exact``'s values."""
+    info = table.column(name)
+    values = table.frame[name].to_numpy()
+    kind = values.dtype.kind
+    if (info.dtype == "integer" and kind in "iu") or (info.dtype == "boolean" and kind == "b"):
+        picked = values[rows]
+        if kind == "b" or not len(picked) or (
+                -_INT64_SUMS < int(picked.min()) and int(picked.max()) < _INT64_SUMS):
+            return picked.astype(np.int64)
+    exact = table.exact(name)
+    return [exact[i] for i in rows]

@@ -456,12 +456,25 @@ def prepare(case: str, side: str, paths: dict):
         return bare
     if case in ("separator_fit", "separate", "kernel_fit", "kernel_separate"):
         import scipy.optimize  # noqa: F401 - the exact equation search's linear programs
+        import sklearn.compose  # noqa: F401
+        import sklearn.discriminant_analysis  # noqa: F401
+        import sklearn.inspection  # noqa: F401 - permutation importance
         import sklearn.kernel_approximation  # noqa: F401
         import sklearn.model_selection  # noqa: F401
         import sklearn.pipeline  # noqa: F401
         import sklearn.svm  # noqa: F401
 
+        # the modules the step imports when it first needs them (the target check, the
+        # permutation test, importance): their import, and with no bytecode cached their
+        # compiling, is no part of the step's time
+        import analysis.derived  # noqa: F401
         import analysis.equations  # noqa: F401
+        import analysis.importance  # noqa: F401
+        import analysis.leakage  # noqa: F401
+        import analysis.permutation  # noqa: F401
+        import analysis.refits  # noqa: F401
+        import analysis.relations  # noqa: F401
+        import analysis.scaling  # noqa: F401
         import analysis.separation  # noqa: F401
 
         kernel = case.startswith("kernel")
