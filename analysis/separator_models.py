@@ -5,8 +5,6 @@ permuted copies, solver warnings), and predictions and decision values of a fitt
 
 from __future__ import annotations
 
-import warnings as _warnings
-
 import numpy as np
 
 from analysis.errors import StepError
@@ -92,19 +90,54 @@ def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset
     estimator = make_estimator(step, regression=run.regression, n_classes=run.n_classes,
                                kernel_mode=run.kernel_mode, n_rows=len(y_train),
                                seed=step.seed + seed_offset)
-    with _warnings.catch_warnings(record=True) as caught:
-        _warnings.simplefilter("always")
-        estimator.fit(X_train, y_train)
-    for w in caught:
-        name = w.category.__name__
-        if name == "ConvergenceWarning":
-            run.log.fit_warnings.add(Note("iteration_limit", "the solver stopped at its "
-                                          "iteration limit on some fits; the scores still come "
-                                          "from held-out rows."))
-        elif "collinear" in str(w.message).lower():
-            run.log.fit_warnings.add(Note("collinear_features",
-                                          "some features are collinear (LDA)."))
+    estimator.fit(X_train, y_train)
+    # read off the fitted estimator, not from the solvers' warnings: fits run on threads,
+    # and Python's record of warnings is one for the whole process
+    run.log.fit_warnings.update(solver_notes(estimator, X_train, y_train))
     return estimator
+
+
+ITERATION_LIMIT_NOTE = Note("iteration_limit", "the solver stopped at its iteration limit on "
+                            "some fits; the scores still come from held-out rows.")
+COLLINEAR_NOTE = Note("collinear_features", "some features are collinear (LDA).")
+
+
+def solver_notes(estimator, X_train: np.ndarray, y_train: np.ndarray) -> list[Note]:
+    """What a fitted pipeline's solver tells about its fit on ``X_train``, ``y_train``:
+    the iteration-limit note when its iterations (``n_iter_``, the largest over classes)
+    reached ``max_iter``, and for linear discriminant analysis the collinearity note when
+    the standardized within-class rows have a lower rank than there are features."""
+    pipeline = getattr(estimator, "regressor_", estimator)
+    last = pipeline[-1] if hasattr(pipeline, "steps") else pipeline
+    notes = []
+    n_iter = getattr(last, "n_iter_", None)
+    max_iter = getattr(last, "max_iter", None)
+    if n_iter is not None and max_iter is not None and max_iter > 0 \
+            and int(np.max(n_iter)) >= max_iter:
+        notes.append(ITERATION_LIMIT_NOTE)
+    if type(last).__name__ == "LinearDiscriminantAnalysis" and hasattr(pipeline, "steps"):
+        scaled = pipeline[:-1].transform(X_train)
+        if _within_class_rank(scaled, y_train, float(last.tol)) < scaled.shape[1]:
+            notes.append(COLLINEAR_NOTE)
+    return notes
+
+
+def _within_class_rank(X: np.ndarray, y: np.ndarray, tol: float) -> int:
+    """The rank the SVD solver of linear discriminant analysis gives the rows centred on
+    their class means, each feature divided by its within-class spread and the whole by the
+    square root of the row count: its singular values above ``tol``, counted here as the
+    eigenvalues of the Gram matrix above ``tol`` squared (the Gram matrix has p x p
+    entries, the rows n x p)."""
+    X = np.asarray(X, dtype=np.float64)
+    labels, codes = np.unique(y, return_inverse=True)
+    members = (codes[:, None] == np.arange(len(labels))).astype(np.float64)
+    means = (members.T @ X) / members.sum(axis=0)[:, None]
+    centred = X - means[codes]
+    spread = centred.std(axis=0)
+    spread[spread == 0] = 1.0
+    centred /= spread * np.sqrt(len(centred))
+    eigenvalues = np.linalg.eigvalsh(centred.T @ centred)
+    return int(np.sum(eigenvalues > tol * tol))
 
 
 def fit_ignores_seed(model: str, kernel_mode: str) -> bool:

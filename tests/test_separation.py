@@ -771,3 +771,85 @@ def test_l1_fits_run_one_at_a_time_and_the_same_seed_gives_the_same_numbers(iris
                          penalty="l1", seed=4, **FEW)
     runs = [json.dumps(step.run(iris).to_json(), sort_keys=True) for _ in range(3)]
     assert runs[0] == runs[1] == runs[2]
+
+
+@pytest.fixture(scope="module")
+def breast_cancer():
+    # the Wisconsin diagnostic breast cancer data as shipped with scikit-learn (569 rows,
+    # 30 real features), with a flag target and a column equal to twice another
+    from sklearn.datasets import load_breast_cancer
+
+    data = load_breast_cancer(as_frame=True)
+    frame = data.frame.rename(columns=lambda c: c.replace(" ", "_"))
+    frame["twice_radius"] = 2 * frame["mean_radius"]
+    frame["malignant"] = data.target == 0
+    return _table(frame.drop(columns="target"), "breast_cancer.csv")
+
+
+def _prepared(table, **settings):
+    from analysis.progress import quiet
+    from analysis.separator_prepare import RunLog, prepare
+
+    step = SeparatorStep(target="malignant", seed=0, **settings)
+    step.check()
+    return prepare(step, table, quiet(None), RunLog())
+
+
+def test_each_fit_on_threads_gets_its_own_solver_notes(breast_cancer):
+    # Reference: scikit-learn documents n_iter_ as the iterations run (the largest over the
+    # classes for liblinear) and warns ConvergenceWarning when they reach max_iter; checked
+    # here on one thread against its own warning. A column equal to twice another makes the
+    # rows centred on their class means rank deficient (numpy's matrix_rank), which is the
+    # collinearity LDA's note tells of.
+    import dataclasses
+    import warnings
+    from concurrent.futures import ThreadPoolExecutor
+
+    from sklearn.exceptions import ConvergenceWarning
+
+    from analysis.separator_models import COLLINEAR_NOTE, ITERATION_LIMIT_NOTE, fit
+    from analysis.separator_prepare import RunLog
+
+    l1 = _prepared(breast_cancer, model="linear", penalty="l1", c=10.0)
+    lda_twice = _prepared(breast_cancer, model="lda")
+    lda_plain = _prepared(breast_cancer, model="lda", columns=[
+        name for name in breast_cancer.frame.columns
+        if name not in ("twice_radius", "malignant")])
+    rng = np.random.default_rng(7)
+    n = len(l1.y)
+    # l1 fits on 150 to 300 rows: some reach liblinear's 5000 iterations, some stop before
+    jobs = [(l1, np.sort(rng.choice(n, size, replace=False)))
+            for size in (150, 160, 290, 300, 150, 300)]
+    jobs += [(run, np.sort(rng.choice(n, 300, replace=False)))
+             for run in (lda_twice, lda_plain) for _ in range(3)]
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        alone = fit(dataclasses.replace(l1, log=RunLog()), jobs[4][1])
+    warned = any(issubclass(w.category, ConvergenceWarning) for w in caught)
+    assert warned == (alone[-1].n_iter_ >= alone[-1].max_iter)
+
+    def one(job):
+        run, rows = job
+        own = dataclasses.replace(run, log=RunLog())
+        return own, fit(own, rows)
+
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        done = list(pool.map(one, jobs))
+    reached = []
+    for (run, rows), (own, model) in zip(jobs, done):
+        expected = set()
+        if run is l1:
+            reached.append(model[-1].n_iter_ >= model[-1].max_iter)
+            if reached[-1]:
+                expected.add(ITERATION_LIMIT_NOTE)
+        else:
+            X = run.X[rows]
+            centred = X - np.array([X[run.y[rows] == k].mean(axis=0)
+                                    for k in range(2)])[run.y[rows]]
+            if np.linalg.matrix_rank(centred) < X.shape[1]:
+                expected.add(COLLINEAR_NOTE)
+            assert (COLLINEAR_NOTE in expected) == (run is lda_twice)
+        assert own.log.fit_warnings == expected, (run.step.model, len(rows))
+    assert any(reached) and not all(reached), "both outcomes must occur among the fits"
+    assert lda_twice.log.fit_warnings == set() and l1.log.fit_warnings == set()
