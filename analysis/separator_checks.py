@@ -15,7 +15,13 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.notes import Note
 from analysis.separator_metrics import CHANCE_LEVEL, score
-from analysis.separator_models import fit, fit_ignores_seed, predict, shares_process_random
+from analysis.separator_models import (
+    LabelRefits,
+    fit,
+    fit_ignores_seed,
+    predict,
+    shares_process_random,
+)
 from analysis.separator_protocol import (
     KERNEL_CURVE_ROWS,
     KERNEL_PERMUTATION_ROWS,
@@ -122,9 +128,10 @@ def _shuffled_scorer(run, train_part, test_part):
             return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
                     "two-class LDA through one solve with the total scatter matrix")
 
+    refits = LabelRefits(run, train_part, test_part, seed_offset=1000)
+
     def refit(i):
-        model = fit(run, train_part, shuffled(i), seed_offset=1000)
-        return score(run, truth, predict(model, run.X[test_part]))
+        return score(run, truth, refits.predict(shuffled(i)))
 
     return refit, None
 

@@ -90,11 +90,68 @@ def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset
     estimator = make_estimator(step, regression=run.regression, n_classes=run.n_classes,
                                kernel_mode=run.kernel_mode, n_rows=len(y_train),
                                seed=step.seed + seed_offset)
-    estimator.fit(X_train, y_train)
+    with checked_once():
+        estimator.fit(X_train, y_train)
     # read off the fitted estimator, not from the solvers' warnings: fits run on threads,
     # and Python's record of warnings is one for the whole process
     run.log.fit_warnings.update(solver_notes(estimator, X_train, y_train))
     return estimator
+
+
+def checked_once():
+    """A context (for this thread alone: scikit-learn's settings are per thread) in which
+    scikit-learn neither checks the settings of each estimator again nor searches every
+    matrix for infinite values. The step's settings are checked when the step starts, and
+    the feature matrix holds finite values only (missing and infinite cells are dropped or
+    filled in), so both checks only cost time on the protocol's many refits."""
+    from sklearn import config_context
+
+    return config_context(assume_finite=True, skip_parameter_validation=True)
+
+
+class LabelRefits:
+    """The run's model refitted on the same training rows with other labels, predicting
+    the same test rows each time: the permutation test's refits.
+
+    For a linear classifier fitted on the rows themselves (no sample of them, no permuted
+    copies) the scaler does not depend on the labels, so it is fitted, and both sides
+    scaled, once; each refit then fits the last step alone. The predictions are those of
+    :func:`fit` then :func:`predict`, number for number. Other models refit whole.
+    """
+
+    def __init__(self, run, train: np.ndarray, test: np.ndarray, *, seed_offset: int):
+        self._run = run
+        self._train = train
+        self._seed_offset = seed_offset
+        self._X_test = run.X[test]
+        self._scaler = None
+        if run.kernel_method is None and not run.regression and run.copy_values is None \
+                and run.kernel_mode == "exact":
+            pipeline = self._pipeline()
+            self._scaler = pipeline[0]
+            with checked_once():
+                self._X_train = self._scaler.fit_transform(run.X[train])
+                self._X_test = self._scaler.transform(self._X_test)
+
+    def _pipeline(self):
+        run = self._run
+        return make_estimator(run.step, regression=run.regression, n_classes=run.n_classes,
+                              kernel_mode=run.kernel_mode, n_rows=len(self._train),
+                              seed=run.step.seed + self._seed_offset)
+
+    def predict(self, labels: np.ndarray) -> np.ndarray:
+        """Predictions on the test rows of the model refitted with ``labels`` (one label
+        per row of the run; those of the training rows are used)."""
+        if self._scaler is None:
+            model = fit(self._run, self._train, labels, seed_offset=self._seed_offset)
+            return predict(model, self._X_test)
+        y_train = labels[self._train]
+        last = self._pipeline()[-1]
+        with checked_once():
+            last.fit(self._X_train, y_train)
+            predicted = last.predict(self._X_test)
+        self._run.log.fit_warnings.update(_final_notes(last, self._X_train, y_train))
+        return predicted
 
 
 ITERATION_LIMIT_NOTE = Note("iteration_limit", "the solver stopped at its iteration limit on "
@@ -108,17 +165,27 @@ def solver_notes(estimator, X_train: np.ndarray, y_train: np.ndarray) -> list[No
     reached ``max_iter``, and for linear discriminant analysis the collinearity note when
     the standardized within-class rows have a lower rank than there are features."""
     pipeline = getattr(estimator, "regressor_", estimator)
-    last = pipeline[-1] if hasattr(pipeline, "steps") else pipeline
+    if not hasattr(pipeline, "steps"):
+        return _final_notes(pipeline, X_train, y_train)
+    last = pipeline[-1]
+    if type(last).__name__ == "LinearDiscriminantAnalysis":
+        with checked_once():
+            X_train = pipeline[:-1].transform(X_train)
+    return _final_notes(last, X_train, y_train)
+
+
+def _final_notes(last, X_seen: np.ndarray, y_train: np.ndarray) -> list[Note]:
+    """:func:`solver_notes` of a pipeline's last step, fitted on ``X_seen`` (the rows as
+    that step saw them)."""
     notes = []
     n_iter = getattr(last, "n_iter_", None)
     max_iter = getattr(last, "max_iter", None)
     if n_iter is not None and max_iter is not None and max_iter > 0 \
             and int(np.max(n_iter)) >= max_iter:
         notes.append(ITERATION_LIMIT_NOTE)
-    if type(last).__name__ == "LinearDiscriminantAnalysis" and hasattr(pipeline, "steps"):
-        scaled = pipeline[:-1].transform(X_train)
-        if _within_class_rank(scaled, y_train, float(last.tol)) < scaled.shape[1]:
-            notes.append(COLLINEAR_NOTE)
+    if type(last).__name__ == "LinearDiscriminantAnalysis" and \
+            _within_class_rank(X_seen, y_train, float(last.tol)) < X_seen.shape[1]:
+        notes.append(COLLINEAR_NOTE)
     return notes
 
 
@@ -266,7 +333,8 @@ def _components(rows: int) -> int:
 def predict(model, X: np.ndarray) -> np.ndarray:
     """Predictions of a fitted pipeline (a two-class kernel machine through decision)."""
     if _two_class_svc(model) is None:
-        return _in_blocks(model, model.predict, X)
+        with checked_once():
+            return _in_blocks(model, model.predict, X)
     last = model[-1]
     return last.classes_[(decision(model, X) > 0).astype(np.int64)]
 
@@ -280,7 +348,9 @@ def decision(model, X: np.ndarray) -> np.ndarray:
     """
     last = _two_class_svc(model)
     if last is None:
-        return np.asarray(_in_blocks(model, model.decision_function, X), dtype=np.float64)
+        with checked_once():
+            return np.asarray(_in_blocks(model, model.decision_function, X),
+                              dtype=np.float64)
     from sklearn.metrics.pairwise import pairwise_kernels
 
     scaled = model[0].transform(X)
