@@ -786,11 +786,11 @@ def breast_cancer():
     return _table(frame.drop(columns="target"), "breast_cancer.csv")
 
 
-def _prepared(table, **settings):
+def _prepared(table, target="malignant", **settings):
     from analysis.progress import quiet
     from analysis.separator_prepare import RunLog, prepare
 
-    step = SeparatorStep(target="malignant", seed=0, **settings)
+    step = SeparatorStep(target=target, seed=0, **settings)
     step.check()
     return prepare(step, table, quiet(None), RunLog())
 
@@ -853,3 +853,36 @@ def test_each_fit_on_threads_gets_its_own_solver_notes(breast_cancer):
         assert own.log.fit_warnings == expected, (run.step.model, len(rows))
     assert any(reached) and not all(reached), "both outcomes must occur among the fits"
     assert lda_twice.log.fit_warnings == set() and l1.log.fit_warnings == set()
+
+
+@pytest.mark.parametrize("model", ["linear", "logistic", "lda"])
+def test_refits_on_fixed_rows_predict_as_a_whole_pipeline_does(iris, model):
+    # Reference: scikit-learn's own pipeline, StandardScaler then the same model, fitted on
+    # the training rows with shuffled labels, the test rows clipped to the training range with
+    # numpy first (as the separator's scaler does); Fisher's iris data, three classes, so
+    # none of the closed forms applies
+    from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.svm import LinearSVC
+
+    from analysis.separator_models import LabelRefits
+
+    run = _prepared(iris, target="species", model=model)
+    rng = np.random.default_rng(5)
+    order = rng.permutation(len(run.y))
+    train, test = np.sort(order[:75]), np.sort(order[75:])
+    refits = LabelRefits(run, train, test, seed_offset=1000)
+    inner = {"linear": LinearSVC(C=1.0, dual=False, class_weight="balanced", max_iter=5000),
+             "logistic": LogisticRegression(C=1.0, class_weight="balanced", max_iter=2000,
+                                            random_state=1000),
+             "lda": LinearDiscriminantAnalysis()}[model]
+    X_train = run.X[train]
+    X_test = np.clip(run.X[test], X_train.min(axis=0), X_train.max(axis=0))
+    for _ in range(3):
+        labels = run.y.copy()
+        labels[train] = rng.permutation(run.y[train])
+        expected = make_pipeline(StandardScaler(), inner).fit(
+            X_train, labels[train]).predict(X_test)
+        np.testing.assert_array_equal(refits.predict(labels), expected)
