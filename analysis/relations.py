@@ -88,6 +88,9 @@ MAX_LISTED_ROWS = 1000
 # A relation or bound broken by at most this many rows makes each breaker an object to look
 # at; one broken by more is a tendency, and its breakers are listed but not flagged.
 FEW_BREAKERS = 5
+# Pairs of columns with missing values searched together for relations among them, when
+# the rows where all of them are present are too few (see _relations_among_partial).
+MAX_PARTIAL_PAIRS = 45
 # Fraction of the spread of a bound's left side within which a row "comes close" to it.
 NEAR_FRACTION = Fraction(1, 20)
 # Bounds that all but a few rows obey are also searched along every direction of two integer
@@ -1018,6 +1021,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
                 partial_found.append(_relation_from_vector(
                     vector, core + [name], len(rows), (),
                     Note("holds_where_present", f"holds{where}", rows=len(rows))))
+    partial_found += _relations_among_partial(columns, core, partial, rng.spawn(1)[0])
     if partial:
         notes.append(Note(
             "searched_where_present",
@@ -1025,6 +1029,75 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
             + ", ".join(partial), columns=tuple(partial),
         ))
     return ordered_relations(found + partial_found + trivial, robust_found), equalities, repeated
+
+
+def _relations_among_partial(columns, core: list[str], partial: list[str], rng) -> list:
+    """Relations tying two or more columns with missing values together.
+
+    Searched on the rows where all of them are present when those rows are varied enough
+    (at least twice as many distinct rows as unknowns), else pair by pair (the first
+    MAX_PARTIAL_PAIRS pairs). A relation found there is kept only when it holds on every row
+    where its own columns are present, and says on how many.
+    """
+    if len(partial) < 2:
+        return []
+    found = []
+    for group, rows in _partial_groups(columns, core, partial):
+        names = core + group
+        lattice = _kernel_on(_Matrix([columns[c][0] for c in names], rows),
+                             np.arange(len(rows)), rng)
+        # relations with at most one of the group's columns were searched column by column
+        tracker = RankTracker()
+        for keep in range(len(group)):
+            single = [list(v) for v in lattice]
+            for other in range(len(group)):
+                if other != keep:
+                    single = _restrict(single, _unit(len(names) + 1, len(core) + other))
+            for vector in single:
+                tracker.add(vector)
+        for vector in lattice:
+            involved = [c for k, c in enumerate(group) if vector[len(core) + k]]
+            if len(involved) >= 2 and tracker.add(vector):
+                relation = _held_where_present(columns, names, vector, involved)
+                if relation is not None:
+                    found.append(relation)
+    return found
+
+
+def _unit(width: int, position: int) -> list[int]:
+    return [1 if j == position else 0 for j in range(width)]
+
+
+def _partial_groups(columns, core: list[str], partial: list[str]) -> list:
+    """(columns, rows where they are all present) to search for relations among them."""
+    missing = np.column_stack([columns[name][1] for name in partial])
+    rows = np.flatnonzero(~missing.any(axis=1))
+    width = len(core) + len(partial) + 1
+    if len(rows) >= 2 * width:
+        matrix = _Matrix([columns[c][0] for c in core + partial], rows)
+        if _distinct_count(matrix, np.arange(len(rows)), list(range(width - 1)),
+                           2 * width) >= 2 * width:
+            return [(partial, rows)]
+    groups = []
+    for a, b in list(combinations(range(len(partial)), 2))[:MAX_PARTIAL_PAIRS]:
+        pair = np.flatnonzero(~(missing[:, a] | missing[:, b]))
+        if len(pair) >= 2 * (len(core) + 3):
+            groups.append(([partial[a], partial[b]], pair))
+    return groups
+
+
+def _held_where_present(columns, names: list[str], vector, involved: list[str]):
+    """The relation of ``vector`` when it holds on every row where ``involved`` (the columns
+    with missing values it uses) are present; None when one of those rows breaks it."""
+    missing = np.column_stack([columns[name][1] for name in involved])
+    rows = np.flatnonzero(~missing.any(axis=1))
+    if _Matrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
+        return None
+    shown = " and ".join(f"'{name}'" for name in involved)
+    return _relation_from_vector(
+        vector, names, len(rows), (),
+        Note("holds_where_present", f"holds on the {len(rows)} rows where {shown} are present",
+             rows=len(rows)))
 
 
 def ordered_relations(every: list, robust: list) -> list:
