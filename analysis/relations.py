@@ -93,6 +93,12 @@ FEW_BREAKERS = 5
 MAX_PARTIAL_PAIRS = 45
 # Fraction of the spread of a bound's left side within which a row "comes close" to it.
 NEAR_FRACTION = Fraction(1, 20)
+# The left side's range past which its middle half's spread is used instead (near_margin).
+HEAVY_TAIL = 100
+# What "close" means, for the page's and the report's readers.
+NEAR_MEANING = ("objects that miss equality by at most 1/20 of the spread of the bound's left "
+                "side (of its middle half when a few values are far larger); at least 1 for "
+                "integers")
 # Bounds that all but a few rows obey are also searched along every direction of two integer
 # columns with coefficients up to this size (besides the corners peeled off the hull).
 DIRECTION_COEFFICIENT = 3
@@ -1534,8 +1540,32 @@ def _exact_hull(candidates: np.ndarray) -> list[tuple]:
         keep |= outside
 
 
-def _near_margin(spread: Fraction, integer: bool) -> Fraction:
-    margin = Fraction(spread) * NEAR_FRACTION
+def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: Fraction) -> Fraction:
+    """The smallest value whose cumulative weight reaches ``q`` of the total (the inverted
+    empirical distribution function), exact for integer and object values."""
+    order = np.argsort(values, kind="stable")
+    cumulative = np.cumsum(weights[order])
+    value = values[order][int(np.searchsorted(cumulative, math.ceil(q * int(cumulative[-1]))))]
+    return Fraction(value.item() if isinstance(value, np.generic) else value)
+
+
+def near_margin(values: np.ndarray, weights: np.ndarray, constant: Fraction,
+                integer: bool) -> Fraction:
+    """How far from a bound a row may be and still come close to it (see NEAR_MEANING).
+
+    ``values`` are the bound's left side on the distinct rows, ``weights`` their row counts.
+    The spread is the whole range of the left side, or, when that range is more than
+    HEAVY_TAIL times the middle half's (a few huge values, say integers past 2**64 among
+    small ones), the middle half's: else nearly every row would be "close".
+    """
+    lowest = values.min()
+    spread = constant - Fraction(lowest.item() if isinstance(lowest, np.generic) else lowest)
+    if len(values) > 1:
+        middle = (_weighted_quantile(values, weights, Fraction(3, 4))
+                  - _weighted_quantile(values, weights, Fraction(1, 4)))
+        if middle > 0 and spread > HEAVY_TAIL * middle:
+            spread = middle
+    margin = spread * NEAR_FRACTION
     return max(margin, Fraction(1)) if integer else margin
 
 
@@ -1888,9 +1918,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scale
     constant = Fraction(constant)
     shown_coefs, divisor = _unscaled(coefs, scales)
     shown_constant = constant / divisor
-    margin = _near_margin(constant - Fraction(combined.min().item()
-                                              if combined.dtype != object else combined.min()),
-                          integer)
+    margin = near_margin(combined, points.weights, constant, integer)
     if combined.dtype != object and constant.denominator == 1:
         # Compare integers with integers: a Fraction would turn the arrays into objects.
         constant, limit = int(constant), math.floor(margin)

@@ -810,3 +810,26 @@ def test_a_relation_of_the_rows_all_gappy_columns_share_must_hold_where_its_own_
     table = read_table(json.dumps(rows).encode(), "gappy.json")
     result = RelationsStep(bounds=False).run(table)
     assert not any({name for name, _ in r.terms} == {"g", "h"} for r in result.relations)
+
+
+def test_close_rows_are_judged_on_the_middle_half_when_a_few_values_are_huge():
+    # groups of order 1..100 and ten of order past 2**70: on the whole range, 1/20 of the
+    # spread is about 2**66 and every small row would be "close" to order + k >= 2
+    rng = random.Random(5)
+    rows = []
+    for i in range(1000):
+        order = rng.randint(1, 100) if i % 100 else 2**70 + i
+        rows.append({"order": str(order), "classes": rng.randint(1, 10) if i % 100 else 2**20,
+                     "k": rng.randint(0, 9)})
+    table = read_table(json.dumps(rows).encode(), "groups.json")
+    assert table.column("order").dtype == "big integer"
+    bound = next(b for b in RelationsStep().run(table).bounds if b.text == "order + k >= 2")
+    left = [int(r["order"]) + r["k"] for r in rows]
+    # the count follows its definition: rows above the bound by at most the margin
+    assert bound.near == sum(1 for v in left if 0 < v - 2 <= bound.near_margin)
+    # and the margin is 1/20 of the middle half's spread (numpy's quartiles of the rows
+    # below 2**70 give it to within a step of the data), not of the whole range
+    small = np.array([v for v in left if v < 2**70], dtype=np.float64)
+    quartiles = float(np.percentile(small, 75) - np.percentile(small, 25))
+    assert bound.near_margin <= Fraction(1, 20) * (quartiles + 2)
+    assert bound.near < 100
