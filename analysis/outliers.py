@@ -623,8 +623,9 @@ def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str, why
     classes, counts = np.unique(labels, return_counts=True)
     if len(classes) < 2:
         raise StepError(f"{table_name}: the target {target!r} has one value ({classes[0]!r}) "
-                        "on every row used; a separator needs two or more. Choose another "
-                        "target or leave it unset." + (why() if why else ""))
+                        "on every row used; judging how well it is predicted needs two or "
+                        "more. Choose another target or leave it unset."
+                        + (why() if why else ""))
     splits = int(min(5, max(2, counts.min())))
     return classes, splits, StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
 
