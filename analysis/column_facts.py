@@ -122,7 +122,8 @@ class MarkerRule:
     *marked numbers* when every filled cell is a number, an interval or a word, and
 
     - at least one cell is an interval or a word, and at least one is a plain number (a column
-      of two-element brackets only is an array column);
+      of two-element brackets only is an array column); or else every cell is a plain number,
+      some written as text (JSON from some databases quotes a number now and then);
     - it has at most ``max_words`` different words;
     - word cells are at most ``max_share`` of the filled cells;
     - it never has more different words than different plain numbers.
@@ -161,7 +162,9 @@ def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, in
     False
     """
     word_cells = sum(words.values())
-    if len(words) > rule.max_words or (not words and not intervals):
+    if not words and not intervals:
+        return numbers > 0       # numbers only, some of them text
+    if len(words) > rule.max_words:
         return False
     if requested:
         return numbers + intervals > 0
