@@ -15,7 +15,13 @@ import numpy as np
 from analysis.errors import StepError
 from analysis.notes import Note
 from analysis.separator_metrics import CHANCE_LEVEL, score
-from analysis.separator_models import fit, fit_ignores_seed, predict, shares_process_random
+from analysis.separator_models import (
+    KernelRefits,
+    fit,
+    fit_ignores_seed,
+    predict,
+    shares_process_random,
+)
 from analysis.separator_protocol import (
     KERNEL_CURVE_ROWS,
     KERNEL_PERMUTATION_ROWS,
@@ -62,10 +68,11 @@ def permutation_test(run, train, test, predicted):
         # the same rows and a fit that does not use its seed: split 1's model is the
         # refit, so its predictions give the observed score
         observed = score(run, run.y[test], predicted)
+        observed_model = None
     else:
         observed_model = fit(run, train_part, seed_offset=1000)
         observed = score(run, run.y[test_part], predict(observed_model, run.X[test_part]))
-    score_of, shortcut = _shuffled_scorer(run, train_part, test_part)
+    score_of, shortcut = _shuffled_scorer(run, train_part, test_part, observed_model)
     run.progress.phase("permutation test", total=count)
     workers = 1 if shortcut or shares_process_random(step) else refit_workers()
     with one_thread_each(workers):
@@ -92,12 +99,15 @@ def permutation_test(run, train, test, predicted):
             test_result.count)
 
 
-def _shuffled_scorer(run, train_part, test_part):
+def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     """``score_of(i)``: the score of a refit on the i-th shuffle of the training labels,
     seeded by ``i`` alone, and the closed form used for the refits (None: real refits).
 
     Ridge regression and two-class LDA without copies refit in closed form
-    (analysis/refits.py); every other model is refitted.
+    (analysis/refits.py); a kernel machine is refitted from its kernel matrix or Nystroem
+    features, computed once (separator_models.KernelRefits; ``observed_model`` is the fit on
+    ``train_part`` with the refits' seed, when the caller has it); every other model is
+    refitted.
     """
     from analysis.refits import LdaShuffles, RidgeShuffles
 
@@ -121,6 +131,11 @@ def _shuffled_scorer(run, train_part, test_part):
         if closed.usable:
             return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
                     "two-class LDA through one solve with the total scatter matrix")
+
+    if KernelRefits.usable(run, train_part):
+        reference = observed_model or fit(run, train_part, seed_offset=1000)
+        kernel = KernelRefits(run, reference, run.X[train_part], run.X[test_part])
+        return (lambda i: score(run, truth, kernel.predict(shuffled(i)[train_part]))), None
 
     def refit(i):
         model = fit(run, train_part, shuffled(i), seed_offset=1000)
