@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["IMPORTANCE_REPEATS", "Importance", "permutation_importances"]
+__all__ = ["IMPORTANCE_REPEATS", "Importance", "ShuffledKernelRows", "permutation_importances"]
 
 IMPORTANCE_REPEATS = 5
 # Test rows used for importance at most (a seeded sample past it), so that it stays a small
@@ -21,6 +21,9 @@ IMPORTANCE_REPEATS = 5
 IMPORTANCE_ROWS = 5000
 # Features scored one by one at most; past it the step scores the columns they come from.
 IMPORTANCE_FEATURES = 200
+# Distinct values (times outputs) of the shuffled columns up to which ShuffledKernelRows
+# scores a shuffle by a lookup in one table of partial sums per column.
+TABLE_VALUES = 256
 
 
 @dataclass(frozen=True)
@@ -72,7 +75,9 @@ def permutation_importances(model, X: np.ndarray, y: np.ndarray, features: Seque
     several = {column: indices for column, indices in groups.items() if len(indices) > 1}
     if several:
         found += _column_importances(model, X, y, several, scorer, seed, repeats)
-    return tuple(sorted(found, key=lambda r: (-r.mean, r.feature)))
+    # means equal to 12 decimals are a tie, ordered by name: rounding in the last digits
+    # (two copies of one feature, say) must not decide the order
+    return tuple(sorted(found, key=lambda r: (-round(r.mean, 12), r.feature)))
 
 
 def _column_importances(model, X, y, groups: dict[str, list[int]], scorer, seed: int,
@@ -92,3 +97,86 @@ def _column_importances(model, X, y, groups: dict[str, list[int]], scorer, seed:
         found.append(Importance(feature=column, column=column, mean=float(np.mean(drops)),
                                 std=float(np.std(drops)), whole_column=True))
     return found
+
+
+class ShuffledKernelRows:
+    """Predictions of an RBF machine (``expansion``: an
+    :class:`analysis.separator_models.KernelExpansion`) on fixed ``rows`` and on copies of
+    them with some columns shuffled among the rows, as permutation importance asks for.
+
+    The kernel is a product over columns: exp(-gamma |z - c|^2) = exp(-gamma d_rest(z, c))
+    * exp(-gamma d_C(z, c)), d_C the squared distance over the shuffled columns C and d_rest
+    over the others. A shuffle keeps every row's other columns, so the first factor (times
+    the weights) is computed once per set of shuffled columns; the second takes only the
+    distinct values the shuffled columns hold. With few of them (integer invariants) one
+    matrix product gives every row's score for every value it may receive, and a shuffle is
+    scored by a lookup; else by one product per shuffle. Rows whose shuffled values are not
+    values of ``rows`` are scored directly. The scores are the machine's up to rounding.
+    """
+
+    def __init__(self, expansion, rows: np.ndarray) -> None:
+        self.expansion = expansion
+        self.base = np.asarray(expansion.scaler.transform(rows), dtype=np.float64)
+        self.cached: tuple | None = None
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """The machine's predictions on ``X`` (the rows, with some columns shuffled)."""
+        scaled = np.asarray(self.expansion.scaler.transform(X), dtype=np.float64)
+        if scaled.shape != self.base.shape:
+            return self.expansion.predictions(self._direct(scaled))
+        changed = tuple(np.flatnonzero(np.any(scaled != self.base, axis=0)).tolist())
+        if not changed:
+            return self.expansion.predictions(self._direct(scaled))
+        parts = self._parts(changed)
+        lookup, rest, distinct, table = parts
+        try:
+            index = np.array([lookup[row.tobytes()] for row in scaled[:, list(changed)]])
+        except KeyError:
+            return self.expansion.predictions(self._direct(scaled))
+        if table is not None:
+            scores = table[np.arange(len(index)), index]
+        else:
+            gathered = distinct[index]
+            scores = np.column_stack([np.einsum("ij,ij->i", part, gathered)
+                                      for part in rest])
+        return self.expansion.predictions(scores + self.expansion.intercept)
+
+    def _direct(self, scaled: np.ndarray) -> np.ndarray:
+        from sklearn.metrics.pairwise import rbf_kernel
+
+        e = self.expansion
+        return rbf_kernel(scaled, e.centres, gamma=e.gamma) @ e.weights + e.intercept
+
+    def _parts(self, changed: tuple) -> tuple:
+        """For the shuffled columns ``changed``: the index of each distinct value (row of
+        those columns, as bytes), the weighted first factor per output, the second factor
+        for each distinct value, and the table of partial sums (None with many values)."""
+        if self.cached is not None and self.cached[0] == changed:
+            return self.cached[1]
+        from sklearn.metrics.pairwise import euclidean_distances
+
+        e = self.expansion
+        columns = list(changed)
+        others = [j for j in range(self.base.shape[1]) if j not in changed]
+        if others:
+            rest_distance = euclidean_distances(self.base[:, others], e.centres[:, others],
+                                                squared=True)
+            first = np.exp(-e.gamma * rest_distance)
+        else:
+            first = np.ones((len(self.base), len(e.centres)))
+        values = np.unique(np.ascontiguousarray(self.base[:, columns]), axis=0)
+        lookup = {row.tobytes(): k for k, row in enumerate(values)}
+        second = np.exp(-e.gamma * euclidean_distances(values, e.centres[:, columns],
+                                                       squared=True))
+        outputs = e.weights.shape[1]
+        if len(values) * outputs <= TABLE_VALUES:
+            # every row's score for each value it may receive: rows x values x outputs
+            weighted = second.T[:, :, None] * e.weights[:, None, :]
+            table = (first @ weighted.reshape(len(e.centres), -1)).reshape(
+                len(self.base), len(values), outputs)
+            parts = (lookup, None, None, table)
+        else:
+            rest = [first * e.weights[:, k] for k in range(outputs)]
+            parts = (lookup, rest, second, None)
+        self.cached = (changed, parts)
+        return parts

@@ -19,6 +19,7 @@ from analysis.separator_models import (
     KernelRefits,
     fit,
     fit_ignores_seed,
+    kernel_expansion,
     predict,
     shares_process_random,
 )
@@ -220,7 +221,7 @@ def importance(run, model, test) -> tuple:
     R^2), the same numbers as scikit-learn's scorers to rounding, without their checks of
     every call's input, which took most of the time (a 16 x 16 matrix column gives dozens
     of features, each scored five times)."""
-    from analysis.importance import permutation_importances
+    from analysis.importance import ShuffledKernelRows, permutation_importances
 
     rows = test
     limit = KERNEL_PERMUTATION_TEST_ROWS if run.kernel_method is not None else None
@@ -228,7 +229,14 @@ def importance(run, model, test) -> tuple:
         rows = np.sort(np.random.default_rng([run.step.seed, 43]).choice(
             rows, limit, replace=False))
 
+    # an RBF machine is scored on the shuffled rows from work done once per column
+    # (importance.ShuffledKernelRows); other models by their own predictions
+    expansion = kernel_expansion(model)
+    shuffles = None if expansion is None else ShuffledKernelRows(expansion, run.X[rows])
+
     def scorer(estimator, X, y):
+        if shuffles is not None and estimator is model:
+            return score(run, y, np.asarray(shuffles.predict(X)))
         return score(run, y, np.asarray(predict(estimator, X)))
 
     with _warnings.catch_warnings():

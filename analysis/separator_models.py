@@ -6,6 +6,8 @@ permuted copies, solver warnings), and predictions and decision values of a fitt
 from __future__ import annotations
 
 import warnings as _warnings
+from collections.abc import Callable
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -377,6 +379,57 @@ class _NystroemMachine:
         if scores.shape[1] == 1:
             return classes[(scores[:, 0] > 0).astype(np.int64)]
         return classes[np.argmax(scores, axis=1)]
+
+
+@dataclass(frozen=True)
+class KernelExpansion:
+    """A fitted RBF machine written as f(x) = exp(-gamma |z - c|^2) @ weights + intercept over
+    its centres c (support vectors, or Nystroem components), z the scaled row, and the rule
+    that turns f into predictions (``predictions(scores)``, scores as rows x outputs)."""
+
+    scaler: object
+    centres: np.ndarray
+    weights: np.ndarray
+    intercept: np.ndarray
+    gamma: float
+    predictions: Callable[[np.ndarray], np.ndarray]
+
+
+def kernel_expansion(model) -> KernelExpansion | None:
+    """The expansion of a fitted two-class RBF support vector machine, support vector
+    regression, or RBF Nystroem machine; None for other models."""
+    folded = _NystroemMachine.of(model)
+    if folded is not None:
+        if folded.nystroem.kernel != "rbf":
+            return None
+        components = folded.nystroem.components_
+        gamma = folded.nystroem.gamma
+        # scikit-learn's RBF kernel takes 1 / features for an unset gamma
+        gamma = 1.0 / components.shape[1] if gamma is None else float(gamma)
+        return KernelExpansion(folded.scaler, components, folded.weights, folded.intercept,
+                               gamma, folded.predict_from)
+    target = getattr(model, "transformer_", None)
+    pipeline = getattr(model, "regressor_", model)
+    steps = getattr(pipeline, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    machine = steps[-1][1]
+    if type(machine).__name__ not in ("SVC", "SVR") or machine.kernel != "rbf":
+        return None
+    if target is None and (type(machine).__name__ != "SVC" or len(machine.classes_) != 2):
+        return None
+    weights = np.asarray(machine.dual_coef_[0], dtype=np.float64)[:, None]
+    intercept = np.asarray(machine.intercept_[:1], dtype=np.float64)
+    if target is None:
+        classes = machine.classes_
+
+        def rule(scores):
+            return classes[(scores[:, 0] > 0).astype(np.int64)]
+    else:
+        def rule(scores):
+            return target.inverse_transform(scores.reshape(len(scores), -1)).ravel()
+    return KernelExpansion(steps[0][1], machine.support_vectors_, weights, intercept,
+                           float(machine._gamma), rule)
 
 
 class KernelRefits:
