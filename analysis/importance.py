@@ -116,67 +116,106 @@ class ShuffledKernelRows:
 
     def __init__(self, expansion, rows: np.ndarray) -> None:
         self.expansion = expansion
-        self.base = np.asarray(expansion.scaler.transform(rows), dtype=np.float64)
+        self.rows = np.asarray(rows, dtype=np.float64)
+        self.scaled = np.asarray(expansion.scaler.transform(self.rows), dtype=np.float64)
         self.cached: tuple | None = None
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """The machine's predictions on ``X`` (the rows, with some columns shuffled)."""
-        scaled = np.asarray(self.expansion.scaler.transform(X), dtype=np.float64)
-        if scaled.shape != self.base.shape:
-            return self.expansion.predictions(self._direct(scaled))
-        changed = tuple(np.flatnonzero(np.any(scaled != self.base, axis=0)).tolist())
+        X = np.asarray(X, dtype=np.float64)
+        if X.shape != self.rows.shape:
+            return self._direct(X)
+        changed = tuple(np.flatnonzero(np.any(X != self.rows, axis=0)).tolist())
         if not changed:
-            return self.expansion.predictions(self._direct(scaled))
+            return self._direct(X)
         parts = self._parts(changed)
-        lookup, rest, distinct, table = parts
-        try:
-            index = np.array([lookup[row.tobytes()] for row in scaled[:, list(changed)]])
-        except KeyError:
-            return self.expansion.predictions(self._direct(scaled))
-        if table is not None:
-            scores = table[np.arange(len(index)), index]
-        else:
-            gathered = distinct[index]
-            scores = np.column_stack([np.einsum("ij,ij->i", part, gathered)
-                                      for part in rest])
-        return self.expansion.predictions(scores + self.expansion.intercept)
+        index = None if parts is None else parts.locate(X)
+        if index is None:
+            return self._direct(X)
+        return self.expansion.predictions(parts.scores(index) + self.expansion.intercept)
 
-    def _direct(self, scaled: np.ndarray) -> np.ndarray:
+    def _direct(self, X: np.ndarray) -> np.ndarray:
         from sklearn.metrics.pairwise import rbf_kernel
 
         e = self.expansion
-        return rbf_kernel(scaled, e.centres, gamma=e.gamma) @ e.weights + e.intercept
+        scaled = e.scaler.transform(X)
+        return e.predictions(rbf_kernel(scaled, e.centres, gamma=e.gamma) @ e.weights
+                             + e.intercept)
 
-    def _parts(self, changed: tuple) -> tuple:
-        """For the shuffled columns ``changed``: the index of each distinct value (row of
-        those columns, as bytes), the weighted first factor per output, the second factor
-        for each distinct value, and the table of partial sums (None with many values)."""
+    def _parts(self, changed: tuple):
+        """The work done once for the shuffled columns ``changed`` (one set kept), or None
+        when their distinct values cannot be numbered in 64 bits."""
         if self.cached is not None and self.cached[0] == changed:
             return self.cached[1]
-        from sklearn.metrics.pairwise import euclidean_distances
-
-        e = self.expansion
-        columns = list(changed)
-        others = [j for j in range(self.base.shape[1]) if j not in changed]
-        if others:
-            rest_distance = euclidean_distances(self.base[:, others], e.centres[:, others],
-                                                squared=True)
-            first = np.exp(-e.gamma * rest_distance)
-        else:
-            first = np.ones((len(self.base), len(e.centres)))
-        values = np.unique(np.ascontiguousarray(self.base[:, columns]), axis=0)
-        lookup = {row.tobytes(): k for k, row in enumerate(values)}
-        second = np.exp(-e.gamma * euclidean_distances(values, e.centres[:, columns],
-                                                       squared=True))
-        outputs = e.weights.shape[1]
-        if len(values) * outputs <= TABLE_VALUES:
-            # every row's score for each value it may receive: rows x values x outputs
-            weighted = second.T[:, :, None] * e.weights[:, None, :]
-            table = (first @ weighted.reshape(len(e.centres), -1)).reshape(
-                len(self.base), len(values), outputs)
-            parts = (lookup, None, None, table)
-        else:
-            rest = [first * e.weights[:, k] for k in range(outputs)]
-            parts = (lookup, rest, second, None)
+        parts = _ShuffleParts.make(self.expansion, self.rows, self.scaled, list(changed))
         self.cached = (changed, parts)
         return parts
+
+
+class _ShuffleParts:
+    """For one set of shuffled columns: the numbering of their distinct values, each row's
+    weighted first factor (rows x centres, per output), the second factor of each distinct
+    value (values x centres), and, with few values, the table of partial sums."""
+
+    def __init__(self, columns, values, codes, first, second, table) -> None:
+        self.columns, self.values, self.codes = columns, values, codes
+        self.first, self.second, self.table = first, second, table
+
+    @classmethod
+    def make(cls, expansion, rows, scaled, columns: list[int]):
+        from sklearn.metrics.pairwise import euclidean_distances
+
+        values = [np.unique(rows[:, c]) for c in columns]
+        if float(np.prod([len(v) for v in values], dtype=np.float64)) >= 2.0 ** 62:
+            return None
+        codes = cls._code(values, [np.searchsorted(v, rows[:, c])
+                                   for v, c in zip(values, columns)])
+        distinct, first_row = np.unique(codes, return_index=True)
+        e = expansion
+        others = [j for j in range(rows.shape[1]) if j not in columns]
+        if others:
+            rest = np.exp(-e.gamma * euclidean_distances(scaled[:, others],
+                                                         e.centres[:, others], squared=True))
+        else:
+            rest = np.ones((len(rows), len(e.centres)))
+        second = np.exp(-e.gamma * euclidean_distances(scaled[first_row][:, columns],
+                                                       e.centres[:, columns], squared=True))
+        outputs = e.weights.shape[1]
+        if len(distinct) * outputs <= TABLE_VALUES:
+            # every row's score for each value it may receive: rows x values x outputs
+            weighted = second.T[:, :, None] * e.weights[:, None, :]
+            table = (rest @ weighted.reshape(len(e.centres), -1)).reshape(
+                len(rows), len(distinct), outputs)
+            return cls(columns, values, distinct, None, None, table)
+        first = [rest * e.weights[:, k] for k in range(outputs)]
+        return cls(columns, values, distinct, first, second, None)
+
+    @staticmethod
+    def _code(values, positions) -> np.ndarray:
+        """One number per row for its values in the shuffled columns (mixed radix)."""
+        code = np.zeros(len(positions[0]), dtype=np.int64)
+        for v, position in zip(values, positions):
+            code = code * len(v) + position
+        return code
+
+    def locate(self, X: np.ndarray) -> np.ndarray | None:
+        """Each row's distinct value of the shuffled columns, or None when some row holds a
+        value no row of the fixed rows holds there."""
+        positions = []
+        for v, c in zip(self.values, self.columns):
+            position = np.minimum(np.searchsorted(v, X[:, c]), len(v) - 1)
+            if not np.array_equal(v[position], X[:, c]):
+                return None
+            positions.append(position)
+        code = self._code(self.values, positions)
+        index = np.minimum(np.searchsorted(self.codes, code), len(self.codes) - 1)
+        if not np.array_equal(self.codes[index], code):
+            return None
+        return index
+
+    def scores(self, index: np.ndarray) -> np.ndarray:
+        """The expansion's sums (without the intercept) for rows given their values."""
+        if self.table is not None:
+            return self.table[np.arange(len(index)), index]
+        gathered = self.second[index]
+        return np.column_stack([np.einsum("ij,ij->i", part, gathered) for part in self.first])
