@@ -73,7 +73,7 @@ def permutation_test(run, train, test, predicted):
     else:
         observed_model = fit(run, train_part, seed_offset=1000)
         observed = score(run, run.y[test_part], predict(observed_model, run.X[test_part]))
-    score_of, shortcut = _shuffled_scorer(run, train_part, test_part, observed_model)
+    score_of, shortcut, shared = _shuffled_scorer(run, train_part, test_part, observed_model)
     run.progress.phase("permutation test", total=count)
     workers = 1 if shortcut or shares_process_random(step) else refit_workers()
     with one_thread_each(workers):
@@ -83,6 +83,8 @@ def permutation_test(run, train, test, predicted):
     method = test_result.method(statistic)
     if shortcut:
         method += f"; refits in closed form ({shortcut})"
+    if shared:
+        method += f"; {shared}"
     if len(train_part) < len(train) or len(test_part) < len(test):
         method += (f"; on a sample of {len(train_part)} training and {len(test_part)} "
                    f"test rows, with the observed score {observed:.3f} refitted on the "
@@ -102,7 +104,8 @@ def permutation_test(run, train, test, predicted):
 
 def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     """``score_of(i)``: the score of a refit on the i-th shuffle of the training labels,
-    seeded by ``i`` alone, and the closed form used for the refits (None: real refits).
+    seeded by ``i`` alone; the closed form used for the refits (None: real refits); and the
+    words for work the refits share (None: none).
 
     Ridge regression and two-class LDA without copies refit in closed form
     (analysis/refits.py); a kernel machine is refitted from its kernel matrix or Nystroem
@@ -126,23 +129,24 @@ def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     if plain_fit and step.model == "linear" and run.regression and step.penalty == "l2":
         closed = RidgeShuffles(run.X[train_part], run.X[test_part], alpha=1.0 / step.c)
         return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
-                "ridge regression is a linear smoother")
+                "ridge regression is a linear smoother", None)
     if plain_fit and step.model == "lda" and not run.regression and run.n_classes == 2:
         closed = LdaShuffles(run.X[train_part], run.X[test_part])
         if closed.usable:
             return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
-                    "two-class LDA through one solve with the total scatter matrix")
+                    "two-class LDA through one solve with the total scatter matrix", None)
 
     if KernelRefits.usable(run, train_part):
         reference = observed_model or fit(run, train_part, seed_offset=1000)
         kernel = KernelRefits(run, reference, run.X[train_part], run.X[test_part])
-        return (lambda i: score(run, truth, kernel.predict(shuffled(i)[train_part]))), None
+        return ((lambda i: score(run, truth, kernel.predict(shuffled(i)[train_part]))), None,
+                kernel.words)
 
     def refit(i):
         model = fit(run, train_part, shuffled(i), seed_offset=1000)
         return score(run, truth, predict(model, run.X[test_part]))
 
-    return refit, None
+    return refit, None, None
 
 
 def learning_curve(run) -> list[dict]:

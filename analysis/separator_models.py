@@ -461,6 +461,8 @@ class KernelRefits:
             self.train = parts[1].transform(scaled_train)
             self.test = parts[1].transform(scaled_test)
             self.solver = clone(machine)
+            self.words = ("each refit on the Nystroem features of the training rows, "
+                          "computed once (they do not depend on the labels)")
         else:
             options = {"gamma": float(machine._gamma)}
             if machine.kernel == "poly":
@@ -470,6 +472,8 @@ class KernelRefits:
             self.test = pairwise_kernels(scaled_test, scaled_train, metric=machine.kernel,
                                          **options)
             self.solver = clone(machine).set_params(kernel="precomputed")
+            self.words = ("each refit on the kernel matrix of the training rows, computed "
+                          "once (it does not depend on the labels)")
         self.target = reference.transformer if self.regression else None
 
     @classmethod
