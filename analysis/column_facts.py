@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import TableError
-from analysis.notes import Note
+from analysis.notes import Note, note_code
 
 INT64_MAX = 2**63 - 1
 # Past this, float64 no longer holds every integer exactly.
@@ -122,7 +122,8 @@ class MarkerRule:
     *marked numbers* when every filled cell is a number, an interval or a word, and
 
     - at least one cell is an interval or a word, and at least one is a plain number (a column
-      of two-element brackets only is an array column);
+      of two-element brackets only is an array column); or else every cell is a plain number,
+      some written as text (JSON from some databases quotes a number now and then);
     - it has at most ``max_words`` different words;
     - word cells are at most ``max_share`` of the filled cells;
     - it never has more different words than different plain numbers.
@@ -161,7 +162,9 @@ def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, in
     False
     """
     word_cells = sum(words.values())
-    if len(words) > rule.max_words or (not words and not intervals):
+    if not words and not intervals:
+        return numbers > 0       # numbers only, some of them text
+    if len(words) > rule.max_words:
         return False
     if requested:
         return numbers + intervals > 0
@@ -173,6 +176,16 @@ def reads_as_marked_numbers(*, numbers: int, intervals: int, words: dict[str, in
 
 _NUMBER = r"[+-]?(?:\d+\s*/\s*\d+|(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)"
 _NUMBER_TEXT = re.compile(rf"^\s*({_NUMBER})\s*$")
+# a whole cell that is a plain number (spaces around it allowed)
+_NUMBER_CELL = re.compile(rf"\s*{_NUMBER}\s*")
+# digits in groups of three after a first group: 249,525 or 1 000 000 or 1_000
+_GROUPED = re.compile(r"[+-]?\d{1,3}(?:[, _]\d{3})+(?:\.\d+)?")
+# a product of prime powers as databases write group orders: 2^10 * 3^4 * 5
+_POWERS = re.compile(r"\d+(?:\s*\^\s*\d+)?(?:\s*[*x\u00b7\u00d7]\s*\d+(?:\s*\^\s*\d+)?)+"
+                     r"|\d+\s*\^\s*\d+")
+# A text column with numbers in at least this share of its filled cells says what keeps the
+# others from being read (see numbers_as_text).
+NUMBERS_AS_TEXT_SHARE = Fraction(4, 5)
 _INTERVAL_TEXT = re.compile(rf"^\s*\[\s*({_NUMBER})\s*,\s*({_NUMBER})\s*\]\s*$")
 
 
@@ -375,9 +388,10 @@ def is_true_word(word) -> bool:
 
 
 def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
-                    role: str, labels=None) -> list[str]:
+                    role: str, labels=None, missing: int = 0) -> list[str]:
     """The loading warnings a typed column gives (big integers, empty, constant, true/false
-    words in several spellings). ``labels``: a category's distinct labels, when known."""
+    words in several spellings). ``labels``: a category's distinct labels, when known;
+    ``missing``: the column's missing cells."""
     out = []
     if role == "category" and labels is not None:
         spelled = flag_spelling_warning(name, column, labels)
@@ -405,9 +419,26 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
             "words mean that the invariant does not apply, give the column the role "
             "invariant: its numbers are read and its words counted as missing values.",
             column=column))
+    if note_code(note) == "numbers_as_text":
+        figures = note.figures
+        hint = number_hint(figures["text"])
+        kinds = "numbers or products of powers" if figures["powers"] else "numbers"
+        out.append(Note(
+            "numbers_as_text",
+            f"{name}: column {column!r} is read as text, though "
+            f"{figures['numbers'] + figures['powers']} of its {figures['filled']} filled cells "
+            f"are {kinds}; row {figures['row'] + 1} holds "
+            f"{shown_value(figures['text'])}{f' ({hint})' if hint else ''}. The file is "
+            "left as it is: write such cells as plain numbers in a copy to read the column "
+            "as numbers.", column=column, **figures))
     if dtype == "empty":
         out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
                         column=column))
+    elif distinct == 1 and n > 1 and role != "id" and missing:
+        out.append(Note("column_constant", f"{name}: column {column!r} holds one value, in "
+                        f"{n - missing} rows, and no value in the other {missing}: it tells "
+                        "objects apart only by which rows hold it.",
+                        column=column, filled=n - missing))
     elif distinct == 1 and n > 1 and role != "id":
         out.append(Note("column_constant", f"{name}: column {column!r} is constant; it carries "
                         "no information.", column=column))
@@ -526,11 +557,60 @@ def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask,
     if counts:
         facts.update(_text_counts(text, ~missing_mask))
     facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
+    facts.update(_number_cells(text, missing_mask))
     facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
     # every cell an integer or p/q: the column is read as exact rationals, as in memory
     facts["rational"] = bool(text.str.fullmatch(RATIONAL_TEXT).all())
     facts["integers"] = bool(facts["rational"] and text.str.fullmatch(INTEGER_TEXT).all())
     return facts
+
+
+def _number_cells(text: pd.Series, missing_mask) -> dict:
+    """How many text cells are plain numbers (as :func:`read_marked_cell` reads them), and
+    the first that is not: (its position in the run, its text)."""
+    numbers = text.str.fullmatch(_NUMBER_CELL).to_numpy(dtype=bool)
+    odd = np.flatnonzero(~numbers)
+    first = None
+    if len(odd):
+        first = (int(np.flatnonzero(~missing_mask)[odd[0]]), str(text.iloc[odd[0]]).strip())
+    powers = 0
+    if len(odd):
+        # the product regex only where a '^' or '*' could make one (a quick scan first)
+        marked = text[text.str.contains("^", regex=False) | text.str.contains("*", regex=False)]
+        powers = int(marked.str.strip().str.fullmatch(_POWERS).sum()) if len(marked) else 0
+    return {"number_cells": int(numbers.sum()), "power_cells": powers,
+            "first_not_number": first}
+
+
+def numbers_as_text(f: dict) -> Note | None:
+    """The note of a text column most of whose cells are numbers (NUMBERS_AS_TEXT_SHARE of
+    the filled ones or more, products of powers such as ``2^4 * 3`` counted with them) while
+    others are written in a way no reading takes, such as ``249,525`` or a typographic minus;
+    None for any other column."""
+    first = f.get("first_not_number")
+    filled = f["n"] - f["missing"]
+    count = f.get("number_cells", 0)
+    if f.get("kind") != "text" or first is None or not filled \
+            or count + f.get("power_cells", 0) < NUMBERS_AS_TEXT_SHARE * filled:
+        return None
+    powers = f.get("power_cells", 0)
+    return Note("numbers_as_text", f"{count + powers} of {filled} filled cells are numbers"
+                f"{' or products of powers' if powers else ''}", numbers=count, powers=powers,
+                filled=filled, row=first[0], text=first[1])
+
+
+def number_hint(text: str) -> str:
+    """What keeps a number-like cell from being read as a number, in words ('' when
+    nothing familiar does)."""
+    if "\u2212" in text and _NUMBER_CELL.fullmatch(text.replace("\u2212", "-")):
+        return "its minus sign is the typographic U+2212; write '-'"
+    if _GROUPED.fullmatch(text):
+        return f"its digits are grouped with separators; write {re.sub(r'[, _]', '', text)}"
+    if _POWERS.fullmatch(text):
+        return "it is a product of powers; write the integer it equals"
+    if text.endswith("%") and _NUMBER_CELL.fullmatch(text[:-1]):
+        return "it is a percentage; write the number without '%'"
+    return ""
 
 
 def array_facts(values: list, column: str) -> dict:
@@ -685,6 +765,11 @@ def merge_facts(a: dict, b: dict) -> dict:
             out["counts"] = counts if len(counts) <= DISTINCT_CAP else None
         out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
         out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
+        out["number_cells"] = a.get("number_cells", 0) + b.get("number_cells", 0)
+        out["power_cells"] = a.get("power_cells", 0) + b.get("power_cells", 0)
+        later = b.get("first_not_number")
+        out["first_not_number"] = a.get("first_not_number") or (
+            None if later is None else (later[0] + a["n"], later[1]))
         out["rational"] = a.get("rational", False) and b.get("rational", False)
         out["integers"] = a.get("integers", False) and b.get("integers", False)
         return out
@@ -733,6 +818,19 @@ def _like(empty: dict, other: dict) -> dict:
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
                    maximum=None, values=None if values is None else values[:0])
     return out
+
+
+def marked_texts(values: list, offset: int = 0) -> dict[int, str]:
+    """The texts of the cells of a marked column that are intervals or words, by position
+    (``offset`` plus the cell's place in ``values``): what ``Table.marks`` keeps of them."""
+    texts = {}
+    for place, value in enumerate(values):
+        kind, parsed = read_marked_cell(value)
+        if kind == "interval":
+            texts[offset + place] = str(value).strip()
+        elif kind == "word":
+            texts[offset + place] = parsed
+    return texts
 
 
 def marked_facts(values: list, positions) -> dict | None:
@@ -924,6 +1022,14 @@ def marked_values(series: pd.Series, dtype: str) -> pd.Series:
                      index=series.index)
 
 
+def text_note(f: dict) -> str:
+    """The note of a column read as text: mostly numbers with too many words, numbers
+    written in a way no reading takes, or nothing."""
+    if mostly_numbers(f):
+        return MOSTLY_NUMBERS_NOTE
+    return numbers_as_text(f) or ""
+
+
 def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
     """(dtype, note, conversion for :func:`typed_block`) from a column's merged facts.
 
@@ -939,7 +1045,7 @@ def column_type(f: dict, fmt: str) -> tuple[str, str, str]:
         words = f["words"]
         if words and reads_as_boolean(words):
             return "boolean", "", "words"
-        return "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(f) else "", ""
+        return "text", text_note(f), ""
     if kind == "bool":
         return "boolean", "", "flags" if f["missing"] else ""
     if f["count"] == 0:
@@ -1113,7 +1219,8 @@ def type_columns(name: str, header: list[str], facts: dict, n: int, warnings: li
             id_taken = True
         labels = list(f["counts"]) if role == "category" and dtype == "text" \
             and f.get("counts") is not None else None
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels,
+                                        missing))
         info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
         infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
     warnings[start:start] = merged

@@ -41,6 +41,7 @@ from analysis.separator_metrics import (
     INTERVAL_LEVEL,
     MISPREDICTED_LIMIT,
     REGRESSION_RULE,
+    below_baseline_text,
 )
 from analysis.separator_models import (
     MODEL_WORDS,
@@ -298,6 +299,9 @@ class SeparatorResult:
             lines.append(f"  accuracy {m['accuracy']:.3f} (majority-class baseline "
                          f"{b['accuracy']:.3f}), balanced accuracy "
                          f"{m['balanced_accuracy']:.3f}")
+            below = below_baseline_text(m, b)
+            if below:
+                lines.append(f"  note: {below}")
             low, high = m["mcc_ci"]
             lines.append(f"  Matthews correlation {m['mcc']:.3f}, 95% interval "
                          f"[{low:.3f}, {high:.3f}] ({self.interval_method})")

@@ -216,3 +216,14 @@ def mean_of(splits: list[dict]) -> dict:
 def std_of(splits: list[dict]) -> dict:
     keys = [k for k in splits[0] if k not in ("split", "train_rows", "test_rows")]
     return {k: float(np.std([s[k] for s in splits])) for k in keys}
+
+
+def below_baseline_text(metrics: dict, baseline: dict) -> str:
+    """Why a classifier's accuracy can sit below the majority-class baseline ('' when it
+    does not): its classes are weighted equally, and the verdict rests elsewhere."""
+    if metrics.get("accuracy") is None or metrics["accuracy"] >= baseline.get("accuracy", 0):
+        return ""
+    return ("Accuracy is below always guessing the most common class because the fit weighs "
+            "the classes equally: it gives up some of the common class to find the rare one. "
+            "Balanced accuracy and the Matthews correlation, on which the verdict rests, "
+            "allow for the class sizes.")

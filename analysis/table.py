@@ -56,7 +56,6 @@ from analysis.column_facts import (
     INTEGER_TEXT,
     MARKER_RULE,
     MISSING_WORDS,
-    MOSTLY_NUMBERS_NOTE,
     RATIONAL_TEXT,
     TRUE_WORDS,
     ColumnInfo,
@@ -73,11 +72,11 @@ from analysis.column_facts import (
     marked_dtype,
     marked_note,
     marker_counts,
-    mostly_numbers,
     read_marked_cell,
     reads_as_marked_numbers,
     shown_value,
     text_block_facts,
+    text_note,
     text_reading,
 )
 from analysis.errors import TableError
@@ -1098,7 +1097,8 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         if role == "id":
             id_taken = True
         labels = series.dropna().unique() if role == "category" and dtype == "text" else None
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels,
+                                        missing))
         counts = _marker_counts(marks.get(column))
         intervals = len(marks[column].positions) if column in marks else 0
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,
@@ -1410,7 +1410,7 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
     if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
         return _array_texts(series, parsed, name, column, limits), "array", ""
-    return None, "text", MOSTLY_NUMBERS_NOTE if mostly_numbers(facts) else ""
+    return None, "text", text_note(facts)
 
 
 def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None = None,

@@ -159,7 +159,8 @@ CELLS = st.one_of(
     st.none(),
     st.integers(-20, 20).map(str),
     st.tuples(st.integers(-9, 9), st.integers(1, 9)).map(lambda pq: f"{pq[0]}/{pq[1]}"),
-    st.sampled_from(["infty", "D.N.E.", "Y", "N", "[1,2]", " toric", "toric", "2.5"]),
+    st.sampled_from(["infty", "D.N.E.", "Y", "N", "[1,2]", " toric", "toric", "2.5",
+                     "249,525", "\u22127", "2^3 * 3"]),
 )
 
 
@@ -195,3 +196,68 @@ def test_merged_number_facts_equal_the_facts_of_one_block(values, data):
         expected = integer_type(min(present), max(present), complete=len(present) == len(values),
                                 zero_one=False)
         assert column_type(whole, "parquet")[:2] == expected
+
+
+# ----------------------------------------------------------------------------------------
+# Numbers written in ways no reading takes
+
+
+def _odd_numbers_csv() -> bytes:
+    # common practice in copied tables: thousands separators, the typographic minus, group
+    # orders as products of prime powers (sympy.factorint writes each one here)
+    import sympy
+
+    lines = ["order,disc,order_factored"]
+    for i in range(60):
+        n = 1000 + 37 * i
+        order = f"{n:,}" if i % 6 == 5 else str(n)
+        disc = f"\u2212{n}" if i % 10 == 3 else str(-n)
+        factored = " * ".join(f"{p}^{e}" if e > 1 else str(p)
+                              for p, e in sorted(sympy.factorint(n).items()))
+        lines.append(f'"{order}",{disc},{factored}')
+    return ("\n".join(lines) + "\n").encode()
+
+
+def test_mostly_numbers_read_as_text_say_which_cell_and_why():
+    import csv
+
+    data = _odd_numbers_csv()
+    rows = list(csv.DictReader(io.StringIO(data.decode())))
+    table = read_table(data, "groups.csv")
+    said = {w.figures["column"]: w for w in table.warnings
+            if getattr(w, "code", None) == "numbers_as_text"}
+    assert set(said) == {"order", "disc", "order_factored"}
+    assert all(table.column(c).dtype == "text" for c in said)
+    # the first odd cell, counted by the csv module (rows from 1 after the header)
+    first = next(k for k, r in enumerate(rows) if "," in r["order"])
+    assert f"row {first + 1} holds '{rows[first]['order']}'" in said["order"]
+    assert "write " + rows[first]["order"].replace(",", "") in said["order"]
+    assert said["order"].figures["numbers"] == sum("," not in r["order"] for r in rows)
+    assert "typographic U+2212" in said["disc"]
+    assert "product of powers" in said["order_factored"]
+    assert said["order_factored"].figures["numbers"] + said["order_factored"].figures[
+        "powers"] == len(rows)
+
+
+def test_a_text_column_of_words_gets_no_numbers_warning():
+    data = b"name,n\n" + b"".join(f"K{i}a1,{i}\n".encode() for i in range(30))
+    table = read_table(data, "knots.csv")
+    assert not [w for w in table.warnings if getattr(w, "code", None) == "numbers_as_text"]
+
+
+# dask's Parquet reader calls a pandas method pandas 3.1 deprecates; not ours to change
+@pytest.mark.filterwarnings("ignore:The inplace keyword in DataFrame.reset_index")
+def test_the_dask_reader_words_the_same_warnings_across_blocks(tmp_path):
+    pytest.importorskip("dask.dataframe")
+    pytest.importorskip("distributed")
+    from analysis.distributed import open_cluster, read_partitioned
+
+    path = tmp_path / "groups.csv"
+    path.write_bytes(_odd_numbers_csv())
+    memory = [str(w) for w in read_table(path.read_bytes(), "groups.csv").warnings]
+    with open_cluster(n_workers=1) as client:
+        partitioned = read_partitioned(path, client, blocksize=400)
+        assert partitioned.npartitions > 2
+        dask = [str(w) for w in partitioned.warnings]
+    odd = [w for w in memory if "is read as text" in w]
+    assert len(odd) == 3 and [w for w in dask if "is read as text" in w] == odd

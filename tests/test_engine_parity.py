@@ -508,6 +508,10 @@ BLOCK_CASES = {
                                       for k in range(600)),
     "numbers with many words": "c\n" + "".join(f"{'-' if k % 5 < 2 else k % 4}\n"
                                                for k in range(2000)),
+    "grouped digits": "n\n" + "".join(f'"{k:,}"\n' if k % 9 == 4 else f"{k}\n"
+                                      for k in range(900, 2900)),
+    "typographic minus": "d\n" + "".join(f"\u2212{k}\n" if k % 13 == 6 else f"-{k}\n"
+                                         for k in range(600)),
 }
 
 
@@ -529,6 +533,17 @@ def test_typing_of_blocks_follows_pythons_own_numbers(client, tmp_path):
     # 2**60 + k is not a float64 value (IEEE 754 doubles stop at 2**53), so it stays exact
     assert float(2**60 + 1) != 2**60 + 1 and column.dtype == "big integer"
     assert column.missing == sum(1 for k in range(600) if k % 9 == 4)
+
+
+def test_decimal_text_in_parquet_parts_reads_as_real_numbers(client, tmp_path):
+    # a Parquet string column holding decimals, as a database export might write them
+    frame = pd.DataFrame({"regulator": pd.array([f"{k / 8}" for k in range(40)], dtype="str"),
+                          "k": range(40)})
+    folder, whole = write_parts(frame, tmp_path / "decimals", parts=3)
+    table = read_partitioned(folder, client)
+    in_memory = load_table(whole)
+    assert in_memory.column("regulator").dtype == "real"
+    assert table.columns == in_memory.columns
 
 
 def test_nullable_flags_from_parquet_parts_are_flags_with_missing_cells(client, tmp_path):

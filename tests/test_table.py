@@ -724,7 +724,8 @@ def test_the_rule_function_is_the_one_the_loader_follows():
     assert reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 1}, distinct_numbers=2)
     assert not reads_as_marked_numbers(numbers=2, intervals=0, words={"-": 2},
                                        distinct_numbers=2)  # more than a third
-    assert not reads_as_marked_numbers(numbers=3, intervals=0, words={}, distinct_numbers=3)
+    # numbers only, some written as text: read as numbers
+    assert reads_as_marked_numbers(numbers=3, intervals=0, words={}, distinct_numbers=3)
     assert reads_as_marked_numbers(numbers=0, intervals=4, words={}, distinct_numbers=0,
                                    requested=True)
     words = {f"w{i}": 1 for i in range(6)}
@@ -872,3 +873,31 @@ def test_a_column_of_numbers_with_many_words_is_named(words, numbers, warned):
         column = next(c for c in asked.columns if c.name == "nilpotency")
         assert (column.dtype, column.missing) == ("integer", words)
         assert column.markers == {"-": words // 2, "not nilpotent": words // 2}
+
+
+def test_a_column_with_one_value_in_a_few_rows_is_not_called_constant():
+    # a remark filled in for 3 of 40 objects: its value never varies, but which rows hold
+    # it may matter (the counts are those of the file's own cells)
+    lines = ["n,remark"] + [f"{i},{'checked by hand' if i % 13 == 5 else ''}" for i in range(40)]
+    table = read_table("\n".join(lines).encode() + b"\n", "remarks.csv")
+    said = [w for w in table.warnings if getattr(w, "code", None) == "column_constant"]
+    assert len(said) == 1 and said[0].figures["filled"] == 3
+    assert "holds one value, in 3 rows, and no value in the other 37" in said[0]
+
+
+
+def test_json_numbers_quoted_now_and_then_are_numbers():
+    # some databases' JSON writes a number as a string in a few records; Python's json and
+    # float() read every cell as the same number
+    from conftest import records_table
+
+    records = [{"n": i, "regulator": str(i / 8) if i % 4 == 0 else i / 8,
+                "conductor": str(11 * i + 11) if i % 3 == 0 else 11 * i + 11}
+               for i in range(40)]
+    table = records_table(records, "curves.json")
+    assert table.column("regulator").dtype == "real"
+    assert table.column("regulator").role == "invariant"
+    assert table.numeric("regulator").tolist() == [float(r["regulator"]) for r in records]
+    assert table.column("conductor").dtype == "integer"
+    assert table.exact("conductor") == [int(r["conductor"]) for r in records]
+    assert json.loads(json.dumps(records)) == records   # the reference reading round-trips

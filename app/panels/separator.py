@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from analysis.separator_metrics import below_baseline_text
 from app import display, settings
 from app.figure_view import show_figures
 
@@ -232,6 +233,9 @@ def _classification_metrics(result) -> None:
                       delta_color="off", delta_arrow="off",
                       help=f"How often shuffled targets score as well: "
                            f"{result.permutation_method}.")
+    below = below_baseline_text(m, b)
+    if below:
+        st.caption(below)
 
 
 def _regression_metrics(result) -> None:
