@@ -16,9 +16,11 @@ from analysis.errors import StepError
 from analysis.notes import Note
 from analysis.separator_metrics import CHANCE_LEVEL, score
 from analysis.separator_models import (
+    KernelRefits,
     LabelRefits,
     fit,
     fit_ignores_seed,
+    kernel_expansion,
     predict,
     shares_process_random,
 )
@@ -68,10 +70,11 @@ def permutation_test(run, train, test, predicted):
         # the same rows and a fit that does not use its seed: split 1's model is the
         # refit, so its predictions give the observed score
         observed = score(run, run.y[test], predicted)
+        observed_model = None
     else:
         observed_model = fit(run, train_part, seed_offset=1000)
         observed = score(run, run.y[test_part], predict(observed_model, run.X[test_part]))
-    score_of, shortcut = _shuffled_scorer(run, train_part, test_part)
+    score_of, shortcut, shared = _shuffled_scorer(run, train_part, test_part, observed_model)
     run.progress.phase("permutation test", total=count)
     workers = 1 if shortcut or shares_process_random(step) else refit_workers()
     with one_thread_each(workers):
@@ -81,6 +84,8 @@ def permutation_test(run, train, test, predicted):
     method = test_result.method(statistic)
     if shortcut:
         method += f"; refits in closed form ({shortcut})"
+    if shared:
+        method += f"; {shared}"
     if len(train_part) < len(train) or len(test_part) < len(test):
         method += (f"; on a sample of {len(train_part)} training and {len(test_part)} "
                    f"test rows, with the observed score {observed:.3f} refitted on the "
@@ -98,12 +103,16 @@ def permutation_test(run, train, test, predicted):
             test_result.count)
 
 
-def _shuffled_scorer(run, train_part, test_part):
+def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     """``score_of(i)``: the score of a refit on the i-th shuffle of the training labels,
-    seeded by ``i`` alone, and the closed form used for the refits (None: real refits).
+    seeded by ``i`` alone; the closed form used for the refits (None: real refits); and the
+    words for work the refits share (None: none).
 
     Ridge regression and two-class LDA without copies refit in closed form
-    (analysis/refits.py); every other model is refitted.
+    (analysis/refits.py); a kernel machine is refitted from its kernel matrix or Nystroem
+    features, computed once (separator_models.KernelRefits; ``observed_model`` is the fit on
+    ``train_part`` with the refits' seed, when the caller has it); every other model is
+    refitted.
     """
     from analysis.refits import LdaShuffles, RidgeShuffles
 
@@ -121,19 +130,25 @@ def _shuffled_scorer(run, train_part, test_part):
     if plain_fit and step.model == "linear" and run.regression and step.penalty == "l2":
         closed = RidgeShuffles(run.X[train_part], run.X[test_part], alpha=1.0 / step.c)
         return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
-                "ridge regression is a linear smoother")
+                "ridge regression is a linear smoother", None)
     if plain_fit and step.model == "lda" and not run.regression and run.n_classes == 2:
         closed = LdaShuffles(run.X[train_part], run.X[test_part])
         if closed.usable:
             return (lambda i: score(run, truth, closed.predict(shuffled(i)[train_part])),
-                    "two-class LDA through one solve with the total scatter matrix")
+                    "two-class LDA through one solve with the total scatter matrix", None)
+
+    if KernelRefits.usable(run, train_part):
+        reference = observed_model or fit(run, train_part, seed_offset=1000)
+        kernel = KernelRefits(run, reference, run.X[train_part], run.X[test_part])
+        return ((lambda i: score(run, truth, kernel.predict(shuffled(i)[train_part]))), None,
+                kernel.words)
 
     refits = LabelRefits(run, train_part, test_part, seed_offset=1000)
 
     def refit(i):
         return score(run, truth, refits.predict(shuffled(i)))
 
-    return refit, None
+    return refit, None, None
 
 
 def learning_curve(run) -> list[dict]:
@@ -212,7 +227,7 @@ def importance(run, model, test) -> tuple:
     R^2), the same numbers as scikit-learn's scorers to rounding, without their checks of
     every call's input, which took most of the time (a 16 x 16 matrix column gives dozens
     of features, each scored five times)."""
-    from analysis.importance import permutation_importances
+    from analysis.importance import ShuffledKernelRows, permutation_importances
 
     rows = test
     limit = KERNEL_PERMUTATION_TEST_ROWS if run.kernel_method is not None else None
@@ -220,7 +235,14 @@ def importance(run, model, test) -> tuple:
         rows = np.sort(np.random.default_rng([run.step.seed, 43]).choice(
             rows, limit, replace=False))
 
+    # an RBF machine is scored on the shuffled rows from work done once per column
+    # (importance.ShuffledKernelRows); other models by their own predictions
+    expansion = kernel_expansion(model)
+    shuffles = None if expansion is None else ShuffledKernelRows(expansion, run.X[rows])
+
     def scorer(estimator, X, y):
+        if shuffles is not None and estimator is model:
+            return score(run, y, np.asarray(shuffles.predict(X)))
         return score(run, y, np.asarray(predict(estimator, X)))
 
     with _warnings.catch_warnings():

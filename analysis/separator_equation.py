@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from analysis.notes import Note
-from analysis.separator_models import decision, fit, predict
+from analysis.separator_models import decision, fit, predictions_and_decision
 
 # Features whose values are the table's own numbers (or sums of them): an equation in them
 # is checked exactly whenever the values are integers or short decimals.
@@ -37,7 +37,8 @@ def equation_part(run, split_model) -> tuple[dict, object]:
                                   "instead of a refit on every row.", rows=n))
     else:
         model = fit(run, np.arange(n), seed_offset=5000)
-    predicted = np.asarray(predict(model, run.X))
+    # one evaluation gives a kernel machine's predictions and its decision values
+    predicted, machine_values = predictions_and_decision(model, run.X)
     options = {"exact_columns": _exact_flags(run.fm),
                "sample_size": step.sample_rows, "seed": step.seed}
     if step.max_terms is not None:
@@ -63,7 +64,8 @@ def equation_part(run, split_model) -> tuple[dict, object]:
                                       predicted.astype(np.float64))}, model
     if step.model in ("linear", "logistic", "lda"):
         return _linear_equations(run, model, options, scores_of), model
-    return _kernel_equation(run, model, predicted, fitted_on, options, scores_of), model
+    return _kernel_equation(run, model, predicted, machine_values, fitted_on, options,
+                            scores_of), model
 
 
 def _linear_equations(run, model, options: dict, scores_of) -> dict:
@@ -95,15 +97,18 @@ def _linear_equations(run, model, options: dict, scores_of) -> dict:
                                   "(>= 0 on that class's side)", columns)}
 
 
-def _kernel_equation(run, model, predicted, fitted_on: str, options: dict, scores_of) -> dict:
+def _kernel_equation(run, model, predicted, machine_values, fitted_on: str, options: dict,
+                     scores_of) -> dict:
     """The expanded polynomial of an exact degree-2 machine, else a quadratic surrogate of
     the machine's predictions (two classes only)."""
     from analysis import equations as eqs
 
     names = list(run.fm.names)
     ids = run.fm.row_ids
+    if machine_values is None:
+        machine_values = decision(model, run.X)
     machine_scores = scores_of(f"decision value of the kernel machine fitted on "
-                               f"{fitted_on}", decision(model, run.X))
+                               f"{fitted_on}", machine_values)
     if run.n_classes != 2:
         run.log.notes.append(Note("no_kernel_equation", "no equation for a kernel machine "
                                   "over several classes; choose a positive class to get one "

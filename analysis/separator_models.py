@@ -5,6 +5,9 @@ permuted copies, solver warnings), and predictions and decision values of a fitt
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
+
 import numpy as np
 
 from analysis.errors import StepError
@@ -331,7 +334,11 @@ def _components(rows: int) -> int:
 
 
 def predict(model, X: np.ndarray) -> np.ndarray:
-    """Predictions of a fitted pipeline (a two-class kernel machine through decision)."""
+    """Predictions of a fitted pipeline (a two-class kernel machine through decision, a
+    Nystroem machine through its kernel against the components)."""
+    folded = _NystroemMachine.of(model)
+    if folded is not None:
+        return folded.predict(X)
     if _two_class_svc(model) is None:
         with checked_once():
             return _in_blocks(model, model.predict, X)
@@ -339,13 +346,32 @@ def predict(model, X: np.ndarray) -> np.ndarray:
     return last.classes_[(decision(model, X) > 0).astype(np.int64)]
 
 
+def predictions_and_decision(model, X: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """``predict(model, X)`` and, where the predictions come from decision values (a
+    two-class kernel machine, a Nystroem machine), those values from the same evaluation;
+    None in their place for other models."""
+    folded = _NystroemMachine.of(model)
+    if folded is not None:
+        scores = folded.decision(X)
+        return folded.predict_from(scores), scores
+    last = _two_class_svc(model)
+    if last is None:
+        return np.asarray(predict(model, X)), None
+    scores = decision(model, X)
+    return last.classes_[(scores > 0).astype(np.int64)], scores
+
+
 def decision(model, X: np.ndarray) -> np.ndarray:
     """Decision values of a fitted pipeline.
 
     A two-class kernel machine is evaluated as K(rows, support vectors) @ dual coefficients
     + intercept with one matrix product: the same decision value the machine computes row by
-    row, many times faster on the permutation test's repeated scoring.
+    row, many times faster on the permutation test's repeated scoring. A Nystroem machine is
+    evaluated the same way against its components (see :class:`_NystroemMachine`).
     """
+    folded = _NystroemMachine.of(model)
+    if folded is not None:
+        return folded.decision(X)
     last = _two_class_svc(model)
     if last is None:
         with checked_once():
@@ -380,6 +406,209 @@ def _makes_nystroem_features(model) -> bool:
     pipeline = getattr(model, "regressor_", model)
     return any(type(part).__name__ == "Nystroem"
                for _, part in getattr(pipeline, "steps", ()))
+
+
+class _NystroemMachine:
+    """A fitted Nystroem pipeline (scaler, Nystroem features, a linear machine or ridge)
+    evaluated without its features.
+
+    The features are phi(x) = K(x, components) @ N^T (N: the map's normalization), and the
+    linear part gives phi(x) @ W^T + b. By associativity that is K(x, components) @ (N^T W^T)
+    + b: one kernel of each row against the components and a product with a fixed matrix,
+    where the features cost a product with the components x components matrix N for every
+    row (1000 x 1000 multiplications and additions a row at 1000 components). The values are
+    those of the pipeline up to rounding in the last digits.
+    """
+
+    def __init__(self, scaler, nystroem, linear, target=None) -> None:
+        self.scaler, self.nystroem, self.linear, self.target = scaler, nystroem, linear, target
+        coef = np.atleast_2d(np.asarray(linear.coef_, dtype=np.float64))
+        self.weights = nystroem.normalization_.T @ coef.T
+        self.intercept = np.atleast_1d(np.asarray(linear.intercept_, dtype=np.float64))
+        self.kernel_options = {name: getattr(nystroem, name) for name in
+                               ("gamma", "degree", "coef0")
+                               if getattr(nystroem, name, None) is not None}
+        self.kernel_options.update(nystroem.kernel_params or {})
+
+    @classmethod
+    def of(cls, model):
+        """The folded machine of ``model``, or None when it makes no Nystroem features."""
+        target = getattr(model, "transformer_", None)
+        pipeline = getattr(model, "regressor_", model)
+        parts = [part for _, part in getattr(pipeline, "steps", ())]
+        if len(parts) != 3 or type(parts[1]).__name__ != "Nystroem" \
+                or not isinstance(parts[1].kernel, str) \
+                or not hasattr(parts[2], "coef_"):
+            return None
+        return cls(parts[0], parts[1], parts[2], target)
+
+    def scores(self, X: np.ndarray) -> np.ndarray:
+        """phi(x) @ W^T + b for every row, as rows x outputs."""
+        from sklearn.metrics.pairwise import pairwise_kernels
+
+        scaled = self.scaler.transform(X)
+        components = self.nystroem.components_
+        out = np.empty((len(scaled), self.weights.shape[1]))
+        step = PREDICT_BLOCK_ROWS
+        for start in range(0, len(scaled), step):
+            block = pairwise_kernels(scaled[start:start + step], components,
+                                     metric=self.nystroem.kernel, filter_params=True,
+                                     **self.kernel_options)
+            out[start:start + step] = block @ self.weights + self.intercept
+        return out
+
+    def decision(self, X: np.ndarray) -> np.ndarray:
+        """The linear machine's decision values (one column for two classes, as its own)."""
+        scores = self.scores(X)
+        return scores.ravel() if scores.shape[1] == 1 else scores
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """Predictions by the linear part's rule: the sign for two classes, the largest
+        score for more; a ridge's values in the target's units."""
+        return self.predict_from(self.scores(X))
+
+    def predict_from(self, scores: np.ndarray) -> np.ndarray:
+        """Predictions from the linear part's scores (rows x outputs, or one column as a
+        vector)."""
+        scores = scores.reshape(len(scores), -1)
+        if self.target is not None or not hasattr(self.linear, "classes_"):
+            values = scores if self.target is None else self.target.inverse_transform(scores)
+            return values.ravel() if values.shape[1] == 1 else values
+        classes = self.linear.classes_
+        if scores.shape[1] == 1:
+            return classes[(scores[:, 0] > 0).astype(np.int64)]
+        return classes[np.argmax(scores, axis=1)]
+
+
+@dataclass(frozen=True)
+class KernelExpansion:
+    """A fitted RBF machine written as f(x) = exp(-gamma |z - c|^2) @ weights + intercept over
+    its centres c (support vectors, or Nystroem components), z the scaled row, and the rule
+    that turns f into predictions (``predictions(scores)``, scores as rows x outputs)."""
+
+    scaler: object
+    centres: np.ndarray
+    weights: np.ndarray
+    intercept: np.ndarray
+    gamma: float
+    predictions: Callable[[np.ndarray], np.ndarray]
+
+
+def kernel_expansion(model) -> KernelExpansion | None:
+    """The expansion of a fitted two-class RBF support vector machine, support vector
+    regression, or RBF Nystroem machine; None for other models."""
+    folded = _NystroemMachine.of(model)
+    if folded is not None:
+        if folded.nystroem.kernel != "rbf":
+            return None
+        components = folded.nystroem.components_
+        gamma = folded.nystroem.gamma
+        # scikit-learn's RBF kernel takes 1 / features for an unset gamma
+        gamma = 1.0 / components.shape[1] if gamma is None else float(gamma)
+        return KernelExpansion(folded.scaler, components, folded.weights, folded.intercept,
+                               gamma, folded.predict_from)
+    target = getattr(model, "transformer_", None)
+    pipeline = getattr(model, "regressor_", model)
+    steps = getattr(pipeline, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    machine = steps[-1][1]
+    if type(machine).__name__ not in ("SVC", "SVR") or machine.kernel != "rbf":
+        return None
+    if target is None and (type(machine).__name__ != "SVC" or len(machine.classes_) != 2):
+        return None
+    weights = np.asarray(machine.dual_coef_[0], dtype=np.float64)[:, None]
+    intercept = np.asarray(machine.intercept_[:1], dtype=np.float64)
+    if target is None:
+        classes = machine.classes_
+
+        def rule(scores):
+            return classes[(scores[:, 0] > 0).astype(np.int64)]
+    else:
+        def rule(scores):
+            return target.inverse_transform(scores.reshape(len(scores), -1)).ravel()
+    return KernelExpansion(steps[0][1], machine.support_vectors_, weights, intercept,
+                           float(machine._gamma), rule)
+
+
+class KernelRefits:
+    """Refits of a fitted kernel pipeline on the same training rows with other labels (the
+    permutation test's shuffles), from work done once.
+
+    The scaler, the exact machine's gamma ("scale": from the scaled rows) and the Nystroem
+    map (its components drawn from the rows by the fit's seed) do not depend on the labels,
+    so every refit has the same kernel matrix (exact machine) or the same features
+    (Nystroem). They are computed once from ``reference`` (the pipeline fitted on
+    ``train_values`` with the fit's seed) and each refit is the machine's own solver on them:
+    the same machine as a refit from scratch, up to rounding in the last digits.
+    """
+
+    def __init__(self, run, reference, train_values: np.ndarray,
+                 test_values: np.ndarray) -> None:
+        from sklearn.base import clone
+        from sklearn.metrics.pairwise import pairwise_kernels
+
+        self.run = run
+        self.regression = hasattr(reference, "regressor_")
+        pipeline = getattr(reference, "regressor_", reference)
+        parts = [part for _, part in pipeline.steps]
+        scaled_train = parts[0].transform(train_values)
+        scaled_test = parts[0].transform(test_values)
+        machine = parts[-1]
+        if len(parts) == 3:
+            # Nystroem features, then a linear machine or ridge on them
+            self.train = parts[1].transform(scaled_train)
+            self.test = parts[1].transform(scaled_test)
+            self.solver = clone(machine)
+            self.words = ("each refit on the Nystroem features of the training rows, "
+                          "computed once (they do not depend on the labels)")
+        else:
+            options = {"gamma": float(machine._gamma)}
+            if machine.kernel == "poly":
+                options.update(degree=machine.degree, coef0=float(machine.coef0))
+            self.train = pairwise_kernels(scaled_train, scaled_train, metric=machine.kernel,
+                                          **options)
+            self.test = pairwise_kernels(scaled_test, scaled_train, metric=machine.kernel,
+                                         **options)
+            self.solver = clone(machine).set_params(kernel="precomputed")
+            self.words = ("each refit on the kernel matrix of the training rows, computed "
+                          "once (it does not depend on the labels)")
+        self.target = reference.transformer if self.regression else None
+
+    @classmethod
+    def usable(cls, run, rows: np.ndarray) -> bool:
+        """Whether every fit of ``run`` on ``rows`` uses those rows alone, whatever the
+        labels: a kernel model with no permuted copies and no sample drawn by the labels."""
+        step = run.step
+        if run.kernel_method is None or run.copy_values is not None:
+            return False
+        if run.kernel_mode == "sample":
+            return len(rows) <= step.kernel_row_limit
+        if run.kernel_mode == "nystroem":
+            return len(rows) <= NYSTROEM_FIT_ROWS
+        return True
+
+    def predict(self, labels: np.ndarray) -> np.ndarray:
+        """Predictions on the test rows of the machine refitted with ``labels`` (one per
+        training row), by the rules of :func:`predict`; solver warnings go to the run's log."""
+        from sklearn.base import clone
+
+        solver = clone(self.solver)
+        if self.regression:
+            from sklearn.compose import TransformedTargetRegressor
+
+            solver = TransformedTargetRegressor(regressor=solver,
+                                                transformer=clone(self.target))
+        solver.fit(self.train, labels)
+        # read off the fitted solver (fits run on threads; see solver_notes)
+        self.run.log.fit_warnings.update(solver_notes(solver, self.train, labels))
+        if self.regression:
+            return solver.predict(self.test)
+        if getattr(solver, "kernel", None) == "precomputed" and len(solver.classes_) == 2:
+            scores = self.test[:, solver.support_] @ solver.dual_coef_[0] \
+                + solver.intercept_[0]
+            return solver.classes_[(scores > 0).astype(np.int64)]
+        return solver.predict(self.test)
 
 
 def _two_class_svc(model):

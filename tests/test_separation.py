@@ -420,6 +420,89 @@ def test_kernel_decision_values_match_scikit_learn(kernel):
     assert np.array_equal(predict(model, fresh), model.predict(fresh))
 
 
+def _nystroem_pipeline(kernel: str, regression: bool):
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.kernel_approximation import Nystroem
+    from sklearn.linear_model import Ridge
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+    from sklearn.svm import LinearSVC
+
+    options = {"kernel": "rbf"} if kernel == "rbf" else {"kernel": "poly", "degree": 2,
+                                                         "coef0": 1.0}
+    features = Nystroem(n_components=120, random_state=3, **options)
+    if regression:
+        return TransformedTargetRegressor(
+            regressor=make_pipeline(StandardScaler(), features, Ridge(alpha=1.0)),
+            transformer=StandardScaler())
+    return make_pipeline(StandardScaler(), features,
+                         LinearSVC(dual=False, class_weight="balanced"))
+
+
+@pytest.mark.parametrize("kernel,classes", [("rbf", 2), ("rbf", 3), ("poly", 2), ("rbf", 0)],
+                         ids=["rbf", "rbf-3-classes", "poly2", "rbf-regression"])
+def test_nystroem_kernel_machines_are_evaluated_as_scikit_learn_does(kernel, classes):
+    # Evaluated through the kernel against the components, a Nystroem machine must give
+    # scikit-learn's own decision values and predictions (Nystroem features, then the
+    # linear machine or ridge).
+    from analysis.separator_models import predictions_and_decision
+
+    rng = np.random.default_rng(8)
+    X = rng.normal(size=(900, 5)) * [1.0, 4.0, 0.2, 2.0, 9.0]
+    if classes == 0:
+        y = X[:, 0] ** 2 + 0.1 * X[:, 1]
+    else:
+        y = np.digitize(X[:, 0] ** 2 + X[:, 2] * 5, [0.8, 1.6][:classes - 1])
+    model = _nystroem_pipeline(kernel, regression=classes == 0).fit(X[:600], y[:600])
+    fresh = X[600:]
+    expected = model.predict(fresh)
+    if classes == 0:
+        assert np.allclose(predict(model, fresh), expected, atol=1e-9)
+        return
+    assert np.array_equal(predict(model, fresh), expected)
+    assert np.allclose(decision(model, fresh), model.decision_function(fresh), atol=1e-6)
+    both, values = predictions_and_decision(model, fresh)
+    assert np.array_equal(both, expected)
+    assert np.allclose(values, model.decision_function(fresh), atol=1e-6)
+
+
+# poly2 on a numeric target is ridge on monomials, not a kernel machine
+@pytest.mark.parametrize("model,mode,regression", [
+    ("rbf", "exact", False), ("poly2", "exact", False), ("rbf", "nystroem", False),
+    ("rbf", "exact", True), ("rbf", "nystroem", True)],
+    ids=["rbf", "poly2", "rbf-nystroem", "rbf-regression", "rbf-nystroem-regression"])
+def test_kernel_refits_from_one_kernel_matrix_match_refits_from_scratch(model, mode,
+                                                                        regression):
+    # The permutation test's refits reuse the kernel matrix (or Nystroem features) of the
+    # training rows: each must predict as the same pipeline fitted from scratch by
+    # scikit-learn on the shuffled labels.
+    from types import SimpleNamespace
+
+    from analysis.separator_models import KernelRefits, fit, make_estimator
+    from analysis.separator_prepare import RunLog
+
+    rng = np.random.default_rng(5)
+    X = rng.integers(-9, 10, size=(700, 4)).astype(float)
+    y = X[:, 0] ** 2 + X[:, 1] * X[:, 2] if regression else \
+        (X[:, 0] ** 2 + X[:, 1] * X[:, 2] > 20).astype(np.int64)
+    step = SeparatorStep(target="t", model=model, seed=2)
+    run = SimpleNamespace(step=step, y=y, X=X, regression=regression, n_classes=2,
+                          kernel_mode=mode, kernel_method=mode, copy_values=None,
+                          log=RunLog())
+    train, test = np.arange(300), np.arange(300, 700)
+    assert KernelRefits.usable(run, train)
+    refits = KernelRefits(run, fit(run, train, seed_offset=1000), X[train], X[test])
+    for shuffle in range(3):
+        labels = np.random.default_rng([shuffle]).permutation(y[train])
+        scratch = make_estimator(step, regression=regression, n_classes=2, kernel_mode=mode,
+                                 n_rows=len(train), seed=step.seed + 1000)
+        expected = scratch.fit(X[train], labels).predict(X[test])
+        if regression:
+            assert np.allclose(refits.predict(labels), expected, atol=1e-6)
+        else:
+            assert np.array_equal(refits.predict(labels), expected)
+
+
 @pytest.mark.parametrize("model", ["logistic", "lda"], ids=["logistic", "lda"])
 def test_other_linear_models_give_equations(iris, model):
     result = SeparatorStep(target="species", positive_class="setosa", model=model, seed=0,
