@@ -731,7 +731,8 @@ def _product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return result
 
 
-def _kernel_on(matrix: RelationMatrix, rows: np.ndarray, rng: np.random.Generator) -> list[list[int]]:
+def _kernel_on(matrix: RelationMatrix, rows: np.ndarray,
+               rng: np.random.Generator) -> list[list[int]]:
     """Reduced basis of the integer relations that hold on every row in ``rows``.
 
     Solved on a random handful of rows, then checked on all of them; a row that breaks a
@@ -758,7 +759,8 @@ def _kernel_on(matrix: RelationMatrix, rows: np.ndarray, rng: np.random.Generato
     return _tidy(basis)
 
 
-def _distinct_count(matrix: RelationMatrix, rows: np.ndarray, support: list[int], enough: int) -> int:
+def _distinct_count(matrix: RelationMatrix, rows: np.ndarray, support: list[int],
+                    enough: int) -> int:
     """Distinct rows over ``support`` columns among ``rows``, counted up to ``enough``."""
     data = matrix.values[rows[: 50 * enough]][:, support]
     if data.dtype == object:
@@ -1331,8 +1333,21 @@ class _Points:
 def _grid_cells(columns) -> int | None:
     if any(c.codes is None for c in columns):
         return None
-    cells = math.prod(c.high - c.low + 1 for c in columns)
+    return grid_cells([(c.low, c.high) for c in columns])
+
+
+def grid_cells(ranges) -> int | None:
+    """The cells of a grid over integer columns whose values span the (low, high) ``ranges``,
+    or None when they are more than GRID_LIMIT (the columns are sorted, not counted)."""
+    cells = math.prod(high - low + 1 for low, high in ranges)
     return cells if cells <= GRID_LIMIT else None
+
+
+def crowded_triple(cells: int | None, rows: int, points: int = 0) -> bool:
+    """Whether the bound search leaves a triple of columns out as too costly: its values fit
+    no grid (``cells`` None) on a table of more than MAX_TRIPLE_POINTS ``rows``, or it has
+    more than MAX_TRIPLE_POINTS distinct ``points``."""
+    return (cells is None and rows > MAX_TRIPLE_POINTS) or points > MAX_TRIPLE_POINTS
 
 
 def distinct_points(columns: list[BoundColumn]) -> _Points:
@@ -2168,7 +2183,7 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
     scales = [c.scale for c in columns]
     integer = all(c.integer for c in columns)
     points = distinct_points(columns)
-    if len(points) > MAX_TRIPLE_POINTS:
+    if crowded_triple(0, 0, len(points)):
         return None  # too many distinct points for a hull in three columns to be cheap
     if len(points) < 4:
         return []
@@ -2333,7 +2348,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 progress.advance()
             chosen = [bound_columns[name] for name in triple]
             # Cheap when the values fit a grid (one counting pass) or the table is small.
-            if _grid_cells(chosen) is None and n > MAX_TRIPLE_POINTS:
+            if crowded_triple(_grid_cells(chosen), n):
                 skipped += 1
                 continue
             triple = _triple_bounds(chosen, row_ids, triple_facts,
