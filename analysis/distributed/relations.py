@@ -54,6 +54,7 @@ def run_relations(step, ctx: Context):
                     triples=triples)
     spec.scales = _scales(ctx, [n for n in exact if table.column(n).dtype == "rational"], spec)
     found = ctx.compute(tree(partition_tasks(ctx, _pass_a, exact, spec), _merge_a))
+    found["scales"] = spec.scales
     wanted = _wanted_points(found, spec)
     extra_positions = np.array(sorted(found["breakers"]), dtype=np.int64)
     located = ctx.compute(partition_tasks(ctx, _locate, names, spec, wanted, extra_positions))
@@ -357,7 +358,8 @@ def _pass_b(frame, offset: int, spec: Settings) -> dict:
         attained = np.flatnonzero(lhs == limit)
         broken = np.flatnonzero(lhs > limit)
         slack = limit - lhs
-        near = int(np.count_nonzero((slack > 0) & (slack <= near_limit)))
+        cut = math.floor(near_limit) if lhs.dtype != object else near_limit
+        near = int(np.count_nonzero((slack > 0) & (slack <= cut)))
         out["bounds"].append((int(present.sum()), len(attained),
                               these[attained[: spec.limit]], near, len(broken),
                               these[broken[: spec.limit]]))
@@ -399,16 +401,23 @@ def _floats(column) -> np.ndarray:
 
 
 
-def _bound_spec(bound) -> tuple:
-    """(integer coefs, columns, limit, near limit) of ``sum <= limit`` form of a bound."""
+def _bound_spec(bound, scales: dict, floored: bool) -> tuple:
+    """(integer coefs, columns, limit K, near limit) of the ``sum <= K`` form of a bound.
+
+    A row is near the bound when its slack is positive and at most the near limit, judged as
+    the in-memory search judges it: in its columns' scaled units (``scales``, see
+    :func:`_scales`) with the bound's primitive integer coefficients there, its margin
+    rounded down when its sums are int64 (``floored``)."""
     sign = 1 if bound.relation == "<=" else -1
     coefs = [Fraction(c) * sign for _, c in bound.terms]
     constant = Fraction(bound.constant) * sign
-    margin = Fraction(bound.near_margin)
     scale = math.lcm(*(c.denominator for c in coefs), constant.denominator)
-    ints = [int(c * scale) for c in coefs]
-    limit = int(constant * scale)
-    return ints, [name for name, _ in bound.terms], limit, math.floor(margin * scale)
+    on_scaled = [c / scales.get(name, 1) for (name, _), c in zip(bound.terms, coefs)]
+    common = math.lcm(*(c.denominator for c in on_scaled))
+    factor = Fraction(common, math.gcd(*(int(c * common) for c in on_scaled)))
+    margin = Fraction(bound.near_margin) * factor
+    near = (math.floor(margin) if floored else margin) * scale / factor
+    return [int(c * scale) for c in coefs], [n for n, _ in bound.terms], int(constant * scale), near
 
 
 def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict):
@@ -435,7 +444,9 @@ def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict)
     spec = Settings(
         table=dataclasses.replace(table, frame=None), exact=exact, real=real,
         relations=[_vector(r, exact) for r in every] + [v for _, v in candidates],
-        bounds=[_bound_spec(b) for b in second.bounds],
+        bounds=[_bound_spec(b, found["scales"], all(table.column(n).dtype != "big integer"
+                                                     for n, _ in b.terms))
+                for b in second.bounds],
         approximate=[([n for n, _ in r.terms], [float(c) for _, c in r.terms],
                       float(r.constant)) for r in second.approximate],
         congruences=list(congruences), tolerance=float(step.tolerance),
