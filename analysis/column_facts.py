@@ -735,6 +735,19 @@ def _like(empty: dict, other: dict) -> dict:
     return out
 
 
+def marked_texts(values: list, offset: int = 0) -> dict[int, str]:
+    """The texts of the cells of a marked column that are intervals or words, by position
+    (``offset`` plus the cell's place in ``values``): what ``Table.marks`` keeps of them."""
+    texts = {}
+    for place, value in enumerate(values):
+        kind, parsed = read_marked_cell(value)
+        if kind == "interval":
+            texts[offset + place] = str(value).strip()
+        elif kind == "word":
+            texts[offset + place] = parsed
+    return texts
+
+
 def marked_facts(values: list, positions) -> dict | None:
     """What a run of filled cells says about reading its column as marked numbers.
 

@@ -5,10 +5,20 @@ from __future__ import annotations
 
 import numpy as np
 
+from analysis.column_facts import marked_texts, typed_block
 from analysis.distributed.common import Context, tree
 from analysis.notes import Note
 from analysis.overview import CORRELATION_ROWS as IN_MEMORY_CORRELATION_ROWS
-from analysis.overview import ColumnSummary, OverviewResult, strong_pairs
+from analysis.overview import (
+    SECOND_HASH_KEY,
+    ColumnSummary,
+    OverviewResult,
+    Repeats,
+    repeats_among,
+    row_fingerprints,
+    strong_pairs,
+    with_repeats,
+)
 
 
 def run_overview(step, ctx: Context) -> OverviewResult:
@@ -21,10 +31,40 @@ def run_overview(step, ctx: Context) -> OverviewResult:
                               "all rows (the in-memory engine uses a sample of "
                               f"{IN_MEMORY_CORRELATION_ROWS} rows here).",
                               sample=IN_MEMORY_CORRELATION_ROWS))
+    repeats = _repeats(ctx)
     return OverviewResult(
         table=table.name, digest=table.digest, rows=table.n_rows, columns=summaries,
-        warnings=table.warnings, id_column=table.id_column, correlations=correlations or (),
+        warnings=with_repeats(table.warnings, repeats), id_column=table.id_column,
+        correlations=correlations or (), repeated_rows=repeats.count,
     )
+
+
+def _repeats(ctx: Context) -> Repeats:
+    """The rows equal to an earlier row, as the in-memory overview finds them: two
+    fingerprints per row from one pass; a pair counts when both agree (the rows themselves
+    stay in their partitions)."""
+    from dask import delayed
+
+    table = ctx.table
+    if table.id_column is not None or table.n_rows < 2:
+        return Repeats()
+    dtypes = {c.name: c.dtype for c in table.columns}
+    marked = [c.name for c in table.columns if c.intervals or c.markers]
+    names = [c.name for c in table.columns]
+    offsets = table.offsets
+    pairs = ctx.compute([
+        delayed(_fingerprints)(part, int(offsets[k]), table.conversions, dtypes, marked)
+        for k, part in enumerate(table.frame[names].to_delayed())])
+    first = np.concatenate([a for a, _ in pairs])
+    second = np.concatenate([b for _, b in pairs])
+    return repeats_among(first, lambda rows, firsts: second[rows] == second[firsts])
+
+
+def _fingerprints(raw, offset: int, conversions, dtypes: dict, marked: list):
+    typed = typed_block(raw, conversions)
+    texts = {name: marked_texts(raw[name].tolist(), offset) for name in marked}
+    return (row_fingerprints(typed, dtypes, texts, offset),
+            row_fingerprints(typed, dtypes, texts, offset, hash_key=SECOND_HASH_KEY))
 
 
 def _summarize(table, info) -> ColumnSummary:

@@ -6,6 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
+from analysis.relations import NEAR_MEANING
 from analysis.report import FOLD_LIMIT
 from app import display, settings
 from app.figure_view import show_figures
@@ -74,7 +75,8 @@ def show(ctx: settings.StepContext, result) -> None:
             "bound": b.text, "attained by": b.attained_count, "close to it": b.near,
             "some objects attaining it": _ids(b.attained_by, total=b.attained_count),
             **_consistent_cell(result, b)} for b in holding]),
-            hide_index=True, key=ctx.key("bounds"))
+            hide_index=True, key=ctx.key("bounds"),
+            column_config={"close to it": st.column_config.NumberColumn(help=NEAR_MEANING)})
     else:
         st.caption("None found (or the search for bounds is off).")
     if near:
