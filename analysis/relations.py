@@ -1069,7 +1069,7 @@ def _relations_among_partial(columns, core: list[str], partial: list[str], rng) 
     found = []
     for group, rows in _partial_groups(columns, core, partial):
         names = core + group
-        lattice = _kernel_on(_Matrix([columns[c][0] for c in names], rows),
+        lattice = _kernel_on(RelationMatrix([columns[c][0] for c in names], rows),
                              np.arange(len(rows)), rng)
         # relations with at most one of the group's columns were searched column by column
         tracker = RankTracker()
@@ -1099,7 +1099,7 @@ def _partial_groups(columns, core: list[str], partial: list[str]) -> list:
     rows = np.flatnonzero(~missing.any(axis=1))
     width = len(core) + len(partial) + 1
     if len(rows) >= 2 * width:
-        matrix = _Matrix([columns[c][0] for c in core + partial], rows)
+        matrix = RelationMatrix([columns[c][0] for c in core + partial], rows)
         if _distinct_count(matrix, np.arange(len(rows)), list(range(width - 1)),
                            2 * width) >= 2 * width:
             return [(partial, rows)]
@@ -1116,7 +1116,7 @@ def _held_where_present(columns, names: list[str], vector, involved: list[str]):
     with missing values it uses) are present; None when one of those rows breaks it."""
     missing = np.column_stack([columns[name][1] for name in involved])
     rows = np.flatnonzero(~missing.any(axis=1))
-    if _Matrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
+    if RelationMatrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
         return None
     shown = " and ".join(f"'{name}'" for name in involved)
     return _relation_from_vector(
