@@ -55,9 +55,10 @@ def run_relations(step, ctx: Context):
     spec.scales = _scales(ctx, [n for n in exact if table.column(n).dtype == "rational"], spec)
     found = ctx.compute(tree(partition_tasks(ctx, _pass_a, exact, spec), _merge_a))
     found["scales"] = spec.scales
-    wanted = _wanted_points(found, spec)
     extra_positions = np.array(sorted(found["breakers"]), dtype=np.int64)
-    located = ctx.compute(partition_tasks(ctx, _locate, names, spec, wanted, extra_positions))
+    # numpy arrays, so that dask does not walk through them as collections
+    located = ctx.compute(partition_tasks(ctx, _locate, names, spec, found["corners"],
+                                          extra_positions))
     frame, all_positions = _candidate_rows(sample, positions, located, names, table)
     # the rows searched rank bounds by their own counts: keep them all, rank them again
     # by the counts on every row, then cut as the in-memory step does
@@ -167,62 +168,81 @@ def _bound_candidates(table, exact):
 
 
 def _pass_a(frame, offset: int, spec: Settings) -> dict:
+    """On one partition: rows that break the sample's relations (the first at each way of
+    breaking them, as many as span those ways), the corners of the hull of every column,
+    pair and triple of the bound search, and the distinct points of each triple."""
     from analysis import relations as rel
 
     columns, _, _ = _read(frame, offset, spec, spec.exact)
-    out: dict = {"breakers": {}}
     projected = _products(columns, spec.exact, spec.generators, len(frame))
     rows = np.flatnonzero((projected != 0).any(axis=1))
-    if len(rows):
-        distinct, first = _first_distinct(projected[rows])
-        for i in _independent(distinct, len(spec.generators)):
-            out["breakers"][offset + int(rows[first[i]])] = distinct[i]
+    out: dict = {"breakers": _spanning(_first_distinct(projected[rows], offset + rows),
+                                       len(spec.generators)),
+                 "corners": {}, "points": {}, "rank": len(spec.generators)}
     bound = _bound_columns(columns, spec)
-    out["ranges"] = {n: (c.low, c.high) if c.distinct else None for n, c in bound.items()}
-    out["pairs"] = {}
-    for a, b in combinations(spec.pairs, 2):
-        points = rel.distinct_points([bound[a], bound[b]])
-        corners = rel.exact_hull(rel.extremes(*points.coords)) if len(points) else []
-        out["pairs"][(a, b)] = _array(corners, 2)
-    out["triples"] = {}
-    for combo in combinations(spec.triples, 3):
-        data = np.column_stack(rel.distinct_points([bound[c] for c in combo]).coords)
-        if data.dtype == object:
-            out["triples"][combo] = None   # no bounds in three columns past 64 bits
-        else:
-            out["triples"][combo] = (_hull_corners(rel.triple_candidates(data)) if len(data)
-                                     else data, _capped(data))
+    for name, column in bound.items():
+        out["corners"][(name,)] = _corners(column.values[~column.missing].reshape(-1, 1))
+    for pair in combinations(spec.pairs, 2):
+        points = rel.distinct_points([bound[n] for n in pair])
+        out["corners"][pair] = _corners(rel.extremes(*points.coords) if len(points)
+                                        else np.zeros((0, 2), dtype=np.int64))
+    for triple in combinations(spec.triples, 3):
+        data = np.column_stack(rel.distinct_points([bound[n] for n in triple]).coords)
+        # integers past 64 bits take no part in bounds in three columns
+        out["points"][triple] = None if data.dtype == object else _capped(data)
+        out["corners"][triple] = _corners(
+            rel.triple_candidates(data) if data.dtype != object and len(data) else data[:0])
     return out
 
 
-def _first_distinct(projected: np.ndarray) -> tuple[list, list]:
-    """The distinct rows of ``projected`` (sorted, as Python integers) and where each first
-    occurs."""
+def _merge_a(a: dict, b: dict) -> dict:
+    corners = {k: _corners(np.concatenate([a["corners"][k], b["corners"][k]]))
+               for k in a["corners"]}
+    points = {k: None if x is None or b["points"][k] is None else
+              _capped(np.unique(np.vstack([x, b["points"][k]]), axis=0))
+              for k, x in a["points"].items()}
+    return {"breakers": _spanning({**a["breakers"], **b["breakers"]}, a["rank"]),
+            "corners": corners, "points": points, "rank": a["rank"]}
+
+
+def _first_distinct(projected: np.ndarray, positions: np.ndarray) -> dict:
+    """{position: vector} of the first row at each distinct row of ``projected``."""
     if projected.dtype != object:
         distinct, first = np.unique(projected, axis=0, return_index=True)
-        return [list(map(int, v)) for v in distinct], first.tolist()
+        return {int(positions[i]): list(map(int, v)) for v, i in zip(distinct, first)}
     firsts: dict = {}
-    for i, row in enumerate(map(tuple, projected.tolist())):
-        firsts.setdefault(row, i)
-    ordered = sorted(firsts)
-    return [list(v) for v in ordered], [firsts[v] for v in ordered]
+    for position, row in zip(positions.tolist(), map(tuple, projected.tolist())):
+        firsts.setdefault(row, position)
+    return {position: list(row) for row, position in firsts.items()}
 
 
-def _array(points, width: int) -> np.ndarray:
-    """Points (tuples of exact numbers) as one array: int64 when they fit, else objects."""
-    return np.array(points).reshape(-1, width) if len(points) else \
-        np.zeros((0, width), dtype=np.int64)
+def _spanning(vectors: dict, rank: int) -> dict:
+    """Of {position: vector}, the first by position that add to the span of those before
+    (exactly), up to ``rank`` of them: rows that break relations in every way rows do."""
+    from analysis.relations import RankTracker
+
+    tracker = RankTracker()
+    kept = {}
+    for position, vector in sorted(vectors.items()):
+        if len(kept) == rank:
+            break  # the span is full: no later vector adds to it
+        if tracker.add(vector):
+            kept[position] = vector
+    return kept
 
 
-def _capped(points: np.ndarray):
-    """Distinct points of a triple, or None past the count the in-memory search takes."""
+def _corners(points: np.ndarray) -> np.ndarray:
+    """Of points in one, two or three columns (rows, exact): those that can be corners of
+    their hull, the least and greatest of one column, the vertices of two or three."""
     from analysis import relations as rel
 
-    return None if rel.crowded_triple(0, 0, len(points)) else points
-
-
-def _hull_corners(unique: np.ndarray) -> np.ndarray:
-    """The vertices of the hull of distinct points (all of them when the hull is flat)."""
+    if not len(points):
+        return points
+    if points.shape[1] == 1:
+        return points[[np.argmin(points[:, 0]), np.argmax(points[:, 0])]]
+    if points.shape[1] == 2:
+        return np.array(rel.exact_hull(points)).reshape(-1, 2)
+    unique = np.unique(points, axis=0)
     if len(unique) < 5:
         return unique
     from scipy.spatial import ConvexHull, QhullError
@@ -235,64 +255,11 @@ def _hull_corners(unique: np.ndarray) -> np.ndarray:
     return unique[np.sort(hull.vertices)]
 
 
-def _merge_a(a: dict, b: dict) -> dict:
+def _capped(points: np.ndarray):
+    """Distinct points of a triple, or None past the count the in-memory search takes."""
     from analysis import relations as rel
 
-    breakers = dict(a["breakers"])
-    tracker = rel.RankTracker()
-    for vector in breakers.values():
-        tracker.add(vector)
-    for position, vector in sorted(b["breakers"].items()):
-        if tracker.add(vector):
-            breakers[position] = vector
-    ranges = {}
-    for name, x in a["ranges"].items():
-        y = b["ranges"][name]
-        ranges[name] = x if y is None else y if x is None else (min(x[0], y[0]),
-                                                                max(x[1], y[1]))
-    pairs = {k: _array(rel.exact_hull(np.concatenate([a["pairs"][k], b["pairs"][k]])), 2)
-             for k in a["pairs"]}
-    triples = {}
-    for k, x in a["triples"].items():
-        y = b["triples"][k]
-        if x is None or y is None:
-            triples[k] = None
-            continue
-        corners = _hull_corners(np.unique(np.vstack([x[0], y[0]]), axis=0))
-        both = None if x[1] is None or y[1] is None else \
-            _capped(np.unique(np.vstack([x[1], y[1]]), axis=0))
-        triples[k] = (corners, both)
-    return {"breakers": breakers, "ranges": ranges, "pairs": pairs, "triples": triples}
-
-
-def _independent(vectors: list[list[int]], rank: int) -> list[int]:
-    """Indices of a greedy maximal linearly independent subset of vectors of rank at most
-    ``rank`` (exact)."""
-    from analysis.relations import RankTracker
-
-    tracker = RankTracker()
-    chosen = []
-    for index, vector in enumerate(vectors):
-        if len(chosen) == rank:
-            break  # the span is full: no later vector adds to it
-        if tracker.add(vector):
-            chosen.append(index)
-    return chosen
-
-
-def _wanted_points(found: dict, spec: Settings) -> dict:
-    """{columns tuple: array of points} whose rows the second search needs."""
-    wanted: dict = {}
-    for columns, corners in found["pairs"].items():
-        wanted[columns] = corners
-    for combo, triple in found["triples"].items():
-        if triple is not None:
-            wanted[combo] = triple[0]
-    for name, extent in found["ranges"].items():
-        if extent is not None:
-            wanted[(name,)] = _array([(extent[0],), (extent[1],)], 1)
-    # numpy arrays, so that dask does not walk through them as collections
-    return wanted
+    return None if rel.crowded_triple(0, 0, len(points)) else points
 
 
 def _locate(frame, offset: int, spec: Settings, wanted: dict, positions: np.ndarray):
@@ -522,11 +489,11 @@ def _drop_crowded_triples(bounds, found, rows: int):
     from analysis import relations as rel
 
     crowded = set()
-    for combo, triple in found["triples"].items():
-        cells = rel.grid_cells([found["ranges"][n] for n in combo])
-        if triple is None or triple[1] is None or rel.crowded_triple(cells, rows,
-                                                                     len(triple[1])):
-            crowded.add(frozenset(combo))
+    for triple, points in found["points"].items():
+        cells = rel.grid_cells([tuple(map(int, found["corners"][(n,)][:, 0]))
+                                for n in triple])
+        if points is None or rel.crowded_triple(cells, rows, len(points)):
+            crowded.add(frozenset(triple))
     return [b for b in bounds
             if len(b.terms) != 3 or frozenset(n for n, _ in b.terms) not in crowded]
 
