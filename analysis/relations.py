@@ -1941,6 +1941,24 @@ def recounted_note(bound: Bound, attaining: int) -> str:
     return listed_note(joined_note(*parts), attaining)
 
 
+def bound_counts(combined: np.ndarray, constant, margin, weights: np.ndarray | None = None):
+    """(attained, broken, near) of the bound ``sum <= constant`` on the values ``combined`` of
+    its left side: where it is attained and where broken (boolean arrays), and how many rows
+    (``weights`` per value, 1 if None) come close to it, below it by at most ``margin``
+    (rounded down where the values and the constant are integers)."""
+    constant = Fraction(constant)
+    if combined.dtype != object and constant.denominator == 1:
+        # Compare integers with integers: a Fraction would turn the arrays into objects.
+        constant, limit = int(constant), math.floor(margin)
+    else:
+        limit = margin
+    slack = constant - combined
+    close = np.asarray((slack > 0) & (slack <= limit), dtype=bool)
+    near = int(np.count_nonzero(close) if weights is None else weights[close].sum())
+    return (np.asarray(combined == constant, dtype=bool),
+            np.asarray(combined > constant, dtype=bool), near)
+
+
 def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
     """Bound sum(coefs*columns) <= constant, judged on the distinct points.
 
@@ -1951,15 +1969,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scale
     shown_coefs, divisor = _unscaled(coefs, scales)
     shown_constant = constant / divisor
     margin = near_margin(combined, points.weights, constant, integer)
-    if combined.dtype != object and constant.denominator == 1:
-        # Compare integers with integers: a Fraction would turn the arrays into objects.
-        constant, limit = int(constant), math.floor(margin)
-    else:
-        limit = margin
-    attained = combined == constant
-    broken = combined > constant
-    slack = constant - combined
-    near = int(points.weights[(slack > 0) & (slack <= limit)].sum())
+    attained, broken, near = bound_counts(combined, constant, margin, points.weights)
     attaining_rows = points.rows_at(attained)
     breaking_rows = points.rows_at(broken)
     terms, relation, shown = _oriented(list(zip(names, shown_coefs)), shown_constant)

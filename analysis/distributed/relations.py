@@ -301,7 +301,7 @@ def _candidate_rows(sample, positions, located, names, table):
 
 
 # Pass B's settings: exact and real column names; relations (integer vectors over the exact
-# columns and the constant); bounds (integer coefs, columns, limit K of sum <= K, near limit);
+# columns and the constant); bounds (see _bound_spec) and the rational columns' scales;
 # approximate relations (names, float coefs, constant); congruences (terms, modulus,
 # residue); tolerance; limit (row ids kept per list).
 
@@ -318,18 +318,15 @@ def _pass_b(frame, offset: int, spec: Settings) -> dict:
         bad = np.flatnonzero(projected[:, j] != 0)
         present = int(_present(columns, spec.exact, vector).sum())
         out["relations"].append((len(bad), ids[bad[: spec.limit]], present))
-    for coefs, names, limit, near_limit in spec.bounds:
-        present = ~np.any([columns[n][1] for n in names], axis=0)
-        lhs = rel.combine(coefs, [columns[n][0][present] for n in names])
+    scaled = _bound_columns(columns, spec) if spec.bounds else {}
+    for coefs, names, constant, margin in spec.bounds:
+        present = ~np.any([scaled[n].missing for n in names], axis=0)
+        lhs = rel.combine(coefs, [scaled[n].values[present] for n in names])
+        attained, broken, near = rel.bound_counts(lhs, constant, margin)
         these = ids[present]
-        attained = np.flatnonzero(lhs == limit)
-        broken = np.flatnonzero(lhs > limit)
-        slack = limit - lhs
-        cut = math.floor(near_limit) if lhs.dtype != object else near_limit
-        near = int(np.count_nonzero((slack > 0) & (slack <= cut)))
-        out["bounds"].append((int(present.sum()), len(attained),
-                              these[attained[: spec.limit]], near, len(broken),
-                              these[broken[: spec.limit]]))
+        out["bounds"].append((int(present.sum()), int(attained.sum()),
+                              these[attained][: spec.limit], near, int(broken.sum()),
+                              these[broken][: spec.limit]))
     for names, coefs, constant in spec.approximate:
         data = np.column_stack([_floats(columns[n]) if n in columns else reals[n]
                                 for n in names] + [np.ones(len(frame))])
@@ -368,23 +365,17 @@ def _floats(column) -> np.ndarray:
 
 
 
-def _bound_spec(bound, scales: dict, floored: bool) -> tuple:
-    """(integer coefs, columns, limit K, near limit) of the ``sum <= K`` form of a bound.
-
-    A row is near the bound when its slack is positive and at most the near limit, judged as
-    the in-memory search judges it: in its columns' scaled units (``scales``, see
-    :func:`_scales`) with the bound's primitive integer coefficients there, its margin
-    rounded down when its sums are int64 (``floored``)."""
+def _bound_spec(bound, scales: dict) -> tuple:
+    """(coefficients, columns, constant, margin) of a bound as the in-memory search judged
+    it: ``sum(coef * column) <= constant`` on its columns in their scaled units (see
+    :func:`_scales`), with primitive integer coefficients, and the margin of rows close to
+    it in those units."""
     sign = 1 if bound.relation == "<=" else -1
-    coefs = [Fraction(c) * sign for _, c in bound.terms]
-    constant = Fraction(bound.constant) * sign
-    scale = math.lcm(*(c.denominator for c in coefs), constant.denominator)
-    on_scaled = [c / scales.get(name, 1) for (name, _), c in zip(bound.terms, coefs)]
+    on_scaled = [sign * Fraction(c) / scales.get(name, 1) for name, c in bound.terms]
     common = math.lcm(*(c.denominator for c in on_scaled))
     factor = Fraction(common, math.gcd(*(int(c * common) for c in on_scaled)))
-    margin = Fraction(bound.near_margin) * factor
-    near = (math.floor(margin) if floored else margin) * scale / factor
-    return [int(c * scale) for c in coefs], [n for n, _ in bound.terms], int(constant * scale), near
+    return ([int(c * factor) for c in on_scaled], [name for name, _ in bound.terms],
+            sign * Fraction(bound.constant) * factor, Fraction(bound.near_margin) * factor)
 
 
 def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict):
@@ -411,9 +402,7 @@ def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict)
     spec = Settings(
         table=dataclasses.replace(table, frame=None), exact=exact, real=real,
         relations=[_vector(r, exact) for r in every] + [v for _, v in candidates],
-        bounds=[_bound_spec(b, found["scales"], all(table.column(n).dtype != "big integer"
-                                                     for n, _ in b.terms))
-                for b in second.bounds],
+        scales=found["scales"], bounds=[_bound_spec(b, found["scales"]) for b in second.bounds],
         approximate=[([n for n, _ in r.terms], [float(c) for _, c in r.terms],
                       float(r.constant)) for r in second.approximate],
         congruences=list(congruences), tolerance=float(step.tolerance),
