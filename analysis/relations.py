@@ -2544,11 +2544,15 @@ def _approximate_columns(real_columns: Mapping, columns: dict, notes: list[str])
             "columns besides the real-valued ones", searched=max(room, 0), columns=len(extra),
         ))
     for name in extra[: max(room, 0)]:
-        values, missing = columns[name]
-        as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
-        as_float[missing] = np.nan
-        data[name] = as_float
+        data[name] = float_column(*columns[name])
     return data
+
+
+def float_column(values: np.ndarray, missing: np.ndarray) -> np.ndarray:
+    """An exact column (as :func:`exact_column` gives it) as float64, NaN where missing."""
+    as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
+    as_float[missing] = np.nan
+    return as_float
 
 
 def find_relations(

@@ -130,26 +130,22 @@ def _vector(relation, names: list[str]):
     return vector
 
 
-def _products(columns: dict, names: list[str], vectors: list, size: int) -> np.ndarray:
-    """Rows times relations over ``names`` (exactly), zero where one of a relation's columns
-    is missing: a relation counts only the rows where its columns are present, as in
-    memory. Nonzero exactly where a row breaks a relation."""
+def _products(columns: dict, names: list[str], vectors: list, size: int) -> tuple:
+    """(rows times relations over ``names``, exactly; rows where each relation's columns are
+    present): a relation counts only those rows, as in memory, and its product is zero on
+    the others. Nonzero exactly where a row breaks a relation."""
     from analysis import relations as rel
 
+    present = np.ones((size, len(vectors)), dtype=bool)
     if not vectors:
-        return np.zeros((size, 0), dtype=np.int64)
-    matrix = rel.RelationMatrix([columns[n][0] for n in names], np.arange(size))
-    projected = matrix.products(vectors)
+        return np.zeros((size, 0), dtype=np.int64), present
     for j, vector in enumerate(vectors):
-        projected[~_present(columns, names, vector), j] = 0
-    return projected
-
-
-def _present(columns: dict, names: list[str], vector) -> np.ndarray:
-    """Rows where every column with a nonzero coefficient in ``vector`` has a value."""
-    size = len(next(iter(columns.values()))[0])
-    gone = [columns[n][1] for n, c in zip(names, vector) if c]
-    return ~np.any(gone, axis=0) if gone else np.ones(size, dtype=bool)
+        gone = [columns[n][1] for n, c in zip(names, vector) if c]
+        present[:, j] = ~np.any(gone, axis=0) if gone else True
+    projected = rel.RelationMatrix([columns[n][0] for n in names], np.arange(size)).products(
+        vectors)
+    projected[~present] = 0
+    return projected, present
 
 
 def _bound_candidates(table, exact):
@@ -174,7 +170,7 @@ def _pass_a(frame, offset: int, spec: Settings) -> dict:
     from analysis import relations as rel
 
     columns, _, _ = _read(frame, offset, spec, spec.exact)
-    projected = _products(columns, spec.exact, spec.generators, len(frame))
+    projected = _products(columns, spec.exact, spec.generators, len(frame))[0]
     rows = np.flatnonzero((projected != 0).any(axis=1))
     out: dict = {"breakers": _spanning(_first_distinct(projected[rows], offset + rows),
                                        len(spec.generators)),
@@ -207,13 +203,10 @@ def _merge_a(a: dict, b: dict) -> dict:
 
 def _first_distinct(projected: np.ndarray, positions: np.ndarray) -> dict:
     """{position: vector} of the first row at each distinct row of ``projected``."""
-    if projected.dtype != object:
-        distinct, first = np.unique(projected, axis=0, return_index=True)
-        return {int(positions[i]): list(map(int, v)) for v, i in zip(distinct, first)}
-    firsts: dict = {}
-    for position, row in zip(positions.tolist(), map(tuple, projected.tolist())):
-        firsts.setdefault(row, position)
-    return {position: list(row) for row, position in firsts.items()}
+    import pandas as pd
+
+    first = ~pd.DataFrame(projected).duplicated().to_numpy()
+    return {int(p): list(map(int, v)) for p, v in zip(positions[first], projected[first])}
 
 
 def _spanning(vectors: dict, rank: int) -> dict:
@@ -307,42 +300,42 @@ def _candidate_rows(sample, positions, located, names, table):
 
 
 def _pass_b(frame, offset: int, spec: Settings) -> dict:
-    """Per statement, on one partition: the rows it counts, those breaking (attaining, near)
-    it, and the first ids of those rows."""
+    """Per statement, on one partition: (rows it counts, rows breaking it, their first ids);
+    for a bound, the same of the rows attaining it and how many come close between."""
     from analysis import relations as rel
 
     columns, reals, ids = _read(frame, offset, spec, spec.exact + spec.real)
     out = {"relations": [], "bounds": [], "approximate": [], "congruences": []}
-    projected = _products(columns, spec.exact, spec.relations, len(frame))
-    for j, vector in enumerate(spec.relations):
-        bad = np.flatnonzero(projected[:, j] != 0)
-        present = int(_present(columns, spec.exact, vector).sum())
-        out["relations"].append((len(bad), ids[bad[: spec.limit]], present))
+    projected, present = _products(columns, spec.exact, spec.relations, len(frame))
+    for j in range(len(spec.relations)):
+        out["relations"].append(_tally(present[:, j], projected[:, j] != 0, ids, spec.limit))
     scaled = _bound_columns(columns, spec) if spec.bounds else {}
     for coefs, names, constant, margin in spec.bounds:
-        present = ~np.any([scaled[n].missing for n in names], axis=0)
-        lhs = rel.combine(coefs, [scaled[n].values[present] for n in names])
+        rows = ~np.any([scaled[n].missing for n in names], axis=0)
+        lhs = rel.combine(coefs, [scaled[n].values[rows] for n in names])
         attained, broken, near = rel.bound_counts(lhs, constant, margin)
-        these = ids[present]
-        out["bounds"].append((int(present.sum()), int(attained.sum()),
-                              these[attained][: spec.limit], near, int(broken.sum()),
-                              these[broken][: spec.limit]))
+        out["bounds"].append((*_tally(rows, attained, ids[rows], spec.limit), near,
+                              *_tally(rows, broken, ids[rows], spec.limit)[1:]))
     for names, coefs, constant in spec.approximate:
-        data = np.column_stack([_floats(columns[n]) if n in columns else reals[n]
+        data = np.column_stack([rel.float_column(*columns[n]) if n in columns else reals[n]
                                 for n in names] + [np.ones(len(frame))])
         finite = np.isfinite(data).all(axis=1)
         full = np.append(np.asarray(coefs, dtype=float), -constant)
-        off = np.flatnonzero(rel.approximately_off(data[finite], full, spec.tolerance))
-        out["approximate"].append((int(finite.sum()), len(off),
-                                   ids[finite][off[: spec.limit]]))
+        off = rel.approximately_off(data[finite], full, spec.tolerance)
+        out["approximate"].append(_tally(finite, off, ids[finite], spec.limit))
     for terms, modulus, residue in spec.congruences:
-        present = ~np.any([columns[n][1] for n, _ in terms], axis=0)
+        rows = ~np.any([columns[n][1] for n, _ in terms], axis=0)
         # reduced first: no product can overflow, and integers of any size reduce exactly
         total = sum((c % modulus) * np.asarray(columns[n][0] % modulus).astype(np.int64)
                     for n, c in terms)
-        broken = np.flatnonzero(present & (total % modulus != residue))
-        out["congruences"].append((int(present.sum()), len(broken), ids[broken[: spec.limit]]))
+        out["congruences"].append(_tally(rows, rows & (total % modulus != residue), ids,
+                                         spec.limit))
     return out
+
+
+def _tally(counted: np.ndarray, breaking: np.ndarray, ids: np.ndarray, limit: int) -> tuple:
+    """(rows counted, rows breaking, the first ``limit`` ids of those) from boolean masks."""
+    return int(np.count_nonzero(counted)), int(np.count_nonzero(breaking)), ids[breaking][:limit]
 
 
 def _added(a, b, limit: int):
@@ -354,14 +347,6 @@ def _added(a, b, limit: int):
     if isinstance(a, (list, tuple)):
         return type(a)(_added(x, y, limit) for x, y in zip(a, b))
     return a + b
-
-
-def _floats(column) -> np.ndarray:
-    """An exact column (values, missing) as float64, NaN where missing."""
-    values, missing = column
-    floats = np.array([float(v) for v in values.tolist()], dtype=np.float64)
-    floats[missing] = np.nan
-    return floats
 
 
 
@@ -447,7 +432,7 @@ def _settled_relations(every, candidates, exact, counts, allowed: int, notes: li
     from analysis import relations as rel
 
     every_counts = counts[: len(every)]
-    broken = [r.text for r, (count, _, _) in zip(every, every_counts) if count]
+    broken = [r.text for r, (_, count, _) in zip(every, every_counts) if count]
     if broken:
         # cannot happen when the breaking rows were gathered; say so rather than hide it
         notes.append(Note(
@@ -455,14 +440,14 @@ def _settled_relations(every, candidates, exact, counts, allowed: int, notes: li
             "relations of the rows searched that other rows break, left out: "
             + "; ".join(broken)))
     settled = [dataclasses.replace(r, holds_on=present)
-               for r, (count, _, present) in zip(every, every_counts) if not count]
+               for r, (present, count, _) in zip(every, every_counts) if not count]
     tracker = rel.RankTracker()
     for relation in every:
         tracker.add(_vector(relation, exact))
     robust = []
-    for (relation, vector), (count, ids, present) in sorted(
+    for (relation, vector), (present, count, ids) in sorted(
             zip(candidates, counts[len(every):]),
-            key=lambda item: rel.robust_rank(item[1][0], item[0][1])):
+            key=lambda item: rel.robust_rank(item[1][1], item[0][1])):
         if not 0 < count <= allowed or not tracker.add(vector):
             continue
         robust.append(dataclasses.replace(
