@@ -47,11 +47,10 @@ def run_relations(step, ctx: Context):
     sample, positions = sample_table(table, ctx.client, SAMPLE_ROWS, seed=step.seed,
                                      columns=names)
     first = step.run(sample)
-    generators = [_vector(r, exact) for r in first.relations if r.exact and not r.violations]
     pairs, triples = _bound_candidates(table, exact)
-    spec = Settings(table=dataclasses.replace(table, frame=None), exact=exact,
-                    generators=[g for g in generators if g is not None], pairs=pairs,
-                    triples=triples)
+    spec = Settings(table=dataclasses.replace(table, frame=None), exact=exact, pairs=pairs,
+                    triples=triples, generators=[_vector(r, exact) for r in first.relations
+                                                 if r.exact and not r.violations])
     spec.scales = _scales(ctx, [n for n in exact if table.column(n).dtype == "rational"], spec)
     found = ctx.compute(tree(partition_tasks(ctx, _pass_a, exact, spec), _merge_a))
     found["scales"] = spec.scales
@@ -104,10 +103,8 @@ def _scales(ctx: Context, rationals: list[str], spec: Settings) -> dict:
     """{rational column: the least common multiple of its denominators over every row}."""
     if not rationals:
         return {}
-    spec.scales = {}
-    found = ctx.compute(tree(partition_tasks(ctx, _denominators, rationals, spec, rationals),
-                             lambda a, b: {n: math.lcm(a[n], b[n]) for n in a}))
-    return found
+    return ctx.compute(tree(partition_tasks(ctx, _denominators, rationals, spec, rationals),
+                            lambda a, b: {n: math.lcm(a[n], b[n]) for n in a}))
 
 
 def _denominators(frame, offset: int, spec: Settings, names: list[str]) -> dict:
@@ -117,10 +114,9 @@ def _denominators(frame, offset: int, spec: Settings, names: list[str]) -> dict:
 
 
 def _vector(relation, names: list[str]):
-    """The relation as integers over ``names`` and a last entry for the constant, or None."""
+    """The exact relation as integers over ``names`` (every column it has) and a last entry
+    for the constant."""
     index = {n: j for j, n in enumerate(names)}
-    if any(name not in index for name, _ in relation.terms):
-        return None
     scale = math.lcm(*(Fraction(c).denominator for _, c in relation.terms),
                      Fraction(relation.constant).denominator)
     vector = [0] * (len(names) + 1)
@@ -279,14 +275,12 @@ def _candidate_rows(sample, positions, located, names, table):
     import pandas as pd
 
     keep = [n for n in sample.frame.columns if n in names or n == table.id_column]
-    frames = [sample.frame[keep]] + [f[keep] for f, _ in located if len(f)]
-    all_positions = np.concatenate([positions] + [p for _, p in located if len(p)])
-    frame = pd.concat(frames, ignore_index=True)
-    order = np.argsort(all_positions, kind="stable")
-    all_positions = all_positions[order]
-    frame = frame.iloc[order].reset_index(drop=True)
-    first = np.r_[True, all_positions[1:] != all_positions[:-1]]
-    return frame[first].reset_index(drop=True), all_positions[first]
+    frame = pd.concat([sample.frame[keep]] + [f[keep] for f, _ in located if len(f)],
+                      ignore_index=True)
+    all_positions = np.concatenate([positions] + [p for _, p in located])
+    # each position once, in order: the first of its rows (the sample's where it has one)
+    first = np.unique(all_positions, return_index=True)[1]
+    return frame.iloc[first].reset_index(drop=True), all_positions[first]
 
 
 # ----------------------------------------------------------------------------------------
