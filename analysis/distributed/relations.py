@@ -183,7 +183,8 @@ def _pass_a(frame, offset: int, spec: Settings) -> dict:
         # integers past 64 bits take no part in bounds in three columns
         out["points"][triple] = None if data.dtype == object else _capped(data)
         out["corners"][triple] = _corners(
-            rel.triple_candidates(data) if data.dtype != object and len(data) else data[:0])
+            rel.triple_candidates(data) if data.dtype != object and len(data)
+            else np.zeros((0, 3), dtype=np.int64))
     return out
 
 
