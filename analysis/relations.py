@@ -569,8 +569,10 @@ class RankTracker:
 # --------------------------------------------------------------------------------------------
 
 
-def _exact_column(name: str, values) -> tuple[np.ndarray, np.ndarray]:
-    """(values, missing): int64 when every value fits, else an object array of int/Fraction."""
+def exact_column(name: str, values) -> tuple[np.ndarray, np.ndarray]:
+    """(values, missing) of an exact column (ints, fractions, None for missing; or an integer
+    numpy array): int64 when every value fits, else an object array of int/Fraction; a
+    missing cell holds 0. StepError names a cell that is not exact."""
     if isinstance(values, np.ndarray) and values.dtype.kind in "iub":
         return values.astype(np.int64), np.zeros(len(values), dtype=bool)
     items = list(values)
@@ -603,8 +605,10 @@ def _exact_column(name: str, values) -> tuple[np.ndarray, np.ndarray]:
     return array, missing
 
 
-class _Matrix:
-    """Exact rows, one integer column per invariant plus a last column for the constant.
+class RelationMatrix:
+    """Exact rows, one integer column per invariant plus a last column for the constant
+    (``RelationMatrix(columns, rows)``: the columns as :func:`exact_column` gives them, the
+    positions of the rows to keep, sorted).
 
     A row holding fractions is multiplied by the least common multiple of its denominators:
     that changes no relation, and keeps all arithmetic in integers.
@@ -654,13 +658,26 @@ class _Matrix:
             # every row and then picking is cheaper than copying the picked rows first.
             product = (np.array(vectors, dtype=np.float64) @ self.as_float.T).T
             return (product if rows is None else product[rows]) != 0
+        return self.products(vectors, rows, bound) != 0
+
+    def products(self, vectors: list[list[int]], rows: np.ndarray | None = None,
+                 bound: int | None = None) -> np.ndarray:
+        """Exact (rows x vectors) products of the rows with ``vectors`` (an invariant's
+        coefficients, the constant's last): int64 when no sum can overflow, else Python
+        integers. A row scaled for its fractions gives its value times its scale, so it is
+        zero exactly where the row obeys the relation. ``bound`` is a known bound on every
+        product's size."""
+        if not vectors:
+            return np.zeros((self.size if rows is None else len(rows), 0), dtype=np.int64)
+        if bound is None:
+            bound = max(sum(m * abs(c) for m, c in zip(self.col_max, v)) for v in vectors)
         if self.values.dtype != object and bound < _INT64_SAFE:
             product = (np.array(vectors, dtype=np.int64) @ self.values.T).T
-            return (product if rows is None else product[rows]) != 0
+            return product if rows is None else product[rows]
         data = self.values if rows is None else self.values[rows]
         coefficients = np.empty((len(vectors[0]), len(vectors)), dtype=object)
         coefficients[:, :] = np.array(vectors, dtype=object).T
-        return data.astype(object).dot(coefficients) != 0
+        return data.astype(object).dot(coefficients)
 
 
 # --------------------------------------------------------------------------------------------
@@ -723,7 +740,8 @@ def _product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return result
 
 
-def _kernel_on(matrix: _Matrix, rows: np.ndarray, rng: np.random.Generator) -> list[list[int]]:
+def _kernel_on(matrix: RelationMatrix, rows: np.ndarray,
+               rng: np.random.Generator) -> list[list[int]]:
     """Reduced basis of the integer relations that hold on every row in ``rows``.
 
     Solved on a random handful of rows, then checked on all of them; a row that breaks a
@@ -750,7 +768,8 @@ def _kernel_on(matrix: _Matrix, rows: np.ndarray, rng: np.random.Generator) -> l
     return _tidy(basis)
 
 
-def _distinct_count(matrix: _Matrix, rows: np.ndarray, support: list[int], enough: int) -> int:
+def _distinct_count(matrix: RelationMatrix, rows: np.ndarray, support: list[int],
+                    enough: int) -> int:
     """Distinct rows over ``support`` columns among ``rows``, counted up to ``enough``."""
     data = matrix.values[rows[: 50 * enough]][:, support]
     if data.dtype == object:
@@ -990,7 +1009,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
     found: list[Relation] = []
     robust_found: list[Relation] = []
     if core:
-        matrix = _Matrix([columns[name][0] for name in core], every_row)
+        matrix = RelationMatrix([columns[name][0] for name in core], every_row)
         base = _kernel_on(matrix, every_row, rng)
         width = len(core) + 1
         distinct = _distinct_count(matrix, every_row, list(range(len(core))), 2 * width)
@@ -1015,7 +1034,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
         if repeat is not None:
             trivial.append(repeat)
             continue
-        matrix = _Matrix([columns[c][0] for c in core + [name]], rows)
+        matrix = RelationMatrix([columns[c][0] for c in core + [name]], rows)
         lattice = _kernel_on(matrix, np.arange(len(rows)), rng)
         # Relations among the other columns alone (on these rows) are not news about this one.
         unit = [0] * len(core) + [1, 0]
@@ -1050,7 +1069,7 @@ def _relations_among_partial(columns, core: list[str], partial: list[str], rng) 
     found = []
     for group, rows in _partial_groups(columns, core, partial):
         names = core + group
-        lattice = _kernel_on(_Matrix([columns[c][0] for c in names], rows),
+        lattice = _kernel_on(RelationMatrix([columns[c][0] for c in names], rows),
                              np.arange(len(rows)), rng)
         # relations with at most one of the group's columns were searched column by column
         tracker = RankTracker()
@@ -1080,7 +1099,7 @@ def _partial_groups(columns, core: list[str], partial: list[str]) -> list:
     rows = np.flatnonzero(~missing.any(axis=1))
     width = len(core) + len(partial) + 1
     if len(rows) >= 2 * width:
-        matrix = _Matrix([columns[c][0] for c in core + partial], rows)
+        matrix = RelationMatrix([columns[c][0] for c in core + partial], rows)
         if _distinct_count(matrix, np.arange(len(rows)), list(range(width - 1)),
                            2 * width) >= 2 * width:
             return [(partial, rows)]
@@ -1097,7 +1116,7 @@ def _held_where_present(columns, names: list[str], vector, involved: list[str]):
     with missing values it uses) are present; None when one of those rows breaks it."""
     missing = np.column_stack([columns[name][1] for name in involved])
     rows = np.flatnonzero(~missing.any(axis=1))
-    if _Matrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
+    if RelationMatrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
         return None
     shown = " and ".join(f"'{name}'" for name in involved)
     return _relation_from_vector(
@@ -1309,7 +1328,7 @@ def _edge(p: tuple, q: tuple) -> tuple[int, int, Fraction]:
     return a, b, value if type(value) is int else Fraction(value)
 
 
-class _BoundColumn:
+class BoundColumn:
     """One column for the bound search: its range, its number of values, its grid codes.
 
     A column of fractions is multiplied by the least common multiple of its denominators
@@ -1393,11 +1412,24 @@ class _Points:
 def _grid_cells(columns) -> int | None:
     if any(c.codes is None for c in columns):
         return None
-    cells = math.prod(c.high - c.low + 1 for c in columns)
+    return grid_cells([(c.low, c.high) for c in columns])
+
+
+def grid_cells(ranges) -> int | None:
+    """The cells of a grid over integer columns whose values span the (low, high) ``ranges``,
+    or None when they are more than GRID_LIMIT (the columns are sorted, not counted)."""
+    cells = math.prod(high - low + 1 for low, high in ranges)
     return cells if cells <= GRID_LIMIT else None
 
 
-def _distinct_points(columns: list[_BoundColumn]) -> _Points:
+def crowded_triple(cells: int | None, rows: int, points: int = 0) -> bool:
+    """Whether the bound search leaves a triple of columns out as too costly: its values fit
+    no grid (``cells`` None) on a table of more than MAX_TRIPLE_POINTS ``rows``, or it has
+    more than MAX_TRIPLE_POINTS distinct ``points``."""
+    return (cells is None and rows > MAX_TRIPLE_POINTS) or points > MAX_TRIPLE_POINTS
+
+
+def distinct_points(columns: list[BoundColumn]) -> _Points:
     """Distinct points of the columns over the rows where none is missing."""
     absent = np.zeros(len(columns[0].values), dtype=bool)
     for column in columns:
@@ -1457,7 +1489,7 @@ def _distinct_points(columns: list[_BoundColumn]) -> _Points:
     return _Points(coords, np.bincount(inverse, minlength=len(ordered)), rows, inverse=inverse)
 
 
-def _ranked_points(columns: list[_BoundColumn], rows) -> _Points | None:
+def _ranked_points(columns: list[BoundColumn], rows) -> _Points | None:
     """The distinct points of integer columns, some of them wide, through one integer key.
 
     Each column is numbered in increasing order (grid codes, or the ranks of a wide column's
@@ -1495,13 +1527,13 @@ def _extreme_positions(x: np.ndarray) -> np.ndarray:
     return np.unique(np.r_[starts, ends])
 
 
-def _extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+def extremes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Of points sorted by (x, y): the least and greatest y at each x."""
     picked = _extreme_positions(x)
     return np.column_stack([x[picked], y[picked]])
 
 
-def _combine(coefs, arrays):
+def combine(coefs, arrays):
     """sum(coef * array), exact: int64 when it cannot overflow, else Python numbers."""
     if all(a.dtype != object for a in arrays):
         bound = sum(abs(int(c)) * max(abs(int(a.min())), abs(int(a.max())))
@@ -1517,7 +1549,7 @@ def _combine(coefs, arrays):
     return total
 
 
-def _exact_hull(candidates: np.ndarray) -> list[tuple]:
+def exact_hull(candidates: np.ndarray) -> list[tuple]:
     """Exact hull of many points: a floating point hull picks candidates, exact checks decide."""
     if candidates.dtype == object or len(candidates) <= 4000:
         return hull_2d([tuple(p) for p in candidates.tolist()])
@@ -1534,7 +1566,7 @@ def _exact_hull(candidates: np.ndarray) -> list[tuple]:
         hull = hull_2d([tuple(p) for p in candidates[keep].tolist()])
         outside = np.zeros(len(candidates), dtype=bool)
         for a, b, c in _edges(hull):
-            outside |= _combine((a, b), (candidates[:, 0], candidates[:, 1])) > c
+            outside |= combine((a, b), (candidates[:, 0], candidates[:, 1])) > c
         if not outside.any():
             return hull
         keep |= outside
@@ -1909,25 +1941,35 @@ def recounted_note(bound: Bound, attaining: int) -> str:
     return listed_note(joined_note(*parts), attaining)
 
 
-def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
-    """Bound sum(coefs*columns) <= constant, judged on the distinct points.
-
-    ``coefs`` and ``constant`` are in the points' (scaled) units; ``scales`` turn them back.
-    """
-    combined = _combine(coefs, points.coords)
+def bound_counts(combined: np.ndarray, constant, margin, weights: np.ndarray | None = None):
+    """(attained, broken, near) of the bound ``sum <= constant`` on the values ``combined`` of
+    its left side: where it is attained and where broken (boolean arrays), and how many rows
+    (``weights`` per value, 1 if None) come close to it, below it by at most ``margin``
+    (rounded down where the values and the constant are integers)."""
     constant = Fraction(constant)
-    shown_coefs, divisor = _unscaled(coefs, scales)
-    shown_constant = constant / divisor
-    margin = near_margin(combined, points.weights, constant, integer)
     if combined.dtype != object and constant.denominator == 1:
         # Compare integers with integers: a Fraction would turn the arrays into objects.
         constant, limit = int(constant), math.floor(margin)
     else:
         limit = margin
-    attained = combined == constant
-    broken = combined > constant
     slack = constant - combined
-    near = int(points.weights[(slack > 0) & (slack <= limit)].sum())
+    close = np.asarray((slack > 0) & (slack <= limit), dtype=bool)
+    near = int(np.count_nonzero(close) if weights is None else weights[close].sum())
+    return (np.asarray(combined == constant, dtype=bool),
+            np.asarray(combined > constant, dtype=bool), near)
+
+
+def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scales, note=""):
+    """Bound sum(coefs*columns) <= constant, judged on the distinct points.
+
+    ``coefs`` and ``constant`` are in the points' (scaled) units; ``scales`` turn them back.
+    """
+    combined = combine(coefs, points.coords)
+    constant = Fraction(constant)
+    shown_coefs, divisor = _unscaled(coefs, scales)
+    shown_constant = constant / divisor
+    margin = near_margin(combined, points.weights, constant, integer)
+    attained, broken, near = bound_counts(combined, constant, margin, points.weights)
     attaining_rows = points.rows_at(attained)
     breaking_rows = points.rows_at(broken)
     terms, relation, shown = _oriented(list(zip(names, shown_coefs)), shown_constant)
@@ -1947,13 +1989,13 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scale
 
 
 def _pair_bounds(cx, cy, row_ids, facts, *, max_coefficient, breakers, edges_out):
-    points = _distinct_points([cx, cy])
+    points = distinct_points([cx, cy])
     if len(points) < 3:
         return []
     integer = cx.integer and cy.integer
     names, scales = (cx.name, cy.name), (cx.scale, cy.scale)
     x, y = points.coords
-    hull = _exact_hull(_extremes(x, y))
+    hull = exact_hull(extremes(x, y))
     edges = _edges(hull)
     found = []
     for a, b, c in edges:
@@ -2140,7 +2182,7 @@ def _spliced(hull: list[tuple], i: int, inner: list[tuple]) -> list[tuple]:
 def _few_breakers(points: _Points, coefs, constant, breakers: int) -> bool:
     """Whether rows break ``sum coefs <= constant``, at most ``breakers`` of them, and at
     least three times as many reach it: else it is just a ragged edge of the points."""
-    combined = _combine(coefs, points.coords)
+    combined = combine(coefs, points.coords)
     broken = int(points.weights[combined > constant].sum())
     attained = int(points.weights[combined == constant].sum())
     return 0 < broken <= breakers and attained >= 3 * broken
@@ -2235,6 +2277,15 @@ def _peeled_bounds(names, scales, points, row_ids, hull, edges, facts, *, max_co
     return found
 
 
+def triple_candidates(data: np.ndarray) -> np.ndarray:
+    """Of distinct points in three columns sorted by (x, y, z) (rows of ``data``): the least
+    and greatest z over each (x, y), the only points that can be corners of their hull."""
+    change = np.r_[True, (data[1:, :2] != data[:-1, :2]).any(axis=1)]
+    starts = np.flatnonzero(change)
+    ends = np.r_[starts[1:], len(data)] - 1
+    return data[np.unique(np.r_[starts, ends])]
+
+
 def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
                   table_columns) -> list[Bound] | None:
     from scipy.spatial import ConvexHull, QhullError
@@ -2242,19 +2293,15 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
     names = [c.name for c in columns]
     scales = [c.scale for c in columns]
     integer = all(c.integer for c in columns)
-    points = _distinct_points(columns)
-    if len(points) > MAX_TRIPLE_POINTS:
+    points = distinct_points(columns)
+    if crowded_triple(0, 0, len(points)):
         return None  # too many distinct points for a hull in three columns to be cheap
     if len(points) < 4:
         return []
     data = np.column_stack(points.coords)
     if np.abs(data).max() >= 2**20:
         return []  # keeps the cross products below in int64; wide columns are not cheap here
-    # Points sorted by (x, y, z): only the least and greatest z over each (x, y) can be corners.
-    change = np.r_[True, (data[1:, :2] != data[:-1, :2]).any(axis=1)]
-    starts = np.flatnonzero(change)
-    ends = np.r_[starts[1:], len(data)] - 1
-    corners = data[np.unique(np.r_[starts, ends])]
+    corners = triple_candidates(data)
     try:
         hull = ConvexHull(corners.astype(np.float64))
     except QhullError:
@@ -2278,7 +2325,7 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
         shown, shown_constant = _in_table_units(normal, constant, scales)
         if max(map(abs, shown)) > max_coefficient:
             continue
-        combined = _combine(normal, points.coords)
+        combined = combine(normal, points.coords)
         if (combined > constant).any():
             continue  # a floating point facet that is not exact
         on_face = points.rows_at(combined == constant)
@@ -2355,7 +2402,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
     bound_columns: dict = {}
     wider = 0
     for name in names:
-        column = _BoundColumn(name, *columns[name])
+        column = BoundColumn(name, *columns[name])
         # Two-valued columns (flags) give bounds that only restate their two values.
         if column.distinct < 3:
             continue
@@ -2412,7 +2459,7 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
                 progress.advance()
             chosen = [bound_columns[name] for name in triple]
             # Cheap when the values fit a grid (one counting pass) or the table is small.
-            if _grid_cells(chosen) is None and n > MAX_TRIPLE_POINTS:
+            if crowded_triple(_grid_cells(chosen), n):
                 skipped += 1
                 continue
             triple = _triple_bounds(chosen, row_ids, triple_facts,
@@ -2497,11 +2544,15 @@ def _approximate_columns(real_columns: Mapping, columns: dict, notes: list[str])
             "columns besides the real-valued ones", searched=max(room, 0), columns=len(extra),
         ))
     for name in extra[: max(room, 0)]:
-        values, missing = columns[name]
-        as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
-        as_float[missing] = np.nan
-        data[name] = as_float
+        data[name] = float_column(*columns[name])
     return data
+
+
+def float_column(values: np.ndarray, missing: np.ndarray) -> np.ndarray:
+    """An exact column (as :func:`exact_column` gives it) as float64, NaN where missing."""
+    as_float = np.array([float(v) for v in values.tolist()], dtype=np.float64)
+    as_float[missing] = np.nan
+    return as_float
 
 
 def find_relations(
@@ -2554,7 +2605,7 @@ def find_relations(
         raise StepError(f"relations: {len(row_ids)} row ids for {n} rows")
     rng = np.random.default_rng(seed)
     notes: list[str] = []
-    columns = {name: _exact_column(name, values) for name, values in exact_columns.items()}
+    columns = {name: exact_column(name, values) for name, values in exact_columns.items()}
     names = list(columns)
     progress = quiet(progress)
     progress.phase("exact relations")
@@ -2595,6 +2646,32 @@ def find_relations(
         n_rows=n,
         columns=tuple(names) + tuple(name for name in real_columns if name not in columns),
     )
+
+
+def read_columns(table, names: Sequence[str]) -> tuple[dict, dict]:
+    """(exact, real): the columns ``names`` of ``table`` as :func:`find_relations` takes
+    them. Integer, big integer, rational and boolean columns are exact (an integer numpy
+    array where every value is present and small, else exact Python values with None for a
+    missing cell); real columns are float64 with NaN for a missing cell."""
+    exact: dict = {}
+    real: dict = {}
+    for name in names:
+        dtype = table.column(name).dtype
+        if dtype == "real":
+            real[name] = np.asarray(table.numeric(name), dtype=np.float64)
+        elif dtype == "integer":
+            values = np.asarray(table.numeric(name), dtype=np.float64)
+            if np.isfinite(values).all() and np.abs(values).max(initial=0) < _FLOAT_EXACT:
+                exact[name] = values.astype(np.int64)
+            else:
+                exact[name] = table.exact(name)
+        elif dtype == "boolean" and table.frame[name].dtype.kind == "b":
+            # a flag with no missing cell: its bools are read as 0 and 1 at once, the
+            # same values table.exact gives one row at a time
+            exact[name] = table.frame[name].to_numpy()
+        else:
+            exact[name] = table.exact(name)
+    return exact, real
 
 
 _EXACT_DTYPES = ("integer", "big integer", "rational", "boolean")
@@ -2686,24 +2763,7 @@ class RelationsStep:
                 f"relations: table '{table.name}' has no numeric invariant columns to search; "
                 "mark some columns as invariants"
             )
-        exact: dict = {}
-        real: dict = {}
-        for name in names:
-            dtype = table.column(name).dtype
-            if dtype == "real":
-                real[name] = np.asarray(table.numeric(name), dtype=np.float64)
-            elif dtype == "integer":
-                values = np.asarray(table.numeric(name), dtype=np.float64)
-                if np.isfinite(values).all() and np.abs(values).max(initial=0) < _FLOAT_EXACT:
-                    exact[name] = values.astype(np.int64)
-                else:
-                    exact[name] = table.exact(name)
-            elif dtype == "boolean" and table.frame[name].dtype.kind == "b":
-                # a flag with no missing cell: its bools are read as 0 and 1 at once, the
-                # same values table.exact gives one row at a time
-                exact[name] = table.frame[name].to_numpy()
-            else:
-                exact[name] = table.exact(name)
+        exact, real = read_columns(table, names)
         found = find_relations(
             exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
             max_coefficient=self.max_coefficient, bounds=self.bounds, triples=self.triples,

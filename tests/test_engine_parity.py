@@ -411,6 +411,86 @@ def _check_reference(kind: str, params: dict, result, frame: pd.DataFrame) -> No
 
 
 # ----------------------------------------------------------------------------------------
+# Relations among integers past 64 bits and rationals, with missing cells
+
+
+FIBONACCI_ROWS = 240
+
+
+def exact_frame() -> pd.DataFrame:
+    """Fibonacci and Lucas numbers F(n), F(n+1), L(n) from sympy (``sympy.fibonacci``,
+    ``sympy.lucas``) for n = 1..240, written as text (past 2**64 from n = 94 on); halves of n
+    written like 7/2; the mean of F(n) and F(n+1), a rational with a numerator past 64 bits;
+    and n squared. Some cells of L(n), of the halves and of the means are blank."""
+    sympy = pytest.importorskip("sympy")
+    rows = []
+    for n in range(1, FIBONACCI_ROWS + 1):
+        fib, following = int(sympy.fibonacci(n)), int(sympy.fibonacci(n + 1))
+        rows.append({
+            "n": n, "n_squared": n * n,
+            "fib": str(fib),
+            "fib_next": str(following),
+            "lucas": None if n % 13 == 6 else str(int(sympy.lucas(n))),
+            "half": None if n % 7 == 2 else str(Fraction(n, 2)),
+            "mean": None if n % 11 == 5 else str(Fraction(fib + following, 2)),
+        })
+    return pd.DataFrame(rows)
+
+
+@pytest.fixture(scope="module")
+def fibonacci(tmp_path_factory):
+    frame = exact_frame()
+    folder, whole = write_parts(frame, tmp_path_factory.mktemp("parity") / "fibonacci")
+    return frame, folder, load_table(whole)
+
+
+EXACT_CASES = {
+    "every column": {},
+    "big integers named": {"columns": ["fib", "fib_next", "lucas", "n"]},
+    "a congruence of big integers": {"columns": ["fib", "lucas", "n"]},
+    "rationals named": {"columns": ["n", "half", "mean", "fib_next", "n_squared"]},
+    "no robust search": {"robust": False, "triples": False},
+}
+
+
+@pytest.mark.parametrize("params", list(EXACT_CASES.values()), ids=list(EXACT_CASES))
+def test_relations_among_big_integers_and_rationals_are_the_same(client, fibonacci, params):
+    frame, folder, in_memory = fibonacci
+    table = read_partitioned(folder, client)
+    assert table.column("fib").dtype == "big integer" and table.column("half").dtype == \
+        "rational"
+    step = make_step("relations", params)
+    expected = step.run(in_memory)
+    result = run_distributed(step, folder, client=client)
+    assert result.columns == expected.columns
+    data, wanted = result.to_json(), expected.to_json()
+    for key in ("relations", "bounds", "congruences"):
+        assert data[key] == wanted[key], key
+    texts = {r.text for r in result.relations if not r.violations}
+    names = set(result.columns)
+    # L(n) = F(n-1) + F(n+1) = 2 F(n+1) - F(n) (common practice); each holds on the rows
+    # where its columns are present, counted by pandas
+    if {"fib", "fib_next", "lucas"} <= names:
+        lucas = next(r for r in result.relations if {n for n, _ in r.terms} == {
+            "fib", "fib_next", "lucas"})
+        assert lucas.text in {"fib - 2*fib_next + lucas = 0", "2*fib_next - fib - lucas = 0"}
+        assert lucas.holds_on == int(frame.lucas.notna().sum())
+    elif {"fib", "lucas"} <= names:
+        # L(n) = F(n) + 2 F(n-1), so L(n) and F(n) have one parity (from memory)
+        parity = next(c for c in result.congruences if c.text == "fib + lucas ≡ 0 (mod 2)")
+        assert (parity.holds_on, parity.violations) == (int(frame.lucas.notna().sum()), ())
+    # n (n + 1) is even (common practice)
+    if {"n", "n_squared"} <= names:
+        assert "n + n_squared ≡ 0 (mod 2)" in {c.text for c in result.congruences}
+    if {"n", "half"} <= names:
+        assert "n - 2*half = 0" in texts or "2*half - n = 0" in texts, texts
+    if {"fib", "fib_next", "mean"} <= names:
+        assert any({n for n, _ in r.terms} == {"fib", "fib_next", "mean"} for r in
+                   result.relations), texts
+    assert not any("left out on the dask engine" in str(n) for n in result.notes)
+
+
+# ----------------------------------------------------------------------------------------
 # What the Dask engine refuses, by name, while the in-memory engine uses it
 
 

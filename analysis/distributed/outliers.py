@@ -274,7 +274,7 @@ def _relations(ctx, step, row_ids, notes):
         return None
     try:
         result = run_relations(RelationsStep(columns=columns, robust=True, seed=step.seed),
-                               Context(table=ctx.table, client=ctx.client), leave_out=True)
+                               Context(table=ctx.table, client=ctx.client))
     except StepError as exc:
         notes.append(Note("relations_unchecked", f"relations not checked: {exc}"))
         return None

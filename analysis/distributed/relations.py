@@ -7,6 +7,10 @@
    the whole table.
 4. A last pass counts on every row the rows breaking, attaining or near each statement.
 5. Congruences are proposed on the sample one modulus at a time and counted on every row.
+
+Every partition is read, searched and counted by the in-memory step's own functions
+(:mod:`analysis.relations`), so that integers of any size and rationals are exact here as
+they are there; this module holds the bookkeeping across partitions.
 """
 
 from __future__ import annotations
@@ -23,20 +27,13 @@ from analysis.errors import StepError
 from analysis.notes import Note
 
 SAMPLE_ROWS = 20_000
-# Distinct points of a triple counted exactly (past this, the triple counts as crowded).
-DISTINCT_POINTS_CAP = 250_000
-# Pairs and triples whose values span at most this many cells are handled on a grid.
-GRID_CELLS = 4_000_000
-_INT64_SAFE = 2**62
 
 
-def run_relations(step, ctx: Context, *, leave_out: bool = False):
-    """A RelationsResult for ``step`` on the partitioned table in ``ctx``; ``leave_out``:
-    columns of big integers or rationals named in ``step`` are left out (said so), not
-    refused."""
+def run_relations(step, ctx: Context):
+    """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
 
     from analysis import relations as rel
-    from analysis.distributed.source import sample_table
+    from analysis.distributed.source import as_table, sample_table
 
     table = ctx.table
     rel.check_settings(max_breakers=step.max_breakers, max_coefficient=step.max_coefficient,
@@ -45,63 +42,81 @@ def run_relations(step, ctx: Context, *, leave_out: bool = False):
     if not names:
         raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
                         "search; mark some columns as invariants")
-    unsearched = [n for n in names if table.column(n).dtype in ("big integer", "rational")]
-    if unsearched and step.columns is not None and not leave_out:
-        name = unsearched[0]
-        raise StepError(f"relations: column '{name}' holds {table.column(name).dtype}s, which "
-                        "the dask engine does not search; leave it out with --columns, or use "
-                        "--engine local.")
-    if unsearched:
-        names = [n for n in names if n not in unsearched]
-        if not names:
-            raise StepError(f"relations: the numeric columns of table '{table.name}' hold big "
-                            "integers or rationals, which the dask engine does not search; use "
-                            "--engine local.")
-        ctx.notes.append(Note(
-            "dask_unsearched",
-            "left out on the dask engine, which does not search big integers or "
-            f"rationals: {', '.join(unsearched)}; the in-memory engine searches "
-            "them."))
-        step = dataclasses.replace(step, columns=names)
-    exact = [n for n in names if table.column(n).dtype in ("integer", "boolean")]
+    exact = [n for n in names if table.column(n).dtype != "real"]
     real = [n for n in names if table.column(n).dtype == "real"]
     sample, positions = sample_table(table, ctx.client, SAMPLE_ROWS, seed=step.seed,
                                      columns=names)
     first = step.run(sample)
-    generators = [_vector(r, exact) for r in first.relations if r.exact and not r.violations]
-    generators = [g for g in generators if g is not None]
-    pair_columns, triple_columns = _bound_candidates(table, exact)
-    spec = Settings(exact=exact, generators=generators, pairs=pair_columns,
-                    triples=triple_columns, ranges=_ranges(table, exact))
-    found = ctx.compute(tree(partition_tasks(ctx, _pass_a, names, spec), _merge_a))
-    wanted = _wanted_points(found, spec)
+    pairs, triples = _bound_candidates(table, exact)
+    spec = Settings(table=dataclasses.replace(table, frame=None), exact=exact, pairs=pairs,
+                    triples=triples, generators=[_vector(r, exact) for r in first.relations
+                                                 if r.exact and not r.violations])
+    spec.scales = _scales(ctx, [n for n in exact if table.column(n).dtype == "rational"], spec)
+    found = ctx.compute(tree(partition_tasks(ctx, _pass_a, exact, spec), _merge_a))
+    found["scales"] = spec.scales
     extra_positions = np.array(sorted(found["breakers"]), dtype=np.int64)
-    located = ctx.compute(partition_tasks(ctx, _locate, names, spec, wanted, extra_positions))
+    # numpy arrays, so that dask does not walk through them as collections
+    located = ctx.compute(partition_tasks(ctx, _locate, names, spec, found["corners"],
+                                          extra_positions))
     frame, all_positions = _candidate_rows(sample, positions, located, names, table)
-    from analysis.distributed.source import as_table
-
-    candidates = as_table(table, frame, all_positions)
     # the rows searched rank bounds by their own counts: keep them all, rank them again
     # by the counts on every row, then cut as the in-memory step does
-    second = step.run(candidates, max_bounds=None)
+    second = step.run(as_table(table, frame, all_positions), max_bounds=None)
     ctx.notes.append(Note("dask_relations_sample",
         f"relations and bounds searched on {len(all_positions)} rows: a uniform random sample "
         f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
         f"sample, and the rows at the corners of every hull; then checked on all "
         f"{table.n_rows} rows across {table.npartitions} partitions."))
-    settled = _settle(ctx, step, first, second, exact, real, found, spec)
-    return dataclasses.replace(settled, congruences=_congruences(ctx, step, sample, settled))
+    return _settle(ctx, step, sample, first, second, exact, real, found)
 
 
 # ----------------------------------------------------------------------------------------
-# Pass A: test the sample's lattice, gather extremes and hull corners
+# Reading a partition
+
+
+def _read(frame, offset: int, spec: Settings, names: list[str]):
+    """(exact columns as (values, missing), real columns as floats, row ids) of one typed
+    partition, read as the in-memory step reads a table."""
+    from analysis import relations as rel
+    from analysis.distributed.source import as_table
+
+    part = as_table(spec.table, frame, np.arange(offset, offset + len(frame), dtype=np.int64))
+    exact, real = rel.read_columns(part, names)
+    return {n: rel.exact_column(n, v) for n, v in exact.items()}, real, part.row_ids
+
+
+def _bound_columns(columns: dict, spec: Settings) -> dict:
+    """The partition's exact columns as the bound search reads them, in the units of the
+    whole table: a rational column times the least common multiple of its denominators over
+    every row (:func:`_scales`), so that every partition's points are integers alike."""
+    from analysis import relations as rel
+
+    out = {}
+    for name, (values, missing) in columns.items():
+        if name in spec.scales:
+            values = rel.combine([spec.scales[name]], [values])
+        out[name] = rel.BoundColumn(name, values, missing)
+    return out
+
+
+def _scales(ctx: Context, rationals: list[str], spec: Settings) -> dict:
+    """{rational column: the least common multiple of its denominators over every row}."""
+    if not rationals:
+        return {}
+    return ctx.compute(tree(partition_tasks(ctx, _denominators, rationals, spec, rationals),
+                            lambda a, b: {n: math.lcm(a[n], b[n]) for n in a}))
+
+
+def _denominators(frame, offset: int, spec: Settings, names: list[str]) -> dict:
+    columns = _read(frame, offset, spec, names)[0]
+    return {n: math.lcm(*(Fraction(v).denominator for v in values[~missing].tolist()))
+            for n, (values, missing) in columns.items()}
 
 
 def _vector(relation, names: list[str]):
-    """The relation as integers over ``names`` and a last entry for the constant, or None."""
+    """The exact relation as integers over ``names`` (every column it has) and a last entry
+    for the constant."""
     index = {n: j for j, n in enumerate(names)}
-    if any(name not in index for name, _ in relation.terms):
-        return None
     scale = math.lcm(*(Fraction(c).denominator for _, c in relation.terms),
                      Fraction(relation.constant).denominator)
     vector = [0] * (len(names) + 1)
@@ -111,15 +126,22 @@ def _vector(relation, names: list[str]):
     return vector
 
 
-def _ranges(table, names):
-    out = {}
-    for name in names:
-        facts = table.facts.get(name, {})
-        lo, hi = facts.get("minimum"), facts.get("maximum")
-        if table.column(name).dtype == "boolean":
-            lo, hi = 0, 1
-        out[name] = (None if lo is None else int(lo), None if hi is None else int(hi))
-    return out
+def _products(columns: dict, names: list[str], vectors: list, size: int) -> tuple:
+    """(rows times relations over ``names``, exactly; rows where each relation's columns are
+    present): a relation counts only those rows, as in memory, and its product is zero on
+    the others. Nonzero exactly where a row breaks a relation."""
+    from analysis import relations as rel
+
+    present = np.ones((size, len(vectors)), dtype=bool)
+    if not vectors:
+        return np.zeros((size, 0), dtype=np.int64), present
+    for j, vector in enumerate(vectors):
+        gone = [columns[n][1] for n, c in zip(names, vector) if c]
+        present[:, j] = ~np.any(gone, axis=0) if gone else True
+    projected = rel.RelationMatrix([columns[n][0] for n in names], np.arange(size)).products(
+        vectors)
+    projected[~present] = 0
+    return projected, present
 
 
 def _bound_candidates(table, exact):
@@ -127,165 +149,90 @@ def _bound_candidates(table, exact):
 
     wide = [n for n in exact if table.column(n).distinct >= 3]
     pairs = wide[: rel.MAX_BOUND_COLUMNS + 10]
-    triples = [n for n in pairs if not table.column(n).missing][: rel.MAX_TRIPLE_COLUMNS + 4]
+    # integers past 64 bits take no part in triples in memory either
+    triples = [n for n in pairs if not table.column(n).missing
+               and table.column(n).dtype != "big integer"][: rel.MAX_TRIPLE_COLUMNS + 4]
     return pairs, triples
 
 
-def _exact_matrix(frame, names):
-    """(int64 values, missing mask) of the exact columns of one typed partition."""
-    n = len(frame)
-    values = np.zeros((n, len(names)), dtype=np.int64)
-    missing = np.zeros((n, len(names)), dtype=bool)
-    for j, name in enumerate(names):
-        series = frame[name]
-        if series.dtype == object:
-            present = series.notna().to_numpy()
-            values[present, j] = [int(bool(v)) if isinstance(v, (bool, np.bool_)) else int(v)
-                                  for v in series[present]]
-            missing[:, j] = ~present
-        else:
-            column = series.to_numpy(dtype=np.float64, na_value=np.nan) \
-                if series.dtype.kind == "f" else series.to_numpy()
-            if series.dtype.kind == "f":
-                bad = np.isnan(column)
-                missing[:, j] = bad
-                values[~bad, j] = column[~bad].astype(np.int64)
-            else:
-                values[:, j] = column.astype(np.int64)
-    return values, missing
-
-
-def _projection(values: np.ndarray, generators: list) -> np.ndarray:
-    """Rows times generators (with the constant column), exactly."""
-    if not generators:
-        return np.zeros((len(values), 0), dtype=np.int64)
-    matrix = np.array(generators, dtype=object)
-    bound = (np.abs(values).max(initial=0) + 1) * max(sum(abs(int(x)) for x in g)
-                                                      for g in generators)
-    augmented = np.hstack([values, np.ones((len(values), 1), dtype=np.int64)])
-    if bound < _INT64_SAFE:
-        return augmented @ np.array(generators, dtype=np.int64).T
-    return augmented.astype(object).dot(matrix.T)
-
-
-def _present_rows(missing: np.ndarray, vector: list[int]) -> np.ndarray:
-    """Rows where every column of a relation (its nonzero coefficients) has a value: a
-    relation counts only those, as in memory."""
-    support = [j for j, c in enumerate(vector[:-1]) if c]
-    return ~missing[:, support].any(axis=1) if support else np.ones(len(missing), dtype=bool)
-
-
-def _masked_projection(values: np.ndarray, missing: np.ndarray, vectors: list) -> np.ndarray:
-    """Rows times relations, zero where one of a relation's columns is missing."""
-    projected = _projection(values, vectors)
-    for j, vector in enumerate(vectors):
-        projected[~_present_rows(missing, vector), j] = 0
-    return projected
+# ----------------------------------------------------------------------------------------
+# Pass A: test the sample's lattice, gather extremes and hull corners
 
 
 def _pass_a(frame, offset: int, spec: Settings) -> dict:
-    values, missing = _exact_matrix(frame, spec.exact)
-    used = ~missing.any(axis=1)
-    positions = np.arange(offset, offset + len(frame), dtype=np.int64)
-    out: dict = {"used": int(used.sum()), "breakers": {}}
-    projected = _masked_projection(values, missing, spec.generators)
-    if projected.shape[1]:
-        broken = (projected != 0).any(axis=1)
-        rows = np.flatnonzero(broken)
-        if len(rows):
-            distinct, first = np.unique(projected[rows].astype(object) if projected.dtype ==
-                                        object else projected[rows], axis=0, return_index=True)
-            chosen = _independent([list(map(int, v)) for v in distinct], len(spec.generators))
-            for i in chosen:
-                out["breakers"][int(positions[rows[first[i]]])] = [int(x) for x in distinct[i]]
-    index = {n: j for j, n in enumerate(spec.exact)}
-    columns = {n: np.ascontiguousarray(values[:, index[n]]) for n in set(spec.pairs)}
-    absent = {n: missing[:, index[n]] for n in set(spec.pairs)}
-    pairs = {}
-    for a, b in combinations(spec.pairs, 2):
-        x, y = columns[a], columns[b]
-        gone = absent[a] | absent[b]
-        if gone.any():
-            x, y = x[~gone], y[~gone]
-        pairs[(a, b)] = _column_extremes(x, y, spec.ranges[a], spec.ranges[b])
-    out["pairs"] = pairs
-    triples = {}
-    for combo in combinations(spec.triples, 3):
-        columns = [index[c] for c in combo]
-        lows = np.array([spec.ranges[c][0] for c in combo], dtype=np.int64)
-        widths = np.array([spec.ranges[c][1] - spec.ranges[c][0] + 1 for c in combo],
-                          dtype=np.int64)
-        triples[combo] = _triple_corners(values[:, columns], lows, widths)
-    out["triples"] = triples
+    """On one partition: rows that break the sample's relations (the first at each way of
+    breaking them, as many as span those ways), the corners of the hull of every column,
+    pair and triple of the bound search, and the distinct points of each triple."""
+    from analysis import relations as rel
+
+    columns, _, _ = _read(frame, offset, spec, spec.exact)
+    projected = _products(columns, spec.exact, spec.generators, len(frame))[0]
+    rows = np.flatnonzero((projected != 0).any(axis=1))
+    out: dict = {"breakers": _spanning(_first_distinct(projected[rows], offset + rows),
+                                       len(spec.generators)),
+                 "corners": {}, "points": {}, "rank": len(spec.generators)}
+    bound = _bound_columns(columns, spec)
+    for name, column in bound.items():
+        out["corners"][(name,)] = _corners(column.values[~column.missing].reshape(-1, 1))
+    for pair in combinations(spec.pairs, 2):
+        points = rel.distinct_points([bound[n] for n in pair])
+        out["corners"][pair] = _corners(rel.extremes(*points.coords) if len(points)
+                                        else np.zeros((0, 2), dtype=np.int64))
+    for triple in combinations(spec.triples, 3):
+        data = np.column_stack(rel.distinct_points([bound[n] for n in triple]).coords)
+        # integers past 64 bits take no part in bounds in three columns
+        out["points"][triple] = None if data.dtype == object else _capped(data)
+        out["corners"][triple] = _corners(
+            rel.triple_candidates(data) if data.dtype != object and len(data)
+            else np.zeros((0, 3), dtype=np.int64))
     return out
 
 
-def _column_extremes(x: np.ndarray, y: np.ndarray, x_range, y_range):
-    """For each distinct x: least and greatest y (as three aligned arrays)."""
-    if len(x) == 0:
-        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64)
-    wx, wy = x_range[1] - x_range[0] + 1, y_range[1] - y_range[0] + 1
-    if wx * wy <= GRID_CELLS:
-        # a grid of the pairs present: linear in the rows, no sorting
-        grid = np.zeros(wx * wy, dtype=bool)
-        grid[(x - x_range[0]) * wy + (y - y_range[0])] = True
-        grid = grid.reshape(wx, wy)
-        has = grid.any(axis=1)
-        low = grid.argmax(axis=1)
-        high = wy - 1 - grid[:, ::-1].argmax(axis=1)
-        xs = np.flatnonzero(has)
-        return xs + x_range[0], low[has] + y_range[0], high[has] + y_range[0]
-    order = np.lexsort((y, x))
-    xs, ys = x[order], y[order]
-    starts = np.flatnonzero(np.r_[True, xs[1:] != xs[:-1]])
-    ends = np.r_[starts[1:], len(xs)] - 1
-    return xs[starts], ys[starts], ys[ends]
+def _merge_a(a: dict, b: dict) -> dict:
+    corners = {k: _corners(np.concatenate([a["corners"][k], b["corners"][k]]))
+               for k in a["corners"]}
+    points = {k: None if x is None or b["points"][k] is None else
+              _capped(np.unique(np.vstack([x, b["points"][k]]), axis=0))
+              for k, x in a["points"].items()}
+    return {"breakers": _spanning({**a["breakers"], **b["breakers"]}, a["rank"]),
+            "corners": corners, "points": points, "rank": a["rank"]}
 
 
-def _merge_extremes(a, b):
-    x = np.concatenate([a[0], b[0]])
-    low = np.concatenate([a[1], b[1]])
-    high = np.concatenate([a[2], b[2]])
-    if len(x) == 0:
-        return a
-    keys, inverse = np.unique(x, return_inverse=True)
-    lows = np.full(len(keys), np.iinfo(np.int64).max)
-    highs = np.full(len(keys), np.iinfo(np.int64).min)
-    np.minimum.at(lows, inverse, low)
-    np.maximum.at(highs, inverse, high)
-    return keys, lows, highs
+def _first_distinct(projected: np.ndarray, positions: np.ndarray) -> dict:
+    """{position: vector} of the first row at each distinct row of ``projected``."""
+    import pandas as pd
+
+    first = ~pd.DataFrame(projected).duplicated().to_numpy()
+    return {int(p): list(map(int, v)) for p, v in zip(positions[first], projected[first])}
 
 
-def _triple_corners(points: np.ndarray, lows: np.ndarray, widths: np.ndarray):
-    """Corner candidates of a triple's hull, and its distinct points as sorted int64 keys (or
-    None when the columns are too wide for one key)."""
-    if len(points) == 0:
-        return np.zeros((0, 3), np.int64), np.zeros(0, dtype=np.int64)
-    cells = int(np.prod(widths.astype(object)))
-    if cells <= GRID_CELLS:
-        grid = np.zeros(cells, dtype=bool)
-        grid[_keys(points, lows, widths)] = True
-        keys = np.flatnonzero(grid)
-        cube = grid.reshape(tuple(int(w) for w in widths))
-        # over each (x, y) only the least and greatest z can be a corner
-        has = cube.any(axis=2)
-        xs, ys = np.nonzero(has)
-        low = cube.argmax(axis=2)[has]
-        high = int(widths[2]) - 1 - cube[:, :, ::-1].argmax(axis=2)[has]
-        other = high != low
-        candidates = np.concatenate([np.column_stack([xs, ys, low]),
-                                     np.column_stack([xs[other], ys[other], high[other]])])
-        return _hull_corners(candidates + lows), \
-            keys if len(keys) <= DISTINCT_POINTS_CAP else None
+def _spanning(vectors: dict, rank: int) -> dict:
+    """Of {position: vector}, the first by position that add to the span of those before
+    (exactly), up to ``rank`` of them: rows that break relations in every way rows do."""
+    from analysis.relations import RankTracker
+
+    tracker = RankTracker()
+    kept = {}
+    for position, vector in sorted(vectors.items()):
+        if len(kept) == rank:
+            break  # the span is full: no later vector adds to it
+        if tracker.add(vector):
+            kept[position] = vector
+    return kept
+
+
+def _corners(points: np.ndarray) -> np.ndarray:
+    """Of points in one, two or three columns (rows, exact): those that can be corners of
+    their hull, the least and greatest of one column, the vertices of two or three."""
+    from analysis import relations as rel
+
+    if not len(points):
+        return points
+    if points.shape[1] == 1:
+        return points[[np.argmin(points[:, 0]), np.argmax(points[:, 0])]]
+    if points.shape[1] == 2:
+        return np.array(rel.exact_hull(points)).reshape(-1, 2)
     unique = np.unique(points, axis=0)
-    keys = _keys(unique, lows, widths)
-    if keys is not None and len(keys) > DISTINCT_POINTS_CAP:
-        keys = None
-    return _hull_corners(unique), keys
-
-
-def _hull_corners(unique: np.ndarray) -> np.ndarray:
-    """The vertices of the hull of distinct points (all of them when the hull is flat)."""
     if len(unique) < 5:
         return unique
     from scipy.spatial import ConvexHull, QhullError
@@ -298,129 +245,43 @@ def _hull_corners(unique: np.ndarray) -> np.ndarray:
     return unique[np.sort(hull.vertices)]
 
 
-def _merge_a(a: dict, b: dict) -> dict:
-    from analysis.relations import RankTracker
+def _capped(points: np.ndarray):
+    """Distinct points of a triple, or None past the count the in-memory search takes."""
+    from analysis import relations as rel
 
-    breakers = dict(a["breakers"])
-    tracker = RankTracker()
-    for vector in breakers.values():
-        tracker.add(vector)
-    for position, vector in sorted(b["breakers"].items()):
-        if tracker.add(vector):
-            breakers[position] = vector
-    pairs = {k: _merge_extremes(a["pairs"][k], b["pairs"][k]) for k in a["pairs"]}
-    triples = {}
-    for k in a["triples"]:
-        corners = np.unique(np.vstack([a["triples"][k][0], b["triples"][k][0]]), axis=0)
-        keys_a, keys_b = a["triples"][k][1], b["triples"][k][1]
-        keys = None
-        if keys_a is not None and keys_b is not None:
-            joined = np.concatenate([keys_a, keys_b])
-            top = int(joined.max(initial=-1)) + 1
-            if top <= GRID_CELLS:
-                grid = np.zeros(top, dtype=bool)
-                grid[joined] = True
-                keys = np.flatnonzero(grid)
-            else:
-                keys = np.union1d(keys_a, keys_b)
-            if len(keys) > DISTINCT_POINTS_CAP:
-                keys = None
-        triples[k] = (_hull_corners(corners), keys)
-    return {"used": a["used"] + b["used"], "breakers": breakers, "pairs": pairs,
-            "triples": triples}
-
-
-def _independent(vectors: list[list[int]], rank: int) -> list[int]:
-    """Indices of a greedy maximal linearly independent subset of vectors of rank at most
-    ``rank`` (exact)."""
-    from analysis.relations import RankTracker
-
-    tracker = RankTracker()
-    chosen = []
-    for index, vector in enumerate(vectors):
-        if len(chosen) == rank:
-            break  # the span is full: no later vector adds to it
-        if tracker.add(vector):
-            chosen.append(index)
-    return chosen
-
-
-def _wanted_points(found: dict, spec: Settings) -> dict:
-    """{columns tuple: set of value tuples} whose rows the second search needs."""
-    from analysis.relations import hull_2d
-
-    wanted: dict = {}
-    for (a, b), (x, low, high) in found["pairs"].items():
-        points = [(int(p), int(q)) for p, q in zip(x, low)] + \
-                 [(int(p), int(q)) for p, q in zip(x, high)]
-        wanted[(a, b)] = np.array(hull_2d(points), dtype=np.int64).reshape(-1, 2)
-    for combo, (corners, _) in found["triples"].items():
-        wanted[combo] = np.asarray(corners, dtype=np.int64).reshape(-1, 3)
-    for name in spec.exact:
-        lo, hi = spec.ranges[name]
-        if lo is not None:
-            wanted[(name,)] = np.array([[lo], [hi]], dtype=np.int64)
-    # numpy arrays, so that dask does not walk through them as collections
-    return wanted
+    return None if rel.crowded_triple(0, 0, len(points)) else points
 
 
 def _locate(frame, offset: int, spec: Settings, wanted: dict, positions: np.ndarray):
     """Rows of one partition at the wanted points (first per point) and at ``positions``."""
-    values, missing = _exact_matrix(frame, spec.exact)
-    index = {n: j for j, n in enumerate(spec.exact)}
+    import pandas as pd
+
+    columns = _bound_columns(_read(frame, offset, spec, spec.exact)[0], spec)
     picked: set[int] = set()
-    for columns, points in wanted.items():
+    for names, points in wanted.items():
         if not len(points):
             continue
-        cols = [index[c] for c in columns]
-        gone = missing[:, cols].any(axis=1)
-        rows = np.flatnonzero(~gone) if gone.any() else None
-        block = values[:, cols] if rows is None else values[rows][:, cols]
-        lows = np.array([spec.ranges[c][0] for c in columns], dtype=np.int64)
-        widths = np.array([spec.ranges[c][1] - spec.ranges[c][0] + 1 for c in columns],
-                          dtype=np.int64)
-        row_keys = _keys(block, lows, widths)
-        point_keys = _keys(points, lows, widths)
-        if row_keys is None or point_keys is None:
-            continue   # too wide for one key; these columns have no bounds worth a row
-        cells = int(np.prod(widths.astype(object)))
-        if cells <= GRID_CELLS:
-            wanted_cells = np.zeros(cells, dtype=bool)
-            wanted_cells[point_keys] = True
-            hit = np.flatnonzero(wanted_cells[row_keys])
-        else:
-            hit = np.flatnonzero(np.isin(row_keys, point_keys))
-        _, first = np.unique(row_keys[hit], return_index=True)
-        found = hit[first] if rows is None else rows[hit[first]]
-        picked.update(found.tolist())
+        chosen = [columns[n] for n in names]
+        present = ~np.any([c.missing for c in chosen], axis=0)
+        keys = pd.MultiIndex.from_arrays([c.values for c in chosen])
+        hit = np.flatnonzero(present & keys.isin([tuple(p) for p in points.tolist()]))
+        picked.update(hit[~keys[hit].duplicated()].tolist())
     inside = positions[(positions >= offset) & (positions < offset + len(frame))] - offset
     picked.update(inside.tolist())
     chosen = np.array(sorted(picked), dtype=np.int64)
     return frame.iloc[chosen].reset_index(drop=True), chosen + offset
 
 
-def _keys(points: np.ndarray, lows: np.ndarray, widths: np.ndarray):
-    """One int64 per point (mixed radix over the columns' ranges), or None if too wide."""
-    if float(np.prod(widths.astype(np.float64))) >= 2**62:
-        return None
-    key = np.zeros(len(points), dtype=np.int64)
-    for j in range(points.shape[1]):
-        key = key * widths[j] + (points[:, j] - lows[j])
-    return key
-
-
 def _candidate_rows(sample, positions, located, names, table):
     import pandas as pd
 
     keep = [n for n in sample.frame.columns if n in names or n == table.id_column]
-    frames = [sample.frame[keep]] + [f[keep] for f, _ in located if len(f)]
-    all_positions = np.concatenate([positions] + [p for _, p in located if len(p)])
-    frame = pd.concat(frames, ignore_index=True)
-    order = np.argsort(all_positions, kind="stable")
-    all_positions = all_positions[order]
-    frame = frame.iloc[order].reset_index(drop=True)
-    first = np.r_[True, all_positions[1:] != all_positions[:-1]]
-    return frame[first].reset_index(drop=True), all_positions[first]
+    frame = pd.concat([sample.frame[keep]] + [f[keep] for f, _ in located if len(f)],
+                      ignore_index=True)
+    all_positions = np.concatenate([positions] + [p for _, p in located])
+    # each position once, in order: the first of its rows (the sample's where it has one)
+    first = np.unique(all_positions, return_index=True)[1]
+    return frame.iloc[first].reset_index(drop=True), all_positions[first]
 
 
 # ----------------------------------------------------------------------------------------
@@ -428,96 +289,79 @@ def _candidate_rows(sample, positions, located, names, table):
 
 
 # Pass B's settings: exact and real column names; relations (integer vectors over the exact
-# columns and the constant); bounds (integer coefs, columns, limit K of sum <= K, near limit);
-# approximate relations (names, float coefs, constant); tolerance; cap (breaking row ids kept
-# per list); listed (attaining row ids kept per bound).
+# columns and the constant); bounds (see _bound_spec) and the rational columns' scales;
+# approximate relations (names, float coefs, constant); congruences (terms, modulus,
+# residue); tolerance; limit (row ids kept per list).
 
 
-def _pass_b(frame, offset: int, spec: Settings, id_column):
-    from analysis.relations import approximately_off
+def _pass_b(frame, offset: int, spec: Settings) -> dict:
+    """Per statement, on one partition: (rows it counts, rows breaking it, their first ids);
+    for a bound, the same of the rows attaining it and how many come close between."""
+    from analysis import relations as rel
 
-    values, missing = _exact_matrix(frame, spec.exact)
-    ids = frame[id_column].to_numpy() if id_column else \
-        np.arange(offset, offset + len(frame), dtype=np.int64)
-    out = {"relations": [], "bounds": [], "approximate": []}
-    projected = _masked_projection(values, missing, spec.relations)
-    for j, vector in enumerate(spec.relations):
-        bad = np.flatnonzero(np.asarray(projected[:, j] != 0, dtype=bool))
-        present = int(_present_rows(missing, vector).sum())
-        out["relations"].append((len(bad), ids[bad[: spec.cap]], present))
-    index = {n: i for i, n in enumerate(spec.exact)}
-    for coefs, columns, limit, near_limit in spec.bounds:
-        cols = [index[c] for c in columns]
-        gone = missing[:, cols].any(axis=1)
-        lhs = _combine(values[:, cols], coefs)
-        these = ids
-        present = ~gone
-        if gone.any():
-            lhs, these = lhs[present], ids[present]
-        attained = np.flatnonzero(lhs == limit)
-        broken = np.flatnonzero(lhs > limit)
-        slack = limit - lhs
-        near = int(np.count_nonzero((slack > 0) & (slack <= near_limit)))
-        out["bounds"].append({"present": int(present.sum()), "attained": len(attained),
-                              "attained_ids": these[attained[: spec.listed]],
-                              "near": near, "broken": len(broken),
-                              "broken_ids": these[broken[: spec.cap]]})
-    if spec.approximate:
-        reals = np.column_stack([frame[n].to_numpy(dtype=np.float64, na_value=np.nan)
-                                 for n in spec.real]) if spec.real else np.zeros((len(frame), 0))
+    columns, reals, ids = _read(frame, offset, spec, spec.exact + spec.real)
+    out = {"relations": [], "bounds": [], "approximate": [], "congruences": []}
+    projected, present = _products(columns, spec.exact, spec.relations, len(frame))
+    for j in range(len(spec.relations)):
+        out["relations"].append(_tally(present[:, j], projected[:, j] != 0, ids, spec.limit))
+    scaled = _bound_columns(columns, spec) if spec.bounds else {}
+    for coefs, names, constant, margin in spec.bounds:
+        rows = ~np.any([scaled[n].missing for n in names], axis=0)
+        lhs = rel.combine(coefs, [scaled[n].values[rows] for n in names])
+        attained, broken, near = rel.bound_counts(lhs, constant, margin)
+        out["bounds"].append((*_tally(rows, attained, ids[rows], spec.limit), near,
+                              *_tally(rows, broken, ids[rows], spec.limit)[1:]))
     for names, coefs, constant in spec.approximate:
-        columns = []
-        for name in names:
-            if name in index:
-                column = values[:, index[name]].astype(np.float64)
-                column[missing[:, index[name]]] = np.nan
-            else:
-                column = reals[:, spec.real.index(name)]
-            columns.append(column)
-        data = np.column_stack(columns + [np.ones(len(frame))])
+        data = np.column_stack([rel.float_column(*columns[n]) if n in columns else reals[n]
+                                for n in names] + [np.ones(len(frame))])
         finite = np.isfinite(data).all(axis=1)
         full = np.append(np.asarray(coefs, dtype=float), -constant)
-        off = np.flatnonzero(approximately_off(data[finite], full, spec.tolerance))
-        out["approximate"].append((int(finite.sum()), len(off), ids[finite][off[: spec.cap]]))
+        off = rel.approximately_off(data[finite], full, spec.tolerance)
+        out["approximate"].append(_tally(finite, off, ids[finite], spec.limit))
+    for terms, modulus, residue in spec.congruences:
+        rows = ~np.any([columns[n][1] for n, _ in terms], axis=0)
+        # reduced first: no product can overflow, and integers of any size reduce exactly
+        total = sum((c % modulus) * np.asarray(columns[n][0] % modulus).astype(np.int64)
+                    for n, c in terms)
+        out["congruences"].append(_tally(rows, rows & (total % modulus != residue), ids,
+                                         spec.limit))
     return out
 
 
-def _combine(values: np.ndarray, coefs: list[int]) -> np.ndarray:
-    bound = sum(abs(c) for c in coefs) * (int(np.abs(values).max(initial=0)) + 1)
-    if bound < _INT64_SAFE:
-        return values @ np.array(coefs, dtype=np.int64)
-    return values.astype(object).dot(np.array(coefs, dtype=object))
+def _tally(counted: np.ndarray, breaking: np.ndarray, ids: np.ndarray, limit: int) -> tuple:
+    """(rows counted, rows breaking, the first ``limit`` ids of those) from boolean masks."""
+    return int(np.count_nonzero(counted)), int(np.count_nonzero(breaking)), ids[breaking][:limit]
 
 
-def _merge_b(a: dict, b: dict, cap: int, listed: int) -> dict:
-    out = {"relations": [], "bounds": [], "approximate": []}
-    for (ca, ia, pa), (cb, ib, pb) in zip(a["relations"], b["relations"]):
-        out["relations"].append((ca + cb, np.concatenate([ia, ib])[:cap], pa + pb))
-    for x, y in zip(a["bounds"], b["bounds"]):
-        out["bounds"].append({
-            "present": x["present"] + y["present"], "attained": x["attained"] + y["attained"],
-            "attained_ids": np.concatenate([x["attained_ids"], y["attained_ids"]])[:listed],
-            "near": x["near"] + y["near"], "broken": x["broken"] + y["broken"],
-            "broken_ids": np.concatenate([x["broken_ids"], y["broken_ids"]])[:cap]})
-    for (pa, ca, ia), (pb, cb, ib) in zip(a["approximate"], b["approximate"]):
-        out["approximate"].append((pa + pb, ca + cb, np.concatenate([ia, ib])[:cap]))
-    return out
+def _added(a, b, limit: int):
+    """Two partitions' counts as one: numbers added, row ids joined (the first ``limit``)."""
+    if isinstance(a, np.ndarray):
+        return np.concatenate([a, b])[:limit]
+    if isinstance(a, dict):
+        return {key: _added(a[key], b[key], limit) for key in a}
+    if isinstance(a, (list, tuple)):
+        return type(a)(_added(x, y, limit) for x, y in zip(a, b))
+    return a + b
 
 
-def _bound_spec(bound) -> tuple:
-    """(integer coefs, columns, limit, near limit) of ``sum <= limit`` form of a bound."""
+
+def _bound_spec(bound, scales: dict) -> tuple:
+    """(coefficients, columns, constant, margin) of a bound as the in-memory search judged
+    it: ``sum(coef * column) <= constant`` on its columns in their scaled units (see
+    :func:`_scales`), with primitive integer coefficients, and the margin of rows close to
+    it in those units."""
     sign = 1 if bound.relation == "<=" else -1
-    coefs = [Fraction(c) * sign for _, c in bound.terms]
-    constant = Fraction(bound.constant) * sign
-    margin = Fraction(bound.near_margin)
-    scale = math.lcm(*(c.denominator for c in coefs), constant.denominator)
-    ints = [int(c * scale) for c in coefs]
-    limit = int(constant * scale)
-    return ints, [name for name, _ in bound.terms], limit, math.floor(margin * scale)
+    on_scaled = [sign * Fraction(c) / scales.get(name, 1) for name, c in bound.terms]
+    common = math.lcm(*(c.denominator for c in on_scaled))
+    factor = Fraction(common, math.gcd(*(int(c * common) for c in on_scaled)))
+    return ([int(c * factor) for c in on_scaled], [name for name, _ in bound.terms],
+            sign * Fraction(bound.constant) * factor, Fraction(bound.near_margin) * factor)
 
 
-def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: Settings):
-
+def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict):
+    """The result: every statement of the second search (and the relations of the first
+    that a few rows break) counted on every row, kept as the in-memory step keeps them."""
+    from analysis import congruences as cg
     from analysis import relations as rel
 
     table = ctx.table
@@ -525,133 +369,140 @@ def _settle(ctx: Context, step, first, second, exact, real, found: dict, spec: S
     # the rows where all the searched columns are present
     allowed = rel.breakers_allowed(step.max_breakers, table.n_rows) if step.robust else 0
     every = [r for r in second.relations if r.exact and not r.violations]
-    every_vectors = [_vector(r, exact) for r in every]
     # relations broken by a few rows: those of both searches, and relations of the sample
     # that other rows break
-    known = {tuple(v) for v in every_vectors if v is not None}
+    known = {tuple(_vector(r, exact)) for r in every}
     candidates = []
     for relation in [*second.relations, *first.relations]:
         vector = _vector(relation, exact)
-        if not relation.exact or vector is None or tuple(vector) in known:
-            continue
-        known.add(tuple(vector))
-        candidates.append((relation, vector))
-    approximate = list(second.approximate)
-    b_spec = Settings(
-        exact=exact, real=real,
-        relations=[v for v in every_vectors if v is not None] + [v for _, v in candidates],
-        bounds=[_bound_spec(b) for b in second.bounds],
+        if relation.exact and tuple(vector) not in known:
+            known.add(tuple(vector))
+            candidates.append((relation, vector))
+    integers, congruences = _proposed_congruences(step, table, sample)
+    spec = Settings(
+        table=dataclasses.replace(table, frame=None), exact=exact, real=real,
+        relations=[_vector(r, exact) for r in every] + [v for _, v in candidates],
+        scales=found["scales"], bounds=[_bound_spec(b, found["scales"]) for b in second.bounds],
         approximate=[([n for n, _ in r.terms], [float(c) for _, c in r.terms],
-                      float(r.constant)) for r in approximate],
-        tolerance=float(step.tolerance), cap=max(allowed, 0) + 1, listed=rel.MAX_LISTED_ROWS,
-    )
-    cap, listed = b_spec.cap, b_spec.listed
-    counts = ctx.compute(tree(partition_tasks(ctx, _pass_b, exact + real, b_spec,
-                                              table.id_column),
-                              lambda a, b: _merge_b(a, b, cap, listed)))
+                      float(r.constant)) for r in second.approximate],
+        congruences=list(congruences), tolerance=float(step.tolerance),
+        limit=max(allowed + 1, rel.MAX_LISTED_ROWS, cg.MAX_LISTED_ROWS))
+    counts = ctx.compute(tree(partition_tasks(ctx, _pass_b, exact + real, spec),
+                              lambda a, b: _added(a, b, spec.limit)))
     notes = list(second.notes)
-    checked = len([v for v in every_vectors if v is not None])
-    every_counts = counts["relations"][:checked]
-    broken = [r.text for r, (count, _, _) in zip(every, every_counts) if count]
+    relations = _settled_relations(every, candidates, exact, counts["relations"], allowed,
+                                   notes)
+    bounds = []
+    for bound, (present, attained, ids, near, broken, breaking) in zip(second.bounds,
+                                                                       counts["bounds"]):
+        if broken > (allowed if bound.violations else 0):
+            continue
+        bounds.append(dataclasses.replace(
+            bound, attained_by=tuple(ids[: rel.MAX_LISTED_ROWS].tolist()),
+            attained_count=attained, near=near, holds_on=present - broken,
+            violations=tuple(breaking[: allowed + 1].tolist()),
+            note=rel.recounted_note(bound, attained)))
+    bounds = _drop_crowded_triples(bounds, found, table.n_rows)
+    bounds = rel.reported_bounds(sorted(bounds, key=rel.bound_rank), rel.MAX_BOUNDS, notes)
+    approximate = [dataclasses.replace(r, holds_on=present - off,
+                                       violations=tuple(ids[: allowed + 1].tolist()),
+                                       note=rel.approximate_note(off))
+                   for r, (present, off, ids) in zip(second.approximate, counts["approximate"])
+                   if off <= allowed]
+    if step.robust:
+        ctx.notes.append(Note(
+            "dask_robust_proposed",
+            "relations and bounds broken by a few rows are proposed from the rows "
+            "searched (not from every row) and kept when every row's count allows."))
+    settled = dataclasses.replace(second, relations=tuple(relations), bounds=tuple(bounds),
+                                  approximate=tuple(approximate), notes=tuple(notes),
+                                  n_rows=table.n_rows)
+    return dataclasses.replace(settled, congruences=_settled_congruences(
+        ctx, sample, integers, congruences, counts["congruences"], settled))
+
+
+def _settled_relations(every, candidates, exact, counts, allowed: int, notes: list) -> list:
+    """The relations of every row that every row obeys, then those of ``candidates`` that
+    at most ``allowed`` rows break, in the in-memory step's order."""
+    from analysis import relations as rel
+
+    every_counts = counts[: len(every)]
+    broken = [r.text for r, (_, count, _) in zip(every, every_counts) if count]
     if broken:
         # cannot happen when the breaking rows were gathered; say so rather than hide it
         notes.append(Note(
             "dask_relations_broken",
             "relations of the rows searched that other rows break, left out: "
             + "; ".join(broken)))
-    settled_every = [dataclasses.replace(r, holds_on=present)
-                     for r, (count, _, present) in zip(every, every_counts) if not count]
+    settled = [dataclasses.replace(r, holds_on=present)
+               for r, (present, count, _) in zip(every, every_counts) if not count]
     tracker = rel.RankTracker()
-    for v in every_vectors:
-        if v is not None:
-            tracker.add(v)
-    ranked = sorted(zip(candidates, counts["relations"][checked:]),
-                    key=lambda item: rel.robust_rank(item[1][0], item[0][1]))
+    for relation in every:
+        tracker.add(_vector(relation, exact))
     robust = []
-    for (relation, vector), (count, ids, present) in ranked:
+    for (relation, vector), (present, count, ids) in sorted(
+            zip(candidates, counts[len(every):]),
+            key=lambda item: rel.robust_rank(item[1][1], item[0][1])):
         if not 0 < count <= allowed or not tracker.add(vector):
             continue
         robust.append(dataclasses.replace(
-            relation, holds_on=present - count, violations=tuple(ids.tolist()),
+            relation, holds_on=present - count, violations=tuple(ids[: allowed + 1].tolist()),
             note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial)))
-    ordered = rel.ordered_relations(settled_every, robust)
-    bounds = []
-    for bound, c in zip(second.bounds, counts["bounds"]):
-        if c["broken"] > (allowed if bound.violations else 0):
-            continue
-        note = rel.recounted_note(bound, c["attained"])
-        bounds.append(dataclasses.replace(
-            bound, attained_by=tuple(c["attained_ids"].tolist()), attained_count=c["attained"],
-            near=c["near"], holds_on=c["present"] - c["broken"],
-            violations=tuple(c["broken_ids"].tolist()), note=note))
-    bounds = _drop_crowded_triples(bounds, found)
-    bounds.sort(key=rel.bound_rank)
-    bounds = rel.reported_bounds(bounds, rel.MAX_BOUNDS, notes)
-    settled_approximate = []
-    for relation, (present, off, ids) in zip(approximate, counts["approximate"]):
-        if off > allowed:
-            continue
-        settled_approximate.append(dataclasses.replace(
-            relation, holds_on=present - off, violations=tuple(ids.tolist()),
-            note=rel.approximate_note(off)))
-    if step.robust:
-        ctx.notes.append(Note(
-            "dask_robust_proposed",
-            "relations and bounds broken by a few rows are proposed from the rows "
-            "searched (not from every row) and kept when every row's count allows."))
-    return dataclasses.replace(second, relations=tuple(ordered), bounds=tuple(bounds),
-                               approximate=tuple(settled_approximate), notes=tuple(notes),
-                               n_rows=table.n_rows)
+    return rel.ordered_relations(settled, robust)
 
 
-def _drop_crowded_triples(bounds, found):
-    """Bounds in three columns whose triple has too many distinct points to be searched in
-    memory are left out here too, so that both engines report the same bounds."""
+def _drop_crowded_triples(bounds, found, rows: int):
+    """Bounds in three columns of a triple that the in-memory search leaves out as too
+    costly (:func:`analysis.relations.crowded_triple`) are left out here too, so that both
+    engines report the same bounds."""
     from analysis import relations as rel
 
-    limit = rel.MAX_TRIPLE_POINTS
-    crowded = {frozenset(k) for k, (_, keys) in found["triples"].items()
-               if keys is None or len(keys) > limit}
-    kept = [b for b in bounds
+    crowded = set()
+    for triple, points in found["points"].items():
+        cells = rel.grid_cells([tuple(map(int, found["corners"][(n,)][:, 0]))
+                                for n in triple])
+        if points is None or rel.crowded_triple(cells, rows, len(points)):
+            crowded.add(frozenset(triple))
+    return [b for b in bounds
             if len(b.terms) != 3 or frozenset(n for n, _ in b.terms) not in crowded]
-    return kept
 
 
 # ----------------------------------------------------------------------------------------
-# Congruences: proposed on the sample, counted on every row
+# Congruences: proposed on the sample, counted on every row (in pass B)
 
 
-def _congruences(ctx: Context, step, sample, settled) -> tuple:
-    """The congruences of the integer columns, as the in-memory step finds them.
+def _proposed_congruences(step, table, sample) -> tuple[list, dict]:
+    """The integer columns and {(terms, modulus, residue): congruence} of them on the sample.
 
-    Each modulus is searched on its own on the sample (so that no fact there hides a weaker
-    modulus or a pair that only every row can settle); every candidate is then counted on
-    every row, and :func:`analysis.congruences.settle_congruences` keeps those the in-memory
-    search would keep.
+    Each modulus is searched on its own (so that no fact there hides a weaker modulus or a
+    pair that only every row can settle); the candidates are counted on every row, and
+    :func:`analysis.congruences.settle_congruences` keeps those the in-memory search would
+    keep.
     """
-
     from analysis import congruences as cg
 
-    table = ctx.table
-    integers = [n for n in step.chosen_columns(table) if table.column(n).dtype == "integer"]
+    integers = [n for n in step.chosen_columns(table)
+                if table.column(n).dtype in ("integer", "big integer")]
     if not step.congruences or not integers:
-        return ()
+        return integers, {}
     columns = {name: sample.exact(name) for name in integers}
     candidates = {}
     for modulus in cg.MODULI:
         for congruence in cg.find_congruences(columns, sample.row_ids, moduli=[modulus]):
             candidates[(congruence.terms, modulus, congruence.residue)] = congruence
+    return integers, candidates
+
+
+def _settled_congruences(ctx: Context, sample, integers, candidates: dict, counts,
+                         settled) -> tuple:
+    from analysis import congruences as cg
+
     if not candidates:
         return ()
-    index = {n: j for j, n in enumerate(integers)}
-    specs = [([index[n] for n, _ in terms], [c for _, c in terms], m, r)
-             for terms, m, r in candidates]
-    listed = cg.MAX_LISTED_ROWS
-    counts = ctx.compute(tree(partition_tasks(ctx, _count_congruences, integers, integers,
-                                              specs, table.id_column, listed),
-                              lambda a, b: _merge_congruences(a, b, listed)))
+    table = ctx.table
     counted = [dataclasses.replace(congruence, holds_on=present, violation_count=broken,
-                                   violations=tuple(ids.tolist()), implied_moduli=())
+                                   violations=tuple(ids[: cg.MAX_LISTED_ROWS].tolist()),
+                                   implied_moduli=())
                for congruence, (present, broken, ids) in zip(candidates.values(), counts)]
     laws = [r for r in settled.relations if not r.violations]
     constants = [n for n in integers if table.column(n).distinct == 1]
@@ -662,25 +513,3 @@ def _congruences(ctx: Context, step, sample, settled) -> tuple:
             "different values, or breaks more often than the whole table does, is not "
             "proposed."))
     return tuple(cg.settle_congruences(counted, relations=laws, constants=constants))
-
-
-def _count_congruences(frame, offset: int, names, specs, id_column, listed: int) -> list:
-    """Per candidate: rows with every term present, rows breaking it, their first ids."""
-    values, missing = _exact_matrix(frame, names)
-    ids = frame[id_column].to_numpy() if id_column else \
-        np.arange(offset, offset + len(frame), dtype=np.int64)
-    out = []
-    for columns, coefs, modulus, residue in specs:
-        present = ~missing[:, columns].any(axis=1)
-        total = np.zeros(len(frame), dtype=np.int64)
-        for j, coef in zip(columns, coefs):
-            # reduced first: no product can overflow
-            total += (coef % modulus) * (values[:, j] % modulus)
-        broken = np.flatnonzero(present & (total % modulus != residue))
-        out.append((int(present.sum()), len(broken), ids[broken[:listed]]))
-    return out
-
-
-def _merge_congruences(a: list, b: list, listed: int) -> list:
-    return [(pa + pb, ca + cb, np.concatenate([ia, ib])[:listed])
-            for (pa, ca, ia), (pb, cb, ib) in zip(a, b)]
