@@ -45,10 +45,10 @@ class Context:
         return self.client.scatter(value, broadcast=True, hash=False)
 
     def engine_note(self) -> Note:
-        try:
-            workers = len(self.client.scheduler_info(n_workers=-1)["workers"])
-        except TypeError:
-            workers = len(self.client.scheduler_info()["workers"])
+        """What ran where: the cluster's workers, the table's partitions and rows."""
+        from analysis.distributed.cluster import workers_of
+
+        workers = len(workers_of(self.client))
         return Note("dask_engine",
                     f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
                     f"{self.client.scheduler.address}) over {self.table.npartitions} partition"

@@ -271,11 +271,9 @@ def feature_blocks(table, plan: FeaturePlan, client, *, persist: bool | None = N
 
 
 def _fits(nbytes: int, client) -> bool:
-    try:
-        workers = client.scheduler_info(n_workers=-1)["workers"].values()
-    except TypeError:   # older distributed without n_workers
-        workers = client.scheduler_info()["workers"].values()
-    memory = sum(w.get("memory_limit", 0) or 0 for w in workers)
+    from analysis.distributed.cluster import workers_of
+
+    memory = sum(w.get("memory_limit", 0) or 0 for w in workers_of(client).values())
     return memory > 0 and nbytes <= PERSIST_SHARE * memory
 
 
