@@ -42,6 +42,15 @@ def run_separator(step, ctx: Context):
     from analysis.distributed.source import sample_table
 
     started = time.perf_counter()
+    if step.target_statement is not None:
+        from analysis.derived import Statement
+        from analysis.distributed.source import with_breaks_flag
+
+        # the in-memory step's derived target, its flag computed partition by partition
+        step.check()
+        statement = Statement.from_json(step.target_statement)
+        ctx = dataclasses.replace(ctx, table=with_breaks_flag(ctx.table, ctx.client, statement))
+        step = dataclasses.replace(step, target=statement.flag_name)
     table = ctx.table
     step.check_table(table)
     if step.augment_permutations:

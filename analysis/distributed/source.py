@@ -82,6 +82,8 @@ class PartitionedTable:
     frame: object = field(default=None, repr=False)   # the raw dask DataFrame
     conversions: tuple[tuple[str, str], ...] = ()      # (column, how) for typed_block
     facts: dict = field(default_factory=dict, repr=False, compare=False)
+    # flags derived from statements (analysis.derived), computed partition by partition
+    derived: tuple = ()
 
     @property
     def n_rows(self) -> int:
@@ -107,18 +109,62 @@ class PartitionedTable:
     def typed_partitions(self, columns: list[str] | None = None) -> list:
         """One dask ``Delayed`` per partition: a pandas frame typed as ``Table.frame`` is.
 
-        ``columns`` limits the columns read (the id column is always kept).
+        ``columns`` limits the columns read (the id column is always kept); a derived flag
+        among them is computed from its statement's columns, which are read too.
         """
         from dask import delayed
 
-        names = [c.name for c in self.columns]
+        flags = tuple(s for s in self.derived if columns is None or s.flag_name in columns)
+        needed = {name for s in flags for name, _ in s.terms}
+        names = [c.name for c in self.columns if c.name not in {s.flag_name for s in self.derived}]
         if columns is not None:
-            wanted = set(columns) | ({self.id_column} if self.id_column else set())
+            wanted = set(columns) | needed | ({self.id_column} if self.id_column else set())
             names = [n for n in names if n in wanted]
         frame = self.frame[names] if names else self.frame
         how = tuple((c, h) for c, h in self.conversions if c in set(names))
-        return [delayed(typed_block, pure=True)(part, how) if how else part
-                for part in frame.to_delayed()]
+        parts = [delayed(typed_block, pure=True)(part, how) if how else part
+                 for part in frame.to_delayed()]
+        if not flags:
+            return parts
+        terms = tuple(c for c in self.columns if c.name in needed)
+        return [delayed(_with_flags, pure=True)(part, self.name, terms, flags) for part in parts]
+
+
+def _with_flags(frame: pd.DataFrame, name: str, terms: tuple, statements: tuple):
+    """A typed partition with the flag of each statement added, as the in-memory table has."""
+    from analysis.derived import breaking_rows
+
+    part = Table(name=name, digest="", frame=frame, columns=terms)
+    frame = frame.copy(deep=False)
+    for statement in statements:
+        frame[statement.flag_name] = pd.array(breaking_rows(part, statement), dtype="boolean")
+    return frame
+
+
+def with_breaks_flag(table: PartitionedTable, client, statement) -> PartitionedTable:
+    """``table`` with the flag "breaks: <statement>" (:func:`analysis.derived.with_breaks_flag`
+    on every partition), its rows that break and cannot be checked counted over all of them."""
+    from dask import delayed
+
+    from analysis.derived import breaks_flag_info
+
+    if statement.flag_name in {c.name for c in table.columns}:
+        return table
+    flagged = replace(table, derived=table.derived + (statement,))
+    counts = client.gather(client.compute(tree(
+        [delayed(_flag_counts)(part, statement.flag_name)
+         for part in flagged.typed_partitions([statement.flag_name])], _add_pair)))
+    info = breaks_flag_info(table.name, statement, *counts, table.n_rows)
+    return replace(flagged, columns=table.columns + (info,))
+
+
+def _flag_counts(frame: pd.DataFrame, name: str) -> tuple[int, int]:
+    flags = frame[name]
+    return int(flags.sum()), int(flags.isna().sum())
+
+
+def _add_pair(a: tuple, b: tuple) -> tuple:
+    return a[0] + b[0], a[1] + b[1]
 
 
 # ----------------------------------------------------------------------------------------
@@ -543,4 +589,4 @@ def as_table(table: PartitionedTable, frame: pd.DataFrame, positions: np.ndarray
 
 
 __all__ = ["PartitionedTable", "as_table", "read_partitioned", "row_column_name",
-           "sample_table", "typed_block", "with_roles"]
+           "sample_table", "typed_block", "with_breaks_flag", "with_roles"]
