@@ -215,24 +215,23 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
         target_missing = _missing_mask(table, target)
     rows = np.arange(table.n_rows)
     if bad.any() or target_missing.any():
-        inf_count = int(np.isinf(values).any(axis=1).sum())
-        if inf_count:
-            notes.append(infinite_note(inf_count))
+        infinite = int(np.isinf(values).any(axis=1).sum())   # before any cell is filled
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
-            hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
-            text, serious = dropped_rows_text(table.n_rows, int((~keep).sum()),
-                                              int(bad.any(axis=1).sum()),
-                                              int(target_missing.sum()), hint)
-            (warnings if serious else notes).append(text)
-            values = values[keep]
-            rows = rows[keep]
+            filled = 0
         else:
             filled = _impute(values, bad, features)
             keep = ~target_missing
-            values = values[keep]
-            rows = rows[keep]
-            notes.append(filled_note(filled, int(target_missing.sum())))
+        said, warned = missing_said(
+            missing, table.n_rows, infinite=infinite,
+            dropped=int((~keep).sum()), in_features=int(bad.any(axis=1).sum()),
+            in_target=int(target_missing.sum()), filled=filled,
+            hint=_interval_hint(table, columns, bad.any(axis=1), intervals)
+            if missing == "drop" else "")
+        notes.extend(said)
+        warnings.extend(warned)
+        values = values[keep]
+        rows = rows[keep]
     if len(rows) == 0:
         raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
                         "other columns or impute missing values.")
@@ -275,6 +274,23 @@ def _interval_hint(table: Table, columns: list[str], dropped: np.ndarray,
         return ""
     return (f" {count} of these rows are known by an interval in a feature column; reading "
             "intervals by their low end, high end or midpoint (intervals) keeps them.")
+
+
+def missing_said(missing: str, n_rows: int, *, infinite: int, dropped: int, in_features: int,
+                 in_target: int, filled: int, hint: str = "") -> tuple[list, list]:
+    """(notes, warnings) of the features of a table of ``n_rows`` rows with missing values:
+    ``infinite`` rows with an infinite value; under ``missing="drop"`` the ``dropped`` rows
+    (``in_features`` missing a feature, ``in_target`` the target); under "impute" the
+    ``filled`` cells and the ``in_target`` rows dropped. Both engines say it here."""
+    notes, warnings = [], []
+    if infinite:
+        notes.append(infinite_note(infinite))
+    if missing == "drop":
+        text, serious = dropped_rows_text(n_rows, dropped, in_features, in_target, hint)
+        (warnings if serious else notes).append(text)
+    else:
+        notes.append(filled_note(filled, in_target))
+    return notes, warnings
 
 
 def dropped_rows_text(n_rows: int, dropped: int, in_features: int, in_target: int,

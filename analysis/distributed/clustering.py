@@ -54,11 +54,11 @@ class Clusters:
 def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     """Cluster the rows of the given feature blocks as ``step`` asks."""
     from analysis import clustering as cl
-    from analysis.distributed.matrix import feature_notes, feature_warnings
+    from analysis.distributed.matrix import feature_said
 
     started = time.perf_counter()
     (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
-    notes = feature_notes(plan, counts, ctx.table.n_rows)
+    notes, warned = feature_said(plan, counts, ctx.table.n_rows)
     shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
     at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
@@ -99,7 +99,7 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
         silhouette=entry.silhouette, compare=step.compare, agreement=agreement,
         notes=tuple(dict.fromkeys(notes)),
-        warnings=feature_warnings(plan, counts, ctx.table.n_rows),
+        warnings=warned,
         elapsed_seconds=time.perf_counter() - started,
     )
     return Clusters(result, chosen, order, shift, scale)

@@ -136,14 +136,12 @@ def merge_moments(a, b):
 
 
 def spread_scale(n, mean, m2) -> np.ndarray:
-    """Each feature's population standard deviation from moments, 1 for a feature that
-    scikit-learn's ``StandardScaler`` counts as constant (variance at rounding level)."""
+    """Each feature's population standard deviation from moments, 1 for a feature that does
+    not vary (:func:`analysis.projection.varying`, the in-memory rule)."""
+    from analysis.projection import varying
+
     variance = np.diag(m2) / n
-    eps = np.finfo(np.float64).eps
-    constant = variance <= n * eps * variance + (n * mean * eps) ** 2
-    scale = np.sqrt(variance)
-    scale[constant | (scale == 0)] = 1.0
-    return scale
+    return np.where(varying(n, mean, variance), np.sqrt(variance), 1.0)
 
 
 def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
@@ -221,6 +219,15 @@ def _merge_value_counts(a: list, b: list) -> list:
     return out
 
 
+def on_sample(step, ctx: Context, size: int):
+    """(``step.run`` in memory on a uniform random sample of ``size`` rows drawn across every
+    partition with the step's seed, the sampled rows' positions in the whole table)."""
+    from analysis.distributed.source import sample_table
+
+    sample, positions = sample_table(ctx.table, ctx.client, size, seed=step.seed)
+    return step.run(sample), positions
+
+
 def with_notes(result, extra: list[str]):
     """The result with ``extra`` appended to its notes (results are frozen dataclasses)."""
     if not extra:
@@ -229,5 +236,5 @@ def with_notes(result, extra: list[str]):
 
 
 __all__ = ["Context", "Settings", "block_moments", "blocks_for", "feature_moments",
-           "merge_moments", "partition_tasks", "plan_for", "spread_scale", "standardizing",
-           "tree", "with_notes"]
+           "merge_moments", "on_sample", "partition_tasks", "plan_for", "spread_scale",
+           "standardizing", "tree", "with_notes"]

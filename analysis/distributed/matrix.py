@@ -17,9 +17,6 @@ from analysis.features import (
     MAX_LEVELS,
     Feature,
     chosen_feature_columns,
-    dropped_rows_text,
-    filled_note,
-    infinite_note,
     left_out_warning,
     mostly_empty_columns,
     one_hot,
@@ -206,36 +203,17 @@ def _as_float(series: pd.Series) -> np.ndarray:
     return series.to_numpy(dtype=np.float64, na_value=np.nan)
 
 
-def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
-    """The notes build_features writes, from counts summed over partitions (its warnings:
-    :func:`feature_warnings`)."""
-    notes = list(plan.notes)
-    if counts["infinite"]:
-        notes.append(infinite_note(counts["infinite"]))
-    if counts["dropped_features"] or counts["dropped_target"] or counts["filled"]:
-        if plan.missing == "drop":
-            text, serious = _dropped(counts, n_rows)
-            if not serious:
-                notes.append(text)
-        else:
-            notes.append(filled_note(counts["filled"], counts["dropped_target"]))
-    return notes
+def feature_said(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[list, tuple]:
+    """(notes, warnings) that build_features writes, from counts summed over partitions."""
+    from analysis.features import missing_said
 
-
-def feature_warnings(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[str, ...]:
-    """The warnings build_features gives, from counts summed over partitions: mostly-empty
-    columns left out, and a drop of more than a tenth of the table."""
-    found = list(plan.warnings)
-    if plan.missing == "drop" and (counts["dropped_features"] or counts["dropped_target"]):
-        text, serious = _dropped(counts, n_rows)
-        if serious:
-            found.append(text)
-    return tuple(found)
-
-
-def _dropped(counts: dict, n_rows: int) -> tuple[str, bool]:
-    return dropped_rows_text(n_rows, counts["rows"] - counts["kept"],
-                             counts["dropped_features"], counts["dropped_target"])
+    if not (counts["dropped_features"] or counts["dropped_target"] or counts["filled"]):
+        return list(plan.notes), plan.warnings
+    said, warned = missing_said(plan.missing, n_rows, infinite=counts["infinite"],
+                                dropped=counts["rows"] - counts["kept"],
+                                in_features=counts["dropped_features"],
+                                in_target=counts["dropped_target"], filled=counts["filled"])
+    return list(plan.notes) + said, plan.warnings + tuple(warned)
 
 
 def block_counts(block: Block) -> dict:
@@ -278,4 +256,4 @@ def _fits(nbytes: int, client) -> bool:
 
 
 __all__ = ["Block", "FeaturePlan", "add_counts", "block_counts", "feature_blocks",
-           "feature_notes", "feature_plan", "partition_features"]
+           "feature_plan", "feature_said", "partition_features"]

@@ -35,7 +35,7 @@ def run_outliers(step, ctx: Context):
 
     from analysis import outliers as ol
     from analysis.distributed.clustering import gather_rows, sample_rows
-    from analysis.distributed.matrix import feature_notes, feature_warnings
+    from analysis.distributed.matrix import feature_said
 
     started = time.perf_counter()
     step.check_table(ctx.table)
@@ -45,8 +45,7 @@ def run_outliers(step, ctx: Context):
     blocks = blocks_for(ctx, plan)
     (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
     ol.check_rows(ctx.table.name, n)
-    notes = feature_notes(plan, counts, ctx.table.n_rows)
-    warned = feature_warnings(plan, counts, ctx.table.n_rows)
+    notes, warned = feature_said(plan, counts, ctx.table.n_rows)
     shift, scale = standardizing(step.standardize, n, mean, m2, notes)
     at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
     lof_rows = sample_rows(n, step.sample_size, step.seed)
