@@ -11,6 +11,7 @@ import warnings
 
 import numpy as np
 
+from analysis import clustering as cl
 from analysis.distributed.common import (
     Context,
     blocks_for,
@@ -53,7 +54,6 @@ class Clusters:
 
 def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
     """Cluster the rows of the given feature blocks as ``step`` asks."""
-    from analysis import clustering as cl
     from analysis.distributed.matrix import feature_said
 
     started = time.perf_counter()
@@ -106,6 +106,8 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
 
 
 def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
+    """``size`` of ``n`` rows drawn with ``seed`` as the in-memory steps draw them (every row
+    when there are no more)."""
     from analysis.projection import sample_positions
 
     return np.arange(n) if n <= size else sample_positions(n, size, seed)
@@ -136,24 +138,6 @@ def _take(block, local, shift, scale):
 # Fitting: each yields (k, assigner, bic) where assigner(values) -> labels
 
 
-class NearestCentre:
-    """Assigns each row to its nearest centre (Euclidean)."""
-
-    def __init__(self, centres: np.ndarray):
-        self.centres = np.asarray(centres, dtype=np.float64)
-
-    def __call__(self, values: np.ndarray) -> np.ndarray:
-        if len(values) == 0:
-            return np.zeros(0, dtype=int)
-        distances = ((values[:, None, :] - self.centres[None, :, :]) ** 2).sum(axis=2) \
-            if len(values) * len(self.centres) * values.shape[1] < 5_000_000 else None
-        if distances is None:
-            from sklearn.metrics import pairwise_distances_argmin
-
-            return pairwise_distances_argmin(values, self.centres)
-        return np.argmin(distances, axis=1)
-
-
 class MixtureAssigner:
     """Assigns each row to its most likely component of a fitted Gaussian mixture."""
 
@@ -164,23 +148,7 @@ class MixtureAssigner:
         return self.model.predict(values) if len(values) else np.zeros(0, dtype=int)
 
 
-class NearestSampled:
-    """Gives each row the label of its nearest sampled row (noise stays noise)."""
-
-    def __init__(self, sample: np.ndarray, labels: np.ndarray):
-        from sklearn.neighbors import NearestNeighbors
-
-        self.labels = labels
-        self.index = NearestNeighbors(n_neighbors=1).fit(sample)
-
-    def __call__(self, values: np.ndarray) -> np.ndarray:
-        if len(values) == 0:
-            return np.zeros(0, dtype=int)
-        return self.labels[self.index.kneighbors(values, return_distance=False)[:, 0]]
-
-
 def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
-    from analysis import clustering as cl
 
     if method == "kmeans":
         notes.append(Note("dask_lloyd", "k-means by exact Lloyd iterations over every row of "
@@ -200,7 +168,7 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
         if len(fit) < n:
             notes.append(cl.agglomerative_note(len(fit), n))
         for k, _, centres in cl.ward_cuts(fit, ks):
-            yield k, NearestCentre(centres), None
+            yield k, cl.NearestCentre(centres), None
     elif method == "hdbscan":
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         labels = cl.hdbscan_fit(fit, step.min_cluster_size, notes)
@@ -208,12 +176,12 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
             notes.append(cl.hdbscan_sample_note(len(fit), n))
         if step.k is not None:
             notes.append(cl.hdbscan_k_note(step.k))
-        yield None, NearestSampled(fit, labels), None
+        yield None, cl.NearestSampled(fit, labels), None
     else:
         raise StepError(f"clustering method {method!r} is not available on the dask engine.")
 
 
-class _Lloyd(NearestCentre):
+class _Lloyd(cl.NearestCentre):
     """Nearest-centre assignment whose centres are refined over all rows before first use."""
 
 
@@ -255,8 +223,6 @@ def _assign_block(block, assigner, shift, scale):
 
 
 def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
-    from analysis import clustering as cl
-
     sums = ctx.reduce(_profile_sums, blocks, _add_profile_sums, assigner, shift, scale)
     spread = np.sqrt(np.diag(m2) / n)
     total = mean * n

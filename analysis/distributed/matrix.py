@@ -24,6 +24,7 @@ from analysis.features import (
     too_many_levels,
 )
 from analysis.notes import Note
+from analysis.table import Table
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
@@ -44,6 +45,7 @@ class FeaturePlan:
     notes: tuple[str, ...]
     id_column: str | None
     warnings: tuple[str, ...] = ()         # the mostly-empty columns left out, said so
+    infos: tuple = ()                      # the feature and target columns' descriptions
 
     @property
     def names(self) -> list[str]:
@@ -104,7 +106,8 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
                        numeric_target=numeric_target, missing=missing,
                        log_columns=tuple(f.column for f in features if f.kind == "log"),
                        levels=levels, fill={}, notes=tuple(notes), id_column=table.id_column,
-                       warnings=tuple(warnings))
+                       warnings=tuple(warnings), infos=tuple(
+                           table.column(n) for n in [*columns, *([target] if target else [])]))
 
 
 def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Feature]:
@@ -147,6 +150,7 @@ def _levels(table, name: str) -> list[str]:
 def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> Block:
     """One partition's features (rows with a missing value dropped, or filled, per the plan)."""
     n = len(frame)
+    part = Table(name="", digest="", frame=frame, columns=plan.infos)   # numbers as in memory
     blocks = []
     for name in plan.columns:
         series = frame[name]
@@ -154,9 +158,8 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
             blocks.append(one_hot(series.astype(object).where(series.notna(), None).tolist(),
                                   plan.levels[name]))
             continue
-        values = _as_float(series)
-        blocks.append((signed_log(values.tolist()) if name in plan.log_columns
-                       else values)[:, None])
+        blocks.append((signed_log(part.numeric(name).tolist()) if name in plan.log_columns
+                       else part.numeric(name))[:, None])
     values = np.column_stack(blocks) if blocks else np.empty((n, 0))
     positions = np.arange(offset, offset + n, dtype=np.int64)
     ids = frame[plan.id_column].to_numpy() if plan.id_column else positions
@@ -165,7 +168,7 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     if plan.target is not None:
         series = frame[plan.target]
         if plan.numeric_target:
-            target = _as_float(series)
+            target = part.numeric(plan.target)
             target_missing = ~np.isfinite(target)
         else:
             target = series.to_numpy(dtype=object)
@@ -194,13 +197,6 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     out.row_ids = ids[keep]
     out.target = None if target is None else target[keep]
     return out
-
-
-def _as_float(series: pd.Series) -> np.ndarray:
-    if series.dtype == object:
-        return np.array([np.nan if v is None or v is pd.NA else float(v) for v in series],
-                        dtype=np.float64)
-    return series.to_numpy(dtype=np.float64, na_value=np.nan)
 
 
 def feature_said(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[list, tuple]:
