@@ -622,18 +622,25 @@ def profile_values(table: Table, fm: FeatureMatrix) -> tuple[list[str], np.ndarr
 
 def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
     names, values, kinds = profile_values(table, fm)
-    spread = values.std(axis=0)
-    profiles = []
-    clusters = sorted(set(labels.tolist()), key=lambda c: (c == NOISE, c))
-    for cluster in clusters:
+    sums = {}
+    for cluster in set(labels.tolist()):
         inside = labels == cluster
-        means = values[inside].mean(axis=0)
-        if inside.all():
-            rest = means
-        else:
-            rest = values[~inside].mean(axis=0)
-        profiles.append(cluster_profile(int(cluster), int(inside.sum()), names, kinds, means,
-                                        rest, spread))
+        sums[cluster] = (int(inside.sum()), values[inside].sum(axis=0),
+                         values[~inside].sum(axis=0))
+    return profiles_from_sums(sums, len(labels), names, kinds, values.std(axis=0))
+
+
+def profiles_from_sums(sums: dict, n: int, names, kinds, spread: np.ndarray) -> tuple:
+    """The clusters' profiles (noise last) from ``sums``, {cluster: (its rows, the sums of
+    each feature over its rows, over the other rows)} of ``n`` rows, and each feature's
+    standard deviation over every row (``spread``)."""
+    profiles = []
+    for cluster in sorted(sums, key=lambda c: (c == NOISE, c)):
+        size, inside, outside = sums[cluster]
+        means = inside / size
+        rest = means if size == n else outside / (n - size)
+        profiles.append(cluster_profile(int(cluster), int(size), names, kinds, means, rest,
+                                        spread))
     return tuple(profiles)
 
 

@@ -223,20 +223,11 @@ def _assign_block(block, assigner, shift, scale):
 
 
 def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
+    """The in-memory profiles, from each cluster's sums over the blocks."""
     sums = ctx.reduce(_profile_sums, blocks, _add_profile_sums, assigner, shift, scale)
-    spread = np.sqrt(np.diag(m2) / n)
-    total = mean * n
-    names = plan.names
-    kinds = [f.kind for f in plan.features]
-    profiles = []
-    clusters = sorted(sums, key=lambda c: (order[c] == -1, order[c]))
-    for cluster in clusters:
-        size, inside_sum = sums[cluster]
-        means = inside_sum / size
-        rest = means if size == n else (total - inside_sum) / (n - size)
-        profiles.append(cl.cluster_profile(int(order[cluster]), int(size), names, kinds, means,
-                                           rest, spread))
-    return tuple(profiles)
+    return cl.profiles_from_sums(
+        {order[c]: (size, inside, mean * n - inside) for c, (size, inside) in sums.items()}, n,
+        plan.names, [f.kind for f in plan.features], np.sqrt(np.diag(m2) / n))
 
 
 def _profile_sums(block, assigner, shift, scale) -> dict:

@@ -82,31 +82,17 @@ def run_outliers(step, ctx: Context):
         found = _relations(ctx, step, gathered["row_ids"], notes)
         if found is not None:
             used["relations"] = found
-    kept_measures, combined, outliers = ol.ranked_list(used, gathered["row_ids"], step.top,
-                                                       notes)
-    return ol.OutliersResult(
-        outliers=outliers, row_ids=gathered["row_ids"], positions=gathered["positions"],
-        scores=combined, measures=tuple(kept_measures), target=step.target,
-        k=clusters.result.k, n_rows=n, combination=ol.combination_text(kept_measures),
-        top=step.top, seed=step.seed, features=tuple(plan.names),
-        notes=ol.said_as_notes(notes), warnings=warned + ol.said_as_warnings(notes),
-        elapsed_seconds=time.perf_counter() - started,
-    )
+    return step.ranked(used, gathered["row_ids"], gathered["positions"], k=clusters.result.k,
+                       features=plan.names, notes=notes, warnings=warned, started=started)
 
 
 def _clusters(step, ctx, plan, blocks, notes):
-    from analysis.clustering import ClusteringStep
     from analysis.distributed.clustering import cluster_blocks
+    from analysis.outliers import centre_clusters_note
 
-    clustering = ClusteringStep(method="kmeans", k=step.k, compare=step.target,
-                                columns=step.columns, array_encoding=step.array_encoding,
-                                log_scale=step.log_scale, missing=step.missing,
-                                standardize=step.standardize, seed=step.seed)
-    found = cluster_blocks(clustering, ctx, plan, blocks)
+    found = cluster_blocks(step.clustering_step(), ctx, plan, blocks)
     notes.extend(n for n in found.result.notes if n not in notes)
-    notes.append(Note(
-        "centre_clusters",
-        f"distance from centre uses k-means clusters: {found.result.reason}"))
+    notes.append(centre_clusters_note(found.result))
     return found
 
 
