@@ -12,13 +12,7 @@ import warnings
 import numpy as np
 
 from analysis import clustering as cl
-from analysis.distributed.common import (
-    Context,
-    blocks_for,
-    feature_moments,
-    plan_for,
-    standardizing,
-)
+from analysis.distributed.common import Context, Features, standardizing, step_features
 from analysis.errors import StepError
 from analysis.notes import Note
 
@@ -33,11 +27,7 @@ LLOYD_TOLERANCE = 1e-4
 def run_clustering(step, ctx: Context):
     """A ClusteringResult for ``step`` on the partitioned table in ``ctx``."""
     step.check_table(ctx.table)
-    plan = plan_for(ctx, columns=step.columns, target=step.compare,
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing)
-    blocks = blocks_for(ctx, plan)
-    return cluster_blocks(step, ctx, plan, blocks).result
+    return cluster_blocks(step, step_features(ctx, step, target=step.compare)).result
 
 
 @dataclasses.dataclass
@@ -52,20 +42,17 @@ class Clusters:
     scale: np.ndarray
 
 
-def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
-    """Cluster the rows of the given feature blocks as ``step`` asks."""
-    from analysis.distributed.matrix import feature_said
-
+def cluster_blocks(step, found: Features) -> Clusters:
+    """Cluster the rows of the given features as ``step`` asks."""
     started = time.perf_counter()
-    (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
-    notes, warned = feature_said(plan, counts, ctx.table.n_rows)
-    shift, scale = standardizing(step.standardize, n, mean, m2, notes)
+    ctx, plan, blocks, n, m2 = found.ctx, found.plan, found.blocks, found.n, found.m2
+    notes = list(found.notes)
+    shift, scale = standardizing(step.standardize, n, found.mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
-    at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
-    sample = gather_rows(*at, sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
+    sample = found.rows(sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
     if n > step.sample_size:
         notes.append(cl.silhouette_note(step.sample_size, n, step.seed))
-    scored = gather_rows(*at, sample_rows(n, step.sample_size, step.seed), shift, scale)
+    scored = found.rows(sample_rows(n, step.sample_size, step.seed), shift, scale)
     silhouette = cl.Silhouette.of_rows(scored)
     runs = []
     with warnings.catch_warnings():
@@ -95,11 +82,11 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
         row_ids=np.concatenate([p[1] for p in pieces]),
         positions=np.concatenate([p[0] for p in pieces]), labels=labels,
         sweep=tuple(r[0] for r in runs), reason=reason,
-        profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, mean, m2),
+        profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, found.mean, m2),
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
         silhouette=entry.silhouette, compare=step.compare, agreement=agreement,
         notes=tuple(dict.fromkeys(notes)),
-        warnings=warned,
+        warnings=found.warnings,
         elapsed_seconds=time.perf_counter() - started,
     )
     return Clusters(result, chosen, order, shift, scale)
@@ -111,27 +98,6 @@ def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
     from analysis.projection import sample_positions
 
     return np.arange(n) if n <= size else sample_positions(n, size, seed)
-
-
-def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
-    """Standardized feature rows at the given kept-row indices (in order); their targets
-    when ``shift`` is None."""
-    from dask import delayed
-
-    picks = []
-    for k, block in enumerate(blocks):
-        lo, hi = offsets[k], offsets[k] + kept_per_block[k]
-        local = wanted[(wanted >= lo) & (wanted < hi)] - lo
-        if len(local):
-            picks.append(delayed(_take)(block, local, shift, scale))
-    parts = ctx.compute(picks)
-    if shift is None:
-        return np.concatenate(parts) if parts else np.array([])
-    return np.vstack(parts) if parts else np.empty((0, len(shift)))
-
-
-def _take(block, local, shift, scale):
-    return block.target[local] if shift is None else (block.values[local] - shift) / scale
 
 
 # ----------------------------------------------------------------------------------------

@@ -8,7 +8,7 @@ import time
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, feature_moments, plan_for, spread_scale
+from analysis.distributed.common import Context, spread_scale, step_features
 from analysis.notes import Note
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
@@ -17,7 +17,6 @@ LDA_SAMPLE_ROWS = 200_000
 
 def run_projection(step, ctx: Context):
     """A ProjectionResult for ``step`` on the partitioned table in ``ctx``."""
-    from analysis.distributed.matrix import feature_said
     from analysis.projection import (
         ONE_COMPONENT_NOTE,
         ProjectionResult,
@@ -31,13 +30,8 @@ def run_projection(step, ctx: Context):
     if step.method != "pca":
         return _on_sample(step, ctx)
     # the target only colours the picture: rows without it are still drawn, as in memory
-    plan = plan_for(ctx, columns=step.columns, exclude=(step.target,) if step.target else (),
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing)
-    blocks = blocks_for(ctx, plan)
-    (n, mean, m2), counts, _ = feature_moments(ctx, blocks)
-    notes, warned = feature_said(plan, counts, ctx.table.n_rows)
-    notes += step.setting_notes()
+    found = step_features(ctx, step, exclude=(step.target,) if step.target else ())
+    n, mean, m2, notes = found.n, found.mean, found.m2, found.notes + step.setting_notes()
     check_rows(ctx.table.name, n)
     ratio, components, scale = pca_from_moments(n, mean, m2, standardize=step.standardize)
     notes.append(scaling_note(step.standardize))
@@ -46,7 +40,7 @@ def run_projection(step, ctx: Context):
     axes = components[:2]
     if len(axes) < 2:
         axes = np.vstack([axes, np.zeros((1, axes.shape[1]))])
-    pieces = ctx.each(project_block, blocks, mean, scale, axes)
+    pieces = ctx.each(project_block, found.blocks, mean, scale, axes)
     coordinates = np.vstack([p[2] for p in pieces])
     ctx.notes.append(Note("dask_pca_exact", "PCA computed exactly from the covariance matrix "
                           "summed over all partitions; coordinates computed partition by "
@@ -55,9 +49,10 @@ def run_projection(step, ctx: Context):
         method="pca", row_ids=np.concatenate([p[1] for p in pieces]),
         positions=np.concatenate([p[0] for p in pieces]),
         x=np.asarray(coordinates[:, 0], dtype=float), y=np.asarray(coordinates[:, 1], dtype=float),
-        features=tuple(plan.names), standardize=step.standardize, target=step.target, n_rows=n,
-        sampled=False, seed=step.seed, notes=tuple(notes), warnings=warned,
-        elapsed_seconds=time.perf_counter() - started, **pca_fields(components, ratio, plan.names),
+        features=tuple(found.plan.names), standardize=step.standardize, target=step.target,
+        n_rows=n, sampled=False, seed=step.seed, notes=tuple(notes), warnings=found.warnings,
+        elapsed_seconds=time.perf_counter() - started,
+        **pca_fields(components, ratio, found.plan.names),
     )
 
 

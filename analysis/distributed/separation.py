@@ -56,9 +56,7 @@ def run_separator(step, ctx: Context):
                         "dask engine does not encode; set it to 0 or use --engine local.")
     from analysis.separation import excluded_columns
 
-    plan = plan_for(ctx, columns=step.columns, target=step.target,
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing, exclude=excluded_columns(table, step))
+    plan = plan_for(ctx, step, target=step.target, exclude=excluded_columns(table, step))
     result, positions = on_sample(step, ctx, min(table.n_rows, SAMPLE_ROWS))
     if len(positions) < table.n_rows:
         ctx.notes.append(Note("dask_protocol_sample",
