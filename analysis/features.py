@@ -115,6 +115,15 @@ def mostly_empty_columns(table: Table, columns: list[str],
     return [(name, share(name)) for name in columns if share(name) > MISSING_SHARE_LIMIT]
 
 
+def without_mostly_empty(table: Table, columns: list[str], intervals: str = "missing"):
+    """(``columns`` without the mostly-empty ones, those left out with their share missing):
+    the default features leave out :func:`mostly_empty_columns` unless every column is one."""
+    left_out = mostly_empty_columns(table, columns, intervals)
+    if len(left_out) == len(columns):
+        return columns, []
+    return [name for name in columns if name not in dict(left_out)], left_out
+
+
 def default_feature_columns(table: Table, *, target: str | None = None,
                             exclude: tuple[str, ...] = ()) -> list[str]:
     """Every invariant, flag, category and array column, but the target and excluded ones."""
@@ -185,13 +194,9 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     warnings: list[str] = []
     left_out: list[tuple[str, float]] = []
     if chosen_by_default:
-        left_out = mostly_empty_columns(table, columns, intervals)
-        if len(left_out) < len(columns):
-            columns = [name for name in columns if name not in dict(left_out)]
-            if left_out:
-                warnings.append(left_out_warning(left_out))
-        else:
-            left_out = []
+        columns, left_out = without_mostly_empty(table, columns, intervals)
+        if left_out:
+            warnings.append(left_out_warning(left_out))
     run: list[str] = []         # consecutive plain number columns, converted together
     for name in columns + [None]:
         if name is not None and _is_plain_number(table, name, log_scale):

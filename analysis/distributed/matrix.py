@@ -18,10 +18,10 @@ from analysis.features import (
     Feature,
     chosen_feature_columns,
     left_out_warning,
-    mostly_empty_columns,
     one_hot,
     signed_log,
     too_many_levels,
+    without_mostly_empty,
 )
 from analysis.notes import Note
 from analysis.table import Table
@@ -79,9 +79,8 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
     notes, warnings = [], []
     if chosen_by_default:
         # the in-memory rule: a mostly-empty column is left out before rows are dropped
-        left_out = mostly_empty_columns(table, columns)
-        if left_out and len(left_out) < len(columns):
-            columns = [name for name in columns if name not in dict(left_out)]
+        columns, left_out = without_mostly_empty(table, columns)
+        if left_out:
             warnings.append(left_out_warning(left_out))
         # columns this engine cannot encode are left out of the default features, said so;
         # named ones are refused by name

@@ -5,29 +5,28 @@ from __future__ import annotations
 
 import numpy as np
 
+from analysis import overview as ov
 from analysis.distributed.common import Context, tree
 from analysis.notes import Note
-from analysis.overview import CORRELATION_ROWS as IN_MEMORY_CORRELATION_ROWS
-from analysis.overview import ColumnSummary, OverviewResult, strong_pairs
 
 
-def run_overview(step, ctx: Context) -> OverviewResult:
+def run_overview(step, ctx: Context) -> ov.OverviewResult:
     """The overview result of a partitioned table (same fields as OverviewStep.run)."""
     table = ctx.table
     summaries = tuple(_summarize(table, info) for info in table.columns)
     correlations = _correlations(ctx, step.top_correlations)
-    if table.n_rows > IN_MEMORY_CORRELATION_ROWS and correlations is not None:
+    if table.n_rows > ov.CORRELATION_ROWS and correlations is not None:
         ctx.notes.append(Note("dask_correlations_exact", "correlations computed exactly over "
                               "all rows (the in-memory engine uses a sample of "
-                              f"{IN_MEMORY_CORRELATION_ROWS} rows here).",
-                              sample=IN_MEMORY_CORRELATION_ROWS))
-    return OverviewResult(
+                              f"{ov.CORRELATION_ROWS} rows here).",
+                              sample=ov.CORRELATION_ROWS))
+    return ov.OverviewResult(
         table=table.name, digest=table.digest, rows=table.n_rows, columns=summaries,
         warnings=table.warnings, id_column=table.id_column, correlations=correlations or (),
     )
 
 
-def _summarize(table, info) -> ColumnSummary:
+def _summarize(table, info) -> ov.ColumnSummary:
     facts = table.facts[info.name]
     base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
                 distinct=info.distinct, intervals=info.intervals,
@@ -38,29 +37,30 @@ def _summarize(table, info) -> ColumnSummary:
         lo, hi = facts["minimum"], facts["maximum"]
         if info.dtype == "integer":
             lo, hi = int(lo), int(hi)
-        return ColumnSummary(**base, minimum=lo, maximum=hi,
-                             mean=float(facts["total"] / facts["count"]))
+        return ov.ColumnSummary(**base, minimum=lo, maximum=hi,
+                                mean=float(facts["total"] / facts["count"]))
     if info.dtype == "big integer" and facts.get("count"):
-        return ColumnSummary(**base, minimum=str(facts["minimum"]), maximum=str(facts["maximum"]),
-                             mean=float(facts["total"] / facts["count"]))
+        return ov.ColumnSummary(**base, minimum=str(facts["minimum"]),
+                                maximum=str(facts["maximum"]),
+                                mean=float(facts["total"] / facts["count"]))
     marked = facts.get("marked") or {}
     if info.dtype == "rational" and marked.get("numbers"):
         # the exact smallest and largest cell, as the in-memory summary writes them
-        return ColumnSummary(**base, minimum=_exact_text(marked["minimum"]),
-                             maximum=_exact_text(marked["maximum"]),
-                             mean=float(marked["total"] / marked["numbers"]))
+        return ov.ColumnSummary(**base, minimum=_exact_text(marked["minimum"]),
+                                maximum=_exact_text(marked["maximum"]),
+                                mean=float(marked["total"] / marked["numbers"]))
     if info.dtype == "array":
         shapes = sorted(facts.get("shapes", {}).items(), key=lambda kv: -kv[1])[:5]
-        return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in shapes))
+        return ov.ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in shapes))
     if info.dtype == "boolean" and kind not in ("text", None):
         trues = int(round(facts["total"]))
         falses = facts["count"] - trues
         pairs = [(str(True), trues), (str(False), falses)]
         pairs = [p for p in sorted(pairs, key=lambda p: -p[1]) if p[1] > 0]
-        return ColumnSummary(**base, common=tuple(pairs))
+        return ov.ColumnSummary(**base, common=tuple(pairs))
     if kind == "text":
-        return ColumnSummary(**base, common=_common_text(facts, info, table.n_rows))
-    return ColumnSummary(**base)
+        return ov.ColumnSummary(**base, common=_common_text(facts, info, table.n_rows))
+    return ov.ColumnSummary(**base)
 
 
 def _exact_text(value) -> str:
@@ -94,8 +94,7 @@ def _common_text(facts: dict, info, n_rows: int) -> tuple:
 
 def _correlations(ctx: Context, top: int):
     table = ctx.table
-    names = [c.name for c in table.columns
-             if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
+    names = ov.correlation_columns(table)
     if len(names) < 2 or top <= 0:
         return ()
     from dask import delayed
@@ -110,7 +109,7 @@ def _correlations(ctx: Context, top: int):
         top_part = count * sxy - sx * sx.T
         bottom = np.sqrt((count * sxx - sx ** 2) * (count * sxx.T - (sx.T) ** 2))
         matrix = top_part / bottom
-    return strong_pairs(np.clip(matrix, -1.0, 1.0), names, top)
+    return ov.strong_pairs(np.clip(matrix, -1.0, 1.0), names, top)
 
 
 def _pair_sums(frame, names: list[str], shift: np.ndarray):
