@@ -375,9 +375,10 @@ def is_true_word(word) -> bool:
 
 
 def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int, n: int,
-                    role: str, labels=None) -> list[str]:
+                    role: str, labels=None, missing: int = 0) -> list[str]:
     """The loading warnings a typed column gives (big integers, empty, constant, true/false
-    words in several spellings). ``labels``: a category's distinct labels, when known."""
+    words in several spellings). ``labels``: a category's distinct labels, when known;
+    ``missing``: the column's missing cells."""
     out = []
     if role == "category" and labels is not None:
         spelled = flag_spelling_warning(name, column, labels)
@@ -408,6 +409,11 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
     if dtype == "empty":
         out.append(Note("column_empty", f"{name}: column {column!r} is empty in every row.",
                         column=column))
+    elif distinct == 1 and n > 1 and role != "id" and missing:
+        out.append(Note("column_constant", f"{name}: column {column!r} holds one value, in "
+                        f"{n - missing} rows, and no value in the other {missing}: it tells "
+                        "objects apart only by which rows hold it.",
+                        column=column, filled=n - missing))
     elif distinct == 1 and n > 1 and role != "id":
         out.append(Note("column_constant", f"{name}: column {column!r} is constant; it carries "
                         "no information.", column=column))
@@ -733,6 +739,19 @@ def _like(empty: dict, other: dict) -> dict:
         out.update(count=0, inf=False, integral=True, big=False, total=0.0, minimum=None,
                    maximum=None, values=None if values is None else values[:0])
     return out
+
+
+def marked_texts(values: list, offset: int = 0) -> dict[int, str]:
+    """The texts of the cells of a marked column that are intervals or words, by position
+    (``offset`` plus the cell's place in ``values``): what ``Table.marks`` keeps of them."""
+    texts = {}
+    for place, value in enumerate(values):
+        kind, parsed = read_marked_cell(value)
+        if kind == "interval":
+            texts[offset + place] = str(value).strip()
+        elif kind == "word":
+            texts[offset + place] = parsed
+    return texts
 
 
 def marked_facts(values: list, positions) -> dict | None:
@@ -1113,7 +1132,8 @@ def type_columns(name: str, header: list[str], facts: dict, n: int, warnings: li
             id_taken = True
         labels = list(f["counts"]) if role == "category" and dtype == "text" \
             and f.get("counts") is not None else None
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels,
+                                        missing))
         info = ColumnInfo(column, role, dtype, missing, distinct, role, note)
         infos.append(info if marked is None else replace(marked, role=role, detected_role=role))
     warnings[start:start] = merged

@@ -854,3 +854,31 @@ def _invariants(name: str, cells: list, ndims: set, shapes: set):
         features.extend(Feature(f"{label}{k + 1}({name})", name, key, titles[key])
                         for k in range(width))
     return np.column_stack(blocks), features
+
+
+def lost_classes(table: Table, target: str, fm: FeatureMatrix) -> str:
+    """Why a target with several values in the table has fewer on the rows ``fm`` kept:
+    the values found only on dropped rows, and the feature columns whose missing cells
+    dropped them ('' when no value was lost that way). Said after a step's refusal.
+    """
+    series = table.frame[target]
+    present = series.notna().to_numpy()
+    labels = series.astype(str).to_numpy()
+    kept = np.zeros(len(series), dtype=bool)
+    kept[fm.rows] = True
+    found = set(labels[kept & present].tolist())
+    lost = [v for v in dict.fromkeys(labels[present].tolist()) if v not in found]
+    if not lost:
+        return ""
+    columns = list(dict.fromkeys(f.column for f in fm.features))
+    parts = []
+    for value in lost[:3]:
+        rows = present & (labels == value)
+        blame = sorted(((int(table.frame[c][rows].isna().sum()), c) for c in columns),
+                       key=lambda pair: -pair[0])
+        named = ", ".join(f"{c!r} is missing in {m}" for m, c in blame[:3] if m)
+        parts.append(f"{value!r} ({int(rows.sum())} rows; {named or 'other gaps'})")
+    return (f" The table has {'; '.join(parts)}, but every such row was dropped for a "
+            "missing feature value. A column missing exactly where the target takes one "
+            "value gives the answer away: leave it out of the features, or fill in missing "
+            "values (missing: impute).")

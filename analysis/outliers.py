@@ -43,7 +43,7 @@ import numpy as np
 import pandas as pd
 
 from analysis.errors import StepError
-from analysis.features import build_features, is_numeric_target, target_values
+from analysis.features import build_features, is_numeric_target, lost_classes, target_values
 from analysis.notes import Note, note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
@@ -632,16 +632,17 @@ def number_folds(n: int, seed: int):
     return KFold(n_splits=min(5, n), shuffle=True, random_state=seed)
 
 
-def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str):
+def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str, why=None):
     """(classes, splits, folds) of the cross-validation for a label target; StepError when
-    every row has one label."""
+    every row has one label (``why()`` words why rows of other labels are missing)."""
     from sklearn.model_selection import StratifiedKFold
 
     classes, counts = np.unique(labels, return_counts=True)
     if len(classes) < 2:
         raise StepError(f"{table_name}: the target {target!r} has one value ({classes[0]!r}) "
-                        "on every row used; a separator needs two or more. Choose another "
-                        "target or leave it unset.")
+                        "on every row used; judging how well it is predicted needs two or "
+                        "more. Choose another target or leave it unset."
+                        + (why() if why else ""))
     splits = int(min(5, max(2, counts.min())))
     return classes, splits, StratifiedKFold(n_splits=splits, shuffle=True, random_state=seed)
 
@@ -658,7 +659,8 @@ def _cross_validated(table: Table, target: str, fm, seed: int):
         return truth, cross_val_predict(number_model(), fm.values, truth, cv=folds), None, \
             folds.n_splits
     labels = np.array([label_text(v) for v in raw], dtype=object)
-    classes, splits, folds = label_folds(labels, seed, table.name, target)
+    classes, splits, folds = label_folds(labels, seed, table.name, target,
+                                         why=lambda: lost_classes(table, target, fm))
     if len(classes) > MAX_CLASSES:
         raise StepError(f"{table.name}: the target {target!r} has {len(classes)} distinct "
                         f"labels; a separator can judge at most {MAX_CLASSES}. Choose a flag, "

@@ -8,6 +8,7 @@ from typing import ClassVar
 import numpy as np
 import pandas as pd
 
+from analysis.notes import Note
 from analysis.plain import plain
 from analysis.progress import quiet, stoppable_call
 from analysis.projection import sample_positions
@@ -22,6 +23,8 @@ SETTINGS = (
 
 # Rows past which correlations between invariants are computed on a random sample.
 CORRELATION_ROWS = 200_000
+# Repeated rows named in the overview's warning (all of them are counted).
+REPEATS_SHOWN = 3
 
 
 @dataclass(frozen=True)
@@ -62,6 +65,8 @@ class OverviewResult:
     # rows the correlations were computed on when that is a sample; None for every row
     correlation_rows: int | None = None
     notes: tuple[str, ...] = ()   # how it was computed (the engine, its partitions)
+    # rows equal to an earlier row in every column (see repeated_rows)
+    repeated_rows: int = 0
     kind: ClassVar[str] = "overview"
 
     def _repr_html_(self) -> str:
@@ -85,6 +90,7 @@ class OverviewResult:
             "warnings": list(self.warnings),
             "correlations": [{"a": a, "b": b, "pearson": r} for a, b, r in self.correlations],
             "correlation_rows": self.correlation_rows,
+            "repeated_rows": self.repeated_rows,
             "notes": list(self.notes),
         })
 
@@ -132,13 +138,16 @@ class OverviewStep:
         for column in table.columns:
             summaries.append(_summarize(table, column))
             reporter.advance()
+        reporter.phase("repeated rows")
+        repeats = stoppable_call(reporter, repeated_rows, table)
         reporter.phase("correlated pairs")
         pairs, sampled = stoppable_call(reporter, _correlations, table, self.top_correlations,
                                         self.seed)
         return OverviewResult(
             table=table.name, digest=table.digest, rows=table.n_rows,
-            columns=tuple(summaries), warnings=table.warnings, id_column=table.id_column,
-            correlations=pairs, correlation_rows=sampled,
+            columns=tuple(summaries), warnings=with_repeats(table.warnings, repeats),
+            id_column=table.id_column, correlations=pairs, correlation_rows=sampled,
+            repeated_rows=repeats.count,
         )
 
 
@@ -229,3 +238,143 @@ def strong_pairs(matrix: np.ndarray, names: list[str], top: int) -> tuple:
     pairs = [(names[i], names[j], float(matrix[i, j])) for i, j in zip(*np.nonzero(strong))]
     pairs.sort(key=lambda p: -abs(p[2]))
     return tuple(pairs[:top])
+
+
+# ----------------------------------------------------------------------------------------
+# Repeated rows: the same object listed twice in a downloaded table
+
+
+@dataclass(frozen=True)
+class Repeats:
+    """Rows equal to an earlier row in every column: how many, and the first few pairs.
+
+    pairs: (row, earlier row) as 0-based positions, the first REPEATS_SHOWN repeats in
+    table order, each with the first row it repeats.
+    """
+
+    count: int = 0
+    pairs: tuple[tuple[int, int], ...] = ()
+
+
+def marked_texts(table: Table) -> dict[str, dict[int, str]]:
+    """The marked cells' texts by column and position: typed, an interval or a word is a
+    missing value, so two rows differing only there would otherwise look equal."""
+    return {name: dict(marks.texts) for name, marks in table.marks.items() if marks.texts}
+
+
+# Column dtypes whose cells are compared (and hashed) as float64: equal in every partition
+# whether a block of the column has missing cells or not.
+_FLOAT_KEYED = ("integer", "real", "boolean")
+
+
+def _cell_key(value) -> str:
+    if isinstance(value, np.ndarray):
+        return f"{value.dtype}{value.shape}{value.tobytes().hex()}"
+    if value is None or value is pd.NA or (isinstance(value, float) and np.isnan(value)):
+        return "\x00"
+    return f"{type(value).__name__}:{value}"
+
+
+def _column_keys(series: pd.Series, dtype: str) -> np.ndarray:
+    """A column's cells as comparable keys: float64 (NaN where missing) for numbers and
+    flags, a text key per cell otherwise (arrays by their shape and bytes)."""
+    if dtype in _FLOAT_KEYED and series.dtype != object:
+        return series.to_numpy(dtype=np.float64, na_value=np.nan)
+    if dtype in _FLOAT_KEYED:
+        return np.array([np.nan if v is None or v is pd.NA else float(v) for v in series],
+                        dtype=np.float64)
+    return np.array([_cell_key(v) for v in series.tolist()], dtype=object)
+
+
+def _text_keys(texts: dict[int, str], offset: int, n: int) -> np.ndarray:
+    return np.array([texts.get(offset + i, "") for i in range(n)], dtype=object)
+
+
+# The key of a second fingerprint, independent of the first (pandas' default key).
+SECOND_HASH_KEY = "scout-rows-again"
+
+
+def row_fingerprints(frame: pd.DataFrame, dtypes: dict[str, str],
+                     texts: dict[str, dict[int, str]], offset: int = 0, *,
+                     hash_key: str | None = None) -> np.ndarray:
+    """One 64-bit hash per row of ``frame`` (the table's rows from ``offset`` on) over every
+    column, whose table dtypes ``dtypes`` gives, and the marked texts; equal rows have equal
+    hashes, the converse is checked by :func:`same_rows` (or, where rows cannot be brought
+    together, by a second fingerprint with ``hash_key``, a 16-character key)."""
+    total = np.zeros(len(frame), dtype=np.uint64)
+    keys = [_column_keys(frame[name], dtypes[name]) for name in frame.columns]
+    keys += [_text_keys(texts[name], offset, len(frame)) for name in sorted(texts)]
+    extra = {} if hash_key is None else {"hash_key": hash_key}
+    for column in keys:
+        total = total * np.uint64(1_000_003) + pd.util.hash_array(column, **extra)
+    return total
+
+
+def same_rows(frame: pd.DataFrame, dtypes: dict[str, str], texts: dict[str, dict[int, str]],
+              a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """For each pair of positions ``a[i]``, ``b[i]`` of ``frame`` (whose first row is row 0
+    of the table), whether the two rows are equal in every column, a missing cell equal only
+    to a missing one, marked texts included."""
+    equal = np.ones(len(a), dtype=bool)
+    for name in frame.columns:
+        keys = _column_keys(frame[name], dtypes[name])
+        left, right = keys[a], keys[b]
+        same = np.asarray(left == right, dtype=bool)
+        if keys.dtype.kind == "f":
+            same |= np.isnan(left) & np.isnan(right)
+        equal &= same
+    for marks in texts.values():
+        equal &= np.array([marks.get(int(x), "") == marks.get(int(y), "")
+                           for x, y in zip(a, b)], dtype=bool)
+    return equal
+
+
+def repeats_among(hashes: np.ndarray, same) -> Repeats:
+    """The rows repeating an earlier row, from every row's fingerprint.
+
+    Each row is paired with the first row of equal fingerprint; ``same(rows, firsts)`` (a
+    boolean per pair) confirms the pairs exactly, so two rows are never called copies on
+    their hashes alone.
+    """
+    order = np.argsort(hashes, kind="stable")
+    ordered = hashes[order]
+    starts = np.r_[True, ordered[1:] != ordered[:-1]]
+    first = np.empty_like(order)
+    first[order] = order[np.flatnonzero(starts)][np.cumsum(starts) - 1]
+    rows = np.flatnonzero(first != np.arange(len(hashes)))
+    if len(rows):
+        rows = rows[same(rows, first[rows])]
+    return Repeats(count=len(rows),
+                   pairs=tuple((int(r), int(first[r])) for r in rows[:REPEATS_SHOWN]))
+
+
+def repeated_rows(table: Table) -> Repeats:
+    """The rows of a table equal to an earlier row in every column.
+
+    A table with an id column has none (its ids are unique), so nothing is hashed.
+    """
+    if table.id_column is not None or table.n_rows < 2:
+        return Repeats()
+    dtypes = {c.name: c.dtype for c in table.columns}
+    texts = marked_texts(table)
+    return repeats_among(row_fingerprints(table.frame, dtypes, texts),
+                         lambda a, b: same_rows(table.frame, dtypes, texts, a, b))
+
+
+def repeats_note(repeats: Repeats, row_ids=None) -> Note:
+    """The overview's warning about repeated rows (rows counted from 1 after the header)."""
+    shown = ", ".join(f"row {row + 1} equals row {first + 1}" for row, first in repeats.pairs)
+    more = ", ..." if repeats.count > len(repeats.pairs) else ""
+    rows = f"{repeats.count} row{'s' if repeats.count != 1 else ''}"
+    return Note("repeated_rows",
+                f"{rows} {'is' if repeats.count == 1 else 'are'} equal to an earlier row in "
+                f"every column ({shown}{more}). If a row is one object listed twice, every "
+                "step counts it twice, and a separator may train on one copy and be tested on "
+                "the other: remove the copies or name a group column. Different objects with "
+                "equal invariants need no change.",
+                repeated=repeats.count, pairs=[list(p) for p in repeats.pairs])
+
+
+def with_repeats(warnings: tuple, repeats: Repeats) -> tuple:
+    """The table's warnings, then the repeated-rows warning when rows repeat."""
+    return tuple(warnings) + ((repeats_note(repeats),) if repeats.count else ())

@@ -88,8 +88,17 @@ MAX_LISTED_ROWS = 1000
 # A relation or bound broken by at most this many rows makes each breaker an object to look
 # at; one broken by more is a tendency, and its breakers are listed but not flagged.
 FEW_BREAKERS = 5
+# Pairs of columns with missing values searched together for relations among them, when
+# the rows where all of them are present are too few (see _relations_among_partial).
+MAX_PARTIAL_PAIRS = 45
 # Fraction of the spread of a bound's left side within which a row "comes close" to it.
 NEAR_FRACTION = Fraction(1, 20)
+# The left side's range past which its middle half's spread is used instead (near_margin).
+HEAVY_TAIL = 100
+# What "close" means, for the page's and the report's readers.
+NEAR_MEANING = ("objects that miss equality by at most 1/20 of the spread of the bound's left "
+                "side (of its middle half when a few values are far larger); at least 1 for "
+                "integers")
 # Bounds that all but a few rows obey are also searched along every direction of two integer
 # columns with coefficients up to this size (besides the corners peeled off the hull).
 DIRECTION_COEFFICIENT = 3
@@ -1018,6 +1027,7 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
                 partial_found.append(_relation_from_vector(
                     vector, core + [name], len(rows), (),
                     Note("holds_where_present", f"holds{where}", rows=len(rows))))
+    partial_found += _relations_among_partial(columns, core, partial, rng.spawn(1)[0])
     if partial:
         notes.append(Note(
             "searched_where_present",
@@ -1025,6 +1035,75 @@ def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, note
             + ", ".join(partial), columns=tuple(partial),
         ))
     return ordered_relations(found + partial_found + trivial, robust_found), equalities, repeated
+
+
+def _relations_among_partial(columns, core: list[str], partial: list[str], rng) -> list:
+    """Relations tying two or more columns with missing values together.
+
+    Searched on the rows where all of them are present when those rows are varied enough
+    (at least twice as many distinct rows as unknowns), else pair by pair (the first
+    MAX_PARTIAL_PAIRS pairs). A relation found there is kept only when it holds on every row
+    where its own columns are present, and says on how many.
+    """
+    if len(partial) < 2:
+        return []
+    found = []
+    for group, rows in _partial_groups(columns, core, partial):
+        names = core + group
+        lattice = _kernel_on(_Matrix([columns[c][0] for c in names], rows),
+                             np.arange(len(rows)), rng)
+        # relations with at most one of the group's columns were searched column by column
+        tracker = RankTracker()
+        for keep in range(len(group)):
+            single = [list(v) for v in lattice]
+            for other in range(len(group)):
+                if other != keep:
+                    single = _restrict(single, _unit(len(names) + 1, len(core) + other))
+            for vector in single:
+                tracker.add(vector)
+        for vector in lattice:
+            involved = [c for k, c in enumerate(group) if vector[len(core) + k]]
+            if len(involved) >= 2 and tracker.add(vector):
+                relation = _held_where_present(columns, names, vector, involved)
+                if relation is not None:
+                    found.append(relation)
+    return found
+
+
+def _unit(width: int, position: int) -> list[int]:
+    return [1 if j == position else 0 for j in range(width)]
+
+
+def _partial_groups(columns, core: list[str], partial: list[str]) -> list:
+    """(columns, rows where they are all present) to search for relations among them."""
+    missing = np.column_stack([columns[name][1] for name in partial])
+    rows = np.flatnonzero(~missing.any(axis=1))
+    width = len(core) + len(partial) + 1
+    if len(rows) >= 2 * width:
+        matrix = _Matrix([columns[c][0] for c in core + partial], rows)
+        if _distinct_count(matrix, np.arange(len(rows)), list(range(width - 1)),
+                           2 * width) >= 2 * width:
+            return [(partial, rows)]
+    groups = []
+    for a, b in list(combinations(range(len(partial)), 2))[:MAX_PARTIAL_PAIRS]:
+        pair = np.flatnonzero(~(missing[:, a] | missing[:, b]))
+        if len(pair) >= 2 * (len(core) + 3):
+            groups.append(([partial[a], partial[b]], pair))
+    return groups
+
+
+def _held_where_present(columns, names: list[str], vector, involved: list[str]):
+    """The relation of ``vector`` when it holds on every row where ``involved`` (the columns
+    with missing values it uses) are present; None when one of those rows breaks it."""
+    missing = np.column_stack([columns[name][1] for name in involved])
+    rows = np.flatnonzero(~missing.any(axis=1))
+    if _Matrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
+        return None
+    shown = " and ".join(f"'{name}'" for name in involved)
+    return _relation_from_vector(
+        vector, names, len(rows), (),
+        Note("holds_where_present", f"holds on the {len(rows)} rows where {shown} are present",
+             rows=len(rows)))
 
 
 def ordered_relations(every: list, robust: list) -> list:
@@ -1461,8 +1540,32 @@ def _exact_hull(candidates: np.ndarray) -> list[tuple]:
         keep |= outside
 
 
-def _near_margin(spread: Fraction, integer: bool) -> Fraction:
-    margin = Fraction(spread) * NEAR_FRACTION
+def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: Fraction) -> Fraction:
+    """The smallest value whose cumulative weight reaches ``q`` of the total (the inverted
+    empirical distribution function), exact for integer and object values."""
+    order = np.argsort(values, kind="stable")
+    cumulative = np.cumsum(weights[order])
+    value = values[order][int(np.searchsorted(cumulative, math.ceil(q * int(cumulative[-1]))))]
+    return Fraction(value.item() if isinstance(value, np.generic) else value)
+
+
+def near_margin(values: np.ndarray, weights: np.ndarray, constant: Fraction,
+                integer: bool) -> Fraction:
+    """How far from a bound a row may be and still come close to it (see NEAR_MEANING).
+
+    ``values`` are the bound's left side on the distinct rows, ``weights`` their row counts.
+    The spread is the whole range of the left side, or, when that range is more than
+    HEAVY_TAIL times the middle half's (a few huge values, say integers past 2**64 among
+    small ones), the middle half's: else nearly every row would be "close".
+    """
+    lowest = values.min()
+    spread = constant - Fraction(lowest.item() if isinstance(lowest, np.generic) else lowest)
+    if len(values) > 1:
+        middle = (_weighted_quantile(values, weights, Fraction(3, 4))
+                  - _weighted_quantile(values, weights, Fraction(1, 4)))
+        if middle > 0 and spread > HEAVY_TAIL * middle:
+            spread = middle
+    margin = spread * NEAR_FRACTION
     return max(margin, Fraction(1)) if integer else margin
 
 
@@ -1815,9 +1918,7 @@ def _make_bound(names, coefs, constant, points: _Points, row_ids, integer, scale
     constant = Fraction(constant)
     shown_coefs, divisor = _unscaled(coefs, scales)
     shown_constant = constant / divisor
-    margin = _near_margin(constant - Fraction(combined.min().item()
-                                              if combined.dtype != object else combined.min()),
-                          integer)
+    margin = near_margin(combined, points.weights, constant, integer)
     if combined.dtype != object and constant.denominator == 1:
         # Compare integers with integers: a Fraction would turn the arrays into objects.
         constant, limit = int(constant), math.floor(margin)

@@ -33,8 +33,10 @@ class Target:
     notes: tuple[str, ...]
 
 
-def class_target(raw: np.ndarray, step, table_name: str) -> Target:
-    """The class codes of ``raw`` (the target's values on the feature rows) for ``step``."""
+def class_target(raw: np.ndarray, step, table_name: str, why=None) -> Target:
+    """The class codes of ``raw`` (the target's values on the feature rows) for ``step``;
+    ``why()``, when given, words why rows of other classes are missing (see
+    analysis.features.lost_classes) for the refusal of a single class."""
     from pandas.api.types import infer_dtype
 
     notes = []
@@ -49,7 +51,8 @@ def class_target(raw: np.ndarray, step, table_name: str) -> Target:
         only = values[0] if values else None
         raise StepError(f"{table_name}: the target {step.target!r} has one class "
                         f"({only!r}) on all {len(labels)} rows used; a separator needs at "
-                        "least two classes. Choose another target or other rows.")
+                        "least two classes. Choose another target or other rows."
+                        + (why() if why else ""))
     rare = [v for v, c in zip(values, counts) if c < 2]
     if rare and step.positive_class is None:
         keep = ~np.isin(labels, np.array(rare, dtype=object))

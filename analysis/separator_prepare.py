@@ -16,7 +16,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from analysis.errors import StepError
-from analysis.features import build_features, group_keys, is_numeric_target, target_values
+from analysis.features import (
+    build_features,
+    group_keys,
+    is_numeric_target,
+    lost_classes,
+    target_values,
+)
 from analysis.notes import Note
 from analysis.progress import Reporter
 from analysis.reading import Reading, choose_reading
@@ -98,7 +104,11 @@ def prepare(step, table: Table, progress: Reporter, log: RunLog) -> PreparedRun:
     reading = _reading(step, table, X, raw, progress)
     if reading.text and reading.chosen_by == "learning curve":
         log.notes.append(reading.text)
-    target = (numeric_target if reading.number else class_target)(raw, step, table.name)
+    if reading.number:
+        target = numeric_target(raw, step, table.name)
+    else:
+        target = class_target(raw, step, table.name,
+                              why=lambda: lost_classes(table, step.target, fm))
     if target.keep is not None:
         keep = target.keep
         fm = dataclasses.replace(fm, values=fm.values[keep], rows=fm.rows[keep],

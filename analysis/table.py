@@ -1104,7 +1104,8 @@ def _type_columns(frame: pd.DataFrame, name: str, digest: str, fmt: str,
         if role == "id":
             id_taken = True
         labels = series.dropna().unique() if role == "category" and dtype == "text" else None
-        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels))
+        warnings.extend(column_warnings(name, column, dtype, note, distinct, n, role, labels,
+                                        missing))
         counts = _marker_counts(marks.get(column))
         intervals = len(marks[column].positions) if column in marks else 0
         columns.append(ColumnInfo(column, role, dtype, missing, distinct, role, note,

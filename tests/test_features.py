@@ -564,3 +564,30 @@ def test_one_asymmetric_matrix_keeps_column_sums():
     fm = build_features(records_table(rows), columns=["m"], array_encoding="invariant")
     assert {"row_sums", "column_sums", "charpoly"} <= {f.kind for f in fm.features}
     assert not any(getattr(n, "code", None) == "symmetric_sums" for n in fm.notes)
+
+
+def test_a_target_value_lost_to_missing_cells_names_the_column_that_lost_it():
+    # networkx's graph atlas: the girth of a forest is infinite (networkx.girth), so a
+    # table leaves it empty for exactly the forests, and asking whether a graph is a forest
+    # drops every forest with its empty girth
+    import json
+
+    import networkx as nx
+
+    from analysis.errors import StepError
+    from analysis.separation import SeparatorStep
+    from analysis.table import read_table
+
+    rows, forests = [], 0
+    for graph in nx.graph_atlas_g()[1:300]:
+        girth = nx.girth(graph)
+        forests += nx.is_forest(graph)
+        rows.append({"v": graph.number_of_nodes(), "e": graph.number_of_edges(),
+                     "girth": None if girth == float("inf") else girth,
+                     "forest": nx.is_forest(graph)})
+    table = read_table(json.dumps(rows).encode(), "atlas.json")
+    with pytest.raises(StepError) as refused:
+        SeparatorStep(target="forest", columns=["v", "e", "girth"]).run(table)
+    said = str(refused.value)
+    assert "has one class (False)" in said
+    assert f"'True' ({forests} rows; 'girth' is missing in {forests})" in said

@@ -750,3 +750,86 @@ def test_the_relations_step_reports_its_phases_and_can_be_stopped():
     with pytest.raises(StepStopped):
         RelationsStep().run(table, progress=Reporter(stop_at_pairs, stopper=stopper))
 
+
+
+# --------------------------------------------------------------------------------------------
+# Relations between two columns that both have missing values
+# --------------------------------------------------------------------------------------------
+def _embedded_faces(graph) -> int | None:
+    """Faces of a connected graph in networkx's planar embedding, each traversed once;
+    None for a graph that is not planar."""
+    planar, embedding = nx.check_planarity(graph)
+    if not planar:
+        return None
+    if graph.number_of_edges() == 0:
+        return 1
+    seen: set = set()
+    faces = 0
+    for u, v in embedding.edges():
+        if (u, v) not in seen:
+            embedding.traverse_face(u, v, mark_half_edges=seen)
+            faces += 1
+    return faces
+
+
+def test_a_relation_between_two_gappy_columns_is_found_where_both_are_present():
+    # networkx's graph atlas (every graph on 1 to 7 vertices), as a table might be
+    # downloaded: the first Betti number written only for connected graphs, the faces only
+    # for connected planar ones, and no edge count. Euler's formula for connected plane
+    # graphs (v - e + f = 2) ties them: faces - betti = 1 wherever both are present, which no
+    # search of one gappy column at a time can see.
+    rows = []
+    for graph in nx.graph_atlas_g()[1:]:
+        connected = nx.is_connected(graph)
+        rows.append({"v": graph.number_of_nodes(),
+                     "betti": graph.number_of_edges() - graph.number_of_nodes() + 1
+                     if connected else None,
+                     "faces": _embedded_faces(graph) if connected else None})
+    both = sum(r["betti"] is not None and r["faces"] is not None for r in rows)
+    assert 0 < both < len(rows)
+    table = read_table(json.dumps(rows).encode(), "atlas.json")
+    result = RelationsStep(bounds=False).run(table)
+    found = {frozenset(r.terms): r for r in result.relations}
+    relation = found.get(frozenset({("betti", Fraction(-1)), ("faces", Fraction(1))})) \
+        or found.get(frozenset({("betti", Fraction(1)), ("faces", Fraction(-1))}))
+    assert relation is not None, [r.text for r in result.relations]
+    assert abs(relation.constant) == 1 and relation.holds_on == both
+    assert "'betti' and 'faces' are present" in relation.note
+
+
+def test_a_relation_of_the_rows_all_gappy_columns_share_must_hold_where_its_own_are():
+    # h = 2g on the rows where g, h and k are all present, but not on rows where k is
+    # missing: the joint search sees it, the check where g and h are present refuses it
+    rng = random.Random(3)
+    rows = []
+    for i in range(400):
+        g = rng.randint(0, 50)
+        k = None if i % 4 == 0 else rng.randint(0, 9)
+        h = 2 * g if k is not None else 2 * g + 1
+        rows.append({"n": i, "g": g if i % 7 else None, "h": h if i % 11 else None, "k": k})
+    table = read_table(json.dumps(rows).encode(), "gappy.json")
+    result = RelationsStep(bounds=False).run(table)
+    assert not any({name for name, _ in r.terms} == {"g", "h"} for r in result.relations)
+
+
+def test_close_rows_are_judged_on_the_middle_half_when_a_few_values_are_huge():
+    # groups of order 1..100 and ten of order past 2**70: on the whole range, 1/20 of the
+    # spread is about 2**66 and every small row would be "close" to order + k >= 2
+    rng = random.Random(5)
+    rows = []
+    for i in range(1000):
+        order = rng.randint(1, 100) if i % 100 else 2**70 + i
+        rows.append({"order": str(order), "classes": rng.randint(1, 10) if i % 100 else 2**20,
+                     "k": rng.randint(0, 9)})
+    table = read_table(json.dumps(rows).encode(), "groups.json")
+    assert table.column("order").dtype == "big integer"
+    bound = next(b for b in RelationsStep().run(table).bounds if b.text == "order + k >= 2")
+    left = [int(r["order"]) + r["k"] for r in rows]
+    # the count follows its definition: rows above the bound by at most the margin
+    assert bound.near == sum(1 for v in left if 0 < v - 2 <= bound.near_margin)
+    # and the margin is 1/20 of the middle half's spread (numpy's quartiles of the rows
+    # below 2**70 give it to within a step of the data), not of the whole range
+    small = np.array([v for v in left if v < 2**70], dtype=np.float64)
+    quartiles = float(np.percentile(small, 75) - np.percentile(small, 25))
+    assert bound.near_margin <= Fraction(1, 20) * (quartiles + 2)
+    assert bound.near < 100

@@ -872,3 +872,13 @@ def test_a_column_of_numbers_with_many_words_is_named(words, numbers, warned):
         column = next(c for c in asked.columns if c.name == "nilpotency")
         assert (column.dtype, column.missing) == ("integer", words)
         assert column.markers == {"-": words // 2, "not nilpotent": words // 2}
+
+
+def test_a_column_with_one_value_in_a_few_rows_is_not_called_constant():
+    # a remark filled in for 3 of 40 objects: its value never varies, but which rows hold
+    # it may matter (the counts are those of the file's own cells)
+    lines = ["n,remark"] + [f"{i},{'checked by hand' if i % 13 == 5 else ''}" for i in range(40)]
+    table = read_table("\n".join(lines).encode() + b"\n", "remarks.csv")
+    said = [w for w in table.warnings if getattr(w, "code", None) == "column_constant"]
+    assert len(said) == 1 and said[0].figures["filled"] == 3
+    assert "holds one value, in 3 rows, and no value in the other 37" in said[0]

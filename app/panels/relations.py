@@ -6,6 +6,7 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
+from analysis.relations import NEAR_MEANING
 from analysis.report import FOLD_LIMIT
 from app import display, settings
 from app.figure_view import show_figures
@@ -44,10 +45,12 @@ def show(ctx: settings.StepContext, result) -> None:
     trivial = [r for r in result.relations if r.trivial]
     st.markdown(f"Searched {display.plural(len(result.columns), 'column')} over "
                 f"{display.plural(result.n_rows, 'object')}.")
-    st.markdown("##### Relations that hold on every object")
+    st.markdown("##### Relations with no exception")
     if exact:
         for relation in exact:
             _statement(relation.terms, "=", relation.constant, relation.text)
+            if relation.note:
+                st.caption(display.sentence(relation.note))
             if relation.consistent_with:
                 st.caption(_consistent_words(relation))
     else:
@@ -68,13 +71,14 @@ def show(ctx: settings.StepContext, result) -> None:
             f"`{r.text}`" for r in trivial[:8]) + ("…" if len(trivial) > 8 else ""))
     holding = [b for b in result.bounds if not b.violations]
     near = [b for b in result.bounds if b.violations]
-    st.markdown("##### Sharp bounds that hold on every object")
+    st.markdown("##### Sharp bounds with no exception")
     if holding:
         st.dataframe(pd.DataFrame([{
             "bound": b.text, "attained by": b.attained_count, "close to it": b.near,
             "some objects attaining it": _ids(b.attained_by, total=b.attained_count),
             **_consistent_cell(result, b)} for b in holding]),
-            hide_index=True, key=ctx.key("bounds"))
+            hide_index=True, key=ctx.key("bounds"),
+            column_config={"close to it": st.column_config.NumberColumn(help=NEAR_MEANING)})
     else:
         st.caption("None found (or the search for bounds is off).")
     if near:
@@ -145,7 +149,7 @@ def _breakers_action(ctx, result, nearly, near) -> None:
         statement = Statement.from_json(statements[chosen].to_json())
     else:
         text = st.text_input("Statement", key=ctx.key("breaks_text"),
-                             placeholder="chromatic_number - max_degree <= 0",
+                             placeholder=_example_statement(ctx.table),
                              help="A sum of coefficient*column terms, then =, <=, >= or "
                                   "≡ r (mod m), then a number.")
         if not text.strip():
@@ -190,3 +194,12 @@ def _rows_of_choice(ctx, table, result, nearly) -> None:
         st.caption(f"The first {ROWS_SHOWN} of {len(ids)}.")
     st.dataframe(display.rows_frame(table, ids[:ROWS_SHOWN], columns), hide_index=True,
                  key=ctx.key("rows_of_table"))
+
+
+def _example_statement(table) -> str:
+    """An example statement in the table's own numeric columns, for the empty text box."""
+    numeric = [c.name for c in table.columns if c.role == "invariant"
+               and c.dtype in ("integer", "big integer", "rational", "real")]
+    if len(numeric) >= 2:
+        return f"{numeric[0]} - 2*{numeric[1]} <= 0"
+    return f"{numeric[0]} >= 0" if numeric else "a - 2*b <= 0"
