@@ -449,7 +449,7 @@ def _agglomerative(values: np.ndarray, ks: list[int], sample_size: int, seed: in
         if len(fit) == n:
             yield k, sample_labels
             continue
-        yield k, _nearest(values, centres)
+        yield k, NearestCentre(centres)(values)
 
 
 def ward_cuts(values: np.ndarray, ks: list[int]):
@@ -466,17 +466,13 @@ def ward_cuts(values: np.ndarray, ks: list[int]):
 
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
              notes: list[str]) -> np.ndarray:
-    from sklearn.neighbors import NearestNeighbors
-
     n = len(values)
     fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
     sample_labels = hdbscan_fit(values[fit], min_cluster_size, notes)
     if len(fit) == n:
         return sample_labels
     notes.append(hdbscan_sample_note(sample_size, n))
-    nearest = NearestNeighbors(n_neighbors=1).fit(values[fit])
-    index = nearest.kneighbors(values, return_distance=False)[:, 0]
-    labels = sample_labels[index]
+    labels = NearestSampled(values[fit], sample_labels)(values)
     labels[fit] = sample_labels
     return labels
 
@@ -491,10 +487,35 @@ def hdbscan_fit(values: np.ndarray, min_cluster_size: int, notes: list[str]) -> 
     return labels
 
 
-def _nearest(values: np.ndarray, centres: np.ndarray) -> np.ndarray:
-    from sklearn.metrics import pairwise_distances_argmin
+class NearestCentre:
+    """Assigns each row to its nearest centre (Euclidean): how a row that a clustering was
+    not fitted on joins one of its clusters."""
 
-    return pairwise_distances_argmin(values, centres)
+    def __init__(self, centres: np.ndarray):
+        self.centres = np.asarray(centres, dtype=np.float64)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        from sklearn.metrics import pairwise_distances_argmin
+
+        if len(values) == 0:
+            return np.zeros(0, dtype=int)
+        return pairwise_distances_argmin(values, self.centres)
+
+
+class NearestSampled:
+    """Gives each row the label of its nearest row of ``sample`` (noise stays noise): how a
+    row joins a clustering fitted on a sample that has no centres."""
+
+    def __init__(self, sample: np.ndarray, labels: np.ndarray):
+        from sklearn.neighbors import NearestNeighbors
+
+        self.labels = labels
+        self.index = NearestNeighbors(n_neighbors=1).fit(sample)
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        if len(values) == 0:
+            return np.zeros(0, dtype=int)
+        return self.labels[self.index.kneighbors(values, return_distance=False)[:, 0]]
 
 
 def choose_run(method: str, runs: list, fixed_k: bool):
@@ -601,18 +622,25 @@ def profile_values(table: Table, fm: FeatureMatrix) -> tuple[list[str], np.ndarr
 
 def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
     names, values, kinds = profile_values(table, fm)
-    spread = values.std(axis=0)
-    profiles = []
-    clusters = sorted(set(labels.tolist()), key=lambda c: (c == NOISE, c))
-    for cluster in clusters:
+    sums = {}
+    for cluster in set(labels.tolist()):
         inside = labels == cluster
-        means = values[inside].mean(axis=0)
-        if inside.all():
-            rest = means
-        else:
-            rest = values[~inside].mean(axis=0)
-        profiles.append(cluster_profile(int(cluster), int(inside.sum()), names, kinds, means,
-                                        rest, spread))
+        sums[cluster] = (int(inside.sum()), values[inside].sum(axis=0),
+                         values[~inside].sum(axis=0))
+    return profiles_from_sums(sums, len(labels), names, kinds, values.std(axis=0))
+
+
+def profiles_from_sums(sums: dict, n: int, names, kinds, spread: np.ndarray) -> tuple:
+    """The clusters' profiles (noise last) from ``sums``, {cluster: (its rows, the sums of
+    each feature over its rows, over the other rows)} of ``n`` rows, and each feature's
+    standard deviation over every row (``spread``)."""
+    profiles = []
+    for cluster in sorted(sums, key=lambda c: (c == NOISE, c)):
+        size, inside, outside = sums[cluster]
+        means = inside / size
+        rest = means if size == n else outside / (n - size)
+        profiles.append(cluster_profile(int(cluster), int(size), names, kinds, means, rest,
+                                        spread))
     return tuple(profiles)
 
 

@@ -25,7 +25,7 @@ from analysis.errors import StepError
 from analysis.notes import Note
 from analysis.plain import fraction_text
 
-__all__ = ["RELATIONS", "Statement", "with_breaks_flag"]
+__all__ = ["RELATIONS", "Statement", "breaking_rows", "breaks_flag_info", "with_breaks_flag"]
 
 RELATIONS = ("=", "<=", ">=", "mod")
 # The flag column's name starts with this; the rest is the statement's text.
@@ -164,6 +164,36 @@ def _split_term(body: str) -> tuple[Fraction, str]:
     return coef, match.group(2)
 
 
+def breaking_rows(table, statement: Statement) -> list[bool | None]:
+    """Per row of ``table``: True where it breaks ``statement``, False where it obeys it,
+    None where one of its columns is missing. StepError when a column is missing from the
+    table or has no exact values."""
+    from analysis.errors import TableError
+
+    try:
+        columns = {name: table.exact(name) for name, _ in statement.terms}
+    except TableError as exc:
+        raise StepError(f"the statement {statement.text!r} cannot be checked: {exc}") from None
+    return statement.breaks(columns)
+
+
+def breaks_flag_info(table_name: str, statement: Statement, broken: int, missing: int,
+                     rows: int):
+    """The description of the flag "breaks: <statement>" on a table of ``rows`` rows, of which
+    ``broken`` break the statement and ``missing`` cannot be checked. StepError when no
+    checked row breaks it, or every one does (a separator needs both classes)."""
+    from analysis.table import ColumnInfo
+
+    if broken == 0 or broken == rows - missing:
+        raise StepError(f"{table_name}: every checked row {'obeys' if broken == 0 else 'breaks'}"
+                        f" {statement.text!r}, so there is nothing to tell apart.")
+    return ColumnInfo(name=statement.flag_name, role="flag", dtype="boolean", missing=missing,
+                      distinct=2, detected_role="flag",
+                      note=Note("derived_flag", f"derived: true on the {broken} rows that "
+                                f"break {statement.text}", rows=broken,
+                                statement=statement.text))
+
+
 def with_breaks_flag(table, statement: Statement):
     """``table`` with one more flag column, true on the rows that break ``statement``.
 
@@ -172,27 +202,12 @@ def with_breaks_flag(table, statement: Statement):
     missing from the table or has no exact values, or when no row breaks the statement (a
     separator needs both classes).
     """
-    from analysis.errors import TableError
-    from analysis.table import ColumnInfo
-
-    try:
-        columns = {name: table.exact(name) for name, _ in statement.terms}
-    except TableError as exc:
-        raise StepError(f"the statement {statement.text!r} cannot be checked: {exc}") from None
-    flags = statement.breaks(columns)
-    broken = sum(1 for f in flags if f)
-    if broken == 0 or broken == sum(1 for f in flags if f is not None):
-        raise StepError(f"{table.name}: every checked row {'obeys' if broken == 0 else 'breaks'}"
-                        f" {statement.text!r}, so there is nothing to tell apart.")
+    flags = breaking_rows(table, statement)
+    info = breaks_flag_info(table.name, statement, sum(1 for f in flags if f),
+                            sum(1 for f in flags if f is None), len(flags))
     name = statement.flag_name
     if name in table.frame.columns:
         return table, name
     frame = table.frame.copy(deep=False)
     frame[name] = pd.array(flags, dtype="boolean")
-    missing = sum(1 for f in flags if f is None)
-    info = ColumnInfo(name=name, role="flag", dtype="boolean", missing=missing, distinct=2,
-                      detected_role="flag",
-                      note=Note("derived_flag", f"derived: true on the {broken} rows that "
-                                f"break {statement.text}", rows=broken,
-                                statement=statement.text))
     return dataclasses.replace(table, frame=frame, columns=table.columns + (info,)), name

@@ -115,6 +115,15 @@ def mostly_empty_columns(table: Table, columns: list[str],
     return [(name, share(name)) for name in columns if share(name) > MISSING_SHARE_LIMIT]
 
 
+def without_mostly_empty(table: Table, columns: list[str], intervals: str = "missing"):
+    """(``columns`` without the mostly-empty ones, those left out with their share missing):
+    the default features leave out :func:`mostly_empty_columns` unless every column is one."""
+    left_out = mostly_empty_columns(table, columns, intervals)
+    if len(left_out) == len(columns):
+        return columns, []
+    return [name for name in columns if name not in dict(left_out)], left_out
+
+
 def default_feature_columns(table: Table, *, target: str | None = None,
                             exclude: tuple[str, ...] = ()) -> list[str]:
     """Every invariant, flag, category and array column, but the target and excluded ones."""
@@ -185,13 +194,9 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
     warnings: list[str] = []
     left_out: list[tuple[str, float]] = []
     if chosen_by_default:
-        left_out = mostly_empty_columns(table, columns, intervals)
-        if len(left_out) < len(columns):
-            columns = [name for name in columns if name not in dict(left_out)]
-            if left_out:
-                warnings.append(left_out_warning(left_out))
-        else:
-            left_out = []
+        columns, left_out = without_mostly_empty(table, columns, intervals)
+        if left_out:
+            warnings.append(left_out_warning(left_out))
     run: list[str] = []         # consecutive plain number columns, converted together
     for name in columns + [None]:
         if name is not None and _is_plain_number(table, name, log_scale):
@@ -215,24 +220,23 @@ def build_features(table: Table, *, columns: list[str] | None = None, target: st
         target_missing = _missing_mask(table, target)
     rows = np.arange(table.n_rows)
     if bad.any() or target_missing.any():
-        inf_count = int(np.isinf(values).any(axis=1).sum())
-        if inf_count:
-            notes.append(infinite_note(inf_count))
+        infinite = int(np.isinf(values).any(axis=1).sum())   # before any cell is filled
         if missing == "drop":
             keep = ~(bad.any(axis=1) | target_missing)
-            hint = _interval_hint(table, columns, bad.any(axis=1), intervals)
-            text, serious = dropped_rows_text(table.n_rows, int((~keep).sum()),
-                                              int(bad.any(axis=1).sum()),
-                                              int(target_missing.sum()), hint)
-            (warnings if serious else notes).append(text)
-            values = values[keep]
-            rows = rows[keep]
+            filled = 0
         else:
             filled = _impute(values, bad, features)
             keep = ~target_missing
-            values = values[keep]
-            rows = rows[keep]
-            notes.append(filled_note(filled, int(target_missing.sum())))
+        said, warned = missing_said(
+            missing, table.n_rows, infinite=infinite,
+            dropped=int((~keep).sum()), in_features=int(bad.any(axis=1).sum()),
+            in_target=int(target_missing.sum()), filled=filled,
+            hint=_interval_hint(table, columns, bad.any(axis=1), intervals)
+            if missing == "drop" else "")
+        notes.extend(said)
+        warnings.extend(warned)
+        values = values[keep]
+        rows = rows[keep]
     if len(rows) == 0:
         raise StepError(f"{table.name}: no rows left after removing missing values. Choose "
                         "other columns or impute missing values.")
@@ -275,6 +279,23 @@ def _interval_hint(table: Table, columns: list[str], dropped: np.ndarray,
         return ""
     return (f" {count} of these rows are known by an interval in a feature column; reading "
             "intervals by their low end, high end or midpoint (intervals) keeps them.")
+
+
+def missing_said(missing: str, n_rows: int, *, infinite: int, dropped: int, in_features: int,
+                 in_target: int, filled: int, hint: str = "") -> tuple[list, list]:
+    """(notes, warnings) of the features of a table of ``n_rows`` rows with missing values:
+    ``infinite`` rows with an infinite value; under ``missing="drop"`` the ``dropped`` rows
+    (``in_features`` missing a feature, ``in_target`` the target); under "impute" the
+    ``filled`` cells and the ``in_target`` rows dropped. Both engines say it here."""
+    notes, warnings = [], []
+    if infinite:
+        notes.append(infinite_note(infinite))
+    if missing == "drop":
+        text, serious = dropped_rows_text(n_rows, dropped, in_features, in_target, hint)
+        (warnings if serious else notes).append(text)
+    else:
+        notes.append(filled_note(filled, in_target))
+    return notes, warnings
 
 
 def dropped_rows_text(n_rows: int, dropped: int, in_features: int, in_target: int,

@@ -300,14 +300,23 @@ class OutliersStep:
             found = self._relations(table, fm.row_ids, notes)
             if found is not None:
                 measures["relations"] = found
-        used, combined, outliers = ranked_list(measures, fm.row_ids, self.top, notes)
+        return self.ranked(measures, fm.row_ids, fm.rows, k=k, features=fm.names, notes=notes,
+                           warnings=fm.warnings, started=started, open_values=opened)
+
+    def ranked(self, measures: dict, row_ids: np.ndarray, positions: np.ndarray, *, k: int,
+               features, notes: list, warnings, started: float,
+               open_values: tuple = ()) -> OutliersResult:
+        """The result: the rows ``row_ids`` (at ``positions`` in the table) ranked by
+        ``measures`` (:func:`ranked_list`), ``k`` the clusters of the distance from centre,
+        ``warnings`` those of the features, ``started`` the step's start (perf_counter)."""
+        used, combined, outliers = ranked_list(measures, row_ids, self.top, notes)
         return OutliersResult(
-            outliers=outliers, row_ids=fm.row_ids, positions=fm.rows, scores=combined,
-            measures=tuple(used), target=self.target, k=k, n_rows=n, top=self.top,
+            outliers=outliers, row_ids=row_ids, positions=positions, scores=combined,
+            measures=tuple(used), target=self.target, k=k, n_rows=len(row_ids), top=self.top,
             combination=combination_text(used),
-            seed=self.seed, features=tuple(fm.names), notes=said_as_notes(notes),
-            warnings=tuple(fm.warnings) + said_as_warnings(notes),
-            elapsed_seconds=time.perf_counter() - started, open_values=opened,
+            seed=self.seed, features=tuple(features), notes=said_as_notes(notes),
+            warnings=tuple(warnings) + said_as_warnings(notes),
+            elapsed_seconds=time.perf_counter() - started, open_values=open_values,
         )
 
     def check(self) -> None:
@@ -322,22 +331,24 @@ class OutliersStep:
         if self.target is not None:
             table.column(self.target)
 
-    def _centre_distance(self, table: Table, fm, values: np.ndarray, notes: list[str]):
+    def clustering_step(self):
+        """The k-means clustering the distance from cluster centre measures from: the
+        clustering step on the same features chooses k (or takes the given one); the target
+        is named as its comparison column so that it stays out of the features."""
         from analysis.clustering import ClusteringStep
 
-        # the clustering step on the same features chooses k (or takes the given one); the
-        # target is named as its comparison column so that it stays out of the features
-        step = ClusteringStep(method="kmeans", k=self.k, compare=self.target,
+        return ClusteringStep(method="kmeans", k=self.k, compare=self.target,
                               columns=self.columns, array_encoding=self.array_encoding,
                               log_scale=self.log_scale, missing=self.missing,
                               intervals=self.intervals,
                               standardize=self.standardize, seed=self.seed)
-        clusters = step.run(table)
+
+    def _centre_distance(self, table: Table, fm, values: np.ndarray, notes: list[str]):
+        clusters = self.clustering_step().run(table)
         if not np.array_equal(clusters.positions, fm.rows):
             raise RuntimeError("the clustering used other rows than the ranking")
         notes.extend(note for note in clusters.notes if note not in fm.notes)
-        notes.append(Note("centre_clusters", "distance from centre uses k-means clusters: "
-                          f"{clusters.reason}", k=clusters.k))
+        notes.append(centre_clusters_note(clusters))
         return _centre_distance(values, clusters.labels, clusters.k), clusters.k
 
     def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
@@ -359,6 +370,12 @@ class OutliersStep:
                               reason=str(exc)))
             return None
         return relations_measure(result, row_ids)
+
+
+def centre_clusters_note(clusters) -> Note:
+    """The note naming the k-means clusters (a ClusteringResult) distances are measured in."""
+    return Note("centre_clusters", "distance from centre uses k-means clusters: "
+                f"{clusters.reason}", k=clusters.k)
 
 
 def check_rows(table_name: str, n: int) -> None:

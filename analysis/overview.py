@@ -198,8 +198,7 @@ def _summarize(table: Table, info) -> ColumnSummary:
 
 def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]:
     """The strongly correlated pairs, and the sample size if they come from a sample."""
-    names = [c.name for c in table.columns
-             if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
+    names = correlation_columns(table)
     if len(names) < 2 or top <= 0:
         return (), None
     n = table.n_rows
@@ -220,6 +219,13 @@ def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]
         # pairwise-complete rows where values are missing, as pandas counts them
         matrix = pd.DataFrame(values.T).corr().to_numpy()
     return strong_pairs(matrix, names, top), None if rows is None else len(rows)
+
+
+def correlation_columns(table) -> list[str]:
+    """The columns correlations are looked for between: the integer and real invariants
+    with more than one value."""
+    return [c.name for c in table.columns
+            if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
 
 
 def strong_pairs(matrix: np.ndarray, names: list[str], top: int) -> tuple:

@@ -112,6 +112,17 @@ def prepared(values: np.ndarray, standardize: bool, table_name: str, what: str) 
     return out
 
 
+def varying(n: int, mean: np.ndarray, variance: np.ndarray) -> np.ndarray:
+    """Which columns of ``n`` rows, with these means and population variances, vary.
+
+    A column of one repeated value has a mean that rounding may put a hair away from the
+    value, so its variance is not exactly 0: a variance within rounding of the mean's own
+    error counts as none (common practice; StandardScaler does the same).
+    """
+    eps = np.finfo(np.float64).eps
+    return variance > n * eps * variance + (n * eps * mean) ** 2
+
+
 def _centred_and_scaled(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     n = len(values)
     if n == 0:
@@ -119,11 +130,7 @@ def _centred_and_scaled(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     mean = values.mean(axis=0)
     out = np.subtract(values, mean, dtype=np.float64)
     variance = np.einsum("ij,ij->j", out, out) / n
-    # A column of one repeated value has a mean that rounding may put a hair away from the
-    # value, so its variance is not exactly 0: treat a variance within rounding of the
-    # mean's own error as none (common practice; StandardScaler does the same).
-    eps = np.finfo(np.float64).eps
-    varies = variance > n * eps * variance + (n * eps * mean) ** 2
+    varies = varying(n, mean, variance)
     scale = np.where(varies, np.sqrt(variance), 1.0)
     out[:, ~varies] = 0.0
     out /= scale
@@ -358,13 +365,17 @@ def _pca(values: np.ndarray, names: list[str]):
     # only the two coordinates drawn: a (rows x 2) product instead of every component's scores
     shown = components[:2]
     coordinates = _two_columns(values @ shown.T - model.mean_ @ shown.T)
-    ratio = tuple(float(r) for r in model.explained_variance_ratio_)
+    return coordinates, pca_fields(components, model.explained_variance_ratio_, names)
+
+
+def pca_fields(components: np.ndarray, ratio, names: list[str]) -> dict:
+    """The fields of a PCA's result from its principal axes (rows of ``components``) and
+    explained variance ratios: the ratios, each feature's loadings on x and y, the titles."""
     second = components[1] if len(components) > 1 else np.zeros(len(names))
     loadings = {name: (float(components[0, j]), float(second[j]))
                 for j, name in enumerate(names)}
-    return coordinates, {"explained_variance_ratio": ratio, "loadings": loadings,
-                         "axis_titles": ("first principal component",
-                                         "second principal component")}
+    return {"explained_variance_ratio": tuple(float(r) for r in ratio), "loadings": loadings,
+            "axis_titles": ("first principal component", "second principal component")}
 
 
 def _lda(values: np.ndarray, labels: np.ndarray, names: list[str], target: str,
@@ -490,4 +501,4 @@ def _two_columns(scores: np.ndarray) -> np.ndarray:
 
 
 __all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "prepared", "require_spread",
-           "sample_positions", "standardized"]
+           "pca_fields", "sample_positions", "standardized", "varying"]

@@ -355,7 +355,7 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
             "a table format read here. Save the sheet as CSV (or TSV, JSON, JSON Lines, "
             "Parquet) and load that."
         )
-    fmt = format or _format_of(name, data)
+    fmt = format or format_of(name, data)
     if fmt not in FORMATS:
         raise TableError(f"{name}: unknown format {fmt!r}; use one of {', '.join(FORMATS)}.")
     if not data.strip():
@@ -401,7 +401,9 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
 # Parsing per format
 
 
-def _format_of(name: str, data: bytes) -> str:
+def format_of(name: str, data: bytes) -> str:
+    """The format of a table file named ``name`` whose bytes start with ``data``: by its
+    suffix, else by its first bytes (Parquet's magic number, a JSON array or record)."""
     suffix = Path(name).suffix.lower()
     if suffix in _EXTENSIONS:
         return _EXTENSIONS[suffix]
@@ -449,13 +451,7 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if b"\x00" in raw:
         raise TableError(f"{name}: contains NUL bytes; this is not a text table. "
                          "Check that the file is CSV or TSV.")
-    if fmt == "tsv":
-        delimiter = "\t"
-    else:
-        delimiter = sniff_delimiter(text)
-    header = [h.strip() for h in header_record(text, delimiter)]
-    if not any(header):
-        raise TableError(f"{name}: the first line is empty; it must name the columns.")
+    delimiter, header = delimited_layout(text, name, fmt)
     check_column_names(name, header)
     if len(header) > limits.max_columns:
         raise TableError(
@@ -475,7 +471,7 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
         raise TableError(f"{name}: {_parser_message(str(exc), header)}") from None
     except (ValueError, OverflowError, MemoryError) as exc:
         raise TableError(f"{name}: could not be parsed as a delimited table "
-                         f"({_one_line(exc)}).") from None
+                         f"({one_line(exc)}).") from None
     if not frame.index.equals(pd.RangeIndex(len(frame))):
         # pandas makes the first cells an index when the first row is longer than the header
         _check_long_rows(text, delimiter, len(header), name)
@@ -487,6 +483,16 @@ def _read_delimited(data: bytes, name: str, fmt: str, warnings: list[str],
     if said:
         warnings.append(said)
     return frame
+
+
+def delimited_layout(text: str, name: str, fmt: str) -> tuple[str, list[str]]:
+    """The delimiter (a tab for TSV, else sniffed) and the header's names, stripped, of the
+    text of a delimited table; TableError when the first line names no column."""
+    delimiter = "\t" if fmt == "tsv" else sniff_delimiter(text)
+    header = [h.strip() for h in header_record(text, delimiter)]
+    if not any(header):
+        raise TableError(f"{name}: the first line is empty; it must name the columns.")
+    return delimiter, header
 
 
 def delimiter_warning(name: str, delimiter: str) -> str | None:
@@ -582,7 +588,7 @@ def _parser_message(message: str, header: list[str]) -> str:
     if "EOF inside string" in message or "EOF" in message:
         return ("a quoted cell is never closed (a lone \" character). "
                 "Close the quote or remove it.")
-    return f"could not be parsed as a delimited table ({_one_line(message)})."
+    return f"could not be parsed as a delimited table ({one_line(message)})."
 
 
 # What to do about a row with more cells than the header: the usual cause in downloaded
@@ -687,7 +693,7 @@ def _json_loads(text: str, name: str, where: str, limits: Limits,
             ) from None
         if "integer string conversion" in str(exc):
             raise TableError(_too_many_digits(name, where, text)) from None
-        raise TableError(f"{name}{where}: invalid JSON: {_one_line(exc)}.") from None
+        raise TableError(f"{name}{where}: invalid JSON: {one_line(exc)}.") from None
     return value
 
 
@@ -795,7 +801,7 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
         arrow = pa.table(columns, names=names).replace_schema_metadata(schema.metadata)
         del columns
     except (pa.ArrowException, OSError, ValueError) as exc:
-        raise TableError(f"{name}: not a readable Parquet file ({_one_line(exc)}). "
+        raise TableError(f"{name}: not a readable Parquet file ({one_line(exc)}). "
                          "Check the file or export it again.") from None
     try:
         # integer columns with nulls come back as Python ints and None rather than float64,
@@ -805,7 +811,7 @@ def _read_parquet(data: bytes, name: str) -> pd.DataFrame:
                                split_blocks=True, self_destruct=True)
     except (pa.ArrowException, ValueError, TypeError) as exc:
         raise TableError(f"{name}: Parquet columns could not be converted "
-                         f"({_one_line(exc)}).") from None
+                         f"({one_line(exc)}).") from None
 
 
 def _narrowed(column):
@@ -1446,7 +1452,7 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str,
                     _too_many_digits(name, f", row {i + first_row + 1}", t, column)) from None
             raise TableError(
                 f"{name}, row {i + first_row + 1}, column {column!r}: not a valid JSON array "
-                f"({_one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
+                f"({one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
             ) from None
     for i, value in decoded:
         if not isinstance(value, list):
@@ -1765,6 +1771,6 @@ def _to_float(value) -> float:
         return float("inf") if value > 0 else float("-inf")
 
 
-def _one_line(error) -> str:
+def one_line(error) -> str:
     """A library's error text on one line: the command line prints one line per error."""
     return " ".join(str(error).split())

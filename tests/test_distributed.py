@@ -27,6 +27,7 @@ from conftest import write_parts  # noqa: E402
 from analysis.clustering import ClusteringStep  # noqa: E402
 from analysis.distributed import open_cluster, read_partitioned, run_distributed  # noqa: E402
 from analysis.errors import StepError, TableError  # noqa: E402
+from analysis.notes import note_code  # noqa: E402
 from analysis.overview import OverviewStep  # noqa: E402
 from analysis.projection import ProjectionStep  # noqa: E402
 from analysis.relations import RelationsStep  # noqa: E402
@@ -530,6 +531,21 @@ def test_local_cluster_listens_on_loopback_and_is_closed_after_an_error():
     leftover = [t for t in threading.enumerate()
                 if t.ident not in threads_before and t.is_alive() and not t.daemon]
     assert leftover == []
+
+
+def test_a_local_cluster_has_all_its_workers_before_the_first_step(mixed):
+    # distributed's Client.wait_for_workers(n) returns once n workers have joined the
+    # scheduler (its documentation); without it a step could start, and its note count,
+    # before the second worker had registered
+    folder, _ = mixed
+    from analysis.distributed.cluster import workers_of
+
+    with open_cluster(n_workers=2) as active:
+        assert len(workers_of(active)) == 2
+        result = run_distributed(OverviewStep(), folder, client=active)
+    engine = [n for n in result.notes if note_code(n) == "dask_engine"]
+    assert [n.figures["workers"] for n in engine] == [2]
+    assert "ran on a Dask cluster (2 workers at tcp://127.0.0.1:" in str(engine[0])
 
 
 def test_unreachable_scheduler_is_a_step_error(tmp_path):

@@ -571,6 +571,47 @@ def test_an_equation_in_short_decimals_is_settled_exactly_on_both_engines(client
         assert holds != bool(cells["label"] == equation.positive_class), row
 
 
+def test_a_target_statement_gives_the_same_derived_flag_and_equation(client, atlas):
+    # "breaks: girth - vertices >= 0" for the graphs whose shortest cycle is shorter than
+    # their vertex count; the forests, with no girth, are missing in the flag
+    frame, folder, in_memory = atlas
+    statement = {"terms": [{"column": "girth", "coef": "1"}, {"column": "vertices",
+                                                              "coef": "-1"}],
+                 "relation": ">=", "constant": "0"}
+    step = make_step("separator", {"target_statement": statement, "model": "linear",
+                                   "columns": ["edges", "components", "cycle_rank",
+                                               "max_degree"], **FEW})
+    expected = step.run(in_memory)
+    result = run_distributed(step, folder, client=client)
+    assert _separator(result) == _separator(expected)
+    assert result.to_json()["metrics"] == expected.to_json()["metrics"]
+    # the flag, counted partition by partition, against pandas on the frame from networkx
+    from analysis.derived import Statement
+    from analysis.distributed.source import with_breaks_flag
+
+    flagged = with_breaks_flag(read_partitioned(folder, client), client,
+                               Statement.from_json(statement))
+    info = flagged.column(Statement.from_json(statement).flag_name)
+    assert (info.role, info.missing) == ("flag", int(frame.girth.isna().sum()))
+    assert info.note.figures["rows"] == int((frame.girth < frame.vertices).sum())
+    assert result.equation.n_rows == int(frame.girth.notna().sum())
+
+
+def test_a_target_statement_no_row_breaks_is_refused_alike(client, atlas):
+    # the handshake lemma (Euler, 1736): degree_sum = 2 * edges on every graph
+    _, folder, in_memory = atlas
+    statement = {"terms": [{"column": "degree_sum", "coef": "1"}, {"column": "edges",
+                                                                   "coef": "-2"}],
+                 "relation": "=", "constant": "0"}
+    step = make_step("separator", {"target_statement": statement, "columns": ["vertices"],
+                                   **FEW})
+    with pytest.raises(StepError, match="every checked row obeys") as memory:
+        step.run(in_memory)
+    with pytest.raises(StepError, match="every checked row obeys") as dask:
+        run_distributed(step, folder, client=client)
+    assert _said([str(dask.value)]) == _said([str(memory.value)])
+
+
 # ----------------------------------------------------------------------------------------
 # Typing of delimited text read in blocks: one rule on both engines
 

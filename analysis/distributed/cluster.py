@@ -18,6 +18,8 @@ from analysis.errors import StepError
 DEFAULT_WORKERS = 2
 # Seconds to wait for an existing scheduler to answer before saying it cannot be reached.
 CONNECT_TIMEOUT = 15
+# Seconds to wait for the local cluster's workers to join its scheduler.
+WORKERS_TIMEOUT = 60
 
 
 def dask_missing() -> StepError:
@@ -73,6 +75,18 @@ def open_cluster(scheduler: str | None = None, *, n_workers: int | None = None,
     try:
         client = Client(cluster, set_as_default=False)
         with contextlib.closing(client):
+            # a worker may still be joining when the cluster object is returned; wait for
+            # every one, so the first step is spread over them all and the engine's note
+            # counts them right
+            client.wait_for_workers(workers, timeout=WORKERS_TIMEOUT)
             yield client
     finally:
         cluster.close()
+
+
+def workers_of(client) -> dict:
+    """The scheduler's description of each of its workers now, by address."""
+    try:
+        return client.scheduler_info(n_workers=-1)["workers"]
+    except TypeError:   # distributed before n_workers= (it then lists every worker)
+        return client.scheduler_info()["workers"]

@@ -11,13 +11,8 @@ import warnings
 
 import numpy as np
 
-from analysis.distributed.common import (
-    Context,
-    blocks_for,
-    feature_moments,
-    plan_for,
-    standardizing,
-)
+from analysis import clustering as cl
+from analysis.distributed.common import Context, Features, standardizing, step_features
 from analysis.errors import StepError
 from analysis.notes import Note
 
@@ -32,11 +27,7 @@ LLOYD_TOLERANCE = 1e-4
 def run_clustering(step, ctx: Context):
     """A ClusteringResult for ``step`` on the partitioned table in ``ctx``."""
     step.check_table(ctx.table)
-    plan = plan_for(ctx, columns=step.columns, target=step.compare,
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing)
-    blocks = blocks_for(ctx, plan)
-    return cluster_blocks(step, ctx, plan, blocks).result
+    return cluster_blocks(step, step_features(ctx, step, target=step.compare)).result
 
 
 @dataclasses.dataclass
@@ -51,21 +42,17 @@ class Clusters:
     scale: np.ndarray
 
 
-def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
-    """Cluster the rows of the given feature blocks as ``step`` asks."""
-    from analysis import clustering as cl
-    from analysis.distributed.matrix import feature_notes, feature_warnings
-
+def cluster_blocks(step, found: Features) -> Clusters:
+    """Cluster the rows of the given features as ``step`` asks."""
     started = time.perf_counter()
-    (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
-    notes = feature_notes(plan, counts, ctx.table.n_rows)
-    shift, scale = standardizing(step.standardize, n, mean, m2, notes)
+    ctx, plan, blocks, n, m2 = found.ctx, found.plan, found.blocks, found.n, found.m2
+    notes = list(found.notes)
+    shift, scale = standardizing(step.standardize, n, found.mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
-    at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
-    sample = gather_rows(*at, sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
+    sample = found.rows(sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
     if n > step.sample_size:
         notes.append(cl.silhouette_note(step.sample_size, n, step.seed))
-    scored = gather_rows(*at, sample_rows(n, step.sample_size, step.seed), shift, scale)
+    scored = found.rows(sample_rows(n, step.sample_size, step.seed), shift, scale)
     silhouette = cl.Silhouette.of_rows(scored)
     runs = []
     with warnings.catch_warnings():
@@ -95,63 +82,26 @@ def cluster_blocks(step, ctx: Context, plan, blocks: list) -> Clusters:
         row_ids=np.concatenate([p[1] for p in pieces]),
         positions=np.concatenate([p[0] for p in pieces]), labels=labels,
         sweep=tuple(r[0] for r in runs), reason=reason,
-        profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, mean, m2),
+        profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, found.mean, m2),
         features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
         silhouette=entry.silhouette, compare=step.compare, agreement=agreement,
         notes=tuple(dict.fromkeys(notes)),
-        warnings=feature_warnings(plan, counts, ctx.table.n_rows),
+        warnings=found.warnings,
         elapsed_seconds=time.perf_counter() - started,
     )
     return Clusters(result, chosen, order, shift, scale)
 
 
 def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
+    """``size`` of ``n`` rows drawn with ``seed`` as the in-memory steps draw them (every row
+    when there are no more)."""
     from analysis.projection import sample_positions
 
     return np.arange(n) if n <= size else sample_positions(n, size, seed)
 
 
-def gather_rows(ctx, blocks, kept_per_block, offsets, wanted, shift, scale) -> np.ndarray:
-    """Standardized feature rows at the given kept-row indices (in order); their targets
-    when ``shift`` is None."""
-    from dask import delayed
-
-    picks = []
-    for k, block in enumerate(blocks):
-        lo, hi = offsets[k], offsets[k] + kept_per_block[k]
-        local = wanted[(wanted >= lo) & (wanted < hi)] - lo
-        if len(local):
-            picks.append(delayed(_take)(block, local, shift, scale))
-    parts = ctx.compute(picks)
-    if shift is None:
-        return np.concatenate(parts) if parts else np.array([])
-    return np.vstack(parts) if parts else np.empty((0, len(shift)))
-
-
-def _take(block, local, shift, scale):
-    return block.target[local] if shift is None else (block.values[local] - shift) / scale
-
-
 # ----------------------------------------------------------------------------------------
 # Fitting: each yields (k, assigner, bic) where assigner(values) -> labels
-
-
-class NearestCentre:
-    """Assigns each row to its nearest centre (Euclidean)."""
-
-    def __init__(self, centres: np.ndarray):
-        self.centres = np.asarray(centres, dtype=np.float64)
-
-    def __call__(self, values: np.ndarray) -> np.ndarray:
-        if len(values) == 0:
-            return np.zeros(0, dtype=int)
-        distances = ((values[:, None, :] - self.centres[None, :, :]) ** 2).sum(axis=2) \
-            if len(values) * len(self.centres) * values.shape[1] < 5_000_000 else None
-        if distances is None:
-            from sklearn.metrics import pairwise_distances_argmin
-
-            return pairwise_distances_argmin(values, self.centres)
-        return np.argmin(distances, axis=1)
 
 
 class MixtureAssigner:
@@ -164,23 +114,7 @@ class MixtureAssigner:
         return self.model.predict(values) if len(values) else np.zeros(0, dtype=int)
 
 
-class NearestSampled:
-    """Gives each row the label of its nearest sampled row (noise stays noise)."""
-
-    def __init__(self, sample: np.ndarray, labels: np.ndarray):
-        from sklearn.neighbors import NearestNeighbors
-
-        self.labels = labels
-        self.index = NearestNeighbors(n_neighbors=1).fit(sample)
-
-    def __call__(self, values: np.ndarray) -> np.ndarray:
-        if len(values) == 0:
-            return np.zeros(0, dtype=int)
-        return self.labels[self.index.kneighbors(values, return_distance=False)[:, 0]]
-
-
 def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
-    from analysis import clustering as cl
 
     if method == "kmeans":
         notes.append(Note("dask_lloyd", "k-means by exact Lloyd iterations over every row of "
@@ -200,7 +134,7 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
         if len(fit) < n:
             notes.append(cl.agglomerative_note(len(fit), n))
         for k, _, centres in cl.ward_cuts(fit, ks):
-            yield k, NearestCentre(centres), None
+            yield k, cl.NearestCentre(centres), None
     elif method == "hdbscan":
         fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
         labels = cl.hdbscan_fit(fit, step.min_cluster_size, notes)
@@ -208,12 +142,12 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
             notes.append(cl.hdbscan_sample_note(len(fit), n))
         if step.k is not None:
             notes.append(cl.hdbscan_k_note(step.k))
-        yield None, NearestSampled(fit, labels), None
+        yield None, cl.NearestSampled(fit, labels), None
     else:
         raise StepError(f"clustering method {method!r} is not available on the dask engine.")
 
 
-class _Lloyd(NearestCentre):
+class _Lloyd(cl.NearestCentre):
     """Nearest-centre assignment whose centres are refined over all rows before first use."""
 
 
@@ -255,22 +189,11 @@ def _assign_block(block, assigner, shift, scale):
 
 
 def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
-    from analysis import clustering as cl
-
+    """The in-memory profiles, from each cluster's sums over the blocks."""
     sums = ctx.reduce(_profile_sums, blocks, _add_profile_sums, assigner, shift, scale)
-    spread = np.sqrt(np.diag(m2) / n)
-    total = mean * n
-    names = plan.names
-    kinds = [f.kind for f in plan.features]
-    profiles = []
-    clusters = sorted(sums, key=lambda c: (order[c] == -1, order[c]))
-    for cluster in clusters:
-        size, inside_sum = sums[cluster]
-        means = inside_sum / size
-        rest = means if size == n else (total - inside_sum) / (n - size)
-        profiles.append(cl.cluster_profile(int(order[cluster]), int(size), names, kinds, means,
-                                           rest, spread))
-    return tuple(profiles)
+    return cl.profiles_from_sums(
+        {order[c]: (size, inside, mean * n - inside) for c, (size, inside) in sums.items()}, n,
+        plan.names, [f.kind for f in plan.features], np.sqrt(np.diag(m2) / n))
 
 
 def _profile_sums(block, assigner, shift, scale) -> dict:

@@ -45,10 +45,10 @@ class Context:
         return self.client.scatter(value, broadcast=True, hash=False)
 
     def engine_note(self) -> Note:
-        try:
-            workers = len(self.client.scheduler_info(n_workers=-1)["workers"])
-        except TypeError:
-            workers = len(self.client.scheduler_info()["workers"])
+        """What ran where: the cluster's workers, the table's partitions and rows."""
+        from analysis.distributed.cluster import workers_of
+
+        workers = len(workers_of(self.client))
         return Note("dask_engine",
                     f"ran on a Dask cluster ({workers} worker{'s' if workers != 1 else ''} at "
                     f"{self.client.scheduler.address}) over {self.table.npartitions} partition"
@@ -74,13 +74,13 @@ def partition_tasks(ctx: Context, function, columns: list[str], *args) -> list:
             for k, part in enumerate(ctx.table.typed_partitions(columns))]
 
 
-def plan_for(ctx: Context, *, columns=None, target=None, array_encoding="invariant",
-             log_scale="auto", missing="drop", exclude=()) -> FeaturePlan:
-    """The feature plan for a step's settings, with the fills of ``missing="impute"``."""
-    plan = feature_plan(ctx.table, columns=columns, target=target,
-                        array_encoding=array_encoding, log_scale=log_scale, missing=missing,
-                        exclude=exclude)
-    if missing == "impute":
+def plan_for(ctx: Context, step, *, target=None, exclude=()) -> FeaturePlan:
+    """The feature plan of a step's feature settings (``columns``, ``array_encoding``,
+    ``log_scale``, ``missing``), with the fills of ``missing="impute"``."""
+    plan = feature_plan(ctx.table, columns=step.columns, target=target,
+                        array_encoding=step.array_encoding, log_scale=step.log_scale,
+                        missing=step.missing, exclude=exclude)
+    if step.missing == "impute":
         plan = dataclasses.replace(plan, fill=_fills(ctx, plan))
     return plan
 
@@ -90,22 +90,59 @@ def blocks_for(ctx: Context, plan: FeaturePlan, *, persist: bool | None = None) 
     return feature_blocks(ctx.table, plan, ctx.client, persist=persist)
 
 
-def feature_moments(ctx: Context, blocks: list) -> tuple:
-    """((rows, mean, centred Gram matrix) of the features, the row counts summed over
-    partitions, the kept rows of each block), in one pass."""
+@dataclasses.dataclass
+class Features:
+    """A step's features on every partition: the plan, one block per partition, their
+    moments (rows, mean, centred Gram matrix), the rows each block kept, and the notes and
+    warnings build_features writes for them."""
+
+    ctx: Context
+    plan: FeaturePlan
+    blocks: list
+    n: int
+    mean: np.ndarray
+    m2: np.ndarray
+    kept: list
+    notes: list
+    warnings: tuple
+
+    def rows(self, wanted: np.ndarray, shift, scale) -> np.ndarray:
+        """The features (minus ``shift``, over ``scale``) of the kept rows numbered
+        ``wanted`` (ascending) across the blocks; their targets when ``shift`` is None."""
+        from dask import delayed
+
+        offsets = np.concatenate([[0], np.cumsum(self.kept)[:-1]]).astype(np.int64)
+        picks = []
+        for k, block in enumerate(self.blocks):
+            local = wanted[(wanted >= offsets[k]) & (wanted < offsets[k] + self.kept[k])]
+            if len(local):
+                picks.append(delayed(_take)(block, local - offsets[k], shift, scale))
+        parts = self.ctx.compute(picks)
+        if shift is None:
+            return np.concatenate(parts) if parts else np.array([])
+        return np.vstack(parts) if parts else np.empty((0, len(shift)))
+
+
+def _take(block, local, shift, scale):
+    return block.target[local] if shift is None else (block.values[local] - shift) / scale
+
+
+def step_features(ctx: Context, step, *, target=None, exclude=()) -> Features:
+    """The features of a step's settings on every partition (:func:`plan_for`), their
+    moments, row counts and notes gathered in one pass."""
     from dask import delayed
 
-    from analysis.distributed.matrix import add_counts, block_counts
+    from analysis.distributed.matrix import add_counts, block_counts, feature_said
 
-    return ctx.compute([
+    plan = plan_for(ctx, step, target=target, exclude=exclude)
+    blocks = blocks_for(ctx, plan)
+    (n, mean, m2), counts, kept = ctx.compute([
         tree([delayed(block_moments)(b) for b in blocks], merge_moments),
         tree([delayed(block_counts)(b) for b in blocks], add_counts),
-        [delayed(_kept_rows)(b) for b in blocks],
+        [delayed(len)(b.positions) for b in blocks],
     ])
-
-
-def _kept_rows(block) -> int:
-    return len(block.positions)
+    notes, warned = feature_said(plan, counts, ctx.table.n_rows)
+    return Features(ctx, plan, blocks, n, mean, m2, kept, notes, warned)
 
 
 def block_moments(block) -> tuple[int, np.ndarray, np.ndarray]:
@@ -136,14 +173,12 @@ def merge_moments(a, b):
 
 
 def spread_scale(n, mean, m2) -> np.ndarray:
-    """Each feature's population standard deviation from moments, 1 for a feature that
-    scikit-learn's ``StandardScaler`` counts as constant (variance at rounding level)."""
+    """Each feature's population standard deviation from moments, 1 for a feature that does
+    not vary (:func:`analysis.projection.varying`, the in-memory rule)."""
+    from analysis.projection import varying
+
     variance = np.diag(m2) / n
-    eps = np.finfo(np.float64).eps
-    constant = variance <= n * eps * variance + (n * mean * eps) ** 2
-    scale = np.sqrt(variance)
-    scale[constant | (scale == 0)] = 1.0
-    return scale
+    return np.where(varying(n, mean, variance), np.sqrt(variance), 1.0)
 
 
 def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
@@ -221,6 +256,15 @@ def _merge_value_counts(a: list, b: list) -> list:
     return out
 
 
+def on_sample(step, ctx: Context, size: int):
+    """(``step.run`` in memory on a uniform random sample of ``size`` rows drawn across every
+    partition with the step's seed, the sampled rows' positions in the whole table)."""
+    from analysis.distributed.source import sample_table
+
+    sample, positions = sample_table(ctx.table, ctx.client, size, seed=step.seed)
+    return step.run(sample), positions
+
+
 def with_notes(result, extra: list[str]):
     """The result with ``extra`` appended to its notes (results are frozen dataclasses)."""
     if not extra:
@@ -228,6 +272,6 @@ def with_notes(result, extra: list[str]):
     return dataclasses.replace(result, notes=tuple(result.notes) + tuple(extra))
 
 
-__all__ = ["Context", "Settings", "block_moments", "blocks_for", "feature_moments",
-           "merge_moments", "partition_tasks", "plan_for", "spread_scale", "standardizing",
-           "tree", "with_notes"]
+__all__ = ["Context", "Features", "Settings", "block_moments", "blocks_for",
+           "merge_moments", "on_sample", "partition_tasks", "plan_for", "spread_scale",
+           "standardizing", "step_features", "tree", "with_notes"]

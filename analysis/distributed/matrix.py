@@ -17,16 +17,14 @@ from analysis.features import (
     MAX_LEVELS,
     Feature,
     chosen_feature_columns,
-    dropped_rows_text,
-    filled_note,
-    infinite_note,
     left_out_warning,
-    mostly_empty_columns,
     one_hot,
     signed_log,
     too_many_levels,
+    without_mostly_empty,
 )
 from analysis.notes import Note
+from analysis.table import Table
 
 # Keep feature blocks in cluster memory when they take at most this share of it.
 PERSIST_SHARE = 0.4
@@ -47,6 +45,7 @@ class FeaturePlan:
     notes: tuple[str, ...]
     id_column: str | None
     warnings: tuple[str, ...] = ()         # the mostly-empty columns left out, said so
+    infos: tuple = ()                      # the feature and target columns' descriptions
 
     @property
     def names(self) -> list[str]:
@@ -80,9 +79,8 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
     notes, warnings = [], []
     if chosen_by_default:
         # the in-memory rule: a mostly-empty column is left out before rows are dropped
-        left_out = mostly_empty_columns(table, columns)
-        if left_out and len(left_out) < len(columns):
-            columns = [name for name in columns if name not in dict(left_out)]
+        columns, left_out = without_mostly_empty(table, columns)
+        if left_out:
             warnings.append(left_out_warning(left_out))
         # columns this engine cannot encode are left out of the default features, said so;
         # named ones are refused by name
@@ -107,7 +105,8 @@ def feature_plan(table, *, columns: list[str] | None = None, target: str | None 
                        numeric_target=numeric_target, missing=missing,
                        log_columns=tuple(f.column for f in features if f.kind == "log"),
                        levels=levels, fill={}, notes=tuple(notes), id_column=table.id_column,
-                       warnings=tuple(warnings))
+                       warnings=tuple(warnings), infos=tuple(
+                           table.column(n) for n in [*columns, *([target] if target else [])]))
 
 
 def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Feature]:
@@ -150,6 +149,7 @@ def _levels(table, name: str) -> list[str]:
 def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> Block:
     """One partition's features (rows with a missing value dropped, or filled, per the plan)."""
     n = len(frame)
+    part = Table(name="", digest="", frame=frame, columns=plan.infos)   # numbers as in memory
     blocks = []
     for name in plan.columns:
         series = frame[name]
@@ -157,9 +157,8 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
             blocks.append(one_hot(series.astype(object).where(series.notna(), None).tolist(),
                                   plan.levels[name]))
             continue
-        values = _as_float(series)
-        blocks.append((signed_log(values.tolist()) if name in plan.log_columns
-                       else values)[:, None])
+        blocks.append((signed_log(part.numeric(name).tolist()) if name in plan.log_columns
+                       else part.numeric(name))[:, None])
     values = np.column_stack(blocks) if blocks else np.empty((n, 0))
     positions = np.arange(offset, offset + n, dtype=np.int64)
     ids = frame[plan.id_column].to_numpy() if plan.id_column else positions
@@ -168,7 +167,7 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     if plan.target is not None:
         series = frame[plan.target]
         if plan.numeric_target:
-            target = _as_float(series)
+            target = part.numeric(plan.target)
             target_missing = ~np.isfinite(target)
         else:
             target = series.to_numpy(dtype=object)
@@ -199,43 +198,17 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
     return out
 
 
-def _as_float(series: pd.Series) -> np.ndarray:
-    if series.dtype == object:
-        return np.array([np.nan if v is None or v is pd.NA else float(v) for v in series],
-                        dtype=np.float64)
-    return series.to_numpy(dtype=np.float64, na_value=np.nan)
+def feature_said(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[list, tuple]:
+    """(notes, warnings) that build_features writes, from counts summed over partitions."""
+    from analysis.features import missing_said
 
-
-def feature_notes(plan: FeaturePlan, counts: dict, n_rows: int) -> list[str]:
-    """The notes build_features writes, from counts summed over partitions (its warnings:
-    :func:`feature_warnings`)."""
-    notes = list(plan.notes)
-    if counts["infinite"]:
-        notes.append(infinite_note(counts["infinite"]))
-    if counts["dropped_features"] or counts["dropped_target"] or counts["filled"]:
-        if plan.missing == "drop":
-            text, serious = _dropped(counts, n_rows)
-            if not serious:
-                notes.append(text)
-        else:
-            notes.append(filled_note(counts["filled"], counts["dropped_target"]))
-    return notes
-
-
-def feature_warnings(plan: FeaturePlan, counts: dict, n_rows: int) -> tuple[str, ...]:
-    """The warnings build_features gives, from counts summed over partitions: mostly-empty
-    columns left out, and a drop of more than a tenth of the table."""
-    found = list(plan.warnings)
-    if plan.missing == "drop" and (counts["dropped_features"] or counts["dropped_target"]):
-        text, serious = _dropped(counts, n_rows)
-        if serious:
-            found.append(text)
-    return tuple(found)
-
-
-def _dropped(counts: dict, n_rows: int) -> tuple[str, bool]:
-    return dropped_rows_text(n_rows, counts["rows"] - counts["kept"],
-                             counts["dropped_features"], counts["dropped_target"])
+    if not (counts["dropped_features"] or counts["dropped_target"] or counts["filled"]):
+        return list(plan.notes), plan.warnings
+    said, warned = missing_said(plan.missing, n_rows, infinite=counts["infinite"],
+                                dropped=counts["rows"] - counts["kept"],
+                                in_features=counts["dropped_features"],
+                                in_target=counts["dropped_target"], filled=counts["filled"])
+    return list(plan.notes) + said, plan.warnings + tuple(warned)
 
 
 def block_counts(block: Block) -> dict:
@@ -271,13 +244,11 @@ def feature_blocks(table, plan: FeaturePlan, client, *, persist: bool | None = N
 
 
 def _fits(nbytes: int, client) -> bool:
-    try:
-        workers = client.scheduler_info(n_workers=-1)["workers"].values()
-    except TypeError:   # older distributed without n_workers
-        workers = client.scheduler_info()["workers"].values()
-    memory = sum(w.get("memory_limit", 0) or 0 for w in workers)
+    from analysis.distributed.cluster import workers_of
+
+    memory = sum(w.get("memory_limit", 0) or 0 for w in workers_of(client).values())
     return memory > 0 and nbytes <= PERSIST_SHARE * memory
 
 
 __all__ = ["Block", "FeaturePlan", "add_counts", "block_counts", "feature_blocks",
-           "feature_notes", "feature_plan", "partition_features"]
+           "feature_plan", "feature_said", "partition_features"]

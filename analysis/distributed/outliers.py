@@ -12,14 +12,7 @@ import warnings
 
 import numpy as np
 
-from analysis.distributed.common import (
-    Context,
-    Settings,
-    blocks_for,
-    feature_moments,
-    plan_for,
-    standardizing,
-)
+from analysis.distributed.common import Context, Settings, standardizing, step_features
 from analysis.errors import StepError
 from analysis.notes import Note
 
@@ -34,28 +27,21 @@ def run_outliers(step, ctx: Context):
     from sklearn.neighbors import LocalOutlierFactor
 
     from analysis import outliers as ol
-    from analysis.distributed.clustering import gather_rows, sample_rows
-    from analysis.distributed.matrix import feature_notes, feature_warnings
+    from analysis.distributed.clustering import sample_rows
 
     started = time.perf_counter()
     step.check_table(ctx.table)
-    plan = plan_for(ctx, columns=step.columns, target=step.target,
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing)
-    blocks = blocks_for(ctx, plan)
-    (n, mean, m2), counts, kept = feature_moments(ctx, blocks)
+    found = step_features(ctx, step, target=step.target)
+    n, blocks, kept, notes = found.n, found.blocks, found.kept, list(found.notes)
     ol.check_rows(ctx.table.name, n)
-    notes = feature_notes(plan, counts, ctx.table.n_rows)
-    warned = feature_warnings(plan, counts, ctx.table.n_rows)
-    shift, scale = standardizing(step.standardize, n, mean, m2, notes)
-    at = (ctx, blocks, kept, np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64))
+    shift, scale = standardizing(step.standardize, n, found.mean, found.m2, notes)
     lof_rows = sample_rows(n, step.sample_size, step.seed)
-    lof_sample = gather_rows(*at, lof_rows, shift, scale)
+    lof_sample = found.rows(lof_rows, shift, scale)
     fit_rows = sample_rows(n, SAMPLE_ROWS, step.seed + 1)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         forest = IsolationForest(n_estimators=200, random_state=step.seed).fit(
-            gather_rows(*at, fit_rows, shift, scale))
+            found.rows(fit_rows, shift, scale))
         if len(fit_rows) < n:
             notes.append(Note(
                 "dask_forest_sample",
@@ -66,12 +52,13 @@ def run_outliers(step, ctx: Context):
                                     novelty=len(lof_rows) < n).fit(lof_sample)
         if len(lof_rows) < n:
             notes.append(ol.factor_sample_note(len(lof_rows), n, step.seed))
-    clusters = _clusters(step, ctx, plan, blocks, notes)
+    clusters = _clusters(step, found, notes)
     separator = None if step.target is None else \
-        _separator_model(step, ctx, at, fit_rows, len(shift), notes)
+        _separator_model(step, found, fit_rows, len(shift), notes)
     spec = Settings(forest=forest, factor=factor, clusters=clusters, n=n, shift=shift,
-                  scale=scale, separator=separator, lof_rows=lof_rows, offsets=at[3],
-                  typical=_typical_distances(clusters, lof_sample))
+                    scale=scale, separator=separator, lof_rows=lof_rows,
+                    offsets=np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64),
+                    typical=_typical_distances(clusters, lof_sample))
     shared = ctx.share(spec)   # fitted models: sent to each worker once, not per task
     # a partition with no row left (every row missing a feature) has nothing to score
     scored = ctx.compute([delayed(_score_block)(b, k, shared) for k, b in enumerate(blocks)
@@ -80,35 +67,22 @@ def run_outliers(step, ctx: Context):
     used = _measures(ol, step, gathered, clusters.result, neighbours, notes,
                      step.target is not None and ctx.table.column(step.target).dtype == "boolean")
     if step.relations:
-        found = _relations(ctx, step, gathered["row_ids"], notes)
-        if found is not None:
-            used["relations"] = found
-    kept_measures, combined, outliers = ol.ranked_list(used, gathered["row_ids"], step.top,
-                                                       notes)
-    return ol.OutliersResult(
-        outliers=outliers, row_ids=gathered["row_ids"], positions=gathered["positions"],
-        scores=combined, measures=tuple(kept_measures), target=step.target,
-        k=clusters.result.k, n_rows=n, combination=ol.combination_text(kept_measures),
-        top=step.top, seed=step.seed, features=tuple(plan.names),
-        notes=ol.said_as_notes(notes), warnings=warned + ol.said_as_warnings(notes),
-        elapsed_seconds=time.perf_counter() - started,
-    )
+        broken = _relations(ctx, step, gathered["row_ids"], notes)
+        if broken is not None:
+            used["relations"] = broken
+    return step.ranked(used, gathered["row_ids"], gathered["positions"], k=clusters.result.k,
+                       features=found.plan.names, notes=notes, warnings=found.warnings,
+                       started=started)
 
 
-def _clusters(step, ctx, plan, blocks, notes):
-    from analysis.clustering import ClusteringStep
+def _clusters(step, found, notes):
     from analysis.distributed.clustering import cluster_blocks
+    from analysis.outliers import centre_clusters_note
 
-    clustering = ClusteringStep(method="kmeans", k=step.k, compare=step.target,
-                                columns=step.columns, array_encoding=step.array_encoding,
-                                log_scale=step.log_scale, missing=step.missing,
-                                standardize=step.standardize, seed=step.seed)
-    found = cluster_blocks(clustering, ctx, plan, blocks)
-    notes.extend(n for n in found.result.notes if n not in notes)
-    notes.append(Note(
-        "centre_clusters",
-        f"distance from centre uses k-means clusters: {found.result.reason}"))
-    return found
+    clusters = cluster_blocks(step.clustering_step(), found)
+    notes.extend(n for n in clusters.result.notes if n not in notes)
+    notes.append(centre_clusters_note(clusters.result))
+    return clusters
 
 
 def _typical_distances(clusters, sample: np.ndarray) -> dict:
@@ -119,17 +93,17 @@ def _typical_distances(clusters, sample: np.ndarray) -> dict:
             if (labels == c).any() else 0.0 for c in range(len(centres))}
 
 
-def _separator_model(step, ctx, at, fit_rows, width: int, notes):
+def _separator_model(step, found, fit_rows, width: int, notes):
     """A fit on the sample (features in their own units, as the in-memory separator's
     pipeline scales them), and cross-validated scores for the sample's own rows."""
     from sklearn.model_selection import cross_val_predict
 
     from analysis import outliers as ol
-    from analysis.distributed.clustering import gather_rows
     from analysis.features import is_numeric_target
 
-    values = gather_rows(*at, fit_rows, np.zeros(width), np.ones(width))
-    targets = gather_rows(*at, fit_rows, None, None)
+    ctx = found.ctx
+    values = found.rows(fit_rows, np.zeros(width), np.ones(width))
+    targets = found.rows(fit_rows, None, None)
     if is_numeric_target(ctx.table, step.target):
         truth = np.asarray(targets, dtype=float)
         model, folds = ol.number_model(), ol.number_folds(len(truth), step.seed)

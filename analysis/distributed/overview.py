@@ -14,6 +14,7 @@ from analysis.overview import (
     ColumnSummary,
     OverviewResult,
     Repeats,
+    correlation_columns,
     repeats_among,
     row_fingerprints,
     strong_pairs,
@@ -134,8 +135,7 @@ def _common_text(facts: dict, info, n_rows: int) -> tuple:
 
 def _correlations(ctx: Context, top: int):
     table = ctx.table
-    names = [c.name for c in table.columns
-             if c.role == "invariant" and c.dtype in ("integer", "real") and c.distinct > 1]
+    names = correlation_columns(table)
     if len(names) < 2 or top <= 0:
         return ()
     from dask import delayed

@@ -8,7 +8,7 @@ import time
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, feature_moments, plan_for, spread_scale
+from analysis.distributed.common import Context, spread_scale, step_features
 from analysis.notes import Note
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
@@ -17,27 +17,21 @@ LDA_SAMPLE_ROWS = 200_000
 
 def run_projection(step, ctx: Context):
     """A ProjectionResult for ``step`` on the partitioned table in ``ctx``."""
-    from analysis.distributed.matrix import feature_notes, feature_warnings
     from analysis.projection import (
-        METHOD_TITLES,
         ONE_COMPONENT_NOTE,
-        SAMPLE_THRESHOLDS,
         ProjectionResult,
         check_rows,
+        pca_fields,
         scaling_note,
     )
 
     started = time.perf_counter()
     step.check_table(ctx.table)
     if step.method != "pca":
-        return _on_sample(step, ctx, SAMPLE_THRESHOLDS, METHOD_TITLES)
+        return _on_sample(step, ctx)
     # the target only colours the picture: rows without it are still drawn, as in memory
-    plan = plan_for(ctx, columns=step.columns, exclude=(step.target,) if step.target else (),
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing)
-    blocks = blocks_for(ctx, plan)
-    (n, mean, m2), counts, _ = feature_moments(ctx, blocks)
-    notes = feature_notes(plan, counts, ctx.table.n_rows) + step.setting_notes()
+    found = step_features(ctx, step, exclude=(step.target,) if step.target else ())
+    n, mean, m2, notes = found.n, found.mean, found.m2, found.notes + step.setting_notes()
     check_rows(ctx.table.name, n)
     ratio, components, scale = pca_from_moments(n, mean, m2, standardize=step.standardize)
     notes.append(scaling_note(step.standardize))
@@ -46,25 +40,19 @@ def run_projection(step, ctx: Context):
     axes = components[:2]
     if len(axes) < 2:
         axes = np.vstack([axes, np.zeros((1, axes.shape[1]))])
-    pieces = ctx.each(project_block, blocks, mean, scale, axes)
-    positions = np.concatenate([p[0] for p in pieces])
-    row_ids = np.concatenate([p[1] for p in pieces])
+    pieces = ctx.each(project_block, found.blocks, mean, scale, axes)
     coordinates = np.vstack([p[2] for p in pieces])
-    names = plan.names
-    second = components[1] if len(components) > 1 else np.zeros(len(names))
-    loadings = {name: (float(components[0, j]), float(second[j]))
-                for j, name in enumerate(names)}
     ctx.notes.append(Note("dask_pca_exact", "PCA computed exactly from the covariance matrix "
                           "summed over all partitions; coordinates computed partition by "
                           "partition."))
     return ProjectionResult(
-        method="pca", row_ids=row_ids, positions=positions,
+        method="pca", row_ids=np.concatenate([p[1] for p in pieces]),
+        positions=np.concatenate([p[0] for p in pieces]),
         x=np.asarray(coordinates[:, 0], dtype=float), y=np.asarray(coordinates[:, 1], dtype=float),
-        features=tuple(names), standardize=step.standardize, target=step.target, n_rows=n,
-        sampled=False, seed=step.seed, explained_variance_ratio=tuple(float(r) for r in ratio),
-        loadings=loadings, axis_titles=("first principal component", "second principal component"),
-        notes=tuple(notes), warnings=feature_warnings(plan, counts, ctx.table.n_rows),
+        features=tuple(found.plan.names), standardize=step.standardize, target=step.target,
+        n_rows=n, sampled=False, seed=step.seed, notes=tuple(notes), warnings=found.warnings,
         elapsed_seconds=time.perf_counter() - started,
+        **pca_fields(components, ratio, found.plan.names),
     )
 
 
@@ -98,21 +86,22 @@ def project_block(block, mean: np.ndarray, scale: np.ndarray, axes: np.ndarray):
     return block.positions, block.row_ids, coordinates
 
 
-def _on_sample(step, ctx: Context, thresholds: dict, titles: dict):
-    from analysis.distributed.source import sample_table
+def _on_sample(step, ctx: Context):
+    """UMAP, t-SNE or LDA run in memory on a uniform random sample of the whole table."""
+    from analysis.distributed.common import on_sample
+    from analysis.projection import METHOD_TITLES, SAMPLE_THRESHOLDS
 
-    limit = step.sample_size or thresholds.get(step.method, LDA_SAMPLE_ROWS)
+    limit = step.sample_size or SAMPLE_THRESHOLDS.get(step.method, LDA_SAMPLE_ROWS)
     n = ctx.table.n_rows
-    sample, positions = sample_table(ctx.table, ctx.client, limit, seed=step.seed)
-    inner = dataclasses.replace(step, sample_size=None) if step.method in thresholds else step
-    result = inner.run(sample)
-    title = titles[step.method]
+    inner = dataclasses.replace(step, sample_size=None) if step.method in SAMPLE_THRESHOLDS \
+        else step
+    result, positions = on_sample(inner, ctx, limit)
     sampled = len(positions) < n
     if sampled:
-        ctx.notes.append(Note("dask_sample", f"{title} ran in memory on a uniform random sample "
-                              f"of {len(positions)} of the {n} rows (seed {step.seed}) drawn "
-                              "across all partitions.", sample=len(positions), rows=n,
-                              seed=step.seed))
+        ctx.notes.append(Note("dask_sample", f"{METHOD_TITLES[step.method]} ran in memory on a "
+                              f"uniform random sample of {len(positions)} of the {n} rows (seed "
+                              f"{step.seed}) drawn across all partitions.",
+                              sample=len(positions), rows=n, seed=step.seed))
     # positions in the sample table -> positions in the whole table
     return dataclasses.replace(result, positions=positions[result.positions],
                                sampled=result.sampled or sampled,

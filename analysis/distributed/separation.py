@@ -14,7 +14,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from analysis.distributed.common import Context, blocks_for, plan_for, tree
+from analysis.distributed.common import Context, blocks_for, on_sample, plan_for, tree
 from analysis.equations import (
     SCOPE_NOTES,
     Term,
@@ -39,9 +39,16 @@ _SAFE = 2**62   # int64 arithmetic stays below this
 
 def run_separator(step, ctx: Context):
     """A SeparatorResult: protocol on a sample, equations settled on every row."""
-    from analysis.distributed.source import sample_table
-
     started = time.perf_counter()
+    if step.target_statement is not None:
+        from analysis.derived import Statement
+        from analysis.distributed.source import with_breaks_flag
+
+        # the in-memory step's derived target, its flag computed partition by partition
+        step.check()
+        statement = Statement.from_json(step.target_statement)
+        ctx = dataclasses.replace(ctx, table=with_breaks_flag(ctx.table, ctx.client, statement))
+        step = dataclasses.replace(step, target=statement.flag_name)
     table = ctx.table
     step.check_table(table)
     if step.augment_permutations:
@@ -49,12 +56,8 @@ def run_separator(step, ctx: Context):
                         "dask engine does not encode; set it to 0 or use --engine local.")
     from analysis.separation import excluded_columns
 
-    plan = plan_for(ctx, columns=step.columns, target=step.target,
-                    array_encoding=step.array_encoding, log_scale=step.log_scale,
-                    missing=step.missing, exclude=excluded_columns(table, step))
-    size = min(table.n_rows, SAMPLE_ROWS)
-    sample, positions = sample_table(table, ctx.client, size, seed=step.seed)
-    result = step.run(sample)
+    plan = plan_for(ctx, step, target=step.target, exclude=excluded_columns(table, step))
+    result, positions = on_sample(step, ctx, min(table.n_rows, SAMPLE_ROWS))
     if len(positions) < table.n_rows:
         ctx.notes.append(Note("dask_protocol_sample",
             f"the validation protocol (splits, metrics, interval, permutation test, learning "

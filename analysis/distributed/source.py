@@ -46,9 +46,10 @@ from analysis.table import (
     ColumnInfo,
     Table,
     check_column_names,
+    delimited_layout,
     delimiter_warning,
-    header_record,
-    sniff_delimiter,
+    format_of,
+    one_line,
     unnamed_column_error,
     unnamed_column_warning,
 )
@@ -57,8 +58,6 @@ from analysis.table import (
 FULL_DIGEST_BYTES = 2 * 1024**3
 CSV_BLOCKSIZE = "64MB"
 _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
-_CSV_SUFFIXES = (".csv", ".txt", ".tsv", ".tab")
-_TAB_SUFFIXES = {".tsv": "\t", ".tab": "\t"}
 
 
 @dataclass(frozen=True)
@@ -82,6 +81,8 @@ class PartitionedTable:
     frame: object = field(default=None, repr=False)   # the raw dask DataFrame
     conversions: tuple[tuple[str, str], ...] = ()      # (column, how) for typed_block
     facts: dict = field(default_factory=dict, repr=False, compare=False)
+    # flags derived from statements (analysis.derived), computed partition by partition
+    derived: tuple = ()
 
     @property
     def n_rows(self) -> int:
@@ -107,18 +108,62 @@ class PartitionedTable:
     def typed_partitions(self, columns: list[str] | None = None) -> list:
         """One dask ``Delayed`` per partition: a pandas frame typed as ``Table.frame`` is.
 
-        ``columns`` limits the columns read (the id column is always kept).
+        ``columns`` limits the columns read (the id column is always kept); a derived flag
+        among them is computed from its statement's columns, which are read too.
         """
         from dask import delayed
 
-        names = [c.name for c in self.columns]
+        flags = tuple(s for s in self.derived if columns is None or s.flag_name in columns)
+        needed = {name for s in flags for name, _ in s.terms}
+        names = [c.name for c in self.columns if c.name not in {s.flag_name for s in self.derived}]
         if columns is not None:
-            wanted = set(columns) | ({self.id_column} if self.id_column else set())
+            wanted = set(columns) | needed | ({self.id_column} if self.id_column else set())
             names = [n for n in names if n in wanted]
         frame = self.frame[names] if names else self.frame
         how = tuple((c, h) for c, h in self.conversions if c in set(names))
-        return [delayed(typed_block, pure=True)(part, how) if how else part
-                for part in frame.to_delayed()]
+        parts = [delayed(typed_block, pure=True)(part, how) if how else part
+                 for part in frame.to_delayed()]
+        if not flags:
+            return parts
+        terms = tuple(c for c in self.columns if c.name in needed)
+        return [delayed(_with_flags, pure=True)(part, self.name, terms, flags) for part in parts]
+
+
+def _with_flags(frame: pd.DataFrame, name: str, terms: tuple, statements: tuple):
+    """A typed partition with the flag of each statement added, as the in-memory table has."""
+    from analysis.derived import breaking_rows
+
+    part = Table(name=name, digest="", frame=frame, columns=terms)
+    frame = frame.copy(deep=False)
+    for statement in statements:
+        frame[statement.flag_name] = pd.array(breaking_rows(part, statement), dtype="boolean")
+    return frame
+
+
+def with_breaks_flag(table: PartitionedTable, client, statement) -> PartitionedTable:
+    """``table`` with the flag "breaks: <statement>" (:func:`analysis.derived.with_breaks_flag`
+    on every partition), its rows that break and cannot be checked counted over all of them."""
+    from dask import delayed
+
+    from analysis.derived import breaks_flag_info
+
+    if statement.flag_name in {c.name for c in table.columns}:
+        return table
+    flagged = replace(table, derived=table.derived + (statement,))
+    counts = client.gather(client.compute(tree(
+        [delayed(_flag_counts)(part, statement.flag_name)
+         for part in flagged.typed_partitions([statement.flag_name])], _add_pair)))
+    info = breaks_flag_info(table.name, statement, *counts, table.n_rows)
+    return replace(flagged, columns=table.columns + (info,))
+
+
+def _flag_counts(frame: pd.DataFrame, name: str) -> tuple[int, int]:
+    flags = frame[name]
+    return int(flags.sum()), int(flags.isna().sum())
+
+
+def _add_pair(a: tuple, b: tuple) -> tuple:
+    return a[0] + b[0], a[1] + b[1]
 
 
 # ----------------------------------------------------------------------------------------
@@ -140,6 +185,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     """
     try:
         import dask.dataframe as dd
+        from dask import delayed
     except ImportError:
         from analysis.distributed.cluster import dask_missing
 
@@ -155,17 +201,18 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
         try:
             frame = dd.read_parquet([str(f) for f in files])
         except Exception as exc:  # noqa: BLE001 - pyarrow and fsspec raise many kinds
-            raise TableError(f"{name}: not readable as Parquet ({_first_line(exc)}). Check "
+            raise TableError(f"{name}: not readable as Parquet ({one_line(exc)}). Check "
                              "the files or export them again.") from None
     else:
-        delimiter, written = _csv_layout(files[0], warnings, name)
+        delimiter, written = _csv_layout(files[0], fmt, warnings, name)
+        fmt = "csv"   # tab-separated too: the conversions of delimited text
         try:
             frame = dd.read_csv([str(f) for f in files], sep=delimiter, dtype=object,
                                 blocksize=blocksize, keep_default_na=False,
                                 na_values=list(MISSING_WORDS))
         except Exception as exc:  # noqa: BLE001 - pandas and fsspec raise many kinds
             raise TableError(f"{name}: not readable as a delimited table "
-                             f"({_first_line(exc)}).") from None
+                             f"({one_line(exc)}).") from None
     header = [str(c) for c in frame.columns]
     unnamed = set()
     if fmt == "csv" and len(written) == len(header):
@@ -177,13 +224,13 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     if not header:
         raise TableError(f"{name}: no columns found. A table needs a header row.")
     conversions = tuple((c, "csv") for c in header) if fmt == "csv" else ()
-    parts = [_facts_task(part, conversions) for part in frame.to_delayed()]
+    parts = [delayed(frame_facts)(part, conversions) for part in frame.to_delayed()]
     try:
         merged_parts = client.gather(client.compute(parts))
     except TableError:
         raise
     except Exception as exc:  # noqa: BLE001 - a partition that cannot be read
-        raise TableError(f"{name}: a partition could not be read ({_first_line(exc)}). "
+        raise TableError(f"{name}: a partition could not be read ({one_line(exc)}). "
                          "Check that every file has the same columns and types.") from None
     partition_rows = tuple(int(p["__rows__"]) for p in merged_parts)
     n = sum(partition_rows)
@@ -228,10 +275,12 @@ def _facts_again(client, frame, facts: dict, columns: list[str], how: str,
                  name: str) -> None:
     """The facts of ``columns`` gathered again with every cell read as text (``how``:
     "text" for a column mixing kinds, "as_text" for one asked to be text)."""
+    from dask import delayed
+
     if not columns:
         return
     forced = tuple((c, how) for c in columns)
-    again = client.gather(client.compute([_facts_task(part, forced)
+    again = client.gather(client.compute([delayed(frame_facts)(part, forced)
                                           for part in frame[columns].to_delayed()]))
     for column in columns:
         try:
@@ -241,6 +290,8 @@ def _facts_again(client, frame, facts: dict, columns: list[str], how: str,
 
 
 def _files_of(path: Path) -> tuple[str, list[Path]]:
+    """("parquet" or "csv", the files): a folder's Parquet files, or one file by the
+    in-memory reader's rule (:func:`analysis.table.format_of`; "tsv" for tab-separated)."""
     if path.is_dir():
         files = sorted(p for p in path.rglob("*")
                        if p.is_file() and p.suffix.lower() in _PARQUET_SUFFIXES)
@@ -248,19 +299,13 @@ def _files_of(path: Path) -> tuple[str, list[Path]]:
             raise TableError(f"{path}: a folder with no Parquet files (*.parquet) in it. "
                              "Point at a Parquet file, a folder of them, or a CSV file.")
         return "parquet", files
-    suffix = path.suffix.lower()
-    if suffix in _PARQUET_SUFFIXES:
-        return "parquet", [path]
-    if suffix in _CSV_SUFFIXES:
-        return "csv", [path]
     with path.open("rb") as handle:
-        if handle.read(4) == b"PAR1":
-            return "parquet", [path]
-    if suffix in (".json", ".jsonl", ".ndjson"):
+        fmt = format_of(path.name, handle.read(4096))
+    if fmt in ("json", "jsonl"):
         raise TableError(f"{path.name}: JSON tables are read whole; the dask engine reads "
                          "Parquet (a file or a folder of files) or CSV in partitions. "
                          "Convert the table to Parquet, or use --engine local.")
-    return "csv", [path]
+    return fmt, [path]
 
 
 def _digest(files: list[Path], root: Path, warnings: list[str]) -> str:
@@ -288,7 +333,7 @@ def _digest(files: list[Path], root: Path, warnings: list[str]) -> str:
     return digest.hexdigest()
 
 
-def _csv_layout(path: Path, warnings: list[str], name: str) -> tuple[str, list[str]]:
+def _csv_layout(path: Path, fmt: str, warnings: list[str], name: str) -> tuple[str, list]:
     """The delimiter and the header's names of a delimited file, read as in memory."""
     with path.open("rb") as handle:
         head = handle.read(65536)
@@ -300,11 +345,11 @@ def _csv_layout(path: Path, warnings: list[str], name: str) -> tuple[str, list[s
         except UnicodeDecodeError as exc:
             raise TableError(f"{name}: bytes at offset {exc.start} are not UTF-8. Re-save "
                              "the file as UTF-8.") from None
-    delimiter = _TAB_SUFFIXES.get(path.suffix.lower()) or sniff_delimiter(text)
+    delimiter, header = delimited_layout(text, name, fmt)
     said = delimiter_warning(name, delimiter)
     if said:
         warnings.append(said)
-    return delimiter, [h.strip() for h in header_record(text, delimiter)]
+    return delimiter, header
 
 
 def _drop_unnamed(client, frame, facts: dict, unnamed: set, name: str, warnings: list[str]):
@@ -335,19 +380,8 @@ def _first_filled(series: pd.Series):
                                                        series.iloc[int(filled[0])]))
 
 
-def _first_line(exc: Exception) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0][:300] if text else type(exc).__name__
-
-
 # ----------------------------------------------------------------------------------------
 # Facts per partition, merged on the client
-
-
-def _facts_task(part, conversions):
-    from dask import delayed
-
-    return delayed(frame_facts)(part, conversions)
 
 
 def _exact_distinct(client, frame, facts: dict, conversions) -> None:
@@ -385,10 +419,6 @@ def _union_pair(a, b):
     return pd.unique(np.concatenate([a, b]))
 
 
-# ----------------------------------------------------------------------------------------
-# Marked numbers: numbers with intervals and marker words, read by analysis.table's rule
-
-
 def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_rows) -> None:
     """Check every cell of the JSON-array text columns, as in memory, and count their shapes
     (a bad cell is a TableError naming its row in the whole table)."""
@@ -405,10 +435,6 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
         f = facts[column]
         facts[column] = functools.reduce(merge_facts, [piece[column] for piece in found])
         facts[column].update(n=f["n"], missing=f["missing"])
-
-
-# ----------------------------------------------------------------------------------------
-# Typing: the same dtypes and roles as analysis.table gives the same data in memory
 
 
 # ----------------------------------------------------------------------------------------
@@ -543,4 +569,4 @@ def as_table(table: PartitionedTable, frame: pd.DataFrame, positions: np.ndarray
 
 
 __all__ = ["PartitionedTable", "as_table", "read_partitioned", "row_column_name",
-           "sample_table", "typed_block", "with_roles"]
+           "sample_table", "typed_block", "with_breaks_flag", "with_roles"]
