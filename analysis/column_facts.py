@@ -362,14 +362,17 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
 
 
 def flag_spelling_warning(name: str, column: str, labels) -> str | None:
-    """The warning for a category whose labels are all true/false words but in more than
-    one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
+    """The warning for a category whose labels are all true/false words (0 and 1 among them,
+    perhaps) but in more than one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
     own, which is seldom what the table meant. None for any other column."""
     words = sorted({str(w).strip() for w in labels})
     lowered = {w.lower() for w in words}
-    if len(words) < 3 or not lowered <= TRUE_WORDS | FALSE_WORDS or reads_as_flag(set(words)):
+    spelled = lowered & (TRUE_WORDS | FALSE_WORDS)
+    if len(words) < 3 or not spelled or not lowered <= TRUE_WORDS | FALSE_WORDS | {"0", "1"} \
+            or reads_as_flag(set(words)):
         return None
-    return Note("flag_spellings", f"{name}: column {column!r} holds only true/false words, in "
+    kinds = "true/false words" if spelled == lowered else "true/false words and 0/1"
+    return Note("flag_spellings", f"{name}: column {column!r} holds only {kinds}, in "
                 f"more than one spelling ({', '.join(words)}), so it is read as a category of "
                 f"{len(words)} labels, each spelling a class of its own. Give the column the "
                 "role flag, or write one spelling for each value (such as Y and N), to read it "
@@ -422,11 +425,13 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
     if note_code(note) == "numbers_as_text":
         figures = note.figures
         hint = number_hint(figures["text"])
-        kinds = "numbers or products of powers" if figures["powers"] else "numbers"
+        spelled = figures["spelled"]
+        kinds = (f"numbers ({spelled} of them written in a way no reading takes)" if spelled
+                 else "numbers")
         out.append(Note(
             "numbers_as_text",
             f"{name}: column {column!r} is read as text, though "
-            f"{figures['numbers'] + figures['powers']} of its {figures['filled']} filled cells "
+            f"{figures['numbers'] + spelled} of its {figures['filled']} filled cells "
             f"are {kinds}; row {figures['row'] + 1} holds "
             f"{shown_value(figures['text'])}{f' ({hint})' if hint else ''}. The file is "
             "left as it is: write such cells as plain numbers in a copy to read the column "
@@ -566,37 +571,47 @@ def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask,
 
 
 def _number_cells(text: pd.Series, missing_mask) -> dict:
-    """How many text cells are plain numbers (as :func:`read_marked_cell` reads them), and
-    the first that is not: (its position in the run, its text)."""
+    """How many text cells are plain numbers (as :func:`read_marked_cell` reads them), how
+    many others are numbers in a spelling :func:`number_hint` names, and the first cell that
+    is not a plain number: (its position in the run, its text)."""
     numbers = text.str.fullmatch(_NUMBER_CELL).to_numpy(dtype=bool)
     odd = np.flatnonzero(~numbers)
     first = None
     if len(odd):
         first = (int(np.flatnonzero(~missing_mask)[odd[0]]), str(text.iloc[odd[0]]).strip())
-    powers = 0
-    if len(odd):
-        # the product regex only where a '^' or '*' could make one (a quick scan first)
-        marked = text[text.str.contains("^", regex=False) | text.str.contains("*", regex=False)]
-        powers = int(marked.str.strip().str.fullmatch(_POWERS).sum()) if len(marked) else 0
-    return {"number_cells": int(numbers.sum()), "power_cells": powers,
+    return {"number_cells": int(numbers.sum()),
+            "spelled_cells": _spelled_numbers(text.iloc[odd]) if len(odd) else 0,
             "first_not_number": first}
+
+
+def _spelled_numbers(odd: pd.Series) -> int:
+    """How many of these cells (none a plain number) are numbers in a spelling that
+    :func:`number_hint` names: grouped digits, the typographic minus, a product of powers, a
+    percentage. Only cells that start like a number are matched (a quick scan first)."""
+    odd = odd.str.strip()
+    odd = odd[odd.str.match(r"[+\-\u2212]?\d")]
+    if not len(odd):
+        return 0
+    spelled = odd.str.fullmatch(_GROUPED) | odd.str.fullmatch(_POWERS) \
+        | odd.str.replace("\u2212", "-", regex=False).str.fullmatch(_NUMBER_CELL) \
+        | (odd.str.endswith("%") & odd.str[:-1].str.fullmatch(_NUMBER_CELL))
+    return int(spelled.sum())
 
 
 def numbers_as_text(f: dict) -> Note | None:
     """The note of a text column most of whose cells are numbers (NUMBERS_AS_TEXT_SHARE of
-    the filled ones or more, products of powers such as ``2^4 * 3`` counted with them) while
-    others are written in a way no reading takes, such as ``249,525`` or a typographic minus;
-    None for any other column."""
+    the filled ones or more, counting numbers in the spellings :func:`number_hint` names,
+    such as ``249,525``, a typographic minus or ``2^4 * 3``) while others keep it from being
+    read as numbers; None for any other column."""
     first = f.get("first_not_number")
     filled = f["n"] - f["missing"]
     count = f.get("number_cells", 0)
+    spelled = f.get("spelled_cells", 0)
     if f.get("kind") != "text" or first is None or not filled \
-            or count + f.get("power_cells", 0) < NUMBERS_AS_TEXT_SHARE * filled:
+            or count + spelled < NUMBERS_AS_TEXT_SHARE * filled:
         return None
-    powers = f.get("power_cells", 0)
-    return Note("numbers_as_text", f"{count + powers} of {filled} filled cells are numbers"
-                f"{' or products of powers' if powers else ''}", numbers=count, powers=powers,
-                filled=filled, row=first[0], text=first[1])
+    return Note("numbers_as_text", f"{count + spelled} of {filled} filled cells are numbers",
+                numbers=count, spelled=spelled, filled=filled, row=first[0], text=first[1])
 
 
 def number_hint(text: str) -> str:
@@ -766,7 +781,7 @@ def merge_facts(a: dict, b: dict) -> dict:
         out["marked"] = merge_marked(a.get("marked"), b.get("marked"), a["n"])
         out["brackets"] = a.get("brackets", 0) + b.get("brackets", 0)
         out["number_cells"] = a.get("number_cells", 0) + b.get("number_cells", 0)
-        out["power_cells"] = a.get("power_cells", 0) + b.get("power_cells", 0)
+        out["spelled_cells"] = a.get("spelled_cells", 0) + b.get("spelled_cells", 0)
         later = b.get("first_not_number")
         out["first_not_number"] = a.get("first_not_number") or (
             None if later is None else (later[0] + a["n"], later[1]))

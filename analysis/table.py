@@ -1655,6 +1655,13 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
             )
         present = [v for v in series.tolist() if not is_missing(v)]
         levels = sorted({_flag_token(v) for v in present}, key=str)
+        if any(isinstance(level, bool) for level in levels) and \
+                {str(level) for level in levels if not isinstance(level, bool)} <= {"0", "1"}:
+            # 0 and 1 beside true/false words are the same two values
+            series = series.map(lambda v: v if is_missing(v) or str(v).strip() not in
+                                ("0", "1") else str(v).strip() == "1")
+            levels = sorted({_flag_token(v) for v in series.tolist() if not is_missing(v)},
+                            key=str)
         if len(levels) > 2:
             seen: list = []
             for row, value in enumerate(series.tolist()):

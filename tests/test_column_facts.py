@@ -21,6 +21,7 @@ from hypothesis import strategies as st
 
 from analysis.column_facts import (
     FLOAT_EXACT,
+    NUMBERS_AS_TEXT_SHARE,
     block_facts,
     column_type,
     integer_type,
@@ -236,7 +237,25 @@ def test_mostly_numbers_read_as_text_say_which_cell_and_why():
     assert "typographic U+2212" in said["disc"]
     assert "product of powers" in said["order_factored"]
     assert said["order_factored"].figures["numbers"] + said["order_factored"].figures[
-        "powers"] == len(rows)
+        "spelled"] == len(rows)
+
+
+def test_numbers_in_other_spellings_count_toward_the_share():
+    # common practice in downloaded tables: a third of the discriminants printed with
+    # thousands separators; plain numbers alone fall short of the share, so only counting
+    # the grouped ones as numbers brings the note
+    import csv
+
+    lines = ["disc"] + [f'"{-(5000 + 11 * i):,}"' if i % 3 == 0 else str(-(5000 + 11 * i))
+                        for i in range(90)]
+    data = ("\n".join(lines) + "\n").encode()
+    rows = list(csv.DictReader(io.StringIO(data.decode())))
+    grouped = sum("," in r["disc"] for r in rows)
+    assert len(rows) - grouped < NUMBERS_AS_TEXT_SHARE * len(rows)
+    table = read_table(data, "fields.csv")
+    said = [w for w in table.warnings if getattr(w, "code", None) == "numbers_as_text"]
+    assert len(said) == 1 and said[0].figures["spelled"] == grouped
+    assert f"{grouped} of them written in a way no reading takes" in said[0]
 
 
 def test_a_text_column_of_words_gets_no_numbers_warning():

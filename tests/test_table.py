@@ -809,6 +809,14 @@ def test_true_false_words_in_two_spellings_are_a_category_with_a_warning_until_m
     flag = table.with_roles({"f": "flag"})
     assert (flag.column("f").dtype, flag.column("f").distinct) == ("boolean", 2)
     assert flag.frame["f"].tolist() == [True, False, True, False, False, None, True, False]
+    # 0 and 1 beside the words (common practice when tables from two sources are joined)
+    mixed = ["True", "1", "false", "0", "0", "", "true", "False"]
+    joined = read_table(("k,f\n" + "".join(f"{i},{c}\n" for i, c in enumerate(mixed))).encode(),
+                        "t.csv")
+    said = [w for w in joined.warnings if "'f'" in w]
+    assert len(said) == 1 and "true/false words and 0/1" in said[0], said
+    made = joined.with_roles({"f": "flag"})
+    assert made.frame["f"].tolist() == [True, True, False, False, False, None, True, False]
     # two spellings in all are a flag already, and a category of other words gives no warning
     assert read_table(b"k,f\n1,Y\n2,N\n3,Y\n", "t.csv").role("f") == "flag"
     plain = read_table(("k,f\n" + "".join(f"{i},{'AB'[i % 2]}\n" for i in range(30))).encode(),
