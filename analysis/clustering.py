@@ -249,16 +249,11 @@ class ClusteringStep:
         agreement = None
         if self.compare is not None:
             agreement = _agreement(table, self.compare, fm.rows, labels)
-        profiles = _profiles(table, fm, labels)
-        k = int(len(set(labels.tolist()) - {NOISE}))
-        return ClusteringResult(
-            method=entry.method, k=k, row_ids=fm.row_ids, positions=fm.rows, labels=labels,
-            sweep=tuple(e for e, _ in runs), profiles=profiles, reason=reason,
-            features=tuple(fm.names), standardize=self.standardize, n_rows=n, seed=self.seed,
-            silhouette=entry.silhouette, compare=self.compare, agreement=agreement,
-            notes=tuple(dict.fromkeys(notes)), warnings=tuple(fm.warnings),
-            elapsed_seconds=time.perf_counter() - started,
-        )
+        return clustering_result(
+            self, entry, reason, labels, row_ids=fm.row_ids, positions=fm.rows,
+            sweep=[e for e, _ in runs], profiles=_profiles(table, fm, labels),
+            features=fm.names, agreement=agreement, notes=notes, warnings=fm.warnings,
+            started=started)
 
     def check(self) -> None:
         """Check the settings alone (no table needed); StepError names a bad one."""
@@ -316,6 +311,22 @@ class ClusteringStep:
             labels = _hdbscan(values, self.min_cluster_size, self.sample_size, self.seed,
                               notes)
             yield _entry(method, None, labels, scorer), labels
+
+
+def clustering_result(step, entry: SweepEntry, reason: str, labels: np.ndarray, *, row_ids,
+                      positions, sweep, profiles, features, agreement, notes, warnings,
+                      started: float) -> ClusteringResult:
+    """The result of ``step``: the run chosen (``entry``, and why: ``reason``), every row's
+    cluster (``labels``, numbered by size, :func:`size_order`), the sweep, profiles and
+    agreement; ``started`` is the step's start (perf_counter)."""
+    return ClusteringResult(
+        method=entry.method, k=int(len(set(labels.tolist()) - {NOISE})), row_ids=row_ids,
+        positions=positions, labels=labels, sweep=tuple(sweep), profiles=profiles,
+        reason=reason, features=tuple(features), standardize=step.standardize,
+        n_rows=len(labels), seed=step.seed, silhouette=entry.silhouette, compare=step.compare,
+        agreement=agreement, notes=tuple(dict.fromkeys(notes)), warnings=tuple(warnings),
+        elapsed_seconds=time.perf_counter() - started,
+    )
 
 
 def kmeans_labels(values: np.ndarray, k: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
@@ -380,9 +391,17 @@ def silhouette_defined(labels: np.ndarray) -> bool:
 
 def _entry(method: str, k: int | None, labels: np.ndarray, scorer: Silhouette,
            bic: float | None = None) -> SweepEntry:
-    found = set(labels.tolist()) - {NOISE}
-    return SweepEntry(method=method, k=k, silhouette=scorer(labels), bic=bic,
-                      clusters=len(found), noise=int(np.sum(labels == NOISE)))
+    clusters, sizes = np.unique(labels, return_counts=True)
+    return sweep_entry(method, k, dict(zip(clusters.tolist(), sizes.tolist())),
+                       scorer(labels), bic)
+
+
+def sweep_entry(method: str, k: int | None, sizes: dict, silhouette: float | None,
+                bic: float | None = None) -> SweepEntry:
+    """A run of the sweep from its clusters' ``sizes`` ({cluster: rows}, noise -1)."""
+    return SweepEntry(method=method, k=k, silhouette=silhouette, bic=bic,
+                      clusters=len([c for c in sizes if c != NOISE]),
+                      noise=int(sizes.get(NOISE, 0)))
 
 
 def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
@@ -622,12 +641,27 @@ def profile_values(table: Table, fm: FeatureMatrix) -> tuple[list[str], np.ndarr
 
 def _profiles(table: Table, fm: FeatureMatrix, labels: np.ndarray) -> tuple:
     names, values, kinds = profile_values(table, fm)
-    sums = {}
-    for cluster in set(labels.tolist()):
-        inside = labels == cluster
-        sums[cluster] = (int(inside.sum()), values[inside].sum(axis=0),
-                         values[~inside].sum(axis=0))
+    sums = {cluster: (size, inside, values[labels != cluster].sum(axis=0))
+            for cluster, (size, inside) in cluster_sums(values, labels).items()}
     return profiles_from_sums(sums, len(labels), names, kinds, values.std(axis=0))
+
+
+def cluster_sums(values: np.ndarray, labels: np.ndarray) -> dict:
+    """{cluster: (its rows, the sum of each column of ``values`` over them)} of a block of
+    rows, ``labels`` giving each row's cluster; blocks' sums add (:func:`add_cluster_sums`)."""
+    out = {}
+    for cluster in np.unique(labels).tolist():
+        inside = labels == cluster
+        out[cluster] = (int(inside.sum()), values[inside].sum(axis=0))
+    return out
+
+
+def add_cluster_sums(a: dict, b: dict) -> dict:
+    """Two blocks' :func:`cluster_sums` as one."""
+    out = dict(a)
+    for key, (size, total) in b.items():
+        out[key] = (out[key][0] + size, out[key][1] + total) if key in out else (size, total)
+    return out
 
 
 def profiles_from_sums(sums: dict, n: int, names, kinds, spread: np.ndarray) -> tuple:

@@ -478,13 +478,19 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
     """
     clusters = np.unique(labels)
     sizes = {c: int(np.sum(labels == c)) for c in clusters}
-    tiny = max(3, len(values) // 100)
-    large = [c for c in clusters if sizes[c] >= tiny] or list(clusters)
+    large = large_clusters(sizes, len(values))
     centres = {c: values[labels == c].mean(axis=0) for c in clusters}
     typical = {c: float(np.median(np.linalg.norm(values[labels == c] - centres[c], axis=1)))
                for c in large}
     relative, reference = relative_distances(values, labels, centres, typical, large)
     return centre_measure(relative, labels, reference, sizes, k)
+
+
+def large_clusters(sizes: dict, n: int) -> list:
+    """The clusters (of ``sizes``, {cluster: rows}, over ``n`` rows) that rows are measured
+    from: those of at least 1% of the rows (3 at least), or every nonempty one when none is."""
+    tiny = max(3, n // 100)
+    return [c for c in sizes if sizes[c] >= tiny] or [c for c in sizes if sizes[c]]
 
 
 def relative_distances(values: np.ndarray, labels: np.ndarray, centres: dict, typical: dict,
@@ -554,11 +560,16 @@ def percent_of_rows(standing: float) -> str:
 
 
 def _isolation(values: np.ndarray, seed: int) -> Measure:
-    from sklearn.ensemble import IsolationForest
-
-    model = IsolationForest(n_estimators=200, random_state=seed).fit(values)
+    model = forest_model(seed).fit(values)
     # score_samples is minus the anomaly score of the original paper: higher is stranger
     return forest_measure(-model.score_samples(values))
+
+
+def forest_model(seed: int):
+    """The isolation forest every row is scored by (fitted on all rows, or on a sample)."""
+    from sklearn.ensemble import IsolationForest
+
+    return IsolationForest(n_estimators=200, random_state=seed)
 
 
 def forest_measure(scores: np.ndarray) -> Measure:
@@ -589,22 +600,33 @@ def factor_sample_note(fitted: int, n: int, seed: int) -> Note:
 
 def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int, seed: int,
                           notes: list[str]) -> Measure:
-    from sklearn.neighbors import LocalOutlierFactor
-
     n = len(values)
     neighbours = min(n_neighbors, n - 1)
-    if n <= sample_size:
-        model = LocalOutlierFactor(n_neighbors=neighbours).fit(values)
-        factor = -model.negative_outlier_factor_
-    else:
-        sample = sample_positions(n, sample_size, seed)
-        model = LocalOutlierFactor(n_neighbors=neighbours, novelty=True).fit(values[sample])
-        factor = -model.score_samples(values)
-        # a sampled row is its own nearest neighbour in novelty scoring; use its in-sample
-        # factor instead
-        factor[sample] = -model.negative_outlier_factor_
+    sample = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
+    model = factor_model(neighbours, len(sample) < n).fit(values[sample])
+    if len(sample) < n:
         notes.append(factor_sample_note(sample_size, n, seed))
-    return factor_measure(factor, neighbours)
+    return factor_measure(factor_scores(model, values, sample, np.arange(len(sample))),
+                          neighbours)
+
+
+def factor_model(neighbours: int, novelty: bool):
+    """The local outlier factor, fitted on every row or (``novelty``) on a sample that the
+    other rows are scored against."""
+    from sklearn.neighbors import LocalOutlierFactor
+
+    return LocalOutlierFactor(n_neighbors=neighbours, novelty=novelty)
+
+
+def factor_scores(model, values: np.ndarray, sampled: np.ndarray,
+                  where: np.ndarray) -> np.ndarray:
+    """Local outlier factors of a block of rows (``values``) from a fitted
+    :func:`factor_model`: the rows of its sample (positions ``sampled`` in the block, at
+    ``where`` in the sample) keep their in-sample factor, since in novelty scoring a sampled
+    row is its own nearest neighbour; the other rows are scored against the sample."""
+    factor = -model.score_samples(values) if model.novelty else np.zeros(len(values))
+    factor[sampled] = -model.negative_outlier_factor_[where]
+    return factor
 
 
 def number_model():
@@ -648,24 +670,31 @@ def label_folds(labels: np.ndarray, seed: int, table_name: str, target: str, why
 
 
 def _cross_validated(table: Table, target: str, fm, seed: int):
-    """The target on the rows used and its cross-validated prediction: for a number
-    ``(truth, predicted, None, None)``, for labels ``(labels, probability, classes, splits)``."""
+    """The target on the rows used and its cross-validated prediction (:func:`cross_validated`)."""
+    return cross_validated(fm.values, target_values(table, target, fm.rows),
+                           is_numeric_target(table, target), seed, table.name, target,
+                           why=lambda: lost_classes(table, target, fm))
+
+
+def cross_validated(values: np.ndarray, raw, numeric: bool, seed: int, table_name: str,
+                    target: str, why=None):
+    """The target (cells ``raw`` of the rows of ``values``) and its cross-validated
+    prediction: for a number (``numeric``) ``(truth, predicted, None, splits)``, for labels
+    ``(labels, probability, classes, splits)``. StepError for one label or too many."""
     from sklearn.model_selection import cross_val_predict
 
-    raw = target_values(table, target, fm.rows)
-    if is_numeric_target(table, target):
+    if numeric:
         truth = np.asarray(raw, dtype=float)
         folds = number_folds(len(truth), seed)
-        return truth, cross_val_predict(number_model(), fm.values, truth, cv=folds), None, \
+        return truth, cross_val_predict(number_model(), values, truth, cv=folds), None, \
             folds.n_splits
     labels = np.array([label_text(v) for v in raw], dtype=object)
-    classes, splits, folds = label_folds(labels, seed, table.name, target,
-                                         why=lambda: lost_classes(table, target, fm))
+    classes, splits, folds = label_folds(labels, seed, table_name, target, why=why)
     if len(classes) > MAX_CLASSES:
-        raise StepError(f"{table.name}: the target {target!r} has {len(classes)} distinct "
+        raise StepError(f"{table_name}: the target {target!r} has {len(classes)} distinct "
                         f"labels; a separator can judge at most {MAX_CLASSES}. Choose a flag, "
                         "a category or a numeric invariant.")
-    probability = cross_val_predict(label_model(), fm.values, labels, cv=folds,
+    probability = cross_val_predict(label_model(), values, labels, cv=folds,
                                     method="predict_proba")
     return labels, probability, classes, splits
 
@@ -733,34 +762,60 @@ def _separator(table: Table, target: str, guessed: tuple,
                notes: list[str]) -> Measure | None:
     truth, predicted, classes, splits = guessed
     if classes is None:
-        empty = number_doubts_note(target, truth, predicted)
-        if empty is not None:
-            notes.append(empty)
-            return None
-        residual = truth - predicted
-        spread = float(np.std(residual)) or 1.0
-        z = residual / spread
+        scores = number_scores(truth, predicted, float(np.std(truth - predicted)) or 1.0)
+        how = "ridge regression on standardized features."
+    else:
+        scores = label_scores(truth, predicted, classes)
+        how = ("logistic regression on standardized features; a row scores 1 minus the "
+               "probability given to its own class.")
+    measure = separator_measure(target, scores, table.column(target).dtype == "boolean", notes)
+    if measure is not None:
         notes.append(Note("separator_measure", f"separator: {target!r} predicted by a "
-                          f"{splits}-fold cross-validated ridge regression on standardized "
-                          "features.", target=target, folds=splits))
-        return residual_measure(target, truth, predicted, z)
-    labels, probability = truth, predicted
-    index = {c: j for j, c in enumerate(classes)}
-    own = np.array([index[c] for c in labels])
-    p_true = probability[np.arange(len(labels)), own]
+                          f"{splits}-fold cross-validated {how}", target=target, folds=splits))
+    return measure
+
+
+def number_scores(truth: np.ndarray, predicted: np.ndarray, spread: float) -> dict:
+    """A number target's separator scores on a block of rows: the residuals in units of
+    ``spread`` (their standard deviation), with what the reasons quote. Blocks' scores are
+    joined row by row, then judged by :func:`separator_measure`."""
+    z = (truth - predicted) / spread
+    return {"separator": np.abs(z), "truth": truth, "predicted": predicted, "z": z}
+
+
+def label_scores(labels: np.ndarray, probability: np.ndarray, classes) -> dict:
+    """A label target's separator scores on a block of rows: 1 minus the probability the
+    model gives each row's own label (``probability`` has a column per class of ``classes``,
+    in the model's order; a label it never saw has probability 0), its guess, the
+    probability of the guess, and whether the guess is wrong."""
+    index_of = {c: j for j, c in enumerate(classes)}
+    own = np.array([index_of.get(c, -1) for c in labels], dtype=int)
+    rows = np.arange(len(labels))
     guess = probability.argmax(axis=1)
-    empty = label_doubts_note(target, p_true, own)
+    p_own = np.where(own >= 0, probability[rows, np.maximum(own, 0)], 0.0)
+    return {"separator": 1.0 - p_own, "p_own": p_own, "own": own,
+            "guess": np.asarray(classes, dtype=object)[guess],
+            "guess_probability": probability[rows, guess], "labels": labels,
+            "wrong": guess != own}
+
+
+def separator_measure(target: str, scores: dict, flag: bool, notes: list) -> Measure | None:
+    """The separator's measure from every row's scores (:func:`number_scores` or
+    :func:`label_scores`), or None, with the note that leaves it out, when its model is no
+    better than the plain guess. ``flag``: the target is a flag."""
+    if "z" in scores:
+        empty = number_doubts_note(target, scores["truth"], scores["predicted"])
+        measure = None if empty is not None else residual_measure(
+            target, scores["truth"], scores["predicted"], scores["z"])
+    else:
+        known = scores["own"] >= 0
+        empty = label_doubts_note(target, scores["p_own"][known], scores["own"][known])
+        measure = None if empty is not None else label_measure(
+            target, scores["separator"], lambda i: scores["guess"][i],
+            scores["guess_probability"], scores["labels"], scores["wrong"], flag)
     if empty is not None:
         notes.append(empty)
-        return None
-    boolean = table.column(target).dtype == "boolean"
-    notes.append(Note("separator_measure", f"separator: {target!r} predicted by a {splits}-fold "
-                      "cross-validated logistic regression on standardized features; a row "
-                      "scores 1 minus the probability given to its own class.", target=target,
-                      folds=splits))
-    return label_measure(target, 1.0 - p_true, lambda i: classes[guess[i]],
-                         probability[np.arange(len(labels)), guess], labels, guess != own,
-                         boolean)
+    return measure
 
 
 def residual_measure(target: str, truth: np.ndarray, predicted: np.ndarray,

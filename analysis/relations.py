@@ -878,9 +878,6 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
     """Relations that all but at most ``breakers`` rows obey, beyond those in ``base``."""
     size = matrix.size
     every_row = np.arange(size)
-    tracker = RankTracker()
-    for vector in base:
-        tracker.add(vector)
     candidates = []
     for hypothesis in _robust_kernels(matrix, every_row, len(base), breakers, rng):
         keep = np.ones(size, dtype=bool)
@@ -895,19 +892,19 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
         for j, vector in enumerate(lattice):
             bad = np.flatnonzero(broken[:, j])
             if 0 < len(bad) <= breakers:
-                candidates.append((vector, bad))
-    candidates.sort(key=lambda c: robust_rank(len(c[1]), c[0]))
-    found = []
-    for vector, bad in candidates:
+                candidates.append((vector, len(bad), bad))
+
+    def varied(candidate) -> bool:
+        vector, _, bad = candidate
         support = [j for j, c in enumerate(vector[:-1]) if c]
-        good = np.delete(every_row, bad)
         # A relation in t columns is pinned down by t rows; ask for a few more than that so
         # that a relation through a handful of points is not mistaken for a pattern.
         needed = len(support) + 3
-        if _distinct_count(matrix, good, support, needed) < needed:
-            continue
-        if not tracker.add(vector):
-            continue
+        return _distinct_count(matrix, np.delete(every_row, bad), support, needed) >= needed
+
+    found = []
+    for vector, _, bad in robust_choice(candidates, base, varied):
+        support = [j for j, c in enumerate(vector[:-1]) if c]
         terms = [(core[j], vector[j]) for j in support]
         trivial = len(terms) == 1 or (
             len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
@@ -917,6 +914,17 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
         found.append(_relation_from_vector(vector, core, size - len(bad), violations, note,
                                            trivial))
     return found
+
+
+def robust_choice(candidates: list, base: list, usable) -> list:
+    """The relations broken by a few rows that are reported: of ``candidates`` (tuples of an
+    integer vector, the rows breaking it, then anything), in :func:`robust_rank` order, those
+    that ``usable`` accepts whose vector adds to the span of ``base`` and of those before."""
+    tracker = RankTracker()
+    for vector in base:
+        tracker.add(vector)
+    return [c for c in sorted(candidates, key=lambda c: robust_rank(c[1], c[0]))
+            if usable(c) and tracker.add(c[0])]
 
 
 def robust_rank(breaking: int, vector: Sequence[int]) -> tuple:
@@ -1114,15 +1122,33 @@ def _partial_groups(columns, core: list[str], partial: list[str]) -> list:
 def _held_where_present(columns, names: list[str], vector, involved: list[str]):
     """The relation of ``vector`` when it holds on every row where ``involved`` (the columns
     with missing values it uses) are present; None when one of those rows breaks it."""
-    missing = np.column_stack([columns[name][1] for name in involved])
-    rows = np.flatnonzero(~missing.any(axis=1))
-    if RelationMatrix([columns[c][0] for c in names], rows).broken([list(vector)]).any():
+    products, counted = relation_products(columns, names, [list(vector)])
+    if products.any():
         return None
+    rows = int(counted.sum())
     shown = " and ".join(f"'{name}'" for name in involved)
     return _relation_from_vector(
-        vector, names, len(rows), (),
-        Note("holds_where_present", f"holds on the {len(rows)} rows where {shown} are present",
-             rows=len(rows)))
+        vector, names, rows, (),
+        Note("holds_where_present", f"holds on the {rows} rows where {shown} are present",
+             rows=rows))
+
+
+def relation_products(columns: Mapping, names: Sequence[str], vectors: list) -> tuple:
+    """(rows x relations, exactly; rows x relations, whether the row counts for it) of a block
+    of rows: each row times each relation (an integer vector over the columns ``names``, as
+    :func:`exact_column` gives them, and a last entry for the constant). A relation counts
+    only the rows where every column it uses is present; its product is zero on the others.
+    Nonzero exactly where a row breaks a relation."""
+    size = len(columns[names[0]][0]) if names else 0
+    counted = np.ones((size, len(vectors)), dtype=bool)
+    if not vectors:
+        return np.zeros((size, 0), dtype=np.int64), counted
+    for j, vector in enumerate(vectors):
+        gone = [columns[n][1] for n, c in zip(names, vector) if c]
+        counted[:, j] = ~np.any(gone, axis=0) if gone else True
+    products = RelationMatrix([columns[n][0] for n in names], np.arange(size)).products(vectors)
+    products[~counted] = 0
+    return products, counted
 
 
 def ordered_relations(every: list, robust: list) -> list:
@@ -2286,10 +2312,20 @@ def triple_candidates(data: np.ndarray) -> np.ndarray:
     return data[np.unique(np.r_[starts, ends])]
 
 
-def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
-                  table_columns) -> list[Bound] | None:
+def triple_hull(points: np.ndarray):
+    """The floating point hull (scipy's ConvexHull) of distinct points in three columns,
+    None when they lie in a plane: that plane is an exact relation, reported as such, and
+    gives no bound in three columns."""
     from scipy.spatial import ConvexHull, QhullError
 
+    try:
+        return ConvexHull(points.astype(np.float64))
+    except QhullError:
+        return None
+
+
+def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
+                  table_columns) -> list[Bound] | None:
     names = [c.name for c in columns]
     scales = [c.scale for c in columns]
     integer = all(c.integer for c in columns)
@@ -2302,10 +2338,9 @@ def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
     if np.abs(data).max() >= 2**20:
         return []  # keeps the cross products below in int64; wide columns are not cheap here
     corners = triple_candidates(data)
-    try:
-        hull = ConvexHull(corners.astype(np.float64))
-    except QhullError:
-        return []  # the points lie in a plane: an exact relation, reported as such
+    hull = triple_hull(corners)
+    if hull is None:
+        return []
     origin = corners[hull.simplices[:, 0]]
     normals = np.cross(corners[hull.simplices[:, 1]] - origin,
                        corners[hull.simplices[:, 2]] - origin)
@@ -2747,6 +2782,18 @@ class RelationsStep:
         check_settings(max_breakers=self.max_breakers, max_coefficient=self.max_coefficient,
                         tolerance=self.tolerance, seed=self.seed)
 
+    def searched_columns(self, table) -> list[str]:
+        """The settings checked, the columns searched (:meth:`chosen_columns`); StepError
+        when there are none."""
+        self.check()
+        names = self.chosen_columns(table)
+        if not names:
+            raise StepError(
+                f"relations: table '{table.name}' has no numeric invariant columns to search; "
+                "mark some columns as invariants"
+            )
+        return names
+
     def run(self, table, *, max_bounds: int | None = MAX_BOUNDS,
             progress=None) -> RelationsResult:
         """Search the table; see the class docstring for the settings.
@@ -2756,13 +2803,7 @@ class RelationsStep:
         :class:`analysis.progress.Reporter`) told of each phase; it may stop the step by
         raising :class:`analysis.progress.StepStopped`."""
         progress = quiet(progress)
-        self.check()
-        names = self.chosen_columns(table)
-        if not names:
-            raise StepError(
-                f"relations: table '{table.name}' has no numeric invariant columns to search; "
-                "mark some columns as invariants"
-            )
+        names = self.searched_columns(table)
         exact, real = read_columns(table, names)
         found = find_relations(
             exact, real, table.row_ids, robust=self.robust, max_breakers=self.max_breakers,
@@ -2775,12 +2816,16 @@ class RelationsStep:
         from analysis.congruences import find_congruences
 
         progress.phase("congruences")
-        integers = {name: values for name, values in exact.items()
-                    if table.column(name).dtype in ("integer", "big integer")}
+        integers = {name: exact[name] for name in congruence_columns(table, exact)}
         laws = [r for r in found.relations if not r.violations]
         congruences = find_congruences(integers, table.row_ids, relations=laws) \
             if integers else []
         return replace(found, congruences=tuple(congruences))
+
+
+def congruence_columns(table, names) -> list[str]:
+    """The columns among ``names`` that congruences are searched on: the integer ones."""
+    return [name for name in names if table.column(name).dtype in ("integer", "big integer")]
 
 
 def _with_interval_rows(table, names: list[str], found: RelationsResult) -> RelationsResult:

@@ -64,11 +64,9 @@ def cluster_blocks(step, found: Features) -> Clusters:
                                  float(np.mean(np.diag(m2) / n / scale ** 2)))
                 # the sweep's sizes are those of every row
                 sizes = {c: size for c, (size, _) in ctx.reduce(
-                    _profile_sums, blocks, _add_profile_sums, assigner, shift, scale).items()}
-                runs.append((cl.SweepEntry(
-                    method=method, k=k, silhouette=silhouette(assigner(scored)), bic=bic,
-                    clusters=len([c for c in sizes if c != cl.NOISE]),
-                    noise=int(sizes.get(cl.NOISE, 0))), assigner))
+                    _sums, blocks, cl.add_cluster_sums, assigner, shift, scale).items()}
+                runs.append((cl.sweep_entry(method, k, sizes, silhouette(assigner(scored)),
+                                            bic), assigner))
     # the in-memory chooser passes a run's labels on; here they stand for its assigner
     entry, chosen, reason = cl.choose_run(step.method, runs, step.k is not None)
     pieces = ctx.each(_assign_block, blocks, chosen, shift, scale)
@@ -77,18 +75,12 @@ def cluster_blocks(step, found: Features) -> Clusters:
     labels = np.array([order[c] for c in labels.tolist()], dtype=int)
     agreement = None if step.compare is None else \
         cl.agreement_scores(np.concatenate([p[3] for p in pieces]), labels)
-    result = cl.ClusteringResult(
-        method=entry.method, k=int(len(set(labels.tolist()) - {cl.NOISE})),
-        row_ids=np.concatenate([p[1] for p in pieces]),
-        positions=np.concatenate([p[0] for p in pieces]), labels=labels,
-        sweep=tuple(r[0] for r in runs), reason=reason,
+    result = cl.clustering_result(
+        step, entry, reason, labels, row_ids=np.concatenate([p[1] for p in pieces]),
+        positions=np.concatenate([p[0] for p in pieces]), sweep=[r[0] for r in runs],
         profiles=_profiles(ctx, plan, blocks, chosen, order, shift, scale, n, found.mean, m2),
-        features=tuple(plan.names), standardize=step.standardize, n_rows=n, seed=step.seed,
-        silhouette=entry.silhouette, compare=step.compare, agreement=agreement,
-        notes=tuple(dict.fromkeys(notes)),
-        warnings=found.warnings,
-        elapsed_seconds=time.perf_counter() - started,
-    )
+        features=plan.names, agreement=agreement, notes=notes, warnings=found.warnings,
+        started=started)
     return Clusters(result, chosen, order, shift, scale)
 
 
@@ -158,10 +150,10 @@ def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,
     ``variance`` is the features' mean variance in the units clustered (1 when standardized).
     """
     for iteration in range(1, LLOYD_ITERATIONS + 1):
-        sums, counts = ctx.reduce(_cluster_sums, blocks, _add_pairs, assigner, shift, scale)
+        sums = ctx.reduce(_sums, blocks, cl.add_cluster_sums, assigner, shift, scale, True)
         centres = assigner.centres.copy()
-        filled = counts > 0
-        centres[filled] = sums[filled] / counts[filled][:, None]
+        for cluster, (size, total) in sums.items():
+            centres[cluster] = total / size
         moved = float(((centres - assigner.centres) ** 2).sum())
         assigner.centres = centres
         if moved <= LLOYD_TOLERANCE * variance:
@@ -169,17 +161,11 @@ def refine_lloyd(ctx: Context, blocks: list, assigner: _Lloyd, shift, scale,
     return LLOYD_ITERATIONS
 
 
-def _cluster_sums(block, assigner, shift, scale):
+def _sums(block, assigner, shift, scale, standardized: bool = False) -> dict:
+    """Each cluster's rows and feature sums in one block (standardized, or in the features'
+    own units), as the in-memory step sums them (:func:`analysis.clustering.cluster_sums`)."""
     values = (block.values - shift) / scale
-    labels = assigner(values)
-    k = len(assigner.centres)
-    sums = np.zeros((k, values.shape[1]))
-    np.add.at(sums, labels, values)
-    return sums, np.bincount(labels, minlength=k).astype(np.float64)
-
-
-def _add_pairs(a, b):
-    return a[0] + b[0], a[1] + b[1]
+    return cl.cluster_sums(values if standardized else block.values, assigner(values))
 
 
 def _assign_block(block, assigner, shift, scale):
@@ -190,23 +176,7 @@ def _assign_block(block, assigner, shift, scale):
 
 def _profiles(ctx, plan, blocks, assigner, order, shift, scale, n, mean, m2) -> tuple:
     """The in-memory profiles, from each cluster's sums over the blocks."""
-    sums = ctx.reduce(_profile_sums, blocks, _add_profile_sums, assigner, shift, scale)
+    sums = ctx.reduce(_sums, blocks, cl.add_cluster_sums, assigner, shift, scale)
     return cl.profiles_from_sums(
         {order[c]: (size, inside, mean * n - inside) for c, (size, inside) in sums.items()}, n,
         plan.names, [f.kind for f in plan.features], np.sqrt(np.diag(m2) / n))
-
-
-def _profile_sums(block, assigner, shift, scale) -> dict:
-    labels = assigner((block.values - shift) / scale)
-    out = {}
-    for cluster in np.unique(labels).tolist():
-        inside = labels == cluster
-        out[cluster] = (int(inside.sum()), block.values[inside].sum(axis=0))
-    return out
-
-
-def _add_profile_sums(a: dict, b: dict) -> dict:
-    out = dict(a)
-    for key, (size, total) in b.items():
-        out[key] = (out[key][0] + size, out[key][1] + total) if key in out else (size, total)
-    return out

@@ -23,8 +23,6 @@ SAMPLE_ROWS = 100_000
 def run_outliers(step, ctx: Context):
     """An OutliersResult for ``step`` on the partitioned table in ``ctx``."""
     from dask import delayed
-    from sklearn.ensemble import IsolationForest
-    from sklearn.neighbors import LocalOutlierFactor
 
     from analysis import outliers as ol
     from analysis.distributed.clustering import sample_rows
@@ -40,16 +38,14 @@ def run_outliers(step, ctx: Context):
     fit_rows = sample_rows(n, SAMPLE_ROWS, step.seed + 1)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        forest = IsolationForest(n_estimators=200, random_state=step.seed).fit(
-            found.rows(fit_rows, shift, scale))
+        forest = ol.forest_model(step.seed).fit(found.rows(fit_rows, shift, scale))
         if len(fit_rows) < n:
             notes.append(Note(
                 "dask_forest_sample",
                 f"isolation forest fitted on a random sample of {len(fit_rows)} of "
                 f"the {n} rows; every row scored across partitions."))
         neighbours = min(step.n_neighbors, n - 1)
-        factor = LocalOutlierFactor(n_neighbors=neighbours,
-                                    novelty=len(lof_rows) < n).fit(lof_sample)
+        factor = ol.factor_model(neighbours, len(lof_rows) < n).fit(lof_sample)
         if len(lof_rows) < n:
             notes.append(ol.factor_sample_note(len(lof_rows), n, step.seed))
     clusters = _clusters(step, found, notes)
@@ -96,38 +92,30 @@ def _typical_distances(clusters, sample: np.ndarray) -> dict:
 def _separator_model(step, found, fit_rows, width: int, notes):
     """A fit on the sample (features in their own units, as the in-memory separator's
     pipeline scales them), and cross-validated scores for the sample's own rows."""
-    from sklearn.model_selection import cross_val_predict
-
     from analysis import outliers as ol
     from analysis.features import is_numeric_target
 
     ctx = found.ctx
     values = found.rows(fit_rows, np.zeros(width), np.ones(width))
-    targets = found.rows(fit_rows, None, None)
-    if is_numeric_target(ctx.table, step.target):
-        truth = np.asarray(targets, dtype=float)
-        model, folds = ol.number_model(), ol.number_folds(len(truth), step.seed)
-        inside = cross_val_predict(model, values, truth, cv=folds)
-        model.fit(values, truth)
+    truth, inside, classes, splits = ol.cross_validated(
+        values, found.rows(fit_rows, None, None), is_numeric_target(ctx.table, step.target),
+        step.seed, ctx.table.name, step.target)
+    model = (ol.number_model() if classes is None else ol.label_model()).fit(values, truth)
+    separator = {"model": model, "inside": inside, "rows": fit_rows, "classes": classes}
+    if classes is None:
         notes.append(Note(
             "dask_separator_sample",
-            f"separator: {step.target!r} predicted by a {folds.n_splits}-fold "
+            f"separator: {step.target!r} predicted by a {splits}-fold "
             f"cross-validated ridge regression on a sample of {len(fit_rows)} rows; "
             "the other rows by the fit on the whole sample."))
-        return {"model": model, "inside": inside, "rows": fit_rows, "classes": None,
-                "spread": float(np.std(truth - inside)) or 1.0}
-    labels = np.array([ol.label_text(v) for v in targets], dtype=object)
-    classes, splits, folds = ol.label_folds(labels, step.seed, ctx.table.name, step.target)
-    model = ol.label_model()
-    inside = cross_val_predict(model, values, labels, cv=folds, method="predict_proba")
-    model.fit(values, labels)
+        return {**separator, "spread": float(np.std(truth - inside)) or 1.0}
     notes.append(Note(
         "dask_separator_sample",
         f"separator: {step.target!r} predicted by a {splits}-fold cross-validated "
         f"logistic regression on a sample of {len(fit_rows)} rows, the other rows by "
         "the fit on the whole sample; a row scores 1 minus the probability given to "
         "its own class."))
-    return {"model": model, "inside": inside, "rows": fit_rows, "classes": classes}
+    return separator
 
 
 def _in_sample(spec, index: int, count: int, rows: np.ndarray):
@@ -139,31 +127,25 @@ def _in_sample(spec, index: int, count: int, rows: np.ndarray):
 
 def _score_block(block, index: int, spec: Settings) -> dict:
     """Every measure's score for one partition's rows, and what the reasons need."""
-    from analysis.outliers import relative_distances
+    from analysis import outliers as ol
 
     values = (block.values - spec.shift) / spec.scale
     out = {"positions": block.positions, "row_ids": block.row_ids}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         out["isolation forest"] = -spec.forest.score_samples(values)
-        lof, first = spec.factor, spec.offsets[index]
-        if lof.novelty:
-            factor = -lof.score_samples(values)
-            inside, where = _in_sample(spec, index, len(values), spec.lof_rows)
-            factor[inside] = -lof.negative_outlier_factor_[where]
-        else:
-            factor = -lof.negative_outlier_factor_[first:first + len(values)]
-        out["local outlier factor"] = factor
+        inside, where = _in_sample(spec, index, len(values), spec.lof_rows)
+        out["local outlier factor"] = ol.factor_scores(spec.factor, values,
+                                                       np.flatnonzero(inside), where)
     assigner, order = spec.clusters.assigner, spec.clusters.order
     labels = assigner(values)
     sizes = {old: p.size for p in spec.clusters.result.profiles
              for old, new in order.items() if new == p.cluster}
-    tiny = max(3, spec.n // 100)
-    everything = range(len(assigner.centres))
-    large = [c for c in everything if sizes.get(c, 0) >= tiny] or \
-        [c for c in everything if sizes.get(c, 0)]
-    relative, reference = relative_distances(values, labels, dict(enumerate(assigner.centres)),
-                                             spec.typical, large)
+    large = ol.large_clusters({c: sizes.get(c, 0) for c in range(len(assigner.centres))},
+                              spec.n)
+    relative, reference = ol.relative_distances(values, labels,
+                                                dict(enumerate(assigner.centres)),
+                                                spec.typical, large)
     out["distance from cluster centre"] = relative
     out["label"] = np.array([order[int(c)] for c in labels], dtype=int)
     out["reference"] = np.array([order[int(c)] for c in reference], dtype=int)
@@ -173,28 +155,22 @@ def _score_block(block, index: int, spec: Settings) -> dict:
 
 
 def _separator_scores(block, index, spec) -> dict:
-    from analysis.outliers import label_text
+    """The in-memory step's separator scores of one partition's rows; rows of the sample
+    the model was fitted on take their cross-validated predictions."""
+    from analysis import outliers as ol
 
     sep = spec.separator
     inside, where = _in_sample(spec, index, len(block.values), sep["rows"])
     if sep["classes"] is None:
-        truth = np.asarray(block.target, dtype=float)
         predicted = sep["model"].predict(block.values)
         predicted[inside] = sep["inside"][where]
-        z = (truth - predicted) / sep["spread"]
-        return {"separator": np.abs(z), "truth": truth, "predicted": predicted, "z": z}
-    labels = np.array([label_text(v) for v in block.target], dtype=object)
+        return ol.number_scores(np.asarray(block.target, dtype=float), predicted,
+                                sep["spread"])
     probability = sep["model"].predict_proba(block.values)
     probability[inside] = sep["inside"][where]
-    index_of = {c: j for j, c in enumerate(sep["classes"])}
-    truth = np.array([index_of.get(c, -1) for c in labels], dtype=int)
-    rows = np.arange(len(labels))
-    guess = probability.argmax(axis=1)
     # the classes are those the model saw (the sample's), in its own order
-    return {"separator": 1.0 - np.where(truth >= 0, probability[rows, np.maximum(truth, 0)], 0.0),
-            "truth_index": truth, "guess": np.asarray(sep["classes"], dtype=object)[guess],
-            "guess_probability": probability[rows, guess], "labels": labels,
-            "wrong": guess != truth}
+    return ol.label_scores(np.array([ol.label_text(v) for v in block.target], dtype=object),
+                           probability, sep["classes"])
 
 
 def _measures(ol, step, got: dict, clustering, neighbours: int, notes, flag: bool):
@@ -208,7 +184,7 @@ def _measures(ol, step, got: dict, clustering, neighbours: int, notes, flag: boo
             clustering.k),
     }
     if "separator" in got:
-        doubts = _separator_measure(ol, step, got, notes, flag)
+        doubts = ol.separator_measure(step.target, got, flag, notes)
         if doubts is not None:
             used["separator"] = doubts
     notes.append(Note(
@@ -216,25 +192,6 @@ def _measures(ol, step, got: dict, clustering, neighbours: int, notes, flag: boo
         "typical distances from cluster centres are medians over the rows of the "
         "local outlier factor's sample."))
     return used
-
-
-def _separator_measure(ol, step, got, notes, flag: bool):
-    """The separator's measure, or None (with the in-memory step's note) when its model is
-    no better than the plain guess."""
-    if "z" in got:
-        empty = ol.number_doubts_note(step.target, got["truth"], got["predicted"])
-        if empty is not None:
-            notes.append(empty)
-            return None
-        return ol.residual_measure(step.target, got["truth"], got["predicted"], got["z"])
-    known = got["truth_index"] >= 0
-    empty = ol.label_doubts_note(step.target, (1.0 - got["separator"])[known],
-                                 got["truth_index"][known])
-    if empty is not None:
-        notes.append(empty)
-        return None
-    return ol.label_measure(step.target, got["separator"], lambda i: got["guess"][i],
-                            got["guess_probability"], got["labels"], got["wrong"], flag)
 
 
 def _relations(ctx, step, row_ids, notes):

@@ -23,7 +23,6 @@ from itertools import combinations
 import numpy as np
 
 from analysis.distributed.common import Context, Settings, partition_tasks, tree
-from analysis.errors import StepError
 from analysis.notes import Note
 
 SAMPLE_ROWS = 20_000
@@ -32,16 +31,10 @@ SAMPLE_ROWS = 20_000
 def run_relations(step, ctx: Context):
     """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
 
-    from analysis import relations as rel
     from analysis.distributed.source import as_table, sample_table
 
     table = ctx.table
-    rel.check_settings(max_breakers=step.max_breakers, max_coefficient=step.max_coefficient,
-                        tolerance=step.tolerance, seed=step.seed)
-    names = step.chosen_columns(table)
-    if not names:
-        raise StepError(f"relations: table '{table.name}' has no numeric invariant columns to "
-                        "search; mark some columns as invariants")
+    names = step.searched_columns(table)
     exact = [n for n in names if table.column(n).dtype != "real"]
     real = [n for n in names if table.column(n).dtype == "real"]
     sample, positions = sample_table(table, ctx.client, SAMPLE_ROWS, seed=step.seed,
@@ -66,7 +59,16 @@ def run_relations(step, ctx: Context):
         f"relations and bounds searched on {len(all_positions)} rows: a uniform random sample "
         f"of {len(positions)} rows, {len(extra_positions)} rows breaking relations of the "
         f"sample, and the rows at the corners of every hull; then checked on all "
-        f"{table.n_rows} rows across {table.npartitions} partitions."))
+        f"{table.n_rows} rows across {table.npartitions} partition"
+        f"{'s' if table.npartitions != 1 else ''}."))
+    marked = [n for n in names if table.column(n).intervals]
+    if marked:
+        ctx.notes.append(Note(
+            "dask_intervals_missing",
+            "the Dask engine reads interval cells as missing values: rows known only by an "
+            f"interval in {', '.join(marked)} are not held against the relations and bounds "
+            "(the in-memory engine lists them as breaking or consistent with each).",
+            columns=tuple(marked)))
     return _settle(ctx, step, sample, first, second, exact, real, found)
 
 
@@ -126,24 +128,6 @@ def _vector(relation, names: list[str]):
     return vector
 
 
-def _products(columns: dict, names: list[str], vectors: list, size: int) -> tuple:
-    """(rows times relations over ``names``, exactly; rows where each relation's columns are
-    present): a relation counts only those rows, as in memory, and its product is zero on
-    the others. Nonzero exactly where a row breaks a relation."""
-    from analysis import relations as rel
-
-    present = np.ones((size, len(vectors)), dtype=bool)
-    if not vectors:
-        return np.zeros((size, 0), dtype=np.int64), present
-    for j, vector in enumerate(vectors):
-        gone = [columns[n][1] for n, c in zip(names, vector) if c]
-        present[:, j] = ~np.any(gone, axis=0) if gone else True
-    projected = rel.RelationMatrix([columns[n][0] for n in names], np.arange(size)).products(
-        vectors)
-    projected[~present] = 0
-    return projected, present
-
-
 def _bound_candidates(table, exact):
     from analysis import relations as rel
 
@@ -166,7 +150,7 @@ def _pass_a(frame, offset: int, spec: Settings) -> dict:
     from analysis import relations as rel
 
     columns, _, _ = _read(frame, offset, spec, spec.exact)
-    projected = _products(columns, spec.exact, spec.generators, len(frame))[0]
+    projected = rel.relation_products(columns, spec.exact, spec.generators)[0]
     rows = np.flatnonzero((projected != 0).any(axis=1))
     out: dict = {"breakers": _spanning(_first_distinct(projected[rows], offset + rows),
                                        len(spec.generators)),
@@ -235,14 +219,8 @@ def _corners(points: np.ndarray) -> np.ndarray:
     unique = np.unique(points, axis=0)
     if len(unique) < 5:
         return unique
-    from scipy.spatial import ConvexHull, QhullError
-
-    try:
-        hull = ConvexHull(unique.astype(np.float64))
-    except QhullError:
-        # a flat triple has no bounds in three columns (its plane is a relation)
-        return unique[:0]
-    return unique[np.sort(hull.vertices)]
+    hull = rel.triple_hull(unique)
+    return unique[:0] if hull is None else unique[np.sort(hull.vertices)]
 
 
 def _capped(points: np.ndarray):
@@ -301,7 +279,7 @@ def _pass_b(frame, offset: int, spec: Settings) -> dict:
 
     columns, reals, ids = _read(frame, offset, spec, spec.exact + spec.real)
     out = {"relations": [], "bounds": [], "approximate": [], "congruences": []}
-    projected, present = _products(columns, spec.exact, spec.relations, len(frame))
+    projected, present = rel.relation_products(columns, spec.exact, spec.relations)
     for j in range(len(spec.relations)):
         out["relations"].append(_tally(present[:, j], projected[:, j] != 0, ids, spec.limit))
     scaled = _bound_columns(columns, spec) if spec.bounds else {}
@@ -436,18 +414,14 @@ def _settled_relations(every, candidates, exact, counts, allowed: int, notes: li
             + "; ".join(broken)))
     settled = [dataclasses.replace(r, holds_on=present)
                for r, (present, count, _) in zip(every, every_counts) if not count]
-    tracker = rel.RankTracker()
-    for relation in every:
-        tracker.add(_vector(relation, exact))
-    robust = []
-    for (relation, vector), (present, count, ids) in sorted(
-            zip(candidates, counts[len(every):]),
-            key=lambda item: rel.robust_rank(item[1][1], item[0][1])):
-        if not 0 < count <= allowed or not tracker.add(vector):
-            continue
-        robust.append(dataclasses.replace(
-            relation, holds_on=present - count, violations=tuple(ids[: allowed + 1].tolist()),
-            note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial)))
+    chosen = rel.robust_choice(
+        [(vector, count, relation, present, ids) for (relation, vector), (present, count, ids)
+         in zip(candidates, counts[len(every):])],
+        [_vector(r, exact) for r in every], lambda c: 0 < c[1] <= allowed)
+    robust = [dataclasses.replace(
+        relation, holds_on=present - count, violations=tuple(ids[: allowed + 1].tolist()),
+        note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial))
+        for _, count, relation, present, ids in chosen]
     return rel.ordered_relations(settled, robust)
 
 
@@ -480,9 +454,9 @@ def _proposed_congruences(step, table, sample) -> tuple[list, dict]:
     keep.
     """
     from analysis import congruences as cg
+    from analysis import relations as rel
 
-    integers = [n for n in step.chosen_columns(table)
-                if table.column(n).dtype in ("integer", "big integer")]
+    integers = rel.congruence_columns(table, step.chosen_columns(table))
     if not step.congruences or not integers:
         return integers, {}
     columns = {name: sample.exact(name) for name in integers}
