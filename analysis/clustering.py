@@ -404,6 +404,12 @@ def sweep_entry(method: str, k: int | None, sizes: dict, silhouette: float | Non
                       noise=int(sizes.get(NOISE, 0)))
 
 
+def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
+    """``size`` of ``n`` rows drawn with ``seed`` (increasing), or every row when there are no
+    more: the rows a step fits or scores on past a size."""
+    return np.arange(n) if n <= size else sample_positions(n, size, seed)
+
+
 def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
 
     fit_rows = values
@@ -411,7 +417,7 @@ def _mixture(values: np.ndarray, k: int, seed: int, notes: list[str]):
         fit_rows = values[sample_positions(len(values), MINIBATCH_ROWS, seed)]
         notes.append(mixture_note(MINIBATCH_ROWS, len(values)))
     model = mixture_model(fit_rows, k, seed)
-    return model.predict(values), float(model.bic(fit_rows))
+    return MixtureAssigner(model)(values), float(model.bic(fit_rows))
 
 
 def mixture_model(values: np.ndarray, k: int, seed: int):
@@ -460,9 +466,8 @@ def _agglomerative(values: np.ndarray, ks: list[int], sample_size: int, seed: in
                    notes: list[str]):
 
     n = len(values)
-    fit = np.arange(n)
-    if n > sample_size:
-        fit = sample_positions(n, sample_size, seed)
+    fit = sample_rows(n, sample_size, seed)
+    if len(fit) < n:
         notes.append(agglomerative_note(sample_size, n))
     for k, sample_labels, centres in ward_cuts(values[fit], ks):
         if len(fit) == n:
@@ -486,7 +491,7 @@ def ward_cuts(values: np.ndarray, ks: list[int]):
 def _hdbscan(values: np.ndarray, min_cluster_size: int, sample_size: int, seed: int,
              notes: list[str]) -> np.ndarray:
     n = len(values)
-    fit = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
+    fit = sample_rows(n, sample_size, seed)
     sample_labels = hdbscan_fit(values[fit], min_cluster_size, notes)
     if len(fit) == n:
         return sample_labels
@@ -519,6 +524,16 @@ class NearestCentre:
         if len(values) == 0:
             return np.zeros(0, dtype=int)
         return pairwise_distances_argmin(values, self.centres)
+
+
+class MixtureAssigner:
+    """Assigns each row to its most likely component of a fitted Gaussian mixture."""
+
+    def __init__(self, model):
+        self.model = model
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        return self.model.predict(values) if len(values) else np.zeros(0, dtype=int)
 
 
 class NearestSampled:

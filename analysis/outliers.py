@@ -42,12 +42,13 @@ from typing import ClassVar
 import numpy as np
 import pandas as pd
 
+from analysis.clustering import sample_rows
 from analysis.errors import StepError
 from analysis.features import build_features, is_numeric_target, lost_classes, target_values
 from analysis.notes import Note, note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
-from analysis.projection import prepared, sample_positions, scaling_note
+from analysis.projection import prepared, scaling_note
 from analysis.settings import FEATURE_SETTINGS, SEED, Setting, check_values
 from analysis.table import Table
 from analysis.threads import threads_for
@@ -297,7 +298,7 @@ class OutliersStep:
                 opened = open_values(table, self, fm, guessed, notes)
         reporter.advance()
         if self.relations:
-            found = self._relations(table, fm.row_ids, notes)
+            found = self.broken_relations(table, fm.row_ids, notes, lambda s: s.run(table))
             if found is not None:
                 measures["relations"] = found
         return self.ranked(measures, fm.row_ids, fm.rows, k=k, features=fm.names, notes=notes,
@@ -351,7 +352,10 @@ class OutliersStep:
         notes.append(centre_clusters_note(clusters))
         return _centre_distance(values, clusters.labels, clusters.k), clusters.k
 
-    def _relations(self, table: Table, row_ids: np.ndarray, notes: list[str]):
+    def broken_relations(self, table, row_ids: np.ndarray, notes: list, run):
+        """The relations measure (:func:`relations_measure`) over the rows ``row_ids``, from
+        the relations step on the features' numeric columns (:func:`relation_columns`) run
+        by ``run(step)`` on either engine; None, with a note, when it cannot run."""
         try:
             from analysis.relations import RelationsStep
         except ModuleNotFoundError as exc:
@@ -364,7 +368,7 @@ class OutliersStep:
         if columns == []:
             return None
         try:
-            result = RelationsStep(columns=columns, robust=True, seed=self.seed).run(table)
+            result = run(RelationsStep(columns=columns, robust=True, seed=self.seed))
         except StepError as exc:
             notes.append(Note("relations_unchecked", f"relations not checked: {exc}",
                               reason=str(exc)))
@@ -480,10 +484,17 @@ def _centre_distance(values: np.ndarray, labels: np.ndarray, k: int) -> Measure:
     sizes = {c: int(np.sum(labels == c)) for c in clusters}
     large = large_clusters(sizes, len(values))
     centres = {c: values[labels == c].mean(axis=0) for c in clusters}
-    typical = {c: float(np.median(np.linalg.norm(values[labels == c] - centres[c], axis=1)))
-               for c in large}
+    typical = typical_distances(values, labels, centres, large)
     relative, reference = relative_distances(values, labels, centres, typical, large)
     return centre_measure(relative, labels, reference, sizes, k)
+
+
+def typical_distances(values: np.ndarray, labels: np.ndarray, centres: dict,
+                      clusters) -> dict:
+    """Each of ``clusters``' typical distance from its centre: the median over its rows of
+    ``values`` (``labels`` giving each row's cluster; 0 for a cluster with none)."""
+    return {c: float(np.median(np.linalg.norm(values[labels == c] - centres[c], axis=1)))
+            if (labels == c).any() else 0.0 for c in clusters}
 
 
 def large_clusters(sizes: dict, n: int) -> list:
@@ -602,7 +613,7 @@ def _local_outlier_factor(values: np.ndarray, n_neighbors: int, sample_size: int
                           notes: list[str]) -> Measure:
     n = len(values)
     neighbours = min(n_neighbors, n - 1)
-    sample = np.arange(n) if n <= sample_size else sample_positions(n, sample_size, seed)
+    sample = sample_rows(n, sample_size, seed)
     model = factor_model(neighbours, len(sample) < n).fit(values[sample])
     if len(sample) < n:
         notes.append(factor_sample_note(sample_size, n, seed))

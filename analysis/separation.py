@@ -33,7 +33,7 @@ from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
 from analysis.separator_checks import LEARNING_FRACTIONS, LEARNING_REPEATS
-from analysis.separator_labels import class_label, same_label
+from analysis.separator_labels import class_label, positive_rows, same_label
 from analysis.separator_metrics import (
     BOOTSTRAP_RESAMPLES,
     CHANCE_LEVEL,
@@ -76,7 +76,7 @@ __all__ = [
     "NYSTROEM_COMPONENTS", "NYSTROEM_FIT_ROWS", "OPEN_PREDICTION_LIMIT", "PENALTIES",
     "PREDICT_BLOCK_ROWS", "READINGS", "REGRESSION_RULE", "REGRESSION_WORDS",
     "ROW_ID_LIST_LIMIT", "DecisionScores", "SeparatorResult", "SeparatorStep", "class_label",
-    "exact_text", "excluded_columns", "same_label",
+    "exact_text", "excluded_columns", "positive_rows", "same_label",
 ]
 
 SETTINGS = (

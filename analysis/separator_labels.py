@@ -80,7 +80,7 @@ def class_target(raw: np.ndarray, step, table_name: str, why=None) -> Target:
     if flags is not None and isinstance(positive, bool):
         y = (flags == positive).astype(np.int64)
     else:
-        y = np.array([1 if same_label(v, positive) else 0 for v in labels], dtype=np.int64)
+        y = positive_rows(labels, positive).astype(np.int64)
     if len(values) > 2 and min(int(y.sum()), int(len(y) - y.sum())) < 2:
         raise StepError(f"{table_name}: class {positive!r} of {step.target!r} "
                         "has fewer than two rows; choose another positive class.")
@@ -143,6 +143,13 @@ def count_labels(labels: np.ndarray, flags: np.ndarray | None = None) -> tuple[l
 
 def same_label(a, b) -> bool:
     return type(a) is type(b) and a == b
+
+
+def positive_rows(values, positive) -> np.ndarray:
+    """Whether each of ``values`` (a target's cells, or their labels) is of the class
+    ``positive``, both read as :func:`class_label` reads a label."""
+    want = class_label(positive)
+    return np.array([same_label(class_label(v), want) for v in values], dtype=bool)
 
 
 def _resolve_positive(values: list, counts: list[int], requested, target: str,

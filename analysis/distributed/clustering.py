@@ -49,10 +49,10 @@ def cluster_blocks(step, found: Features) -> Clusters:
     notes = list(found.notes)
     shift, scale = standardizing(step.standardize, n, found.mean, m2, notes)
     ks = step.candidate_ks(n, ctx.table.name)
-    sample = found.rows(sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
+    sample = found.rows(cl.sample_rows(n, SAMPLE_ROWS, step.seed), shift, scale)
     if n > step.sample_size:
         notes.append(cl.silhouette_note(step.sample_size, n, step.seed))
-    scored = found.rows(sample_rows(n, step.sample_size, step.seed), shift, scale)
+    scored = found.rows(cl.sample_rows(n, step.sample_size, step.seed), shift, scale)
     silhouette = cl.Silhouette.of_rows(scored)
     runs = []
     with warnings.catch_warnings():
@@ -84,26 +84,8 @@ def cluster_blocks(step, found: Features) -> Clusters:
     return Clusters(result, chosen, order, shift, scale)
 
 
-def sample_rows(n: int, size: int, seed: int) -> np.ndarray:
-    """``size`` of ``n`` rows drawn with ``seed`` as the in-memory steps draw them (every row
-    when there are no more)."""
-    from analysis.projection import sample_positions
-
-    return np.arange(n) if n <= size else sample_positions(n, size, seed)
-
-
 # ----------------------------------------------------------------------------------------
 # Fitting: each yields (k, assigner, bic) where assigner(values) -> labels
-
-
-class MixtureAssigner:
-    """Assigns each row to its most likely component of a fitted Gaussian mixture."""
-
-    def __init__(self, model):
-        self.model = model
-
-    def __call__(self, values: np.ndarray) -> np.ndarray:
-        return self.model.predict(values) if len(values) else np.zeros(0, dtype=int)
 
 
 def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
@@ -120,15 +102,15 @@ def _fits(method: str, step, ks, sample: np.ndarray, n: int, notes: list[str]):
             notes.append(cl.mixture_note(len(sample), n))
         for k in ks:
             model = cl.mixture_model(sample, k, step.seed)
-            yield k, MixtureAssigner(model), float(model.bic(sample))
+            yield k, cl.MixtureAssigner(model), float(model.bic(sample))
     elif method == "agglomerative":
-        fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
+        fit = sample[cl.sample_rows(len(sample), step.sample_size, step.seed)]
         if len(fit) < n:
             notes.append(cl.agglomerative_note(len(fit), n))
         for k, _, centres in cl.ward_cuts(fit, ks):
             yield k, cl.NearestCentre(centres), None
     elif method == "hdbscan":
-        fit = sample[sample_rows(len(sample), step.sample_size, step.seed)]
+        fit = sample[cl.sample_rows(len(sample), step.sample_size, step.seed)]
         labels = cl.hdbscan_fit(fit, step.min_cluster_size, notes)
         if len(fit) < n:
             notes.append(cl.hdbscan_sample_note(len(fit), n))

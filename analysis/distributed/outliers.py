@@ -13,7 +13,6 @@ import warnings
 import numpy as np
 
 from analysis.distributed.common import Context, Settings, standardizing, step_features
-from analysis.errors import StepError
 from analysis.notes import Note
 
 # Rows the isolation forest and the separator are fitted on.
@@ -25,7 +24,7 @@ def run_outliers(step, ctx: Context):
     from dask import delayed
 
     from analysis import outliers as ol
-    from analysis.distributed.clustering import sample_rows
+    from analysis.clustering import sample_rows
 
     started = time.perf_counter()
     step.check_table(ctx.table)
@@ -54,7 +53,10 @@ def run_outliers(step, ctx: Context):
     spec = Settings(forest=forest, factor=factor, clusters=clusters, n=n, shift=shift,
                     scale=scale, separator=separator, lof_rows=lof_rows,
                     offsets=np.concatenate([[0], np.cumsum(kept)[:-1]]).astype(np.int64),
-                    typical=_typical_distances(clusters, lof_sample))
+                    typical=ol.typical_distances(
+                        lof_sample, clusters.assigner(lof_sample),
+                        dict(enumerate(clusters.assigner.centres)),
+                        range(len(clusters.assigner.centres))))
     shared = ctx.share(spec)   # fitted models: sent to each worker once, not per task
     # a partition with no row left (every row missing a feature) has nothing to score
     scored = ctx.compute([delayed(_score_block)(b, k, shared) for k, b in enumerate(blocks)
@@ -79,14 +81,6 @@ def _clusters(step, found, notes):
     notes.extend(n for n in clusters.result.notes if n not in notes)
     notes.append(centre_clusters_note(clusters.result))
     return clusters
-
-
-def _typical_distances(clusters, sample: np.ndarray) -> dict:
-    """Each cluster's typical distance from its centre: the median over the sampled rows."""
-    labels = clusters.assigner(sample)
-    centres = clusters.assigner.centres
-    return {c: float(np.median(np.linalg.norm(sample[labels == c] - centres[c], axis=1)))
-            if (labels == c).any() else 0.0 for c in range(len(centres))}
 
 
 def _separator_model(step, found, fit_rows, width: int, notes):
@@ -197,19 +191,10 @@ def _measures(ol, step, got: dict, clustering, neighbours: int, notes, flag: boo
 def _relations(ctx, step, row_ids, notes):
     """The relations step on Dask, as a measure: relations and bounds each row breaks."""
     from analysis.distributed.relations import run_relations
-    from analysis.outliers import relation_columns, relations_measure
-    from analysis.relations import RelationsStep
 
-    columns = relation_columns(ctx.table, step.columns, notes)
-    if columns == []:
-        return None
-    try:
-        result = run_relations(RelationsStep(columns=columns, robust=True, seed=step.seed),
-                               Context(table=ctx.table, client=ctx.client))
-    except StepError as exc:
-        notes.append(Note("relations_unchecked", f"relations not checked: {exc}"))
-        return None
-    return relations_measure(result, row_ids)
+    return step.broken_relations(
+        ctx.table, row_ids, notes,
+        lambda found: run_relations(found, Context(table=ctx.table, client=ctx.client)))
 
 
 __all__ = ["run_outliers"]

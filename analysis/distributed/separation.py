@@ -28,6 +28,7 @@ from analysis.equations import (
 )
 from analysis.errors import StepError
 from analysis.notes import Note, note_code
+from analysis.separation import positive_rows
 
 # Rows of the sample the protocol runs on (uniform across partitions).
 SAMPLE_ROWS = 100_000
@@ -96,13 +97,6 @@ def _columns_of(block, names: list[str]) -> dict:
     return {name: block.values[:, j] for j, name in enumerate(names)}
 
 
-def _positive(block, positive_class) -> np.ndarray:
-    from analysis.separation import class_label, same_label
-
-    want = class_label(positive_class)
-    return np.array([same_label(class_label(v), want) for v in block.target], dtype=bool)
-
-
 def _counts(block, names, terms, exact, positive_class=None):
     """(distinct scores, rows at each, positive rows at each, denominator or None for float
     scores) of one partition: the left side of ``terms`` as the in-memory search scores it."""
@@ -114,7 +108,7 @@ def _counts(block, names, terms, exact, positive_class=None):
     if denominator is not None and not exact:
         scores, denominator = np.asarray(scores, dtype=float) / denominator, None
     positive = np.zeros(len(scores), dtype=bool) if positive_class is None \
-        else _positive(block, positive_class)
+        else positive_rows(block.target, positive_class)
     return (*score_counts(scores, positive), denominator)
 
 
@@ -145,7 +139,8 @@ def _merge_counts(a, b):
 
 def _wrong_rows(block, names, equation):
     """Ids of the rows of one partition where the equation's prediction is wrong."""
-    wrong = equation.holds(_columns_of(block, names)) != _positive(block, equation.positive_class)
+    wrong = equation.holds(_columns_of(block, names)) != positive_rows(
+        block.target, equation.positive_class)
     return block.row_ids[wrong]
 
 
