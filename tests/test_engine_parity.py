@@ -612,6 +612,92 @@ def test_a_target_statement_no_row_breaks_is_refused_alike(client, atlas):
     assert _said([str(dask.value)]) == _said([str(memory.value)])
 
 
+def _separator_reasons(result) -> dict:
+    """{row: the reasons the separator measure gives for it}: a label's doubt or a number's
+    residual, each said the same whatever the row's standing."""
+    return {o.row: [r for r in o.reasons if r.startswith(("a cross-validated", "density is "))]
+            for o in result.outliers}
+
+
+@pytest.mark.parametrize("target, columns", [
+    ("bipartite", NUMBERS), ("density", NUMBERS),
+], ids=["a flag", "a number"])
+def test_the_separator_measure_of_the_outliers_is_the_same(client, atlas, target, columns):
+    # on 300 rows the Dask engine fits the separator on every row (its sample is the whole
+    # table), so its cross-validated scores are the in-memory engine's, row by row
+    frame, folder, in_memory = atlas
+    step = make_step("outliers", {"target": target, "columns": columns, "top": GRAPHS})
+    expected = step.run(in_memory)
+    result = run_distributed(step, folder, client=client)
+    assert "separator" in result.measures and "separator" in expected.measures
+    assert _separator_reasons(result) == _separator_reasons(expected)
+    doubted = {row for row, said in _separator_reasons(result).items() if said}
+    assert doubted, "no row is doubted"
+    truth = frame.set_index("graph")[target]
+    for row in doubted:
+        (said,) = _separator_reasons(result)[row]
+        if target == "bipartite":
+            # a doubt is a wrong guess: the model says the opposite of networkx's
+            # is_bipartite for that graph
+            assert said.startswith("a cross-validated logistic regression predicts "
+                                   + ("not bipartite" if truth[row] else "bipartite ")), said
+        else:
+            # the residual states the graph's density as networkx computed it (4 digits)
+            stated = float(said.split(" is ")[1].split(" but ")[0])
+            assert stated == pytest.approx(truth[row], rel=1e-3), said
+
+
+def test_cluster_profiles_are_the_same(client, atlas):
+    # the profiles of every row's cluster, summed by one rule on both engines; the reference
+    # for the means is pandas on the frame from networkx, grouped by the Dask clusters
+    frame, folder, in_memory = atlas
+    step = make_step("clustering", {"method": "kmeans", "k": 3, "columns": NUMBERS})
+    expected = step.run(in_memory)
+    result = run_distributed(step, folder, client=client)
+
+    def profiles(found):
+        return [(p.cluster, p.size, {k: round(v, 9) for k, v in p.means.items()},
+                 p.distinguished_by) for p in found.profiles]
+
+    assert profiles(result) == profiles(expected)
+    kept = frame.set_index("graph").loc[list(result.row_ids), NUMBERS].astype(float)
+    means = kept.groupby(np.asarray(result.labels)).mean()
+    for profile in result.profiles:
+        np.testing.assert_allclose([profile.means[n] for n in NUMBERS],
+                                   means.loc[profile.cluster].to_numpy(), rtol=1e-9)
+
+
+def test_interval_cells_are_held_in_memory_and_said_to_be_missing_on_dask(client, tmp_path):
+    # the handshake lemma (Euler, 1736): the degree sum is twice the number of edges; some
+    # edge counts of networkx's atlas are written as an interval that holds the true count
+    lines = ["graph,vertices,degree_sum,edges"]
+    opened = []
+    for i, graph in enumerate(nx.graph_atlas_g()[1:120]):
+        edges = graph.number_of_edges()
+        cell = str(edges)
+        if i % 11 == 2:
+            cell = f'"[{max(edges - 1, 0)},{edges + 1}]"'
+            opened.append(f"g{i}")
+        lines.append(f"g{i},{graph.number_of_nodes()},{2 * edges},{cell}")
+    path = tmp_path / "open_edges.csv"
+    path.write_text("\n".join(lines) + "\n")
+    step = make_step("relations", {"bounds": False, "congruences": False})
+    expected = step.run(load_table(path, id_column="graph"))
+    result = run_distributed(step, path, client=client, id_column="graph")
+
+    def handshake(found):
+        return next(r for r in found.relations if {n for n, _ in r.terms} ==
+                    {"degree_sum", "edges"})
+
+    assert handshake(result).text == handshake(expected).text
+    assert sorted(handshake(expected).consistent_with) == sorted(opened)
+    said = {note_code(n): n for n in result.notes}
+    assert said["dask_intervals_missing"].figures["columns"] == ("edges",)
+    assert "interval_rows_held" in {note_code(n) for n in expected.notes}
+    # one CSV file under 64 MB is one partition, said in the singular
+    assert said["dask_relations_sample"].endswith("across 1 partition.")
+
+
 # ----------------------------------------------------------------------------------------
 # Typing of delimited text read in blocks: one rule on both engines
 

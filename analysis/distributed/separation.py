@@ -28,7 +28,7 @@ from analysis.equations import (
 )
 from analysis.errors import StepError
 from analysis.notes import Note, note_code
-from analysis.separation import positive_rows
+from analysis.separation import excluded_columns, positive_rows
 
 # Rows of the sample the protocol runs on (uniform across partitions).
 SAMPLE_ROWS = 100_000
@@ -55,16 +55,15 @@ def run_separator(step, ctx: Context):
     if step.augment_permutations:
         raise StepError(f"{table.name}: augment_permutations needs matrix columns, which the "
                         "dask engine does not encode; set it to 0 or use --engine local.")
-    from analysis.separation import excluded_columns
-
     plan = plan_for(ctx, step, target=step.target, exclude=excluded_columns(table, step))
     result, positions = on_sample(step, ctx, min(table.n_rows, SAMPLE_ROWS))
     if len(positions) < table.n_rows:
         ctx.notes.append(Note("dask_protocol_sample",
             f"the validation protocol (splits, metrics, interval, permutation test, learning "
             f"curve) ran on a uniform random sample of {len(positions)} of the {table.n_rows} "
-            f"rows (seed {step.seed}), drawn across all {table.npartitions} partitions; the "
-            "test rows are rows of that sample."))
+            f"rows (seed {step.seed}), drawn across "
+            + (f"all {table.npartitions} partitions" if table.npartitions != 1
+               else "the table's one partition") + "; the test rows are rows of that sample."))
     blocks = blocks_for(ctx, plan)
     changes: dict = {}
     if result.equation is not None:
