@@ -749,6 +749,9 @@ def _l1_svm_direction(Z, signs, working, penalty_scale: float, norm: float = 1.0
         errors = float(np.mean(margins <= 0))
         if best[0] is None or errors < best[1]:
             best = (direction, errors, max(1.0, float(np.abs(direction).sum())))
+        if best[1] == 0.0:
+            # every row of Z is on its side: no later programme can be kept over this one
+            break
         wrong = int(np.count_nonzero(margins[working] <= 0))
         if wrong:
             # Below about 1e-8 HiGHS stops trusting the objective and reports failures.
@@ -813,7 +816,8 @@ class _DirectionFitter:
         return found
 
     def directions(self) -> list[np.ndarray]:
-        """Directions (raw units) along sparsity paths and refitted on their supports."""
+        """Directions (raw units) along sparsity paths and refitted on their supports (of
+        two features or more: the search tries each feature on its own anyway)."""
         from sklearn.exceptions import ConvergenceWarning
         from sklearn.linear_model import LogisticRegression, lars_path
         from sklearn.svm import l1_min_c
@@ -895,10 +899,12 @@ class _DirectionFitter:
                 if subset not in supports:
                     supports.append(subset)
 
-        # Refit each support found so far without shrinkage.
+        # Refit each support found so far without shrinkage. A single feature rounds to the
+        # same candidate whatever its weight, and the search tries every single feature on
+        # its own, so a support of one is not refitted.
         supports.sort(key=len)
         refits = _in_order(lambda support: self._refit_local(list(support)),
-                           supports[:_MAX_SUPPORTS])
+                           [s for s in supports[:_MAX_SUPPORTS] if len(s) > 1])
         for found in refits:
             for direction in found:
                 keep(direction, record_support=False)
