@@ -57,6 +57,8 @@ _PATH_ROWS = 5000
 # Rows used to fit the sparse path in the degree-2 feature space.
 _QUADRATIC_PATH_ROWS = 5000
 # Supports (sets of features) refitted one by one.
+# The 1-norm programmes on every feature: their penalties, in rows' worth of hinge loss.
+_PENALTY_SCALES = (0.01, 0.3)
 _MAX_SUPPORTS = 16
 # Rows used to rank every rounded candidate, candidates kept for ranking on the whole sample,
 # and candidates checked exactly on every row.
@@ -774,8 +776,10 @@ class _DirectionFitter:
     standardized by ``mean`` and ``spread``; ``signs`` is +1 for positive rows, -1 otherwise.
     """
 
-    def __init__(self, Z, signs, active, spread, size, rng, seed) -> None:
+    def __init__(self, Z, signs, active, spread, size, rng, seed,
+                 penalties=_PENALTY_SCALES) -> None:
         self.Z, self.signs, self.active = Z, signs, np.asarray(active)
+        self.penalties = tuple(penalties)
         self.spread, self.size, self.rng, self.seed = spread, size, rng, seed
         self.working = _stratified_rows(signs > 0, _LP_ROWS, rng)
         self.gram = Z.T @ Z
@@ -887,7 +891,7 @@ class _DirectionFitter:
         errors = 1.0
         # the two penalties' programmes are independent: solved at once, kept in order
         for direction, missed, _ in _in_order(
-            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), (0.01, 0.3)
+            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), self.penalties
         ):
             keep(direction)
             errors = min(errors, missed)
@@ -2107,7 +2111,8 @@ def surrogate_quadratic(
         Z = (matrix[:, active] - mean[active]) / spread[active]
         signs = np.where(labels[path_rows], 1.0, -1.0)
         if np.unique(signs).size == 2:
-            fitter = _DirectionFitter(Z, signs, active, spread, space.size, rng, seed)
+            fitter = _DirectionFitter(Z, signs, active, spread, space.size, rng, seed,
+                                      penalties=_PENALTY_SCALES[:1])
             directions.extend(fitter.directions())
     result = _search(
         space,
