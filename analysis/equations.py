@@ -831,28 +831,16 @@ class _DirectionFitter:
         full[columns] = coefs
         return [full]
 
-    def directions(self) -> list[np.ndarray]:
-        """Directions (raw units) along sparsity paths and refitted on their supports (of
-        two features or more: the search tries each feature on its own anyway)."""
+    def _path(self) -> list[tuple[np.ndarray, bool]]:
+        """The sparsity paths' proposals in order, each with whether its direction is kept
+        (the lasso path's entry order proposes supports only)."""
         from sklearn.exceptions import ConvergenceWarning
         from sklearn.linear_model import LogisticRegression, lars_path
         from sklearn.svm import l1_min_c
 
         Z, signs = self.Z, self.signs
         k = Z.shape[1]
-        directions: list[np.ndarray] = []
-        supports: list[tuple[int, ...]] = []
-
-        def keep(direction, record_support=True, record_direction=True):
-            direction = _cleaned(direction)
-            if direction is None:
-                return
-            if record_direction:
-                directions.append(direction)
-            support = tuple(np.flatnonzero(direction).tolist())
-            if record_support and support not in supports:
-                supports.append(support)
-
+        proposals: list[tuple[np.ndarray, bool]] = []
         # Path of L1-penalized logistic regressions, from one feature to many.
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
@@ -875,7 +863,7 @@ class _DirectionFitter:
                         max_iter=300,
                         random_state=self.seed,
                     ).fit(Z_path, signs_path)
-                    keep(model.coef_[0].copy())
+                    proposals.append((model.coef_[0].copy(), True))
                     if np.count_nonzero(model.coef_[0]) >= min(k, 2 * _TRUNCATION_TERMS):
                         break
             # The order in which features enter a lasso path on the labels.
@@ -883,16 +871,38 @@ class _DirectionFitter:
                 _, _, path = lars_path(
                     Z, signs - signs.mean(), method="lasso", max_iter=min(k, 3 * _TRUNCATION_TERMS)
                 )
-                for column in path.T[1:]:
-                    keep(column.copy(), record_direction=False)
+                proposals.extend((column.copy(), False) for column in path.T[1:])
             except (ValueError, np.linalg.LinAlgError):
                 pass
+        return proposals
 
+    def directions(self) -> list[np.ndarray]:
+        """Directions (raw units) along sparsity paths and refitted on their supports (of
+        two features or more: the search tries each feature on its own anyway)."""
+        Z, signs = self.Z, self.signs
+        directions: list[np.ndarray] = []
+        supports: list[tuple[int, ...]] = []
+
+        def keep(direction, record_support=True, record_direction=True):
+            direction = _cleaned(direction)
+            if direction is None:
+                return
+            if record_direction:
+                directions.append(direction)
+            support = tuple(np.flatnonzero(direction).tolist())
+            if record_support and support not in supports:
+                supports.append(support)
+
+        # the paths and the penalties' programmes are independent: run at once, kept in order
+        path, *programmes = _in_order(
+            lambda scale: self._path() if scale is None
+            else _l1_svm_direction(Z, signs, self.working, scale),
+            (None, *self.penalties),
+        )
+        for direction, record in path:
+            keep(direction, record_direction=record)
         errors = 1.0
-        # the two penalties' programmes are independent: solved at once, kept in order
-        for direction, missed, _ in _in_order(
-            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), self.penalties
-        ):
+        for direction, missed, _ in programmes:
             keep(direction)
             errors = min(errors, missed)
         # When the classes overlap a lot, the linear programs are slow and their refits add
