@@ -363,8 +363,9 @@ def detect_role(column: str, dtype: str, distinct: int, missing: int, n: int,
 
 def flag_spelling_warning(name: str, column: str, labels) -> str | None:
     """The warning for a category whose labels are all true/false words (0 and 1 among them,
-    perhaps) but in more than one spelling of a value (``Y`` beside ``True``): each spelling is then a class of its
-    own, which is seldom what the table meant. None for any other column."""
+    perhaps) but in more than one spelling of a value (``Y`` beside ``True``): each spelling
+    is then a class of its own, which is seldom what the table meant. None for any other
+    column."""
     words = sorted({str(w).strip() for w in labels})
     lowered = {w.lower() for w in words}
     spelled = lowered & (TRUE_WORDS | FALSE_WORDS)

@@ -138,7 +138,8 @@ def _identical_warning(run: PreparedRun, splits) -> int:
                       "features cannot tell these objects apart.")
         run.log.warnings.append(Note(
             "test_rows_seen",
-            f"{identical} test rows of split 1 have the same feature values as a training "
+            f"{identical} test {'row' if identical == 1 else 'rows'} of split 1 "
+            f"{'has' if identical == 1 else 'have'} the same feature values as a training "
             f"row (and {others} of the other {len(splits) - 1} splits have such rows): "
             f"the separator is partly scored on rows it has seen. {advice}",
             rows=identical, splits=others, grouped=run.group_labels is not None))

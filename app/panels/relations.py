@@ -80,7 +80,8 @@ def show(ctx: settings.StepContext, result) -> None:
             hide_index=True, key=ctx.key("bounds"),
             column_config={"close to it": st.column_config.NumberColumn(help=NEAR_MEANING)})
     else:
-        st.caption("None found (or the search for bounds is off).")
+        st.caption("None found." if ctx.params.get("bounds", True) else
+                   "Not searched: the search for bounds is off in this step's settings.")
     if near:
         st.markdown("##### Bounds that all but a few objects obey")
         st.dataframe(pd.DataFrame([{
