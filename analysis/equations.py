@@ -117,6 +117,9 @@ class LinearEquation:
     notes: tuple[str, ...]
     feature_names: tuple[str, ...] = ()
     exact: bool = True
+    # the same inequality in a column's own values when its one term is a log-scaled
+    # feature (``"disc >= 0"`` for ``"slog(disc) >= 0"``); "" otherwise
+    in_columns: str = ""
 
     @property
     def text(self) -> str:
@@ -138,6 +141,7 @@ class LinearEquation:
             "text": self.text,
             "violations": int(self.violations),
             "violating_rows": [_plain(row) for row in self.violating_rows],
+            **({"in_columns": self.in_columns} if self.in_columns else {}),
         }
 
     def holds(self, X) -> np.ndarray:
