@@ -349,46 +349,51 @@ def _stacked(blocks: list[np.ndarray], n_rows: int) -> np.ndarray:
 
 
 def _impute(values: np.ndarray, bad: np.ndarray, features: list[Feature]) -> int:
-    """Fill ``bad`` cells in place; returns how many were filled.
-
-    Numbers get the column median. A flag gets its most common value, and a category's
-    one-hot block its most common level as a whole, so a filled row still has exactly one
-    level set. A column with no value at all is filled with 0.
-    """
+    """Fill ``bad`` cells in place with :func:`fills`; returns how many were filled."""
+    gaps = {f.column for j, f in enumerate(features) if bad[:, j].any()}
+    chosen = [j for j, f in enumerate(features) if f.column in gaps]   # whole one-hot blocks
+    fill = fills([features[j] for j in chosen], [value_counts(values[:, j]) for j in chosen])
     filled = 0
-    done: set[int] = set()
-    for j, feature in enumerate(features):
-        if j in done or not bad[:, j].any():
-            continue
-        if feature.kind == "onehot":
-            block = [k for k, f in enumerate(features)
-                     if f.kind == "onehot" and f.column == feature.column]
-            missing = bad[:, block].any(axis=1)
-            known = values[~missing][:, block]
-            values[np.ix_(missing, block)] = 0.0
-            if len(known):
-                values[missing, block[int(np.argmax(known.sum(axis=0)))]] = 1.0
-            filled += int(bad[:, block].sum())
-            done.update(block)
-            continue
+    for j in chosen:
         column_bad = bad[:, j]
-        good = values[~column_bad, j]
-        if not len(good):
-            fill = 0.0
-        elif feature.kind == "flag":
-            fill = fill_value("flag", *np.unique(good, return_counts=True))
-        else:
-            fill = float(np.median(good))
-        values[column_bad, j] = fill
+        values[column_bad, j] = fill[features[j].name]
         filled += int(column_bad.sum())
     return filled
+
+
+def value_counts(column: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """A feature column's distinct present (finite) values, ascending, and how many rows
+    hold each: what :func:`fills` decides from (counts of blocks of rows add up)."""
+    return np.unique(column[np.isfinite(column)], return_counts=True)
+
+
+def fills(features: list[Feature], counted: list) -> dict[str, float]:
+    """What each feature's missing cells are filled with (missing="impute"), by name, from
+    its :func:`value_counts`.
+
+    Numbers get the column median and a flag its most common value (:func:`fill_value`). A
+    category's one-hot block takes its most common level as a whole (1 there, 0 in the other
+    levels), so a filled row still has exactly one level set. A column with no value at all
+    is filled with 0.
+    """
+    out, levels = {}, {}
+    for feature, (values, counts) in zip(features, counted):
+        if feature.kind == "onehot":
+            levels.setdefault(feature.column, []).append(
+                (feature.name, int(counts[values == 1.0].sum())))
+        else:
+            out[feature.name] = fill_value(feature.kind, values, counts)
+    for found in levels.values():
+        top = int(np.argmax([count for _, count in found]))
+        out.update((name, float(j == top)) for j, (name, _) in enumerate(found))
+    return out
 
 
 def fill_value(kind: str, values: np.ndarray, counts: np.ndarray) -> float:
     """What a missing cell of a feature of ``kind`` is filled with (missing="impute"), from
     the feature's distinct present values (ascending) and how many rows hold each: the most
     common value for a flag (the smaller on a tie), else the median; 0 with no value at all.
-    A category's one-hot block takes its most common level whole (:func:`_impute`)."""
+    A category's one-hot block takes its most common level whole (:func:`fills`)."""
     if not len(values):
         return 0.0
     if kind == "flag":

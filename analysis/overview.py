@@ -216,9 +216,31 @@ def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]
         with np.errstate(divide="ignore", invalid="ignore"):
             matrix = np.corrcoef(values)
     else:
-        # pairwise-complete rows where values are missing, as pandas counts them
-        matrix = pd.DataFrame(values.T).corr().to_numpy()
+        # pairwise-complete rows where values are missing, as pandas counts them; each
+        # column shifted by its mean first, so that the sums keep their digits
+        present = np.isfinite(values)
+        shift = np.where(present, values, 0.0).sum(axis=1) / np.maximum(present.sum(axis=1), 1)
+        matrix = correlations_from_sums(*pair_sums(values.T - shift))
     return strong_pairs(matrix, names, top), None if rows is None else len(rows)
+
+
+def pair_sums(values: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Pairwise-complete sums of the columns of ``values`` (NaN for a missing cell): for
+    each pair [i, j], the rows where both are present, and over those rows the sum of x_i,
+    of x_i squared and of x_i * x_j. The sums of blocks of rows add up to the whole's."""
+    present = np.isfinite(values).astype(np.float64)
+    zeroed = np.where(present > 0, values, 0.0)
+    return (present.T @ present, zeroed.T @ present, (zeroed ** 2).T @ present,
+            zeroed.T @ zeroed)
+
+
+def correlations_from_sums(count, sx, sxx, sxy) -> np.ndarray:
+    """Pearson's coefficient of every pair from its :func:`pair_sums`; NaN for a pair in
+    which a column does not vary (or with no row in common)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        top = count * sxy - sx * sx.T
+        bottom = np.sqrt((count * sxx - sx ** 2) * (count * sxx.T - sx.T ** 2))
+        return np.clip(top / bottom, -1.0, 1.0)
 
 
 def correlation_columns(table) -> list[str]:

@@ -130,11 +130,85 @@ def _centred_and_scaled(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     mean = values.mean(axis=0)
     out = np.subtract(values, mean, dtype=np.float64)
     variance = np.einsum("ij,ij->j", out, out) / n
-    varies = varying(n, mean, variance)
-    scale = np.where(varies, np.sqrt(variance), 1.0)
+    scale, varies = spread(n, mean, variance)
     out[:, ~varies] = 0.0
     out /= scale
     return out, varies
+
+
+def spread(n: int, mean: np.ndarray, variance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(scale, varies): each column's population standard deviation, 1 for a column that
+    does not vary (:func:`varying`), as StandardScaler scales; and which columns vary."""
+    varies = varying(n, mean, variance)
+    return np.where(varies, np.sqrt(variance), 1.0), varies
+
+
+# ----------------------------------------------------------------------------------------
+# Moments: what a pass over blocks of rows keeps of the features, merged block by block
+
+
+def moments(values: np.ndarray) -> tuple[int, np.ndarray, np.ndarray]:
+    """(rows, mean, centred Gram matrix) of a block of features."""
+    n = len(values)
+    if n == 0:
+        p = values.shape[1]
+        return 0, np.zeros(p), np.zeros((p, p))
+    mean = values.mean(axis=0)
+    centred = values - mean
+    return n, mean, centred.T @ centred
+
+
+def merge_moments(a, b):
+    """Merge two (rows, mean, centred Gram) triples (Chan, Golub and LeVeque's update)."""
+    na, mean_a, m2_a = a
+    nb, mean_b, m2_b = b
+    n = na + nb
+    if na == 0:
+        return b
+    if nb == 0:
+        return a
+    delta = mean_b - mean_a
+    mean = mean_a + delta * (nb / n)
+    m2 = m2_a + m2_b + np.outer(delta, delta) * (na * nb / n)
+    return n, mean, m2
+
+
+def moment_scale(n: int, mean: np.ndarray, m2: np.ndarray) -> np.ndarray:
+    """Each feature's scale (:func:`spread`) from its moments."""
+    return spread(n, mean, np.diag(m2) / n)[0]
+
+
+def standardizing(standardize: bool, n, mean, m2, notes: list):
+    """(shift, scale) that standardize the features with these moments, or leave them in
+    their own units, and the note saying which (:func:`scaling_note`) added to ``notes``."""
+    notes.append(scaling_note(standardize))
+    if standardize:
+        return mean, moment_scale(n, mean, m2)
+    return np.zeros(len(mean)), np.ones(len(mean))
+
+
+def pca_from_moments(n: int, mean: np.ndarray, m2: np.ndarray, *, standardize: bool = True):
+    """Explained variance ratios, principal axes (rows) and feature scales, from moments.
+
+    The scales are those ``StandardScaler`` uses (population standard deviation; 1 for a
+    column it counts as constant), so the axes and ratios are those of scikit-learn's PCA on
+    the standardized features. Axes are signed so that each one's largest entry is positive.
+    """
+    scale = moment_scale(n, mean, m2) if standardize else np.ones(len(mean))
+    covariance = m2 / n / np.outer(scale, scale)
+    eigenvalues, eigenvectors = np.linalg.eigh(covariance)
+    order = np.argsort(eigenvalues)[::-1]
+    eigenvalues = np.clip(eigenvalues[order], 0.0, None)
+    components = eigenvectors[:, order].T
+    keep = min(n, len(mean))
+    eigenvalues, components = eigenvalues[:keep], components[:keep]
+    total = float(np.trace(covariance))
+    ratio = eigenvalues / total if total > 0 else np.zeros_like(eigenvalues)
+    largest = np.argmax(np.abs(components), axis=1)
+    signs = np.sign(components[np.arange(len(components)), largest])
+    signs[signs == 0] = 1.0
+    components = components * signs[:, None]
+    return ratio, components, scale
 
 
 @dataclass(frozen=True, eq=False)
@@ -500,5 +574,6 @@ def _two_columns(scores: np.ndarray) -> np.ndarray:
     return np.column_stack([scores[:, 0], np.zeros(len(scores))])
 
 
-__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "prepared", "require_spread",
-           "pca_fields", "sample_positions", "standardized", "varying"]
+__all__ = ["METHODS", "ProjectionResult", "ProjectionStep", "merge_moments", "moment_scale",
+           "moments", "pca_fields", "pca_from_moments", "prepared", "require_spread",
+           "sample_positions", "spread", "standardized", "standardizing", "varying"]

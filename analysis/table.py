@@ -216,30 +216,14 @@ class Table:
     def with_roles(self, roles: dict[str, str] | None = None, *,
                    id_column: str | None | type[...] = ...) -> Table:
         """A new Table with some roles overridden (validated cell by cell)."""
-        roles = dict(roles or {})
-        named_ids = [name for name, role in roles.items() if role == "id"]
-        if id_column is ... and len(named_ids) == 1:
-            # giving one column the role id moves the id there, as id_column= does
-            id_column = named_ids[0]
-        if id_column is not ... and id_column is not None:
-            roles[id_column] = "id"
-        for name, role in roles.items():
-            self.column(name)
-            if role not in ROLES:
-                raise TableError(
-                    f"{self.name}: column {name!r}: unknown role {role!r}. "
-                    f"Roles are {', '.join(ROLES)}."
-                )
+        changes = requested_roles(self.name, self.columns, roles, id_column)
         frame = self.frame
         marks = dict(self.marks)
         ids = None if self.id_column is None else self.frame[self.id_column].tolist()
         infos = []
         for info in self.columns:
-            role = roles.get(info.name)
-            if id_column is not ... and info.role == "id" and info.name != id_column \
-                    and role is None:
-                role = info.detected_role if info.detected_role != "id" else "text"
-            if role is None or role == info.role:
+            role = changes.get(info.name)
+            if role is None:
                 infos.append(info)
                 continue
             new_values, new_info, new_marks = _retype(
@@ -252,13 +236,7 @@ class Table:
                     frame = frame.copy(deep=False)
                 frame[info.name] = new_values
             infos.append(new_info)
-        ids = [c.name for c in infos if c.role == "id"]
-        if len(ids) > 1:
-            raise TableError(
-                f"{self.name}: only one column can be the id; got {', '.join(map(repr, ids))}. "
-                "Give the others another role."
-            )
-        new_id = ids[0] if ids else None
+        new_id = single_id(self.name, infos)
         if new_id is not None:
             _check_unique_ids(self.name, frame[new_id])
         return replace(self, frame=frame, columns=tuple(infos), id_column=new_id, marks=marks)
@@ -1561,6 +1539,49 @@ def array_value(value, name: str, row: int, column: str, limits: Limits) -> np.n
             return np.array([int(x) for x in flat], dtype=object).reshape(shape)
         return np.array(flat, dtype=np.int64).reshape(shape)
     return np.array(flat, dtype=np.float64).reshape(shape)
+
+
+def requested_roles(table_name: str, columns, roles: dict[str, str] | None,
+                    id_column: str | None | type[...] = ...) -> dict[str, str]:
+    """The new role of each column whose role changes, by name, from role overrides and a
+    chosen id column (``...``: none chosen; None: no id column), for either engine.
+
+    A column given the role id alone becomes the id column, as ``id_column=`` makes it; the
+    id column it displaces goes back to its detected role (text if that was id). Unknown
+    columns and roles are refused by name.
+    """
+    roles = dict(roles or {})
+    named_ids = [name for name, role in roles.items() if role == "id"]
+    if id_column is ... and len(named_ids) == 1:
+        # giving one column the role id moves the id there, as id_column= does
+        id_column = named_ids[0]
+    if id_column is not ... and id_column is not None:
+        roles[id_column] = "id"
+    for name, role in roles.items():
+        column_named(table_name, columns, name)
+        if role not in ROLES:
+            raise TableError(f"{table_name}: column {name!r}: unknown role {role!r}. "
+                             f"Roles are {', '.join(ROLES)}.")
+    changes = {}
+    for info in columns:
+        role = roles.get(info.name)
+        if id_column is not ... and info.role == "id" and info.name != id_column \
+                and role is None:
+            role = info.detected_role if info.detected_role != "id" else "text"
+        if role is not None and role != info.role:
+            changes[info.name] = role
+    return changes
+
+
+def single_id(table_name: str, columns) -> str | None:
+    """The id column among ``columns`` (None for none); more than one is a TableError."""
+    ids = [c.name for c in columns if c.role == "id"]
+    if len(ids) > 1:
+        raise TableError(
+            f"{table_name}: only one column can be the id; got {', '.join(map(repr, ids))}. "
+            "Give the others another role."
+        )
+    return ids[0] if ids else None
 
 
 def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,

@@ -200,6 +200,19 @@ def test_roles_asked_for_type_columns_alike(client, atlas, roles):
     assert [table.column(name).role for name in roles] == list(roles.values())
 
 
+def test_the_role_id_given_to_one_column_moves_the_id_alike(client, tmp_path):
+    # the rule of analysis.table.requested_roles (giving one column the role id makes it the
+    # id column, as id_column= does); the Dask engine once refused two id columns instead
+    frame = pd.DataFrame({"name": [f"K{k}" for k in range(40)], "code": range(100, 140),
+                          "genus": [k % 5 for k in range(40)]})
+    folder, whole = write_parts(frame, tmp_path / "codes")
+    expected = load_table(whole, roles={"code": "id"})
+    table = read_partitioned(folder, client, roles={"code": "id"})
+    assert expected.id_column == table.id_column == "code"
+    assert table.columns == expected.columns
+    assert table.column("name").role == "text"
+
+
 def test_arrays_asked_to_be_text_are_refused_by_name(client, atlas):
     _, folder, _ = atlas
     with pytest.raises(StepError, match="column 'adjacency': turning arrays into text is not "

@@ -9,6 +9,7 @@ import numpy as np
 from analysis.distributed.matrix import FeaturePlan, feature_blocks, feature_plan
 from analysis.distributed.reduction import tree
 from analysis.notes import Note
+from analysis.projection import merge_moments, moments, standardizing
 
 # Distinct values a column's median is computed from exactly; past this, from a sample.
 MEDIAN_CAP = 100_000
@@ -147,72 +148,20 @@ def step_features(ctx: Context, step, *, target=None, exclude=()) -> Features:
 
 def block_moments(block) -> tuple[int, np.ndarray, np.ndarray]:
     """(rows, mean, centred Gram matrix) of one block's features."""
-    values = block.values
-    n = len(values)
-    if n == 0:
-        p = values.shape[1]
-        return 0, np.zeros(p), np.zeros((p, p))
-    mean = values.mean(axis=0)
-    centred = values - mean
-    return n, mean, centred.T @ centred
-
-
-def merge_moments(a, b):
-    """Merge two (rows, mean, centred Gram) triples (Chan, Golub and LeVeque's update)."""
-    na, mean_a, m2_a = a
-    nb, mean_b, m2_b = b
-    n = na + nb
-    if na == 0:
-        return b
-    if nb == 0:
-        return a
-    delta = mean_b - mean_a
-    mean = mean_a + delta * (nb / n)
-    m2 = m2_a + m2_b + np.outer(delta, delta) * (na * nb / n)
-    return n, mean, m2
-
-
-def spread_scale(n, mean, m2) -> np.ndarray:
-    """Each feature's population standard deviation from moments, 1 for a feature that does
-    not vary (:func:`analysis.projection.varying`, the in-memory rule)."""
-    from analysis.projection import varying
-
-    variance = np.diag(m2) / n
-    return np.where(varying(n, mean, variance), np.sqrt(variance), 1.0)
-
-
-def standardizing(standardize: bool, n, mean, m2, notes: list[str]):
-    """(shift, scale) that standardize the features, or leave them in their own units, and
-    the note saying which."""
-    from analysis.projection import scaling_note
-
-    notes.append(scaling_note(standardize))
-    if standardize:
-        return mean, spread_scale(n, mean, m2)
-    return np.zeros(len(mean)), np.ones(len(mean))
+    return moments(block.values)
 
 
 def _fills(ctx: Context, plan: FeaturePlan) -> dict:
-    """The in-memory fill of each feature (:func:`analysis.features.fill_value`; a category
-    its most common level), from value counts summed over partitions."""
-    from analysis.features import build_features, fill_value
+    """The in-memory fill of each feature (:func:`analysis.features.fills`), from value counts
+    summed over partitions; past MEDIAN_CAP distinct values, the median of a sample."""
+    from analysis.features import build_features, fills
 
     raw = dataclasses.replace(plan, missing="keep", target=None)   # the features' cells only
     merged = ctx.compute(tree(partition_tasks(ctx, _value_counts, list(plan.columns), raw),
                               _merge_value_counts))
-    fills, approximate, levels = {}, [], {}
-    for feature, counted in zip(plan.features, merged):
-        if feature.kind == "onehot":
-            values, counts = counted
-            levels.setdefault(feature.column, []).append(
-                (feature.name, int(counts[values == 1.0].sum())))
-        elif counted is None:
-            approximate.append(feature.name)
-        else:
-            fills[feature.name] = fill_value(feature.kind, *counted)
-    for found in levels.values():
-        top = int(np.argmax([count for _, count in found]))
-        fills.update((name, float(j == top)) for j, (name, _) in enumerate(found))
+    exact = [(f, counted) for f, counted in zip(plan.features, merged) if counted is not None]
+    found = fills([f for f, _ in exact], [counted for _, counted in exact])
+    approximate = [f.name for f, counted in zip(plan.features, merged) if counted is None]
     if approximate:
         from analysis.distributed.source import sample_table
 
@@ -220,26 +169,22 @@ def _fills(ctx: Context, plan: FeaturePlan) -> dict:
                                  columns=list(plan.columns))
         fm = build_features(sample, columns=list(plan.columns), missing="drop")
         for name in approximate:
-            fills[name] = float(np.median(fm.values[:, fm.names.index(name)]))
+            found[name] = float(np.median(fm.values[:, fm.names.index(name)]))
         ctx.notes.append(Note("dask_sampled_median", "missing values of "
                               f"{', '.join(approximate)} filled with the median of a random "
                               f"sample of {MEDIAN_SAMPLE_ROWS} rows (too many distinct values "
                               "for an exact median across partitions).",
                               columns=tuple(approximate), sample=MEDIAN_SAMPLE_ROWS))
-    return fills
+    return found
 
 
 def _value_counts(frame, offset: int, plan: FeaturePlan) -> list:
     from analysis.distributed.matrix import partition_features
+    from analysis.features import value_counts
 
     block = partition_features(frame, offset, plan)
-    out = []
-    for j in range(block.values.shape[1]):
-        column = block.values[:, j]
-        present = column[np.isfinite(column)]
-        values, counts = np.unique(present, return_counts=True)
-        out.append((values, counts) if len(values) <= MEDIAN_CAP else None)
-    return out
+    counted = [value_counts(column) for column in block.values.T]
+    return [c if len(c[0]) <= MEDIAN_CAP else None for c in counted]
 
 
 def _merge_value_counts(a: list, b: list) -> list:
@@ -273,5 +218,5 @@ def with_notes(result, extra: list[str]):
 
 
 __all__ = ["Context", "Features", "Settings", "block_moments", "blocks_for",
-           "merge_moments", "on_sample", "partition_tasks", "plan_for", "spread_scale",
-           "standardizing", "step_features", "tree", "with_notes"]
+           "merge_moments", "on_sample", "partition_tasks", "plan_for", "standardizing",
+           "step_features", "tree", "with_notes"]

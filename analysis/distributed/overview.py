@@ -15,6 +15,8 @@ from analysis.overview import (
     OverviewResult,
     Repeats,
     correlation_columns,
+    correlations_from_sums,
+    pair_sums,
     repeats_among,
     row_fingerprints,
     strong_pairs,
@@ -145,25 +147,13 @@ def _correlations(ctx: Context, top: int):
     parts = table.typed_partitions(names)
     pieces = [delayed(_pair_sums)(part, names, shift) for part in parts]
     sums = ctx.compute(tree(pieces, _add_sums))
-    count, sx, sxx, sxy = sums
-    with np.errstate(invalid="ignore", divide="ignore"):
-        top_part = count * sxy - sx * sx.T
-        bottom = np.sqrt((count * sxx - sx ** 2) * (count * sxx.T - (sx.T) ** 2))
-        matrix = top_part / bottom
-    return strong_pairs(np.clip(matrix, -1.0, 1.0), names, top)
+    return strong_pairs(correlations_from_sums(*sums), names, top)
 
 
 def _pair_sums(frame, names: list[str], shift: np.ndarray):
-    """Pairwise-complete sums: counts, sums, sums of squares and of products, per pair."""
     values = np.column_stack([frame[n].to_numpy(dtype=np.float64, na_value=np.nan)
                               for n in names]) - shift
-    present = np.isfinite(values).astype(np.float64)
-    zeroed = np.where(present > 0, values, 0.0)
-    count = present.T @ present                 # rows where both i and j are present
-    sx = zeroed.T @ present                     # [i, j]: sum of x_i where x_j is present too
-    sxx = (zeroed ** 2).T @ present
-    sxy = zeroed.T @ zeroed
-    return count, sx, sxx, sxy
+    return pair_sums(values)
 
 
 def _add_sums(a, b):

@@ -8,7 +8,7 @@ import time
 
 import numpy as np
 
-from analysis.distributed.common import Context, spread_scale, step_features
+from analysis.distributed.common import Context, step_features
 from analysis.notes import Note
 
 # Rows of the sample LDA runs on (UMAP and t-SNE use the in-memory step's own thresholds).
@@ -22,6 +22,7 @@ def run_projection(step, ctx: Context):
         ProjectionResult,
         check_rows,
         pca_fields,
+        pca_from_moments,
         scaling_note,
     )
 
@@ -54,30 +55,6 @@ def run_projection(step, ctx: Context):
         elapsed_seconds=time.perf_counter() - started,
         **pca_fields(components, ratio, found.plan.names),
     )
-
-
-def pca_from_moments(n: int, mean: np.ndarray, m2: np.ndarray, *, standardize: bool = True):
-    """Explained variance ratios, principal axes (rows) and feature scales, from moments.
-
-    The scales are those ``StandardScaler`` uses (population standard deviation; 1 for a
-    column it counts as constant), so the axes and ratios are those of scikit-learn's PCA on
-    the standardized features. Axes are signed so that each one's largest entry is positive.
-    """
-    scale = spread_scale(n, mean, m2) if standardize else np.ones(len(mean))
-    covariance = m2 / n / np.outer(scale, scale)
-    eigenvalues, eigenvectors = np.linalg.eigh(covariance)
-    order = np.argsort(eigenvalues)[::-1]
-    eigenvalues = np.clip(eigenvalues[order], 0.0, None)
-    components = eigenvectors[:, order].T
-    keep = min(n, len(mean))
-    eigenvalues, components = eigenvalues[:keep], components[:keep]
-    total = float(np.trace(covariance))
-    ratio = eigenvalues / total if total > 0 else np.zeros_like(eigenvalues)
-    largest = np.argmax(np.abs(components), axis=1)
-    signs = np.sign(components[np.arange(len(components)), largest])
-    signs[signs == 0] = 1.0
-    components = components * signs[:, None]
-    return ratio, components, scale
 
 
 def project_block(block, mean: np.ndarray, scale: np.ndarray, axes: np.ndarray):

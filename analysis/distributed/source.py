@@ -50,6 +50,8 @@ from analysis.table import (
     delimiter_warning,
     format_of,
     one_line,
+    requested_roles,
+    single_id,
     unnamed_column_error,
     unnamed_column_warning,
 )
@@ -443,21 +445,16 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
 
 def with_roles(table: PartitionedTable, roles: dict[str, str],
                id_column: str | None = None) -> PartitionedTable:
-    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column."""
-    roles = dict(roles)
-    if id_column is not None:
-        roles[id_column] = "id"
-    for column in roles:
-        table.column(column)
+    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column
+    (which roles change: :func:`analysis.table.requested_roles`, the in-memory rule)."""
+    changes = requested_roles(table.name, table.columns, roles,
+                              ... if id_column is None else id_column)
     infos = []
     how = dict(table.conversions)
     facts = dict(table.facts)
     for info in table.columns:
-        role = roles.get(info.name)
-        if id_column is not None and info.role == "id" and info.name != id_column \
-                and role is None:
-            role = info.detected_role if info.detected_role != "id" else "text"
-        if role is None or role == info.role:
+        role = changes.get(info.name)
+        if role is None:
             infos.append(info)
             continue
         new = replace(info, role=role)
@@ -494,18 +491,11 @@ def with_roles(table: PartitionedTable, roles: dict[str, str],
                 raise TableError(f"{table.name}: column {info.name!r} cannot be the id: it has "
                                  f"{info.distinct} distinct values in {table.n_rows} rows. "
                                  "Choose a column with unique values.")
-        elif role == "array":
-            if info.dtype != "array":
-                raise TableError(f"{table.name}: column {info.name!r} holds {info.dtype} "
-                                 "values, not arrays.")
-        else:
-            raise TableError(f"{table.name}: column {info.name!r}: unknown role {role!r}.")
+        elif role == "array" and info.dtype != "array":
+            raise TableError(f"{table.name}: column {info.name!r} holds {info.dtype} "
+                             "values, not arrays.")
         infos.append(new)
-    ids = [c.name for c in infos if c.role == "id"]
-    if len(ids) > 1:
-        raise TableError(f"{table.name}: only one column can be the id; got "
-                         f"{', '.join(map(repr, ids))}. Give the others another role.")
-    return replace(table, columns=tuple(infos), id_column=ids[0] if ids else None,
+    return replace(table, columns=tuple(infos), id_column=single_id(table.name, infos),
                    conversions=tuple(how.items()), facts=facts)
 
 
