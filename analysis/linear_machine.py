@@ -43,8 +43,11 @@ class ExactLinearMachine(ClassifierMixin, BaseEstimator):
         self.C = C
         self.max_iter = max_iter
 
-    def fit(self, X: np.ndarray, y: np.ndarray) -> ExactLinearMachine:
-        """Solve the problem on rows ``X`` (already scaled) with labels ``y``."""
+    def fit(self, X: np.ndarray, y: np.ndarray,
+            start: np.ndarray | None = None) -> ExactLinearMachine:
+        """Solve the problem on rows ``X`` (already scaled) with labels ``y``, from the
+        weights ``start`` (the coefficients, then the intercept) when given: the same
+        minimum, in fewer steps from a start near it."""
         X = np.asarray(X, dtype=np.float64)
         classes = np.unique(y)
         if len(classes) != 2:
@@ -56,7 +59,8 @@ class ExactLinearMachine(ClassifierMixin, BaseEstimator):
         rows = np.empty((len(X), X.shape[1] + 1))
         rows[:, :-1] = X
         rows[:, -1] = 1.0
-        w, self.n_iter_ = _squared_hinge_newton(rows, sign, cost, int(self.max_iter))
+        w, self.n_iter_ = _squared_hinge_newton(rows, sign, cost, int(self.max_iter),
+                                                 start)
         self.coef_ = w[None, :-1]
         self.intercept_ = w[-1:]
         self.classes_ = classes
@@ -72,24 +76,31 @@ class ExactLinearMachine(ClassifierMixin, BaseEstimator):
 
 
 def _squared_hinge_newton(rows: np.ndarray, sign: np.ndarray, cost: np.ndarray,
-                          max_iter: int) -> tuple[np.ndarray, int]:
+                          max_iter: int, start: np.ndarray | None = None
+                          ) -> tuple[np.ndarray, int]:
     """Minimize 0.5 |w|^2 + sum cost_i max(0, 1 - sign_i rows_i . w)^2 by Newton's method
-    with a backtracking (Armijo) line search: the weights and the iterations run.
+    with a backtracking (Armijo) line search, from ``start`` (zero when None or worse than
+    zero): the weights and the iterations run. The minimum does not depend on the start (the
+    problem is strictly convex); a start near it takes fewer steps.
 
     Sums over rows are numpy's own (pairwise, fixed order) or :func:`_gram`'s, so the weights
     do not depend on how many threads the linear algebra library runs."""
     width = rows.shape[1]
-    w = np.zeros(width)
-    slack = np.ones(len(rows))
-    objective = float(np.sum(cost))
-    first = None
+    w = np.zeros(width) if start is None else np.array(start, dtype=np.float64)
+    slack = 1.0 - sign * (rows @ w)
+    kept = np.maximum(slack, 0.0)
+    objective = 0.5 * float(np.sum(w * w)) + float(np.sum(cost * kept * kept))
+    if start is not None and objective > float(np.sum(cost)):
+        # a start worse than zero: begin at zero, as without one
+        w, slack, objective = np.zeros(width), np.ones(len(rows)), float(np.sum(cost))
+    at_zero = -np.sum(rows * (2.0 * cost * sign)[:, None], axis=0)
+    first = float(np.sqrt(np.sum(at_zero * at_zero)))
     for iteration in range(1, max_iter + 1):
         inside = slack > 0
         part = rows[inside]
         pull = 2.0 * cost[inside] * sign[inside] * slack[inside]
         gradient = w - np.sum(part * pull[:, None], axis=0)
         size = float(np.sqrt(np.sum(gradient * gradient)))
-        first = size if first is None else first
         if size <= NEWTON_TOLERANCE * first:
             return w, iteration - 1
         hessian = _gram(part, part * (2.0 * cost[inside])[:, None])

@@ -158,8 +158,9 @@ def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     return refit, None, exact
 
 
-def learning_curve(run) -> list[dict]:
-    """Mean and spread of the score at each training fraction of ``LEARNING_FRACTIONS``."""
+def learning_curve(run, near=None) -> list[dict]:
+    """Mean and spread of the score at each training fraction of ``LEARNING_FRACTIONS``
+    (``near``: split 1's model, where the fits may start; see separator_models.fit)."""
     step = run.step
     kernel = run.kernel_method is not None
     limit = KERNEL_CURVE_ROWS if kernel else step.sample_rows
@@ -174,7 +175,7 @@ def learning_curve(run) -> list[dict]:
 
     def one(job):
         j, train, test = job
-        model = fit(run, pool[train], seed_offset=2000 + j, for_scores=True)
+        model = fit(run, pool[train], seed_offset=2000 + j, for_scores=True, near=near)
         return score(run, run.y[pool[test]], predict(model, run.X[pool[test]]))
 
     jobs = [(j, train, test) for _, splits in planned

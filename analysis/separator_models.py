@@ -73,13 +73,15 @@ def kernel_method(step, n: int, regression: bool, table_name: str) -> tuple[str,
 
 
 def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset: int = 0,
-        for_scores: bool = False):
+        for_scores: bool = False, near=None):
     """Fit the model of ``run`` (a prepared run) on ``train`` rows (labels default to the
     true ones), with the permuted copies of those rows; solver warnings go to its log.
 
     ``for_scores``: the fit only scores held-out rows (the later splits, the learning curve,
     the permutation test), so a two-class linear machine is solved by
-    :class:`analysis.linear_machine.ExactLinearMachine` (see :func:`exact_solver_applies`).
+    :class:`analysis.linear_machine.ExactLinearMachine` (see :func:`exact_solver_applies`);
+    its Newton steps then start from the separator of ``near`` (a fitted two-class linear
+    pipeline, split 1's), rescaled to this fit's scaler: the same minimum, in a few steps.
     """
     step = run.step
     y = run.y if labels is None else labels
@@ -96,16 +98,41 @@ def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset
         chosen = np.isin(run.copy_source, rows)
         X_train = np.vstack([X_train, run.copy_values[chosen]])
         y_train = np.concatenate([y_train, y[run.copy_source[chosen]]])
+    exact = for_scores and exact_solver_applies(run)
     estimator = make_estimator(step, regression=run.regression, n_classes=run.n_classes,
                                kernel_mode=run.kernel_mode, n_rows=len(y_train),
-                               seed=step.seed + seed_offset,
-                               exact_solver=for_scores and exact_solver_applies(run))
+                               seed=step.seed + seed_offset, exact_solver=exact)
     with checked_once():
-        estimator.fit(X_train, y_train)
+        start = _raw_separator(near) if exact else None
+        if start is None:
+            estimator.fit(X_train, y_train)
+        else:
+            # the pipeline's two steps fitted in turn, as its fit does, with the start in
+            # the scaled units of this fit
+            scaler = estimator[0]
+            scaled = scaler.fit_transform(X_train)
+            coef, intercept = start
+            estimator[-1].fit(scaled, y_train, start=np.append(
+                coef * scaler.scale_, intercept + float(np.sum(coef * scaler.mean_))))
     # read off the fitted estimator, not from the solvers' warnings: fits run on threads,
     # and Python's record of warnings is one for the whole process
     run.log.fit_warnings.update(solver_notes(estimator, X_train, y_train))
     return estimator
+
+
+def _raw_separator(model) -> tuple[np.ndarray, float] | None:
+    """A fitted two-class linear pipeline (a standardizing scaler, then a linear machine)
+    written as coef . x + intercept on the unscaled features, clipping aside; None for other
+    models or none."""
+    steps = getattr(model, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    scaler, machine = steps[0][1], steps[1][1]
+    coef = getattr(machine, "coef_", None)
+    if coef is None or np.shape(coef)[0] != 1 or getattr(scaler, "scale_", None) is None:
+        return None
+    raw = np.asarray(coef[0], dtype=np.float64) / scaler.scale_
+    return raw, float(machine.intercept_[0]) - float(np.sum(raw * scaler.mean_))
 
 
 def exact_solver_applies(run) -> bool:

@@ -82,3 +82,16 @@ def test_one_class_is_refused():
     X, _ = _scaled_breast_cancer()
     with pytest.raises(StepError, match="needs two classes; got 1"):
         ExactLinearMachine().fit(X, np.zeros(len(X), dtype=int))
+
+
+def test_a_start_changes_the_steps_not_the_minimum():
+    # the problem is strictly convex (an L2 penalty on every weight), so its minimum is one
+    # point whatever the start (any convex optimization text, e.g. Boyd and Vandenberghe 2004)
+    X, y = _scaled_breast_cancer()
+    cold = ExactLinearMachine().fit(X, y)
+    near = np.append(cold.coef_[0], cold.intercept_) * 1.01
+    warm = ExactLinearMachine().fit(X, y, start=near)
+    far = ExactLinearMachine().fit(X, y, start=np.full(X.shape[1] + 1, 50.0))
+    for other in (warm, far):
+        np.testing.assert_allclose(other.coef_, cold.coef_, rtol=1e-9, atol=1e-12)
+    assert warm.n_iter_ < cold.n_iter_, (warm.n_iter_, cold.n_iter_)
