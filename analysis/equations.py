@@ -57,6 +57,8 @@ _PATH_ROWS = 5000
 # Rows used to fit the sparse path in the degree-2 feature space.
 _QUADRATIC_PATH_ROWS = 5000
 # Supports (sets of features) refitted one by one.
+# The 1-norm programmes on every feature: their penalties, in rows' worth of hinge loss.
+_PENALTY_SCALES = (0.01, 0.3)
 _MAX_SUPPORTS = 16
 # Rows used to rank every rounded candidate, candidates kept for ranking on the whole sample,
 # and candidates checked exactly on every row.
@@ -115,6 +117,9 @@ class LinearEquation:
     notes: tuple[str, ...]
     feature_names: tuple[str, ...] = ()
     exact: bool = True
+    # the same inequality in a column's own values when its one term is a log-scaled
+    # feature (``"disc >= 0"`` for ``"slog(disc) >= 0"``); "" otherwise
+    in_columns: str = ""
 
     @property
     def text(self) -> str:
@@ -136,6 +141,7 @@ class LinearEquation:
             "text": self.text,
             "violations": int(self.violations),
             "violating_rows": [_plain(row) for row in self.violating_rows],
+            **({"in_columns": self.in_columns} if self.in_columns else {}),
         }
 
     def holds(self, X) -> np.ndarray:
@@ -749,6 +755,9 @@ def _l1_svm_direction(Z, signs, working, penalty_scale: float, norm: float = 1.0
         errors = float(np.mean(margins <= 0))
         if best[0] is None or errors < best[1]:
             best = (direction, errors, max(1.0, float(np.abs(direction).sum())))
+        if best[1] == 0.0:
+            # every row of Z is on its side: no later programme can be kept over this one
+            break
         wrong = int(np.count_nonzero(margins[working] <= 0))
         if wrong:
             # Below about 1e-8 HiGHS stops trusting the objective and reports failures.
@@ -771,14 +780,18 @@ class _DirectionFitter:
     standardized by ``mean`` and ``spread``; ``signs`` is +1 for positive rows, -1 otherwise.
     """
 
-    def __init__(self, Z, signs, active, spread, size, rng, seed) -> None:
+    def __init__(self, Z, signs, active, spread, size, rng, seed,
+                 penalties=_PENALTY_SCALES) -> None:
         self.Z, self.signs, self.active = Z, signs, np.asarray(active)
+        self.penalties = tuple(penalties)
         self.spread, self.size, self.rng, self.seed = spread, size, rng, seed
         self.working = _stratified_rows(signs > 0, _LP_ROWS, rng)
         self.gram = Z.T @ Z
         self.moment = Z.T @ (signs - signs.mean())
         self.use_programs = True
         self.importance = np.zeros(Z.shape[1])
+        # supports whose 1-norm refits wait for the search (see directions)
+        self.pending: list[tuple[int, ...]] = []
 
     def _raw(self, direction: np.ndarray) -> np.ndarray:
         full = np.zeros(self.size)
@@ -791,51 +804,47 @@ class _DirectionFitter:
         When ``errors`` is a list, the 1-norm SVM's misclassified fraction is appended to it
         (the least-squares direction has no threshold of its own and is not counted).
         """
-        k = self.Z.shape[1]
         found = []
         if self.use_programs:
-            refit, missed, _ = _l1_svm_direction(self.Z[:, columns], self.signs, self.working, 0.01)
+            refit, missed = self._programme_refit(columns)
             if refit is not None:
-                full = np.zeros(k)
-                full[columns] = refit
-                found.append(full)
+                found.append(refit)
                 if errors is not None:
-                    errors.append((missed, full))
+                    errors.append((missed, refit))
+        found.extend(self._least_squares_refit(columns))
+        return found
+
+    def _programme_refit(self, columns: list[int]):
+        """The 1-norm SVM on a support (local column indices), in standardized units, and the
+        fraction of the rows it misclassifies; (None, 1.0) when the programme fails."""
+        refit, missed, _ = _l1_svm_direction(self.Z[:, columns], self.signs, self.working, 0.01)
+        if refit is None:
+            return None, missed
+        full = np.zeros(self.Z.shape[1])
+        full[columns] = refit
+        return full, missed
+
+    def _least_squares_refit(self, columns: list[int]) -> list[np.ndarray]:
         # Z is centered on these rows, so the least-squares intercept separates out and the
         # normal equations give the discriminant direction.
         try:
             coefs = np.linalg.solve(self.gram[np.ix_(columns, columns)], self.moment[columns])
         except np.linalg.LinAlgError:
-            return found
-        full = np.zeros(k)
+            return []
+        full = np.zeros(self.Z.shape[1])
         full[columns] = coefs
-        found.append(full)
-        return found
+        return [full]
 
-    def directions(self) -> list[np.ndarray]:
-        """Directions (raw units) along sparsity paths and refitted on their supports."""
+    def _path(self) -> list[tuple[np.ndarray, bool]]:
+        """The sparsity paths' proposals in order, each with whether its direction is kept
+        (the lasso path's entry order proposes supports only)."""
         from sklearn.exceptions import ConvergenceWarning
         from sklearn.linear_model import LogisticRegression, lars_path
         from sklearn.svm import l1_min_c
 
         Z, signs = self.Z, self.signs
         k = Z.shape[1]
-        directions: list[np.ndarray] = []
-        supports: list[tuple[int, ...]] = []
-
-        def keep(direction, record_support=True, record_direction=True):
-            if direction is None or not np.all(np.isfinite(direction)):
-                return
-            scale = np.max(np.abs(direction)) if direction.size else 0.0
-            if scale <= 0:
-                return
-            direction = np.where(np.abs(direction) > 1e-9 * scale, direction, 0.0)
-            if record_direction:
-                directions.append(direction)
-            support = tuple(np.flatnonzero(direction).tolist())
-            if record_support and support not in supports:
-                supports.append(support)
-
+        proposals: list[tuple[np.ndarray, bool]] = []
         # Path of L1-penalized logistic regressions, from one feature to many.
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
@@ -858,7 +867,7 @@ class _DirectionFitter:
                         max_iter=300,
                         random_state=self.seed,
                     ).fit(Z_path, signs_path)
-                    keep(model.coef_[0].copy())
+                    proposals.append((model.coef_[0].copy(), True))
                     if np.count_nonzero(model.coef_[0]) >= min(k, 2 * _TRUNCATION_TERMS):
                         break
             # The order in which features enter a lasso path on the labels.
@@ -866,16 +875,38 @@ class _DirectionFitter:
                 _, _, path = lars_path(
                     Z, signs - signs.mean(), method="lasso", max_iter=min(k, 3 * _TRUNCATION_TERMS)
                 )
-                for column in path.T[1:]:
-                    keep(column.copy(), record_direction=False)
+                proposals.extend((column.copy(), False) for column in path.T[1:])
             except (ValueError, np.linalg.LinAlgError):
                 pass
+        return proposals
 
+    def directions(self) -> list[np.ndarray]:
+        """Directions (raw units) along sparsity paths and refitted on their supports (of
+        two features or more: the search tries each feature on its own anyway)."""
+        Z, signs = self.Z, self.signs
+        directions: list[np.ndarray] = []
+        supports: list[tuple[int, ...]] = []
+
+        def keep(direction, record_support=True, record_direction=True):
+            direction = _cleaned(direction)
+            if direction is None:
+                return
+            if record_direction:
+                directions.append(direction)
+            support = tuple(np.flatnonzero(direction).tolist())
+            if record_support and support not in supports:
+                supports.append(support)
+
+        # the paths and the penalties' programmes are independent: run at once, kept in order
+        path, *programmes = _in_order(
+            lambda scale: self._path() if scale is None
+            else _l1_svm_direction(Z, signs, self.working, scale),
+            (None, *self.penalties),
+        )
+        for direction, record in path:
+            keep(direction, record_direction=record)
         errors = 1.0
-        # the two penalties' programmes are independent: solved at once, kept in order
-        for direction, missed, _ in _in_order(
-            lambda scale: _l1_svm_direction(Z, signs, self.working, scale), (0.01, 0.3)
-        ):
+        for direction, missed, _ in programmes:
             keep(direction)
             errors = min(errors, missed)
         # When the classes overlap a lot, the linear programs are slow and their refits add
@@ -895,14 +926,28 @@ class _DirectionFitter:
                 if subset not in supports:
                     supports.append(subset)
 
-        # Refit each support found so far without shrinkage.
+        # Refit each support found so far without shrinkage. A single feature rounds to the
+        # same candidate whatever its weight, and the search tries every single feature on
+        # its own, so a support of one is not refitted. The least-squares refits are cheap
+        # and come now; the 1-norm programmes wait in ``pending`` until the search knows how
+        # short an equation it has, and skips the supports that cannot beat it.
         supports.sort(key=len)
-        refits = _in_order(lambda support: self._refit_local(list(support)),
-                           supports[:_MAX_SUPPORTS])
-        for found in refits:
-            for direction in found:
+        chosen = [s for s in supports[:_MAX_SUPPORTS] if len(s) > 1]
+        for support in chosen:
+            for direction in self._least_squares_refit(list(support)):
                 keep(direction, record_support=False)
+        self.pending = chosen if self.use_programs else []
         return [self._raw(direction) for direction in directions]
+
+    def pending_columns(self, support: Sequence[int]) -> list[int]:
+        """The columns of the space (not of Z) that a pending support refits."""
+        return [int(self.active[j]) for j in support]
+
+    def programme_refits(self, supports) -> list[np.ndarray]:
+        """The 1-norm SVM refitted on each of these pending supports (raw units)."""
+        found = _in_order(lambda support: self._programme_refit(list(support))[0], supports)
+        cleaned = [_cleaned(direction) for direction in found]
+        return [self._raw(direction) for direction in cleaned if direction is not None]
 
     def neighbours(self, support: Sequence[int]):
         """Directions (raw units) refitted on the support with one feature added or removed.
@@ -929,6 +974,17 @@ class _DirectionFitter:
             found.extend(self._raw(direction) for direction in directions)
             errors.extend(mine)
         return found, [(missed, self._raw(direction)) for missed, direction in errors]
+
+
+def _cleaned(direction):
+    """A fitted direction with entries below 1e-9 of its largest set to zero; None when it is
+    missing, not finite or zero."""
+    if direction is None or not np.all(np.isfinite(direction)):
+        return None
+    scale = np.max(np.abs(direction)) if direction.size else 0.0
+    if scale <= 0:
+        return None
+    return np.where(np.abs(direction) > 1e-9 * scale, direction, 0.0)
 
 
 def _in_order(work, items) -> list:
@@ -1430,6 +1486,127 @@ def _lattice_candidates(
     return _primitive_rows(support.tolist(), best[order[:3]])
 
 
+class _Ranking:
+    """Candidates ranked on the sample and checked on every row, with each count and check
+    kept, so that a search that adds candidates ranks only the new ones."""
+
+    def __init__(self, space: _Space, positive: np.ndarray, sample: np.ndarray,
+                 matrix: np.ndarray) -> None:
+        self.space, self.positive, self.sample, self.matrix = space, positive, sample, matrix
+        self.sample_positive = positive[sample]
+        self.subsample = _stratified_rows(self.sample_positive, _RANKING_ROWS,
+                                          np.random.default_rng(0))
+        self.first: dict = {}
+        self.second: dict = {}
+        self.evaluated: dict = {}
+        self.codes: dict = {}
+
+    def _counts(self, store: dict, rows, candidates: list) -> np.ndarray:
+        new = [c for c in candidates if c not in store]
+        if new:
+            matrix = self.matrix if rows is None else self.matrix[rows]
+            labels = self.sample_positive if rows is None else self.sample_positive[rows]
+            store.update(zip(new, _sample_violations(matrix, labels, new).tolist()))
+        return np.array([store[c] for c in candidates], dtype=np.int64)
+
+    def finalists(self, candidates: list) -> list:
+        """The few candidates (``candidates`` in their search order) for the check on every
+        row: every candidate ranked on a small subsample, the best hundred on the whole
+        sample, then the best few of those."""
+        space, subsample = self.space, self.subsample
+        first = self._counts(self.first, subsample, candidates)
+        shortlist = _shortlist(candidates, first, _SHORTLIST, subsample.size, space.size)
+        if subsample.size < self.sample.size:
+            kept = [candidates[i] for i in shortlist]
+            second = self._counts(self.second, None, kept)
+            # Past a few hundred thousand rows each exact check costs a sort of every row.
+            size = _FINALISTS if space.n_rows <= 200_000 else _FINALISTS // 2 + 1
+            return [kept[i] for i in _shortlist(kept, second, size, self.sample.size,
+                                                space.size)]
+        chosen = _shortlist(candidates, first, _FINALISTS, self.sample.size, space.size)
+        return [candidates[i] for i in chosen]
+
+    def check(self, candidates: list) -> None:
+        """Each candidate's constant chosen and checked on every row (once per candidate)."""
+        new = [c for c in dict.fromkeys(candidates) if c not in self.evaluated]
+        # each check on every row is independent of the others: run on every core, once the
+        # exact columns they share are read (in this thread)
+        for candidate in new:
+            for index, _ in candidate:
+                self.space.exact_column(index)
+        found = _in_order(lambda candidate: _evaluate(self.space, candidate, self.positive), new)
+        self.evaluated.update(zip(new, found))
+
+    def best(self, candidates: list) -> _Evaluation:
+        """The best of these checked candidates."""
+        evaluations = [e for e in map(self.evaluated.get, candidates) if e is not None]
+        if not evaluations:
+            raise StepError(
+                "no equation could be formed: every candidate gives the same value on every row."
+            )
+        return min(evaluations, key=self.rank)
+
+    def rank(self, evaluation: _Evaluation):
+        return evaluation.key(self.space.n_rows, self.space.size), evaluation.candidate
+
+    def checked(self) -> int:
+        return sum(1 for e in self.evaluated.values() if e is not None)
+
+    def mixed_rows(self, columns: Sequence[int]) -> int:
+        """Sample rows that every inequality in these columns of the space gets wrong at
+        least: among rows equal in every one of them, the smaller class (such rows have one
+        score whatever the coefficients, so one side is wrong for any constant)."""
+        key, size = self._codes(columns[0])
+        for j in columns[1:]:
+            codes, count = self._codes(j)
+            if size * count >= 2**62:
+                _, key = np.unique(key, return_inverse=True)
+                size = int(key.max()) + 1
+            key, size = key * count + codes, size * count
+        if size > 4 * key.size:
+            _, key = np.unique(key, return_inverse=True)
+        rows_at = np.bincount(key)
+        positives_at = np.bincount(key[self.sample_positive], minlength=rows_at.size)
+        return int(np.minimum(positives_at, rows_at - positives_at).sum())
+
+    def _codes(self, j: int) -> tuple[np.ndarray, int]:
+        if j not in self.codes:
+            values, codes = np.unique(self.matrix[:, j], return_inverse=True)
+            self.codes[j] = (codes.reshape(-1).astype(np.int64), int(values.size))
+        return self.codes[j]
+
+
+def _candidates_of(directions, spread, max_denominator: int, max_terms: int | None) -> set:
+    found: set = set()
+    for direction in directions:
+        found |= _snap_direction(direction, spread, max_denominator, max_terms)
+    return {c for c in found if max_terms is None or len(c) <= max_terms}
+
+
+def _in_search_order(candidates) -> list:
+    return sorted(candidates, key=lambda c: (_height(c), c))
+
+
+def _programmes_worth_solving(ranking: _Ranking, supports, columns_of, bound: float) -> list:
+    """The supports whose 1-norm refit could still give an equation whose description is
+    at most ``bound`` bits.
+
+    A candidate of a refit lives on its support, and a single feature is tried on its own, so
+    a new one has two terms at least, each costing at least the bits of naming a feature, a
+    sign and a coefficient of 1. Rows equal on the support with both classes among them break
+    any inequality on it (counted on the sample: at least as many on every row)."""
+    space = ranking.space
+    worth = []
+    for support in supports:
+        columns = columns_of(support)
+        broken = ranking.mixed_rows(columns)
+        cheapest = _description_length(broken, ((columns[0], 1), (columns[1], 1)),
+                                       space.n_rows, space.size)
+        if cheapest <= bound + 1e-6:
+            worth.append(support)
+    return worth
+
+
 def _search(
     space: _Space,
     positive: np.ndarray,
@@ -1443,82 +1620,80 @@ def _search(
 ) -> _SearchResult:
     matrix = space.matrix(sample)
     spread = matrix.std(axis=0)
-    candidates: set = set()
-    for direction in directions:
-        candidates |= _snap_direction(direction, spread, max_denominator, max_terms)
+    candidates = _candidates_of(directions, spread, max_denominator, max_terms)
     if include_single:
         candidates |= {((index, 1),) for index in range(space.size) if spread[index] > 0}
-    candidates = sorted(
-        (c for c in candidates if max_terms is None or len(c) <= max_terms),
-        key=lambda c: (_height(c), c),
-    )
     if not candidates:
         raise StepError(
             "no equation could be formed: every feature is constant on the rows searched. "
             "Choose features that vary."
         )
-    sample_positive = positive[sample]
-    # Rank in two stages: every candidate on a small subsample, the best hundred on the whole
-    # sample; then the few best go to the exact check on every row.
-    subsample = _stratified_rows(sample_positive, _RANKING_ROWS, np.random.default_rng(0))
-    first = _sample_violations(matrix[subsample], sample_positive[subsample], candidates)
-    shortlist = _shortlist(candidates, first, _SHORTLIST, subsample.size, space.size)
-    if subsample.size < sample.size:
-        kept = [candidates[i] for i in shortlist]
-        second = _sample_violations(matrix, sample_positive, kept)
-        # Past a few hundred thousand rows each exact check costs a sort of every row.
-        size = _FINALISTS if space.n_rows <= 200_000 else _FINALISTS // 2 + 1
-        finalists = [kept[i] for i in _shortlist(kept, second, size, sample.size, space.size)]
-    else:
-        chosen = _shortlist(candidates, first, _FINALISTS, sample.size, space.size)
-        finalists = [candidates[i] for i in chosen]
-    # each finalist's exact check on every row is independent of the others: run on every
-    # core, once the exact columns they share are read (in this thread)
-    for candidate in finalists:
-        for index, _ in candidate:
-            space.exact_column(index)
-    evaluations = _in_order(lambda candidate: _evaluate(space, candidate, positive), finalists)
-    evaluations = [e for e in evaluations if e is not None]
-    if not evaluations:
-        raise StepError(
-            "no equation could be formed: every candidate gives the same value on every row."
-        )
-
-    def rank(e):
-        return e.key(space.n_rows, space.size), e.candidate
-
-    best = min(evaluations, key=rank)
+    ranking = _Ranking(space, positive, sample, matrix)
+    finalists = ranking.finalists(_in_search_order(candidates))
+    ranking.check(finalists)
+    if fitter is not None and fitter.pending and (max_terms is None or max_terms > 1):
+        candidates, finalists = _with_programme_refits(
+            ranking, fitter, candidates, finalists,
+            lambda directions: _candidates_of(directions, spread, max_denominator, max_terms))
+    best = ranking.best(finalists)
     tried = len(candidates)
     nearly_exact = 0 < best.violations <= 10 + space.n_rows // 1000
     if nearly_exact and fitter is not None and fitter.use_programs:
-        # A handful of violations on nearly separable rows: a feature that matters only near
-        # the boundary may be missing (or one too many). Refit on the best support with one
-        # feature added or removed, round, and check the best few again.
-        extra: set = set()
-        directions_near, separators = fitter.neighbours([index for index, _ in best.candidate])
-        for direction in directions_near:
-            extra |= _snap_direction(direction, spread, max_denominator, max_terms)
-        # Rounding a separating normal can land just outside the narrow cone of exact ones;
-        # small integer vectors with its signs, tried on the rows near its boundary, do not.
-        fewest_missed = min((missed for missed, _ in separators), default=1.0)
-        closest = sorted(
-            (d for missed, d in separators if missed <= fewest_missed),
-            key=lambda d: np.count_nonzero(d),
-        )
-        for direction in closest[:4]:
-            extra |= _lattice_candidates(matrix, sample_positive, direction, max_denominator)
-        extra = sorted(
-            c for c in extra - set(finalists) if max_terms is None or len(c) <= max_terms
-        )
+        extra = _neighbour_candidates(ranking, fitter, best, spread, max_denominator, max_terms)
+        extra = sorted(extra - set(ranking.evaluated))
         if extra:
             tried += len(extra)
-            counts = _sample_violations(matrix, sample_positive, extra)
-            for i in _shortlist(extra, counts, 4, sample.size, space.size):
-                evaluation = _evaluate(space, extra[i], positive)
-                if evaluation is not None:
-                    evaluations.append(evaluation)
-            best = min(evaluations, key=rank)
-    return _SearchResult(best, tried, len(evaluations))
+            counts = _sample_violations(matrix, ranking.sample_positive, extra)
+            finalists = finalists + [extra[i] for i in _shortlist(extra, counts, 4, sample.size,
+                                                                  space.size)]
+            ranking.check(finalists)
+            best = ranking.best(finalists)
+    return _SearchResult(best, tried, ranking.checked())
+
+
+def _with_programme_refits(ranking: _Ranking, fitter: _DirectionFitter, candidates: set,
+                           finalists: list, rounded) -> tuple[set, list]:
+    """The candidates and finalists once the pending supports' 1-norm refits are in.
+
+    Only the supports that can still beat the best finalist so far are refitted (see
+    _programmes_worth_solving); the finalists are then chosen again from every candidate.
+    Should that best finalist drop out of them, the skipped supports are refitted too, so
+    that the result is the one a search refitting every support finds.
+    """
+    space = ranking.space
+    bound = ranking.best(finalists).key(space.n_rows, space.size)[0]
+    pending, fitter.pending = fitter.pending, []
+    worth = _programmes_worth_solving(ranking, pending, fitter.pending_columns, bound)
+    skipped = [support for support in pending if support not in worth]
+    for supports in (worth, skipped):
+        added = rounded(fitter.programme_refits(supports)) - candidates
+        if added:
+            candidates = candidates | added
+            finalists = ranking.finalists(_in_search_order(candidates))
+            ranking.check(finalists)
+        if ranking.best(finalists).key(space.n_rows, space.size)[0] <= bound + 1e-6:
+            break
+    return candidates, finalists
+
+
+def _neighbour_candidates(ranking: _Ranking, fitter: _DirectionFitter, best: _Evaluation,
+                          spread, max_denominator: int, max_terms: int | None) -> set:
+    """Candidates refitted near the best equation's support, for a handful of violations on
+    nearly separable rows: a feature that matters only near the boundary may be missing (or
+    one too many). Refits on the best support with one feature added or removed, rounded."""
+    directions_near, separators = fitter.neighbours([index for index, _ in best.candidate])
+    extra = _candidates_of(directions_near, spread, max_denominator, max_terms)
+    # Rounding a separating normal can land just outside the narrow cone of exact ones;
+    # small integer vectors with its signs, tried on the rows near its boundary, do not.
+    fewest_missed = min((missed for missed, _ in separators), default=1.0)
+    closest = sorted(
+        (d for missed, d in separators if missed <= fewest_missed),
+        key=lambda d: np.count_nonzero(d),
+    )
+    for direction in closest[:4]:
+        extra |= _lattice_candidates(ranking.matrix, ranking.sample_positive, direction,
+                                     max_denominator)
+    return {c for c in extra if max_terms is None or len(c) <= max_terms}
 
 
 def _describe_gap(evaluation: _Evaluation) -> Note:
@@ -1950,7 +2125,8 @@ def surrogate_quadratic(
         Z = (matrix[:, active] - mean[active]) / spread[active]
         signs = np.where(labels[path_rows], 1.0, -1.0)
         if np.unique(signs).size == 2:
-            fitter = _DirectionFitter(Z, signs, active, spread, space.size, rng, seed)
+            fitter = _DirectionFitter(Z, signs, active, spread, space.size, rng, seed,
+                                      penalties=_PENALTY_SCALES[:1])
             directions.extend(fitter.directions())
     result = _search(
         space,

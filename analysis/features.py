@@ -16,6 +16,7 @@ import hashlib
 import itertools
 import math
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 import pandas as pd
@@ -571,6 +572,35 @@ def signed_log(values) -> np.ndarray:
             x = float(v)
             out[i] = math.copysign(math.log10(1 + abs(x)), x)
     return out
+
+
+def signed_log_threshold(q, relation: str, whole: bool) -> int | None:
+    """The number T with ``sign(x)*log10(1+|x|) relation q`` exactly when ``x relation T``
+    (``relation`` ">=" or "<="), so that an equation on a log-scaled feature reads in the
+    column's own values; None when no such T is exact.
+
+    The signed log is strictly increasing and takes the value n at sign(n)*(10^|n| - 1), so a
+    whole q gives that T for any x. For a q that is not whole, 10^|q| is irrational and T is
+    exact only for whole-number x (``whole``): with r the integer part of 10^|q|, x >= r-1
+    keeps 1+|x| below 10^|q| and x >= r puts it above.
+
+    >>> signed_log_threshold(0, ">=", False), signed_log_threshold(2, "<=", False)
+    (0, 99)
+    >>> signed_log_threshold(Fraction(1, 2), ">=", True)  # sqrt(10) = 3.16...
+    3
+    """
+    from sympy import integer_nthroot
+
+    q = Fraction(q)
+    if q.denominator == 1:
+        n = int(q)
+        return 10**n - 1 if n >= 0 else -(10**-n - 1)
+    if not whole:
+        return None
+    root = integer_nthroot(10**abs(q.numerator), q.denominator)[0]  # root < 10^|q| < root+1
+    if q > 0:
+        return int(root) if relation == ">=" else int(root) - 1
+    return -(int(root) - 1) if relation == ">=" else -int(root)
 
 
 def _is_plain_number(table: Table, name: str, log_scale: str) -> bool:

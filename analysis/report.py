@@ -494,6 +494,10 @@ def _separator(data: dict) -> str:
         parts.append("<h3>Separating equation" + ("s" if len(equations) > 1 else "") + "</h3>")
     for equation in equations:
         parts.append(f"<pre class=\"equation\">{_e(_equation_text(equation))}</pre>")
+        if equation.get("in_columns"):
+            from analysis.separator_equation import in_columns_sentence
+
+            parts.append(f"<p>{_e(in_columns_sentence(equation['in_columns']))}</p>")
         positive = equation.get("positive_class")
         if positive is not None:
             parts.append(f"<p>A row is predicted {_code(_setting(positive))} exactly when this "

@@ -391,7 +391,9 @@ def _violations_text(equation) -> str:
     count = getattr(equation, "violations", None)
     if count is None:
         return ""
-    return f" ({count} violating row{'s' if count != 1 else ''})"
+    same = getattr(equation, "in_columns", "")
+    return f" ({count} violating row{'s' if count != 1 else ''})" + (
+        f", that is {same} in the column's own values" if same else "")
 
 
 # ----------------------------------------------------------------------------------------

@@ -81,20 +81,52 @@ def _linear_equations(run, model, options: dict, scores_of) -> dict:
             run.X, run.y == 1, names, row_ids=ids,
             positive_class=run.positive_class,
             hint=(weights[0], float(intercepts[0])), **options)
+        equation = in_own_values(equation, run.fm.features, run.table)
         return {"equation": equation,
                 "decision": scores_of("equation margin (>= 0 on the positive side)",
                                       _left_side(equation, run.X, names))}
     # one equation per class against the rest, each seeded with that class's
     # hyperplane from the fitted model
     equations = tuple(
-        eqs.find_linear_equation(
+        in_own_values(eqs.find_linear_equation(
             run.X, run.y == k, names, row_ids=ids, positive_class=label,
-            hint=(weights[k], float(intercepts[k])), **options)
+            hint=(weights[k], float(intercepts[k])), **options), run.fm.features, run.table)
         for k, label in enumerate(run.classes))
     columns = np.column_stack([_left_side(e, run.X, names) for e in equations])
     return {"equations": equations,
             "decision": scores_of("equation margin of each class against the rest "
                                   "(>= 0 on that class's side)", columns)}
+
+
+def in_columns_sentence(text: str) -> str:
+    """The sentence that gives an equation's ``in_columns`` form, for the page and report."""
+    return (f"In the column's own values: {text} (the signed log is increasing, so the two "
+            "say the same).")
+
+
+def in_own_values(equation, features, table):
+    """``equation`` with its ``in_columns`` text set when its one term is a log-scaled
+    feature ``k*slog(c)`` and the inequality reads exactly in the column's own values
+    (:func:`analysis.features.signed_log_threshold`); otherwise ``equation`` itself."""
+    from dataclasses import replace
+    from fractions import Fraction
+
+    from analysis.features import signed_log_threshold
+
+    if len(equation.terms) != 1 or equation.terms[0].degree != 1:
+        return equation
+    term = equation.terms[0]
+    feature = next((f for f in features if f.name == term.feature), None)
+    if feature is None or feature.kind != "log":
+        return equation
+    relation = equation.relation
+    if term.coef < 0:
+        relation = "<=" if relation == ">=" else ">="
+    whole = table.column(feature.column).dtype in ("integer", "big integer")
+    threshold = signed_log_threshold(Fraction(equation.constant) / term.coef, relation, whole)
+    if threshold is None:
+        return equation
+    return replace(equation, in_columns=f"{feature.column} {relation} {threshold}")
 
 
 def _kernel_equation(run, model, predicted, machine_values, fitted_on: str, options: dict,

@@ -36,6 +36,7 @@ from analysis.equations import (
     surrogate_quadratic,
 )
 from analysis.errors import StepError
+from analysis.notes import note_code
 
 # ------------------------------------------------------------------------------------------
 # Helpers
@@ -95,6 +96,22 @@ def test_planted_integer_rule_is_recovered_exactly(rule, expected, noise_columns
     assert equation.exact
     assert not any(term.feature.startswith("noise") for term in equation.terms)
     # Independent check in exact rational arithmetic, row by row.
+    assert np.array_equal(exact_mask(equation, as_records(X, names)), positive)
+
+
+def test_planted_rule_among_coarse_columns_is_found_and_its_counts_are_consistent():
+    # Columns with 5 values on 3000 rows: every pair of columns has rows that agree on it but
+    # lie on both sides of the planted rule (constructed here, so known), so the search may
+    # skip refitting those pairs; the rule itself must still come out, and its note must
+    # count no more rows checked than candidates ranked.
+    X = integer_table(3000, 6, seed=5, high=4)
+    names = ["a", "b", "c", "d", "e", "f"]
+    positive = X[:, 0] + 2 * X[:, 1] - X[:, 2] >= 3
+    equation = find_linear_equation(X, positive, names, seed=0)
+    assert equation.text == "a + 2*b - c >= 3"
+    assert equation.violations == 0
+    counts = next(note.figures for note in equation.notes if note_code(note) == "candidates")
+    assert 1 <= counts["checked"] <= counts["tried"], counts
     assert np.array_equal(exact_mask(equation, as_records(X, names)), positive)
 
 

@@ -11,6 +11,7 @@ import itertools
 import json
 import math
 from collections import defaultdict
+from fractions import Fraction
 from pathlib import Path
 
 import numpy as np
@@ -591,3 +592,27 @@ def test_a_target_value_lost_to_missing_cells_names_the_column_that_lost_it():
     said = str(refused.value)
     assert "has one class (False)" in said
     assert f"'True' ({forests} rows; 'girth' is missing in {forests})" in said
+
+
+@pytest.mark.parametrize("q", [0, 1, 2, -1, -3, Fraction(1, 2), Fraction(-1, 2), Fraction(7, 3),
+                               Fraction(-22, 7), Fraction(41, 2)])
+@pytest.mark.parametrize("relation", [">=", "<="])
+def test_a_log_scaled_threshold_reads_in_the_columns_own_values(q, relation):
+    # sympy evaluates sign(x)*log10(1+|x|) against q to 60 digits: the reference for each x
+    import sympy
+
+    from analysis.features import signed_log_threshold
+
+    fractional = Fraction(q).denominator != 1
+    threshold = signed_log_threshold(q, relation, True)
+    assert threshold is not None
+    if fractional:
+        assert signed_log_threshold(q, relation, False) is None
+    edge = abs(threshold)
+    for x in sorted({0, 1, -1, threshold - 1, threshold, threshold + 1, -edge - 1, -edge,
+                     -edge + 1, edge - 1, edge, edge + 1, 10**25, -10**25}):
+        value = sympy.sign(x) * sympy.log(1 + abs(x), 10)
+        gap = (value - sympy.Rational(q.numerator, q.denominator)
+               if isinstance(q, Fraction) else value - q).evalf(60)
+        holds = gap >= 0 if relation == ">=" else gap <= 0
+        assert bool(holds) == (x >= threshold if relation == ">=" else x <= threshold), x

@@ -969,3 +969,37 @@ def test_refits_on_fixed_rows_predict_as_a_whole_pipeline_does(iris, model):
         expected = make_pipeline(StandardScaler(), inner).fit(
             X_train, labels[train]).predict(X_test)
         np.testing.assert_array_equal(refits.predict(labels), expected)
+
+
+def test_an_equation_on_a_log_scaled_column_is_also_given_in_its_own_values():
+    # a cubic x^3 + a*x + b has three real roots exactly when its discriminant
+    # -4a^3 - 27b^2 is positive, one when it is negative (a classical fact; sympy counts
+    # the real roots here). The discriminant times 10^20 lies past 64 bits, so it is
+    # log-scaled, and the equation on slog(...) reads again in the column's own integers.
+    import sympy
+
+    from analysis.table import read_table
+
+    x = sympy.symbols("x")
+    lines = ["a,b,scaled_disc,three_real"]
+    for a in range(-9, 4):
+        for b in range(-9, 10):
+            disc = -4 * a**3 - 27 * b**2
+            if disc == 0:
+                continue
+            three = len(sympy.real_roots(x**3 + a * x + b)) == 3
+            lines.append(f"{a},{b},{disc * 10**20},{three}")
+    table = read_table(("\n".join(lines) + "\n").encode(), "cubics.csv")
+    result = SeparatorStep(target="three_real", columns=("a", "b", "scaled_disc"),
+                           permutations=10, seed=0).run(table)
+    equation = result.equation
+    assert equation is not None and equation.violations == 0
+    assert [t.feature for t in equation.terms] == ["slog(scaled_disc)"]
+    column, relation, threshold = equation.in_columns.split()
+    assert column == "scaled_disc" and relation in (">=", "<=")
+    values = [int(v) for v in table.frame["scaled_disc"]]
+    said = [v >= int(threshold) if relation == ">=" else v <= int(threshold) for v in values]
+    positive = [bool(v) == (equation.positive_class in (True, "True")) for v in
+                table.frame["three_real"]]
+    assert said == positive
+    assert result.to_json()["equation"]["in_columns"] == equation.in_columns

@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
+from analysis.separator_equation import in_columns_sentence
 from analysis.separator_metrics import below_baseline_text
 from app import display, settings
 from app.figure_view import show_figures
@@ -277,6 +278,8 @@ def _equation(ctx, table, result, equation, number: int) -> None:
                 "exactly when")
     st.latex(equation.latex())
     st.code(equation.text, language=None)
+    if getattr(equation, "in_columns", ""):
+        st.text(in_columns_sentence(equation.in_columns))
     total = getattr(equation, "n_rows", None) or result.rows_used
     broken = equation.violations
     if broken == 0:
