@@ -18,6 +18,7 @@ from analysis.separator_metrics import CHANCE_LEVEL, score
 from analysis.separator_models import (
     KernelRefits,
     LabelRefits,
+    exact_solver_applies,
     fit,
     fit_ignores_seed,
     kernel_expansion,
@@ -66,13 +67,15 @@ def permutation_test(run, train, test, predicted):
     test_part = test if len(test) <= test_limit else np.sort(
         rng.choice(test, test_limit, replace=False))
     if len(train_part) == len(train) and len(test_part) == len(test) \
-            and fit_ignores_seed(step.model, run.kernel_mode):
-        # the same rows and a fit that does not use its seed: split 1's model is the
-        # refit, so its predictions give the observed score
+            and fit_ignores_seed(step.model, run.kernel_mode) and not exact_solver_applies(run):
+        # the same rows, the same solver and a fit that does not use its seed: split 1's
+        # model is the refit, so its predictions give the observed score
         observed = score(run, run.y[test], predicted)
         observed_model = None
     else:
-        observed_model = fit(run, train_part, seed_offset=1000)
+        # the observed score comes from the refits' own solver, so that the true and the
+        # shuffled labels meet the same statistic
+        observed_model = fit(run, train_part, seed_offset=1000, for_scores=True)
         observed = score(run, run.y[test_part], predict(observed_model, run.X[test_part]))
     score_of, shortcut, shared = _shuffled_scorer(run, train_part, test_part, observed_model)
     run.progress.phase("permutation test", total=count)
@@ -148,11 +151,16 @@ def _shuffled_scorer(run, train_part, test_part, observed_model=None):
     def refit(i):
         return score(run, truth, refits.predict(shuffled(i)))
 
-    return refit, None, None
+    exact = None
+    if exact_solver_applies(run):
+        exact = ("each refit, and the fit giving the observed score, solved to its minimum by "
+                 "Newton's method (the same problem as liblinear's)")
+    return refit, None, exact
 
 
-def learning_curve(run) -> list[dict]:
-    """Mean and spread of the score at each training fraction of ``LEARNING_FRACTIONS``."""
+def learning_curve(run, near=None) -> list[dict]:
+    """Mean and spread of the score at each training fraction of ``LEARNING_FRACTIONS``
+    (``near``: split 1's model, where the fits may start; see separator_models.fit)."""
     step = run.step
     kernel = run.kernel_method is not None
     limit = KERNEL_CURVE_ROWS if kernel else step.sample_rows
@@ -167,7 +175,7 @@ def learning_curve(run) -> list[dict]:
 
     def one(job):
         j, train, test = job
-        model = fit(run, pool[train], seed_offset=2000 + j)
+        model = fit(run, pool[train], seed_offset=2000 + j, for_scores=True, near=near)
         return score(run, run.y[pool[test]], predict(model, run.X[pool[test]]))
 
     jobs = [(j, train, test) for _, splits in planned

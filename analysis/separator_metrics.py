@@ -59,8 +59,8 @@ def class_report(run, test, predicted):
                "mcc_ci": [low, high]}
     baseline = {"accuracy": float(counts.sum(axis=1).max() / counts.sum())}
     interval = (f"bootstrap, {BOOTSTRAP_RESAMPLES} resamples of the {counts.sum()} test "
-                "rows, percentile 95% interval, seeded (resampled rows drawn as "
-                "multinomial counts over the confusion matrix, which is the same thing)")
+                "rows, each drawn as multinomial counts over the cells of the confusion "
+                "matrix, with a seeded percentile 95% interval")
     confusion = {"labels": list(run.classes), "counts": counts.tolist(),
                  "rows": "actual class", "columns": "predicted class"}
     return metrics, baseline, interval, confusion

@@ -72,9 +72,17 @@ def kernel_method(step, n: int, regression: bool, table_name: str) -> tuple[str,
     return mode, method
 
 
-def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset: int = 0):
+def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset: int = 0,
+        for_scores: bool = False, near=None):
     """Fit the model of ``run`` (a prepared run) on ``train`` rows (labels default to the
-    true ones), with the permuted copies of those rows; solver warnings go to its log."""
+    true ones), with the permuted copies of those rows; solver warnings go to its log.
+
+    ``for_scores``: the fit only scores held-out rows (the later splits, the learning curve,
+    the permutation test), so a two-class linear machine is solved by
+    :class:`analysis.linear_machine.ExactLinearMachine` (see :func:`exact_solver_applies`);
+    its Newton steps then start from the separator of ``near`` (a fitted two-class linear
+    pipeline, split 1's), rescaled to this fit's scaler: the same minimum, in a few steps.
+    """
     step = run.step
     y = run.y if labels is None else labels
     rows = train
@@ -90,15 +98,56 @@ def fit(run, train: np.ndarray, labels: np.ndarray | None = None, *, seed_offset
         chosen = np.isin(run.copy_source, rows)
         X_train = np.vstack([X_train, run.copy_values[chosen]])
         y_train = np.concatenate([y_train, y[run.copy_source[chosen]]])
+    exact = for_scores and exact_solver_applies(run)
     estimator = make_estimator(step, regression=run.regression, n_classes=run.n_classes,
                                kernel_mode=run.kernel_mode, n_rows=len(y_train),
-                               seed=step.seed + seed_offset)
+                               seed=step.seed + seed_offset, exact_solver=exact)
     with checked_once():
-        estimator.fit(X_train, y_train)
+        start = _raw_separator(near) if exact else None
+        if start is None:
+            estimator.fit(X_train, y_train)
+        else:
+            # the pipeline's two steps fitted in turn, as its fit does, with the start in
+            # the scaled units of this fit
+            scaler = estimator[0]
+            scaled = scaler.fit_transform(X_train)
+            coef, intercept = start
+            estimator[-1].fit(scaled, y_train, start=np.append(
+                coef * scaler.scale_, intercept + float(np.sum(coef * scaler.mean_))))
     # read off the fitted estimator, not from the solvers' warnings: fits run on threads,
     # and Python's record of warnings is one for the whole process
     run.log.fit_warnings.update(solver_notes(estimator, X_train, y_train))
     return estimator
+
+
+def _raw_separator(model) -> tuple[np.ndarray, float] | None:
+    """A fitted two-class linear pipeline (a standardizing scaler, then a linear machine)
+    written as coef . x + intercept on the unscaled features, clipping aside; None for other
+    models or none."""
+    steps = getattr(model, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    scaler, machine = steps[0][1], steps[1][1]
+    coef = getattr(machine, "coef_", None)
+    if coef is None or np.shape(coef)[0] != 1 or getattr(scaler, "scale_", None) is None:
+        return None
+    raw = np.asarray(coef[0], dtype=np.float64) / scaler.scale_
+    return raw, float(machine.intercept_[0]) - float(np.sum(raw * scaler.mean_))
+
+
+def exact_solver_applies(run) -> bool:
+    """Whether the run's model is the two-class linear machine with an L2 penalty, which
+    :class:`analysis.linear_machine.ExactLinearMachine` solves: the fits that only give
+    scores on held-out rows use it; split 1 and the fit on every row, whose coefficients
+    the equation reads, keep liblinear's. Up to ``MOST_FEATURES`` features, where its numbers
+    do not depend on the threads."""
+    step = run.step
+    if not (step.model == "linear" and step.penalty == "l2" and not run.regression
+            and run.n_classes == 2 and run.kernel_mode == "exact"):
+        return False
+    from analysis.linear_machine import MOST_FEATURES
+
+    return run.X.shape[1] <= MOST_FEATURES
 
 
 def checked_once():
@@ -119,7 +168,8 @@ class LabelRefits:
     For a linear classifier fitted on the rows themselves (no sample of them, no permuted
     copies) the scaler does not depend on the labels, so it is fitted, and both sides
     scaled, once; each refit then fits the last step alone. The predictions are those of
-    :func:`fit` then :func:`predict`, number for number. Other models refit whole.
+    :func:`fit` (with ``for_scores``) then :func:`predict`, number for number. Other models
+    refit whole.
     """
 
     def __init__(self, run, train: np.ndarray, test: np.ndarray, *, seed_offset: int):
@@ -140,13 +190,15 @@ class LabelRefits:
         run = self._run
         return make_estimator(run.step, regression=run.regression, n_classes=run.n_classes,
                               kernel_mode=run.kernel_mode, n_rows=len(self._train),
-                              seed=run.step.seed + self._seed_offset)
+                              seed=run.step.seed + self._seed_offset,
+                              exact_solver=exact_solver_applies(run))
 
     def predict(self, labels: np.ndarray) -> np.ndarray:
         """Predictions on the test rows of the model refitted with ``labels`` (one label
         per row of the run; those of the training rows are used)."""
         if self._scaler is None:
-            model = fit(self._run, self._train, labels, seed_offset=self._seed_offset)
+            model = fit(self._run, self._train, labels, seed_offset=self._seed_offset,
+                        for_scores=True)
             return predict(model, self._X_test)
         y_train = labels[self._train]
         last = self._pipeline()[-1]
@@ -221,10 +273,21 @@ def fit_ignores_seed(model: str, kernel_mode: str) -> bool:
 
 
 def make_estimator(step, *, regression: bool, n_classes: int, kernel_mode: str,
-                   n_rows: int, seed: int):
-    """The scikit-learn pipeline for the step's model: always standardized features first."""
+                   n_rows: int, seed: int, exact_solver: bool = False):
+    """The scikit-learn pipeline for the step's model: always standardized features first.
+
+    ``exact_solver``: the linear machine is
+    :class:`analysis.linear_machine.ExactLinearMachine` (the caller checks
+    :func:`exact_solver_applies`)."""
     if regression:
         return _regressor(step, kernel_mode=kernel_mode, n_rows=n_rows, seed=seed)
+    if exact_solver:
+        from sklearn.pipeline import make_pipeline
+
+        from analysis.linear_machine import ExactLinearMachine
+        from analysis.scaling import TrainingRangeScaler
+
+        return make_pipeline(TrainingRangeScaler(), ExactLinearMachine(C=float(step.c)))
     return _classifier(step, n_classes=n_classes, kernel_mode=kernel_mode, n_rows=n_rows,
                        seed=seed)
 

@@ -84,7 +84,7 @@ def _protocol(run: PreparedRun, follows) -> dict:
     statistic = metrics["r2_ci"] if run.regression else metrics["mcc_ci"]
     beats = bool(statistic[0] is not None and statistic[0] > 0 and p_value is not None
                  and p_value < CHANCE_LEVEL)
-    curve = log.clocked("learning curve", learning_curve, run)
+    curve = log.clocked("learning curve", learning_curve, run, model)
     wrong = mispredicted(run, model, test, predicted)
     run.progress.phase("searching the exact equation")
     equation_fields, full_model = log.clocked("fit on every row and exact equation",
@@ -177,7 +177,10 @@ def _fit_splits(run: PreparedRun, splits, strata) -> tuple[list[dict], tuple]:
                 fit_rows = subsample(train, None if strata is None else strata[train],
                                      step.sample_rows, step.seed + 41 + index,
                                      groups=run.group_labels)
-        model = fit(run, fit_rows, seed_offset=index)
+        # splits 2 on only give scores: their linear machine may be solved exactly, from
+        # split 1's separator
+        model = fit(run, fit_rows, seed_offset=index, for_scores=index > 0,
+                    near=None if index == 0 else first[2])
         predicted = predict(model, run.X[test])
         metrics = split_metrics(run, fit_rows, test, predicted)
         record = {"split": index + 1, "train_rows": len(fit_rows), "test_rows": len(test),
