@@ -196,7 +196,7 @@ def read_marked_cell(value) -> tuple[str, object]:
     decimals); ``"interval"`` with ``(low, high)`` (from text ``[a, b]``, spaces allowed, or a
     two-element list of numbers; ends typed as numbers are); ``"word"`` (any other text that
     is not bracketed, stripped); ``"other"`` (anything else: longer lists, records, booleans,
-    text starting with a bracket). A zero denominator or an over-long integer is
+    text starting with a bracket, a number spelled as :func:`number_hint` names). A zero denominator or an over-long integer is
     ``("invalid", reason)``. Low above high is still an interval: the caller says where.
 
     >>> read_marked_cell(" [1, 3/2] ")
@@ -236,7 +236,14 @@ def read_marked_cell(value) -> tuple[str, object]:
         return "missing", None
     if text.startswith(("[", "{")):
         return "other", value
+    if text[:1] in _NUMBER_START and number_hint(text):
+        # a number in a spelling no reading takes (7,700 or a typographic minus) is no
+        # marker word: read as missing, it would silently lose a value (see numbers_as_text)
+        return "other", value
     return "word", text
+
+
+_NUMBER_START = frozenset("+-\u22120123456789")
 
 
 def _number_text(text: str):
@@ -460,6 +467,44 @@ def reads_as_array_texts(brackets: int, filled: int) -> bool:
     (True, False)
     """
     return brackets > 0 and 2 * brackets >= filled
+
+
+# How a cut-off list cell is named in a column's counts of cells read as missing.
+CUT_ARRAY_MARK = "[\u2026]"
+
+
+def array_mark(text: str) -> str | None:
+    """What an array column reads as missing in this stripped cell ``text``, by name, or
+    None for a cell to parse as an array: a list cut short with an ellipsis (``[1, 2, ...]``
+    or ``[…]``, as exports shorten long lists; number arrays hold no ellipsis otherwise) is
+    :data:`CUT_ARRAY_MARK`; a word that is not bracketed (``read_marked_cell``'s kind "word",
+    such as ``?`` or ``n/a``) is itself. At most ``MARKER_RULE.max_words`` different words
+    may stand in one column.
+
+    >>> array_mark("[2, 3, 5, 7, ...]"), array_mark("n/a"), array_mark("[1, 2]")
+    ('[…]', 'n/a', None)
+    """
+    if text.startswith("[") and ("\u2026" in text or "..." in text):
+        return CUT_ARRAY_MARK
+    kind, word = read_marked_cell(text)
+    return word if kind == "word" else None
+
+
+def reads_array_words(words: dict[str, int], filled: int, *, requested: bool = False,
+                      rule: MarkerRule = MARKER_RULE) -> bool:
+    """Whether an array column with ``filled`` filled cells reads these marker ``words``
+    (each with its cell count; cut-off lists are not words) as missing values: some cell is
+    no word, there are at most ``rule.max_words`` different words, and (unless the user
+    asked for the role array) word cells are at most ``rule.max_share`` of the filled cells,
+    as for marked numbers.
+
+    >>> reads_array_words({"?": 2}, 10), reads_array_words({"?": 6}, 10)
+    (True, False)
+    """
+    cells = sum(words.values())
+    if len(words) > rule.max_words or cells >= filled:
+        return False
+    return requested or cells <= rule.max_share * filled
 
 
 def from_decimal(value):
@@ -761,6 +806,10 @@ def merge_facts(a: dict, b: dict) -> dict:
             shapes[k] = shapes.get(k, 0) + v
         out["shapes"] = shapes
         out["tokens"] = _union_capped(a.get("tokens"), b.get("tokens"))
+        marks = dict(a.get("marks", {}))
+        for k, v in b.get("marks", {}).items():
+            marks[k] = marks.get(k, 0) + v
+        out["marks"] = marks
         return out
     if kind == "text":
         words_a, words_b = a["words"], b["words"]
@@ -1271,10 +1320,16 @@ def array_text_facts(frame: pd.DataFrame, columns, name: str, first_row: int) ->
 
     out = {}
     for column in columns:
-        cells = [v for v in array_cells(frame[column], name, column,
-                                        first_row=first_row).tolist() if v is not None]
+        raw = frame[column].tolist()
+        read = array_cells(frame[column], name, column, first_row=first_row).tolist()
+        cells = [v for v in read if v is not None]
+        marks: dict[str, int] = {}
+        for text, value in zip(raw, read):
+            if value is None and not is_missing(text):
+                mark = array_mark(str(text).strip())
+                marks[mark] = marks.get(mark, 0) + 1
         out[column] = {"n": len(frame), "missing": len(frame) - len(cells), "kind": "list",
-                       **array_facts(cells, column)}
+                       **array_facts(cells, column), "marks": marks}
     return out
 
 

@@ -54,11 +54,13 @@ from analysis.column_facts import (
     INFINITE_NOTE,
     INT64_MAX,
     INTEGER_TEXT,
+    CUT_ARRAY_MARK,
     MARKER_RULE,
     MISSING_WORDS,
     RATIONAL_TEXT,
     TRUE_WORDS,
     ColumnInfo,
+    array_mark,
     column_named,
     column_warnings,
     detect_role,
@@ -73,6 +75,7 @@ from analysis.column_facts import (
     marked_note,
     marker_counts,
     read_marked_cell,
+    reads_array_words,
     reads_as_marked_numbers,
     shown_value,
     text_block_facts,
@@ -1023,7 +1026,8 @@ def _marker_counts(marks: _Marks | None) -> dict[str, int]:
     counts: dict[str, int] = {}
     for position, text in marks.texts:
         if position not in intervals:
-            counts[text] = counts.get(text, 0) + 1
+            name = array_mark(text) or text   # a cut-off list is counted under one name
+            counts[name] = counts.get(name, 0) + 1
     return marker_counts(counts)
 
 
@@ -1393,7 +1397,12 @@ def _type_texts(series: pd.Series, present: list, name: str, column: str, limits
             return marked[:3]
     if reading == "array":
         parsed = [(i, t) for (i, _), t in zip(present, stripped)]
-        return _array_texts(series, parsed, name, column, limits), "array", ""
+        values, marks = _array_texts(series, parsed, name, column, limits)
+        if marks is None:
+            return values, "array", ""
+        if marks_out is not None:
+            marks_out["marks"] = marks
+        return values, "array", marked_note("", 0, _marker_counts(marks))
     return None, "text", text_note(facts)
 
 
@@ -1404,45 +1413,57 @@ def array_cells(series: pd.Series, name: str, column: str, limits: Limits | None
     the whole table, for the messages of a partition read on its own.
     """
     present = [(i, str(v).strip()) for i, v in enumerate(series.tolist()) if not is_missing(v)]
-    return _array_texts(series, present, name, column, limits or Limits(), first_row)
+    # a partition alone cannot weigh the share of marker words: it reads every one it may
+    return _array_texts(series, present, name, column, limits or Limits(), first_row,
+                        partition=True)[0]
 
 
-def _array_texts(series: pd.Series, present: list, name: str, column: str,
-                 limits: Limits, first_row: int = 0) -> pd.Series:
-    """Arrays from cells holding JSON-array text (parsed as data, never evaluated)."""
-    decoded = []
-    for i, t in present:
-        if not t.startswith("["):
-            raise TableError(
-                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {shown_value(t)}. Make every cell of the column an array, or empty."
-            )
-        if _depth_ok(t, limits.max_depth) > 2:
-            raise TableError(
-                f"{name}, row {i + first_row + 1}, column {column!r}: arrays nested more than "
-                "2 deep; cells may hold lists or matrices only."
-            )
-        try:
-            decoded.append((i, json.loads(t)))
-        except ValueError as exc:
-            if "integer string conversion" in str(exc):
-                raise TableError(
-                    _too_many_digits(name, f", row {i + first_row + 1}", t, column)) from None
-            raise TableError(
-                f"{name}, row {i + first_row + 1}, column {column!r}: not a valid JSON array "
-                f"({one_line(exc)}). Write arrays like [[1, 0], [0, 1]]."
-            ) from None
-    for i, value in decoded:
-        if not isinstance(value, list):
-            raise TableError(
-                f"{name}, row {i + first_row + 1}, column {column!r}: expected an array like "
-                f"[1, 2], got {shown_value(value)}. Make every cell of the column an array, "
-                "or empty."
-            )
+def _array_texts(series: pd.Series, present: list, name: str, column: str, limits: Limits,
+                 first_row: int = 0, requested: bool = False,
+                 partition: bool = False) -> tuple[pd.Series, _Marks | None]:
+    """Arrays from cells holding JSON-array text (parsed as data, never evaluated), and the
+    _Marks of the cells read as missing (:func:`column_facts.array_mark`,
+    :func:`column_facts.reads_array_words`), or None. ``requested``: the user asked for
+    the role array; ``partition``: the cells are one partition of a column already read
+    as arrays, whose words may all be marks."""
+    marks = {i: array_mark(t) for i, t in present}
+    words: dict[str, int] = {}
+    for mark in marks.values():
+        if mark is not None and mark != CUT_ARRAY_MARK:
+            words[mark] = words.get(mark, 0) + 1
+    if not (len(words) <= MARKER_RULE.max_words if partition
+            else reads_array_words(words, len(present), requested=requested)):
+        marks = {i: m for i, m in marks.items() if m == CUT_ARRAY_MARK}
+    decoded = [(i, _array_text(t, name, i + first_row, column, limits))
+               for i, t in present if marks.get(i) is None]
     rebuilt = pd.Series([None] * len(series), dtype=object, index=series.index)
     for i, v in decoded:
         rebuilt.iat[i] = v
-    return _arrays(rebuilt, decoded, name, column, limits, first_row)
+    marked = tuple((i, t) for i, t in present if marks.get(i) is not None)
+    found = _Marks(positions=(), low=(), high=(), texts=marked) if marked else None
+    return _arrays(rebuilt, decoded, name, column, limits, first_row), found
+
+
+def _array_text(t: str, name: str, row: int, column: str, limits: Limits) -> list:
+    """One JSON-array cell's list; a TableError naming ``row`` (0-based) when it is none."""
+    where = f"{name}, row {row + 1}, column {column!r}"
+    if not t.startswith("["):
+        raise TableError(f"{where}: expected an array like [1, 2], got {shown_value(t)}. "
+                         "Make every cell of the column an array, or empty.")
+    if _depth_ok(t, limits.max_depth) > 2:
+        raise TableError(f"{where}: arrays nested more than 2 deep; cells may hold lists or "
+                         "matrices only.")
+    try:
+        value = json.loads(t)
+    except ValueError as exc:
+        if "integer string conversion" in str(exc):
+            raise TableError(_too_many_digits(name, f", row {row + 1}", t, column)) from None
+        raise TableError(f"{where}: not a valid JSON array ({one_line(exc)}). Write arrays "
+                         "like [[1, 0], [0, 1]].") from None
+    if not isinstance(value, list):
+        raise TableError(f"{where}: expected an array like [1, 2], got {shown_value(value)}. "
+                         "Make every cell of the column an array, or empty.")
+    return value
 
 
 def _integers(series: pd.Series, present: list, name: str, column: str, flags: bool = True):
@@ -1597,6 +1618,16 @@ def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
         return (*_retype_text(table_name, series, info, role, unmarked, marks), None)
     if role == "invariant" and info.dtype != "boolean":
         return _as_invariant(table_name, series, info, new, limits, ids)
+    if role == "array" and info.dtype in ("text", "category"):
+        present = [(row, str(v).strip()) for row, v in enumerate(series.tolist())
+                   if not is_missing(v)]
+        if present:
+            values, marks = _array_texts(series, present, table_name, info.name, limits,
+                                         requested=True)
+            note = marked_note(f"read as arrays (was {info.dtype})", 0, _marker_counts(marks))
+            return values, replace(unmarked, dtype="array", note=note,
+                                   markers=_marker_counts(marks),
+                                   missing=info.missing + len(marks.texts if marks else ())), marks
     values, new = _retype_other(table_name, series, info, role, unmarked, limits)
     return values, new, None
 
@@ -1709,9 +1740,6 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
             return None, new
         present = [(row, str(v).strip()) for row, v in enumerate(series.tolist())
                    if not is_missing(v)]
-        if info.dtype in ("text", "category") and present:
-            return _array_texts(series, present, table_name, column, limits), replace(
-                new, dtype="array", note=f"read as arrays (was {info.dtype})")
         row, value = present[0] if present else (0, None)
         raise TableError(
             f"{table_name}, row {row + 1}, column {column!r}: expected an array like [1, 2], "

@@ -280,3 +280,23 @@ def test_the_dask_reader_words_the_same_warnings_across_blocks(tmp_path):
         dask = [str(w) for w in partitioned.warnings]
     odd = [w for w in memory if "is read as text" in w]
     assert len(odd) == 3 and [w for w in dask if "is read as text" in w] == odd
+
+
+def test_a_typographic_minus_is_no_marker_word():
+    # common practice in copied tables: the Moebius function printed with U+2212 in a third
+    # of its cells (sympy.mobius gives the values). Read as a marker word, every -1 would
+    # silently become missing; the column stays text and the warning says why.
+    import sympy
+
+    values = [int(sympy.mobius(n)) for n in range(2, 92)]
+    minus = "\u2212"
+    lines = ["n,mobius"] + [f"{n},{minus + str(-m) if m < 0 else m}"
+                            for n, m in zip(range(2, 92), values)]
+    table = read_table(("\n".join(lines) + "\n").encode(), "mobius.csv")
+    info = table.column("mobius")
+    assert info.dtype == "text" and info.markers == {}
+    assert table.frame["mobius"].tolist() == [
+        ("\u2212" + str(-m)) if m < 0 else str(m) for m in values]
+    said = [w for w in table.warnings if getattr(w, "code", None) == "numbers_as_text"]
+    assert len(said) == 1 and "typographic U+2212" in said[0]
+    assert said[0].figures["spelled"] == values.count(-1)

@@ -207,6 +207,29 @@ def test_csv_array_text_is_read_as_arrays_and_a_bad_cell_named(client, tmp_path)
         load_table(path)
 
 
+def test_cut_off_lists_are_missing_and_counted_as_in_memory(client, tmp_path):
+    # common practice in exported tables: long lists cut short with an ellipsis, "?" where a
+    # list is unknown; the full lists come from sympy.divisors
+    import sympy
+
+    cells = []
+    for n in range(2, 2002):
+        full = sympy.divisors(n)
+        cells.append("?" if n % 11 == 0 else
+                     "[" + ", ".join(map(str, full[:3])) + ", ...]" if len(full) > 8 else
+                     str(full))
+    path = tmp_path / "divisors.csv"
+    pd.DataFrame({"n": range(2, 2002), "divisors": cells}).to_csv(path, index=False)
+    table = read_partitioned(path, client, blocksize=8_000)
+    assert table.npartitions > 2
+    in_memory = load_table(path).column("divisors")
+    ours = table.column("divisors")
+    assert (ours.dtype, ours.missing, ours.markers, ours.note) == (
+        in_memory.dtype, in_memory.missing, in_memory.markers, in_memory.note)
+    assert ours.markers == {"?": cells.count("?"),
+                            "[\u2026]": sum(c.endswith("...]") for c in cells)}
+
+
 def test_a_reversed_interval_is_named(client, tmp_path):
     frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
     folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)

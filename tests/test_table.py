@@ -426,12 +426,18 @@ def test_role_overrides(mixed, column, role, dtype, values):
 
 
 def test_override_to_array_parses_array_text():
-    # one array among words: detected as a category; asking for arrays names the first misfit
+    # one array among words: detected as a category; asking for arrays reads the words as
+    # missing and counts them (as asking for an invariant does), and names a number misfit
     text = read_table(b'k,v\n1,"[1, 2]"\n2,none\n3,x\n4,x\n', "t.csv")
     assert text.role("v") == "category"
+    asked = text.with_roles({"v": "array"})
+    assert asked.column("v").markers == {"x": 2, "none": 1}
+    assert asked.frame["v"].iloc[0].tolist() == [1, 2] and asked.column("v").missing == 3
+    assert asked.with_roles({"v": "text"}).frame["v"].tolist() == ["[1, 2]", "none", "x", "x"]
+    numbers = read_table(b'k,v\n1,"[1, 2]"\n2,5\n3,x\n4,x\n', "t.csv")
     with pytest.raises(TableError, match=r"t\.csv, row 2, column 'v': expected an array like "
-                                         r"\[1, 2\], got 'none'"):
-        text.with_roles({"v": "array"})
+                                         r"\[1, 2\], got '5'"):
+        numbers.with_roles({"v": "array"})
     table = read_table(b'k,v\n1,"[1, 2]"\n2,"[3]"\n3,\n', "t.csv", roles={"v": "text"})
     assert table.role("v") == "text"
     back = table.with_roles({"v": "array"})
@@ -909,3 +915,59 @@ def test_json_numbers_quoted_now_and_then_are_numbers():
     assert table.column("conductor").dtype == "integer"
     assert table.exact("conductor") == [int(r["conductor"]) for r in records]
     assert json.loads(json.dumps(records)) == records   # the reference reading round-trips
+
+
+def _divisor_lists_csv() -> bytes:
+    # common practice in exported tables: long lists cut short with an ellipsis, and a
+    # marker word where a list is unknown; the full lists come from sympy.divisors
+    import sympy
+
+    lines = ["n,divisors"]
+    for n in range(2, 62):
+        full = sympy.divisors(n)
+        if n % 7 == 0:
+            cell = "?"
+        elif len(full) > 6:
+            cell = "[" + ", ".join(map(str, full[:3])) + (", \u2026]" if n % 2 else ", ...]")
+        else:
+            cell = json.dumps(full)
+        lines.append(f'{n},"{cell}"')
+    return ("\n".join(lines) + "\n").encode()
+
+
+def test_cut_off_lists_and_marker_words_in_an_array_column_are_missing_and_counted():
+    import sympy
+
+    data = _divisor_lists_csv()
+    rows = list(csv.DictReader(io.StringIO(data.decode())))
+    table = read_table(data, "divisors.csv")
+    info = table.column("divisors")
+    assert (info.role, info.dtype) == ("array", "array")
+    cut = sum(r["divisors"].startswith("[") and ("\u2026" in r["divisors"]
+                                                 or "..." in r["divisors"]) for r in rows)
+    unknown = sum(r["divisors"] == "?" for r in rows)
+    assert cut > 0 and unknown > 0
+    assert info.markers == {"[\u2026]": cut, "?": unknown}
+    assert info.missing == cut + unknown
+    assert "read as missing" in info.note
+    for row, cell in zip(rows, table.frame["divisors"]):
+        if row["divisors"].startswith("[") and row["divisors"].endswith("]") \
+                and "." not in row["divisors"] and "\u2026" not in row["divisors"]:
+            assert cell.tolist() == sympy.divisors(int(row["n"]))
+        else:
+            assert cell is None
+    assert any(line.startswith("  divisors: read as missing:") and f"'[\u2026]' in {cut} rows"
+               in line and f"'?' in {unknown} rows" in line for line in table.marked_lines())
+    # nothing the file gave is lost: shown as text, every cell is as written
+    as_text = table.with_roles({"divisors": "text"})
+    assert as_text.frame["divisors"].tolist() == [
+        json.dumps(json.loads(r["divisors"])) if r["divisors"] not in {"?"}
+        and "." not in r["divisors"] and "\u2026" not in r["divisors"] else r["divisors"]
+        for r in rows]
+
+
+def test_a_broken_list_cell_still_names_its_row():
+    data = b'n,divisors\n2,"[1, 2]"\n3,"[1, 3"\n4,"[1, 2, 4]"\n'
+    with pytest.raises(TableError, match=r"t.csv, row 2, column 'divisors': not a valid JSON "
+                                         r"array"):
+        read_table(data, "t.csv")

@@ -33,7 +33,9 @@ from analysis.column_facts import (
     distinct_of,
     frame_facts,
     marked_column,
+    marked_note,
     marked_type,
+    marker_counts,
     merge_facts,
     reads_marked,
     type_columns,
@@ -260,8 +262,7 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
     infos, how = type_columns(name, header, facts, n, warnings, fmt, set(asked))
     _array_text_shapes(client, frame, facts, how, name, partition_rows)
     texts = {c for c, h in how if h == "array_text"}
-    infos = [replace(i, distinct=distinct_of(facts[i.name], i.dtype)) if i.name in texts
-             else i for i in infos]
+    infos = [_array_text_info(i, facts[i.name]) if i.name in texts else i for i in infos]
     table = PartitionedTable(
         name=name, path=str(path), digest=digest, format=fmt, columns=tuple(infos),
         id_column=next((c.name for c in infos if c.role == "id"), None),
@@ -421,6 +422,14 @@ def _union_pair(a, b):
     return pd.unique(np.concatenate([a, b]))
 
 
+def _array_text_info(info, f: dict):
+    """A JSON-array text column's description from its merged list facts, as in memory:
+    cut-off lists and marker words are missing values, counted by name."""
+    counts = marker_counts(f.get("marks", {}))
+    return replace(info, distinct=distinct_of(f, info.dtype), missing=f["missing"],
+                   markers=counts, note=marked_note(info.note, 0, counts))
+
+
 def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_rows) -> None:
     """Check every cell of the JSON-array text columns, as in memory, and count their shapes
     (a bad cell is a TableError naming its row in the whole table)."""
@@ -436,7 +445,7 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
     for column in columns:
         f = facts[column]
         facts[column] = functools.reduce(merge_facts, [piece[column] for piece in found])
-        facts[column].update(n=f["n"], missing=f["missing"])
+        facts[column].update(n=f["n"])   # missing: the empty cells and the marks
 
 
 # ----------------------------------------------------------------------------------------
