@@ -29,6 +29,7 @@ from typing import ClassVar
 import numpy as np
 
 from analysis.errors import StepError
+from analysis.notes import note_code
 from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
@@ -292,8 +293,8 @@ class SeparatorResult:
                          f"{self.target_follows.relation}")
         if self.reading is not None and self.reading.chosen_by == "learning curve":
             lines.append(f"  reading: {self.reading.text}")
-        lines += [f"  {self.rows_used} rows; split 1 has {self.train_rows} training and "
-                 f"{self.test_rows} test rows ({self.split_method})"]
+        lines += [f"  {_rows_text(self)}; split 1 has {self.train_rows} training and "
+                  f"{self.test_rows} test rows ({self.split_method})"]
         m, b = self.metrics, self.baseline
         if self.task == "classification":
             lines.append(f"  accuracy {m['accuracy']:.3f} (majority-class baseline "
@@ -332,6 +333,17 @@ class SeparatorResult:
         lines.extend(_equation_lines(self))
         lines.append(f"beats chance: {self.beats_chance_text}")
         return "\n".join(lines)
+
+
+def _rows_text(result: SeparatorResult) -> str:
+    """How many rows the step used, and of how many when some were dropped for a missing
+    value (the rows_dropped note; a warning says so itself)."""
+    dropped = next((n for n in result.notes if note_code(n) == "rows_dropped"), None)
+    figures = getattr(dropped, "figures", None)
+    if not figures:
+        return f"{result.rows_used} rows"
+    return (f"{result.rows_used} of {figures['rows']} rows ({figures['dropped']} with a "
+            "missing value left out)")
 
 
 def exact_text(result: SeparatorResult) -> str:

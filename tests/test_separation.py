@@ -1003,3 +1003,21 @@ def test_an_equation_on_a_log_scaled_column_is_also_given_in_its_own_values():
                 table.frame["three_real"]]
     assert said == positive
     assert result.to_json()["equation"]["in_columns"] == equation.in_columns
+
+
+def test_the_summary_says_how_many_rows_a_missing_value_left_out():
+    # Fisher's iris measurements (scikit-learn's copy) with every 15th petal length removed
+    data = load_iris(as_frame=True)
+    frame = data.frame.rename(columns=lambda c: c.replace(" (cm)", "").replace(" ", "_"))
+    frame["species"] = [str(data.target_names[i]) for i in data.target]
+    frame = frame.drop(columns="target")
+    frame.loc[frame.index % 15 == 0, "petal_length"] = np.nan
+    gaps = int(frame["petal_length"].isna().sum())
+    result = SeparatorStep(target="species", positive_class="setosa", seed=0,
+                           **FEW).run(_table(frame, "iris_gaps.csv"))
+    assert result.rows_used == len(frame) - gaps
+    assert (f"  {len(frame) - gaps} of {len(frame)} rows ({gaps} with a missing value left "
+            "out); split 1") in result.summary()
+    whole = SeparatorStep(target="species", positive_class="setosa", seed=0,
+                          **FEW).run(_table(frame.fillna(1.0), "iris_filled.csv"))
+    assert f"  {len(frame)} rows; split 1" in whole.summary()
