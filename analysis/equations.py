@@ -348,11 +348,21 @@ def _latex_number(value: Fraction) -> str:
     return rf"{sign}\tfrac{{{abs(value.numerator)}}}{{{value.denominator}}}"
 
 
+def _latex_feature(name: str) -> str:
+    """LaTeX for a feature: a category's indicator ``column=level`` (1 on the rows holding
+    the level, 0 elsewhere) as the Iverson bracket [column = level], so that an inequality
+    in it never reads as a chain of relations; any other name upright."""
+    column, equals, level = str(name).partition("=")
+    if not equals or not column or not level:
+        return _latex_name(name)
+    return rf"[{_latex_name(column)} = {_latex_name(level)}]"
+
+
 def _latex_term_body(term: Term) -> str:
     factors = term.factor_names()
     if len(factors) == 2 and factors[0] == factors[1]:
-        return _latex_name(factors[0]) + "^{2}"
-    return r"\,".join(_latex_name(name) for name in factors)
+        return _latex_feature(factors[0]) + "^{2}"
+    return r"\,".join(_latex_feature(name) for name in factors)
 
 
 def _latex_sum(terms: Sequence[Term]) -> str:

@@ -294,6 +294,23 @@ def test_text_and_latex_of_rational_terms():
     assert equation.to_json()["terms"][1] == {"feature": "h_21", "coef": "-1/3"}
 
 
+def test_a_category_indicator_is_written_as_an_iverson_bracket():
+    # the Iverson bracket [P] (1 when P holds, else 0; Knuth, "Two notes on notation", Amer.
+    # Math. Monthly 99, 1992): "mobius=0 <= 0" set as mobius = 0 <= 0 reads as a chain
+    equation = LinearEquation(
+        terms=(Term("mobius=0", Fraction(1)), Term("Omega", Fraction(-1, 2))),
+        relation="<=", constant=Fraction(0), positive_class=True, violations=0,
+        violating_rows=(), n_rows=0, method="", notes=())
+    assert equation.latex() == (r"[\mathrm{mobius} = \mathrm{0}] - \tfrac{1}{2}\,"
+                                r"\mathrm{Omega} \leq 0")
+    assert equation.text == "mobius=0 - 1/2*Omega <= 0"   # the feature's own name
+    square = LinearEquation(
+        terms=(Term("galois=S3*galois=S3", Fraction(1), ("galois=S3", "galois=S3")),),
+        relation=">=", constant=Fraction(1), positive_class=True, violations=0,
+        violating_rows=(), n_rows=0, method="", notes=())
+    assert square.latex() == r"[\mathrm{galois} = \mathrm{S3}]^{2} \geq 1"
+
+
 def test_holds_is_exact_beyond_float_precision():
     # Python integers are the reference: 2**60 + 1 and 2**60 are the same float64, so only
     # exact arithmetic sees that a - b >= 1 holds on the first row and not on the second.
