@@ -120,6 +120,17 @@ class LinearEquation:
     # the same inequality in a column's own values when its one term is a log-scaled
     # feature (``"disc >= 0"`` for ``"slog(disc) >= 0"``); "" otherwise
     in_columns: str = ""
+    # rows of ``positive_class`` among the ``n_rows`` checked (None where not counted): the
+    # rule that names no object (or every object) breaks on the fewer of them and the rest
+    positives: int | None = None
+
+    def constant_rule(self) -> tuple[str, int] | None:
+        """("none" or "all", violations) of the better rule that predicts ``positive_class``
+        for no object or for every object, on the same rows; None when not counted."""
+        if self.positives is None:
+            return None
+        others = self.n_rows - self.positives
+        return ("none", self.positives) if self.positives <= others else ("all", others)
 
     @property
     def text(self) -> str:
@@ -142,6 +153,8 @@ class LinearEquation:
             "violations": int(self.violations),
             "violating_rows": [_plain(row) for row in self.violating_rows],
             **({"in_columns": self.in_columns} if self.in_columns else {}),
+            **({"positives": int(self.positives), "rows_checked": int(self.n_rows)}
+               if self.positives is not None else {}),
         }
 
     def holds(self, X) -> np.ndarray:
@@ -1886,7 +1899,8 @@ def find_linear_equation(
     ))
     method = LINEAR_METHOD.format(max_denominator=max_denominator)
     return _make_equation(LinearEquation, space, result.best, positive_class=positive_class,
-                          row_ids=row_ids, method=method, notes=notes)
+                          row_ids=row_ids, method=method, notes=notes,
+                          positives=int(positive.sum()))
 
 
 LINEAR_METHOD = (

@@ -505,6 +505,12 @@ def _separator(data: dict) -> str:
         violating = equation.get("violating_rows") or []
         count = equation.get("violations", len(violating))
         parts.append(f"<p>Rows on the wrong side ({_e(count)}): {_ids(violating)}</p>")
+        if equation.get("positives") is not None:
+            from analysis.separator_equation import constant_rule_sentence
+
+            rule = constant_rule_sentence(positive, equation["rows_checked"],
+                                          equation["positives"], count)
+            parts.append(f"<p>{_e(rule)}</p>")
     formula = data.get("formula")
     if isinstance(formula, dict):
         parts.append("<h3>Closest formula for the target</h3>")

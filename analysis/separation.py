@@ -52,6 +52,7 @@ from analysis.separator_models import (
     PREDICT_BLOCK_ROWS,
     REGRESSION_WORDS,
 )
+from analysis.separator_equation import constant_rule_sentence
 from analysis.separator_prepare import LEAKAGE_SAMPLE_ROWS
 from analysis.separator_protocol import (
     KERNEL_CURVE_ROWS,
@@ -404,8 +405,11 @@ def _violations_text(equation) -> str:
     if count is None:
         return ""
     same = getattr(equation, "in_columns", "")
+    rule = constant_rule_sentence(equation.positive_class, equation.n_rows,
+                                  getattr(equation, "positives", None), count)
     return f" ({count} violating row{'s' if count != 1 else ''})" + (
-        f", that is {same} in the column's own values" if same else "")
+        f", that is {same} in the column's own values" if same else "") + (
+        f". {rule}" if rule else "")
 
 
 # ----------------------------------------------------------------------------------------

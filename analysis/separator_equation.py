@@ -104,6 +104,22 @@ def in_columns_sentence(text: str) -> str:
             "say the same).")
 
 
+def constant_rule_sentence(positive_class, n_rows: int, positives: int | None,
+                           violations: int) -> str:
+    """How an equation compares with the better rule that predicts ``positive_class`` for
+    no object or for every object (it breaks on ``positives`` or the other rows), for the
+    page, the report and the command line; "" when the class was not counted."""
+    if positives is None:
+        return ""
+    count = min(positives, n_rows - positives)
+    whom = "no object" if positives <= n_rows - positives else "every object"
+    rows = f"{count} row{'s' if count != 1 else ''}"
+    if violations >= count:
+        return (f"No better than predicting {positive_class!r} for {whom}, which breaks on "
+                f"{rows}: the equation says nothing about this class.")
+    return f"Predicting {positive_class!r} for {whom} would break on {rows}."
+
+
 def in_own_values(equation, features, table):
     """``equation`` with its ``in_columns`` text set when its one term is a log-scaled
     feature ``k*slog(c)`` and the inequality reads exactly in the column's own values

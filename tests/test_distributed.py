@@ -436,6 +436,9 @@ def test_separator_equation_and_violations_equal_in_memory(client, planted, monk
     assert sorted(result.equation.violating_rows) == sorted(expected.equation.violating_rows) \
         == flipped
     assert result.equation.n_rows == 2400
+    # the positive class counted on every row, not on the sample the search ran on
+    rows = load_table(whole).frame["label"] == result.equation.positive_class
+    assert result.equation.positives == expected.equation.positives == int(rows.sum())
     assert result.train_rows + result.test_rows == 800
 
 

@@ -289,7 +289,7 @@ def _clustering(result):
 def _separator(result):
     equation = result.to_json()["equation"]
     keys = ("terms", "relation", "constant", "positive_class", "text", "violations",
-            "violating_rows")
+            "violating_rows", "positives", "rows_checked")
     return {"equation": {k: equation[k] for k in keys}, "rows": result.equation.n_rows}
 
 

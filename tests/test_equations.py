@@ -267,7 +267,11 @@ def test_to_json_has_exactly_the_fields_of_the_separate_contract():
         "text",
         "violations",
         "violating_rows",
+        # added beside the contract's fields (more may be added, none renamed)
+        "positives",
+        "rows_checked",
     }
+    assert payload["positives"] == int(positive.sum()) and payload["rows_checked"] == 600
     assert payload["terms"] == [{"feature": "a", "coef": "2"}, {"feature": "b", "coef": "-1"}]
     assert payload["relation"] == ">="
     assert payload["constant"] == "3"

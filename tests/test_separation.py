@@ -1021,3 +1021,25 @@ def test_the_summary_says_how_many_rows_a_missing_value_left_out():
     whole = SeparatorStep(target="species", positive_class="setosa", seed=0,
                           **FEW).run(_table(frame.fillna(1.0), "iris_filled.csv"))
     assert f"  {len(frame)} rows; split 1" in whole.summary()
+
+
+def test_an_equation_is_set_beside_the_rule_that_predicts_its_class_for_no_object(iris):
+    # Fisher's iris (scikit-learn's copy): 50 plants of each species of 150 (the dataset
+    # description); virginica is separated from the rest by a plane with few errors
+    result = SeparatorStep(target="species", positive_class="virginica", seed=0,
+                           **FEW).run(iris)
+    equation = result.equation
+    assert equation.positives == 50 and equation.n_rows == 150
+    assert equation.constant_rule() == ("none", 50)
+    assert 0 < equation.violations < 50, equation.text
+    said = "Predicting 'virginica' for no object would break on 50 rows."
+    assert said in result.summary()
+    assert equation.to_json()["positives"] == 50 and equation.to_json()["rows_checked"] == 150
+    # an equation that breaks on as many rows as naming no object says it tells nothing
+    from analysis.separator_equation import constant_rule_sentence
+
+    assert constant_rule_sentence(7, 2769, 55, 55) == (
+        "No better than predicting 7 for no object, which breaks on 55 rows: the equation "
+        "says nothing about this class.")
+    assert constant_rule_sentence(True, 10, 9, 0).startswith(
+        "Predicting True for every object would break on 1 row.")

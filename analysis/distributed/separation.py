@@ -195,8 +195,11 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
                     "across partitions")
     if gap is not None:
         notes.insert(1, gap)
+    # the positive class counted on every row, as in memory (None when not counted there)
+    positives = None if counts is None or equation.positives is None \
+        else int(counts[2].sum())
     return dataclasses.replace(settled, violations=int(len(ids)), violating_rows=tuple(
-        ids.tolist()), n_rows=kept, notes=tuple(notes))
+        ids.tolist()), n_rows=kept, notes=tuple(notes), positives=positives)
 
 
 # ----------------------------------------------------------------------------------------

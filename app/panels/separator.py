@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
-from analysis.separator_equation import in_columns_sentence
+from analysis.separator_equation import constant_rule_sentence, in_columns_sentence
 from analysis.separator_metrics import below_baseline_text
 from app import display, settings
 from app.figure_view import show_figures
@@ -286,6 +286,9 @@ def _equation(ctx, table, result, equation, number: int) -> None:
         st.markdown(f"No object of the {display.number(total)} breaks it.")
         return
     st.markdown(f"**{display.number(broken)}** of {display.number(total)} objects break it.")
+    rule = constant_rule_sentence(positive, total, getattr(equation, "positives", None), broken)
+    if rule:
+        st.caption(rule)
     ids = list(equation.violating_rows)[:ROWS_SHOWN]
     if ids:
         columns = [result.target] + [c for c in _equation_columns(equation)
