@@ -317,12 +317,29 @@ def _format_sum(terms: Sequence[Term]) -> str:
     pieces = []
     for position, term in enumerate(terms):
         magnitude = abs(term.coef)
-        body = term.feature if magnitude == 1 else f"{_fraction_text(magnitude)}*{term.feature}"
+        name = _term_text(term)
+        body = name if magnitude == 1 else f"{_fraction_text(magnitude)}*{name}"
         if position == 0:
             pieces.append(f"-{body}" if term.coef < 0 else body)
         else:
             pieces.append(f" {'-' if term.coef < 0 else '+'} {body}")
     return "".join(pieces)
+
+
+def _term_text(term: Term) -> str:
+    """A term's features in plain text, a category's indicator ``column=level`` in
+    brackets (``[galois=S3]``, the Iverson bracket: 1 where it holds, 0 elsewhere)."""
+    factors = term.factor_names()
+    if not any(_is_indicator(name) for name in factors):
+        return term.feature
+    if len(factors) == 2 and factors[0] == factors[1]:
+        return f"[{factors[0]}]^2"
+    return "*".join(f"[{name}]" if _is_indicator(name) else name for name in factors)
+
+
+def _is_indicator(name: str) -> bool:
+    column, equals, level = str(name).partition("=")
+    return bool(equals and column and level)
 
 
 def _format_affine(terms: Sequence[Term], constant: Fraction) -> str:
@@ -365,9 +382,9 @@ def _latex_feature(name: str) -> str:
     """LaTeX for a feature: a category's indicator ``column=level`` (1 on the rows holding
     the level, 0 elsewhere) as the Iverson bracket [column = level], so that an inequality
     in it never reads as a chain of relations; any other name upright."""
-    column, equals, level = str(name).partition("=")
-    if not equals or not column or not level:
+    if not _is_indicator(name):
         return _latex_name(name)
+    column, _, level = str(name).partition("=")
     return rf"[{_latex_name(column)} = {_latex_name(level)}]"
 
 

@@ -307,12 +307,14 @@ def test_a_category_indicator_is_written_as_an_iverson_bracket():
         violating_rows=(), n_rows=0, method="", notes=())
     assert equation.latex() == (r"[\mathrm{mobius} = \mathrm{0}] - \tfrac{1}{2}\,"
                                 r"\mathrm{Omega} \leq 0")
-    assert equation.text == "mobius=0 - 1/2*Omega <= 0"   # the feature's own name
+    assert equation.text == "[mobius=0] - 1/2*Omega <= 0"
+    assert equation.to_json()["terms"][0]["feature"] == "mobius=0"   # the feature's name
     square = LinearEquation(
         terms=(Term("galois=S3*galois=S3", Fraction(1), ("galois=S3", "galois=S3")),),
         relation=">=", constant=Fraction(1), positive_class=True, violations=0,
         violating_rows=(), n_rows=0, method="", notes=())
     assert square.latex() == r"[\mathrm{galois} = \mathrm{S3}]^{2} \geq 1"
+    assert square.text == "[galois=S3]^2 >= 1"
 
 
 def test_holds_is_exact_beyond_float_precision():
