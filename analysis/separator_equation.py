@@ -108,8 +108,9 @@ def constant_rule_sentence(positive_class, n_rows: int, positives: int | None,
                            violations: int) -> str:
     """How an equation compares with the better rule that predicts ``positive_class`` for
     no object or for every object (it breaks on ``positives`` or the other rows), for the
-    page, the report and the command line; "" when the class was not counted."""
-    if positives is None:
+    page, the report and the command line; "" when the class was not counted or the
+    equation breaks on no row."""
+    if positives is None or violations == 0:
         return ""
     count = min(positives, n_rows - positives)
     whom = "no object" if positives <= n_rows - positives else "every object"

@@ -1041,5 +1041,6 @@ def test_an_equation_is_set_beside_the_rule_that_predicts_its_class_for_no_objec
     assert constant_rule_sentence(7, 2769, 55, 55) == (
         "No better than predicting 7 for no object, which breaks on 55 rows: the equation "
         "says nothing about this class.")
-    assert constant_rule_sentence(True, 10, 9, 0).startswith(
-        "Predicting True for every object would break on 1 row.")
+    assert constant_rule_sentence(True, 10, 8, 1) == (
+        "Predicting True for every object would break on 2 rows.")
+    assert constant_rule_sentence(True, 10, 8, 0) == ""   # an exact equation needs no comparison
