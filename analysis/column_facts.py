@@ -196,8 +196,9 @@ def read_marked_cell(value) -> tuple[str, object]:
     decimals); ``"interval"`` with ``(low, high)`` (from text ``[a, b]``, spaces allowed, or a
     two-element list of numbers; ends typed as numbers are); ``"word"`` (any other text that
     is not bracketed, stripped); ``"other"`` (anything else: longer lists, records, booleans,
-    text starting with a bracket, a number spelled as :func:`number_hint` names). A zero denominator or an over-long integer is
-    ``("invalid", reason)``. Low above high is still an interval: the caller says where.
+    text starting with a bracket, a number spelled as :func:`number_hint` names). A zero
+    denominator or an over-long integer is ``("invalid", reason)``. Low above high is still
+    an interval: the caller says where.
 
     >>> read_marked_cell(" [1, 3/2] ")
     ('interval', (1, Fraction(3, 2)))

@@ -34,6 +34,7 @@ from analysis.plain import plain, row_id
 from analysis.progress import quiet
 from analysis.reading import CURVE_MAX_VALUES, CURVE_MIN_VALUES
 from analysis.separator_checks import LEARNING_FRACTIONS, LEARNING_REPEATS
+from analysis.separator_equation import constant_rule_sentence
 from analysis.separator_labels import class_label, positive_rows, same_label
 from analysis.separator_metrics import (
     BOOTSTRAP_RESAMPLES,
@@ -52,7 +53,6 @@ from analysis.separator_models import (
     PREDICT_BLOCK_ROWS,
     REGRESSION_WORDS,
 )
-from analysis.separator_equation import constant_rule_sentence
 from analysis.separator_prepare import LEAKAGE_SAMPLE_ROWS
 from analysis.separator_protocol import (
     KERNEL_CURVE_ROWS,

@@ -49,12 +49,12 @@ import numpy as np
 import pandas as pd
 
 from analysis.column_facts import (
+    CUT_ARRAY_MARK,
     FALSE_WORDS,
     FLOAT_EXACT,
     INFINITE_NOTE,
     INT64_MAX,
     INTEGER_TEXT,
-    CUT_ARRAY_MARK,
     MARKER_RULE,
     MISSING_WORDS,
     RATIONAL_TEXT,
