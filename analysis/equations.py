@@ -127,10 +127,7 @@ class LinearEquation:
     def constant_rule(self) -> tuple[str, int] | None:
         """("none" or "all", violations) of the better rule that predicts ``positive_class``
         for no object or for every object, on the same rows; None when not counted."""
-        if self.positives is None:
-            return None
-        others = self.n_rows - self.positives
-        return ("none", self.positives) if self.positives <= others else ("all", others)
+        return None if self.positives is None else constant_rule(self.n_rows, self.positives)
 
     @property
     def text(self) -> str:
@@ -324,6 +321,13 @@ def _format_sum(terms: Sequence[Term]) -> str:
         else:
             pieces.append(f" {'-' if term.coef < 0 else '+'} {body}")
     return "".join(pieces)
+
+
+def constant_rule(n_rows: int, positives: int) -> tuple[str, int]:
+    """("none" or "all", violations) of the better of the rules that predict a class held by
+    ``positives`` of ``n_rows`` rows for no row or for every row."""
+    others = n_rows - positives
+    return ("none", positives) if positives <= others else ("all", others)
 
 
 def _term_text(term: Term) -> str:

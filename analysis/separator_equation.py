@@ -112,8 +112,10 @@ def constant_rule_sentence(positive_class, n_rows: int, positives: int | None,
     equation breaks on no row."""
     if positives is None or violations == 0:
         return ""
-    count = min(positives, n_rows - positives)
-    whom = "no object" if positives <= n_rows - positives else "every object"
+    from analysis.equations import constant_rule
+
+    which, count = constant_rule(n_rows, positives)
+    whom = "no object" if which == "none" else "every object"
     rows = f"{count} row{'s' if count != 1 else ''}"
     if violations >= count:
         return (f"No better than predicting {positive_class!r} for {whom}, which breaks on "
