@@ -14,13 +14,13 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import (
-    MAX_LEVELS,
     Feature,
     chosen_feature_columns,
+    invariant_feature,
     left_out_warning,
+    level_features,
     one_hot,
     signed_log,
-    too_many_levels,
     without_mostly_empty,
 )
 from analysis.notes import Note
@@ -118,8 +118,7 @@ def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Fea
                         "does not encode as features yet. Leave it out with --features, or "
                         "use --engine local.")
     if info.role == "invariant":
-        return [Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
-                if log_scale == "always" else Feature(name, name, "value")]
+        return [invariant_feature(name, log=log_scale == "always")]
     if info.role == "flag":
         if info.dtype != "boolean":
             raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} values; "
@@ -129,9 +128,7 @@ def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Fea
         raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
                         "feature.")
     levels[name] = _levels(table, name)
-    if len(levels[name]) > MAX_LEVELS:
-        raise too_many_levels(table.name, name, len(levels[name]))
-    return [Feature(f"{name}={level}", name, "onehot", level) for level in levels[name]]
+    return level_features(table.name, name, levels[name])
 
 
 def _levels(table, name: str) -> list[str]:
