@@ -353,10 +353,18 @@ def _impute(values: np.ndarray, bad: np.ndarray, features: list[Feature]) -> int
     gaps = {f.column for j, f in enumerate(features) if bad[:, j].any()}
     chosen = [j for j, f in enumerate(features) if f.column in gaps]   # whole one-hot blocks
     fill = fills([features[j] for j in chosen], [value_counts(values[:, j]) for j in chosen])
+    return fill_cells(values, bad, features, fill, chosen)
+
+
+def fill_cells(values: np.ndarray, bad: np.ndarray, features, fill: dict,
+               columns=None) -> int:
+    """Write ``fill[name]`` (0 for a feature it lacks) into the ``bad`` cells of each feature
+    column in ``columns`` (default: all), in place; returns how many cells were filled. Both
+    engines fill missing cells here (missing="impute")."""
     filled = 0
-    for j in chosen:
+    for j in range(len(features)) if columns is None else columns:
         column_bad = bad[:, j]
-        values[column_bad, j] = fill[features[j].name]
+        values[column_bad, j] = fill.get(features[j].name, 0.0)
         filled += int(column_bad.sum())
     return filled
 
@@ -641,7 +649,7 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
         return _flag_block(table, name, notes)
     if info.role == "category":
         labels = series.astype(object).where(series.notna(), None).tolist()
-        levels = sorted({str(v) for v in labels if v is not None})
+        levels = category_levels(labels)
         features = level_features(table.name, name, levels)
         return one_hot(labels, levels), features
     if info.role == "array":
@@ -654,6 +662,11 @@ def invariant_feature(name: str, *, log: bool) -> Feature:
     if log:
         return Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
     return Feature(name, name, "value")
+
+
+def category_levels(values) -> list[str]:
+    """The levels of a category column: its distinct present values as text, sorted."""
+    return sorted({str(v) for v in values if v is not None})
 
 
 def level_features(table_name: str, name: str, levels: list[str]) -> list[Feature]:

@@ -15,7 +15,9 @@ import pandas as pd
 from analysis.errors import StepError
 from analysis.features import (
     Feature,
+    category_levels,
     chosen_feature_columns,
+    fill_cells,
     invariant_feature,
     left_out_warning,
     level_features,
@@ -133,12 +135,9 @@ def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Fea
 
 def _levels(table, name: str) -> list[str]:
     facts = table.facts.get(name, {})
-    counts = facts.get("counts")
-    if counts is not None:
-        return sorted(counts)
-    values = facts.get("values")
-    if values is not None:
-        return sorted({str(v) for v in values.tolist()})
+    counts, values = facts.get("counts"), facts.get("values")   # texts, or distinct numbers
+    if counts is not None or values is not None:
+        return category_levels(counts if counts is not None else values.tolist())
     info = table.column(name)
     return [str(k) for k in range(info.distinct)]   # only its length is used: too many
 
@@ -181,11 +180,7 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
         out.dropped_features = int(feature_missing.sum())
         out.dropped_target = int(target_missing.sum())
     else:
-        for j, feature in enumerate(plan.features):
-            column_bad = bad[:, j]
-            if column_bad.any():
-                values[column_bad, j] = plan.fill.get(feature.name, 0.0)
-                out.filled += int(column_bad.sum())
+        out.filled = fill_cells(values, bad, plan.features, plan.fill)
         keep = ~target_missing
         out.dropped_target = int(target_missing.sum())
     out.values = values[keep]
