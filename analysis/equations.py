@@ -2372,8 +2372,7 @@ def _evaluate_formula(space: _Space, target: np.ndarray, target_exact, candidate
         residual -= float(coef) * space.float_column(index)
     constant = Fraction(float(np.median(residual))).limit_denominator(max_den)
     deviation = residual - float(constant)
-    tolerance = 1e-9 * np.maximum(1.0, np.abs(target.astype(float)))
-    off = np.flatnonzero(np.abs(deviation) > tolerance)
+    off = np.flatnonzero(off_in_floats(deviation, target.astype(float)))
     return _FormulaEvaluation(
         candidate,
         constant,
@@ -2393,6 +2392,12 @@ def common_residual(values: np.ndarray, rows_at: np.ndarray, denominator: int):
     mode = int(_scalar(values[int(np.argmax(rows_at))]))
     largest = max(abs(int(values[0]) - mode), abs(int(values[-1]) - mode))
     return mode, Fraction(mode, denominator), float(Fraction(largest, denominator))
+
+
+def off_in_floats(deviation: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """Rows off a formula checked in floating point: those whose residual ``deviation``
+    exceeds 1e-9 of the target's size (at least 1). Both engines check formulas here."""
+    return np.abs(deviation) > 1e-9 * np.maximum(1.0, np.abs(target))
 
 
 def _sample_formula_scores(matrix, target, candidates):

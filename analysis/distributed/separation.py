@@ -21,6 +21,7 @@ from analysis.equations import (
     common_residual,
     gap_note,
     merge_score_counts,
+    off_in_floats,
     over_denominator,
     rounding_note,
     sample_wording,
@@ -198,7 +199,7 @@ def _off_rows(block, names, terms, exact, mode, common, constant):
         return block.row_ids[off], 0.0
     residual = (np.asarray(values[0], dtype=float) / values[1] if is_exact else values) \
         - float(constant)
-    off = np.abs(residual) > 1e-9 * np.maximum(1.0, np.abs(block.target))
+    off = off_in_floats(residual, np.asarray(block.target, dtype=float))
     return block.row_ids[off], float(np.abs(residual).max(initial=0.0))
 
 
