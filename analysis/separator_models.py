@@ -402,6 +402,9 @@ def predict(model, X: np.ndarray) -> np.ndarray:
     folded = _NystroemMachine.of(model)
     if folded is not None:
         return folded.predict(X)
+    linear = _scaled_linear_classifier(model)
+    if linear is not None:
+        return linear.predict(X)
     if _two_class_svc(model) is None:
         with checked_once():
             return _in_blocks(model, model.predict, X)
@@ -672,6 +675,56 @@ class KernelRefits:
                 + solver.intercept_[0]
             return solver.classes_[(scores > 0).astype(np.int64)]
         return solver.predict(self.test)
+
+
+@dataclass(frozen=True)
+class _ScaledLinear:
+    """A fitted pipeline (TrainingRangeScaler, a two-class linear classifier) predicting with
+    the very operations of its own ``predict`` (clip, centre, scale, one product with the
+    coefficients, the sign), without scikit-learn's checks of every call's input: the
+    permutation test and importance score the same model many times on small blocks."""
+
+    low: np.ndarray
+    high: np.ndarray
+    mean: np.ndarray
+    scale: np.ndarray
+    coef: np.ndarray
+    intercept: np.ndarray
+    classes: np.ndarray
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        Z = np.clip(np.asarray(X, dtype=np.float64), self.low, self.high)
+        Z -= self.mean
+        Z /= self.scale
+        scores = (Z @ self.coef.T + self.intercept).reshape(-1)
+        return self.classes[(scores > 0).astype(np.int64)]
+
+
+def _scaled_linear_classifier(model) -> _ScaledLinear | None:
+    """The pipeline as a _ScaledLinear when it is a TrainingRangeScaler (centring and
+    scaling) followed by a two-class LinearSVC or LogisticRegression that predicts through
+    scikit-learn's linear rule unchanged; None for any other model."""
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.svm import LinearSVC
+
+    from analysis.scaling import TrainingRangeScaler
+
+    steps = getattr(model, "steps", None)
+    if steps is None or len(steps) != 2:
+        return None
+    scaler, last = steps[0][1], steps[1][1]
+    if type(scaler) is not TrainingRangeScaler or getattr(scaler, "training_min_", None) is None \
+            or not (scaler.with_mean and scaler.with_std) or scaler.scale_ is None:
+        return None
+    kind = type(last)
+    # both predict through one inherited rule: the sign of X @ coef.T + intercept
+    if not isinstance(last, (LinearSVC, LogisticRegression)) \
+            or len(getattr(last, "classes_", ())) != 2 or kind.predict is not LinearSVC.predict \
+            or kind.decision_function is not LinearSVC.decision_function \
+            or np.ndim(last.coef_) != 2:
+        return None
+    return _ScaledLinear(scaler.training_min_, scaler.training_max_, scaler.mean_,
+                         scaler.scale_, last.coef_, np.asarray(last.intercept_), last.classes_)
 
 
 def _two_class_svc(model):

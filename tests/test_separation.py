@@ -1044,3 +1044,26 @@ def test_an_equation_is_set_beside_the_rule_that_predicts_its_class_for_no_objec
     assert constant_rule_sentence(True, 10, 8, 1) == (
         "Predicting True for every object would break on 2 rows.")
     assert constant_rule_sentence(True, 10, 8, 0) == ""   # an exact equation needs no comparison
+
+
+@pytest.mark.parametrize("machine", ["linear", "logistic"])
+def test_predictions_of_a_scaled_linear_model_are_its_own(machine):
+    # scikit-learn's breast cancer data (569 tumours, 30 measurements; the dataset
+    # description): the separator's predictions of a fitted pipeline are the pipeline's own,
+    # row for row, also on rows beyond the training range (clipped by the scaler)
+    from sklearn.datasets import load_breast_cancer
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.svm import LinearSVC
+
+    from analysis.scaling import TrainingRangeScaler
+
+    X, y = load_breast_cancer(return_X_y=True)
+    labels = np.array(["benign", "malignant"])[1 - y]
+    inner = LinearSVC(dual=False, class_weight="balanced") if machine == "linear" else \
+        LogisticRegression(max_iter=5000, class_weight="balanced")
+    model = make_pipeline(TrainingRangeScaler(), inner).fit(X[::2], labels[::2])
+    beyond = X[1::2] * np.where(np.arange(X.shape[1]) % 3 == 0, 3.0, 1.0)
+    for rows in (X[1::2], beyond, X[:1]):
+        assert np.array_equal(predict(model, rows), model.predict(rows))
+    assert set(predict(model, beyond)) <= set(labels)
