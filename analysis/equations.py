@@ -1387,21 +1387,16 @@ def _evaluate(space: _Space, candidate: tuple, positive: np.ndarray) -> _Evaluat
         for index, coef in candidate:
             scores += coef * space.float_column(index)
         denominator, exact = 1, False
-    cut = _best_cut(scores, positive)
+    cut = settle_cut(score_counts(scores, positive), denominator, exact)
     if cut is None:
         return None
-    fewest, relation, low, high, counts = cut
-    constant, rounded = settled_constant(counts, fewest, relation, low, high, denominator,
-                                         exact)
-    predicted = _compare(scores, denominator, constant, relation)
+    predicted = _compare(scores, denominator, cut.constant, cut.relation)
     wrong = np.flatnonzero(predicted != positive)
-    gap = (Fraction(low) / denominator, Fraction(high) / denominator)
     inexact = [] if exact else space.inexact_features([index for index, _ in candidate])
-    evaluation = _Evaluation(
-        candidate, relation, constant, int(wrong.size), wrong, exact, gap, inexact
-    )
-    if rounded:
-        evaluation.rounding = rounding_note(constant, int(wrong.size), fewest)
+    evaluation = _Evaluation(candidate, cut.relation, cut.constant, int(wrong.size), wrong,
+                             exact, (cut.low, cut.high), inexact)
+    if cut.rounded:
+        evaluation.rounding = rounding_note(cut.constant, int(wrong.size), cut.fewest)
     return evaluation
 
 
@@ -1416,6 +1411,69 @@ def settled_constant(counts, fewest: int, relation: str, low, high, denominator:
     if rounded is None:
         return choose_constant(low, high, denominator, relation, exact), False
     return rounded, True
+
+
+@dataclass(frozen=True)
+class SettledCut:
+    """An equation's relation and constant chosen from per-value score counts.
+
+    ``fewest`` is the best cut's violations (a rounded constant may cost a few more);
+    ``low`` and ``high`` are the scores either side of the cut, in the equation's units.
+    """
+
+    relation: str
+    constant: Fraction
+    fewest: int
+    low: Fraction
+    high: Fraction
+    rounded: bool
+
+
+def settle_cut(counts, denominator: int, exact: bool) -> SettledCut | None:
+    """The cut with fewest violations (cut_of_counts) and its constant (settled_constant).
+
+    ``counts`` are (distinct scores, rows at each, positive rows at each), from score_counts
+    or merged over blocks with merge_score_counts; the scores are over ``denominator``.
+    None with fewer than two distinct scores. Both engines choose an equation's constant here.
+    """
+    cut = cut_of_counts(*counts)
+    if cut is None:
+        return None
+    fewest, relation, low, high, counts = cut
+    constant, rounded = settled_constant(counts, fewest, relation, low, high, denominator,
+                                         exact)
+    return SettledCut(relation, constant, fewest, Fraction(low) / denominator,
+                      Fraction(high) / denominator, rounded)
+
+
+def over_denominator(values: np.ndarray, denominator: int | None, common: int | None):
+    """Exact scores over ``denominator`` written over ``common``, a multiple of it (Python
+    integers past int64's safe range); with ``common`` None, as floats."""
+    if common is None:
+        return values if denominator is None else np.asarray(values, dtype=float) / denominator
+    factor = common // denominator
+    if factor == 1:
+        return values
+    big = values.dtype == object or (
+        len(values) and int(np.abs(values).max()) * factor >= _INT64_SAFE)
+    return values.astype(object) * factor if big else values * factor
+
+
+def merge_score_counts(a, b, max_distinct: int):
+    """Two blocks' (distinct scores, rows at each, positive rows at each, denominator or
+    None for float scores) as one, over the least common denominator; None when either is
+    None or past ``max_distinct`` distinct scores."""
+    if a is None or b is None:
+        return None
+    common = None if a[3] is None or b[3] is None else math.lcm(a[3], b[3])
+    values = np.concatenate([over_denominator(a[0], a[3], common),
+                             over_denominator(b[0], b[3], common)])
+    merged, inverse = np.unique(values, return_inverse=True)
+    if len(merged) > max_distinct:
+        return None
+    rows_at, positives_at = (np.bincount(inverse, weights=np.concatenate([a[k], b[k]]),
+                                         minlength=len(merged)).astype(np.int64) for k in (1, 2))
+    return merged, rows_at, positives_at, common
 
 
 def rounding_note(constant: Fraction, violations: int, fewest: int) -> Note:
@@ -2304,31 +2362,21 @@ def _evaluate_formula(space: _Space, target: np.ndarray, target_exact, candidate
         )
         if residual.dtype == object:
             mode, _ = Counter(residual.tolist()).most_common(1)[0]
+            constant = Fraction(mode, denominator)
+            largest = float(Fraction(_max_abs(residual - mode), denominator))
         else:
-            values, counts = np.unique(residual, return_counts=True)
-            mode = int(values[np.argmax(counts)])
-        constant = Fraction(mode, denominator)
+            mode, constant, largest = common_residual(
+                *np.unique(residual, return_counts=True), denominator)
         off = np.flatnonzero(np.asarray(residual != mode, dtype=bool))
-        deviation = residual - mode
-        largest = _max_abs(deviation) if deviation.dtype == object else int(np.abs(deviation).max())
-        as_float = np.asarray(deviation, dtype=float) / denominator
+        as_float = np.asarray(residual - mode, dtype=float) / denominator
         rms = float(np.sqrt(np.mean(as_float**2))) if n else 0.0
-        return _FormulaEvaluation(
-            candidate,
-            constant,
-            int(off.size),
-            off,
-            float(Fraction(largest, denominator)),
-            rms,
-            True,
-        )
+        return _FormulaEvaluation(candidate, constant, int(off.size), off, largest, rms, True)
     residual = target.astype(float).copy()
     for index, coef in candidate:
         residual -= float(coef) * space.float_column(index)
     constant = Fraction(float(np.median(residual))).limit_denominator(max_den)
     deviation = residual - float(constant)
-    tolerance = 1e-9 * np.maximum(1.0, np.abs(target.astype(float)))
-    off = np.flatnonzero(np.abs(deviation) > tolerance)
+    off = np.flatnonzero(off_in_floats(deviation, target.astype(float)))
     return _FormulaEvaluation(
         candidate,
         constant,
@@ -2338,6 +2386,22 @@ def _evaluate_formula(space: _Space, target: np.ndarray, target_exact, candidate
         float(np.sqrt(np.mean(deviation**2))),
         False,
     )
+
+
+def common_residual(values: np.ndarray, rows_at: np.ndarray, denominator: int):
+    """A formula's constant from its exact residuals: (the most common residual, as an
+    integer over ``denominator``; it as a Fraction; the largest distance of a residual from
+    it, as a float). ``values`` are the distinct residuals ascending, ``rows_at`` the rows at
+    each (np.unique's counts, or counts merged over blocks); a tie goes to the smallest."""
+    mode = int(_scalar(values[int(np.argmax(rows_at))]))
+    largest = max(abs(int(values[0]) - mode), abs(int(values[-1]) - mode))
+    return mode, Fraction(mode, denominator), float(Fraction(largest, denominator))
+
+
+def off_in_floats(deviation: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """Rows off a formula checked in floating point: those whose residual ``deviation``
+    exceeds 1e-9 of the target's size (at least 1). Both engines check formulas here."""
+    return np.abs(deviation) > 1e-9 * np.maximum(1.0, np.abs(target))
 
 
 def _sample_formula_scores(matrix, target, candidates):

@@ -353,10 +353,18 @@ def _impute(values: np.ndarray, bad: np.ndarray, features: list[Feature]) -> int
     gaps = {f.column for j, f in enumerate(features) if bad[:, j].any()}
     chosen = [j for j, f in enumerate(features) if f.column in gaps]   # whole one-hot blocks
     fill = fills([features[j] for j in chosen], [value_counts(values[:, j]) for j in chosen])
+    return fill_cells(values, bad, features, fill, chosen)
+
+
+def fill_cells(values: np.ndarray, bad: np.ndarray, features, fill: dict,
+               columns=None) -> int:
+    """Write ``fill[name]`` (0 for a feature it lacks) into the ``bad`` cells of each feature
+    column in ``columns`` (default: all), in place; returns how many cells were filled. Both
+    engines fill missing cells here (missing="impute")."""
     filled = 0
-    for j in chosen:
+    for j in range(len(features)) if columns is None else columns:
         column_bad = bad[:, j]
-        values[column_bad, j] = fill[features[j].name]
+        values[column_bad, j] = fill.get(features[j].name, 0.0)
         filled += int(column_bad.sum())
     return filled
 
@@ -635,21 +643,38 @@ def _encode_column(table: Table, name: str, array_encoding: str, log_scale: str,
                     for v in series.tolist()) else "2**53"
                 notes.append(Note("signed_log", f"{name!r} holds integers beyond {beyond}: "
                                   "used as sign(x)*log10(1+|x|).", column=name, beyond=beyond))
-            return values[:, None], [Feature(f"slog({name})", name, "log",
-                                             "sign(x)*log10(1+|x|)")]
-        return table.numeric(name)[:, None], [Feature(name, name, "value")]
+            return values[:, None], [invariant_feature(name, log=True)]
+        return table.numeric(name)[:, None], [invariant_feature(name, log=False)]
     if info.role == "flag":
         return _flag_block(table, name, notes)
     if info.role == "category":
         labels = series.astype(object).where(series.notna(), None).tolist()
-        levels = sorted({str(v) for v in labels if v is not None})
-        if len(levels) > MAX_LEVELS:
-            raise too_many_levels(table.name, name, len(levels))
-        return one_hot(labels, levels), [Feature(f"{name}={level}", name, "onehot", level)
-                                         for level in levels]
+        levels = category_levels(labels)
+        features = level_features(table.name, name, levels)
+        return one_hot(labels, levels), features
     if info.role == "array":
         return _array_block(table, name, array_encoding, notes)
     raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a feature.")
+
+
+def invariant_feature(name: str, *, log: bool) -> Feature:
+    """The feature of an invariant column: its own value, or sign(x)*log10(1+|x|) of it."""
+    if log:
+        return Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
+    return Feature(name, name, "value")
+
+
+def category_levels(values) -> list[str]:
+    """The levels of a category column: its distinct present values as text, sorted."""
+    return sorted({str(v) for v in values if v is not None})
+
+
+def level_features(table_name: str, name: str, levels: list[str]) -> list[Feature]:
+    """The one-hot features ``name=level`` of a category column with ``levels`` (its values
+    as text, sorted); past MAX_LEVELS levels the column is refused (:func:`too_many_levels`)."""
+    if len(levels) > MAX_LEVELS:
+        raise too_many_levels(table_name, name, len(levels))
+    return [Feature(f"{name}={level}", name, "onehot", level) for level in levels]
 
 
 def one_hot(labels: list, levels: list[str]) -> np.ndarray:

@@ -151,11 +151,16 @@ class OverviewStep:
         )
 
 
-def _summarize(table: Table, info) -> ColumnSummary:
-    series = table.frame[info.name]
-    base = dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
+def _summary_fields(info) -> dict:
+    """The fields of a column's summary that its description gives (both engines)."""
+    return dict(name=info.name, role=info.role, dtype=info.dtype, missing=info.missing,
                 distinct=info.distinct, intervals=info.intervals,
                 markers=tuple(info.markers.items()))
+
+
+def _summarize(table: Table, info) -> ColumnSummary:
+    series = table.frame[info.name]
+    base = _summary_fields(info)
     if info.dtype in ("integer", "real"):
         raw = series.to_numpy()
         if raw.dtype.kind in "iu" and len(raw):
@@ -194,6 +199,72 @@ def _summarize(table: Table, info) -> ColumnSummary:
     except TypeError:
         common = ()
     return ColumnSummary(**base, common=common)
+
+
+def summary_from_facts(info, facts: dict, n_rows: int) -> ColumnSummary:
+    """A column's summary from its typing facts merged over blocks of rows
+    (:mod:`analysis.column_facts`), as the in-memory summary writes it from the whole column:
+    how an engine that never holds the column summarizes it."""
+    base = _summary_fields(info)
+    kind = facts.get("kind")
+    if info.dtype in ("integer", "real") and kind not in ("text", "list", None) \
+            and facts.get("count"):
+        lo, hi = facts["minimum"], facts["maximum"]
+        if info.dtype == "integer":
+            lo, hi = int(lo), int(hi)
+        return ColumnSummary(**base, minimum=lo, maximum=hi,
+                             mean=float(facts["total"] / facts["count"]))
+    if info.dtype == "big integer" and facts.get("count"):
+        return ColumnSummary(**base, minimum=str(facts["minimum"]), maximum=str(facts["maximum"]),
+                             mean=float(facts["total"] / facts["count"]))
+    marked = facts.get("marked") or {}
+    if info.dtype == "rational" and marked.get("numbers"):
+        # the exact smallest and largest cell, as the in-memory summary writes them
+        return ColumnSummary(**base, minimum=_exact_text(marked["minimum"]),
+                             maximum=_exact_text(marked["maximum"]),
+                             mean=float(marked["total"] / marked["numbers"]))
+    if info.dtype == "array":
+        shapes = sorted(facts.get("shapes", {}).items(), key=lambda kv: -kv[1])[:5]
+        return ColumnSummary(**base, common=tuple((f"shape {k}", n) for k, n in shapes))
+    if info.dtype == "boolean" and kind not in ("text", None):
+        trues = int(round(facts["total"]))
+        falses = facts["count"] - trues
+        pairs = [(str(True), trues), (str(False), falses)]
+        pairs = [p for p in sorted(pairs, key=lambda p: -p[1]) if p[1] > 0]
+        return ColumnSummary(**base, common=tuple(pairs))
+    if kind == "text":
+        return ColumnSummary(**base, common=_common_from_facts(facts, info, n_rows))
+    return ColumnSummary(**base)
+
+
+def _exact_text(value) -> str:
+    """A cell's value as an exact rational's text ("15/2"); decimals read from their digits."""
+    from fractions import Fraction
+
+    return str(value if isinstance(value, (int, Fraction)) else Fraction(str(value)))
+
+
+def _common_from_facts(facts: dict, info, n_rows: int) -> tuple:
+    """The five most common texts, ties in order of first appearance (as value_counts)."""
+    counts = facts.get("counts")
+    if info.dtype == "boolean" and counts is not None:
+        from analysis.column_facts import is_true_word
+
+        merged: dict[str, list] = {}
+        for word, (count, first) in counts.items():
+            key = str(is_true_word(word))
+            entry = merged.setdefault(key, [0, first])
+            entry[0] += count
+            entry[1] = min(entry[1], first)
+        ordered = sorted(merged.items(), key=lambda kv: (-kv[1][0], kv[1][1]))
+        return tuple((k, v[0]) for k, v in ordered[:5])
+    if counts is not None:
+        ordered = sorted(counts.items(), key=lambda kv: (-kv[1][0], kv[1][1]))
+        return tuple((str(k), int(v[0])) for k, v in ordered[:5])
+    if info.distinct == n_rows - info.missing:
+        # every value once: the first five, as value_counts lists ties in order of appearance
+        return tuple((str(v), 1) for v in facts.get("first_values", [])[:5])
+    return ()
 
 
 def _correlations(table: Table, top: int, seed: int) -> tuple[tuple, int | None]:

@@ -68,7 +68,6 @@ from analysis.column_facts import (
     incomplete_integer_dtype,
     integer_type,
     is_missing,
-    is_true_word,  # noqa: F401 - still read from here by the Dask overview
     label_merge_warning,
     label_merge_words,
     marked_dtype,

@@ -14,13 +14,15 @@ import pandas as pd
 
 from analysis.errors import StepError
 from analysis.features import (
-    MAX_LEVELS,
     Feature,
+    category_levels,
     chosen_feature_columns,
+    fill_cells,
+    invariant_feature,
     left_out_warning,
+    level_features,
     one_hot,
     signed_log,
-    too_many_levels,
     without_mostly_empty,
 )
 from analysis.notes import Note
@@ -118,8 +120,7 @@ def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Fea
                         "does not encode as features yet. Leave it out with --features, or "
                         "use --engine local.")
     if info.role == "invariant":
-        return [Feature(f"slog({name})", name, "log", "sign(x)*log10(1+|x|)")
-                if log_scale == "always" else Feature(name, name, "value")]
+        return [invariant_feature(name, log=log_scale == "always")]
     if info.role == "flag":
         if info.dtype != "boolean":
             raise StepError(f"{table.name}: flag column {name!r} holds {info.dtype} values; "
@@ -129,19 +130,14 @@ def _column_features(table, name: str, log_scale: str, levels: dict) -> list[Fea
         raise StepError(f"{table.name}: column {name!r} with role {info.role} is not a "
                         "feature.")
     levels[name] = _levels(table, name)
-    if len(levels[name]) > MAX_LEVELS:
-        raise too_many_levels(table.name, name, len(levels[name]))
-    return [Feature(f"{name}={level}", name, "onehot", level) for level in levels[name]]
+    return level_features(table.name, name, levels[name])
 
 
 def _levels(table, name: str) -> list[str]:
     facts = table.facts.get(name, {})
-    counts = facts.get("counts")
-    if counts is not None:
-        return sorted(counts)
-    values = facts.get("values")
-    if values is not None:
-        return sorted({str(v) for v in values.tolist()})
+    counts, values = facts.get("counts"), facts.get("values")   # texts, or distinct numbers
+    if counts is not None or values is not None:
+        return category_levels(counts if counts is not None else values.tolist())
     info = table.column(name)
     return [str(k) for k in range(info.distinct)]   # only its length is used: too many
 
@@ -184,11 +180,7 @@ def partition_features(frame: pd.DataFrame, offset: int, plan: FeaturePlan) -> B
         out.dropped_features = int(feature_missing.sum())
         out.dropped_target = int(target_missing.sum())
     else:
-        for j, feature in enumerate(plan.features):
-            column_bad = bad[:, j]
-            if column_bad.any():
-                values[column_bad, j] = plan.fill.get(feature.name, 0.0)
-                out.filled += int(column_bad.sum())
+        out.filled = fill_cells(values, bad, plan.features, plan.fill)
         keep = ~target_missing
         out.dropped_target = int(target_missing.sum())
     out.values = values[keep]

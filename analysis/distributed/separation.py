@@ -8,7 +8,7 @@ violations counted row by row; a formula's constant is the most common exact res
 from __future__ import annotations
 
 import dataclasses
-import math
+import functools
 import time
 from fractions import Fraction
 
@@ -18,12 +18,15 @@ from analysis.distributed.common import Context, blocks_for, on_sample, plan_for
 from analysis.equations import (
     SCOPE_NOTES,
     Term,
-    cut_of_counts,
+    common_residual,
     gap_note,
+    merge_score_counts,
+    off_in_floats,
+    over_denominator,
     rounding_note,
     sample_wording,
     score_counts,
-    settled_constant,
+    settle_cut,
     term_scores,
 )
 from analysis.errors import StepError
@@ -35,7 +38,6 @@ SAMPLE_ROWS = 100_000
 # Distinct scores counted across partitions when settling a constant; past this the
 # constant found on the sample is kept (and the violations still counted on every row).
 MAX_DISTINCT_SCORES = 5_000_000
-_SAFE = 2**62   # int64 arithmetic stays below this
 
 
 def run_separator(step, ctx: Context):
@@ -111,29 +113,8 @@ def _counts(block, names, terms, exact, positive_class=None):
     return (*score_counts(scores, positive), denominator)
 
 
-def _on_denominator(values, denominator, common):
-    """Scores over ``denominator`` rewritten over ``common`` (None: as floats)."""
-    if common is None:
-        return values if denominator is None else np.asarray(values, dtype=float) / denominator
-    factor = common // denominator
-    if factor == 1:
-        return values
-    big = values.dtype == object or (len(values) and int(np.abs(values).max()) * factor >= _SAFE)
-    return values.astype(object) * factor if big else values * factor
-
-
-def _merge_counts(a, b):
-    if a is None or b is None:
-        return None
-    common = None if a[3] is None or b[3] is None else math.lcm(a[3], b[3])
-    values = np.concatenate([_on_denominator(a[0], a[3], common),
-                             _on_denominator(b[0], b[3], common)])
-    merged, inverse = np.unique(values, return_inverse=True)
-    if len(merged) > MAX_DISTINCT_SCORES:
-        return None
-    rows_at, positives_at = (np.bincount(inverse, weights=np.concatenate([a[k], b[k]]),
-                                         minlength=len(merged)).astype(np.int64) for k in (1, 2))
-    return merged, rows_at, positives_at, common
+# Counts of two partitions merged over their common denominator (equations' own merge)
+_merge_counts = functools.partial(merge_score_counts, max_distinct=MAX_DISTINCT_SCORES)
 
 
 def _wrong_rows(block, names, equation):
@@ -163,18 +144,14 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
     counts = ctx.compute(tree([delayed(_counts)(b, names, equation.terms, equation.exact,
                                                 equation.positive_class)
                                for b in blocks], _merge_counts))
-    settled, gap, rounded, notes = equation, None, False, list(equation.notes)
-    cut = None if counts is None else cut_of_counts(*counts[:3])
+    settled, gap, notes = equation, None, list(equation.notes)
+    # the in-memory search's own rule, rounding included
+    cut = None if counts is None else settle_cut(counts[:3], counts[3] or 1,
+                                                 counts[3] is not None)
     if cut is not None:
-        fewest, relation, low, high, _ = cut
-        exact, denominator = counts[3] is not None, counts[3] or 1
-        # the in-memory search's own rule, rounding included
-        constant, rounded = settled_constant(counts[:3], fewest, relation, low, high,
-                                             denominator, exact)
-        gap = gap_note(Fraction(low) / denominator, Fraction(high) / denominator, relation,
-                       exact)
-        settled = dataclasses.replace(equation, relation=relation, constant=constant)
-        if (relation, constant) != (equation.relation, equation.constant):
+        gap = gap_note(cut.low, cut.high, cut.relation, counts[3] is not None)
+        settled = dataclasses.replace(equation, relation=cut.relation, constant=cut.constant)
+        if (cut.relation, cut.constant) != (equation.relation, equation.constant):
             notes.append(Note(
                 "dask_constant_again",
                 f"constant chosen again on all rows: the sample gave "
@@ -186,8 +163,8 @@ def settle_equation(ctx: Context, plan, blocks: list, equation):
             "the constant found on the sample is kept"))
     ids = np.concatenate(ctx.compute([delayed(_wrong_rows)(b, names, settled) for b in blocks]))
     kept = int(counts[1].sum()) if counts is not None else ctx.table.n_rows
-    if rounded:
-        gap = rounding_note(settled.constant, int(len(ids)), fewest)
+    if cut is not None and cut.rounded:
+        gap = rounding_note(settled.constant, int(len(ids)), cut.fewest)
     # the search's own notes of where it ran and which constants it allowed give way to
     # those of every row; the others are said of the sample
     notes = [sample_wording(n) for n in notes if note_code(n) not in SCOPE_NOTES]
@@ -217,11 +194,12 @@ def _off_rows(block, names, terms, exact, mode, common, constant):
     columns[terms[0].feature] = np.asarray(block.target, dtype=float)
     values, is_exact = term_scores(terms, columns)
     if exact and is_exact and common is not None:
-        off = np.asarray(_on_denominator(values[0], values[1], common) != mode, dtype=bool)
+        off = np.asarray(over_denominator(values[0], values[1], common) != mode,
+                         dtype=bool)
         return block.row_ids[off], 0.0
     residual = (np.asarray(values[0], dtype=float) / values[1] if is_exact else values) \
         - float(constant)
-    off = np.abs(residual) > 1e-9 * np.maximum(1.0, np.abs(block.target))
+    off = off_in_floats(residual, np.asarray(block.target, dtype=float))
     return block.row_ids[off], float(np.abs(residual).max(initial=0.0))
 
 
@@ -240,11 +218,8 @@ def settle_formula(ctx: Context, plan, blocks: list, formula):
     max_residual, kept = formula.max_residual, ctx.table.n_rows
     if exact and merged is not None and merged[3] is not None:
         values, counts, _, common = merged
-        mode = values[int(np.argmax(counts))]
-        mode = mode.item() if hasattr(mode, "item") else mode
-        constant, kept = Fraction(int(mode), common), int(counts.sum())
-        largest = max(abs(int(values[0]) - mode), abs(int(values[-1]) - mode))
-        max_residual = float(Fraction(largest, common))
+        mode, constant, max_residual = common_residual(values, counts, common)
+        kept = int(counts.sum())
     else:
         exact = False
     pieces = ctx.compute([delayed(_off_rows)(b, names, terms, exact, mode, common, constant)
