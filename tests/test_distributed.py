@@ -559,6 +559,19 @@ def test_local_cluster_listens_on_loopback_and_is_closed_after_an_error():
     assert leftover == []
 
 
+def test_dask_informational_logs_stay_off_the_terminal_while_a_cluster_is_open():
+    # a connection closed at shutdown is logged by distributed at INFO with its traceback;
+    # a user of the command line must not see a traceback after a step that succeeded
+    import logging
+
+    logger = logging.getLogger("distributed")
+    before = logger.level
+    with open_cluster(n_workers=1):
+        assert not logger.isEnabledFor(logging.INFO)
+        assert logger.isEnabledFor(logging.WARNING)
+    assert logger.level == before
+
+
 def test_a_local_cluster_has_all_its_workers_before_the_first_step(mixed):
     # distributed's Client.wait_for_workers(n) returns once n workers have joined the
     # scheduler (its documentation); without it a step could start, and its note count,

@@ -51,6 +51,26 @@ def open_cluster(scheduler: str | None = None, *, n_workers: int | None = None,
     except ImportError:
         raise dask_missing() from None
 
+    with _quiet_logs():
+        yield from _connected(Client, LocalCluster, scheduler, n_workers, processes)
+
+
+@contextlib.contextmanager
+def _quiet_logs() -> Iterator[None]:
+    """Keep Dask's informational messages (a closed connection logged with its traceback as
+    the cluster shuts down) off the user's terminal for the block; warnings still show."""
+    logger = logging.getLogger("distributed")
+    level = logger.level
+    logger.setLevel(max(level, logging.WARNING))
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
+
+
+def _connected(Client, LocalCluster, scheduler: str | None, n_workers: int | None,
+               processes: bool) -> Iterator:
+    """The body of :func:`open_cluster`: yield a client of the chosen cluster, then close."""
     if scheduler:
         address = scheduler if "://" in scheduler else f"tcp://{scheduler}"
         try:
