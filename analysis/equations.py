@@ -1069,6 +1069,8 @@ def _primitive_rows(indices, integers: np.ndarray) -> set:
     flip = (2 * negatives > sizes) | ((2 * negatives == sizes) & (first < 0))
     integers = np.where(flip[:, None], -integers, integers)
     integers = integers[np.abs(integers).max(axis=1) <= _MAX_HEIGHT]
+    # the ladder repeats most vectors: each distinct one is written out once
+    integers = np.unique(integers, axis=0)
     indices = list(indices)
     return {
         tuple((index, value) for index, value in zip(indices, row) if value)
