@@ -567,6 +567,33 @@ def _compare(scores: np.ndarray, denominator: int, constant: Fraction, relation:
     return np.asarray(result, dtype=bool)
 
 
+# An equation on exact scores states the bound its rows attain when that bound's denominator
+# is at most this; past it, the simplest constant giving the same rows.
+SHARP_DENOMINATOR = 12
+
+
+def simplest_inside(low: Fraction, high: Fraction) -> Fraction:
+    """The rational with the smallest denominator (then the smallest absolute numerator)
+    strictly between ``low`` and ``high`` (``low < high``).
+
+    >>> simplest_inside(Fraction(1038197, 100000), Fraction(1042327, 100000))
+    Fraction(52, 5)
+    >>> simplest_inside(Fraction(1), Fraction(2)), simplest_inside(Fraction(-1, 3), Fraction(0))
+    (Fraction(3, 2), Fraction(-1, 4))
+    """
+    if low < 0 < high:
+        return Fraction(0)
+    if high <= 0:
+        return -simplest_inside(-high, -low)
+    floor = math.floor(low)
+    if floor + 1 < high:
+        return Fraction(floor + 1)
+    if floor == low:
+        # the gap (floor, high) with high at most floor + 1: the largest 1/m below high - floor
+        return floor + Fraction(1, math.floor(1 / (high - floor)) + 1)
+    return floor + 1 / simplest_inside(1 / (high - floor), 1 / (low - floor))
+
+
 def _simplest_between(low: Fraction, high: Fraction) -> Fraction:
     """The rational with the smallest denominator (then numerator) in ``[low, high]``."""
     if low > high:
@@ -1344,12 +1371,20 @@ def choose_constant(low, high, denominator: int, relation: str, exact: bool) -> 
     high_q = Fraction(high) / denominator
     if exact:
         # Exact scores: state the bound the rows of the positive side attain, or the integer
-        # nearest to it when one gives the same rows.
+        # nearest to it when one gives the same rows; an attained bound with a long
+        # denominator (scores of decimals rounded from real numbers) gives way to the
+        # simplest rational strictly inside the gap, which the gap note sets beside it.
         if relation == ">=":
-            whole = Fraction(math.floor(high_q))
-            return whole if whole > low_q else high_q
-        whole = Fraction(math.ceil(low_q))
-        return whole if whole < high_q else low_q
+            whole, attained = Fraction(math.floor(high_q)), high_q
+            if whole > low_q:
+                return whole
+        else:
+            whole, attained = Fraction(math.ceil(low_q)), low_q
+            if whole < high_q:
+                return whole
+        if attained.denominator <= SHARP_DENOMINATOR:
+            return attained
+        return simplest_inside(low_q, high_q)
     # Floating-point scores: the simplest rational well inside the gap (a tenth of its width
     # kept clear on each side), so that rounding the constant to a float moves no row.
     width = high_q - low_q

@@ -570,3 +570,45 @@ def test_the_search_gives_the_same_equation_on_one_core_and_on_several():
     one = json.loads(done.stdout)
     assert several["text"] == "3*c0 - 2*c2 + c5 >= 10"
     assert one == json.loads(json.dumps(several))
+
+
+def _simplest_by_search(low: Fraction, high: Fraction) -> Fraction:
+    # the definition itself (common practice): smallest denominator first, then the
+    # numerator of smallest absolute value, strictly inside the interval
+    q = 1
+    while True:
+        inside = [Fraction(p, q) for p in range(math.floor(low * q) - 1, math.ceil(high * q) + 2)
+                  if low < Fraction(p, q) < high]
+        if inside:
+            return min(inside, key=lambda f: (abs(f.numerator), f))
+        q += 1
+
+
+def test_the_simplest_rational_inside_a_gap_is_the_one_a_search_finds():
+    from analysis.equations import simplest_inside
+
+    rng = np.random.default_rng(3)
+    for _ in range(300):
+        a, b = sorted(Fraction(int(x), int(d)) for x, d in zip(rng.integers(-5000, 5000, 2),
+                                                              rng.integers(1, 400, 2)))
+        if a == b:
+            continue
+        assert simplest_inside(a, b) == _simplest_by_search(a, b), (a, b)
+
+
+def test_a_long_attained_bound_gives_way_to_a_short_constant_with_the_same_rows():
+    # decimals rounded from real numbers (six places) make the attained bound's denominator
+    # 10**6; the constant is the simplest giving the same rows, and the gap note keeps the
+    # attained bound
+    from analysis.equations import SHARP_DENOMINATOR, find_linear_equation
+
+    rng = np.random.default_rng(0)
+    x = np.round(rng.uniform(0, 10, 400), 6)
+    positive = x >= np.sort(x)[150]
+    found = find_linear_equation(x[:, None], positive, ["x"])
+    assert found.violations == 0 and found.terms[0].coef == 1
+    low, high = np.sort(x)[149], np.sort(x)[150]
+    assert Fraction(str(low)) < found.constant <= Fraction(str(high))
+    assert found.constant.denominator <= SHARP_DENOMINATOR < Fraction(str(high)).denominator
+    gap = [n for n in found.notes if getattr(n, "code", "") == "constant_gap"]
+    assert gap and gap[0].figures["high"] == Fraction(str(high))
