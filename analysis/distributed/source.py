@@ -32,7 +32,6 @@ from analysis.column_facts import (
     column_named,
     distinct_of,
     frame_facts,
-    marked_column,
     marked_note,
     marked_type,
     marker_counts,
@@ -42,7 +41,7 @@ from analysis.column_facts import (
     typed_block,
 )
 from analysis.distributed.reduction import tree
-from analysis.errors import StepError, TableError
+from analysis.errors import TableError
 from analysis.notes import Note
 from analysis.table import (
     ColumnInfo,
@@ -53,6 +52,7 @@ from analysis.table import (
     format_of,
     one_line,
     requested_roles,
+    role_change,
     single_id,
     unnamed_column_error,
     unnamed_column_warning,
@@ -454,56 +454,18 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
 
 def with_roles(table: PartitionedTable, roles: dict[str, str],
                id_column: str | None = None) -> PartitionedTable:
-    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column
-    (which roles change: :func:`analysis.table.requested_roles`, the in-memory rule)."""
+    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column,
+    by the in-memory rules (:func:`analysis.table.requested_roles` and ``role_change``)."""
     changes = requested_roles(table.name, table.columns, roles,
                               ... if id_column is None else id_column)
-    infos = []
-    how = dict(table.conversions)
-    facts = dict(table.facts)
+    infos, how, facts = [], dict(table.conversions), dict(table.facts)
     for info in table.columns:
-        role = changes.get(info.name)
-        if role is None:
-            infos.append(info)
-            continue
-        new = replace(info, role=role)
-        if role in ("text", "category"):
-            if info.dtype == "array":
-                raise StepError(f"{table.name}: column {info.name!r}: turning arrays into text "
-                                "is not done on the dask engine; use --engine local.")
-            if info.dtype not in ("text",):
-                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})",
-                              intervals=0, markers={})
-                how[info.name] = "text"
-        elif role == "invariant":
-            if info.dtype == "boolean":
-                new = replace(new, dtype="integer")
-                how[info.name] = "bool_to_int"
-            elif info.dtype == "text" and reads_marked(facts[info.name], requested=True):
-                # asked for outright: only the limit on different words applies, as in memory
-                facts[info.name], marked = marked_column(table.name, info.name, facts[info.name])
-                new = replace(marked, detected_role=info.detected_role)
-                how[info.name] = "marked:" + marked.dtype
-            elif info.dtype not in ("integer", "real", "big integer"):
-                raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
-                                "on the dask engine only numbers and flags can be invariants.")
-        elif role == "flag":
-            if info.dtype != "boolean":
-                raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
-                                "on the dask engine only true/false or 0/1 columns can be "
-                                "flags.")
-        elif role == "id":
-            if info.missing:
-                raise TableError(f"{table.name}: the id column {info.name!r} is empty in "
-                                 f"{info.missing} rows. Every row needs an id.")
-            if info.distinct != table.n_rows:
-                raise TableError(f"{table.name}: column {info.name!r} cannot be the id: it has "
-                                 f"{info.distinct} distinct values in {table.n_rows} rows. "
-                                 "Choose a column with unique values.")
-        elif role == "array" and info.dtype != "array":
-            raise TableError(f"{table.name}: column {info.name!r} holds {info.dtype} "
-                             "values, not arrays.")
-        infos.append(new)
+        if info.name in changes:
+            name = info.name
+            info, conversion, facts[name] = role_change(table.name, info, changes[name],
+                                                        table.n_rows, facts.get(name))
+            how.update({name: conversion} if conversion else {})
+        infos.append(info)
     return replace(table, columns=tuple(infos), id_column=single_id(table.name, infos),
                    conversions=tuple(how.items()), facts=facts)
 
