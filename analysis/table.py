@@ -128,8 +128,22 @@ class Limits:
     max_depth: int = 64
 
 
+class ColumnLookup:
+    """Column descriptions by name and by role, for a table with ``name`` and ``columns``
+    (:class:`Table`, and the Dask engine's partitioned table)."""
+
+    def column(self, name: str) -> ColumnInfo:
+        return column_named(self.name, self.columns, name)
+
+    def role(self, name: str) -> str:
+        return self.column(name).role
+
+    def names_with_role(self, *roles: str) -> list[str]:
+        return [c.name for c in self.columns if c.role in roles]
+
+
 @dataclass(frozen=True)
-class Table:
+class Table(ColumnLookup):
     """A parsed, typed table. Treat ``frame`` as read-only: steps never change it."""
 
     name: str
@@ -153,12 +167,6 @@ class Table:
             return np.arange(self.n_rows)
         return self.frame[self.id_column].to_numpy()
 
-    def column(self, name: str) -> ColumnInfo:
-        return column_named(self.name, self.columns, name)
-
-    def role(self, name: str) -> str:
-        return self.column(name).role
-
     def intervals(self, name: str) -> Intervals:
         """The interval cells ``[low, high]`` of a column (none for most columns).
 
@@ -174,9 +182,6 @@ class Table:
         positions = np.array(marks.positions if marks else (), dtype=np.int64)
         return Intervals(column=name, positions=positions, row_ids=self.row_ids[positions],
                          low=marks.low if marks else (), high=marks.high if marks else ())
-
-    def names_with_role(self, *roles: str) -> list[str]:
-        return [c.name for c in self.columns if c.role in roles]
 
     def numeric(self, name: str) -> np.ndarray:
         """The column as float64, NaN where missing. Huge integers may become +-inf."""
@@ -374,11 +379,17 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
         warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
     # over-long integer, a ragged matrix) can be kept by giving its column the role text.
-    as_text = {column for column, role in (roles or {}).items() if role in ("text", "category")}
+    as_text = set(text_roles(roles))
     table = _type_columns(frame, name, digest, fmt, warnings, limits, as_text, id_column)
     if roles or id_column is not None:
         table = table.with_roles(roles, id_column=id_column if id_column is not None else ...)
     return table
+
+
+def text_roles(roles: dict[str, str] | None) -> list[str]:
+    """The columns asked to be text or a category: both readers keep their cells as written,
+    unparsed, so that a cell that would not parse can be kept."""
+    return [column for column, role in (roles or {}).items() if role in ("text", "category")]
 
 
 # ----------------------------------------------------------------------------------------
@@ -1850,15 +1861,16 @@ def _true_level(levels: list):
 
 
 def _check_unique_ids(name: str, series: pd.Series) -> None:
+    """The cell-level id checks, naming the rows; empty cells first, as ``role_change``."""
+    if series.isna().any():
+        row = int(np.flatnonzero(series.isna().to_numpy())[0]) + 1
+        raise _empty_id(f"{name}, row {row}", series.name, "there")
     duplicated = series[series.duplicated(keep=False)]
     if len(duplicated):
         first = duplicated.iloc[0]
         rows = [int(i) + 1 for i in np.flatnonzero((series == first).to_numpy())[:3]]
         raise _repeated_id(name, series.name, f"the value {shown_value(first)} appears in "
                                               f"rows {', '.join(map(str, rows))}")
-    if series.isna().any():
-        row = int(np.flatnonzero(series.isna().to_numpy())[0]) + 1
-        raise _empty_id(f"{name}, row {row}", series.name, "there")
 
 
 # ----------------------------------------------------------------------------------------

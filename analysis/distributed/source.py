@@ -29,7 +29,6 @@ from analysis.column_facts import (
     MISSING_WORDS,
     array_text_facts,
     bucketed_uniques,
-    column_named,
     distinct_of,
     frame_facts,
     marked_note,
@@ -45,6 +44,7 @@ from analysis.errors import TableError
 from analysis.notes import Note
 from analysis.table import (
     ColumnInfo,
+    ColumnLookup,
     Table,
     check_column_names,
     delimited_layout,
@@ -54,6 +54,7 @@ from analysis.table import (
     requested_roles,
     role_change,
     single_id,
+    text_roles,
     unnamed_column_error,
     unnamed_column_warning,
 )
@@ -65,7 +66,7 @@ _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
 
 
 @dataclass(frozen=True)
-class PartitionedTable:
+class PartitionedTable(ColumnLookup):
     """A table on a Dask cluster: typed column descriptions, and partitions read on demand.
 
     The column descriptions (``columns``), ``id_column``, ``n_rows`` and ``warnings`` mean what
@@ -99,15 +100,6 @@ class PartitionedTable:
     @property
     def offsets(self) -> np.ndarray:
         return np.concatenate([[0], np.cumsum(self.partition_rows)[:-1]]).astype(np.int64)
-
-    def column(self, name: str) -> ColumnInfo:
-        return column_named(self.name, self.columns, name)
-
-    def role(self, name: str) -> str:
-        return self.column(name).role
-
-    def names_with_role(self, *roles: str) -> list[str]:
-        return [c.name for c in self.columns if c.role in roles]
 
     def typed_partitions(self, columns: list[str] | None = None) -> list:
         """One dask ``Delayed`` per partition: a pandas frame typed as ``Table.frame`` is.
@@ -253,10 +245,9 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
         warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # numbers in some partitions and text in others: the column is text, as in memory
     _facts_again(client, frame, facts, mixed, "text", name)
-    # columns the user asks to be text or a category are read as text, cells as given, as
-    # load_table reads them (array cells stay arrays: with_roles refuses to make them text)
-    asked = [c for c, role in (roles or {}).items() if role in ("text", "category")
-             and facts.get(c, {}).get("kind") != "list"]
+    # columns asked to be text or a category are read as text, cells as given, as in memory
+    # (array cells stay arrays: role_change refuses to make them text)
+    asked = [c for c in text_roles(roles) if facts.get(c, {}).get("kind") != "list"]
     _facts_again(client, frame, facts, asked, "as_text", name)
     _exact_distinct(client, frame, facts, conversions)
     infos, how = type_columns(name, header, facts, n, warnings, fmt, set(asked))
