@@ -461,8 +461,9 @@ def column_warnings(name: str, column: str, dtype: str, note: str, distinct: int
 
 def reads_as_array_texts(brackets: int, filled: int) -> bool:
     """Whether a column of text cells (not numbers, flags or marked numbers) is read as
-    arrays: when at least half of its ``filled`` cells start with ``[`` (``brackets``, after
-    stripping spaces). Every filled cell must then be a JSON array.
+    arrays: when at least half of its ``filled`` cells start with ``[`` or are lists in
+    braces (``brackets``, after stripping spaces; :func:`list_text`). Every filled cell must
+    then be an array.
 
     >>> reads_as_array_texts(3, 5), reads_as_array_texts(2, 5)
     (True, False)
@@ -472,6 +473,30 @@ def reads_as_array_texts(brackets: int, filled: int) -> bool:
 
 # How a cut-off list cell is named in a column's counts of cells read as missing.
 CUT_ARRAY_MARK = "[\u2026]"
+
+# A list in braces, as computer algebra systems and database dumps write lists and matrices
+# ({1, 2, 3}, {{1, 0}, {0, 1}}, {} for none): numbers (or an ellipsis, for a list cut short)
+# in at most two levels of braces, so records ({"a": 1}) and sets of words stay text.
+_BRACE_ITEM = r"(?:[+\-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+\-]?\d+)?|\.\.\.|\u2026)"
+_BRACE_ROW = rf"\{{\s*(?:{_BRACE_ITEM}(?:\s*,\s*{_BRACE_ITEM})*)?\s*\}}"
+_BRACE_LIST = (rf"\{{\s*(?:(?:{_BRACE_ITEM}|{_BRACE_ROW})"
+               rf"(?:\s*,\s*(?:{_BRACE_ITEM}|{_BRACE_ROW}))*)?\s*\}}")
+
+
+def list_text(text: str) -> str:
+    """A stripped cell holding a list in braces, written in brackets as JSON writes it; any
+    other text as it is.
+
+    >>> list_text("{{1,0},{0,-1}}"), list_text("{2., .5, +1}"), list_text('{"a": 1}')
+    ('[[1,0],[0,-1]]', '[2.0, 0.5, 1]', '{"a": 1}')
+    """
+    if not (text.startswith("{") and re.fullmatch(_BRACE_LIST, text)):
+        return text
+    text = text.replace("{", "[").replace("}", "]")
+    # the spellings JSON lacks: 2. and .5 (as machine reals are written) and a leading +
+    text = re.sub(r"(\d)\.(?![\d.])", r"\1.0", text)
+    text = re.sub(r"(?<![\d.])\.(\d)", r"0.\1", text)
+    return re.sub(r"\+(?=[\d.])", "", text)
 
 
 def array_mark(text: str) -> str | None:
@@ -485,6 +510,7 @@ def array_mark(text: str) -> str | None:
     >>> array_mark("[2, 3, 5, 7, ...]"), array_mark("n/a"), array_mark("[1, 2]")
     ('[…]', 'n/a', None)
     """
+    text = list_text(text)
     if text.startswith("[") and ("\u2026" in text or "..." in text):
         return CUT_ARRAY_MARK
     kind, word = read_marked_cell(text)
@@ -610,7 +636,9 @@ def _text_facts(facts: dict, text: pd.Series, present: pd.Series, missing_mask,
         facts.update(_text_counts(text, ~missing_mask))
     facts["marked"] = marked_facts(present.tolist(), np.flatnonzero(~missing_mask))
     facts.update(_number_cells(text, missing_mask))
-    facts["brackets"] = int(text.str.strip().str.startswith("[").sum())
+    stripped = text.str.strip()
+    facts["brackets"] = int((stripped.str.startswith("[")
+                             | stripped.str.fullmatch(_BRACE_LIST)).sum())
     # every cell an integer or p/q: the column is read as exact rationals, as in memory
     facts["rational"] = bool(text.str.fullmatch(RATIONAL_TEXT).all())
     facts["integers"] = bool(facts["rational"] and text.str.fullmatch(INTEGER_TEXT).all())

@@ -71,6 +71,7 @@ from analysis.column_facts import (
     is_missing,
     label_merge_warning,
     label_merge_words,
+    list_text,
     marked_column,
     marked_dtype,
     marked_note,
@@ -1461,6 +1462,7 @@ def _array_texts(series: pd.Series, present: list, name: str, column: str, limit
 def _array_text(t: str, name: str, row: int, column: str, limits: Limits) -> list:
     """One JSON-array cell's list; a TableError naming ``row`` (0-based) when it is none."""
     where = f"{name}, row {row + 1}, column {column!r}"
+    t = list_text(t)
     if not t.startswith("["):
         raise TableError(f"{where}: expected an array like [1, 2], got {shown_value(t)}. "
                          "Make every cell of the column an array, or empty.")

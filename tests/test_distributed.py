@@ -230,6 +230,22 @@ def test_cut_off_lists_are_missing_and_counted_as_in_memory(client, tmp_path):
                             "[\u2026]": sum(c.endswith("...]") for c in cells)}
 
 
+def test_lists_in_braces_are_arrays_as_in_memory(client, tmp_path):
+    # degree sequences in braces, as database dumps write arrays; networkx's graph atlas
+    import networkx as nx
+
+    atlas = nx.graph_atlas_g()[1:]
+    cells = ["{" + ",".join(map(str, sorted((d for _, d in g.degree()), reverse=True))) + "}"
+             for g in atlas]
+    frame = pd.DataFrame({"n": [g.number_of_nodes() for g in atlas], "degrees": cells})
+    folder, whole = write_parts(frame, tmp_path / "braces", parts=3)
+    table = read_partitioned(folder, client)
+    in_memory = load_table(whole)
+    assert table.column("degrees").dtype == in_memory.column("degrees").dtype == "array"
+    overview = run_distributed(OverviewStep(), folder, client=client)
+    assert overview.to_json()["columns"] == OverviewStep().run(in_memory).to_json()["columns"]
+
+
 def test_a_reversed_interval_is_named(client, tmp_path):
     frame = pd.DataFrame({"v": ["1", "2", "[5,3]", "4", "x", "6", "7", "8"]})
     folder, whole = write_parts(frame, tmp_path / "reversed", parts=2)

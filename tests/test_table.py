@@ -1013,6 +1013,55 @@ def test_cut_off_lists_and_marker_words_in_an_array_column_are_missing_and_count
         for r in rows]
 
 
+def _brace_lists_tsv() -> bytes:
+    # lists and matrices in braces, as computer algebra systems print them and database dumps
+    # write arrays (common practice); the degree sequences and adjacency matrices are
+    # networkx's graph atlas
+    import networkx as nx
+
+    lines = ["name\tdegrees\tadjacency\tnote"]
+    for i, g in enumerate(nx.graph_atlas_g()[1:40]):
+        degrees = sorted((d for _, d in g.degree()), reverse=True)
+        rows = nx.to_numpy_array(g, dtype=int).tolist()
+        braces = "{" + ", ".join("{" + ",".join(map(str, r)) + "}" for r in rows) + "}"
+        note = '{"seen": 1}' if i % 2 else "{a, b}"
+        lines.append(f"G{i + 1}\t{{{','.join(map(str, degrees))}}}\t{braces}\t{note}")
+    return ("\n".join(lines) + "\n").encode()
+
+
+def test_lists_and_matrices_in_braces_are_arrays():
+    import networkx as nx
+
+    table = read_table(_brace_lists_tsv(), "atlas.tsv")
+    assert (table.column("degrees").dtype, table.column("adjacency").dtype) == ("array",
+                                                                                "array")
+    for g, degrees, adjacency in zip(nx.graph_atlas_g()[1:40], table.frame["degrees"],
+                                     table.frame["adjacency"]):
+        assert degrees.tolist() == sorted((d for _, d in g.degree()), reverse=True)
+        assert adjacency.tolist() == nx.to_numpy_array(g, dtype=int).tolist()
+    # records and sets of words in braces are no lists: the column stays text, as written
+    assert table.column("note").dtype == "text"
+    assert set(table.frame["note"]) == {'{"seen": 1}', "{a, b}"}
+
+
+@pytest.mark.parametrize("cell, read", [
+    ("{2., .5, +1}", [2.0, 0.5, 1.0]),      # machine reals as some systems print them
+    ("{1.5e-3, -2}", [0.0015, -2.0]),
+    ("{}", []),
+])
+def test_numbers_in_brace_lists_are_read_in_their_usual_spellings(cell, read):
+    data = f"n,v\n1,\"{cell}\"\n2,\"{{3, 4}}\"\n".encode()
+    table = read_table(data, "t.csv")
+    assert table.column("v").dtype == "array"
+    assert table.frame["v"][0].tolist() == read
+
+
+def test_a_cut_off_brace_list_is_missing_and_counted():
+    data = b'n,v\n1,"{1, 2}"\n2,"{1, 2, ...}"\n3,"{4}"\n'
+    info = read_table(data, "t.csv").column("v")
+    assert (info.dtype, info.missing, info.markers) == ("array", 1, {"[\u2026]": 1})
+
+
 def test_a_broken_list_cell_still_names_its_row():
     data = b'n,divisors\n2,"[1, 2]"\n3,"[1, 3"\n4,"[1, 2, 4]"\n'
     with pytest.raises(TableError, match=r"t.csv, row 2, column 'divisors': not a valid JSON "
