@@ -44,6 +44,7 @@ from dataclasses import dataclass, field, replace
 from decimal import Decimal
 from fractions import Fraction
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -71,21 +72,24 @@ from analysis.column_facts import (
     label_merge_warning,
     label_merge_words,
     list_text,
+    marked_column,
     marked_dtype,
     marked_note,
     marker_counts,
     read_marked_cell,
     reads_array_words,
     reads_as_marked_numbers,
+    reads_marked,
     shown_value,
     text_block_facts,
     text_note,
     text_reading,
 )
-from analysis.errors import TableError
+from analysis.errors import StepError, TableError
 from analysis.notes import Note
 
 ROLES = ("id", "invariant", "category", "flag", "array", "text")
+_NUMBER_DTYPES = ("integer", "big integer", "rational", "real")
 FORMATS = ("csv", "tsv", "json", "jsonl", "parquet")
 _EXTENSIONS = {
     ".csv": "csv",
@@ -125,8 +129,22 @@ class Limits:
     max_depth: int = 64
 
 
+class ColumnLookup:
+    """Column descriptions by name and by role, for a table with ``name`` and ``columns``
+    (:class:`Table`, and the Dask engine's partitioned table)."""
+
+    def column(self, name: str) -> ColumnInfo:
+        return column_named(self.name, self.columns, name)
+
+    def role(self, name: str) -> str:
+        return self.column(name).role
+
+    def names_with_role(self, *roles: str) -> list[str]:
+        return [c.name for c in self.columns if c.role in roles]
+
+
 @dataclass(frozen=True)
-class Table:
+class Table(ColumnLookup):
     """A parsed, typed table. Treat ``frame`` as read-only: steps never change it."""
 
     name: str
@@ -150,12 +168,6 @@ class Table:
             return np.arange(self.n_rows)
         return self.frame[self.id_column].to_numpy()
 
-    def column(self, name: str) -> ColumnInfo:
-        return column_named(self.name, self.columns, name)
-
-    def role(self, name: str) -> str:
-        return self.column(name).role
-
     def intervals(self, name: str) -> Intervals:
         """The interval cells ``[low, high]`` of a column (none for most columns).
 
@@ -171,9 +183,6 @@ class Table:
         positions = np.array(marks.positions if marks else (), dtype=np.int64)
         return Intervals(column=name, positions=positions, row_ids=self.row_ids[positions],
                          low=marks.low if marks else (), high=marks.high if marks else ())
-
-    def names_with_role(self, *roles: str) -> list[str]:
-        return [c.name for c in self.columns if c.role in roles]
 
     def numeric(self, name: str) -> np.ndarray:
         """The column as float64, NaN where missing. Huge integers may become +-inf."""
@@ -371,11 +380,17 @@ def read_table(data: bytes, name: str, *, id_column: str | None = None,
         warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # Columns the caller wants as text are not parsed, so a cell that would not parse (an
     # over-long integer, a ragged matrix) can be kept by giving its column the role text.
-    as_text = {column for column, role in (roles or {}).items() if role in ("text", "category")}
+    as_text = set(text_roles(roles))
     table = _type_columns(frame, name, digest, fmt, warnings, limits, as_text, id_column)
     if roles or id_column is not None:
         table = table.with_roles(roles, id_column=id_column if id_column is not None else ...)
     return table
+
+
+def text_roles(roles: dict[str, str] | None) -> list[str]:
+    """The columns asked to be text or a category: both readers keep their cells as written,
+    unparsed, so that a cell that would not parse can be kept."""
+    return [column for column, role in (roles or {}).items() if role in ("text", "category")]
 
 
 # ----------------------------------------------------------------------------------------
@@ -1606,14 +1621,87 @@ def single_id(table_name: str, columns) -> str | None:
     return ids[0] if ids else None
 
 
+class RoleChange(NamedTuple):
+    """A column's new description for a new role, the conversion its raw cells need for it
+    (a ``how`` of :func:`analysis.column_facts.typed_block`; None: as before), and its typing
+    facts (changed only when marked text is read as numbers)."""
+
+    info: ColumnInfo
+    conversion: str | None = None
+    facts: dict | None = None
+
+
+def role_change(table_name: str, info: ColumnInfo, role: str, n_rows: int,
+                facts: dict | None = None) -> RoleChange:
+    """What the role ``role`` makes of the column ``info`` (of a table of ``n_rows`` rows),
+    decided from its description and, when given, its merged typing facts, without its cells.
+
+    The partitioned reader decides every role change here; the in-memory one, which reads
+    the cells, here only what needs none (numbers kept as invariants, a flag counted as 0/1,
+    a column shown as text). What only the cells could settle is refused by name: arrays as
+    text, flags from other values, invariants from text that is not marked numbers. An id
+    column must be filled and unique by its counts (the in-memory reader names the rows).
+    """
+    column = info.name
+    new = replace(info, role=role)
+    if role in ("text", "category"):
+        if info.dtype == "array":
+            raise StepError(f"{table_name}: column {column!r}: turning arrays into text is not "
+                            "done on the dask engine; use --engine local.")
+        if info.dtype == "text":
+            return RoleChange(new, None, facts)
+        return RoleChange(_shown_as_text(info, role), "text", facts)
+    if role == "invariant":
+        if info.dtype in _NUMBER_DTYPES:
+            return RoleChange(new, None, facts)
+        if info.dtype == "boolean":
+            return RoleChange(replace(new, dtype="integer"), "bool_to_int", facts)
+        if info.dtype == "text" and facts is not None and reads_marked(facts, requested=True):
+            # asked for outright: only the limit on different words applies, as in memory
+            facts, marked = marked_column(table_name, column, facts)
+            return RoleChange(replace(marked, detected_role=info.detected_role),
+                              "marked:" + marked.dtype, facts)
+        raise StepError(f"{table_name}: column {column!r} holds {info.dtype} values; on the "
+                        "dask engine only numbers and flags can be invariants.")
+    if role == "flag" and info.dtype != "boolean":
+        raise StepError(f"{table_name}: column {column!r} holds {info.dtype} values; on the "
+                        "dask engine only true/false or 0/1 columns can be flags.")
+    if role == "id":
+        if info.missing:
+            raise _empty_id(table_name, column, f"in {info.missing} rows")
+        if info.distinct != n_rows:
+            raise _repeated_id(table_name, column,
+                               f"it has {info.distinct} distinct values in {n_rows} rows")
+    if role == "array" and info.dtype != "array":
+        raise TableError(f"{table_name}: column {column!r} holds {info.dtype} values, not "
+                         "arrays.")
+    return RoleChange(new, None, facts)
+
+
+def _shown_as_text(info: ColumnInfo, role: str) -> ColumnInfo:
+    """The description of a column of other values given the role text or category."""
+    return replace(info, role=role, dtype="text", note=f"shown as text (was {info.dtype})",
+                   intervals=0, markers={})
+
+
+def _empty_id(where: str, column: str, rows: str) -> TableError:
+    return TableError(f"{where}: the id column {column!r} is empty {rows}. "
+                      "Every row needs an id.")
+
+
+def _repeated_id(table_name: str, column: str, reason: str) -> TableError:
+    return TableError(f"{table_name}: column {column!r} cannot be the id: {reason}. "
+                      "Choose a column with unique values.")
+
+
 def _retype(table_name: str, series: pd.Series, info: ColumnInfo, role: str,
             limits: Limits | None = None, marks: _Marks | None = None, ids=None):
     """Values, ColumnInfo and _Marks (or None) for a column given a new role; checks every
     cell. ``marks`` are the column's marks so far, ``ids`` the row ids named in messages."""
     limits = limits or Limits()
     new = replace(info, role=role)
-    if role == "invariant" and info.dtype in ("integer", "big integer", "rational", "real"):
-        return None, new, marks
+    if role == "invariant" and info.dtype in _NUMBER_DTYPES:
+        return None, role_change(table_name, info, role, len(series)).info, marks
     unmarked = replace(new, intervals=0, markers={})
     if role in ("text", "category"):
         return (*_retype_text(table_name, series, info, role, unmarked, marks), None)
@@ -1651,8 +1739,7 @@ def _retype_text(table_name: str, series: pd.Series, info: ColumnInfo, role: str
         values = [None if is_missing(v) else str(v) for v in series.tolist()]
     for position, text in (marks.texts if marks else ()):
         values[position] = text  # an interval or word as the file wrote it
-    return pd.Series(values, dtype=object, index=series.index), replace(
-        new, dtype="text", note=f"shown as text (was {info.dtype})")
+    return pd.Series(values, dtype=object, index=series.index), _shown_as_text(info, role)
 
 
 def _as_invariant(table_name: str, series: pd.Series, info: ColumnInfo, new: ColumnInfo,
@@ -1699,7 +1786,8 @@ def _retype_other(table_name: str, series: pd.Series, info: ColumnInfo, role: st
         return None, new
     if role == "invariant":  # from a flag
         return series.map(lambda v: None if is_missing(v) else int(bool(v))).astype(
-            "float64" if series.isna().any() else "int64"), replace(new, dtype="integer")
+            "float64" if series.isna().any() else "int64"), role_change(
+                table_name, info, role, len(series)).info
     if role == "flag":
         if info.dtype == "array":
             raise TableError(
@@ -1775,18 +1863,16 @@ def _true_level(levels: list):
 
 
 def _check_unique_ids(name: str, series: pd.Series) -> None:
+    """The cell-level id checks, naming the rows; empty cells first, as ``role_change``."""
+    if series.isna().any():
+        row = int(np.flatnonzero(series.isna().to_numpy())[0]) + 1
+        raise _empty_id(f"{name}, row {row}", series.name, "there")
     duplicated = series[series.duplicated(keep=False)]
     if len(duplicated):
         first = duplicated.iloc[0]
         rows = [int(i) + 1 for i in np.flatnonzero((series == first).to_numpy())[:3]]
-        raise TableError(
-            f"{name}: column {series.name!r} cannot be the id: the value {shown_value(first)} "
-            f"appears in rows {', '.join(map(str, rows))}. Choose a column with unique values."
-        )
-    if series.isna().any():
-        row = int(np.flatnonzero(series.isna().to_numpy())[0]) + 1
-        raise TableError(f"{name}, row {row}: the id column {series.name!r} is empty there. "
-                         "Every row needs an id.")
+        raise _repeated_id(name, series.name, f"the value {shown_value(first)} appears in "
+                                              f"rows {', '.join(map(str, rows))}")
 
 
 # ----------------------------------------------------------------------------------------

@@ -35,7 +35,7 @@ from analysis.distributed import (  # noqa: E402
     run_distributed,
     sample_table,
 )
-from analysis.errors import StepError  # noqa: E402
+from analysis.errors import StepError, TableError  # noqa: E402
 from analysis.notes import note_code  # noqa: E402
 from analysis.steps import make_step  # noqa: E402
 from analysis.table import load_table  # noqa: E402
@@ -211,6 +211,29 @@ def test_the_role_id_given_to_one_column_moves_the_id_alike(client, tmp_path):
     assert expected.id_column == table.id_column == "code"
     assert table.columns == expected.columns
     assert table.column("name").role == "text"
+
+
+@pytest.mark.parametrize("keys, in_memory, partitioned", [
+    ([0, 1, 2, 3, 4, 5, 6, 3, 8, 9, 10, 11],
+     r"keys\.parquet: column 'key' cannot be the id: the value 3 appears in rows 4, 8\. "
+     r"Choose a column with unique values\.",
+     r"keys: column 'key' cannot be the id: it has 11 distinct values in 12 rows\. "
+     r"Choose a column with unique values\."),
+    ([0, 1, None, 3, 4, None, 6, 7, 8, 9, 10, 11],
+     r"keys\.parquet, row 3: the id column 'key' is empty there\. Every row needs an id\.",
+     r"keys: the id column 'key' is empty in 2 rows\. Every row needs an id\."),
+], ids=["repeated value", "empty cells"])
+def test_a_column_that_cannot_be_the_id_is_refused_alike(client, tmp_path, keys, in_memory,
+                                                         partitioned):
+    # one refusal, worded once in analysis.table, on both engines: a user who switches engine
+    # on the same file meets the same problem and the same remedy (the in-memory engine,
+    # holding the cells, names the rows); empty cells are checked first on both
+    frame = pd.DataFrame({"key": keys, "v": range(12)})
+    folder, whole = write_parts(frame, tmp_path / "keys")
+    with pytest.raises(TableError, match=f"^{in_memory}$"):
+        load_table(whole, id_column="key")
+    with pytest.raises(TableError, match=f"^{partitioned}$"):
+        read_partitioned(folder, client, id_column="key")
 
 
 def test_arrays_asked_to_be_text_are_refused_by_name(client, atlas):

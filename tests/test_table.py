@@ -20,8 +20,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from analysis.errors import TableError
-from analysis.table import ROLES, Limits, load_table, read_table
+from analysis.errors import StepError, TableError
+from analysis.table import ROLES, Limits, load_table, read_table, role_change
 
 BIG = 2**200 + 12345  # far past 64 bits
 NEGATIVE_BIG = -(3**90)
@@ -496,6 +496,53 @@ def test_id_column_moves_and_can_be_removed(mixed):
 def test_two_ids_at_once_are_rejected(mixed):
     with pytest.raises(TableError, match=r"only one column can be the id; got 'name', 'n'"):
         mixed.with_roles({"name": "id", "n": "id"})
+
+
+@pytest.mark.parametrize("column, role, conversion", [
+    ("n", "text", "text"),
+    ("q", "category", "text"),
+    ("flag", "invariant", "bool_to_int"),
+    ("flag", "text", "text"),
+    ("kind", "text", None),
+    ("name", "category", None),
+], ids=lambda v: v if isinstance(v, str) else "")
+def test_role_change_gives_the_description_the_cells_give(mixed, column, role, conversion):
+    # the Dask reader types a role change from the column's description alone
+    # (table.role_change); where that needs no cells it must equal what the in-memory reader
+    # makes of the cells, or one file would be typed two ways by the two engines
+    change = role_change(mixed.name, mixed.column(column), role, mixed.n_rows)
+    assert change.info == mixed.with_roles({column: role}).column(column)
+    assert change.conversion == conversion
+
+
+@pytest.mark.parametrize("column, role, error, message", [
+    ("m", "text", StepError, r"mixed\.csv: column 'm': turning arrays into text is not done "
+                             r"on the dask engine; use --engine local\."),
+    ("kind", "flag", StepError, r"mixed\.csv: column 'kind' holds text values; on the dask "
+                                r"engine only true/false or 0/1 columns can be flags\."),
+    ("name", "invariant", StepError, r"column 'name' holds text values; on the dask engine "
+                                     r"only numbers and flags can be invariants\."),
+    # kind holds x, y, x: two values in three rows
+    ("kind", "id", TableError, r"mixed\.csv: column 'kind' cannot be the id: it has 2 "
+                               r"distinct values in 3 rows\. Choose a column with unique"),
+    ("n", "array", TableError, r"mixed\.csv: column 'n' holds integer values, not arrays\."),
+], ids=["array to text", "text to flag", "text to invariant", "repeated id", "number to array"])
+def test_role_change_refuses_what_only_the_cells_settle(mixed, column, role, error, message):
+    with pytest.raises(error, match=message):
+        role_change(mixed.name, mixed.column(column), role, mixed.n_rows)
+
+
+def test_an_id_column_with_empty_cells_is_refused_by_both_checks():
+    # two empty cells: the cell check once took them for a repeated value and named no row
+    # ("the value nan appears in rows ."); empty cells are checked first, as role_change does
+    data = b"k,v\n1,5\n,6\n,7\n4,8\n"
+    table = read_table(data, "t.csv")
+    with pytest.raises(TableError, match=r"^t\.csv: the id column 'k' is empty in 2 rows\. "
+                                         r"Every row needs an id\.$"):
+        role_change(table.name, table.column("k"), "id", table.n_rows)
+    with pytest.raises(TableError, match=r"^t\.csv, row 2: the id column 'k' is empty there\. "
+                                         r"Every row needs an id\.$"):
+        read_table(data, "t.csv", id_column="k")
 
 
 def test_id_with_an_empty_cell_is_rejected():

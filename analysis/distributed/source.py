@@ -29,10 +29,8 @@ from analysis.column_facts import (
     MISSING_WORDS,
     array_text_facts,
     bucketed_uniques,
-    column_named,
     distinct_of,
     frame_facts,
-    marked_column,
     marked_note,
     marked_type,
     marker_counts,
@@ -42,10 +40,11 @@ from analysis.column_facts import (
     typed_block,
 )
 from analysis.distributed.reduction import tree
-from analysis.errors import StepError, TableError
+from analysis.errors import TableError
 from analysis.notes import Note
 from analysis.table import (
     ColumnInfo,
+    ColumnLookup,
     Table,
     check_column_names,
     delimited_layout,
@@ -53,7 +52,9 @@ from analysis.table import (
     format_of,
     one_line,
     requested_roles,
+    role_change,
     single_id,
+    text_roles,
     unnamed_column_error,
     unnamed_column_warning,
 )
@@ -65,7 +66,7 @@ _PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
 
 
 @dataclass(frozen=True)
-class PartitionedTable:
+class PartitionedTable(ColumnLookup):
     """A table on a Dask cluster: typed column descriptions, and partitions read on demand.
 
     The column descriptions (``columns``), ``id_column``, ``n_rows`` and ``warnings`` mean what
@@ -99,15 +100,6 @@ class PartitionedTable:
     @property
     def offsets(self) -> np.ndarray:
         return np.concatenate([[0], np.cumsum(self.partition_rows)[:-1]]).astype(np.int64)
-
-    def column(self, name: str) -> ColumnInfo:
-        return column_named(self.name, self.columns, name)
-
-    def role(self, name: str) -> str:
-        return self.column(name).role
-
-    def names_with_role(self, *roles: str) -> list[str]:
-        return [c.name for c in self.columns if c.role in roles]
 
     def typed_partitions(self, columns: list[str] | None = None) -> list:
         """One dask ``Delayed`` per partition: a pandas frame typed as ``Table.frame`` is.
@@ -253,10 +245,9 @@ def read_partitioned(path: str | Path, client, *, id_column: str | None = None,
         warnings.append(Note("one_row", f"{name}: only one row; most steps need many more."))
     # numbers in some partitions and text in others: the column is text, as in memory
     _facts_again(client, frame, facts, mixed, "text", name)
-    # columns the user asks to be text or a category are read as text, cells as given, as
-    # load_table reads them (array cells stay arrays: with_roles refuses to make them text)
-    asked = [c for c, role in (roles or {}).items() if role in ("text", "category")
-             and facts.get(c, {}).get("kind") != "list"]
+    # columns asked to be text or a category are read as text, cells as given, as in memory
+    # (array cells stay arrays: role_change refuses to make them text)
+    asked = [c for c in text_roles(roles) if facts.get(c, {}).get("kind") != "list"]
     _facts_again(client, frame, facts, asked, "as_text", name)
     _exact_distinct(client, frame, facts, conversions)
     infos, how = type_columns(name, header, facts, n, warnings, fmt, set(asked))
@@ -454,56 +445,18 @@ def _array_text_shapes(client, frame, facts: dict, how, name: str, partition_row
 
 def with_roles(table: PartitionedTable, roles: dict[str, str],
                id_column: str | None = None) -> PartitionedTable:
-    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column
-    (which roles change: :func:`analysis.table.requested_roles`, the in-memory rule)."""
+    """A new PartitionedTable with some roles overridden and, optionally, a chosen id column,
+    by the in-memory rules (:func:`analysis.table.requested_roles` and ``role_change``)."""
     changes = requested_roles(table.name, table.columns, roles,
                               ... if id_column is None else id_column)
-    infos = []
-    how = dict(table.conversions)
-    facts = dict(table.facts)
+    infos, how, facts = [], dict(table.conversions), dict(table.facts)
     for info in table.columns:
-        role = changes.get(info.name)
-        if role is None:
-            infos.append(info)
-            continue
-        new = replace(info, role=role)
-        if role in ("text", "category"):
-            if info.dtype == "array":
-                raise StepError(f"{table.name}: column {info.name!r}: turning arrays into text "
-                                "is not done on the dask engine; use --engine local.")
-            if info.dtype not in ("text",):
-                new = replace(new, dtype="text", note=f"shown as text (was {info.dtype})",
-                              intervals=0, markers={})
-                how[info.name] = "text"
-        elif role == "invariant":
-            if info.dtype == "boolean":
-                new = replace(new, dtype="integer")
-                how[info.name] = "bool_to_int"
-            elif info.dtype == "text" and reads_marked(facts[info.name], requested=True):
-                # asked for outright: only the limit on different words applies, as in memory
-                facts[info.name], marked = marked_column(table.name, info.name, facts[info.name])
-                new = replace(marked, detected_role=info.detected_role)
-                how[info.name] = "marked:" + marked.dtype
-            elif info.dtype not in ("integer", "real", "big integer"):
-                raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
-                                "on the dask engine only numbers and flags can be invariants.")
-        elif role == "flag":
-            if info.dtype != "boolean":
-                raise StepError(f"{table.name}: column {info.name!r} holds {info.dtype} values; "
-                                "on the dask engine only true/false or 0/1 columns can be "
-                                "flags.")
-        elif role == "id":
-            if info.missing:
-                raise TableError(f"{table.name}: the id column {info.name!r} is empty in "
-                                 f"{info.missing} rows. Every row needs an id.")
-            if info.distinct != table.n_rows:
-                raise TableError(f"{table.name}: column {info.name!r} cannot be the id: it has "
-                                 f"{info.distinct} distinct values in {table.n_rows} rows. "
-                                 "Choose a column with unique values.")
-        elif role == "array" and info.dtype != "array":
-            raise TableError(f"{table.name}: column {info.name!r} holds {info.dtype} "
-                             "values, not arrays.")
-        infos.append(new)
+        if info.name in changes:
+            name = info.name
+            info, conversion, facts[name] = role_change(table.name, info, changes[name],
+                                                        table.n_rows, facts.get(name))
+            how.update({name: conversion} if conversion else {})
+        infos.append(info)
     return replace(table, columns=tuple(infos), id_column=single_id(table.name, infos),
                    conversions=tuple(how.items()), facts=facts)
 
