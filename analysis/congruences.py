@@ -542,6 +542,17 @@ def find_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
     return sorted(joined_congruences(result), key=simplicity_key)
 
 
+def proposed_congruences(columns: Mapping[str, Sequence], row_ids: Sequence, *,
+                         moduli: Sequence[int] = MODULI) -> dict:
+    """Candidates for :func:`settle_congruences`, proposed on some rows (``columns`` and
+    ``row_ids`` as :func:`find_congruences` takes them) to be counted on every row:
+    ``{(terms, modulus, residue): congruence}`` of the congruences found one modulus at a
+    time, so that no fact of these rows hides a weaker modulus, or a pair, that only every
+    row can settle."""
+    return {(c.terms, modulus, c.residue): c for modulus in moduli
+            for c in find_congruences(columns, row_ids, moduli=[modulus])}
+
+
 def _fact_of(congruence: Congruence, moduli: Sequence[int]) -> dict:
     """A congruence as the fact record the strongest-modulus rule reads."""
     m = congruence.modulus

@@ -1500,17 +1500,14 @@ def merge_score_counts(a, b, max_distinct: int):
     """Two blocks' (distinct scores, rows at each, positive rows at each, denominator or
     None for float scores) as one, over the least common denominator; None when either is
     None or past ``max_distinct`` distinct scores."""
+    from analysis.features import merge_value_counts
+
     if a is None or b is None:
         return None
     common = None if a[3] is None or b[3] is None else math.lcm(a[3], b[3])
-    values = np.concatenate([over_denominator(a[0], a[3], common),
-                             over_denominator(b[0], b[3], common)])
-    merged, inverse = np.unique(values, return_inverse=True)
-    if len(merged) > max_distinct:
-        return None
-    rows_at, positives_at = (np.bincount(inverse, weights=np.concatenate([a[k], b[k]]),
-                                         minlength=len(merged)).astype(np.int64) for k in (1, 2))
-    return merged, rows_at, positives_at, common
+    merged = merge_value_counts((over_denominator(a[0], a[3], common), *a[1:3]),
+                                (over_denominator(b[0], b[3], common), *b[1:3]))
+    return None if len(merged[0]) > max_distinct else (*merged, common)
 
 
 def rounding_note(constant: Fraction, violations: int, fewest: int) -> Note:

@@ -375,6 +375,16 @@ def value_counts(column: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return np.unique(column[np.isfinite(column)], return_counts=True)
 
 
+def merge_value_counts(a: tuple, b: tuple) -> tuple:
+    """Two blocks' (distinct values ascending, then one or more counts per value, as
+    :func:`value_counts` gives them) as one: the distinct values of both, ascending, and each
+    count summed over the two blocks."""
+    merged, inverse = np.unique(np.concatenate([a[0], b[0]]), return_inverse=True)
+    return (merged, *(np.bincount(inverse.ravel(), weights=np.concatenate([x, y]),
+                                  minlength=len(merged)).astype(np.int64)
+                      for x, y in zip(a[1:], b[1:])))
+
+
 def fills(features: list[Feature], counted: list) -> dict[str, float]:
     """What each feature's missing cells are filled with (missing="impute"), by name, from
     its :func:`value_counts`.

@@ -834,6 +834,29 @@ def _relation_from_vector(vector, names, holds_on, violations, note="", trivial=
     )
 
 
+def relation_vector(relation: Relation, names: Sequence[str]) -> list[int]:
+    """The exact relation as an integer vector over ``names`` (every column it has) and a
+    last entry for the constant, as the search writes relations (the inverse of reading a
+    vector as a relation, up to a positive factor)."""
+    index = {n: j for j, n in enumerate(names)}
+    scale = math.lcm(*(Fraction(c).denominator for _, c in relation.terms),
+                     Fraction(relation.constant).denominator)
+    vector = [0] * (len(names) + 1)
+    for name, coef in relation.terms:
+        vector[index[name]] = int(Fraction(coef) * scale)
+    vector[-1] = -int(Fraction(relation.constant) * scale)
+    return vector
+
+
+def with_breakers(relation: Relation, holds_on: int, violations) -> Relation:
+    """The exact ``relation`` as reported when the rows ``violations`` (their ids) break it
+    and ``holds_on`` rows obey it, with the note of :func:`robust_note`."""
+    violations = tuple(violations)
+    return replace(relation, holds_on=holds_on, violations=violations,
+                   note=robust_note([name for name, _ in relation.terms], len(violations),
+                                    relation.trivial))
+
+
 def breakers_allowed(max_breakers, size: int) -> int:
     if isinstance(max_breakers, Integral) or (
         isinstance(max_breakers, float) and max_breakers >= 1
@@ -909,10 +932,8 @@ def _robust_relations(matrix, core, base, row_ids, used, breakers, rng) -> list[
         trivial = len(terms) == 1 or (
             len(terms) == 2 and vector[-1] == 0 and terms[0][1] == -terms[1][1]
         )
-        violations = tuple(row_ids[used[bad]].tolist())
-        note = robust_note([name for name, _ in terms], len(bad), trivial)
-        found.append(_relation_from_vector(vector, core, size - len(bad), violations, note,
-                                           trivial))
+        found.append(with_breakers(_relation_from_vector(vector, core, 0, (), trivial=trivial),
+                                   size - len(bad), row_ids[used[bad]].tolist()))
     return found
 
 
@@ -1156,6 +1177,36 @@ def ordered_relations(every: list, robust: list) -> list:
     few rows, the trivial ones (constant or repeated columns) of each after all the others."""
     return ([r for r in every if not r.trivial] + [r for r in robust if not r.trivial]
             + [r for r in every if r.trivial] + [r for r in robust if r.trivial])
+
+
+def settle_relations(every: list, candidates: list, counts: list, allowed: int,
+                     names: Sequence[str]) -> list:
+    """The exact relations reported from counts over every row, for an engine that searches
+    some rows and counts on all, kept as the search keeps them: of ``every`` (relations that
+    no row searched breaks) those no row breaks; of ``candidates`` ((relation, its
+    :func:`relation_vector` over ``names``), relations that a few rows break) those at most
+    ``allowed`` rows break, chosen by :func:`robust_choice`; in the reported order.
+    ``counts`` hold (rows counted, rows breaking, the first breaking rows' ids) of each of
+    ``every``, then of each candidate."""
+    first = counts[: len(every)]
+    settled = [replace(r, holds_on=present)
+               for r, (present, count, _) in zip(every, first) if not count]
+    chosen = robust_choice(
+        [(vector, count, relation, present, ids) for (relation, vector), (present, count, ids)
+         in zip(candidates, counts[len(every):])],
+        [relation_vector(r, names) for r in every], lambda c: 0 < c[1] <= allowed)
+    robust = [with_breakers(relation, present - count, ids[: allowed + 1].tolist())
+              for _, count, relation, present, ids in chosen]
+    return ordered_relations(settled, robust)
+
+
+def settle_approximate(relations: list, counts: list, allowed: int) -> list:
+    """The approximate relations reported from counts over every row: each of ``relations``
+    with its counts (rows counted, rows off, the first off rows' ids), kept when at most
+    ``allowed`` rows are off."""
+    return [replace(r, holds_on=present - off, violations=tuple(ids[: allowed + 1].tolist()),
+                    note=approximate_note(off))
+            for r, (present, off, ids) in zip(relations, counts) if off <= allowed]
 
 
 # --------------------------------------------------------------------------------------------
@@ -1448,7 +1499,7 @@ def grid_cells(ranges) -> int | None:
     return cells if cells <= GRID_LIMIT else None
 
 
-def crowded_triple(cells: int | None, rows: int, points: int = 0) -> bool:
+def crowded_triple(cells: int | None = 0, rows: int = 0, points: int = 0) -> bool:
     """Whether the bound search leaves a triple of columns out as too costly: its values fit
     no grid (``cells`` None) on a table of more than MAX_TRIPLE_POINTS ``rows``, or it has
     more than MAX_TRIPLE_POINTS distinct ``points``."""
@@ -1937,6 +1988,20 @@ def _in_table_units(coefs, constant, scales) -> tuple[list[int], Fraction]:
     return shown, Fraction(constant) / divisor
 
 
+def scaled_bound(bound: Bound, scales: Mapping) -> tuple:
+    """(coefficients, columns, constant, margin) of ``bound`` as the search judged it:
+    ``sum(coef * column) <= constant`` with each column times its scale in ``scales`` (1
+    when absent; a rational column times a common multiple of its denominators), primitive
+    integer coefficients, and the margin of rows close to it in those units: the bound
+    before :func:`_in_table_units` wrote it on the table's own columns."""
+    sign = 1 if bound.relation == "<=" else -1
+    on_scaled = [sign * Fraction(c) / scales.get(name, 1) for name, c in bound.terms]
+    common = math.lcm(*(c.denominator for c in on_scaled))
+    factor = Fraction(common, math.gcd(*(int(c * common) for c in on_scaled)))
+    return ([int(c * factor) for c in on_scaled], [name for name, _ in bound.terms],
+            sign * Fraction(bound.constant) * factor, Fraction(bound.near_margin) * factor)
+
+
 def _unscaled(coefs, scales) -> tuple[list[int], int]:
     shown = [int(c) * s for c, s in zip(coefs, scales)]
     divisor = math.gcd(*shown)
@@ -2324,13 +2389,30 @@ def triple_hull(points: np.ndarray):
         return None
 
 
+def hull_corners(points: np.ndarray) -> np.ndarray:
+    """Of points in one, two or three columns (rows of ``points``, exact): those that can be
+    corners of their hull, the least and greatest of one column, the vertices of two or
+    three (none when three columns' points lie in a plane, see :func:`triple_hull`)."""
+    if not len(points):
+        return points
+    if points.shape[1] == 1:
+        return points[[np.argmin(points[:, 0]), np.argmax(points[:, 0])]]
+    if points.shape[1] == 2:
+        return np.array(exact_hull(points)).reshape(-1, 2)
+    unique = np.unique(points, axis=0)
+    if len(unique) < 5:
+        return unique
+    hull = triple_hull(unique)
+    return unique[:0] if hull is None else unique[np.sort(hull.vertices)]
+
+
 def _triple_bounds(columns, row_ids, facts, *, max_coefficient,
                   table_columns) -> list[Bound] | None:
     names = [c.name for c in columns]
     scales = [c.scale for c in columns]
     integer = all(c.integer for c in columns)
     points = distinct_points(columns)
-    if crowded_triple(0, 0, len(points)):
+    if crowded_triple(points=len(points)):
         return None  # too many distinct points for a hull in three columns to be cheap
     if len(points) < 4:
         return []
@@ -2522,6 +2604,26 @@ def _sharp_bounds(columns, names, row_ids, equalities, *, max_coefficient, robus
     if max_bounds is None:
         return [b for b in distinct if not b.violations] + [b for b in distinct if b.violations]
     return reported_bounds(distinct, max_bounds, notes)
+
+
+def settle_bounds(bounds: list, counts: list, allowed: int, notes: list,
+                  left_out=frozenset()) -> list:
+    """The bounds reported from counts over every row, for an engine that searches some rows
+    and counts on all, ranked and cut as the search does (:func:`reported_bounds`): each of
+    ``bounds`` with its counts (rows counted, rows attaining, their first ids, rows close,
+    rows breaking, their first ids), kept when no row breaks it (at most ``allowed`` rows,
+    for one found broken by a few) unless its columns are a triple in ``left_out``."""
+    kept = []
+    for bound, (present, attained, ids, near, broken, breaking) in zip(bounds, counts):
+        if broken > (allowed if bound.violations else 0) or (
+                len(bound.terms) == 3 and frozenset(n for n, _ in bound.terms) in left_out):
+            continue
+        kept.append(replace(
+            bound, attained_by=tuple(ids[:MAX_LISTED_ROWS].tolist()), attained_count=attained,
+            near=near, holds_on=present - broken,
+            violations=tuple(breaking[: allowed + 1].tolist()),
+            note=recounted_note(bound, attained)))
+    return reported_bounds(sorted(kept, key=bound_rank), MAX_BOUNDS, notes)
 
 
 def reported_bounds(ranked: list[Bound], max_bounds: int, notes: list[str]) -> list[Bound]:

@@ -188,17 +188,10 @@ def _value_counts(frame, offset: int, plan: FeaturePlan) -> list:
 
 
 def _merge_value_counts(a: list, b: list) -> list:
-    out = []
-    for x, y in zip(a, b):
-        if x is None or y is None:
-            out.append(None)
-            continue
-        values = np.concatenate([x[0], y[0]])
-        counts = np.concatenate([x[1], y[1]])
-        unique, inverse = np.unique(values, return_inverse=True)
-        summed = np.bincount(inverse, weights=counts).astype(np.int64)
-        out.append((unique, summed) if len(unique) <= MEDIAN_CAP else None)
-    return out
+    from analysis.features import merge_value_counts
+
+    merged = [None if x is None or y is None else merge_value_counts(x, y) for x, y in zip(a, b)]
+    return [m if m is not None and len(m[0]) <= MEDIAN_CAP else None for m in merged]
 
 
 def on_sample(step, ctx: Context, size: int):

@@ -31,6 +31,7 @@ SAMPLE_ROWS = 20_000
 def run_relations(step, ctx: Context):
     """A RelationsResult for ``step`` on the partitioned table in ``ctx``."""
 
+    from analysis import relations as rel
     from analysis.distributed.source import as_table, sample_table
 
     table = ctx.table
@@ -42,8 +43,8 @@ def run_relations(step, ctx: Context):
     first = step.run(sample)
     pairs, triples = _bound_candidates(table, exact)
     spec = Settings(table=dataclasses.replace(table, frame=None), exact=exact, pairs=pairs,
-                    triples=triples, generators=[_vector(r, exact) for r in first.relations
-                                                 if r.exact and not r.violations])
+                    triples=triples, generators=[rel.relation_vector(r, exact) for r in
+                                                 first.relations if r.exact and not r.violations])
     spec.scales = _scales(ctx, [n for n in exact if table.column(n).dtype == "rational"], spec)
     found = ctx.compute(tree(partition_tasks(ctx, _pass_a, exact, spec), _merge_a))
     found["scales"] = spec.scales
@@ -115,19 +116,6 @@ def _denominators(frame, offset: int, spec: Settings, names: list[str]) -> dict:
             for n, (values, missing) in columns.items()}
 
 
-def _vector(relation, names: list[str]):
-    """The exact relation as integers over ``names`` (every column it has) and a last entry
-    for the constant."""
-    index = {n: j for j, n in enumerate(names)}
-    scale = math.lcm(*(Fraction(c).denominator for _, c in relation.terms),
-                     Fraction(relation.constant).denominator)
-    vector = [0] * (len(names) + 1)
-    for name, coef in relation.terms:
-        vector[index[name]] = int(Fraction(coef) * scale)
-    vector[-1] = -int(Fraction(relation.constant) * scale)
-    return vector
-
-
 def _bound_candidates(table, exact):
     from analysis import relations as rel
 
@@ -157,23 +145,25 @@ def _pass_a(frame, offset: int, spec: Settings) -> dict:
                  "corners": {}, "points": {}, "rank": len(spec.generators)}
     bound = _bound_columns(columns, spec)
     for name, column in bound.items():
-        out["corners"][(name,)] = _corners(column.values[~column.missing].reshape(-1, 1))
+        out["corners"][(name,)] = rel.hull_corners(column.values[~column.missing].reshape(-1, 1))
     for pair in combinations(spec.pairs, 2):
         points = rel.distinct_points([bound[n] for n in pair])
-        out["corners"][pair] = _corners(rel.extremes(*points.coords) if len(points)
-                                        else np.zeros((0, 2), dtype=np.int64))
+        out["corners"][pair] = rel.hull_corners(rel.extremes(*points.coords) if len(points)
+                                                else np.zeros((0, 2), dtype=np.int64))
     for triple in combinations(spec.triples, 3):
         data = np.column_stack(rel.distinct_points([bound[n] for n in triple]).coords)
         # integers past 64 bits take no part in bounds in three columns
         out["points"][triple] = None if data.dtype == object else _capped(data)
-        out["corners"][triple] = _corners(
+        out["corners"][triple] = rel.hull_corners(
             rel.triple_candidates(data) if data.dtype != object and len(data)
             else np.zeros((0, 3), dtype=np.int64))
     return out
 
 
 def _merge_a(a: dict, b: dict) -> dict:
-    corners = {k: _corners(np.concatenate([a["corners"][k], b["corners"][k]]))
+    from analysis.relations import hull_corners
+
+    corners = {k: hull_corners(np.concatenate([a["corners"][k], b["corners"][k]]))
                for k in a["corners"]}
     points = {k: None if x is None or b["points"][k] is None else
               _capped(np.unique(np.vstack([x, b["points"][k]]), axis=0))
@@ -205,29 +195,11 @@ def _spanning(vectors: dict, rank: int) -> dict:
     return kept
 
 
-def _corners(points: np.ndarray) -> np.ndarray:
-    """Of points in one, two or three columns (rows, exact): those that can be corners of
-    their hull, the least and greatest of one column, the vertices of two or three."""
-    from analysis import relations as rel
-
-    if not len(points):
-        return points
-    if points.shape[1] == 1:
-        return points[[np.argmin(points[:, 0]), np.argmax(points[:, 0])]]
-    if points.shape[1] == 2:
-        return np.array(rel.exact_hull(points)).reshape(-1, 2)
-    unique = np.unique(points, axis=0)
-    if len(unique) < 5:
-        return unique
-    hull = rel.triple_hull(unique)
-    return unique[:0] if hull is None else unique[np.sort(hull.vertices)]
-
-
 def _capped(points: np.ndarray):
     """Distinct points of a triple, or None past the count the in-memory search takes."""
-    from analysis import relations as rel
+    from analysis.relations import crowded_triple
 
-    return None if rel.crowded_triple(0, 0, len(points)) else points
+    return None if crowded_triple(points=len(points)) else points
 
 
 def _locate(frame, offset: int, spec: Settings, wanted: dict, positions: np.ndarray):
@@ -267,7 +239,7 @@ def _candidate_rows(sample, positions, located, names, table):
 
 
 # Pass B's settings: exact and real column names; relations (integer vectors over the exact
-# columns and the constant); bounds (see _bound_spec) and the rational columns' scales;
+# columns and the constant); bounds (see relations.scaled_bound) and the rational scales;
 # approximate relations (names, float coefs, constant); congruences (terms, modulus,
 # residue); tolerance; limit (row ids kept per list).
 
@@ -322,20 +294,6 @@ def _added(a, b, limit: int):
     return a + b
 
 
-
-def _bound_spec(bound, scales: dict) -> tuple:
-    """(coefficients, columns, constant, margin) of a bound as the in-memory search judged
-    it: ``sum(coef * column) <= constant`` on its columns in their scaled units (see
-    :func:`_scales`), with primitive integer coefficients, and the margin of rows close to
-    it in those units."""
-    sign = 1 if bound.relation == "<=" else -1
-    on_scaled = [sign * Fraction(c) / scales.get(name, 1) for name, c in bound.terms]
-    common = math.lcm(*(c.denominator for c in on_scaled))
-    factor = Fraction(common, math.gcd(*(int(c * common) for c in on_scaled)))
-    return ([int(c * factor) for c in on_scaled], [name for name, _ in bound.terms],
-            sign * Fraction(bound.constant) * factor, Fraction(bound.near_margin) * factor)
-
-
 def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict):
     """The result: every statement of the second search (and the relations of the first
     that a few rows break) counted on every row, kept as the in-memory step keeps them."""
@@ -349,18 +307,21 @@ def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict)
     every = [r for r in second.relations if r.exact and not r.violations]
     # relations broken by a few rows: those of both searches, and relations of the sample
     # that other rows break
-    known = {tuple(_vector(r, exact)) for r in every}
+    known = {tuple(rel.relation_vector(r, exact)) for r in every}
     candidates = []
     for relation in [*second.relations, *first.relations]:
-        vector = _vector(relation, exact)
+        vector = rel.relation_vector(relation, exact)
         if relation.exact and tuple(vector) not in known:
             known.add(tuple(vector))
             candidates.append((relation, vector))
-    integers, congruences = _proposed_congruences(step, table, sample)
+    integers = rel.congruence_columns(table, step.chosen_columns(table))
+    congruences = cg.proposed_congruences({n: sample.exact(n) for n in integers},
+                                          sample.row_ids) if step.congruences and integers else {}
     spec = Settings(
         table=dataclasses.replace(table, frame=None), exact=exact, real=real,
-        relations=[_vector(r, exact) for r in every] + [v for _, v in candidates],
-        scales=found["scales"], bounds=[_bound_spec(b, found["scales"]) for b in second.bounds],
+        relations=[rel.relation_vector(r, exact) for r in every] + [v for _, v in candidates],
+        scales=found["scales"],
+        bounds=[rel.scaled_bound(b, found["scales"]) for b in second.bounds],
         approximate=[([n for n, _ in r.terms], [float(c) for _, c in r.terms],
                       float(r.constant)) for r in second.approximate],
         congruences=list(congruences), tolerance=float(step.tolerance),
@@ -368,103 +329,43 @@ def _settle(ctx: Context, step, sample, first, second, exact, real, found: dict)
     counts = ctx.compute(tree(partition_tasks(ctx, _pass_b, exact + real, spec),
                               lambda a, b: _added(a, b, spec.limit)))
     notes = list(second.notes)
-    relations = _settled_relations(every, candidates, exact, counts["relations"], allowed,
-                                   notes)
-    bounds = []
-    for bound, (present, attained, ids, near, broken, breaking) in zip(second.bounds,
-                                                                       counts["bounds"]):
-        if broken > (allowed if bound.violations else 0):
-            continue
-        bounds.append(dataclasses.replace(
-            bound, attained_by=tuple(ids[: rel.MAX_LISTED_ROWS].tolist()),
-            attained_count=attained, near=near, holds_on=present - broken,
-            violations=tuple(breaking[: allowed + 1].tolist()),
-            note=rel.recounted_note(bound, attained)))
-    bounds = _drop_crowded_triples(bounds, found, table.n_rows)
-    bounds = rel.reported_bounds(sorted(bounds, key=rel.bound_rank), rel.MAX_BOUNDS, notes)
-    approximate = [dataclasses.replace(r, holds_on=present - off,
-                                       violations=tuple(ids[: allowed + 1].tolist()),
-                                       note=rel.approximate_note(off))
-                   for r, (present, off, ids) in zip(second.approximate, counts["approximate"])
-                   if off <= allowed]
+    broken = [r.text for r, (_, count, _) in zip(every, counts["relations"]) if count]
+    if broken:
+        # cannot happen when the breaking rows were gathered; say so rather than hide it
+        notes.append(Note("dask_relations_broken", "relations of the rows searched that "
+                          "other rows break, left out: " + "; ".join(broken)))
+    relations = rel.settle_relations(every, candidates, counts["relations"], allowed, exact)
+    bounds = rel.settle_bounds(second.bounds, counts["bounds"], allowed, notes,
+                               _crowded_triples(found, table.n_rows))
     if step.robust:
         ctx.notes.append(Note(
             "dask_robust_proposed",
             "relations and bounds broken by a few rows are proposed from the rows "
             "searched (not from every row) and kept when every row's count allows."))
-    settled = dataclasses.replace(second, relations=tuple(relations), bounds=tuple(bounds),
-                                  approximate=tuple(approximate), notes=tuple(notes),
-                                  n_rows=table.n_rows)
+    settled = dataclasses.replace(
+        second, relations=tuple(relations), bounds=tuple(bounds), notes=tuple(notes),
+        approximate=tuple(rel.settle_approximate(second.approximate, counts["approximate"],
+                                                 allowed)), n_rows=table.n_rows)
     return dataclasses.replace(settled, congruences=_settled_congruences(
         ctx, sample, integers, congruences, counts["congruences"], settled))
 
 
-def _settled_relations(every, candidates, exact, counts, allowed: int, notes: list) -> list:
-    """The relations of every row that every row obeys, then those of ``candidates`` that
-    at most ``allowed`` rows break, in the in-memory step's order."""
+def _crowded_triples(found, rows: int) -> set:
+    """The triples of columns that the in-memory search leaves out as too costly
+    (:func:`analysis.relations.crowded_triple`), from every row's ranges and points, so
+    that both engines report the same bounds."""
     from analysis import relations as rel
 
-    every_counts = counts[: len(every)]
-    broken = [r.text for r, (_, count, _) in zip(every, every_counts) if count]
-    if broken:
-        # cannot happen when the breaking rows were gathered; say so rather than hide it
-        notes.append(Note(
-            "dask_relations_broken",
-            "relations of the rows searched that other rows break, left out: "
-            + "; ".join(broken)))
-    settled = [dataclasses.replace(r, holds_on=present)
-               for r, (present, count, _) in zip(every, every_counts) if not count]
-    chosen = rel.robust_choice(
-        [(vector, count, relation, present, ids) for (relation, vector), (present, count, ids)
-         in zip(candidates, counts[len(every):])],
-        [_vector(r, exact) for r in every], lambda c: 0 < c[1] <= allowed)
-    robust = [dataclasses.replace(
-        relation, holds_on=present - count, violations=tuple(ids[: allowed + 1].tolist()),
-        note=rel.robust_note([n for n, _ in relation.terms], count, relation.trivial))
-        for _, count, relation, present, ids in chosen]
-    return rel.ordered_relations(settled, robust)
-
-
-def _drop_crowded_triples(bounds, found, rows: int):
-    """Bounds in three columns of a triple that the in-memory search leaves out as too
-    costly (:func:`analysis.relations.crowded_triple`) are left out here too, so that both
-    engines report the same bounds."""
-    from analysis import relations as rel
-
-    crowded = set()
-    for triple, points in found["points"].items():
-        cells = rel.grid_cells([tuple(map(int, found["corners"][(n,)][:, 0]))
-                                for n in triple])
-        if points is None or rel.crowded_triple(cells, rows, len(points)):
-            crowded.add(frozenset(triple))
-    return [b for b in bounds
-            if len(b.terms) != 3 or frozenset(n for n, _ in b.terms) not in crowded]
+    ranges = {key[0]: tuple(map(int, c[:, 0])) for key, c in found["corners"].items()
+              if len(key) == 1}
+    return {frozenset(triple) for triple, points in found["points"].items()
+            if points is None or rel.crowded_triple(rel.grid_cells([ranges[n] for n in triple]),
+                                                    rows, len(points))}
 
 
 # ----------------------------------------------------------------------------------------
-# Congruences: proposed on the sample, counted on every row (in pass B)
-
-
-def _proposed_congruences(step, table, sample) -> tuple[list, dict]:
-    """The integer columns and {(terms, modulus, residue): congruence} of them on the sample.
-
-    Each modulus is searched on its own (so that no fact there hides a weaker modulus or a
-    pair that only every row can settle); the candidates are counted on every row, and
-    :func:`analysis.congruences.settle_congruences` keeps those the in-memory search would
-    keep.
-    """
-    from analysis import congruences as cg
-    from analysis import relations as rel
-
-    integers = rel.congruence_columns(table, step.chosen_columns(table))
-    if not step.congruences or not integers:
-        return integers, {}
-    columns = {name: sample.exact(name) for name in integers}
-    candidates = {}
-    for modulus in cg.MODULI:
-        for congruence in cg.find_congruences(columns, sample.row_ids, moduli=[modulus]):
-            candidates[(congruence.terms, modulus, congruence.residue)] = congruence
-    return integers, candidates
+# Congruences: proposed on the sample one modulus at a time, counted on every row (in pass
+# B), settled by analysis.congruences.settle_congruences as the in-memory search keeps them
 
 
 def _settled_congruences(ctx: Context, sample, integers, candidates: dict, counts,
@@ -475,8 +376,7 @@ def _settled_congruences(ctx: Context, sample, integers, candidates: dict, count
         return ()
     table = ctx.table
     counted = [dataclasses.replace(congruence, holds_on=present, violation_count=broken,
-                                   violations=tuple(ids[: cg.MAX_LISTED_ROWS].tolist()),
-                                   implied_moduli=())
+                                   violations=tuple(ids[: cg.MAX_LISTED_ROWS].tolist()))
                for congruence, (present, broken, ids) in zip(candidates.values(), counts)]
     laws = [r for r in settled.relations if not r.violations]
     constants = [n for n in integers if table.column(n).distinct == 1]
