@@ -984,10 +984,17 @@ def _note_parts(note) -> tuple:
     return note.figures["parts"] if note_code(note) == "several" else (note,)
 
 
-def approximate_note(breaking: int) -> Note:
-    """The note of an approximate relation that ``breaking`` rows are off."""
-    note = Note("approximate", "approximate: the columns hold floating point values")
-    return joined_note(note, _breakers_note(breaking) if breaking else "")
+def approximate_note(breaking: int, terms: tuple = (), trivial: bool = False) -> Note:
+    """The note of an approximate relation that ``breaking`` rows are off; a trivial one
+    (one column constant, or two ``terms`` equal) says so."""
+    note = joined_note(Note("approximate", "approximate: the columns hold floating point "
+                            "values"), _breakers_note(breaking) if breaking else "")
+    if not trivial:
+        return note
+    return Note("trivial_constant" if len(terms) == 1 else "trivial_equal",
+                ("trivial: a constant column" if len(terms) == 1
+                 else "trivial: two equal columns") + f" ({note})",
+                columns=tuple(name for name, _ in terms), breaking=breaking)
 
 
 def _exact_relations(columns, names, row_ids, *, robust, max_breakers, rng, notes):
@@ -1205,7 +1212,7 @@ def settle_approximate(relations: list, counts: list, allowed: int) -> list:
     with its counts (rows counted, rows off, the first off rows' ids), kept when at most
     ``allowed`` rows are off."""
     return [replace(r, holds_on=present - off, violations=tuple(ids[: allowed + 1].tolist()),
-                    note=approximate_note(off))
+                    note=approximate_note(off, r.terms, r.trivial))
             for r, (present, off, ids) in zip(relations, counts) if off <= allowed]
 
 
@@ -1333,14 +1340,9 @@ def _approximate_relations(
                 continue
             tracker_rows.append(coefs * scale)
             terms = tuple((names[j], snapped[j]) for j in range(width - 1) if snapped[j])
-            note = approximate_note(len(bad))
             trivial = len(terms) == 1 or (
                 len(terms) == 2 and terms[0][1] == -terms[1][1] and snapped[-1] == 0)
-            if trivial:
-                note = Note("trivial_constant" if len(terms) == 1 else "trivial_equal",
-                            ("trivial: a constant column" if len(terms) == 1
-                             else "trivial: two equal columns") + f" ({note})",
-                            columns=tuple(name for name, _ in terms), breaking=len(bad))
+            note = approximate_note(len(bad), terms, trivial)
             found.append((len(bad), Relation(
                 terms=terms, constant=-snapped[-1], holds_on=size - len(bad),
                 violations=tuple(row_ids[used[bad]].tolist()), exact=False, trivial=trivial,

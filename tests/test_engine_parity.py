@@ -798,3 +798,23 @@ def test_nullable_flags_from_parquet_parts_are_flags_with_missing_cells(client, 
     assert table.columns == in_memory.columns
     assert in_memory.column("b").missing == int(frame.b.isna().sum())   # counted by pandas
     assert in_memory.exact("b") == [None if v is pd.NA else int(v) for v in frame.b]
+
+
+def test_approximate_relations_and_their_trivial_notes_are_the_same(client, tmp_path):
+    # sin^2 t + cos^2 t = 1 (the Pythagorean identity) in floating point, and a column that
+    # repeats another: the identity is approximate, the copy trivial, on both engines
+    rng = np.random.default_rng(11)
+    t = rng.uniform(0, 6, 900)
+    frame = pd.DataFrame({"sin2": np.sin(t) ** 2, "cos2": np.cos(t) ** 2,
+                          "again": np.sin(t) ** 2, "k": rng.integers(0, 9, 900)})
+    folder, whole = write_parts(frame, tmp_path / "identity", parts=3)
+    step = make_step("relations", {"bounds": False})
+    expected = step.run(load_table(whole)).to_json()["approximate_relations"]
+    result = run_distributed(step, folder, client=client).to_json()["approximate_relations"]
+    assert result == expected
+    kinds = {r["text"].split(" (")[0]: r["trivial"] for r in result}
+    # the identity is written with either copy of sin^2
+    assert {"sin2 - again = 0": True}.items() <= kinds.items(), kinds
+    assert kinds.get("sin2 + cos2 = 1", kinds.get("cos2 + again = 1")) is False, kinds
+    trivial = next(r for r in result if r["trivial"])
+    assert trivial["note"].startswith("trivial: two equal columns")

@@ -616,3 +616,18 @@ def test_a_log_scaled_threshold_reads_in_the_columns_own_values(q, relation):
                if isinstance(q, Fraction) else value - q).evalf(60)
         holds = gap >= 0 if relation == ">=" else gap <= 0
         assert bool(holds) == (x >= threshold if relation == ">=" else x <= threshold), x
+
+
+def test_value_counts_of_blocks_merge_to_the_counts_of_the_whole_column():
+    # the merge of two blocks' counts equals numpy's count of the joined column (numpy's
+    # unique with return_counts is the reference), with missing cells left out
+    from analysis.features import merge_value_counts, value_counts
+
+    rng = np.random.default_rng(2)
+    column = rng.integers(-4, 9, 500).astype(float)
+    column[rng.choice(500, 40, replace=False)] = np.nan
+    merged = merge_value_counts(value_counts(column[:180]), value_counts(column[180:]))
+    values, counts = np.unique(column[np.isfinite(column)], return_counts=True)
+    np.testing.assert_array_equal(merged[0], values)
+    np.testing.assert_array_equal(merged[1], counts)
+    assert merged[1].sum() == 460
