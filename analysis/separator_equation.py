@@ -26,15 +26,19 @@ def equation_part(run, split_model) -> tuple[dict, object]:
     step = run.step
     n = len(run.y)
     fitted_on = "all rows"
-    if run.big:
-        # a refit on every row of a large table costs twice split 1's fit and moves the
-        # starting direction little; the exact search and its check on every row decide
+    if run.big or n > step.sample_rows:
+        # Past the search's sample a refit on every row only refines the starting direction
+        # of a search that sees a sample anyway, at twice split 1's cost (a large share of
+        # the step): split 1's model starts it, and the exact check on every row decides.
         model = split_model
         fitted_on = "split 1's training rows"
-        run.log.notes.append(Note("equation_from_split", f"the table is large ({n} rows): the "
+        run.log.notes.append(Note("equation_from_split", f"the table has {n} rows, more than "
+                                  f"the equation's search sample of {step.sample_rows}: the "
                                   "separator fitted on split 1's training rows gives the "
-                                  "equation's starting direction and the decision scores, "
-                                  "instead of a refit on every row.", rows=n))
+                                  "equation's starting direction, the decision scores and the "
+                                  "open values' predictions, instead of a refit on every row.",
+                                  rows=n,
+                                  sample=step.sample_rows))
     else:
         model = fit(run, np.arange(n), seed_offset=5000)
     # one evaluation gives a kernel machine's predictions and its decision values

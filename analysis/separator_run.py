@@ -211,7 +211,7 @@ def _first_figures(metrics: dict) -> dict:
 
 def _open_predictions(run: PreparedRun, model, test, predicted) -> list[dict]:
     """Objects whose target is missing or an interval, predicted by ``model`` (fitted on
-    the known rows; split 1's model on a large table), with its confidence."""
+    the known rows; split 1's model past the equation's search sample), with its confidence."""
     from analysis.features import build_features
 
     table, step = run.table, run.step

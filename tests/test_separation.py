@@ -542,6 +542,24 @@ def test_large_tables_use_fewer_permutations_and_a_sampled_equation_search():
     assert result.equation.violations == 0, result.equation.text
 
 
+def test_past_the_search_sample_split_1s_model_starts_the_equation_and_the_note_says_so():
+    # Truth by construction: label = (a - 2b >= 0). Below large_table_rows but past the
+    # search's sample, the equation starts from split 1's model, not a refit on every row.
+    rng = np.random.default_rng(5)
+    frame = pd.DataFrame({name: rng.integers(-9, 10, 400) for name in "abc"})
+    frame["label"] = frame.a - 2 * frame.b >= 0
+    table = _table(frame)
+    sampled = SeparatorStep(target="label", sample_rows=150, seed=0, **FEW).run(table)
+    codes = [getattr(n, "code", None) for n in sampled.notes]
+    assert "equation_from_split" in codes, sampled.notes
+    assert sampled.equation.n_rows == 400 and sampled.equation.violations == 0
+    whole = SeparatorStep(target="label", sample_rows=400, seed=0, **FEW).run(table)
+    assert "equation_from_split" not in [getattr(n, "code", None) for n in whole.notes]
+    # either way the exact check on every row finds the planted rule
+    assert whole.equation.text == sampled.equation.text, (whole.equation.text,
+                                                          sampled.equation.text)
+
+
 def test_mispredicted_lists_confidently_wrong_test_rows():
     # Truth by construction: label = (a > b), with the labels of a few rows far from the
     # boundary flipped. Those rows, when on the test side, are confident mistakes.
