@@ -17,8 +17,9 @@ _TABLE_VALUED_KINDS = ("value", "flag", "onehot", "flat", "sorted", "row_sums", 
 
 
 def equation_part(run, split_model) -> tuple[dict, object]:
-    """Fit on every row, then state the separator as an exact equation checked on every
-    row (the search itself runs on a sample of ``sample_rows`` rows past that size).
+    """Fit on every row (past ``sample_rows`` rows, split 1's model serves instead), then
+    state the separator as an exact equation checked on every row (the search itself runs
+    on a sample of ``sample_rows`` rows past that size).
 
     Returns the result's fields (``equation``, ``equations``, ``surrogate`` or ``formula``,
     and ``decision``: the fields of its decision scores) and the model fitted on every row.
@@ -37,8 +38,7 @@ def equation_part(run, split_model) -> tuple[dict, object]:
                                   "separator fitted on split 1's training rows gives the "
                                   "equation's starting direction, the decision scores and the "
                                   "open values' predictions, instead of a refit on every row.",
-                                  rows=n,
-                                  sample=step.sample_rows))
+                                  rows=n, sample=step.sample_rows))
     else:
         model = fit(run, np.arange(n), seed_offset=5000)
     # one evaluation gives a kernel machine's predictions and its decision values
